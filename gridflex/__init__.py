@@ -1,0 +1,40 @@
+"""gridflex: flexure of the lithosphere under arbitrary mapped loads.
+
+Loads (Pa, positive down) on a regular grid in metres go in; an
+:class:`xarray.Dataset` with the plate deflection (m, positive down) comes out.
+"""
+
+import logging
+
+from ._version import __version__
+from .errors import (
+    ConvergenceError,
+    EdgeLoadWarning,
+    GridflexError,
+    GridflexWarning,
+    InputError,
+)
+from .loads import pressure_from_height, pressure_from_layers
+from .plate import Plate, rigidity_from_te, te_from_rigidity
+from .solve import solve
+
+logging.getLogger(__name__).addHandler(logging.NullHandler())
+
+__all__ = [
+    "__version__",
+    # model
+    "Plate",
+    "rigidity_from_te",
+    "te_from_rigidity",
+    # loads
+    "pressure_from_height",
+    "pressure_from_layers",
+    # solving
+    "solve",
+    # errors and warnings
+    "GridflexError",
+    "InputError",
+    "ConvergenceError",
+    "GridflexWarning",
+    "EdgeLoadWarning",
+]

@@ -1,0 +1,226 @@
+"""The elastic plate: parameters, flexural rigidity and length scales."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any, Union
+
+import numpy as np
+import xarray as xr
+
+from .errors import InputError
+
+__all__ = ["Plate", "rigidity_from_te", "te_from_rigidity"]
+
+TeLike = Union[float, xr.DataArray]
+
+
+def rigidity_from_te(te: Any, youngs_modulus: float, poisson_ratio: float) -> Any:
+    """Flexural rigidity of a thin elastic plate.
+
+    .. math:: D = \\frac{E\\,T_e^3}{12\\,(1-\\nu^2)}
+
+    Parameters
+    ----------
+    te : float or array_like
+        Elastic thickness (m).
+    youngs_modulus : float
+        Young's modulus E (Pa).
+    poisson_ratio : float
+        Poisson's ratio nu (dimensionless).
+
+    Returns
+    -------
+    float or array_like
+        Rigidity D (N m), same type as *te*.
+    """
+    return youngs_modulus * te**3 / (12.0 * (1.0 - poisson_ratio**2))
+
+
+def te_from_rigidity(rigidity: Any, youngs_modulus: float, poisson_ratio: float) -> Any:
+    """Elastic thickness (m) of a plate of rigidity *rigidity* (N m); inverse of
+    :func:`rigidity_from_te`."""
+    return (12.0 * (1.0 - poisson_ratio**2) * rigidity / youngs_modulus) ** (1.0 / 3.0)
+
+
+def _check_positive(name: str, value: float) -> float:
+    try:
+        value = float(value)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{name} must be a number, got {value!r}") from exc
+    if not math.isfinite(value) or value <= 0.0:
+        raise InputError(f"{name} must be a finite positive number, got {value!r}")
+    return value
+
+
+@dataclass(frozen=True, eq=False)
+class Plate:
+    """A thin elastic plate floating on a fluid mantle.
+
+    Parameters
+    ----------
+    te : float or xarray.DataArray
+        Effective elastic thickness Te (m). A float gives a plate of constant
+        rigidity; ``0`` gives local (Airy) isostasy. A DataArray on the load grid
+        (dims ``("y", "x")``) gives a spatially varying rigidity; cells with ``0``
+        are broken (no bending moment crosses them).
+    youngs_modulus : float, default 1.0e11
+        Young's modulus E (Pa).
+    poisson_ratio : float, default 0.25
+        Poisson's ratio nu, in (0, 0.5).
+    mantle_density : float, default 3300.0
+        Density of the fluid substratum rho_m (kg m^-3).
+    infill_density : float, default 1030.0
+        Density rho_f of the material that fills the deflection (kg m^-3): sea water
+        by default; 0 for air, the load density for a load buried in its own moat.
+    gravity : float, default 9.81
+        Gravitational acceleration g (m s^-2).
+
+    Raises
+    ------
+    InputError
+        If any value is out of range; the message names the parameter and value.
+
+    Notes
+    -----
+    The restoring pressure of a deflection w is (rho_m - rho_f) g w, so the plate
+    equation solved is D ∇⁴w + (rho_m - rho_f) g w = q (w and q positive downward).
+
+    Examples
+    --------
+    >>> plate = Plate(te=25e3, youngs_modulus=70e9, infill_density=1000.0)
+    >>> round(plate.rigidity / 1e21, 3)
+    97.222
+    >>> round(plate.flexural_parameter / 1e3, 2)
+    67.11
+    """
+
+    te: TeLike
+    youngs_modulus: float = 1.0e11
+    poisson_ratio: float = 0.25
+    mantle_density: float = 3300.0
+    infill_density: float = 1030.0
+    gravity: float = 9.81
+
+    def __post_init__(self) -> None:
+        set_ = object.__setattr__
+        set_(self, "youngs_modulus", _check_positive("youngs_modulus", self.youngs_modulus))
+        set_(self, "mantle_density", _check_positive("mantle_density", self.mantle_density))
+        set_(self, "gravity", _check_positive("gravity", self.gravity))
+        nu = self.poisson_ratio
+        if not isinstance(nu, (int, float)) or not (0.0 < float(nu) < 0.5):
+            raise InputError(f"poisson_ratio must lie in (0, 0.5), got {nu!r}")
+        set_(self, "poisson_ratio", float(nu))
+        rho_f = self.infill_density
+        if not isinstance(rho_f, (int, float)) or not math.isfinite(rho_f) or rho_f < 0:
+            raise InputError(f"infill_density must be a finite number >= 0, got {rho_f!r}")
+        if rho_f >= self.mantle_density:
+            raise InputError(
+                f"infill_density ({rho_f!r}) must be less than mantle_density "
+                f"({self.mantle_density!r}); otherwise nothing restores the plate"
+            )
+        set_(self, "infill_density", float(rho_f))
+        set_(self, "te", self._checked_te(self.te))
+
+    @staticmethod
+    def _checked_te(te: Any) -> TeLike:
+        if isinstance(te, xr.DataArray):
+            values = np.asarray(te.values, dtype=np.float64)
+            if values.ndim != 2 or te.dims != ("y", "x"):
+                raise InputError(f"te grid must have dims ('y', 'x'), got {te.dims!r}")
+            if not np.all(np.isfinite(values)):
+                raise InputError("te grid contains NaN or infinite values")
+            if values.min() < 0.0:
+                raise InputError(f"te grid must be >= 0 m everywhere, minimum is {values.min()!r}")
+            return te.astype(np.float64)
+        try:
+            value = float(te)
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"te must be a number of metres or a DataArray, got {te!r}") from exc
+        if not math.isfinite(value) or value < 0.0:
+            raise InputError(f"te must be a finite number >= 0 (metres), got {te!r}")
+        return value
+
+    @property
+    def is_variable(self) -> bool:
+        """True when te is a grid (spatially varying rigidity)."""
+        return isinstance(self.te, xr.DataArray)
+
+    @property
+    def density_contrast(self) -> float:
+        """rho_m - rho_infill (kg m^-3), the density that restores a deflection."""
+        return self.mantle_density - self.infill_density
+
+    @property
+    def restoring_stiffness(self) -> float:
+        """(rho_m - rho_infill) g (Pa m^-1), restoring pressure per metre of deflection."""
+        return self.density_contrast * self.gravity
+
+    @property
+    def rigidity(self) -> TeLike:
+        """Flexural rigidity D = E Te^3 / (12 (1 - nu^2)) (N m); a grid if te is one."""
+        return rigidity_from_te(self.te, self.youngs_modulus, self.poisson_ratio)
+
+    @property
+    def flexural_parameter(self) -> TeLike:
+        """alpha = (4 D / ((rho_m - rho_infill) g))^(1/4) (m), for line loads."""
+        return (4.0 * self.rigidity / self.restoring_stiffness) ** 0.25
+
+    @property
+    def relative_stiffness_radius(self) -> TeLike:
+        """l = (D / ((rho_m - rho_infill) g))^(1/4) = alpha / sqrt(2) (m), for point loads."""
+        return (self.rigidity / self.restoring_stiffness) ** 0.25
+
+    @property
+    def max_flexural_parameter(self) -> float:
+        """Largest alpha over the plate (m); alpha itself for a constant te."""
+        alpha = self.flexural_parameter
+        return float(alpha.max()) if isinstance(alpha, xr.DataArray) else float(alpha)
+
+    def with_te(self, te: TeLike) -> "Plate":
+        """A copy of this plate with another elastic thickness."""
+        return Plate(
+            te,
+            youngs_modulus=self.youngs_modulus,
+            poisson_ratio=self.poisson_ratio,
+            mantle_density=self.mantle_density,
+            infill_density=self.infill_density,
+            gravity=self.gravity,
+        )
+
+    @classmethod
+    def from_rigidity(cls, rigidity: float, **kwargs: Any) -> "Plate":
+        """A plate given by its flexural rigidity D (N m) instead of te.
+
+        Other keyword arguments are those of :class:`Plate`. The te stored is the
+        one that gives *rigidity* with the plate's Young's modulus and Poisson's ratio.
+        """
+        d = float(rigidity)
+        if not math.isfinite(d) or d < 0.0:
+            raise InputError(f"rigidity must be a finite number >= 0 (N m), got {rigidity!r}")
+        e = kwargs.get("youngs_modulus", 1.0e11)
+        nu = kwargs.get("poisson_ratio", 0.25)
+        cls(0.0, **kwargs)  # validates e and nu before they are used
+        return cls(te_from_rigidity(d, e, nu), **kwargs)
+
+    def describe(self) -> dict[str, Any]:
+        """Parameters as a flat dict of numbers and strings (for output attributes)."""
+        te: Any = "grid" if self.is_variable else self.te
+        out: dict[str, Any] = {
+            "te": te,
+            "youngs_modulus": self.youngs_modulus,
+            "poisson_ratio": self.poisson_ratio,
+            "mantle_density": self.mantle_density,
+            "infill_density": self.infill_density,
+            "gravity": self.gravity,
+        }
+        if not self.is_variable:
+            out["rigidity"] = float(self.rigidity)
+            out["flexural_parameter"] = float(self.flexural_parameter)
+        else:
+            te_grid = self.te
+            assert isinstance(te_grid, xr.DataArray)
+            out["te_min"] = float(te_grid.min())
+            out["te_max"] = float(te_grid.max())
+        return out

@@ -1,0 +1,209 @@
+"""The one entry point for a flexure solve: check the grid, pick the solver, wrap
+the answer in an :class:`xarray.Dataset` that records how it was made."""
+
+from __future__ import annotations
+
+import logging
+import warnings
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from ._version import __version__
+from .errors import EdgeLoadWarning, InputError
+from .grid import check_grid
+from .plate import Plate
+from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
+
+__all__ = ["EDGES", "METHODS", "SIGN_CONVENTION", "solve", "deflection_attrs", "result_dataset"]
+
+log = logging.getLogger(__name__)
+
+METHODS = ("auto", "spectral", "finite-difference")
+"""Accepted values of ``solve(method=...)``."""
+
+EDGES = ("infinite", "periodic")
+"""Accepted values of ``solve(edges=...)`` for the spectral solver."""
+
+SIGN_CONVENTION = (
+    "deflection positive downward; load positive downward; "
+    "in-plane force positive in tension"
+)
+
+_EDGE_CELLS = 2
+_EDGE_WARN_FRACTION = 1e-3
+
+
+def deflection_attrs() -> dict[str, str]:
+    """CF-style attributes of the ``deflection`` variable."""
+    return {"units": "m", "long_name": "plate deflection (positive downward)"}
+
+
+def _check_choice(name: str, value: Any, allowed: tuple[str, ...]) -> str:
+    if value not in allowed:
+        raise InputError(f"{name} must be one of {', '.join(map(repr, allowed))}; got {value!r}")
+    return str(value)
+
+
+def _check_force(name: str, value: Any) -> float:
+    try:
+        force = float(value)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{name} must be a number (N/m, tension positive), got {value!r}") from exc
+    if not np.isfinite(force):
+        raise InputError(f"{name} must be finite (N/m), got {value!r}")
+    return force
+
+
+def _warn_edge_load(values: np.ndarray) -> None:
+    """Warn when a share of the load touches the grid edge (it ends there)."""
+    magnitude = np.abs(values)
+    total = float(magnitude.sum())
+    if total == 0.0:
+        return
+    e = _EDGE_CELLS
+    inner = float(magnitude[e:-e, e:-e].sum()) if min(values.shape) > 2 * e else 0.0
+    fraction = (total - inner) / total
+    if fraction > _EDGE_WARN_FRACTION:
+        warnings.warn(
+            f"{fraction:.1%} of the load lies within {e} cells of the grid edge; the "
+            "infinite-plate solve treats the load as ending there. Enlarge the grid, "
+            "or use edges='periodic' if the load really repeats.",
+            EdgeLoadWarning,
+            stacklevel=3,
+        )
+
+
+def result_dataset(
+    load: xr.DataArray, deflection: np.ndarray, plate: Plate, attrs: dict[str, Any]
+) -> xr.Dataset:
+    """Wrap a deflection array in a Dataset on *load*'s grid with provenance attributes.
+
+    Parameters
+    ----------
+    load : xarray.DataArray
+        The load (Pa) that was solved; kept as variable ``load``.
+    deflection : numpy.ndarray
+        w (m, positive down), same shape as *load*.
+    plate : Plate
+        The plate used; its parameters go into the attributes.
+    attrs : dict
+        Solver-specific attributes (method, edges, residuals ...).
+    """
+    load_var = load.copy(deep=False)
+    load_var.attrs = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
+    data_vars: dict[str, Any] = {
+        "deflection": (("y", "x"), deflection, deflection_attrs()),
+        "load": load_var.variable,
+    }
+    all_attrs: dict[str, Any] = {
+        "Conventions": "CF-1.8",
+        "title": "thin elastic plate flexure",
+        "source": f"gridflex {__version__}",
+        "gridflex_version": __version__,
+        "sign_convention": SIGN_CONVENTION,
+    }
+    all_attrs.update({f"plate_{k}": v for k, v in plate.describe().items()})
+    all_attrs.update(attrs)
+    coords = {"y": load["y"].variable, "x": load["x"].variable}
+    return xr.Dataset(data_vars, coords=coords, attrs=all_attrs)
+
+
+def solve(
+    load: xr.DataArray,
+    plate: Plate,
+    method: str = "auto",
+    *,
+    edges: str = "infinite",
+    inplane_force_x: float = 0.0,
+    inplane_force_y: float = 0.0,
+    pad_factor: float = DEFAULT_PAD_FACTOR,
+) -> xr.Dataset:
+    """Deflection of an elastic plate under a gridded load.
+
+    Solves
+
+    .. math:: D \\nabla^4 w - N_x \\partial_{xx} w - N_y \\partial_{yy} w
+              + (\\rho_m - \\rho_f) g w = q
+
+    with w (m) and q (Pa) positive **downward** and the in-plane forces N (N m⁻¹)
+    positive in **tension** (compression negative).
+
+    Parameters
+    ----------
+    load : xarray.DataArray
+        Vertical stress q (Pa, positive downward), dims ``("y", "x")``, with 1-D
+        evenly spaced coordinates in metres (increasing or decreasing).
+    plate : Plate
+        Elastic thickness, moduli and densities.
+    method : {"auto", "spectral", "finite-difference"}, default "auto"
+        ``"auto"`` uses the FFT solver for a constant te.
+    edges : {"infinite", "periodic"}, default "infinite"
+        ``"infinite"``: the grid is a window onto an infinite plate with no load
+        outside it; the load is zero-padded by *pad_factor* decay lengths on each
+        side (no wrap-around). ``"periodic"``: the domain repeats (no padding).
+    inplane_force_x, inplane_force_y : float, default 0
+        Horizontal in-plane force per unit length along x and along y (N m⁻¹,
+        tension positive). Compression must stay below the buckling limit
+        2 sqrt(D (rho_m - rho_f) g).
+    pad_factor : float, default 4.5
+        Padding on each side in decay lengths (the flexural parameter without
+        in-plane force); ignored when periodic.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``deflection`` (m, positive down) and ``load`` (Pa) on the load's grid;
+        attributes record the plate, the solver, ``padded_shape`` (ny, nx) and the
+        global force-balance residual ``force_balance_residual``.
+
+    Raises
+    ------
+    InputError
+        Invalid grid, parameters, or compression beyond buckling.
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> x = np.arange(64) * 2e3
+    >>> q = xr.DataArray(np.zeros((64, 64)), dims=("y", "x"), coords={"y": x, "x": x})
+    >>> q[32, 32] = 1e7
+    >>> result = solve(q, Plate(te=10e3))
+    >>> result["deflection"].dims
+    ('y', 'x')
+    """
+    if not isinstance(plate, Plate):
+        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
+    spec = check_grid(load)
+    method = _check_choice("method", method, METHODS)
+    edges = _check_choice("edges", edges, EDGES)
+    force_x = _check_force("inplane_force_x", inplane_force_x)
+    force_y = _check_force("inplane_force_y", inplane_force_y)
+    if method == "auto":
+        method = "finite-difference" if plate.is_variable else "spectral"
+    if method == "finite-difference" or plate.is_variable:
+        raise InputError(
+            "the finite-difference solver for a spatially varying te is not available "
+            "in this version; give te as a single number"
+        )
+    values = np.asarray(load.values, dtype=np.float64)
+    if edges == "infinite":
+        _warn_edge_load(values)
+    problem = SpectralProblem.build(
+        spec, float(plate.rigidity), plate.restoring_stiffness, force_x, force_y,
+        periodic=(edges == "periodic"), pad_factor=pad_factor,
+    )
+    log.info("spectral solve on %s grid, FFT grid %s", spec.shape, problem.shape)
+    deflection, balance = problem.deflection(values)
+    attrs = {
+        "solver": "spectral",
+        "spectral_symbol": "continuous",
+        "edges": edges,
+        "padded_shape": np.array(problem.shape, dtype=np.int64),
+        "pad_factor": float(pad_factor) if edges == "infinite" else 0.0,
+        "inplane_force_x": force_x,
+        "inplane_force_y": force_y,
+        "force_balance_residual": balance,
+    }
+    return result_dataset(load, deflection, plate, attrs)
