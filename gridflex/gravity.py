@@ -95,6 +95,7 @@ def parker_series(
     *,
     periodic: bool = False,
     pad_factor: float = DEFAULT_GRAVITY_PAD_FACTOR,
+    shape: tuple[int, int] | None = None,
 ) -> tuple[np.ndarray, dict[str, float]]:
     """Anomaly (mGal) of ``contrast * [H(s - z) - H(r - z)]`` on numpy arrays.
 
@@ -115,6 +116,10 @@ def parker_series(
         deepest interface depth on each side.
     pad_factor : float
         See *periodic*.
+    shape : tuple of int, optional
+        FFT grid shape to use instead (>= the grid shape); several interfaces
+        whose anomalies are added must share one shape so that their periodic
+        images cancel as the masses do.
 
     Returns
     -------
@@ -143,10 +148,8 @@ def parker_series(
     z_mid = plane_depth - mid  # depth of the level the series is summed about (> 0)
     ratio = 0.5 * (h_max - h_min) / z_mid
     ny, nx = spec.shape
-    if periodic:
-        shape = spec.shape
-    else:
-        shape = padded_shape(spec, pad_factor * (plane_depth - h_min))
+    if shape is None:
+        shape = spec.shape if periodic else padded_shape(spec, pad_factor * (plane_depth - h_min))
     n = shape[0] * shape[1]
     check_memory(8.0 * n * 6, f"gravity series on a padded grid of {shape[0]} x {shape[1]}")
     ky2, kx2 = wavenumbers_squared(shape, spec.dy, spec.dx)

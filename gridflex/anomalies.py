@@ -1,0 +1,292 @@
+"""Free-air and Bouguer anomalies of a flexure result.
+
+The column after loading is, from the top (PHYSICS.md sections 5.1 and 6.3):
+water up to sea level (air above it), a fill layer (sediment of thickness
+``fill_sediment`` for an infill result; the constant-density infill of the
+plate, thickness w, for a plain :func:`gridflex.solve` result), the load
+(density rho_l, ``load_height`` above the reference surface), the crust
+(rho_c, ``crust_thickness``) and the mantle (rho_m), all below the fill moved
+down by w. The reference state is the same column before loading: water,
+crust with its top on the reference surface, mantle.
+
+Each state is written as a sum of steps c_i(x) H(s_i(x) - z) (s_i the
+interface elevation, c_i the density below minus the density above; the sea
+surface is the step rho_w at max(top, 0)). Every step is summed with
+:func:`gridflex.gravity.parker_series` relative to sea level; since the steps
+of both states add up to rho_m in every column, the flat parts cancel exactly
+and the free-air anomaly is the final sum minus the reference sum
+(superposition; no linearisation). The Bouguer anomaly subtracts the
+attraction of the final topography relative to sea level with the reduction
+density (PHYSICS.md 6.4): +rho_B above sea level, -(rho_B - rho_w) for the sea.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import warnings
+from typing import Any, Union
+
+import numpy as np
+import xarray as xr
+
+from .errors import GravitySeriesWarning, InputError
+from .grid import check_grid, check_same_grid, padded_shape
+from .gravity import DEFAULT_GRAVITY_PAD_FACTOR, GRAVITY_EDGES, _check_terms, parker_series
+from .prisms import GRAVITATIONAL_CONSTANT
+
+__all__ = ["BOUGUER_DENSITY", "model_free_air_anomaly", "model_gravity"]
+
+log = logging.getLogger(__name__)
+
+BOUGUER_DENSITY = 2670.0
+"""Default Bouguer reduction density (kg m^-3), the conventional crustal value."""
+
+Surface = Union[float, xr.DataArray]
+
+
+def _field(value: Any, reference: xr.DataArray, name: str) -> np.ndarray:
+    if isinstance(value, xr.DataArray):
+        check_grid(value, name)
+        check_same_grid(value, reference, name)
+        return np.asarray(value.values, dtype=np.float64)
+    try:
+        number = float(value)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{name} must be a number or a grid, got {value!r}") from exc
+    if not math.isfinite(number):
+        raise InputError(f"{name} must be finite, got {value!r}")
+    return np.full(reference.shape, number)
+
+
+def _pick(name: str, given: Any, result: xr.Dataset, attr: str, default: Any = None) -> Any:
+    if given is not None:
+        return given
+    if attr in result.attrs and not isinstance(result.attrs[attr], str):
+        return result.attrs[attr]
+    if default is not None:
+        return default
+    raise InputError(f"{name} is needed: pass {name}= or use a result whose attributes hold {attr!r}")
+
+
+def _number(name: str, value: Any) -> float:
+    try:
+        number = float(value)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{name} must be a number, got {value!r}") from exc
+    if not math.isfinite(number):
+        raise InputError(f"{name} must be finite, got {value!r}")
+    return number
+
+
+def _columns(result: xr.Dataset, options: dict[str, Any]):
+    """Interfaces (elevation above sea level, contrast) of the final and reference states."""
+    if not isinstance(result, xr.Dataset) or "deflection" not in result:
+        raise InputError("result must be an xarray.Dataset with a 'deflection' variable")
+    w_da = result["deflection"]
+    check_grid(w_da, "deflection")
+    w = np.asarray(w_da.values, dtype=np.float64)
+    sea = _number("sea_level", _pick("sea_level", options["sea_level"], result, "infill_sea_level", 0.0))
+    rho_w = _number("water_density", _pick("water_density", options["water_density"], result,
+                                           "infill_water_density", 1030.0))
+    rho_c = _number("crust_density", _pick("crust_density", options["crust_density"], result,
+                                           "plate_crust_density"))
+    t_c = _number("crust_thickness", _pick("crust_thickness", options["crust_thickness"], result,
+                                           "plate_crust_thickness"))
+    rho_m = _number("mantle_density", _pick("mantle_density", options["mantle_density"], result,
+                                            "plate_mantle_density"))
+    if t_c <= 0:
+        raise InputError(f"crust_thickness must be > 0 m, got {t_c!r}")
+    ref_given = options["reference_surface"]
+    if ref_given is None:
+        if "reference_surface" not in result:
+            raise InputError("reference_surface (m, positive up: the surface under the load "
+                             "before loading) is needed: pass it or use a load Dataset result")
+        ref_given = result["reference_surface"]
+    z_ref = _field(ref_given, w_da, "reference_surface") - sea
+    height_given = options["load_height"]
+    if height_given is None:
+        if "load_height" in result:
+            height_given = result["load_height"]
+        elif "initial_surface" in result:
+            height_given = result["initial_surface"] - sea - xr.DataArray(z_ref, dims=w_da.dims)
+        else:
+            raise InputError("load_height (m) is needed: pass it or use a load Dataset result")
+    h_l = _field(height_given, w_da, "load_height")
+    if options["load_density"] is None and "load_density" not in result.attrs and np.any(h_l):
+        raise InputError("load_density (kg/m^3) is needed: pass it or use a load Dataset result")
+    rho_l = _number("load_density", _pick("load_density", options["load_density"], result,
+                                          "load_density", rho_c))
+    if "fill_sediment" in result:
+        fill = np.asarray(result["fill_sediment"].values, dtype=np.float64)
+        rho_fill = float(result.attrs.get("infill_sediment_density", rho_w))
+    else:  # constant-density infill of a plain solve: thickness w of plate_infill_density
+        fill = w
+        rho_fill = _number("infill density", _pick("infill density", None, result,
+                                                  "plate_infill_density"))
+    z0 = z_ref + h_l
+    top = z0 - w + fill
+    final = [
+        (np.maximum(top, 0.0), rho_w),
+        (top, rho_fill - rho_w),
+        (z0 - w, rho_l - rho_fill),
+        (z_ref - w, rho_c - rho_l),
+        (z_ref - t_c - w, rho_m - rho_c),
+    ]
+    reference = [
+        (np.maximum(z_ref, 0.0), rho_w),
+        (z_ref, rho_c - rho_w),
+        (z_ref - t_c, rho_m - rho_c),
+    ]
+    info = {"water_density": rho_w, "crust_density": rho_c, "crust_thickness": t_c,
+            "mantle_density": rho_m, "load_density": rho_l, "fill_density": rho_fill,
+            "sea_level": sea}
+    return w_da, top, final, reference, info
+
+
+def _sum(interfaces, spec, plane, terms, shape) -> tuple[np.ndarray, float]:
+    total = np.zeros(spec.shape)
+    last = 0.0
+    for elevation, contrast in interfaces:
+        if contrast == 0.0 or not np.any(elevation):
+            continue
+        anomaly, info = parker_series(elevation, contrast, plane, spec, terms, shape=shape)
+        total += anomaly
+        last = max(last, info["last_term"])
+    return total, last
+
+
+def model_gravity(
+    result: xr.Dataset,
+    *,
+    observation_height: float = 0.0,
+    terms: int = 6,
+    bouguer_density: float = BOUGUER_DENSITY,
+    reference_surface: Surface | None = None,
+    load_height: xr.DataArray | None = None,
+    load_density: float | None = None,
+    crust_thickness: float | None = None,
+    crust_density: float | None = None,
+    mantle_density: float | None = None,
+    water_density: float | None = None,
+    sea_level: float | None = None,
+    edges: str = "infinite",
+    pad_factor: float = DEFAULT_GRAVITY_PAD_FACTOR,
+) -> xr.Dataset:
+    """Free-air and Bouguer anomalies (mGal) of a flexure result.
+
+    Parameters
+    ----------
+    result : xarray.Dataset
+        From :func:`gridflex.solve_with_infill` (uses ``deflection``,
+        ``fill_sediment``, the load geometry and the attributes) or from
+        :func:`gridflex.solve` (then the depression is taken as filled with
+        ``plate_infill_density`` material, and the load geometry must be given).
+    observation_height : float, default 0.0
+        Height of the level observation plane above sea level (m); it must be
+        above the highest point of the final surface.
+    terms : int, default 6
+        Terms of each Parker series.
+    bouguer_density : float, default 2670.0
+        Reduction density rho_B (kg m^-3).
+    reference_surface : float or xarray.DataArray, optional
+        Elevation of the surface under the load before loading (m, positive up);
+        default the result's ``reference_surface``.
+    load_height : xarray.DataArray, optional
+        Thickness of the load above the reference surface (m); default the
+        result's ``load_height`` (or ``initial_surface - reference_surface``).
+    load_density : float, optional
+        Load density; default the result's ``load_density`` attribute (required
+        when the load has a height).
+    crust_thickness, crust_density, mantle_density : float, optional
+        Default: the result's ``plate_*`` attributes (from :class:`gridflex.Plate`).
+    water_density, sea_level : float, optional
+        Default: the result's ``infill_*`` attributes, else 1030 and 0.
+    edges : {"infinite", "periodic"}, default "infinite"
+        As in :func:`gridflex.interface_gravity`.
+    pad_factor : float, default 4.5
+        Padding in multiples of the deepest interface depth.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``free_air_anomaly`` and ``bouguer_anomaly`` (mGal, positive for mass
+        excess) on the result's grid, with the densities used as attributes.
+
+    Raises
+    ------
+    InputError
+        Missing geometry or densities, or a surface reaching the observation plane.
+    """
+    options = {
+        "reference_surface": reference_surface, "load_height": load_height,
+        "load_density": load_density, "crust_thickness": crust_thickness,
+        "crust_density": crust_density, "mantle_density": mantle_density,
+        "water_density": water_density, "sea_level": sea_level,
+    }
+    terms = _check_terms(terms)
+    if edges not in GRAVITY_EDGES:
+        raise InputError(f"edges must be one of {GRAVITY_EDGES!r}, got {edges!r}")
+    height = _number("observation_height", observation_height)
+    rho_b = _number("bouguer_density", bouguer_density)
+    w_da, top, final, reference, info = _columns(result, options)
+    spec = check_grid(w_da, "deflection")
+    if float(top.max()) >= height:
+        raise InputError(
+            f"observation_height ({height!r} m) must be above the highest point of the final "
+            f"surface ({float(top.max()) + info['sea_level']:.6g} m); the series needs every "
+            "mass below the observation plane"
+        )
+    deepest = height - min(float(e.min()) for e, _ in final + reference)
+    shape = spec.shape if edges == "periodic" else padded_shape(spec, pad_factor * deepest)
+    fa_final, last_f = _sum(final, spec, height, terms, shape)
+    fa_ref, last_r = _sum(reference, spec, height, terms, shape)
+    free_air = fa_final - fa_ref
+    rho_w = info["water_density"]
+    topo_contrast = np.where(top > 0.0, rho_b, rho_b - rho_w)
+    topo, last_t = parker_series(top, topo_contrast, height, spec, terms, shape=shape)
+    bouguer = free_air - topo
+    last = max(last_f, last_r, last_t["last_term"] if terms > 1 else 0.0)
+    spread = float(free_air.max() - free_air.min())
+    if terms > 1 and last > max(0.01 * spread, 1e-3):
+        warnings.warn(
+            f"gravity series not converged: the last of {terms} terms still changes an "
+            f"interface's anomaly by {last:.3g} mGal (free-air range {spread:.3g} mGal); "
+            "use more terms or a higher observation_height",
+            GravitySeriesWarning,
+            stacklevel=2,
+        )
+    log.info("model gravity: %d terms, FFT grid %s, last term %.3g mGal", terms, shape, last)
+    coords = {"y": w_da["y"].variable, "x": w_da["x"].variable}
+    attrs = {f"gravity_{k}": v for k, v in info.items()}
+    attrs.update({
+        "gravity_observation_height": height,
+        "gravity_series_terms": terms,
+        "gravity_series_last_term": last,
+        "gravity_bouguer_density": rho_b,
+        "gravitational_constant": GRAVITATIONAL_CONSTANT,
+        "gravity_edges": edges,
+    })
+    return xr.Dataset(
+        {
+            "free_air_anomaly": (("y", "x"), free_air, {
+                "units": "mGal", "long_name": "free-air gravity anomaly of the flexure model"}),
+            "bouguer_anomaly": (("y", "x"), bouguer, {
+                "units": "mGal", "long_name": "Bouguer gravity anomaly of the flexure model",
+                "bouguer_density": rho_b}),
+        },
+        coords=coords,
+        attrs=attrs,
+    )
+
+
+def model_free_air_anomaly(result: xr.Dataset, **options: Any) -> xr.DataArray:
+    """Free-air anomaly (mGal) of a flexure result, for comparison with observations.
+
+    Same arguments as :func:`model_gravity` (keyword-only); returns its
+    ``free_air_anomaly`` variable with the gravity attributes.
+    """
+    gravity = model_gravity(result, **options)
+    out = gravity["free_air_anomaly"]
+    out.attrs.update(gravity.attrs)
+    return out
