@@ -10,11 +10,21 @@ from ._version import __version__
 from .errors import (
     ConvergenceError,
     EdgeLoadWarning,
+    GravitySeriesWarning,
     GridflexError,
     GridflexWarning,
     InputError,
 )
-from .loads import pressure_from_height, pressure_from_layers
+from .anomalies import model_free_air_anomaly, model_gravity
+from .gravity import interface_gravity
+from .infill import Infill, solve_with_infill
+from .loads import (
+    load_from_elevation,
+    load_from_layers,
+    pressure_from_height,
+    pressure_from_layers,
+    regional_surface,
+)
 from .plate import Plate, rigidity_from_te, te_from_rigidity
 from .solve import solve
 
@@ -29,12 +39,22 @@ __all__ = [
     # loads
     "pressure_from_height",
     "pressure_from_layers",
+    "load_from_elevation",
+    "load_from_layers",
+    "regional_surface",
     # solving
     "solve",
+    "Infill",
+    "solve_with_infill",
+    # gravity
+    "interface_gravity",
+    "model_gravity",
+    "model_free_air_anomaly",
     # errors and warnings
     "GridflexError",
     "InputError",
     "ConvergenceError",
     "GridflexWarning",
     "EdgeLoadWarning",
+    "GravitySeriesWarning",
 ]

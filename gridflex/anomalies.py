@@ -31,8 +31,14 @@ import numpy as np
 import xarray as xr
 
 from .errors import GravitySeriesWarning, InputError
-from .grid import check_grid, check_same_grid, padded_shape
-from .gravity import DEFAULT_GRAVITY_PAD_FACTOR, GRAVITY_EDGES, _check_terms, parker_series
+from .grid import check_grid, check_same_grid
+from .gravity import (
+    DEFAULT_GRAVITY_PAD_FACTOR,
+    GRAVITY_EDGES,
+    _check_terms,
+    gravity_padded_shape,
+    parker_series,
+)
 from .prisms import GRAVITATIONAL_CONSTANT
 
 __all__ = ["BOUGUER_DENSITY", "model_free_air_anomaly", "model_gravity"]
@@ -238,7 +244,7 @@ def model_gravity(
             "mass below the observation plane"
         )
     deepest = height - min(float(e.min()) for e, _ in final + reference)
-    shape = spec.shape if edges == "periodic" else padded_shape(spec, pad_factor * deepest)
+    shape = spec.shape if edges == "periodic" else gravity_padded_shape(spec, deepest, pad_factor)
     fa_final, last_f = _sum(final, spec, height, terms, shape)
     fa_ref, last_r = _sum(reference, spec, height, terms, shape)
     free_air = fa_final - fa_ref

@@ -36,6 +36,7 @@ from .prisms import GRAVITATIONAL_CONSTANT, MGAL
 __all__ = [
     "DEFAULT_GRAVITY_PAD_FACTOR",
     "GRAVITY_EDGES",
+    "gravity_padded_shape",
     "interface_gravity",
     "parker_series",
 ]
@@ -84,6 +85,21 @@ def _layer_factor(k: np.ndarray, thickness: float) -> np.ndarray:
     out[nonzero] = -np.expm1(-k[nonzero] * thickness) / k[nonzero]
     out[~nonzero] = thickness
     return out
+
+
+def gravity_padded_shape(spec: GridSpec, deepest: float, pad_factor: float) -> tuple[int, int]:
+    """FFT shape for an isolated relief: pad each side by the larger of *pad_factor*
+    times the deepest source depth (m) and half the grid's longer extent.
+
+    Unlike the plate's response, the field of a buried mass decays only like
+    depth / r^3, so the periodic images of a relief that fills the grid are not
+    negligible at a fixed distance; doubling the domain (the usual zero padding
+    for an aperiodic convolution) keeps their effect near (depth / width) / 10 of
+    the relief's own anomaly for a relief filling the grid, and far less for a
+    compact one.
+    """
+    half_extent = 0.5 * max(spec.ny * spec.dy, spec.nx * spec.dx)
+    return padded_shape(spec, max(pad_factor * deepest, half_extent))
 
 
 def parker_series(
@@ -149,7 +165,7 @@ def parker_series(
     ratio = 0.5 * (h_max - h_min) / z_mid
     ny, nx = spec.shape
     if shape is None:
-        shape = spec.shape if periodic else padded_shape(spec, pad_factor * (plane_depth - h_min))
+        shape = spec.shape if periodic else gravity_padded_shape(spec, plane_depth - h_min, pad_factor)
     n = shape[0] * shape[1]
     check_memory(8.0 * n * 6, f"gravity series on a padded grid of {shape[0]} x {shape[1]}")
     ky2, kx2 = wavenumbers_squared(shape, spec.dy, spec.dx)
@@ -223,9 +239,10 @@ def interface_gravity(
         mid-depth; it converges like ``(half relief range / mid-depth)**n``.
     edges : {"infinite", "periodic"}, default "infinite"
         ``"infinite"``: the relief is isolated on an infinite plane (zero outside
-        the grid, which is zero-padded by *pad_factor* times the deepest interface
-        depth on each side, as the plate solver pads). ``"periodic"``: the relief
-        repeats (no padding).
+        the grid, which is zero-padded on each side by the larger of *pad_factor*
+        times the deepest interface depth and half the grid extent, see
+        :func:`gravity_padded_shape`). ``"periodic"``: the relief repeats (no
+        padding).
     pad_factor : float, default 4.5
         Padding in multiples of the deepest interface depth below the plane.
 

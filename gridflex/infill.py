@@ -292,11 +292,23 @@ class _Column:
 def _anderson_step(
     history_f: list[np.ndarray], history_g: list[np.ndarray], f: np.ndarray, g: np.ndarray
 ) -> np.ndarray:
-    """Anderson (type II) update from the last differences of residuals and images."""
-    df = np.stack([b - a for a, b in zip(history_f[:-1], history_f[1:])], axis=1)
-    dg = np.stack([b - a for a, b in zip(history_g[:-1], history_g[1:])], axis=1)
-    gamma, *_ = np.linalg.lstsq(df, f, rcond=1e-10)
-    return g - dg @ gamma
+    """Anderson (type II) update from the last differences of residuals and images.
+
+    Minimises |f - dF gamma| over gamma through the small normal equations
+    (dF^T dF) gamma = dF^T f, then returns g - dG gamma.
+    """
+    df = [b - a for a, b in zip(history_f[:-1], history_f[1:])]
+    m = len(df)
+    gram = np.empty((m, m))
+    for i in range(m):
+        for j in range(i, m):
+            gram[i, j] = gram[j, i] = float(np.dot(df[i], df[j]))
+    rhs = np.array([float(np.dot(column, f)) for column in df])
+    gamma, *_ = np.linalg.lstsq(gram, rhs, rcond=1e-12)
+    out = g.copy()
+    for i in range(m):
+        out -= gamma[i] * (history_g[i + 1] - history_g[i])
+    return out
 
 
 def _iterate(
@@ -345,7 +357,8 @@ def _iterate(
     raise ConvergenceError(
         f"infill iteration did not converge: after {max_iterations} iterations the "
         f"deflection still changed by {update:.3g} m (tolerance {tolerance:.3g} m); "
-        "raise max_iterations, loosen tolerance, or try acceleration='none'"
+        f"(shift density {shift:.6g} kg/m^3, acceleration {acceleration!r}); raise "
+        "max_iterations or loosen tolerance, and keep the default shift (half the densest fill)"
     )
 
 
