@@ -17,7 +17,13 @@ of both states add up to rho_m in every column, the flat parts cancel exactly
 and the free-air anomaly is the final sum minus the reference sum
 (superposition; no linearisation). The Bouguer anomaly subtracts the
 attraction of the final topography relative to sea level with the reduction
-density (PHYSICS.md 6.4): +rho_B above sea level, -(rho_B - rho_w) for the sea.
+density (PHYSICS.md 6.4): +rho_B above sea level, -(rho_B - rho_w) for the sea;
+the topography is taken to continue beyond the grid at the level of its edges.
+
+A plain :func:`gridflex.solve` result is read as a column whose depression is
+filled with ``plate_infill_density`` material when that is denser than water
+(a solid fill of thickness w), and with water below sea level (air above)
+otherwise.
 """
 
 from __future__ import annotations
@@ -39,7 +45,7 @@ from .gravity import (
     gravity_padded_shape,
     parker_series,
 )
-from .prisms import GRAVITATIONAL_CONSTANT
+from .prisms import GRAVITATIONAL_CONSTANT, MGAL
 
 __all__ = ["BOUGUER_DENSITY", "model_free_air_anomaly", "model_gravity"]
 
@@ -127,9 +133,11 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
         fill = np.asarray(result["fill_sediment"].values, dtype=np.float64)
         rho_fill = float(result.attrs.get("infill_sediment_density", rho_w))
     else:  # constant-density infill of a plain solve: thickness w of plate_infill_density
-        fill = w
         rho_fill = _number("infill density", _pick("infill density", None, result,
                                                   "plate_infill_density"))
+        # a fill no denser than water is the water (or air) above the surface
+        fill = w if rho_fill > rho_w else np.zeros_like(w)
+        rho_fill = rho_fill if rho_fill > rho_w else rho_w
     z0 = z_ref + h_l
     top = z0 - w + fill
     final = [
@@ -160,6 +168,25 @@ def _sum(interfaces, spec, plane, terms, shape) -> tuple[np.ndarray, float]:
         total += anomaly
         last = max(last, info["last_term"])
     return total, last
+
+
+def _topography_gravity(top, rho_b, rho_w, plane, spec, terms, shape):
+    """Attraction (mGal) of the topography relative to sea level with density rho_B.
+
+    The surface is taken to continue beyond the grid at its edge level (the median of
+    the border cells): the field of that infinite flat layer is added exactly and its
+    finite part on the grid is taken out of the series, which then only sees the
+    relief about the edge level (localised, so the padding treats it as isolated).
+    """
+    contrast = np.where(top > 0.0, rho_b, rho_b - rho_w)
+    border = np.concatenate([top[0], top[-1], top[1:-1, 0], top[1:-1, -1]])
+    level = float(np.median(border))
+    edge_contrast = rho_b if level > 0.0 else rho_b - rho_w
+    anomaly, info = parker_series(top, contrast, plane, spec, terms, shape=shape)
+    finite, _ = parker_series(np.full(top.shape, level), edge_contrast, plane, spec, 1,
+                              shape=shape)
+    slab = 2.0 * math.pi * GRAVITATIONAL_CONSTANT * edge_contrast * level / MGAL
+    return anomaly - finite + slab, info
 
 
 def model_gravity(
@@ -249,8 +276,7 @@ def model_gravity(
     fa_ref, last_r = _sum(reference, spec, height, terms, shape)
     free_air = fa_final - fa_ref
     rho_w = info["water_density"]
-    topo_contrast = np.where(top > 0.0, rho_b, rho_b - rho_w)
-    topo, last_t = parker_series(top, topo_contrast, height, spec, terms, shape=shape)
+    topo, last_t = _topography_gravity(top, rho_b, rho_w, height, spec, terms, shape)
     bouguer = free_air - topo
     last = max(last_f, last_r, last_t["last_term"] if terms > 1 else 0.0)
     spread = float(free_air.max() - free_air.min())
