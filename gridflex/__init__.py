@@ -7,6 +7,7 @@ Loads (Pa, positive down) on a regular grid in metres go in; an
 import logging
 
 from ._version import __version__
+from .anomalies import model_free_air_anomaly, model_gravity
 from .errors import (
     ConvergenceError,
     EdgeLoadWarning,
@@ -15,7 +16,6 @@ from .errors import (
     GridflexWarning,
     InputError,
 )
-from .anomalies import model_free_air_anomaly, model_gravity
 from .gravity import interface_gravity
 from .infill import Infill, solve_with_infill
 from .loads import (

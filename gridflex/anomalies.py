@@ -31,13 +31,12 @@ from __future__ import annotations
 import logging
 import math
 import warnings
-from typing import Any, Union
+from typing import Any
 
 import numpy as np
 import xarray as xr
 
 from .errors import GravitySeriesWarning, InputError
-from .grid import check_grid, check_same_grid
 from .gravity import (
     DEFAULT_GRAVITY_PAD_FACTOR,
     GRAVITY_EDGES,
@@ -45,6 +44,7 @@ from .gravity import (
     gravity_padded_shape,
     parker_series,
 )
+from .grid import check_grid, check_same_grid
 from .prisms import GRAVITATIONAL_CONSTANT, MGAL
 
 __all__ = ["BOUGUER_DENSITY", "model_free_air_anomaly", "model_gravity"]
@@ -54,7 +54,7 @@ log = logging.getLogger(__name__)
 BOUGUER_DENSITY = 2670.0
 """Default Bouguer reduction density (kg m^-3), the conventional crustal value."""
 
-Surface = Union[float, xr.DataArray]
+Surface = float | xr.DataArray
 
 
 def _field(value: Any, reference: xr.DataArray, name: str) -> np.ndarray:
@@ -78,7 +78,9 @@ def _pick(name: str, given: Any, result: xr.Dataset, attr: str, default: Any = N
         return result.attrs[attr]
     if default is not None:
         return default
-    raise InputError(f"{name} is needed: pass {name}= or use a result whose attributes hold {attr!r}")
+    raise InputError(
+        f"{name} is needed: pass {name}= or use a result whose attributes hold {attr!r}"
+    )
 
 
 def _number(name: str, value: Any) -> float:
@@ -98,7 +100,8 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
     w_da = result["deflection"]
     check_grid(w_da, "deflection")
     w = np.asarray(w_da.values, dtype=np.float64)
-    sea = _number("sea_level", _pick("sea_level", options["sea_level"], result, "infill_sea_level", 0.0))
+    sea = _number("sea_level", _pick("sea_level", options["sea_level"], result,
+                                     "infill_sea_level", 0.0))
     rho_w = _number("water_density", _pick("water_density", options["water_density"], result,
                                            "infill_water_density", 1030.0))
     rho_c = _number("crust_density", _pick("crust_density", options["crust_density"], result,

@@ -22,7 +22,6 @@ from __future__ import annotations
 import logging
 import math
 import warnings
-from typing import Union
 
 import numpy as np
 import scipy.fft
@@ -43,7 +42,7 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
-Contrast = Union[float, xr.DataArray]
+Contrast = float | xr.DataArray
 
 GRAVITY_EDGES = ("infinite", "periodic")
 """Accepted values of ``edges``: an isolated relief on an infinite plane (zero
@@ -165,7 +164,8 @@ def parker_series(
     ratio = 0.5 * (h_max - h_min) / z_mid
     ny, nx = spec.shape
     if shape is None:
-        shape = spec.shape if periodic else gravity_padded_shape(spec, plane_depth - h_min, pad_factor)
+        deepest = plane_depth - h_min
+        shape = spec.shape if periodic else gravity_padded_shape(spec, deepest, pad_factor)
     n = shape[0] * shape[1]
     check_memory(8.0 * n * 6, f"gravity series on a padded grid of {shape[0]} x {shape[1]}")
     ky2, kx2 = wavenumbers_squared(shape, spec.dy, spec.dx)

@@ -39,7 +39,7 @@ import logging
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any, Protocol, Union
+from typing import Any, Protocol
 
 import numpy as np
 import xarray as xr
@@ -68,7 +68,7 @@ ACCELERATIONS = ("anderson", "none")
 
 _ANDERSON_DEPTH = 5
 
-Level = Union[float, xr.DataArray]
+Level = float | xr.DataArray
 Progress = Callable[[int, int], Any]
 
 
@@ -297,7 +297,7 @@ def _anderson_step(
     Minimises |f - dF gamma| over gamma through the small normal equations
     (dF^T dF) gamma = dF^T f, then returns g - dG gamma.
     """
-    df = [b - a for a, b in zip(history_f[:-1], history_f[1:])]
+    df = [b - a for a, b in zip(history_f[:-1], history_f[1:], strict=False)]
     m = len(df)
     gram = np.empty((m, m))
     for i in range(m):
@@ -491,7 +491,8 @@ def solve_with_infill(
     force_y = _check_force("inplane_force_y", inplane_force_y)
     if not (isinstance(tolerance, (int, float)) and tolerance > 0 and math.isfinite(tolerance)):
         raise InputError(f"tolerance must be a positive number of metres, got {tolerance!r}")
-    if isinstance(max_iterations, bool) or not isinstance(max_iterations, int) or max_iterations < 1:
+    if isinstance(max_iterations, bool) or not isinstance(max_iterations, int) \
+            or max_iterations < 1:
         raise InputError(f"max_iterations must be a whole number >= 1, got {max_iterations!r}")
     rho_m, g = plate.mantle_density, plate.gravity
     rho_max = infill.max_density

@@ -13,7 +13,6 @@ from typing import Union
 
 import numpy as np
 import xarray as xr
-
 from scipy import ndimage
 
 from .errors import InputError
@@ -28,7 +27,7 @@ __all__ = [
 ]
 
 Density = Union[float, xr.DataArray]
-Surface = Union[float, xr.DataArray]
+Surface = float | xr.DataArray
 _LOAD_ATTRS = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
 
 
@@ -81,7 +80,7 @@ LayerSpec = tuple[xr.DataArray, Density]
 
 
 def pressure_from_layers(
-    layers: Union[Iterable[LayerSpec], Mapping[str, LayerSpec]], gravity: float = 9.81
+    layers: Iterable[LayerSpec] | Mapping[str, LayerSpec], gravity: float = 9.81
 ) -> xr.DataArray:
     """Sum of the vertical stresses of several layers, each with its own density.
 
@@ -234,7 +233,7 @@ def _submerged_split(base: np.ndarray, thickness: np.ndarray, sea_level: float):
 
 def load_from_layers(
     base: Surface,
-    layers: Union[Iterable[LayerSpec], Mapping[str, LayerSpec]],
+    layers: Iterable[LayerSpec] | Mapping[str, LayerSpec],
     *,
     sea_level: float = 0.0,
     water_density: float = 1030.0,
@@ -320,7 +319,8 @@ def load_from_layers(
         {
             "load": (("y", "x"), stress, _LOAD_ATTRS),
             "initial_surface": (("y", "x"), top,
-                                {"units": "m", "long_name": "surface with the load, before flexure"}),
+                                {"units": "m",
+                                 "long_name": "surface with the load, before flexure"}),
             "reference_surface": (("y", "x"), bottom,
                                   {"units": "m", "long_name": "surface under the load"}),
             "load_height": (("y", "x"), top - bottom,

@@ -83,7 +83,9 @@ def prism_gravity(
     try:
         x1, x2, y1, y2, z1, z2 = (float(b) for b in bounds)
     except (TypeError, ValueError) as exc:
-        raise InputError(f"bounds must be six numbers (x1, x2, y1, y2, z1, z2), got {bounds!r}") from exc
+        raise InputError(
+            f"bounds must be six numbers (x1, x2, y1, y2, z1, z2), got {bounds!r}"
+        ) from exc
     if not (x1 < x2 and y1 < y2 and z1 < z2):
         raise InputError(f"bounds must satisfy x1 < x2, y1 < y2, z1 < z2 (m), got {bounds!r}")
     x0, y0, z0 = np.broadcast_arrays(
@@ -101,6 +103,7 @@ def prism_gravity(
                 # mu_ijk = (-1)^(i+j+k) with i, j, k counted from 1; here they count
                 # from 0, so mu = -(-1)^(i+j+k).
                 mu = 1.0 if (i + j + k) % 2 else -1.0
-                term = dz * np.arctan2(dx * dy, dz * r) - dx * _log_term(dy, r) - dy * _log_term(dx, r)
+                term = (dz * np.arctan2(dx * dy, dz * r)
+                        - dx * _log_term(dy, r) - dy * _log_term(dx, r))
                 total += mu * term
     return GRAVITATIONAL_CONSTANT * density * total / MGAL

@@ -10,8 +10,8 @@ from numpy.testing import assert_allclose
 from gridflex import (
     Infill,
     InputError,
-    interface_gravity,
     Plate,
+    interface_gravity,
     load_from_elevation,
     model_free_air_anomaly,
     model_gravity,

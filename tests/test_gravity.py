@@ -61,7 +61,7 @@ def _prism_case(contrasts):
     X, Y = np.meshgrid(x, x)
     boxes = [(-1e3, 2e3, -500.0, 1.5e3), (-3e3, -1.5e3, -2e3, 0.0)]
     reference = np.zeros((n, n))
-    for (x1, x2, y1, y2), contrast in zip(boxes, contrasts):
+    for (x1, x2, y1, y2), contrast in zip(boxes, contrasts, strict=False):
         inside = (X > x1) & (X < x2) & (Y > y1) & (Y < y2)
         values[inside] = 2500.0
         rho[inside] = contrast
