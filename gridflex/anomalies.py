@@ -40,11 +40,12 @@ from .errors import GravitySeriesWarning, InputError
 from .gravity import (
     DEFAULT_GRAVITY_PAD_FACTOR,
     GRAVITY_EDGES,
+    _check_number,
     _check_terms,
     gravity_padded_shape,
     parker_series,
 )
-from .grid import check_grid, check_same_grid
+from .grid import check_grid, grid_values
 from .prisms import GRAVITATIONAL_CONSTANT, MGAL
 
 __all__ = ["BOUGUER_DENSITY", "model_free_air_anomaly", "model_gravity"]
@@ -55,20 +56,6 @@ BOUGUER_DENSITY = 2670.0
 """Default Bouguer reduction density (kg m^-3), the conventional crustal value."""
 
 Surface = float | xr.DataArray
-
-
-def _field(value: Any, reference: xr.DataArray, name: str) -> np.ndarray:
-    if isinstance(value, xr.DataArray):
-        check_grid(value, name)
-        check_same_grid(value, reference, name)
-        return np.asarray(value.values, dtype=np.float64)
-    try:
-        number = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number or a grid, got {value!r}") from exc
-    if not math.isfinite(number):
-        raise InputError(f"{name} must be finite, got {value!r}")
-    return np.full(reference.shape, number)
 
 
 def _pick(name: str, given: Any, result: xr.Dataset, attr: str, default: Any = None) -> Any:
@@ -83,16 +70,6 @@ def _pick(name: str, given: Any, result: xr.Dataset, attr: str, default: Any = N
     )
 
 
-def _number(name: str, value: Any) -> float:
-    try:
-        number = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number, got {value!r}") from exc
-    if not math.isfinite(number):
-        raise InputError(f"{name} must be finite, got {value!r}")
-    return number
-
-
 def _columns(result: xr.Dataset, options: dict[str, Any]):
     """Interfaces (elevation above sea level, contrast) of the final and reference states."""
     if not isinstance(result, xr.Dataset) or "deflection" not in result:
@@ -100,16 +77,15 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
     w_da = result["deflection"]
     check_grid(w_da, "deflection")
     w = np.asarray(w_da.values, dtype=np.float64)
-    sea = _number("sea_level", _pick("sea_level", options["sea_level"], result,
-                                     "infill_sea_level", 0.0))
-    rho_w = _number("water_density", _pick("water_density", options["water_density"], result,
-                                           "infill_water_density", 1030.0))
-    rho_c = _number("crust_density", _pick("crust_density", options["crust_density"], result,
-                                           "plate_crust_density"))
-    t_c = _number("crust_thickness", _pick("crust_thickness", options["crust_thickness"], result,
-                                           "plate_crust_thickness"))
-    rho_m = _number("mantle_density", _pick("mantle_density", options["mantle_density"], result,
-                                            "plate_mantle_density"))
+
+    def value(name: str, attr: str, default: float | None = None) -> float:
+        return _check_number(name, _pick(name, options[name], result, attr, default))
+
+    sea = value("sea_level", "infill_sea_level", 0.0)
+    rho_w = value("water_density", "infill_water_density", 1030.0)
+    rho_c = value("crust_density", "plate_crust_density")
+    t_c = value("crust_thickness", "plate_crust_thickness")
+    rho_m = value("mantle_density", "plate_mantle_density")
     if t_c <= 0:
         raise InputError(f"crust_thickness must be > 0 m, got {t_c!r}")
     ref_given = options["reference_surface"]
@@ -118,7 +94,7 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
             raise InputError("reference_surface (m, positive up: the surface under the load "
                              "before loading) is needed: pass it or use a load Dataset result")
         ref_given = result["reference_surface"]
-    z_ref = _field(ref_given, w_da, "reference_surface") - sea
+    z_ref = grid_values(ref_given, w_da, "reference_surface") - sea
     height_given = options["load_height"]
     if height_given is None:
         if "load_height" in result:
@@ -127,16 +103,16 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
             height_given = result["initial_surface"] - sea - xr.DataArray(z_ref, dims=w_da.dims)
         else:
             raise InputError("load_height (m) is needed: pass it or use a load Dataset result")
-    h_l = _field(height_given, w_da, "load_height")
+    h_l = grid_values(height_given, w_da, "load_height")
     if options["load_density"] is None and "load_density" not in result.attrs and np.any(h_l):
         raise InputError("load_density (kg/m^3) is needed: pass it or use a load Dataset result")
-    rho_l = _number("load_density", _pick("load_density", options["load_density"], result,
+    rho_l = _check_number("load_density", _pick("load_density", options["load_density"], result,
                                           "load_density", rho_c))
     if "fill_sediment" in result:
         fill = np.asarray(result["fill_sediment"].values, dtype=np.float64)
         rho_fill = float(result.attrs.get("infill_sediment_density", rho_w))
     else:  # constant-density infill of a plain solve: thickness w of plate_infill_density
-        rho_fill = _number("infill density", _pick("infill density", None, result,
+        rho_fill = _check_number("infill density", _pick("infill density", None, result,
                                                   "plate_infill_density"))
         # a fill no denser than water is the water (or air) above the surface
         fill = w if rho_fill > rho_w else np.zeros_like(w)
@@ -263,8 +239,8 @@ def model_gravity(
     terms = _check_terms(terms)
     if edges not in GRAVITY_EDGES:
         raise InputError(f"edges must be one of {GRAVITY_EDGES!r}, got {edges!r}")
-    height = _number("observation_height", observation_height)
-    rho_b = _number("bouguer_density", bouguer_density)
+    height = _check_number("observation_height", observation_height)
+    rho_b = _check_number("bouguer_density", bouguer_density)
     w_da, top, final, reference, info = _columns(result, options)
     spec = check_grid(w_da, "deflection")
     if float(top.max()) >= height:

@@ -45,7 +45,7 @@ import numpy as np
 import xarray as xr
 
 from .errors import ConvergenceError, InputError
-from .grid import GridSpec, check_grid, check_same_grid
+from .grid import GridSpec, check_grid, check_same_grid, grid_values
 from .plate import Plate
 from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 
@@ -362,20 +362,6 @@ def _iterate(
     )
 
 
-def _grid_or_number(value: Level, reference: xr.DataArray, name: str) -> np.ndarray:
-    if isinstance(value, xr.DataArray):
-        check_grid(value, name)
-        check_same_grid(value, reference, name)
-        return np.asarray(value.values, dtype=np.float64)
-    try:
-        number = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number (m) or a grid, got {value!r}") from exc
-    if not math.isfinite(number):
-        raise InputError(f"{name} must be finite, got {value!r}")
-    return np.full(reference.shape, number)
-
-
 def solve_with_infill(
     load: xr.DataArray | xr.Dataset,
     plate: Plate,
@@ -482,7 +468,7 @@ def solve_with_infill(
     spec = check_grid(load, "load")
     if initial_surface is None:
         raise InputError("initial_surface (m, positive up, load included) is required")
-    surface = _grid_or_number(initial_surface, load, "initial_surface")
+    surface = grid_values(initial_surface, load, "initial_surface")
     if edges not in ("infinite", "periodic"):
         raise InputError(f"edges must be 'infinite' or 'periodic', got {edges!r}")
     if acceleration not in ACCELERATIONS:
@@ -528,7 +514,7 @@ def solve_with_infill(
     level = mask = None
     if infill.sediment == "to_level":
         assert infill.sediment_level is not None
-        level = _extend(_grid_or_number(infill.sediment_level, load, "sediment_level"),
+        level = _extend(grid_values(infill.sediment_level, load, "sediment_level"),
                         shape, window)
     if infill.sediment_mask is not None and infill.sediment != "none":
         check_same_grid(infill.sediment_mask, load, "sediment_mask")

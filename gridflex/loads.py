@@ -16,7 +16,7 @@ import xarray as xr
 from scipy import ndimage
 
 from .errors import InputError
-from .grid import check_grid, check_same_grid
+from .grid import check_grid, check_same_grid, grid_values
 
 __all__ = [
     "load_from_elevation",
@@ -128,21 +128,6 @@ def pressure_from_layers(
 
 
 # --- loads from elevation models and thickness grids --------------------------------------
-
-def _checked_surface(value: Surface, reference: xr.DataArray, name: str) -> np.ndarray:
-    """*value* (number or grid on *reference*'s grid) as a float array of that shape."""
-    if isinstance(value, xr.DataArray):
-        check_grid(value, name)
-        check_same_grid(value, reference, name)
-        return np.asarray(value.values, dtype=np.float64)
-    try:
-        number = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number (m) or a grid, got {value!r}") from exc
-    if not np.isfinite(number):
-        raise InputError(f"{name} must be finite (m), got {value!r}")
-    return np.full(reference.shape, number)
-
 
 def _check_density(name: str, value: float) -> float:
     try:
@@ -290,7 +275,7 @@ def load_from_layers(
     if not isinstance(first, xr.DataArray):
         raise InputError("layer 0 must be a (thickness DataArray, density) pair")
     check_grid(first, "layer 0 thickness")
-    bottom = _checked_surface(base, first, "base")
+    bottom = grid_values(base, first, "base")
     top = bottom.copy()
     stress = np.zeros(first.shape)
     densities = set()
@@ -375,7 +360,7 @@ def load_from_elevation(
     1770
     """
     check_grid(elevation, "elevation")
-    ref = _checked_surface(regional, elevation, "regional")
+    ref = grid_values(regional, elevation, "regional")
     rho = _check_density("rock_density", rock_density)
     height = np.clip(np.asarray(elevation.values, dtype=np.float64) - ref, 0.0, None)
     thickness = elevation.copy(data=height)
