@@ -187,9 +187,8 @@ def test_inplane_force_line_load(fraction):
     # axial forces (from memory); the roots re-derived here from the characteristic equation.
     plate = Plate(te=15e3, youngs_modulus=70e9, infill_density=1030.0)
     d, s = plate.rigidity, plate.restoring_stiffness
-    n_force = fraction * 2 * np.sqrt(d * s)  # fraction of the buckling force 2 sqrt(D s)
-    if abs(fraction) >= 1:
-        n_force = fraction * 2 * np.sqrt(d * s)  # strong tension: overdamped branch below
+    # a fraction of the buckling force 2 sqrt(D s); tension beyond it has real roots
+    n_force = fraction * 2 * np.sqrt(d * s)
     alpha = plate.flexural_parameter
     dx = alpha / 25
     nx = 1400
