@@ -146,6 +146,8 @@ def regional_surface(elevation: xr.DataArray, radius: float) -> xr.DataArray:
     edifice covering less than half of that disc does not raise the regional
     surface. For speed the median is taken on a grid coarsened so that the radius
     spans at most 8 coarse cells (block means), then interpolated back linearly.
+    Beyond the grid edges the surface is continued by odd reflection (a regional
+    slope goes on).
 
     Parameters
     ----------
@@ -191,12 +193,15 @@ def regional_surface(elevation: xr.DataArray, radius: float) -> xr.DataArray:
     iy = np.arange(-int(ry), int(ry) + 1)[:, None]
     ix = np.arange(-int(rx), int(rx) + 1)[None, :]
     footprint = (iy / max(ry, 1e-9)) ** 2 + (ix / max(rx, 1e-9)) ** 2 <= 1.0
-    smooth = ndimage.median_filter(coarse, footprint=footprint, mode="nearest")
-    # coarse cell centres in fine-index units, then linear interpolation back
-    centre_y = (np.arange(cy) + 0.5) * step - 0.5
-    centre_x = (np.arange(cx) + 0.5) * step - 0.5
-    fy = np.interp(np.arange(ny), centre_y, np.arange(cy))
-    fx = np.interp(np.arange(nx), centre_x, np.arange(cx))
+    # continue the surface beyond the edges by odd reflection, which keeps a regional
+    # slope going (an edge value repeated or mirrored would bias the median there)
+    py, px = int(ry), int(rx)
+    extended = np.pad(coarse, ((py, py), (px, px)), mode="reflect", reflect_type="odd")
+    smooth = ndimage.median_filter(extended, footprint=footprint, mode="nearest")
+    # fine cell centres in coarse-index units of the extended grid; linear interpolation
+    # (the reflected margin lets it continue the slope up to the edges)
+    fy = (np.arange(ny) + 0.5) / step - 0.5 + py
+    fx = (np.arange(nx) + 0.5) / step - 0.5 + px
     grid_y, grid_x = np.meshgrid(fy, fx, indexing="ij")
     result = ndimage.map_coordinates(smooth, [grid_y, grid_x], order=1, mode="nearest")
     out = elevation.copy(data=result)

@@ -15,7 +15,8 @@ from .grid import check_same_grid
 from .io.atomic import check_output_path
 from .io.netcdf import read_grid, write_netcdf
 from .plate import Plate
-from .plots import plot_deflection_map
+from .plots import plot_deflection_map, plot_field_map
+from .runner_infill import elevation_load, gravity_step, infill_step, load_column
 from .scenario import Scenario
 from .solve import solve
 from .summary import deflection_summary
@@ -56,6 +57,8 @@ def plate_from_scenario(scenario: Scenario) -> Plate:
             mantle_density=table["mantle_density"],
             infill_density=table["infill_density"],
             gravity=table["gravity"],
+            crust_thickness=table["crust_thickness"],
+            crust_density=table["crust_density"],
         )
     except InputError as exc:
         raise InputError(f"{scenario.where('plate')}: {exc}") from exc
@@ -73,25 +76,45 @@ def _synthetic_layer(scenario: Scenario, layer: dict[str, Any]) -> xr.DataArray:
     return gaussian_height(grid, layer["radius"], layer["height"], *centre)
 
 
+def _layer_grid(scenario: Scenario, layer: dict[str, Any]) -> xr.DataArray:
+    """A thickness (m) or stress (Pa) layer's grid, read or generated."""
+    if layer["file"] is not None:
+        dimension = "length" if layer["kind"] == "thickness" else "pressure"
+        return read_grid(layer["file"], layer["variable"], dimension)
+    return _synthetic_layer(scenario, layer)
+
+
+def _infill_column(scenario: Scenario) -> xr.Dataset:
+    """Load and surfaces of an ``[infill]`` run (see :func:`runner_infill.load_column`)."""
+    thickness: list[tuple[xr.DataArray, float]] = []
+    stress: xr.DataArray | None = None
+    for layer in scenario.table("loads"):
+        if layer["kind"] == "thickness":
+            thickness.append((_layer_grid(scenario, layer), layer["density"]))
+        elif layer["kind"] == "stress":
+            grid = _layer_grid(scenario, layer)
+            stress = grid if stress is None else stress + grid.values
+    return load_column(scenario, thickness, stress)
+
+
 def build_load(scenario: Scenario) -> xr.DataArray:
     """Total vertical stress (Pa, positive down) of the ``[[loads]]`` layers.
 
     A thickness layer presses with (density - displaced_density) g h; a stress
-    layer is used as it is (Pa).
+    layer is used as it is (Pa); an elevation layer presses with its rock above the
+    regional surface, (rho - rho_water) g h below sea level and rho g h above.
     """
     gravity = scenario.table("plate")["gravity"]
     total: xr.DataArray | None = None
     for index, layer in enumerate(scenario.table("loads")):
         where = scenario.where("loads", index=index)
-        if layer["file"] is not None:
-            dimension = "length" if layer["kind"] == "thickness" else "pressure"
-            grid = read_grid(layer["file"], layer["variable"], dimension)
-        else:
-            grid = _synthetic_layer(scenario, layer)
-        if layer["kind"] == "thickness":
+        if layer["kind"] == "elevation":
+            stress = elevation_load(scenario, index, layer)["load"]
+        elif layer["kind"] == "thickness":
+            grid = _layer_grid(scenario, layer)
             stress = grid * ((layer["density"] - layer["displaced_density"]) * gravity)
         else:
-            stress = grid
+            stress = _layer_grid(scenario, layer)
         if total is None:
             total = stress
         else:
@@ -119,6 +142,18 @@ def output_dataset(result: xr.Dataset, scenario: Scenario) -> xr.Dataset:
     return out
 
 
+_FIELD_MAPS = {
+    # output key: (variable, title, colour-bar label, signed colour map)
+    "moat_fill_map": ("moat_fill", "Moat fill (sediment and water in the flexural "
+                      "depression); black: load outline", "moat fill (m)", False),
+    "free_air_map": ("free_air_anomaly", "Free-air gravity anomaly of the flexure model; "
+                     "black: load outline", "free-air anomaly (mGal)", True),
+    "bouguer_map": ("bouguer_anomaly", "Bouguer gravity anomaly of the flexure model; "
+                    "black: load outline", "Bouguer anomaly (mGal)", True),
+}
+"""PNG maps of single fields: ``[output]`` key -> what to draw."""
+
+
 def run_scenario(scenario: Scenario, overwrite: bool = False) -> RunOutcome:
     """Build the load, solve and write the outputs of *scenario*.
 
@@ -132,21 +167,33 @@ def run_scenario(scenario: Scenario, overwrite: bool = False) -> RunOutcome:
     """
     outputs = scenario.table("output")
     inputs = scenario.input_files
+    maps = [key for key in _FIELD_MAPS if outputs[key]]
     targets = [outputs["file"]] + ([outputs["map"]] if outputs["map"] else [])
+    targets += [outputs[key] for key in maps]
     for target in targets:
         check_output_path(target, overwrite, inputs)
     plate = plate_from_scenario(scenario)
-    load = build_load(scenario)
     solver = scenario.table("solver")
-    log.info("solving %s load grid", load.shape)
-    result = solve(
-        load, plate, solver["method"], edges=solver["edges"],
-        inplane_force_x=solver["inplane_force_x"], inplane_force_y=solver["inplane_force_y"],
-        pad_factor=solver["pad_factor"],
-    )
+    if scenario.table("infill") is not None:
+        result = infill_step(scenario, plate, _infill_column(scenario))
+    else:
+        load = build_load(scenario)
+        log.info("solving %s load grid", load.shape)
+        result = solve(
+            load, plate, solver["method"], edges=solver["edges"],
+            inplane_force_x=solver["inplane_force_x"], inplane_force_y=solver["inplane_force_y"],
+            pad_factor=solver["pad_factor"],
+        )
+    if scenario.table("gravity") is not None:
+        result = gravity_step(scenario, result)
     outcome = RunOutcome(result=output_dataset(result, scenario))
     outcome.written.append(write_netcdf(outcome.result, outputs["file"], overwrite, inputs))
     if outputs["map"]:
         outcome.written.append(plot_deflection_map(result, outputs["map"], overwrite, inputs))
+    for key in maps:
+        variable, title, label, signed = _FIELD_MAPS[key]
+        outcome.written.append(plot_field_map(
+            result[variable], outputs[key], title, label, overwrite, inputs,
+            outline=result["load"], signed=signed))
     outcome.summary = deflection_summary(result)
     return outcome

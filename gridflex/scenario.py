@@ -11,6 +11,8 @@ A scenario has these tables (``[[loads]]`` is an array of tables)::
     [solver]   method, edges, in-plane forces, padding
     [grid]     size and spacing, for scenarios whose loads are all synthetic
     [[loads]]  one table per load layer: a grid file or a synthetic shape
+    [infill]   optional: self-consistent infill (water, air, sediment) of the depression
+    [gravity]  optional: free-air and Bouguer anomalies of the result (needs [infill])
     [output]   where the results go
 """
 
@@ -75,6 +77,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
                               1030.0, "density", minimum=0.0),
         "gravity": Key("quantity", "gravitational acceleration", 9.81, "acceleration",
                        minimum=0.0),
+        "crust_thickness": Key("quantity", "crustal thickness above the crust-mantle boundary "
+                               "(for gravity)", 6000.0, "length", minimum=0.0),
+        "crust_density": Key("quantity", "crustal density (for gravity)", 2800.0, "density",
+                             minimum=0.0),
     },
     "solver": {
         "method": Key("choice", "solver", "auto", choices=_choices("auto", "spectral",
@@ -99,8 +105,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "variable": Key("string", "variable in the file", None),
         "synthetic": Key("choice", "a built-in shape instead of a file", None,
                          choices=_choices("island-chain", "disc", "gaussian")),
-        "kind": Key("choice", "thickness (m, times density) or stress (Pa)", "thickness",
-                    choices=_choices("thickness", "stress")),
+        "kind": Key("choice", "thickness (m, times density), stress (Pa) or elevation (m, "
+                    "the edifice is the rock above a regional surface)", "thickness",
+                    choices=_choices("thickness", "stress", "elevation")),
         "density": Key("quantity", "density of the layer", None, "density", minimum=0.0),
         "displaced_density": Key("quantity", "density of what the layer replaces (water "
                                  "for a submarine load)", 0.0, "density", minimum=0.0),
@@ -109,10 +116,42 @@ SCHEMA: dict[str, dict[str, Key]] = {
                       None, "length", minimum=0.0),
         "center_x": Key("quantity", "x of a synthetic shape's centre", 0.0, "length"),
         "center_y": Key("quantity", "y of a synthetic shape's centre", 0.0, "length"),
+        "regional_elevation": Key("quantity", "elevation layer: constant regional surface the "
+                                  "edifice stands on", None, "length"),
+        "regional_radius": Key("quantity", "elevation layer: radius of the robust (median) "
+                               "smoothing that gives the regional surface", None, "length",
+                               minimum=0.0),
+    },
+    "infill": {
+        "base_elevation": Key("quantity", "elevation of the surface the thickness layers stand "
+                              "on (regional sea floor or land)", None, "length"),
+        "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
+        "water_density": Key("quantity", "sea-water density", 1030.0, "density", minimum=0.0),
+        "sediment": Key("choice", "what sediment does in the depression", "none",
+                        choices=_choices("none", "full", "to_level")),
+        "sediment_density": Key("quantity", "bulk density of the fill sediment", 2400.0,
+                                "density", minimum=0.0),
+        "sediment_level": Key("quantity", "elevation up to which sediment fills (to_level)",
+                              None, "length"),
+        "fill_existing": Key("bool", "to_level: also fill space below the level that existed "
+                             "before loading", False),
+        "tolerance": Key("quantity", "stop when an iteration changes the deflection by less",
+                         1e-4, "length", minimum=0.0),
+        "max_iterations": Key("integer", "iterations before giving up", 300, minimum=1),
+    },
+    "gravity": {
+        "observation_height": Key("quantity", "height of the observation plane above sea level",
+                                  0.0, "length"),
+        "terms": Key("integer", "terms of each Parker series", 6, minimum=1),
+        "bouguer_density": Key("quantity", "Bouguer reduction density", 2670.0, "density",
+                               minimum=0.0),
     },
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),
         "map": Key("path", "PNG map of the deflection", None),
+        "moat_fill_map": Key("path", "PNG map of the moat fill (needs [infill])", None),
+        "free_air_map": Key("path", "PNG map of the free-air anomaly (needs [gravity])", None),
+        "bouguer_map": Key("path", "PNG map of the Bouguer anomaly (needs [gravity])", None),
     },
 }
 """Every table and key a scenario may contain."""
@@ -121,6 +160,9 @@ ARRAY_TABLES = frozenset({"loads"})
 """Tables written as arrays of tables (``[[loads]]``)."""
 
 REQUIRED_TABLES = ("plate", "loads", "output")
+
+OPTIONAL_TABLES = frozenset({"infill", "gravity"})
+"""Tables whose presence switches a feature on; absent, they are ``None``."""
 
 
 @dataclass(frozen=True)
@@ -270,7 +312,7 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
                 for i, item in enumerate(items)
             ]
         elif raw is None:
-            if any(k.default is REQUIRED for k in spec.values()):
+            if name in OPTIONAL_TABLES or any(k.default is REQUIRED for k in spec.values()):
                 tables[name] = None
             else:
                 tables[name] = {k: v.default for k, v in spec.items()}
@@ -278,6 +320,7 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
             tables[name] = _parse_table(raw, spec, f"{path}: [{name}]", base)
     scenario = Scenario(path=path, text=text, tables=tables)
     _check_loads(scenario)
+    _check_infill_and_gravity(scenario)
     return scenario
 
 
@@ -303,6 +346,51 @@ def _check_loads(scenario: Scenario) -> None:
                     if layer[name] is None:
                         raise InputError(f"{where} {name}: required for a "
                                          f"{layer['synthetic']!r} shape")
+
+
+def _check_infill_and_gravity(scenario: Scenario) -> None:
+    infill, gravity = scenario.tables["infill"], scenario.tables["gravity"]
+    layers = scenario.tables["loads"]
+    kinds = [layer["kind"] for layer in layers]
+    if "elevation" in kinds and kinds.count("elevation") > 1:
+        raise InputError(f"{scenario.path}: at most one [[loads]] table may have "
+                         "kind = 'elevation'")
+    if "elevation" in kinds and "thickness" in kinds:
+        raise InputError(f"{scenario.path}: an elevation layer cannot be combined with "
+                         "thickness layers (it defines the surface itself)")
+    for i, layer in enumerate(layers):
+        where = scenario.where("loads", index=i)
+        if layer["kind"] != "elevation":
+            continue
+        if layer["file"] is None:
+            raise InputError(f"{where} file: an elevation layer is read from a file")
+        if (layer["regional_elevation"] is None) == (layer["regional_radius"] is None):
+            raise InputError(f"{where}: give either regional_elevation or regional_radius "
+                             "for an elevation layer")
+        if layer["density"] is None:
+            raise InputError(f"{where} density: required for an elevation layer (rock)")
+    if infill is not None:
+        if "thickness" in kinds and infill["base_elevation"] is None:
+            raise InputError(f"{scenario.where('infill', 'base_elevation')}: required with "
+                             "thickness layers (the surface they stand on)")
+        for i, layer in enumerate(layers):
+            if layer["kind"] == "thickness" and layer["displaced_density"]:
+                raise InputError(
+                    f"{scenario.where('loads', 'displaced_density', i)}: leave it out with "
+                    "[infill]; the water a layer displaces follows from sea_level")
+        if infill["sediment"] == "to_level" and infill["sediment_level"] is None:
+            raise InputError(f"{scenario.where('infill', 'sediment_level')}: required with "
+                             "sediment = 'to_level'")
+    if gravity is not None and infill is None:
+        raise InputError(f"{scenario.path}: a [gravity] table needs an [infill] table (the "
+                         "water, sediment and surfaces the anomaly comes from)")
+    outputs = scenario.tables["output"]
+    if outputs is not None:
+        if outputs["moat_fill_map"] is not None and infill is None:
+            raise InputError(f"{scenario.where('output', 'moat_fill_map')}: needs [infill]")
+        for key in ("free_air_map", "bouguer_map"):
+            if outputs[key] is not None and gravity is None:
+                raise InputError(f"{scenario.where('output', key)}: needs [gravity]")
 
 
 def load_scenario(path: str | Path) -> Scenario:

@@ -1,0 +1,154 @@
+"""Scenario runs with [infill] and [gravity], and loads of kind "elevation"."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import xarray as xr
+from numpy.testing import assert_allclose
+
+from gridflex import (
+    Infill,
+    InputError,
+    Plate,
+    load_from_elevation,
+    model_gravity,
+    regional_surface,
+    solve_with_infill,
+)
+from gridflex.runner import run_scenario
+from gridflex.scenario import load_scenario
+
+from .conftest import make_grid
+
+SCENARIO = """
+[plate]
+elastic_thickness = "12 km"
+crust_thickness = "7 km"
+
+[[loads]]
+name = "seamount"
+kind = "elevation"
+file = "bathymetry.nc"
+variable = "elevation"
+density = 2700
+regional_radius = "60 km"
+
+[infill]
+sediment = "full"
+sediment_density = 2200
+
+[gravity]
+observation_height = "500 m"
+
+[output]
+file = "out/result.nc"
+moat_fill_map = "out/fill.png"
+free_air_map = "out/free_air.png"
+"""
+
+
+def _write_bathymetry(path):
+    grid = make_grid(80, 96, 2.5e3)
+    r2 = (grid.y**2 + grid.x**2).values
+    elevation = -4200.0 + 2.0e-3 * grid.x.values[None, :] + 3500.0 * np.exp(-r2 / (2 * 9e3**2))
+    da = grid.copy(data=elevation).assign_attrs(units="m")
+    xr.Dataset({"elevation": da}).to_netcdf(path)
+    return da
+
+
+def test_elevation_scenario_equals_library_calls(tmp_path):
+    # The run must give what the library gives for the same inputs (common practice: the
+    # scenario layer only wires the calls), and write the requested outputs.
+    elevation = _write_bathymetry(tmp_path / "bathymetry.nc")
+    (tmp_path / "s.toml").write_text(SCENARIO)
+    outcome = run_scenario(load_scenario(tmp_path / "s.toml"))
+    assert [p.name for p in outcome.written] == ["result.nc", "fill.png", "free_air.png"]
+    loads = load_from_elevation(elevation, 2700.0, regional_surface(elevation, 60e3))
+    plate = Plate(te=12e3, crust_thickness=7e3)
+    expected = solve_with_infill(loads, plate, infill=Infill(sediment="full",
+                                                             sediment_density=2200.0))
+    gravity = model_gravity(expected, observation_height=500.0)
+    with xr.open_dataset(tmp_path / "out" / "result.nc") as ds:
+        assert_allclose(ds["deflection"].values, expected["deflection"].values, atol=1e-9)
+        assert_allclose(ds["moat_fill"].values, expected["moat_fill"].values, atol=1e-9)
+        assert_allclose(ds["free_air_anomaly"].values, gravity["free_air_anomaly"].values,
+                        atol=1e-9)
+        assert ds["bouguer_anomaly"].attrs["units"] == "mGal"
+        assert ds.attrs["infill_sediment"] == "full"
+        assert ds.attrs["plate_crust_thickness"] == 7e3
+
+
+def test_thickness_layers_stand_on_the_base_elevation(tmp_path):
+    # With [infill] a thickness layer is stacked on base_elevation and buoyed by sea water
+    # only where submerged (PHYSICS.md 0 rule 3): same as load_from_layers.
+    text = """
+[plate]
+elastic_thickness = "10 km"
+
+[grid]
+rows = 64
+columns = 64
+spacing = "3 km"
+
+[[loads]]
+synthetic = "gaussian"
+height = "5 km"
+radius = "12 km"
+density = 2800
+
+[infill]
+base_elevation = "-4000 m"
+
+[output]
+file = "r.nc"
+"""
+    (tmp_path / "s.toml").write_text(text)
+    outcome = run_scenario(load_scenario(tmp_path / "s.toml"))
+    result = outcome.result
+    top = result["initial_surface"].values
+    assert top.max() > 900.0  # the summit stands 1 km above sea level
+    q = result["load"].values
+    i = np.unravel_index(np.argmax(top), top.shape)
+    height = top[i] + 4000.0
+    assert_allclose(q[i], 9.81 * (1770.0 * 4000.0 + 2800.0 * (height - 4000.0)), rtol=1e-12)
+
+
+@pytest.mark.parametrize(
+    "change, message",
+    [
+        (lambda t: t.replace("[infill]\n", "[infill]\nsediment_level = 1\n")
+         .replace('"full"', '"to_level"').replace("sediment_level = 1\n", ""),
+         r"\[infill\] sediment_level: required with sediment = 'to_level'"),
+        (lambda t: t.replace('regional_radius = "60 km"', ""),
+         r"\[\[loads\]\] #1: give either regional_elevation or regional_radius"),
+        (lambda t: t.replace("[infill]\nsediment = \"full\"\nsediment_density = 2200\n", ""),
+         r"a \[gravity\] table needs an \[infill\] table"),
+        (lambda t: t.replace('sediment = "full"', 'sediment = "some"'),
+         r"\[infill\] sediment: 'some' is not allowed"),
+        (lambda t: t.replace("[gravity]\n", "[gravity]\nterms = 0\n"),
+         r"\[gravity\] terms: must be >= 1"),
+    ],
+)
+def test_bad_scenarios_name_table_and_key(tmp_path, change, message):
+    (tmp_path / "s.toml").write_text(change(SCENARIO))
+    with pytest.raises(InputError, match=message):
+        load_scenario(tmp_path / "s.toml")
+
+
+def test_displaced_density_is_refused_with_infill(tmp_path):
+    text = SCENARIO.replace('kind = "elevation"', 'kind = "thickness"').replace(
+        'regional_radius = "60 km"', "displaced_density = 1030").replace(
+        "[infill]\n", '[infill]\nbase_elevation = "-4 km"\n')
+    (tmp_path / "s.toml").write_text(text)
+    with pytest.raises(InputError, match=r"#1 displaced_density: leave it out with \[infill\]"):
+        load_scenario(tmp_path / "s.toml")
+
+
+def test_observation_plane_below_the_summit_is_reported(tmp_path):
+    _write_bathymetry(tmp_path / "bathymetry.nc")
+    text = SCENARIO.replace('observation_height = "500 m"', 'observation_height = "-3 km"')
+    (tmp_path / "s.toml").write_text(text)
+    with pytest.raises(InputError, match=r"\[gravity\]: observation_height"):
+        run_scenario(load_scenario(tmp_path / "s.toml"))
+    assert not (tmp_path / "out" / "result.nc").exists()  # nothing written
