@@ -25,8 +25,8 @@ import scipy.fft
 import xarray as xr
 
 from gridflex import Infill, Plate, load_from_elevation, model_gravity, solve_with_infill
-from gridflex.grid import check_grid
 from gridflex.gravity import gravity_padded_shape
+from gridflex.grid import check_grid
 from gridflex.infill import spectral_inner
 
 PLATE = Plate(te=20e3, youngs_modulus=70e9)
