@@ -17,7 +17,7 @@ from .io.netcdf import read_grid, write_netcdf
 from .plate import Plate
 from .plots import plot_deflection_map, plot_field_map
 from .runner_infill import elevation_load, gravity_step, infill_step, load_column
-from .scenario import Scenario
+from .scenario import BASIN_TABLES, Scenario
 from .solve import solve
 from .summary import deflection_summary
 from .synthetic import disc_height, empty_grid, gaussian_height, island_chain_height
@@ -165,6 +165,9 @@ def run_scenario(scenario: Scenario, overwrite: bool = False) -> RunOutcome:
     InputError
         Bad inputs or output paths.
     """
+    if any(scenario.tables.get(name) is not None for name in BASIN_TABLES):
+        raise InputError(f"{scenario.path}: a basin scenario ([basin] or [backstrip]); "
+                         "run it with 'gridflex basin'")
     outputs = scenario.table("output")
     inputs = scenario.input_files
     maps = [key for key in _FIELD_MAPS if outputs[key]]

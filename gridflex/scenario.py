@@ -14,6 +14,10 @@ A scenario has these tables (``[[loads]]`` is an array of tables)::
     [infill]   optional: self-consistent infill (water, air, sediment) of the depression
     [gravity]  optional: free-air and Bouguer anomalies of the result (needs [infill])
     [output]   where the results go
+
+A basin scenario (``gridflex basin``) has ``[plate]``, ``[solver]``, ``[output]`` and
+either ``[basin]`` with ``[[stages]]`` (staged loading with compaction) or
+``[backstrip]`` (tectonic subsidence from present grids) instead of ``[[loads]]``.
 """
 
 from __future__ import annotations
@@ -146,6 +150,59 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "bouguer_density": Key("quantity", "Bouguer reduction density", 2670.0, "density",
                                minimum=0.0),
     },
+    "basin": {
+        "surface_file": Key("path", "NetCDF grid of the surface before the first stage "
+                            "(elevation, positive up)", REQUIRED),
+        "surface_variable": Key("string", "variable in surface_file", REQUIRED),
+        "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
+        "water_density": Key("quantity", "sea-water (and pore-water) density", 1030.0,
+                             "density", minimum=0.0),
+        "compaction": Key("bool", "compact older stages under younger ones", True),
+        "tolerance": Key("quantity", "infill iteration tolerance", 1e-4, "length",
+                         minimum=0.0),
+        "max_iterations": Key("integer", "infill iterations before giving up", 300,
+                              minimum=1),
+    },
+    "stages": {
+        "file": Key("path", "NetCDF grid of the stage isopach (thickness as deposited)",
+                    REQUIRED),
+        "variable": Key("string", "variable in the file", REQUIRED),
+        "age": Key("number", "age of the stage (years before present); oldest first",
+                   REQUIRED),
+        "lithology": Key("choice", "porosity-depth law (Sclater & Christie 1980)", "shale",
+                         choices=_choices("shale", "sandstone", "chalk", "shaly_sandstone")),
+        "surface_porosity": Key("number", "override the lithology's surface porosity", None,
+                                minimum=0.0),
+        "decay_length": Key("quantity", "override the lithology's porosity decay length",
+                            None, "length", minimum=0.0),
+        "grain_density": Key("quantity", "override the lithology's grain density", None,
+                             "density", minimum=0.0),
+        "base_level": Key("quantity", "sediment fills the new depression up to this "
+                          "elevation (default: water to sea level)", None, "length"),
+        "sea_level": Key("quantity", "sea level at the time of the stage", None, "length"),
+        "elastic_thickness": Key("quantity", "te at the time of loading (default: [plate])",
+                                 None, "length", minimum=0.0),
+        "te_file": Key("path", "NetCDF grid of te at the time of loading", None),
+        "te_variable": Key("string", "variable in te_file", None),
+    },
+    "backstrip": {
+        "basement_file": Key("path", "NetCDF grid of basement depth below sea level "
+                             "(positive down)", None),
+        "basement_variable": Key("string", "variable in basement_file", None),
+        "sediment_file": Key("path", "NetCDF grid of sediment thickness", None),
+        "sediment_variable": Key("string", "variable in sediment_file", None),
+        "water_file": Key("path", "NetCDF grid of water depth (positive down)", None),
+        "water_variable": Key("string", "variable in water_file", None),
+        "lithology": Key("choice", "porosity-depth law giving the sediment density", "shale",
+                         choices=_choices("shale", "sandstone", "chalk", "shaly_sandstone")),
+        "sediment_density": Key("quantity", "mean sediment bulk density instead of the "
+                                "porosity law", None, "density", minimum=0.0),
+        "sea_level_change": Key("quantity", "sea level of the time relative to present "
+                                "(positive higher)", 0.0, "length"),
+        "water_density": Key("quantity", "sea-water density", 1030.0, "density", minimum=0.0),
+        "max_mismatch": Key("quantity", "largest allowed |basement - sediment - water|", 1.0,
+                            "length", minimum=0.0),
+    },
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),
         "map": Key("path", "PNG map of the deflection", None),
@@ -156,12 +213,15 @@ SCHEMA: dict[str, dict[str, Key]] = {
 }
 """Every table and key a scenario may contain."""
 
-ARRAY_TABLES = frozenset({"loads"})
+ARRAY_TABLES = frozenset({"loads", "stages"})
 """Tables written as arrays of tables (``[[loads]]``)."""
 
 REQUIRED_TABLES = ("plate", "loads", "output")
 
-OPTIONAL_TABLES = frozenset({"infill", "gravity"})
+BASIN_TABLES = ("basin", "backstrip")
+"""Tables that make a scenario a basin scenario (``gridflex basin``; no ``[[loads]]``)."""
+
+OPTIONAL_TABLES = frozenset({"infill", "gravity", *BASIN_TABLES})
 """Tables whose presence switches a feature on; absent, they are ``None``."""
 
 
@@ -297,7 +357,9 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
     if unknown:
         raise InputError(f"{path}: unknown table [{unknown[0]}]; valid tables are "
                          + ", ".join(f"[{t}]" for t in SCHEMA))
-    for name in REQUIRED_TABLES:
+    basin = any(name in data for name in BASIN_TABLES)
+    required = ("plate", "output") if basin else REQUIRED_TABLES
+    for name in required:
         if name not in data:
             raise InputError(f"{path}: required table [{name}] is missing")
     tables: dict[str, Any] = {}
@@ -319,9 +381,50 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
         else:
             tables[name] = _parse_table(raw, spec, f"{path}: [{name}]", base)
     scenario = Scenario(path=path, text=text, tables=tables)
+    if basin:
+        _check_basin(scenario)
+        return scenario
     _check_loads(scenario)
     _check_infill_and_gravity(scenario)
     return scenario
+
+
+def _check_basin(scenario: Scenario) -> None:
+    tables = scenario.tables
+    if tables["basin"] is not None and tables["backstrip"] is not None:
+        raise InputError(f"{scenario.path}: give either [basin] (with [[stages]]) or "
+                         "[backstrip], not both")
+    for name in ("loads", "infill", "gravity"):
+        if tables[name]:
+            raise InputError(f"{scenario.path}: [{name}] belongs to 'gridflex run' scenarios, "
+                             "not to a basin scenario")
+    extra = [k for k in ("map", "moat_fill_map", "free_air_map", "bouguer_map")
+             if tables["output"][k] is not None]
+    if extra:
+        raise InputError(f"{scenario.where('output', extra[0])}: not written by a basin run "
+                         "(only 'file')")
+    if tables["basin"] is not None:
+        if not tables["stages"]:
+            raise InputError(f"{scenario.path}: [basin] needs at least one [[stages]] table")
+        for i, stage in enumerate(tables["stages"]):
+            if (stage["te_file"] is None) != (stage["te_variable"] is None):
+                raise InputError(f"{scenario.where('stages', index=i)}: te_file and "
+                                 "te_variable go together")
+            if stage["te_file"] is not None and stage["elastic_thickness"] is not None:
+                raise InputError(f"{scenario.where('stages', index=i)}: give either "
+                                 "elastic_thickness or te_file")
+        return
+    if tables["stages"]:
+        raise InputError(f"{scenario.path}: [[stages]] need a [basin] table")
+    table = tables["backstrip"]
+    given = [p for p in ("basement", "sediment", "water") if table[f"{p}_file"] is not None]
+    for part in ("basement", "sediment", "water"):
+        if (table[f"{part}_file"] is None) != (table[f"{part}_variable"] is None):
+            raise InputError(f"{scenario.where('backstrip')}: {part}_file and "
+                             f"{part}_variable go together")
+    if len(given) < 2:
+        raise InputError(f"{scenario.where('backstrip')}: give at least two of basement_file, "
+                         "sediment_file and water_file")
 
 
 def _check_loads(scenario: Scenario) -> None:

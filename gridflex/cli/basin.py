@@ -1,0 +1,30 @@
+"""``gridflex basin SCENARIO.toml``: staged basin loading or a flexural backstrip."""
+
+from __future__ import annotations
+
+import argparse
+
+from ..runner_basin import run_basin
+from ..scenario import load_scenario
+from .common import add_common_options, progress_printer
+
+NAME = "basin"
+HELP = "fill a basin stage by stage with compaction, or backstrip it, and write the NetCDF"
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
+    parser.add_argument("scenario", help="basin scenario file (TOML, [basin] or [backstrip])")
+    parser.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    add_common_options(parser)
+
+
+def execute(args: argparse.Namespace) -> int:
+    outcome = run_basin(load_scenario(args.scenario), overwrite=args.overwrite,
+                        progress=progress_printer(args))
+    if not args.quiet:
+        for key, value in outcome.summary.items():
+            print(f"{key.replace('_', ' ')}: {value:.6g}")
+        for path in outcome.written:
+            print(f"wrote {path}")
+    return 0
