@@ -91,19 +91,40 @@ def test_a_stage_removed_and_readded_returns_the_same_state():
     shelf = grid(np.broadcast_to(np.linspace(-250.0, 40.0, N), (N, N)).copy())
     basin = StagedBasin(shelf, Plate(te=6e3), tolerance=TOL)
     first = Stage(lens(500.0), 5e6, "shale")
-    second = Stage(lens(350.0, 35e3), 2e6, "sandstone")
+    second = Stage(lens(350.0, 35e3), 2e6, "sandstone", base_level=0.0)
     basin.add_stage(first)
     basin.add_stage(second)
     basin.remove_stage()
     basin.add_stage(second)
     out = basin.to_dataset()
     assert out.sizes["stage"] == 4
-    shrink = out["stage_thickness"][0] - (out["sediment_thickness"][1] - lens(350.0, 35e3))
+    shrink = out["stage_thickness"][0] + out["stage_thickness"][1] - out["sediment_thickness"][1]
     assert float(shrink.max()) > 10.0  # stage 1 really compacted under stage 2
+    assert float(out["stage_fill"][1].max()) > 1.0  # and stage 2 filled its moat
     for later, earlier in ((2, 0), (3, 1)):
         for name in ("deflection", "surface", "sediment_thickness", "sediment_density"):
             assert_allclose(out[name][later], out[name][earlier], atol=1e-5, rtol=1e-9)
     assert_allclose(out["stage_thickness"][2], lens(500.0), atol=1e-8)  # decompacted back
+
+
+def test_settled_stage_with_moat_fill_is_in_local_balance():
+    # te = 0: Airy balance of the final column, rho_m w = M + rho_w (h_w - h_w0)
+    # (PHYSICS.md 1.3 and 5.1), with M the mass of the column compacted by the
+    # closed-form law (Sclater & Christie 1980) and the moat filled with sediment to sea
+    # level; rtol 1e-6 (iteration tolerance 1e-7 m)
+    stages = [Stage(flat(300.0), 4e6, "shale", base_level=0.0),
+              Stage(flat(200.0), 2e6, "chalk", base_level=0.0)]
+    out = stage_loading(stages, flat(-1500.0), Plate(te=0.0), tolerance=TOL, edges="periodic")
+    for k in range(2):
+        w = out["deflection"][k].values
+        mass = out["sediment_density"][k].values * out["sediment_thickness"][k].values
+        water = out["water_depth"][k].values
+        assert_allclose(3300.0 * w, mass + 1030.0 * (water - 1500.0), rtol=1e-6)
+        assert float(out["stage_fill"][k].min()) > 10.0
+    # the fill takes only the space the plate makes: the first stage leaves the surface
+    # its isopach above the start; the second also compacts the first (common practice)
+    assert_allclose(out["surface"][0].values, -1500.0 + 300.0, atol=1e-5)
+    assert float(out["surface"][1].max()) < -1500.0 + 500.0 - 1.0
 
 
 def test_stage_te_applies_at_the_time_of_loading():
