@@ -294,6 +294,15 @@ def interface_gravity(
     GravitySeriesWarning
         When the last term still changes the anomaly by more than 1 % of its range.
 
+    Notes
+    -----
+    With ``edges="infinite"`` the FFT still sums periodic images of the padded
+    relief; their field falls off only like depth / r^3 and adds about
+    (relief area / L^2) * 1.4 * depth / L of the slab value (L the padded
+    width): ~0.2 % for a compact body, up to ~1 % for a relief with net mass
+    that fills the grid. A compensated set of interfaces (net mass ~ 0, as in
+    :func:`gridflex.model_gravity`) has much smaller image fields.
+
     Examples
     --------
     A uniform relief on a periodic grid is the Bouguer slab 2 pi G drho h:
