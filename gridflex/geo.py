@@ -29,6 +29,7 @@ from rasterio.enums import Resampling
 from rasterio.errors import CRSError
 
 from .errors import InputError
+from .memory import check_memory
 
 __all__ = [
     "GridGeometry",
@@ -396,6 +397,8 @@ def reproject_values(
     else:
         s_crs = src.crs if src.crs is not None else _STAND_IN
         d_crs = dst.crs if dst.crs is not None else _STAND_IN
+        check_memory(8.0 * (2 * dst.shape[0] * dst.shape[1] + values.size),
+                     f"resampling onto a {dst.shape[0]} x {dst.shape[1]} grid")
         out = np.full(dst.shape, np.nan)
         with rasterio.Env():
             rasterio.warp.reproject(

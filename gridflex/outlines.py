@@ -8,9 +8,11 @@ interpolations between cell centres.
 Definitions (w positive down, m):
 
 * **moat** at depth d: the region where w >= d, as polygons with holes.
-* **zero-deflection line**: the w = 0 contour between connected regions of one
-  sign whose peak |w| is at least :data:`ZERO_LINE_MIN_AMPLITUDE` of the largest
-  |w| on the grid; the weak far-field crossings and round-off ripples are dropped.
+* **zero-deflection line**: the w = 0 contour around the depressed regions
+  (connected, 8-neighbour, w > 0) whose deepest point reaches
+  :data:`ZERO_LINE_MIN_AMPLITUDE` of the largest w on the grid; the weak
+  far-field lobes (the second zero of a point or line load) and round-off
+  ripples far from the load are dropped.
 * **forebulge crest**: let d be the distance (m) from the load footprint (cells
   where the load exceeds :data:`FOOTPRINT_FRACTION` of its peak;
   scipy.ndimage.distance_transform_edt) and n = grad d / |grad d| the direction
@@ -39,6 +41,7 @@ __all__ = [
     "FOOTPRINT_FRACTION",
     "Polygon",
     "ZERO_LINE_MIN_AMPLITUDE",
+    "check_moat_depth",
     "forebulge_crest",
     "moat_outline",
     "signed_area",
@@ -53,8 +56,9 @@ FOOTPRINT_FRACTION = 0.01
 CREST_MIN_UPLIFT = 0.1
 """The crest is traced only where the uplift -w exceeds this fraction of its maximum."""
 
-ZERO_LINE_MIN_AMPLITUDE = 1e-3
-"""Regions of one sign weaker than this fraction of max |w| do not produce a zero line."""
+ZERO_LINE_MIN_AMPLITUDE = 0.01
+"""Depressions shallower than this fraction of max w get no zero line (the second lobe of a
+line load is exp(-2 pi) = 0.19% of its peak: Hetényi 1946)."""
 
 
 def signed_area(ring: np.ndarray) -> float:
@@ -115,6 +119,17 @@ def _lines(x: np.ndarray, y: np.ndarray, z: np.ndarray, level: float) -> list[np
     return [np.asarray(line, float) for line in _generator(x, y, z).lines(level) if len(line) > 1]
 
 
+def check_moat_depth(depth: object) -> float:
+    """*depth* as a float; InputError unless it is a positive, finite number (m)."""
+    try:
+        level = float(depth)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        level = math.nan
+    if not (math.isfinite(level) and level > 0):
+        raise InputError(f"moat depth must be a positive number of metres, got {depth!r}")
+    return level
+
+
 def moat_outline(deflection: xr.DataArray, depth: float) -> list[Polygon]:
     """Polygons of the region where the deflection reaches *depth* (w >= depth).
 
@@ -131,13 +146,7 @@ def moat_outline(deflection: xr.DataArray, depth: float) -> list[Polygon]:
         In the grid's coordinates; empty when w never reaches *depth*.
     """
     x, y, w = _field(deflection, "deflection")
-    try:
-        level = float(depth)
-    except (TypeError, ValueError):
-        level = math.nan
-    if not (math.isfinite(level) and level > 0):
-        raise InputError(f"moat depth must be a positive number of metres, got {depth!r}")
-    depth = level
+    depth = check_moat_depth(depth)
     top = np.nanmax(w) if np.any(np.isfinite(w)) else -np.inf
     if not top >= depth:
         return []
@@ -154,26 +163,23 @@ def moat_outline(deflection: xr.DataArray, depth: float) -> list[Polygon]:
 def zero_line(deflection: xr.DataArray) -> list[np.ndarray]:
     """The zero-deflection line(s) as ``(N, 2)`` arrays of ``(x, y)``.
 
-    The w = 0 contour between connected regions of one sign whose peak |w|
-    reaches :data:`ZERO_LINE_MIN_AMPLITUDE` of max |w| (module docstring).
-    Closed loops repeat their first point.
+    The w = 0 contour around the depressed regions (connected, w > 0) whose
+    deepest point reaches :data:`ZERO_LINE_MIN_AMPLITUDE` of the largest w
+    (module docstring). Closed loops repeat their first point.
     """
     x, y, w = _field(deflection, "deflection")
     finite = np.isfinite(w)
-    if not finite.any():
+    if not finite.any() or not np.nanmax(w) > 0:
         return []
-    threshold = ZERO_LINE_MIN_AMPLITUDE * float(np.max(np.abs(w[finite])))
-    if threshold == 0.0:
-        return []
-    keep = np.zeros(w.shape, dtype=bool)
-    for sign in (1.0, -1.0):
-        labels, count = ndimage.label(finite & (sign * w > 0))
-        if count == 0:
-            continue
-        peaks = ndimage.maximum(sign * np.where(finite, w, 0.0), labels, np.arange(1, count + 1))
-        strong = np.concatenate([[False], np.asarray(peaks) >= threshold])
-        keep |= strong[labels]
-    z = np.where(keep, w, np.nan)
+    w = np.where(finite, w, np.nan)
+    top = float(np.nanmax(w))
+    labels, count = ndimage.label(finite & (w > 0), structure=np.ones((3, 3), bool))
+    peaks = ndimage.maximum(np.where(finite, w, 0.0), labels, np.arange(1, count + 1))
+    strong = np.concatenate([[False], np.asarray(peaks) >= ZERO_LINE_MIN_AMPLITUDE * top])
+    keep = strong[labels]
+    # weak depressions and exact zeros become slightly negative: no crossing is traced there,
+    # while the crossings next to the kept regions use the true values on both sides
+    z = np.where(keep | (w < 0), w, -1e-12 * top)
     return _lines(x, y, z, 0.0)
 
 

@@ -140,6 +140,16 @@ def test_netcdf_in_degrees_without_grid_mapping_is_lonlat(tmp_path):
     assert geometry_of(da).is_geographic
 
 
+def test_netcdf_lat_lon_names_without_units_are_degrees(tmp_path):
+    ds = xr.Dataset({"h": (("lat", "lon"), np.ones((4, 5)))},
+                    coords={"lat": np.linspace(1.0, 2.5, 4), "lon": np.linspace(3.0, 5.0, 5)})
+    path = tmp_path / "h.nc"
+    ds.to_netcdf(path)
+    da = read_raster(path)
+    assert CRS.from_wkt(da.attrs["crs_wkt"]) == LONLAT
+    assert da["x"].attrs["units"] == "degrees_east"
+
+
 def test_netcdf_metric_km_without_crs(tmp_path):
     ds = xr.Dataset({"h": (("y", "x"), np.ones((5, 6)), {"units": "m"})},
                     coords={"y": ("y", np.arange(5.0) * 2, {"units": "km"}),

@@ -27,6 +27,7 @@ from rasterio.errors import RasterioError
 
 from ..errors import InputError
 from ..geo import GridGeometry, parse_crs
+from ..memory import check_memory
 from ..units import unit_factor
 from .atomic import atomic_path
 
@@ -120,8 +121,13 @@ def _read_gdal(path: Path, variable: str | None) -> xr.DataArray:
             crs = None
             if src.crs is not None:
                 crs = parse_crs(src.crs, f"{path}: CRS")
+            # the band as read, its float64 copy and the mask
+            check_memory(src.height * src.width * 17.0, f"{path}: reading band {band}")
             data = src.read(band, masked=True)
             values = np.ma.filled(data.astype(np.float64), np.nan)
+            scale, offset = src.scales[band - 1], src.offsets[band - 1]
+            if scale != 1.0 or offset != 0.0:
+                values = values * scale + offset
             units = src.units[band - 1] or src.tags(band).get("units")
             long_name = src.tags(band).get("long_name")
     except InputError:
@@ -153,6 +159,16 @@ def _role(coord: xr.DataArray, dim: str) -> str | None:
     if dim.lower() in _Y_NAMES:
         return "y"
     return None
+
+
+def _in_degrees(coord: xr.DataArray, dim: str) -> bool:
+    """Coordinate in degrees: by its units, its standard name, or a lat/lon name without units."""
+    units = str(coord.attrs.get("units", "")).strip().lower()
+    if units:
+        return units in _DEGREE_UNITS
+    std = str(coord.attrs.get("standard_name", "")).lower()
+    return std in ("latitude", "longitude") or dim.lower() in ("lat", "lon", "latitude",
+                                                               "longitude")
 
 
 def _grid_mapping_crs(ds: xr.Dataset, da: xr.DataArray, where: str) -> CRS | None:
@@ -201,6 +217,7 @@ def _read_netcdf(path: Path, variable: str | None) -> xr.DataArray:
             if squeezed.ndim != 2:
                 raise InputError(f"{where}: expected a 2-D grid, got dims {da.dims!r}")
             crs = _grid_mapping_crs(ds, da, where)
+            check_memory(squeezed.size * 16.0, f"{where}: reading")
             da = squeezed.load()
     except InputError:
         raise
@@ -220,9 +237,7 @@ def _read_netcdf(path: Path, variable: str | None) -> xr.DataArray:
         ydim = next(d for d, r in roles.items() if r == "y")
         xdim = next(d for d, r in roles.items() if r == "x")
     da = da.transpose(ydim, xdim)
-    degrees = [str(da[d].attrs.get("units", "")).strip().lower() in _DEGREE_UNITS
-               or str(da[d].attrs.get("standard_name", "")).lower() in ("latitude", "longitude")
-               for d in (ydim, xdim)]
+    degrees = [_in_degrees(da[d], d) for d in (ydim, xdim)]
     if crs is None and all(degrees):
         crs = CRS.from_epsg(4326)
     coords = []
