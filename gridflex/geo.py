@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import logging
 import math
+import os
 import re
 from dataclasses import dataclass
 from typing import Any
@@ -362,6 +363,15 @@ def _resampling(name: str) -> Resampling:
         ) from None
 
 
+def _same_cells(a: GridGeometry, b: GridGeometry) -> bool:
+    """Same CRS, shape and (to 1e-6 of a cell) transform."""
+    if not _same_crs(a.crs, b.crs) or tuple(a.shape) != tuple(b.shape):
+        return False
+    cell = min(abs(a.transform.a), abs(a.transform.e))
+    return all(abs(p - q) <= 1e-6 * cell for p, q in zip(a.transform[:6], b.transform[:6],
+                                                          strict=True))
+
+
 _STAND_IN = CRS.from_proj4("+proj=laea +lat_0=0 +lon_0=0 +datum=WGS84 +units=m +no_defs")
 
 
@@ -392,7 +402,7 @@ def reproject_values(
     _check_alignable(src.crs, dst.crs)
     s_up, d_up = src.north_up(), dst.north_up()
     s_vals = values if s_up is src else values[::-1]
-    if _same_crs(src.crs, dst.crs) and s_up == d_up:
+    if _same_cells(s_up, d_up):
         out = s_vals.copy()  # the same cells: no resampling error
     else:
         s_crs = src.crs if src.crs is not None else _STAND_IN
@@ -405,7 +415,7 @@ def reproject_values(
                 np.ascontiguousarray(s_vals), out,
                 src_transform=s_up.transform, src_crs=s_crs, src_nodata=np.nan,
                 dst_transform=d_up.transform, dst_crs=d_crs, dst_nodata=np.nan,
-                resampling=method,
+                resampling=method, num_threads=min(2, os.cpu_count() or 1),
             )
     return out if d_up is dst else out[::-1].copy()
 

@@ -35,6 +35,7 @@ import xarray as xr
 from scipy import ndimage
 
 from .errors import InputError
+from .io.rasters import geometry_of
 
 __all__ = [
     "CREST_MIN_UPLIFT",
@@ -189,8 +190,6 @@ def _cell_metres(da: xr.DataArray) -> tuple[float, float]:
     y = np.asarray(da["y"].values, float)
     x = np.asarray(da["x"].values, float)
     if wkt:
-        from .io.rasters import geometry_of  # io sits beside this module
-
         return geometry_of(da.transpose("y", "x")).cell_size_metres()
     return (abs(float(y[1] - y[0])), abs(float(x[1] - x[0])))
 

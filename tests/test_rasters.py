@@ -241,3 +241,22 @@ def test_rotated_geotiff(tmp_path):
     _write_tif(path, np.ones((4, 4)), Affine(1000, 100, 0, 100, -1000, 4000), UTM33)
     with pytest.raises(InputError, match=r"rot\.tif: the grid is rotated or sheared"):
         read_raster(path)
+
+
+def test_geotiff_with_a_crs_not_on_the_earth(tmp_path):
+    path = tmp_path / "site.tif"
+    _write_tif(path, np.ones((4, 4)), Affine(1, 0, 0, 0, -1, 4),
+               CRS.from_wkt('LOCAL_CS["site grid",UNIT["metre",1]]'))
+    with pytest.raises(InputError, match=r"site\.tif: CRS: .* neither geographic nor projected"):
+        read_raster(path)
+
+
+def test_file_type_comes_from_its_bytes(tmp_path):
+    # a GeoTIFF named .nc is still read by GDAL; bounds variables are not candidates
+    path = write_geotiff(_lonlat_array(), tmp_path / "misnamed.nc", LONLAT)
+    assert read_raster(path).shape == (40, 60)
+    ds = xr.Dataset({"h": (("y", "x"), np.ones((4, 4))),
+                     "x_bnds": (("x", "nv"), np.zeros((4, 2)))},
+                    coords={"y": np.arange(4.0), "x": ("x", np.arange(4.0), {"bounds": "x_bnds"})})
+    ds.to_netcdf(tmp_path / "b.nc")
+    assert read_raster(tmp_path / "b.nc").name == "h"

@@ -39,6 +39,7 @@ NETCDF_SUFFIXES = (".nc", ".nc4", ".cdf", ".netcdf")
 """File name endings read through xarray/netCDF4 rather than GDAL."""
 
 _NETCDF_MAGIC = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n")
+_TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")
 _DEGREE_UNITS = {"degree", "degrees", "degrees_east", "degrees_north", "degree_east",
                  "degree_north", "degrees_e", "degrees_n", "degree_e", "degree_n", "deg"}
 _X_NAMES = {"x", "lon", "longitude", "easting", "projection_x_coordinate"}
@@ -46,11 +47,14 @@ _Y_NAMES = {"y", "lat", "latitude", "northing", "projection_y_coordinate"}
 
 
 def _is_netcdf(path: Path) -> bool:
-    if path.suffix.lower() in NETCDF_SUFFIXES:
-        return True
+    """NetCDF by its first bytes; a TIFF by its first bytes is not; else by the name ending."""
     with open(path, "rb") as handle:
         head = handle.read(8)
-    return any(head.startswith(magic) for magic in _NETCDF_MAGIC)
+    if any(head.startswith(magic) for magic in _NETCDF_MAGIC):
+        return True
+    if head[:4] in _TIFF_MAGIC:
+        return False
+    return path.suffix.lower() in NETCDF_SUFFIXES
 
 
 def _axis_coords(y: np.ndarray, x: np.ndarray, crs: CRS | None) -> dict[str, Any]:
@@ -191,9 +195,9 @@ def _grid_mapping_crs(ds: xr.Dataset, da: xr.DataArray, where: str) -> CRS | Non
 
 
 def _netcdf_variable(ds: xr.Dataset, path: Path, variable: str | None) -> str:
-    mapping_vars = {str(ds[v].attrs.get("grid_mapping", "")).split(":")[0] for v in ds.data_vars}
-    candidates = [str(v) for v in ds.data_vars
-                  if ds[v].ndim >= 2 and str(v) not in mapping_vars]
+    helpers = {str(ds[v].attrs.get("grid_mapping", "")).split(":")[0] for v in ds.data_vars}
+    helpers |= {str(ds[v].attrs.get("bounds", "")) for v in ds.variables}  # cell bounds
+    candidates = [str(v) for v in ds.data_vars if ds[v].ndim >= 2 and str(v) not in helpers]
     if variable is None:
         if len(candidates) != 1:
             listed = ", ".join(map(repr, candidates)) or "none"
