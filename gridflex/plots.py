@@ -161,7 +161,7 @@ def plot_profile(
     fig, (top, bottom) = plt.subplots(2, 1, figsize=(8.0, 6.0), sharex=True,
                                       constrained_layout=True, height_ratios=(1, 2))
     if "load" in profile:
-        top.fill_between(km, profile["load"].values / 1e6, color="0.55", step="mid")
+        top.fill_between(km, profile["load"].values / 1e6, color="0.55", linewidth=0)
         top.set_ylabel("load (MPa)")
     top.set_title(title, fontsize=10)
     bottom.plot(km, -profile["deflection"].values, color="tab:red",

@@ -15,9 +15,8 @@ from .io.atomic import check_output_path
 from .io.netcdf import write_netcdf
 from .io.rasters import write_geotiff
 from .io.tables import write_csv
-from .io.vectors import write_geojson
+from .io.vectors import outline_features, write_geojson
 from .layers import WorkingGrid, build_working_load, to_input_grid
-from .outlines import outline_features
 from .plate import Plate
 from .plots import plot_deflection_map, plot_profile
 from .profile import sample_profile
