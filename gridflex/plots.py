@@ -31,7 +31,9 @@ def _pyplot() -> Any:
     return plt
 
 
-def _axes_coordinates(da: xr.DataArray | xr.Dataset) -> tuple[np.ndarray, np.ndarray, str, str, float]:
+def _axes_coordinates(
+    da: xr.DataArray | xr.Dataset,
+) -> tuple[np.ndarray, np.ndarray, str, str, float]:
     """x, y for plotting, their labels and the aspect ratio (km, or degrees)."""
     if str(da["x"].attrs.get("units", "")).lower().startswith("degree"):
         y = da["y"].values

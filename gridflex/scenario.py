@@ -17,9 +17,10 @@ A scenario has these tables (``[[loads]]`` is an array of tables)::
 from __future__ import annotations
 
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from .errors import InputError
 from .units import parse_quantity

@@ -6,7 +6,7 @@ import argparse
 import logging
 import sys
 import warnings
-from typing import Callable
+from collections.abc import Callable
 
 from ..errors import GridflexWarning
 
