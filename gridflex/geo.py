@@ -37,6 +37,7 @@ __all__ = [
     "LONLAT",
     "RESAMPLING",
     "cell_areas",
+    "even_step",
     "from_lonlat",
     "local_projection",
     "parse_crs",
@@ -133,6 +134,38 @@ def _linear_factor(crs: CRS) -> float:
         return 1.0
 
 
+def even_step(coord: Any, name: str) -> tuple[float, float, int]:
+    """First value, step and length of evenly spaced 1-D cell centres *coord*.
+
+    The step is taken from the end points; coordinates stored in float32 are
+    checked only to float32 precision.
+
+    Raises
+    ------
+    InputError
+        Not 1-D, fewer than 2 values, not finite, or not evenly spaced
+        (relative 1e-5); the message names coordinate *name*.
+    """
+    given = np.asarray(coord)
+    if given.ndim != 1 or given.size < 2 or not np.issubdtype(given.dtype, np.number):
+        raise InputError(
+            f"coordinate {name!r} must be 1-D with at least 2 numbers, got shape {given.shape}"
+        )
+    values = given.astype(np.float64)
+    if not np.all(np.isfinite(values)):
+        raise InputError(f"coordinate {name!r} has NaN or infinite values")
+    step = (values[-1] - values[0]) / (values.size - 1)
+    diffs = np.diff(values)
+    eps = np.finfo(given.dtype).eps if np.issubdtype(given.dtype, np.floating) else 0.0
+    tol = max(_SPACING_RTOL * abs(step), 8.0 * eps * float(np.max(np.abs(values))))
+    if step == 0.0 or np.max(np.abs(diffs - step)) > tol:
+        raise InputError(
+            f"coordinate {name!r} is not evenly spaced (steps from {float(diffs.min())!r} "
+            f"to {float(diffs.max())!r}); resample onto a regular grid first"
+        )
+    return float(values[0]), float(step), int(values.size)
+
+
 @dataclass(frozen=True)
 class GridGeometry:
     """Where a regular grid lies: CRS, affine transform and shape.
@@ -179,22 +212,7 @@ class GridGeometry:
         InputError
             Coordinates not 1-D, too short, not finite or not evenly spaced.
         """
-        steps = []
-        for name, values in (("y", y), ("x", x)):
-            values = np.asarray(values, dtype=np.float64)
-            if values.ndim != 1 or values.size < 2 or not np.all(np.isfinite(values)):
-                raise InputError(
-                    f"coordinate {name!r} must be 1-D with at least 2 finite values, got "
-                    f"shape {values.shape}"
-                )
-            step = (values[-1] - values[0]) / (values.size - 1)
-            diffs = np.diff(values)
-            if step == 0.0 or np.max(np.abs(diffs - step)) > _SPACING_RTOL * abs(step):
-                raise InputError(
-                    f"coordinate {name!r} is not evenly spaced (steps from {diffs.min()!r} "
-                    f"to {diffs.max()!r}); resample onto a regular grid first"
-                )
-            steps.append((float(values[0]), float(step), values.size))
+        steps = [even_step(y, "y"), even_step(x, "x")]
         (y0, dy, ny), (x0, dx, nx) = steps
         transform = Affine(dx, 0.0, x0 - dx / 2, 0.0, dy, y0 - dy / 2)
         return cls(crs, transform, (ny, nx))

@@ -151,6 +151,8 @@ def moat_outline(deflection: xr.DataArray, depth: float) -> list[Polygon]:
     top = np.nanmax(w) if np.any(np.isfinite(w)) else -np.inf
     if not top >= depth:
         return []
+    box = _bounding_box(w >= depth, margin=1)
+    x, y, w = x[box[1]], y[box[0]], w[box]
     points, offsets = _generator(x, y, w).filled(float(depth), float(top) + 1.0)
     polygons = []
     for pts, off in zip(points, offsets, strict=True):
@@ -175,13 +177,15 @@ def zero_line(deflection: xr.DataArray) -> list[np.ndarray]:
     w = np.where(finite, w, np.nan)
     top = float(np.nanmax(w))
     labels, count = ndimage.label(finite & (w > 0), structure=np.ones((3, 3), bool))
-    peaks = ndimage.maximum(np.where(finite, w, 0.0), labels, np.arange(1, count + 1))
-    strong = np.concatenate([[False], np.asarray(peaks) >= ZERO_LINE_MIN_AMPLITUDE * top])
+    strong = np.zeros(count + 1, dtype=bool)  # regions holding a cell deep enough
+    strong[labels[w >= ZERO_LINE_MIN_AMPLITUDE * top]] = True
+    strong[0] = False
     keep = strong[labels]
     # weak depressions and exact zeros become slightly negative: no crossing is traced there,
     # while the crossings next to the kept regions use the true values on both sides
     z = np.where(keep | (w < 0), w, -1e-12 * top)
-    return _lines(x, y, z, 0.0)
+    box = _bounding_box(keep, margin=1)  # every crossing is next to a kept cell
+    return _lines(x[box[1]], y[box[0]], z[box], 0.0)
 
 
 def _cell_metres(da: xr.DataArray) -> tuple[float, float]:
@@ -223,6 +227,11 @@ def forebulge_crest(deflection: xr.DataArray, load: xr.DataArray) -> list[np.nda
         log.info("no load or no uplift: no forebulge crest")
         return []
     footprint = q > FOOTPRINT_FRACTION * peak
+    raised = w < -CREST_MIN_UPLIFT * uplift
+    # work in the box holding the load and the raised region, with a margin of 2 cells so that
+    # the central differences there are those of the full grid
+    box = _bounding_box(footprint | raised, margin=2)
+    footprint, raised, w, y, x = footprint[box], raised[box], w[box], y[box[0]], x[box[1]]
     dy, dx = _cell_metres(deflection)
     distance = ndimage.distance_transform_edt(~footprint, sampling=(dy, dx))
     gdy, gdx = np.gradient(distance, dy, dx)
@@ -230,5 +239,14 @@ def forebulge_crest(deflection: xr.DataArray, load: xr.DataArray) -> list[np.nda
     norm = np.hypot(gdy, gdx)
     with np.errstate(invalid="ignore", divide="ignore"):
         slope = (gwy * gdy + gwx * gdx) / norm
-    slope[~(w < -CREST_MIN_UPLIFT * uplift) | (norm == 0)] = np.nan
+    slope[~raised | (norm == 0)] = np.nan
     return _lines(x, y, slope, 0.0)
+
+
+def _bounding_box(mask: np.ndarray, margin: int) -> tuple[slice, slice]:
+    """Slices of the smallest box holding every True cell of *mask*, grown by *margin*."""
+    box = []
+    for axis in (1, 0):
+        hits = np.flatnonzero(mask.any(axis=axis))
+        box.append(slice(max(int(hits[0]) - margin, 0), int(hits[-1]) + margin + 1))
+    return box[0], box[1]

@@ -150,6 +150,22 @@ def test_netcdf_lat_lon_names_without_units_are_degrees(tmp_path):
     assert da["x"].attrs["units"] == "degrees_east"
 
 
+def test_netcdf_float32_coordinates_come_back_evenly_spaced(tmp_path):
+    lon = (170.0 + 0.01 * np.arange(300)).astype(np.float32)  # float32 steps vary by ~1e-5
+    lat = (-20.0 + 0.01 * np.arange(50)).astype(np.float32)
+    ds = xr.Dataset({"h": (("lat", "lon"), np.ones((50, 300)))},
+                    coords={"lat": ("lat", lat, {"units": "degrees_north"}),
+                            "lon": ("lon", lon, {"units": "degrees_east"})})
+    ds.to_netcdf(tmp_path / "f.nc")
+    da = read_raster(tmp_path / "f.nc")
+    steps = np.diff(da["x"].values)
+    assert np.ptp(steps) < 1e-12  # exactly even (round-off), common practice
+    assert_allclose(da["x"].values, lon, rtol=0, atol=1e-4)  # float32 precision at 173 deg
+    with pytest.raises(InputError, match=r"f2\.nc: variable 'h': coordinate 'lon' is not evenly"):
+        ds.assign_coords(lon=np.r_[lon[:-1], np.float32(180.0)]).to_netcdf(tmp_path / "f2.nc")
+        read_raster(tmp_path / "f2.nc")
+
+
 def test_netcdf_metric_km_without_crs(tmp_path):
     ds = xr.Dataset({"h": (("y", "x"), np.ones((5, 6)), {"units": "m"})},
                     coords={"y": ("y", np.arange(5.0) * 2, {"units": "km"}),

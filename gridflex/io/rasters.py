@@ -26,7 +26,7 @@ from rasterio.crs import CRS
 from rasterio.errors import RasterioError
 
 from ..errors import InputError
-from ..geo import GridGeometry, parse_crs
+from ..geo import GridGeometry, even_step, parse_crs
 from ..memory import check_memory
 from ..units import unit_factor
 from .atomic import atomic_path
@@ -246,7 +246,9 @@ def _read_netcdf(path: Path, variable: str | None) -> xr.DataArray:
         crs = CRS.from_epsg(4326)
     coords = []
     for dim, is_degree in zip((ydim, xdim), degrees, strict=True):
-        values = np.asarray(da[dim].values, dtype=np.float64)
+        values = np.asarray(da[dim].values)
+        if not np.issubdtype(values.dtype, np.number):
+            raise InputError(f"{where}: coordinate {dim!r} is not numeric ({values.dtype})")
         if crs is not None and crs.is_geographic:
             if not is_degree and str(da[dim].attrs.get("units", "")).strip():
                 raise InputError(
@@ -260,11 +262,15 @@ def _read_netcdf(path: Path, variable: str | None) -> xr.DataArray:
         elif crs is None or crs.linear_units_factor[1] == 1.0:
             units = str(da[dim].attrs.get("units", "m")).strip() or "m"
             values = values * unit_factor(units, "length", f"{where}: coordinate {dim!r}")
+        try:
+            even_step(values, str(dim))
+        except InputError as exc:
+            raise InputError(f"{where}: {exc}") from exc
         coords.append(values)
-    GridGeometry.from_coords(coords[0], coords[1], crs)  # checks even spacing
+    geometry = GridGeometry.from_coords(coords[0], coords[1], crs)
+    y, x = geometry.coords()  # exactly even, also for coordinates stored in float32
     extra = {k: da.attrs[k] for k in ("long_name", "standard_name") if k in da.attrs}
-    return _finish(path, name, da.values, coords[0], coords[1], crs, da.attrs.get("units"),
-                   extra)
+    return _finish(path, name, da.values, y, x, crs, da.attrs.get("units"), extra)
 
 
 def read_raster(path: str | Path, variable: str | None = None) -> xr.DataArray:
@@ -317,8 +323,12 @@ def geometry_of(da: xr.DataArray) -> GridGeometry:
     if not isinstance(da, xr.DataArray) or da.dims != ("y", "x"):
         raise InputError("expected a DataArray on dims ('y', 'x')")
     wkt = da.attrs.get("crs_wkt", "")
-    crs = parse_crs(wkt, f"{da.name or 'grid'}: crs_wkt") if wkt else None
-    return GridGeometry.from_coords(da["y"].values, da["x"].values, crs)
+    label = da.name or "grid"
+    crs = parse_crs(wkt, f"{label}: crs_wkt") if wkt else None
+    try:
+        return GridGeometry.from_coords(da["y"].values, da["x"].values, crs)
+    except InputError as exc:
+        raise InputError(f"{label}: {exc}") from exc
 
 
 def write_geotiff(
