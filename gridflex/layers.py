@@ -130,7 +130,9 @@ def _synthetic_layer(scenario: Scenario, layer: dict[str, Any]) -> xr.DataArray:
     return gaussian_height(grid, layer["radius"], layer["height"], *centre, points=points)
 
 
-def _apply_missing_policy(da: xr.DataArray, policy: str, where: str) -> xr.DataArray:
+def _apply_missing_policy(
+    da: xr.DataArray, policy: str, where: str, elevation: bool = False
+) -> xr.DataArray:
     missing = ~np.isfinite(da.values)
     count = int(missing.sum())
     if count == 0:
@@ -140,6 +142,11 @@ def _apply_missing_policy(da: xr.DataArray, policy: str, where: str) -> xr.DataA
     if policy == "error":
         raise InputError(f"{where}: {count} nodata or NaN cell(s); fill them, or set "
                          "missing = \"zero\" to treat them as no load")
+    if elevation:  # no load there: the surface at its typical (median) level
+        level = float(np.nanmedian(da.values))
+        warnings.warn(f"{where}: {count} nodata or NaN cell(s) taken as no edifice (the "
+                      f"layer's median elevation, {level:.6g})", NodataWarning, stacklevel=4)
+        return da.fillna(level)
     warnings.warn(f"{where}: {count} nodata or NaN cell(s) taken as zero load",
                   NodataWarning, stacklevel=4)
     return da.fillna(0.0)
@@ -153,7 +160,7 @@ def _layer_values(scenario: Scenario, index: int) -> xr.DataArray:
         return _synthetic_layer(scenario, layer)
     da = read_raster(layer["file"], layer["variable"])
     where = f"{where} ({layer['file'].name})"
-    da = _apply_missing_policy(da, layer["missing"], where)
+    da = _apply_missing_policy(da, layer["missing"], where, layer["kind"] == "elevation")
     dimension = "pressure" if layer["kind"] == "stress" else "length"
     units = str(da.attrs.get("units", "") or ("m" if dimension == "length" else "Pa"))
     factor = unit_factor(units, dimension, f"{layer['file']}: variable {da.name!r}")
