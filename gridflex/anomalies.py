@@ -43,7 +43,8 @@ from .gravity import (
     _check_number,
     _check_terms,
     gravity_padded_shape,
-    parker_series,
+    parker_spectrum,
+    spectrum_to_grid,
 )
 from .grid import check_grid, grid_values
 from .prisms import GRAVITATIONAL_CONSTANT, MGAL
@@ -137,35 +138,33 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
     return w_da, top, final, reference, info
 
 
-def _sum(interfaces, spec, plane, terms, shape) -> tuple[np.ndarray, float]:
-    total = np.zeros(spec.shape)
-    last = 0.0
+def _spectrum_sum(interfaces, sign, spec, plane, terms, shape, total, last):
+    """Add sign * the Parker spectra of *interfaces* to *total* and their last terms
+    to *last* (arrays on the FFT grid *shape*)."""
     for elevation, contrast in interfaces:
-        if contrast == 0.0 or not np.any(elevation):
+        if np.all(np.asarray(contrast) == 0.0) or not np.any(elevation):
             continue
-        anomaly, info = parker_series(elevation, contrast, plane, spec, terms, shape=shape)
-        total += anomaly
-        last = max(last, info["last_term"])
-    return total, last
+        spectrum, last_term, _ = parker_spectrum(elevation, contrast, plane, spec, terms, shape)
+        total += sign * spectrum
+        if last_term is not None:
+            last += sign * last_term
 
 
-def _topography_gravity(top, rho_b, rho_w, plane, spec, terms, shape):
-    """Attraction (mGal) of the topography relative to sea level with density rho_B.
+def _topography_interfaces(top, rho_b, rho_w):
+    """Topography relative to sea level with density rho_B, as steps to add and subtract.
 
     The surface is taken to continue beyond the grid at its edge level (the median of
-    the border cells): the field of that infinite flat layer is added exactly and its
-    finite part on the grid is taken out of the series, which then only sees the
-    relief about the edge level (localised, so the padding treats it as isolated).
+    the border cells): the field of that infinite flat layer is added exactly (the
+    returned slab value, mGal) and its finite part on the grid is taken out (the
+    second, subtracted step), so the series only sees the relief about the edge level,
+    which is localised and treated as isolated by the padding.
     """
     contrast = np.where(top > 0.0, rho_b, rho_b - rho_w)
     border = np.concatenate([top[0], top[-1], top[1:-1, 0], top[1:-1, -1]])
     level = float(np.median(border))
     edge_contrast = rho_b if level > 0.0 else rho_b - rho_w
-    anomaly, info = parker_series(top, contrast, plane, spec, terms, shape=shape)
-    finite, _ = parker_series(np.full(top.shape, level), edge_contrast, plane, spec, 1,
-                              shape=shape)
     slab = 2.0 * math.pi * GRAVITATIONAL_CONSTANT * edge_contrast * level / MGAL
-    return anomaly - finite + slab, info
+    return [(top, contrast)], [(np.full(top.shape, level), edge_contrast)], slab
 
 
 def model_gravity(
@@ -251,18 +250,24 @@ def model_gravity(
         )
     deepest = height - min(float(e.min()) for e, _ in final + reference)
     shape = spec.shape if edges == "periodic" else gravity_padded_shape(spec, deepest, pad_factor)
-    fa_final, last_f = _sum(final, spec, height, terms, shape)
-    fa_ref, last_r = _sum(reference, spec, height, terms, shape)
-    free_air = fa_final - fa_ref
-    rho_w = info["water_density"]
-    topo, last_t = _topography_gravity(top, rho_b, rho_w, height, spec, terms, shape)
-    bouguer = free_air - topo
-    last = max(last_f, last_r, last_t["last_term"] if terms > 1 else 0.0)
+    half = (shape[0], shape[1] // 2 + 1)
+    total, last = np.zeros(half, complex), np.zeros(half, complex)
+    _spectrum_sum(final, 1.0, spec, height, terms, shape, total, last)
+    _spectrum_sum(reference, -1.0, spec, height, terms, shape, total, last)
+    free_air = spectrum_to_grid(total, spec, shape)
+    last_fa = float(np.abs(spectrum_to_grid(last, spec, shape)).max())
+    topo_add, topo_remove, slab = _topography_interfaces(top, rho_b, info["water_density"])
+    total[...] = 0.0
+    last[...] = 0.0
+    _spectrum_sum(topo_add, 1.0, spec, height, terms, shape, total, last)
+    _spectrum_sum(topo_remove, -1.0, spec, height, terms, shape, total, last)
+    bouguer = free_air - (spectrum_to_grid(total, spec, shape) + slab)
+    last = max(last_fa, float(np.abs(spectrum_to_grid(last, spec, shape)).max()))
     spread = float(free_air.max() - free_air.min())
     if terms > 1 and last > max(0.01 * spread, 1e-3):
         warnings.warn(
-            f"gravity series not converged: the last of {terms} terms still changes an "
-            f"interface's anomaly by {last:.3g} mGal (free-air range {spread:.3g} mGal); "
+            f"gravity series not converged: the last of {terms} terms still changes the "
+            f"anomaly by {last:.3g} mGal (free-air range {spread:.3g} mGal); "
             "use more terms or a higher observation_height",
             GravitySeriesWarning,
             stacklevel=2,

@@ -15,6 +15,7 @@ __all__ = [
     "GridflexWarning",
     "EdgeLoadWarning",
     "GravitySeriesWarning",
+    "NodataWarning",
 ]
 
 
@@ -46,3 +47,7 @@ class EdgeLoadWarning(GridflexWarning):
 
 class GravitySeriesWarning(GridflexWarning):
     """The gravity series was cut off before its terms became negligible."""
+
+
+class NodataWarning(GridflexWarning):
+    """Missing (nodata or NaN) cells of an input layer were replaced, as its policy says."""

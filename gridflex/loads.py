@@ -9,7 +9,6 @@ the density.
 from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
-from typing import Union
 
 import numpy as np
 import xarray as xr
@@ -26,7 +25,7 @@ __all__ = [
     "regional_surface",
 ]
 
-Density = Union[float, xr.DataArray]
+Density = float | xr.DataArray
 Surface = float | xr.DataArray
 _LOAD_ATTRS = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
 

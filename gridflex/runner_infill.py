@@ -9,81 +9,68 @@ these when the tables are present.
 from __future__ import annotations
 
 import logging
-from typing import Any
 
 import xarray as xr
 
 from .anomalies import model_gravity
 from .errors import InputError
-from .grid import check_same_grid
 from .infill import Infill, solve_with_infill
-from .io.netcdf import read_grid
-from .loads import load_from_elevation, load_from_layers, regional_surface
+from .layers import elevation_stress
+from .loads import load_from_layers
 from .plate import Plate
 from .scenario import Scenario
 
-__all__ = ["elevation_load", "gravity_step", "infill_from_scenario", "infill_step", "load_column"]
+__all__ = ["gravity_step", "infill_from_scenario", "infill_step", "load_column"]
 
 log = logging.getLogger(__name__)
 
 
-def elevation_load(scenario: Scenario, index: int, layer: dict[str, Any]) -> xr.Dataset:
-    """Load Dataset of an ``kind = "elevation"`` layer (see :func:`load_from_elevation`)."""
-    where = scenario.where("loads", index=index)
-    elevation = read_grid(layer["file"], layer["variable"], "length")
-    infill = scenario.table("infill") or {}
-    regional: Any = layer["regional_elevation"]
-    try:
-        if regional is None:
-            regional = regional_surface(elevation, layer["regional_radius"])
-        return load_from_elevation(
-            elevation, layer["density"], regional,
-            sea_level=infill.get("sea_level", 0.0),
-            water_density=infill.get("water_density", 1030.0),
-            gravity=scenario.table("plate")["gravity"],
-        )
-    except InputError as exc:
-        raise InputError(f"{where}: {exc}") from exc
+def load_column(scenario: Scenario, layers: list[xr.DataArray]) -> xr.Dataset:
+    """The column of an ``[infill]`` run on the working grid.
 
-
-def load_column(scenario: Scenario, thickness_layers: list[tuple[xr.DataArray, float]],
-                stress: xr.DataArray | None) -> xr.Dataset:
-    """The column of an ``[infill]`` run.
+    Thickness layers are stacked on ``base_elevation`` in scenario order (their
+    submerged parts buoyed by sea water, :func:`load_from_layers`); an elevation layer
+    gives the surface itself (:func:`gridflex.layers.elevation_stress`); stress layers
+    add to the load and have no height.
 
     Parameters
     ----------
     scenario : Scenario
         With an ``[infill]`` table.
-    thickness_layers : list of (thickness grid, density)
-        Thickness layers in scenario order, stacked on ``base_elevation`` (their
-        submerged parts buoyed by sea water).
-    stress : xarray.DataArray, optional
-        Sum of the stress layers (Pa), added to the load; they have no height.
+    layers : list of xarray.DataArray
+        :func:`gridflex.layers.build_working_layers` values, one per ``[[loads]]``.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``load`` (Pa), ``initial_surface``, ``reference_surface``, ``load_height`` (m).
     """
     infill = scenario.table("infill")
-    gravity = scenario.table("plate")["gravity"]
-    layers = scenario.table("loads")
-    elevation = [i for i, layer in enumerate(layers) if layer["kind"] == "elevation"]
+    specs = scenario.table("loads")
+    thickness = [(da, spec["density"]) for spec, da in zip(specs, layers, strict=True)
+                 if spec["kind"] == "thickness"]
+    stresses = [da for spec, da in zip(specs, layers, strict=True) if spec["kind"] == "stress"]
+    elevation = [i for i, spec in enumerate(specs) if spec["kind"] == "elevation"]
     if elevation:
-        column = elevation_load(scenario, elevation[0], layers[elevation[0]])
-    elif thickness_layers:
+        column = elevation_stress(scenario, elevation[0], layers[elevation[0]])
+    elif thickness:
         try:
             column = load_from_layers(
-                infill["base_elevation"], thickness_layers, sea_level=infill["sea_level"],
-                water_density=infill["water_density"], gravity=gravity,
+                infill["base_elevation"], thickness, sea_level=infill["sea_level"],
+                water_density=infill["water_density"],
+                gravity=scenario.table("plate")["gravity"],
             )
         except InputError as exc:
             raise InputError(f"{scenario.where('loads')}: {exc}") from exc
     else:
-        if stress is None or infill["base_elevation"] is None:
+        if infill["base_elevation"] is None:
             raise InputError(f"{scenario.where('infill', 'base_elevation')}: required for "
                              "stress-only loads (the surface before flexure)")
-        flat = xr.full_like(stress, infill["base_elevation"])
-        column = xr.Dataset({"load": stress * 0.0, "initial_surface": flat,
+        flat = xr.full_like(stresses[0], infill["base_elevation"])
+        column = xr.Dataset({"load": flat * 0.0, "initial_surface": flat,
                              "reference_surface": flat, "load_height": flat * 0.0})
-    if stress is not None:
-        check_same_grid(stress, column["load"], f"{scenario.where('loads')} stress layers")
-        column["load"] = column["load"] + stress.values
+    for da in stresses:
+        column["load"] = column["load"] + da.values
     column["load"].attrs = {"units": "Pa",
                             "long_name": "vertical stress of the load (positive downward)"}
     return column

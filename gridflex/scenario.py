@@ -23,9 +23,10 @@ either ``[basin]`` with ``[[stages]]`` (staged loading with compaction) or
 from __future__ import annotations
 
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from .errors import InputError
 from .units import parse_quantity
@@ -101,12 +102,29 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "grid": {
         "columns": Key("integer", "number of cells along x", REQUIRED, minimum=4),
         "rows": Key("integer", "number of cells along y", REQUIRED, minimum=4),
-        "spacing": Key("quantity", "cell size", REQUIRED, "length", minimum=0.0),
+        "spacing": Key("quantity", "cell size (m, also for a geographic grid)", REQUIRED,
+                       "length", minimum=0.0),
+        "crs": Key("string", "coordinate reference system of the grid (EPSG code, PROJ or "
+                   "WKT); none: plain metres", None),
+        "center_x": Key("number", "x (or longitude) of the grid centre", 0.0),
+        "center_y": Key("number", "y (or latitude) of the grid centre", 0.0),
+    },
+    "working_grid": {
+        "projection": Key("string", "metric CRS to solve in (default: the input's own, or "
+                          "a local equal-area projection for geographic inputs)", None),
+        "spacing": Key("quantity", "cell size of the working grid (default: the input's)",
+                       None, "length", minimum=0.0),
+        "resampling": Key("choice", "how layers are resampled onto it", "bilinear",
+                          choices=_choices("bilinear", "average", "nearest", "cubic")),
     },
     "loads": {
         "name": Key("string", "label of the layer", None),
-        "file": Key("path", "NetCDF grid holding the layer", None),
-        "variable": Key("string", "variable in the file", None),
+        "file": Key("path", "GeoTIFF (or other GDAL raster) or NetCDF holding the layer",
+                    None),
+        "variable": Key("string", "NetCDF variable or raster band, if the file has several",
+                        None),
+        "missing": Key("choice", "what nodata/NaN cells mean: zero load (with a warning) "
+                       "or an error", "zero", choices=_choices("zero", "error")),
         "synthetic": Key("choice", "a built-in shape instead of a file", None,
                          choices=_choices("island-chain", "disc", "gaussian")),
         "kind": Key("choice", "thickness (m, times density), stress (Pa) or elevation (m, "
@@ -209,6 +227,17 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "moat_fill_map": Key("path", "PNG map of the moat fill (needs [infill])", None),
         "free_air_map": Key("path", "PNG map of the free-air anomaly (needs [gravity])", None),
         "bouguer_map": Key("path", "PNG map of the Bouguer anomaly (needs [gravity])", None),
+        "geotiff": Key("bool", "also write one GeoTIFF per output variable beside the "
+                       "NetCDF", False),
+        "outlines": Key("path", "GeoJSON of the moat outline, forebulge crest and zero line",
+                        None),
+        "moat_depth": Key("quantity", "deflection contour drawn as the moat outline "
+                          "(default: a tenth of the maximum deflection)", None, "length",
+                          minimum=0.0),
+        "profile_start": Key("list", "[x, y] of a profile's start, in map coordinates", None),
+        "profile_end": Key("list", "[x, y] of a profile's end", None),
+        "profile_csv": Key("path", "CSV of the values along the profile", None),
+        "profile_plot": Key("path", "PNG plot of the profile", None),
     },
 }
 """Every table and key a scenario may contain."""
@@ -385,6 +414,7 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
         _check_basin(scenario)
         return scenario
     _check_loads(scenario)
+    _check_profile(scenario)
     _check_infill_and_gravity(scenario)
     return scenario
 
@@ -398,8 +428,7 @@ def _check_basin(scenario: Scenario) -> None:
         if tables[name]:
             raise InputError(f"{scenario.path}: [{name}] belongs to 'gridflex run' scenarios, "
                              "not to a basin scenario")
-    extra = [k for k in ("map", "moat_fill_map", "free_air_map", "bouguer_map")
-             if tables["output"][k] is not None]
+    extra = [k for k, v in tables["output"].items() if k != "file" and v not in (None, False)]
     if extra:
         raise InputError(f"{scenario.where('output', extra[0])}: not written by a basin run "
                          "(only 'file')")
@@ -436,8 +465,6 @@ def _check_loads(scenario: Scenario) -> None:
         has_file, has_shape = layer["file"] is not None, layer["synthetic"] is not None
         if has_file == has_shape:
             raise InputError(f"{where}: give either 'file' (with 'variable') or 'synthetic'")
-        if has_file and layer["variable"] is None:
-            raise InputError(f"{where} variable: required with 'file' (the grid's name in it)")
         if layer["kind"] == "thickness" and layer["density"] is None:
             raise InputError(f"{where} density: required for a thickness layer")
         if has_shape:
@@ -494,6 +521,22 @@ def _check_infill_and_gravity(scenario: Scenario) -> None:
         for key in ("free_air_map", "bouguer_map"):
             if outputs[key] is not None and gravity is None:
                 raise InputError(f"{scenario.where('output', key)}: needs [gravity]")
+
+
+def _check_profile(scenario: Scenario) -> None:
+    out = scenario.tables["output"]
+    ends = [out["profile_start"], out["profile_end"]]
+    wanted = out["profile_csv"] is not None or out["profile_plot"] is not None
+    for key, value in zip(("profile_start", "profile_end"), ends):
+        if value is None:
+            if wanted:
+                raise InputError(f"{scenario.where('output', key)}: required for a profile")
+            continue
+        if len(value) != 2 or not all(isinstance(v, (int, float)) for v in value):
+            raise InputError(f"{scenario.where('output', key)}: expected [x, y], got {value!r}")
+    if all(v is not None for v in ends) and not wanted:
+        raise InputError(f"{scenario.where('output')}: a profile needs profile_csv or "
+                         "profile_plot")
 
 
 def load_scenario(path: str | Path) -> Scenario:

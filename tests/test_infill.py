@@ -221,3 +221,19 @@ def test_bad_input():
     te_grid = xr.full_like(load, 10e3)
     with pytest.raises(InputError, match="variable-te"):
         solve_with_infill(load, PLATE.with_te(te_grid), surface)
+
+
+def test_sediment_mask_limits_where_sediment_collects():
+    # Sediment only where the mask allows (scenario choice); elsewhere the moat holds water,
+    # so the column there restores with water (PHYSICS.md 5.1). Tolerance: exact zeros.
+    load, surface = cone_case(n=64)
+    mask = load["x"] < 0.0
+    mask = (xr.ones_like(load, dtype=bool) & mask).transpose("y", "x")
+    result = solve_with_infill(load, PLATE, surface, Infill(sediment="full", sediment_mask=mask))
+    sediment = result["fill_sediment"].values
+    west = mask.values
+    assert sediment[~west].max() == 0.0
+    assert sediment[west].max() > 10.0
+    moat = result["deflection"].values > 1.0
+    assert np.all(result["infill_density"].values[moat & ~west] == RHO_W)
+    assert np.all(result["infill_density"].values[moat & west] == RHO_S)

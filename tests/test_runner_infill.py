@@ -16,6 +16,7 @@ from gridflex import (
     regional_surface,
     solve_with_infill,
 )
+from gridflex.errors import NodataWarning
 from gridflex.runner import run_scenario
 from gridflex.scenario import load_scenario
 
@@ -152,3 +153,19 @@ def test_observation_plane_below_the_summit_is_reported(tmp_path):
     with pytest.raises(InputError, match=r"\[gravity\]: observation_height"):
         run_scenario(load_scenario(tmp_path / "s.toml"))
     assert not (tmp_path / "out" / "result.nc").exists()  # nothing written
+
+
+def test_nodata_in_an_elevation_layer_means_no_edifice(tmp_path):
+    # missing = "zero" means "no load" (scenario policy); for an elevation model that is the
+    # surface at its typical level, not an elevation of 0 m (which would be a 4 km edifice).
+    elevation = _write_bathymetry(tmp_path / "bathymetry.nc")
+    holed = elevation.copy()
+    holed.values[10:13, 46:50] = np.nan  # far from the seamount, where the trend is ~ median
+    xr.Dataset({"elevation": holed}).to_netcdf(tmp_path / "holed.nc")
+    text = SCENARIO.replace("bathymetry.nc", "holed.nc").replace(
+        'regional_radius = "60 km"', 'regional_radius = "60 km"\nmissing = "zero"')
+    (tmp_path / "s.toml").write_text(text)
+    with pytest.warns(NodataWarning, match="taken as no edifice"):
+        outcome = run_scenario(load_scenario(tmp_path / "s.toml"))
+    # elevation 0 there would load 4200 m of rock, (2700 - 1030) g 4200 ~ 7e7 Pa
+    assert float(outcome.result["load"].values[10:13, 46:50].max()) < 1e6
