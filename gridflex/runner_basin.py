@@ -6,7 +6,9 @@ import logging
 from collections.abc import Callable
 from typing import Any
 
+import numpy as np
 import xarray as xr
+from rasterio.crs import CRS
 
 from ._version import __version__
 from .basin import Stage, backstrip, stage_loading
@@ -14,9 +16,11 @@ from .compaction import LITHOLOGIES, Lithology
 from .errors import InputError
 from .grid import check_same_grid
 from .io.atomic import check_output_path
-from .io.netcdf import read_grid, write_netcdf
+from .io.netcdf import write_netcdf
+from .io.rasters import read_raster
 from .runner import RunOutcome, plate_from_scenario
 from .scenario import Scenario
+from .units import unit_factor
 
 __all__ = ["run_basin"]
 
@@ -24,10 +28,20 @@ log = logging.getLogger(__name__)
 
 
 def _grid(path: Any, variable: str, where: str, reference: xr.DataArray | None) -> xr.DataArray:
-    grid = read_grid(path, variable, "length")
+    """A metric length grid (m) read from a GeoTIFF or NetCDF file."""
+    where = f"{where} ({path.name})"
+    grid = read_raster(path, variable)
+    if grid.attrs.get("crs_wkt") and CRS.from_wkt(grid.attrs["crs_wkt"]).is_geographic:
+        raise InputError(f"{where}: the grid is in longitude/latitude; a basin run needs a "
+                         "grid in a metric projection")
+    if not np.all(np.isfinite(grid.values)):
+        raise InputError(f"{where}: {int((~np.isfinite(grid.values)).sum())} nodata or NaN "
+                         "cell(s); fill them first")
+    units = str(grid.attrs.get("units", "") or "m")
+    grid = grid * unit_factor(units, "length", f"{where}: variable {grid.name!r}")
     if reference is not None:
         try:
-            check_same_grid(grid, reference, f"{where} ({path.name})")
+            check_same_grid(grid, reference, where)
         except InputError as exc:
             raise InputError(f"{exc}; every grid must be on the first grid's grid") from exc
     return grid
@@ -74,7 +88,7 @@ def _run_stages(scenario: Scenario, progress: Callable[[int, int], Any] | None) 
                     scenario.where("basin", "surface_file"), None)
     stages = _stages(scenario, surface)
     try:
-        return stage_loading(
+        result = stage_loading(
             stages, surface, plate_from_scenario(scenario), sea_level=table["sea_level"],
             water_density=table["water_density"], compaction=table["compaction"],
             tolerance=table["tolerance"], max_iterations=table["max_iterations"],
@@ -82,6 +96,8 @@ def _run_stages(scenario: Scenario, progress: Callable[[int, int], Any] | None) 
         )
     except InputError as exc:
         raise InputError(f"{scenario.where('basin')}: {exc}") from exc
+    result.attrs["crs_wkt"] = surface.attrs.get("crs_wkt", "")
+    return result
 
 
 def _run_backstrip(scenario: Scenario) -> xr.Dataset:
@@ -97,7 +113,7 @@ def _run_backstrip(scenario: Scenario) -> xr.Dataset:
         reference = grid if reference is None else reference
         grids[part] = grid
     try:
-        return backstrip(
+        result = backstrip(
             grids["basement"], grids["sediment"], grids["water"], plate_from_scenario(scenario),
             lithology=table["lithology"], sediment_density=table["sediment_density"],
             sea_level_change=table["sea_level_change"], water_density=table["water_density"],
@@ -106,6 +122,9 @@ def _run_backstrip(scenario: Scenario) -> xr.Dataset:
         )
     except InputError as exc:
         raise InputError(f"{scenario.where('backstrip')}: {exc}") from exc
+    assert reference is not None
+    result.attrs["crs_wkt"] = reference.attrs.get("crs_wkt", "")
+    return result
 
 
 def run_basin(
@@ -148,5 +167,7 @@ def run_basin(
         result[name].attrs = {"units": "m", "axis": name.upper(),
                               "long_name": f"{name} (projected)"}
     outcome = RunOutcome(result=result, summary=summary)
-    outcome.written.append(write_netcdf(result, output, overwrite, inputs))
+    wkt = str(result.attrs.pop("crs_wkt", "") or "")
+    crs = CRS.from_wkt(wkt) if wkt else None
+    outcome.written.append(write_netcdf(result, output, overwrite, inputs, crs=crs))
     return outcome

@@ -169,9 +169,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                minimum=0.0),
     },
     "basin": {
-        "surface_file": Key("path", "NetCDF grid of the surface before the first stage "
+        "surface_file": Key("path", "grid file (GeoTIFF or NetCDF, metric) of the surface before the first stage "
                             "(elevation, positive up)", REQUIRED),
-        "surface_variable": Key("string", "variable in surface_file", REQUIRED),
+        "surface_variable": Key("string", "NetCDF variable or band in surface_file", None),
         "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
         "water_density": Key("quantity", "sea-water (and pore-water) density", 1030.0,
                              "density", minimum=0.0),
@@ -182,9 +182,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
                               minimum=1),
     },
     "stages": {
-        "file": Key("path", "NetCDF grid of the stage isopach (thickness as deposited)",
+        "file": Key("path", "grid file (GeoTIFF or NetCDF) of the stage isopach (thickness as deposited)",
                     REQUIRED),
-        "variable": Key("string", "variable in the file", REQUIRED),
+        "variable": Key("string", "NetCDF variable or band, if the file has several", None),
         "age": Key("number", "age of the stage (years before present); oldest first",
                    REQUIRED),
         "lithology": Key("choice", "porosity-depth law (Sclater & Christie 1980)", "shale",
@@ -200,17 +200,17 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "sea_level": Key("quantity", "sea level at the time of the stage", None, "length"),
         "elastic_thickness": Key("quantity", "te at the time of loading (default: [plate])",
                                  None, "length", minimum=0.0),
-        "te_file": Key("path", "NetCDF grid of te at the time of loading", None),
-        "te_variable": Key("string", "variable in te_file", None),
+        "te_file": Key("path", "grid file of te at the time of loading", None),
+        "te_variable": Key("string", "NetCDF variable or band in te_file", None),
     },
     "backstrip": {
-        "basement_file": Key("path", "NetCDF grid of basement depth below sea level "
+        "basement_file": Key("path", "grid file of basement depth below sea level "
                              "(positive down)", None),
-        "basement_variable": Key("string", "variable in basement_file", None),
-        "sediment_file": Key("path", "NetCDF grid of sediment thickness", None),
-        "sediment_variable": Key("string", "variable in sediment_file", None),
-        "water_file": Key("path", "NetCDF grid of water depth (positive down)", None),
-        "water_variable": Key("string", "variable in water_file", None),
+        "basement_variable": Key("string", "NetCDF variable or band in basement_file", None),
+        "sediment_file": Key("path", "grid file of sediment thickness", None),
+        "sediment_variable": Key("string", "NetCDF variable or band in sediment_file", None),
+        "water_file": Key("path", "grid file of water depth (positive down)", None),
+        "water_variable": Key("string", "NetCDF variable or band in water_file", None),
         "lithology": Key("choice", "porosity-depth law giving the sediment density", "shale",
                          choices=_choices("shale", "sandstone", "chalk", "shaly_sandstone")),
         "sediment_density": Key("quantity", "mean sediment bulk density instead of the "
@@ -436,9 +436,8 @@ def _check_basin(scenario: Scenario) -> None:
         if not tables["stages"]:
             raise InputError(f"{scenario.path}: [basin] needs at least one [[stages]] table")
         for i, stage in enumerate(tables["stages"]):
-            if (stage["te_file"] is None) != (stage["te_variable"] is None):
-                raise InputError(f"{scenario.where('stages', index=i)}: te_file and "
-                                 "te_variable go together")
+            if stage["te_file"] is None and stage["te_variable"] is not None:
+                raise InputError(f"{scenario.where('stages', 'te_variable', i)}: needs te_file")
             if stage["te_file"] is not None and stage["elastic_thickness"] is not None:
                 raise InputError(f"{scenario.where('stages', index=i)}: give either "
                                  "elastic_thickness or te_file")
@@ -448,9 +447,9 @@ def _check_basin(scenario: Scenario) -> None:
     table = tables["backstrip"]
     given = [p for p in ("basement", "sediment", "water") if table[f"{p}_file"] is not None]
     for part in ("basement", "sediment", "water"):
-        if (table[f"{part}_file"] is None) != (table[f"{part}_variable"] is None):
-            raise InputError(f"{scenario.where('backstrip')}: {part}_file and "
-                             f"{part}_variable go together")
+        if table[f"{part}_file"] is None and table[f"{part}_variable"] is not None:
+            raise InputError(f"{scenario.where('backstrip', part + '_variable')}: needs "
+                             f"{part}_file")
     if len(given) < 2:
         raise InputError(f"{scenario.where('backstrip')}: give at least two of basement_file, "
                          "sediment_file and water_file")
