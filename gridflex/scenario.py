@@ -169,8 +169,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                minimum=0.0),
     },
     "basin": {
-        "surface_file": Key("path", "grid file (GeoTIFF or NetCDF, metric) of the surface before the first stage "
-                            "(elevation, positive up)", REQUIRED),
+        "surface_file": Key("path", "grid file (GeoTIFF or NetCDF, metric) of the surface "
+                            "before the first stage (elevation, positive up)", REQUIRED),
         "surface_variable": Key("string", "NetCDF variable or band in surface_file", None),
         "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
         "water_density": Key("quantity", "sea-water (and pore-water) density", 1030.0,
@@ -182,8 +182,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
                               minimum=1),
     },
     "stages": {
-        "file": Key("path", "grid file (GeoTIFF or NetCDF) of the stage isopach (thickness as deposited)",
-                    REQUIRED),
+        "file": Key("path", "grid file (GeoTIFF or NetCDF) of the stage isopach (thickness "
+                    "as deposited)", REQUIRED),
         "variable": Key("string", "NetCDF variable or band, if the file has several", None),
         "age": Key("number", "age of the stage (years before present); oldest first",
                    REQUIRED),
