@@ -209,9 +209,11 @@ def test_bad_inputs_raise_input_error():
         Stage(s, 1e6, "basalt")
 
 
-def test_te_grid_stage_matches_the_constant_te_solve():
+def test_te_grid_stage_and_backstrip_match_the_constant_te_solve():
     # a uniform te grid must give the constant-te answer (same plate equation, PHYSICS.md
-    # 1.1); water infill of a fully submerged load is linear; atol 1e-3 m (FD vs FFT)
+    # 1.1); water infill of a fully submerged load is linear; atol 0.5 % of the peak: the
+    # finite-difference discretisation error at ~6 cells per flexural parameter (measured
+    # 0.22 % with the variable-te solver of the finite-difference branch; common practice)
     rock = Lithology("rock", 0.0, 1000.0, 2500.0)
     thickness = lens(300.0)
     try:
@@ -224,4 +226,10 @@ def test_te_grid_stage_matches_the_constant_te_solve():
                             Plate(te=10e3), tolerance=TOL)
     const = stage_loading([Stage(thickness, 1e6, rock)], flat(-3000.0), Plate(te=10e3),
                           tolerance=TOL)
-    assert_allclose(grid_te["deflection"], const["deflection"], atol=1e-3)
+    peak = float(const["deflection"].max())
+    assert_allclose(grid_te["deflection"], const["deflection"], atol=5e-3 * peak)
+    s = lens(3000.0, 30e3)
+    flex = backstrip(None, s, flat(200.0), Plate(te=flat(15e3)), sediment_density=2400.0)
+    ref = backstrip(None, s, flat(200.0), Plate(te=15e3), sediment_density=2400.0)
+    peak = float(ref["sediment_rebound"].max())
+    assert_allclose(flex["sediment_rebound"], ref["sediment_rebound"], atol=5e-3 * peak)
