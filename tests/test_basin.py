@@ -207,6 +207,14 @@ def test_bad_inputs_raise_input_error():
         StagedBasin(flat(-100.0), Plate(te=0.0)).remove_stage()
     with pytest.raises(InputError, match="lithology must be one of"):
         Stage(s, 1e6, "basalt")
+    holes = flat(-100.0)
+    holes[3, 3] = np.nan
+    with pytest.raises(InputError, match="initial_surface contains 1 NaN"):
+        StagedBasin(holes, Plate(te=0.0))
+    with pytest.raises(InputError, match="water_depth contains 1 NaN"):
+        backstrip(None, s, holes, Plate(te=0.0))
+    with pytest.raises(InputError, match="thickness contains 1 NaN"):
+        stage_loading([Stage(holes, 1e6)], flat(-1000.0), Plate(te=0.0))
 
 
 def test_te_grid_stage_and_backstrip_match_the_constant_te_solve():
