@@ -70,7 +70,7 @@ from .infill import Infill, solve_with_infill
 from .plate import Plate
 from .solve import solve
 
-__all__ = ["Stage", "StagedBasin", "backstrip", "stage_loading"]
+__all__ = ["Stage", "StagedBasin", "backstrip", "backstrip_layers", "stage_loading"]
 
 log = logging.getLogger(__name__)
 
@@ -658,3 +658,109 @@ def backstrip(
         coords=coords,
         attrs=attrs,
     )
+
+
+def backstrip_layers(
+    layers: Sequence[tuple[xr.DataArray, str | Lithology]],
+    water_depths: Sequence[float | xr.DataArray],
+    plate: Plate,
+    *,
+    sea_level_changes: Sequence[float] | None = None,
+    ages: Sequence[float] | None = None,
+    water_density: float = 1030.0,
+    edges: str = "infinite",
+    pad_factor: float = 4.5,
+) -> xr.Dataset:
+    """Backstrip a layered column step by step: remove the top layer, decompact the rest.
+
+    Step j removes the j youngest layers; the remaining ones are decompacted to the
+    surface (grains conserved, :mod:`gridflex.compaction`) and the column is
+    backstripped with :func:`backstrip` using the water depth and sea level of that
+    time (Steckler & Watts 1978; Watts, Karner & Steckler 1982).
+
+    Parameters
+    ----------
+    layers : sequence of (thickness, lithology)
+        Present (compacted) thickness grids (m) with their lithology, youngest (top)
+        first.
+    water_depths : sequence of float or xarray.DataArray
+        Water depth (m, positive down) at the end of the deposition of each layer,
+        same order: ``water_depths[0]`` is the present water depth.
+    plate : Plate
+        As in :func:`backstrip`.
+    sea_level_changes : sequence of float, optional
+        Sea level at those times relative to present (m, positive higher); 0 by default.
+    ages : sequence of float, optional
+        Ages of those times (years before present), written as a coordinate.
+    water_density, edges, pad_factor
+        As in :func:`backstrip`.
+
+    Returns
+    -------
+    xarray.Dataset
+        On dims ``("step", "y", "x")``: ``tectonic_subsidence``,
+        ``local_tectonic_subsidence``, ``sediment_rebound`` (m), ``sediment_thickness``
+        (decompacted, m), ``sediment_density`` (kg m^-3), ``basement_depth`` (m below
+        the sea level of the time).
+
+    Raises
+    ------
+    InputError
+        Empty or mismatched sequences, bad grids.
+    """
+    items = list(layers)
+    if not items:
+        raise InputError("backstrip_layers needs at least one (thickness, lithology) layer")
+    count = len(items)
+    depths = list(water_depths)
+    levels = [0.0] * count if sea_level_changes is None else list(sea_level_changes)
+    for name, values in (("water_depths", depths), ("sea_level_changes", levels)):
+        if len(values) != count:
+            raise InputError(f"{name} must have one entry per layer ({count}), got {len(values)}")
+    if ages is not None and len(ages) != count:
+        raise InputError(f"ages must have one entry per layer ({count}), got {len(ages)}")
+    reference = items[0][0]
+    check_grid(reference, "layer 0 thickness")
+    thickness = []
+    liths = []
+    for index, (grid, lith) in enumerate(items):
+        h = grid_values(grid, reference, f"layer {index} thickness")
+        if h.min() < 0:
+            raise InputError(f"layer {index} thickness must be >= 0 m, minimum is {h.min()!r}")
+        thickness.append(h)
+        liths.append(as_lithology(lith))
+    # grains of each layer from its present burial
+    grains, top = [], np.zeros(reference.shape)
+    for h, lith in zip(thickness, liths, strict=True):
+        grains.append(grain_thickness(top, top + h, lith))
+        top = top + h
+    results = []
+    for step in range(count):
+        top = np.zeros(reference.shape)
+        mass = np.zeros(reference.shape)
+        for s, lith in zip(grains[step:], liths[step:], strict=True):
+            base = compacted_base(top, s, lith)
+            mass += water_density * (base - top - s) + lith.grain_density * s
+            top = base
+        total = top
+        fallback = liths[step].grain_density  # no sediment: no load, any valid density
+        with np.errstate(invalid="ignore", divide="ignore"):
+            density = np.where(total > 0, mass / np.where(total > 0, total, 1.0), fallback)
+        density = np.clip(density, water_density, None)
+        water = grid_values(depths[step], reference, f"water_depths[{step}]")
+        out = backstrip(
+            None, reference.copy(data=total), reference.copy(data=water), plate,
+            sediment_density=reference.copy(data=density),
+            sea_level_change=levels[step], water_density=water_density, edges=edges,
+            pad_factor=pad_factor,
+        )
+        out["sediment_thickness"] = (("y", "x"), total, {"units": "m", "long_name":
+                                     "decompacted sediment thickness"})
+        results.append(out.drop_vars("sediment_load"))
+    combined = xr.concat(results, dim="step", combine_attrs="override")
+    combined = combined.assign_coords(step=np.arange(count))
+    if ages is not None:
+        combined = combined.assign_coords(age=("step", np.asarray(ages, dtype=float),
+                                               {"units": "years before present"}))
+    combined.attrs["lithologies"] = ", ".join(lith.name for lith in liths)
+    return combined

@@ -241,3 +241,32 @@ def test_te_grid_stage_and_backstrip_match_the_constant_te_solve():
     ref = backstrip(None, s, flat(200.0), Plate(te=15e3), sediment_density=2400.0)
     peak = float(ref["sediment_rebound"].max())
     assert_allclose(flex["sediment_rebound"], ref["sediment_rebound"], atol=5e-3 * peak)
+
+
+def test_layered_backstrip_decompacts_the_remaining_layers():
+    # step j removes the j youngest layers and decompacts the rest to the surface, grains
+    # conserved (Sclater & Christie 1980); each step is the Airy backstrip with the
+    # decompacted thickness and mean density (Steckler & Watts 1978); te = 0; rtol 1e-9
+    from gridflex.basin import backstrip_layers
+    from gridflex.compaction import compacted_base
+    top_h, low_h = 1200.0, 1800.0
+    layers = [(flat(top_h), "sandstone"), (flat(low_h), "shale")]
+    out = backstrip_layers(layers, [100.0, 400.0], Plate(te=0.0),
+                           sea_level_changes=[0.0, 30.0], ages=[0.0, 5e6], edges="periodic")
+    rho_m, rho_w = 3300.0, 1030.0
+    # step 0: the present column
+    mass0 = (bulk_density(0.0, top_h, "sandstone") * top_h
+             + bulk_density(top_h, top_h + low_h, "shale") * low_h)
+    s0 = top_h + low_h
+    y0 = s0 * (rho_m - mass0 / s0) / (rho_m - rho_w) + 100.0
+    # step 1: the shale alone, brought back to the surface
+    base = compacted_base(0.0, grain_thickness(top_h, top_h + low_h, "shale"), "shale")
+    rho1 = bulk_density(0.0, base, "shale")
+    y1 = base * (rho_m - rho1) / (rho_m - rho_w) + 400.0 - 30.0 * rho_m / (rho_m - rho_w)
+    assert base > low_h  # decompacted
+    assert_allclose(out["sediment_thickness"][1].values, base, rtol=1e-9)
+    assert_allclose(out["tectonic_subsidence"][0].values, y0, rtol=1e-9)
+    assert_allclose(out["tectonic_subsidence"][1].values, y1, rtol=1e-9)
+    assert_allclose(out["age"].values, [0.0, 5e6])
+    with pytest.raises(InputError, match="one entry per layer"):
+        backstrip_layers(layers, [100.0], Plate(te=0.0))
