@@ -99,7 +99,8 @@ class Stage:
         sea level (air above).
     sea_level : float, optional
         Sea level at the time of the stage (m, positive up, present datum);
-        ``None``: the basin's sea level.
+        ``None``: the basin's sea level. A change loads (or unloads) every
+        submerged cell with the water column, up to the grid edge.
     te : float or xarray.DataArray, optional
         Elastic thickness at the time of loading (m); ``None``: the plate's te.
     """
@@ -364,8 +365,10 @@ class StagedBasin:
     def remove_stage(self) -> None:
         """Remove the top stage (with its moat fill), decompact the rest, unload the plate.
 
-        The rebound fills with water up to the sea level of the stage below (the
-        basin's sea level when none is left).
+        The unloading is solved with the te the stage was loaded with, so removal
+        undoes the stage (also when te changes from stage to stage); the rebound fills
+        with water up to the sea level of the stage below (the basin's sea level when
+        none is left).
         """
         if not self.stages:
             raise InputError("remove_stage: the basin has no stage left to remove")
@@ -374,7 +377,8 @@ class StagedBasin:
         sea = self.sea_level if below is None or below.sea_level is None \
             else float(below.sea_level)
         infill = Infill(sea_level=sea, water_density=self.water_density)
-        te = self.plate.te if below is None or below.te is None else below.te
+        removed = self.stages[-1]
+        te = self.plate.te if removed.te is None else removed.te
         w, _, iterations, mass, thickness = self._solve_increment(
             grains, stages, te, sea, infill, 0.0)
         self.deflection = self.deflection + w

@@ -86,12 +86,12 @@ def test_local_staged_compaction_matches_airy_balance_of_the_compacted_column():
 def test_a_stage_removed_and_readded_returns_the_same_state():
     # grains are conserved, so decompaction undoes compaction (Sclater & Christie 1980),
     # and the elastic plate with water infill has one equilibrium per column (PHYSICS.md
-    # 5.2): removing the top stage returns the state before it; re-adding it returns the
-    # state with it; atol 1e-5 m (iteration tolerance 1e-7 m)
+    # 5.2) for the te the stage was loaded with: removing the top stage returns the state
+    # before it; re-adding it returns the state with it; atol 1e-5 m (tolerance 1e-7 m)
     shelf = grid(np.broadcast_to(np.linspace(-250.0, 40.0, N), (N, N)).copy())
     basin = StagedBasin(shelf, Plate(te=6e3), tolerance=TOL)
     first = Stage(lens(500.0), 5e6, "shale")
-    second = Stage(lens(350.0, 35e3), 2e6, "sandstone", base_level=0.0)
+    second = Stage(lens(350.0, 35e3), 2e6, "sandstone", base_level=0.0, te=3e3)
     basin.add_stage(first)
     basin.add_stage(second)
     basin.remove_stage()
