@@ -270,3 +270,14 @@ def test_layered_backstrip_decompacts_the_remaining_layers():
     assert_allclose(out["age"].values, [0.0, 5e6])
     with pytest.raises(InputError, match="one entry per layer"):
         backstrip_layers(layers, [100.0], Plate(te=0.0))
+
+
+def test_sea_level_rise_of_a_stage_loads_the_submerged_plate():
+    # a sea-level rise dSL on an empty submerged basin depresses it locally by
+    # dSL rho_w / (rho_m - rho_w) (the sea-level term of the backstrip formula, Steckler &
+    # Watts 1978; PHYSICS.md 9.2 re-derived); te = 0 on a periodic grid; rtol 1e-6
+    out = stage_loading([Stage(flat(0.0), 1e6, "shale", sea_level=100.0)], flat(-2000.0),
+                        Plate(te=0.0), tolerance=TOL, edges="periodic")
+    w = 100.0 * 1030.0 / (3300.0 - 1030.0)
+    assert_allclose(out["deflection"][0].values, w, rtol=1e-6)
+    assert_allclose(out["water_depth"][0].values, 2100.0 + w, rtol=1e-9)
