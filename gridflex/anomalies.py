@@ -18,7 +18,8 @@ and the free-air anomaly is the final sum minus the reference sum
 (superposition; no linearisation). The Bouguer anomaly subtracts the
 attraction of the final topography relative to sea level with the reduction
 density (PHYSICS.md 6.4): +rho_B above sea level, -(rho_B - rho_w) for the sea;
-the topography is taken to continue beyond the grid at the level of its edges.
+beyond the grid the topography is taken to be the reference surface at the level
+of its edges.
 
 A plain :func:`gridflex.solve` result is read as a column whose depression is
 filled with ``plate_infill_density`` material when that is denser than water
@@ -135,6 +136,7 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
     info = {"water_density": rho_w, "crust_density": rho_c, "crust_thickness": t_c,
             "mantle_density": rho_m, "load_density": rho_l, "fill_density": rho_fill,
             "sea_level": sea}
+    info["reference_surface"] = z_ref
     return w_da, top, final, reference, info
 
 
@@ -151,17 +153,19 @@ def _spectrum_sum(interfaces, sign, spec, plane, terms, shape, total, last, isol
             last += sign * last_term
 
 
-def _topography_interfaces(top, rho_b, rho_w):
+def _topography_interfaces(top, rho_b, rho_w, reference):
     """Topography relative to sea level with density rho_B, as steps to add and subtract.
 
-    The surface is taken to continue beyond the grid at its edge level (the median of
-    the border cells): the field of that infinite flat layer is added exactly (the
-    returned slab value, mGal) and its finite part on the grid is taken out (the
-    second, subtracted step), so the series only sees the relief about the edge level,
-    which is localised and treated as isolated by the padding.
+    Beyond the grid the surface is taken to be the reference (pre-load) surface at its
+    edge level (the median of its border cells), as the free-air sum takes the state
+    beyond the grid to be the reference state: the field of that infinite flat layer
+    is added exactly (the returned slab value, mGal) and its finite part on the grid is
+    taken out (the second, subtracted step), so the series only sees the relief about
+    that level, which is localised and treated as isolated.
     """
     contrast = np.where(top > 0.0, rho_b, rho_b - rho_w)
-    border = np.concatenate([top[0], top[-1], top[1:-1, 0], top[1:-1, -1]])
+    border = np.concatenate([reference[0], reference[-1], reference[1:-1, 0],
+                             reference[1:-1, -1]])
     level = float(np.median(border))
     edge_contrast = rho_b if level > 0.0 else rho_b - rho_w
     slab = 2.0 * math.pi * GRAVITATIONAL_CONSTANT * edge_contrast * level / MGAL
@@ -260,7 +264,8 @@ def model_gravity(
                   isolated)
     free_air = spectrum_to_grid(total, spec, shape)
     last_fa = float(np.abs(spectrum_to_grid(last, spec, shape)).max())
-    topo_add, topo_remove, slab = _topography_interfaces(top, rho_b, info["water_density"])
+    topo_add, topo_remove, slab = _topography_interfaces(
+        top, rho_b, info["water_density"], info.pop("reference_surface"))
     total[...] = 0.0
     last[...] = 0.0
     _spectrum_sum(topo_add, 1.0, spec, height, terms, shape, total, last,
