@@ -18,7 +18,8 @@ and the free-air anomaly is the final sum minus the reference sum
 (superposition; no linearisation). The Bouguer anomaly subtracts the
 attraction of the final topography relative to sea level with the reduction
 density (PHYSICS.md 6.4): +rho_B above sea level, -(rho_B - rho_w) for the sea;
-the topography is taken to continue beyond the grid at the level of its edges.
+beyond the grid the topography is taken to be the reference surface at the level
+of its edges.
 
 A plain :func:`gridflex.solve` result is read as a column whose depression is
 filled with ``plate_infill_density`` material when that is denser than water
@@ -135,32 +136,36 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
     info = {"water_density": rho_w, "crust_density": rho_c, "crust_thickness": t_c,
             "mantle_density": rho_m, "load_density": rho_l, "fill_density": rho_fill,
             "sea_level": sea}
+    info["reference_surface"] = z_ref
     return w_da, top, final, reference, info
 
 
-def _spectrum_sum(interfaces, sign, spec, plane, terms, shape, total, last):
+def _spectrum_sum(interfaces, sign, spec, plane, terms, shape, total, last, isolated):
     """Add sign * the Parker spectra of *interfaces* to *total* and their last terms
     to *last* (arrays on the FFT grid *shape*)."""
     for elevation, contrast in interfaces:
         if np.all(np.asarray(contrast) == 0.0) or not np.any(elevation):
             continue
-        spectrum, last_term, _ = parker_spectrum(elevation, contrast, plane, spec, terms, shape)
+        spectrum, last_term, _ = parker_spectrum(elevation, contrast, plane, spec, terms, shape,
+                                                 isolated=isolated)
         total += sign * spectrum
         if last_term is not None:
             last += sign * last_term
 
 
-def _topography_interfaces(top, rho_b, rho_w):
+def _topography_interfaces(top, rho_b, rho_w, reference):
     """Topography relative to sea level with density rho_B, as steps to add and subtract.
 
-    The surface is taken to continue beyond the grid at its edge level (the median of
-    the border cells): the field of that infinite flat layer is added exactly (the
-    returned slab value, mGal) and its finite part on the grid is taken out (the
-    second, subtracted step), so the series only sees the relief about the edge level,
-    which is localised and treated as isolated by the padding.
+    Beyond the grid the surface is taken to be the reference (pre-load) surface at its
+    edge level (the median of its border cells), as the free-air sum takes the state
+    beyond the grid to be the reference state: the field of that infinite flat layer
+    is added exactly (the returned slab value, mGal) and its finite part on the grid is
+    taken out (the second, subtracted step), so the series only sees the relief about
+    that level, which is localised and treated as isolated.
     """
     contrast = np.where(top > 0.0, rho_b, rho_b - rho_w)
-    border = np.concatenate([top[0], top[-1], top[1:-1, 0], top[1:-1, -1]])
+    border = np.concatenate([reference[0], reference[-1], reference[1:-1, 0],
+                             reference[1:-1, -1]])
     level = float(np.median(border))
     edge_contrast = rho_b if level > 0.0 else rho_b - rho_w
     slab = 2.0 * math.pi * GRAVITATIONAL_CONSTANT * edge_contrast * level / MGAL
@@ -250,17 +255,23 @@ def model_gravity(
         )
     deepest = height - min(float(e.min()) for e, _ in final + reference)
     shape = spec.shape if edges == "periodic" else gravity_padded_shape(spec, deepest, pad_factor)
+    isolated = edges != "periodic"
     half = (shape[0], shape[1] // 2 + 1)
     total, last = np.zeros(half, complex), np.zeros(half, complex)
-    _spectrum_sum(final, 1.0, spec, height, terms, shape, total, last)
-    _spectrum_sum(reference, -1.0, spec, height, terms, shape, total, last)
+    _spectrum_sum(final, 1.0, spec, height, terms, shape, total, last,
+                  isolated)
+    _spectrum_sum(reference, -1.0, spec, height, terms, shape, total, last,
+                  isolated)
     free_air = spectrum_to_grid(total, spec, shape)
     last_fa = float(np.abs(spectrum_to_grid(last, spec, shape)).max())
-    topo_add, topo_remove, slab = _topography_interfaces(top, rho_b, info["water_density"])
+    topo_add, topo_remove, slab = _topography_interfaces(
+        top, rho_b, info["water_density"], info.pop("reference_surface"))
     total[...] = 0.0
     last[...] = 0.0
-    _spectrum_sum(topo_add, 1.0, spec, height, terms, shape, total, last)
-    _spectrum_sum(topo_remove, -1.0, spec, height, terms, shape, total, last)
+    _spectrum_sum(topo_add, 1.0, spec, height, terms, shape, total, last,
+                  isolated)
+    _spectrum_sum(topo_remove, -1.0, spec, height, terms, shape, total, last,
+                  isolated)
     bouguer = free_air - (spectrum_to_grid(total, spec, shape) + slab)
     last = max(last_fa, float(np.abs(spectrum_to_grid(last, spec, shape)).max()))
     spread = float(free_air.max() - free_air.min())
