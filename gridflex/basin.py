@@ -330,6 +330,26 @@ class StagedBasin:
         grains = self.grains + [self._grains_of(h, lith)]
         stages = self.stages + [stage]
         te = self.plate.te if stage.te is None else stage.te
+        saved = (self.deflection, self.mass, self.thickness, self.current_sea_level)
+        try:
+            w, fill, iterations = self._add(h, lith, grains, stages, te, sea, infill,
+                                            fill_density)
+        except BaseException:
+            # a failed solve (bad input, no convergence) leaves the basin as it was
+            self.deflection, self.mass, self.thickness, self.current_sea_level = saved
+            raise
+        self.grains, self.stages = grains, stages
+        snap = self._record(float(stage.age), w, level, iterations)
+        snap.stage_fill = fill
+        snap.stage_thickness = h + fill
+        log.info("stage of age %g yr: %d infill iterations, max deflection %.4g m",
+                 stage.age, iterations, float(self.deflection.max()))
+
+    def _add(
+        self, h: np.ndarray, lith: Lithology, grains: list[np.ndarray], stages: list[Stage],
+        te: TeLike, sea: float, infill: Infill, fill_density: float,
+    ) -> tuple[np.ndarray, np.ndarray, int]:
+        """Solve a new top stage and settle it; updates the carried state and grains[-1]."""
         w, fill, iterations, mass, thickness = self._solve_increment(
             grains, stages, te, sea, infill, fill_density)
         self.deflection = self.deflection + w
@@ -354,13 +374,8 @@ class StagedBasin:
             grains[-1] = self._grains_of(h + fill, lith)
         else:
             log.warning("stage of age %g yr: column still settling after %d passes",
-                        stage.age, _SETTLE_PASSES)
-        self.grains, self.stages = grains, stages
-        snap = self._record(float(stage.age), w, level, iterations)
-        snap.stage_fill = fill
-        snap.stage_thickness = h + fill
-        log.info("stage of age %g yr: %d infill iterations, max deflection %.4g m",
-                 stage.age, iterations, float(self.deflection.max()))
+                        stages[-1].age, _SETTLE_PASSES)
+        return w, fill, iterations
 
     def remove_stage(self) -> None:
         """Remove the top stage (with its moat fill), decompact the rest, unload the plate.

@@ -281,3 +281,13 @@ def test_sea_level_rise_of_a_stage_loads_the_submerged_plate():
     w = 100.0 * 1030.0 / (3300.0 - 1030.0)
     assert_allclose(out["deflection"][0].values, w, rtol=1e-6)
     assert_allclose(out["water_depth"][0].values, 2100.0 + w, rtol=1e-9)
+
+
+def test_a_failed_stage_leaves_the_basin_unchanged():
+    # no wrong grid after a non-convergence (common practice: ConvergenceError contract)
+    from gridflex.errors import ConvergenceError
+    basin = StagedBasin(flat(-300.0), Plate(te=6e3), max_iterations=1, tolerance=TOL)
+    with pytest.raises(ConvergenceError, match="did not converge"):
+        basin.add_stage(Stage(lens(400.0), 1e6, "shale"))
+    assert not basin.stages and not basin.history
+    assert float(np.abs(basin.deflection).max()) == 0.0
