@@ -67,6 +67,7 @@ from .compaction import lithology as as_lithology
 from .errors import EdgeLoadWarning, InputError
 from .grid import check_grid, grid_values
 from .infill import Infill, solve_with_infill
+from .memory import check_memory
 from .plate import Plate
 from .solve import solve
 
@@ -79,6 +80,7 @@ TeLike = float | xr.DataArray
 Progress = Callable[[int, int], Any]
 
 _SETTLE_PASSES = 20
+_SNAPSHOT_GRIDS = 10  # grids kept per recorded stage (see _Snapshot)
 
 
 @dataclass(frozen=True)
@@ -283,6 +285,8 @@ class StagedBasin:
 
     def _record(self, age: float, increment: np.ndarray, level: np.ndarray,
                 iterations: int) -> _Snapshot:
+        check_memory(_SNAPSHOT_GRIDS * self.base.nbytes,
+                     f"keeping the state after stage {len(self.history) + 1}")
         thick, mass = self._column(self.grains, self.stages)
         surface = self.base - self.deflection + self.thickness
         top_h = thick[-1] if thick else np.zeros(self.base.shape)
@@ -431,6 +435,8 @@ class StagedBasin:
         """The recorded states, one per stage added or removed, on a ``stage`` axis."""
         if not self.history:
             raise InputError("the basin has no stage yet")
+        check_memory(_SNAPSHOT_GRIDS * self.base.nbytes * len(self.history),
+                     f"the {len(self.history)}-stage result")
         dims = ("stage", "y", "x")
 
         def stack(name: str) -> np.ndarray:
