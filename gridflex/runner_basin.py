@@ -11,7 +11,7 @@ import xarray as xr
 from rasterio.crs import CRS
 
 from ._version import __version__
-from .basin import Stage, backstrip, stage_loading
+from .basin import Stage, backstrip, backstrip_layers, stage_loading
 from .compaction import LITHOLOGIES, Lithology
 from .errors import InputError
 from .grid import check_same_grid
@@ -100,8 +100,39 @@ def _run_stages(scenario: Scenario, progress: Callable[[int, int], Any] | None) 
     return result
 
 
+def _run_backstrip_layers(scenario: Scenario) -> xr.Dataset:
+    table, solver = scenario.table("backstrip"), scenario.table("solver")
+    layers, depths, levels, ages = [], [], [], []
+    reference = None
+    for i, row in enumerate(scenario.table("backstrip_layers")):
+        where = scenario.where("backstrip_layers", index=i)
+        grid = _grid(row["file"], row["variable"], where, reference)
+        reference = grid if reference is None else reference
+        layers.append((grid, _lithology(row, where)))
+        depth: Any = row["water_depth"]
+        if row["water_depth_file"] is not None:
+            depth = _grid(row["water_depth_file"], row["water_depth_variable"],
+                          f"{where} water_depth_file", reference)
+        depths.append(depth)
+        levels.append(row["sea_level_change"])
+        ages.append(row["age"])
+    assert reference is not None
+    try:
+        result = backstrip_layers(
+            layers, depths, plate_from_scenario(scenario), sea_level_changes=levels,
+            ages=None if ages[0] is None else ages, water_density=table["water_density"],
+            edges=solver["edges"], pad_factor=solver["pad_factor"],
+        )
+    except InputError as exc:
+        raise InputError(f"{scenario.where('backstrip')}: {exc}") from exc
+    result.attrs["crs_wkt"] = reference.attrs.get("crs_wkt", "")
+    return result
+
+
 def _run_backstrip(scenario: Scenario) -> xr.Dataset:
     table, solver = scenario.table("backstrip"), scenario.table("solver")
+    if scenario.table("backstrip_layers"):
+        return _run_backstrip_layers(scenario)
     grids: dict[str, xr.DataArray | None] = {}
     reference = None
     for part in ("basement", "sediment", "water"):
@@ -157,9 +188,10 @@ def run_basin(
         }
     else:
         result = _run_backstrip(scenario)
+        present = result.isel(step=0) if "step" in result.dims else result
         summary = {
-            "max_tectonic_subsidence": float(result["tectonic_subsidence"].max()),
-            "max_local_tectonic_subsidence": float(result["local_tectonic_subsidence"].max()),
+            "max_tectonic_subsidence": float(present["tectonic_subsidence"].max()),
+            "max_local_tectonic_subsidence": float(present["local_tectonic_subsidence"].max()),
         }
     result.attrs["history"] = f"gridflex {__version__} basin {scenario.path.name}"
     result.attrs["scenario"] = scenario.text

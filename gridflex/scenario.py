@@ -221,6 +221,26 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "max_mismatch": Key("quantity", "largest allowed |basement - sediment - water|", 1.0,
                             "length", minimum=0.0),
     },
+    "backstrip_layers": {
+        "file": Key("path", "grid file of the layer's present thickness", REQUIRED),
+        "variable": Key("string", "NetCDF variable or band, if the file has several", None),
+        "lithology": Key("choice", "porosity-depth law of the layer", "shale",
+                         choices=_choices("shale", "sandstone", "chalk", "shaly_sandstone")),
+        "surface_porosity": Key("number", "override the lithology's surface porosity", None,
+                                minimum=0.0),
+        "decay_length": Key("quantity", "override the lithology's porosity decay length",
+                            None, "length", minimum=0.0),
+        "grain_density": Key("quantity", "override the lithology's grain density", None,
+                             "density", minimum=0.0),
+        "water_depth": Key("quantity", "water depth when the layer had just been deposited",
+                           None, "length"),
+        "water_depth_file": Key("path", "or a grid file of that water depth", None),
+        "water_depth_variable": Key("string", "NetCDF variable or band in water_depth_file",
+                                    None),
+        "sea_level_change": Key("quantity", "sea level then, relative to present", 0.0,
+                                "length"),
+        "age": Key("number", "age of the top of the layer (years before present)", None),
+    },
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),
         "map": Key("path", "PNG map of the deflection", None),
@@ -242,7 +262,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
 }
 """Every table and key a scenario may contain."""
 
-ARRAY_TABLES = frozenset({"loads", "stages"})
+ARRAY_TABLES = frozenset({"loads", "stages", "backstrip_layers"})
 """Tables written as arrays of tables (``[[loads]]``)."""
 
 REQUIRED_TABLES = ("plate", "loads", "output")
@@ -432,6 +452,8 @@ def _check_basin(scenario: Scenario) -> None:
     if extra:
         raise InputError(f"{scenario.where('output', extra[0])}: not written by a basin run "
                          "(only 'file')")
+    if tables["backstrip_layers"] and tables["backstrip"] is None:
+        raise InputError(f"{scenario.path}: [[backstrip_layers]] need a [backstrip] table")
     if tables["basin"] is not None:
         if not tables["stages"]:
             raise InputError(f"{scenario.path}: [basin] needs at least one [[stages]] table")
@@ -445,6 +467,22 @@ def _check_basin(scenario: Scenario) -> None:
     if tables["stages"]:
         raise InputError(f"{scenario.path}: [[stages]] need a [basin] table")
     table = tables["backstrip"]
+    if tables["backstrip_layers"]:
+        files = [f"{p}_file" for p in ("basement", "sediment", "water") if table[f"{p}_file"]]
+        files += ["sediment_density"] if table["sediment_density"] is not None else []
+        if files:
+            raise InputError(f"{scenario.where('backstrip', files[0])}: leave it out with "
+                             "[[backstrip_layers]] (each layer has its thickness and water "
+                             "depth)")
+        ages = [layer["age"] for layer in tables["backstrip_layers"]]
+        if any(a is None for a in ages) and not all(a is None for a in ages):
+            raise InputError(f"{scenario.path}: give age in every [[backstrip_layers]] "
+                             "table or in none")
+        for i, layer in enumerate(tables["backstrip_layers"]):
+            if (layer["water_depth"] is None) == (layer["water_depth_file"] is None):
+                raise InputError(f"{scenario.where('backstrip_layers', index=i)}: give either "
+                                 "water_depth or water_depth_file")
+        return
     given = [p for p in ("basement", "sediment", "water") if table[f"{p}_file"] is not None]
     for part in ("basement", "sediment", "water"):
         if table[f"{part}_file"] is None and table[f"{part}_variable"] is not None:

@@ -131,3 +131,44 @@ def test_basin_scenario_errors(stage_files, capsys):
                        'surface_variable = "e"\n[[stages]]\nfile = "s1.nc"\n'
                        'variable = "thickness"\nage = 1\nporosity = 0.5\n[output]\nfile = "x.nc"\n')
         load_scenario(bad)
+
+
+def test_layered_backstrip_command(tmp_path):
+    # same numbers as the library's layered backstrip (checked against Steckler & Watts
+    # 1978 in test_basin.py); common practice
+    from gridflex.basin import backstrip_layers
+    top, low = _lens(1500.0, 30e3), _lens(2500.0, 35e3)
+    _write(tmp_path / "top.nc", "thickness", top)
+    _write(tmp_path / "low.nc", "thickness", low)
+    (tmp_path / "layers.toml").write_text(
+        """
+[plate]
+elastic_thickness = "5 km"
+
+[backstrip]
+
+[[backstrip_layers]]
+file = "top.nc"
+lithology = "sandstone"
+water_depth = "120 m"
+age = 0
+
+[[backstrip_layers]]
+file = "low.nc"
+lithology = "shale"
+water_depth = "600 m"
+sea_level_change = "40 m"
+age = 10e6
+
+[output]
+file = "layers_out.nc"
+""")
+    assert main(["basin", "-q", str(tmp_path / "layers.toml")]) == 0
+    with xr.open_dataset(tmp_path / "layers_out.nc") as ds:
+        out = ds.load()
+    expected = backstrip_layers([(top, "sandstone"), (low, "shale")], [120.0, 600.0],
+                                Plate(te=5e3), sea_level_changes=[0.0, 40.0])
+    assert out.sizes["step"] == 2
+    assert_allclose(out["tectonic_subsidence"].values, expected["tectonic_subsidence"].values,
+                    rtol=1e-12)
+    assert_allclose(out["age"].values, [0.0, 10e6])
