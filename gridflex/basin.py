@@ -71,13 +71,18 @@ from .memory import check_memory
 from .plate import Plate
 from .solve import solve
 
-__all__ = ["Stage", "StagedBasin", "backstrip", "backstrip_layers", "stage_loading"]
+__all__ = [
+    "ISOPACHS", "Stage", "StagedBasin", "backstrip", "backstrip_layers", "stage_loading",
+]
 
 log = logging.getLogger(__name__)
 
 Level = float | xr.DataArray
 TeLike = float | xr.DataArray
 Progress = Callable[[int, int], Any]
+
+ISOPACHS = ("deposited", "present")
+"""Accepted values of ``stage_loading(isopachs=...)``."""
 
 _SETTLE_PASSES = 20
 _SNAPSHOT_GRIDS = 10  # grids kept per recorded stage (see _Snapshot)
@@ -499,6 +504,7 @@ def stage_loading(
     max_iterations: int = 300,
     edges: str = "infinite",
     pad_factor: float = 4.5,
+    isopachs: str = "deposited",
     progress: Progress | None = None,
 ) -> xr.Dataset:
     """Flexure of a basin filled stage by stage (oldest first).
@@ -513,6 +519,12 @@ def stage_loading(
         Plate parameters and the default te.
     sea_level, water_density, compaction, tolerance, max_iterations, edges, pad_factor
         As in :class:`StagedBasin`.
+    isopachs : {"deposited", "present"}, default "deposited"
+        ``"deposited"``: stage thicknesses as deposited. ``"present"``: present-day
+        (compacted) thicknesses of a column in which the stages lie one on another in
+        order; each is first decompacted to the surface from its present burial under
+        the younger stages (grains conserved). With water infill the final column then
+        has the given thicknesses; moat fill (``base_level``) adds sediment to it.
     progress : callable, optional
         Called as ``progress(done, total)`` after each stage.
 
@@ -536,6 +548,11 @@ def stage_loading(
     items = list(stages)
     if not items:
         raise InputError("stage_loading needs at least one Stage")
+    if isopachs not in ISOPACHS:
+        raise InputError(f"isopachs must be one of {', '.join(map(repr, ISOPACHS))}, "
+                         f"got {isopachs!r}")
+    if isopachs == "present" and compaction:
+        items = _deposited_stages(items)
     basin = StagedBasin(initial_surface, plate, sea_level=sea_level, water_density=water_density,
                         compaction=compaction, tolerance=tolerance,
                         max_iterations=max_iterations, edges=edges, pad_factor=pad_factor)
@@ -548,6 +565,22 @@ def stage_loading(
                                     {"units": "m", "long_name": "present compacted thickness "
                                                                 "of each stage"})
     return out
+
+
+def _deposited_stages(stages: list[Stage]) -> list[Stage]:
+    """Stages whose present (compacted) thicknesses are decompacted to the surface."""
+    burial = None
+    out: list[Stage] = []
+    for stage in reversed(stages):  # youngest first: its burial is 0
+        h = np.asarray(stage.thickness.values, dtype=np.float64)
+        if not np.all(np.isfinite(h)) or h.min() < 0:
+            raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")
+        top = np.zeros(h.shape) if burial is None else burial
+        grains = grain_thickness(top, top + h, stage.lithology)
+        deposited = compacted_base(np.zeros(h.shape), grains, stage.lithology)
+        out.append(dataclasses.replace(stage, thickness=stage.thickness.copy(data=deposited)))
+        burial = top + h
+    return out[::-1]
 
 
 def backstrip(

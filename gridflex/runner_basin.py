@@ -91,6 +91,7 @@ def _run_stages(scenario: Scenario, progress: Callable[[int, int], Any] | None) 
         result = stage_loading(
             stages, surface, plate_from_scenario(scenario), sea_level=table["sea_level"],
             water_density=table["water_density"], compaction=table["compaction"],
+            isopachs=table["isopachs"],
             tolerance=table["tolerance"], max_iterations=table["max_iterations"],
             edges=solver["edges"], pad_factor=solver["pad_factor"], progress=progress,
         )

@@ -176,6 +176,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "water_density": Key("quantity", "sea-water (and pore-water) density", 1030.0,
                              "density", minimum=0.0),
         "compaction": Key("bool", "compact older stages under younger ones", True),
+        "isopachs": Key("choice", "stage thicknesses as deposited, or present-day (then "
+                        "decompacted first)", "deposited",
+                        choices=_choices("deposited", "present")),
         "tolerance": Key("quantity", "infill iteration tolerance", 1e-4, "length",
                          minimum=0.0),
         "max_iterations": Key("integer", "infill iterations before giving up", 300,

@@ -296,3 +296,20 @@ def test_a_failed_stage_leaves_the_basin_unchanged():
         basin.add_stage(Stage(lens(400.0), 1e6, "shale"))
     assert not basin.stages and not basin.history
     assert float(np.abs(basin.deflection).max()) == 0.0
+
+
+def test_present_day_isopachs_are_decompacted_and_come_back():
+    # present-day isopachs decompacted to the surface from their present burial (grains
+    # conserved; Sclater & Christie 1980) and re-compacted by the stages above must
+    # return the given thicknesses in the final column; rtol 1e-9 (Newton tolerance)
+    present = [flat(900.0), lens(600.0), flat(400.0)]
+    liths = ["shale", "sandstone", "chalk"]
+    stages = [Stage(h, age, lith) for h, age, lith in zip(present, (3e6, 2e6, 1e6), liths)]
+    out = stage_loading(stages, flat(-5000.0), Plate(te=0.0), isopachs="present",
+                        tolerance=TOL, edges="periodic")
+    for k, h in enumerate(present):
+        assert_allclose(out["final_stage_thickness"][k].values, h.values, rtol=1e-9,
+                        atol=1e-9)
+    assert float(out["stage_thickness"][0].min()) > 900.0 + 100.0  # deposited thicker
+    with pytest.raises(InputError, match="isopachs must be one of"):
+        stage_loading(stages, flat(-5000.0), Plate(te=0.0), isopachs="today")

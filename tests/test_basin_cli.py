@@ -190,6 +190,7 @@ elastic_thickness = "6 km"
 
 [basin]
 surface_file = "surface.tif"
+isopachs = "present"
 
 [[stages]]
 file = "stage.tif"
@@ -201,7 +202,7 @@ file = "tif_out.nc"
     assert main(["basin", "-q", str(tmp_path / "tif.toml")]) == 0
     with xr.open_dataset(tmp_path / "tif_out.nc") as ds:
         out = ds.load()
-    expected = stage_loading([Stage(stage, 1e6)], shelf, Plate(te=6e3))
+    expected = stage_loading([Stage(stage, 1e6)], shelf, Plate(te=6e3), isopachs="present")
     got = out["deflection"].isel(stage=0)
     got = got.sortby("y") if "y" in got.dims else got
     assert_allclose(got.values, expected["deflection"][0].values, rtol=1e-9, atol=1e-9)
