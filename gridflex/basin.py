@@ -15,10 +15,12 @@ the plate not yet moved. The increment is solved with the previous deflection
 frozen and the te of the stage (its time of loading; Watts, Karner & Steckler
 1982, eq. 9.1), with the self-consistent infill of :func:`gridflex.solve_with_infill`:
 water up to sea level, or sediment up to the stage's base level. With a
-constant te the response is path independent (the sum of the increments is the
-solve of the total); with a te that changes from stage to stage it is not, as
-intended. Removing the top stage (:meth:`StagedBasin.remove_stage`) decompacts
-the rest and unloads the plate with water infill.
+constant te and water infill the response is path independent (the sum of the
+increments is the solve of the total: the equilibrium of a column is unique);
+with a te that changes from stage to stage it is not, as intended, and neither
+is a moat filled with sediment (each stage fills only the space it makes).
+Removing the top stage (:meth:`StagedBasin.remove_stage`) decompacts the rest
+and unloads the plate with water infill and the te the stage was loaded with.
 
 The moat-fill sediment of a stage becomes part of that stage (its grains are
 added to it). The infill solver carries the fill with the stage's mean bulk
@@ -39,7 +41,8 @@ with the sediment removed and replaced by water, the plate rebounding by w_s:
     Y = B - w_s - dSL rho_m / (rho_m - rho_w),
     D lap^2 w_s + (rho_m - rho_w) g w_s = (rho_s - rho_w) g S,
 
-with B = S + W the present basement depth below sea level, S the sediment
+with B = S + W the basement depth below the sea level of the time (present
+sea level for present-day grids), S the sediment
 thickness, W the water depth, rho_s the mean bulk density of the (compacted)
 sediment column and dSL the sea level of the time relative to present (positive
 higher). For te = 0 this is the local (Airy) formula
@@ -602,7 +605,9 @@ def backstrip(
     Parameters
     ----------
     basement_depth : xarray.DataArray or None
-        Present depth of the basement below sea level (m, positive down).
+        Depth of the basement below the sea level of the time (m, positive down):
+        sediment thickness + water depth; for present-day grids, below present sea
+        level.
     sediment_thickness : xarray.DataArray or None
         Present (compacted) sediment thickness (m, >= 0).
     water_depth : xarray.DataArray or None
