@@ -2,6 +2,8 @@
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 from scipy import integrate, optimize
 
@@ -102,3 +104,22 @@ def test_bad_inputs_raise_input_error():
         Lithology("x", 0.5, -1.0, 2600.0)
     with pytest.raises(InputError, match="must be >= 0 m"):
         compacted_base(-1.0, 10.0, "shale")
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    top=st.floats(0.0, 8000.0), thickness=st.floats(0.0, 3000.0),
+    new_top=st.floats(0.0, 8000.0), name=st.sampled_from(sorted(LITHOLOGIES)),
+)
+def test_moving_a_layer_conserves_grains_and_orders_thickness(top, thickness, new_top, name):
+    # grains conserved at any burial (Sclater & Christie 1980); deeper means thinner, and
+    # never thinner than the grains nor thicker than at surface porosity (Athy 1930 law)
+    base = move_layer(top, top + thickness, new_top, name)
+    h = base - new_top
+    s = grain_thickness(top, top + thickness, name)
+    assert_allclose(grain_thickness(new_top, base, name), s, rtol=1e-9, atol=1e-9)
+    assert s - 1e-9 <= h <= s / (1.0 - LITHOLOGIES[name].surface_porosity) + 1e-9
+    if new_top > top:
+        assert h <= thickness + 1e-9
+    elif new_top < top:
+        assert h >= thickness - 1e-9
