@@ -14,6 +14,8 @@ from .errors import (
     GridflexWarning,
     InputError,
 )
+from .glacial import bed_stress, grounded_mask, ice_response
+from .history import ResponseStepper, viscous_response
 from .loads import pressure_from_height, pressure_from_layers
 from .plate import Plate, rigidity_from_te, te_from_rigidity
 from .solve import solve
@@ -31,6 +33,12 @@ __all__ = [
     "pressure_from_layers",
     # solving
     "solve",
+    # through time
+    "viscous_response",
+    "ResponseStepper",
+    "ice_response",
+    "bed_stress",
+    "grounded_mask",
     # errors and warnings
     "GridflexError",
     "InputError",
