@@ -204,12 +204,12 @@ def solve(
             "in this version; give te as a single number"
         )
     values = np.asarray(load.values, dtype=np.float64)
-    if edges == "infinite":
-        _warn_edge_load(values)
     problem = SpectralProblem.build(
         spec, float(plate.rigidity), plate.restoring_stiffness, force_x, force_y,
         periodic=(edges == "periodic"), pad_factor=pad_factor,
     )
+    if edges == "infinite" and not problem.is_local:
+        _warn_edge_load(values)
     log.info("spectral solve on %s grid, FFT grid %s", spec.shape, problem.shape)
     deflection, balance = problem.deflection(values)
     attrs = {
