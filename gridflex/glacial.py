@@ -26,6 +26,7 @@ import xarray as xr
 from .errors import ConvergenceError, InputError
 from .grid import check_grid, check_same_grid
 from .history import (
+    INITIAL_STATES,
     Progress,
     ResponseStepper,
     check_times,
@@ -242,6 +243,10 @@ def ice_response(
             f"ice_response adds the ocean water over depressed bedrock itself; give a plate "
             f"with infill_density=0.0 (got {plate.infill_density!r})"
         )
+    if initial not in INITIAL_STATES:
+        raise InputError(
+            f"initial must be one of {', '.join(map(repr, INITIAL_STATES))}; got {initial!r}"
+        )
     rho_i = _check_density("ice_density", ice_density)
     rho_w = _check_density("water_density", water_density)
     levels = _sea_level_series(sea_level, times)
@@ -275,8 +280,6 @@ def ice_response(
     w = zero
     if initial == "equilibrium":
         w = _initial_equilibrium(stepper, lambda w_: load_at(0, w_))
-    elif initial != "rest":
-        raise InputError(f"initial must be one of 'rest', 'equilibrium'; got {initial!r}")
 
     out = {name: np.empty((nt, ny, nx)) for name in ("deflection", "uplift_rate", "load")}
     grounded = np.empty((nt, ny, nx), dtype=np.int8)
