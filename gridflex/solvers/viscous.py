@@ -165,6 +165,8 @@ class SpectralRelaxation:
     state: np.ndarray
     load_spectrum: np.ndarray
     _factors: dict[float, tuple] = field(default_factory=dict, repr=False)
+    _scratch: np.ndarray | None = field(default=None, repr=False)
+    _rate_factor: np.ndarray | float | None = field(default=None, repr=False)
 
     @classmethod
     def build(
@@ -269,7 +271,7 @@ class SpectralRelaxation:
     # -- state --------------------------------------------------------------------
     def set_load(self, load: np.ndarray) -> None:
         """Make *load* (Pa) the load acting now, without moving the plate."""
-        self.load_spectrum = self.forward(load)
+        self.load_spectrum = np.ascontiguousarray(self.forward(load))
 
     def set_equilibrium(self) -> None:
         """Put the plate in elastic equilibrium with the load acting now."""
@@ -289,11 +291,15 @@ class SpectralRelaxation:
         The k = 0 mode of the half-space (tau = 0) follows the load instantly; it has
         no finite rate and is left out.
         """
-        rates = self.rates
-        if isinstance(rates, np.ndarray):
-            rates = np.where(np.isinf(rates), 0.0, rates)
-        spectrum = (self.load_spectrum * self.transfer - self.state) * rates
-        return self.inverse(spectrum)
+        if self._rate_factor is None:
+            rates = self.rates
+            if isinstance(rates, np.ndarray):
+                rates = _pairs(np.where(np.isinf(rates), 0.0, rates))
+            self._rate_factor = rates
+        work = np.multiply(_floats(self.load_spectrum), _pairs(self.transfer))
+        work -= _floats(self.state)
+        work *= self._rate_factor
+        return self.inverse(work.view(np.complex128))
 
     def _step_factors(self, dt: float) -> tuple:
         factors = self._factors.get(dt)
@@ -306,7 +312,12 @@ class SpectralRelaxation:
         else:
             with np.errstate(divide="ignore", invalid="ignore"):
                 phi = np.where(np.isinf(x), 0.0, -np.expm1(-x) / x)
+            if not isinstance(x, np.ndarray):
+                phi = float(phi)
             factors = (decay, (phi - decay) * self.transfer, (1.0 - phi) * self.transfer)
+        # real factors repeated for the (re, im) pairs of the complex spectra: plain
+        # float64 products without a cast of the factor to complex
+        factors = tuple(_pairs(f) for f in factors)
         if len(self._factors) >= _CACHE_STEPS:
             self._factors.pop(next(iter(self._factors)))
         self._factors[dt] = factors
@@ -325,13 +336,30 @@ class SpectralRelaxation:
             the load acting at the start. Either way it is the load acting afterwards.
         """
         factors = self._step_factors(dt)
-        new = self.forward(load)
-        state = self.state
+        new = np.ascontiguousarray(self.forward(load))
+        state = _floats(self.state)
+        if self._scratch is None:
+            self._scratch = np.empty_like(state)
+        scratch = self._scratch
         state *= factors[0]
         if self.interpolation == "previous":
-            new_part = new * factors[1]
-            state += new_part
+            np.multiply(_floats(new), factors[1], out=scratch)
+            state += scratch
         else:
-            state += self.load_spectrum * factors[1]
-            state += new * factors[2]
+            np.multiply(_floats(self.load_spectrum), factors[1], out=scratch)
+            state += scratch
+            np.multiply(_floats(new), factors[2], out=scratch)
+            state += scratch
         self.load_spectrum = new
+
+
+def _floats(spectrum: np.ndarray) -> np.ndarray:
+    """A complex128 array viewed as float64 (re, im) pairs along the last axis."""
+    return spectrum.view(np.float64)
+
+
+def _pairs(factor: np.ndarray | float) -> np.ndarray | float:
+    """A real factor repeated for each (re, im) pair; scalars pass through."""
+    if isinstance(factor, np.ndarray):
+        return np.repeat(factor, 2, axis=-1)
+    return float(factor)
