@@ -24,7 +24,16 @@ from typing import Any, Callable
 from .errors import InputError
 from .units import parse_quantity
 
-__all__ = ["Key", "SCHEMA", "ARRAY_TABLES", "Scenario", "load_scenario", "parse_scenario"]
+__all__ = [
+    "Key",
+    "SCHEMA",
+    "ARRAY_TABLES",
+    "REQUIRED",
+    "Scenario",
+    "load_scenario",
+    "parse_scenario",
+    "parse_tables",
+]
 
 REQUIRED = object()
 """Default of a key that must be given."""
@@ -250,18 +259,35 @@ def _parse_table(values: Any, spec: dict[str, Key], where: str, base: Path) -> d
 
 def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario:
     """Validate a scenario already read into a dict (see :func:`load_scenario`)."""
+    scenario = parse_tables(data, path, text, SCHEMA, ARRAY_TABLES, REQUIRED_TABLES)
+    _check_loads(scenario)
+    return scenario
+
+
+def parse_tables(
+    data: dict[str, Any],
+    path: Path,
+    text: str,
+    schema: dict[str, dict[str, Key]],
+    array_tables: frozenset[str],
+    required_tables: tuple[str, ...],
+) -> Scenario:
+    """Validate *data* against *schema* (tables, keys, defaults); no cross-key checks.
+
+    Shared by every kind of scenario file (see :func:`parse_scenario`).
+    """
     base = path.parent
-    unknown = sorted(set(data) - set(SCHEMA))
+    unknown = sorted(set(data) - set(schema))
     if unknown:
         raise InputError(f"{path}: unknown table [{unknown[0]}]; valid tables are "
-                         + ", ".join(f"[{t}]" for t in SCHEMA))
-    for name in REQUIRED_TABLES:
+                         + ", ".join(f"[{t}]" for t in schema))
+    for name in required_tables:
         if name not in data:
             raise InputError(f"{path}: required table [{name}] is missing")
     tables: dict[str, Any] = {}
-    for name, spec in SCHEMA.items():
+    for name, spec in schema.items():
         raw = data.get(name)
-        if name in ARRAY_TABLES:
+        if name in array_tables:
             items = raw if raw is not None else []
             if not isinstance(items, list):
                 raise InputError(f"{path}: [{name}] must be an array of tables, written [[{name}]]")
@@ -276,9 +302,7 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
                 tables[name] = {k: v.default for k, v in spec.items()}
         else:
             tables[name] = _parse_table(raw, spec, f"{path}: [{name}]", base)
-    scenario = Scenario(path=path, text=text, tables=tables)
-    _check_loads(scenario)
-    return scenario
+    return Scenario(path=path, text=text, tables=tables)
 
 
 def _check_loads(scenario: Scenario) -> None:
@@ -305,13 +329,18 @@ def _check_loads(scenario: Scenario) -> None:
                                          f"{layer['synthetic']!r} shape")
 
 
-def load_scenario(path: str | Path) -> Scenario:
+def load_scenario(
+    path: str | Path,
+    parser: Callable[[dict[str, Any], Path, str], Scenario] = parse_scenario,
+) -> Scenario:
     """Read and validate a TOML scenario file.
 
     Parameters
     ----------
     path : str or pathlib.Path
         The scenario file; relative paths inside it are taken from its folder.
+    parser : callable, default :func:`parse_scenario`
+        Validator for the kind of scenario (e.g. the history scenario's).
 
     Returns
     -------
@@ -334,4 +363,4 @@ def load_scenario(path: str | Path) -> Scenario:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"{path}: malformed TOML: {exc}") from exc
-    return parse_scenario(data, path.resolve(), text)
+    return parser(data, path.resolve(), text)
