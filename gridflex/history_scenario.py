@@ -196,8 +196,8 @@ def _bed(scenario: Scenario, like: xr.DataArray) -> xr.DataArray:
     return grid
 
 
-def _point_cells(scenario: Scenario, result: xr.Dataset) -> list[tuple[str, float, float, int, int]]:
-    x, y = result["x"].values, result["y"].values
+def _point_cells(scenario: Scenario, grid: xr.DataArray) -> list[tuple[str, float, float, int, int]]:
+    x, y = grid["x"].values, grid["y"].values
     cells = []
     for index, point in enumerate(scenario.table("points")):
         px, py = point["x"], point["y"]
@@ -238,6 +238,13 @@ def run_history_scenario(
     level: Any = sea["level"]
     if sea["file"] is not None:
         level = read_series(sea["file"], sea["variable"], reference)
+    times = np.asarray(thickness["time"].values, dtype=np.float64)
+    rate_time = float(times[-1]) if outputs["rate_time"] is None else outputs["rate_time"]
+    if not times[0] <= rate_time <= times[-1]:
+        raise InputError(f"{scenario.where('output', 'rate_time')}: {rate_time:g} years is "
+                         f"outside the history ({times[0]:g} to {times[-1]:g})")
+    at = int(np.argmin(np.abs(times - rate_time)))
+    cells = _point_cells(scenario, bed)
     mantle, solver = scenario.table("mantle"), scenario.table("solver")
     log.info("ice history of %d times on a %s grid", thickness.sizes["time"], bed.shape)
     result = ice_response(
@@ -250,7 +257,6 @@ def run_history_scenario(
     )
     result["ice_thickness"] = (("time", "y", "x"), thickness.values,
                                {"units": "m", "long_name": "ice thickness"})
-    cells = _point_cells(scenario, result)
     out = result.copy()
     out["vertical_displacement"] = -result["deflection"]
     out["vertical_displacement"].attrs = {
@@ -263,11 +269,6 @@ def run_history_scenario(
     outcome = RunOutcome(result=out)
     outcome.written.append(write_netcdf(out, outputs["file"], overwrite, inputs))
     times = result["time"].values
-    rate_time = float(times[-1]) if outputs["rate_time"] is None else outputs["rate_time"]
-    if not times[0] <= rate_time <= times[-1]:
-        raise InputError(f"{scenario.where('output', 'rate_time')}: {rate_time:g} years is "
-                         f"outside the history ({times[0]:g} to {times[-1]:g})")
-    at = int(np.argmin(np.abs(times - rate_time)))
     marks = [(name, px, py) for name, px, py, _, _ in cells]
     if outputs["rate_map"]:
         outcome.written.append(plot_uplift_rate_map(
