@@ -317,7 +317,8 @@ def ice_response(
         ),
         "load": (
             dims, out["load"],
-            {"units": "Pa", "long_name": "change of the vertical stress of ice and ocean on the bed"},
+            {"units": "Pa",
+             "long_name": "change of the vertical stress of ice and ocean on the bed"},
         ),
         "grounded": (
             dims, grounded,
@@ -331,7 +332,9 @@ def ice_response(
         "ice_density": rho_i,
         "water_density": rho_w,
         "reference_sea_level": ref_level,
-        "reference_state": "deflection is zero for the given bed with the reference ice and sea level",
+        "reference_state": (
+            "deflection is zero for the given bed with the reference ice and sea level"
+        ),
         "initial_state": initial,
     })
     ds_attrs = provenance_attrs(plate, attrs, "bed deflection under an ice-thickness history")

@@ -414,7 +414,9 @@ def viscous_response(
     _constant_rigidity(plate)
     nt = times.size
     ny, nx = first.shape
-    check_memory(2 * 8.0 * nt * ny * nx, f"deflection and uplift rate for {nt} times of {ny} x {nx}")
+    check_memory(
+        2 * 8.0 * nt * ny * nx, f"deflection and uplift rate for {nt} times of {ny} x {nx}"
+    )
     if edges == "infinite":
         _warn_edge_load(np.abs(load_history.values).max(axis=0))
     values = load_history.values

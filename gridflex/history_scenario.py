@@ -196,7 +196,9 @@ def _bed(scenario: Scenario, like: xr.DataArray) -> xr.DataArray:
     return grid
 
 
-def _point_cells(scenario: Scenario, grid: xr.DataArray) -> list[tuple[str, float, float, int, int]]:
+def _point_cells(
+    scenario: Scenario, grid: xr.DataArray
+) -> list[tuple[str, float, float, int, int]]:
     x, y = grid["x"].values, grid["y"].values
     cells = []
     for index, point in enumerate(scenario.table("points")):
@@ -296,7 +298,9 @@ def _summary(result: xr.Dataset, at: int, cells: list) -> dict[str, Any]:
         "first_time": float(result["time"].values[0]),
         "last_time": float(result["time"].values[-1]),
         "max_deflection": float(w.max()),
-        "max_deflection_time": float(result["time"].values[np.unravel_index(w.argmax(), w.shape)[0]]),
+        "max_deflection_time": float(
+            result["time"].values[np.unravel_index(w.argmax(), w.shape)[0]]
+        ),
         "rate_time": float(result["time"].values[at]),
         "max_uplift_rate": float(rate.max()),
         "min_uplift_rate": float(rate.min()),

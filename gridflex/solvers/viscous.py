@@ -181,7 +181,7 @@ class SpectralRelaxation:
         periodic: bool = False,
         pad_factor: float = DEFAULT_PAD_FACTOR,
         width_factor: float = DEFAULT_WIDTH_FACTOR,
-    ) -> "SpectralRelaxation":
+    ) -> SpectralRelaxation:
         """Choose the FFT grid, compute the per-mode kernels, start at rest with no load.
 
         Parameters
@@ -227,7 +227,9 @@ class SpectralRelaxation:
         if periodic:
             shape = spec.shape
         else:
-            pad = relaxation_pad_distance(spec, rigidity, stiffness, model, pad_factor, width_factor)
+            pad = relaxation_pad_distance(
+                spec, rigidity, stiffness, model, pad_factor, width_factor
+            )
             shape = padded_shape(spec, pad)
         n_half = shape[0] * (shape[1] // 2 + 1)
         # transfer, rates, cached factors (3), state and load spectra (complex), FFT work
