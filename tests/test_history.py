@@ -247,3 +247,11 @@ def test_bad_inputs_are_rejected_with_clear_messages():
         stepper.advance(0.0, history.values[0])
     with pytest.raises(InputError, match="shape"):
         stepper.advance(10.0, np.zeros((3, 3)))
+
+
+def test_history_too_large_for_memory_is_refused(monkeypatch):
+    import gridflex.memory
+
+    monkeypatch.setattr(gridflex.memory, "available_memory", lambda: 2**20)
+    with pytest.raises(InputError, match="needs about"):
+        viscous_response(_varying_history(), Plate(te=20e3, infill_density=0.0))

@@ -180,3 +180,10 @@ def test_point_outside_the_grid_is_refused_before_running(tmp_path, capsys):
     assert main(["history", str(path), "-q"]) == 2
     assert "#2: point (4e+06, 0) m lies outside the grid" in capsys.readouterr().err
     assert not (tmp_path / "out" / "ice.nc").exists()
+
+
+def test_shipped_history_scenario_is_valid():
+    path = Path(__file__).parents[1] / "configs" / "ice_history.toml"
+    scenario = load_history_scenario(path)
+    assert scenario.table("mantle")["model"] == "half-space"
+    assert len(scenario.table("points")) == 3
