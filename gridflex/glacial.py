@@ -235,7 +235,10 @@ def ice_response(
     check_same_grid(bed, first, "bed")
     thickness = np.asarray(ice_thickness.values, dtype=np.float64)
     if not np.all(np.isfinite(thickness)) or thickness.min() < 0:
-        raise InputError("ice_thickness must be finite and >= 0 m everywhere")
+        raise InputError(
+            "ice_thickness must be finite and >= 0 m everywhere; where a file marks "
+            "ice-free cells as missing, fill them with 0 first (e.g. .fillna(0))"
+        )
     if not isinstance(plate, Plate):
         raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
     if plate.infill_density != 0.0:
@@ -326,6 +329,11 @@ def ice_response(
              "flag_meanings": "not_grounded grounded"},
         ),
         "sea_level": ("time", levels, {"units": "m", "long_name": "sea-level elevation"}),
+        "reference_load": (
+            ("y", "x"), sigma_ref,
+            {"units": "Pa", "long_name": "vertical stress of ice and ocean on the bed in the "
+             "reference state (zero deflection)"},
+        ),
     }
     attrs = stepper.describe()
     attrs.update({

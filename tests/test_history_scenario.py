@@ -187,3 +187,48 @@ def test_shipped_history_scenario_is_valid():
     scenario = load_history_scenario(path)
     assert scenario.table("mantle")["model"] == "half-space"
     assert len(scenario.table("points")) == 3
+
+
+def test_sea_level_series_from_a_file(tmp_path):
+    # 10 m of sea-level rise over a 1000 m deep ocean, Te = 0: at equilibrium the water
+    # column grows by 10 m plus the depression, w = rho_w 10 / (rho_m - rho_w)
+    # (hydro-isostasy, common practice). Steps of 250 yr << tau keep the lag small.
+    kyr = np.arange(0.0, 60.001, 0.25)
+    levels = np.where(kyr > 0, 10.0, 0.0)
+    series = xr.Dataset({"sl": ("time", levels, {"units": "m"})},
+                        coords={"time": ("time", kyr, {"units": "kyr"})})
+    series.to_netcdf(tmp_path / "sea.nc")
+    years = ", ".join(f"{t * 1e3:g}" for t in kyr)
+    zeros = ", ".join("0" for _ in kyr)
+    text = f"""
+[plate]
+elastic_thickness = 0
+[mantle]
+model = "relaxing"
+relaxation_time = "3 kyr"
+[solver]
+edges = "periodic"
+[grid]
+rows = 8
+columns = 8
+spacing = "50 km"
+[ice]
+synthetic = "disc"
+radius = "1 km"
+height = 0
+times = [{years}]
+thickness_factors = [{zeros}]
+[bed]
+elevation = "-1000 m"
+[sea]
+file = "sea.nc"
+variable = "sl"
+[output]
+file = "sea_out.nc"
+"""
+    assert main(["history", str(_write(tmp_path, text)), "-q"]) == 0
+    with xr.open_dataset(tmp_path / "sea_out.nc", decode_times=False) as out:
+        assert_allclose(out.sea_level.values, levels)
+        # 60 kyr = 14 effective relaxation times tau rho_m / (rho_m - rho_w): within 1e-5
+        assert_allclose(out.deflection.values[-1], 1030.0 * 10.0 / (3300.0 - 1030.0), rtol=1e-5)
+        assert "reference_load" in out
