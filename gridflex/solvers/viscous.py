@@ -166,7 +166,7 @@ class SpectralRelaxation:
     load_spectrum: np.ndarray
     _factors: dict[float, tuple] = field(default_factory=dict, repr=False)
     _scratch: np.ndarray | None = field(default=None, repr=False)
-    _rate_factor: np.ndarray | float | None = field(default=None, repr=False)
+    _rate_factors: tuple | None = field(default=None, repr=False)
 
     @classmethod
     def build(
@@ -232,9 +232,12 @@ class SpectralRelaxation:
             )
             shape = padded_shape(spec, pad)
         n_half = shape[0] * (shape[1] // 2 + 1)
-        # transfer, rates, cached factors (3), state and load spectra (complex), FFT work
+        # per half-spectrum mode, in float64 words: transfer and rates (2), cached step
+        # factors (3 per step length, repeated for re/im: 6 each), state and load spectra
+        # (4), scratch (2), rate factors (4), transform temporaries (6)
+        words = 2 + 6 * _CACHE_STEPS + 4 + 2 + 4 + 6
         check_memory(
-            8.0 * n_half * (2 + 3 * _CACHE_STEPS + 2 * 2 + 4) + 8.0 * shape[0] * shape[1] * 2,
+            8.0 * n_half * words,
             f"time-dependent response on a padded grid of {shape[0]} x {shape[1]}",
         )
         transfer = transfer_function(shape, spec.dy, spec.dx, rigidity, stiffness)
@@ -293,14 +296,15 @@ class SpectralRelaxation:
         The k = 0 mode of the half-space (tau = 0) follows the load instantly; it has
         no finite rate and is left out.
         """
-        if self._rate_factor is None:
+        if self._rate_factors is None:
             rates = self.rates
             if isinstance(rates, np.ndarray):
-                rates = _pairs(np.where(np.isinf(rates), 0.0, rates))
-            self._rate_factor = rates
-        work = np.multiply(_floats(self.load_spectrum), _pairs(self.transfer))
+                rates = np.where(np.isinf(rates), 0.0, rates)
+            self._rate_factors = (_pairs(self.transfer), _pairs(rates))
+        transfer, rates = self._rate_factors
+        work = np.multiply(_floats(self.load_spectrum), transfer)
         work -= _floats(self.state)
-        work *= self._rate_factor
+        work *= rates
         return self.inverse(work.view(np.complex128))
 
     def _step_factors(self, dt: float) -> tuple:
