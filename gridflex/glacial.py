@@ -274,7 +274,10 @@ def ice_response(
 
     zero = np.zeros((ny, nx))
     if edges == "infinite":
-        _warn_edge_load(np.abs(thickness).max(axis=0) + np.abs(load_at(0, zero)))
+        # largest ice load, plus the sea-level change over what is ocean at some time
+        change = float(np.abs(levels - ref_level).max())
+        ocean = bed0 < levels.max()
+        _warn_edge_load(g * (rho_i * thickness.max(axis=0) + rho_w * change * ocean))
     stepper = ResponseStepper(
         first, plate, model, mantle_viscosity, relaxation_time,
         load=load_at(0, zero), initial="rest", interpolation=interpolation, edges=edges,

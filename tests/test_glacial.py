@@ -118,3 +118,14 @@ def test_ice_inputs_are_checked():
         ice_response(ice, empty_grid(8, 8, 40e3), plate)
     with pytest.raises(InputError, match="initial must be one of"):
         ice_response(ice, grid, plate, initial="relaxed", edges="periodic")
+
+
+def test_sea_level_change_over_an_ocean_cut_by_the_grid_edge_warns():
+    # An ocean reaching the grid edge loaded by sea-level change is a load that ends at the
+    # edge on an infinite plate (PHYSICS.md 2.4): the user is told.
+    from gridflex import EdgeLoadWarning
+
+    grid = empty_grid(16, 16, 50e3)
+    with pytest.warns(EdgeLoadWarning, match="grid edge"):
+        ice_response(_series(grid, [0.0, 100.0]), grid - 500.0,
+                     Plate(te=20e3, infill_density=0.0), sea_level=5.0)
