@@ -31,10 +31,11 @@ from .history import (
     ResponseStepper,
     check_times,
     uplift_rate_attrs,
+    warn_edge_load,
 )
 from .memory import check_memory
 from .plate import Plate
-from .solve import _warn_edge_load, deflection_attrs, provenance_attrs
+from .solve import deflection_attrs, provenance_attrs
 from .solvers.spectral import DEFAULT_PAD_FACTOR
 from .solvers.viscous import DEFAULT_WIDTH_FACTOR
 
@@ -277,7 +278,7 @@ def ice_response(
         # largest ice load, plus the sea-level change over what is ocean at some time
         change = float(np.abs(levels - ref_level).max())
         ocean = bed0 < levels.max()
-        _warn_edge_load(g * (rho_i * thickness.max(axis=0) + rho_w * change * ocean))
+        warn_edge_load(g * (rho_i * thickness.max(axis=0) + rho_w * change * ocean))
     stepper = ResponseStepper(
         first, plate, model, mantle_viscosity, relaxation_time,
         load=load_at(0, zero), initial="rest", interpolation=interpolation, edges=edges,

@@ -46,6 +46,7 @@ __all__ = [
     "check_times",
     "uplift_rate_attrs",
     "viscous_response",
+    "warn_edge_load",
 ]
 
 log = logging.getLogger(__name__)
@@ -318,6 +319,12 @@ class ResponseStepper:
         return out
 
 
+def warn_edge_load(magnitude: np.ndarray) -> None:
+    """Warn (EdgeLoadWarning) when much of a load's magnitude over time (Pa, the
+    largest |q| of each cell) lies on the grid edge, where zero padding cuts it off."""
+    _warn_edge_load(magnitude, float(np.abs(magnitude).sum()))
+
+
 def _check_history(load_history: Any) -> tuple[np.ndarray, xr.DataArray]:
     if not isinstance(load_history, xr.DataArray):
         raise InputError(
@@ -418,7 +425,7 @@ def viscous_response(
         2 * 8.0 * nt * ny * nx, f"deflection and uplift rate for {nt} times of {ny} x {nx}"
     )
     if edges == "infinite":
-        _warn_edge_load(np.abs(load_history.values).max(axis=0))
+        warn_edge_load(np.abs(load_history.values).max(axis=0))
     values = load_history.values
     stepper = ResponseStepper(
         first, plate, model, mantle_viscosity, relaxation_time,

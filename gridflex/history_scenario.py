@@ -271,11 +271,11 @@ def run_history_scenario(
     outcome = RunOutcome(result=out)
     outcome.written.append(write_netcdf(out, outputs["file"], overwrite, inputs))
     times = result["time"].values
-    marks = [(name, px, py) for name, px, py, _, _ in cells]
     if outputs["rate_map"]:
         outcome.written.append(plot_uplift_rate_map(
             result["uplift_rate"].isel(time=at), outputs["rate_map"], overwrite, inputs,
-            title=f"Uplift rate at {times[at]:g} years after {reference}", points=marks))
+            title=f"Uplift rate at {times[at]:g} years after {reference}",
+            outline=result["ice_thickness"].isel(time=at)))
     if outputs["series_plot"]:
         if not cells:
             raise InputError(f"{scenario.where('output', 'series_plot')}: needs at least one "

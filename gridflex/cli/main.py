@@ -9,10 +9,10 @@ from types import ModuleType
 
 from .._version import __version__
 from ..errors import ConvergenceError, GridflexError
-from . import demo, history, run
+from . import demo, history, profile, run
 from .common import configure_output
 
-COMMANDS: tuple[ModuleType, ...] = (run, history, demo)
+COMMANDS: tuple[ModuleType, ...] = (run, history, demo, profile)
 """Command modules; each has NAME, add_parser(subparsers) and execute(args)."""
 
 EXIT_INPUT = 2

@@ -8,12 +8,14 @@ from typing import Any
 
 import numpy as np
 import xarray as xr
+from rasterio.crs import CRS
 
 from ..errors import InputError
 from ..units import DIMENSIONS, unit_factor
 from .atomic import atomic_path
+from .gridmapping import cf_grid_mapping
 
-__all__ = ["read_grid", "write_netcdf"]
+__all__ = ["read_grid", "read_result", "write_netcdf"]
 
 _GEOGRAPHIC_UNITS = ("degree", "degrees", "degrees_east", "degrees_north", "degree_east",
                      "degree_north", "degrees_e", "degrees_n")
@@ -89,6 +91,35 @@ def read_grid(path: str | Path, variable: str, dimension: str | None = None) -> 
     return out
 
 
+def read_result(path: str | Path) -> xr.Dataset:
+    """Read a result written by :func:`write_netcdf` back into memory on ``("y", "x")``.
+
+    ``lat``/``lon`` coordinates become ``y``/``x`` (in degrees); the grid-mapping
+    variable is dropped and its WKT kept as ``attrs["crs_wkt"]``.
+
+    Raises
+    ------
+    InputError
+        Missing or unreadable file.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(f"{path}: file not found")
+    try:
+        with xr.open_dataset(path, engine="netcdf4") as ds:
+            ds = ds.load()
+    except (OSError, ValueError, RuntimeError) as exc:
+        raise InputError(f"{path}: cannot read as NetCDF ({exc})") from exc
+    if "crs" in ds.variables:
+        ds.attrs["crs_wkt"] = str(ds["crs"].attrs.get("crs_wkt", ""))
+        ds = ds.drop_vars("crs")
+    rename = {old: new for old, new in (("lat", "y"), ("lon", "x")) if old in ds.dims}
+    ds = ds.rename(rename)
+    if not {"y", "x"} <= set(ds.dims):
+        raise InputError(f"{path}: not a gridflex result: no (y, x) or (lat, lon) grid")
+    return ds
+
+
 def _netcdf_attr(value: Any) -> Any:
     if isinstance(value, (bool, np.bool_)):
         return int(value)
@@ -101,35 +132,64 @@ def _netcdf_attr(value: Any) -> Any:
     return str(value)
 
 
+def _georeference(ds: xr.Dataset, crs: CRS) -> xr.Dataset:
+    """Add a CF grid-mapping variable ``crs`` and CF coordinate attributes."""
+    out = ds.copy(deep=False)
+    out["crs"] = xr.DataArray(np.int32(0), attrs=cf_grid_mapping(crs))
+    for name, var in out.data_vars.items():
+        if name != "crs" and {"y", "x"} <= set(var.dims):
+            var.attrs["grid_mapping"] = "crs"
+    if crs.is_geographic:
+        out = out.rename({"y": "lat", "x": "lon"})
+        out["lat"].attrs = {"units": "degrees_north", "standard_name": "latitude",
+                            "long_name": "latitude", "axis": "Y"}
+        out["lon"].attrs = {"units": "degrees_east", "standard_name": "longitude",
+                            "long_name": "longitude", "axis": "X"}
+    else:
+        units = "m"
+        out["y"].attrs = {"units": units, "standard_name": "projection_y_coordinate",
+                          "long_name": "y (northing)", "axis": "Y"}
+        out["x"].attrs = {"units": units, "standard_name": "projection_x_coordinate",
+                          "long_name": "x (easting)", "axis": "X"}
+    return out
+
+
 def write_netcdf(
     ds: xr.Dataset,
     path: str | Path,
     overwrite: bool = False,
     inputs: Iterable[str | Path] = (),
+    crs: CRS | None = None,
 ) -> Path:
-    """Write *ds* to a compressed NetCDF-4 file atomically.
+    """Write *ds* to a compressed NetCDF-4 file atomically, CF-1.8 style.
 
     Parameters
     ----------
     ds : xarray.Dataset
-        Data to write; attributes that NetCDF cannot store (bool, None, dict) are
-        converted to numbers or strings.
+        Data on dims ``("y", "x")`` (and others); attributes that NetCDF cannot
+        store (bool, None, dict) are converted to numbers or strings.
     path : str or pathlib.Path
         Output file.
     overwrite : bool, default False
         Replace an existing file.
     inputs : iterable of path
         Files that must never be overwritten.
+    crs : rasterio.crs.CRS, optional
+        Coordinate reference system of ``x`` and ``y``: adds the CF grid-mapping
+        variable ``crs`` (with ``crs_wkt``) and, for a geographic CRS, writes the
+        coordinates as ``lat``/``lon`` in degrees.
 
     Returns
     -------
     pathlib.Path
         The written file.
     """
-    out = ds.copy(deep=False)
-    out.attrs = {k: _netcdf_attr(v) for k, v in ds.attrs.items()}
+    out = ds if crs is None else _georeference(ds, crs)
+    out = out.copy(deep=False)
+    out.attrs = {k: _netcdf_attr(v) for k, v in out.attrs.items()}
+    out.attrs.setdefault("Conventions", "CF-1.8")
     for name in out.variables:
-        out[name].attrs = {k: _netcdf_attr(v) for k, v in ds[name].attrs.items()}
+        out[name].attrs = {k: _netcdf_attr(v) for k, v in out[name].attrs.items()}
     encoding = {
         name: {"zlib": True, "complevel": 4}
         for name, var in out.data_vars.items()
