@@ -232,3 +232,27 @@ file = "sea_out.nc"
         # 60 kyr = 14 effective relaxation times tau rho_m / (rho_m - rho_w): within 1e-5
         assert_allclose(out.deflection.values[-1], 1030.0 * 10.0 / (3300.0 - 1030.0), rtol=1e-5)
         assert "reference_load" in out
+
+
+def test_every_history_scenario_key_is_documented():
+    from gridflex.history_scenario import HISTORY_SCHEMA
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    section = readme[readme.index("## Ice loads through time"):]
+    for table, keys in HISTORY_SCHEMA.items():
+        if table in ("plate", "grid"):  # documented with the elastic scenario
+            continue
+        assert f"[{table}]" in section, table
+        for key in keys:
+            assert f"`{key}`" in section, f"[{table}] {key} is not in README.md"
+
+
+def test_coupling_example_runs():
+    import subprocess
+    import sys
+
+    script = Path(__file__).resolve().parents[1] / "examples" / "ice_coupling.py"
+    done = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                          timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert "uplift rate" in done.stdout
