@@ -129,3 +129,19 @@ def test_sea_level_change_over_an_ocean_cut_by_the_grid_edge_warns():
     with pytest.warns(EdgeLoadWarning, match="grid edge"):
         ice_response(_series(grid, [0.0, 100.0]), grid - 500.0,
                      Plate(te=20e3, infill_density=0.0), sea_level=5.0)
+
+
+def test_equilibrium_start_on_land_is_the_elastic_solution():
+    # On land far above sea level the initial equilibrium is the elastic plate under
+    # rho_i g H (PHYSICS.md 7.1 and 1.1): the solve() answer for the same plate.
+    from gridflex import solve
+
+    grid = empty_grid(48, 48, 25e3)
+    bed = grid + 2000.0
+    cap = disc_height(grid, 300e3, 2000.0)
+    plate = Plate(te=60e3, infill_density=0.0)
+    out = ice_response(_series(cap, [0.0, 10.0]), bed, plate, initial="equilibrium",
+                       edges="periodic")
+    expected = solve(cap * (RHO_I * G), plate, edges="periodic").deflection.values
+    assert_allclose(out.deflection.values[0], expected, rtol=0, atol=1e-9 * expected.max())
+    assert np.abs(out.uplift_rate.values[0]).max() < 1e-9  # nothing moves yet

@@ -5,6 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import xarray as xr
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 from scipy import integrate, special
 
@@ -255,3 +257,18 @@ def test_history_too_large_for_memory_is_refused(monkeypatch):
     monkeypatch.setattr(gridflex.memory, "available_memory", lambda: 2**20)
     with pytest.raises(InputError, match="needs about"):
         viscous_response(_varying_history(), Plate(te=20e3, infill_density=0.0))
+
+
+@settings(max_examples=15, deadline=None)
+@given(a=st.floats(-3.0, 3.0), b=st.floats(-3.0, 3.0))
+def test_response_is_linear_in_the_load(a, b):
+    # The models are linear (PHYSICS.md 7.3, 7.4): the response to a q1 + b q2 is
+    # a w1 + b w2 (common practice for linear operators; round-off).
+    history = _varying_history()
+    other = history.roll(x=5, roll_coords=False) * 0.5
+    plate = Plate(te=30e3, infill_density=0.0)
+    w1 = viscous_response(history, plate, edges="periodic").deflection.values
+    w2 = viscous_response(other, plate, edges="periodic").deflection.values
+    both = viscous_response(history * a + other * b, plate, edges="periodic").deflection.values
+    scale = max(abs(a), abs(b), 1.0) * np.abs(w1).max()
+    assert_allclose(both, a * w1 + b * w2, rtol=0, atol=1e-11 * scale)
