@@ -191,10 +191,12 @@ def plot_uplift_rate_map(
 ) -> Path:
     """Map of an uplift rate (m/yr, positive up) in mm/yr: red rising (rebound), blue
     sinking, dashed zero line, black outline of *outline* (e.g. the ice thickness)."""
+    has_outline = outline is not None and float(outline.max()) > 0
+    legend = "red: rising (rebound), blue: sinking; dashed: zero"
     return plot_field_map(
-        rate * 1e3, path,
-        f"{title}\nred: rising (rebound), blue: sinking; dashed: zero; black: ice margin",
-        "uplift rate (mm/yr, positive up)", overwrite, inputs, outline=outline,
+        rate * 1e3, path, f"{title}\n{legend}" + ("; black: ice margin" if has_outline else ""),
+        "uplift rate (mm/yr, positive up)", overwrite, inputs,
+        outline=outline if has_outline else None,
     )
 
 
