@@ -275,10 +275,11 @@ def ice_response(
 
     zero = np.zeros((ny, nx))
     if edges == "infinite":
-        # largest ice load, plus the sea-level change over what is ocean at some time
+        # largest change of the ice load, plus the sea-level change over what is ocean
         change = float(np.abs(levels - ref_level).max())
         ocean = bed0 < levels.max()
-        warn_edge_load(g * (rho_i * thickness.max(axis=0) + rho_w * change * ocean))
+        ice_change = np.abs(thickness - ref_ice).max(axis=0)
+        warn_edge_load(g * (rho_i * ice_change + rho_w * change * ocean))
     stepper = ResponseStepper(
         first, plate, model, mantle_viscosity, relaxation_time,
         load=load_at(0, zero), initial="rest", interpolation=interpolation, edges=edges,

@@ -145,3 +145,13 @@ def test_equilibrium_start_on_land_is_the_elastic_solution():
     expected = solve(cap * (RHO_I * G), plate, edges="periodic").deflection.values
     assert_allclose(out.deflection.values[0], expected, rtol=0, atol=1e-9 * expected.max())
     assert np.abs(out.uplift_rate.values[0]).max() < 1e-9  # nothing moves yet
+
+
+def test_reference_ice_that_stays_puts_no_load():
+    # Deflection is relative to the reference state (PHYSICS.md 7.1): ice equal to the
+    # reference ice, even where it reaches the grid edge, changes nothing and warns of nothing.
+    grid = empty_grid(16, 16, 50e3)
+    sheet = grid + 1000.0
+    out = ice_response(_series(sheet, [0.0, 500.0]), grid + 500.0,
+                       Plate(te=20e3, infill_density=0.0), reference_ice_thickness=sheet)
+    assert_allclose(out.deflection.values, 0.0, atol=1e-12)
