@@ -272,3 +272,21 @@ def test_response_is_linear_in_the_load(a, b):
     both = viscous_response(history * a + other * b, plate, edges="periodic").deflection.values
     scale = max(abs(a), abs(b), 1.0) * np.abs(w1).max()
     assert_allclose(both, a * w1 + b * w2, rtol=0, atol=1e-11 * scale)
+
+
+def test_quadrature_tends_to_the_kelvin_closed_form():
+    # At t -> infinity (7.6) is the elastic disc solution, closed form with Kelvin functions
+    # (Brotchie & Silvester 1969; PHYSICS.md 4.6): an independent check of the quadrature.
+    q0, rho_g = RHO_I * G * H0, RHO_M * G
+    ell = (D / rho_g) ** 0.25
+    s = R0 / ell
+    r = np.array([0.0, 0.5 * R0, 1.5 * R0, 2.0 * R0])
+    t = r / ell
+    inside = q0 / rho_g * (1 + s * (special.kerp(s) * special.ber(t)
+                                    - special.keip(s) * special.bei(t)))
+    outside = q0 / rho_g * s * (special.berp(s) * special.ker(t)
+                                - special.beip(s) * special.kei(t))
+    kelvin = np.where(r <= R0, inside, outside)
+    # quadrature tolerance 1e-10 of the largest value, cut off at k = 4e-4: 1e-8 of Airy
+    assert_allclose(exact_disc(r, np.array([1e9]))[:, 0], kelvin, rtol=0,
+                    atol=1e-8 * q0 / rho_g)
