@@ -71,7 +71,7 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
         "initial": Key("choice", "state at the first time", "rest",
                        choices=("rest", "equilibrium")),
     },
-    "grid": SCHEMA["grid"],
+    "grid": {key: SCHEMA["grid"][key] for key in ("columns", "rows", "spacing")},
     "ice": {
         "file": Key("path", "NetCDF file with the ice thickness (time, y, x)", None),
         "variable": Key("string", "ice-thickness variable in the file (m)", None),
