@@ -70,6 +70,8 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
                              choices=("linear", "previous")),
         "initial": Key("choice", "state at the first time", "rest",
                        choices=("rest", "equilibrium")),
+        "max_step": Key("quantity", "longest time step; longer intervals are split", None,
+                        "time", minimum=0.0),
     },
     "grid": {key: SCHEMA["grid"][key] for key in ("columns", "rows", "spacing")},
     "ice": {
@@ -255,7 +257,8 @@ def run_history_scenario(
         ice_density=scenario.table("ice")["density"], water_density=sea["water_density"],
         initial=solver["initial"], interpolation=solver["interpolation"],
         edges=solver["edges"], pad_factor=solver["pad_factor"],
-        width_factor=solver["pad_width_factor"], progress=progress,
+        width_factor=solver["pad_width_factor"], max_step=solver["max_step"],
+        progress=progress,
     )
     result["ice_thickness"] = (("time", "y", "x"), thickness.values,
                                {"units": "m", "long_name": "ice thickness"})
