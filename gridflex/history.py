@@ -12,6 +12,8 @@ Restoring density. The restoring pressure is (rho_m − rho_infill) g w, exactly
 gives for the same plate. For ice that sits in air use ``infill_density=0`` (the
 mantle density alone restores, as in Le Meur & Huybrechts 1996 and Bueler et al.
 2007); for a load whose moat fills with water instantly, use the water density.
+A non-zero infill density raises a GridflexWarning, since the Plate default (sea
+water) would silently make ice loads sink too deep.
 :func:`gridflex.glacial.ice_response` adds the ocean water over depressed bedrock
 explicitly and therefore requires ``infill_density=0``.
 """
@@ -20,13 +22,14 @@ from __future__ import annotations
 
 import logging
 import math
+import warnings
 from collections.abc import Callable
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
-from .errors import InputError
+from .errors import GridflexWarning, InputError
 from .grid import GridSpec, check_grid, check_same_grid
 from .memory import check_memory
 from .plate import Plate
@@ -133,7 +136,9 @@ class ResponseStepper:
         Any field on the working grid (dims ``("y", "x")``, metres); only its
         coordinates are used.
     plate : Plate
-        Constant te; the restoring pressure is (rho_m − rho_infill) g w.
+        Constant te; the restoring pressure is (rho_m − rho_infill) g w. A non-zero
+        infill density raises a :class:`gridflex.GridflexWarning` (the Plate default,
+        sea water, is wrong for ice sitting in air: use ``infill_density=0``).
     model : {"half-space", "relaxing"}, default "half-space"
         ``"half-space"``: elastic plate over a viscous half-space of viscosity
         *mantle_viscosity* (Bueler, Lingle & Brown 2007). ``"relaxing"``: elastic
@@ -191,6 +196,15 @@ class ResponseStepper:
         width_factor: float = DEFAULT_WIDTH_FACTOR,
     ) -> None:
         rigidity = _constant_rigidity(plate)
+        if plate.infill_density > 0:
+            warnings.warn(
+                f"the plate's infill_density is {plate.infill_density:g} kg/m^3, so the "
+                f"restoring pressure is ({plate.mantle_density:g} - {plate.infill_density:g}) "
+                "g w: right for a load whose moat fills with water at once; for ice or any "
+                "load in air use Plate(..., infill_density=0)",
+                GridflexWarning,
+                stacklevel=2,
+            )
         self._spec: GridSpec = check_grid(grid, "grid")
         self._grid = grid
         self.plate = plate
