@@ -30,11 +30,14 @@ from .grid import check_same_grid
 from .history import Progress
 from .io.atomic import check_output_path
 from .io.history import DEFAULT_TIME_REFERENCE, cf_time_axis, read_history, read_series
-from .io.netcdf import read_grid, write_netcdf
+from .io.netcdf import write_netcdf
+from .io.rasters import read_raster
+from .layers import _apply_missing_policy
 from .plots import plot_point_series, plot_uplift_rate_map
 from .runner import RunOutcome, plate_from_scenario
 from .scenario import REQUIRED, SCHEMA, Key, Scenario, load_scenario, parse_tables
 from .synthetic import disc_height, empty_grid
+from .units import unit_factor
 
 __all__ = [
     "HISTORY_SCHEMA",
@@ -88,6 +91,8 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
         "times": Key("list", "times of the synthetic history (years)", None),
         "thickness_factors": Key("list", "share of the full thickness at each time", None),
         "density": Key("quantity", "ice density", 910.0, "density", minimum=0.0),
+        "missing": Key("choice", "what nodata/NaN cells of the file mean: no ice (with a "
+                       "warning) or an error", "zero", choices=("zero", "error")),
     },
     "bed": {
         "file": Key("path", "NetCDF grid with the bed elevation of the reference state", None),
@@ -175,7 +180,9 @@ def _check_history(scenario: Scenario) -> None:
 def _ice_history(scenario: Scenario, reference: str) -> xr.DataArray:
     ice = scenario.table("ice")
     if ice["file"] is not None:
-        return read_history(ice["file"], ice["variable"], reference)
+        history = read_history(ice["file"], ice["variable"], reference)
+        where = scenario.where("ice", "file")
+        return _apply_missing_policy(history, ice["missing"], where)
     g = scenario.table("grid")
     grid = empty_grid(g["rows"], g["columns"], g["spacing"])
     disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
@@ -190,7 +197,15 @@ def _bed(scenario: Scenario, like: xr.DataArray) -> xr.DataArray:
     bed = scenario.table("bed")
     if bed["file"] is None:
         return xr.full_like(like, bed["elevation"], dtype=np.float64)
-    grid = read_grid(bed["file"], bed["variable"], "length")
+    where = scenario.where("bed", "file")
+    grid = read_raster(bed["file"], bed["variable"])
+    if "degree" in str(grid["x"].attrs.get("units", "")):
+        raise InputError(f"{where}: the bed grid is in degrees; it must be on the ice "
+                         "history's projected grid (metres)")
+    units = str(grid.attrs.get("units", "m")).strip() or "m"
+    grid = grid * unit_factor(units, "length", f"{where}: bed elevation")
+    if not np.all(np.isfinite(grid.values)):
+        raise InputError(f"{where}: the bed elevation has missing (nodata) cells; fill them")
     try:
         check_same_grid(grid, like, "bed")
     except InputError as exc:

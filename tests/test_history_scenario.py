@@ -10,9 +10,10 @@ import pytest
 import xarray as xr
 from numpy.testing import assert_allclose
 
-from gridflex import Plate, ice_response
+from gridflex import InputError, Plate, ice_response
 from gridflex.cli.main import main
-from gridflex.history_scenario import load_history_scenario
+from gridflex.errors import NodataWarning
+from gridflex.history_scenario import load_history_scenario, run_history_scenario
 from gridflex.io.history import read_history, years_from_cf
 from gridflex.synthetic import disc_height, empty_grid
 
@@ -101,8 +102,10 @@ def test_history_from_files_with_cf_days(tmp_path):
     grid = empty_grid(32, 32, 50e3)
     disc = disc_height(grid, 300e3, 1500.0)
     days = np.array([0.0, 2000.0, 6000.0]) * 365.25
+    stack = np.stack([disc.values] * 3)
+    stack[:, 0, 0] = np.nan  # ice-free cells marked missing, as ice models often write
     ice = xr.Dataset(
-        {"thk": (("time", "y", "x"), np.stack([disc.values] * 3), {"units": "m"})},
+        {"thk": (("time", "y", "x"), stack, {"units": "m"})},
         coords={"time": ("time", days, {"units": "days since 1950-01-01", "calendar": "julian"}),
                 "y": ("y", grid.y.values / 1e3, {"units": "km"}),
                 "x": ("x", grid.x.values / 1e3, {"units": "km"})},
@@ -121,6 +124,8 @@ elastic_thickness = "50 km"
 [mantle]
 model = "relaxing"
 relaxation_time = "3 kyr"
+[solver]
+edges = "periodic"      # the sea-level rise loads an ocean that fills the grid
 [ice]
 file = "{tmp_path / 'ice_in.nc'}"
 variable = "thk"
@@ -133,11 +138,18 @@ level = "5 m"
 file = "res.nc"
 """
     path = _write(tmp_path, text)
-    assert main(["history", str(path), "-q"]) == 0
+    with pytest.warns(NodataWarning, match="3 nodata or NaN cell"):
+        outcome = run_history_scenario(load_history_scenario(path))
+    assert outcome.written == [tmp_path / "res.nc"]
     with xr.open_dataset(tmp_path / "res.nc", decode_times=False) as out:
         assert_allclose(out.sea_level.values, 5.0)
         assert out.attrs["time_model"] == "relaxing"
         assert out.deflection.values[-1].max() > 0
+        assert out.ice_thickness.values[0, 0, 0] == 0.0
+    strict_text = text.replace('variable = "thk"', 'variable = "thk"\nmissing = "error"')
+    strict = _write(tmp_path, strict_text, "strict.toml")
+    with pytest.raises(InputError, match="3 nodata or NaN cell"):
+        run_history_scenario(load_history_scenario(strict), overwrite=True)
 
 
 def test_years_from_plain_units():
@@ -162,8 +174,6 @@ def test_years_from_plain_units():
     ],
 )
 def test_bad_history_scenarios_name_table_and_key(tmp_path, edit, match):
-    from gridflex import InputError
-
     with pytest.raises(InputError, match=match):
         load_history_scenario(_write(tmp_path, edit(SYNTHETIC)))
 

@@ -15,8 +15,8 @@ import numpy as np
 import xarray as xr
 
 from ..errors import InputError
-from ..units import DIMENSIONS
-from .netcdf import _coordinate_metres
+from ..geo import GridGeometry
+from ..units import DIMENSIONS, unit_factor
 
 __all__ = [
     "DAYS_PER_YEAR",
@@ -74,6 +74,21 @@ def years_from_cf(
     return np.asarray(days, dtype=np.float64) / DAYS_PER_YEAR
 
 
+def _metric_axis(da: xr.DataArray, dim: str, where: str) -> np.ndarray:
+    """A 1-D projected coordinate in metres (m or km in the file; degrees refused)."""
+    if dim not in da.coords:
+        raise InputError(f"{where}: dimension {dim!r} has no coordinate values")
+    coord = da[dim]
+    units = str(coord.attrs.get("units", "m")).strip() or "m"
+    if units.lower().startswith("degree"):
+        raise InputError(
+            f"{where}: coordinate {dim!r} is in {units!r}; an ice history must be on a "
+            "projected grid in metres (project it first)"
+        )
+    values = np.asarray(coord.values, dtype=np.float64)
+    return values * unit_factor(units, "length", f"{where}: coordinate {dim!r}")
+
+
 def _open(path: Path, variable: str) -> tuple[xr.DataArray, xr.Dataset]:
     if not path.is_file():
         raise InputError(f"{path}: file not found")
@@ -122,8 +137,12 @@ def read_history(
             raise InputError(f"{where}: expected (time, y, x), got dims {da.dims!r}")
         times = _time_years(da, ds, reference, where)
         ydim, xdim = (str(d) for d in da.dims[1:])
-        y = _coordinate_metres(da, ydim, where)
-        x = _coordinate_metres(da, xdim, where)
+        y = _metric_axis(da, ydim, where)
+        x = _metric_axis(da, xdim, where)
+    try:  # exactly even cell centres, also for coordinates stored in float32
+        y, x = GridGeometry.from_coords(y, x, None).coords()
+    except InputError as exc:
+        raise InputError(f"{where}: {exc}") from exc
     out = xr.DataArray(np.asarray(da.values, dtype=np.float64), dims=("time", "y", "x"),
                        coords={"time": times, "y": y, "x": x}, name=variable)
     out.attrs = {k: v for k, v in da.attrs.items() if k not in ("_FillValue",)}
