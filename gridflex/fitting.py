@@ -1,0 +1,458 @@
+"""Elastic thickness from an observed grid by forward-model misfit.
+
+For each trial Te the plate's response to the known load is computed, turned into
+the observed quantity (deflection, elevation of the flexed surface or free-air
+anomaly) and compared with the observation inside a mask after removing the
+best constant offset (a nuisance parameter solved by least squares inside each
+Te). The residual sum of squares RSS(Te) is evaluated on a log-spaced coarse grid
+and refined by Brent's method; the interval is the profile-likelihood bound
+
+.. math:: \\frac{RSS(T_e) - RSS_{min}}{s^2} \\, \\frac{n_{eff}}{n} = \\chi^2_1(c),
+          \\qquad s^2 = \\frac{RSS_{min}}{n - p}
+
+(PHYSICS.md section 8.1; p = 2 for Te and the offset). All trial plates share
+one FFT grid — padded for the stiffest plate of the search — and one load
+spectrum, so each trial costs one transfer function and one inverse FFT.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import warnings
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import scipy.fft
+import scipy.optimize
+import scipy.stats
+import xarray as xr
+
+from .errors import GridflexWarning, InputError
+from .grid import GridSpec, check_grid, check_same_grid
+from .gravity_response import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, compensation_factor
+from .plate import Plate, rigidity_from_te
+from .solve import EDGES, deflection_attrs, result_dataset
+from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
+
+__all__ = ["QUANTITIES", "OpenIntervalWarning", "TeFit", "fit_te"]
+
+log = logging.getLogger(__name__)
+
+QUANTITIES = ("deflection", "surface", "free_air_anomaly")
+"""Accepted values of ``fit_te(quantity=...)``."""
+
+_UNITS = {"deflection": "m", "surface": "m", "free_air_anomaly": "mGal"}
+_LONG_NAMES = {
+    "deflection": "plate deflection (positive downward)",
+    "surface": "elevation of the flexed surface (positive upward)",
+    "free_air_anomaly": "free-air gravity anomaly",
+}
+_NUISANCE = 1  # the constant offset
+_REFINE_XTOL = 1e-5  # in ln(Te): 0.001 % of Te
+_ROOT_XTOL = 1e-6
+
+Progress = Callable[..., Any]
+
+
+class OpenIntervalWarning(GridflexWarning):
+    """The Te interval reaches a search bound: the data do not limit Te on that side."""
+
+
+@dataclass(frozen=True)
+class TeFit:
+    """Result of :func:`fit_te`.
+
+    Attributes
+    ----------
+    te : float
+        Best-fitting elastic thickness (m).
+    te_low, te_high : float
+        Bounds (m) of the *confidence* interval where the scaled misfit increase
+        reaches the chi-squared (1 degree of freedom) quantile; a search bound
+        when the interval is open on that side (see *interval_closed*).
+    interval_closed : tuple of bool
+        Whether the low and the high bound were reached inside the search range.
+    offset : float
+        Fitted constant added to the model (unit of the observation).
+    rms : float
+        RMS misfit at the best Te (unit of the observation).
+    quantity : str
+        What was fitted, one of :data:`QUANTITIES`.
+    confidence : float
+        Confidence level of the interval.
+    threshold : float
+        RSS increase that bounds the interval (unit of the observation squared).
+    n_data : int
+        Number of compared cells.
+    n_effective : float
+        Number of independent data assumed (n divided by the residual correlation
+        factor; equal to n_data for independent noise).
+    misfit : xarray.DataArray
+        RMS misfit against ``te`` (m) for every Te evaluated, sorted; coordinate
+        ``scaled_increase`` holds (RSS - RSS_min) n_eff / (n s²).
+    model : xarray.Dataset
+        The best model: ``deflection``, ``load``, ``observed``, ``predicted``
+        (model plus offset), ``residual`` (NaN outside the mask) and ``mask``.
+    """
+
+    te: float
+    te_low: float
+    te_high: float
+    interval_closed: tuple[bool, bool]
+    offset: float
+    rms: float
+    quantity: str
+    confidence: float
+    threshold: float
+    n_data: int
+    n_effective: float
+    misfit: xr.DataArray = field(repr=False)
+    model: xr.Dataset = field(repr=False)
+
+    def summary(self) -> dict[str, Any]:
+        """JSON-ready summary (SI units; the offset and RMS in the observation's unit)."""
+        return {
+            "quantity": self.quantity,
+            "unit": _UNITS[self.quantity],
+            "te": self.te,
+            "te_low": self.te_low,
+            "te_high": self.te_high,
+            "interval_closed": list(self.interval_closed),
+            "confidence": self.confidence,
+            "offset": self.offset,
+            "rms_misfit": self.rms,
+            "rss_threshold": self.threshold,
+            "n_data": self.n_data,
+            "n_effective": self.n_effective,
+            "misfit_curve": {
+                "te": [float(v) for v in self.misfit["te"].values],
+                "rms_misfit": [float(v) for v in self.misfit.values],
+            },
+        }
+
+
+class _Forward:
+    """Model of the observed quantity for any Te, on one shared FFT grid."""
+
+    def __init__(
+        self,
+        load: np.ndarray,
+        spec: GridSpec,
+        plate: Plate,
+        te_max: float,
+        quantity: str,
+        layers: CrustLayers | None,
+        periodic: bool,
+        pad_factor: float,
+    ) -> None:
+        self.plate = plate
+        self.quantity = quantity
+        self.layers = layers
+        stiffness = plate.restoring_stiffness
+        stiffest = rigidity_from_te(te_max, plate.youngs_modulus, plate.poisson_ratio)
+        self.problem = SpectralProblem.build(
+            spec, stiffest, stiffness, periodic=periodic, pad_factor=pad_factor
+        )
+        self.spectrum = self.problem.load_spectrum(load)
+        self.spectrum.flags.writeable = False
+        self.wavenumber = self.problem.wavenumber() if quantity == "free_air_anomaly" else None
+        self.evaluations = 0
+
+    def _problem(self, te: float) -> SpectralProblem:
+        p = self.plate
+        return self.problem.with_rigidity(rigidity_from_te(te, p.youngs_modulus, p.poisson_ratio))
+
+    def deflection(self, te: float) -> np.ndarray:
+        problem = self._problem(te)
+        return problem.crop(problem.inverse(self.spectrum * problem.transfer()))
+
+    def model(self, te: float) -> np.ndarray:
+        """The observed quantity predicted for *te*, without offset."""
+        self.evaluations += 1
+        if self.quantity == "deflection":
+            return self.deflection(te)
+        if self.quantity == "surface":
+            return -self.deflection(te)
+        problem = self._problem(te)
+        assert self.layers is not None and self.wavenumber is not None
+        response = problem.transfer() * problem.stiffness
+        factor = compensation_factor(self.wavenumber, response, self.layers, self.plate)
+        factor *= 2.0 * math.pi * GRAVITATIONAL_CONSTANT / (self.plate.gravity * MGAL)
+        return problem.crop(problem.inverse(self.spectrum * factor))
+
+
+def _check_bounds(bounds: Any) -> tuple[float, float]:
+    try:
+        low, high = (float(b) for b in bounds)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"bounds must be two numbers (m), got {bounds!r}") from exc
+    if not (math.isfinite(low) and math.isfinite(high) and 0.0 < low < high):
+        raise InputError(f"bounds must satisfy 0 < low < high (m, finite), got {bounds!r}")
+    return low, high
+
+
+def _check_mask(mask: Any, observed: xr.DataArray, load: xr.DataArray) -> np.ndarray:
+    valid = np.isfinite(np.asarray(observed.values, dtype=np.float64))
+    if mask is None:
+        return valid
+    check_same_grid(mask, load, "mask")
+    values = np.asarray(mask.values)
+    if values.dtype != bool:
+        if not np.all(np.isin(values, (0, 1))):
+            raise InputError("mask must be boolean (True where the data are compared)")
+        values = values.astype(bool)
+    return values & valid
+
+
+def _correlation_factor(residual: np.ndarray, inside: np.ndarray, spec: GridSpec) -> float:
+    """Sum of the residual autocorrelation over the lags of its first correlation ring.
+
+    This is the number of data per independent datum, n / n_eff, for residuals
+    correlated over an area (common practice: the correlation area taken as the
+    region where the radially averaged autocorrelation is still positive).
+    """
+    r = np.where(inside, residual - residual[inside].mean(), 0.0)
+    m = inside.astype(np.float64)
+    shape = tuple(scipy.fft.next_fast_len(2 * n, real=True) for n in r.shape)
+    power = scipy.fft.rfft2(r, s=shape, workers=-1)
+    pairs = scipy.fft.rfft2(m, s=shape, workers=-1)
+    auto = scipy.fft.irfft2(power * power.conj(), s=shape, workers=-1)
+    count = scipy.fft.irfft2(pairs * pairs.conj(), s=shape, workers=-1)
+    n = float(inside.sum())
+    usable = count > 0.25 * n
+    rho = np.zeros(shape)
+    rho[usable] = auto[usable] / count[usable]
+    rho /= rho[0, 0]
+    ly = np.minimum(np.arange(shape[0]), shape[0] - np.arange(shape[0]))[:, None] * spec.dy
+    lx = np.minimum(np.arange(shape[1]), shape[1] - np.arange(shape[1]))[None, :] * spec.dx
+    dist = np.hypot(ly, lx)
+    ring = np.rint(dist / max(spec.dx, spec.dy)).astype(np.int64)
+    sums = np.bincount(ring[usable], weights=rho[usable])
+    counts = np.bincount(ring[usable])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = sums / counts
+    nonpositive = np.nonzero((counts > 0) & (mean <= 0.0))[0]
+    stop = int(nonpositive[0]) if nonpositive.size else len(mean)
+    factor = float(sums[:stop].sum())
+    return min(max(factor, 1.0), n / (_NUISANCE + 2))
+
+
+def fit_te(
+    observed: xr.DataArray,
+    load: xr.DataArray,
+    plate: Plate,
+    quantity: str = "deflection",
+    mask: xr.DataArray | None = None,
+    bounds: tuple[float, float] = (1e3, 1e5),
+    *,
+    confidence: float = 0.95,
+    samples: int = 25,
+    correlated_residuals: bool = True,
+    gravity: CrustLayers | Mapping[str, float] | None = None,
+    edges: str = "infinite",
+    pad_factor: float = DEFAULT_PAD_FACTOR,
+    progress: Progress | None = None,
+) -> TeFit:
+    """Elastic thickness that best explains an observed grid, with an interval.
+
+    Parameters
+    ----------
+    observed : xarray.DataArray
+        Observation on the load grid: deflection w (m, positive down), elevation
+        of the flexed surface (m, positive up; e.g. a flexed horizon or moat
+        bathymetry with the load's own relief masked out) or free-air anomaly
+        (mGal). NaN cells are ignored.
+    load : xarray.DataArray
+        Vertical stress q (Pa, positive down), dims ``("y", "x")``.
+    plate : Plate
+        Moduli and densities; its te is ignored (it is what is searched for).
+    quantity : {"deflection", "surface", "free_air_anomaly"}, default "deflection"
+        What *observed* is. The models are w + c, -w + c and the first-order
+        free-air anomaly of the load and the flexed crust and Moho (see
+        :mod:`gridflex.gravity_response`) + c, with a fitted constant c.
+    mask : xarray.DataArray of bool, optional
+        True where the data are compared (default: everywhere *observed* is finite).
+    bounds : tuple of float, default (1e3, 1e5)
+        Search range of Te (m), 0 < low < high.
+    confidence : float, default 0.95
+        Confidence level of the interval.
+    samples : int, default 25
+        Number of log-spaced Te of the coarse search (>= 5).
+    correlated_residuals : bool, default True
+        Estimate n_eff from the autocorrelation of the best residuals (widens the
+        interval when they are correlated in space); False assumes independent data.
+    gravity : CrustLayers or mapping, optional
+        Interface depths and crustal density; required for ``free_air_anomaly``.
+    edges : {"infinite", "periodic"}, default "infinite"
+        As in :func:`gridflex.solve`; "infinite" pads for the largest Te of *bounds*.
+    pad_factor : float, default 4.5
+        Padding on each side in flexural parameters of the stiffest trial plate.
+    progress : callable, optional
+        Called as ``progress(done, total)`` during the coarse search.
+
+    Returns
+    -------
+    TeFit
+        ``te``, ``te_low``, ``te_high`` (m), the misfit curve and the best model.
+
+    Raises
+    ------
+    InputError
+        Bad grids, mask, bounds, quantity or gravity parameters, or too few data.
+
+    Warns
+    -----
+    OpenIntervalWarning
+        When the interval reaches a search bound.
+    """
+    if not isinstance(plate, Plate):
+        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
+    if plate.is_variable:
+        raise InputError("fit_te needs a plate of constant te; got a te grid")
+    if quantity not in QUANTITIES:
+        raise InputError(
+            f"quantity must be one of {', '.join(map(repr, QUANTITIES))}; got {quantity!r}"
+        )
+    if edges not in EDGES:
+        raise InputError(f"edges must be one of {', '.join(map(repr, EDGES))}; got {edges!r}")
+    if not 0.0 < float(confidence) < 1.0:
+        raise InputError(f"confidence must lie in (0, 1), got {confidence!r}")
+    if int(samples) != samples or samples < 5:
+        raise InputError(f"samples must be an integer >= 5, got {samples!r}")
+    low, high = _check_bounds(bounds)
+    spec = check_grid(load)
+    if not isinstance(observed, xr.DataArray):
+        raise InputError(f"observed must be an xarray.DataArray, got {type(observed).__name__}")
+    check_same_grid(observed, load, "observed")
+    inside = _check_mask(mask, observed, load)
+    n = int(inside.sum())
+    if n < _NUISANCE + 3:
+        raise InputError(f"only {n} cells are compared (mask and finite observed); need >= 4")
+    layers = None
+    if quantity == "free_air_anomaly":
+        if gravity is None:
+            raise InputError(
+                "quantity 'free_air_anomaly' needs gravity=CrustLayers(seafloor_depth=...) "
+                "or a mapping with key 'seafloor_depth' (m)"
+            )
+        layers = gravity if isinstance(gravity, CrustLayers) else CrustLayers(**dict(gravity))
+        layers.check_plate(plate)
+
+    forward = _Forward(
+        np.asarray(load.values, dtype=np.float64), spec, plate, high, quantity, layers,
+        edges == "periodic", pad_factor,
+    )
+    data = np.asarray(observed.values, dtype=np.float64)[inside]
+    rss_cache: dict[float, float] = {}
+
+    def rss(log_te: float) -> float:
+        te = float(math.exp(log_te))
+        if te not in rss_cache:
+            r = data - forward.model(te)[inside]
+            r -= r.mean()
+            rss_cache[te] = float(r @ r)
+        return rss_cache[te]
+
+    grid = np.linspace(math.log(low), math.log(high), int(samples))
+    coarse = []
+    for i, x in enumerate(grid):
+        coarse.append(rss(float(x)))
+        if progress is not None:
+            progress(i + 1, len(grid))
+    best_i = int(np.argmin(coarse))
+    a, b = grid[max(best_i - 1, 0)], grid[min(best_i + 1, len(grid) - 1)]
+    opt = scipy.optimize.minimize_scalar(
+        rss, bounds=(a, b), method="bounded", options={"xatol": _REFINE_XTOL}
+    )
+    best_x = float(opt.x) if opt.fun <= coarse[best_i] else float(grid[best_i])
+    rss_min = rss(best_x)
+    te_best = math.exp(best_x)
+
+    model = forward.model(te_best)
+    residual = data - model[inside]
+    offset = float(residual.mean())
+    factor = 1.0
+    if correlated_residuals:
+        full_residual = np.where(inside, np.asarray(observed.values, dtype=np.float64) - model, 0.0)
+        factor = _correlation_factor(full_residual, inside, spec)
+    s2 = rss_min / (n - _NUISANCE - 1)
+    threshold = float(scipy.stats.chi2.ppf(confidence, 1)) * s2 * factor
+
+    def excess(x: float) -> float:
+        return rss(x) - rss_min - threshold
+
+    bounds_out = []
+    closed = []
+    for side in (-1, 1):
+        idx = range(best_i - 1, -1, -1) if side < 0 else range(best_i + 1, len(grid))
+        outer = next((float(grid[j]) for j in idx if excess(float(grid[j])) > 0), None)
+        if outer is None:
+            edge = float(grid[0] if side < 0 else grid[-1])
+            bounds_out.append(math.exp(edge))
+            closed.append(False)
+            continue
+        root = scipy.optimize.brentq(excess, min(best_x, outer), max(best_x, outer), xtol=_ROOT_XTOL)
+        bounds_out.append(math.exp(root))
+        closed.append(True)
+    if not all(closed):
+        sides = [name for name, ok in zip(("lower", "upper"), closed) if not ok]
+        warnings.warn(
+            f"the {confidence:.0%} interval of te reaches the {' and '.join(sides)} search "
+            f"bound {bounds!r} m: the data do not constrain te there; widen bounds or "
+            "report the interval as open",
+            OpenIntervalWarning,
+            stacklevel=2,
+        )
+    log.info(
+        "fit_te: te = %.4g m, interval [%.4g, %.4g] m, %d forward models",
+        te_best, bounds_out[0], bounds_out[1], forward.evaluations,
+    )
+
+    tes = np.array(sorted(rss_cache))
+    rss_values = np.array([rss_cache[t] for t in tes])
+    misfit = xr.DataArray(
+        np.sqrt(rss_values / n), dims=("te",),
+        coords={
+            "te": ("te", tes, {"units": "m", "long_name": "elastic thickness"}),
+            "scaled_increase": ("te", (rss_values - rss_min) / (s2 * factor)),
+        },
+        name="rms_misfit",
+        attrs={"units": _UNITS[quantity], "long_name": f"RMS misfit of {quantity}"},
+    )
+    best_plate = plate.with_te(te_best)
+    attrs: dict[str, Any] = {
+        "solver": "spectral",
+        "edges": edges,
+        "padded_shape": np.array(forward.problem.shape, dtype=np.int64),
+        "fit_quantity": quantity,
+        "fit_offset": offset,
+        "fit_rms_misfit": math.sqrt(rss_min / n),
+        "fit_te_low": bounds_out[0],
+        "fit_te_high": bounds_out[1],
+        "fit_confidence": float(confidence),
+    }
+    if layers is not None:
+        attrs.update({f"gravity_{k}": v for k, v in layers.describe().items()})
+    ds = result_dataset(load, forward.deflection(te_best), best_plate, attrs)
+    unit_attrs = {"units": _UNITS[quantity]}
+    predicted = model + offset
+    ds["observed"] = (("y", "x"), np.asarray(observed.values, dtype=np.float64),
+                      {**unit_attrs, "long_name": f"observed {_LONG_NAMES[quantity]}"})
+    ds["predicted"] = (("y", "x"), predicted,
+                       {**unit_attrs, "long_name": f"best model {_LONG_NAMES[quantity]}"})
+    ds["residual"] = (("y", "x"), np.where(inside, ds["observed"].values - predicted, np.nan),
+                      {**unit_attrs, "long_name": "observed minus predicted"})
+    ds["mask"] = (("y", "x"), inside, {"long_name": "cells compared in the fit"})
+    if quantity == "free_air_anomaly":
+        ds["free_air_anomaly"] = (("y", "x"), model, {"units": "mGal",
+                                  "long_name": "free-air anomaly of the best model (no offset)"})
+    ds["deflection"].attrs = deflection_attrs()
+    return TeFit(
+        te=te_best, te_low=bounds_out[0], te_high=bounds_out[1],
+        interval_closed=(closed[0], closed[1]), offset=offset, rms=math.sqrt(rss_min / n),
+        quantity=quantity, confidence=float(confidence), threshold=threshold, n_data=n,
+        n_effective=n / factor, misfit=misfit, model=ds,
+    )
