@@ -17,6 +17,8 @@ from .errors import (
 from .loads import pressure_from_height, pressure_from_layers
 from .plate import Plate, rigidity_from_te, te_from_rigidity
 from .solve import solve
+from .fitting import TeFit, fit_te
+from .sweep import sweep
 
 logging.getLogger(__name__).addHandler(logging.NullHandler())
 
@@ -31,6 +33,10 @@ __all__ = [
     "pressure_from_layers",
     # solving
     "solve",
+    # estimating te, sweeping parameters
+    "fit_te",
+    "TeFit",
+    "sweep",
     # errors and warnings
     "GridflexError",
     "InputError",

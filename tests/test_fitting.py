@@ -212,3 +212,18 @@ def test_compensation_factor_limits():
         compensation_factor(k, response, CrustLayers(4000.0, crust_density=3400.0), plate)
     with pytest.raises(InputError, match="seafloor_depth"):
         CrustLayers(seafloor_depth=0.0)
+
+
+def test_misfit_plot_written(synthetic, tmp_path):
+    from matplotlib.image import imread
+
+    from gridflex.fitplots import plot_misfit
+
+    load, plate, w, noise, _ = synthetic
+    fit = fit_te(w + noise, load, plate, samples=8)
+    path = tmp_path / "misfit.png"
+    fig = plot_misfit(fit, path=path)
+    image = imread(path)
+    assert image.ndim == 3 and image.shape[0] > 100  # a real raster was written and read back
+    line = fig.axes[0].lines[0]
+    assert_allclose(line.get_xdata(), fit.misfit["te"].values / 1e3)
