@@ -433,7 +433,7 @@ def fit_te_spectral(
 
     def ss(te: float, f: float) -> float:
         r = observed - model(te, f)
-        return float(r @ r)
+        return float(np.einsum("i,i", r, r))
 
     ratios: dict[float, float] = {}
 
