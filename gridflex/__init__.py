@@ -14,10 +14,10 @@ from .errors import (
     GridflexWarning,
     InputError,
 )
+from .fitting import TeFit, fit_te
 from .loads import pressure_from_height, pressure_from_layers
 from .plate import Plate, rigidity_from_te, te_from_rigidity
 from .solve import solve
-from .fitting import TeFit, fit_te
 from .sweep import sweep
 
 logging.getLogger(__name__).addHandler(logging.NullHandler())

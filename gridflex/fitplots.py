@@ -50,10 +50,18 @@ def plot_misfit(fit: TeFit, ax: Any = None, path: str | Path | None = None) -> A
     fig, ax = _figure(ax)
     te_km = fit.misfit["te"].values / 1e3
     ax.plot(te_km, fit.misfit.values, "o-", ms=3, color="0.2", label="RMS misfit")
-    ax.axvspan(fit.te_low / 1e3, fit.te_high / 1e3, color="tab:blue", alpha=0.2,
-               label=f"{fit.confidence:.0%} interval")
-    ax.axvline(fit.te / 1e3, color="tab:blue",
-               label=f"Te = {fit.te / 1e3:.2f} km [{fit.te_low / 1e3:.2f}, {fit.te_high / 1e3:.2f}]")
+    ax.axvspan(
+        fit.te_low / 1e3,
+        fit.te_high / 1e3,
+        color="tab:blue",
+        alpha=0.2,
+        label=f"{fit.confidence:.0%} interval",
+    )
+    ax.axvline(
+        fit.te / 1e3,
+        color="tab:blue",
+        label=f"Te = {fit.te / 1e3:.2f} km [{fit.te_low / 1e3:.2f}, {fit.te_high / 1e3:.2f}]",
+    )
     ax.set_xscale("log")
     ax.set_xlabel("elastic thickness Te (km)")
     unit = fit.misfit.attrs.get("units", "")

@@ -31,8 +31,8 @@ import scipy.stats
 import xarray as xr
 
 from .errors import GridflexWarning, InputError
-from .grid import GridSpec, check_grid, check_same_grid, padded_shape
 from .gravity_response import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, compensation_factor
+from .grid import GridSpec, check_grid, check_same_grid, padded_shape
 from .plate import Plate, rigidity_from_te
 from .solve import EDGES, deflection_attrs, result_dataset
 from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem, decay_length
@@ -367,8 +367,14 @@ def fit_te(
         layers.check_plate(plate)
 
     forward = _Forward(
-        np.asarray(load.values, dtype=np.float64), spec, plate, high, quantity, layers,
-        edges == "periodic", pad_factor,
+        np.asarray(load.values, dtype=np.float64),
+        spec,
+        plate,
+        high,
+        quantity,
+        layers,
+        edges == "periodic",
+        pad_factor,
     )
     data = np.asarray(observed.values, dtype=np.float64)[inside]
     rss_cache: dict[float, float] = {}
@@ -419,11 +425,13 @@ def fit_te(
             bounds_out.append(math.exp(edge))
             closed.append(False)
             continue
-        root = scipy.optimize.brentq(excess, min(best_x, outer), max(best_x, outer), xtol=_ROOT_XTOL)
+        root = scipy.optimize.brentq(
+            excess, min(best_x, outer), max(best_x, outer), xtol=_ROOT_XTOL
+        )
         bounds_out.append(math.exp(root))
         closed.append(True)
     if not all(closed):
-        sides = [name for name, ok in zip(("lower", "upper"), closed) if not ok]
+        sides = [name for name, ok in zip(("lower", "upper"), closed, strict=True) if not ok]
         warnings.warn(
             f"the {confidence:.0%} interval of te reaches the {' and '.join(sides)} search "
             f"bound {bounds!r} m: the data do not constrain te there; widen bounds or "
@@ -433,13 +441,17 @@ def fit_te(
         )
     log.info(
         "fit_te: te = %.4g m, interval [%.4g, %.4g] m, %d forward models",
-        te_best, bounds_out[0], bounds_out[1], forward.evaluations,
+        te_best,
+        bounds_out[0],
+        bounds_out[1],
+        forward.evaluations,
     )
 
     tes = np.array(sorted(rss_cache))
     rss_values = np.array([rss_cache[t] for t in tes])
     misfit = xr.DataArray(
-        np.sqrt(rss_values / n), dims=("te",),
+        np.sqrt(rss_values / n),
+        dims=("te",),
         coords={
             "te": ("te", tes, {"units": "m", "long_name": "elastic thickness"}),
             "scaled_increase": ("te", (rss_values - rss_min) / (s2 * factor)),
@@ -464,20 +476,41 @@ def fit_te(
     ds = result_dataset(load, forward.deflection(te_best), best_plate, attrs)
     unit_attrs = {"units": _UNITS[quantity]}
     predicted = model + offset
-    ds["observed"] = (("y", "x"), np.asarray(observed.values, dtype=np.float64),
-                      {**unit_attrs, "long_name": f"observed {_LONG_NAMES[quantity]}"})
-    ds["predicted"] = (("y", "x"), predicted,
-                       {**unit_attrs, "long_name": f"best model {_LONG_NAMES[quantity]}"})
-    ds["residual"] = (("y", "x"), np.where(inside, ds["observed"].values - predicted, np.nan),
-                      {**unit_attrs, "long_name": "observed minus predicted"})
+    ds["observed"] = (
+        ("y", "x"),
+        np.asarray(observed.values, dtype=np.float64),
+        {**unit_attrs, "long_name": f"observed {_LONG_NAMES[quantity]}"},
+    )
+    ds["predicted"] = (
+        ("y", "x"),
+        predicted,
+        {**unit_attrs, "long_name": f"best model {_LONG_NAMES[quantity]}"},
+    )
+    ds["residual"] = (
+        ("y", "x"),
+        np.where(inside, ds["observed"].values - predicted, np.nan),
+        {**unit_attrs, "long_name": "observed minus predicted"},
+    )
     ds["mask"] = (("y", "x"), inside, {"long_name": "cells compared in the fit"})
     if quantity == "free_air_anomaly":
-        ds["free_air_anomaly"] = (("y", "x"), model, {"units": "mGal",
-                                  "long_name": "free-air anomaly of the best model (no offset)"})
+        ds["free_air_anomaly"] = (
+            ("y", "x"),
+            model,
+            {"units": "mGal", "long_name": "free-air anomaly of the best model (no offset)"},
+        )
     ds["deflection"].attrs = deflection_attrs()
     return TeFit(
-        te=te_best, te_low=bounds_out[0], te_high=bounds_out[1],
-        interval_closed=(closed[0], closed[1]), offset=offset, rms=math.sqrt(rss_min / n),
-        quantity=quantity, confidence=float(confidence), threshold=threshold, n_data=n,
-        n_effective=n / factor, misfit=misfit, model=ds,
+        te=te_best,
+        te_low=bounds_out[0],
+        te_high=bounds_out[1],
+        interval_closed=(closed[0], closed[1]),
+        offset=offset,
+        rms=math.sqrt(rss_min / n),
+        quantity=quantity,
+        confidence=float(confidence),
+        threshold=threshold,
+        n_data=n,
+        n_effective=n / factor,
+        misfit=misfit,
+        model=ds,
     )

@@ -73,7 +73,11 @@ class CrustLayers:
     def __post_init__(self) -> None:
         set_ = object.__setattr__
         set_(self, "seafloor_depth", _check_number("seafloor_depth", self.seafloor_depth, 0, True))
-        set_(self, "crust_thickness", _check_number("crust_thickness", self.crust_thickness, 0, False))
+        set_(
+            self,
+            "crust_thickness",
+            _check_number("crust_thickness", self.crust_thickness, 0, False),
+        )
         set_(self, "crust_density", _check_number("crust_density", self.crust_density, 0, True))
 
     def check_plate(self, plate: Plate) -> None:

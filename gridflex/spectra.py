@@ -30,9 +30,9 @@ import scipy.signal.windows
 import xarray as xr
 
 from .errors import InputError
+from .gravity_response import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, compensation_factor
 from .grid import check_grid, check_same_grid, wavenumbers_squared
 from .memory import check_memory
-from .gravity_response import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, compensation_factor
 from .plate import Plate, rigidity_from_te
 
 __all__ = [
@@ -81,8 +81,10 @@ class _Bands:
     def transform(self, values: np.ndarray) -> list[np.ndarray]:
         """Band-selected Fourier coefficients of the detrended grid, one array per taper."""
         v = _detrend(np.asarray(values, dtype=np.float64))
-        return [scipy.fft.rfft2(ty[:, None] * tx[None, :] * v, workers=-1)[self.inside]
-                for ty, tx in self.tapers]
+        return [
+            scipy.fft.rfft2(ty[:, None] * tx[None, :] * v, workers=-1)[self.inside]
+            for ty, tx in self.tapers
+        ]
 
     def _sum(self, weights: np.ndarray) -> np.ndarray:
         return np.bincount(self.flat, weights=weights, minlength=self.nb)
@@ -94,7 +96,7 @@ class _Bands:
         cross = np.zeros(self.nb, dtype=np.complex128)
         power_h = np.zeros(self.nb)
         power_a = np.zeros(self.nb)
-        for hh, aa in zip(h, a):
+        for hh, aa in zip(h, a, strict=True):
             product = aa * hh.conj()
             cross += self._sum(product.real) + 1j * self._sum(product.imag)
             power_h += self._sum(np.abs(hh) ** 2)
@@ -107,7 +109,9 @@ def _band_setup(spec: Any, bands: Any, bandwidth: float, tapers: int | None) -> 
         raise InputError(f"bandwidth (NW) must be >= 1, got {bandwidth!r}")
     count = int(tapers) if tapers is not None else max(int(round(2 * bandwidth - 1)), 1)
     if count < 1 or count > 2 * bandwidth:
-        raise InputError(f"tapers must lie in [1, 2 bandwidth]; got {tapers!r} for NW {bandwidth!r}")
+        raise InputError(
+            f"tapers must lie in [1, 2 bandwidth]; got {tapers!r} for NW {bandwidth!r}"
+        )
     k_nyquist = min(math.pi / spec.dx, math.pi / spec.dy)
     if isinstance(bands, (int, np.integer)):
         if bands < 1:
@@ -181,21 +185,36 @@ def cross_spectra(
         corrected = np.where(n > 1, (n * coherence - 1.0) / (n - 1.0), np.nan)
     return xr.Dataset(
         {
-            "admittance": ("wavenumber", admittance, {"units": "mGal m-1",
-                           "long_name": "admittance Re<A H*>/<H H*>"}),
+            "admittance": (
+                "wavenumber",
+                admittance,
+                {"units": "mGal m-1", "long_name": "admittance Re<A H*>/<H H*>"},
+            ),
             "coherence": ("wavenumber", coherence, {"units": "1", "long_name": "coherence"}),
-            "coherence_corrected": ("wavenumber", np.clip(corrected, 0.0, 1.0), {"units": "1",
-                                    "long_name": "coherence corrected for estimation bias"}),
+            "coherence_corrected": (
+                "wavenumber",
+                np.clip(corrected, 0.0, 1.0),
+                {"units": "1", "long_name": "coherence corrected for estimation bias"},
+            ),
             "estimates": ("wavenumber", estimates[keep], {"long_name": "coefficients in band"}),
             "wavelength": ("wavenumber", 2.0 * math.pi / k_mean, {"units": "m"}),
             "band_low": ("wavenumber", edges[:-1][keep], {"units": "rad m-1"}),
             "band_high": ("wavenumber", edges[1:][keep], {"units": "rad m-1"}),
         },
-        coords={"wavenumber": ("wavenumber", k_mean, {"units": "rad m-1",
-                               "long_name": "mean radial wavenumber of the band"})},
-        attrs={"tapers_per_axis": setup.count, "bandwidth": float(bandwidth),
-               "band_edges": edges, "detrend": "plane",
-               "method": "2-D multitaper (DPSS products), annulus average"},
+        coords={
+            "wavenumber": (
+                "wavenumber",
+                k_mean,
+                {"units": "rad m-1", "long_name": "mean radial wavenumber of the band"},
+            )
+        },
+        attrs={
+            "tapers_per_axis": setup.count,
+            "bandwidth": float(bandwidth),
+            "band_edges": edges,
+            "detrend": "plane",
+            "method": "2-D multitaper (DPSS products), annulus average",
+        },
     )
 
 
@@ -265,7 +284,10 @@ def bouguer_coherence(
 
 
 def bouguer_admittance(
-    wavenumber: np.ndarray, plate: Plate, crust_density: float, load_ratio: float,
+    wavenumber: np.ndarray,
+    plate: Plate,
+    crust_density: float,
+    load_ratio: float,
     moho_depth: float,
 ) -> np.ndarray:
     """Forsyth (1985) Bouguer admittance (mGal m⁻¹), PHYSICS.md eq. 8.2.
@@ -274,20 +296,31 @@ def bouguer_admittance(
     """
     k = np.asarray(wavenumber, dtype=np.float64)
     xi, phi, fr2 = _forsyth_terms(k, plate, crust_density, load_ratio)
-    return (-_TWO_PI_G * crust_density * np.exp(-k * moho_depth)
-            * (xi + fr2 * phi) / (xi**2 + fr2) / MGAL)
+    return (
+        -_TWO_PI_G
+        * crust_density
+        * np.exp(-k * moho_depth)
+        * (xi + fr2 * phi)
+        / (xi**2 + fr2)
+        / MGAL
+    )
 
 
 def _matched_free_air(
-    spectra: xr.Dataset, topography: xr.DataArray, plate: Plate, layers: CrustLayers,
-    contrast: float, use: np.ndarray,
+    spectra: xr.Dataset,
+    topography: xr.DataArray,
+    plate: Plate,
+    layers: CrustLayers,
+    contrast: float,
+    use: np.ndarray,
 ) -> Callable[[float, float], np.ndarray]:
     """Band admittance of the theory applied to *topography*, estimated like the data."""
     spec = check_grid(topography, "topography")
     try:
         edges = np.asarray(spectra.attrs["band_edges"], dtype=np.float64)
-        setup = _band_setup(spec, edges, float(spectra.attrs["bandwidth"]),
-                            int(spectra.attrs["tapers_per_axis"]))
+        setup = _band_setup(
+            spec, edges, float(spectra.attrs["bandwidth"]), int(spectra.attrs["tapers_per_axis"])
+        )
     except KeyError as exc:
         raise InputError(f"spectra lack attribute {exc}; make them with cross_spectra") from exc
     bands = np.searchsorted(edges, np.asarray(spectra["band_low"].values), side="left")[use]
@@ -333,8 +366,12 @@ class SpectralFit:
 
     def summary(self) -> dict[str, Any]:
         """JSON-ready summary."""
-        return {"te": self.te, "curve": self.curve, "load_ratio": self.load_ratio,
-                "rms_misfit": self.rms}
+        return {
+            "te": self.te,
+            "curve": self.curve,
+            "load_ratio": self.load_ratio,
+            "rms_misfit": self.rms,
+        }
 
 
 def fit_te_spectral(
@@ -411,23 +448,28 @@ def fit_te_spectral(
         raise InputError(f"only {int(use.sum())} usable bands in wavenumber_range; need >= 3")
     k, observed = k[use], observed[use]
 
-    model: Callable[[float, float], np.ndarray]
+    contrast = float(topography_contrast) if topography_contrast is not None else 0.0
+    depth = float(moho_depth) if moho_depth is not None else 0.0
+
+    def model(te: float, f: float) -> np.ndarray:
+        trial = plate.with_te(te)
+        if curve == "free_air_admittance":
+            assert gravity is not None
+            return free_air_admittance(k, trial, gravity, contrast)
+        if curve == "bouguer_admittance":
+            return bouguer_admittance(k, trial, crust_density, f, depth)
+        return bouguer_coherence(k, trial, crust_density, f)
+
     if curve == "free_air_admittance":
         if gravity is None or topography_contrast is None:
-            raise InputError("curve 'free_air_admittance' needs gravity=CrustLayers(...) "
-                             "and topography_contrast (kg/m3)")
-        model = lambda te, f: free_air_admittance(k, plate.with_te(te), gravity,  # noqa: E731
-                                                  float(topography_contrast))
+            raise InputError(
+                "curve 'free_air_admittance' needs gravity=CrustLayers(...) "
+                "and topography_contrast (kg/m3)"
+            )
         if topography is not None:
-            model = _matched_free_air(spectra, topography, plate, gravity,
-                                      float(topography_contrast), use)
-    elif curve == "bouguer_admittance":
-        if moho_depth is None:
-            raise InputError("curve 'bouguer_admittance' needs moho_depth (m)")
-        model = lambda te, f: bouguer_admittance(k, plate.with_te(te), crust_density,  # noqa: E731
-                                                 f, float(moho_depth))
-    else:
-        model = lambda te, f: bouguer_coherence(k, plate.with_te(te), crust_density, f)  # noqa: E731
+            model = _matched_free_air(spectra, topography, plate, gravity, contrast, use)
+    elif curve == "bouguer_admittance" and moho_depth is None:
+        raise InputError("curve 'bouguer_admittance' needs moho_depth (m)")
     with_ratio = curve != "free_air_admittance"
     f_lo, f_hi = (math.log(float(b)) for b in load_ratio_bounds)
 
@@ -446,7 +488,8 @@ def fit_te_spectral(
         values = [ss(te, math.exp(g)) for g in grid]
         i = int(np.argmin(values))
         opt = scipy.optimize.minimize_scalar(
-            lambda g: ss(te, math.exp(g)), method="bounded",
+            lambda g: ss(te, math.exp(g)),
+            method="bounded",
             bounds=(grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]),
         )
         best = float(opt.x) if opt.fun <= values[i] else float(grid[i])
@@ -465,7 +508,9 @@ def fit_te_spectral(
     coarse = [objective(float(x)) for x in grid]
     i = int(np.argmin(coarse))
     opt = scipy.optimize.minimize_scalar(
-        objective, method="bounded", options={"xatol": 1e-5},
+        objective,
+        method="bounded",
+        options={"xatol": 1e-5},
         bounds=(grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]),
     )
     best_log = float(opt.x) if opt.fun <= coarse[i] else float(grid[i])
@@ -474,17 +519,27 @@ def fit_te_spectral(
     f_best = ratios[te] if with_ratio else None
     tes = np.array(sorted(cache))
     misfit = xr.DataArray(
-        np.sqrt(np.array([cache[t] for t in tes]) / k.size), dims=("te",),
-        coords={"te": ("te", tes, {"units": "m"})}, name="rms_misfit",
+        np.sqrt(np.array([cache[t] for t in tes]) / k.size),
+        dims=("te",),
+        coords={"te": ("te", tes, {"units": "m"})},
+        name="rms_misfit",
         attrs={"long_name": f"RMS misfit of {name}"},
     )
     predicted = model(te, f_best if f_best is not None else 0.0)
     units = spectra[name].attrs.get("units", "")
     curves = xr.Dataset(
-        {"observed": ("wavenumber", observed, {"units": units}),
-         "predicted": ("wavenumber", predicted, {"units": units})},
+        {
+            "observed": ("wavenumber", observed, {"units": units}),
+            "predicted": ("wavenumber", predicted, {"units": units}),
+        },
         coords={"wavenumber": ("wavenumber", k, {"units": "rad m-1"})},
         attrs={"curve": curve, "quantity": name, "te": te},
     )
-    return SpectralFit(te=te, curve=curve, load_ratio=f_best, rms=math.sqrt(ss_min / k.size),
-                       misfit=misfit, curves=curves)
+    return SpectralFit(
+        te=te,
+        curve=curve,
+        load_ratio=f_best,
+        rms=math.sqrt(ss_min / k.size),
+        misfit=misfit,
+        curves=curves,
+    )

@@ -30,7 +30,12 @@ __all__ = ["FORCE_PARAMETERS", "LOCAL_SCHEDULERS", "PLATE_PARAMETERS", "sweep"]
 log = logging.getLogger(__name__)
 
 PLATE_PARAMETERS = (
-    "te", "youngs_modulus", "poisson_ratio", "mantle_density", "infill_density", "gravity",
+    "te",
+    "youngs_modulus",
+    "poisson_ratio",
+    "mantle_density",
+    "infill_density",
+    "gravity",
 )
 """Swept names that are :class:`~gridflex.Plate` fields."""
 
@@ -41,9 +46,15 @@ LOCAL_SCHEDULERS = ("threads", "processes", "synchronous")
 """Local dask schedulers accepted by ``sweep(scheduler=...)``."""
 
 _UNITS = {
-    "te": "m", "youngs_modulus": "Pa", "poisson_ratio": "1", "mantle_density": "kg m-3",
-    "infill_density": "kg m-3", "gravity": "m s-2", "inplane_force": "N m-1",
-    "inplane_force_x": "N m-1", "inplane_force_y": "N m-1",
+    "te": "m",
+    "youngs_modulus": "Pa",
+    "poisson_ratio": "1",
+    "mantle_density": "kg m-3",
+    "infill_density": "kg m-3",
+    "gravity": "m s-2",
+    "inplane_force": "N m-1",
+    "inplane_force_x": "N m-1",
+    "inplane_force_y": "N m-1",
 }
 
 LoadLike = xr.DataArray | Callable[..., xr.DataArray]
@@ -65,7 +76,10 @@ def _split(combo: Mapping[str, float]) -> tuple[dict, dict, dict]:
     plate_kw = {k: v for k, v in combo.items() if k in PLATE_PARAMETERS}
     force_kw: dict[str, float] = {}
     if "inplane_force" in combo:
-        force_kw = {"inplane_force_x": combo["inplane_force"], "inplane_force_y": combo["inplane_force"]}
+        force_kw = {
+            "inplane_force_x": combo["inplane_force"],
+            "inplane_force_y": combo["inplane_force"],
+        }
     force_kw.update({k: v for k, v in combo.items() if k in ("inplane_force_x", "inplane_force_y")})
     load_kw = {
         k: v for k, v in combo.items() if k not in PLATE_PARAMETERS and k not in FORCE_PARAMETERS
@@ -75,9 +89,12 @@ def _split(combo: Mapping[str, float]) -> tuple[dict, dict, dict]:
 
 def _plate_for(plate: Plate, plate_kw: Mapping[str, float]) -> Plate:
     fields = {
-        "te": plate.te, "youngs_modulus": plate.youngs_modulus,
-        "poisson_ratio": plate.poisson_ratio, "mantle_density": plate.mantle_density,
-        "infill_density": plate.infill_density, "gravity": plate.gravity,
+        "te": plate.te,
+        "youngs_modulus": plate.youngs_modulus,
+        "poisson_ratio": plate.poisson_ratio,
+        "mantle_density": plate.mantle_density,
+        "infill_density": plate.infill_density,
+        "gravity": plate.gravity,
     }
     fields.update(plate_kw)
     return Plate(**fields)
@@ -89,7 +106,9 @@ def _solve_one(
     """One task: the deflection (m) and force-balance residual of one combination."""
     plate_kw, force_kw, load_kw = _split(combo)
     grid = load(**load_kw) if callable(load) and not isinstance(load, xr.DataArray) else load
-    result = solve(grid, _plate_for(plate, plate_kw), edges=edges, pad_factor=pad_factor, **force_kw)
+    result = solve(
+        grid, _plate_for(plate, plate_kw), edges=edges, pad_factor=pad_factor, **force_kw
+    )
     return result["deflection"].values, float(result.attrs["force_balance_residual"])
 
 
@@ -205,7 +224,9 @@ def sweep(
     if not isinstance(plate, Plate):
         raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
     if not isinstance(parameters, Mapping) or not parameters:
-        raise InputError(f"parameters must be a non-empty mapping of name to values, got {parameters!r}")
+        raise InputError(
+            f"parameters must be a non-empty mapping of name to values, got {parameters!r}"
+        )
     load_is_grid = isinstance(load, xr.DataArray)
     if not load_is_grid and not callable(load):
         raise InputError(f"load must be a DataArray or a callable, got {type(load).__name__}")
@@ -219,11 +240,13 @@ def sweep(
     if "inplane_force" in parameters and (
         "inplane_force_x" in parameters or "inplane_force_y" in parameters
     ):
-        raise InputError("sweep either 'inplane_force' or 'inplane_force_x'/'inplane_force_y', not both")
+        raise InputError(
+            "sweep either 'inplane_force' or 'inplane_force_x'/'inplane_force_y', not both"
+        )
     names = list(parameters)
     values = {name: _check_values(name, parameters[name]) for name in names}
     shape = tuple(values[name].size for name in names)
-    combos = [dict(zip(names, map(float, c))) for c in itertools.product(*values.values())]
+    combos = [dict(zip(names, map(float, c), strict=True)) for c in itertools.product(*values.values())]
     for combo in combos:  # fail early, on the client, for an invalid plate
         _plate_for(plate, _split(combo)[0])
 

@@ -73,10 +73,15 @@ def test_misfit_curve_and_model_dataset(synthetic):
     assert curve.size >= 12
     assert_allclose(float(curve.min()), fit.rms, rtol=1e-12)  # the minimum is the best fit
     assert_allclose(curve.sel(te=fit.te).item(), fit.rms, rtol=1e-12)
-    assert curve["te"].values[0] == pytest.approx(1e3) and curve["te"].values[-1] == pytest.approx(1e5)
+    assert curve["te"].values[0] == pytest.approx(1e3) and curve["te"].values[-1] == pytest.approx(
+        1e5
+    )
     # interval ends: scaled increase equals the chi2(1) 95 % quantile 3.841 (common practice)
-    scaled = np.interp(np.log([fit.te_low, fit.te_high]), np.log(curve["te"].values),
-                       curve["scaled_increase"].values)
+    scaled = np.interp(
+        np.log([fit.te_low, fit.te_high]),
+        np.log(curve["te"].values),
+        curve["scaled_increase"].values,
+    )
     assert_allclose(scaled, 3.841, rtol=0.1)  # linear interpolation between curve samples
     model = fit.model
     for name in ("deflection", "load", "observed", "predicted", "residual", "mask"):
@@ -130,9 +135,13 @@ def test_free_air_anomaly_recovers_te(synthetic):
     rng = np.random.default_rng(11)
     sigma = 0.05 * float(np.abs(anomaly).max())
     observed = anomaly + sigma * rng.standard_normal(anomaly.shape) + 3.0
-    fit = fit_te(observed, load, plate, quantity="free_air_anomaly",
-                 gravity={"seafloor_depth": 4500.0, "crust_thickness": 6000.0,
-                          "crust_density": 2800.0})
+    fit = fit_te(
+        observed,
+        load,
+        plate,
+        quantity="free_air_anomaly",
+        gravity={"seafloor_depth": 4500.0, "crust_thickness": 6000.0, "crust_density": 2800.0},
+    )
     # synthetic recovery against an independent gravity computation (see _linear_free_air)
     assert_allclose(fit.te, TRUE_TE, rtol=0.05)
     assert fit.te_low < TRUE_TE < fit.te_high
@@ -153,7 +162,8 @@ def test_correlated_residuals_widen_interval(synthetic):
     # sqrt(n / n_eff) (common practice)
     assert correlated.n_effective < correlated.n_data / 5
     ratio = (math.log(correlated.te_high) - math.log(correlated.te_low)) / (
-        math.log(independent.te_high) - math.log(independent.te_low))
+        math.log(independent.te_high) - math.log(independent.te_low)
+    )
     assert ratio > 2.0
     assert correlated.te == independent.te
     assert correlated.te_low < TRUE_TE < correlated.te_high

@@ -49,8 +49,10 @@ def compensated():
     load = _grid((RHO_C - RHO_W) * plate.gravity * h)
     w = gridflex.solve(load, plate, edges="periodic")["deflection"].values
     two_pi_g = 2 * np.pi * GRAVITATIONAL_CONSTANT
-    a = two_pi_g * (np.exp(-k * DEPTH) * scipy.fft.rfft2((RHO_C - RHO_W) * h)
-                    - np.exp(-k * (DEPTH + T_C)) * scipy.fft.rfft2((RHO_M - RHO_C) * w))
+    a = two_pi_g * (
+        np.exp(-k * DEPTH) * scipy.fft.rfft2((RHO_C - RHO_W) * h)
+        - np.exp(-k * (DEPTH + T_C)) * scipy.fft.rfft2((RHO_M - RHO_C) * w)
+    )
     anomaly = scipy.fft.irfft2(a, s=(N, N)) / 1e-5
     return _grid(h), _grid(anomaly), plate, CrustLayers(DEPTH, T_C, RHO_C)
 
@@ -60,12 +62,19 @@ def test_admittance_recovers_te(compensated):
     spectra = cross_spectra(topo, anomaly)
     assert spectra["admittance"].attrs["units"] == "mGal m-1"
     assert np.all(np.diff(spectra["wavenumber"].values) > 0)
-    fit = fit_te_spectral(spectra, plate.with_te(5e3), gravity=layers,
-                          topography_contrast=RHO_C - RHO_W, topography=topo)
+    fit = fit_te_spectral(
+        spectra,
+        plate.with_te(5e3),
+        gravity=layers,
+        topography_contrast=RHO_C - RHO_W,
+        topography=topo,
+    )
     # issue requirement: te within 15 % of the truth; theory is PHYSICS.md eq. 6.2
     # (McKenzie & Bowin 1976, from memory)
     assert_allclose(fit.te, TE, rtol=0.15)
-    assert fit.curves["observed"].size == fit.curves["predicted"].size == spectra.sizes["wavenumber"]
+    assert (
+        fit.curves["observed"].size == fit.curves["predicted"].size == spectra.sizes["wavenumber"]
+    )
     # the fitted curve explains the observed one to a few percent of its peak
     assert fit.rms < 0.05 * float(np.abs(spectra["admittance"]).max())
 
@@ -89,7 +98,9 @@ def test_free_air_admittance_limits():
     z = free_air_admittance(k, plate, layers, RHO_C - RHO_W)
     # PHYSICS.md 6.3: Z_FA(0) = 0 (full compensation); Z -> 2 pi G drho e^{-kd} for large k
     assert z[0] == 0.0
-    uncompensated = 2 * math.pi * GRAVITATIONAL_CONSTANT * (RHO_C - RHO_W) * math.exp(-1e-2 * DEPTH) / 1e-5
+    uncompensated = (
+        2 * math.pi * GRAVITATIONAL_CONSTANT * (RHO_C - RHO_W) * math.exp(-1e-2 * DEPTH) / 1e-5
+    )
     assert_allclose(z[1], uncompensated, rtol=1e-12)
     # slab factor: 41.94 mGal per km per 1000 kg/m3 (PHYSICS.md 6.1, 4 digits given)
     slab = z[1] / math.exp(-1e-2 * DEPTH) / (RHO_C - RHO_W) * 1000.0 * 1000.0
@@ -115,10 +126,13 @@ def test_bouguer_coherence_fit_recovers_te():
     """Fit the theory to itself (sampled Forsyth 1985 curve): exact recovery of te and f."""
     plate = gridflex.Plate(te=35e3)
     k = np.geomspace(2e-6, 2e-4, 25)
-    spectra = xr.Dataset({"coherence_corrected": ("wavenumber",
-                                                  bouguer_coherence(k, plate, 2800.0, 0.7)),
-                          "admittance": ("wavenumber", np.zeros_like(k))},
-                         coords={"wavenumber": k})
+    spectra = xr.Dataset(
+        {
+            "coherence_corrected": ("wavenumber", bouguer_coherence(k, plate, 2800.0, 0.7)),
+            "admittance": ("wavenumber", np.zeros_like(k)),
+        },
+        coords={"wavenumber": k},
+    )
     fit = fit_te_spectral(spectra, plate.with_te(5e3), "bouguer_coherence")
     assert_allclose(fit.te, 35e3, rtol=1e-3)  # optimiser tolerance
     assert_allclose(fit.load_ratio, 0.7, rtol=1e-2)
@@ -146,8 +160,9 @@ def test_spectral_plot_written(compensated, tmp_path):
 
     topo, anomaly, plate, layers = compensated
     spectra = cross_spectra(topo, anomaly, bands=10)
-    fit = fit_te_spectral(spectra, plate, gravity=layers, topography_contrast=RHO_C - RHO_W,
-                          samples=8)
+    fit = fit_te_spectral(
+        spectra, plate, gravity=layers, topography_contrast=RHO_C - RHO_W, samples=8
+    )
     path = tmp_path / "admittance.png"
     fig = plot_spectral_fit(fit, path=path)
     assert imread(path).shape[0] > 100

@@ -33,7 +33,9 @@ def threaded() -> xr.Dataset:
 
 def test_three_te_equal_three_runs():
     calls = []
-    ds = sweep(_load(), PLATE, {"te": TES}, progress=lambda done, total: calls.append((done, total)))
+    ds = sweep(
+        _load(), PLATE, {"te": TES}, progress=lambda done, total: calls.append((done, total))
+    )
     assert ds["deflection"].dims == ("te", "y", "x")
     assert_allclose(ds["te"], TES)
     for te in TES:
@@ -51,8 +53,9 @@ def test_two_parameters_and_forces(threaded):
     assert ds["force_balance_residual"].shape == (3, 2)
     # spectral force balance is exact to round-off (PHYSICS.md 2.3)
     assert float(ds["force_balance_residual"].max()) < 1e-12
-    single = gridflex.solve(_load(), PLATE.with_te(12e3), inplane_force_x=-1e12,
-                            inplane_force_y=-1e12)["deflection"]
+    single = gridflex.solve(
+        _load(), PLATE.with_te(12e3), inplane_force_x=-1e12, inplane_force_y=-1e12
+    )["deflection"]
     assert_allclose(ds["deflection"].sel(te=12e3, inplane_force=-1e12), single, rtol=1e-12)
     # compression deepens the moat (PHYSICS.md 1.5: denominator D k^4 + N k^2 + drho g
     # decreases for N < 0)
@@ -75,12 +78,17 @@ def test_local_cluster_equals_threads(threaded):
     ) as cluster:
         with distributed.Client(cluster) as client:
             assert len(client.scheduler_info()["workers"]) == 2
-        on_cluster = sweep(_load(), PLATE, {"te": TES, "inplane_force": [0.0, -1e12]},
-                           scheduler=cluster.scheduler_address)
+        on_cluster = sweep(
+            _load(),
+            PLATE,
+            {"te": TES, "inplane_force": [0.0, -1e12]},
+            scheduler=cluster.scheduler_address,
+        )
     # same computation in worker processes: identical to round-off (common practice)
     assert_allclose(on_cluster["deflection"], threaded["deflection"], rtol=1e-12, atol=0)
-    xr.testing.assert_identical(on_cluster.drop_vars("deflection"),
-                                threaded.drop_vars("deflection"))
+    xr.testing.assert_identical(
+        on_cluster.drop_vars("deflection"), threaded.drop_vars("deflection")
+    )
 
 
 @pytest.mark.parametrize(

@@ -19,8 +19,11 @@ def main(n: int = 256) -> None:
     dx = 4e3
     x = (np.arange(n) - n / 2) * dx
     xx, yy = np.meshgrid(x, x)
-    load = xr.DataArray(1770 * 9.81 * 3000 * np.exp(-(xx**2 + yy**2) / (2 * 20e3**2)),
-                        dims=("y", "x"), coords={"y": x, "x": x})
+    load = xr.DataArray(
+        1770 * 9.81 * 3000 * np.exp(-(xx**2 + yy**2) / (2 * 20e3**2)),
+        dims=("y", "x"),
+        coords={"y": x, "x": x},
+    )
     plate = gridflex.Plate(te=23.4e3)
     w = gridflex.solve(load, plate)["deflection"]
     rng = np.random.default_rng(0)
