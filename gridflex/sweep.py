@@ -246,7 +246,10 @@ def sweep(
     names = list(parameters)
     values = {name: _check_values(name, parameters[name]) for name in names}
     shape = tuple(values[name].size for name in names)
-    combos = [dict(zip(names, map(float, c), strict=True)) for c in itertools.product(*values.values())]
+    combos = [
+        dict(zip(names, map(float, c), strict=True))
+        for c in itertools.product(*values.values())
+    ]
     for combo in combos:  # fail early, on the client, for an invalid plate
         _plate_for(plate, _split(combo)[0])
 
