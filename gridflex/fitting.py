@@ -35,7 +35,7 @@ from .gravity_response import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, compens
 from .grid import GridSpec, check_grid, check_same_grid, padded_shape
 from .plate import Plate, rigidity_from_te
 from .solve import EDGES, deflection_attrs, result_dataset
-from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem, decay_length
+from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem, decay_length, scale_spectrum
 
 __all__ = ["QUANTITIES", "OpenIntervalWarning", "TeFit", "fit_te"]
 
@@ -192,7 +192,7 @@ class _Forward:
 
     def deflection(self, te: float) -> np.ndarray:
         problem, spectrum, _ = self._problem(te)
-        return problem.crop(problem.inverse(spectrum * problem.transfer()))
+        return problem.crop(problem.inverse(scale_spectrum(spectrum, problem.transfer())))
 
     def model(self, te: float) -> np.ndarray:
         """The observed quantity predicted for *te*, without offset."""
@@ -206,7 +206,7 @@ class _Forward:
         response = problem.transfer() * problem.stiffness
         factor = compensation_factor(k, response, self.layers, self.plate)
         factor *= 2.0 * math.pi * GRAVITATIONAL_CONSTANT / (self.plate.gravity * MGAL)
-        return problem.crop(problem.inverse(spectrum * factor))
+        return problem.crop(problem.inverse(scale_spectrum(spectrum, factor)))
 
 
 def _check_bounds(bounds: Any) -> tuple[float, float]:

@@ -27,9 +27,12 @@ __all__ = [
     "SpectralProblem",
     "buckling_force",
     "decay_length",
+    "scale_spectrum",
     "spectral_deflection",
     "transfer_function",
 ]
+
+_BLOCK_ROWS = 32
 
 DEFAULT_PAD_FACTOR = 4.5
 """Zero padding on each side, in decay lengths (flexural parameters). 4.5 keeps the
@@ -118,17 +121,38 @@ def transfer_function(
         Real-valued transfer function for :func:`scipy.fft.rfft2` spectra.
     """
     ky2, kx2 = wavenumbers_squared(shape, dy, dx)
-    denom = ky2 + kx2  # k² on the half-spectrum grid (one full-size array)
-    np.square(denom, out=denom)
-    denom *= rigidity
-    if force_x:
-        denom += force_x * kx2
-    if force_y:
-        denom += force_y * ky2
-    denom += stiffness
-    np.reciprocal(denom, out=denom)
+    denom = np.empty((shape[0], kx2.shape[1]), dtype=np.float64)
+    # in blocks of rows that stay in cache: a few passes per block, one over memory
+    for start in range(0, shape[0], _BLOCK_ROWS):
+        block = denom[start: start + _BLOCK_ROWS]
+        rows = ky2[start: start + _BLOCK_ROWS]
+        np.add(rows, kx2, out=block)
+        np.square(block, out=block)
+        block *= rigidity
+        if force_x:
+            block += force_x * kx2
+        if force_y:
+            block += force_y * rows
+        block += stiffness
+        np.reciprocal(block, out=block)
     denom.flags.writeable = False
     return denom
+
+
+def scale_spectrum(
+    spectrum: np.ndarray, factor: np.ndarray, out: np.ndarray | None = None
+) -> np.ndarray:
+    """Multiply a complex half spectrum by a real factor of the same shape.
+
+    Real and imaginary parts are scaled as one float array, which avoids casting
+    *factor* to complex. *out* may be *spectrum* itself (in place).
+    """
+    if out is None:
+        out = np.empty_like(spectrum)
+    pairs = spectrum.view(np.float64).reshape(*spectrum.shape, 2)
+    target = out.view(np.float64).reshape(*out.shape, 2)
+    np.multiply(pairs, factor[..., None], out=target)
+    return out
 
 
 @dataclass(frozen=True)
@@ -208,13 +232,17 @@ class SpectralProblem:
             float(self.force_x), float(self.force_y),
         )
 
-    def deflection(self, load: np.ndarray) -> tuple[np.ndarray, float]:
+    def deflection(
+        self, load: np.ndarray, load_magnitude: float | None = None
+    ) -> tuple[np.ndarray, float]:
         """Deflection (m, positive down) under *load* (Pa, positive down).
 
         Parameters
         ----------
         load : numpy.ndarray, shape (ny, nx)
             Vertical stress on the unpadded grid.
+        load_magnitude : float, optional
+            Σ |q| if the caller has it already (saves a pass over the grid).
 
         Returns
         -------
@@ -229,9 +257,9 @@ class SpectralProblem:
             full = np.asarray(load, dtype=np.float64) / self.stiffness
         else:
             spectrum = self.load_spectrum(load)
-            spectrum *= self.transfer()
+            scale_spectrum(spectrum, self.transfer(), out=spectrum)
             full = self.inverse(spectrum)
-        magnitude = float(np.abs(load).sum())
+        magnitude = float(np.abs(load).sum()) if load_magnitude is None else load_magnitude
         imbalance = abs(self.stiffness * float(full.sum()) - float(np.sum(load)))
         balance = imbalance / magnitude if magnitude > 0 else 0.0
         return self.crop(full), balance
