@@ -12,6 +12,8 @@ A scenario has these tables (``[[loads]]`` is an array of tables)::
     [grid]     size and spacing, for scenarios whose loads are all synthetic
     [[loads]]  one table per load layer: a grid file or a synthetic shape
     [output]   where the results go
+    [fit]      observation to fit te to (``gridflex fit``)
+    [sweep]    lists of values to sweep over (``gridflex sweep``)
 """
 
 from __future__ import annotations
@@ -22,6 +24,8 @@ from pathlib import Path
 from typing import Any, Callable
 
 from .errors import InputError
+from .fitting import QUANTITIES
+from .sweep import LOCAL_SCHEDULERS
 from .units import parse_quantity
 
 __all__ = ["Key", "SCHEMA", "ARRAY_TABLES", "Scenario", "load_scenario", "parse_scenario"]
@@ -113,6 +117,41 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),
         "map": Key("path", "PNG map of the deflection", None),
+    },
+    "fit": {
+        "observed_file": Key("path", "NetCDF grid of the observation", REQUIRED),
+        "observed_variable": Key("string", "variable of the observation in the file", REQUIRED),
+        "quantity": Key("choice", "what is observed", "deflection", choices=QUANTITIES),
+        "mask_file": Key("path", "NetCDF grid, non-zero where data are compared", None),
+        "mask_variable": Key("string", "variable of the mask in its file", None),
+        "te_min": Key("quantity", "smallest te searched", 1.0e3, "length", minimum=0.0),
+        "te_max": Key("quantity", "largest te searched", 1.0e5, "length", minimum=0.0),
+        "samples": Key("integer", "log-spaced te of the coarse search", 25, minimum=5),
+        "confidence": Key("number", "confidence level of the te interval", 0.95, minimum=0.0),
+        "correlated_residuals": Key("bool", "widen the interval for correlated residuals",
+                                    True),
+        "seafloor_depth": Key("quantity", "depth of the undeflected plate top below the "
+                              "gravity observations (free_air_anomaly)", None, "length",
+                              minimum=0.0),
+        "crust_thickness": Key("quantity", "crustal thickness (free_air_anomaly)", 6000.0,
+                               "length", minimum=0.0),
+        "crust_density": Key("quantity", "crustal density (free_air_anomaly)", 2800.0,
+                             "density", minimum=0.0),
+        "summary": Key("path", "JSON summary of the fit", None),
+        "plot": Key("path", "PNG of the misfit curve", None),
+    },
+    "sweep": {
+        "te": Key("list", "elastic thicknesses", None, "length"),
+        "youngs_modulus": Key("list", "Young's moduli", None, "pressure"),
+        "poisson_ratio": Key("list", "Poisson's ratios", None),
+        "mantle_density": Key("list", "mantle densities", None, "density"),
+        "infill_density": Key("list", "infill densities", None, "density"),
+        "inplane_force": Key("list", "in-plane forces on both axes, tension positive", None,
+                             "force_per_length"),
+        "inplane_force_x": Key("list", "in-plane forces along x", None, "force_per_length"),
+        "inplane_force_y": Key("list", "in-plane forces along y", None, "force_per_length"),
+        "scheduler": Key("string", "where to run: " + ", ".join(LOCAL_SCHEDULERS)
+                         + " or a dask scheduler address", "threads"),
     },
 }
 """Every table and key a scenario may contain."""

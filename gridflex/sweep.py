@@ -74,16 +74,18 @@ def _check_values(name: str, values: Any) -> np.ndarray:
 
 def _split(combo: Mapping[str, float]) -> tuple[dict, dict, dict]:
     plate_kw = {k: v for k, v in combo.items() if k in PLATE_PARAMETERS}
-    force_kw: dict[str, float] = {}
+    force_kw = {  # forces of every solve, replaced below by swept ones
+        "inplane_force_x": combo.get("base_force_x", 0.0),
+        "inplane_force_y": combo.get("base_force_y", 0.0),
+    }
     if "inplane_force" in combo:
         force_kw = {
             "inplane_force_x": combo["inplane_force"],
             "inplane_force_y": combo["inplane_force"],
         }
     force_kw.update({k: v for k, v in combo.items() if k in ("inplane_force_x", "inplane_force_y")})
-    load_kw = {
-        k: v for k, v in combo.items() if k not in PLATE_PARAMETERS and k not in FORCE_PARAMETERS
-    }
+    skip = (*PLATE_PARAMETERS, *FORCE_PARAMETERS, "base_force_x", "base_force_y")
+    load_kw = {k: v for k, v in combo.items() if k not in skip}
     return plate_kw, force_kw, load_kw
 
 
@@ -178,6 +180,8 @@ def sweep(
     scheduler: Any = None,
     edges: str = "infinite",
     pad_factor: float = DEFAULT_PAD_FACTOR,
+    inplane_force_x: float = 0.0,
+    inplane_force_y: float = 0.0,
     progress: Callable[..., Any] | None = None,
 ) -> xr.Dataset:
     """Solve the flexure for every combination of swept parameter values.
@@ -203,6 +207,8 @@ def sweep(
         connected ``distributed.Client``.
     edges, pad_factor
         As in :func:`gridflex.solve`.
+    inplane_force_x, inplane_force_y : float, default 0
+        In-plane forces (N m⁻¹, tension positive) of every solve, unless swept.
     progress : callable, optional
         Called as ``progress(done, total)`` as solves finish.
 
@@ -261,7 +267,8 @@ def sweep(
     )
     shared = dask.delayed(load, pure=True) if load_is_grid else load
     one = dask.delayed(_solve_one, pure=True)
-    tasks = [one(shared, plate, combo, edges, pad_factor) for combo in combos]
+    base = {"base_force_x": float(inplane_force_x), "base_force_y": float(inplane_force_y)}
+    tasks = [one(shared, plate, {**base, **combo}, edges, pad_factor) for combo in combos]
     log.info("sweep: %d solves of %s over %s", len(tasks), spec.shape, names)
     results = _run(tasks, scheduler, progress)
 
@@ -273,7 +280,7 @@ def sweep(
     }
     coords.update({"y": template["y"].variable, "x": template["x"].variable})
     derived = ("rigidity", "flexural_parameter") if set(names) & set(PLATE_PARAMETERS) else ()
-    base = {
+    plate_attrs = {
         f"plate_{k}": v for k, v in plate.describe().items() if k not in names and k not in derived
     }
     attrs = {
@@ -285,7 +292,10 @@ def sweep(
         "swept_parameters": " ".join(names),
         "edges": edges,
         "pad_factor": float(pad_factor),
-        **base,
+        **{f"inplane_force_{axis}": force for axis, force in
+           (("x", float(inplane_force_x)), ("y", float(inplane_force_y)))
+           if not set(names) & set(FORCE_PARAMETERS)},
+        **plate_attrs,
     }
     return xr.Dataset(
         {

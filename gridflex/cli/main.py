@@ -9,10 +9,10 @@ from types import ModuleType
 
 from .._version import __version__
 from ..errors import ConvergenceError, GridflexError
-from . import demo, run
+from . import demo, fit, run, sweep
 from .common import configure_output
 
-COMMANDS: tuple[ModuleType, ...] = (run, demo)
+COMMANDS: tuple[ModuleType, ...] = (run, fit, sweep, demo)
 """Command modules; each has NAME, add_parser(subparsers) and execute(args)."""
 
 EXIT_INPUT = 2
