@@ -14,8 +14,8 @@ import xarray as xr
 from ._version import __version__
 from .errors import InputError
 from .fitting import TeFit, fit_te
-from .grid import check_same_grid
 from .gravity_response import CrustLayers
+from .grid import check_same_grid
 from .io.atomic import atomic_path, check_output_path
 from .io.netcdf import read_grid, write_netcdf
 from .plots import plot_deflection_map, plot_misfit
