@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
+import copy
+import functools
 import logging
 import tomllib
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -17,7 +20,7 @@ from .scenario import SCHEMA, Scenario
 from .sweep import sweep
 from .units import parse_quantity
 
-__all__ = ["sweep_parameters", "sweep_scenario"]
+__all__ = ["load_with_density", "sweep_parameters", "sweep_scenario"]
 
 log = logging.getLogger(__name__)
 
@@ -67,7 +70,12 @@ def sweep_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = 
     inputs = scenario.input_files
     check_output_path(output["file"], overwrite, inputs)
     plate = plate_from_scenario(scenario)
-    load = build_load(scenario)
+    load: Any = build_load(scenario)  # also checks the layers before any task runs
+    if "load_density" in parameters:
+        if not any(layer["kind"] == "thickness" for layer in scenario.table("loads")):
+            raise InputError(f"{scenario.where('sweep', 'load_density')}: no [[loads]] layer "
+                             "of kind 'thickness' to give a density")
+        load = functools.partial(load_with_density, scenario)
     solver = scenario.table("solver")
     if solver["method"] == "finite-difference":
         raise InputError(f"{scenario.where('solver', 'method')}: sweeps use the spectral solver")
@@ -84,6 +92,18 @@ def sweep_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = 
     path = write_netcdf(result, output["file"], overwrite, inputs)
     log.info("sweep written to %s", path)
     return path
+
+
+def load_with_density(scenario: Scenario, load_density: float) -> xr.DataArray:
+    """The scenario's load with every thickness layer given *load_density* (kg m⁻³).
+
+    Module-level (picklable), so dask workers can build the load themselves.
+    """
+    tables = copy.deepcopy(scenario.tables)
+    for layer in tables["loads"]:
+        if layer["kind"] == "thickness":
+            layer["density"] = float(load_density)
+    return build_load(replace(scenario, tables=tables))
 
 
 def _with_provenance(result: xr.Dataset, scenario: Scenario) -> xr.Dataset:

@@ -146,6 +146,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "poisson_ratio": Key("list", "Poisson's ratios", None),
         "mantle_density": Key("list", "mantle densities", None, "density"),
         "infill_density": Key("list", "infill densities", None, "density"),
+        "load_density": Key("list", "densities of every thickness layer of [[loads]]", None,
+                            "density"),
         "inplane_force": Key("list", "in-plane forces on both axes, tension positive", None,
                              "force_per_length"),
         "inplane_force_x": Key("list", "in-plane forces along x", None, "force_per_length"),
