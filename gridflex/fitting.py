@@ -31,7 +31,7 @@ import scipy.stats
 import xarray as xr
 
 from .errors import GridflexWarning, InputError
-from .gravity_response import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, compensation_factor
+from .gravity_response import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, gravity_terms
 from .grid import GridSpec, check_grid, check_same_grid, padded_shape
 from .plate import Plate, rigidity_from_te
 from .solve import EDGES, deflection_attrs, result_dataset
@@ -185,8 +185,13 @@ class _Forward:
             base = replace(self.problem, shape=shape)
             spectrum = base.load_spectrum(self.load)
             spectrum.flags.writeable = False
-            k = base.wavenumber() if self.quantity == "free_air_anomaly" else None
-            self.tiers[shape] = (base, spectrum, k)
+            terms = None
+            if self.quantity == "free_air_anomaly":
+                assert self.layers is not None
+                top, interfaces = gravity_terms(base.wavenumber(), self.layers, self.plate)
+                scale = 2.0 * math.pi * GRAVITATIONAL_CONSTANT / (self.plate.gravity * MGAL)
+                terms = (top * scale, interfaces * scale)
+            self.tiers[shape] = (base, spectrum, terms)
         base, spectrum, k = self.tiers[shape]
         return base.with_rigidity(rigidity), spectrum, k
 
@@ -201,11 +206,10 @@ class _Forward:
             return self.deflection(te)
         if self.quantity == "surface":
             return -self.deflection(te)
-        problem, spectrum, k = self._problem(te)
-        assert self.layers is not None and k is not None
-        response = problem.transfer() * problem.stiffness
-        factor = compensation_factor(k, response, self.layers, self.plate)
-        factor *= 2.0 * math.pi * GRAVITATIONAL_CONSTANT / (self.plate.gravity * MGAL)
+        problem, spectrum, terms = self._problem(te)
+        assert terms is not None
+        top, interfaces = terms  # both scaled by 2 pi G / (g mGal)
+        factor = top - problem.transfer() * problem.stiffness * interfaces
         return problem.crop(problem.inverse(scale_spectrum(spectrum, factor)))
 
 
@@ -332,6 +336,20 @@ def fit_te(
     -----
     OpenIntervalWarning
         When the interval reaches a search bound.
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> import gridflex
+    >>> x = (np.arange(64) - 32) * 5e3
+    >>> r2 = x[:, None] ** 2 + x[None, :] ** 2
+    >>> load = xr.DataArray(2e7 * np.exp(-r2 / (2 * 12e3**2)), dims=("y", "x"),
+    ...                     coords={"y": x, "x": x})
+    >>> w = gridflex.solve(load, gridflex.Plate(te=20e3))["deflection"]
+    >>> noise = np.random.default_rng(0).normal(0.0, 0.02 * float(w.max()), w.shape)
+    >>> fit = gridflex.fit_te(w + noise + 3.0, load, gridflex.Plate(te=0.0))
+    >>> round(fit.te / 1e3), fit.te_low < 20e3 < fit.te_high, round(fit.offset)
+    (20, True, 3)
     """
     if not isinstance(plate, Plate):
         raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")

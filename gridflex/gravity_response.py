@@ -27,7 +27,13 @@ import numpy as np
 from .errors import InputError
 from .plate import Plate
 
-__all__ = ["GRAVITATIONAL_CONSTANT", "MGAL", "CrustLayers", "compensation_factor"]
+__all__ = [
+    "GRAVITATIONAL_CONSTANT",
+    "MGAL",
+    "CrustLayers",
+    "compensation_factor",
+    "gravity_terms",
+]
 
 GRAVITATIONAL_CONSTANT = 6.67430e-11
 """G (m³ kg⁻¹ s⁻²), CODATA 2018 (PHYSICS.md section 0)."""
@@ -124,9 +130,29 @@ def compensation_factor(
         C(k); the free-air anomaly spectrum is ``2 pi G C(k) Q(k) / g`` (m s⁻²).
         C(0) = 0 when Φ(0) = 1 (full compensation).
     """
+    top, interfaces = gravity_terms(wavenumber, layers, plate)
+    return top - response * interfaces
+
+
+def gravity_terms(
+    wavenumber: np.ndarray, layers: CrustLayers, plate: Plate
+) -> tuple[np.ndarray, np.ndarray]:
+    """The plate-independent parts of :func:`compensation_factor`.
+
+    Returns
+    -------
+    top : numpy.ndarray
+        e^{-k z_t}, the upward continuation from the sea floor.
+    interfaces : numpy.ndarray
+        ((rho_c - rho_f) e^{-k z_t} + (rho_m - rho_c) e^{-k (z_t + t_c)}) / (rho_m - rho_f),
+        the flexed interfaces per unit of compensation.
+
+    With them, C(k) = top - Φ(k) interfaces for any rigidity (cache them when many
+    plates are tried on one grid).
+    """
     layers.check_plate(plate)
     top = np.exp(-wavenumber * layers.seafloor_depth)
     moho = top * np.exp(-wavenumber * layers.crust_thickness)
     rho_m, rho_f, rho_c = plate.mantle_density, plate.infill_density, layers.crust_density
     interfaces = ((rho_c - rho_f) * top + (rho_m - rho_c) * moho) / (rho_m - rho_f)
-    return top - response * interfaces
+    return top, interfaces
