@@ -50,7 +50,6 @@ _LONG_NAMES = {
     "surface": "elevation of the flexed surface (positive upward)",
     "free_air_anomaly": "free-air gravity anomaly",
 }
-_NUISANCE = 1  # the constant offset
 _REFINE_XTOL = 1e-4  # in ln(Te): 0.01 % of Te
 _ROOT_XTOL = 1e-4
 
@@ -77,6 +76,8 @@ class TeFit:
         Whether the low and the high bound were reached inside the search range.
     offset : float
         Fitted constant added to the model (unit of the observation).
+    load_scale : float
+        Fitted factor on the load (1 unless ``fit_load_scale``).
     rms : float
         RMS misfit at the best Te (unit of the observation).
     quantity : str
@@ -103,6 +104,7 @@ class TeFit:
     te_high: float
     interval_closed: tuple[bool, bool]
     offset: float
+    load_scale: float
     rms: float
     quantity: str
     confidence: float
@@ -123,6 +125,7 @@ class TeFit:
             "interval_closed": list(self.interval_closed),
             "confidence": self.confidence,
             "offset": self.offset,
+            "load_scale": self.load_scale,
             "rms_misfit": self.rms,
             "rss_threshold": self.threshold,
             "n_data": self.n_data,
@@ -236,6 +239,23 @@ def _check_mask(mask: Any, observed: xr.DataArray, load: xr.DataArray) -> np.nda
     return values & valid
 
 
+def _nuisance_fit(data: np.ndarray, model: np.ndarray, scale: bool) -> tuple[float, float, float]:
+    """Least-squares offset (and load scale) of ``data ≈ s model + c``: (rss, s, c)."""
+    d_mean = float(data.mean())
+    dc = data - d_mean
+    if not scale:
+        r = dc - (model - model.mean())
+        # einsum, not the BLAS dot: its thread start-up costs ms per call here
+        return float(np.einsum("i,i", r, r)), 1.0, d_mean - float(model.mean())
+    m_mean = float(model.mean())
+    mc = model - m_mean
+    mm = float(np.einsum("i,i", mc, mc))
+    dm = float(np.einsum("i,i", dc, mc))
+    s = dm / mm if mm > 0 else 0.0
+    rss = max(float(np.einsum("i,i", dc, dc)) - s * dm, 0.0)
+    return rss, s, d_mean - s * m_mean
+
+
 def _correlation_factor(residual: np.ndarray, inside: np.ndarray, spec: GridSpec) -> float:
     """Sum of the residual autocorrelation over the lags of its first correlation ring.
 
@@ -266,7 +286,7 @@ def _correlation_factor(residual: np.ndarray, inside: np.ndarray, spec: GridSpec
     nonpositive = np.nonzero((counts > 0) & (mean <= 0.0))[0]
     stop = int(nonpositive[0]) if nonpositive.size else len(mean)
     factor = float(sums[:stop].sum())
-    return min(max(factor, 1.0), n / (_NUISANCE + 2))
+    return min(max(factor, 1.0), n / 4.0)
 
 
 def fit_te(
@@ -280,6 +300,7 @@ def fit_te(
     confidence: float = 0.95,
     samples: int = 25,
     correlated_residuals: bool = True,
+    fit_load_scale: bool = False,
     gravity: CrustLayers | Mapping[str, float] | None = None,
     edges: str = "infinite",
     pad_factor: float = DEFAULT_PAD_FACTOR,
@@ -313,6 +334,10 @@ def fit_te(
     correlated_residuals : bool, default True
         Estimate n_eff from the autocorrelation of the best residuals (widens the
         interval when they are correlated in space); False assumes independent data.
+    fit_load_scale : bool, default False
+        Also fit a factor s on the load (model s m + c), a linear nuisance
+        parameter re-fitted at each Te: for a load of known shape and uniform
+        density, s = fitted / given density contrast (PHYSICS.md 8.1 "load scaling").
     gravity : CrustLayers or mapping, optional
         Interface depths and crustal density; required for ``free_air_anomaly``.
     edges : {"infinite", "periodic"}, default "infinite"
@@ -372,7 +397,8 @@ def fit_te(
     check_same_grid(observed, load, "observed")
     inside = _check_mask(mask, observed, load)
     n = int(inside.sum())
-    if n < _NUISANCE + 3:
+    parameters = 3 if fit_load_scale else 2  # te, offset (and load scale)
+    if n < parameters + 2:
         raise InputError(f"only {n} cells are compared (mask and finite observed); need >= 4")
     layers = None
     if quantity == "free_air_anomaly":
@@ -400,9 +426,7 @@ def fit_te(
     def rss(log_te: float) -> float:
         te = float(math.exp(log_te))
         if te not in rss_cache:
-            r = data - forward.model(te)[inside]
-            r -= r.mean()
-            rss_cache[te] = float(np.einsum("i,i", r, r))  # not BLAS dot: thread start-up cost
+            rss_cache[te] = _nuisance_fit(data, forward.model(te)[inside], fit_load_scale)[0]
         return rss_cache[te]
 
     grid = np.linspace(math.log(low), math.log(high), int(samples))
@@ -420,14 +444,16 @@ def fit_te(
     rss_min = rss(best_x)
     te_best = math.exp(best_x)
 
-    model = forward.model(te_best)
-    residual = data - model[inside]
-    offset = float(residual.mean())
+    _, load_scale, offset = _nuisance_fit(data, forward.model(te_best)[inside], fit_load_scale)
+    model = load_scale * forward.model(te_best)
+    predicted = model + offset
     factor = 1.0
     if correlated_residuals:
-        full_residual = np.where(inside, np.asarray(observed.values, dtype=np.float64) - model, 0.0)
+        full_residual = np.where(
+            inside, np.asarray(observed.values, dtype=np.float64) - predicted, 0.0
+        )
         factor = _correlation_factor(full_residual, inside, spec)
-    s2 = rss_min / (n - _NUISANCE - 1)
+    s2 = rss_min / (n - parameters)
     threshold = float(scipy.stats.chi2.ppf(confidence, 1)) * s2 * factor
 
     def excess(x: float) -> float:
@@ -484,6 +510,7 @@ def fit_te(
         "padded_shape": np.array(forward._problem(te_best)[0].shape, dtype=np.int64),
         "fit_quantity": quantity,
         "fit_offset": offset,
+        "fit_load_scale": load_scale,
         "fit_rms_misfit": math.sqrt(rss_min / n),
         "fit_te_low": bounds_out[0],
         "fit_te_high": bounds_out[1],
@@ -491,9 +518,10 @@ def fit_te(
     }
     if layers is not None:
         attrs.update({f"gravity_{k}": v for k, v in layers.describe().items()})
-    ds = result_dataset(load, forward.deflection(te_best), best_plate, attrs)
+    ds = result_dataset(
+        load * load_scale, load_scale * forward.deflection(te_best), best_plate, attrs
+    )
     unit_attrs = {"units": _UNITS[quantity]}
-    predicted = model + offset
     ds["observed"] = (
         ("y", "x"),
         np.asarray(observed.values, dtype=np.float64),
@@ -523,6 +551,7 @@ def fit_te(
         te_high=bounds_out[1],
         interval_closed=(closed[0], closed[1]),
         offset=offset,
+        load_scale=load_scale,
         rms=math.sqrt(rss_min / n),
         quantity=quantity,
         confidence=float(confidence),

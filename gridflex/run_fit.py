@@ -122,7 +122,8 @@ def fit_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = No
     fit = fit_te(
         observed, load, plate, quantity, mask, (table["te_min"], table["te_max"]),
         confidence=table["confidence"], samples=table["samples"],
-        correlated_residuals=table["correlated_residuals"], gravity=gravity,
+        correlated_residuals=table["correlated_residuals"],
+        fit_load_scale=table["fit_load_scale"], gravity=gravity,
         edges=solver["edges"], pad_factor=solver["pad_factor"], progress=progress,
     )
     outcome = FitOutcome(fit=fit)

@@ -130,6 +130,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "confidence": Key("number", "confidence level of the te interval", 0.95, minimum=0.0),
         "correlated_residuals": Key("bool", "widen the interval for correlated residuals",
                                     True),
+        "fit_load_scale": Key("bool", "also fit a factor on the load (its density contrast)",
+                              False),
         "seafloor_depth": Key("quantity", "depth of the undeflected plate top below the "
                               "gravity observations (free_air_anomaly)", None, "length",
                               minimum=0.0),

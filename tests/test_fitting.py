@@ -237,3 +237,19 @@ def test_misfit_plot_written(synthetic, tmp_path):
     assert image.ndim == 3 and image.shape[0] > 100  # a real raster was written and read back
     with pytest.raises(InputError, match="output exists"):
         plot_misfit(fit, path)
+
+
+def test_load_scale_recovers_density_contrast(synthetic):
+    load, plate, w, noise, _ = synthetic
+    assumed = load * (1500.0 / 1770.0)  # the same edifice with a guessed contrast of 1500
+    fit = fit_te(w + noise, assumed, plate, fit_load_scale=True)
+    # linear plate: w scales with the load (Turcotte & Schubert 2002, ch. 3), so the fitted
+    # scale is the true over the assumed contrast; synthetic recovery tolerances
+    assert_allclose(fit.load_scale, 1770.0 / 1500.0, rtol=0.02)
+    assert_allclose(fit.te, TRUE_TE, rtol=0.05)
+    assert fit.te_low < TRUE_TE < fit.te_high
+    assert_allclose(fit.model["load"], load, rtol=0.02)
+    # without the scale the wrong contrast biases te (the amplitude is then fitted by te)
+    biased = fit_te(w + noise, assumed, plate)
+    assert not biased.te_low < TRUE_TE < biased.te_high
+    assert biased.load_scale == 1.0

@@ -27,6 +27,8 @@ def execute(args: argparse.Namespace) -> int:
         closed = "" if all(fit.interval_closed) else " (open: reaches a search bound)"
         print(f"te = {fit.te / 1e3:.3f} km, {fit.confidence:.0%} interval "
               f"[{fit.te_low / 1e3:.3f}, {fit.te_high / 1e3:.3f}] km{closed}")
+        if fit.load_scale != 1.0:
+            print(f"load scale = {fit.load_scale:.4f} (fitted / given load)")
         print(f"offset = {fit.offset:.6g}, RMS misfit = {fit.rms:.6g} "
               f"({fit.n_data} cells, about {fit.n_effective:.0f} independent)")
         for path in outcome.written:
