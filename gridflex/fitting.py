@@ -34,7 +34,7 @@ from .errors import GridflexWarning, InputError
 from .gravity_response import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, gravity_terms
 from .grid import GridSpec, check_grid, check_same_grid, padded_shape
 from .plate import Plate, rigidity_from_te
-from .solve import EDGES, deflection_attrs, result_dataset
+from .solve import EDGES, _warn_edge_load, deflection_attrs, result_dataset
 from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem, decay_length, scale_spectrum
 
 __all__ = ["QUANTITIES", "OpenIntervalWarning", "TeFit", "fit_te"]
@@ -410,8 +410,11 @@ def fit_te(
         layers = gravity if isinstance(gravity, CrustLayers) else CrustLayers(**dict(gravity))
         layers.check_plate(plate)
 
+    load_values = np.asarray(load.values, dtype=np.float64)
+    if edges == "infinite":
+        _warn_edge_load(load_values, float(np.abs(load_values).sum()))
     forward = _Forward(
-        np.asarray(load.values, dtype=np.float64),
+        load_values,
         spec,
         plate,
         high,

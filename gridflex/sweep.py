@@ -1,6 +1,6 @@
 """Parameter sweeps with dask: one flexure solve per combination of values.
 
-Each combination of the swept values is one task that calls
+Each combination of the swept values is one task running the spectral solve of
 :func:`gridflex.solve`; tasks run on this machine's threads by default, or on an
 existing :mod:`dask.distributed` cluster given its scheduler address. The
 result is one :class:`xarray.Dataset` with a dimension per swept parameter.
@@ -22,8 +22,8 @@ from .errors import InputError
 from .grid import check_grid
 from .memory import check_memory
 from .plate import Plate
-from .solve import SIGN_CONVENTION, deflection_attrs, solve
-from .solvers.spectral import DEFAULT_PAD_FACTOR
+from .solve import EDGES, SIGN_CONVENTION, _warn_edge_load, deflection_attrs
+from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 
 __all__ = ["FORCE_PARAMETERS", "LOCAL_SCHEDULERS", "PLATE_PARAMETERS", "sweep"]
 
@@ -105,13 +105,25 @@ def _plate_for(plate: Plate, plate_kw: Mapping[str, float]) -> Plate:
 def _solve_one(
     load: LoadLike, plate: Plate, combo: dict[str, float], edges: str, pad_factor: float
 ) -> tuple[np.ndarray, float]:
-    """One task: the deflection (m) and force-balance residual of one combination."""
+    """One task: the deflection (m) and force-balance residual of one combination.
+
+    The same spectral solve as :func:`gridflex.solve` for a constant te, without its
+    warnings (they are given once, on the caller's side, by :func:`sweep`: warning
+    filters are process-global and not safe to change from worker threads).
+    """
     plate_kw, force_kw, load_kw = _split(combo)
     grid = load(**load_kw) if callable(load) and not isinstance(load, xr.DataArray) else load
-    result = solve(
-        grid, _plate_for(plate, plate_kw), edges=edges, pad_factor=pad_factor, **force_kw
+    trial = _plate_for(plate, plate_kw)
+    problem = SpectralProblem.build(
+        check_grid(grid),
+        float(trial.rigidity),
+        trial.restoring_stiffness,
+        force_kw["inplane_force_x"],
+        force_kw["inplane_force_y"],
+        periodic=(edges == "periodic"),
+        pad_factor=pad_factor,
     )
-    return result["deflection"].values, float(result.attrs["force_balance_residual"])
+    return problem.deflection(np.asarray(grid.values, dtype=np.float64))
 
 
 def _client_for(scheduler: Any) -> Any:
@@ -253,14 +265,18 @@ def sweep(
     values = {name: _check_values(name, parameters[name]) for name in names}
     shape = tuple(values[name].size for name in names)
     combos = [
-        dict(zip(names, map(float, c), strict=True))
-        for c in itertools.product(*values.values())
+        dict(zip(names, map(float, c), strict=True)) for c in itertools.product(*values.values())
     ]
     for combo in combos:  # fail early, on the client, for an invalid plate
         _plate_for(plate, _split(combo)[0])
 
+    if edges not in EDGES:
+        raise InputError(f"edges must be one of {', '.join(map(repr, EDGES))}; got {edges!r}")
     template = load if load_is_grid else load(**_split(combos[0])[2])
     spec = check_grid(template)
+    if edges == "infinite":
+        grid_values = np.asarray(template.values, dtype=np.float64)
+        _warn_edge_load(grid_values, float(np.abs(grid_values).sum()))
     check_memory(
         2.0 * 8.0 * math.prod(shape) * spec.ny * spec.nx,
         f"sweep result of {math.prod(shape)} grids of {spec.ny} x {spec.nx}",
@@ -292,9 +308,11 @@ def sweep(
         "swept_parameters": " ".join(names),
         "edges": edges,
         "pad_factor": float(pad_factor),
-        **{f"inplane_force_{axis}": force for axis, force in
-           (("x", float(inplane_force_x)), ("y", float(inplane_force_y)))
-           if not set(names) & set(FORCE_PARAMETERS)},
+        **{
+            f"inplane_force_{axis}": force
+            for axis, force in (("x", float(inplane_force_x)), ("y", float(inplane_force_y)))
+            if not set(names) & set(FORCE_PARAMETERS)
+        },
         **plate_attrs,
     }
     return xr.Dataset(

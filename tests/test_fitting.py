@@ -253,3 +253,10 @@ def test_load_scale_recovers_density_contrast(synthetic):
     biased = fit_te(w + noise, assumed, plate)
     assert not biased.te_low < TRUE_TE < biased.te_high
     assert biased.load_scale == 1.0
+
+
+def test_edge_load_warns(synthetic):
+    load, plate, w, noise, _ = synthetic
+    cut = slice(0, N // 2 + 2)
+    with pytest.warns(gridflex.EdgeLoadWarning, match="grid edge"):
+        fit_te((w + noise).isel(x=cut), load.isel(x=cut), plate, samples=6)

@@ -110,3 +110,15 @@ def test_bad_parameters(parameters, match):
 def test_bad_scheduler():
     with pytest.raises(InputError, match="scheduler must be"):
         sweep(_load(), PLATE, {"te": [1e3]}, scheduler=42)
+
+
+def test_edge_load_warned_once_on_the_caller_side():
+    cut = _load().isel(x=slice(0, N // 2 + 1))  # the load is cut by the grid edge
+    with pytest.warns(gridflex.EdgeLoadWarning, match="grid edge") as record:
+        sweep(cut, PLATE, {"te": TES})
+    assert len([w for w in record if issubclass(w.category, gridflex.EdgeLoadWarning)]) == 1
+
+
+def test_bad_edges():
+    with pytest.raises(InputError, match="edges must be one of"):
+        sweep(_load(), PLATE, {"te": [1e3]}, edges="mirror")
