@@ -165,3 +165,12 @@ te = ["12 km"]
             np.abs(w.sel(load_density=2400.0)) > 1e-6), 1770.0 / 1370.0, rtol=1e-9)
         single = solve(load, Plate(te=12e3))["deflection"]
         assert_allclose(w.sel(load_density=2800.0).values, single.values, rtol=1e-10)
+
+
+def test_estimate_te_example_runs(tmp_path):
+    script = Path(__file__).resolve().parents[1] / "examples" / "estimate_te.py"
+    done = subprocess.run([sys.executable, str(script), str(tmp_path)], capture_output=True,
+                          text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert "(truth 18)" in done.stdout and "(truth 25)" in done.stdout
+    assert (tmp_path / "misfit.png").exists() and (tmp_path / "admittance.png").exists()
