@@ -171,7 +171,7 @@ class _Forward:
         return float(rigidity_from_te(te, self.plate.youngs_modulus, self.plate.poisson_ratio))
 
     def _problem(self, te: float) -> tuple[SpectralProblem, np.ndarray, Any]:
-        """Problem, load spectrum and wavenumbers on the padding tier of *te*.
+        """Problem, load spectrum and (scaled) gravity terms on the padding tier of *te*.
 
         Padding distances come in steps of sqrt(2) below the largest one, so a
         trial plate gets at least its own pad_factor decay lengths (more is only

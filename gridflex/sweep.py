@@ -8,6 +8,7 @@ result is one :class:`xarray.Dataset` with a dimension per swept parameter.
 
 from __future__ import annotations
 
+import dataclasses
 import itertools
 import logging
 import math
@@ -90,16 +91,8 @@ def _split(combo: Mapping[str, float]) -> tuple[dict, dict, dict]:
 
 
 def _plate_for(plate: Plate, plate_kw: Mapping[str, float]) -> Plate:
-    fields = {
-        "te": plate.te,
-        "youngs_modulus": plate.youngs_modulus,
-        "poisson_ratio": plate.poisson_ratio,
-        "mantle_density": plate.mantle_density,
-        "infill_density": plate.infill_density,
-        "gravity": plate.gravity,
-    }
-    fields.update(plate_kw)
-    return Plate(**fields)
+    """*plate* with the swept fields replaced (validated again by Plate)."""
+    return dataclasses.replace(plate, **plate_kw)
 
 
 def _solve_one(
