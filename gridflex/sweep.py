@@ -255,6 +255,8 @@ def sweep(
             "sweep either 'inplane_force' or 'inplane_force_x'/'inplane_force_y', not both"
         )
     names = list(parameters)
+    if plate.is_variable and "te" not in names:
+        raise InputError("sweeps need a constant te: the plate has a te grid and te is not swept")
     values = {name: _check_values(name, parameters[name]) for name in names}
     shape = tuple(values[name].size for name in names)
     combos = [
