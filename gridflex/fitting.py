@@ -114,9 +114,20 @@ class TeFit:
     misfit: xr.DataArray = field(repr=False)
     model: xr.Dataset = field(repr=False)
 
+    @property
+    def criterion(self) -> str:
+        """The rule that bounds the interval, in words and numbers."""
+        quantile = float(scipy.stats.chi2.ppf(self.confidence, 1))
+        return (
+            f"profile likelihood: (RSS - RSS_min) / s^2 * n_eff / n = chi2_1({self.confidence:g})"
+            f" = {quantile:.4g}, s^2 = RSS_min / (n - p), n = {self.n_data}, "
+            f"n_eff = {self.n_effective:.4g}"
+        )
+
     def summary(self) -> dict[str, Any]:
         """JSON-ready summary (SI units; the offset and RMS in the observation's unit)."""
         return {
+            "interval_criterion": self.criterion,
             "quantity": self.quantity,
             "unit": _UNITS[self.quantity],
             "te": self.te,
