@@ -272,7 +272,8 @@ def _correlation_factor(residual: np.ndarray, inside: np.ndarray, spec: GridSpec
 
     This is the number of data per independent datum, n / n_eff, for residuals
     correlated over an area (common practice: the correlation area taken as the
-    region where the radially averaged autocorrelation is still positive).
+    region where the radially averaged autocorrelation is still significantly
+    positive).
     """
     r = np.where(inside, residual - residual[inside].mean(), 0.0)
     m = inside.astype(np.float64)
@@ -294,8 +295,13 @@ def _correlation_factor(residual: np.ndarray, inside: np.ndarray, spec: GridSpec
     counts = np.bincount(ring[usable])
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = sums / counts
-    nonpositive = np.nonzero((counts > 0) & (mean <= 0.0))[0]
-    stop = int(nonpositive[0]) if nonpositive.size else len(mean)
+    # first ring whose mean correlation is not significantly positive (2 standard errors of
+    # a mean over that ring's lags for uncorrelated residuals, ~1/sqrt(n * lags))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        noise_level = 2.0 / np.sqrt(n * counts)
+    flat = np.nonzero((counts > 0) & (mean <= noise_level))[0]
+    flat = flat[flat > 0]
+    stop = int(flat[0]) if flat.size else len(mean)
     factor = float(sums[:stop].sum())
     return min(max(factor, 1.0), n / 4.0)
 
