@@ -51,7 +51,7 @@ _LONG_NAMES = {
     "free_air_anomaly": "free-air gravity anomaly",
 }
 _REFINE_XTOL = 1e-4  # in ln(Te): 0.01 % of Te
-_ROOT_XTOL = 1e-4
+_ROOT_XTOL = 1e-6  # in ln(Te)
 
 Progress = Callable[..., Any]
 
