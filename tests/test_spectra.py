@@ -166,3 +166,25 @@ def test_spectral_plot_written(compensated, tmp_path):
     path = tmp_path / "admittance.png"
     assert plot_spectral_fit(fit, path) == path
     assert imread(path).shape[0] > 100
+
+
+def test_forsyth_curves_from_the_two_load_model():
+    """Forsyth (1985): uncorrelated initial surface (H_I) and Moho (W_I) loads, final
+    topography H = H_I/(1+a) - b W_I/(1+b) and Moho relief W = -a H_I/(1+a) + W_I/(1+b)
+    (PHYSICS.md 8.2, a = rho_c/(drho xi), b = drho/(rho_c phi)); the expected cross-spectra
+    give the coherence and Bouguer admittance, which must equal eqs. 8.1 and 8.2."""
+    plate = gridflex.Plate(te=30e3)
+    rho_c, z_m, f = 2800.0, 35e3, 0.8
+    drho = plate.mantle_density - rho_c
+    k = np.geomspace(1e-6, 1e-3, 12)
+    d, g = plate.rigidity, plate.gravity
+    xi, phi = 1 + d * k**4 / (drho * g), 1 + d * k**4 / (rho_c * g)
+    a, b = rho_c / (drho * xi), drho / (rho_c * phi)
+    var_t, var_b = 1.0, (f * rho_c / drho) ** 2  # f = drho W_I / (rho_c H_I)
+    hw = -a / (1 + a) ** 2 * var_t - b / (1 + b) ** 2 * var_b
+    hh = var_t / (1 + a) ** 2 + b**2 * var_b / (1 + b) ** 2
+    ww = a**2 * var_t / (1 + a) ** 2 + var_b / (1 + b) ** 2
+    assert_allclose(bouguer_coherence(k, plate, rho_c, f), hw**2 / (hh * ww), rtol=1e-12)
+    bouguer_per_moho = 2 * math.pi * GRAVITATIONAL_CONSTANT * drho * np.exp(-k * z_m) / 1e-5
+    assert_allclose(bouguer_admittance(k, plate, rho_c, f, z_m), bouguer_per_moho * hw / hh,
+                    rtol=1e-12)
