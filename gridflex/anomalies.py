@@ -140,17 +140,26 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
     return w_da, top, final, reference, info
 
 
-def _spectrum_sum(interfaces, sign, spec, plane, terms, shape, total, last, isolated):
-    """Add sign * the Parker spectra of *interfaces* to *total* and their last terms
-    to *last* (arrays on the FFT grid *shape*)."""
+def _spectrum_sum(interfaces, sign, spec, plane, terms, shape, sums, isolated):
+    """Add sign * the Parker spectra of *interfaces* to ``sums["total"]``, their last
+    terms to ``sums["last"]`` (arrays on the FFT grid *shape*) and their periodic
+    copies' fields to ``sums["images"]`` (on the grid)."""
     for elevation, contrast in interfaces:
         if np.all(np.asarray(contrast) == 0.0) or not np.any(elevation):
             continue
-        spectrum, last_term, _ = parker_spectrum(elevation, contrast, plane, spec, terms, shape,
-                                                 isolated=isolated)
-        total += sign * spectrum
+        spectrum, last_term, _, images = parker_spectrum(
+            elevation, contrast, plane, spec, terms, shape, isolated=isolated)
+        sums["total"] += sign * spectrum
         if last_term is not None:
-            last += sign * last_term
+            sums["last"] += sign * last_term
+        if images is not None:
+            sums["images"] += sign * images
+
+
+def _new_sums(spec, shape) -> dict[str, np.ndarray]:
+    half = (shape[0], shape[1] // 2 + 1)
+    return {"total": np.zeros(half, complex), "last": np.zeros(half, complex),
+            "images": np.zeros(spec.shape)}
 
 
 def _topography_interfaces(top, rho_b, rho_w, reference):
@@ -256,24 +265,19 @@ def model_gravity(
     deepest = height - min(float(e.min()) for e, _ in final + reference)
     shape = spec.shape if edges == "periodic" else gravity_padded_shape(spec, deepest, pad_factor)
     isolated = edges != "periodic"
-    half = (shape[0], shape[1] // 2 + 1)
-    total, last = np.zeros(half, complex), np.zeros(half, complex)
-    _spectrum_sum(final, 1.0, spec, height, terms, shape, total, last,
-                  isolated)
-    _spectrum_sum(reference, -1.0, spec, height, terms, shape, total, last,
-                  isolated)
-    free_air = spectrum_to_grid(total, spec, shape)
-    last_fa = float(np.abs(spectrum_to_grid(last, spec, shape)).max())
+    sums = _new_sums(spec, shape)
+    _spectrum_sum(final, 1.0, spec, height, terms, shape, sums, isolated)
+    _spectrum_sum(reference, -1.0, spec, height, terms, shape, sums, isolated)
+    free_air = spectrum_to_grid(sums["total"], spec, shape) - sums["images"]
+    last = float(np.abs(spectrum_to_grid(sums["last"], spec, shape)).max())
     topo_add, topo_remove, slab = _topography_interfaces(
         top, rho_b, info["water_density"], info.pop("reference_surface"))
-    total[...] = 0.0
-    last[...] = 0.0
-    _spectrum_sum(topo_add, 1.0, spec, height, terms, shape, total, last,
-                  isolated)
-    _spectrum_sum(topo_remove, -1.0, spec, height, terms, shape, total, last,
-                  isolated)
-    bouguer = free_air - (spectrum_to_grid(total, spec, shape) + slab)
-    last = max(last_fa, float(np.abs(spectrum_to_grid(last, spec, shape)).max()))
+    sums = _new_sums(spec, shape)
+    _spectrum_sum(topo_add, 1.0, spec, height, terms, shape, sums, isolated)
+    _spectrum_sum(topo_remove, -1.0, spec, height, terms, shape, sums, isolated)
+    topography = spectrum_to_grid(sums["total"], spec, shape) - sums["images"] + slab
+    bouguer = free_air - topography
+    last = max(last, float(np.abs(spectrum_to_grid(sums["last"], spec, shape)).max()))
     spread = float(free_air.max() - free_air.min())
     if terms > 1 and last > max(0.01 * spread, 1e-3):
         warnings.warn(
