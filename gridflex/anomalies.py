@@ -43,6 +43,7 @@ from .gravity import (
     GRAVITY_EDGES,
     _check_number,
     _check_terms,
+    blocks_to_grid,
     gravity_padded_shape,
     parker_spectrum,
     spectrum_to_grid,
@@ -153,13 +154,19 @@ def _spectrum_sum(interfaces, sign, spec, plane, terms, shape, sums, isolated):
         if last_term is not None:
             sums["last"] += sign * last_term
         if images is not None:
+            if sums["images"] is None:
+                sums["images"] = np.zeros_like(images)
             sums["images"] += sign * images
 
 
-def _new_sums(spec, shape) -> dict[str, np.ndarray]:
+def _images(sums, spec) -> np.ndarray | float:
+    return 0.0 if sums["images"] is None else blocks_to_grid(sums["images"], spec)
+
+
+def _new_sums(spec, shape) -> dict[str, np.ndarray | None]:
     half = (shape[0], shape[1] // 2 + 1)
     return {"total": np.zeros(half, complex), "last": np.zeros(half, complex),
-            "images": np.zeros(spec.shape)}
+            "images": None}
 
 
 def _topography_interfaces(top, rho_b, rho_w, reference):
@@ -268,14 +275,14 @@ def model_gravity(
     sums = _new_sums(spec, shape)
     _spectrum_sum(final, 1.0, spec, height, terms, shape, sums, isolated)
     _spectrum_sum(reference, -1.0, spec, height, terms, shape, sums, isolated)
-    free_air = spectrum_to_grid(sums["total"], spec, shape) - sums["images"]
+    free_air = spectrum_to_grid(sums["total"], spec, shape) - _images(sums, spec)
     last = float(np.abs(spectrum_to_grid(sums["last"], spec, shape)).max())
     topo_add, topo_remove, slab = _topography_interfaces(
         top, rho_b, info["water_density"], info.pop("reference_surface"))
     sums = _new_sums(spec, shape)
     _spectrum_sum(topo_add, 1.0, spec, height, terms, shape, sums, isolated)
     _spectrum_sum(topo_remove, -1.0, spec, height, terms, shape, sums, isolated)
-    topography = spectrum_to_grid(sums["total"], spec, shape) - sums["images"] + slab
+    topography = spectrum_to_grid(sums["total"], spec, shape) - _images(sums, spec) + slab
     bouguer = free_air - topography
     last = max(last, float(np.abs(spectrum_to_grid(sums["last"], spec, shape)).max()))
     spread = float(free_air.max() - free_air.min())

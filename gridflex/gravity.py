@@ -37,6 +37,7 @@ __all__ = [
     "DEFAULT_GRAVITY_PAD_FACTOR",
     "GRAVITY_EDGES",
     "gravity_padded_shape",
+    "blocks_to_grid",
     "image_field",
     "interface_gravity",
     "parker_series",
@@ -161,7 +162,7 @@ def parker_series(
                                                  shape, isolated=not periodic)
     anomaly = spectrum_to_grid(total, spec, shape)
     if images is not None:
-        anomaly -= images
+        anomaly -= blocks_to_grid(images, spec)
     last_change = (float(np.abs(spectrum_to_grid(last, spec, shape)).max())
                    if terms > 1 and last is not None else (0.0 if last is None else math.inf))
     info = {
@@ -231,7 +232,7 @@ def image_field(
     z_sheet: float,
     z_base: float,
 ) -> np.ndarray:
-    """Field (in units of 2 pi G) of the periodic copies an FFT of *shape* adds on the grid.
+    """Field (in units of 2 pi G) of the periodic copies an FFT of *shape* adds, on blocks.
 
     Parameters
     ----------
@@ -249,11 +250,16 @@ def image_field(
     -----
     The copies' kernels vary on the scale of the FFT grid, so the convolution is done
     on blocks of 8 x 8 cells (block sums, an aperiodic FFT convolution on the block
-    grid) and splined back to the cells; the error is of order (block / period)^2 of
-    the (already small) correction.
+    grid); :func:`blocks_to_grid` splines the result back to the cells. The error is
+    of order (block / period)^2 of the (already small) correction.
+
+    Returns
+    -------
+    numpy.ndarray
+        The field at the block centres (blocks of :func:`blocks_to_grid`).
     """
     ny, nx = spec.shape
-    step = _IMAGE_STEP if min(ny, nx) >= 8 * _IMAGE_STEP else 1
+    step = _image_step(spec)
     cy, cx = -(-ny // step), -(-nx // step)
     periods = (shape[0] * spec.dy, shape[1] * spec.dx)
     my = np.arange(-(cy - 1), cy) * (step * spec.dy)
@@ -275,9 +281,20 @@ def image_field(
         padded = np.zeros(conv_shape)
         padded[:cy, :cx] = blocks
         total += scipy.fft.rfft2(padded) * scipy.fft.rfft2(wrapped)
-    coarse = scipy.fft.irfft2(total, s=conv_shape)[:cy, :cx] * (spec.dy * spec.dx)
+    return scipy.fft.irfft2(total, s=conv_shape)[:cy, :cx] * (spec.dy * spec.dx)
+
+
+def _image_step(spec: GridSpec) -> int:
+    return _IMAGE_STEP if min(spec.ny, spec.nx) >= 8 * _IMAGE_STEP else 1
+
+
+def blocks_to_grid(coarse: np.ndarray, spec: GridSpec) -> np.ndarray:
+    """Spline an :func:`image_field` block-grid field (or a sum of them) onto the cells."""
+    step = _image_step(spec)
     if step == 1:
         return coarse
+    ny, nx = spec.shape
+    cy, cx = coarse.shape
     centres_y = np.arange(cy) * step + 0.5 * (step - 1)
     centres_x = np.arange(cx) * step + 0.5 * (step - 1)
     along_y = CubicSpline(centres_y, coarse, axis=0)(np.arange(ny))
@@ -306,8 +323,9 @@ def parker_spectrum(
     ratio : float
         Convergence ratio, half the relief range over the mid-depth.
     images : numpy.ndarray or None
-        With *isolated*: the field (mGal, on the grid) of the FFT grid's periodic
-        copies, to subtract from the inverted spectrum; None otherwise.
+        With *isolated*: the field (mGal, on blocks: :func:`blocks_to_grid`) of the
+        FFT grid's periodic copies, to subtract from the inverted spectrum; None
+        otherwise.
 
     With *isolated*, the field of the periodic copies of the padded grid for the flat
     layer and the first two series terms (:func:`image_field`), whose kernels fall
