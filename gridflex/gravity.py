@@ -15,6 +15,11 @@ For an interface at depth ``z0 - h(x, y)`` below a level observation plane
 measured upward). The series is summed about the mid-depth of the interface,
 which makes it converge fastest; the flat layer between that level and the
 requested reference level is added exactly (PHYSICS.md eq. 6.3).
+
+An isolated relief (``edges="infinite"``) is zero-padded by half the grid extent
+per side, and the fields that the FFT's periodic copies of the padded grid would
+add (they fall off only like depth / r^3) are computed and subtracted for the
+layer and the first two series terms (:func:`image_field`).
 """
 
 from __future__ import annotations
