@@ -46,6 +46,7 @@ import xarray as xr
 
 from .errors import ConvergenceError, InputError
 from .grid import GridSpec, check_grid, check_same_grid, grid_values
+from .memory import check_memory
 from .plate import Plate
 from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 
@@ -542,6 +543,11 @@ def solve_with_infill(
         check_same_grid(infill.sediment_mask, load, "sediment_mask")
         mask = _extend(np.asarray(infill.sediment_mask.values, dtype=bool).astype(np.float64),
                        shape, window)
+    # column grids and per-iteration temporaries (~12 working grids), plus the Anderson
+    # history (2 per remembered step, and the last pair)
+    grids = 12 + (2 * _ANDERSON_DEPTH + 4 if acceleration == "anderson" else 0)
+    check_memory(8.0 * shape[0] * shape[1] * grids,
+                 f"infill iteration on a working grid of {shape[0]} x {shape[1]}")
     load_work = np.zeros(shape)
     load_work[window] = values
     column = _Column(load_work, _extend(surface, shape, window), infill, g, level, mask)
