@@ -21,6 +21,9 @@ density (PHYSICS.md 6.4): +rho_B above sea level, -(rho_B - rho_w) for the sea;
 beyond the grid the topography is taken to be the reference surface at the level
 of its edges.
 
+An infill result with a buried load (``load_root``) has load material of
+``load_density`` as the fill under the load.
+
 A plain :func:`gridflex.solve` result is read as a column whose depression is
 filled with ``plate_infill_density`` material when that is denser than water
 (a solid fill of thickness w), and with water below sea level (air above)
@@ -114,6 +117,10 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
     if "fill_sediment" in result:
         fill = np.asarray(result["fill_sediment"].values, dtype=np.float64)
         rho_fill = float(result.attrs.get("infill_sediment_density", rho_w))
+        if "load_root" in result:  # a buried load: load material fills under it
+            root = np.asarray(result["load_root"].values, dtype=np.float64)
+            rho_fill = np.where(root != 0.0, rho_l, rho_fill)
+            fill = fill + root
     else:  # constant-density infill of a plain solve: thickness w of plate_infill_density
         rho_fill = _check_number("infill density", _pick("infill density", None, result,
                                                   "plate_infill_density"))
@@ -134,8 +141,9 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
         (z_ref, rho_c - rho_w),
         (z_ref - t_c, rho_m - rho_c),
     ]
+    fill_attr = float(rho_fill) if np.ndim(rho_fill) == 0 else "load under the load, else sediment"
     info = {"water_density": rho_w, "crust_density": rho_c, "crust_thickness": t_c,
-            "mantle_density": rho_m, "load_density": rho_l, "fill_density": rho_fill,
+            "mantle_density": rho_m, "load_density": rho_l, "fill_density": fill_attr,
             "sea_level": sea}
     info["reference_surface"] = z_ref
     return w_da, top, final, reference, info

@@ -153,6 +153,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
                               None, "length"),
         "fill_existing": Key("bool", "to_level: also fill space below the level that existed "
                              "before loading", False),
+        "load_buried": Key("bool", "the surface is observed after flexure: the load's base "
+                           "sank with the plate, the space under it is load material", False),
         "tolerance": Key("quantity", "stop when an iteration changes the deflection by less",
                          1e-4, "length", minimum=0.0),
         "max_iterations": Key("integer", "iterations before giving up", 300, minimum=1),

@@ -204,3 +204,16 @@ def test_lonlat_bathymetry_geotiff_with_infill_and_gravity(tmp_path):
         assert float(ds["fill_sediment"].max()) == 0.0
         assert float(ds["moat_fill"].max()) > 10.0
     assert outcome.summary["max_deflection"] > 10.0
+
+
+def test_buried_load_from_the_scenario(tmp_path):
+    # [infill] load_buried = true reads the elevation model as the surface after flexure
+    # (PHYSICS.md 1.3 b): the surface under the load stays as observed.
+    _write_bathymetry(tmp_path / "bathymetry.nc")
+    text = SCENARIO.replace('sediment = "full"', 'sediment = "none"\nload_buried = true')
+    (tmp_path / "s.toml").write_text(text)
+    result = run_scenario(load_scenario(tmp_path / "s.toml")).result
+    under = result["load_height"].values > 0
+    assert float(result["load_root"].max()) > 10.0
+    assert_allclose(result["surface"].values[under], result["initial_surface"].values[under],
+                    atol=1e-9)
