@@ -7,15 +7,25 @@ Loads (Pa, positive down) on a regular grid in metres go in; an
 import logging
 
 from ._version import __version__
+from .anomalies import model_free_air_anomaly, model_gravity
 from .errors import (
     ConvergenceError,
     EdgeLoadWarning,
+    GravitySeriesWarning,
     GridflexError,
     GridflexWarning,
     InputError,
 )
 from .fitting import TeFit, fit_te
-from .loads import pressure_from_height, pressure_from_layers
+from .gravity import interface_gravity
+from .infill import Infill, solve_with_infill
+from .loads import (
+    load_from_elevation,
+    load_from_layers,
+    pressure_from_height,
+    pressure_from_layers,
+    regional_surface,
+)
 from .plate import Plate, rigidity_from_te, te_from_rigidity
 from .solve import solve
 from .sweep import sweep
@@ -31,8 +41,17 @@ __all__ = [
     # loads
     "pressure_from_height",
     "pressure_from_layers",
+    "load_from_elevation",
+    "load_from_layers",
+    "regional_surface",
     # solving
     "solve",
+    "Infill",
+    "solve_with_infill",
+    # gravity
+    "interface_gravity",
+    "model_gravity",
+    "model_free_air_anomaly",
     # estimating te, sweeping parameters
     "fit_te",
     "TeFit",
@@ -43,4 +62,5 @@ __all__ = [
     "ConvergenceError",
     "GridflexWarning",
     "EdgeLoadWarning",
+    "GravitySeriesWarning",
 ]

@@ -14,6 +14,8 @@ __all__ = [
     "ConvergenceError",
     "GridflexWarning",
     "EdgeLoadWarning",
+    "GravitySeriesWarning",
+    "NodataWarning",
 ]
 
 
@@ -41,3 +43,11 @@ class GridflexWarning(UserWarning):
 
 class EdgeLoadWarning(GridflexWarning):
     """A load reaches the edge of the grid, where it is cut off by the solver."""
+
+
+class GravitySeriesWarning(GridflexWarning):
+    """The gravity series was cut off before its terms became negligible."""
+
+
+class NodataWarning(GridflexWarning):
+    """Missing (nodata or NaN) cells of an input layer were replaced, as its policy says."""

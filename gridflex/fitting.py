@@ -30,6 +30,7 @@ import scipy.optimize
 import scipy.stats
 import xarray as xr
 
+from .anomalies import model_free_air_anomaly
 from .errors import GridflexWarning, InputError
 from .gravity_response import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, gravity_terms
 from .grid import GridSpec, check_grid, check_same_grid, padded_shape
@@ -161,10 +162,12 @@ class _Forward:
         layers: CrustLayers | None,
         periodic: bool,
         pad_factor: float,
+        series: tuple[xr.DataArray, dict[str, Any]] | None = None,
     ) -> None:
         self.plate = plate
         self.quantity = quantity
         self.layers = layers
+        self.series = series  # (load grid, model_free_air_anomaly keywords) for the full series
         self.load = load
         self.spec = spec
         self.periodic = periodic
@@ -200,7 +203,7 @@ class _Forward:
             spectrum = base.load_spectrum(self.load)
             spectrum.flags.writeable = False
             terms = None
-            if self.quantity == "free_air_anomaly":
+            if self.quantity == "free_air_anomaly" and self.series is None:
                 assert self.layers is not None
                 top, interfaces = gravity_terms(base.wavenumber(), self.layers, self.plate)
                 scale = 2.0 * math.pi * GRAVITATIONAL_CONSTANT / (self.plate.gravity * MGAL)
@@ -220,6 +223,11 @@ class _Forward:
             return self.deflection(te)
         if self.quantity == "surface":
             return -self.deflection(te)
+        if self.series is not None:
+            load_grid, options = self.series
+            trial = self.plate.with_te(te)
+            result = result_dataset(load_grid, self.deflection(te), trial, {})
+            return np.asarray(model_free_air_anomaly(result, **options).values, dtype=np.float64)
         problem, spectrum, terms = self._problem(te)
         assert terms is not None
         top, interfaces = terms  # both scaled by 2 pi G / (g mGal)
@@ -356,7 +364,11 @@ def fit_te(
         parameter re-fitted at each Te: for a load of known shape and uniform
         density, s = fitted / given density contrast (PHYSICS.md 8.1 "load scaling").
     gravity : CrustLayers or mapping, optional
-        Interface depths and crustal density; required for ``free_air_anomaly``.
+        For ``free_air_anomaly``: a :class:`~gridflex.gravity_response.CrustLayers`
+        selects the fast first-order model (linear in the relief); a mapping holds
+        keywords of :func:`gridflex.model_free_air_anomaly` (``reference_surface``,
+        ``load_height``, ``load_density``, ``observation_height``, ``terms``, ...)
+        and selects the full Parker series, recomputed for every trial Te.
     edges : {"infinite", "periodic"}, default "infinite"
         As in :func:`gridflex.solve`; "infinite" pads for the largest Te of *bounds*.
     pad_factor : float, default 4.5
@@ -418,14 +430,25 @@ def fit_te(
     if n < parameters + 2:
         raise InputError(f"only {n} cells are compared (mask and finite observed); need >= 4")
     layers = None
+    series = None
     if quantity == "free_air_anomaly":
-        if gravity is None:
+        if isinstance(gravity, CrustLayers):
+            layers = gravity
+            layers.check_plate(plate)
+        elif isinstance(gravity, Mapping):
+            if fit_load_scale:
+                raise InputError(
+                    "fit_load_scale needs a model linear in the load: use "
+                    "gravity=CrustLayers(...) (first order), not the full series"
+                )
+            options = {"edges": edges, **dict(gravity)}
+            series = (load, options)
+        else:
             raise InputError(
                 "quantity 'free_air_anomaly' needs gravity=CrustLayers(seafloor_depth=...) "
-                "or a mapping with key 'seafloor_depth' (m)"
+                "(first-order model) or a mapping of gridflex.model_free_air_anomaly keywords "
+                f"(full Parker series); got {gravity!r}"
             )
-        layers = gravity if isinstance(gravity, CrustLayers) else CrustLayers(**dict(gravity))
-        layers.check_plate(plate)
 
     load_values = np.asarray(load.values, dtype=np.float64)
     if edges == "infinite":
@@ -439,6 +462,7 @@ def fit_te(
         layers,
         edges == "periodic",
         pad_factor,
+        series,
     )
     data = np.asarray(observed.values, dtype=np.float64)[inside]
     rss_cache: dict[float, float] = {}
@@ -537,7 +561,10 @@ def fit_te(
         "fit_confidence": float(confidence),
     }
     if layers is not None:
-        attrs.update({f"gravity_{k}": v for k, v in layers.describe().items()})
+        attrs.update({f"gravity_{k}": v for k, v in layers.describe(plate).items()})
+        attrs["gravity_model"] = "first order (linear term of the Parker series)"
+    if series is not None:
+        attrs["gravity_model"] = "Parker series (gridflex.model_free_air_anomaly)"
     ds = result_dataset(
         load * load_scale, load_scale * forward.deflection(te_best), best_plate, attrs
     )

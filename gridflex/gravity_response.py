@@ -26,6 +26,7 @@ import numpy as np
 
 from .errors import InputError
 from .plate import Plate
+from .prisms import GRAVITATIONAL_CONSTANT, MGAL
 
 __all__ = [
     "GRAVITATIONAL_CONSTANT",
@@ -34,12 +35,6 @@ __all__ = [
     "compensation_factor",
     "gravity_terms",
 ]
-
-GRAVITATIONAL_CONSTANT = 6.67430e-11
-"""G (m³ kg⁻¹ s⁻²), CODATA 2018 (PHYSICS.md section 0)."""
-
-MGAL = 1.0e-5
-"""One mGal in m s⁻²."""
 
 
 def _check_number(name: str, value: float, minimum: float, strict: bool) -> float:
@@ -64,43 +59,59 @@ class CrustLayers:
         Depth (m, positive down) of the undeflected top of the plate — the sea
         floor at sea, the land surface on land — below the observation plane. The
         load's mass is placed here. Must be > 0 (sources below the plane).
-    crust_thickness : float, default 6000.0
+    crust_thickness : float, optional
         Crustal thickness t_c (m); the Moho lies at ``seafloor_depth +
-        crust_thickness``. 6 km is a typical oceanic crust (common practice).
-    crust_density : float, default 2800.0
+        crust_thickness``. Default: the plate's ``crust_thickness``.
+    crust_density : float, optional
         Crustal density rho_c (kg m⁻³), between the plate's infill and mantle
-        densities (PHYSICS.md 1.4: oceanic crust 2800–2900).
+        densities (PHYSICS.md 1.4: oceanic crust 2800–2900). Default: the
+        plate's ``crust_density``.
     """
 
     seafloor_depth: float
-    crust_thickness: float = 6000.0
-    crust_density: float = 2800.0
+    crust_thickness: float | None = None
+    crust_density: float | None = None
 
     def __post_init__(self) -> None:
         set_ = object.__setattr__
         set_(self, "seafloor_depth", _check_number("seafloor_depth", self.seafloor_depth, 0, True))
-        set_(
-            self,
-            "crust_thickness",
-            _check_number("crust_thickness", self.crust_thickness, 0, False),
-        )
-        set_(self, "crust_density", _check_number("crust_density", self.crust_density, 0, True))
+        if self.crust_thickness is not None:
+            thickness = _check_number("crust_thickness", self.crust_thickness, 0, False)
+            set_(self, "crust_thickness", thickness)
+        if self.crust_density is not None:
+            set_(self, "crust_density", _check_number("crust_density", self.crust_density, 0, True))
 
-    def check_plate(self, plate: Plate) -> None:
-        """Raise :class:`InputError` unless rho_f <= rho_c <= rho_m for *plate*."""
-        if not plate.infill_density <= self.crust_density <= plate.mantle_density:
+    def crust(self, plate: Plate) -> tuple[float, float]:
+        """(thickness, density) of the crust: these layers' values, else the plate's.
+
+        Raises
+        ------
+        InputError
+            Unless rho_f <= rho_c <= rho_m for *plate*.
+        """
+        thickness = self.crust_thickness
+        density = self.crust_density
+        thickness = float(plate.crust_thickness if thickness is None else thickness)
+        density = float(plate.crust_density if density is None else density)
+        if not plate.infill_density <= density <= plate.mantle_density:
             raise InputError(
-                f"crust_density ({self.crust_density!r}) must lie between the plate's "
+                f"crust_density ({density!r}) must lie between the plate's "
                 f"infill_density ({plate.infill_density!r}) and mantle_density "
                 f"({plate.mantle_density!r})"
             )
+        return thickness, density
 
-    def describe(self) -> dict[str, float]:
-        """Parameters as a flat dict (for output attributes)."""
+    def check_plate(self, plate: Plate) -> None:
+        """Raise :class:`InputError` unless rho_f <= rho_c <= rho_m for *plate*."""
+        self.crust(plate)
+
+    def describe(self, plate: Plate) -> dict[str, float]:
+        """Parameters as a flat dict (for output attributes), crust resolved for *plate*."""
+        thickness, density = self.crust(plate)
         return {
             "seafloor_depth": self.seafloor_depth,
-            "crust_thickness": self.crust_thickness,
-            "crust_density": self.crust_density,
+            "crust_thickness": thickness,
+            "crust_density": density,
         }
 
 
@@ -150,9 +161,9 @@ def gravity_terms(
     With them, C(k) = top - Φ(k) interfaces for any rigidity (cache them when many
     plates are tried on one grid).
     """
-    layers.check_plate(plate)
+    thickness, rho_c = layers.crust(plate)
     top = np.exp(-wavenumber * layers.seafloor_depth)
-    moho = top * np.exp(-wavenumber * layers.crust_thickness)
-    rho_m, rho_f, rho_c = plate.mantle_density, plate.infill_density, layers.crust_density
+    moho = top * np.exp(-wavenumber * thickness)
+    rho_m, rho_f = plate.mantle_density, plate.infill_density
     interfaces = ((rho_c - rho_f) * top + (rho_m - rho_c) * moho) / (rho_m - rho_f)
     return top, interfaces

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any, Union
+from typing import Any
 
 import numpy as np
 import xarray as xr
@@ -13,7 +13,7 @@ from .errors import InputError
 
 __all__ = ["Plate", "rigidity_from_te", "te_from_rigidity"]
 
-TeLike = Union[float, xr.DataArray]
+TeLike = float | xr.DataArray
 
 
 def rigidity_from_te(te: Any, youngs_modulus: float, poisson_ratio: float) -> Any:
@@ -76,6 +76,12 @@ class Plate:
         by default; 0 for air, the load density for a load buried in its own moat.
     gravity : float, default 9.81
         Gravitational acceleration g (m s^-2).
+    crust_thickness : float, default 6000.0
+        Thickness of the crust above the crust-mantle boundary (m), used for the
+        gravity of the deflected boundary; 6 km is a typical oceanic crust (from
+        memory), use ~35 km on continents.
+    crust_density : float, default 2800.0
+        Density of the crust (kg m^-3), used for gravity.
 
     Raises
     ------
@@ -102,9 +108,13 @@ class Plate:
     mantle_density: float = 3300.0
     infill_density: float = 1030.0
     gravity: float = 9.81
+    crust_thickness: float = 6000.0
+    crust_density: float = 2800.0
 
     def __post_init__(self) -> None:
         set_ = object.__setattr__
+        set_(self, "crust_thickness", _check_positive("crust_thickness", self.crust_thickness))
+        set_(self, "crust_density", _check_positive("crust_density", self.crust_density))
         set_(self, "youngs_modulus", _check_positive("youngs_modulus", self.youngs_modulus))
         set_(self, "mantle_density", _check_positive("mantle_density", self.mantle_density))
         set_(self, "gravity", _check_positive("gravity", self.gravity))
@@ -178,7 +188,7 @@ class Plate:
         alpha = self.flexural_parameter
         return float(alpha.max()) if isinstance(alpha, xr.DataArray) else float(alpha)
 
-    def with_te(self, te: TeLike) -> "Plate":
+    def with_te(self, te: TeLike) -> Plate:
         """A copy of this plate with another elastic thickness."""
         return Plate(
             te,
@@ -187,10 +197,12 @@ class Plate:
             mantle_density=self.mantle_density,
             infill_density=self.infill_density,
             gravity=self.gravity,
+            crust_thickness=self.crust_thickness,
+            crust_density=self.crust_density,
         )
 
     @classmethod
-    def from_rigidity(cls, rigidity: float, **kwargs: Any) -> "Plate":
+    def from_rigidity(cls, rigidity: float, **kwargs: Any) -> Plate:
         """A plate given by its flexural rigidity D (N m) instead of te.
 
         Other keyword arguments are those of :class:`Plate`. The te stored is the
@@ -214,6 +226,8 @@ class Plate:
             "mantle_density": self.mantle_density,
             "infill_density": self.infill_density,
             "gravity": self.gravity,
+            "crust_thickness": self.crust_thickness,
+            "crust_density": self.crust_density,
         }
         if not self.is_variable:
             out["rigidity"] = float(self.rigidity)

@@ -14,13 +14,17 @@ import xarray as xr
 from ._version import __version__
 from .errors import InputError
 from .fitting import TeFit, fit_te
+from .geo import reproject_values
 from .gravity_response import CrustLayers
 from .grid import check_same_grid
 from .io.atomic import atomic_path, check_output_path
-from .io.netcdf import read_grid, write_netcdf
+from .io.netcdf import write_netcdf
+from .io.rasters import geometry_of, read_raster
+from .layers import WorkingGrid, build_working_load
 from .plots import plot_deflection_map, plot_misfit
-from .runner import build_load, output_dataset, plate_from_scenario
+from .runner import output_dataset, plate_from_scenario
 from .scenario import Scenario
+from .units import unit_factor
 
 __all__ = ["FitOutcome", "fit_outputs", "fit_scenario"]
 
@@ -70,17 +74,28 @@ def _fit_table(scenario: Scenario) -> dict[str, Any]:
     if table["quantity"] == "free_air_anomaly" and table["seafloor_depth"] is None:
         raise InputError(f"{scenario.where('fit', 'seafloor_depth')}: required for "
                          "quantity 'free_air_anomaly'")
+    for name in ("infill", "gravity"):
+        if scenario.tables.get(name) is not None:
+            raise InputError(f"{scenario.where(name)}: 'gridflex fit' uses the plain solve; "
+                             f"remove the [{name}] table")
     return table
 
 
-def _read_on(path: Path, variable: str, dimension: str | None, load: xr.DataArray,
-             where: str) -> xr.DataArray:
-    grid = read_grid(path, variable, dimension)
+def _on_working_grid(path: Path, variable: str, dimension: str | None, load: xr.DataArray,
+                     grid: WorkingGrid, where: str) -> xr.DataArray:
+    """A grid read from *path*, in SI (or mGal), on the working grid of the load."""
+    da = read_raster(path, variable)
+    if dimension is not None:
+        units = str(da.attrs.get("units", "") or "m")
+        da = da * unit_factor(units, dimension, f"{where} ({path.name}): variable {da.name!r}")
+    if grid.resampled:
+        values = reproject_values(da.values, geometry_of(da), grid.working, "bilinear")
+        return load.copy(data=values)
     try:
-        check_same_grid(grid, load, where)
+        check_same_grid(da.assign_coords(y=da["y"].values, x=da["x"].values), load, where)
     except InputError as exc:
-        raise InputError(f"{exc}; it must be on the load grid") from exc
-    return grid.assign_coords(y=load["y"], x=load["x"])
+        raise InputError(f"{exc}; it must be on the grid of the first [[loads]] layer") from exc
+    return load.copy(data=np.asarray(da.values, dtype=np.float64))
 
 
 def fit_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = None) -> FitOutcome:
@@ -102,19 +117,17 @@ def fit_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = No
         if target is not None:
             check_output_path(target, overwrite, inputs)
     plate = plate_from_scenario(scenario)
-    load = build_load(scenario)
+    load, grid = build_working_load(scenario)
     quantity = table["quantity"]
-    observed = _read_on(table["observed_file"], table["observed_variable"],
-                        _OBSERVED_DIMENSION[quantity], load, scenario.where("fit", "observed_file"))
+    observed = _on_working_grid(table["observed_file"], table["observed_variable"],
+                                _OBSERVED_DIMENSION[quantity], load, grid,
+                                scenario.where("fit", "observed_file"))
     mask = None
     if table["mask_file"] is not None:
-        raw = _read_on(table["mask_file"], table["mask_variable"], None, load,
-                       scenario.where("fit", "mask_file"))
+        raw = _on_working_grid(table["mask_file"], table["mask_variable"], None, load, grid,
+                               scenario.where("fit", "mask_file"))
         mask = raw.copy(data=np.nan_to_num(raw.values) != 0)
-    gravity = None
-    if quantity == "free_air_anomaly":
-        gravity = CrustLayers(table["seafloor_depth"], table["crust_thickness"],
-                              table["crust_density"])
+    gravity = CrustLayers(table["seafloor_depth"]) if quantity == "free_air_anomaly" else None
     solver = scenario.table("solver")
     if solver["inplane_force_x"] or solver["inplane_force_y"]:
         raise InputError(f"{scenario.where('solver', 'inplane_force_x')}: fitting te with an "
@@ -127,11 +140,13 @@ def fit_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = No
         edges=solver["edges"], pad_factor=solver["pad_factor"], progress=progress,
     )
     outcome = FitOutcome(fit=fit)
-    model = output_dataset(fit.model, scenario)
-    outcome.written.append(write_netcdf(model, targets["file"], overwrite, inputs))
+    model = output_dataset(fit.model, scenario, grid)
+    model.attrs["history"] = f"gridflex {__version__} fit {scenario.path.name}"
+    outcome.written.append(write_netcdf(model, targets["file"], overwrite, inputs,
+                                        crs=grid.input.crs))
     if targets["map"] is not None:
         outcome.written.append(plot_deflection_map(
-            fit.model, targets["map"], overwrite, inputs,
+            model, targets["map"], overwrite, inputs,
             title=f"Best-fitting deflection, Te = {fit.te / 1e3:.2f} km"))
     summary = {"scenario": str(scenario.path), "gridflex_version": __version__, **fit.summary()}
     with atomic_path(targets["summary"], overwrite, inputs) as tmp:

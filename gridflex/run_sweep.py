@@ -15,7 +15,8 @@ import xarray as xr
 from .errors import InputError
 from .io.atomic import check_output_path
 from .io.netcdf import write_netcdf
-from .runner import build_load, plate_from_scenario
+from .layers import build_working_load
+from .runner import plate_from_scenario
 from .scenario import SCHEMA, Scenario
 from .sweep import sweep
 from .units import parse_quantity
@@ -66,11 +67,16 @@ def sweep_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = 
     if scenario.tables.get("sweep") is None:
         raise InputError(f"{scenario.path}: 'gridflex sweep' needs a [sweep] table")
     parameters = sweep_parameters(scenario)
+    for name in ("infill", "gravity"):
+        if scenario.tables.get(name) is not None:
+            raise InputError(f"{scenario.where(name)}: sweeps use the plain solve; "
+                             f"remove the [{name}] table")
     output = scenario.table("output")
     inputs = scenario.input_files
     check_output_path(output["file"], overwrite, inputs)
     plate = plate_from_scenario(scenario)
-    load: Any = build_load(scenario)  # also checks the layers before any task runs
+    load: Any
+    load, grid = build_working_load(scenario)  # also checks the layers before any task runs
     if "load_density" in parameters:
         if not any(layer["kind"] == "thickness" for layer in scenario.table("loads")):
             raise InputError(f"{scenario.where('sweep', 'load_density')}: no [[loads]] layer "
@@ -89,7 +95,7 @@ def sweep_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = 
     except InputError as exc:
         raise InputError(f"{scenario.where('sweep')}: {exc}") from exc
     result = _with_provenance(result, scenario)
-    path = write_netcdf(result, output["file"], overwrite, inputs)
+    path = write_netcdf(result, output["file"], overwrite, inputs, crs=grid.working.crs)
     log.info("sweep written to %s", path)
     return path
 
@@ -103,7 +109,7 @@ def load_with_density(scenario: Scenario, load_density: float) -> xr.DataArray:
     for layer in tables["loads"]:
         if layer["kind"] == "thickness":
             layer["density"] = float(load_density)
-    return build_load(replace(scenario, tables=tables))
+    return build_working_load(replace(scenario, tables=tables))[0]
 
 
 def _with_provenance(result: xr.Dataset, scenario: Scenario) -> xr.Dataset:

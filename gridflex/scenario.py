@@ -11,6 +11,8 @@ A scenario has these tables (``[[loads]]`` is an array of tables)::
     [solver]   method, edges, in-plane forces, padding
     [grid]     size and spacing, for scenarios whose loads are all synthetic
     [[loads]]  one table per load layer: a grid file or a synthetic shape
+    [infill]   optional: self-consistent infill (water, air, sediment) of the depression
+    [gravity]  optional: free-air and Bouguer anomalies of the result (needs [infill])
     [output]   where the results go
     [fit]      observation to fit te to (``gridflex fit``)
     [sweep]    lists of values to sweep over (``gridflex sweep``)
@@ -19,9 +21,10 @@ A scenario has these tables (``[[loads]]`` is an array of tables)::
 from __future__ import annotations
 
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from .errors import InputError
 from .fitting import QUANTITIES
@@ -79,6 +82,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
                               1030.0, "density", minimum=0.0),
         "gravity": Key("quantity", "gravitational acceleration", 9.81, "acceleration",
                        minimum=0.0),
+        "crust_thickness": Key("quantity", "crustal thickness above the crust-mantle boundary "
+                               "(for gravity)", 6000.0, "length", minimum=0.0),
+        "crust_density": Key("quantity", "crustal density (for gravity)", 2800.0, "density",
+                             minimum=0.0),
     },
     "solver": {
         "method": Key("choice", "solver", "auto", choices=_choices("auto", "spectral",
@@ -95,16 +102,34 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "grid": {
         "columns": Key("integer", "number of cells along x", REQUIRED, minimum=4),
         "rows": Key("integer", "number of cells along y", REQUIRED, minimum=4),
-        "spacing": Key("quantity", "cell size", REQUIRED, "length", minimum=0.0),
+        "spacing": Key("quantity", "cell size (m, also for a geographic grid)", REQUIRED,
+                       "length", minimum=0.0),
+        "crs": Key("string", "coordinate reference system of the grid (EPSG code, PROJ or "
+                   "WKT); none: plain metres", None),
+        "center_x": Key("number", "x (or longitude) of the grid centre", 0.0),
+        "center_y": Key("number", "y (or latitude) of the grid centre", 0.0),
+    },
+    "working_grid": {
+        "projection": Key("string", "metric CRS to solve in (default: the input's own, or "
+                          "a local equal-area projection for geographic inputs)", None),
+        "spacing": Key("quantity", "cell size of the working grid (default: the input's)",
+                       None, "length", minimum=0.0),
+        "resampling": Key("choice", "how layers are resampled onto it", "bilinear",
+                          choices=_choices("bilinear", "average", "nearest", "cubic")),
     },
     "loads": {
         "name": Key("string", "label of the layer", None),
-        "file": Key("path", "NetCDF grid holding the layer", None),
-        "variable": Key("string", "variable in the file", None),
+        "file": Key("path", "GeoTIFF (or other GDAL raster) or NetCDF holding the layer",
+                    None),
+        "variable": Key("string", "NetCDF variable or raster band, if the file has several",
+                        None),
+        "missing": Key("choice", "what nodata/NaN cells mean: zero load (with a warning) "
+                       "or an error", "zero", choices=_choices("zero", "error")),
         "synthetic": Key("choice", "a built-in shape instead of a file", None,
                          choices=_choices("island-chain", "disc", "gaussian")),
-        "kind": Key("choice", "thickness (m, times density) or stress (Pa)", "thickness",
-                    choices=_choices("thickness", "stress")),
+        "kind": Key("choice", "thickness (m, times density), stress (Pa) or elevation (m, "
+                    "the edifice is the rock above a regional surface)", "thickness",
+                    choices=_choices("thickness", "stress", "elevation")),
         "density": Key("quantity", "density of the layer", None, "density", minimum=0.0),
         "displaced_density": Key("quantity", "density of what the layer replaces (water "
                                  "for a submarine load)", 0.0, "density", minimum=0.0),
@@ -113,10 +138,55 @@ SCHEMA: dict[str, dict[str, Key]] = {
                       None, "length", minimum=0.0),
         "center_x": Key("quantity", "x of a synthetic shape's centre", 0.0, "length"),
         "center_y": Key("quantity", "y of a synthetic shape's centre", 0.0, "length"),
+        "regional_elevation": Key("quantity", "elevation layer: constant regional surface the "
+                                  "edifice stands on", None, "length"),
+        "regional_radius": Key("quantity", "elevation layer: radius of the robust (median) "
+                               "smoothing that gives the regional surface", None, "length",
+                               minimum=0.0),
+    },
+    "infill": {
+        "base_elevation": Key("quantity", "elevation of the surface the thickness layers stand "
+                              "on (regional sea floor or land)", None, "length"),
+        "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
+        "water_density": Key("quantity", "sea-water density", 1030.0, "density", minimum=0.0),
+        "sediment": Key("choice", "what sediment does in the depression", "none",
+                        choices=_choices("none", "full", "to_level")),
+        "sediment_density": Key("quantity", "bulk density of the fill sediment", 2400.0,
+                                "density", minimum=0.0),
+        "sediment_level": Key("quantity", "elevation up to which sediment fills (to_level)",
+                              None, "length"),
+        "fill_existing": Key("bool", "to_level: also fill space below the level that existed "
+                             "before loading", False),
+        "load_buried": Key("bool", "the surface is observed after flexure: the load's base "
+                           "sank with the plate, the space under it is load material", False),
+        "tolerance": Key("quantity", "stop when an iteration changes the deflection by less",
+                         1e-4, "length", minimum=0.0),
+        "max_iterations": Key("integer", "iterations before giving up", 300, minimum=1),
+    },
+    "gravity": {
+        "observation_height": Key("quantity", "height of the observation plane above sea level",
+                                  0.0, "length"),
+        "terms": Key("integer", "terms of each Parker series", 6, minimum=1),
+        "bouguer_density": Key("quantity", "Bouguer reduction density", 2670.0, "density",
+                               minimum=0.0),
     },
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),
         "map": Key("path", "PNG map of the deflection", None),
+        "moat_fill_map": Key("path", "PNG map of the moat fill (needs [infill])", None),
+        "free_air_map": Key("path", "PNG map of the free-air anomaly (needs [gravity])", None),
+        "bouguer_map": Key("path", "PNG map of the Bouguer anomaly (needs [gravity])", None),
+        "geotiff": Key("bool", "also write one GeoTIFF per output variable beside the "
+                       "NetCDF", False),
+        "outlines": Key("path", "GeoJSON of the moat outline, forebulge crest and zero line",
+                        None),
+        "moat_depth": Key("quantity", "deflection contour drawn as the moat outline "
+                          "(default: a tenth of the maximum deflection)", None, "length",
+                          minimum=0.0),
+        "profile_start": Key("list", "[x, y] of a profile's start, in map coordinates", None),
+        "profile_end": Key("list", "[x, y] of a profile's end", None),
+        "profile_csv": Key("path", "CSV of the values along the profile", None),
+        "profile_plot": Key("path", "PNG plot of the profile", None),
     },
     "fit": {
         "observed_file": Key("path", "NetCDF grid of the observation", REQUIRED),
@@ -135,10 +205,6 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "seafloor_depth": Key("quantity", "depth of the undeflected plate top below the "
                               "gravity observations (free_air_anomaly)", None, "length",
                               minimum=0.0),
-        "crust_thickness": Key("quantity", "crustal thickness (free_air_anomaly)", 6000.0,
-                               "length", minimum=0.0),
-        "crust_density": Key("quantity", "crustal density (free_air_anomaly)", 2800.0,
-                             "density", minimum=0.0),
         "summary": Key("path", "JSON summary of the fit", None),
         "plot": Key("path", "PNG of the misfit curve", None),
     },
@@ -164,6 +230,9 @@ ARRAY_TABLES = frozenset({"loads"})
 """Tables written as arrays of tables (``[[loads]]``)."""
 
 REQUIRED_TABLES = ("plate", "loads", "output")
+
+OPTIONAL_TABLES = frozenset({"infill", "gravity", "fit", "sweep"})
+"""Tables whose presence switches a feature on; absent, they are ``None``."""
 
 
 @dataclass(frozen=True)
@@ -313,7 +382,7 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
                 for i, item in enumerate(items)
             ]
         elif raw is None:
-            if any(k.default is REQUIRED for k in spec.values()):
+            if name in OPTIONAL_TABLES or any(k.default is REQUIRED for k in spec.values()):
                 tables[name] = None
             else:
                 tables[name] = {k: v.default for k, v in spec.items()}
@@ -321,6 +390,8 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
             tables[name] = _parse_table(raw, spec, f"{path}: [{name}]", base)
     scenario = Scenario(path=path, text=text, tables=tables)
     _check_loads(scenario)
+    _check_profile(scenario)
+    _check_infill_and_gravity(scenario)
     return scenario
 
 
@@ -333,8 +404,6 @@ def _check_loads(scenario: Scenario) -> None:
         has_file, has_shape = layer["file"] is not None, layer["synthetic"] is not None
         if has_file == has_shape:
             raise InputError(f"{where}: give either 'file' (with 'variable') or 'synthetic'")
-        if has_file and layer["variable"] is None:
-            raise InputError(f"{where} variable: required with 'file' (the grid's name in it)")
         if layer["kind"] == "thickness" and layer["density"] is None:
             raise InputError(f"{where} density: required for a thickness layer")
         if has_shape:
@@ -346,6 +415,67 @@ def _check_loads(scenario: Scenario) -> None:
                     if layer[name] is None:
                         raise InputError(f"{where} {name}: required for a "
                                          f"{layer['synthetic']!r} shape")
+
+
+def _check_infill_and_gravity(scenario: Scenario) -> None:
+    infill, gravity = scenario.tables["infill"], scenario.tables["gravity"]
+    layers = scenario.tables["loads"]
+    kinds = [layer["kind"] for layer in layers]
+    if "elevation" in kinds and kinds.count("elevation") > 1:
+        raise InputError(f"{scenario.path}: at most one [[loads]] table may have "
+                         "kind = 'elevation'")
+    if "elevation" in kinds and "thickness" in kinds:
+        raise InputError(f"{scenario.path}: an elevation layer cannot be combined with "
+                         "thickness layers (it defines the surface itself)")
+    for i, layer in enumerate(layers):
+        where = scenario.where("loads", index=i)
+        if layer["kind"] != "elevation":
+            continue
+        if layer["file"] is None:
+            raise InputError(f"{where} file: an elevation layer is read from a file")
+        if (layer["regional_elevation"] is None) == (layer["regional_radius"] is None):
+            raise InputError(f"{where}: give either regional_elevation or regional_radius "
+                             "for an elevation layer")
+        if layer["density"] is None:
+            raise InputError(f"{where} density: required for an elevation layer (rock)")
+    if infill is not None:
+        if "thickness" in kinds and infill["base_elevation"] is None:
+            raise InputError(f"{scenario.where('infill', 'base_elevation')}: required with "
+                             "thickness layers (the surface they stand on)")
+        for i, layer in enumerate(layers):
+            if layer["kind"] == "thickness" and layer["displaced_density"]:
+                raise InputError(
+                    f"{scenario.where('loads', 'displaced_density', i)}: leave it out with "
+                    "[infill]; the water a layer displaces follows from sea_level")
+        if infill["sediment"] == "to_level" and infill["sediment_level"] is None:
+            raise InputError(f"{scenario.where('infill', 'sediment_level')}: required with "
+                             "sediment = 'to_level'")
+    if gravity is not None and infill is None:
+        raise InputError(f"{scenario.path}: a [gravity] table needs an [infill] table (the "
+                         "water, sediment and surfaces the anomaly comes from)")
+    outputs = scenario.tables["output"]
+    if outputs is not None:
+        if outputs["moat_fill_map"] is not None and infill is None:
+            raise InputError(f"{scenario.where('output', 'moat_fill_map')}: needs [infill]")
+        for key in ("free_air_map", "bouguer_map"):
+            if outputs[key] is not None and gravity is None:
+                raise InputError(f"{scenario.where('output', key)}: needs [gravity]")
+
+
+def _check_profile(scenario: Scenario) -> None:
+    out = scenario.tables["output"]
+    ends = [out["profile_start"], out["profile_end"]]
+    wanted = out["profile_csv"] is not None or out["profile_plot"] is not None
+    for key, value in zip(("profile_start", "profile_end"), ends):
+        if value is None:
+            if wanted:
+                raise InputError(f"{scenario.where('output', key)}: required for a profile")
+            continue
+        if len(value) != 2 or not all(isinstance(v, (int, float)) for v in value):
+            raise InputError(f"{scenario.where('output', key)}: expected [x, y], got {value!r}")
+    if all(v is not None for v in ends) and not wanted:
+        raise InputError(f"{scenario.where('output')}: a profile needs profile_csv or "
+                         "profile_plot")
 
 
 def load_scenario(path: str | Path) -> Scenario:

@@ -4,15 +4,16 @@ from __future__ import annotations
 
 import argparse
 import sys
+import warnings
 from collections.abc import Sequence
 from types import ModuleType
 
 from .._version import __version__
 from ..errors import ConvergenceError, GridflexError
-from . import demo, fit, run, sweep
+from . import demo, fit, profile, run, sweep
 from .common import configure_output
 
-COMMANDS: tuple[ModuleType, ...] = (run, fit, sweep, demo)
+COMMANDS: tuple[ModuleType, ...] = (run, fit, sweep, demo, profile)
 """Command modules; each has NAME, add_parser(subparsers) and execute(args)."""
 
 EXIT_INPUT = 2
@@ -38,10 +39,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command is None:
         parser.print_help(sys.stderr)
         return EXIT_INPUT
-    configure_output(args)
     handler = {module.NAME: module.execute for module in COMMANDS}[args.command]
     try:
-        return handler(args)
+        with warnings.catch_warnings():
+            configure_output(args)
+            return handler(args)
     except ConvergenceError as exc:
         print(f"gridflex: error: {exc}", file=sys.stderr)
         return EXIT_CONVERGENCE
