@@ -299,7 +299,7 @@ class SpectralProblem:
             return full
         return np.ascontiguousarray(full[:ny, :nx])
 
-    def with_rigidity(self, rigidity: float) -> "SpectralProblem":
+    def with_rigidity(self, rigidity: float) -> SpectralProblem:
         """The same FFT grid and forces with another rigidity D (N m).
 
         The padding is kept, so it must already be wide enough for the stiffest
