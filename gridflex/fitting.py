@@ -34,6 +34,7 @@ from .anomalies import model_free_air_anomaly
 from .errors import GridflexWarning, InputError
 from .gravity_response import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, gravity_terms
 from .grid import GridSpec, check_grid, check_same_grid, padded_shape
+from .memory import check_memory
 from .plate import Plate, rigidity_from_te
 from .solve import EDGES, _warn_edge_load, deflection_attrs, result_dataset
 from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem, decay_length, scale_spectrum
@@ -178,6 +179,9 @@ class _Forward:
             spec, self._rigidity(te_max), stiffness, periodic=periodic, pad_factor=pad_factor
         )
         self.max_pad = pad_factor * decay_length(self._rigidity(te_max), stiffness)
+        # the cached load spectra of the padding tiers add up to about two of the largest
+        cells = self.problem.shape[0] * self.problem.shape[1]
+        check_memory(8.0 * cells * (3.5 + 2.0), f"fit_te on FFT grids up to {self.problem.shape}")
         self.tiers: dict[tuple[int, int], tuple[SpectralProblem, np.ndarray, Any]] = {}
         self.evaluations = 0
 
