@@ -14,6 +14,7 @@ __all__ = [
     "ConvergenceError",
     "GridflexWarning",
     "EdgeLoadWarning",
+    "GravitySeriesWarning",
     "NodataWarning",
 ]
 
@@ -42,6 +43,10 @@ class GridflexWarning(UserWarning):
 
 class EdgeLoadWarning(GridflexWarning):
     """A load reaches the edge of the grid, where it is cut off by the solver."""
+
+
+class GravitySeriesWarning(GridflexWarning):
+    """The gravity series was cut off before its terms became negligible."""
 
 
 class NodataWarning(GridflexWarning):

@@ -21,6 +21,7 @@ __all__ = [
     "MIN_CELLS",
     "check_grid",
     "check_same_grid",
+    "grid_values",
     "padded_shape",
     "wavenumbers_squared",
 ]
@@ -135,6 +136,27 @@ def check_same_grid(grid: xr.DataArray, reference: xr.DataArray, label: str) -> 
             grid[name].values, reference[name].values, rtol=1e-9, atol=1e-6
         ):
             raise InputError(f"{label} is not on the load grid: coordinate {name!r} differs")
+
+
+def grid_values(value: object, reference: xr.DataArray, name: str) -> np.ndarray:
+    """A number or a grid on *reference*'s grid, as a float array of its shape.
+
+    Raises
+    ------
+    InputError
+        If *value* is neither a finite number nor a finite grid on the same grid.
+    """
+    if isinstance(value, xr.DataArray):
+        check_grid(value, name)
+        check_same_grid(value, reference, name)
+        return np.asarray(value.values, dtype=np.float64)
+    try:
+        number = float(value)  # type: ignore[arg-type]
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{name} must be a number (m) or a grid, got {value!r}") from exc
+    if not math.isfinite(number):
+        raise InputError(f"{name} must be finite, got {value!r}")
+    return np.full(reference.shape, number)
 
 
 def padded_shape(spec: GridSpec, pad_distance: float) -> tuple[int, int]:

@@ -32,11 +32,19 @@ from .geo import (
     working_geometry,
 )
 from .io.rasters import geometry_of, read_raster
+from .loads import load_from_elevation, regional_surface
 from .scenario import Scenario
 from .synthetic import Points, disc_height, gaussian_height, grid_points, island_chain_height
 from .units import unit_factor
 
-__all__ = ["WorkingGrid", "build_working_load", "synthetic_grid", "to_input_grid"]
+__all__ = [
+    "WorkingGrid",
+    "build_working_layers",
+    "build_working_load",
+    "elevation_stress",
+    "synthetic_grid",
+    "to_input_grid",
+]
 
 log = logging.getLogger(__name__)
 
@@ -122,7 +130,9 @@ def _synthetic_layer(scenario: Scenario, layer: dict[str, Any]) -> xr.DataArray:
     return gaussian_height(grid, layer["radius"], layer["height"], *centre, points=points)
 
 
-def _apply_missing_policy(da: xr.DataArray, policy: str, where: str) -> xr.DataArray:
+def _apply_missing_policy(
+    da: xr.DataArray, policy: str, where: str, elevation: bool = False
+) -> xr.DataArray:
     missing = ~np.isfinite(da.values)
     count = int(missing.sum())
     if count == 0:
@@ -132,35 +142,59 @@ def _apply_missing_policy(da: xr.DataArray, policy: str, where: str) -> xr.DataA
     if policy == "error":
         raise InputError(f"{where}: {count} nodata or NaN cell(s); fill them, or set "
                          "missing = \"zero\" to treat them as no load")
+    if elevation:  # no load there: the surface at its typical (median) level
+        level = float(np.nanmedian(da.values))
+        warnings.warn(f"{where}: {count} nodata or NaN cell(s) taken as no edifice (the "
+                      f"layer's median elevation, {level:.6g})", NodataWarning, stacklevel=4)
+        return da.fillna(level)
     warnings.warn(f"{where}: {count} nodata or NaN cell(s) taken as zero load",
                   NodataWarning, stacklevel=4)
     return da.fillna(0.0)
 
 
-def _layer_stress(scenario: Scenario, index: int, gravity: float) -> xr.DataArray:
+def _layer_values(scenario: Scenario, index: int) -> xr.DataArray:
+    """A layer as read or generated, in SI: thickness or elevation (m), or stress (Pa)."""
     layer = scenario.table("loads")[index]
     where = scenario.where("loads", index=index)
     if layer["file"] is None:
-        height = _synthetic_layer(scenario, layer)
-        return height * ((layer["density"] - layer["displaced_density"]) * gravity)
+        return _synthetic_layer(scenario, layer)
     da = read_raster(layer["file"], layer["variable"])
     where = f"{where} ({layer['file'].name})"
-    da = _apply_missing_policy(da, layer["missing"], where)
-    dimension = "length" if layer["kind"] == "thickness" else "pressure"
+    da = _apply_missing_policy(da, layer["missing"], where, layer["kind"] == "elevation")
+    dimension = "pressure" if layer["kind"] == "stress" else "length"
     units = str(da.attrs.get("units", "") or ("m" if dimension == "length" else "Pa"))
     factor = unit_factor(units, dimension, f"{layer['file']}: variable {da.name!r}")
-    if layer["kind"] == "thickness":
-        factor *= (layer["density"] - layer["displaced_density"]) * gravity
     return da * factor
 
 
-def build_working_load(scenario: Scenario) -> tuple[xr.DataArray, WorkingGrid]:
-    """Total vertical stress (Pa, positive down) of the layers, on the working grid.
+def elevation_stress(scenario: Scenario, index: int, elevation: xr.DataArray) -> xr.Dataset:
+    """Load of an elevation layer on the working grid (see :func:`load_from_elevation`):
+    the rock above the regional surface, buoyed by sea water below sea level."""
+    layer = scenario.table("loads")[index]
+    infill = scenario.table("infill") or {}
+    regional: Any = layer["regional_elevation"]
+    try:
+        if regional is None:
+            regional = regional_surface(elevation, layer["regional_radius"])
+        return load_from_elevation(
+            elevation, layer["density"], regional,
+            sea_level=infill.get("sea_level", 0.0),
+            water_density=infill.get("water_density", 1030.0),
+            gravity=scenario.table("plate")["gravity"],
+        )
+    except InputError as exc:
+        raise InputError(f"{scenario.where('loads', index=index)}: {exc}") from exc
+
+
+def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], WorkingGrid]:
+    """Every ``[[loads]]`` layer on the working grid, in its own quantity (SI).
 
     Returns
     -------
-    load : xarray.DataArray
-        On dims ``("y", "x")`` in metres of the working CRS.
+    layers : list of xarray.DataArray
+        Per layer, in scenario order: thickness or elevation (m) or stress (Pa) on dims
+        ``("y", "x")`` in metres of the working CRS. Outside a resampled layer a
+        thickness or stress is 0 and an elevation is the layer's median.
     grid : WorkingGrid
         Input and working geometries.
 
@@ -170,9 +204,9 @@ def build_working_load(scenario: Scenario) -> tuple[xr.DataArray, WorkingGrid]:
         Unreadable layers, wrong units, grids that cannot be aligned (one with a
         CRS and one without), all-nodata layers.
     """
-    gravity = scenario.table("plate")["gravity"]
     options = scenario.table("working_grid")
-    stresses = [_layer_stress(scenario, i, gravity) for i in range(len(scenario.table("loads")))]
+    layers = scenario.table("loads")
+    stresses = [_layer_values(scenario, i) for i in range(len(layers))]
     geometries = [geometry_of(s) for s in stresses]
     first = geometries[0]
     crs: CRS | None
@@ -186,19 +220,53 @@ def build_working_load(scenario: Scenario) -> tuple[xr.DataArray, WorkingGrid]:
                      and (crs == first.crs or (crs is None and first.crs is None)))
     if not resampled:
         target = first
-    total = np.zeros(target.shape)
-    for stress, geometry in zip(stresses, geometries):
+    out = []
+    for layer, stress, geometry in zip(layers, stresses, geometries, strict=True):
         values = stress.values
         if resampled:
             values = reproject_values(values, geometry, target, options["resampling"])
-            values = np.nan_to_num(values, nan=0.0)  # outside a layer: no load
-        total += values
-    load = _as_dataarray(total, target, "load")
-    load.attrs.update(units="Pa", long_name="vertical stress of the load (positive downward)")
+            # outside a layer: no load, or the elevation model's typical level
+            outside = float(np.nanmedian(values)) if layer["kind"] == "elevation" else 0.0
+            values = np.nan_to_num(values, nan=outside)
+        out.append(_as_dataarray(values, target, str(layer["name"] or "layer")))
     grid = WorkingGrid(first, target, resampled, options["resampling"])
     if resampled:
         log.info("layers resampled onto a %s working grid (%s)", target.shape,
                  crs.to_string() if crs is not None else "metres")
+    return out, grid
+
+
+def build_working_load(scenario: Scenario) -> tuple[xr.DataArray, WorkingGrid]:
+    """Total vertical stress (Pa, positive down) of the layers, on the working grid.
+
+    A thickness layer presses with (density - displaced_density) g h, a stress layer
+    as it is, an elevation layer with its rock above the regional surface
+    (:func:`elevation_stress`).
+
+    Returns
+    -------
+    load : xarray.DataArray
+        On dims ``("y", "x")`` in metres of the working CRS.
+    grid : WorkingGrid
+        Input and working geometries.
+
+    Raises
+    ------
+    InputError
+        As :func:`build_working_layers`.
+    """
+    gravity = scenario.table("plate")["gravity"]
+    values, grid = build_working_layers(scenario)
+    total = np.zeros(grid.working.shape)
+    for index, (layer, da) in enumerate(zip(scenario.table("loads"), values, strict=True)):
+        if layer["kind"] == "thickness":
+            total += da.values * ((layer["density"] - layer["displaced_density"]) * gravity)
+        elif layer["kind"] == "elevation":
+            total += elevation_stress(scenario, index, da)["load"].values
+        else:
+            total += da.values
+    load = _as_dataarray(total, grid.working, "load")
+    load.attrs.update(units="Pa", long_name="vertical stress of the load (positive downward)")
     return load, grid
 
 

@@ -76,6 +76,12 @@ class Plate:
         by default; 0 for air, the load density for a load buried in its own moat.
     gravity : float, default 9.81
         Gravitational acceleration g (m s^-2).
+    crust_thickness : float, default 6000.0
+        Thickness of the crust above the crust-mantle boundary (m), used for the
+        gravity of the deflected boundary; 6 km is a typical oceanic crust (from
+        memory), use ~35 km on continents.
+    crust_density : float, default 2800.0
+        Density of the crust (kg m^-3), used for gravity.
 
     Raises
     ------
@@ -102,9 +108,13 @@ class Plate:
     mantle_density: float = 3300.0
     infill_density: float = 1030.0
     gravity: float = 9.81
+    crust_thickness: float = 6000.0
+    crust_density: float = 2800.0
 
     def __post_init__(self) -> None:
         set_ = object.__setattr__
+        set_(self, "crust_thickness", _check_positive("crust_thickness", self.crust_thickness))
+        set_(self, "crust_density", _check_positive("crust_density", self.crust_density))
         set_(self, "youngs_modulus", _check_positive("youngs_modulus", self.youngs_modulus))
         set_(self, "mantle_density", _check_positive("mantle_density", self.mantle_density))
         set_(self, "gravity", _check_positive("gravity", self.gravity))
@@ -187,6 +197,8 @@ class Plate:
             mantle_density=self.mantle_density,
             infill_density=self.infill_density,
             gravity=self.gravity,
+            crust_thickness=self.crust_thickness,
+            crust_density=self.crust_density,
         )
 
     @classmethod
@@ -214,6 +226,8 @@ class Plate:
             "mantle_density": self.mantle_density,
             "infill_density": self.infill_density,
             "gravity": self.gravity,
+            "crust_thickness": self.crust_thickness,
+            "crust_density": self.crust_density,
         }
         if not self.is_variable:
             out["rigidity"] = float(self.rigidity)

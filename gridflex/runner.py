@@ -16,10 +16,11 @@ from .io.netcdf import write_netcdf
 from .io.rasters import write_geotiff
 from .io.tables import write_csv
 from .io.vectors import outline_features, write_geojson
-from .layers import WorkingGrid, build_working_load, to_input_grid
+from .layers import WorkingGrid, build_working_layers, build_working_load, to_input_grid
 from .plate import Plate
-from .plots import plot_deflection_map, plot_profile
+from .plots import plot_deflection_map, plot_field_map, plot_profile
 from .profile import sample_profile
+from .runner_infill import gravity_step, infill_step, load_column
 from .scenario import Scenario
 from .solve import solve
 from .summary import deflection_summary
@@ -64,6 +65,8 @@ def plate_from_scenario(scenario: Scenario) -> Plate:
             mantle_density=table["mantle_density"],
             infill_density=table["infill_density"],
             gravity=table["gravity"],
+            crust_thickness=table["crust_thickness"],
+            crust_density=table["crust_density"],
         )
     except InputError as exc:
         raise InputError(f"{scenario.where('plate')}: {exc}") from exc
@@ -86,10 +89,41 @@ def _geotiff_paths(netcdf: Path, result: xr.Dataset) -> dict[str, Path]:
     return {str(n): netcdf.with_name(f"{netcdf.stem}_{n}.tif") for n in names}
 
 
+_FIELD_MAPS = {
+    # output key: (variable, title, colour-bar label, signed colour map)
+    "moat_fill_map": ("moat_fill", "Moat fill (sediment and water in the flexural "
+                      "depression); black: load outline", "moat fill (m)", False),
+    "free_air_map": ("free_air_anomaly", "Free-air gravity anomaly of the flexure model; "
+                     "black: load outline", "free-air anomaly (mGal)", True),
+    "bouguer_map": ("bouguer_anomaly", "Bouguer gravity anomaly of the flexure model; "
+                    "black: load outline", "Bouguer anomaly (mGal)", True),
+}
+"""PNG maps of single fields: ``[output]`` key -> what to draw."""
+
+
 def _planned_outputs(scenario: Scenario) -> list[Path]:
     out = scenario.table("output")
-    keys = ("file", "map", "outlines", "profile_csv", "profile_plot")
+    keys = ("file", "map", "outlines", "profile_csv", "profile_plot", *_FIELD_MAPS)
     return [out[k] for k in keys if out[k] is not None]
+
+
+def _solve_working(scenario: Scenario, plate: Plate) -> tuple[xr.Dataset, WorkingGrid]:
+    """The solve on the working grid: plain, or with ``[infill]`` and ``[gravity]``."""
+    solver = scenario.table("solver")
+    if scenario.table("infill") is not None:
+        layers, grid = build_working_layers(scenario)
+        working = infill_step(scenario, plate, load_column(scenario, layers))
+    else:
+        load, grid = build_working_load(scenario)
+        log.info("solving %s load grid", load.shape)
+        working = solve(
+            load, plate, solver["method"], edges=solver["edges"],
+            inplane_force_x=solver["inplane_force_x"], inplane_force_y=solver["inplane_force_y"],
+            pad_factor=solver["pad_factor"],
+        )
+    if scenario.table("gravity") is not None:
+        working = gravity_step(scenario, working)
+    return working, grid
 
 
 def run_scenario(scenario: Scenario, overwrite: bool = False) -> RunOutcome:
@@ -108,14 +142,7 @@ def run_scenario(scenario: Scenario, overwrite: bool = False) -> RunOutcome:
     for target in _planned_outputs(scenario):
         check_output_path(target, overwrite, inputs)
     plate = plate_from_scenario(scenario)
-    load, grid = build_working_load(scenario)
-    solver = scenario.table("solver")
-    log.info("solving %s load grid", load.shape)
-    working = solve(
-        load, plate, solver["method"], edges=solver["edges"],
-        inplane_force_x=solver["inplane_force_x"], inplane_force_y=solver["inplane_force_y"],
-        pad_factor=solver["pad_factor"],
-    )
+    working, grid = _solve_working(scenario, plate)
     result = output_dataset(working, scenario, grid)
     outcome = RunOutcome(result=result, summary=deflection_summary(working))
     crs = grid.input.crs
@@ -130,6 +157,11 @@ def run_scenario(scenario: Scenario, overwrite: bool = False) -> RunOutcome:
             written.append(write_geotiff(result[name], path, crs, overwrite, inputs))
     if outputs["map"]:
         written.append(plot_deflection_map(result, outputs["map"], overwrite, inputs))
+    for key, (variable, title, label, signed) in _FIELD_MAPS.items():
+        if outputs[key]:
+            written.append(plot_field_map(result[variable], outputs[key], title, label,
+                                          overwrite, inputs, outline=result["load"],
+                                          signed=signed))
     if outputs["outlines"]:
         depth = outputs["moat_depth"]
         if depth is None:

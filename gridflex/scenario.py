@@ -11,7 +11,11 @@ A scenario has these tables (``[[loads]]`` is an array of tables)::
     [solver]   method, edges, in-plane forces, padding
     [grid]     size and spacing, for scenarios whose loads are all synthetic
     [[loads]]  one table per load layer: a grid file or a synthetic shape
+    [infill]   optional: self-consistent infill (water, air, sediment) of the depression
+    [gravity]  optional: free-air and Bouguer anomalies of the result (needs [infill])
     [output]   where the results go
+    [fit]      observation to fit te to (``gridflex fit``)
+    [sweep]    lists of values to sweep over (``gridflex sweep``)
 """
 
 from __future__ import annotations
@@ -23,6 +27,8 @@ from pathlib import Path
 from typing import Any
 
 from .errors import InputError
+from .fitting import QUANTITIES
+from .sweep import LOCAL_SCHEDULERS
 from .units import parse_quantity
 
 __all__ = [
@@ -85,6 +91,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
                               1030.0, "density", minimum=0.0),
         "gravity": Key("quantity", "gravitational acceleration", 9.81, "acceleration",
                        minimum=0.0),
+        "crust_thickness": Key("quantity", "crustal thickness above the crust-mantle boundary "
+                               "(for gravity)", 6000.0, "length", minimum=0.0),
+        "crust_density": Key("quantity", "crustal density (for gravity)", 2800.0, "density",
+                             minimum=0.0),
     },
     "solver": {
         "method": Key("choice", "solver", "auto", choices=_choices("auto", "spectral",
@@ -126,8 +136,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
                        "or an error", "zero", choices=_choices("zero", "error")),
         "synthetic": Key("choice", "a built-in shape instead of a file", None,
                          choices=_choices("island-chain", "disc", "gaussian")),
-        "kind": Key("choice", "thickness (m, times density) or stress (Pa)", "thickness",
-                    choices=_choices("thickness", "stress")),
+        "kind": Key("choice", "thickness (m, times density), stress (Pa) or elevation (m, "
+                    "the edifice is the rock above a regional surface)", "thickness",
+                    choices=_choices("thickness", "stress", "elevation")),
         "density": Key("quantity", "density of the layer", None, "density", minimum=0.0),
         "displaced_density": Key("quantity", "density of what the layer replaces (water "
                                  "for a submarine load)", 0.0, "density", minimum=0.0),
@@ -136,10 +147,44 @@ SCHEMA: dict[str, dict[str, Key]] = {
                       None, "length", minimum=0.0),
         "center_x": Key("quantity", "x of a synthetic shape's centre", 0.0, "length"),
         "center_y": Key("quantity", "y of a synthetic shape's centre", 0.0, "length"),
+        "regional_elevation": Key("quantity", "elevation layer: constant regional surface the "
+                                  "edifice stands on", None, "length"),
+        "regional_radius": Key("quantity", "elevation layer: radius of the robust (median) "
+                               "smoothing that gives the regional surface", None, "length",
+                               minimum=0.0),
+    },
+    "infill": {
+        "base_elevation": Key("quantity", "elevation of the surface the thickness layers stand "
+                              "on (regional sea floor or land)", None, "length"),
+        "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
+        "water_density": Key("quantity", "sea-water density", 1030.0, "density", minimum=0.0),
+        "sediment": Key("choice", "what sediment does in the depression", "none",
+                        choices=_choices("none", "full", "to_level")),
+        "sediment_density": Key("quantity", "bulk density of the fill sediment", 2400.0,
+                                "density", minimum=0.0),
+        "sediment_level": Key("quantity", "elevation up to which sediment fills (to_level)",
+                              None, "length"),
+        "fill_existing": Key("bool", "to_level: also fill space below the level that existed "
+                             "before loading", False),
+        "load_buried": Key("bool", "the surface is observed after flexure: the load's base "
+                           "sank with the plate, the space under it is load material", False),
+        "tolerance": Key("quantity", "stop when an iteration changes the deflection by less",
+                         1e-4, "length", minimum=0.0),
+        "max_iterations": Key("integer", "iterations before giving up", 300, minimum=1),
+    },
+    "gravity": {
+        "observation_height": Key("quantity", "height of the observation plane above sea level",
+                                  0.0, "length"),
+        "terms": Key("integer", "terms of each Parker series", 6, minimum=1),
+        "bouguer_density": Key("quantity", "Bouguer reduction density", 2670.0, "density",
+                               minimum=0.0),
     },
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),
         "map": Key("path", "PNG map of the deflection", None),
+        "moat_fill_map": Key("path", "PNG map of the moat fill (needs [infill])", None),
+        "free_air_map": Key("path", "PNG map of the free-air anomaly (needs [gravity])", None),
+        "bouguer_map": Key("path", "PNG map of the Bouguer anomaly (needs [gravity])", None),
         "geotiff": Key("bool", "also write one GeoTIFF per output variable beside the "
                        "NetCDF", False),
         "outlines": Key("path", "GeoJSON of the moat outline, forebulge crest and zero line",
@@ -152,6 +197,41 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "profile_csv": Key("path", "CSV of the values along the profile", None),
         "profile_plot": Key("path", "PNG plot of the profile", None),
     },
+    "fit": {
+        "observed_file": Key("path", "NetCDF grid of the observation", REQUIRED),
+        "observed_variable": Key("string", "variable of the observation in the file", REQUIRED),
+        "quantity": Key("choice", "what is observed", "deflection", choices=QUANTITIES),
+        "mask_file": Key("path", "NetCDF grid, non-zero where data are compared", None),
+        "mask_variable": Key("string", "variable of the mask in its file", None),
+        "te_min": Key("quantity", "smallest te searched", 1.0e3, "length", minimum=0.0),
+        "te_max": Key("quantity", "largest te searched", 1.0e5, "length", minimum=0.0),
+        "samples": Key("integer", "log-spaced te of the coarse search", 25, minimum=5),
+        "confidence": Key("number", "confidence level of the te interval", 0.95, minimum=0.0),
+        "correlated_residuals": Key("bool", "widen the interval for correlated residuals",
+                                    True),
+        "fit_load_scale": Key("bool", "also fit a factor on the load (its density contrast)",
+                              False),
+        "seafloor_depth": Key("quantity", "depth of the undeflected plate top below the "
+                              "gravity observations (free_air_anomaly)", None, "length",
+                              minimum=0.0),
+        "summary": Key("path", "JSON summary of the fit", None),
+        "plot": Key("path", "PNG of the misfit curve", None),
+    },
+    "sweep": {
+        "te": Key("list", "elastic thicknesses", None, "length"),
+        "youngs_modulus": Key("list", "Young's moduli", None, "pressure"),
+        "poisson_ratio": Key("list", "Poisson's ratios", None),
+        "mantle_density": Key("list", "mantle densities", None, "density"),
+        "infill_density": Key("list", "infill densities", None, "density"),
+        "load_density": Key("list", "densities of every thickness layer of [[loads]]", None,
+                            "density"),
+        "inplane_force": Key("list", "in-plane forces on both axes, tension positive", None,
+                             "force_per_length"),
+        "inplane_force_x": Key("list", "in-plane forces along x", None, "force_per_length"),
+        "inplane_force_y": Key("list", "in-plane forces along y", None, "force_per_length"),
+        "scheduler": Key("string", "where to run: " + ", ".join(LOCAL_SCHEDULERS)
+                         + " or a dask scheduler address", "threads"),
+    },
 }
 """Every table and key a scenario may contain."""
 
@@ -159,6 +239,9 @@ ARRAY_TABLES = frozenset({"loads"})
 """Tables written as arrays of tables (``[[loads]]``)."""
 
 REQUIRED_TABLES = ("plate", "loads", "output")
+
+OPTIONAL_TABLES = frozenset({"infill", "gravity", "fit", "sweep"})
+"""Tables whose presence switches a feature on; absent, they are ``None``."""
 
 
 @dataclass(frozen=True)
@@ -291,6 +374,7 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
     scenario = parse_tables(data, path, text, SCHEMA, ARRAY_TABLES, REQUIRED_TABLES)
     _check_loads(scenario)
     _check_profile(scenario)
+    _check_infill_and_gravity(scenario)
     return scenario
 
 
@@ -326,7 +410,7 @@ def parse_tables(
                 for i, item in enumerate(items)
             ]
         elif raw is None:
-            if any(k.default is REQUIRED for k in spec.values()):
+            if name in OPTIONAL_TABLES or any(k.default is REQUIRED for k in spec.values()):
                 tables[name] = None
             else:
                 tables[name] = {k: v.default for k, v in spec.items()}
@@ -355,6 +439,51 @@ def _check_loads(scenario: Scenario) -> None:
                     if layer[name] is None:
                         raise InputError(f"{where} {name}: required for a "
                                          f"{layer['synthetic']!r} shape")
+
+
+def _check_infill_and_gravity(scenario: Scenario) -> None:
+    infill, gravity = scenario.tables["infill"], scenario.tables["gravity"]
+    layers = scenario.tables["loads"]
+    kinds = [layer["kind"] for layer in layers]
+    if "elevation" in kinds and kinds.count("elevation") > 1:
+        raise InputError(f"{scenario.path}: at most one [[loads]] table may have "
+                         "kind = 'elevation'")
+    if "elevation" in kinds and "thickness" in kinds:
+        raise InputError(f"{scenario.path}: an elevation layer cannot be combined with "
+                         "thickness layers (it defines the surface itself)")
+    for i, layer in enumerate(layers):
+        where = scenario.where("loads", index=i)
+        if layer["kind"] != "elevation":
+            continue
+        if layer["file"] is None:
+            raise InputError(f"{where} file: an elevation layer is read from a file")
+        if (layer["regional_elevation"] is None) == (layer["regional_radius"] is None):
+            raise InputError(f"{where}: give either regional_elevation or regional_radius "
+                             "for an elevation layer")
+        if layer["density"] is None:
+            raise InputError(f"{where} density: required for an elevation layer (rock)")
+    if infill is not None:
+        if "thickness" in kinds and infill["base_elevation"] is None:
+            raise InputError(f"{scenario.where('infill', 'base_elevation')}: required with "
+                             "thickness layers (the surface they stand on)")
+        for i, layer in enumerate(layers):
+            if layer["kind"] == "thickness" and layer["displaced_density"]:
+                raise InputError(
+                    f"{scenario.where('loads', 'displaced_density', i)}: leave it out with "
+                    "[infill]; the water a layer displaces follows from sea_level")
+        if infill["sediment"] == "to_level" and infill["sediment_level"] is None:
+            raise InputError(f"{scenario.where('infill', 'sediment_level')}: required with "
+                             "sediment = 'to_level'")
+    if gravity is not None and infill is None:
+        raise InputError(f"{scenario.path}: a [gravity] table needs an [infill] table (the "
+                         "water, sediment and surfaces the anomaly comes from)")
+    outputs = scenario.tables["output"]
+    if outputs is not None:
+        if outputs["moat_fill_map"] is not None and infill is None:
+            raise InputError(f"{scenario.where('output', 'moat_fill_map')}: needs [infill]")
+        for key in ("free_air_map", "bouguer_map"):
+            if outputs[key] is not None and gravity is None:
+                raise InputError(f"{scenario.where('output', key)}: needs [gravity]")
 
 
 def _check_profile(scenario: Scenario) -> None:

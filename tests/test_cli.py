@@ -121,6 +121,16 @@ def test_demo_runs_in_process(tmp_path, capsys):
         w = ds["deflection"].values
         assert w.max() > 100.0 and w.min() < 0.0  # a moat and a bulge
     assert (tmp_path / "demo" / "island_chain_deflection.png").stat().st_size > 10_000
+    with xr.open_dataset(tmp_path / "demo" / "island_chain.nc") as ds:
+        # the moat is partly filled with sediment (to 300 m below the sea floor), and the
+        # gravity maps are there: a free-air high over the edifices, a low over the moat
+        assert 10.0 < float(ds["fill_sediment"].max()) < float(ds["moat_fill"].max())
+        assert ds["moat_fill"].attrs["units"] == "m"
+        fa = ds["free_air_anomaly"]
+        assert float(fa.max()) > 100.0 and float(fa.min()) < -5.0
+        assert np.isfinite(ds["bouguer_anomaly"].values).all()
+    for name in ("moat_fill", "free_air", "bouguer"):
+        assert (tmp_path / "demo" / f"island_chain_{name}.png").stat().st_size > 10_000
     assert main(["demo", "--out", str(tmp_path / "demo"), "-q"]) == 0  # reruns replace
 
 

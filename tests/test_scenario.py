@@ -50,7 +50,7 @@ def test_good_scenario_with_units_and_defaults(tmp_path):
         (lambda t: t.replace('"25 km"', '"25 kg"'),
          r"\[plate\] elastic_thickness: unit 'kg' is not a length"),
         (lambda t: t.replace("[plate]", "[plate]\nthickness = 3"),
-         r"\[plate\]: unknown key 'thickness'; valid keys are elastic_thickness"),
+         r"\[plate\]: unknown key 'thickness'; valid keys are .*elastic_thickness"),
         (lambda t: t + "\n[extras]\na = 1\n", r"unknown table \[extras\]"),
         (lambda t: t.replace("[output]\nfile", "[output]\nname"), r"\[output\]: unknown key"),
         (lambda t: t.replace('elastic_thickness = "25 km"\n', ""),
