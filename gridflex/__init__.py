@@ -16,10 +16,10 @@ from .errors import (
     GridflexWarning,
     InputError,
 )
-from .glacial import bed_stress, grounded_mask, ice_response
-from .history import ResponseStepper, viscous_response
 from .fitting import TeFit, fit_te
+from .glacial import bed_stress, grounded_mask, ice_response
 from .gravity import interface_gravity
+from .history import ResponseStepper, viscous_response
 from .infill import Infill, solve_with_infill
 from .loads import (
     load_from_elevation,
