@@ -16,7 +16,10 @@ from .errors import (
     GridflexWarning,
     InputError,
 )
+from .fitting import TeFit, fit_te
+from .glacial import bed_stress, grounded_mask, ice_response
 from .gravity import interface_gravity
+from .history import ResponseStepper, viscous_response
 from .infill import Infill, solve_with_infill
 from .loads import (
     load_from_elevation,
@@ -27,6 +30,7 @@ from .loads import (
 )
 from .plate import Plate, rigidity_from_te, te_from_rigidity
 from .solve import solve
+from .sweep import sweep
 
 logging.getLogger(__name__).addHandler(logging.NullHandler())
 
@@ -44,12 +48,22 @@ __all__ = [
     "regional_surface",
     # solving
     "solve",
+    # through time
+    "viscous_response",
+    "ResponseStepper",
+    "ice_response",
+    "bed_stress",
+    "grounded_mask",
     "Infill",
     "solve_with_infill",
     # gravity
     "interface_gravity",
     "model_gravity",
     "model_free_air_anomaly",
+    # estimating te, sweeping parameters
+    "fit_te",
+    "TeFit",
+    "sweep",
     # errors and warnings
     "GridflexError",
     "InputError",

@@ -21,6 +21,9 @@ density (PHYSICS.md 6.4): +rho_B above sea level, -(rho_B - rho_w) for the sea;
 beyond the grid the topography is taken to be the reference surface at the level
 of its edges.
 
+An infill result with a buried load (``load_root``) has load material of
+``load_density`` as the fill under the load.
+
 A plain :func:`gridflex.solve` result is read as a column whose depression is
 filled with ``plate_infill_density`` material when that is denser than water
 (a solid fill of thickness w), and with water below sea level (air above)
@@ -43,6 +46,7 @@ from .gravity import (
     GRAVITY_EDGES,
     _check_number,
     _check_terms,
+    blocks_to_grid,
     gravity_padded_shape,
     parker_spectrum,
     spectrum_to_grid,
@@ -113,6 +117,10 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
     if "fill_sediment" in result:
         fill = np.asarray(result["fill_sediment"].values, dtype=np.float64)
         rho_fill = float(result.attrs.get("infill_sediment_density", rho_w))
+        if "load_root" in result:  # a buried load: load material fills under it
+            root = np.asarray(result["load_root"].values, dtype=np.float64)
+            rho_fill = np.where(root != 0.0, rho_l, rho_fill)
+            fill = fill + root
     else:  # constant-density infill of a plain solve: thickness w of plate_infill_density
         rho_fill = _check_number("infill density", _pick("infill density", None, result,
                                                   "plate_infill_density"))
@@ -133,24 +141,40 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
         (z_ref, rho_c - rho_w),
         (z_ref - t_c, rho_m - rho_c),
     ]
+    fill_attr = float(rho_fill) if np.ndim(rho_fill) == 0 else "load under the load, else sediment"
     info = {"water_density": rho_w, "crust_density": rho_c, "crust_thickness": t_c,
-            "mantle_density": rho_m, "load_density": rho_l, "fill_density": rho_fill,
+            "mantle_density": rho_m, "load_density": rho_l, "fill_density": fill_attr,
             "sea_level": sea}
     info["reference_surface"] = z_ref
     return w_da, top, final, reference, info
 
 
-def _spectrum_sum(interfaces, sign, spec, plane, terms, shape, total, last, isolated):
-    """Add sign * the Parker spectra of *interfaces* to *total* and their last terms
-    to *last* (arrays on the FFT grid *shape*)."""
+def _spectrum_sum(interfaces, sign, spec, plane, terms, shape, sums, isolated):
+    """Add sign * the Parker spectra of *interfaces* to ``sums["total"]``, their last
+    terms to ``sums["last"]`` (arrays on the FFT grid *shape*) and their periodic
+    copies' fields to ``sums["images"]`` (on the grid)."""
     for elevation, contrast in interfaces:
         if np.all(np.asarray(contrast) == 0.0) or not np.any(elevation):
             continue
-        spectrum, last_term, _ = parker_spectrum(elevation, contrast, plane, spec, terms, shape,
-                                                 isolated=isolated)
-        total += sign * spectrum
+        spectrum, last_term, _, images = parker_spectrum(
+            elevation, contrast, plane, spec, terms, shape, isolated=isolated)
+        sums["total"] += sign * spectrum
         if last_term is not None:
-            last += sign * last_term
+            sums["last"] += sign * last_term
+        if images is not None:
+            if sums["images"] is None:
+                sums["images"] = np.zeros_like(images)
+            sums["images"] += sign * images
+
+
+def _images(sums, spec) -> np.ndarray | float:
+    return 0.0 if sums["images"] is None else blocks_to_grid(sums["images"], spec)
+
+
+def _new_sums(spec, shape) -> dict[str, np.ndarray | None]:
+    half = (shape[0], shape[1] // 2 + 1)
+    return {"total": np.zeros(half, complex), "last": np.zeros(half, complex),
+            "images": None}
 
 
 def _topography_interfaces(top, rho_b, rho_w, reference):
@@ -256,24 +280,19 @@ def model_gravity(
     deepest = height - min(float(e.min()) for e, _ in final + reference)
     shape = spec.shape if edges == "periodic" else gravity_padded_shape(spec, deepest, pad_factor)
     isolated = edges != "periodic"
-    half = (shape[0], shape[1] // 2 + 1)
-    total, last = np.zeros(half, complex), np.zeros(half, complex)
-    _spectrum_sum(final, 1.0, spec, height, terms, shape, total, last,
-                  isolated)
-    _spectrum_sum(reference, -1.0, spec, height, terms, shape, total, last,
-                  isolated)
-    free_air = spectrum_to_grid(total, spec, shape)
-    last_fa = float(np.abs(spectrum_to_grid(last, spec, shape)).max())
+    sums = _new_sums(spec, shape)
+    _spectrum_sum(final, 1.0, spec, height, terms, shape, sums, isolated)
+    _spectrum_sum(reference, -1.0, spec, height, terms, shape, sums, isolated)
+    free_air = spectrum_to_grid(sums["total"], spec, shape) - _images(sums, spec)
+    last = float(np.abs(spectrum_to_grid(sums["last"], spec, shape)).max())
     topo_add, topo_remove, slab = _topography_interfaces(
         top, rho_b, info["water_density"], info.pop("reference_surface"))
-    total[...] = 0.0
-    last[...] = 0.0
-    _spectrum_sum(topo_add, 1.0, spec, height, terms, shape, total, last,
-                  isolated)
-    _spectrum_sum(topo_remove, -1.0, spec, height, terms, shape, total, last,
-                  isolated)
-    bouguer = free_air - (spectrum_to_grid(total, spec, shape) + slab)
-    last = max(last_fa, float(np.abs(spectrum_to_grid(last, spec, shape)).max()))
+    sums = _new_sums(spec, shape)
+    _spectrum_sum(topo_add, 1.0, spec, height, terms, shape, sums, isolated)
+    _spectrum_sum(topo_remove, -1.0, spec, height, terms, shape, sums, isolated)
+    topography = spectrum_to_grid(sums["total"], spec, shape) - _images(sums, spec) + slab
+    bouguer = free_air - topography
+    last = max(last, float(np.abs(spectrum_to_grid(sums["last"], spec, shape)).max()))
     spread = float(free_air.max() - free_air.min())
     if terms > 1 and last > max(0.01 * spread, 1e-3):
         warnings.warn(

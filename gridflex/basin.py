@@ -263,7 +263,7 @@ class StagedBasin:
         water_before = self._water(self.thickness, self.current_sea_level)
         water_after = self._water(total_h, sea_level)
         increment = g * ((total_m - self.mass) + self.water_density * (water_after - water_before))
-        weakest = (self.plate.mantle_density - infill.max_density) * g
+        weakest = (self.plate.mantle_density - infill.max_density()) * g
         if float(np.abs(increment).max()) <= min_deflection * weakest:
             zero = np.zeros(self.base.shape)
             return zero, zero.copy(), 0, total_m, total_h

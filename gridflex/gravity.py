@@ -15,6 +15,11 @@ For an interface at depth ``z0 - h(x, y)`` below a level observation plane
 measured upward). The series is summed about the mid-depth of the interface,
 which makes it converge fastest; the flat layer between that level and the
 requested reference level is added exactly (PHYSICS.md eq. 6.3).
+
+An isolated relief (``edges="infinite"``) is zero-padded by half the grid extent
+per side, and the fields that the FFT's periodic copies of the padded grid would
+add (they fall off only like depth / r^3) are computed and subtracted for the
+layer and the first two series terms (:func:`image_field`).
 """
 
 from __future__ import annotations
@@ -37,7 +42,8 @@ __all__ = [
     "DEFAULT_GRAVITY_PAD_FACTOR",
     "GRAVITY_EDGES",
     "gravity_padded_shape",
-    "image_kernels",
+    "blocks_to_grid",
+    "image_field",
     "interface_gravity",
     "parker_series",
     "parker_spectrum",
@@ -157,9 +163,11 @@ def parker_series(
     if shape is None:
         deepest = plane_depth - float(np.min(relief))
         shape = spec.shape if periodic else gravity_padded_shape(spec, deepest, pad_factor)
-    total, last, ratio = parker_spectrum(relief, contrast, plane_depth, spec, terms, shape,
-                                         isolated=not periodic)
+    total, last, ratio, images = parker_spectrum(relief, contrast, plane_depth, spec, terms,
+                                                 shape, isolated=not periodic)
     anomaly = spectrum_to_grid(total, spec, shape)
+    if images is not None:
+        anomaly -= blocks_to_grid(images, spec)
     last_change = (float(np.abs(spectrum_to_grid(last, spec, shape)).max())
                    if terms > 1 and last is not None else (0.0 if last is None else math.inf))
     info = {
@@ -184,41 +192,22 @@ _IMAGE_STEP = 8
 """The image kernels are smooth: sampled every this many cells, then splined."""
 
 
-def image_kernels(
-    shape: tuple[int, int], dy: float, dx: float, z_sheet: float, z_base: float
+def _image_sums(
+    oy: np.ndarray, ox: np.ndarray, periods: tuple[float, float], z_sheet: float, z_base: float
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """rfft2 spectra of the fields that the periodic images of the FFT grid add.
+    """Fields that the periodic copies of an FFT grid of size *periods* add, at offsets
+    (oy, ox) (broadcast), for the first-term, second-term and flat-layer kernels.
 
-    A doubly periodic FFT of a zero-padded grid sums the field of the relief and of
-    all its copies shifted by the FFT grid size (Ly, Lx). The copies add, at
-    horizontal offset r, sum_{m != 0} K(r + m L) for each kernel K of the series:
-    the first term's Poisson kernel P = z / (2 pi s^3) (s^2 = r^2 + z^2, z the
-    sheet depth), the second term's F^-1[k e^{-kz}] = -dP/dz = -(r^2 - 2 z^2) /
-    (2 pi s^5) (both fall off like r^-3; the later terms' like r^-5 and are left),
-    and the flat layer's Q = (1/(2 pi)) [1/s - 1/s_base] down to z_base. The
-    nearest (2 * rings + 1)^2 - 1 copies are summed and the rest taken as a uniform
-    density of copies beyond (far-field integral). The sums are smooth, so they are
-    sampled every few cells and splined.
-
-    Returns
-    -------
-    first, second, layer : numpy.ndarray
-        rfft2 spectra (per unit cell area: multiply by dy dx) of the image sums of
-        the first-term, second-term and layer kernels, in FFT (wrap-around) order.
+    The kernels (per unit area, times 2 pi G for gravity) are the Poisson kernel
+    P = z / (2 pi s^3) (s^2 = r^2 + z^2, z the sheet depth), F^-1[k e^{-kz}] =
+    -dP/dz = -(r^2 - 2 z^2) / (2 pi s^5) (both fall off like r^-3; the later terms'
+    like r^-5 and are left) and the layer's Q = (1/(2 pi)) [1/s - 1/s_base]. The
+    nearest (2 rings + 1)^2 - 1 copies are summed and the rest taken as a uniform
+    density of copies outside (far-field integral).
     """
-    ny, nx = shape
-    ly, lx = ny * dy, nx * dx
-
-    def samples(n: int) -> np.ndarray:
-        picks = np.arange(0, n, _IMAGE_STEP)
-        return picks if picks[-1] == n - 1 else np.append(picks, n - 1)
-
-    iy, ix = samples(ny), samples(nx)
-    oy = ((iy - ny // 2) * dy)[:, None]
-    ox = ((ix - nx // 2) * dx)[None, :]
-    sheet = np.zeros((iy.size, ix.size))
-    second = np.zeros((iy.size, ix.size))
-    layer = np.zeros((iy.size, ix.size))
+    ly, lx = periods
+    shape = np.broadcast(oy, ox).shape
+    first, second, layer = np.zeros(shape), np.zeros(shape), np.zeros(shape)
     rings = _IMAGE_RINGS
     z2 = z_sheet**2
     for a in range(-rings, rings + 1):
@@ -227,23 +216,94 @@ def image_kernels(
                 continue
             r2 = (oy + a * ly) ** 2 + (ox + b * lx) ** 2
             top = r2 + z2
-            sheet += z_sheet / top**1.5
+            first += z_sheet / top**1.5
             second -= (r2 - 2.0 * z2) / top**2.5
             layer += 1.0 / np.sqrt(top) - 1.0 / np.sqrt(r2 + z_base**2)
     # copies beyond the rings: density 1 / (Ly Lx) outside a disc of the rings' area,
     # where the kernels are z / s^3, -1 / s^3 and (z_base^2 - z^2) / (2 s^3) (x 1/(2 pi))
     radius = (2 * rings + 1) * math.sqrt(ly * lx / math.pi)
-    far = 2.0 * math.pi / (ly * lx * radius)  # integral of s^-3 over the outside, / area
-    sheet += z_sheet * far
+    far = 2.0 * math.pi / (ly * lx * radius)  # integral of s^-3 outside the disc, / area
+    first += z_sheet * far
     second -= far
     layer += 0.5 * (z_base**2 - z2) * far
-    out = []
-    for coarse in (sheet, second, layer):
-        coarse /= 2.0 * math.pi
-        along_y = CubicSpline(iy, coarse, axis=0)(np.arange(ny))
-        full = CubicSpline(ix, along_y, axis=1)(np.arange(nx))
-        out.append(scipy.fft.rfft2(np.fft.ifftshift(full), workers=-1))
-    return out[0], out[1], out[2]
+    scale = 1.0 / (2.0 * math.pi)
+    return first * scale, second * scale, layer * scale
+
+
+def image_field(
+    sources: tuple[np.ndarray | None, np.ndarray | None, np.ndarray],
+    spec: GridSpec,
+    shape: tuple[int, int],
+    z_sheet: float,
+    z_base: float,
+) -> np.ndarray:
+    """Field (in units of 2 pi G) of the periodic copies an FFT of *shape* adds, on blocks.
+
+    Parameters
+    ----------
+    sources : (first, second, layer)
+        The grids the kernels of :func:`_image_sums` act on: drho h_rel, drho
+        h_rel^2 / 2 (None when absent) and drho.
+    spec : GridSpec
+        The (unpadded) grid.
+    shape : tuple of int
+        The FFT grid whose copies are meant.
+    z_sheet, z_base : float
+        Depths (m) of the series level and of the reference level.
+
+    Notes
+    -----
+    The copies' kernels vary on the scale of the FFT grid, so the convolution is done
+    on blocks of 8 x 8 cells (block sums, an aperiodic FFT convolution on the block
+    grid); :func:`blocks_to_grid` splines the result back to the cells. The error is
+    of order (block / period)^2 of the (already small) correction.
+
+    Returns
+    -------
+    numpy.ndarray
+        The field at the block centres (blocks of :func:`blocks_to_grid`).
+    """
+    ny, nx = spec.shape
+    step = _image_step(spec)
+    cy, cx = -(-ny // step), -(-nx // step)
+    periods = (shape[0] * spec.dy, shape[1] * spec.dx)
+    my = np.arange(-(cy - 1), cy) * (step * spec.dy)
+    mx = np.arange(-(cx - 1), cx) * (step * spec.dx)
+    kernels = _image_sums(my[:, None], mx[None, :], periods, z_sheet, z_base)
+    conv_shape = (scipy.fft.next_fast_len(2 * cy - 1, real=True),
+                  scipy.fft.next_fast_len(2 * cx - 1, real=True))
+    total = np.zeros((conv_shape[0], conv_shape[1] // 2 + 1), dtype=complex)
+    for source, kernel in zip(sources, kernels, strict=True):
+        if source is None:
+            continue
+        blocks = np.zeros((cy * step, cx * step))
+        blocks[:ny, :nx] = source
+        blocks = blocks.reshape(cy, step, cx, step).sum(axis=(1, 3))
+        wrapped = np.zeros(conv_shape)
+        # kernel offset index (i - j) in -(c-1)..(c-1) placed in FFT (wrap) order
+        wrapped[np.ix_(np.arange(-(cy - 1), cy) % conv_shape[0],
+                       np.arange(-(cx - 1), cx) % conv_shape[1])] = kernel
+        padded = np.zeros(conv_shape)
+        padded[:cy, :cx] = blocks
+        total += scipy.fft.rfft2(padded) * scipy.fft.rfft2(wrapped)
+    return scipy.fft.irfft2(total, s=conv_shape)[:cy, :cx] * (spec.dy * spec.dx)
+
+
+def _image_step(spec: GridSpec) -> int:
+    return _IMAGE_STEP if min(spec.ny, spec.nx) >= 8 * _IMAGE_STEP else 1
+
+
+def blocks_to_grid(coarse: np.ndarray, spec: GridSpec) -> np.ndarray:
+    """Spline an :func:`image_field` block-grid field (or a sum of them) onto the cells."""
+    step = _image_step(spec)
+    if step == 1:
+        return coarse
+    ny, nx = spec.shape
+    cy, cx = coarse.shape
+    centres_y = np.arange(cy) * step + 0.5 * (step - 1)
+    centres_x = np.arange(cx) * step + 0.5 * (step - 1)
+    along_y = CubicSpline(centres_y, coarse, axis=0)(np.arange(ny))
+    return CubicSpline(centres_x, along_y, axis=1)(np.arange(nx))
 
 
 def parker_spectrum(
@@ -254,7 +314,7 @@ def parker_spectrum(
     terms: int,
     shape: tuple[int, int],
     isolated: bool = False,
-) -> tuple[np.ndarray, np.ndarray | None, float]:
+) -> tuple[np.ndarray, np.ndarray | None, float, np.ndarray | None]:
     """Half-spectrum (mGal) of the anomaly of :func:`parker_series` on the FFT grid
     *shape*; spectra of several interfaces on one *shape* add up.
 
@@ -267,11 +327,15 @@ def parker_spectrum(
         is then exactly the flat layer).
     ratio : float
         Convergence ratio, half the relief range over the mid-depth.
+    images : numpy.ndarray or None
+        With *isolated*: the field (mGal, on blocks: :func:`blocks_to_grid`) of the
+        FFT grid's periodic copies, to subtract from the inverted spectrum; None
+        otherwise.
 
-    With *isolated*, the field of the periodic copies of the padded grid is taken
-    out for the flat layer and the first two series terms (:func:`image_kernels`),
-    whose kernels fall off like r^-3; those of the later terms fall off like r^-5
-    and are left.
+    With *isolated*, the field of the periodic copies of the padded grid for the flat
+    layer and the first two series terms (:func:`image_field`), whose kernels fall
+    off like r^-3, is returned to be taken out; those of the later terms fall off
+    like r^-5 and are left.
     """
     h = np.asarray(relief, dtype=np.float64)
     rho = np.broadcast_to(np.asarray(contrast, dtype=np.float64), h.shape)
@@ -299,7 +363,7 @@ def parker_spectrum(
     # flat layer between the requested reference level and the mid level (exact, eq. 6.3)
     rho_spectrum = spectrum(rho)
     total = rho_spectrum * _layer_factor(k, mid)
-    last = first = second = None
+    last = None
     if h_max > h_min:  # a flat relief has no series terms about its own level
         h_rel = h - mid
         power = rho.copy()
@@ -308,12 +372,7 @@ def parker_spectrum(
         for order in range(1, terms + 1):
             power *= h_rel
             factorial *= order
-            raw = spectrum(power) / factorial  # F[drho h^n] / n!
-            if order == 1:
-                first = raw
-            elif order == 2:
-                second = raw
-            last = raw * k_power
+            last = spectrum(power) * (k_power / factorial)
             total += last
             k_power = k_power * k
     factor = 2.0 * math.pi * GRAVITATIONAL_CONSTANT / MGAL
@@ -321,16 +380,12 @@ def parker_spectrum(
     total *= scale
     if last is not None:
         last *= scale
+    images = None
     if isolated:
-        kernel_1, kernel_2, kernel_layer = image_kernels(shape, spec.dy, spec.dx, z_mid,
-                                                         plane_depth)
-        images = rho_spectrum * kernel_layer
-        if first is not None:
-            images += first * kernel_1
-        if second is not None:
-            images += second * kernel_2
-        total -= images * (factor * spec.dy * spec.dx)
-    return total, last, ratio
+        sources = (None, None, rho) if h_max == h_min else (
+            rho * h_rel, 0.5 * rho * h_rel**2 if terms > 1 else None, rho)
+        images = factor * image_field(sources, spec, shape, z_mid, plane_depth)
+    return total, last, ratio, images
 
 
 def interface_gravity(

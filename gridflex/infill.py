@@ -46,6 +46,7 @@ import xarray as xr
 
 from .errors import ConvergenceError, InputError
 from .grid import GridSpec, check_grid, check_same_grid, grid_values
+from .memory import check_memory
 from .plate import Plate
 from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 
@@ -96,6 +97,12 @@ class Infill:
         before loading (the sediment is then a load even without flexure).
     sediment_mask : xarray.DataArray of bool, optional
         Where sediment may collect (True); everywhere when omitted.
+    load_buried : bool, default False
+        The initial surface is the surface *observed after* flexure (PHYSICS.md 1.3,
+        final-topography mode): where the load stands (``load_height > 0`` of the
+        load Dataset) its top stays where it is observed and its base sinks with the
+        plate, so the depression under it is load material (``load_root``, density
+        ``load_density`` of the load Dataset).
 
     Raises
     ------
@@ -110,6 +117,7 @@ class Infill:
     sediment_level: Level | None = None
     fill_existing: bool = False
     sediment_mask: xr.DataArray | None = None
+    load_buried: bool = False
 
     def __post_init__(self) -> None:
         if self.sediment not in SEDIMENT_MODES:
@@ -130,12 +138,15 @@ class Infill:
         if self.fill_existing and self.sediment != "to_level":
             raise InputError("infill fill_existing=True only applies to sediment='to_level'")
 
-    @property
-    def max_density(self) -> float:
-        """Largest density that can occupy new space (kg m^-3)."""
-        if self.sediment == "none":
-            return self.water_density
-        return max(self.water_density, self.sediment_density)
+    def max_density(self, load_density: float = 0.0) -> float:
+        """Largest density that can occupy new space (kg m^-3); *load_density* counts
+        when the load is buried."""
+        densest = self.water_density
+        if self.sediment != "none":
+            densest = max(densest, self.sediment_density)
+        if self.load_buried:
+            densest = max(densest, load_density)
+        return densest
 
     def describe(self) -> dict[str, Any]:
         """Parameters as output attributes (prefixed ``infill_`` by the caller)."""
@@ -151,6 +162,7 @@ class Infill:
         if self.sediment == "to_level":
             level = self.sediment_level
             out["sediment_level"] = "grid" if isinstance(level, xr.DataArray) else float(level)
+        out["load_buried"] = int(self.load_buried)
         return out
 
 
@@ -252,6 +264,8 @@ class _Column:
     gravity: float
     level: np.ndarray | None
     mask: np.ndarray | None
+    footprint: np.ndarray | None = None
+    load_density: float = 0.0
 
     def __post_init__(self) -> None:
         self.water0 = np.clip(self.infill.sea_level - self.surface, 0.0, None)
@@ -264,7 +278,8 @@ class _Column:
             self.offset = None
 
     def state(self, w: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Sediment h_s, water change h_w - h_w0 and total load L (Pa) for *w*."""
+        """Sediment h_s, water change h_w - h_w0 and total load L (Pa) for *w*
+        (the buried root of the load, if any, is :meth:`root`)."""
         rule = self.infill.sediment
         top = self.surface - w
         if rule == "none":
@@ -278,17 +293,30 @@ class _Column:
             sediment = np.clip(w - self.offset, 0.0, None)
         if self.mask is not None and rule != "none":
             sediment *= self.mask
+        root = self.root(w)
+        if root is not None:  # under a buried load: its top stays, its base sinks
+            sediment *= 1.0 - self.footprint
+            top = top + root
         water = np.clip(self.infill.sea_level - (top + sediment), 0.0, None) - self.water0
         total = self.load + self.gravity * (
             self.infill.sediment_density * sediment + self.infill.water_density * water
         )
+        if root is not None:
+            total += self.gravity * self.load_density * root
         return sediment, water, total
+
+    def root(self, w: np.ndarray) -> np.ndarray | None:
+        """Load material filling the depression under a buried load (m), or None."""
+        return None if self.footprint is None else w * self.footprint
 
     def marginal_density(self, w: np.ndarray, sediment: np.ndarray) -> np.ndarray:
         """Density that fills the next bit of depression in each cell (dL/dw / g)."""
         top = self.surface - w + sediment
         density = np.where(top < self.infill.sea_level, self.infill.water_density, 0.0)
-        return np.where(sediment > 0.0, self.infill.sediment_density, density)
+        density = np.where(sediment > 0.0, self.infill.sediment_density, density)
+        if self.footprint is not None:
+            density = np.where(self.footprint > 0, self.load_density, density)
+        return density
 
 
 def _dot(a: np.ndarray, b: np.ndarray) -> float:
@@ -503,7 +531,15 @@ def solve_with_infill(
             or max_iterations < 1:
         raise InputError(f"max_iterations must be a whole number >= 1, got {max_iterations!r}")
     rho_m, g = plate.mantle_density, plate.gravity
-    rho_max = infill.max_density
+    footprint_grid = None
+    load_density = 0.0
+    if infill.load_buried:
+        if "load_height" not in extra or "load_density" not in extra_attrs:
+            raise InputError("infill load_buried=True needs a load Dataset with 'load_height' "
+                             "and a single load_density (gridflex.load_from_elevation)")
+        load_density = extra_attrs["load_density"]
+        footprint_grid = (np.asarray(extra["load_height"].values) > 0.0).astype(np.float64)
+    rho_max = infill.max_density(load_density)
     if rho_max >= rho_m:
         raise InputError(
             f"the densest infill ({rho_max!r} kg/m^3) must be less than mantle_density "
@@ -542,13 +578,24 @@ def solve_with_infill(
         check_same_grid(infill.sediment_mask, load, "sediment_mask")
         mask = _extend(np.asarray(infill.sediment_mask.values, dtype=bool).astype(np.float64),
                        shape, window)
+    # column grids and per-iteration temporaries (~12 working grids), plus the Anderson
+    # history (2 per remembered step, and the last pair)
+    grids = 12 + (2 * _ANDERSON_DEPTH + 4 if acceleration == "anderson" else 0)
+    check_memory(8.0 * shape[0] * shape[1] * grids,
+                 f"infill iteration on a working grid of {shape[0]} x {shape[1]}")
     load_work = np.zeros(shape)
     load_work[window] = values
-    column = _Column(load_work, _extend(surface, shape, window), infill, g, level, mask)
+    footprint = None
+    if footprint_grid is not None:  # no load beyond the grid
+        footprint = np.zeros(shape)
+        footprint[window] = footprint_grid
+    column = _Column(load_work, _extend(surface, shape, window), infill, g, level, mask,
+                     footprint, load_density)
     w, iterations, update = _iterate(
         column, solver, c, float(tolerance), max_iterations, acceleration, progress
     )
     sediment, water, total = column.state(w)
+    root = column.root(w)
     magnitude = float(np.abs(total).sum())
     balance = abs(rho_m * g * float(w.sum()) - float(total.sum())) / magnitude if magnitude else 0.0
     log.info("infill converged in %d iterations (update %.3g m, balance %.2g)",
@@ -589,7 +636,12 @@ def solve_with_infill(
                            "vertical stress of the fill (positive downward)"})
     result["initial_surface"] = (dims, surface, {"units": "m", "long_name":
                                  "surface before flexure, load included (positive up)"})
-    result["surface"] = (dims, surface - w_out + fill_s, {"units": "m", "long_name":
+    final = surface - w_out + fill_s
+    if root is not None:
+        final = final + root[win]
+        result["load_root"] = (dims, root[win], {"units": "m", "long_name":
+                               "part of the buried load below its pre-flexure base"})
+    result["surface"] = (dims, final, {"units": "m", "long_name":
                          "final surface: initial surface - deflection + sediment fill"})
     for name, variable in extra.items():
         result[name] = variable

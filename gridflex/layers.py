@@ -89,6 +89,17 @@ def _as_dataarray(values: np.ndarray, geometry: GridGeometry, name: str) -> xr.D
     return da
 
 
+def _crs_label(crs: CRS | None) -> str:
+    """A short name of a CRS for messages: its EPSG code or its PROJ parameters."""
+    if crs is None:
+        return "plain metres"
+    epsg = crs.to_epsg()
+    if epsg is not None:
+        return f"EPSG:{epsg}"
+    params = crs.to_dict()
+    return " ".join(f"+{k}={v}" for k, v in params.items() if k in ("proj", "lat_0", "lon_0"))
+
+
 def synthetic_grid(table: dict[str, Any]) -> tuple[xr.DataArray, Points]:
     """The empty ``[grid]`` of a scenario and the metric positions of its cells.
 
@@ -232,7 +243,7 @@ def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], Workin
     grid = WorkingGrid(first, target, resampled, options["resampling"])
     if resampled:
         log.info("layers resampled onto a %s working grid (%s)", target.shape,
-                 crs.to_string() if crs is not None else "metres")
+                 _crs_label(crs))
     return out, grid
 
 

@@ -10,14 +10,26 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import xarray as xr
 
 from .io.atomic import atomic_path
 
-__all__ = ["plot_deflection_map", "plot_field_map", "plot_profile"]
+if TYPE_CHECKING:  # type hints only: plots sits below fitting in the import floors
+    from .fitting import TeFit
+    from .spectra import SpectralFit
+
+__all__ = [
+    "plot_deflection_map",
+    "plot_field_map",
+    "plot_misfit",
+    "plot_point_series",
+    "plot_profile",
+    "plot_spectral_fit",
+    "plot_uplift_rate_map",
+]
 
 Paths = Iterable[str | Path]
 
@@ -175,3 +187,151 @@ def plot_profile(
     bottom.set_xlabel("distance along the profile (km)")
     bottom.legend(loc="best", fontsize=8)
     return _save(fig, path, overwrite, inputs)
+
+
+def plot_uplift_rate_map(
+    rate: xr.DataArray,
+    path: str | Path,
+    overwrite: bool = False,
+    inputs: Paths = (),
+    title: str = "Uplift rate",
+    outline: xr.DataArray | None = None,
+) -> Path:
+    """Map of an uplift rate (m/yr, positive up) in mm/yr: red rising (rebound), blue
+    sinking, dashed zero line, black outline of *outline* (e.g. the ice thickness)."""
+    has_outline = outline is not None and float(outline.max()) > 0
+    legend = "red: rising (rebound), blue: sinking; dashed: zero"
+    return plot_field_map(
+        rate * 1e3, path, f"{title}\n{legend}" + ("; black: ice margin" if has_outline else ""),
+        "uplift rate (mm/yr, positive up)", overwrite, inputs,
+        outline=outline if has_outline else None,
+    )
+
+
+def plot_point_series(
+    times: np.ndarray,
+    series: dict[str, tuple[np.ndarray, np.ndarray]],
+    path: str | Path,
+    overwrite: bool = False,
+    inputs: Paths = (),
+    title: str = "Deflection and uplift rate at named points",
+    time_label: str = "time (years)",
+) -> Path:
+    """Vertical displacement (top) and uplift rate (bottom) through time at named points.
+
+    Parameters
+    ----------
+    times : numpy.ndarray
+        Times (years).
+    series : dict
+        ``{name: (deflection m positive down, uplift rate m/yr)}`` along *times*.
+    path : str or pathlib.Path
+        PNG file.
+    """
+    plt = _pyplot()
+    fig, (top, bottom) = plt.subplots(2, 1, figsize=(8.0, 6.5), sharex=True,
+                                      constrained_layout=True)
+    for name, (deflection, rate) in series.items():
+        top.plot(times, -np.asarray(deflection), marker=".", label=name)
+        bottom.plot(times, np.asarray(rate) * 1e3, marker=".", label=name)
+    for ax in (top, bottom):
+        ax.axhline(0.0, color="0.3", linewidth=0.7, linestyle="--")
+    top.set_ylabel("vertical displacement (m, up)")
+    bottom.set_ylabel("uplift rate (mm/yr)")
+    bottom.set_xlabel(time_label)
+    top.legend(loc="best", fontsize=8)
+    top.set_title(title, fontsize=10)
+    return _save(fig, path, overwrite, inputs)
+def plot_misfit(
+    fit: TeFit,
+    path: str | Path,
+    overwrite: bool = False,
+    inputs: Iterable[str | Path] = (),
+    title: str = "Elastic thickness misfit",
+) -> Path:
+    """RMS misfit against Te (km, log axis) with the best Te and its interval.
+
+    Parameters
+    ----------
+    fit : gridflex.TeFit
+        Result of :func:`gridflex.fit_te`.
+    path : str or pathlib.Path
+        PNG file.
+    overwrite : bool, default False
+        Replace an existing file.
+    inputs : iterable of path
+        Files never to be overwritten.
+    title : str
+        Figure title.
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=(6.4, 4.2), constrained_layout=True)
+    te_km = fit.misfit["te"].values / 1e3
+    ax.plot(te_km, fit.misfit.values, "o-", ms=3, color="0.2", label="RMS misfit")
+    ax.axvspan(fit.te_low / 1e3, fit.te_high / 1e3, color="tab:blue", alpha=0.2,
+               label=f"{fit.confidence:.0%} interval")
+    ax.axvline(fit.te / 1e3, color="tab:blue",
+               label=f"Te = {fit.te / 1e3:.2f} km "
+                     f"[{fit.te_low / 1e3:.2f}, {fit.te_high / 1e3:.2f}]")
+    ax.set_xscale("log")
+    ax.set_xlabel("elastic thickness Te (km)")
+    unit = fit.misfit.attrs.get("units", "")
+    ax.set_ylabel(f"RMS misfit of {fit.quantity} ({unit})")
+    ax.set_title(title, fontsize=10)
+    ax.legend(loc="best", fontsize="small")
+    with atomic_path(path, overwrite, inputs) as tmp:
+        fig.savefig(tmp, format="png", dpi=120)
+    plt.close(fig)
+    return Path(path)
+
+
+def plot_spectral_fit(
+    fit: SpectralFit,
+    path: str | Path,
+    overwrite: bool = False,
+    inputs: Iterable[str | Path] = (),
+    title: str = "Observed and predicted spectra",
+) -> Path:
+    """Observed and best-fitting theoretical admittance or coherence against wavelength.
+
+    Parameters
+    ----------
+    fit : gridflex.spectra.SpectralFit
+        Result of :func:`gridflex.spectra.fit_te_spectral`.
+    path : str or pathlib.Path
+        PNG file.
+    overwrite : bool, default False
+        Replace an existing file.
+    inputs : iterable of path
+        Files never to be overwritten.
+    title : str
+        Figure title.
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=(6.4, 4.2), constrained_layout=True)
+    curves = fit.curves
+    wavelength_km = 2.0 * np.pi / curves["wavenumber"].values / 1e3
+    ax.plot(wavelength_km, curves["observed"].values, "o", ms=4, color="0.2", label="observed")
+    label = f"predicted, Te = {fit.te / 1e3:.1f} km"
+    if fit.load_ratio is not None:
+        label += f", f = {fit.load_ratio:.2f}"
+    ax.plot(wavelength_km, curves["predicted"].values, "-", color="tab:red", label=label)
+    ax.set_xscale("log")
+    ax.invert_xaxis()
+    ax.set_xlabel("wavelength (km)")
+    unit = curves["observed"].attrs.get("units", "")
+    ax.set_ylabel(f"{curves.attrs.get('quantity', '')} ({unit})")
+    ax.set_title(title, fontsize=10)
+    ax.legend(loc="best", fontsize="small")
+    with atomic_path(path, overwrite, inputs) as tmp:
+        fig.savefig(tmp, format="png", dpi=120)
+    plt.close(fig)
+    return Path(path)

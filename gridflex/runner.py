@@ -21,7 +21,7 @@ from .plate import Plate
 from .plots import plot_deflection_map, plot_field_map, plot_profile
 from .profile import sample_profile
 from .runner_infill import gravity_step, infill_step, load_column
-from .scenario import BASIN_TABLES, Scenario
+from .scenario import Scenario
 from .solve import solve
 from .summary import deflection_summary
 
@@ -137,9 +137,6 @@ def run_scenario(scenario: Scenario, overwrite: bool = False) -> RunOutcome:
     InputError
         Bad inputs or output paths.
     """
-    if any(scenario.tables.get(name) is not None for name in BASIN_TABLES):
-        raise InputError(f"{scenario.path}: a basin scenario ([basin] or [backstrip]); "
-                         "run it with 'gridflex basin'")
     outputs = scenario.table("output")
     inputs = scenario.input_files
     for target in _planned_outputs(scenario):

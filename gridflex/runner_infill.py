@@ -84,6 +84,7 @@ def infill_from_scenario(scenario: Scenario) -> Infill:
             sea_level=table["sea_level"], water_density=table["water_density"],
             sediment=table["sediment"], sediment_density=table["sediment_density"],
             sediment_level=table["sediment_level"], fill_existing=table["fill_existing"],
+            load_buried=table["load_buried"],
         )
     except InputError as exc:
         raise InputError(f"{scenario.where('infill')}: {exc}") from exc

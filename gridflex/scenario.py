@@ -14,10 +14,8 @@ A scenario has these tables (``[[loads]]`` is an array of tables)::
     [infill]   optional: self-consistent infill (water, air, sediment) of the depression
     [gravity]  optional: free-air and Bouguer anomalies of the result (needs [infill])
     [output]   where the results go
-
-A basin scenario (``gridflex basin``) has ``[plate]``, ``[solver]``, ``[output]`` and
-either ``[basin]`` with ``[[stages]]`` (staged loading with compaction) or
-``[backstrip]`` (tectonic subsidence from present grids) instead of ``[[loads]]``.
+    [fit]      observation to fit te to (``gridflex fit``)
+    [sweep]    lists of values to sweep over (``gridflex sweep``)
 """
 
 from __future__ import annotations
@@ -29,9 +27,20 @@ from pathlib import Path
 from typing import Any
 
 from .errors import InputError
+from .fitting import QUANTITIES
+from .sweep import LOCAL_SCHEDULERS
 from .units import parse_quantity
 
-__all__ = ["Key", "SCHEMA", "ARRAY_TABLES", "Scenario", "load_scenario", "parse_scenario"]
+__all__ = [
+    "Key",
+    "SCHEMA",
+    "ARRAY_TABLES",
+    "REQUIRED",
+    "Scenario",
+    "load_scenario",
+    "parse_scenario",
+    "parse_tables",
+]
 
 REQUIRED = object()
 """Default of a key that must be given."""
@@ -157,6 +166,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
                               None, "length"),
         "fill_existing": Key("bool", "to_level: also fill space below the level that existed "
                              "before loading", False),
+        "load_buried": Key("bool", "the surface is observed after flexure: the load's base "
+                           "sank with the plate, the space under it is load material", False),
         "tolerance": Key("quantity", "stop when an iteration changes the deflection by less",
                          1e-4, "length", minimum=0.0),
         "max_iterations": Key("integer", "iterations before giving up", 300, minimum=1),
@@ -167,82 +178,6 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "terms": Key("integer", "terms of each Parker series", 6, minimum=1),
         "bouguer_density": Key("quantity", "Bouguer reduction density", 2670.0, "density",
                                minimum=0.0),
-    },
-    "basin": {
-        "surface_file": Key("path", "grid file (GeoTIFF or NetCDF, metric) of the surface "
-                            "before the first stage (elevation, positive up)", REQUIRED),
-        "surface_variable": Key("string", "NetCDF variable or band in surface_file", None),
-        "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
-        "water_density": Key("quantity", "sea-water (and pore-water) density", 1030.0,
-                             "density", minimum=0.0),
-        "compaction": Key("bool", "compact older stages under younger ones", True),
-        "isopachs": Key("choice", "stage thicknesses as deposited, or present-day (then "
-                        "decompacted first)", "deposited",
-                        choices=_choices("deposited", "present")),
-        "tolerance": Key("quantity", "infill iteration tolerance", 1e-4, "length",
-                         minimum=0.0),
-        "max_iterations": Key("integer", "infill iterations before giving up", 300,
-                              minimum=1),
-    },
-    "stages": {
-        "file": Key("path", "grid file (GeoTIFF or NetCDF) of the stage isopach (thickness "
-                    "as deposited)", REQUIRED),
-        "variable": Key("string", "NetCDF variable or band, if the file has several", None),
-        "age": Key("number", "age of the stage (years before present); oldest first",
-                   REQUIRED),
-        "lithology": Key("choice", "porosity-depth law (Sclater & Christie 1980)", "shale",
-                         choices=_choices("shale", "sandstone", "chalk", "shaly_sandstone")),
-        "surface_porosity": Key("number", "override the lithology's surface porosity", None,
-                                minimum=0.0),
-        "decay_length": Key("quantity", "override the lithology's porosity decay length",
-                            None, "length", minimum=0.0),
-        "grain_density": Key("quantity", "override the lithology's grain density", None,
-                             "density", minimum=0.0),
-        "base_level": Key("quantity", "sediment fills the new depression up to this "
-                          "elevation (default: water to sea level)", None, "length"),
-        "sea_level": Key("quantity", "sea level at the time of the stage", None, "length"),
-        "elastic_thickness": Key("quantity", "te at the time of loading (default: [plate])",
-                                 None, "length", minimum=0.0),
-        "te_file": Key("path", "grid file of te at the time of loading", None),
-        "te_variable": Key("string", "NetCDF variable or band in te_file", None),
-    },
-    "backstrip": {
-        "basement_file": Key("path", "grid file of basement depth below sea level "
-                             "(positive down)", None),
-        "basement_variable": Key("string", "NetCDF variable or band in basement_file", None),
-        "sediment_file": Key("path", "grid file of sediment thickness", None),
-        "sediment_variable": Key("string", "NetCDF variable or band in sediment_file", None),
-        "water_file": Key("path", "grid file of water depth (positive down)", None),
-        "water_variable": Key("string", "NetCDF variable or band in water_file", None),
-        "lithology": Key("choice", "porosity-depth law giving the sediment density", "shale",
-                         choices=_choices("shale", "sandstone", "chalk", "shaly_sandstone")),
-        "sediment_density": Key("quantity", "mean sediment bulk density instead of the "
-                                "porosity law", None, "density", minimum=0.0),
-        "sea_level_change": Key("quantity", "sea level of the time relative to present "
-                                "(positive higher)", 0.0, "length"),
-        "water_density": Key("quantity", "sea-water density", 1030.0, "density", minimum=0.0),
-        "max_mismatch": Key("quantity", "largest allowed |basement - sediment - water|", 1.0,
-                            "length", minimum=0.0),
-    },
-    "backstrip_layers": {
-        "file": Key("path", "grid file of the layer's present thickness", REQUIRED),
-        "variable": Key("string", "NetCDF variable or band, if the file has several", None),
-        "lithology": Key("choice", "porosity-depth law of the layer", "shale",
-                         choices=_choices("shale", "sandstone", "chalk", "shaly_sandstone")),
-        "surface_porosity": Key("number", "override the lithology's surface porosity", None,
-                                minimum=0.0),
-        "decay_length": Key("quantity", "override the lithology's porosity decay length",
-                            None, "length", minimum=0.0),
-        "grain_density": Key("quantity", "override the lithology's grain density", None,
-                             "density", minimum=0.0),
-        "water_depth": Key("quantity", "water depth when the layer had just been deposited",
-                           None, "length"),
-        "water_depth_file": Key("path", "or a grid file of that water depth", None),
-        "water_depth_variable": Key("string", "NetCDF variable or band in water_depth_file",
-                                    None),
-        "sea_level_change": Key("quantity", "sea level then, relative to present", 0.0,
-                                "length"),
-        "age": Key("number", "age of the top of the layer (years before present)", None),
     },
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),
@@ -262,18 +197,50 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "profile_csv": Key("path", "CSV of the values along the profile", None),
         "profile_plot": Key("path", "PNG plot of the profile", None),
     },
+    "fit": {
+        "observed_file": Key("path", "NetCDF grid of the observation", REQUIRED),
+        "observed_variable": Key("string", "variable of the observation in the file", REQUIRED),
+        "quantity": Key("choice", "what is observed", "deflection", choices=QUANTITIES),
+        "mask_file": Key("path", "NetCDF grid, non-zero where data are compared", None),
+        "mask_variable": Key("string", "variable of the mask in its file", None),
+        "te_min": Key("quantity", "smallest te searched", 1.0e3, "length", minimum=0.0),
+        "te_max": Key("quantity", "largest te searched", 1.0e5, "length", minimum=0.0),
+        "samples": Key("integer", "log-spaced te of the coarse search", 25, minimum=5),
+        "confidence": Key("number", "confidence level of the te interval", 0.95, minimum=0.0),
+        "correlated_residuals": Key("bool", "widen the interval for correlated residuals",
+                                    True),
+        "fit_load_scale": Key("bool", "also fit a factor on the load (its density contrast)",
+                              False),
+        "seafloor_depth": Key("quantity", "depth of the undeflected plate top below the "
+                              "gravity observations (free_air_anomaly)", None, "length",
+                              minimum=0.0),
+        "summary": Key("path", "JSON summary of the fit", None),
+        "plot": Key("path", "PNG of the misfit curve", None),
+    },
+    "sweep": {
+        "te": Key("list", "elastic thicknesses", None, "length"),
+        "youngs_modulus": Key("list", "Young's moduli", None, "pressure"),
+        "poisson_ratio": Key("list", "Poisson's ratios", None),
+        "mantle_density": Key("list", "mantle densities", None, "density"),
+        "infill_density": Key("list", "infill densities", None, "density"),
+        "load_density": Key("list", "densities of every thickness layer of [[loads]]", None,
+                            "density"),
+        "inplane_force": Key("list", "in-plane forces on both axes, tension positive", None,
+                             "force_per_length"),
+        "inplane_force_x": Key("list", "in-plane forces along x", None, "force_per_length"),
+        "inplane_force_y": Key("list", "in-plane forces along y", None, "force_per_length"),
+        "scheduler": Key("string", "where to run: " + ", ".join(LOCAL_SCHEDULERS)
+                         + " or a dask scheduler address", "threads"),
+    },
 }
 """Every table and key a scenario may contain."""
 
-ARRAY_TABLES = frozenset({"loads", "stages", "backstrip_layers"})
+ARRAY_TABLES = frozenset({"loads"})
 """Tables written as arrays of tables (``[[loads]]``)."""
 
 REQUIRED_TABLES = ("plate", "loads", "output")
 
-BASIN_TABLES = ("basin", "backstrip")
-"""Tables that make a scenario a basin scenario (``gridflex basin``; no ``[[loads]]``)."""
-
-OPTIONAL_TABLES = frozenset({"infill", "gravity", *BASIN_TABLES})
+OPTIONAL_TABLES = frozenset({"infill", "gravity", "fit", "sweep"})
 """Tables whose presence switches a feature on; absent, they are ``None``."""
 
 
@@ -404,20 +371,37 @@ def _parse_table(values: Any, spec: dict[str, Key], where: str, base: Path) -> d
 
 def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario:
     """Validate a scenario already read into a dict (see :func:`load_scenario`)."""
+    scenario = parse_tables(data, path, text, SCHEMA, ARRAY_TABLES, REQUIRED_TABLES)
+    _check_loads(scenario)
+    _check_profile(scenario)
+    _check_infill_and_gravity(scenario)
+    return scenario
+
+
+def parse_tables(
+    data: dict[str, Any],
+    path: Path,
+    text: str,
+    schema: dict[str, dict[str, Key]],
+    array_tables: frozenset[str],
+    required_tables: tuple[str, ...],
+) -> Scenario:
+    """Validate *data* against *schema* (tables, keys, defaults); no cross-key checks.
+
+    Shared by every kind of scenario file (see :func:`parse_scenario`).
+    """
     base = path.parent
-    unknown = sorted(set(data) - set(SCHEMA))
+    unknown = sorted(set(data) - set(schema))
     if unknown:
         raise InputError(f"{path}: unknown table [{unknown[0]}]; valid tables are "
-                         + ", ".join(f"[{t}]" for t in SCHEMA))
-    basin = any(name in data for name in BASIN_TABLES)
-    required = ("plate", "output") if basin else REQUIRED_TABLES
-    for name in required:
+                         + ", ".join(f"[{t}]" for t in schema))
+    for name in required_tables:
         if name not in data:
             raise InputError(f"{path}: required table [{name}] is missing")
     tables: dict[str, Any] = {}
-    for name, spec in SCHEMA.items():
+    for name, spec in schema.items():
         raw = data.get(name)
-        if name in ARRAY_TABLES:
+        if name in array_tables:
             items = raw if raw is not None else []
             if not isinstance(items, list):
                 raise InputError(f"{path}: [{name}] must be an array of tables, written [[{name}]]")
@@ -432,68 +416,7 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
                 tables[name] = {k: v.default for k, v in spec.items()}
         else:
             tables[name] = _parse_table(raw, spec, f"{path}: [{name}]", base)
-    scenario = Scenario(path=path, text=text, tables=tables)
-    if basin:
-        _check_basin(scenario)
-        return scenario
-    _check_loads(scenario)
-    _check_profile(scenario)
-    _check_infill_and_gravity(scenario)
-    return scenario
-
-
-def _check_basin(scenario: Scenario) -> None:
-    tables = scenario.tables
-    if tables["basin"] is not None and tables["backstrip"] is not None:
-        raise InputError(f"{scenario.path}: give either [basin] (with [[stages]]) or "
-                         "[backstrip], not both")
-    for name in ("loads", "infill", "gravity"):
-        if tables[name]:
-            raise InputError(f"{scenario.path}: [{name}] belongs to 'gridflex run' scenarios, "
-                             "not to a basin scenario")
-    extra = [k for k, v in tables["output"].items() if k != "file" and v not in (None, False)]
-    if extra:
-        raise InputError(f"{scenario.where('output', extra[0])}: not written by a basin run "
-                         "(only 'file')")
-    if tables["backstrip_layers"] and tables["backstrip"] is None:
-        raise InputError(f"{scenario.path}: [[backstrip_layers]] need a [backstrip] table")
-    if tables["basin"] is not None:
-        if not tables["stages"]:
-            raise InputError(f"{scenario.path}: [basin] needs at least one [[stages]] table")
-        for i, stage in enumerate(tables["stages"]):
-            if stage["te_file"] is None and stage["te_variable"] is not None:
-                raise InputError(f"{scenario.where('stages', 'te_variable', i)}: needs te_file")
-            if stage["te_file"] is not None and stage["elastic_thickness"] is not None:
-                raise InputError(f"{scenario.where('stages', index=i)}: give either "
-                                 "elastic_thickness or te_file")
-        return
-    if tables["stages"]:
-        raise InputError(f"{scenario.path}: [[stages]] need a [basin] table")
-    table = tables["backstrip"]
-    if tables["backstrip_layers"]:
-        files = [f"{p}_file" for p in ("basement", "sediment", "water") if table[f"{p}_file"]]
-        files += ["sediment_density"] if table["sediment_density"] is not None else []
-        if files:
-            raise InputError(f"{scenario.where('backstrip', files[0])}: leave it out with "
-                             "[[backstrip_layers]] (each layer has its thickness and water "
-                             "depth)")
-        ages = [layer["age"] for layer in tables["backstrip_layers"]]
-        if any(a is None for a in ages) and not all(a is None for a in ages):
-            raise InputError(f"{scenario.path}: give age in every [[backstrip_layers]] "
-                             "table or in none")
-        for i, layer in enumerate(tables["backstrip_layers"]):
-            if (layer["water_depth"] is None) == (layer["water_depth_file"] is None):
-                raise InputError(f"{scenario.where('backstrip_layers', index=i)}: give either "
-                                 "water_depth or water_depth_file")
-        return
-    given = [p for p in ("basement", "sediment", "water") if table[f"{p}_file"] is not None]
-    for part in ("basement", "sediment", "water"):
-        if table[f"{part}_file"] is None and table[f"{part}_variable"] is not None:
-            raise InputError(f"{scenario.where('backstrip', part + '_variable')}: needs "
-                             f"{part}_file")
-    if len(given) < 2:
-        raise InputError(f"{scenario.where('backstrip')}: give at least two of basement_file, "
-                         "sediment_file and water_file")
+    return Scenario(path=path, text=text, tables=tables)
 
 
 def _check_loads(scenario: Scenario) -> None:
@@ -579,13 +502,18 @@ def _check_profile(scenario: Scenario) -> None:
                          "profile_plot")
 
 
-def load_scenario(path: str | Path) -> Scenario:
+def load_scenario(
+    path: str | Path,
+    parser: Callable[[dict[str, Any], Path, str], Scenario] = parse_scenario,
+) -> Scenario:
     """Read and validate a TOML scenario file.
 
     Parameters
     ----------
     path : str or pathlib.Path
         The scenario file; relative paths inside it are taken from its folder.
+    parser : callable, default :func:`parse_scenario`
+        Validator for the kind of scenario (e.g. the history scenario's).
 
     Returns
     -------
@@ -608,4 +536,4 @@ def load_scenario(path: str | Path) -> Scenario:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"{path}: malformed TOML: {exc}") from exc
-    return parse_scenario(data, path.resolve(), text)
+    return parser(data, path.resolve(), text)

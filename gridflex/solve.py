@@ -16,7 +16,15 @@ from .grid import check_grid
 from .plate import Plate
 from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 
-__all__ = ["EDGES", "METHODS", "SIGN_CONVENTION", "solve", "deflection_attrs", "result_dataset"]
+__all__ = [
+    "EDGES",
+    "METHODS",
+    "SIGN_CONVENTION",
+    "solve",
+    "deflection_attrs",
+    "provenance_attrs",
+    "result_dataset",
+]
 
 log = logging.getLogger(__name__)
 
@@ -96,17 +104,25 @@ def result_dataset(
         "deflection": (("y", "x"), deflection, deflection_attrs()),
         "load": load_var.variable,
     }
+    coords = {"y": load["y"].variable, "x": load["x"].variable}
+    return xr.Dataset(data_vars, coords=coords, attrs=provenance_attrs(plate, attrs))
+
+
+def provenance_attrs(
+    plate: Plate, attrs: dict[str, Any], title: str = "thin elastic plate flexure"
+) -> dict[str, Any]:
+    """Global attributes of a result: conventions, version, sign convention, the
+    plate's parameters (prefixed ``plate_``) and the solver-specific *attrs*."""
     all_attrs: dict[str, Any] = {
         "Conventions": "CF-1.8",
-        "title": "thin elastic plate flexure",
+        "title": title,
         "source": f"gridflex {__version__}",
         "gridflex_version": __version__,
         "sign_convention": SIGN_CONVENTION,
     }
     all_attrs.update({f"plate_{k}": v for k, v in plate.describe().items()})
     all_attrs.update(attrs)
-    coords = {"y": load["y"].variable, "x": load["x"].variable}
-    return xr.Dataset(data_vars, coords=coords, attrs=all_attrs)
+    return all_attrs
 
 
 def solve(

@@ -7,8 +7,8 @@ from numpy.testing import assert_allclose
 
 from gridflex import Plate
 from gridflex.basin import Stage, backstrip, stage_loading
+from gridflex.basin_scenario import BASIN_SCHEMA, load_basin_scenario
 from gridflex.cli.main import main
-from gridflex.scenario import load_scenario
 
 N, DX = 40, 5e3
 
@@ -125,12 +125,12 @@ def test_basin_scenario_errors(stage_files, capsys):
                    'sediment_variable = "thickness"\nwater_file = "s2.nc"\n'
                    'water_variable = "thickness"\n[output]\nfile = "x.nc"\n')
     assert main(["run", str(bad)]) == 2
-    assert "run it with 'gridflex basin'" in capsys.readouterr().err
+    assert "unknown table [backstrip]" in capsys.readouterr().err
     with pytest.raises(Exception, match="unknown key 'porosity'"):
         bad.write_text('[plate]\nelastic_thickness = 0\n[basin]\nsurface_file = "a.nc"\n'
                        'surface_variable = "e"\n[[stages]]\nfile = "s1.nc"\n'
                        'variable = "thickness"\nage = 1\nporosity = 0.5\n[output]\nfile = "x.nc"\n')
-        load_scenario(bad)
+        load_basin_scenario(bad)
 
 
 def test_layered_backstrip_command(tmp_path):
@@ -207,3 +207,13 @@ file = "tif_out.nc"
     got = got.sortby("y") if "y" in got.dims else got
     assert_allclose(got.values, expected["deflection"][0].values, rtol=1e-9, atol=1e-9)
     assert "crs" in out.variables or "spatial_ref" in out.variables
+
+
+def test_every_basin_scenario_key_is_documented():
+    # the README key tables follow the schema (common practice, as tests/test_docs.py)
+    from pathlib import Path
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    for table, keys in BASIN_SCHEMA.items():
+        assert f"[{table}]" in readme, table
+        for key in keys:
+            assert f"`{key}`" in readme, f"[{table}] {key} is not in README.md"

@@ -161,7 +161,7 @@ def test_isolated_relief_does_not_depend_on_the_padding():
     assert np.abs(default - wide).max() < 2e-5 * peak
     spec = check_grid(h)
     shape = gravity_padded_shape(spec, 4000.0, 4.5)
-    plain, _, _ = parker_spectrum(values, 1000.0, 4000.0, spec, 6, shape, isolated=False)
+    plain, _, _, _ = parker_spectrum(values, 1000.0, 4000.0, spec, 6, shape, isolated=False)
     assert np.abs(spectrum_to_grid(plain, spec, shape) - wide).max() > 5e-4 * peak
 
 

@@ -237,3 +237,52 @@ def test_sediment_mask_limits_where_sediment_collects():
     moat = result["deflection"].values > 1.0
     assert np.all(result["infill_density"].values[moat & ~west] == RHO_W)
     assert np.all(result["infill_density"].values[moat & west] == RHO_S)
+
+
+def buried_case(n=64, dx=3e3, te=0.0):
+    """Observed edifice 2 km high on a 5 km deep sea floor, read as a buried load."""
+    from gridflex import load_from_elevation
+
+    x = dx * (np.arange(n) - n // 2)
+    X, Y = np.meshgrid(x, x)
+    h = np.clip(2000.0 * (1.0 - np.hypot(X, Y) / 40e3), 0.0, None)
+    elevation = xr.DataArray(-5000.0 + h, dims=("y", "x"), coords={"y": x, "x": x})
+    loads = load_from_elevation(elevation, RHO_R, -5000.0)
+    return loads, h, Plate(te=te, youngs_modulus=70e9, mantle_density=RHO_M)
+
+
+def test_buried_load_local_limit():
+    # Final-topography mode (PHYSICS.md 1.3 b; Watts 2001, ch. 3, from memory): the observed
+    # height h_obs sits on a load whose base sank with the plate, so under it
+    # (rho_m - rho_l) g w = (rho_l - rho_w) g h_obs locally (Te = 0); the observed surface
+    # stays; outside, nothing moves. Tolerance: 1e-9 relative.
+    loads, h, plate = buried_case()
+    result = solve_with_infill(loads, plate, infill=Infill(load_buried=True), tolerance=1e-9,
+                               edges="periodic")
+    under = h > 0
+    assert_allclose(result["deflection"].values[under],
+                    (RHO_R - RHO_W) * h[under] / (RHO_M - RHO_R), rtol=1e-9)
+    assert_allclose(result["load_root"].values, result["deflection"].values * under, atol=1e-12)
+    assert_allclose(result["surface"].values, loads["initial_surface"].values, atol=1e-9)
+    assert np.all(result["infill_density"].values[under] == RHO_R)
+
+
+def test_buried_load_with_flexure_satisfies_its_equation():
+    # With flexure the solution must satisfy D lap^2 w + (rho_m - rho_w) g w = q + (rho_l -
+    # rho_w) g w F (F the load's footprint; deep water elsewhere), PHYSICS.md 1.3 b and 5.1;
+    # checked by one linear solve with infill density = water (periodic: the same plate).
+    # Tolerance: 20x the iteration tolerance.
+    loads, h, plate = buried_case(te=10e3)
+    result = solve_with_infill(loads, plate, infill=Infill(load_buried=True), tolerance=1e-6,
+                               edges="periodic")
+    w = result["deflection"].values
+    rhs = loads["load"] + (RHO_R - RHO_W) * G * w * (h > 0)
+    linear = solve(rhs, plate.with_te(10e3), edges="periodic")
+    assert_allclose(w, linear["deflection"].values, atol=2e-5)
+    assert result.attrs["shift_density"] == RHO_R / 2
+
+
+def test_buried_load_needs_the_load_geometry():
+    load, surface = cone_case(n=32)
+    with pytest.raises(InputError, match="load_buried=True needs a load Dataset"):
+        solve_with_infill(load, PLATE, surface, Infill(load_buried=True))

@@ -169,3 +169,51 @@ def test_nodata_in_an_elevation_layer_means_no_edifice(tmp_path):
         outcome = run_scenario(load_scenario(tmp_path / "s.toml"))
     # elevation 0 there would load 4200 m of rock, (2700 - 1030) g 4200 ~ 7e7 Pa
     assert float(outcome.result["load"].values[10:13, 46:50].max()) < 1e6
+
+
+def test_lonlat_bathymetry_geotiff_with_infill_and_gravity(tmp_path):
+    # The GIS path: a longitude/latitude GeoTIFF bathymetry is resampled onto a metric
+    # working grid, solved with infill and gravity there, and written back on the input grid
+    # (common practice: the results must come back on the user's grid, finite, with a moat
+    # filled by water and a free-air high over the edifice).
+    import rasterio
+    from affine import Affine
+
+    lon0, lat0, step, ny, nx = 25.0, -30.0, 0.02, 100, 120
+    transform = Affine(step, 0.0, lon0 - nx * step / 2, 0.0, -step, lat0 + ny * step / 2)
+    lon = lon0 - nx * step / 2 + (np.arange(nx) + 0.5) * step
+    lat = lat0 + ny * step / 2 - (np.arange(ny) + 0.5) * step
+    km_x = (lon[None, :] - lon0) * 111.32 * np.cos(np.radians(lat0))
+    km_y = (lat[:, None] - lat0) * 110.57
+    depth = -4000.0 + 3500.0 * np.exp(-(km_x**2 + km_y**2) / (2 * 10.0**2))
+    with rasterio.open(tmp_path / "bathymetry.tif", "w", driver="GTiff", width=nx, height=ny,
+                       count=1, dtype="float32", crs="EPSG:4326", transform=transform) as dst:
+        dst.write(depth.astype(np.float32), 1)
+    text = SCENARIO.replace('file = "bathymetry.nc"\nvariable = "elevation"',
+                            'file = "bathymetry.tif"').replace(
+        'regional_radius = "60 km"', 'regional_elevation = "-4000 m"').replace(
+        'sediment = "full"', 'sediment = "none"')
+    (tmp_path / "s.toml").write_text(text)
+    outcome = run_scenario(load_scenario(tmp_path / "s.toml"))
+    with xr.open_dataset(tmp_path / "out" / "result.nc") as ds:
+        assert ds["deflection"].shape == (ny, nx)
+        assert ds["lon"].attrs["units"] == "degrees_east"
+        for name in ("moat_fill", "free_air_anomaly", "bouguer_anomaly", "surface"):
+            assert np.isfinite(ds[name].values).all(), name
+        assert float(ds["free_air_anomaly"].max()) > 50.0
+        assert float(ds["fill_sediment"].max()) == 0.0
+        assert float(ds["moat_fill"].max()) > 10.0
+    assert outcome.summary["max_deflection"] > 10.0
+
+
+def test_buried_load_from_the_scenario(tmp_path):
+    # [infill] load_buried = true reads the elevation model as the surface after flexure
+    # (PHYSICS.md 1.3 b): the surface under the load stays as observed.
+    _write_bathymetry(tmp_path / "bathymetry.nc")
+    text = SCENARIO.replace('sediment = "full"', 'sediment = "none"\nload_buried = true')
+    (tmp_path / "s.toml").write_text(text)
+    result = run_scenario(load_scenario(tmp_path / "s.toml")).result
+    under = result["load_height"].values > 0
+    assert float(result["load_root"].max()) > 10.0
+    assert_allclose(result["surface"].values[under], result["initial_surface"].values[under],
+                    atol=1e-9)

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from ..basin_scenario import load_basin_scenario
 from ..runner_basin import run_basin
-from ..scenario import load_scenario
 from .common import add_common_options, progress_printer
 
 NAME = "basin"
@@ -20,7 +20,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
-    outcome = run_basin(load_scenario(args.scenario), overwrite=args.overwrite,
+    outcome = run_basin(load_basin_scenario(args.scenario), overwrite=args.overwrite,
                         progress=progress_printer(args))
     if not args.quiet:
         for key, value in outcome.summary.items():

@@ -10,10 +10,10 @@ from types import ModuleType
 
 from .._version import __version__
 from ..errors import ConvergenceError, GridflexError
-from . import basin, demo, profile, run
+from . import basin, demo, fit, history, profile, run, sweep
 from .common import configure_output
 
-COMMANDS: tuple[ModuleType, ...] = (run, demo, profile, basin)
+COMMANDS: tuple[ModuleType, ...] = (run, history, fit, sweep, demo, profile, basin)
 """Command modules; each has NAME, add_parser(subparsers) and execute(args)."""
 
 EXIT_INPUT = 2

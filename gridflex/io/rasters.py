@@ -396,5 +396,5 @@ def write_geotiff(
                 dst.update_tags(1, **tags)
         except (RasterioError, OSError) as exc:
             raise InputError(f"{path}: cannot write GeoTIFF ({exc})") from exc
-    log.info("wrote %s", path)
+    log.debug("wrote %s", path)
     return Path(path)

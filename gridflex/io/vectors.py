@@ -272,5 +272,5 @@ def write_geojson(
     collection = {"type": "FeatureCollection", "features": list(features)}
     with atomic_path(path, overwrite, inputs) as tmp:
         tmp.write_text(json.dumps(collection, allow_nan=False) + "\n", encoding="utf-8")
-    log.info("wrote %s", path)
+    log.debug("wrote %s", path)
     return Path(path)

@@ -13,7 +13,7 @@ Watts 2001, *Isostasy and Flexure of the Lithosphere*, ch. 3).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import lru_cache
 
 import numpy as np
@@ -27,6 +27,7 @@ __all__ = [
     "SpectralProblem",
     "buckling_force",
     "decay_length",
+    "scale_spectrum",
     "spectral_deflection",
     "transfer_function",
 ]
@@ -138,6 +139,22 @@ def transfer_function(
     return denom
 
 
+def scale_spectrum(
+    spectrum: np.ndarray, factor: np.ndarray, out: np.ndarray | None = None
+) -> np.ndarray:
+    """Multiply a complex half spectrum by a real factor of the same shape.
+
+    Real and imaginary parts are scaled as one float array, which avoids casting
+    *factor* to complex. *out* may be *spectrum* itself (in place).
+    """
+    if out is None:
+        out = np.empty_like(spectrum)
+    pairs = spectrum.view(np.float64).reshape(*spectrum.shape, 2)
+    target = out.view(np.float64).reshape(*out.shape, 2)
+    np.multiply(pairs, factor[..., None], out=target)
+    return out
+
+
 @dataclass(frozen=True)
 class SpectralProblem:
     """A constant-rigidity problem on a grid, ready to apply to loads.
@@ -240,24 +257,68 @@ class SpectralProblem:
         if self.is_local:
             full = np.asarray(load, dtype=np.float64) / self.stiffness
         else:
-            if self.periodic:
-                padded = np.array(load, dtype=np.float64)
-            else:
-                padded = np.zeros(self.shape, dtype=np.float64)
-                padded[:ny, :nx] = load
-            spectrum = scipy.fft.rfft2(padded, workers=-1, overwrite_x=True)
-            del padded
-            # multiply real and imaginary parts as one float array (no complex casting)
-            pairs = spectrum.view(np.float64).reshape(*spectrum.shape, 2)
-            pairs *= self.transfer()[..., None]
-            full = scipy.fft.irfft2(spectrum, s=self.shape, workers=-1, overwrite_x=True)
-            del spectrum
+            spectrum = self.load_spectrum(load)
+            scale_spectrum(spectrum, self.transfer(), out=spectrum)
+            full = self.inverse(spectrum)
         magnitude = float(np.abs(load).sum()) if load_magnitude is None else load_magnitude
         imbalance = abs(self.stiffness * float(full.sum()) - float(np.sum(load)))
         balance = imbalance / magnitude if magnitude > 0 else 0.0
+        return self.crop(full), balance
+
+    def load_spectrum(self, load: np.ndarray) -> np.ndarray:
+        """Real-FFT spectrum of *load* zero-padded to this problem's FFT grid.
+
+        Compute it once and reuse it for many plates on the same grid (see
+        :meth:`with_rigidity`), e.g. when searching for an elastic thickness.
+
+        Parameters
+        ----------
+        load : numpy.ndarray, shape (ny, nx)
+            Values on the unpadded grid (any unit; Pa for a load).
+
+        Returns
+        -------
+        numpy.ndarray, complex, shape (ny_fft, nx_fft // 2 + 1)
+        """
+        ny, nx = self.spec.shape
+        if self.periodic:
+            padded = np.array(load, dtype=np.float64)
+        else:
+            padded = np.zeros(self.shape, dtype=np.float64)
+            padded[:ny, :nx] = load
+        return scipy.fft.rfft2(padded, workers=-1, overwrite_x=True)
+
+    def inverse(self, spectrum: np.ndarray) -> np.ndarray:
+        """Field on the whole FFT grid from a half spectrum (*spectrum* is overwritten)."""
+        return scipy.fft.irfft2(spectrum, s=self.shape, workers=-1, overwrite_x=True)
+
+    def crop(self, full: np.ndarray) -> np.ndarray:
+        """The unpadded window (a contiguous copy) of a field on the FFT grid."""
+        ny, nx = self.spec.shape
         if full.shape == (ny, nx):
-            return full, balance
-        return np.ascontiguousarray(full[:ny, :nx]), balance
+            return full
+        return np.ascontiguousarray(full[:ny, :nx])
+
+    def with_rigidity(self, rigidity: float) -> SpectralProblem:
+        """The same FFT grid and forces with another rigidity D (N m).
+
+        The padding is kept, so it must already be wide enough for the stiffest
+        plate used (build the problem for the largest rigidity first).
+
+        Raises
+        ------
+        InputError
+            Negative rigidity, or compression at or beyond the new buckling limit.
+        """
+        if not rigidity >= 0:
+            raise InputError(f"rigidity must be >= 0, got {rigidity!r}")
+        _check_buckling(rigidity, self.stiffness, self.force_x, self.force_y)
+        return replace(self, rigidity=float(rigidity))
+
+    def wavenumber(self) -> np.ndarray:
+        """Radial angular wavenumber |k| (rad m⁻¹) on this problem's half-spectrum grid."""
+        ky2, kx2 = wavenumbers_squared(self.shape, self.spec.dy, self.spec.dx)
+        return np.sqrt(ky2 + kx2)
 
 
 def spectral_deflection(

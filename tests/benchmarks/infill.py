@@ -63,7 +63,7 @@ def peak(func) -> float:
 def bench(n: int, repeat: int) -> None:
     loads = make_loads(n)
     spec = check_grid(loads["load"])
-    rho_max = RULE.max_density
+    rho_max = RULE.max_density()
     g = PLATE.gravity
     inner = spectral_inner(spec, float(PLATE.rigidity), (PLATE.mantle_density - rho_max / 2) * g,
                            (PLATE.mantle_density - rho_max) * g)

@@ -1,0 +1,36 @@
+"""``gridflex fit SCENARIO.toml``: estimate te from the scenario's observation."""
+
+from __future__ import annotations
+
+import argparse
+
+from ..run_fit import fit_scenario
+from ..scenario import load_scenario
+from .common import add_common_options, progress_printer
+
+NAME = "fit"
+HELP = "estimate te from an observed grid: misfit plot, JSON summary, best model"
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
+    parser.add_argument("scenario", help="scenario file (TOML) with a [fit] table")
+    parser.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    add_common_options(parser)
+
+
+def execute(args: argparse.Namespace) -> int:
+    outcome = fit_scenario(load_scenario(args.scenario), overwrite=args.overwrite,
+                           progress=progress_printer(args))
+    if not args.quiet:
+        fit = outcome.fit
+        closed = "" if all(fit.interval_closed) else " (open: reaches a search bound)"
+        print(f"te = {fit.te / 1e3:.3f} km, {fit.confidence:.0%} interval "
+              f"[{fit.te_low / 1e3:.3f}, {fit.te_high / 1e3:.3f}] km{closed}")
+        if fit.load_scale != 1.0:
+            print(f"load scale = {fit.load_scale:.4f} (fitted / given load)")
+        print(f"offset = {fit.offset:.6g}, RMS misfit = {fit.rms:.6g} "
+              f"({fit.n_data} cells, about {fit.n_effective:.0f} independent)")
+        for path in outcome.written:
+            print(f"wrote {path}")
+    return 0

@@ -1,0 +1,29 @@
+"""``gridflex history SCENARIO.toml``: run an ice history through time and write its outputs."""
+
+from __future__ import annotations
+
+import argparse
+
+from ..history_scenario import format_history_summary, load_history_scenario, run_history_scenario
+from .common import add_common_options, progress_printer
+
+NAME = "history"
+HELP = "run an ice-thickness history (deflection through time, uplift rate, point series)"
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
+    parser.add_argument("scenario", help="history scenario file (TOML)")
+    parser.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    add_common_options(parser)
+
+
+def execute(args: argparse.Namespace) -> int:
+    scenario = load_history_scenario(args.scenario)
+    outcome = run_history_scenario(scenario, overwrite=args.overwrite,
+                                   progress=progress_printer(args))
+    if not args.quiet:
+        print(format_history_summary(outcome.summary))
+        for path in outcome.written:
+            print(f"wrote {path}")
+    return 0

@@ -1,0 +1,67 @@
+"""Benchmark: 1000 time steps of the viscous half-space model on a 512 x 512 grid.
+
+Prints the time per step against one FFT pair (rfft2 + irfft2) of the padded grid,
+timed in the same process, and the total against the 60 s target.
+
+Run:  PYTHONPATH=. python tests/benchmarks/history.py [steps] [n] [model]
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+
+import numpy as np
+import scipy.fft
+
+from gridflex import Plate, ResponseStepper
+from gridflex.synthetic import disc_height, empty_grid
+
+
+def fft_pair_seconds(shape: tuple[int, int], repeats: int = 10) -> float:
+    """Median time of rfft2 + irfft2 on an array of *shape*."""
+    data = np.random.default_rng(0).normal(size=shape)
+    times = []
+    for _ in range(repeats + 1):
+        start = time.perf_counter()
+        spectrum = scipy.fft.rfft2(data, workers=-1)
+        scipy.fft.irfft2(spectrum, s=shape, workers=-1)
+        times.append(time.perf_counter() - start)
+    return float(np.median(times[1:]))
+
+
+def main() -> None:
+    steps = int(sys.argv[1]) if len(sys.argv) > 1 else 1000
+    n = int(sys.argv[2]) if len(sys.argv) > 2 else 512
+    model = sys.argv[3] if len(sys.argv) > 3 else "half-space"
+    grid = empty_grid(n, n, 10e3)  # 5120 km square (invented)
+    cap = disc_height(grid, 1500e3, 1.0, supersample=2)
+    plate = Plate.from_rigidity(1e25, infill_density=0.0)
+    stepper = ResponseStepper(grid, plate, model)
+    shape = stepper.padded_shape
+    pair = fft_pair_seconds(shape)
+    # an ice cap growing then melting over the run, 10 years per step
+    thickness = 3000.0 * np.sin(np.linspace(0.0, np.pi, steps))
+    load0 = cap.values * (910.0 * 9.81)
+    stepper.advance(10.0, load0 * thickness[0])  # warm-up: caches the step factors
+    start = time.perf_counter()
+    for h in thickness:
+        w = stepper.advance(10.0, load0 * h)
+    total = time.perf_counter() - start
+    per_step = total / steps
+    start = time.perf_counter()
+    for _ in range(5):
+        stepper.uplift_rate()
+    rate = (time.perf_counter() - start) / 5
+    print(f"model {model}, grid {n} x {n}, padded FFT grid {shape[0]} x {shape[1]}")
+    print(f"one FFT pair of the padded grid (baseline): {pair * 1e3:8.2f} ms")
+    print(f"one advance() step:                          {per_step * 1e3:8.2f} ms  "
+          f"ratio {per_step / pair:5.2f}")
+    print(f"one uplift_rate() call:                      {rate * 1e3:8.2f} ms  "
+          f"ratio {rate / pair:5.2f}")
+    print(f"{steps} steps: {total:6.1f} s (target 60 s); "
+          f"final centre deflection {float(w.values[n // 2, n // 2]):.2f} m")
+
+
+if __name__ == "__main__":
+    main()
