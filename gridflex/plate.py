@@ -93,7 +93,7 @@ class Plate:
     >>> round(plate.rigidity / 1e21, 3)
     97.222
     >>> round(plate.flexural_parameter / 1e3, 2)
-    67.11
+    64.43
     """
 
     te: TeLike

@@ -56,15 +56,14 @@ def _check_force(name: str, value: Any) -> float:
     return force
 
 
-def _warn_edge_load(values: np.ndarray) -> None:
-    """Warn when a share of the load touches the grid edge (it ends there)."""
-    magnitude = np.abs(values)
-    total = float(magnitude.sum())
+def _warn_edge_load(values: np.ndarray, total: float) -> None:
+    """Warn when a share of the load (of magnitude Σ|q| = *total*) touches the grid edge."""
     if total == 0.0:
         return
     e = _EDGE_CELLS
-    inner = float(magnitude[e:-e, e:-e].sum()) if min(values.shape) > 2 * e else 0.0
-    fraction = (total - inner) / total
+    strips = (values[:e], values[-e:], values[e:-e, :e], values[e:-e, -e:])
+    edge = sum(float(np.abs(strip).sum()) for strip in strips)
+    fraction = edge / total
     if fraction > _EDGE_WARN_FRACTION:
         warnings.warn(
             f"{fraction:.1%} of the load lies within {e} cells of the grid edge; the "
@@ -188,14 +187,15 @@ def solve(
             "in this version; give te as a single number"
         )
     values = np.asarray(load.values, dtype=np.float64)
-    if edges == "infinite":
-        _warn_edge_load(values)
     problem = SpectralProblem.build(
         spec, float(plate.rigidity), plate.restoring_stiffness, force_x, force_y,
         periodic=(edges == "periodic"), pad_factor=pad_factor,
     )
+    magnitude = float(np.abs(values).sum())
+    if edges == "infinite" and not problem.is_local:
+        _warn_edge_load(values, magnitude)
     log.info("spectral solve on %s grid, FFT grid %s", spec.shape, problem.shape)
-    deflection, balance = problem.deflection(values)
+    deflection, balance = problem.deflection(values, magnitude)
     attrs = {
         "solver": "spectral",
         "spectral_symbol": "continuous",

@@ -1,0 +1,1 @@
+"""Everything that touches disk: grid readers, atomic writers, file formats."""

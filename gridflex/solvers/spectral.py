@@ -31,6 +31,8 @@ __all__ = [
     "transfer_function",
 ]
 
+_BLOCK_ROWS = 32
+
 DEFAULT_PAD_FACTOR = 4.5
 """Zero padding on each side, in decay lengths (flexural parameters). 4.5 keeps the
 forebulge height and position within 0.5 % of the infinite-plate solution."""
@@ -118,15 +120,20 @@ def transfer_function(
         Real-valued transfer function for :func:`scipy.fft.rfft2` spectra.
     """
     ky2, kx2 = wavenumbers_squared(shape, dy, dx)
-    denom = ky2 + kx2  # k² on the half-spectrum grid (one full-size array)
-    np.square(denom, out=denom)
-    denom *= rigidity
-    if force_x:
-        denom += force_x * kx2
-    if force_y:
-        denom += force_y * ky2
-    denom += stiffness
-    np.reciprocal(denom, out=denom)
+    denom = np.empty((shape[0], kx2.shape[1]), dtype=np.float64)
+    # in blocks of rows that stay in cache: a few passes per block, one over memory
+    for start in range(0, shape[0], _BLOCK_ROWS):
+        block = denom[start: start + _BLOCK_ROWS]
+        rows = ky2[start: start + _BLOCK_ROWS]
+        np.add(rows, kx2, out=block)
+        np.square(block, out=block)
+        block *= rigidity
+        if force_x:
+            block += force_x * kx2
+        if force_y:
+            block += force_y * rows
+        block += stiffness
+        np.reciprocal(block, out=block)
     denom.flags.writeable = False
     return denom
 
@@ -208,13 +215,17 @@ class SpectralProblem:
             float(self.force_x), float(self.force_y),
         )
 
-    def deflection(self, load: np.ndarray) -> tuple[np.ndarray, float]:
+    def deflection(
+        self, load: np.ndarray, load_magnitude: float | None = None
+    ) -> tuple[np.ndarray, float]:
         """Deflection (m, positive down) under *load* (Pa, positive down).
 
         Parameters
         ----------
         load : numpy.ndarray, shape (ny, nx)
             Vertical stress on the unpadded grid.
+        load_magnitude : float, optional
+            Σ |q| if the caller has it already (saves a pass over the grid).
 
         Returns
         -------
@@ -235,10 +246,12 @@ class SpectralProblem:
                 padded[:ny, :nx] = load
             spectrum = scipy.fft.rfft2(padded, workers=-1, overwrite_x=True)
             del padded
-            spectrum *= self.transfer()
+            # multiply real and imaginary parts as one float array (no complex casting)
+            pairs = spectrum.view(np.float64).reshape(*spectrum.shape, 2)
+            pairs *= self.transfer()[..., None]
             full = scipy.fft.irfft2(spectrum, s=self.shape, workers=-1, overwrite_x=True)
             del spectrum
-        magnitude = float(np.abs(load).sum())
+        magnitude = float(np.abs(load).sum()) if load_magnitude is None else load_magnitude
         imbalance = abs(self.stiffness * float(full.sum()) - float(np.sum(load)))
         balance = imbalance / magnitude if magnitude > 0 else 0.0
         if full.shape == (ny, nx):

@@ -1,0 +1,5 @@
+"""``python -m gridflex`` runs the command line."""
+
+from .cli.main import main
+
+raise SystemExit(main())

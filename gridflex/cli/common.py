@@ -1,0 +1,48 @@
+"""What every command shares: logging levels, progress on stderr, error reporting."""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+import warnings
+from typing import Callable
+
+__all__ = ["add_common_options", "configure_output", "progress_printer"]
+
+
+def add_common_options(parser: argparse.ArgumentParser) -> None:
+    """-q/--quiet and -v/--verbose."""
+    group = parser.add_mutually_exclusive_group()
+    group.add_argument("-q", "--quiet", action="store_true",
+                       help="print only errors (no progress, no summary)")
+    group.add_argument("-v", "--verbose", action="store_true", help="print debugging detail")
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):  # type: ignore[no-untyped-def]
+    print(f"gridflex: warning: {message}", file=sys.stderr)
+
+
+def configure_output(args: argparse.Namespace) -> None:
+    """Map -q/-v to log levels on stderr and print warnings as one line each."""
+    level = logging.WARNING
+    if getattr(args, "verbose", False):
+        level = logging.DEBUG
+    elif getattr(args, "quiet", False):
+        level = logging.ERROR
+    logging.basicConfig(level=level, format="gridflex: %(message)s", stream=sys.stderr, force=True)
+    if getattr(args, "quiet", False):
+        warnings.simplefilter("ignore")
+    warnings.showwarning = _show_warning
+
+
+def progress_printer(args: argparse.Namespace) -> Callable[[int, int], None] | None:
+    """A progress callback writing ``done/total`` on stderr, or None when quiet."""
+    if getattr(args, "quiet", False):
+        return None
+
+    def report(done: int, total: int) -> None:
+        end = "\n" if done >= total else "\r"
+        print(f"gridflex: {done}/{total}", end=end, file=sys.stderr, flush=True)
+
+    return report

@@ -1,0 +1,56 @@
+"""Entry point of the ``gridflex`` command."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Sequence
+from types import ModuleType
+
+from .._version import __version__
+from ..errors import ConvergenceError, GridflexError
+from . import demo, profile, run
+from .common import configure_output
+
+COMMANDS: tuple[ModuleType, ...] = (run, demo, profile)
+"""Command modules; each has NAME, add_parser(subparsers) and execute(args)."""
+
+EXIT_INPUT = 2
+EXIT_CONVERGENCE = 3
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="gridflex",
+        description="Flexure of the lithosphere under gridded loads.",
+    )
+    parser.add_argument("--version", action="version", version=f"gridflex {__version__}")
+    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for module in COMMANDS:
+        module.add_parser(subparsers)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; return the exit status (0 ok, 2 bad input, 3 no convergence)."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help(sys.stderr)
+        return EXIT_INPUT
+    configure_output(args)
+    handler = {module.NAME: module.execute for module in COMMANDS}[args.command]
+    try:
+        return handler(args)
+    except ConvergenceError as exc:
+        print(f"gridflex: error: {exc}", file=sys.stderr)
+        return EXIT_CONVERGENCE
+    except GridflexError as exc:
+        print(f"gridflex: error: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except OSError as exc:
+        print(f"gridflex: error: {exc.filename or ''}: {exc.strerror or exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("gridflex: interrupted", file=sys.stderr)
+        return 130

@@ -1,0 +1,42 @@
+"""``gridflex profile RESULT.nc --start X Y --end X Y``: values along a line to CSV."""
+
+from __future__ import annotations
+
+import argparse
+
+from ..io.netcdf import read_result
+from ..io.tables import write_csv
+from ..plots import plot_profile
+from ..profile import sample_profile
+from .common import add_common_options
+
+NAME = "profile"
+HELP = "sample a result grid along a straight line and write a CSV (and a plot)"
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
+    parser.add_argument("result", help="result NetCDF written by 'gridflex run'")
+    parser.add_argument("--start", nargs=2, type=float, required=True, metavar=("X", "Y"),
+                        help="start point in the grid's map coordinates (m, or lon lat)")
+    parser.add_argument("--end", nargs=2, type=float, required=True, metavar=("X", "Y"),
+                        help="end point in the grid's map coordinates")
+    parser.add_argument("--csv", required=True, help="CSV file to write")
+    parser.add_argument("--plot", help="PNG plot of the profile")
+    parser.add_argument("--samples", type=int, help="number of points (default: 2 per cell)")
+    parser.add_argument("--variables", nargs="+", help="variables to sample (default: all)")
+    parser.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    add_common_options(parser)
+
+
+def execute(args: argparse.Namespace) -> int:
+    result = read_result(args.result)
+    profile = sample_profile(result, args.start, args.end, args.samples, args.variables)
+    inputs = [args.result]
+    written = [write_csv(profile, args.csv, args.overwrite, inputs)]
+    if args.plot:
+        written.append(plot_profile(profile, args.plot, args.overwrite, inputs))
+    if not args.quiet:
+        for path in written:
+            print(f"wrote {path}")
+    return 0

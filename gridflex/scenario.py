@@ -1,0 +1,337 @@
+"""Scenario files: a TOML description of one model run, validated key by key.
+
+Every table and key is declared once in :data:`SCHEMA` (with its kind, unit
+dimension, default and allowed values); parsing, defaults, the error messages and
+the documentation table in the README are all derived from it. Every message names
+the file, the table and the key.
+
+A scenario has these tables (``[[loads]]`` is an array of tables)::
+
+    [plate]    elastic thickness, moduli, densities
+    [solver]   method, edges, in-plane forces, padding
+    [grid]     size and spacing, for scenarios whose loads are all synthetic
+    [[loads]]  one table per load layer: a grid file or a synthetic shape
+    [output]   where the results go
+"""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+from .errors import InputError
+from .units import parse_quantity
+
+__all__ = ["Key", "SCHEMA", "ARRAY_TABLES", "Scenario", "load_scenario", "parse_scenario"]
+
+REQUIRED = object()
+"""Default of a key that must be given."""
+
+
+@dataclass(frozen=True)
+class Key:
+    """Declaration of one scenario key.
+
+    Parameters
+    ----------
+    kind : str
+        ``"quantity"`` (number or string with unit of *dimension*), ``"number"``,
+        ``"integer"``, ``"string"``, ``"choice"``, ``"path"``, ``"bool"``, ``"list"``.
+    help : str
+        One line for documentation.
+    default : object
+        Value when the key is absent; :data:`REQUIRED` if it must be given, ``None``
+        if optional without default.
+    dimension : str, optional
+        Unit dimension for quantities (see :data:`gridflex.units.DIMENSIONS`).
+    choices : tuple of str
+        Allowed values for ``"choice"``.
+    minimum : float, optional
+        Smallest allowed value (inclusive) for numbers and quantities.
+    """
+
+    kind: str
+    help: str
+    default: Any = None
+    dimension: str = ""
+    choices: tuple[str, ...] = ()
+    minimum: float | None = None
+
+
+def _choices(*names: str) -> tuple[str, ...]:
+    return tuple(names)
+
+
+SCHEMA: dict[str, dict[str, Key]] = {
+    "plate": {
+        "elastic_thickness": Key("quantity", "effective elastic thickness Te", REQUIRED,
+                                 "length", minimum=0.0),
+        "youngs_modulus": Key("quantity", "Young's modulus E", 1.0e11, "pressure", minimum=0.0),
+        "poisson_ratio": Key("number", "Poisson's ratio", 0.25),
+        "mantle_density": Key("quantity", "mantle density", 3300.0, "density", minimum=0.0),
+        "infill_density": Key("quantity", "density of the material filling the deflection",
+                              1030.0, "density", minimum=0.0),
+        "gravity": Key("quantity", "gravitational acceleration", 9.81, "acceleration",
+                       minimum=0.0),
+    },
+    "solver": {
+        "method": Key("choice", "solver", "auto", choices=_choices("auto", "spectral",
+                                                                  "finite-difference")),
+        "edges": Key("choice", "what lies beyond the grid edge", "infinite",
+                     choices=_choices("infinite", "periodic")),
+        "inplane_force_x": Key("quantity", "in-plane force along x, tension positive", 0.0,
+                               "force_per_length"),
+        "inplane_force_y": Key("quantity", "in-plane force along y, tension positive", 0.0,
+                               "force_per_length"),
+        "pad_factor": Key("number", "zero padding per side in flexural parameters", 4.5,
+                          minimum=0.0),
+    },
+    "grid": {
+        "columns": Key("integer", "number of cells along x", REQUIRED, minimum=4),
+        "rows": Key("integer", "number of cells along y", REQUIRED, minimum=4),
+        "spacing": Key("quantity", "cell size", REQUIRED, "length", minimum=0.0),
+    },
+    "loads": {
+        "name": Key("string", "label of the layer", None),
+        "file": Key("path", "NetCDF grid holding the layer", None),
+        "variable": Key("string", "variable in the file", None),
+        "synthetic": Key("choice", "a built-in shape instead of a file", None,
+                         choices=_choices("island-chain", "disc", "gaussian")),
+        "kind": Key("choice", "thickness (m, times density) or stress (Pa)", "thickness",
+                    choices=_choices("thickness", "stress")),
+        "density": Key("quantity", "density of the layer", None, "density", minimum=0.0),
+        "displaced_density": Key("quantity", "density of what the layer replaces (water "
+                                 "for a submarine load)", 0.0, "density", minimum=0.0),
+        "height": Key("quantity", "peak height of a synthetic shape", None, "length"),
+        "radius": Key("quantity", "radius of a synthetic disc, or width of a gaussian",
+                      None, "length", minimum=0.0),
+        "center_x": Key("quantity", "x of a synthetic shape's centre", 0.0, "length"),
+        "center_y": Key("quantity", "y of a synthetic shape's centre", 0.0, "length"),
+    },
+    "output": {
+        "file": Key("path", "NetCDF file for the results", REQUIRED),
+        "map": Key("path", "PNG map of the deflection", None),
+    },
+}
+"""Every table and key a scenario may contain."""
+
+ARRAY_TABLES = frozenset({"loads"})
+"""Tables written as arrays of tables (``[[loads]]``)."""
+
+REQUIRED_TABLES = ("plate", "loads", "output")
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A validated scenario.
+
+    Attributes
+    ----------
+    path : pathlib.Path
+        The scenario file (paths inside it are resolved against its folder).
+    text : str
+        The scenario text as read (recorded in output metadata).
+    tables : dict
+        ``{table: {key: value}}`` with defaults filled in and quantities in SI;
+        array tables map to a list of such dicts.
+    """
+
+    path: Path
+    text: str
+    tables: dict[str, Any] = field(default_factory=dict)
+
+    def table(self, name: str) -> dict[str, Any]:
+        """Values of one table (defaults for an absent table)."""
+        return self.tables[name]
+
+    def where(self, table: str, key: str = "", index: int | None = None) -> str:
+        """``file [table] key`` for messages."""
+        tag = f"[[{table}]] #{index + 1}" if index is not None else f"[{table}]"
+        return f"{self.path}: {tag}" + (f" {key}" if key else "")
+
+    @property
+    def input_files(self) -> list[Path]:
+        """Every file the scenario reads: paths in any table but ``[output]``.
+
+        Outputs must never be written over one of these."""
+        files = [self.path]
+        for name, values in self.tables.items():
+            if name == "output" or values is None:
+                continue
+            for row in values if isinstance(values, list) else [values]:
+                files.extend(v for v in row.values() if isinstance(v, Path))
+        return files
+
+
+_Checker = Callable[[Any, Key, str, Path], Any]
+
+
+def _check_number(value: Any, key: Key, where: str, base: Path) -> Any:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(f"{where}: expected a number, got {value!r}")
+    return float(value)
+
+
+def _check_integer(value: Any, key: Key, where: str, base: Path) -> Any:
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise InputError(f"{where}: expected a whole number, got {value!r}")
+    return value
+
+
+def _check_quantity(value: Any, key: Key, where: str, base: Path) -> Any:
+    return parse_quantity(value, key.dimension, where)
+
+
+def _check_string(value: Any, key: Key, where: str, base: Path) -> Any:
+    if not isinstance(value, str) or not value:
+        raise InputError(f"{where}: expected a non-empty string, got {value!r}")
+    return value
+
+
+def _check_choice(value: Any, key: Key, where: str, base: Path) -> Any:
+    if value not in key.choices:
+        raise InputError(f"{where}: {value!r} is not allowed; use one of "
+                         + ", ".join(repr(c) for c in key.choices))
+    return value
+
+
+def _check_path(value: Any, key: Key, where: str, base: Path) -> Any:
+    _check_string(value, key, where, base)
+    path = Path(value).expanduser()
+    return path if path.is_absolute() else (base / path)
+
+
+def _check_bool(value: Any, key: Key, where: str, base: Path) -> Any:
+    if not isinstance(value, bool):
+        raise InputError(f"{where}: expected true or false, got {value!r}")
+    return value
+
+
+def _check_list(value: Any, key: Key, where: str, base: Path) -> Any:
+    if not isinstance(value, list):
+        raise InputError(f"{where}: expected a list, got {value!r}")
+    return value
+
+
+_CHECKERS: dict[str, _Checker] = {
+    "number": _check_number,
+    "integer": _check_integer,
+    "quantity": _check_quantity,
+    "string": _check_string,
+    "choice": _check_choice,
+    "path": _check_path,
+    "bool": _check_bool,
+    "list": _check_list,
+}
+
+
+def _parse_table(values: Any, spec: dict[str, Key], where: str, base: Path) -> dict[str, Any]:
+    if not isinstance(values, dict):
+        raise InputError(f"{where}: expected a table, got {values!r}")
+    unknown = sorted(set(values) - set(spec))
+    if unknown:
+        raise InputError(f"{where}: unknown key {unknown[0]!r}; valid keys are "
+                         + ", ".join(sorted(spec)))
+    out: dict[str, Any] = {}
+    for name, key in spec.items():
+        if name not in values:
+            if key.default is REQUIRED:
+                raise InputError(f"{where} {name}: required key is missing ({key.help})")
+            out[name] = key.default
+            continue
+        value = _CHECKERS[key.kind](values[name], key, f"{where} {name}", base)
+        if key.minimum is not None and isinstance(value, (int, float)) and value < key.minimum:
+            raise InputError(f"{where} {name}: must be >= {key.minimum:g}, got {values[name]!r}")
+        out[name] = value
+    return out
+
+
+def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario:
+    """Validate a scenario already read into a dict (see :func:`load_scenario`)."""
+    base = path.parent
+    unknown = sorted(set(data) - set(SCHEMA))
+    if unknown:
+        raise InputError(f"{path}: unknown table [{unknown[0]}]; valid tables are "
+                         + ", ".join(f"[{t}]" for t in SCHEMA))
+    for name in REQUIRED_TABLES:
+        if name not in data:
+            raise InputError(f"{path}: required table [{name}] is missing")
+    tables: dict[str, Any] = {}
+    for name, spec in SCHEMA.items():
+        raw = data.get(name)
+        if name in ARRAY_TABLES:
+            items = raw if raw is not None else []
+            if not isinstance(items, list):
+                raise InputError(f"{path}: [{name}] must be an array of tables, written [[{name}]]")
+            tables[name] = [
+                _parse_table(item, spec, f"{path}: [[{name}]] #{i + 1}", base)
+                for i, item in enumerate(items)
+            ]
+        elif raw is None:
+            if any(k.default is REQUIRED for k in spec.values()):
+                tables[name] = None
+            else:
+                tables[name] = {k: v.default for k, v in spec.items()}
+        else:
+            tables[name] = _parse_table(raw, spec, f"{path}: [{name}]", base)
+    scenario = Scenario(path=path, text=text, tables=tables)
+    _check_loads(scenario)
+    return scenario
+
+
+def _check_loads(scenario: Scenario) -> None:
+    layers = scenario.tables["loads"]
+    if not layers:
+        raise InputError(f"{scenario.path}: at least one [[loads]] table is needed")
+    for i, layer in enumerate(layers):
+        where = scenario.where("loads", index=i)
+        has_file, has_shape = layer["file"] is not None, layer["synthetic"] is not None
+        if has_file == has_shape:
+            raise InputError(f"{where}: give either 'file' (with 'variable') or 'synthetic'")
+        if has_file and layer["variable"] is None:
+            raise InputError(f"{where} variable: required with 'file' (the grid's name in it)")
+        if layer["kind"] == "thickness" and layer["density"] is None:
+            raise InputError(f"{where} density: required for a thickness layer")
+        if has_shape:
+            if scenario.tables["grid"] is None:
+                raise InputError(f"{scenario.path}: a synthetic load needs a [grid] table "
+                                 "(columns, rows, spacing)")
+            if layer["synthetic"] != "island-chain":
+                for name in ("height", "radius"):
+                    if layer[name] is None:
+                        raise InputError(f"{where} {name}: required for a "
+                                         f"{layer['synthetic']!r} shape")
+
+
+def load_scenario(path: str | Path) -> Scenario:
+    """Read and validate a TOML scenario file.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        The scenario file; relative paths inside it are taken from its folder.
+
+    Returns
+    -------
+    Scenario
+
+    Raises
+    ------
+    InputError
+        Missing or unreadable file, malformed TOML, unknown table or key, a value of
+        the wrong type, unit or range; the message names file, table and key.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError as exc:
+        raise InputError(f"{path}: scenario file not found") from exc
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: cannot read the scenario file ({exc})") from exc
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{path}: malformed TOML: {exc}") from exc
+    return parse_scenario(data, path.resolve(), text)

@@ -1,0 +1,74 @@
+"""Physical quantities written as numbers (SI) or as strings with a unit ("25 km")."""
+
+from __future__ import annotations
+
+import math
+import re
+from typing import Any
+
+from .errors import InputError
+
+__all__ = ["DIMENSIONS", "parse_quantity", "unit_factor"]
+
+DIMENSIONS: dict[str, dict[str, float]] = {
+    "length": {"m": 1.0, "km": 1.0e3, "metre": 1.0, "meter": 1.0, "metres": 1.0, "meters": 1.0},
+    "density": {"kg/m^3": 1.0, "kg/m3": 1.0, "kg m-3": 1.0, "kg m^-3": 1.0, "g/cm^3": 1.0e3,
+                "g/cm3": 1.0e3},
+    "pressure": {"Pa": 1.0, "kPa": 1.0e3, "MPa": 1.0e6, "GPa": 1.0e9},
+    "force_per_length": {"N/m": 1.0, "N m-1": 1.0, "kN/m": 1.0e3, "MN/m": 1.0e6,
+                         "TN/m": 1.0e12},
+    "acceleration": {"m/s^2": 1.0, "m/s2": 1.0, "m s-2": 1.0},
+    "rigidity": {"N m": 1.0, "N*m": 1.0, "Nm": 1.0},
+    "time": {"yr": 1.0, "year": 1.0, "years": 1.0, "kyr": 1.0e3, "ka": 1.0e3},
+    "viscosity": {"Pa s": 1.0, "Pa*s": 1.0},
+}
+"""Accepted units per dimension, with their factor to the SI (or year) unit."""
+
+_QUANTITY = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
+
+
+def unit_factor(unit: str, dimension: str, where: str) -> float:
+    """Factor that converts *unit* to SI for *dimension*; InputError naming *where*."""
+    table = DIMENSIONS[dimension]
+    unit = unit.strip()
+    if unit in table:
+        return table[unit]
+    allowed = ", ".join(table)
+    raise InputError(f"{where}: unit {unit!r} is not a {dimension.replace('_', ' ')}; use one of {allowed}")
+
+
+def parse_quantity(value: Any, dimension: str, where: str) -> float:
+    """A number (taken as SI) or a string ``"<number> <unit>"`` converted to SI.
+
+    Parameters
+    ----------
+    value : float, int or str
+        The value as written.
+    dimension : str
+        One of :data:`DIMENSIONS`.
+    where : str
+        Where the value came from, for messages (file, table, key).
+
+    Examples
+    --------
+    >>> parse_quantity("25 km", "length", "x")
+    25000.0
+    >>> parse_quantity(1030, "density", "x")
+    1030.0
+    """
+    if isinstance(value, bool):
+        raise InputError(f"{where}: expected a number, got {value!r}")
+    if isinstance(value, (int, float)):
+        number = float(value)
+    elif isinstance(value, str):
+        match = _QUANTITY.match(value)
+        if not match:
+            raise InputError(f"{where}: cannot read {value!r} as a number with a unit")
+        number = float(match.group(1))
+        if match.group(2):
+            number *= unit_factor(match.group(2), dimension, where)
+    else:
+        raise InputError(f"{where}: expected a number or a string like '25 km', got {value!r}")
+    if not math.isfinite(number):
+        raise InputError(f"{where}: value must be finite, got {value!r}")
+    return number
