@@ -586,7 +586,7 @@ def finite_difference_deflection(
     rigidity: np.ndarray,
     stiffness: float,
     poisson_ratio: float,
-    edges: str = "infinite",
+    edges: str | tuple[str, str] = "infinite",
     *,
     pad_factor: float = DEFAULT_PAD_FACTOR,
     tolerance: float = DEFAULT_TOLERANCE,
@@ -614,6 +614,8 @@ def finite_difference_deflection(
         periodic margin of *pad_factor* flexural parameters (of the largest edge rigidity)
         on each side, in which the edge rigidity continues (:func:`pad_rigidity`) and the
         load is zero. ``"clamped"``, ``"free"``, ``"periodic"``: see :data:`AXIS_EDGES`.
+        A pair of :data:`AXIS_EDGES` values sets the y and x axes separately (no margin),
+        for example ``("periodic", "free")`` for a strip that models a line load.
     pad_factor : float, default 4.5
         Margin for ``"infinite"``, in flexural parameters.
     tolerance : float, default 1e-8
@@ -652,7 +654,10 @@ def finite_difference_deflection(
         sharp_band,
     )
 
-    if edges not in EDGES:
+    if isinstance(edges, tuple):
+        if len(edges) != 2 or any(e not in AXIS_EDGES for e in edges):
+            raise InputError(f"an edges pair must hold two of {AXIS_EDGES!r}; got {edges!r}")
+    elif edges not in EDGES:
         raise InputError(f"edges must be one of {', '.join(map(repr, EDGES))}; got {edges!r}")
     if not (0.0 < tolerance < 1.0):
         raise InputError(f"tolerance must lie in (0, 1), got {tolerance!r}")
@@ -665,10 +670,10 @@ def finite_difference_deflection(
     rigidity = np.asarray(rigidity, dtype=np.float64)
     if edges == "infinite":
         shape = _infinite_shape(spec, rigidity, stiffness, pad_factor)
-        axis_edges = ("periodic", "periodic")
+        axis_edges: tuple[str, str] = ("periodic", "periodic")
     else:
         shape = spec.shape
-        axis_edges = (edges, edges)
+        axis_edges = edges if isinstance(edges, tuple) else (edges, edges)
     n = shape[0] * shape[1]
     # operator weights (8), CG vectors (5), preconditioner work (~8 + 2 per blend level)
     check_memory(8.0 * n * 27, f"finite-difference solve on a grid of {shape[0]} x {shape[1]}")
