@@ -29,7 +29,7 @@ from __future__ import annotations
 import logging
 import math
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -244,6 +244,7 @@ class PlateOperator:
     _w_cross: np.ndarray
     _w_corner: np.ndarray
     _diagonal: np.ndarray
+    _work: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
 
     @classmethod
     def build(
@@ -307,9 +308,11 @@ class PlateOperator:
             along = _edge_weights(nx, edges[1])
             diagonal[0, :] += 2.0 * along * rigidity[0, :] / dy**4
             diagonal[-1, :] += 2.0 * along * rigidity[-1, :] / dy**4
+        # the energy weights carry the 1/h^4 of the differences (taken undivided)
         return cls(
             rigidity, float(stiffness), nu, float(dy), float(dx), edges, area,
-            weight * valid_x, weight * valid_y, (nu * weight) * (valid_x * valid_y), w_corner,
+            weight * valid_x / dx**4, weight * valid_y / dy**4,
+            (nu * weight) * (valid_x * valid_y) / (dx * dy) ** 2, w_corner / (dx * dy) ** 2,
             diagonal,
         )
 
@@ -319,21 +322,6 @@ class PlateOperator:
         return self.rigidity.shape  # type: ignore[return-value]
 
     # -- matrix-free application ------------------------------------------------------
-
-    def _extend(self, w: np.ndarray) -> np.ndarray:
-        ny, nx = w.shape
-        ext = np.zeros((ny + 2, nx + 2))
-        ext[1:-1, 1:-1] = w
-        py, px = (e == "periodic" for e in self.edges)
-        if px:
-            ext[1:-1, 0] = w[:, -1]
-            ext[1:-1, -1] = w[:, 0]
-        if py:
-            ext[0, 1:-1] = w[-1]
-            ext[-1, 1:-1] = w[0]
-        if px and py:
-            ext[0, 0], ext[0, -1], ext[-1, 0], ext[-1, -1] = w[-1, -1], w[-1, 0], w[0, -1], w[0, 0]
-        return ext
 
     def _fold(self, ext: np.ndarray) -> np.ndarray:
         out = ext[1:-1, 1:-1].copy()
@@ -351,33 +339,58 @@ class PlateOperator:
             out[0, 0] += ext[-1, -1]
         return out
 
+    def _workspace(self) -> dict[str, np.ndarray]:
+        work = self._work
+        if not work:
+            ny, nx = self.shape
+            work["ext"] = np.zeros((ny + 2, nx + 2))
+            work["out"] = np.zeros((ny + 2, nx + 2))
+            work["twist"] = np.empty((ny + 1, nx + 1))
+            for name in ("a", "b", "mx", "my", "tmp"):
+                work[name] = np.empty((ny, nx))
+        return work
+
     def apply(self, w: np.ndarray) -> np.ndarray:
         """K w (Pa) for a deflection *w* (m) of shape (ny, nx)."""
         w = np.asarray(w, dtype=np.float64).reshape(self.shape)
-        ext = self._extend(w)
-        inv_x2, inv_y2, inv_xy = 1.0 / self.dx**2, 1.0 / self.dy**2, 1.0 / (self.dx * self.dy)
+        work = self._workspace()
+        ext, out, twist = work["ext"], work["out"], work["twist"]
+        a, b, mx, my, tmp = work["a"], work["b"], work["mx"], work["my"], work["tmp"]
+        py, px = (e == "periodic" for e in self.edges)
+        ext[1:-1, 1:-1] = w
+        if px:
+            ext[1:-1, 0] = w[:, -1]
+            ext[1:-1, -1] = w[:, 0]
+        if py:
+            ext[0, 1:-1] = w[-1]
+            ext[-1, 1:-1] = w[0]
+        if px and py:
+            ext[0, 0], ext[0, -1], ext[-1, 0], ext[-1, -1] = w[-1, -1], w[-1, 0], w[0, -1], w[0, 0]
         centre = ext[1:-1, 1:-1]
-        kxx = ext[1:-1, 2:] + ext[1:-1, :-2]
-        kxx -= 2.0 * centre
-        kxx *= inv_x2
-        kyy = ext[2:, 1:-1] + ext[:-2, 1:-1]
-        kyy -= 2.0 * centre
-        kyy *= inv_y2
-        twist = ext[1:, 1:] - ext[1:, :-1]
+        # undivided differences; the weights carry the 1/h^4 factors
+        np.add(ext[1:-1, 2:], ext[1:-1, :-2], out=a)
+        a -= centre
+        a -= centre
+        np.add(ext[2:, 1:-1], ext[:-2, 1:-1], out=b)
+        b -= centre
+        b -= centre
+        np.subtract(ext[1:, 1:], ext[1:, :-1], out=twist)
         twist -= ext[:-1, 1:]
         twist += ext[:-1, :-1]
         twist *= self._w_corner
-        twist *= inv_xy * inv_xy  # once for the twist, once for the transposed difference
-        mx = self._w_xx * kxx
-        mx += self._w_cross * kyy
-        my = self._w_yy * kyy
-        my += self._w_cross * kxx
-        del kxx, kyy
-        mx *= inv_x2
-        my *= inv_y2
-        out = np.zeros_like(ext)
-        inner = out[1:-1, 1:-1]
-        inner -= 2.0 * (mx + my)
+        np.multiply(self._w_xx, a, out=mx)
+        np.multiply(self._w_cross, b, out=tmp)
+        mx += tmp
+        np.multiply(self._w_yy, b, out=my)
+        np.multiply(self._w_cross, a, out=tmp)
+        my += tmp
+        np.add(mx, my, out=tmp)
+        tmp *= -2.0
+        out[0] = 0.0
+        out[-1] = 0.0
+        out[:, 0] = 0.0
+        out[:, -1] = 0.0
+        out[1:-1, 1:-1] = tmp
         out[1:-1, 2:] += mx
         out[1:-1, :-2] += mx
         out[2:, 1:-1] += my
@@ -387,7 +400,8 @@ class PlateOperator:
         out[:-1, 1:] -= twist
         out[:-1, :-1] += twist
         result = self._fold(out)
-        result += self._diagonal * w
+        np.multiply(self._diagonal, w, out=tmp)
+        result += tmp
         return result
 
     # -- sparse assembly ---------------------------------------------------------------
@@ -412,17 +426,14 @@ class PlateOperator:
         ny, nx = self.shape
         if kind == "xy":
             taps = (((0, 0), 1.0), ((0, -1), -1.0), ((-1, 0), -1.0), ((-1, -1), 1.0))
-            scale = 1.0 / (self.dx * self.dy)
             eval_shape, origin = (ny + 1, nx + 1), (0, 0)
             weight = self._w_corner
         elif kind == "xx":
             taps = (((0, -1), 1.0), ((0, 0), -2.0), ((0, 1), 1.0))
-            scale = 1.0 / self.dx**2
             eval_shape, origin = (ny, nx), (0, 0)
             weight = self._w_xx + self._w_cross
         else:
             taps = (((-1, 0), 1.0), ((0, 0), -2.0), ((1, 0), 1.0))
-            scale = 1.0 / self.dy**2
             eval_shape, origin = (ny, nx), (0, 0)
             weight = self._w_yy + self._w_cross
         # eval points whose stencil touches a selected node
@@ -455,7 +466,7 @@ class PlateOperator:
             keep = col >= 0
             rows.append(np.nonzero(keep)[0])
             cols.append(col[keep])
-            vals.append(np.full(int(keep.sum()), coef * scale))
+            vals.append(np.full(int(keep.sum()), coef))  # undivided: weights carry 1/h^4
         op = sp.csr_matrix(
             (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
             shape=(ej.size, selected.size),
@@ -684,12 +695,12 @@ def finite_difference_deflection(
     else:
         solve_rigidity, rhs_load = rigidity, np.asarray(load, dtype=np.float64)
     operator = PlateOperator.build(solve_rigidity, stiffness, poisson_ratio, spec.dy, spec.dx, axis_edges)
-    blend = BlendPreconditioner.build(operator)
     if band_width is None:
         probe = sharp_band(operator, 0.0, max_band_nodes)[2]
         band_width = default_band_width(solve_rigidity, probe, stiffness)
     nodes, width_used, _ = sharp_band(operator, float(band_width), int(max_band_nodes))
     band = BandSolver.build(operator, nodes)
+    blend = BlendPreconditioner.build(operator, nodes)
     preconditioner = MultiplicativePreconditioner(operator, blend, band)
     rhs = operator.area * rhs_load
     setup = time.perf_counter() - start
