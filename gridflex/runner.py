@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import xarray as xr
 
 from ._version import __version__
@@ -18,10 +19,19 @@ from .plate import Plate
 from .plots import plot_deflection_map
 from .scenario import Scenario
 from .solve import solve
+from .solvers.conjugate_gradient import Progress
 from .summary import deflection_summary
+from .te_maps import break_mask, broken_te, margin_te
 from .synthetic import disc_height, empty_grid, gaussian_height, island_chain_height
 
-__all__ = ["RunOutcome", "build_load", "plate_from_scenario", "run_scenario", "output_dataset"]
+__all__ = [
+    "RunOutcome",
+    "build_load",
+    "elastic_thickness_from_scenario",
+    "plate_from_scenario",
+    "run_scenario",
+    "output_dataset",
+]
 
 log = logging.getLogger(__name__)
 
@@ -45,12 +55,67 @@ class RunOutcome:
     summary: dict[str, Any] = field(default_factory=dict)
 
 
-def plate_from_scenario(scenario: Scenario) -> Plate:
-    """The :class:`Plate` of the ``[plate]`` table."""
+def elastic_thickness_from_scenario(
+    scenario: Scenario, like: xr.DataArray | None = None
+) -> float | xr.DataArray:
+    """Te of the scenario: a number, or a grid on *like*'s grid (m).
+
+    A grid comes from ``[plate] elastic_thickness_file`` or from the ``[margin]`` profile;
+    every ``[[breaks]]`` entry then sets Te = 0 on its cells (a constant Te with breaks
+    becomes a grid too).
+
+    Raises
+    ------
+    InputError
+        A Te grid or mask not on the load grid, a bad line; the message names the table.
+    """
     table = scenario.table("plate")
+    breaks = scenario.table("breaks")
+    te: float | xr.DataArray
+    if table["elastic_thickness"] is not None:
+        te = float(table["elastic_thickness"])
+        if not breaks:
+            return te
+    if like is None:
+        raise InputError(f"{scenario.where('plate')}: a Te grid needs the load grid")
+    if table["elastic_thickness_file"] is not None:
+        where = scenario.where("plate", "elastic_thickness_file")
+        te = read_grid(table["elastic_thickness_file"], table["elastic_thickness_variable"],
+                       "length")
+        try:
+            check_same_grid(te, like, "te grid")
+        except InputError as exc:
+            raise InputError(f"{where}: {exc}") from exc
+    elif scenario.tables["margin"] is not None:
+        margin = scenario.table("margin")
+        try:
+            te = margin_te(like, margin["te_left"], margin["te_right"], margin["line"],
+                           margin["width"])
+        except InputError as exc:
+            raise InputError(f"{scenario.where('margin')}: {exc}") from exc
+    else:
+        te = xr.full_like(like, float(table["elastic_thickness"]), dtype=np.float64)
+    assert isinstance(te, xr.DataArray)
+    for index, item in enumerate(breaks):
+        where = scenario.where("breaks", index=index)
+        try:
+            if item["file"] is not None:
+                mask = read_grid(item["file"], item["variable"]) != 0
+            else:
+                mask = break_mask(like, [item["line"]], item["width"])
+            te = broken_te(te, mask)
+        except InputError as exc:
+            raise InputError(f"{where}: {exc}") from exc
+    return te
+
+
+def plate_from_scenario(scenario: Scenario, like: xr.DataArray | None = None) -> Plate:
+    """The :class:`Plate` of the ``[plate]`` table (Te grids on *like*'s grid)."""
+    table = scenario.table("plate")
+    te = elastic_thickness_from_scenario(scenario, like)
     try:
         return Plate(
-            table["elastic_thickness"],
+            te,
             youngs_modulus=table["youngs_modulus"],
             poisson_ratio=table["poisson_ratio"],
             mantle_density=table["mantle_density"],
@@ -119,9 +184,12 @@ def output_dataset(result: xr.Dataset, scenario: Scenario) -> xr.Dataset:
     return out
 
 
-def run_scenario(scenario: Scenario, overwrite: bool = False) -> RunOutcome:
+def run_scenario(
+    scenario: Scenario, overwrite: bool = False, progress: Progress | None = None
+) -> RunOutcome:
     """Build the load, solve and write the outputs of *scenario*.
 
+    *progress* (optional) is called with (done, total) during an iterative solve.
     Output paths are checked before the solve, so a run that would fail to write
     fails before any work; files are written atomically and never over an input.
 
@@ -135,14 +203,15 @@ def run_scenario(scenario: Scenario, overwrite: bool = False) -> RunOutcome:
     targets = [outputs["file"]] + ([outputs["map"]] if outputs["map"] else [])
     for target in targets:
         check_output_path(target, overwrite, inputs)
-    plate = plate_from_scenario(scenario)
     load = build_load(scenario)
+    plate = plate_from_scenario(scenario, load)
     solver = scenario.table("solver")
     log.info("solving %s load grid", load.shape)
     result = solve(
         load, plate, solver["method"], edges=solver["edges"],
         inplane_force_x=solver["inplane_force_x"], inplane_force_y=solver["inplane_force_y"],
-        pad_factor=solver["pad_factor"],
+        pad_factor=solver["pad_factor"], tolerance=solver["tolerance"],
+        max_iterations=solver["max_iterations"], progress=progress,
     )
     outcome = RunOutcome(result=output_dataset(result, scenario))
     outcome.written.append(write_netcdf(outcome.result, outputs["file"], overwrite, inputs))

@@ -42,7 +42,8 @@ def conjugate_gradient(
     max_iterations : int
         Iteration limit.
     progress : callable, optional
-        Called after every iteration with (iterations done, *max_iterations*).
+        Called after every iteration with (iterations done, *max_iterations*), and once
+        more with (iterations, iterations) on convergence.
 
     Returns
     -------
@@ -89,6 +90,8 @@ def conjugate_gradient(
             r = rhs - apply(x)
             relative = float(np.linalg.norm(r)) / b_norm
             if relative <= tolerance:
+                if progress is not None:
+                    progress(iteration, iteration)  # done: the count reaches the total
                 return x, iteration, relative
             log.debug("true residual %.3e above tolerance; restarting", relative)
             z = precondition(r)

@@ -639,7 +639,8 @@ def finite_difference_deflection(
     max_band_nodes : int, default 400000
         Cap on the band size; see :func:`~gridflex.solvers.preconditioners.sharp_band`.
     progress : callable, optional
-        Called with (iterations done, iteration limit) after each iteration.
+        Called with (iterations done, iteration limit) after each iteration and with
+        (iterations, iterations) when converged.
 
     Returns
     -------
