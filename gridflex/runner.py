@@ -21,8 +21,8 @@ from .scenario import Scenario
 from .solve import solve
 from .solvers.conjugate_gradient import Progress
 from .summary import deflection_summary
-from .te_maps import break_mask, broken_te, margin_te
 from .synthetic import disc_height, empty_grid, gaussian_height, island_chain_height
+from .te_maps import break_mask, broken_te, margin_te
 
 __all__ = [
     "RunOutcome",

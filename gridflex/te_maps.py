@@ -139,7 +139,7 @@ def break_mask(
     mask = np.zeros(spec.shape, dtype=bool)
     for number, line in enumerate(polylines):
         points = _points(line, f"break line {number + 1}")
-        for (xa, ya), (xb, yb) in zip(points[:-1], points[1:]):
+        for (xa, ya), (xb, yb) in zip(points[:-1], points[1:], strict=True):
             cells = max(abs(xb - xa) / spec.dx, abs(yb - ya) / spec.dy)
             t = np.linspace(0.0, 1.0, int(np.ceil(4 * cells)) + 2)
             i = np.rint((xa + t * (xb - xa) - xs[0]) / step_x).astype(np.int64)

@@ -98,9 +98,12 @@ def conjugate_gradient(
             p = z.copy()
             rz = float(np.vdot(r, z))
             continue
+        z_old = z
         z = precondition(r)
         rz_new = float(np.vdot(r, z))
-        p *= rz_new / rz
+        # Polak-Ribière form (flexible CG): robust to a slightly inexact preconditioner
+        beta = (rz_new - float(np.vdot(r, z_old))) / rz
+        p *= beta
         p += z
         rz = rz_new
     raise ConvergenceError(
