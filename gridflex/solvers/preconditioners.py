@@ -186,6 +186,14 @@ class BlendPreconditioner:
         return out
 
 
+MAX_FACTOR_BYTES = 1.5 * 2**30
+"""Cap on the estimated memory of the band's LU factors (bytes)."""
+
+FACTOR_BYTES_PER_NODE_CELL = 60.0
+"""Estimated LU factor memory per band node and per node across the band (bytes): COLAMD
+fill measured at 3-5 non-zeros per node per cell of band width, 12 bytes each."""
+
+
 def sharp_band(
     operator: PlateOperator, width: float, max_nodes: int
 ) -> tuple[np.ndarray, float, np.ndarray]:
@@ -201,8 +209,9 @@ def sharp_band(
     width : float
         Distance (m) by which the sharp nodes are widened.
     max_nodes : int
-        Cap on the band size. The width is halved until the band fits (down to one
-        spacing); if even the sharp nodes alone exceed the cap, the band is empty.
+        Cap on the band size. The width is halved until the band fits, in nodes and in the
+        estimated memory of its LU factors (:data:`MAX_FACTOR_BYTES`), down to one
+        spacing; if even that does not fit, the band is empty and the blend works alone.
 
     Returns
     -------
@@ -233,17 +242,20 @@ def sharp_band(
     distance = scipy.ndimage.distance_transform_edt(~sharp, sampling=(operator.dy, operator.dx))
     minimum = max(operator.dx, operator.dy)
     width = max(float(width), minimum)
+    spacing = min(operator.dx, operator.dy)
     while True:
         band = distance <= width
         count = int(band.sum())
-        if count <= max_nodes:
+        factor_bytes = FACTOR_BYTES_PER_NODE_CELL * count * (2.0 * width / spacing + 1.0)
+        if count <= max_nodes and factor_bytes <= MAX_FACTOR_BYTES:
             return np.flatnonzero(band), width, sharp
         if width <= minimum:
             break
         width = max(0.5 * width, minimum)
     log.warning(
-        "the sharp features alone (%d nodes) exceed the band cap of %d nodes; "
-        "solving without the band (more iterations)", count, max_nodes,
+        "the sharp features alone (%d nodes, about %.1f GiB of LU factors) exceed the band "
+        "cap (%d nodes, %.1f GiB); solving without the band (more iterations)",
+        count, factor_bytes / 2**30, max_nodes, MAX_FACTOR_BYTES / 2**30,
     )
     return np.zeros(0, dtype=np.int64), 0.0, sharp
 
