@@ -687,6 +687,7 @@ def finite_difference_deflection(
         The tolerance was not reached within *max_iterations*.
     """
     from .preconditioners import (
+        SINGLE_PRECISION_UNTIL,
         BandSolver,
         BlendPreconditioner,
         MultiplicativePreconditioner,
@@ -731,8 +732,10 @@ def finite_difference_deflection(
     nodes, width_used, _ = sharp_band(operator, float(band_width), int(max_band_nodes))
     band = BandSolver.build(operator, nodes)
     blend = BlendPreconditioner.build(operator, nodes)
-    preconditioner = MultiplicativePreconditioner(operator, blend, band)
     rhs = operator.area * rhs_load
+    preconditioner = MultiplicativePreconditioner(
+        operator, blend, band, SINGLE_PRECISION_UNTIL * float(np.linalg.norm(rhs))
+    )
     setup = time.perf_counter() - start
     log.info(
         "finite-difference solve on %s nodes: %d blend levels, band of %d nodes (%.0f m)",
