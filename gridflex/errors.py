@@ -14,6 +14,7 @@ __all__ = [
     "ConvergenceError",
     "GridflexWarning",
     "EdgeLoadWarning",
+    "NodataWarning",
 ]
 
 
@@ -41,3 +42,7 @@ class GridflexWarning(UserWarning):
 
 class EdgeLoadWarning(GridflexWarning):
     """A load reaches the edge of the grid, where it is cut off by the solver."""
+
+
+class NodataWarning(GridflexWarning):
+    """Missing (nodata or NaN) cells of an input layer were replaced, as its policy says."""

@@ -9,7 +9,6 @@ the density.
 from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
-from typing import Union
 
 import numpy as np
 import xarray as xr
@@ -18,7 +17,7 @@ from .errors import InputError
 
 __all__ = ["pressure_from_height", "pressure_from_layers"]
 
-Density = Union[float, xr.DataArray]
+Density = float | xr.DataArray
 
 
 def pressure_from_height(
@@ -70,7 +69,7 @@ LayerSpec = tuple[xr.DataArray, Density]
 
 
 def pressure_from_layers(
-    layers: Union[Iterable[LayerSpec], Mapping[str, LayerSpec]], gravity: float = 9.81
+    layers: Iterable[LayerSpec] | Mapping[str, LayerSpec], gravity: float = 9.81
 ) -> xr.DataArray:
     """Sum of the vertical stresses of several layers, each with its own density.
 

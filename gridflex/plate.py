@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any, Union
+from typing import Any
 
 import numpy as np
 import xarray as xr
@@ -13,7 +13,7 @@ from .errors import InputError
 
 __all__ = ["Plate", "rigidity_from_te", "te_from_rigidity"]
 
-TeLike = Union[float, xr.DataArray]
+TeLike = float | xr.DataArray
 
 
 def rigidity_from_te(te: Any, youngs_modulus: float, poisson_ratio: float) -> Any:
@@ -178,7 +178,7 @@ class Plate:
         alpha = self.flexural_parameter
         return float(alpha.max()) if isinstance(alpha, xr.DataArray) else float(alpha)
 
-    def with_te(self, te: TeLike) -> "Plate":
+    def with_te(self, te: TeLike) -> Plate:
         """A copy of this plate with another elastic thickness."""
         return Plate(
             te,
@@ -190,7 +190,7 @@ class Plate:
         )
 
     @classmethod
-    def from_rigidity(cls, rigidity: float, **kwargs: Any) -> "Plate":
+    def from_rigidity(cls, rigidity: float, **kwargs: Any) -> Plate:
         """A plate given by its flexural rigidity D (N m) instead of te.
 
         Other keyword arguments are those of :class:`Plate`. The te stored is the

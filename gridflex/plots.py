@@ -31,7 +31,9 @@ def _pyplot() -> Any:
     return plt
 
 
-def _axes_coordinates(da: xr.DataArray | xr.Dataset) -> tuple[np.ndarray, np.ndarray, str, str, float]:
+def _axes_coordinates(
+    da: xr.DataArray | xr.Dataset,
+) -> tuple[np.ndarray, np.ndarray, str, str, float]:
     """x, y for plotting, their labels and the aspect ratio (km, or degrees)."""
     if str(da["x"].attrs.get("units", "")).lower().startswith("degree"):
         y = da["y"].values
@@ -161,7 +163,7 @@ def plot_profile(
     fig, (top, bottom) = plt.subplots(2, 1, figsize=(8.0, 6.0), sharex=True,
                                       constrained_layout=True, height_ratios=(1, 2))
     if "load" in profile:
-        top.fill_between(km, profile["load"].values / 1e6, color="0.55", step="mid")
+        top.fill_between(km, profile["load"].values / 1e6, color="0.55", linewidth=0)
         top.set_ylabel("load (MPa)")
     top.set_title(title, fontsize=10)
     bottom.plot(km, -profile["deflection"].values, color="tab:red",

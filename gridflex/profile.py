@@ -67,7 +67,9 @@ def sample_profile(
         x0, y0 = (float(v) for v in start)
         x1, y1 = (float(v) for v in end)
     except (TypeError, ValueError) as exc:
-        raise InputError(f"profile ends must be two (x, y) pairs, got {start!r} and {end!r}") from exc
+        raise InputError(
+            f"profile ends must be two (x, y) pairs, got {start!r} and {end!r}"
+        ) from exc
     xs_grid, ys_grid = ds["x"].values, ds["y"].values
     for name, (px, py) in (("start", (x0, y0)), ("end", (x1, y1))):
         if not (min(xs_grid) <= px <= max(xs_grid) and min(ys_grid) <= py <= max(ys_grid)):
@@ -85,7 +87,8 @@ def sample_profile(
         variables = [str(n) for n, v in ds.data_vars.items() if v.dims == ("y", "x")]
     missing = [v for v in variables if v not in ds]
     if missing:
-        raise InputError(f"no variable {missing[0]!r} to sample; have {', '.join(map(str, ds.data_vars))}")
+        have = ", ".join(map(str, ds.data_vars))
+        raise InputError(f"no variable {missing[0]!r} to sample; have {have}")
     t = np.linspace(0.0, 1.0, samples)
     xs, ys = x0 + t * (x1 - x0), y0 + t * (y1 - y0)
     distance = _distances(xs, ys, _is_geographic(ds))

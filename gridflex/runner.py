@@ -12,28 +12,37 @@ import xarray as xr
 
 from ._version import __version__
 from .errors import InputError
-from .grid import check_same_grid
 from .io.atomic import check_output_path
-from .io.netcdf import read_grid, write_netcdf
+from .io.netcdf import write_netcdf
+from .io.rasters import write_geotiff
+from .io.tables import write_csv
+from .io.vectors import outline_features, write_geojson
+from .geo import reproject_values
+from .io.rasters import geometry_of, read_raster
+from .layers import WorkingGrid, build_working_load, to_input_grid
 from .plate import Plate
-from .plots import plot_deflection_map
+from .plots import plot_deflection_map, plot_profile
+from .profile import sample_profile
 from .scenario import Scenario
 from .solve import solve
 from .solvers.conjugate_gradient import Progress
 from .summary import deflection_summary
-from .synthetic import disc_height, empty_grid, gaussian_height, island_chain_height
+from .units import unit_factor
 from .te_maps import break_mask, broken_te, margin_te
 
 __all__ = [
     "RunOutcome",
-    "build_load",
     "elastic_thickness_from_scenario",
+    "output_dataset",
     "plate_from_scenario",
     "run_scenario",
-    "output_dataset",
 ]
 
 log = logging.getLogger(__name__)
+
+GEOTIFF_VARIABLES = ("deflection", "vertical_displacement", "load")
+"""Variables written as GeoTIFF bands when ``[output] geotiff = true`` (others follow as
+later features add them to the result)."""
 
 
 @dataclass
@@ -43,11 +52,12 @@ class RunOutcome:
     Attributes
     ----------
     result : xarray.Dataset
-        The solve result (as written).
+        The result as written (on the input grid).
     written : list of pathlib.Path
         Files written, in order.
     summary : dict
-        :func:`gridflex.summary.deflection_summary` of the result.
+        :func:`gridflex.summary.deflection_summary` of the solve (on the metric
+        working grid).
     """
 
     result: xr.Dataset
@@ -55,10 +65,35 @@ class RunOutcome:
     summary: dict[str, Any] = field(default_factory=dict)
 
 
+def _on_working_grid(
+    path: Path, variable: str, like: xr.DataArray, grid: WorkingGrid | None,
+    dimension: str | None, resampling: str,
+) -> xr.DataArray:
+    """A raster (GeoTIFF or NetCDF) on *like*'s grid, resampled when *grid* says so."""
+    da = read_raster(path, variable)
+    values = np.asarray(da.values, dtype=np.float64)
+    if dimension is not None:
+        units = str(da.attrs.get("units", "") or "m")
+        values = values * unit_factor(units, dimension, f"{path}: variable {variable!r}")
+    geometry = geometry_of(da)
+    if grid is not None and geometry != grid.working:
+        values = reproject_values(values, geometry, grid.working, resampling)
+    if values.shape != like.shape:
+        raise InputError(f"{path}: variable {variable!r} has shape {values.shape}, the load "
+                         f"grid is {like.shape}; put it on the load grid")
+    if not np.all(np.isfinite(values)):
+        raise InputError(f"{path}: variable {variable!r} has missing values on the load grid")
+    return like.copy(data=values)
+
+
 def elastic_thickness_from_scenario(
-    scenario: Scenario, like: xr.DataArray | None = None
+    scenario: Scenario, like: xr.DataArray | None = None, grid: WorkingGrid | None = None
 ) -> float | xr.DataArray:
     """Te of the scenario: a number, or a grid on *like*'s grid (m).
+
+    *like* is the working grid of the load (and *grid* its geometry, when the layers were
+    resampled): Te and mask rasters are resampled onto it like the load layers (bilinear for
+    Te, nearest for masks), and margin and break lines are in its projected coordinates (m).
 
     A grid comes from ``[plate] elastic_thickness_file`` or from the ``[margin]`` profile;
     every ``[[breaks]]`` entry then sets Te = 0 on its cells (a constant Te with breaks
@@ -80,10 +115,10 @@ def elastic_thickness_from_scenario(
         raise InputError(f"{scenario.where('plate')}: a Te grid needs the load grid")
     if table["elastic_thickness_file"] is not None:
         where = scenario.where("plate", "elastic_thickness_file")
-        te = read_grid(table["elastic_thickness_file"], table["elastic_thickness_variable"],
-                       "length")
         try:
-            check_same_grid(te, like, "te grid")
+            te = _on_working_grid(table["elastic_thickness_file"],
+                                  table["elastic_thickness_variable"], like, grid, "length",
+                                  "bilinear")
         except InputError as exc:
             raise InputError(f"{where}: {exc}") from exc
     elif scenario.tables["margin"] is not None:
@@ -100,7 +135,8 @@ def elastic_thickness_from_scenario(
         where = scenario.where("breaks", index=index)
         try:
             if item["file"] is not None:
-                mask = read_grid(item["file"], item["variable"]) != 0
+                mask = _on_working_grid(item["file"], item["variable"], like, grid, None,
+                                        "nearest") != 0
             else:
                 mask = break_mask(like, [item["line"]], item["width"])
             te = broken_te(te, mask)
@@ -109,10 +145,12 @@ def elastic_thickness_from_scenario(
     return te
 
 
-def plate_from_scenario(scenario: Scenario, like: xr.DataArray | None = None) -> Plate:
+def plate_from_scenario(
+    scenario: Scenario, like: xr.DataArray | None = None, grid: WorkingGrid | None = None
+) -> Plate:
     """The :class:`Plate` of the ``[plate]`` table (Te grids on *like*'s grid)."""
     table = scenario.table("plate")
-    te = elastic_thickness_from_scenario(scenario, like)
+    te = elastic_thickness_from_scenario(scenario, like, grid)
     try:
         return Plate(
             te,
@@ -126,62 +164,27 @@ def plate_from_scenario(scenario: Scenario, like: xr.DataArray | None = None) ->
         raise InputError(f"{scenario.where('plate')}: {exc}") from exc
 
 
-def _synthetic_layer(scenario: Scenario, layer: dict[str, Any]) -> xr.DataArray:
-    grid_table = scenario.table("grid")
-    grid = empty_grid(grid_table["rows"], grid_table["columns"], grid_table["spacing"])
-    shape = layer["synthetic"]
-    if shape == "island-chain":
-        return island_chain_height(grid)
-    centre = (layer["center_x"], layer["center_y"])
-    if shape == "disc":
-        return disc_height(grid, layer["radius"], layer["height"], *centre)
-    return gaussian_height(grid, layer["radius"], layer["height"], *centre)
-
-
-def build_load(scenario: Scenario) -> xr.DataArray:
-    """Total vertical stress (Pa, positive down) of the ``[[loads]]`` layers.
-
-    A thickness layer presses with (density - displaced_density) g h; a stress
-    layer is used as it is (Pa).
-    """
-    gravity = scenario.table("plate")["gravity"]
-    total: xr.DataArray | None = None
-    for index, layer in enumerate(scenario.table("loads")):
-        where = scenario.where("loads", index=index)
-        if layer["file"] is not None:
-            dimension = "length" if layer["kind"] == "thickness" else "pressure"
-            grid = read_grid(layer["file"], layer["variable"], dimension)
-        else:
-            grid = _synthetic_layer(scenario, layer)
-        if layer["kind"] == "thickness":
-            stress = grid * ((layer["density"] - layer["displaced_density"]) * gravity)
-        else:
-            stress = grid
-        if total is None:
-            total = stress
-        else:
-            try:
-                check_same_grid(stress, total, f"{where} ({layer['name'] or 'layer'})")
-            except InputError as exc:
-                raise InputError(f"{exc}; every layer must be on the first layer's grid") from exc
-            total = total + stress.values
-    assert total is not None
-    total = total.rename("load")
-    total.attrs = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
-    return total
-
-
-def output_dataset(result: xr.Dataset, scenario: Scenario) -> xr.Dataset:
-    """The result with GIS-friendly extras and provenance, as written to NetCDF."""
+def output_dataset(result: xr.Dataset, scenario: Scenario, grid: WorkingGrid) -> xr.Dataset:
+    """The result with GIS-friendly extras and provenance, on the input grid."""
     out = result.copy()
     out["vertical_displacement"] = -result["deflection"]
     out["vertical_displacement"].attrs = {
         "units": "m", "long_name": "vertical displacement of the plate (positive upward)"}
-    out["x"].attrs = {"units": "m", "axis": "X", "long_name": "x (projected)"}
-    out["y"].attrs = {"units": "m", "axis": "Y", "long_name": "y (projected)"}
+    out.attrs.update(grid.describe())
     out.attrs["history"] = f"gridflex {__version__} run {scenario.path.name}"
     out.attrs["scenario"] = scenario.text
-    return out
+    return to_input_grid(out, grid)
+
+
+def _geotiff_paths(netcdf: Path, result: xr.Dataset) -> dict[str, Path]:
+    names = [n for n in result.data_vars if result[n].dims == ("y", "x")]
+    return {str(n): netcdf.with_name(f"{netcdf.stem}_{n}.tif") for n in names}
+
+
+def _planned_outputs(scenario: Scenario) -> list[Path]:
+    out = scenario.table("output")
+    keys = ("file", "map", "outlines", "profile_csv", "profile_plot")
+    return [out[k] for k in keys if out[k] is not None]
 
 
 def run_scenario(
@@ -200,22 +203,42 @@ def run_scenario(
     """
     outputs = scenario.table("output")
     inputs = scenario.input_files
-    targets = [outputs["file"]] + ([outputs["map"]] if outputs["map"] else [])
-    for target in targets:
+    for target in _planned_outputs(scenario):
         check_output_path(target, overwrite, inputs)
-    load = build_load(scenario)
-    plate = plate_from_scenario(scenario, load)
+    load, grid = build_working_load(scenario)
+    plate = plate_from_scenario(scenario, load, grid)  # Te grids on the working grid
     solver = scenario.table("solver")
     log.info("solving %s load grid", load.shape)
-    result = solve(
+    working = solve(
         load, plate, solver["method"], edges=solver["edges"],
         inplane_force_x=solver["inplane_force_x"], inplane_force_y=solver["inplane_force_y"],
         pad_factor=solver["pad_factor"], tolerance=solver["tolerance"],
         max_iterations=solver["max_iterations"], progress=progress,
     )
-    outcome = RunOutcome(result=output_dataset(result, scenario))
-    outcome.written.append(write_netcdf(outcome.result, outputs["file"], overwrite, inputs))
+    result = output_dataset(working, scenario, grid)
+    outcome = RunOutcome(result=result, summary=deflection_summary(working))
+    crs = grid.input.crs
+    written = outcome.written
+    if outputs["geotiff"]:
+        tiffs = _geotiff_paths(outputs["file"], result)
+        for path in tiffs.values():
+            check_output_path(path, overwrite, inputs)
+    written.append(write_netcdf(result, outputs["file"], overwrite, inputs, crs=crs))
+    if outputs["geotiff"]:
+        for name, path in tiffs.items():
+            written.append(write_geotiff(result[name], path, crs, overwrite, inputs))
     if outputs["map"]:
-        outcome.written.append(plot_deflection_map(result, outputs["map"], overwrite, inputs))
-    outcome.summary = deflection_summary(result)
+        written.append(plot_deflection_map(result, outputs["map"], overwrite, inputs))
+    if outputs["outlines"]:
+        depth = outputs["moat_depth"]
+        if depth is None:
+            depth = 0.1 * outcome.summary["max_deflection"]
+        features = outline_features(working, grid.working.crs, depth)
+        written.append(write_geojson(features, outputs["outlines"], overwrite, inputs))
+    if outputs["profile_start"] is not None:
+        profile = sample_profile(result, outputs["profile_start"], outputs["profile_end"])
+        if outputs["profile_csv"]:
+            written.append(write_csv(profile, outputs["profile_csv"], overwrite, inputs))
+        if outputs["profile_plot"]:
+            written.append(plot_profile(profile, outputs["profile_plot"], overwrite, inputs))
     return outcome

@@ -19,9 +19,10 @@ A scenario has these tables (``[[loads]]`` is an array of tables)::
 from __future__ import annotations
 
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from .errors import InputError
 from .units import parse_quantity
@@ -115,12 +116,29 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "grid": {
         "columns": Key("integer", "number of cells along x", REQUIRED, minimum=4),
         "rows": Key("integer", "number of cells along y", REQUIRED, minimum=4),
-        "spacing": Key("quantity", "cell size", REQUIRED, "length", minimum=0.0),
+        "spacing": Key("quantity", "cell size (m, also for a geographic grid)", REQUIRED,
+                       "length", minimum=0.0),
+        "crs": Key("string", "coordinate reference system of the grid (EPSG code, PROJ or "
+                   "WKT); none: plain metres", None),
+        "center_x": Key("number", "x (or longitude) of the grid centre", 0.0),
+        "center_y": Key("number", "y (or latitude) of the grid centre", 0.0),
+    },
+    "working_grid": {
+        "projection": Key("string", "metric CRS to solve in (default: the input's own, or "
+                          "a local equal-area projection for geographic inputs)", None),
+        "spacing": Key("quantity", "cell size of the working grid (default: the input's)",
+                       None, "length", minimum=0.0),
+        "resampling": Key("choice", "how layers are resampled onto it", "bilinear",
+                          choices=_choices("bilinear", "average", "nearest", "cubic")),
     },
     "loads": {
         "name": Key("string", "label of the layer", None),
-        "file": Key("path", "NetCDF grid holding the layer", None),
-        "variable": Key("string", "variable in the file", None),
+        "file": Key("path", "GeoTIFF (or other GDAL raster) or NetCDF holding the layer",
+                    None),
+        "variable": Key("string", "NetCDF variable or raster band, if the file has several",
+                        None),
+        "missing": Key("choice", "what nodata/NaN cells mean: zero load (with a warning) "
+                       "or an error", "zero", choices=_choices("zero", "error")),
         "synthetic": Key("choice", "a built-in shape instead of a file", None,
                          choices=_choices("island-chain", "disc", "gaussian")),
         "kind": Key("choice", "thickness (m, times density) or stress (Pa)", "thickness",
@@ -137,6 +155,17 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),
         "map": Key("path", "PNG map of the deflection", None),
+        "geotiff": Key("bool", "also write one GeoTIFF per output variable beside the "
+                       "NetCDF", False),
+        "outlines": Key("path", "GeoJSON of the moat outline, forebulge crest and zero line",
+                        None),
+        "moat_depth": Key("quantity", "deflection contour drawn as the moat outline "
+                          "(default: a tenth of the maximum deflection)", None, "length",
+                          minimum=0.0),
+        "profile_start": Key("list", "[x, y] of a profile's start, in map coordinates", None),
+        "profile_end": Key("list", "[x, y] of a profile's end", None),
+        "profile_csv": Key("path", "CSV of the values along the profile", None),
+        "profile_plot": Key("path", "PNG plot of the profile", None),
     },
 }
 """Every table and key a scenario may contain."""
@@ -302,6 +331,7 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
             tables[name] = _parse_table(raw, spec, f"{path}: [{name}]", base)
     scenario = Scenario(path=path, text=text, tables=tables)
     _check_loads(scenario)
+    _check_profile(scenario)
     _check_structure(scenario)
     return scenario
 
@@ -341,8 +371,6 @@ def _check_loads(scenario: Scenario) -> None:
         has_file, has_shape = layer["file"] is not None, layer["synthetic"] is not None
         if has_file == has_shape:
             raise InputError(f"{where}: give either 'file' (with 'variable') or 'synthetic'")
-        if has_file and layer["variable"] is None:
-            raise InputError(f"{where} variable: required with 'file' (the grid's name in it)")
         if layer["kind"] == "thickness" and layer["density"] is None:
             raise InputError(f"{where} density: required for a thickness layer")
         if has_shape:
@@ -354,6 +382,22 @@ def _check_loads(scenario: Scenario) -> None:
                     if layer[name] is None:
                         raise InputError(f"{where} {name}: required for a "
                                          f"{layer['synthetic']!r} shape")
+
+
+def _check_profile(scenario: Scenario) -> None:
+    out = scenario.tables["output"]
+    ends = [out["profile_start"], out["profile_end"]]
+    wanted = out["profile_csv"] is not None or out["profile_plot"] is not None
+    for key, value in zip(("profile_start", "profile_end"), ends):
+        if value is None:
+            if wanted:
+                raise InputError(f"{scenario.where('output', key)}: required for a profile")
+            continue
+        if len(value) != 2 or not all(isinstance(v, (int, float)) for v in value):
+            raise InputError(f"{scenario.where('output', key)}: expected [x, y], got {value!r}")
+    if all(v is not None for v in ends) and not wanted:
+        raise InputError(f"{scenario.where('output')}: a profile needs profile_csv or "
+                         "profile_plot")
 
 
 def load_scenario(path: str | Path) -> Scenario:

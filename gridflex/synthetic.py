@@ -17,6 +17,7 @@ __all__ = [
     "disc_height",
     "empty_grid",
     "gaussian_height",
+    "grid_points",
     "island_chain_height",
 ]
 
@@ -52,31 +53,46 @@ def empty_grid(rows: int, columns: int, spacing: float) -> xr.DataArray:
     return grid
 
 
-def _offsets(grid: xr.DataArray, cx: float, cy: float) -> tuple[np.ndarray, np.ndarray]:
-    return grid["x"].values[None, :] - cx, grid["y"].values[:, None] - cy
+Points = tuple[np.ndarray, np.ndarray, float, float]
+"""Metric cell centres ``(X, Y)`` (2-D, m) and cell size ``(dy, dx)`` (m)."""
+
+
+def grid_points(grid: xr.DataArray) -> Points:
+    """Cell centres and size of a metric grid with 1-D coordinates (see :data:`Points`)."""
+    x = grid["x"].values.astype(np.float64)
+    y = grid["y"].values.astype(np.float64)
+    xx, yy = np.meshgrid(x, y)
+    return xx, yy, float(abs(y[1] - y[0])), float(abs(x[1] - x[0]))
+
+
+def _offsets(points: Points, cx: float, cy: float) -> tuple[np.ndarray, np.ndarray]:
+    return points[0] - cx, points[1] - cy
 
 
 def disc_height(
     grid: xr.DataArray, radius: float, height: float, cx: float = 0.0, cy: float = 0.0,
-    supersample: int = 8,
+    supersample: int = 8, points: Points | None = None,
 ) -> xr.DataArray:
     """A flat-topped disc, with each cell weighted by the share of it inside the disc.
 
     Parameters
     ----------
     grid : xarray.DataArray
-        Template grid (coordinates in m).
+        Template grid (coordinates in m unless *points* is given).
     radius, height : float
         Disc radius and height (m).
     cx, cy : float, default 0
         Centre (m).
     supersample : int, default 8
         Sub-cells per cell side for the area fraction.
+    points : tuple, optional
+        Metric cell centres and size (:data:`Points`), for grids whose coordinates
+        are not metres (a geographic grid projected locally).
     """
-    dx = float(abs(grid["x"][1] - grid["x"][0]))
-    dy = float(abs(grid["y"][1] - grid["y"][0]))
+    points = grid_points(grid) if points is None else points
+    ox, oy = _offsets(points, cx, cy)
+    dy, dx = points[2], points[3]
     sub = (np.arange(supersample) + 0.5) / supersample - 0.5
-    ox, oy = _offsets(grid, cx, cy)
     inside = np.zeros(grid.shape)
     for sy in sub * dy:
         r2y = (oy + sy) ** 2
@@ -86,22 +102,26 @@ def disc_height(
 
 
 def gaussian_height(
-    grid: xr.DataArray, width: float, height: float, cx: float = 0.0, cy: float = 0.0
+    grid: xr.DataArray, width: float, height: float, cx: float = 0.0, cy: float = 0.0,
+    points: Points | None = None,
 ) -> xr.DataArray:
-    """h = height exp(-r² / (2 width²)) centred on (cx, cy) (all in m)."""
-    ox, oy = _offsets(grid, cx, cy)
+    """h = height exp(-r² / (2 width²)) centred on (cx, cy) (all in m); *points* as in
+    :func:`disc_height`."""
+    ox, oy = _offsets(grid_points(grid) if points is None else points, cx, cy)
     return grid.copy(data=height * np.exp(-(ox**2 + oy**2) / (2.0 * width**2)))
 
 
-def island_chain_height(grid: xr.DataArray) -> xr.DataArray:
+def island_chain_height(grid: xr.DataArray, points: Points | None = None) -> xr.DataArray:
     """Height above the sea floor (m) of the invented demo island chain.
 
     Each edifice is a cone with rounded flanks, ``h (1 - (r/R)^2)^1.5`` inside its
-    basal radius R.
+    basal radius R; positions are relative to the grid centre (*points* as in
+    :func:`disc_height`).
     """
+    points = grid_points(grid) if points is None else points
     total = np.zeros(grid.shape)
     for x_km, y_km, height, radius_km in ISLAND_CHAIN:
-        ox, oy = _offsets(grid, x_km * 1e3, y_km * 1e3)
+        ox, oy = _offsets(points, x_km * 1e3, y_km * 1e3)
         s = 1.0 - (ox**2 + oy**2) / (radius_km * 1e3) ** 2
         np.maximum(total, height * np.clip(s, 0.0, None) ** 1.5, out=total)
     return grid.copy(data=total)

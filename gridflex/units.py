@@ -34,7 +34,8 @@ def unit_factor(unit: str, dimension: str, where: str) -> float:
     if unit in table:
         return table[unit]
     allowed = ", ".join(table)
-    raise InputError(f"{where}: unit {unit!r} is not a {dimension.replace('_', ' ')}; use one of {allowed}")
+    kind = dimension.replace("_", " ")
+    raise InputError(f"{where}: unit {unit!r} is not a {kind}; use one of {allowed}")
 
 
 def parse_quantity(value: Any, dimension: str, where: str) -> float:

@@ -83,7 +83,7 @@ def test_run_writes_netcdf_and_map(tmp_path):
         (SCENARIO.replace('"12 km"', '"12 furlongs"'), "unit 'furlongs' is not a length"),
         (SCENARIO.replace("load.nc", "missing.nc"), "missing.nc: file not found"),
         (SCENARIO.replace('variable = "height"', 'variable = "depth"'),
-         "no variable 'depth'; variables are height"),
+         "no variable 'depth'; variables are 'height'"),
         (SCENARIO.replace('file = "out/result.nc"', 'file = "load.nc"'),
          "would overwrite an input file"),
     ],

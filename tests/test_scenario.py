@@ -56,7 +56,6 @@ def test_good_scenario_with_units_and_defaults(tmp_path):
         (lambda t: t.replace('elastic_thickness = "25 km"\n', ""),
          r"\[plate\] elastic_thickness: required key is missing"),
         (lambda t: t.replace('density = "2.8 g/cm^3"', ""), r"#1 density: required"),
-        (lambda t: t.replace('variable = "height"', ""), r"#1 variable: required with 'file'"),
         (lambda t: t.replace('"25 km"', '"-3 km"'), r"elastic_thickness: must be >= 0"),
         (lambda t: t + "\n[solver]\nmethod = 'fastest'\n", r"\[solver\] method: 'fastest' is not"),
         (lambda t: t.replace("[plate]", "[plate\n"), "malformed TOML"),

@@ -6,7 +6,9 @@ import argparse
 import logging
 import sys
 import warnings
-from typing import Callable
+from collections.abc import Callable
+
+from ..errors import GridflexWarning
 
 __all__ = ["add_common_options", "configure_output", "progress_printer"]
 
@@ -24,15 +26,18 @@ def _show_warning(message, category, filename, lineno, file=None, line=None):  #
 
 
 def configure_output(args: argparse.Namespace) -> None:
-    """Map -q/-v to log levels on stderr and print warnings as one line each."""
-    level = logging.WARNING
+    """Map -q/-v to log levels on stderr and print warnings as one line each.
+
+    Call inside ``warnings.catch_warnings()`` so the filters are restored afterwards.
+    """
+    level = logging.INFO
     if getattr(args, "verbose", False):
         level = logging.DEBUG
     elif getattr(args, "quiet", False):
         level = logging.ERROR
     logging.basicConfig(level=level, format="gridflex: %(message)s", stream=sys.stderr, force=True)
-    if getattr(args, "quiet", False):
-        warnings.simplefilter("ignore")
+    warnings.simplefilter("ignore" if getattr(args, "quiet", False) else "always",
+                          GridflexWarning)
     warnings.showwarning = _show_warning
 
 

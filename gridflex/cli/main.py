@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+import warnings
 from collections.abc import Sequence
 from types import ModuleType
 
@@ -38,10 +39,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command is None:
         parser.print_help(sys.stderr)
         return EXIT_INPUT
-    configure_output(args)
     handler = {module.NAME: module.execute for module in COMMANDS}[args.command]
     try:
-        return handler(args)
+        with warnings.catch_warnings():
+            configure_output(args)
+            return handler(args)
     except ConvergenceError as exc:
         print(f"gridflex: error: {exc}", file=sys.stderr)
         return EXIT_CONVERGENCE

@@ -17,6 +17,12 @@ from ..errors import InputError
 __all__ = ["atomic_path", "check_output_path"]
 
 
+def _umask() -> int:
+    current = os.umask(0)
+    os.umask(current)
+    return current
+
+
 def check_output_path(
     path: str | Path, overwrite: bool = False, inputs: Iterable[str | Path] = ()
 ) -> Path:
@@ -74,6 +80,7 @@ def atomic_path(
     tmp = Path(tmp_name)
     try:
         yield tmp
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; outputs get the usual mode
         os.replace(tmp, final)
     finally:
         if tmp.exists():

@@ -11,85 +11,10 @@ import xarray as xr
 from rasterio.crs import CRS
 
 from ..errors import InputError
-from ..units import DIMENSIONS, unit_factor
 from .atomic import atomic_path
 from .gridmapping import cf_grid_mapping
 
-__all__ = ["read_grid", "read_result", "write_netcdf"]
-
-_GEOGRAPHIC_UNITS = ("degree", "degrees", "degrees_east", "degrees_north", "degree_east",
-                     "degree_north", "degrees_e", "degrees_n")
-
-
-def _coordinate_metres(da: xr.DataArray, dim: str, where: str) -> np.ndarray:
-    if dim not in da.coords:
-        raise InputError(f"{where}: dimension {dim!r} has no coordinate values")
-    coord = da[dim]
-    units = str(coord.attrs.get("units", "m")).strip()
-    if units.lower() in _GEOGRAPHIC_UNITS:
-        raise InputError(
-            f"{where}: coordinate {dim!r} is in {units!r}; project the grid to metres "
-            "(a projected coordinate system) first"
-        )
-    factor = unit_factor(units, "length", f"{where}: coordinate {dim!r}")
-    return np.asarray(coord.values, dtype=np.float64) * factor
-
-
-def read_grid(path: str | Path, variable: str, dimension: str | None = None) -> xr.DataArray:
-    """Read one 2-D grid from a NetCDF file into memory, on dims ``("y", "x")`` in metres.
-
-    Parameters
-    ----------
-    path : str or pathlib.Path
-        NetCDF file.
-    variable : str
-        Name of the 2-D variable; its first dim is taken as y, its second as x.
-    dimension : str, optional
-        Unit dimension the values must have (e.g. ``"length"``, ``"pressure"``,
-        see :data:`gridflex.units.DIMENSIONS`); values are converted to SI. A
-        variable without a ``units`` attribute is taken to be in SI.
-
-    Returns
-    -------
-    xarray.DataArray
-        float64 values, coordinates ``y`` and ``x`` in metres.
-
-    Raises
-    ------
-    InputError
-        Missing or unreadable file, missing variable, not 2-D, coordinates in
-        degrees or an unknown unit.
-    """
-    path = Path(path)
-    where = f"{path}: variable {variable!r}"
-    if not path.is_file():
-        raise InputError(f"{path}: file not found")
-    try:
-        with xr.open_dataset(path, engine="netcdf4", decode_times=False) as ds:
-            if variable not in ds.variables:
-                names = ", ".join(sorted(str(v) for v in ds.data_vars)) or "none"
-                raise InputError(f"{path}: no variable {variable!r}; variables are {names}")
-            da = ds[variable].load()
-    except InputError:
-        raise
-    except (OSError, ValueError, RuntimeError) as exc:
-        raise InputError(f"{path}: cannot read as NetCDF ({exc})") from exc
-    if da.ndim != 2:
-        raise InputError(f"{where}: expected a 2-D grid, got dims {da.dims!r}")
-    ydim, xdim = (str(d) for d in da.dims)
-    y = _coordinate_metres(da, ydim, where)
-    x = _coordinate_metres(da, xdim, where)
-    values = np.asarray(da.values, dtype=np.float64)
-    if dimension is not None:
-        default = next(iter(DIMENSIONS[dimension]))
-        units = str(da.attrs.get("units", default))
-        values = values * unit_factor(units, dimension, where)
-    out = xr.DataArray(values, dims=("y", "x"), coords={"y": y, "x": x}, name=variable)
-    out.attrs = {k: v for k, v in da.attrs.items() if k not in ("units", "_FillValue")}
-    out["y"].attrs = {"units": "m", "axis": "Y"}
-    out["x"].attrs = {"units": "m", "axis": "X"}
-    return out
-
+__all__ = ["read_result", "write_netcdf"]
 
 def read_result(path: str | Path) -> xr.Dataset:
     """Read a result written by :func:`write_netcdf` back into memory on ``("y", "x")``.

@@ -176,7 +176,7 @@ class SpectralProblem:
         force_y: float = 0.0,
         periodic: bool = False,
         pad_factor: float = DEFAULT_PAD_FACTOR,
-    ) -> "SpectralProblem":
+    ) -> SpectralProblem:
         """Check the parameters and choose the FFT grid.
 
         Raises
@@ -197,7 +197,8 @@ class SpectralProblem:
         if periodic:
             shape = spec.shape
         else:
-            shape = padded_shape(spec, pad_factor * decay_length(rigidity, stiffness, force_x, force_y))
+            decay = decay_length(rigidity, stiffness, force_x, force_y)
+            shape = padded_shape(spec, pad_factor * decay)
         # peak: padded load, its spectrum, the transfer function, the output grid
         n = shape[0] * shape[1]
         check_memory(8.0 * n * 3.5, f"spectral solve on a padded grid of {shape[0]} x {shape[1]}")
@@ -280,6 +281,8 @@ def spectral_deflection(
     problem : SpectralProblem
         The set-up used (FFT shape, parameters).
     """
-    problem = SpectralProblem.build(spec, rigidity, stiffness, force_x, force_y, periodic, pad_factor)
+    problem = SpectralProblem.build(
+        spec, rigidity, stiffness, force_x, force_y, periodic, pad_factor
+    )
     deflection, balance = problem.deflection(load)
     return deflection, balance, problem

@@ -6,8 +6,9 @@ For each load size n^2 (1 km cells, Te = 20 km, so about 4.5 alpha = 270 cells o
 padding per side) it prints the time of one FFT pair of the padded grid, of a solve
 with a new plate (transfer function built) and with the same plate again (transfer
 function reused), all measured in the same process after a warm-up, their ratios,
-and the peak memory of the solve (tracemalloc: numpy allocations). With --big N it checks in a child process
-whether an N^2 load solves on this machine and reports the child's peak RSS.
+and the peak memory of the solve (tracemalloc: numpy allocations). With --big N it
+checks in a child process whether an N^2 load solves on this machine and reports
+the child's peak RSS.
 Timings are the best of --repeat runs; machines are noisy.
 """
 
@@ -61,7 +62,6 @@ def bench(n: int, repeat: int) -> None:
     del result
     data = np.random.default_rng(0).standard_normal(shape)  # non-zero pages, like a real load
     pair = best(lambda: fft_pair(data), repeat)
-    del data
 
     def new_plate() -> None:
         transfer_function.cache_clear()
@@ -106,7 +106,8 @@ def main() -> None:
         bench(n, args.repeat)
     if args.big:
         big(args.big)
-    print(f"this process peak RSS {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**20:.2f} GiB")
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**20
+    print(f"this process peak RSS {peak:.2f} GiB")
 
 
 if __name__ == "__main__":
