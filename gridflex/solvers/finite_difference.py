@@ -37,7 +37,7 @@ import scipy.fft
 import scipy.ndimage
 import scipy.sparse as sp
 
-from ..errors import InputError
+from ..errors import ConvergenceError, InputError
 from ..grid import GridSpec
 from ..memory import check_memory
 from .conjugate_gradient import Progress, conjugate_gradient
@@ -58,6 +58,7 @@ __all__ = [
     "default_band_width",
     "finite_difference_deflection",
     "pad_rigidity",
+    "roundoff_residual",
 ]
 
 log = logging.getLogger(__name__)
@@ -618,6 +619,17 @@ def default_band_width(rigidity: np.ndarray, sharp: np.ndarray, stiffness: float
     return width
 
 
+def roundoff_residual(rigidity: np.ndarray, stiffness: float, spacing: float) -> float:
+    """Rough smallest relative residual a float64 deflection can have (dimensionless).
+
+    The fourth differences lose eps (alpha / h)^4 to cancellation, alpha the largest
+    flexural parameter and h the spacing; the factor 0.15 is fitted to a stall at 1.1e-8
+    seen with alpha / h = 137.
+    """
+    alpha = (4.0 * float(rigidity.max()) / stiffness) ** 0.25
+    return 0.15 * float(np.finfo(np.float64).eps) * (alpha / spacing) ** 4
+
+
 def finite_difference_deflection(
     load: np.ndarray,
     spec: GridSpec,
@@ -733,6 +745,12 @@ def finite_difference_deflection(
     band = BandSolver.build(operator, nodes)
     blend = BlendPreconditioner.build(operator, nodes)
     rhs = operator.area * rhs_load
+    floor = roundoff_residual(solve_rigidity, stiffness, min(spec.dx, spec.dy))
+    if floor > 0.5 * tolerance:
+        log.warning(
+            "tolerance %.1e is close to the round-off limit (about %.0e) of a plate this stiff "
+            "on cells this small; the iteration may stop short of it", tolerance, floor,
+        )
     preconditioner = MultiplicativePreconditioner(
         operator, blend, band, SINGLE_PRECISION_UNTIL * float(np.linalg.norm(rhs))
     )
@@ -741,9 +759,18 @@ def finite_difference_deflection(
         "finite-difference solve on %s nodes: %d blend levels, band of %d nodes (%.0f m)",
         shape, blend.levels.size, band.size, width_used,
     )
-    x, iterations, residual = conjugate_gradient(
-        operator.apply, rhs, preconditioner.apply, float(tolerance), int(max_iterations), progress
-    )
+    try:
+        x, iterations, residual = conjugate_gradient(
+            operator.apply, rhs, preconditioner.apply, float(tolerance), int(max_iterations),
+            progress,
+        )
+    except ConvergenceError as exc:
+        raise ConvergenceError(
+            f"{exc}. On this grid the flexural parameter spans up to "
+            f"{(4.0 * float(solve_rigidity.max()) / stiffness) ** 0.25 / min(spec.dx, spec.dy):.0f}"
+            f" cells; double-precision round-off alone limits the residual to about "
+            f"{floor:.0e}"
+        ) from exc
     solve_seconds = time.perf_counter() - start - setup
     total = float(np.abs(rhs).sum())
     imbalance = abs(stiffness * float((operator.area * x).sum()) - float(rhs.sum()))

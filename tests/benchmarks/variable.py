@@ -72,7 +72,7 @@ def make_case(name: str, n: int, dx: float) -> tuple[np.ndarray, np.ndarray]:
     return te, load
 
 
-def run_one(name: str, n: int, dx: float, spsolve_max: int) -> dict:
+def run_one(name: str, n: int, dx: float, spsolve_max: int, tolerance: float) -> dict:
     te, load = make_case(name, n, dx)
     spec = GridSpec(n, n, dx, dx)
     rigidity = rigidity_from_te(te, E, NU)
@@ -84,7 +84,8 @@ def run_one(name: str, n: int, dx: float, spsolve_max: int) -> dict:
     problem.deflection(load)
     out["spectral_s"] = time.perf_counter() - start
     start = time.perf_counter()
-    w, info = finite_difference_deflection(load, spec, rigidity, STIFFNESS, NU)
+    w, info = finite_difference_deflection(load, spec, rigidity, STIFFNESS, NU,
+                                           tolerance=tolerance)
     out["fd_s"] = time.perf_counter() - start
     out.update({k: info[k] for k in ("iterations", "residual", "band_nodes", "band_width",
                                       "setup_seconds", "solve_seconds",
@@ -118,11 +119,12 @@ def main() -> None:
                         help="fixed 1024 km domain (refinement) instead of fixed 2 km cells")
     parser.add_argument("--spsolve-max", type=int, default=400_000,
                         help="run spsolve when the padded grid has at most this many unknowns")
+    parser.add_argument("--tolerance", type=float, default=1e-8)
     parser.add_argument("--one", help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.one:
         name, n, dx = args.one.split(":")
-        print(json.dumps(run_one(name, int(n), float(dx), args.spsolve_max)))
+        print(json.dumps(run_one(name, int(n), float(dx), args.spsolve_max, args.tolerance)))
         return
     print(f"{'n':>5} {'case':<12} {'it':>3} {'residual':>8} {'setup':>6} {'solve':>6} "
           f"{'total':>6} {'spec':>5} {'x spec':>6} {'spsolve':>7} {'x faster':>8} "
@@ -132,7 +134,7 @@ def main() -> None:
         for name in args.cases.split(","):
             child = subprocess.run(
                 [sys.executable, __file__, "--one", f"{name}:{n}:{dx}",
-                 "--spsolve-max", str(args.spsolve_max)],
+                 "--spsolve-max", str(args.spsolve_max), "--tolerance", str(args.tolerance)],
                 capture_output=True, text=True,
             )
             if child.returncode != 0:
