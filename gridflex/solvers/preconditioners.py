@@ -19,15 +19,13 @@ import logging
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import TYPE_CHECKING
 
 import numpy as np
 import scipy.fft
 import scipy.ndimage
 import scipy.sparse.linalg as spla
 
-if TYPE_CHECKING:  # the operator module imports this one to build its solver
-    from .finite_difference import PlateOperator
+from .plate_operator import PlateOperator
 
 __all__ = [
     "BandSolver",
