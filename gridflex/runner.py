@@ -7,13 +7,15 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import xarray as xr
 
 from ._version import __version__
 from .errors import InputError
+from .geo import reproject_values
 from .io.atomic import check_output_path
 from .io.netcdf import write_netcdf
-from .io.rasters import write_geotiff
+from .io.rasters import geometry_of, read_raster, write_geotiff
 from .io.tables import write_csv
 from .io.vectors import outline_features, write_geojson
 from .layers import WorkingGrid, build_working_layers, build_working_load, to_input_grid
@@ -23,9 +25,18 @@ from .profile import sample_profile
 from .runner_infill import gravity_step, infill_step, load_column
 from .scenario import Scenario
 from .solve import solve
+from .solvers.conjugate_gradient import Progress
 from .summary import deflection_summary
+from .te_maps import break_mask, broken_te, margin_te
+from .units import unit_factor
 
-__all__ = ["RunOutcome", "output_dataset", "plate_from_scenario", "run_scenario"]
+__all__ = [
+    "RunOutcome",
+    "elastic_thickness_from_scenario",
+    "output_dataset",
+    "plate_from_scenario",
+    "run_scenario",
+]
 
 log = logging.getLogger(__name__)
 
@@ -54,12 +65,99 @@ class RunOutcome:
     summary: dict[str, Any] = field(default_factory=dict)
 
 
-def plate_from_scenario(scenario: Scenario) -> Plate:
-    """The :class:`Plate` of the ``[plate]`` table."""
+def _on_working_grid(
+    path: Path, variable: str, like: xr.DataArray, grid: WorkingGrid | None,
+    dimension: str | None, resampling: str,
+) -> xr.DataArray:
+    """A raster (GeoTIFF or NetCDF) on *like*'s grid, resampled when *grid* says so."""
+    da = read_raster(path, variable)
+    values = np.asarray(da.values, dtype=np.float64)
+    if dimension is not None:
+        units = str(da.attrs.get("units", "") or "m")
+        values = values * unit_factor(units, dimension, f"{path}: variable {variable!r}")
+    geometry = geometry_of(da)
+    if grid is not None and geometry != grid.working:
+        values = reproject_values(values, geometry, grid.working, resampling)
+    if values.shape != like.shape:
+        raise InputError(f"{path}: variable {variable!r} has shape {values.shape}, the load "
+                         f"grid is {like.shape}; put it on the load grid")
+    if not np.all(np.isfinite(values)):
+        raise InputError(f"{path}: variable {variable!r} has missing values on the load grid")
+    return like.copy(data=values)
+
+
+def elastic_thickness_from_scenario(
+    scenario: Scenario, like: xr.DataArray | None = None, grid: WorkingGrid | None = None
+) -> float | xr.DataArray:
+    """Te of the scenario: a number, or a grid on *like*'s grid (m).
+
+    *like* is the working grid of the load (and *grid* its geometry, when the layers were
+    resampled): Te and mask rasters are resampled onto it like the load layers (bilinear for
+    Te, nearest for masks), and margin and break lines are in its projected coordinates (m).
+
+    A grid comes from ``[plate] elastic_thickness_file`` or from the ``[margin]`` profile;
+    every ``[[breaks]]`` entry then sets Te = 0 on its cells (a constant Te with breaks
+    becomes a grid too).
+
+    Raises
+    ------
+    InputError
+        A Te grid or mask not on the load grid, a bad line; the message names the table.
+    """
     table = scenario.table("plate")
+    breaks = scenario.tables.get("breaks") or []
+    margin = scenario.tables.get("margin")
+    te: float | xr.DataArray
+    if (table["elastic_thickness"] is None and table.get("elastic_thickness_file") is None
+            and margin is None):
+        raise InputError(f"{scenario.where('plate', 'elastic_thickness')}: required key is "
+                         "missing (effective elastic thickness Te)")
+    if table["elastic_thickness"] is not None:
+        te = float(table["elastic_thickness"])
+        if not breaks:
+            return te
+    if like is None:
+        raise InputError(f"{scenario.where('plate')}: a Te grid needs the load grid")
+    if table["elastic_thickness_file"] is not None:
+        where = scenario.where("plate", "elastic_thickness_file")
+        try:
+            te = _on_working_grid(table["elastic_thickness_file"],
+                                  table["elastic_thickness_variable"], like, grid, "length",
+                                  "bilinear")
+        except InputError as exc:
+            raise InputError(f"{where}: {exc}") from exc
+    elif margin is not None:
+        try:
+            te = margin_te(like, margin["te_left"], margin["te_right"], margin["line"],
+                           margin["width"])
+        except InputError as exc:
+            raise InputError(f"{scenario.where('margin')}: {exc}") from exc
+    else:
+        te = xr.full_like(like, float(table["elastic_thickness"]), dtype=np.float64)
+    assert isinstance(te, xr.DataArray)
+    for index, item in enumerate(breaks):
+        where = scenario.where("breaks", index=index)
+        try:
+            if item["file"] is not None:
+                mask = _on_working_grid(item["file"], item["variable"], like, grid, None,
+                                        "nearest") != 0
+            else:
+                mask = break_mask(like, [item["line"]], item["width"])
+            te = broken_te(te, mask)
+        except InputError as exc:
+            raise InputError(f"{where}: {exc}") from exc
+    return te
+
+
+def plate_from_scenario(
+    scenario: Scenario, like: xr.DataArray | None = None, grid: WorkingGrid | None = None
+) -> Plate:
+    """The :class:`Plate` of the ``[plate]`` table (Te grids on *like*'s grid)."""
+    table = scenario.table("plate")
+    te = elastic_thickness_from_scenario(scenario, like, grid)
     try:
         return Plate(
-            table["elastic_thickness"],
+            te,
             youngs_modulus=table["youngs_modulus"],
             poisson_ratio=table["poisson_ratio"],
             mantle_density=table["mantle_density"],
@@ -107,28 +205,40 @@ def _planned_outputs(scenario: Scenario) -> list[Path]:
     return [out[k] for k in keys if out[k] is not None]
 
 
-def _solve_working(scenario: Scenario, plate: Plate) -> tuple[xr.Dataset, WorkingGrid]:
-    """The solve on the working grid: plain, or with ``[infill]`` and ``[gravity]``."""
+def _solve_working(
+    scenario: Scenario, progress: Progress | None = None
+) -> tuple[xr.Dataset, WorkingGrid]:
+    """The solve on the working grid: plain, or with ``[infill]`` and ``[gravity]``.
+
+    Te grids (files, margins, breaks) are put on the working grid of the load.
+    """
     solver = scenario.table("solver")
     if scenario.table("infill") is not None:
         layers, grid = build_working_layers(scenario)
-        working = infill_step(scenario, plate, load_column(scenario, layers))
+        column = load_column(scenario, layers)
+        plate = plate_from_scenario(scenario, column["load"], grid)
+        working = infill_step(scenario, plate, column, progress)
     else:
         load, grid = build_working_load(scenario)
+        plate = plate_from_scenario(scenario, load, grid)
         log.info("solving %s load grid", load.shape)
         working = solve(
             load, plate, solver["method"], edges=solver["edges"],
             inplane_force_x=solver["inplane_force_x"], inplane_force_y=solver["inplane_force_y"],
-            pad_factor=solver["pad_factor"],
+            pad_factor=solver["pad_factor"], tolerance=solver["tolerance"],
+            max_iterations=solver["max_iterations"], progress=progress,
         )
     if scenario.table("gravity") is not None:
         working = gravity_step(scenario, working)
     return working, grid
 
 
-def run_scenario(scenario: Scenario, overwrite: bool = False) -> RunOutcome:
+def run_scenario(
+    scenario: Scenario, overwrite: bool = False, progress: Progress | None = None
+) -> RunOutcome:
     """Build the load, solve and write the outputs of *scenario*.
 
+    *progress* (optional) is called with (done, total) during an iterative solve.
     Output paths are checked before the solve, so a run that would fail to write
     fails before any work; files are written atomically and never over an input.
 
@@ -141,8 +251,7 @@ def run_scenario(scenario: Scenario, overwrite: bool = False) -> RunOutcome:
     inputs = scenario.input_files
     for target in _planned_outputs(scenario):
         check_output_path(target, overwrite, inputs)
-    plate = plate_from_scenario(scenario)
-    working, grid = _solve_working(scenario, plate)
+    working, grid = _solve_working(scenario, progress)
     result = output_dataset(working, scenario, grid)
     outcome = RunOutcome(result=result, summary=deflection_summary(working))
     crs = grid.input.crs

@@ -7,8 +7,10 @@ the file, the table and the key.
 
 A scenario has these tables (``[[loads]]`` is an array of tables)::
 
-    [plate]    elastic thickness, moduli, densities
-    [solver]   method, edges, in-plane forces, padding
+    [plate]    elastic thickness (a number or a grid file), moduli, densities
+    [margin]   a te profile across a straight line, instead of a te number or file
+    [[breaks]] one table per break: a polyline in map coordinates or a mask grid
+    [solver]   method, edges, in-plane forces, padding, iteration tolerance
     [grid]     size and spacing, for scenarios whose loads are all synthetic
     [[loads]]  one table per load layer: a grid file or a synthetic shape
     [infill]   optional: self-consistent infill (water, air, sediment) of the depression
@@ -82,8 +84,10 @@ def _choices(*names: str) -> tuple[str, ...]:
 
 SCHEMA: dict[str, dict[str, Key]] = {
     "plate": {
-        "elastic_thickness": Key("quantity", "effective elastic thickness Te", REQUIRED,
+        "elastic_thickness": Key("quantity", "effective elastic thickness Te", None,
                                  "length", minimum=0.0),
+        "elastic_thickness_file": Key("path", "NetCDF grid of Te on the load grid", None),
+        "elastic_thickness_variable": Key("string", "variable holding Te in that file", None),
         "youngs_modulus": Key("quantity", "Young's modulus E", 1.0e11, "pressure", minimum=0.0),
         "poisson_ratio": Key("number", "Poisson's ratio", 0.25),
         "mantle_density": Key("quantity", "mantle density", 3300.0, "density", minimum=0.0),
@@ -100,13 +104,33 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "method": Key("choice", "solver", "auto", choices=_choices("auto", "spectral",
                                                                   "finite-difference")),
         "edges": Key("choice", "what lies beyond the grid edge", "infinite",
-                     choices=_choices("infinite", "periodic")),
+                     choices=_choices("infinite", "periodic", "clamped", "free")),
         "inplane_force_x": Key("quantity", "in-plane force along x, tension positive", 0.0,
                                "force_per_length"),
         "inplane_force_y": Key("quantity", "in-plane force along y, tension positive", 0.0,
                                "force_per_length"),
         "pad_factor": Key("number", "zero padding per side in flexural parameters", 4.5,
                           minimum=0.0),
+        "tolerance": Key("number", "relative residual of the finite-difference iteration",
+                         1e-8, minimum=1e-15),
+        "max_iterations": Key("integer", "iteration limit of the finite-difference solver",
+                              300, minimum=1),
+    },
+    "margin": {
+        "te_left": Key("quantity", "Te on the left of the line, looking from its first "
+                       "point to its second", REQUIRED, "length", minimum=0.0),
+        "te_right": Key("quantity", "Te on the right of the line", REQUIRED, "length",
+                        minimum=0.0),
+        "line": Key("list", "two [x, y] points (m, map coordinates) on the line", REQUIRED),
+        "width": Key("quantity", "width of the transition", 0.0, "length", minimum=0.0),
+    },
+    "breaks": {
+        "line": Key("list", "polyline of [x, y] points (m, map coordinates) where Te = 0",
+                    None),
+        "width": Key("quantity", "width of a line break (0: one cell, a hinge)", 0.0,
+                     "length", minimum=0.0),
+        "file": Key("path", "NetCDF mask grid (non-zero = broken) on the load grid", None),
+        "variable": Key("string", "variable holding the mask in that file", None),
     },
     "grid": {
         "columns": Key("integer", "number of cells along x", REQUIRED, minimum=4),
@@ -235,7 +259,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
 }
 """Every table and key a scenario may contain."""
 
-ARRAY_TABLES = frozenset({"loads"})
+ARRAY_TABLES = frozenset({"loads", "breaks"})
 """Tables written as arrays of tables (``[[loads]]``)."""
 
 REQUIRED_TABLES = ("plate", "loads", "output")
@@ -374,6 +398,7 @@ def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario
     scenario = parse_tables(data, path, text, SCHEMA, ARRAY_TABLES, REQUIRED_TABLES)
     _check_loads(scenario)
     _check_profile(scenario)
+    _check_structure(scenario)
     _check_infill_and_gravity(scenario)
     return scenario
 
@@ -417,6 +442,32 @@ def parse_tables(
         else:
             tables[name] = _parse_table(raw, spec, f"{path}: [{name}]", base)
     return Scenario(path=path, text=text, tables=tables)
+
+
+def _check_structure(scenario: Scenario) -> None:
+    """One source of Te; every break is a line or a mask file."""
+    plate = scenario.tables["plate"]
+    sources = [name for name, given in (
+        ("elastic_thickness", plate["elastic_thickness"] is not None),
+        ("elastic_thickness_file", plate["elastic_thickness_file"] is not None),
+        ("[margin]", scenario.tables["margin"] is not None),
+    ) if given]
+    if not sources:
+        raise InputError(f"{scenario.where('plate', 'elastic_thickness')}: required key is "
+                         "missing (or give elastic_thickness_file, or a [margin] table)")
+    if len(sources) > 1:
+        raise InputError(f"{scenario.where('plate', 'elastic_thickness')}: give only one of "
+                         f"elastic_thickness, elastic_thickness_file or a [margin] table "
+                         f"(found {', '.join(sources)})")
+    if (plate["elastic_thickness_file"] is None) != (plate["elastic_thickness_variable"] is None):
+        raise InputError(f"{scenario.where('plate', 'elastic_thickness_variable')}: "
+                         "elastic_thickness_file and elastic_thickness_variable go together")
+    for i, item in enumerate(scenario.tables["breaks"]):
+        where = scenario.where("breaks", index=i)
+        if (item["line"] is None) == (item["file"] is None):
+            raise InputError(f"{where}: give either 'line' or 'file' (with 'variable')")
+        if item["file"] is not None and item["variable"] is None:
+            raise InputError(f"{where} variable: required with 'file' (the mask's name in it)")
 
 
 def _check_loads(scenario: Scenario) -> None:

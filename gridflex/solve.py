@@ -12,8 +12,14 @@ import xarray as xr
 
 from ._version import __version__
 from .errors import EdgeLoadWarning, InputError
-from .grid import check_grid
+from .grid import GridSpec, check_grid, check_same_grid
 from .plate import Plate
+from .solvers.conjugate_gradient import Progress
+from .solvers.finite_difference import (
+    DEFAULT_MAX_ITERATIONS,
+    DEFAULT_TOLERANCE,
+    finite_difference_deflection,
+)
 from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 
 __all__ = [
@@ -31,8 +37,11 @@ log = logging.getLogger(__name__)
 METHODS = ("auto", "spectral", "finite-difference")
 """Accepted values of ``solve(method=...)``."""
 
-EDGES = ("infinite", "periodic")
-"""Accepted values of ``solve(edges=...)`` for the spectral solver."""
+EDGES = ("infinite", "periodic", "clamped", "free")
+"""Accepted values of ``solve(edges=...)``; the spectral solver takes the first two."""
+
+SPECTRAL_EDGES = ("infinite", "periodic")
+"""Edges the spectral solver can represent."""
 
 SIGN_CONVENTION = (
     "deflection positive downward; load positive downward; "
@@ -134,6 +143,9 @@ def solve(
     inplane_force_x: float = 0.0,
     inplane_force_y: float = 0.0,
     pad_factor: float = DEFAULT_PAD_FACTOR,
+    tolerance: float = DEFAULT_TOLERANCE,
+    max_iterations: int = DEFAULT_MAX_ITERATIONS,
+    progress: Progress | None = None,
 ) -> xr.Dataset:
     """Deflection of an elastic plate under a gridded load.
 
@@ -153,11 +165,17 @@ def solve(
     plate : Plate
         Elastic thickness, moduli and densities.
     method : {"auto", "spectral", "finite-difference"}, default "auto"
-        ``"auto"`` uses the FFT solver for a constant te.
-    edges : {"infinite", "periodic"}, default "infinite"
+        ``"auto"`` uses the FFT solver for a constant te and the finite-difference
+        solver (preconditioned conjugate gradients) when ``plate.te`` is a grid;
+        ``"finite-difference"`` forces the latter for a constant te too.
+    edges : {"infinite", "periodic", "clamped", "free"}, default "infinite"
         ``"infinite"``: the grid is a window onto an infinite plate with no load
         outside it; the load is zero-padded by *pad_factor* decay lengths on each
-        side (no wrap-around). ``"periodic"``: the domain repeats (no padding).
+        side (no wrap-around; for a te grid the edge rigidity continues into the
+        margin). ``"periodic"``: the domain repeats (no padding). Finite differences
+        only: ``"clamped"`` (w = 0 and zero slope one cell beyond the outermost cell
+        centres) and ``"free"`` (the plate ends at the outermost cell centres with
+        no moment and no shear).
     inplane_force_x, inplane_force_y : float, default 0
         Horizontal in-plane force per unit length along x and along y (N m⁻¹,
         tension positive). Compression must stay below the buckling limit
@@ -165,18 +183,30 @@ def solve(
     pad_factor : float, default 4.5
         Padding on each side in decay lengths (the flexural parameter without
         in-plane force); ignored when periodic.
+    tolerance : float, default 1e-8
+        Finite differences: relative residual ||a q − K w|| / ||a q|| to reach.
+    max_iterations : int, default 300
+        Finite differences: iteration limit.
+    progress : callable, optional
+        Finite differences: called with (iterations done, iteration limit) after
+        each iteration; pass None (the default) for a quiet solve.
 
     Returns
     -------
     xarray.Dataset
         ``deflection`` (m, positive down) and ``load`` (Pa) on the load's grid;
         attributes record the plate, the solver, ``padded_shape`` (ny, nx) and the
-        global force-balance residual ``force_balance_residual``.
+        global force-balance residual ``force_balance_residual``; the
+        finite-difference solver adds ``iterations``, ``residual`` (the true
+        relative residual, recomputed), ``tolerance``, ``blend_levels``,
+        ``band_nodes``, ``band_width`` and ``locally_compensated_load``.
 
     Raises
     ------
     InputError
         Invalid grid, parameters, or compression beyond buckling.
+    ConvergenceError
+        The finite-difference iteration did not reach *tolerance*.
 
     Examples
     --------
@@ -195,12 +225,25 @@ def solve(
     edges = _check_choice("edges", edges, EDGES)
     force_x = _check_force("inplane_force_x", inplane_force_x)
     force_y = _check_force("inplane_force_y", inplane_force_y)
+    if plate.is_variable:
+        assert isinstance(plate.te, xr.DataArray)
+        check_same_grid(plate.te, load, "te grid")
     if method == "auto":
         method = "finite-difference" if plate.is_variable else "spectral"
-    if method == "finite-difference" or plate.is_variable:
+    if method == "finite-difference":
+        return _solve_finite_difference(
+            load, spec, plate, edges, force_x, force_y, pad_factor, tolerance,
+            max_iterations, progress,
+        )
+    if plate.is_variable:
         raise InputError(
-            "the finite-difference solver for a spatially varying te is not available "
-            "in this version; give te as a single number"
+            "method='spectral' needs a constant te; a te grid needs "
+            "method='finite-difference' or 'auto'"
+        )
+    if edges not in SPECTRAL_EDGES:
+        raise InputError(
+            f"edges={edges!r} needs method='finite-difference'; the spectral solver "
+            f"takes {', '.join(map(repr, SPECTRAL_EDGES))}"
         )
     values = np.asarray(load.values, dtype=np.float64)
     problem = SpectralProblem.build(
@@ -221,5 +264,59 @@ def solve(
         "inplane_force_x": force_x,
         "inplane_force_y": force_y,
         "force_balance_residual": balance,
+    }
+    return result_dataset(load, deflection, plate, attrs)
+
+
+def _solve_finite_difference(
+    load: xr.DataArray,
+    spec: GridSpec,
+    plate: Plate,
+    edges: str,
+    force_x: float,
+    force_y: float,
+    pad_factor: float,
+    tolerance: float,
+    max_iterations: int,
+    progress: Progress | None,
+) -> xr.Dataset:
+    """The finite-difference branch of :func:`solve`."""
+    if force_x or force_y:
+        raise InputError(
+            "in-plane forces are not available with method='finite-difference' yet; "
+            f"got inplane_force_x={force_x!r}, inplane_force_y={force_y!r}"
+        )
+    values = np.asarray(load.values, dtype=np.float64)
+    rigidity = plate.rigidity
+    if isinstance(rigidity, xr.DataArray):
+        rigidity_grid = np.asarray(rigidity.values, dtype=np.float64)
+    else:
+        rigidity_grid = np.full(spec.shape, float(rigidity))
+    if edges == "infinite" and rigidity_grid.max() > 0:
+        _warn_edge_load(values, float(np.abs(values).sum()))
+    deflection, info = finite_difference_deflection(
+        values, spec, rigidity_grid, plate.restoring_stiffness, plate.poisson_ratio, edges,
+        pad_factor=pad_factor, tolerance=tolerance, max_iterations=max_iterations,
+        progress=progress,
+    )
+    log.info(
+        "finite-difference solve: %d iterations, residual %.2e, band %d nodes",
+        info["iterations"], info["residual"], info["band_nodes"],
+    )
+    attrs = {
+        "solver": "finite-difference",
+        "edges": edges,
+        "padded_shape": np.array(info["solve_shape"], dtype=np.int64),
+        "pad_factor": float(pad_factor) if edges == "infinite" else 0.0,
+        "inplane_force_x": force_x,
+        "inplane_force_y": force_y,
+        "force_balance_residual": info["force_balance_residual"],
+        "iterations": info["iterations"],
+        "residual": info["residual"],
+        "tolerance": info["tolerance"],
+        "blend_levels": np.asarray(info["blend_levels"], dtype=np.float64),
+        "band_nodes": info["band_nodes"],
+        "band_width": info["band_width"],
+        "locally_compensated_load": info["locally_compensated_load"],
     }
     return result_dataset(load, deflection, plate, attrs)

@@ -7,7 +7,7 @@ import argparse
 from ..runner import run_scenario
 from ..scenario import load_scenario
 from ..summary import format_summary
-from .common import add_common_options
+from .common import add_common_options, progress_printer
 
 NAME = "run"
 HELP = "solve a scenario file and write its NetCDF and map"
@@ -21,7 +21,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
-    outcome = run_scenario(load_scenario(args.scenario), overwrite=args.overwrite)
+    outcome = run_scenario(
+        load_scenario(args.scenario), overwrite=args.overwrite, progress=progress_printer(args)
+    )
     if not args.quiet:
         print(format_summary(outcome.summary))
         for path in outcome.written:
