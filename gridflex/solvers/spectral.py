@@ -28,7 +28,6 @@ __all__ = [
     "buckling_force",
     "decay_length",
     "scale_spectrum",
-    "spectral_deflection",
     "transfer_function",
 ]
 
@@ -319,31 +318,3 @@ class SpectralProblem:
         """Radial angular wavenumber |k| (rad m⁻¹) on this problem's half-spectrum grid."""
         ky2, kx2 = wavenumbers_squared(self.shape, self.spec.dy, self.spec.dx)
         return np.sqrt(ky2 + kx2)
-
-
-def spectral_deflection(
-    load: np.ndarray,
-    spec: GridSpec,
-    rigidity: float,
-    stiffness: float,
-    force_x: float = 0.0,
-    force_y: float = 0.0,
-    periodic: bool = False,
-    pad_factor: float = DEFAULT_PAD_FACTOR,
-) -> tuple[np.ndarray, float, SpectralProblem]:
-    """Solve one constant-rigidity problem; see :class:`SpectralProblem`.
-
-    Returns
-    -------
-    deflection : numpy.ndarray
-        w (m, positive down) on the unpadded grid.
-    force_balance : float
-        Relative global force-balance residual (see :meth:`SpectralProblem.deflection`).
-    problem : SpectralProblem
-        The set-up used (FFT shape, parameters).
-    """
-    problem = SpectralProblem.build(
-        spec, rigidity, stiffness, force_x, force_y, periodic, pad_factor
-    )
-    deflection, balance = problem.deflection(load)
-    return deflection, balance, problem
