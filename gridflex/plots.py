@@ -283,10 +283,7 @@ def plot_misfit(
     ax.set_ylabel(f"RMS misfit of {fit.quantity} ({unit})")
     ax.set_title(title, fontsize=10)
     ax.legend(loc="best", fontsize="small")
-    with atomic_path(path, overwrite, inputs) as tmp:
-        fig.savefig(tmp, format="png", dpi=120)
-    plt.close(fig)
-    return Path(path)
+    return _save(fig, path, overwrite, inputs)
 
 
 def plot_spectral_fit(
@@ -331,7 +328,4 @@ def plot_spectral_fit(
     ax.set_ylabel(f"{curves.attrs.get('quantity', '')} ({unit})")
     ax.set_title(title, fontsize=10)
     ax.legend(loc="best", fontsize="small")
-    with atomic_path(path, overwrite, inputs) as tmp:
-        fig.savefig(tmp, format="png", dpi=120)
-    plt.close(fig)
-    return Path(path)
+    return _save(fig, path, overwrite, inputs)
