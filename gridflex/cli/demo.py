@@ -22,7 +22,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 def execute(args: argparse.Namespace) -> int:
     outcome = run_demo(args.out)
     if not args.quiet:
-        print("Invented volcanic island chain on a 25 km thick elastic plate:")
+        te = float(outcome.result.attrs["plate_te"])
+        print(f"Invented volcanic island chain on a {te / 1e3:g} km thick elastic plate:")
         print(format_summary(outcome.summary))
         for path in outcome.written:
             print(f"wrote {path}")
