@@ -18,8 +18,22 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
+from .compaction import LITHOLOGIES
 from .errors import InputError
 from .scenario import REQUIRED, SCHEMA, Key, Scenario, load_scenario, parse_tables
+
+_LITHOLOGY_KEYS: dict[str, Key] = {
+    "lithology": Key("choice", "porosity-depth law (Sclater & Christie 1980)", "shale",
+                     choices=tuple(LITHOLOGIES)),
+    "surface_porosity": Key("number", "override the lithology's surface porosity", None,
+                            minimum=0.0),
+    "decay_length": Key("quantity", "override the lithology's porosity decay length",
+                        None, "length", minimum=0.0),
+    "grain_density": Key("quantity", "override the lithology's grain density", None,
+                         "density", minimum=0.0),
+}
+"""Keys shared by ``[[stages]]`` and ``[[backstrip_layers]]`` (one declaration)."""
+
 
 __all__ = ["BASIN_SCHEMA", "load_basin_scenario", "parse_basin_scenario"]
 
@@ -54,14 +68,7 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         "variable": Key("string", "NetCDF variable or band, if the file has several", None),
         "age": Key("number", "age of the stage (years before present); oldest first",
                    REQUIRED),
-        "lithology": Key("choice", "porosity-depth law (Sclater & Christie 1980)", "shale",
-                         choices=_choices("shale", "sandstone", "chalk", "shaly_sandstone")),
-        "surface_porosity": Key("number", "override the lithology's surface porosity", None,
-                                minimum=0.0),
-        "decay_length": Key("quantity", "override the lithology's porosity decay length",
-                            None, "length", minimum=0.0),
-        "grain_density": Key("quantity", "override the lithology's grain density", None,
-                             "density", minimum=0.0),
+        **_LITHOLOGY_KEYS,
         "base_level": Key("quantity", "sediment fills the new depression up to this "
                           "elevation (default: water to sea level)", None, "length"),
         "sea_level": Key("quantity", "sea level at the time of the stage", None, "length"),
@@ -91,14 +98,7 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
     "backstrip_layers": {
         "file": Key("path", "grid file of the layer's present thickness", REQUIRED),
         "variable": Key("string", "NetCDF variable or band, if the file has several", None),
-        "lithology": Key("choice", "porosity-depth law of the layer", "shale",
-                         choices=_choices("shale", "sandstone", "chalk", "shaly_sandstone")),
-        "surface_porosity": Key("number", "override the lithology's surface porosity", None,
-                                minimum=0.0),
-        "decay_length": Key("quantity", "override the lithology's porosity decay length",
-                            None, "length", minimum=0.0),
-        "grain_density": Key("quantity", "override the lithology's grain density", None,
-                             "density", minimum=0.0),
+        **_LITHOLOGY_KEYS,
         "water_depth": Key("quantity", "water depth when the layer had just been deposited",
                            None, "length"),
         "water_depth_file": Key("path", "or a grid file of that water depth", None),
