@@ -6,7 +6,7 @@ import argparse
 
 from ..basin_scenario import load_basin_scenario
 from ..runner_basin import run_basin
-from .common import add_common_options, progress_printer
+from .common import add_common_options, add_scenario_argument, progress_printer
 
 NAME = "basin"
 HELP = "fill a basin stage by stage with compaction, or backstrip it, and write the NetCDF"
@@ -14,8 +14,7 @@ HELP = "fill a basin stage by stage with compaction, or backstrip it, and write 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
-    parser.add_argument("scenario", help="basin scenario file (TOML, [basin] or [backstrip])")
-    parser.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    add_scenario_argument(parser, "basin scenario file (TOML, [basin] or [backstrip])")
     add_common_options(parser)
 
 

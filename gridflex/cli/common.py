@@ -10,7 +10,24 @@ from collections.abc import Callable
 
 from ..errors import GridflexWarning
 
-__all__ = ["add_common_options", "configure_output", "progress_printer"]
+__all__ = [
+    "add_common_options",
+    "add_overwrite_option",
+    "add_scenario_argument",
+    "configure_output",
+    "progress_printer",
+]
+
+
+def add_scenario_argument(parser: argparse.ArgumentParser, help: str) -> None:
+    """The positional scenario file and the --overwrite guard of scenario commands."""
+    parser.add_argument("scenario", help=help)
+    add_overwrite_option(parser)
+
+
+def add_overwrite_option(parser: argparse.ArgumentParser) -> None:
+    """--overwrite: replace existing outputs (refused otherwise)."""
+    parser.add_argument("--overwrite", action="store_true", help="replace existing outputs")
 
 
 def add_common_options(parser: argparse.ArgumentParser) -> None:

@@ -6,7 +6,7 @@ import argparse
 
 from ..run_fit import fit_scenario
 from ..scenario import load_scenario
-from .common import add_common_options, progress_printer
+from .common import add_common_options, add_scenario_argument, progress_printer
 
 NAME = "fit"
 HELP = "estimate te from an observed grid: misfit plot, JSON summary, best model"
@@ -14,8 +14,7 @@ HELP = "estimate te from an observed grid: misfit plot, JSON summary, best model
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
-    parser.add_argument("scenario", help="scenario file (TOML) with a [fit] table")
-    parser.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    add_scenario_argument(parser, "scenario file (TOML) with a [fit] table")
     add_common_options(parser)
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from ..history_scenario import format_history_summary, load_history_scenario, run_history_scenario
-from .common import add_common_options, progress_printer
+from .common import add_common_options, add_scenario_argument, progress_printer
 
 NAME = "history"
 HELP = "run an ice-thickness history (deflection through time, uplift rate, point series)"
@@ -13,8 +13,7 @@ HELP = "run an ice-thickness history (deflection through time, uplift rate, poin
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
-    parser.add_argument("scenario", help="history scenario file (TOML)")
-    parser.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    add_scenario_argument(parser, "history scenario file (TOML)")
     add_common_options(parser)
 
 

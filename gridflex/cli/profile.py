@@ -8,7 +8,7 @@ from ..io.netcdf import read_result
 from ..io.tables import write_csv
 from ..plots import plot_profile
 from ..profile import sample_profile
-from .common import add_common_options
+from .common import add_common_options, add_overwrite_option
 
 NAME = "profile"
 HELP = "sample a result grid along a straight line and write a CSV (and a plot)"
@@ -25,7 +25,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("--plot", help="PNG plot of the profile")
     parser.add_argument("--samples", type=int, help="number of points (default: 2 per cell)")
     parser.add_argument("--variables", nargs="+", help="variables to sample (default: all)")
-    parser.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    add_overwrite_option(parser)
     add_common_options(parser)
 
 

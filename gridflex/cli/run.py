@@ -7,7 +7,7 @@ import argparse
 from ..runner import run_scenario
 from ..scenario import load_scenario
 from ..summary import format_summary
-from .common import add_common_options, progress_printer
+from .common import add_common_options, add_scenario_argument, progress_printer
 
 NAME = "run"
 HELP = "solve a scenario file and write its NetCDF and map"
@@ -15,8 +15,7 @@ HELP = "solve a scenario file and write its NetCDF and map"
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
-    parser.add_argument("scenario", help="scenario file (TOML)")
-    parser.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    add_scenario_argument(parser, "scenario file (TOML)")
     add_common_options(parser)
 
 

@@ -6,7 +6,7 @@ import argparse
 
 from ..run_sweep import sweep_scenario
 from ..scenario import load_scenario
-from .common import add_common_options, progress_printer
+from .common import add_common_options, add_scenario_argument, progress_printer
 
 NAME = "sweep"
 HELP = "solve a scenario for every combination of the [sweep] values into one NetCDF"
@@ -14,11 +14,10 @@ HELP = "solve a scenario for every combination of the [sweep] values into one Ne
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
-    parser.add_argument("scenario", help="scenario file (TOML) with a [sweep] table")
+    add_scenario_argument(parser, "scenario file (TOML) with a [sweep] table")
     parser.add_argument("--scheduler", default=None,
                         help="dask scheduler address (tcp://host:port) or threads, processes, "
                              "synchronous; overrides [sweep] scheduler")
-    parser.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     add_common_options(parser)
 
 
