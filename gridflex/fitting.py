@@ -36,7 +36,7 @@ from .gravity_response import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, gravity
 from .grid import GridSpec, check_grid, check_same_grid, padded_shape
 from .memory import check_memory
 from .plate import Plate, rigidity_from_te
-from .solve import EDGES, _warn_edge_load, deflection_attrs, result_dataset
+from .solve import EDGES, check_edge_load, deflection_attrs, result_dataset
 from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem, decay_length, scale_spectrum
 
 __all__ = ["QUANTITIES", "OpenIntervalWarning", "TeFit", "fit_te"]
@@ -456,7 +456,7 @@ def fit_te(
 
     load_values = np.asarray(load.values, dtype=np.float64)
     if edges == "infinite":
-        _warn_edge_load(load_values, float(np.abs(load_values).sum()))
+        check_edge_load(load_values, float(np.abs(load_values).sum()))
     forward = _Forward(
         load_values,
         spec,

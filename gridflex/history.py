@@ -33,7 +33,7 @@ from .errors import GridflexWarning, InputError
 from .grid import GridSpec, check_grid, check_same_grid
 from .memory import check_memory
 from .plate import Plate
-from .solve import _warn_edge_load, deflection_attrs, provenance_attrs
+from .solve import check_edge_load, deflection_attrs, provenance_attrs
 from .solvers.spectral import DEFAULT_PAD_FACTOR
 from .solvers.viscous import (
     DEFAULT_WIDTH_FACTOR,
@@ -336,7 +336,7 @@ class ResponseStepper:
 def warn_edge_load(magnitude: np.ndarray) -> None:
     """Warn (EdgeLoadWarning) when much of a load's magnitude over time (Pa, the
     largest |q| of each cell) lies on the grid edge, where zero padding cuts it off."""
-    _warn_edge_load(magnitude, float(np.abs(magnitude).sum()))
+    check_edge_load(magnitude, float(np.abs(magnitude).sum()))
 
 
 def _check_history(load_history: Any) -> tuple[np.ndarray, xr.DataArray]:

@@ -32,7 +32,7 @@ from .io.atomic import check_output_path
 from .io.history import DEFAULT_TIME_REFERENCE, cf_time_axis, read_history, read_series
 from .io.netcdf import write_netcdf
 from .io.rasters import read_raster
-from .layers import _apply_missing_policy
+from .layers import apply_missing_policy
 from .plots import plot_point_series, plot_uplift_rate_map
 from .runner import RunOutcome, plate_from_scenario
 from .scenario import REQUIRED, SCHEMA, Key, Scenario, load_scenario, parse_tables
@@ -182,7 +182,7 @@ def _ice_history(scenario: Scenario, reference: str) -> xr.DataArray:
     if ice["file"] is not None:
         history = read_history(ice["file"], ice["variable"], reference)
         where = scenario.where("ice", "file")
-        return _apply_missing_policy(history, ice["missing"], where)
+        return apply_missing_policy(history, ice["missing"], where)
     g = scenario.table("grid")
     grid = empty_grid(g["rows"], g["columns"], g["spacing"])
     disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])

@@ -495,7 +495,7 @@ def solve_with_infill(
         If the tolerance is not reached in *max_iterations*.
     """
     # imported here: solve.py sits above this module and may dispatch to it
-    from .solve import _check_force, _warn_edge_load, result_dataset
+    from .solve import _check_force, check_edge_load, result_dataset
 
     if not isinstance(plate, Plate):
         raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
@@ -567,7 +567,7 @@ def solve_with_infill(
         inner_name = "spectral"
     values = np.asarray(load.values, dtype=np.float64)
     if edges == "infinite":
-        _warn_edge_load(values, float(np.abs(values).sum()))
+        check_edge_load(values, float(np.abs(values).sum()))
     shape, window = solver.shape, solver.window
     level = mask = None
     if infill.sediment == "to_level":

@@ -39,6 +39,7 @@ from .units import unit_factor
 
 __all__ = [
     "WorkingGrid",
+    "apply_missing_policy",
     "build_working_layers",
     "build_working_load",
     "elevation_stress",
@@ -141,7 +142,7 @@ def _synthetic_layer(scenario: Scenario, layer: dict[str, Any]) -> xr.DataArray:
     return gaussian_height(grid, layer["radius"], layer["height"], *centre, points=points)
 
 
-def _apply_missing_policy(
+def apply_missing_policy(
     da: xr.DataArray, policy: str, where: str, elevation: bool = False
 ) -> xr.DataArray:
     missing = ~np.isfinite(da.values)
@@ -171,7 +172,7 @@ def _layer_values(scenario: Scenario, index: int) -> xr.DataArray:
         return _synthetic_layer(scenario, layer)
     da = read_raster(layer["file"], layer["variable"])
     where = f"{where} ({layer['file'].name})"
-    da = _apply_missing_policy(da, layer["missing"], where, layer["kind"] == "elevation")
+    da = apply_missing_policy(da, layer["missing"], where, layer["kind"] == "elevation")
     dimension = "pressure" if layer["kind"] == "stress" else "length"
     units = str(da.attrs.get("units", "") or ("m" if dimension == "length" else "Pa"))
     factor = unit_factor(units, dimension, f"{layer['file']}: variable {da.name!r}")

@@ -26,6 +26,7 @@ __all__ = [
     "EDGES",
     "METHODS",
     "SIGN_CONVENTION",
+    "check_edge_load",
     "solve",
     "deflection_attrs",
     "provenance_attrs",
@@ -73,7 +74,7 @@ def _check_force(name: str, value: Any) -> float:
     return force
 
 
-def _warn_edge_load(values: np.ndarray, total: float) -> None:
+def check_edge_load(values: np.ndarray, total: float) -> None:
     """Warn when a share of the load (of magnitude Σ|q| = *total*) touches the grid edge."""
     if total == 0.0:
         return
@@ -252,7 +253,7 @@ def solve(
     )
     magnitude = float(np.abs(values).sum())
     if edges == "infinite" and not problem.is_local:
-        _warn_edge_load(values, magnitude)
+        check_edge_load(values, magnitude)
     log.info("spectral solve on %s grid, FFT grid %s", spec.shape, problem.shape)
     deflection, balance = problem.deflection(values, magnitude)
     attrs = {
@@ -293,7 +294,7 @@ def _solve_finite_difference(
     else:
         rigidity_grid = np.full(spec.shape, float(rigidity))
     if edges == "infinite" and rigidity_grid.max() > 0:
-        _warn_edge_load(values, float(np.abs(values).sum()))
+        check_edge_load(values, float(np.abs(values).sum()))
     deflection, info = finite_difference_deflection(
         values, spec, rigidity_grid, plate.restoring_stiffness, plate.poisson_ratio, edges,
         pad_factor=pad_factor, tolerance=tolerance, max_iterations=max_iterations,

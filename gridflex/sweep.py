@@ -23,7 +23,7 @@ from .errors import InputError
 from .grid import check_grid
 from .memory import check_memory
 from .plate import Plate
-from .solve import EDGES, SIGN_CONVENTION, _warn_edge_load, deflection_attrs
+from .solve import EDGES, SIGN_CONVENTION, check_edge_load, deflection_attrs
 from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 
 __all__ = ["FORCE_PARAMETERS", "LOCAL_SCHEDULERS", "PLATE_PARAMETERS", "sweep"]
@@ -271,7 +271,7 @@ def sweep(
     spec = check_grid(template)
     if edges == "infinite":
         grid_values = np.asarray(template.values, dtype=np.float64)
-        _warn_edge_load(grid_values, float(np.abs(grid_values).sum()))
+        check_edge_load(grid_values, float(np.abs(grid_values).sum()))
     check_memory(
         2.0 * 8.0 * math.prod(shape) * spec.ny * spec.nx,
         f"sweep result of {math.prod(shape)} grids of {spec.ny} x {spec.nx}",
