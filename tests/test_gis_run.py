@@ -85,7 +85,8 @@ def test_lonlat_geotiff_full_run(tmp_path, capsys):
     back = read_raster(out / "result.nc", "deflection")
     np.testing.assert_allclose(back.values, w)
     assert w.max() > 50.0 and w.min() < 0.0
-    # the load put back on the input grid keeps its total within 1 % (equal-area working grid)
+    # the load put back on the input grid keeps its total within 1 %: the working projection is
+    # equal-area (Snyder 1987, Map Projections: A Working Manual, USGS PP 1395, ch. 24)
     with rasterio.open(tmp_path / "edifice.tif") as src:
         height = src.read(1)
     with rasterio.open(out / "result_load.tif") as src:
