@@ -30,6 +30,7 @@ from .preconditioners import (
     BlendPreconditioner,
     MultiplicativePreconditioner,
     sharp_band,
+    sharp_nodes,
 )
 from .spectral import DEFAULT_PAD_FACTOR
 
@@ -284,10 +285,10 @@ def finite_difference_deflection(
     operator = PlateOperator.build(
         solve_rigidity, stiffness, poisson_ratio, spec.dy, spec.dx, axis_edges
     )
+    sharp = sharp_nodes(operator)
     if band_width is None:
-        probe = sharp_band(operator, 0.0, max_band_nodes)[2]
-        band_width = default_band_width(solve_rigidity, probe, stiffness)
-    nodes, width_used, _ = sharp_band(operator, float(band_width), int(max_band_nodes))
+        band_width = default_band_width(solve_rigidity, sharp, stiffness)
+    nodes, width_used, _ = sharp_band(operator, float(band_width), int(max_band_nodes), sharp)
     band = BandSolver.build(operator, nodes)
     blend = BlendPreconditioner.build(operator, nodes)
     rhs = operator.area * rhs_load
@@ -308,7 +309,7 @@ def finite_difference_deflection(
     try:
         x, iterations, residual = conjugate_gradient(
             operator.apply, rhs, preconditioner.apply, float(tolerance), int(max_iterations),
-            progress,
+            progress, preconditioner.initial_guess(rhs),
         )
     except ConvergenceError as exc:
         raise ConvergenceError(

@@ -26,6 +26,9 @@ of it, as a scipy sparse matrix with vectorised COO construction.
 
 from __future__ import annotations
 
+import functools
+import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -162,6 +165,78 @@ def _valid_corners(n: int, edge: str) -> np.ndarray:
     return valid
 
 
+BLOCK_ELEMENTS = 55_000
+"""Nodes per block of :meth:`PlateOperator.apply`, so that a block's six work arrays stay
+in cache (measured on 1728² nodes: blocks of 8, 16, 32, 64 rows took 0.036, 0.027, 0.023,
+0.027 s per product, against 0.088 s unblocked)."""
+
+
+def _thread_count() -> int:
+    """Threads of :meth:`PlateOperator.apply`: all cores, at most :data:`MAX_THREADS`."""
+    return max(1, min(os.cpu_count() or 1, MAX_THREADS))
+
+
+@functools.cache
+def _thread_pool() -> ThreadPoolExecutor | None:
+    """One pool shared by all operators (None on one core)."""
+    threads = _thread_count()
+    return ThreadPoolExecutor(threads, "gridflex-operator") if threads > 1 else None
+
+
+@dataclass(eq=False)
+class _BlockedWeights:
+    """Energy weights padded for the row-blocked product, and per-thread work arrays.
+
+    ``xx``, ``yy``, ``cross``: nodal weights with one row beyond each y edge (wrapped for a
+    periodic axis, zero otherwise); ``corner``: the corner weights, in which a periodic
+    axis's corner line 0 (the same line as corner n) carries that line's weight, because
+    the gathered product visits it from both sides.
+    """
+
+    xx: np.ndarray
+    yy: np.ndarray
+    cross: np.ndarray
+    corner: np.ndarray
+    ext: np.ndarray
+    buffers: list[dict[str, np.ndarray]]
+    rows: int
+    pool: ThreadPoolExecutor | None
+
+    @classmethod
+    def build(cls, op: PlateOperator) -> _BlockedWeights:
+        ny, nx = op.shape
+        periodic = op.edges[0] == "periodic"
+
+        def rows(values: np.ndarray) -> np.ndarray:
+            out = np.empty((ny + 2, nx))
+            out[1:-1] = values
+            out[0] = values[-1] if periodic else 0.0
+            out[-1] = values[0] if periodic else 0.0
+            return out
+
+        corner = op._w_corner.copy()
+        if op.edges[0] == "periodic":
+            corner[0] = corner[-1]
+        if op.edges[1] == "periodic":
+            corner[:, 0] = corner[:, -1]
+        pool = _thread_pool()
+        threads = 1 if pool is None else _thread_count()
+        block = int(min(max(BLOCK_ELEMENTS // nx, 4), ny))
+        buffers = [
+            {name: np.empty((block + 2, nx)) for name in ("a", "b", "mx", "my", "tmp")}
+            | {"twist": np.empty((block + 1, nx + 1))}
+            for _ in range(threads)
+        ]
+        return cls(
+            rows(op._w_xx), rows(op._w_yy), rows(op._w_cross), corner,
+            np.zeros((ny + 4, nx + 2)), buffers, block, pool,
+        )
+
+
+MAX_THREADS = 8
+"""Most threads :meth:`PlateOperator.apply` uses."""
+
+
 @dataclass(frozen=True, eq=False)
 class PlateOperator:
     """The discrete variable-rigidity plate operator K (Pa per m of deflection).
@@ -280,86 +355,100 @@ class PlateOperator:
 
     # -- matrix-free application ------------------------------------------------------
 
-    def _fold(self, ext: np.ndarray) -> np.ndarray:
-        out = ext[1:-1, 1:-1].copy()
-        py, px = (e == "periodic" for e in self.edges)
-        if px:
-            out[:, -1] += ext[1:-1, 0]
-            out[:, 0] += ext[1:-1, -1]
-        if py:
-            out[-1, :] += ext[0, 1:-1]
-            out[0, :] += ext[-1, 1:-1]
-        if px and py:
-            out[-1, -1] += ext[0, 0]
-            out[-1, 0] += ext[0, -1]
-            out[0, -1] += ext[-1, 0]
-            out[0, 0] += ext[-1, -1]
-        return out
-
-    def _workspace(self) -> dict[str, np.ndarray]:
+    def _blocked(self) -> _BlockedWeights:
+        """The weights laid out for the row-blocked product (built on first use)."""
         work = self._work
-        if not work:
-            ny, nx = self.shape
-            work["ext"] = np.zeros((ny + 2, nx + 2))
-            work["out"] = np.zeros((ny + 2, nx + 2))
-            work["twist"] = np.empty((ny + 1, nx + 1))
-            for name in ("a", "b", "mx", "my", "tmp"):
-                work[name] = np.empty((ny, nx))
-        return work
+        if "blocked" not in work:
+            work["blocked"] = _BlockedWeights.build(self)
+        return work["blocked"]  # type: ignore[return-value]
 
     def apply(self, w: np.ndarray) -> np.ndarray:
-        """K w (Pa) for a deflection *w* (m) of shape (ny, nx)."""
+        """K w (Pa) for a deflection *w* (m) of shape (ny, nx).
+
+        Evaluated in blocks of rows (:data:`BLOCK_ELEMENTS` nodes) so that the intermediate
+        curvatures and moments stay in cache, the blocks shared among threads (numpy
+        releases the GIL in its loops); the same arithmetic as the assembled :meth:`matrix`.
+        """
         w = np.asarray(w, dtype=np.float64).reshape(self.shape)
-        work = self._workspace()
-        ext, out, twist = work["ext"], work["out"], work["twist"]
-        a, b, mx, my, tmp = work["a"], work["b"], work["mx"], work["my"], work["tmp"]
+        weights = self._blocked()
+        ny, nx = self.shape
         py, px = (e == "periodic" for e in self.edges)
-        ext[1:-1, 1:-1] = w
-        if px:
-            ext[1:-1, 0] = w[:, -1]
-            ext[1:-1, -1] = w[:, 0]
+        # w with two ghost rows and one ghost column on each side: wrapped or zero
+        ext = weights.ext
+        ext[2:-2, 1:-1] = w
         if py:
-            ext[0, 1:-1] = w[-1]
-            ext[-1, 1:-1] = w[0]
-        if px and py:
-            ext[0, 0], ext[0, -1], ext[-1, 0], ext[-1, -1] = w[-1, -1], w[-1, 0], w[0, -1], w[0, 0]
-        centre = ext[1:-1, 1:-1]
-        # undivided differences; the weights carry the 1/h^4 factors
-        np.add(ext[1:-1, 2:], ext[1:-1, :-2], out=a)
-        a -= centre
-        a -= centre
-        np.add(ext[2:, 1:-1], ext[:-2, 1:-1], out=b)
-        b -= centre
-        b -= centre
-        np.subtract(ext[1:, 1:], ext[1:, :-1], out=twist)
-        twist -= ext[:-1, 1:]
-        twist += ext[:-1, :-1]
-        twist *= self._w_corner
-        np.multiply(self._w_xx, a, out=mx)
-        np.multiply(self._w_cross, b, out=tmp)
-        mx += tmp
-        np.multiply(self._w_yy, b, out=my)
-        np.multiply(self._w_cross, a, out=tmp)
-        my += tmp
-        np.add(mx, my, out=tmp)
-        tmp *= -2.0
-        out[0] = 0.0
-        out[-1] = 0.0
-        out[:, 0] = 0.0
-        out[:, -1] = 0.0
-        out[1:-1, 1:-1] = tmp
-        out[1:-1, 2:] += mx
-        out[1:-1, :-2] += mx
-        out[2:, 1:-1] += my
-        out[:-2, 1:-1] += my
-        out[1:, 1:] += twist
-        out[1:, :-1] -= twist
-        out[:-1, 1:] -= twist
-        out[:-1, :-1] += twist
-        result = self._fold(out)
-        np.multiply(self._diagonal, w, out=tmp)
-        result += tmp
+            ext[:2, 1:-1] = w[-2:]
+            ext[-2:, 1:-1] = w[:2]
+        if px:
+            ext[:, 0] = ext[:, -2]
+            ext[:, -1] = ext[:, 1]
+        result = np.empty((ny, nx))
+        starts = list(range(0, ny, weights.rows))
+        if weights.pool is None or len(starts) < 2 * len(weights.buffers):
+            self._apply_chunk(weights, w, result, starts, 0)
+        else:
+            chunks = np.array_split(np.asarray(starts), len(weights.buffers))
+            futures = [
+                weights.pool.submit(self._apply_chunk, weights, w, result, chunk.tolist(), t)
+                for t, chunk in enumerate(chunks)
+            ]
+            for future in futures:
+                future.result()
         return result
+
+    def _apply_chunk(
+        self, weights: _BlockedWeights, w: np.ndarray, result: np.ndarray,
+        starts: list[int], thread: int,
+    ) -> None:
+        ny, rows = self.shape[0], weights.rows
+        for j0 in starts:
+            self._apply_rows(weights, w, result, j0, min(j0 + rows, ny), thread)
+
+    def _apply_rows(
+        self, weights: _BlockedWeights, w: np.ndarray, result: np.ndarray,
+        j0: int, j1: int, thread: int,
+    ) -> None:
+        """Rows j0..j1-1 of K w, gathered from curvatures on rows j0-1..j1 and twists on
+        corner rows j0..j1."""
+        h = j1 - j0
+        buf = weights.buffers[thread]
+        a, b, mx, my, tmp = (buf[name][: h + 2] for name in ("a", "b", "mx", "my", "tmp"))
+        twist = buf["twist"][: h + 1]
+        ext = weights.ext[j0 : j1 + 4]  # node rows j0-2 .. j1+1
+        mid = ext[1:-1, 1:-1]  # node rows j0-1 .. j1
+        np.add(ext[1:-1, 2:], ext[1:-1, :-2], out=a)
+        a -= mid
+        a -= mid
+        np.add(ext[2:, 1:-1], ext[:-2, 1:-1], out=b)
+        b -= mid
+        b -= mid
+        rows = slice(j0, j1 + 2)  # in the weight arrays padded by one row
+        np.multiply(weights.xx[rows], a, out=mx)
+        np.multiply(weights.cross[rows], b, out=tmp)
+        mx += tmp
+        np.multiply(weights.yy[rows], b, out=my)
+        np.multiply(weights.cross[rows], a, out=tmp)
+        my += tmp
+        np.subtract(ext[2 : h + 3, 1:], ext[2 : h + 3, :-1], out=twist)
+        twist -= ext[1 : h + 2, 1:]
+        twist += ext[1 : h + 2, :-1]
+        twist *= weights.corner[j0 : j1 + 1]
+        out = result[j0:j1]
+        np.add(mx[1:-1], my[1:-1], out=out)
+        out *= -2.0
+        out[:, 1:] += mx[1:-1, :-1]
+        out[:, :-1] += mx[1:-1, 1:]
+        if self.edges[1] == "periodic":
+            out[:, 0] += mx[1:-1, -1]
+            out[:, -1] += mx[1:-1, 0]
+        out += my[:-2]
+        out += my[2:]
+        out += twist[:-1, :-1]
+        out -= twist[:-1, 1:]
+        out -= twist[1:, :-1]
+        out += twist[1:, 1:]
+        np.multiply(self._diagonal[j0:j1], w[j0:j1], out=tmp[:h])
+        out += tmp[:h]
 
     # -- sparse assembly ---------------------------------------------------------------
 
