@@ -1,7 +1,8 @@
 """Preconditioners for the variable-rigidity plate operator.
 
 Two parts, combined in symmetric multiplicative form (band, blend on the rest of the
-residual, band again):
+residual, band again; the first band solve drops out once the residual is zero on the band,
+see :meth:`MultiplicativePreconditioner.apply`):
 
 * :class:`BlendPreconditioner` — a partition of unity over log D: constant-rigidity spectral
   solves at a few rigidity levels spread over the non-zero range, each applied as
