@@ -24,7 +24,10 @@ def _axpy(a: float, x: np.ndarray, y: np.ndarray) -> None:
     """y += a x in place, without a temporary (BLAS daxpy for contiguous float64)."""
     if y.dtype == np.float64 and x.dtype == np.float64 and x.flags.c_contiguous \
             and y.flags.c_contiguous:
-        scipy.linalg.blas.daxpy(x.ravel(), y.ravel(), a=a)
+        flat = y.reshape(-1)
+        out = scipy.linalg.blas.daxpy(x.reshape(-1), flat, a=a)
+        if not np.shares_memory(out, flat):  # f2py copied instead of updating in place
+            flat[...] = out
     else:
         y += a * x
 
