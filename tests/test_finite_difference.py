@@ -14,7 +14,7 @@ from numpy.testing import assert_allclose
 from gridflex.errors import ConvergenceError, InputError
 from gridflex.grid import GridSpec
 from gridflex.plate import rigidity_from_te
-from gridflex.solvers import plate_operator
+from gridflex.solvers import row_blocks
 from gridflex.solvers.finite_difference import (
     AXIS_EDGES,
     PlateOperator,
@@ -27,8 +27,8 @@ from gridflex.solvers.preconditioners import (
     BlendPreconditioner,
     MultiplicativePreconditioner,
     discrete_symbol,
-    sharp_band,
 )
+from gridflex.solvers.rigidity_features import sharp_band
 
 NU = 0.25
 RHO_G = 1000.0 * 9.81  # (rho_m - rho_infill) g for drho = 1000 kg m^-3
@@ -71,7 +71,7 @@ def test_operator_symmetric_and_matches_its_matrix(edges):
 def test_blocked_threaded_product_matches_the_matrix(edges, monkeypatch):
     # common practice: the row-blocked, threaded product is the same arithmetic as the
     # assembled matrix; tiny blocks make many blocks, shared among threads
-    monkeypatch.setattr(plate_operator, "BLOCK_ELEMENTS", 100)
+    monkeypatch.setattr(row_blocks, "BLOCK_ELEMENTS", 100)
     rng = np.random.default_rng(2)
     rigidity = 10 ** rng.uniform(20, 23, (70, 23))
     rigidity[31, :] = 0.0

@@ -21,16 +21,16 @@ import scipy.ndimage
 from ..errors import ConvergenceError, InputError
 from ..grid import GridSpec
 from ..memory import check_memory
+from .blas_threads import single_threaded_blas
 from .conjugate_gradient import Progress, conjugate_gradient
 from .plate_operator import AXIS_EDGES, PlateOperator, area_weights, corner_rigidity
-from .preconditioners import (
-    SHARP_RATIO,
-    SINGLE_PRECISION_UNTIL,
-    BandSolver,
-    BlendPreconditioner,
-    MultiplicativePreconditioner,
+from .preconditioners import BandSolver, BlendPreconditioner, MultiplicativePreconditioner
+from .rigidity_features import (
+    BAND_FLEXURAL_PARAMETERS,
+    BREAK_FLEXURAL_PARAMETERS,
+    STEEP_FLEXURAL_PARAMETERS,
+    find_sharp_features,
     sharp_band,
-    sharp_nodes,
 )
 from .spectral import DEFAULT_PAD_FACTOR
 
@@ -46,7 +46,6 @@ __all__ = [
     "PlateOperator",
     "area_weights",
     "corner_rigidity",
-    "default_band_width",
     "finite_difference_deflection",
     "pad_rigidity",
     "roundoff_residual",
@@ -63,20 +62,6 @@ DEFAULT_TOLERANCE = 1e-8
 DEFAULT_MAX_ITERATIONS = 300
 """Iteration limit before :class:`~gridflex.errors.ConvergenceError` is raised."""
 
-BAND_FLEXURAL_PARAMETERS = 3.0
-"""Width of the exact-solve band round a rigidity jump, in flexural parameters of its weak
-side (the smallest non-zero rigidity next to the jump)."""
-
-STEEP_FLEXURAL_PARAMETERS = 1.0
-"""Width of the band round a steep but smooth rigidity change, in flexural parameters of
-its weak side (measured on a Te 60 -> 10 km margin 120 km wide: 25 iterations; 75 without
-a band)."""
-
-BREAK_FLEXURAL_PARAMETERS = 0.35
-"""Width of the band round breaks (zero rigidity) and non-periodic grid edges, in flexural
-parameters of the adjacent plate (measured on a hinge line crossing a 512² grid of 2 km
-cells: 1 -> 7 iterations, 0.5 -> 12, 0.25 -> 17; the narrower band is cheaper overall)."""
-
 DEFAULT_MAX_BAND_NODES = 400_000
 """Cap on the band size (nodes). Beyond it the band width is halved until it fits; if even
 the sharp nodes alone do not fit, the solve runs with the blend alone (more iterations)."""
@@ -89,22 +74,16 @@ def _ramp(count: int) -> np.ndarray:
     return np.sin(0.5 * np.pi * u) ** 2
 
 
-def _pad_axis_periodic(values: np.ndarray, axis: int, extra: int) -> np.ndarray:
-    """Append *extra* cells along *axis* joining the last edge smoothly to the first."""
-    if extra == 0:
-        return values
-    last = np.take(values, [-1], axis=axis)
-    first = np.take(values, [0], axis=axis)
-    positive = values[values > 0]
-    floor = positive.min() if positive.size else 1.0
-    t = _ramp(extra)
-    t = t[:, None] if axis == 0 else t[None, :]
-    log_pad = (1.0 - t) * np.log(np.maximum(last, floor)) + t * np.log(np.maximum(first, floor))
-    pad = np.exp(log_pad)
-    near_last = np.arange(1, extra + 1) <= extra / 2
-    near_last = near_last[:, None] if axis == 0 else near_last[None, :]
-    pad = np.where(np.where(near_last, last, first) > 0, pad, 0.0)
-    return np.concatenate([values, pad], axis=axis)
+def _periodic_pad(last: np.ndarray, first: np.ndarray, extra: int, floor: float) -> np.ndarray:
+    """*extra* lines joining the line *last* smoothly to the line *first* (shape
+    (extra, n)): log D follows :func:`_ramp`; a zero edge value continues for half the pad."""
+    t = _ramp(extra)[:, None]
+    pad = np.log(np.maximum(last, floor))[None, :] * (1.0 - t)
+    pad += t * np.log(np.maximum(first, floor))[None, :]
+    np.exp(pad, out=pad)
+    near_last = (np.arange(1, extra + 1) <= extra / 2)[:, None]
+    pad[(near_last & (last == 0)[None, :]) | (~near_last & (first == 0)[None, :])] = 0.0
+    return pad
 
 
 def pad_rigidity(rigidity: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
@@ -127,8 +106,15 @@ def pad_rigidity(rigidity: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
     numpy.ndarray of *shape*
     """
     ny, nx = rigidity.shape
-    out = _pad_axis_periodic(rigidity, 1, shape[1] - nx)
-    return _pad_axis_periodic(out, 0, shape[0] - ny)
+    out = np.empty(shape)
+    out[:ny, :nx] = rigidity
+    floor = float(np.min(rigidity, where=rigidity > 0, initial=np.inf))
+    floor = floor if np.isfinite(floor) else 1.0
+    if shape[1] > nx:  # along x: the pad of every row, built as columns
+        out[:ny, nx:] = _periodic_pad(rigidity[:, -1], rigidity[:, 0], shape[1] - nx, floor).T
+    if shape[0] > ny:  # along y, from the first and last rows of the x-padded grid
+        out[ny:] = _periodic_pad(out[ny - 1], out[0], shape[0] - ny, floor)
+    return out
 
 
 def _infinite_shape(
@@ -143,35 +129,6 @@ def _infinite_shape(
         extra = 2 * max(math.ceil(pad_factor * alpha / h), 2)
         out.append(scipy.fft.next_fast_len(n + extra, real=True))
     return (out[0], out[1])
-
-
-def default_band_width(rigidity: np.ndarray, sharp: np.ndarray, stiffness: float) -> float:
-    """Band width (m) for the sharp nodes of a rigidity grid.
-
-    :data:`BAND_FLEXURAL_PARAMETERS` flexural parameters of the weakest non-zero rigidity next
-    to a jump (more than ten-fold between neighbours, non-zero on both sides);
-    :data:`STEEP_FLEXURAL_PARAMETERS` of the weakest rigidity at a steep but smooth change;
-    :data:`BREAK_FLEXURAL_PARAMETERS` of the weakest plate next to a zero (break) or a grid
-    edge; the widest of these.
-    """
-    positive = np.where(rigidity > 0, rigidity, np.inf)
-    low_positive = scipy.ndimage.minimum_filter(positive, size=3, mode="nearest")
-    low = scipy.ndimage.minimum_filter(rigidity, size=3, mode="nearest")
-    high = scipy.ndimage.maximum_filter(rigidity, size=3, mode="nearest")
-    touches_zero = low == 0
-    jump = sharp & ~touches_zero & (high > SHARP_RATIO * low)
-    steep = sharp & ~touches_zero & ~jump
-    other = sharp & touches_zero & np.isfinite(low_positive)
-    width = 0.0
-    for mask, factor in (
-        (jump, BAND_FLEXURAL_PARAMETERS),
-        (steep, STEEP_FLEXURAL_PARAMETERS),
-        (other, BREAK_FLEXURAL_PARAMETERS),
-    ):
-        if mask.any():
-            weak = float(low_positive[mask].min())
-            width = max(width, factor * (4.0 * weak / stiffness) ** 0.25)
-    return width
 
 
 def roundoff_residual(rigidity: np.ndarray, stiffness: float, spacing: float) -> float:
@@ -285,39 +242,39 @@ def finite_difference_deflection(
     operator = PlateOperator.build(
         solve_rigidity, stiffness, poisson_ratio, spec.dy, spec.dx, axis_edges
     )
-    sharp = sharp_nodes(operator)
+    features = find_sharp_features(operator)
     if band_width is None:
-        band_width = default_band_width(solve_rigidity, sharp, stiffness)
-    nodes, width_used, _ = sharp_band(operator, float(band_width), int(max_band_nodes), sharp)
-    band = BandSolver.build(operator, nodes)
-    blend = BlendPreconditioner.build(operator, nodes)
-    rhs = operator.area * rhs_load
-    floor = roundoff_residual(solve_rigidity, stiffness, min(spec.dx, spec.dy))
-    if floor > 0.5 * tolerance:
-        log.warning(
-            "tolerance %.1e is close to the round-off limit (about %.0e) of a plate this stiff "
-            "on cells this small; the iteration may stop short of it", tolerance, floor,
-        )
-    preconditioner = MultiplicativePreconditioner(
-        operator, blend, band, SINGLE_PRECISION_UNTIL * float(np.linalg.norm(rhs))
+        band_width = features.band_width
+    nodes, width_used, _ = sharp_band(
+        operator, float(band_width), int(max_band_nodes), features.nodes
     )
-    setup = time.perf_counter() - start
-    log.info(
-        "finite-difference solve on %s nodes: %d blend levels, band of %d nodes (%.0f m)",
-        shape, blend.levels.size, band.size, width_used,
-    )
-    try:
-        x, iterations, residual = conjugate_gradient(
-            operator.apply, rhs, preconditioner.apply, float(tolerance), int(max_iterations),
-            progress, preconditioner.initial_guess(rhs),
+    with single_threaded_blas():  # see gridflex.solvers.blas_threads
+        band = BandSolver.build(operator, nodes)
+        blend = BlendPreconditioner.build(operator, nodes)
+        rhs = operator.area * rhs_load
+        floor = roundoff_residual(solve_rigidity, stiffness, min(spec.dx, spec.dy))
+        if floor > 0.5 * tolerance:
+            log.warning(
+                "tolerance %.1e is close to the round-off limit (about %.0e) of a plate this "
+                "stiff on cells this small; the iteration may stop short of it", tolerance, floor,
+            )
+        preconditioner = MultiplicativePreconditioner(operator, blend, band)
+        setup = time.perf_counter() - start
+        log.info(
+            "finite-difference solve on %s nodes: %d blend levels, band of %d nodes (%.0f m)",
+            shape, blend.levels.size, band.size, width_used,
         )
-    except ConvergenceError as exc:
-        raise ConvergenceError(
-            f"{exc}. On this grid the flexural parameter spans up to "
-            f"{(4.0 * float(solve_rigidity.max()) / stiffness) ** 0.25 / min(spec.dx, spec.dy):.0f}"
-            f" cells; double-precision round-off alone limits the residual to about "
-            f"{floor:.0e}"
-        ) from exc
+        try:
+            x, iterations, residual = conjugate_gradient(
+                operator.apply, rhs, preconditioner.apply, float(tolerance), int(max_iterations),
+                progress, preconditioner.initial_guess(rhs), preconditioner.use_double_precision,
+            )
+        except ConvergenceError as exc:
+            cells = (4.0 * float(solve_rigidity.max()) / stiffness) ** 0.25 / min(spec.dx, spec.dy)
+            raise ConvergenceError(
+                f"{exc}. On this grid the flexural parameter spans up to {cells:.0f} cells; "
+                f"double-precision round-off alone limits the residual to about {floor:.0e}"
+            ) from exc
     solve_seconds = time.perf_counter() - start - setup
     total = float(np.abs(rhs).sum())
     imbalance = abs(stiffness * float((operator.area * x).sum()) - float(rhs.sum()))

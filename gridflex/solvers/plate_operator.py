@@ -26,15 +26,13 @@ of it, as a scipy sparse matrix with vectorised COO construction.
 
 from __future__ import annotations
 
-import functools
-import os
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.sparse as sp
 
 from ..errors import InputError
+from .row_blocks import block_rows, for_row_blocks, thread_count
 
 __all__ = ["AXIS_EDGES", "PlateOperator", "area_weights", "corner_rigidity"]
 
@@ -71,12 +69,13 @@ def corner_rigidity(rigidity: np.ndarray, edges: tuple[str, str]) -> np.ndarray:
         Beyond a non-periodic edge the edge value is repeated. A corner touching a node
         with D = 0 gets 0, so a line of zero rigidity cuts the twisting coupling.
     """
-    ext = _pad_axis(_pad_axis(rigidity, 0, edges[0] == "periodic"), 1, edges[1] == "periodic")
-    quads = (ext[1:, 1:], ext[1:, :-1], ext[:-1, 1:], ext[:-1, :-1])
-    positive = np.logical_and.reduce([q > 0 for q in quads])
     with np.errstate(divide="ignore"):
-        inverse_sum = sum(np.where(positive, 1.0 / np.where(positive, q, 1.0), 0.0) for q in quads)
-    return np.where(positive, 4.0 / np.where(positive, inverse_sum, 1.0), 0.0)
+        inverse = np.divide(1.0, rigidity)  # 1 / 0 = inf, and 4 / (... + inf) = 0
+    ext = _pad_axis(_pad_axis(inverse, 0, edges[0] == "periodic"), 1, edges[1] == "periodic")
+    total = np.add(ext[1:, 1:], ext[1:, :-1])
+    total += ext[:-1, 1:]
+    total += ext[:-1, :-1]
+    return np.divide(4.0, total, out=total)
 
 
 def _edge_weights(n: int, edge: str) -> np.ndarray:
@@ -153,88 +152,24 @@ def _valid_nodes(n: int, edge: str) -> np.ndarray:
     return valid
 
 
-def _valid_corners(n: int, edge: str) -> np.ndarray:
-    """Corner positions 0..n along one axis (between nodes I - 1 and I) that are used."""
-    valid = np.zeros(n + 1)
-    if edge == "periodic":
-        valid[1:] = 1.0  # corner 0 is corner n
-    elif edge == "free":
-        valid[1:-1] = 1.0
-    else:
-        valid[:] = 1.0  # clamped: the ghost nodes hold w = 0
-    return valid
-
-
-BLOCK_ELEMENTS = 55_000
-"""Nodes per block of :meth:`PlateOperator.apply`, so that a block's six work arrays stay
-in cache (measured on 1728² nodes: blocks of 8, 16, 32, 64 rows took 0.036, 0.027, 0.023,
-0.027 s per product, against 0.088 s unblocked)."""
-
-
-def _thread_count() -> int:
-    """Threads of :meth:`PlateOperator.apply`: all cores, at most :data:`MAX_THREADS`."""
-    return max(1, min(os.cpu_count() or 1, MAX_THREADS))
-
-
-@functools.cache
-def _thread_pool() -> ThreadPoolExecutor | None:
-    """One pool shared by all operators (None on one core)."""
-    threads = _thread_count()
-    return ThreadPoolExecutor(threads, "gridflex-operator") if threads > 1 else None
-
-
 @dataclass(eq=False)
-class _BlockedWeights:
-    """Energy weights padded for the row-blocked product, and per-thread work arrays.
+class _Workspace:
+    """Per-thread block buffers of the row-blocked product: w with two ghost rows and one
+    ghost column on each side (``ext``), curvatures, moments and twists."""
 
-    ``xx``, ``yy``, ``cross``: nodal weights with one row beyond each y edge (wrapped for a
-    periodic axis, zero otherwise); ``corner``: the corner weights, in which a periodic
-    axis's corner line 0 (the same line as corner n) carries that line's weight, because
-    the gathered product visits it from both sides.
-    """
-
-    xx: np.ndarray
-    yy: np.ndarray
-    cross: np.ndarray
-    corner: np.ndarray
-    ext: np.ndarray
     buffers: list[dict[str, np.ndarray]]
     rows: int
-    pool: ThreadPoolExecutor | None
 
     @classmethod
-    def build(cls, op: PlateOperator) -> _BlockedWeights:
-        ny, nx = op.shape
-        periodic = op.edges[0] == "periodic"
-
-        def rows(values: np.ndarray) -> np.ndarray:
-            out = np.empty((ny + 2, nx))
-            out[1:-1] = values
-            out[0] = values[-1] if periodic else 0.0
-            out[-1] = values[0] if periodic else 0.0
-            return out
-
-        corner = op._w_corner.copy()
-        if op.edges[0] == "periodic":
-            corner[0] = corner[-1]
-        if op.edges[1] == "periodic":
-            corner[:, 0] = corner[:, -1]
-        pool = _thread_pool()
-        threads = 1 if pool is None else _thread_count()
-        block = int(min(max(BLOCK_ELEMENTS // nx, 4), ny))
+    def build(cls, shape: tuple[int, int]) -> _Workspace:
+        ny, nx = shape
+        block = block_rows(nx, ny)
         buffers = [
             {name: np.empty((block + 2, nx)) for name in ("a", "b", "mx", "my", "tmp")}
-            | {"twist": np.empty((block + 1, nx + 1))}
-            for _ in range(threads)
+            | {"twist": np.empty((block + 1, nx + 1)), "ext": np.zeros((block + 4, nx + 2))}
+            for _ in range(thread_count())
         ]
-        return cls(
-            rows(op._w_xx), rows(op._w_yy), rows(op._w_cross), corner,
-            np.zeros((ny + 4, nx + 2)), buffers, block, pool,
-        )
-
-
-MAX_THREADS = 8
-"""Most threads :meth:`PlateOperator.apply` uses."""
+        return cls(buffers, block)
 
 
 @dataclass(frozen=True, eq=False)
@@ -267,12 +202,27 @@ class PlateOperator:
     dx: float
     edges: tuple[str, str]
     area: np.ndarray
-    _w_xx: np.ndarray
-    _w_yy: np.ndarray
-    _w_cross: np.ndarray
-    _w_corner: np.ndarray
-    _diagonal: np.ndarray
-    _work: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
+    _bend: np.ndarray
+    """(ny + 2, nx): bending weight a D (N m), one ghost row beyond each y edge (wrapped
+    for a periodic axis, zero otherwise)."""
+    _corner: np.ndarray
+    """(ny + 1, nx + 1): twist weight 2 (1 − ν) D_c / (dx dy)² on the corners in use; on a
+    periodic axis corner line 0 repeats line n (the gathered product visits it from both
+    sides)."""
+    _diagonal_nodes: np.ndarray
+    """Flat indices of the nodes whose diagonal term differs from Δρ g (area weight below
+    one, clamped edges)."""
+    _diagonal_extra: np.ndarray
+    """The diagonal term minus Δρ g at those nodes (Pa m⁻¹)."""
+    _cx: np.ndarray
+    """(nx,): 1 / dx⁴ where the x curvature is used, else 0."""
+    _cy: np.ndarray
+    """(ny + 2, 1): 1 / dy⁴ where the y curvature is used (ghost rows as the bend weight)."""
+    _cross_x: np.ndarray
+    """(nx,): ν / (dx dy)² where both curvatures are used along x, else 0."""
+    _cross_y: np.ndarray | None
+    """(ny + 2, 1): 1 where both curvatures are used along y, else 0; None when all are."""
+    _work: dict[str, _Workspace] = field(default_factory=dict, repr=False)
 
     @classmethod
     def build(
@@ -310,7 +260,7 @@ class PlateOperator:
             raise InputError(
                 f"rigidity grid must be 2-D with >= 3 nodes per axis, got {rigidity.shape}"
             )
-        if not np.all(np.isfinite(rigidity)) or rigidity.min() < 0:
+        if not np.isfinite(rigidity.sum()) or rigidity.min() < 0:
             raise InputError("rigidity grid must be finite and >= 0 everywhere")
         if not stiffness > 0:
             raise InputError(
@@ -322,14 +272,32 @@ class PlateOperator:
                 raise InputError(f"axis edge must be one of {AXIS_EDGES!r}, got {edge!r}")
         ny, nx = rigidity.shape
         nu = float(poisson_ratio)
-        bend_area = _edge_weights(ny, edges[0])[:, None] * _edge_weights(nx, edges[1])[None, :]
-        weight = bend_area * rigidity
-        valid_y = _valid_nodes(ny, edges[0])[:, None]
-        valid_x = _valid_nodes(nx, edges[1])[None, :]
-        w_corner = (2.0 * (1.0 - nu)) * corner_rigidity(rigidity, edges)
-        w_corner *= _valid_corners(ny, edges[0])[:, None] * _valid_corners(nx, edges[1])[None, :]
+        periodic_y = edges[0] == "periodic"
+        # bending weight a D with ghost rows; a = 1/2 on free edges
+        bend = np.empty((ny + 2, nx))
+        bend[1:-1] = rigidity
+        if edges[0] == "free":
+            bend[[1, -2]] *= 0.5
+        if edges[1] == "free":
+            bend[1:-1, [0, -1]] *= 0.5
+        bend[0] = bend[-2] if periodic_y else 0.0
+        bend[-1] = bend[1] if periodic_y else 0.0
+        valid_x = _valid_nodes(nx, edges[1])
+        valid_y = _valid_nodes(ny, edges[0])
+        valid_y = np.concatenate([valid_y[-1:], valid_y, valid_y[:1]])[:, None]
+        corner = corner_rigidity(rigidity, edges)
+        corner *= 2.0 * (1.0 - nu) / (dx * dy) ** 2
+        for axis, edge in enumerate(edges):
+            ends = (slice(None), [0, -1]) if axis else ([0, -1], slice(None))
+            if edge == "free":
+                corner[ends] = 0.0
+            elif edge == "periodic":  # corner line 0 is line n
+                if axis:
+                    corner[:, 0] = corner[:, -1]
+                else:
+                    corner[0] = corner[-1]
         area = area_weights(rigidity, edges)
-        diagonal = area * float(stiffness)
+        diagonal = area * float(stiffness)  # the Winkler term a Δρ g
         # clamped: the normal curvature 2 w/h² on the clamp line (mirror ghost), weight 1/2,
         # adds 2 D a_t / h⁴ to the diagonal of the adjacent nodes (a_t: weight along the edge)
         if edges[1] == "clamped":
@@ -340,12 +308,14 @@ class PlateOperator:
             along = _edge_weights(nx, edges[1])
             diagonal[0, :] += 2.0 * along * rigidity[0, :] / dy**4
             diagonal[-1, :] += 2.0 * along * rigidity[-1, :] / dy**4
-        # the energy weights carry the 1/h^4 of the differences (taken undivided)
+        diagonal -= float(stiffness)  # kept only where it differs from Δρ g
+        diagonal_nodes = np.flatnonzero(diagonal)
+        # the weights carry the 1/h^4 of the differences (taken undivided)
         return cls(
             rigidity, float(stiffness), nu, float(dy), float(dx), edges, area,
-            weight * valid_x / dx**4, weight * valid_y / dy**4,
-            (nu * weight) * (valid_x * valid_y) / (dx * dy) ** 2, w_corner / (dx * dy) ** 2,
-            diagonal,
+            bend, corner, diagonal_nodes, diagonal.ravel()[diagonal_nodes],
+            valid_x / dx**4, valid_y / dy**4,
+            (nu / (dx * dy) ** 2) * valid_x, None if valid_y.all() else valid_y,
         )
 
     @property
@@ -355,84 +325,93 @@ class PlateOperator:
 
     # -- matrix-free application ------------------------------------------------------
 
-    def _blocked(self) -> _BlockedWeights:
-        """The weights laid out for the row-blocked product (built on first use)."""
-        work = self._work
-        if "blocked" not in work:
-            work["blocked"] = _BlockedWeights.build(self)
-        return work["blocked"]  # type: ignore[return-value]
+    def _workspace(self) -> _Workspace:
+        """The arrays of the row-blocked product (made on first use)."""
+        if "blocked" not in self._work:
+            self._work["blocked"] = _Workspace.build(self.shape)
+        return self._work["blocked"]
 
-    def apply(self, w: np.ndarray) -> np.ndarray:
+    def apply(self, w: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
         """K w (Pa) for a deflection *w* (m) of shape (ny, nx).
 
-        Evaluated in blocks of rows (:data:`BLOCK_ELEMENTS` nodes) so that the intermediate
-        curvatures and moments stay in cache, the blocks shared among threads (numpy
-        releases the GIL in its loops); the same arithmetic as the assembled :meth:`matrix`.
+        Evaluated in blocks of rows (:func:`~gridflex.solvers.row_blocks.block_rows`) so
+        that the intermediate curvatures and moments stay in cache, the blocks shared among
+        threads (numpy releases the GIL in its loops); the same arithmetic as the assembled
+        :meth:`matrix`. Not re-entrant: one product at a time per operator.
+
+        Parameters
+        ----------
+        w : numpy.ndarray, shape (ny, nx)
+            Deflection (m).
+        out : numpy.ndarray, shape (ny, nx), optional
+            Where to write K w (float64, C-contiguous, not *w*); a new array by default.
         """
         w = np.asarray(w, dtype=np.float64).reshape(self.shape)
-        weights = self._blocked()
+        work = self._workspace()
         ny, nx = self.shape
-        py, px = (e == "periodic" for e in self.edges)
-        # w with two ghost rows and one ghost column on each side: wrapped or zero
-        ext = weights.ext
-        ext[2:-2, 1:-1] = w
-        if py:
-            ext[:2, 1:-1] = w[-2:]
-            ext[-2:, 1:-1] = w[:2]
-        if px:
-            ext[:, 0] = ext[:, -2]
-            ext[:, -1] = ext[:, 1]
-        result = np.empty((ny, nx))
-        starts = list(range(0, ny, weights.rows))
-        if weights.pool is None or len(starts) < 2 * len(weights.buffers):
-            self._apply_chunk(weights, w, result, starts, 0)
-        else:
-            chunks = np.array_split(np.asarray(starts), len(weights.buffers))
-            futures = [
-                weights.pool.submit(self._apply_chunk, weights, w, result, chunk.tolist(), t)
-                for t, chunk in enumerate(chunks)
-            ]
-            for future in futures:
-                future.result()
+        result = np.empty((ny, nx)) if out is None else out.reshape(ny, nx)
+        for_row_blocks(
+            ny, work.rows,
+            lambda j0, j1, thread: self._apply_rows(work, w, result, j0, j1, thread),
+        )
+        if self._diagonal_nodes.size:
+            flat = result.reshape(-1)
+            flat[self._diagonal_nodes] += self._diagonal_extra * w.reshape(-1)[self._diagonal_nodes]
         return result
 
-    def _apply_chunk(
-        self, weights: _BlockedWeights, w: np.ndarray, result: np.ndarray,
-        starts: list[int], thread: int,
-    ) -> None:
-        ny, rows = self.shape[0], weights.rows
-        for j0 in starts:
-            self._apply_rows(weights, w, result, j0, min(j0 + rows, ny), thread)
+    def _ghosted_rows(self, w: np.ndarray, ext: np.ndarray, j0: int, j1: int) -> None:
+        """Node rows j0-2 .. j1+1 of w into *ext* (h + 4 rows), with one ghost column on
+        each side: wrapped along periodic axes, zero beyond other edges."""
+        ny = self.shape[0]
+        periodic_y, periodic_x = (e == "periodic" for e in self.edges)
+        lo, hi = j0 - 2, j1 + 2
+        inner_lo, inner_hi = max(lo, 0), min(hi, ny)
+        ext[inner_lo - lo : inner_hi - lo, 1:-1] = w[inner_lo:inner_hi]
+        if lo < 0:
+            ext[: -lo, 1:-1] = w[ny + lo :] if periodic_y else 0.0
+        if hi > ny:
+            ext[inner_hi - lo :, 1:-1] = w[: hi - ny] if periodic_y else 0.0
+        if periodic_x:  # (otherwise the ghost columns stay zero: never written)
+            ext[:, 0] = ext[:, -2]
+            ext[:, -1] = ext[:, 1]
 
     def _apply_rows(
-        self, weights: _BlockedWeights, w: np.ndarray, result: np.ndarray,
+        self, work: _Workspace, w: np.ndarray, result: np.ndarray,
         j0: int, j1: int, thread: int,
     ) -> None:
-        """Rows j0..j1-1 of K w, gathered from curvatures on rows j0-1..j1 and twists on
+        """Rows j0..j1-1 of K w, gathered from moments on rows j0-1..j1 and twists on
         corner rows j0..j1."""
         h = j1 - j0
-        buf = weights.buffers[thread]
+        buf = work.buffers[thread]
         a, b, mx, my, tmp = (buf[name][: h + 2] for name in ("a", "b", "mx", "my", "tmp"))
         twist = buf["twist"][: h + 1]
-        ext = weights.ext[j0 : j1 + 4]  # node rows j0-2 .. j1+1
+        ext = buf["ext"][: h + 4]  # node rows j0-2 .. j1+1
+        self._ghosted_rows(w, ext, j0, j1)
         mid = ext[1:-1, 1:-1]  # node rows j0-1 .. j1
-        np.add(ext[1:-1, 2:], ext[1:-1, :-2], out=a)
+        np.add(ext[1:-1, 2:], ext[1:-1, :-2], out=a)  # undivided curvatures
         a -= mid
         a -= mid
         np.add(ext[2:, 1:-1], ext[:-2, 1:-1], out=b)
         b -= mid
         b -= mid
-        rows = slice(j0, j1 + 2)  # in the weight arrays padded by one row
-        np.multiply(weights.xx[rows], a, out=mx)
-        np.multiply(weights.cross[rows], b, out=tmp)
+        rows = slice(j0, j1 + 2)  # in the arrays with ghost rows
+        # moments M_x = a D (w_xx + ν w_yy), M_y = a D (w_yy + ν w_xx)
+        np.multiply(b, self._cross_x, out=tmp)
+        if self._cross_y is not None:
+            tmp *= self._cross_y[rows]
+        np.multiply(a, self._cx, out=mx)
         mx += tmp
-        np.multiply(weights.yy[rows], b, out=my)
-        np.multiply(weights.cross[rows], a, out=tmp)
+        mx *= self._bend[rows]
+        np.multiply(a, self._cross_x, out=tmp)
+        if self._cross_y is not None:
+            tmp *= self._cross_y[rows]
+        np.multiply(b, self._cy[rows], out=my)
         my += tmp
+        my *= self._bend[rows]
         np.subtract(ext[2 : h + 3, 1:], ext[2 : h + 3, :-1], out=twist)
         twist -= ext[1 : h + 2, 1:]
         twist += ext[1 : h + 2, :-1]
-        twist *= weights.corner[j0 : j1 + 1]
+        twist *= self._corner[j0 : j1 + 1]
         out = result[j0:j1]
         np.add(mx[1:-1], my[1:-1], out=out)
         out *= -2.0
@@ -447,79 +426,132 @@ class PlateOperator:
         out -= twist[:-1, 1:]
         out -= twist[1:, :-1]
         out += twist[1:, 1:]
-        np.multiply(self._diagonal[j0:j1], w[j0:j1], out=tmp[:h])
+        np.multiply(ext[2 : h + 2, 1:-1], self.stiffness, out=tmp[:h])  # Δρ g w
         out += tmp[:h]
+
+    def _node_weights(self, kind: str, flat: np.ndarray) -> np.ndarray:
+        """Energy weight of the "xx", "yy" or "cross" term at flat node indices."""
+        j, i = np.divmod(flat, self.shape[1])
+        bend = self._bend[j + 1, i]
+        if kind == "xx":
+            return bend * self._cx[i]
+        if kind == "yy":
+            return bend * self._cy[j + 1, 0]
+        cross = bend * self._cross_x[i]
+        return cross if self._cross_y is None else cross * self._cross_y[j + 1, 0]
 
     # -- sparse assembly ---------------------------------------------------------------
 
-    def _node_index(self, j: np.ndarray, i: np.ndarray) -> np.ndarray:
-        """Flat node index of (j, i) (may lie one beyond the grid); -1 outside the grid."""
+    def _shifted(self, j: np.ndarray, i: np.ndarray, dj: int, di: int) -> tuple[np.ndarray, ...]:
+        """Node (j + dj, i + di): its row, column and whether it exists (periodic axes
+        wrap)."""
         ny, nx = self.shape
-        py, px = (e == "periodic" for e in self.edges)
-        if py:
-            j = np.mod(j, ny)
-        if px:
-            i = np.mod(i, nx)
-        inside = (j >= 0) & (j < ny) & (i >= 0) & (i < nx)
-        return np.where(inside, j * nx + i, -1)
-
-    def _difference(
-        self, kind: str, selected: np.ndarray, local: np.ndarray
-    ) -> tuple[sp.csr_matrix, np.ndarray]:
-        """Rows of one difference operator at the eval points that touch the selection.
-
-        Returns the operator (eval points x selected nodes) and the flat indices of its
-        eval points in their own grid (nodes for "xx", "yy"; corners for "xy").
-        """
-        ny, nx = self.shape
-        if kind == "xy":
-            taps = (((0, 0), 1.0), ((0, -1), -1.0), ((-1, 0), -1.0), ((-1, -1), 1.0))
-            eval_shape, origin = (ny + 1, nx + 1), (0, 0)
-            weight = self._w_corner
-        elif kind == "xx":
-            taps = (((0, -1), 1.0), ((0, 0), -2.0), ((0, 1), 1.0))
-            eval_shape, origin = (ny, nx), (0, 0)
-            weight = self._w_xx + self._w_cross
+        jj, ii = j + dj, i + di
+        inside = np.ones(j.shape, dtype=bool)
+        if self.edges[0] == "periodic":
+            jj %= ny
         else:
-            taps = (((-1, 0), 1.0), ((0, 0), -2.0), ((1, 0), 1.0))
-            eval_shape, origin = (ny, nx), (0, 0)
-            weight = self._w_yy + self._w_cross
-        # eval points whose stencil touches a selected node
-        sel = np.zeros(self.shape, dtype=bool)
-        sel.flat[selected] = True
-        touch = np.zeros(eval_shape, dtype=bool)
-        jj, ii = np.nonzero(sel)
-        for (oy, ox), _ in taps:
-            ej, ei = jj - oy - origin[0], ii - ox - origin[1]
-            if kind == "xy":
-                # a node touches corners (J, I) with J - 1 <= j <= J; wrap for periodic axes
-                if self.edges[0] == "periodic":
-                    ej = np.where(ej == 0, ny, ej)
-                if self.edges[1] == "periodic":
-                    ei = np.where(ei == 0, nx, ei)
-            else:
-                if self.edges[0] == "periodic":
-                    ej = np.mod(ej, ny)
-                if self.edges[1] == "periodic":
-                    ei = np.mod(ei, nx)
-            ok = (ej >= 0) & (ej < eval_shape[0]) & (ei >= 0) & (ei < eval_shape[1])
-            touch[ej[ok], ei[ok]] = True
-        touch &= weight != 0
-        ej, ei = np.nonzero(touch)
-        rows, cols, vals = [], [], []
-        for (oy, ox), coef in taps:
-            nj, ni = ej + oy + origin[0], ei + ox + origin[1]
-            node = self._node_index(nj, ni)
-            col = np.where(node >= 0, local[np.maximum(node, 0)], -1)
-            keep = col >= 0
-            rows.append(np.nonzero(keep)[0])
-            cols.append(col[keep])
-            vals.append(np.full(int(keep.sum()), coef))  # undivided: weights carry 1/h^4
-        op = sp.csr_matrix(
-            (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
-            shape=(ej.size, selected.size),
+            inside &= (jj >= 0) & (jj < ny)
+        if self.edges[1] == "periodic":
+            ii %= nx
+        else:
+            inside &= (ii >= 0) & (ii < nx)
+        return np.where(inside, jj, 0), np.where(inside, ii, 0), inside
+
+    def _weight_at(self, kind: str, j: np.ndarray, i: np.ndarray, dj: int, di: int) -> np.ndarray:
+        """Energy weight of the "xx", "yy" or "cross" term at node (j + dj, i + di); 0
+        where that node does not exist."""
+        jj, ii, inside = self._shifted(j, i, dj, di)
+        return self._node_weights(kind, jj * self.shape[1] + ii) * inside
+
+    def _stencil(self, nodes: np.ndarray) -> tuple[list[tuple[int, int]], list[np.ndarray]]:
+        """The 13 coefficients of K's rows at *nodes*, by offset (dj, di) of the column.
+
+        Each term of the energy contributes w_e c_s c_t to K[s, t] for every evaluation
+        point e whose difference stencil holds both s and t (c: the stencil's taps); the
+        sums are written out per offset, so that a row costs a few gathers.
+        """
+        j, i = np.divmod(nodes, self.shape[1])
+        xx = {d: self._weight_at("xx", j, i, 0, d) for d in (-1, 0, 1)}
+        yy = {d: self._weight_at("yy", j, i, d, 0) for d in (-1, 0, 1)}
+        cross = {(dj, di): self._weight_at("cross", j, i, dj, di)
+                 for dj, di in ((0, 0), (0, -1), (0, 1), (-1, 0), (1, 0))}
+        # twist weights of the four corners round node (j, i): corner (J, I) lies between
+        # nodes (J - 1, I - 1) and (J, I)
+        corner = {(dj, di): self._corner[j + dj, i + di] for dj in (0, 1) for di in (0, 1)}
+        offsets: list[tuple[int, int]] = []
+        values: list[np.ndarray] = []
+
+        def add(offset: tuple[int, int], value: np.ndarray) -> None:
+            offsets.append(offset)
+            values.append(value)
+
+        add((0, 0), xx[-1] + 4.0 * xx[0] + xx[1] + yy[-1] + 4.0 * yy[0] + yy[1]
+            + 8.0 * cross[0, 0] + corner[0, 0] + corner[0, 1] + corner[1, 0] + corner[1, 1])
+        add((0, 1), -2.0 * (xx[0] + xx[1] + cross[0, 0] + cross[0, 1])
+            - corner[0, 1] - corner[1, 1])
+        add((0, -1), -2.0 * (xx[0] + xx[-1] + cross[0, 0] + cross[0, -1])
+            - corner[0, 0] - corner[1, 0])
+        add((1, 0), -2.0 * (yy[0] + yy[1] + cross[0, 0] + cross[1, 0])
+            - corner[1, 0] - corner[1, 1])
+        add((-1, 0), -2.0 * (yy[0] + yy[-1] + cross[0, 0] + cross[-1, 0])
+            - corner[0, 0] - corner[0, 1])
+        add((0, 2), xx[1])
+        add((0, -2), xx[-1])
+        add((2, 0), yy[1])
+        add((-2, 0), yy[-1])
+        for dj in (-1, 1):
+            for di in (-1, 1):
+                twist = corner[max(dj, 0), max(di, 0)]
+                add((dj, di), cross[0, di] + cross[dj, 0] + twist)
+        return offsets, values
+
+    def rows(self, nodes: np.ndarray, columns: np.ndarray | None = None) -> sp.csr_matrix:
+        """Rows *nodes* of K, restricted to the node set *columns*, as a sparse matrix.
+
+        Parameters
+        ----------
+        nodes : numpy.ndarray of int
+            Flat node indices (row-major over (ny, nx)) of the rows.
+        columns : numpy.ndarray of int, optional
+            Sorted flat indices of the columns kept; all nodes by default.
+
+        Returns
+        -------
+        scipy.sparse.csr_matrix
+            Shape (len(nodes), len(columns)); entries in columns outside *columns* are
+            dropped, explicit zeros too.
+        """
+        nodes = np.asarray(nodes, dtype=np.int64)
+        n_all = self.rigidity.size
+        j, i = np.divmod(nodes, self.shape[1])
+        offsets, values = self._stencil(nodes)
+        extra = np.zeros(nodes.size)
+        hit = np.isin(nodes, self._diagonal_nodes)
+        if hit.any():
+            position = np.searchsorted(self._diagonal_nodes, nodes[hit])
+            extra[hit] = self._diagonal_extra[position]
+        values[0] = values[0] + self.stiffness + extra
+        local = None
+        if columns is not None:  # global node index -> position in *columns*, or -1
+            local = np.full(n_all, -1, dtype=np.int64 if n_all >= 2**31 else np.int32)
+            local[columns] = np.arange(columns.size)
+        row_parts, col_parts, val_parts = [], [], []
+        for (dj, di), value in zip(offsets, values, strict=True):
+            jj, ii, inside = self._shifted(j, i, dj, di)
+            column = jj * self.shape[1] + ii
+            if local is not None:
+                column = local[column]
+                inside &= column >= 0
+            keep = inside & (value != 0)
+            row_parts.append(np.flatnonzero(keep))
+            col_parts.append(column[keep])
+            val_parts.append(value[keep])
+        width = n_all if columns is None else columns.size
+        return sp.csr_matrix(
+            (np.concatenate(val_parts), (np.concatenate(row_parts), np.concatenate(col_parts))),
+            shape=(nodes.size, width),
         )
-        return op, ej * eval_shape[1] + ei
 
     def matrix(self, nodes: np.ndarray | None = None) -> sp.csr_matrix:
         """K, or its principal sub-matrix on *nodes*, as a sparse matrix.
@@ -535,22 +567,7 @@ class PlateOperator:
             Symmetric, shape (len(nodes), len(nodes)); ``matrix() @ w.ravel()`` equals
             ``apply(w).ravel()``.
         """
-        n_all = self.rigidity.size
-        selected = np.arange(n_all) if nodes is None else np.asarray(nodes, dtype=np.int64)
-        local = np.full(n_all, -1, dtype=np.int64)
-        local[selected] = np.arange(selected.size)
-        nu = self.poisson_ratio
-        bxx, exx = self._difference("xx", selected, local)
-        byy, eyy = self._difference("yy", selected, local)
-        bxy, exy = self._difference("xy", selected, local)
-        k = bxx.T @ sp.diags(self._w_xx.ravel()[exx]) @ bxx
-        k = k + byy.T @ sp.diags(self._w_yy.ravel()[eyy]) @ byy
-        k = k + bxy.T @ sp.diags(self._w_corner.ravel()[exy]) @ bxy
-        if nu:
-            # cross term on the eval nodes common to both operators
-            common, ix, iy = np.intersect1d(exx, eyy, assume_unique=True, return_indices=True)
-            cross = sp.diags(self._w_cross.ravel()[common])
-            half = bxx[ix].T @ cross @ byy[iy]
-            k = k + half + half.T
-        k = k + sp.diags(self._diagonal.ravel()[selected])
-        return sp.csr_matrix(k)
+        if nodes is None:
+            return self.rows(np.arange(self.rigidity.size))
+        nodes = np.asarray(nodes, dtype=np.int64)
+        return self.rows(nodes, nodes)

@@ -27,29 +27,20 @@ import scipy.fft
 import scipy.ndimage
 import scipy.sparse.linalg as spla
 
+from .fft_buffers import RealFFT2
 from .plate_operator import PlateOperator
+from .row_blocks import block_rows, dot, for_row_blocks, thread_count
 
 __all__ = [
     "BandSolver",
     "BlendPreconditioner",
     "MultiplicativePreconditioner",
-    "SHARP_RATIO",
     "discrete_symbol",
     "rigidity_scaling",
-    "sharp_band",
-    "sharp_nodes",
-    "steep_nodes",
+    "smooth_like_gaussian",
 ]
 
 log = logging.getLogger(__name__)
-
-SHARP_RATIO = 10.0
-"""A node is sharp when rigidity differs more than this factor within its 3 x 3 neighbourhood,
-or within :data:`STEEP_WINDOW` flexural parameters along x or y."""
-
-STEEP_WINDOW = 1.0
-"""Half-width of the window for steep (not sharp) rigidity changes, in flexural parameters
-of the smallest non-zero rigidity."""
 
 LEVEL_SPACING = 1000.0
 """Largest rigidity ratio between neighbouring blend levels: 2 levels for a 1000-fold range
@@ -83,18 +74,20 @@ def rigidity_scaling(ratio: float) -> float:
 
 
 SINGLE_PRECISION_FFT = True
-"""Start with the blend's FFTs in single precision (about 1.5 times as fast). The conjugate
-gradients use the flexible (Polak-Ribière) update, which tolerates the slightly inexact
-preconditioner, and the blend switches to double precision once the relative residual is
-below :data:`SINGLE_PRECISION_UNTIL` (single precision alone stalls near 1e-8 on fine grids:
-seen on a 1024² grid of 1 km cells)."""
-
-SINGLE_PRECISION_UNTIL = 1e-4
-"""Relative residual below which the blend's FFTs run in double precision."""
+"""Run the blend's FFTs in single precision (about 1.5 times as fast as double, half the
+memory traffic). The conjugate gradients use the flexible (Polak-Ribière) update, which
+tolerates the slightly inexact preconditioner; if the iteration ever needs a restart (true
+residual above the tolerance when the recurrence says it converged), the blend switches to
+double precision (:meth:`MultiplicativePreconditioner.use_double_precision`). Measured on
+the six cases of tests/benchmarks/variable.py at 1024² of 2 km: the same iteration counts
+and final residuals in single precision throughout as with a switch to double below a
+relative residual of 1e-4 (an earlier rule). On 1 km cells both stall at the same level,
+which is the round-off floor of the operator, not the FFT precision."""
 
 WEIGHT_SMOOTHING = 1.5
-"""Gaussian smoothing of log D before the blend weights are taken, in flexural parameters
-of the smallest level (measured: 33 -> 30 iterations on the margin above)."""
+"""Smoothing of log D before the blend weights are taken (standard deviation of the
+near-Gaussian kernel of :func:`smooth_like_gaussian`), in flexural parameters of the
+smallest level (measured with a Gaussian: 33 -> 30 iterations on the margin above)."""
 
 
 def discrete_symbol(shape: tuple[int, int], dy: float, dx: float) -> np.ndarray:
@@ -107,6 +100,91 @@ def discrete_symbol(shape: tuple[int, int], dy: float, dx: float) -> np.ndarray:
     sy = (4.0 / dy**2) * np.sin(np.pi * scipy.fft.fftfreq(ny)) ** 2
     sx = (4.0 / dx**2) * np.sin(np.pi * scipy.fft.rfftfreq(nx)) ** 2
     return sy[:, None] + sx[None, :]
+
+
+def _box_passes(sigma: float) -> int:
+    """Odd width (cells) of a box filter whose three passes have variance *sigma*² (the
+    variance of one pass of width w is (w² − 1) / 12)."""
+    width = math.sqrt(4.0 * sigma**2 + 1.0)
+    return max(1, 2 * round(0.5 * (width - 1.0)) + 1)
+
+
+def smooth_like_gaussian(
+    values: np.ndarray, sigma: tuple[float, float], modes: tuple[str, str]
+) -> np.ndarray:
+    """Smooth a grid with three passes of a box filter per axis (close to a Gaussian of
+    standard deviation *sigma*, in cells, per axis; cost independent of *sigma*).
+
+    Parameters
+    ----------
+    values : numpy.ndarray, shape (ny, nx)
+        The grid (float32 or float64); smoothed in place.
+    sigma : tuple of float
+        Standard deviation along y and x (cells).
+    modes : tuple of str
+        :mod:`scipy.ndimage` boundary mode along y and x ("wrap" or "nearest").
+
+    Returns
+    -------
+    numpy.ndarray
+        *values*, smoothed.
+    """
+    spare = np.empty_like(values)
+    for axis in (0, 1):
+        width = _box_passes(sigma[axis])
+        if width < 2:
+            continue
+        for _ in range(3):
+            scipy.ndimage.uniform_filter1d(values, width, axis, output=spare, mode=modes[axis])
+            values, spare = spare, values
+    return values
+
+
+def _level_weights(
+    operator: PlateOperator, levels: np.ndarray, plate: np.ndarray, band: np.ndarray | None
+) -> list[np.ndarray]:
+    """Blend weights C_l (float32) of two or more rigidity levels.
+
+    A cos/sin partition of unity in smoothed log D (smoothing :data:`WEIGHT_SMOOTHING`
+    flexural parameters of the smallest level), each weight times the diagonal scaling
+    (D_l / D)^(p/2) (:data:`RIGIDITY_SCALING`); zero where D = 0 and on the band.
+    """
+    rigidity = operator.rigidity
+    count = levels.size
+    log_low, log_high = math.log(levels[0]), math.log(levels[-1])
+    logd = np.full(operator.shape, log_low, dtype=np.float32)
+    np.log(rigidity, out=logd, where=plate, casting="same_kind")
+    # weights follow log D smoothed over a fraction of the smallest flexural parameter: a
+    # smoother partition of unity commutes better with the solves
+    alpha = (4.0 * levels[0] / operator.stiffness) ** 0.25
+    if WEIGHT_SMOOTHING > 0:
+        modes = tuple("wrap" if e == "periodic" else "nearest" for e in operator.edges)
+        sigma = (WEIGHT_SMOOTHING * alpha / operator.dy, WEIGHT_SMOOTHING * alpha / operator.dx)
+        logd = smooth_like_gaussian(logd, sigma, modes)  # type: ignore[arg-type]
+    scaling = rigidity_scaling(float(levels[1] / levels[0]))
+    weights = [np.zeros(operator.shape, dtype=np.float32) for _ in range(count)]
+    ny, nx = operator.shape
+
+    def work(j0: int, j1: int, _thread: int) -> None:
+        block = logd[j0:j1]
+        u = (block - log_low) * ((count - 1) / (log_high - log_low))
+        np.clip(u, 0.0, count - 1, out=u)
+        base = np.minimum(np.floor(u), count - 2)
+        angle = (u - base) * (0.5 * np.pi)
+        cos, sin = np.cos(angle), np.sin(angle)
+        on_plate = plate[j0:j1]
+        for level in range(count):
+            c = np.where(base == level, cos, 0.0)
+            c += np.where(base == level - 1, sin, 0.0)
+            # diagonal scaling towards 1 / D at short wavelengths (RIGIDITY_SCALING)
+            c *= np.exp(0.5 * scaling * (math.log(levels[level]) - block))
+            np.multiply(c, on_plate, out=weights[level][j0:j1], casting="same_kind")
+
+    for_row_blocks(ny, block_rows(nx, ny), work)
+    if band is not None and band.size:
+        for c in weights:
+            c.flat[band] = 0.0
+    return weights
 
 
 @dataclass(eq=False)
@@ -126,11 +204,19 @@ class BlendPreconditioner:
     fft_shape: tuple[int, int]
     _shape: tuple[int, int]
     _weights: list[np.ndarray | None]
-    _transfer: list[np.ndarray]
     _local: np.ndarray | None
     _transfer_single: list[np.ndarray]
+    _spacing: tuple[float, float]
+    _stiffness: float
     single: bool = SINGLE_PRECISION_FFT
-    _buffers: dict[np.dtype, np.ndarray] = field(default_factory=dict, repr=False)
+    _transfer: list[np.ndarray] = field(default_factory=list, repr=False)
+    _ffts: dict[np.dtype, list[RealFFT2]] = field(default_factory=dict, repr=False)
+    _tmp: list[np.ndarray] = field(default_factory=list, repr=False)
+
+    def __post_init__(self) -> None:
+        ny, nx = self._shape
+        rows = block_rows(nx, ny)
+        self._tmp = [np.empty((rows, nx)) for _ in range(thread_count())]
 
     @classmethod
     def build(
@@ -157,212 +243,144 @@ class BlendPreconditioner:
             n if edge == "periodic" else scipy.fft.next_fast_len(n, real=True)
             for n, edge in zip(shape, operator.edges, strict=True)
         )
+        spacing, stiffness = (operator.dy, operator.dx), operator.stiffness
         plate = rigidity > 0
+        all_plate = bool(plate.all())
         local = None
-        if not plate.all():
+        if not all_plate:
             local = np.where(plate, 0.0, 1.0 / (operator.area * operator.stiffness))
             if band is not None:
                 local.flat[band] = 0.0
         # the levels span the rigidity where the blend acts: outside the band (inside it
         # the weights are zero); measured on the weak zone of tests/benchmarks/variable.py,
         # whose band holds all the weak plate: 2 levels -> 1, one FFT pair less per iteration
-        acting = plate.copy()
-        if band is not None:
+        acting = plate if band is None or band.size == 0 else plate.copy()
+        if band is not None and band.size:
             acting.flat[band] = False
-        positive = rigidity[acting] if acting.any() else rigidity[plate]
-        if positive.size == 0:
-            return cls(np.zeros(0), fft_shape, shape, [], [], local, [], False)
-        lo, hi = math.log(positive.min()), math.log(positive.max())
+        if not acting.any():
+            acting = plate
+        if not acting.any():
+            return cls(np.zeros(0), fft_shape, shape, [], local, [], spacing, stiffness, False)
+        lo = math.log(float(np.min(rigidity, where=acting, initial=np.inf)))
+        hi = math.log(float(np.max(rigidity, where=acting, initial=0.0)))
         count = 1 + math.ceil((hi - lo) / math.log(LEVEL_SPACING) - 1e-6) if hi > lo else 1
-        levels = np.exp(np.linspace(lo, hi, count)) if count > 1 else np.array([positive.max()])
-        weights: list[np.ndarray | None] = []
+        levels = np.exp(np.linspace(lo, hi, count)) if count > 1 else np.array([math.exp(hi)])
         if levels.size == 1:
-            single = plate.astype(np.float64)
-            if band is not None:
-                single.flat[band] = 0.0
-            weights = [None if plate.all() and (band is None or band.size == 0) else single]
-        else:
-            logd = np.log(np.where(plate, rigidity, levels[0]))
-            # weights follow log D smoothed over a fraction of the smallest flexural
-            # parameter: a smoother partition of unity commutes better with the solves
-            alpha = (4.0 * levels[0] / operator.stiffness) ** 0.25
-            sigma = (WEIGHT_SMOOTHING * alpha / operator.dy, WEIGHT_SMOOTHING * alpha / operator.dx)
-            modes = ["wrap" if e == "periodic" else "nearest" for e in operator.edges]
-            if WEIGHT_SMOOTHING > 0:
-                logd = scipy.ndimage.gaussian_filter(logd, sigma, mode=modes, truncate=3.0)
-            u = (logd - math.log(levels[0])) / (math.log(levels[-1]) - math.log(levels[0]))
-            u = np.clip(u * (levels.size - 1), 0.0, levels.size - 1)
-            base = np.minimum(np.floor(u), levels.size - 2)
-            frac = u - base
-            scaling = rigidity_scaling(float(levels[1] / levels[0]))
-            for level in range(levels.size):
-                c = np.where(base == level, np.cos(0.5 * np.pi * frac), 0.0)
-                c += np.where(base == level - 1, np.sin(0.5 * np.pi * frac), 0.0)
-                # diagonal scaling towards 1 / D at short wavelengths (RIGIDITY_SCALING)
-                c *= np.exp(0.5 * scaling * (math.log(levels[level]) - logd))
-                c[~plate] = 0.0
+            if all_plate and (band is None or band.size == 0):
+                weights: list[np.ndarray | None] = [None]
+            else:
+                single = plate.astype(np.float32)
                 if band is not None:
-                    c.flat[band] = 0.0
-                weights.append(c)
+                    single.flat[band] = 0.0
+                weights = [single]
+        else:
+            weights = list(_level_weights(operator, levels, plate, band))
+        used = [i for i, c in enumerate(weights) if c is None or c.any()]
         symbol = discrete_symbol(fft_shape, operator.dy, operator.dx)
         symbol *= symbol
-        transfer = [1.0 / (level * symbol + operator.stiffness) for level in levels]
-        used = [i for i, c in enumerate(weights) if c is None or np.any(c)]
-        kept = [transfer[i] for i in used]
+        transfer_single = []
+        for level in levels[used]:
+            transfer = np.multiply(symbol, level, dtype=np.float32)
+            transfer += np.float32(operator.stiffness)
+            transfer_single.append(np.reciprocal(transfer, out=transfer))
         return cls(
-            levels[used], fft_shape, shape, [weights[i] for i in used], kept, local,
-            [t.astype(np.float32) for t in kept], SINGLE_PRECISION_FFT,
+            levels[used], fft_shape, shape, [weights[i] for i in used], local,
+            transfer_single, spacing, stiffness, SINGLE_PRECISION_FFT,
         )
 
-    def _spectral(
-        self, residual: np.ndarray, weight: np.ndarray | None, transfer: np.ndarray
-    ) -> np.ndarray:
-        """P_l (C_l r) on the node grid, in the transfer function's precision."""
-        ny, nx = self._shape
-        buffer = self._buffers.get(transfer.dtype)
-        if buffer is None:  # zero padding stays zero: only [:ny, :nx] is ever written
-            buffer = self._buffers[transfer.dtype] = np.zeros(self.fft_shape, transfer.dtype)
-        if weight is None:
-            buffer[:ny, :nx] = residual
-        else:
-            np.multiply(weight, residual, out=buffer[:ny, :nx], casting="same_kind")
-        spectrum = scipy.fft.rfft2(buffer, workers=-1)
-        spectrum *= transfer
-        out = scipy.fft.irfft2(spectrum, s=self.fft_shape, workers=-1, overwrite_x=True)
-        return out[:ny, :nx]
+    @property
+    def _transfer_double(self) -> list[np.ndarray]:
+        """The transfer functions 1 / (D_l s² + Δρ g) in double precision (made on first
+        use: the blend runs in single precision unless the iteration stalls)."""
+        if not self._transfer:
+            symbol = discrete_symbol(self.fft_shape, *self._spacing)
+            symbol *= symbol
+            self._transfer = [1.0 / (level * symbol + self._stiffness) for level in self.levels]
+        return self._transfer
 
-    def apply(self, residual: np.ndarray) -> np.ndarray:
-        """Approximate K⁻¹ r (m) for a residual *r* (Pa) of shape (ny, nx)."""
-        out = np.zeros(self._shape) if self._local is None else self._local * residual
-        transfers = self._transfer_single if self.single else self._transfer
-        work = None
-        for weight, transfer in zip(self._weights, transfers, strict=True):
-            solved = self._spectral(residual, weight, transfer)
-            if weight is None:
-                out += solved
+    def _ffts_now(self) -> list[RealFFT2]:
+        """One set of FFT arrays per level, in the current precision (made on first use)."""
+        dtype = np.dtype(np.float32 if self.single else np.float64)
+        ffts = self._ffts.get(dtype)
+        if ffts is None:
+            ffts = self._ffts[dtype] = [RealFFT2(self.fft_shape, dtype) for _ in self.levels]
+        return ffts
+
+    def apply(self, residual: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        """Approximate K⁻¹ r (m) for a residual *r* (Pa) of shape (ny, nx).
+
+        One pass over memory writes C_l r for every level, each level is transformed,
+        divided by its symbol and transformed back, and one more pass sums C_l (P_l C_l r)
+        (plus the local term of broken nodes).
+
+        Parameters
+        ----------
+        residual : numpy.ndarray, shape (ny, nx)
+            r (Pa), float64.
+        out : numpy.ndarray, shape (ny, nx), optional
+            Where to write the result (float64, not *residual*); a new array by default.
+        """
+        ny, nx = self._shape
+        out = np.empty(self._shape) if out is None else out.reshape(self._shape)
+        r = residual.reshape(self._shape)
+        local = self._local
+        if not self._weights:
+            if local is None:
+                out[...] = 0.0
             else:
-                work = np.multiply(weight, solved, out=work)
-                out += work
+                np.multiply(local, r, out=out)
+            return out
+        ffts = self._ffts_now()
+        transfers = self._transfer_single if self.single else self._transfer_double
+        pairs = list(zip(self._weights, ffts, strict=True))
+        rows = block_rows(nx, ny)
+
+        def fill(j0: int, j1: int, _thread: int) -> None:
+            rb = r[j0:j1]
+            for weight, fft in pairs:
+                target = fft.real[j0:j1, :nx]
+                if weight is None:
+                    target[...] = rb
+                else:
+                    np.multiply(weight[j0:j1], rb, out=target, casting="same_kind")
+
+        def gather(j0: int, j1: int, thread: int) -> None:
+            target = out[j0:j1]
+            tmp = self._tmp[thread][: j1 - j0]
+            for level, (weight, fft) in enumerate(pairs):
+                solved = fft.real[j0:j1, :nx]
+                destination = target if level == 0 else tmp
+                if weight is None:
+                    destination[...] = solved
+                else:
+                    np.multiply(weight[j0:j1], solved, out=destination)
+                if level:
+                    target += tmp
+            if local is not None:
+                np.multiply(local[j0:j1], r[j0:j1], out=tmp)
+                target += tmp
+
+        for_row_blocks(ny, rows, fill)
+        for fft, transfer in zip(ffts, transfers, strict=True):
+            fft.forward()
+            spectrum = fft.spectrum
+            for_row_blocks(
+                spectrum.shape[0], block_rows(spectrum.shape[1], spectrum.shape[0]),
+                lambda j0, j1, _t, s=spectrum, t=transfer: np.multiply(
+                    s[j0:j1], t[j0:j1], out=s[j0:j1]),
+            )
+            fft.inverse()
+        for_row_blocks(ny, rows, gather)
+        if self.fft_shape != self._shape:  # the zero padding of the next fill must be zero
+            for fft in ffts:
+                fft.real[ny:] = 0.0
+                fft.real[:ny, nx:] = 0.0
         return out
 
 
 BAND_RESIDUAL_NEGLIGIBLE = 1e-3
 """Relative size ||r_B|| / ||r|| of the residual on the band below which the first band
 solve of :class:`MultiplicativePreconditioner` is skipped."""
-
-MAX_FACTOR_BYTES = 1.5 * 2**30
-"""Cap on the estimated memory of the band's LU factors (bytes)."""
-
-FACTOR_BYTES_PER_NODE_CELL = 60.0
-"""Estimated LU factor memory per band node and per node across the band (bytes): COLAMD
-fill measured at 3-5 non-zeros per node per cell of band width, 12 bytes each. The symmetric
-ordering now used fills less (22 M against 36 M entries on the benchmark's step at 1024²),
-so the estimate errs on the safe side."""
-
-
-def steep_nodes(operator: PlateOperator, sharp: np.ndarray | None = None) -> np.ndarray:
-    """Nodes where the rigidity changes more than :data:`SHARP_RATIO` within one flexural
-    parameter (of the smallest non-zero rigidity) in x or y, away from *sharp* nodes (a
-    sharp jump is steep all round; its own band covers that).
-
-    A smooth but steep margin (Te 60 -> 10 km over 120 km) is as hard for the blend as a
-    step: measured 75 iterations without the band, 25 with it.
-    """
-    rigidity = operator.rigidity
-    plate = rigidity > 0
-    if not plate.any():
-        return np.zeros(rigidity.shape, dtype=bool)
-    positive = rigidity[plate]
-    alpha = STEEP_WINDOW * (4.0 * float(positive.min()) / operator.stiffness) ** 0.25
-    filled = np.where(plate, rigidity, positive.max())
-    steep = np.zeros(rigidity.shape, dtype=bool)
-    for axis, (edge, h) in enumerate(zip(operator.edges, (operator.dy, operator.dx), strict=True)):
-        size = [1, 1]
-        size[axis] = 2 * int(alpha / h) + 1
-        mode = "wrap" if edge == "periodic" else "nearest"
-        high = scipy.ndimage.maximum_filter(filled, size=size, mode=mode)
-        low = scipy.ndimage.minimum_filter(filled, size=size, mode=mode)
-        found = high > SHARP_RATIO * low
-        if sharp is not None:
-            found &= ~scipy.ndimage.maximum_filter(sharp, size=size, mode=mode)
-        steep |= found
-    return steep
-
-
-def sharp_nodes(operator: PlateOperator) -> np.ndarray:
-    """The sharp nodes of :func:`sharp_band`, before widening (bool, shape (ny, nx))."""
-    rigidity = operator.rigidity
-    modes = ["wrap" if e == "periodic" else "nearest" for e in operator.edges]
-    high = rigidity
-    low = rigidity
-    for axis, mode in enumerate(modes):
-        size = [1, 1]
-        size[axis] = 3
-        high = scipy.ndimage.maximum_filter(high, size=size, mode=mode)
-        low = scipy.ndimage.minimum_filter(low, size=size, mode=mode)
-    sharp = high > SHARP_RATIO * low
-    sharp |= steep_nodes(operator, sharp)
-    if operator.edges[0] != "periodic":
-        sharp[[0, -1], :] = True
-    if operator.edges[1] != "periodic":
-        sharp[:, [0, -1]] = True
-    return sharp
-
-
-def sharp_band(
-    operator: PlateOperator, width: float, max_nodes: int, sharp: np.ndarray | None = None
-) -> tuple[np.ndarray, float, np.ndarray]:
-    """Nodes within *width* (m) of a sharp feature; the width shrinks to respect *max_nodes*.
-
-    Sharp: the rigidity in the 3 x 3 neighbourhood varies by more than :data:`SHARP_RATIO`
-    (a zero next to a non-zero value counts), or it does so within a flexural parameter
-    (:func:`steep_nodes`), or the node lies on a non-periodic grid edge.
-
-    Parameters
-    ----------
-    operator : PlateOperator
-        The operator whose rigidity and edges define the features.
-    width : float
-        Distance (m) by which the sharp nodes are widened.
-    max_nodes : int
-        Cap on the band size. The width is halved until the band fits, in nodes and in the
-        estimated memory of its LU factors (:data:`MAX_FACTOR_BYTES`), down to one
-        spacing; if even that does not fit, the band is empty and the blend works alone.
-    sharp : numpy.ndarray of bool, optional
-        The sharp nodes if already found (:func:`sharp_nodes`).
-
-    Returns
-    -------
-    nodes : numpy.ndarray of int
-        Sorted flat indices of the band.
-    width : float
-        The width used (m); 0 when the band was dropped or there is no sharp feature.
-    sharp : numpy.ndarray of bool, shape (ny, nx)
-        The sharp nodes before widening.
-    """
-    if sharp is None:
-        sharp = sharp_nodes(operator)
-    if not sharp.any():
-        return np.zeros(0, dtype=np.int64), 0.0, sharp
-    distance = scipy.ndimage.distance_transform_edt(~sharp, sampling=(operator.dy, operator.dx))
-    minimum = max(operator.dx, operator.dy)
-    width = max(float(width), minimum)
-    spacing = min(operator.dx, operator.dy)
-    while True:
-        band = distance <= width
-        count = int(band.sum())
-        factor_bytes = FACTOR_BYTES_PER_NODE_CELL * count * (2.0 * width / spacing + 1.0)
-        if count <= max_nodes and factor_bytes <= MAX_FACTOR_BYTES:
-            return np.flatnonzero(band), width, sharp
-        if width <= minimum:
-            break
-        width = max(0.5 * width, minimum)
-    log.warning(
-        "the sharp features alone (%d nodes, about %.1f GiB of LU factors) exceed the band "
-        "cap (%d nodes, %.1f GiB); solving without the band (more iterations)",
-        count, factor_bytes / 2**30, max_nodes, MAX_FACTOR_BYTES / 2**30,
-    )
-    return np.zeros(0, dtype=np.int64), 0.0, sharp
 
 
 @dataclass(eq=False)
@@ -392,9 +410,8 @@ class BandSolver:
         band.flat[nodes] = 1
         modes = ["wrap" if e == "periodic" else "constant" for e in operator.edges]
         around = np.flatnonzero(scipy.ndimage.maximum_filter(band, size=5, mode=modes))
-        k_around = operator.matrix(around)
         position = np.searchsorted(around, nodes)
-        k_rows = k_around[position, :].tocsr()  # row slices are cheap in CSR
+        k_rows = operator.rows(nodes, around)  # K[B, C]: the band's rows are inside C
         k_columns = k_rows.T.tocsr()  # K is symmetric: K[C, B] = K[B, C]^T
         # K_BB is symmetric positive definite: a symmetric fill-reducing ordering with
         # diagonal pivots (measured on the step of tests/benchmarks/variable.py at 1024²:
@@ -446,10 +463,16 @@ class MultiplicativePreconditioner:
     operator: PlateOperator
     blend: BlendPreconditioner
     band: BandSolver
-    switch_norm: float = 0.0
-    """Residual norm below which the blend runs in double precision (0: from the start)."""
 
-    def apply(self, residual: np.ndarray) -> np.ndarray:
+    def use_double_precision(self) -> None:
+        """Run the blend's FFTs in double precision from now on."""
+        if self.blend.single:
+            self.blend.single = False
+            log.debug("blend FFTs now in double precision")
+
+    def apply(
+        self, residual: np.ndarray, out: np.ndarray | None = None, norm: float | None = None
+    ) -> np.ndarray:
         """Preconditioned residual z (m) for a residual r (Pa).
 
         When r is (to :data:`BAND_RESIDUAL_NEGLIGIBLE`) zero on the band, z₁ = B r vanishes
@@ -460,20 +483,27 @@ class MultiplicativePreconditioner:
         arithmetic to the symmetric form (Tang, Nabben, Vuik & Erlangga 2009, J. Sci.
         Comput. 39, "Comparison of two-level preconditioners derived from deflation,
         domain decomposition and multigrid methods"; recalled from memory).
+
+        Parameters
+        ----------
+        residual : numpy.ndarray, shape (ny, nx)
+            r (Pa).
+        out : numpy.ndarray, shape (ny, nx), optional
+            Where to write z (float64, not *residual*); a new array by default.
+        norm : float, optional
+            ||r||₂ if known (to test whether the residual on the band is negligible).
         """
-        norm = float(np.linalg.norm(residual))
-        if self.blend.single and norm < self.switch_norm:
-            self.blend.single = False
-            log.debug("blend FFTs now in double precision")
+        if norm is None:
+            norm = math.sqrt(dot(residual, residual))
         band = self.band
         if band.size == 0:
-            return self.blend.apply(residual)
+            return self.blend.apply(residual, out)
         on_band = residual.ravel()[band.nodes]
-        if float(np.linalg.norm(on_band)) <= BAND_RESIDUAL_NEGLIGIBLE * norm:
-            z = self.blend.apply(residual)  # the blend's weights are zero on the band
+        if math.sqrt(dot(on_band, on_band)) <= BAND_RESIDUAL_NEGLIGIBLE * norm:
+            z = self.blend.apply(residual, out)  # the blend's weights are zero on the band
         else:
             first = band.solve_band(on_band)
-            z = self.blend.apply(band.subtract_product(residual, first))
+            z = self.blend.apply(band.subtract_product(residual, first), out)
             z.flat[band.nodes] += first
         z.flat[band.nodes] += band.solve_band(band.residual_band(residual, z))
         return z

@@ -1,0 +1,231 @@
+"""Where a rigidity grid is too rough for the blended spectral preconditioner.
+
+Finds the sharp nodes (rigidity jumping more than :data:`SHARP_RATIO` between neighbours,
+zero-rigidity breaks, steep smooth changes, non-periodic grid edges), the width of the
+exact-solve band they need, and the band itself (:func:`sharp_band`). The tests run on a
+float32 copy of the rigidity: they compare ratios of ten, for which its precision is ample,
+and it halves the memory the filters stream.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.ndimage
+
+from .plate_operator import PlateOperator
+
+__all__ = [
+    "BAND_FLEXURAL_PARAMETERS",
+    "BREAK_FLEXURAL_PARAMETERS",
+    "FACTOR_BYTES_PER_NODE_CELL",
+    "MAX_FACTOR_BYTES",
+    "SHARP_RATIO",
+    "STEEP_FLEXURAL_PARAMETERS",
+    "STEEP_WINDOW",
+    "SharpFeatures",
+    "find_sharp_features",
+    "sharp_band",
+]
+
+log = logging.getLogger(__name__)
+
+SHARP_RATIO = 10.0
+"""A node is sharp when rigidity differs more than this factor within its 3 x 3 neighbourhood,
+or within :data:`STEEP_WINDOW` flexural parameters along x or y."""
+
+STEEP_WINDOW = 1.0
+"""Half-width of the window for steep (not sharp) rigidity changes, in flexural parameters
+of the smallest non-zero rigidity. A smooth but steep margin (Te 60 -> 10 km over 120 km) is
+as hard for the blend as a step: measured 75 iterations without the band, 25 with it."""
+
+BAND_FLEXURAL_PARAMETERS = 3.0
+"""Width of the exact-solve band round a rigidity jump, in flexural parameters of its weak
+side (the smallest non-zero rigidity next to the jump). Measured on the step of
+tests/benchmarks/variable.py at 1024²: 2 -> 28 iterations, 3 -> 21, 4 -> 19; narrowing only
+the stiff side to half the width, 33 iterations, only the weak side, 26 (both dearer
+overall than 3 on both sides)."""
+
+STEEP_FLEXURAL_PARAMETERS = 1.0
+"""Width of the band round a steep but smooth rigidity change, and round non-periodic grid
+edges, in flexural parameters of its weak side (measured on a Te 60 -> 10 km margin 120 km
+wide: 25 iterations; 75 without a band)."""
+
+BREAK_FLEXURAL_PARAMETERS = 0.35
+"""Width of the band round breaks (zero rigidity), in flexural parameters of the adjacent
+plate (measured on a hinge line crossing a 512² grid of 2 km cells: 1 -> 7 iterations,
+0.5 -> 12, 0.25 -> 17; the narrower band is cheaper overall)."""
+
+MAX_FACTOR_BYTES = 1.5 * 2**30
+"""Cap on the estimated memory of the band's LU factors (bytes)."""
+
+FACTOR_BYTES_PER_NODE_CELL = 60.0
+"""Estimated LU factor memory per band node and per node across the band (bytes): COLAMD
+fill measured at 3-5 non-zeros per node per cell of band width, 12 bytes each. The symmetric
+ordering now used fills less (22 M against 36 M entries on the benchmark's step at 1024²),
+so the estimate errs on the safe side."""
+
+
+@dataclass(frozen=True)
+class SharpFeatures:
+    """The sharp nodes of a rigidity grid and the band width they call for.
+
+    Attributes
+    ----------
+    nodes : numpy.ndarray of bool, shape (ny, nx)
+        Sharp nodes, before widening.
+    band_width : float
+        Default width (m) of the exact-solve band round them: the widest of
+        :data:`BAND_FLEXURAL_PARAMETERS` flexural parameters of the weakest non-zero
+        rigidity next to a jump, :data:`STEEP_FLEXURAL_PARAMETERS` of the weakest at a steep
+        change or a grid edge, :data:`BREAK_FLEXURAL_PARAMETERS` of the weakest plate next
+        to a break; 0 without sharp nodes.
+    """
+
+    nodes: np.ndarray
+    band_width: float
+
+
+def _modes(operator: PlateOperator) -> list[str]:
+    return ["wrap" if e == "periodic" else "nearest" for e in operator.edges]
+
+
+def _extreme3(values: np.ndarray, modes: list[str], high: bool) -> np.ndarray:
+    """Maximum (*high*) or minimum over the 3 x 3 neighbourhood."""
+    flt = scipy.ndimage.maximum_filter1d if high else scipy.ndimage.minimum_filter1d
+    out = flt(values, 3, axis=0, mode=modes[0])
+    return flt(out, 3, axis=1, mode=modes[1], output=out)
+
+
+def _flexural_parameter(rigidity: float, stiffness: float) -> float:
+    return (4.0 * rigidity / stiffness) ** 0.25
+
+
+def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
+    """Sharp nodes of *operator*'s rigidity and the default band width round them.
+
+    Sharp: the rigidity in the 3 x 3 neighbourhood varies by more than :data:`SHARP_RATIO`
+    (a zero next to a non-zero value counts); or it does so within :data:`STEEP_WINDOW`
+    flexural parameters (of the smallest non-zero rigidity) along x or y, away from such
+    jumps (a jump is steep all round; its own band covers that); or the node lies on a
+    non-periodic grid edge.
+
+    Parameters
+    ----------
+    operator : PlateOperator
+        The operator whose rigidity (N m), spacing and edges are examined.
+
+    Returns
+    -------
+    SharpFeatures
+    """
+    rigidity = operator.rigidity.astype(np.float32)
+    modes = _modes(operator)
+    plate = rigidity > 0
+    broken = not plate.all()
+    high = _extreme3(rigidity, modes, True)
+    low = _extreme3(rigidity, modes, False)
+    jumpy = high > SHARP_RATIO * low
+    del high
+    if not plate.any():
+        return SharpFeatures(np.zeros(rigidity.shape, dtype=bool), 0.0)
+    smallest = float(np.min(rigidity, where=plate, initial=np.inf))
+    largest = float(rigidity.max())
+    # steep: a ten-fold change within a flexural parameter of the weakest plate
+    filled = np.where(plate, rigidity, np.float32(largest)) if broken else rigidity
+    window = STEEP_WINDOW * _flexural_parameter(smallest, operator.stiffness)
+    steep = np.zeros(rigidity.shape, dtype=bool)
+    for axis, h in enumerate((operator.dy, operator.dx)):
+        size = 2 * int(window / h) + 1
+        if size < 3 or largest <= SHARP_RATIO * smallest:  # (no ten-fold change at all)
+            continue
+        top = scipy.ndimage.maximum_filter1d(filled, size, axis=axis, mode=modes[axis])
+        bottom = scipy.ndimage.minimum_filter1d(filled, size, axis=axis, mode=modes[axis])
+        found = top > SHARP_RATIO * bottom
+        del top, bottom
+        near_jump = scipy.ndimage.maximum_filter1d(
+            jumpy.view(np.uint8), size, axis=axis, mode=modes[axis]
+        ).view(bool)
+        steep |= found & ~near_jump
+    sharp = jumpy | steep
+    edge_nodes = np.zeros(rigidity.shape, dtype=bool)
+    if operator.edges[0] != "periodic":
+        edge_nodes[[0, -1], :] = True
+    if operator.edges[1] != "periodic":
+        edge_nodes[:, [0, -1]] = True
+    sharp |= edge_nodes
+    if not sharp.any():
+        return SharpFeatures(sharp, 0.0)
+    # the band width: by the kind of feature, of the weakest plate next to it
+    touches_zero = low == 0 if broken else np.zeros(rigidity.shape, dtype=bool)
+    weakest_next = (
+        _extreme3(np.where(plate, rigidity, np.float32(np.inf)), modes, False) if broken
+        else low
+    )
+    jump = jumpy & ~touches_zero
+    gentle = (steep | edge_nodes) & ~touches_zero & ~jump
+    at_break = sharp & touches_zero & np.isfinite(weakest_next)
+    width = 0.0
+    for mask, factor in (
+        (jump, BAND_FLEXURAL_PARAMETERS),
+        (gentle, STEEP_FLEXURAL_PARAMETERS),
+        (at_break, BREAK_FLEXURAL_PARAMETERS),
+    ):
+        if mask.any():
+            weak = float(np.min(weakest_next, where=mask, initial=np.inf))
+            width = max(width, factor * _flexural_parameter(weak, operator.stiffness))
+    return SharpFeatures(sharp, width)
+
+
+def sharp_band(
+    operator: PlateOperator, width: float, max_nodes: int, sharp: np.ndarray | None = None
+) -> tuple[np.ndarray, float, np.ndarray]:
+    """Nodes within *width* (m) of a sharp feature; the width shrinks to respect *max_nodes*.
+
+    Parameters
+    ----------
+    operator : PlateOperator
+        The operator whose rigidity and edges define the features.
+    width : float
+        Distance (m) by which the sharp nodes are widened.
+    max_nodes : int
+        Cap on the band size. The width is halved until the band fits, in nodes and in the
+        estimated memory of its LU factors (:data:`MAX_FACTOR_BYTES`), down to one
+        spacing; if even that does not fit, the band is empty and the blend works alone.
+    sharp : numpy.ndarray of bool, optional
+        The sharp nodes if already found (:func:`find_sharp_features`).
+
+    Returns
+    -------
+    nodes : numpy.ndarray of int
+        Sorted flat indices of the band.
+    width : float
+        The width used (m); 0 when the band was dropped or there is no sharp feature.
+    sharp : numpy.ndarray of bool, shape (ny, nx)
+        The sharp nodes before widening.
+    """
+    if sharp is None:
+        sharp = find_sharp_features(operator).nodes
+    if not sharp.any():
+        return np.zeros(0, dtype=np.int64), 0.0, sharp
+    distance = scipy.ndimage.distance_transform_edt(~sharp, sampling=(operator.dy, operator.dx))
+    minimum = max(operator.dx, operator.dy)
+    width = max(float(width), minimum)
+    spacing = min(operator.dx, operator.dy)
+    while True:
+        band = distance <= width
+        count = int(np.count_nonzero(band))
+        factor_bytes = FACTOR_BYTES_PER_NODE_CELL * count * (2.0 * width / spacing + 1.0)
+        if count <= max_nodes and factor_bytes <= MAX_FACTOR_BYTES:
+            return np.flatnonzero(band), width, sharp
+        if width <= minimum:
+            break
+        width = max(0.5 * width, minimum)
+    log.warning(
+        "the sharp features alone (%d nodes, about %.1f GiB of LU factors) exceed the band "
+        "cap (%d nodes, %.1f GiB); solving without the band (more iterations)",
+        count, factor_bytes / 2**30, max_nodes, MAX_FACTOR_BYTES / 2**30,
+    )
+    return np.zeros(0, dtype=np.int64), 0.0, sharp
