@@ -27,7 +27,7 @@ import scipy.fft
 import scipy.ndimage
 import scipy.sparse.linalg as spla
 
-from .fft_buffers import RealFFT2
+from .fft_buffers import BlockedSpectralFilter
 from .plate_operator import PlateOperator
 from .row_blocks import block_rows, dot, for_row_blocks, thread_count
 
@@ -210,12 +210,15 @@ class BlendPreconditioner:
     _stiffness: float
     single: bool = SINGLE_PRECISION_FFT
     _transfer: list[np.ndarray] = field(default_factory=list, repr=False)
-    _ffts: dict[np.dtype, list[RealFFT2]] = field(default_factory=dict, repr=False)
+    _filters: dict[np.dtype, list[BlockedSpectralFilter]] = field(
+        default_factory=dict, repr=False
+    )
     _tmp: list[np.ndarray] = field(default_factory=list, repr=False)
 
     def __post_init__(self) -> None:
         ny, nx = self._shape
-        rows = block_rows(nx, ny)
+        fft_nx = self.fft_shape[1] if self.fft_shape else nx
+        rows = block_rows(fft_nx, ny)  # the filters' row blocks
         self._tmp = [np.empty((rows, nx)) for _ in range(thread_count())]
 
     @classmethod
@@ -298,20 +301,24 @@ class BlendPreconditioner:
             self._transfer = [1.0 / (level * symbol + self._stiffness) for level in self.levels]
         return self._transfer
 
-    def _ffts_now(self) -> list[RealFFT2]:
-        """One set of FFT arrays per level, in the current precision (made on first use)."""
+    def _filters_now(self) -> list[BlockedSpectralFilter]:
+        """One spectral filter per level, in the current precision (made on first use)."""
         dtype = np.dtype(np.float32 if self.single else np.float64)
-        ffts = self._ffts.get(dtype)
-        if ffts is None:
-            ffts = self._ffts[dtype] = [RealFFT2(self.fft_shape, dtype) for _ in self.levels]
-        return ffts
+        filters = self._filters.get(dtype)
+        if filters is None:
+            filters = self._filters[dtype] = [
+                BlockedSpectralFilter(self._shape, self.fft_shape, dtype) for _ in self.levels
+            ]
+        return filters
 
     def apply(self, residual: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
         """Approximate K⁻¹ r (m) for a residual *r* (Pa) of shape (ny, nx).
 
-        One pass over memory writes C_l r for every level, each level is transformed,
-        divided by its symbol and transformed back, and one more pass sums C_l (P_l C_l r)
-        (plus the local term of broken nodes).
+        One pass over the rows writes C_l r for every level into cache-sized blocks and
+        transforms them along x; the columns of each level are transformed, divided by its
+        symbol and transformed back; one more pass transforms the rows back and sums
+        C_l (P_l C_l r) (plus the local term of broken nodes)
+        (:class:`~gridflex.solvers.fft_buffers.BlockedSpectralFilter`).
 
         Parameters
         ----------
@@ -320,7 +327,7 @@ class BlendPreconditioner:
         out : numpy.ndarray, shape (ny, nx), optional
             Where to write the result (float64, not *residual*); a new array by default.
         """
-        ny, nx = self._shape
+        ny, _ = self._shape
         out = np.empty(self._shape) if out is None else out.reshape(self._shape)
         r = residual.reshape(self._shape)
         local = self._local
@@ -330,25 +337,25 @@ class BlendPreconditioner:
             else:
                 np.multiply(local, r, out=out)
             return out
-        ffts = self._ffts_now()
+        filters = self._filters_now()
         transfers = self._transfer_single if self.single else self._transfer_double
-        pairs = list(zip(self._weights, ffts, strict=True))
-        rows = block_rows(nx, ny)
+        pairs = list(zip(self._weights, filters, strict=True))
 
-        def fill(j0: int, j1: int, _thread: int) -> None:
+        def forward(j0: int, j1: int, thread: int) -> None:
             rb = r[j0:j1]
-            for weight, fft in pairs:
-                target = fft.real[j0:j1, :nx]
+            for weight, spectral in pairs:
+                block = spectral.row_buffer(thread, j1 - j0)
                 if weight is None:
-                    target[...] = rb
+                    block[...] = rb
                 else:
-                    np.multiply(weight[j0:j1], rb, out=target, casting="same_kind")
+                    np.multiply(weight[j0:j1], rb, out=block, casting="same_kind")
+                spectral.forward_rows(j0, j1, thread)
 
-        def gather(j0: int, j1: int, thread: int) -> None:
+        def inverse(j0: int, j1: int, thread: int) -> None:
             target = out[j0:j1]
             tmp = self._tmp[thread][: j1 - j0]
-            for level, (weight, fft) in enumerate(pairs):
-                solved = fft.real[j0:j1, :nx]
+            for level, (weight, spectral) in enumerate(pairs):
+                solved = spectral.inverse_rows(j0, j1, thread)
                 destination = target if level == 0 else tmp
                 if weight is None:
                     destination[...] = solved
@@ -360,21 +367,11 @@ class BlendPreconditioner:
                 np.multiply(local[j0:j1], r[j0:j1], out=tmp)
                 target += tmp
 
-        for_row_blocks(ny, rows, fill)
-        for fft, transfer in zip(ffts, transfers, strict=True):
-            fft.forward()
-            spectrum = fft.spectrum
-            for_row_blocks(
-                spectrum.shape[0], block_rows(spectrum.shape[1], spectrum.shape[0]),
-                lambda j0, j1, _t, s=spectrum, t=transfer: np.multiply(
-                    s[j0:j1], t[j0:j1], out=s[j0:j1]),
-            )
-            fft.inverse()
-        for_row_blocks(ny, rows, gather)
-        if self.fft_shape != self._shape:  # the zero padding of the next fill must be zero
-            for fft in ffts:
-                fft.real[ny:] = 0.0
-                fft.real[:ny, nx:] = 0.0
+        rows = filters[0].rows
+        for_row_blocks(ny, rows, forward)
+        for spectral, transfer in zip(filters, transfers, strict=True):
+            spectral.filter_columns(transfer)
+        for_row_blocks(ny, rows, inverse)
         return out
 
 
