@@ -7,9 +7,11 @@ the FFTs and the operator product that follow: the preconditioner of the benchma
 threads and 71 ms with one. The solvers' own parallel work does not go through BLAS
 (:mod:`gridflex.solvers.row_blocks`, pocketfft's threads), so one BLAS thread costs nothing.
 
-The limit is process-wide (BLAS has no per-thread setting). :func:`single_threaded_blas`
-counts the solves that hold it, so that concurrent solves (a threaded parameter sweep) set it
-once and the last one to finish restores the previous thread counts.
+The limit is process-wide, and OpenBLAS (the BLAS that numpy and scipy ship) ignored a
+thread count raised again from a thread other than the one that lowered it (seen with
+0.3.30 and 0.3.31). So only the main thread sets and restores it, always itself: solves
+running on other threads (a threaded parameter sweep) leave BLAS as it is, and run at most
+a little slower.
 """
 
 from __future__ import annotations
@@ -23,32 +25,33 @@ from threadpoolctl import ThreadpoolController
 
 __all__ = ["single_threaded_blas"]
 
-_lock = threading.Lock()
-_holders = 0
+_depth = 0
 _limiter: Any = None
 
 
 @contextlib.contextmanager
 def single_threaded_blas() -> Iterator[None]:
-    """Limit BLAS libraries to one thread while the context is open (re-entrant and
-    thread-safe; the previous limits are restored when the last holder leaves).
+    """Limit BLAS libraries to one thread while the context is open, when entered from the
+    main thread (re-entrant; the previous limits are restored on leaving the outermost
+    context). Elsewhere a no-op.
 
     Examples
     --------
     >>> with single_threaded_blas():
     ...     pass
     """
-    global _holders, _limiter
-    with _lock:
-        if _holders == 0:
-            # a new controller each time: it sees the BLAS libraries loaded by now
-            _limiter = ThreadpoolController().limit(limits=1, user_api="blas")
-        _holders += 1
+    global _depth, _limiter
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    if _depth == 0:
+        # a new controller each time: it sees the BLAS libraries loaded by now
+        _limiter = ThreadpoolController().limit(limits=1, user_api="blas")
+    _depth += 1
     try:
         yield
     finally:
-        with _lock:
-            _holders -= 1
-            if _holders == 0 and _limiter is not None:
-                _limiter.restore_original_limits()
-                _limiter = None
+        _depth -= 1
+        if _depth == 0 and _limiter is not None:
+            _limiter.restore_original_limits()
+            _limiter = None

@@ -102,23 +102,29 @@ def discrete_symbol(shape: tuple[int, int], dy: float, dx: float) -> np.ndarray:
     return sy[:, None] + sx[None, :]
 
 
-def _box_passes(sigma: float) -> int:
-    """Odd width (cells) of a box filter whose three passes have variance *sigma*² (the
-    variance of one pass of width w is (w² − 1) / 12)."""
+def _box_widths(sigma: float) -> list[int]:
+    """Odd widths (cells) of three box-filter passes whose variances add up closest to
+    *sigma*² (one pass of width w has variance (w² − 1) / 12): the odd widths just below
+    and above sqrt(4 sigma² + 1), mixed."""
     width = math.sqrt(4.0 * sigma**2 + 1.0)
-    return max(1, 2 * round(0.5 * (width - 1.0)) + 1)
+    low = max(1, 2 * int((width - 1.0) // 2) + 1)
+    high = low + 2
+    target = 12.0 * sigma**2
+    mix = min(range(4), key=lambda k: abs(k * (high**2 - 1) + (3 - k) * (low**2 - 1) - target))
+    return [high] * mix + [low] * (3 - mix)
 
 
 def smooth_like_gaussian(
     values: np.ndarray, sigma: tuple[float, float], modes: tuple[str, str]
 ) -> np.ndarray:
     """Smooth a grid with three passes of a box filter per axis (close to a Gaussian of
-    standard deviation *sigma*, in cells, per axis; cost independent of *sigma*).
+    standard deviation *sigma*, in cells, per axis, its variance matched to within a few
+    per cent by the choice of odd widths; cost independent of *sigma*).
 
     Parameters
     ----------
     values : numpy.ndarray, shape (ny, nx)
-        The grid (float32 or float64); smoothed in place.
+        The grid (float32 or float64); used as work space (overwritten).
     sigma : tuple of float
         Standard deviation along y and x (cells).
     modes : tuple of str
@@ -127,16 +133,16 @@ def smooth_like_gaussian(
     Returns
     -------
     numpy.ndarray
-        *values*, smoothed.
+        The smoothed grid: *values* or a second array of its shape and type.
     """
     spare = np.empty_like(values)
     for axis in (0, 1):
-        width = _box_passes(sigma[axis])
-        if width < 2:
-            continue
-        for _ in range(3):
-            scipy.ndimage.uniform_filter1d(values, width, axis, output=spare, mode=modes[axis])
-            values, spare = spare, values
+        for width in _box_widths(sigma[axis]):
+            if width > 1:
+                scipy.ndimage.uniform_filter1d(
+                    values, width, axis, output=spare, mode=modes[axis]
+                )
+                values, spare = spare, values
     return values
 
 
