@@ -142,6 +142,72 @@ def roundoff_residual(rigidity: np.ndarray, stiffness: float, spacing: float) ->
     return 0.15 * float(np.finfo(np.float64).eps) * (alpha / spacing) ** 4
 
 
+def _check_arguments(
+    edges: str | tuple[str, str], tolerance: float, max_iterations: int, pad_factor: float
+) -> None:
+    """Raise :class:`~gridflex.errors.InputError` for a bad edge option or solver setting."""
+    if isinstance(edges, tuple):
+        if len(edges) != 2 or any(e not in AXIS_EDGES for e in edges):
+            raise InputError(f"an edges pair must hold two of {AXIS_EDGES!r}; got {edges!r}")
+    elif edges not in EDGES:
+        raise InputError(f"edges must be one of {', '.join(map(repr, EDGES))}; got {edges!r}")
+    if not (0.0 < tolerance < 1.0):
+        raise InputError(f"tolerance must lie in (0, 1), got {tolerance!r}")
+    if int(max_iterations) < 1:
+        raise InputError(f"max_iterations must be >= 1, got {max_iterations!r}")
+    if not pad_factor >= 0:
+        raise InputError(f"pad_factor must be >= 0, got {pad_factor!r}")
+
+
+def _solve_grid(
+    load: np.ndarray, spec: GridSpec, rigidity: np.ndarray, stiffness: float,
+    edges: str | tuple[str, str], pad_factor: float,
+) -> tuple[np.ndarray, np.ndarray, tuple[str, str]]:
+    """Rigidity and load on the solve grid, and its axis edges.
+
+    For ``edges="infinite"`` the grid embedded in a periodic margin (:func:`pad_rigidity`,
+    zero load); otherwise the grid itself. Checks the memory the solve will need first.
+    """
+    if edges == "infinite":
+        shape = _infinite_shape(spec, rigidity, stiffness, pad_factor)
+    else:
+        shape = spec.shape
+    n = shape[0] * shape[1]
+    # in float64 grids: rigidity, area, bending and twist weights (4), load and right-hand
+    # side (2), CG vectors (6), blend weights and spectra (1 per level), local term (1),
+    # set-up temporaries (3), double-precision spectra after a restart (1 per level):
+    # measured peak 17-19 with tracemalloc on tests/benchmarks/variable.py at 1024²; the band's
+    # LU factors are capped apart (MAX_FACTOR_BYTES)
+    check_memory(8.0 * n * 22, f"finite-difference solve on a grid of {shape[0]} x {shape[1]}")
+    if edges != "infinite":
+        axis_edges = edges if isinstance(edges, tuple) else (edges, edges)
+        return rigidity, np.asarray(load, dtype=np.float64), axis_edges
+    ny, nx = spec.shape
+    rhs_load = np.zeros(shape)
+    rhs_load[:ny, :nx] = load
+    return pad_rigidity(rigidity, shape), rhs_load, ("periodic", "periodic")
+
+
+def _preconditioner(
+    operator: PlateOperator, band_width: float | None, max_band_nodes: int
+) -> tuple[MultiplicativePreconditioner, float]:
+    """The band round the operator's sharp features, the blend, and their combination;
+    also the band width used (m)."""
+    features = find_sharp_features(operator)
+    if band_width is None:
+        band_width = features.band_width
+    nodes, width_used, _ = sharp_band(
+        operator, float(band_width), int(max_band_nodes), features.nodes
+    )
+    band = BandSolver.build(operator, nodes)
+    blend = BlendPreconditioner.build(operator, nodes)
+    log.info(
+        "finite-difference solve on %s nodes: %d blend levels, band of %d nodes (%.0f m)",
+        operator.shape, blend.levels.size, band.size, width_used,
+    )
+    return MultiplicativePreconditioner(operator, blend, band), width_used
+
+
 def finite_difference_deflection(
     load: np.ndarray,
     spec: GridSpec,
@@ -210,60 +276,26 @@ def finite_difference_deflection(
     ConvergenceError
         The tolerance was not reached within *max_iterations*.
     """
-    if isinstance(edges, tuple):
-        if len(edges) != 2 or any(e not in AXIS_EDGES for e in edges):
-            raise InputError(f"an edges pair must hold two of {AXIS_EDGES!r}; got {edges!r}")
-    elif edges not in EDGES:
-        raise InputError(f"edges must be one of {', '.join(map(repr, EDGES))}; got {edges!r}")
-    if not (0.0 < tolerance < 1.0):
-        raise InputError(f"tolerance must lie in (0, 1), got {tolerance!r}")
-    if int(max_iterations) < 1:
-        raise InputError(f"max_iterations must be >= 1, got {max_iterations!r}")
-    if not pad_factor >= 0:
-        raise InputError(f"pad_factor must be >= 0, got {pad_factor!r}")
+    _check_arguments(edges, tolerance, max_iterations, pad_factor)
     start = time.perf_counter()
     ny, nx = spec.shape
-    rigidity = np.asarray(rigidity, dtype=np.float64)
-    if edges == "infinite":
-        shape = _infinite_shape(spec, rigidity, stiffness, pad_factor)
-        axis_edges: tuple[str, str] = ("periodic", "periodic")
-    else:
-        shape = spec.shape
-        axis_edges = edges if isinstance(edges, tuple) else (edges, edges)
-    n = shape[0] * shape[1]
-    # operator weights (8), CG vectors (5), preconditioner work (~8 + 2 per blend level)
-    check_memory(8.0 * n * 27, f"finite-difference solve on a grid of {shape[0]} x {shape[1]}")
-    if edges == "infinite":
-        solve_rigidity = pad_rigidity(rigidity, shape)
-        rhs_load = np.zeros(shape)
-        rhs_load[:ny, :nx] = load
-    else:
-        solve_rigidity, rhs_load = rigidity, np.asarray(load, dtype=np.float64)
+    solve_rigidity, rhs_load, axis_edges = _solve_grid(
+        load, spec, np.asarray(rigidity, dtype=np.float64), stiffness, edges, pad_factor
+    )
+    shape = solve_rigidity.shape
     operator = PlateOperator.build(
         solve_rigidity, stiffness, poisson_ratio, spec.dy, spec.dx, axis_edges
     )
-    features = find_sharp_features(operator)
-    if band_width is None:
-        band_width = features.band_width
-    nodes, width_used, _ = sharp_band(
-        operator, float(band_width), int(max_band_nodes), features.nodes
-    )
-    with single_threaded_blas():  # see gridflex.solvers.blas_threads
-        band = BandSolver.build(operator, nodes)
-        blend = BlendPreconditioner.build(operator, nodes)
-        rhs = operator.area * rhs_load
-        floor = roundoff_residual(solve_rigidity, stiffness, min(spec.dx, spec.dy))
-        if floor > 0.5 * tolerance:
-            log.warning(
-                "tolerance %.1e is close to the round-off limit (about %.0e) of a plate this "
-                "stiff on cells this small; the iteration may stop short of it", tolerance, floor,
-            )
-        preconditioner = MultiplicativePreconditioner(operator, blend, band)
-        setup = time.perf_counter() - start
-        log.info(
-            "finite-difference solve on %s nodes: %d blend levels, band of %d nodes (%.0f m)",
-            shape, blend.levels.size, band.size, width_used,
+    floor = roundoff_residual(solve_rigidity, stiffness, min(spec.dx, spec.dy))
+    if floor > 0.5 * tolerance:
+        log.warning(
+            "tolerance %.1e is close to the round-off limit (about %.0e) of a plate this "
+            "stiff on cells this small; the iteration may stop short of it", tolerance, floor,
         )
+    with single_threaded_blas():  # see gridflex.solvers.blas_threads
+        preconditioner, width_used = _preconditioner(operator, band_width, max_band_nodes)
+        rhs = operator.area * rhs_load
+        setup = time.perf_counter() - start
         try:
             x, iterations, residual = conjugate_gradient(
                 operator.apply, rhs, preconditioner.apply, float(tolerance), int(max_iterations),
@@ -284,8 +316,8 @@ def finite_difference_deflection(
         "residual": float(residual),
         "tolerance": float(tolerance),
         "solve_shape": shape,
-        "blend_levels": blend.levels.copy(),
-        "band_nodes": band.size,
+        "blend_levels": preconditioner.blend.levels.copy(),
+        "band_nodes": preconditioner.band.size,
         "band_width": float(width_used),
         "force_balance_residual": imbalance / total if total > 0 else 0.0,
         "locally_compensated_load": float(((1.0 - operator.area) * rhs_load).sum() * cell),
