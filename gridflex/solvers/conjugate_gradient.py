@@ -33,7 +33,7 @@ Operator = Callable[[np.ndarray, np.ndarray], np.ndarray]
 
 Preconditioner = Callable[[np.ndarray, np.ndarray, float], np.ndarray]
 """``precondition(r, out, norm)``: writes M⁻¹ r into *out* and returns it; *norm* is
-||r||₂, which the preconditioner may use (say, to choose its precision)."""
+||r||₂, which the preconditioner may use (say, to judge what is negligible)."""
 
 
 class _Vectors:
