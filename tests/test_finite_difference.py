@@ -30,6 +30,8 @@ from gridflex.solvers.preconditioners import (
 )
 from gridflex.solvers.rigidity_features import sharp_band
 
+from .conftest import random_broken_operator
+
 NU = 0.25
 RHO_G = 1000.0 * 9.81  # (rho_m - rho_infill) g for drho = 1000 kg m^-3
 D20 = float(rigidity_from_te(20e3, 70e9, NU))  # Te = 20 km, E = 70 GPa: 4.978e22 N m
@@ -50,11 +52,8 @@ def _strip(n_alpha: float, dx: float, ny: int = 4) -> tuple[GridSpec, np.ndarray
 def test_operator_symmetric_and_matches_its_matrix(edges):
     # common practice: the energy form makes K symmetric; <Au, v> = <u, Av> to round-off,
     # the assembled matrix equals the matrix-free product and is positive definite
-    rng = np.random.default_rng(1)
-    rigidity = 10 ** rng.uniform(20, 23, (7, 9))
-    rigidity[3, :] = 0.0
-    rigidity[:, 4] = 0.0
-    op = PlateOperator.build(rigidity, 2e4, NU, 2000.0, 1500.0, edges)
+    op, rng = random_broken_operator((7, 9), edges, seed=1)
+    rigidity = op.rigidity
     u, v = rng.standard_normal((2, 7, 9))
     ku, kv = op.apply(u), op.apply(v)
     assert_allclose(np.vdot(ku, v), np.vdot(u, kv), rtol=1e-13)  # round-off
@@ -72,12 +71,8 @@ def test_blocked_threaded_product_matches_the_matrix(edges, monkeypatch):
     # common practice: the row-blocked, threaded product is the same arithmetic as the
     # assembled matrix; tiny blocks make many blocks, shared among threads
     monkeypatch.setattr(row_blocks, "BLOCK_ELEMENTS", 100)
-    rng = np.random.default_rng(2)
-    rigidity = 10 ** rng.uniform(20, 23, (70, 23))
-    rigidity[31, :] = 0.0
-    rigidity[:, 5] = 0.0
-    op = PlateOperator.build(rigidity, 2e4, NU, 2000.0, 1500.0, edges)
-    u = rng.standard_normal(rigidity.shape)
+    op, rng = random_broken_operator((70, 23), edges, seed=2)
+    u = rng.standard_normal(op.shape)
     ku = op.apply(u)
     assert_allclose(op.matrix() @ u.ravel(), ku.ravel(), rtol=1e-12, atol=1e-13 * np.abs(ku).max())
 
