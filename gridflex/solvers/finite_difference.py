@@ -252,10 +252,13 @@ def finite_difference_deflection(
     max_iterations : int, default 300
         Iteration limit.
     band_width : float, optional
-        Width (m) of the exact-solve band round sharp features; default
-        :data:`BAND_FLEXURAL_PARAMETERS` flexural parameters of the weak side.
+        Width (m) of the exact-solve band round sharp features; by default the widest the
+        features call for (:attr:`~gridflex.solvers.rigidity_features.SharpFeatures.band_width`:
+        :data:`BAND_FLEXURAL_PARAMETERS` flexural parameters of the weak side of a jump,
+        :data:`STEEP_FLEXURAL_PARAMETERS` at a steep change or grid edge,
+        :data:`BREAK_FLEXURAL_PARAMETERS` next to a break).
     max_band_nodes : int, default 400000
-        Cap on the band size; see :func:`~gridflex.solvers.preconditioners.sharp_band`.
+        Cap on the band size; see :func:`~gridflex.solvers.rigidity_features.sharp_band`.
     progress : callable, optional
         Called with (iterations done, iteration limit) after each iteration and with
         (iterations, iterations) when converged.
@@ -275,7 +278,8 @@ def finite_difference_deflection(
     InputError
         Bad edges, tolerance or sizes; not enough memory.
     ConvergenceError
-        The tolerance was not reached within *max_iterations*.
+        The tolerance was not reached within *max_iterations*, or round-off stalled the
+        iteration above it (the message gives the estimated round-off limit).
     """
     _check_arguments(edges, tolerance, max_iterations, pad_factor)
     start = time.perf_counter()
