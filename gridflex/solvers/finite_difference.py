@@ -16,7 +16,6 @@ from typing import Any
 
 import numpy as np
 import scipy.fft
-import scipy.ndimage
 
 from ..errors import ConvergenceError, InputError
 from ..grid import GridSpec

@@ -211,21 +211,14 @@ class BlendPreconditioner:
     _shape: tuple[int, int]
     _weights: list[np.ndarray | None]
     _local: np.ndarray | None
-    _transfer_single: list[np.ndarray]
     _spacing: tuple[float, float]
     _stiffness: float
     single: bool = SINGLE_PRECISION_FFT
-    _transfer: list[np.ndarray] = field(default_factory=list, repr=False)
+    _transfers: dict[np.dtype, list[np.ndarray]] = field(default_factory=dict, repr=False)
     _filters: dict[np.dtype, list[BlockedSpectralFilter]] = field(
         default_factory=dict, repr=False
     )
     _tmp: list[np.ndarray] = field(default_factory=list, repr=False)
-
-    def __post_init__(self) -> None:
-        ny, nx = self._shape
-        fft_nx = self.fft_shape[1] if self.fft_shape else nx
-        rows = block_rows(fft_nx, ny)  # the filters' row blocks
-        self._tmp = [np.empty((rows, nx)) for _ in range(thread_count())]
 
     @classmethod
     def build(
@@ -269,7 +262,7 @@ class BlendPreconditioner:
         if not acting.any():
             acting = plate
         if not acting.any():
-            return cls(np.zeros(0), fft_shape, shape, [], local, [], spacing, stiffness, False)
+            return cls(np.zeros(0), fft_shape, shape, [], local, spacing, stiffness, False)
         lo = math.log(float(np.min(rigidity, where=acting, initial=np.inf)))
         hi = math.log(float(np.max(rigidity, where=acting, initial=0.0)))
         count = 1 + math.ceil((hi - lo) / math.log(LEVEL_SPACING) - 1e-6) if hi > lo else 1
@@ -288,36 +281,41 @@ class BlendPreconditioner:
         else:
             weights = list(_level_weights(operator, levels, plate, band))
         used = [i for i, c in enumerate(weights) if c is None or c.any()]
-        symbol = discrete_symbol(fft_shape, operator.dy, operator.dx)
-        symbol *= symbol
-        transfer_single = []
-        for level in levels[used]:
-            transfer = np.multiply(symbol, level, dtype=np.float32)
-            transfer += np.float32(operator.stiffness)
-            transfer_single.append(np.reciprocal(transfer, out=transfer))
         return cls(
             levels[used], fft_shape, shape, [weights[i] for i in used], local,
-            transfer_single, spacing, stiffness, SINGLE_PRECISION_FFT,
+            spacing, stiffness, SINGLE_PRECISION_FFT,
         )
 
-    @property
-    def _transfer_double(self) -> list[np.ndarray]:
-        """The transfer functions 1 / (D_l s² + Δρ g) in double precision (made on first
-        use: the blend runs in single precision unless the iteration stalls)."""
-        if not self._transfer:
+    def _dtype(self) -> np.dtype:
+        return np.dtype(np.float32 if self.single else np.float64)
+
+    def _transfers_now(self) -> list[np.ndarray]:
+        """The transfer functions 1 / (D_l s² + Δρ g) of the levels, in the current
+        precision (made on first use: double precision only if the iteration restarts)."""
+        dtype = self._dtype()
+        transfers = self._transfers.get(dtype)
+        if transfers is None:
             symbol = discrete_symbol(self.fft_shape, *self._spacing)
             symbol *= symbol
-            self._transfer = [1.0 / (level * symbol + self._stiffness) for level in self.levels]
-        return self._transfer
+            transfers = self._transfers[dtype] = []
+            for level in self.levels:
+                transfer = np.multiply(symbol, level, dtype=dtype)
+                transfer += dtype.type(self._stiffness)
+                transfers.append(np.reciprocal(transfer, out=transfer))
+        return transfers
 
     def _filters_now(self) -> list[BlockedSpectralFilter]:
-        """One spectral filter per level, in the current precision (made on first use)."""
-        dtype = np.dtype(np.float32 if self.single else np.float64)
+        """One spectral filter per level, in the current precision, and the per-thread
+        work rows of their blocks (made on first use)."""
+        dtype = self._dtype()
         filters = self._filters.get(dtype)
         if filters is None:
             filters = self._filters[dtype] = [
                 BlockedSpectralFilter(self._shape, self.fft_shape, dtype) for _ in self.levels
             ]
+            if not self._tmp:
+                rows, nx = filters[0].rows, self._shape[1]
+                self._tmp = [np.empty((rows, nx)) for _ in range(thread_count())]
         return filters
 
     def apply(self, residual: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
@@ -347,7 +345,7 @@ class BlendPreconditioner:
                 np.multiply(local, r, out=out)
             return out
         filters = self._filters_now()
-        transfers = self._transfer_single if self.single else self._transfer_double
+        transfers = self._transfers_now()
         pairs = list(zip(self._weights, filters, strict=True))
 
         def forward(j0: int, j1: int, thread: int) -> None:
@@ -399,10 +397,8 @@ class BandSolver:
     """
 
     nodes: np.ndarray
-    _shape: tuple[int, int]
     _solve: Callable[[np.ndarray], np.ndarray] | None
     _around: np.ndarray
-    _band_in_around: np.ndarray
     _k_columns: object  # K[C, B], csr
     _k_rows: object  # K[B, C], csr
 
@@ -411,7 +407,7 @@ class BandSolver:
         """Assemble K on the band's neighbourhood and factorise K on the band."""
         empty = np.zeros(0, dtype=np.int64)
         if nodes.size == 0:
-            return cls(nodes, operator.shape, None, empty, empty, None, None)
+            return cls(nodes, None, empty, None, None)
         band = np.zeros(operator.shape, dtype=np.uint8)
         band.reshape(-1)[nodes] = 1
         modes = ["wrap" if e == "periodic" else "constant" for e in operator.edges]
@@ -427,7 +423,7 @@ class BandSolver:
             options={"SymmetricMode": True},
         )
         log.info("band LU of %d nodes", nodes.size)  # (factor.L builds a copy: not asked)
-        return cls(nodes, operator.shape, factor.solve, around, position, k_columns, k_rows)
+        return cls(nodes, factor.solve, around, k_columns, k_rows)
 
     @property
     def size(self) -> int:
@@ -438,13 +434,6 @@ class BandSolver:
         """K_BB⁻¹ r_B (values on the band nodes)."""
         assert self._solve is not None
         return self._solve(residual_band)
-
-    def apply(self, residual: np.ndarray) -> np.ndarray:
-        """K_BB⁻¹ r_B on the band nodes, 0 elsewhere."""
-        out = np.zeros(self._shape)
-        if self._solve is not None:
-            out.reshape(-1)[self.nodes] = self._solve(residual.ravel()[self.nodes])
-        return out
 
     def subtract_product(self, residual: np.ndarray, values_band: np.ndarray) -> np.ndarray:
         """r − K v for v given on the band (zero elsewhere); a new array."""
