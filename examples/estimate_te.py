@@ -19,9 +19,9 @@ import scipy.fft
 import xarray as xr
 
 import gridflex
-from gridflex.gravity_response import CrustLayers
-from gridflex.plots import plot_misfit, plot_spectral_fit
-from gridflex.spectra import cross_spectra, fit_te_spectral, free_air_admittance
+from gridflex.estimation.admittance import cross_spectra, fit_te_spectral, free_air_admittance
+from gridflex.gravity.first_order import CrustLayers
+from gridflex.io.plots import plot_misfit, plot_spectral_fit
 from gridflex.synthetic import empty_grid, island_chain_height
 
 ROCK, WATER = 2800.0, 1030.0
@@ -37,9 +37,11 @@ def misfit_example(out_dir: Path) -> None:
     sea_floor = -4500.0 - w + 0.05 * float(w.max()) * rng.standard_normal(w.shape)
     mask = height < 10.0  # compare only where there is no edifice
     fit = gridflex.fit_te(sea_floor, load, plate, quantity="surface", mask=mask)
-    print(f"misfit: te = {fit.te / 1e3:.2f} km, 95 % interval "
-          f"[{fit.te_low / 1e3:.2f}, {fit.te_high / 1e3:.2f}] km (truth 18), "
-          f"sea floor at {fit.offset:.1f} m (truth -4500)")
+    print(
+        f"misfit: te = {fit.te / 1e3:.2f} km, 95 % interval "
+        f"[{fit.te_low / 1e3:.2f}, {fit.te_high / 1e3:.2f}] km (truth 18), "
+        f"sea floor at {fit.offset:.1f} m (truth -4500)"
+    )
     print("wrote", plot_misfit(fit, out_dir / "misfit.png", overwrite=True))
 
 
@@ -50,20 +52,22 @@ def admittance_example(out_dir: Path) -> None:
     kx = 2 * np.pi * scipy.fft.rfftfreq(n, dx)[None, :]
     k = np.hypot(ky, kx)
     rng = np.random.default_rng(7)
-    spectrum = (rng.standard_normal(k.shape) + 1j * rng.standard_normal(k.shape))
+    spectrum = rng.standard_normal(k.shape) + 1j * rng.standard_normal(k.shape)
     spectrum *= np.where(k > 0, k, np.inf) ** -1.5  # red, like real topography
     h = scipy.fft.irfft2(spectrum, s=(n, n))
     h *= 800.0 / h.std()
     plate = gridflex.Plate(te=25e3, infill_density=ROCK)  # the crust fills the flexure
     layers = CrustLayers(seafloor_depth=4500.0, crust_thickness=6000.0, crust_density=ROCK)
-    anomaly = scipy.fft.irfft2(free_air_admittance(k, plate, layers, ROCK - WATER)
-                               * scipy.fft.rfft2(h), s=(n, n))
+    anomaly = scipy.fft.irfft2(
+        free_air_admittance(k, plate, layers, ROCK - WATER) * scipy.fft.rfft2(h), s=(n, n)
+    )
     coords = {"y": x, "x": x}
     topography = xr.DataArray(h, dims=("y", "x"), coords=coords)
     gravity = xr.DataArray(anomaly, dims=("y", "x"), coords=coords)
     spectra = cross_spectra(topography, gravity)
-    fit = fit_te_spectral(spectra, plate, gravity=layers, topography_contrast=ROCK - WATER,
-                          topography=topography)
+    fit = fit_te_spectral(
+        spectra, plate, gravity=layers, topography_contrast=ROCK - WATER, topography=topography
+    )
     print(f"admittance: te = {fit.te / 1e3:.2f} km (truth 25)")
     print("wrote", plot_spectral_fit(fit, out_dir / "admittance.png", overwrite=True))
 

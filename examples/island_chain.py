@@ -10,8 +10,8 @@ from pathlib import Path
 
 import gridflex
 from gridflex.io.netcdf import write_netcdf
-from gridflex.plots import plot_deflection_map
-from gridflex.summary import deflection_summary, format_summary
+from gridflex.io.plots import plot_deflection_map
+from gridflex.results.summary import deflection_summary, format_summary
 from gridflex.synthetic import empty_grid, island_chain_height
 
 ROCK, WATER = 2800.0, 1030.0  # kg/m^3: basaltic edifices standing in sea water
@@ -22,8 +22,10 @@ def main(out_dir: Path) -> None:
     height = island_chain_height(grid)  # m above the sea floor
     load = gridflex.pressure_from_height(height, ROCK - WATER)
     plate = gridflex.Plate(te=25e3, youngs_modulus=100e9, infill_density=WATER)
-    print(f"rigidity {plate.rigidity:.3e} N m, flexural parameter "
-          f"{plate.flexural_parameter / 1e3:.1f} km")
+    print(
+        f"rigidity {plate.rigidity:.3e} N m, flexural parameter "
+        f"{plate.flexural_parameter / 1e3:.1f} km"
+    )
     result = gridflex.solve(load, plate)
     print(format_summary(deflection_summary(result)))
     out_dir.mkdir(parents=True, exist_ok=True)

@@ -6,9 +6,9 @@ Loads (Pa, positive down) on a regular grid in metres go in; an
 
 import logging
 
-from ._version import __version__
-from .anomalies import model_free_air_anomaly, model_gravity
-from .errors import (
+from gridflex._version import __version__
+from gridflex.engine import solve
+from gridflex.errors import (
     ConvergenceError,
     EdgeLoadWarning,
     GravitySeriesWarning,
@@ -16,21 +16,21 @@ from .errors import (
     GridflexWarning,
     InputError,
 )
-from .fitting import TeFit, fit_te
-from .glacial import bed_stress, grounded_mask, ice_response
-from .gravity import interface_gravity
-from .history import ResponseStepper, viscous_response
-from .infill import Infill, solve_with_infill
-from .loads import (
+from gridflex.estimation.misfit import TeFit, fit_te
+from gridflex.glacial.ice import bed_stress, grounded_mask, ice_response
+from gridflex.glacial.response import ResponseStepper, viscous_response
+from gridflex.gravity.anomalies import model_free_air_anomaly, model_gravity
+from gridflex.gravity.interfaces import interface_gravity
+from gridflex.infill import Infill, solve_with_infill
+from gridflex.loads import (
     load_from_elevation,
     load_from_layers,
     pressure_from_height,
     pressure_from_layers,
     regional_surface,
 )
-from .plate import Plate, rigidity_from_te, te_from_rigidity
-from .solve import solve
-from .sweep import sweep
+from gridflex.plate import Plate, rigidity_from_te, te_from_rigidity
+from gridflex.sweeps.parameter_sweep import sweep
 
 logging.getLogger(__name__).addHandler(logging.NullHandler())
 

@@ -1,5 +1,5 @@
 """``python -m gridflex`` runs the command line."""
 
-from .cli.main import main
+from gridflex.cli.main import main
 
 raise SystemExit(main())

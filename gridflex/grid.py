@@ -14,7 +14,7 @@ import numpy as np
 import scipy.fft
 import xarray as xr
 
-from .errors import InputError
+from gridflex.errors import InputError
 
 __all__ = [
     "GridSpec",

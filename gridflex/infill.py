@@ -44,11 +44,11 @@ from typing import Any, Protocol
 import numpy as np
 import xarray as xr
 
-from .errors import ConvergenceError, InputError
-from .grid import GridSpec, check_grid, check_same_grid, grid_values
-from .memory import check_memory
-from .plate import Plate
-from .solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
+from gridflex.errors import ConvergenceError, InputError
+from gridflex.grid import GridSpec, check_grid, check_same_grid, grid_values
+from gridflex.memory import check_memory
+from gridflex.plate import Plate
+from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 
 __all__ = [
     "ACCELERATIONS",
@@ -495,7 +495,7 @@ def solve_with_infill(
         If the tolerance is not reached in *max_iterations*.
     """
     # imported here: solve.py sits above this module and may dispatch to it
-    from .solve import _check_force, check_edge_load, result_dataset
+    from gridflex.engine import _check_force, check_edge_load, result_dataset
 
     if not isinstance(plate, Plate):
         raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
@@ -527,16 +527,21 @@ def solve_with_infill(
     force_y = _check_force("inplane_force_y", inplane_force_y)
     if not (isinstance(tolerance, (int, float)) and tolerance > 0 and math.isfinite(tolerance)):
         raise InputError(f"tolerance must be a positive number of metres, got {tolerance!r}")
-    if isinstance(max_iterations, bool) or not isinstance(max_iterations, int) \
-            or max_iterations < 1:
+    if (
+        isinstance(max_iterations, bool)
+        or not isinstance(max_iterations, int)
+        or max_iterations < 1
+    ):
         raise InputError(f"max_iterations must be a whole number >= 1, got {max_iterations!r}")
     rho_m, g = plate.mantle_density, plate.gravity
     footprint_grid = None
     load_density = 0.0
     if infill.load_buried:
         if "load_height" not in extra or "load_density" not in extra_attrs:
-            raise InputError("infill load_buried=True needs a load Dataset with 'load_height' "
-                             "and a single load_density (gridflex.load_from_elevation)")
+            raise InputError(
+                "infill load_buried=True needs a load Dataset with 'load_height' "
+                "and a single load_density (gridflex.load_from_elevation)"
+            )
         load_density = extra_attrs["load_density"]
         footprint_grid = (np.asarray(extra["load_height"].values) > 0.0).astype(np.float64)
     rho_max = infill.max_density(load_density)
@@ -560,8 +565,13 @@ def solve_with_infill(
         )
     else:
         solver = spectral_inner(
-            spec, float(plate.rigidity), stiffness, min_stiffness,
-            force_x=force_x, force_y=force_y, periodic=(edges == "periodic"),
+            spec,
+            float(plate.rigidity),
+            stiffness,
+            min_stiffness,
+            force_x=force_x,
+            force_y=force_y,
+            periodic=(edges == "periodic"),
             pad_factor=pad_factor,
         )
         inner_name = "spectral"
@@ -572,25 +582,28 @@ def solve_with_infill(
     level = mask = None
     if infill.sediment == "to_level":
         assert infill.sediment_level is not None
-        level = _extend(grid_values(infill.sediment_level, load, "sediment_level"),
-                        shape, window)
+        level = _extend(grid_values(infill.sediment_level, load, "sediment_level"), shape, window)
     if infill.sediment_mask is not None and infill.sediment != "none":
         check_same_grid(infill.sediment_mask, load, "sediment_mask")
-        mask = _extend(np.asarray(infill.sediment_mask.values, dtype=bool).astype(np.float64),
-                       shape, window)
+        mask = _extend(
+            np.asarray(infill.sediment_mask.values, dtype=bool).astype(np.float64), shape, window
+        )
     # column grids and per-iteration temporaries (~12 working grids), plus the Anderson
     # history (2 per remembered step, and the last pair)
     grids = 12 + (2 * _ANDERSON_DEPTH + 4 if acceleration == "anderson" else 0)
-    check_memory(8.0 * shape[0] * shape[1] * grids,
-                 f"infill iteration on a working grid of {shape[0]} x {shape[1]}")
+    check_memory(
+        8.0 * shape[0] * shape[1] * grids,
+        f"infill iteration on a working grid of {shape[0]} x {shape[1]}",
+    )
     load_work = np.zeros(shape)
     load_work[window] = values
     footprint = None
     if footprint_grid is not None:  # no load beyond the grid
         footprint = np.zeros(shape)
         footprint[window] = footprint_grid
-    column = _Column(load_work, _extend(surface, shape, window), infill, g, level, mask,
-                     footprint, load_density)
+    column = _Column(
+        load_work, _extend(surface, shape, window), infill, g, level, mask, footprint, load_density
+    )
     w, iterations, update = _iterate(
         column, solver, c, float(tolerance), max_iterations, acceleration, progress
     )
@@ -598,8 +611,12 @@ def solve_with_infill(
     root = column.root(w)
     magnitude = float(np.abs(total).sum())
     balance = abs(rho_m * g * float(w.sum()) - float(total.sum())) / magnitude if magnitude else 0.0
-    log.info("infill converged in %d iterations (update %.3g m, balance %.2g)",
-             iterations, update, balance)
+    log.info(
+        "infill converged in %d iterations (update %.3g m, balance %.2g)",
+        iterations,
+        update,
+        balance,
+    )
     density = column.marginal_density(w, sediment)
     win = window
     w_out = np.ascontiguousarray(w[win])
@@ -624,25 +641,48 @@ def solve_with_infill(
     result.attrs["plate_infill_density"] = attrs["plate_infill_density"]
     dims = ("y", "x")
     fill_s, fill_w = sediment[win], water[win]
-    result["moat_fill"] = (dims, np.clip(fill_s + fill_w, 0.0, None),
-                           {"units": "m", "long_name": "thickness of infill (sediment and water) "
-                                                       "in the flexural depression"})
+    result["moat_fill"] = (
+        dims,
+        np.clip(fill_s + fill_w, 0.0, None),
+        {
+            "units": "m",
+            "long_name": "thickness of infill (sediment and water) in the flexural depression",
+        },
+    )
     result["fill_sediment"] = (dims, fill_s, {"units": "m", "long_name": "sediment fill thickness"})
-    result["fill_water"] = (dims, fill_w, {"units": "m", "long_name":
-                            "change of water depth (negative where displaced by uplift)"})
-    result["infill_density"] = (dims, density[win], {"units": "kg m-3", "long_name":
-                                "density of the material filling the depression"})
-    result["fill_load"] = (dims, total[win] - values, {"units": "Pa", "long_name":
-                           "vertical stress of the fill (positive downward)"})
-    result["initial_surface"] = (dims, surface, {"units": "m", "long_name":
-                                 "surface before flexure, load included (positive up)"})
+    result["fill_water"] = (
+        dims,
+        fill_w,
+        {"units": "m", "long_name": "change of water depth (negative where displaced by uplift)"},
+    )
+    result["infill_density"] = (
+        dims,
+        density[win],
+        {"units": "kg m-3", "long_name": "density of the material filling the depression"},
+    )
+    result["fill_load"] = (
+        dims,
+        total[win] - values,
+        {"units": "Pa", "long_name": "vertical stress of the fill (positive downward)"},
+    )
+    result["initial_surface"] = (
+        dims,
+        surface,
+        {"units": "m", "long_name": "surface before flexure, load included (positive up)"},
+    )
     final = surface - w_out + fill_s
     if root is not None:
         final = final + root[win]
-        result["load_root"] = (dims, root[win], {"units": "m", "long_name":
-                               "part of the buried load below its pre-flexure base"})
-    result["surface"] = (dims, final, {"units": "m", "long_name":
-                         "final surface: initial surface - deflection + sediment fill"})
+        result["load_root"] = (
+            dims,
+            root[win],
+            {"units": "m", "long_name": "part of the buried load below its pre-flexure base"},
+        )
+    result["surface"] = (
+        dims,
+        final,
+        {"units": "m", "long_name": "final surface: initial surface - deflection + sediment fill"},
+    )
     for name, variable in extra.items():
         result[name] = variable
     return result

@@ -14,8 +14,8 @@ import numpy as np
 import xarray as xr
 from scipy import ndimage
 
-from .errors import InputError
-from .grid import check_grid, check_same_grid, grid_values
+from gridflex.errors import InputError
+from gridflex.grid import check_grid, check_same_grid, grid_values
 
 __all__ = [
     "load_from_elevation",
@@ -127,6 +127,7 @@ def pressure_from_layers(
 
 
 # --- loads from elevation models and thickness grids --------------------------------------
+
 
 def _check_density(name: str, value: float) -> float:
     try:
@@ -307,13 +308,21 @@ def load_from_layers(
     return xr.Dataset(
         {
             "load": (("y", "x"), stress, _LOAD_ATTRS),
-            "initial_surface": (("y", "x"), top,
-                                {"units": "m",
-                                 "long_name": "surface with the load, before flexure"}),
-            "reference_surface": (("y", "x"), bottom,
-                                  {"units": "m", "long_name": "surface under the load"}),
-            "load_height": (("y", "x"), top - bottom,
-                            {"units": "m", "long_name": "thickness of the load"}),
+            "initial_surface": (
+                ("y", "x"),
+                top,
+                {"units": "m", "long_name": "surface with the load, before flexure"},
+            ),
+            "reference_surface": (
+                ("y", "x"),
+                bottom,
+                {"units": "m", "long_name": "surface under the load"},
+            ),
+            "load_height": (
+                ("y", "x"),
+                top - bottom,
+                {"units": "m", "long_name": "thickness of the load"},
+            ),
         },
         coords=coords,
         attrs=attrs,
@@ -372,5 +381,7 @@ def load_from_elevation(
     return load_from_layers(
         base,
         [(thickness, rho)],
-        sea_level=sea_level, water_density=water_density, gravity=gravity,
+        sea_level=sea_level,
+        water_density=water_density,
+        gravity=gravity,
     )

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import os
 
-from .errors import InputError
+from gridflex.errors import InputError
 
 __all__ = ["available_memory", "check_memory"]
 

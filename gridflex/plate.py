@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from .errors import InputError
+from gridflex.errors import InputError
 
 __all__ = ["Plate", "rigidity_from_te", "te_from_rigidity"]
 

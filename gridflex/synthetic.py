@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from .errors import InputError
+from gridflex.errors import InputError
 
 __all__ = [
     "ISLAND_CHAIN",
@@ -70,8 +70,13 @@ def _offsets(points: Points, cx: float, cy: float) -> tuple[np.ndarray, np.ndarr
 
 
 def disc_height(
-    grid: xr.DataArray, radius: float, height: float, cx: float = 0.0, cy: float = 0.0,
-    supersample: int = 8, points: Points | None = None,
+    grid: xr.DataArray,
+    radius: float,
+    height: float,
+    cx: float = 0.0,
+    cy: float = 0.0,
+    supersample: int = 8,
+    points: Points | None = None,
 ) -> xr.DataArray:
     """A flat-topped disc, with each cell weighted by the share of it inside the disc.
 
@@ -102,7 +107,11 @@ def disc_height(
 
 
 def gaussian_height(
-    grid: xr.DataArray, width: float, height: float, cx: float = 0.0, cy: float = 0.0,
+    grid: xr.DataArray,
+    width: float,
+    height: float,
+    cx: float = 0.0,
+    cy: float = 0.0,
     points: Points | None = None,
 ) -> xr.DataArray:
     """h = height exp(-r² / (2 width²)) centred on (cx, cy) (all in m); *points* as in

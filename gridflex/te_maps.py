@@ -13,8 +13,8 @@ import numpy as np
 import scipy.ndimage
 import xarray as xr
 
-from .errors import InputError
-from .grid import check_grid, check_same_grid
+from gridflex.errors import InputError
+from gridflex.grid import check_grid, check_same_grid
 
 __all__ = ["break_mask", "broken_te", "margin_te"]
 

@@ -6,17 +6,22 @@ import math
 import re
 from typing import Any
 
-from .errors import InputError
+from gridflex.errors import InputError
 
 __all__ = ["DIMENSIONS", "parse_quantity", "unit_factor"]
 
 DIMENSIONS: dict[str, dict[str, float]] = {
     "length": {"m": 1.0, "km": 1.0e3, "metre": 1.0, "meter": 1.0, "metres": 1.0, "meters": 1.0},
-    "density": {"kg/m^3": 1.0, "kg/m3": 1.0, "kg m-3": 1.0, "kg m^-3": 1.0, "g/cm^3": 1.0e3,
-                "g/cm3": 1.0e3},
+    "density": {
+        "kg/m^3": 1.0,
+        "kg/m3": 1.0,
+        "kg m-3": 1.0,
+        "kg m^-3": 1.0,
+        "g/cm^3": 1.0e3,
+        "g/cm3": 1.0e3,
+    },
     "pressure": {"Pa": 1.0, "kPa": 1.0e3, "MPa": 1.0e6, "GPa": 1.0e9},
-    "force_per_length": {"N/m": 1.0, "N m-1": 1.0, "kN/m": 1.0e3, "MN/m": 1.0e6,
-                         "TN/m": 1.0e12},
+    "force_per_length": {"N/m": 1.0, "N m-1": 1.0, "kN/m": 1.0e3, "MN/m": 1.0e6, "TN/m": 1.0e12},
     "acceleration": {"m/s^2": 1.0, "m/s2": 1.0, "m s-2": 1.0},
     "rigidity": {"N m": 1.0, "N*m": 1.0, "Nm": 1.0},
     "time": {"yr": 1.0, "year": 1.0, "years": 1.0, "kyr": 1.0e3, "ka": 1.0e3},

@@ -5,13 +5,13 @@ from __future__ import annotations
 import re
 import subprocess
 import sys
-from pathlib import Path
 
 import numpy as np
 
-from gridflex.scenario import SCHEMA
+from gridflex.scenario.schema import SCHEMA
+from tests.helpers import REPO_ROOT
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = REPO_ROOT
 
 
 def test_every_scenario_key_is_documented():
@@ -32,8 +32,12 @@ def test_readme_python_example_runs():
 
 
 def test_example_script_runs(tmp_path):
-    done = subprocess.run([sys.executable, str(REPO / "examples" / "island_chain.py"),
-                           str(tmp_path)], capture_output=True, text=True, timeout=300)
+    done = subprocess.run(
+        [sys.executable, str(REPO / "examples" / "island_chain.py"), str(tmp_path)],
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
     assert done.returncode == 0, done.stderr
     assert "forebulge height" in done.stdout
     assert (tmp_path / "island_chain_api.nc").exists()

@@ -65,12 +65,12 @@ def test_full_sediment_fill_is_sediment_infill_except_the_bulge():
     # displaces water, not sediment (PHYSICS.md 5.1). Periodic domain so that both solves see
     # the same plate. Tolerance: 20x the iteration tolerance.
     load, surface = cone_case()
-    result = solve_with_infill(load, PLATE, surface, Infill(sediment="full"),
-                               edges="periodic", tolerance=1e-6)
+    result = solve_with_infill(
+        load, PLATE, surface, Infill(sediment="full"), edges="periodic", tolerance=1e-6
+    )
     w = result["deflection"].values
     assert w.min() < -1.0  # there is a forebulge, so the correction is exercised
-    sediment_plate = Plate(te=10e3, youngs_modulus=70e9, mantle_density=RHO_M,
-                           infill_density=RHO_S)
+    sediment_plate = Plate(te=10e3, youngs_modulus=70e9, mantle_density=RHO_M, infill_density=RHO_S)
     corrected = load + (RHO_W - RHO_S) * G * np.minimum(w, 0.0)
     linear = solve(corrected, sediment_plate, edges="periodic")
     assert_allclose(w, linear["deflection"].values, atol=2e-5)
@@ -90,8 +90,14 @@ def test_sediment_to_sea_level_in_a_basin():
     zero = xr.DataArray(np.zeros((n, n)), dims=("y", "x"), coords={"y": x, "x": x})
     rule = Infill(sediment="to_level", sediment_level=0.0, fill_existing=True)
     for te in (0.0, 20e3):
-        result = solve_with_infill(zero, Plate(te=te, mantle_density=RHO_M), zero - 500.0, rule,
-                                   edges="periodic", tolerance=1e-8)
+        result = solve_with_infill(
+            zero,
+            Plate(te=te, mantle_density=RHO_M),
+            zero - 500.0,
+            rule,
+            edges="periodic",
+            tolerance=1e-8,
+        )
         assert_allclose(result["deflection"].values, 500.0 * 1370.0 / 900.0, atol=1e-6)
         assert_allclose(result["fill_sediment"].values, 500.0 * 2270.0 / 900.0, atol=1e-6)
         assert_allclose(result["surface"].values, 0.0, atol=1e-6)
@@ -105,12 +111,13 @@ def test_flooding_of_a_subaerial_depression():
     x = np.arange(n) * 1e3
     coords = {"y": x, "x": x}
     q = np.zeros((n, n))
-    q[:, :4] = RHO_M * G * 150.0          # stays above sea level
-    q[:, 4:] = RHO_M * G * 500.0          # would reach 300 m below sea level without water
+    q[:, :4] = RHO_M * G * 150.0  # stays above sea level
+    q[:, 4:] = RHO_M * G * 500.0  # would reach 300 m below sea level without water
     load = xr.DataArray(q, dims=("y", "x"), coords=coords)
     surface = xr.DataArray(np.full((n, n), 200.0), dims=("y", "x"), coords=coords)
-    result = solve_with_infill(load, Plate(te=0.0, mantle_density=RHO_M), surface,
-                               edges="periodic", tolerance=1e-9)
+    result = solve_with_infill(
+        load, Plate(te=0.0, mantle_density=RHO_M), surface, edges="periodic", tolerance=1e-9
+    )
     w = result["deflection"].values
     assert_allclose(w[:, :4], 150.0, rtol=1e-9)
     assert_allclose(w[:, 4:], (q[0, 5] - RHO_W * G * 200.0) / ((RHO_M - RHO_W) * G), rtol=1e-9)
@@ -126,8 +133,10 @@ def emergent_island(n=128, dx=2e3):
     coords = {"y": x, "x": x}
     sub = np.minimum(h, 4000.0)
     q = G * ((RHO_R - RHO_W) * sub + RHO_R * (h - sub))
-    return (xr.DataArray(q, dims=("y", "x"), coords=coords),
-            xr.DataArray(-4000.0 + h, dims=("y", "x"), coords=coords))
+    return (
+        xr.DataArray(q, dims=("y", "x"), coords=coords),
+        xr.DataArray(-4000.0 + h, dims=("y", "x"), coords=coords),
+    )
 
 
 @pytest.mark.parametrize("acceleration", ["anderson", "none"])
@@ -138,8 +147,9 @@ def test_iteration_converges_and_keeps_force_balance(acceleration):
     # tolerance only, relative 1e-6 stated here).
     load, surface = emergent_island()
     rule = Infill(sediment="to_level", sediment_level=-3500.0)
-    result = solve_with_infill(load, PLATE, surface, rule, acceleration=acceleration,
-                               tolerance=1e-4)
+    result = solve_with_infill(
+        load, PLATE, surface, rule, acceleration=acceleration, tolerance=1e-4
+    )
     assert result.attrs["fixed_point_update"] < 1e-4
     assert 1 <= result.attrs["iterations"] < 60
     assert result.attrs["force_balance_residual"] < 1e-6
@@ -149,9 +159,11 @@ def test_iteration_converges_and_keeps_force_balance(acceleration):
     filled = result["fill_sediment"].values > 0
     assert filled.any()
     assert np.all(top[filled] <= -3500.0 + 1e-6)
-    assert_allclose(result["surface"].values,
-                    surface.values - result["deflection"].values
-                    + result["fill_sediment"].values, atol=1e-9)
+    assert_allclose(
+        result["surface"].values,
+        surface.values - result["deflection"].values + result["fill_sediment"].values,
+        atol=1e-9,
+    )
 
 
 def test_anderson_and_plain_iteration_agree():
@@ -171,8 +183,15 @@ def test_shift_equal_to_sediment_density_diverges():
     # the solver must say so instead of returning a grid.
     load, surface = cone_case(n=64)
     with pytest.raises(ConvergenceError, match="did not converge"):
-        solve_with_infill(load, PLATE, surface, Infill(sediment="full"), shift=RHO_S,
-                          acceleration="none", max_iterations=40)
+        solve_with_infill(
+            load,
+            PLATE,
+            surface,
+            Infill(sediment="full"),
+            shift=RHO_S,
+            acceleration="none",
+            max_iterations=40,
+        )
 
 
 def test_pluggable_inner_solver():
@@ -183,6 +202,7 @@ def test_pluggable_inner_solver():
 
     def inner(stiffness, min_stiffness):
         from gridflex.grid import check_grid
+
         spec_args["k0"] = stiffness
         return spectral_inner(check_grid(load), float(PLATE.rigidity), stiffness, min_stiffness)
 
@@ -195,11 +215,21 @@ def test_pluggable_inner_solver():
 def test_outputs_and_progress():
     load, surface = emergent_island(n=64, dx=3e3)
     calls = []
-    result = solve_with_infill(load, PLATE, surface, Infill(sediment="to_level",
-                               sediment_level=-3800.0), progress=lambda i, n: calls.append(i))
+    result = solve_with_infill(
+        load,
+        PLATE,
+        surface,
+        Infill(sediment="to_level", sediment_level=-3800.0),
+        progress=lambda i, n: calls.append(i),
+    )
     assert calls == list(range(1, result.attrs["iterations"] + 1))
-    for name, unit in (("moat_fill", "m"), ("surface", "m"), ("infill_density", "kg m-3"),
-                       ("fill_load", "Pa"), ("deflection", "m")):
+    for name, unit in (
+        ("moat_fill", "m"),
+        ("surface", "m"),
+        ("infill_density", "kg m-3"),
+        ("fill_load", "Pa"),
+        ("deflection", "m"),
+    ):
         assert result[name].attrs["units"] == unit
     assert np.all(result["moat_fill"].values >= 0)
     assert set(np.unique(result["infill_density"].values)) <= {0.0, RHO_W, RHO_S}
@@ -257,11 +287,13 @@ def test_buried_load_local_limit():
     # (rho_m - rho_l) g w = (rho_l - rho_w) g h_obs locally (Te = 0); the observed surface
     # stays; outside, nothing moves. Tolerance: 1e-9 relative.
     loads, h, plate = buried_case()
-    result = solve_with_infill(loads, plate, infill=Infill(load_buried=True), tolerance=1e-9,
-                               edges="periodic")
+    result = solve_with_infill(
+        loads, plate, infill=Infill(load_buried=True), tolerance=1e-9, edges="periodic"
+    )
     under = h > 0
-    assert_allclose(result["deflection"].values[under],
-                    (RHO_R - RHO_W) * h[under] / (RHO_M - RHO_R), rtol=1e-9)
+    assert_allclose(
+        result["deflection"].values[under], (RHO_R - RHO_W) * h[under] / (RHO_M - RHO_R), rtol=1e-9
+    )
     assert_allclose(result["load_root"].values, result["deflection"].values * under, atol=1e-12)
     assert_allclose(result["surface"].values, loads["initial_surface"].values, atol=1e-9)
     assert np.all(result["infill_density"].values[under] == RHO_R)
@@ -273,8 +305,9 @@ def test_buried_load_with_flexure_satisfies_its_equation():
     # checked by one linear solve with infill density = water (periodic: the same plate).
     # Tolerance: 20x the iteration tolerance.
     loads, h, plate = buried_case(te=10e3)
-    result = solve_with_infill(loads, plate, infill=Infill(load_buried=True), tolerance=1e-6,
-                               edges="periodic")
+    result = solve_with_infill(
+        loads, plate, infill=Infill(load_buried=True), tolerance=1e-6, edges="periodic"
+    )
     w = result["deflection"].values
     rhs = loads["load"] + (RHO_R - RHO_W) * G * w * (h > 0)
     linear = solve(rhs, plate.with_te(10e3), edges="periodic")

@@ -10,8 +10,11 @@ from gridflex import InputError, pressure_from_height, pressure_from_layers
 
 
 def _grid(value: float) -> xr.DataArray:
-    return xr.DataArray(np.full((4, 5), value), dims=("y", "x"),
-                        coords={"y": np.arange(4.0) * 1e3, "x": np.arange(5.0) * 1e3})
+    return xr.DataArray(
+        np.full((4, 5), value),
+        dims=("y", "x"),
+        coords={"y": np.arange(4.0) * 1e3, "x": np.arange(5.0) * 1e3},
+    )
 
 
 def test_pressure_is_rho_g_h():

@@ -12,16 +12,17 @@ G = 9.81
 
 def grid(values, dx=1e3):
     ny, nx = values.shape
-    return xr.DataArray(values, dims=("y", "x"),
-                        coords={"y": dx * np.arange(ny), "x": dx * np.arange(nx)})
+    return xr.DataArray(
+        values, dims=("y", "x"), coords={"y": dx * np.arange(ny), "x": dx * np.arange(nx)}
+    )
 
 
 def test_submarine_and_emergent_parts():
     # A rock column replacing water weighs (rho_rock - rho_water) g h; above sea level it
     # weighs rho_rock g h (PHYSICS.md 0 rule 3; Turcotte & Schubert 2002, ch. 3, from memory).
     z = np.full((6, 6), -4000.0)
-    z[2, 2] = -1000.0     # submarine: 3000 m of rock under water
-    z[3, 3] = 500.0       # emergent: 4000 m under water + 500 m in air
+    z[2, 2] = -1000.0  # submarine: 3000 m of rock under water
+    z[3, 3] = 500.0  # emergent: 4000 m under water + 500 m in air
     ds = load_from_elevation(grid(z), 2800.0, -4000.0)
     q = ds["load"].values
     assert_allclose(q[2, 2], (2800.0 - 1030.0) * G * 3000.0, rtol=1e-12)

@@ -14,20 +14,31 @@ from gridflex import InputError, Plate, rigidity_from_te, te_from_rigidity
 def test_rigidity_and_flexural_parameter():
     # D = E Te^3 / (12 (1 - nu^2)) and alpha = (4 D / (drho g))^(1/4):
     # Turcotte & Schubert 2002, Geodynamics, 2nd ed., eqs. 3-72 and 3-127 (from memory).
-    plate = Plate(te=20e3, youngs_modulus=70e9, poisson_ratio=0.25,
-                  mantle_density=3300.0, infill_density=1000.0)
+    plate = Plate(
+        te=20e3,
+        youngs_modulus=70e9,
+        poisson_ratio=0.25,
+        mantle_density=3300.0,
+        infill_density=1000.0,
+    )
     assert plate.rigidity == pytest.approx(70e9 * 20e3**3 / (12 * (1 - 0.25**2)), rel=1e-14)
     # PHYSICS.md table (computed with the same formula): D = 4.978e22 N m, alpha 54.5 km
     assert plate.rigidity == pytest.approx(4.978e22, rel=1e-3)
     assert plate.flexural_parameter == pytest.approx(54.5e3, rel=1e-3)
     assert plate.relative_stiffness_radius == pytest.approx(
-        plate.flexural_parameter / math.sqrt(2), rel=1e-14)
+        plate.flexural_parameter / math.sqrt(2), rel=1e-14
+    )
 
 
 def test_contract_defaults():
     plate = Plate(1e4)
-    assert (plate.youngs_modulus, plate.poisson_ratio, plate.mantle_density,
-            plate.infill_density, plate.gravity) == (1.0e11, 0.25, 3300.0, 1030.0, 9.81)
+    assert (
+        plate.youngs_modulus,
+        plate.poisson_ratio,
+        plate.mantle_density,
+        plate.infill_density,
+        plate.gravity,
+    ) == (1.0e11, 0.25, 3300.0, 1030.0, 9.81)
 
 
 def test_te_zero_is_local():

@@ -8,7 +8,7 @@ from numpy.testing import assert_allclose
 
 from gridflex import InputError
 from gridflex.te_maps import break_mask, broken_te, margin_te
-from tests.conftest import make_grid
+from tests.helpers import make_grid
 
 
 def test_margin_profile_values_and_orientation():

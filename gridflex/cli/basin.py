@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import argparse
 
-from ..basin_scenario import load_basin_scenario
-from ..runner_basin import run_basin
-from .common import add_common_options, add_scenario_argument, progress_printer
+from gridflex.cli.common import add_common_options, add_scenario_argument, progress_printer
+from gridflex.workflows.basin import run_basin
+from gridflex.workflows.basin_tables import load_basin_scenario
 
 NAME = "basin"
 HELP = "fill a basin stage by stage with compaction, or backstrip it, and write the NetCDF"
@@ -19,8 +19,11 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
-    outcome = run_basin(load_basin_scenario(args.scenario), overwrite=args.overwrite,
-                        progress=progress_printer(args))
+    outcome = run_basin(
+        load_basin_scenario(args.scenario),
+        overwrite=args.overwrite,
+        progress=progress_printer(args),
+    )
     if not args.quiet:
         for key, value in outcome.summary.items():
             print(f"{key.replace('_', ' ')}: {value:.6g}")

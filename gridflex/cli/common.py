@@ -8,7 +8,7 @@ import sys
 import warnings
 from collections.abc import Callable
 
-from ..errors import GridflexWarning
+from gridflex.errors import GridflexWarning
 
 __all__ = [
     "add_common_options",
@@ -33,8 +33,9 @@ def add_overwrite_option(parser: argparse.ArgumentParser) -> None:
 def add_common_options(parser: argparse.ArgumentParser) -> None:
     """-q/--quiet and -v/--verbose."""
     group = parser.add_mutually_exclusive_group()
-    group.add_argument("-q", "--quiet", action="store_true",
-                       help="print only errors (no progress, no summary)")
+    group.add_argument(
+        "-q", "--quiet", action="store_true", help="print only errors (no progress, no summary)"
+    )
     group.add_argument("-v", "--verbose", action="store_true", help="print debugging detail")
 
 
@@ -53,8 +54,7 @@ def configure_output(args: argparse.Namespace) -> None:
     elif getattr(args, "quiet", False):
         level = logging.ERROR
     logging.basicConfig(level=level, format="gridflex: %(message)s", stream=sys.stderr, force=True)
-    warnings.simplefilter("ignore" if getattr(args, "quiet", False) else "always",
-                          GridflexWarning)
+    warnings.simplefilter("ignore" if getattr(args, "quiet", False) else "always", GridflexWarning)
     warnings.showwarning = _show_warning
 
 

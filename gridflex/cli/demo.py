@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import argparse
 
-from ..demo import run_demo
-from ..summary import format_summary
-from .common import add_common_options
+from gridflex.cli.common import add_common_options
+from gridflex.results.summary import format_summary
+from gridflex.workflows.demo import run_demo
 
 NAME = "demo"
 HELP = "solve an invented volcanic island chain and write its outputs"
@@ -14,8 +14,9 @@ HELP = "solve an invented volcanic island chain and write its outputs"
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
-    parser.add_argument("--out", default="gridflex-demo",
-                        help="folder for the outputs (default: ./gridflex-demo)")
+    parser.add_argument(
+        "--out", default="gridflex-demo", help="folder for the outputs (default: ./gridflex-demo)"
+    )
     add_common_options(parser)
 
 

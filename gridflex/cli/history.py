@@ -4,8 +4,12 @@ from __future__ import annotations
 
 import argparse
 
-from ..history_scenario import format_history_summary, load_history_scenario, run_history_scenario
-from .common import add_common_options, add_scenario_argument, progress_printer
+from gridflex.cli.common import add_common_options, add_scenario_argument, progress_printer
+from gridflex.workflows.history import (
+    format_history_summary,
+    load_history_scenario,
+    run_history_scenario,
+)
 
 NAME = "history"
 HELP = "run an ice-thickness history (deflection through time, uplift rate, point series)"
@@ -19,8 +23,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
 def execute(args: argparse.Namespace) -> int:
     scenario = load_history_scenario(args.scenario)
-    outcome = run_history_scenario(scenario, overwrite=args.overwrite,
-                                   progress=progress_printer(args))
+    outcome = run_history_scenario(
+        scenario, overwrite=args.overwrite, progress=progress_printer(args)
+    )
     if not args.quiet:
         print(format_history_summary(outcome.summary))
         for path in outcome.written:

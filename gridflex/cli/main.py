@@ -8,10 +8,10 @@ import warnings
 from collections.abc import Sequence
 from types import ModuleType
 
-from .._version import __version__
-from ..errors import ConvergenceError, GridflexError
-from . import basin, demo, fit, history, profile, run, sweep
-from .common import configure_output
+from gridflex._version import __version__
+from gridflex.cli import basin, demo, fit, history, profile, run, sweep
+from gridflex.cli.common import configure_output
+from gridflex.errors import ConvergenceError, GridflexError
 
 COMMANDS: tuple[ModuleType, ...] = (run, history, fit, sweep, demo, profile, basin)
 """Command modules; each has NAME, add_parser(subparsers) and execute(args)."""

@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import argparse
 
-from ..io.netcdf import read_result
-from ..io.tables import write_csv
-from ..plots import plot_profile
-from ..profile import sample_profile
-from .common import add_common_options, add_overwrite_option
+from gridflex.cli.common import add_common_options, add_overwrite_option
+from gridflex.io.netcdf import read_result
+from gridflex.io.plots import plot_profile
+from gridflex.io.tables import write_csv
+from gridflex.results.profile import sample_profile
 
 NAME = "profile"
 HELP = "sample a result grid along a straight line and write a CSV (and a plot)"
@@ -17,10 +17,22 @@ HELP = "sample a result grid along a straight line and write a CSV (and a plot)"
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
     parser.add_argument("result", help="result NetCDF written by 'gridflex run'")
-    parser.add_argument("--start", nargs=2, type=float, required=True, metavar=("X", "Y"),
-                        help="start point in the grid's map coordinates (m, or lon lat)")
-    parser.add_argument("--end", nargs=2, type=float, required=True, metavar=("X", "Y"),
-                        help="end point in the grid's map coordinates")
+    parser.add_argument(
+        "--start",
+        nargs=2,
+        type=float,
+        required=True,
+        metavar=("X", "Y"),
+        help="start point in the grid's map coordinates (m, or lon lat)",
+    )
+    parser.add_argument(
+        "--end",
+        nargs=2,
+        type=float,
+        required=True,
+        metavar=("X", "Y"),
+        help="end point in the grid's map coordinates",
+    )
     parser.add_argument("--csv", required=True, help="CSV file to write")
     parser.add_argument("--plot", help="PNG plot of the profile")
     parser.add_argument("--samples", type=int, help="number of points (default: 2 per cell)")

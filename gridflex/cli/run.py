@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import argparse
 
-from ..runner import run_scenario
-from ..scenario import load_scenario
-from ..summary import format_summary
-from .common import add_common_options, add_scenario_argument, progress_printer
+from gridflex.cli.common import add_common_options, add_scenario_argument, progress_printer
+from gridflex.results.summary import format_summary
+from gridflex.scenario.schema import load_scenario
+from gridflex.workflows.run import run_scenario
 
 NAME = "run"
 HELP = "solve a scenario file and write its NetCDF and map"

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import argparse
 
-from ..run_sweep import sweep_scenario
-from ..scenario import load_scenario
-from .common import add_common_options, add_scenario_argument, progress_printer
+from gridflex.cli.common import add_common_options, add_scenario_argument, progress_printer
+from gridflex.scenario.schema import load_scenario
+from gridflex.workflows.sweep import sweep_scenario
 
 NAME = "sweep"
 HELP = "solve a scenario for every combination of the [sweep] values into one NetCDF"
@@ -15,9 +15,12 @@ HELP = "solve a scenario for every combination of the [sweep] values into one Ne
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
     add_scenario_argument(parser, "scenario file (TOML) with a [sweep] table")
-    parser.add_argument("--scheduler", default=None,
-                        help="dask scheduler address (tcp://host:port) or threads, processes, "
-                             "synchronous; overrides [sweep] scheduler")
+    parser.add_argument(
+        "--scheduler",
+        default=None,
+        help="dask scheduler address (tcp://host:port) or threads, processes, "
+        "synchronous; overrides [sweep] scheduler",
+    )
     add_common_options(parser)
 
 

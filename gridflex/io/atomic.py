@@ -12,7 +12,7 @@ import tempfile
 from collections.abc import Iterable, Iterator
 from pathlib import Path
 
-from ..errors import InputError
+from gridflex.errors import InputError
 
 __all__ = ["atomic_path", "check_output_path"]
 

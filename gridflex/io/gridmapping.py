@@ -19,23 +19,48 @@ __all__ = ["cf_grid_mapping"]
 _FALSE_ORIGIN = {"false_easting": "x_0", "false_northing": "y_0"}
 
 _CF_PROJECTIONS: dict[str, tuple[str, dict[str, str]]] = {
-    "laea": ("lambert_azimuthal_equal_area",
-             {"longitude_of_projection_origin": "lon_0",
-              "latitude_of_projection_origin": "lat_0", **_FALSE_ORIGIN}),
-    "tmerc": ("transverse_mercator",
-              {"longitude_of_central_meridian": "lon_0",
-               "latitude_of_projection_origin": "lat_0",
-               "scale_factor_at_central_meridian": "k_0", **_FALSE_ORIGIN}),
-    "stere": ("polar_stereographic",
-              {"straight_vertical_longitude_from_pole": "lon_0",
-               "latitude_of_projection_origin": "lat_0",
-               "standard_parallel": "lat_ts", **_FALSE_ORIGIN}),
-    "aeqd": ("azimuthal_equidistant",
-             {"longitude_of_projection_origin": "lon_0",
-              "latitude_of_projection_origin": "lat_0", **_FALSE_ORIGIN}),
-    "lcc": ("lambert_conformal_conic",
-            {"longitude_of_central_meridian": "lon_0",
-             "latitude_of_projection_origin": "lat_0", **_FALSE_ORIGIN}),
+    "laea": (
+        "lambert_azimuthal_equal_area",
+        {
+            "longitude_of_projection_origin": "lon_0",
+            "latitude_of_projection_origin": "lat_0",
+            **_FALSE_ORIGIN,
+        },
+    ),
+    "tmerc": (
+        "transverse_mercator",
+        {
+            "longitude_of_central_meridian": "lon_0",
+            "latitude_of_projection_origin": "lat_0",
+            "scale_factor_at_central_meridian": "k_0",
+            **_FALSE_ORIGIN,
+        },
+    ),
+    "stere": (
+        "polar_stereographic",
+        {
+            "straight_vertical_longitude_from_pole": "lon_0",
+            "latitude_of_projection_origin": "lat_0",
+            "standard_parallel": "lat_ts",
+            **_FALSE_ORIGIN,
+        },
+    ),
+    "aeqd": (
+        "azimuthal_equidistant",
+        {
+            "longitude_of_projection_origin": "lon_0",
+            "latitude_of_projection_origin": "lat_0",
+            **_FALSE_ORIGIN,
+        },
+    ),
+    "lcc": (
+        "lambert_conformal_conic",
+        {
+            "longitude_of_central_meridian": "lon_0",
+            "latitude_of_projection_origin": "lat_0",
+            **_FALSE_ORIGIN,
+        },
+    ),
     "merc": ("mercator", {"longitude_of_projection_origin": "lon_0", **_FALSE_ORIGIN}),
 }
 
@@ -67,14 +92,16 @@ def cf_grid_mapping(crs: CRS) -> dict[str, Any]:
         attrs["grid_mapping_name"] = "latitude_longitude"
     elif proj == "utm":
         zone = int(params["zone"])
-        attrs.update({
-            "grid_mapping_name": "transverse_mercator",
-            "longitude_of_central_meridian": float(zone * 6 - 183),
-            "latitude_of_projection_origin": 0.0,
-            "scale_factor_at_central_meridian": 0.9996,
-            "false_easting": 500000.0,
-            "false_northing": 10000000.0 if params.get("south") else 0.0,
-        })
+        attrs.update(
+            {
+                "grid_mapping_name": "transverse_mercator",
+                "longitude_of_central_meridian": float(zone * 6 - 183),
+                "latitude_of_projection_origin": 0.0,
+                "scale_factor_at_central_meridian": 0.9996,
+                "false_easting": 500000.0,
+                "false_northing": 10000000.0 if params.get("south") else 0.0,
+            }
+        )
     elif proj in _CF_PROJECTIONS:
         name, mapping = _CF_PROJECTIONS[proj]
         attrs["grid_mapping_name"] = name

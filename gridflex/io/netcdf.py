@@ -10,11 +10,12 @@ import numpy as np
 import xarray as xr
 from rasterio.crs import CRS
 
-from ..errors import InputError
-from .atomic import atomic_path
-from .gridmapping import cf_grid_mapping
+from gridflex.errors import InputError
+from gridflex.io.atomic import atomic_path
+from gridflex.io.gridmapping import cf_grid_mapping
 
 __all__ = ["read_result", "write_netcdf"]
+
 
 def read_result(path: str | Path) -> xr.Dataset:
     """Read a result written by :func:`write_netcdf` back into memory on ``("y", "x")``.
@@ -66,16 +67,32 @@ def _georeference(ds: xr.Dataset, crs: CRS) -> xr.Dataset:
             var.attrs["grid_mapping"] = "crs"
     if crs.is_geographic:
         out = out.rename({"y": "lat", "x": "lon"})
-        out["lat"].attrs = {"units": "degrees_north", "standard_name": "latitude",
-                            "long_name": "latitude", "axis": "Y"}
-        out["lon"].attrs = {"units": "degrees_east", "standard_name": "longitude",
-                            "long_name": "longitude", "axis": "X"}
+        out["lat"].attrs = {
+            "units": "degrees_north",
+            "standard_name": "latitude",
+            "long_name": "latitude",
+            "axis": "Y",
+        }
+        out["lon"].attrs = {
+            "units": "degrees_east",
+            "standard_name": "longitude",
+            "long_name": "longitude",
+            "axis": "X",
+        }
     else:
         units = "m"
-        out["y"].attrs = {"units": units, "standard_name": "projection_y_coordinate",
-                          "long_name": "y (northing)", "axis": "Y"}
-        out["x"].attrs = {"units": units, "standard_name": "projection_x_coordinate",
-                          "long_name": "x (easting)", "axis": "X"}
+        out["y"].attrs = {
+            "units": units,
+            "standard_name": "projection_y_coordinate",
+            "long_name": "y (northing)",
+            "axis": "Y",
+        }
+        out["x"].attrs = {
+            "units": units,
+            "standard_name": "projection_x_coordinate",
+            "long_name": "x (easting)",
+            "axis": "X",
+        }
     return out
 
 

@@ -4,7 +4,7 @@ Every reader returns the same thing: a float64 :class:`xarray.DataArray` on dims
 ``("y", "x")`` with 1-D cell-centre coordinates in the units of its CRS (degrees
 for geographic grids, metres for projected ones), missing values as NaN, and the
 CRS as WKT in ``attrs["crs_wkt"]`` (``""`` when unknown). :func:`geometry_of`
-turns that back into a :class:`gridflex.geo.GridGeometry`.
+turns that back into a :class:`gridflex.gis.geometry.GridGeometry`.
 
 Missing values: nodata (GeoTIFF) and ``_FillValue``/``missing_value`` (NetCDF)
 become NaN here; what NaN means for a given layer (a load of zero, or an error)
@@ -25,11 +25,11 @@ import xarray as xr
 from rasterio.crs import CRS
 from rasterio.errors import RasterioError
 
-from ..errors import InputError
-from ..geo import GridGeometry, even_step, parse_crs
-from ..memory import check_memory
-from ..units import unit_factor
-from .atomic import atomic_path
+from gridflex.errors import InputError
+from gridflex.gis.geometry import GridGeometry, even_step, parse_crs
+from gridflex.io.atomic import atomic_path
+from gridflex.memory import check_memory
+from gridflex.units import unit_factor
 
 __all__ = ["NETCDF_SUFFIXES", "geometry_of", "read_raster", "write_geotiff"]
 
@@ -40,8 +40,19 @@ NETCDF_SUFFIXES = (".nc", ".nc4", ".cdf", ".netcdf")
 
 _NETCDF_MAGIC = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n")
 _TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")
-_DEGREE_UNITS = {"degree", "degrees", "degrees_east", "degrees_north", "degree_east",
-                 "degree_north", "degrees_e", "degrees_n", "degree_e", "degree_n", "deg"}
+_DEGREE_UNITS = {
+    "degree",
+    "degrees",
+    "degrees_east",
+    "degrees_north",
+    "degree_east",
+    "degree_north",
+    "degrees_e",
+    "degrees_n",
+    "degree_e",
+    "degree_n",
+    "deg",
+}
 _X_NAMES = {"x", "lon", "longitude", "easting", "projection_x_coordinate"}
 _Y_NAMES = {"y", "lat", "latitude", "northing", "projection_y_coordinate"}
 
@@ -72,24 +83,30 @@ def _axis_coords(y: np.ndarray, x: np.ndarray, crs: CRS | None) -> dict[str, Any
 
 
 def _finish(
-    path: Path, name: str, values: np.ndarray, y: np.ndarray, x: np.ndarray,
-    crs: CRS | None, units: str | None, extra: dict[str, Any] | None = None,
+    path: Path,
+    name: str,
+    values: np.ndarray,
+    y: np.ndarray,
+    x: np.ndarray,
+    crs: CRS | None,
+    units: str | None,
+    extra: dict[str, Any] | None = None,
 ) -> xr.DataArray:
     values = np.asarray(values, dtype=np.float64)
     if not np.any(np.isfinite(values)):
-        raise InputError(
-            f"{path}: {name!r} has no valid values (every cell is nodata or NaN)"
-        )
+        raise InputError(f"{path}: {name!r} has no valid values (every cell is nodata or NaN)")
     attrs: dict[str, Any] = {"crs_wkt": "" if crs is None else crs.to_wkt()}
     if units:
         attrs["units"] = str(units)
     attrs.update(extra or {})
     attrs["source_file"] = str(path)
-    return xr.DataArray(values, dims=("y", "x"), coords=_axis_coords(y, x, crs), name=name,
-                        attrs=attrs)
+    return xr.DataArray(
+        values, dims=("y", "x"), coords=_axis_coords(y, x, crs), name=name, attrs=attrs
+    )
 
 
 # --- GDAL ------------------------------------------------------------------------------------
+
 
 def _band_index(src: Any, path: Path, variable: str | None) -> tuple[int, str]:
     names = [d or f"band{i + 1}" for i, d in enumerate(src.descriptions)]
@@ -103,9 +120,7 @@ def _band_index(src: Any, path: Path, variable: str | None) -> tuple[int, str]:
     for i, name in enumerate(names):
         if variable in (name, f"band{i + 1}", str(i + 1)):
             return i + 1, name
-    raise InputError(
-        f"{path}: no band {variable!r}; bands are {', '.join(map(repr, names))}"
-    )
+    raise InputError(f"{path}: no band {variable!r}; bands are {', '.join(map(repr, names))}")
 
 
 def _read_gdal(path: Path, variable: str | None) -> xr.DataArray:
@@ -119,9 +134,7 @@ def _read_gdal(path: Path, variable: str | None) -> xr.DataArray:
                     "warp it to a north-up grid first (e.g. gdalwarp)"
                 )
             if src.crs is None and t.is_identity:
-                raise InputError(
-                    f"{path}: has no georeferencing (no CRS and no geotransform)"
-                )
+                raise InputError(f"{path}: has no georeferencing (no CRS and no geotransform)")
             crs = None
             if src.crs is not None:
                 crs = parse_crs(src.crs, f"{path}: CRS")
@@ -146,17 +159,24 @@ def _read_gdal(path: Path, variable: str | None) -> xr.DataArray:
 
 # --- NetCDF ----------------------------------------------------------------------------------
 
+
 def _role(coord: xr.DataArray, dim: str) -> str | None:
     """'x', 'y' or None from CF attributes and the name."""
     attrs = coord.attrs
     axis = str(attrs.get("axis", "")).upper()
     std = str(attrs.get("standard_name", "")).lower()
     units = str(attrs.get("units", "")).lower()
-    if axis == "X" or std in ("longitude", "projection_x_coordinate", "grid_longitude") \
-            or units in ("degrees_east", "degree_east", "degrees_e", "degree_e"):
+    if (
+        axis == "X"
+        or std in ("longitude", "projection_x_coordinate", "grid_longitude")
+        or units in ("degrees_east", "degree_east", "degrees_e", "degree_e")
+    ):
         return "x"
-    if axis == "Y" or std in ("latitude", "projection_y_coordinate", "grid_latitude") \
-            or units in ("degrees_north", "degree_north", "degrees_n", "degree_n"):
+    if (
+        axis == "Y"
+        or std in ("latitude", "projection_y_coordinate", "grid_latitude")
+        or units in ("degrees_north", "degree_north", "degrees_n", "degree_n")
+    ):
         return "y"
     if dim.lower() in _X_NAMES:
         return "x"
@@ -171,8 +191,12 @@ def _in_degrees(coord: xr.DataArray, dim: str) -> bool:
     if units:
         return units in _DEGREE_UNITS
     std = str(coord.attrs.get("standard_name", "")).lower()
-    return std in ("latitude", "longitude") or dim.lower() in ("lat", "lon", "latitude",
-                                                               "longitude")
+    return std in ("latitude", "longitude") or dim.lower() in (
+        "lat",
+        "lon",
+        "latitude",
+        "longitude",
+    )
 
 
 def _grid_mapping_crs(ds: xr.Dataset, da: xr.DataArray, where: str) -> CRS | None:
@@ -256,9 +280,7 @@ def _read_netcdf(path: Path, variable: str | None) -> xr.DataArray:
                     "CRS is geographic (degrees)"
                 )
         elif is_degree:
-            raise InputError(
-                f"{where}: coordinate {dim!r} is in degrees but the CRS is projected"
-            )
+            raise InputError(f"{where}: coordinate {dim!r} is in degrees but the CRS is projected")
         elif crs is None or crs.linear_units_factor[1] == 1.0:
             units = str(da[dim].attrs.get("units", "m")).strip() or "m"
             values = values * unit_factor(units, "length", f"{where}: coordinate {dim!r}")
@@ -315,7 +337,7 @@ def read_raster(path: str | Path, variable: str | None = None) -> xr.DataArray:
 
 
 def geometry_of(da: xr.DataArray) -> GridGeometry:
-    """The :class:`~gridflex.geo.GridGeometry` of a grid from :func:`read_raster`.
+    """The :class:`~gridflex.gis.geometry.GridGeometry` of a grid from :func:`read_raster`.
 
     Uses the ``y``/``x`` coordinates and ``attrs["crs_wkt"]`` (missing or empty:
     unknown CRS in metres).
@@ -378,9 +400,16 @@ def write_geotiff(
         values = np.where(np.isnan(values), dtype(nodata), values)
     ny, nx = values.shape
     profile: dict[str, Any] = {
-        "driver": "GTiff", "width": nx, "height": ny, "count": 1, "dtype": np.dtype(dtype).name,
-        "crs": crs, "transform": up.transform, "nodata": nodata,
-        "compress": "deflate", "predictor": 3,
+        "driver": "GTiff",
+        "width": nx,
+        "height": ny,
+        "count": 1,
+        "dtype": np.dtype(dtype).name,
+        "crs": crs,
+        "transform": up.transform,
+        "nodata": nodata,
+        "compress": "deflate",
+        "predictor": 3,
     }
     if nx >= 256 and ny >= 256:
         profile.update(tiled=True, blockxsize=256, blockysize=256)

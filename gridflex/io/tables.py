@@ -9,8 +9,8 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from ..errors import InputError
-from .atomic import atomic_path
+from gridflex.errors import InputError
+from gridflex.io.atomic import atomic_path
 
 __all__ = ["write_csv"]
 

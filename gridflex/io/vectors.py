@@ -19,9 +19,10 @@ import numpy as np
 import xarray as xr
 from rasterio.crs import CRS
 
-from ..errors import InputError
-from ..geo import parse_crs, to_lonlat
-from ..outlines import (
+from gridflex.errors import InputError
+from gridflex.gis.geometry import parse_crs, to_lonlat
+from gridflex.io.atomic import atomic_path
+from gridflex.results.outlines import (
     Polygon,
     check_moat_depth,
     forebulge_crest,
@@ -29,7 +30,6 @@ from ..outlines import (
     signed_area,
     zero_line,
 )
-from .atomic import atomic_path
 
 __all__ = ["COORDINATE_DECIMALS", "outline_features", "write_geojson"]
 
@@ -81,8 +81,11 @@ def _positions(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
 
 
 def _ring(
-    points: np.ndarray, crs: CRS, counter_clockwise: bool,
-    seam: _Seam | None = None, far: bool = False,
+    points: np.ndarray,
+    crs: CRS,
+    counter_clockwise: bool,
+    seam: _Seam | None = None,
+    far: bool = False,
 ) -> list[list[float]] | None:
     lon, lat = to_lonlat(points[:, 0], points[:, 1], crs)
     if seam is not None:  # a piece cut at the antimeridian: snap onto it, then shift
@@ -109,8 +112,9 @@ def _polygon(
     return [exterior, *holes]
 
 
-def _moat_polygons(deflection: xr.DataArray, depth: float, crs: CRS,
-                   seam: _Seam | None) -> list[list[list[list[float]]]]:
+def _moat_polygons(
+    deflection: xr.DataArray, depth: float, crs: CRS, seam: _Seam | None
+) -> list[list[list[list[float]]]]:
     """Moat polygons in lon/lat; cut along the antimeridian when the domain crosses it."""
     if seam is None:
         pieces = [(moat_outline(deflection, depth), False)]
@@ -123,8 +127,12 @@ def _moat_polygons(deflection: xr.DataArray, depth: float, crs: CRS,
         distance = (lon - seam.at) if seam.at < 0 else (seam.at - lon)  # >= 0 on the near side
         scale = abs(float(depth))
         pieces = [
-            (moat_outline(deflection.copy(data=np.minimum(w, depth + scale * sign * distance)),
-                          depth), far)
+            (
+                moat_outline(
+                    deflection.copy(data=np.minimum(w, depth + scale * sign * distance)), depth
+                ),
+                far,
+            )
             for sign, far in ((1.0, False), (-1.0, True))
         ]
     out = []
@@ -155,7 +163,7 @@ def _split_at_seam(lon: np.ndarray, lat: np.ndarray, seam: _Seam) -> list:
     parts, start = [], 0
     pending: tuple[float, float] | None = None
     for i in [*cuts, len(lon) - 1]:
-        plon, plat = list(lon[start: i + 1]), list(lat[start: i + 1])
+        plon, plat = list(lon[start : i + 1]), list(lat[start : i + 1])
         if pending is not None:
             plon.insert(0, pending[0])
             plat.insert(0, pending[1])
@@ -173,8 +181,10 @@ def _split_at_seam(lon: np.ndarray, lat: np.ndarray, seam: _Seam) -> list:
     closed = lon[0] == lon[-1] and lat[0] == lat[-1]
     if closed and len(parts) >= 3:  # a loop: its first and last pieces are one
         (lon_a, lat_a), (lon_b, lat_b) = parts[-1], parts[0]
-        parts = [(np.concatenate([lon_a, lon_b[1:]]), np.concatenate([lat_a, lat_b[1:]])),
-                 *parts[1:-1]]
+        parts = [
+            (np.concatenate([lon_a, lon_b[1:]]), np.concatenate([lat_a, lat_b[1:]])),
+            *parts[1:-1],
+        ]
     return parts
 
 
@@ -228,38 +238,63 @@ def outline_features(result: xr.Dataset, crs: CRS | str | None, moat_depth: floa
 
     polygons = _moat_polygons(deflection, moat_depth, crs, seam)
     if polygons:
-        geometry = ({"type": "Polygon", "coordinates": polygons[0]} if len(polygons) == 1
-                    else {"type": "MultiPolygon", "coordinates": polygons})
-        features.append(_feature(geometry, {
-            "name": "moat", "long_name": f"region where the deflection is at least {moat_depth} m",
-            "level": float(moat_depth), "units": "m",
-        }))
+        geometry = (
+            {"type": "Polygon", "coordinates": polygons[0]}
+            if len(polygons) == 1
+            else {"type": "MultiPolygon", "coordinates": polygons}
+        )
+        features.append(
+            _feature(
+                geometry,
+                {
+                    "name": "moat",
+                    "long_name": f"region where the deflection is at least {moat_depth} m",
+                    "level": float(moat_depth),
+                    "units": "m",
+                },
+            )
+        )
     else:
         log.info("deflection never reaches the moat depth %s m: no moat outline", moat_depth)
 
     crest = _lines(forebulge_crest(deflection, result["load"]), crs, seam)
     if crest:
-        features.append(_feature({"type": "MultiLineString", "coordinates": crest}, {
-            "name": "forebulge_crest",
-            "long_name": "forebulge crest (level: the deflection at the highest uplift)",
-            "level": float(np.nanmin(w)), "units": "m",
-        }))
+        features.append(
+            _feature(
+                {"type": "MultiLineString", "coordinates": crest},
+                {
+                    "name": "forebulge_crest",
+                    "long_name": "forebulge crest (level: the deflection at the highest uplift)",
+                    "level": float(np.nanmin(w)),
+                    "units": "m",
+                },
+            )
+        )
     else:
         log.info("no forebulge crest found")
 
     zero = _lines(zero_line(deflection), crs, seam)
     if zero:
-        features.append(_feature({"type": "MultiLineString", "coordinates": zero}, {
-            "name": "zero_deflection", "long_name": "zero-deflection line",
-            "level": 0.0, "units": "m",
-        }))
+        features.append(
+            _feature(
+                {"type": "MultiLineString", "coordinates": zero},
+                {
+                    "name": "zero_deflection",
+                    "long_name": "zero-deflection line",
+                    "level": 0.0,
+                    "units": "m",
+                },
+            )
+        )
     else:
         log.info("no zero-deflection line found")
     return features
 
 
 def write_geojson(
-    features: Iterable[dict], path: str | Path, overwrite: bool = False,
+    features: Iterable[dict],
+    path: str | Path,
+    overwrite: bool = False,
     inputs: Iterable[str | Path] = (),
 ) -> Path:
     """Write *features* as a GeoJSON FeatureCollection (RFC 7946), atomically.

@@ -13,8 +13,8 @@ from collections.abc import Callable
 
 import numpy as np
 
-from ..errors import ConvergenceError
-from .row_blocks import block_rows, for_row_blocks, thread_count
+from gridflex.errors import ConvergenceError
+from gridflex.solvers.row_blocks import block_rows, for_row_blocks, thread_count
 
 __all__ = ["Operator", "Preconditioner", "Progress", "conjugate_gradient"]
 
@@ -43,9 +43,7 @@ class _Vectors:
         grid = rhs.reshape(rhs.shape[0], -1) if rhs.ndim >= 2 else rhs.reshape(1, -1)
         self.shape2 = grid.shape
         self.rows = block_rows(self.shape2[1], self.shape2[0])
-        self.x, self.r, self.z, self.z_old, self.p, self.q = (
-            np.zeros(rhs.shape) for _ in range(6)
-        )
+        self.x, self.r, self.z, self.z_old, self.p, self.q = (np.zeros(rhs.shape) for _ in range(6))
         self._tmp = [np.empty((self.rows, self.shape2[1])) for _ in range(thread_count())]
 
     def _grid(self, a: np.ndarray) -> np.ndarray:
@@ -54,10 +52,13 @@ class _Vectors:
     def dot(self, a: np.ndarray, b: np.ndarray) -> float:
         """Σ a b, block by block (fixed order)."""
         a2, b2 = self._grid(a), self._grid(b)
-        return math.fsum(for_row_blocks(
-            self.shape2[0], self.rows,
-            lambda j0, j1, _t: float(np.einsum("ij,ij->", a2[j0:j1], b2[j0:j1])),
-        ))
+        return math.fsum(
+            for_row_blocks(
+                self.shape2[0],
+                self.rows,
+                lambda j0, j1, _t: float(np.einsum("ij,ij->", a2[j0:j1], b2[j0:j1])),
+            )
+        )
 
     def step(self, alpha: float) -> float:
         """x += alpha p; r -= alpha q; returns ||r||²."""
@@ -80,8 +81,10 @@ class _Vectors:
 
         def work(j0: int, j1: int, _t: int) -> tuple[float, float]:
             rb = r[j0:j1]
-            return (float(np.einsum("ij,ij->", rb, z[j0:j1])),
-                    float(np.einsum("ij,ij->", rb, z_old[j0:j1])))
+            return (
+                float(np.einsum("ij,ij->", rb, z[j0:j1])),
+                float(np.einsum("ij,ij->", rb, z_old[j0:j1])),
+            )
 
         parts = for_row_blocks(self.shape2[0], self.rows, work)
         return math.fsum(a for a, _ in parts), math.fsum(b for _, b in parts)

@@ -30,7 +30,7 @@ import logging
 import numpy as np
 import scipy.fft
 
-from .row_blocks import block_rows, for_row_blocks, thread_count
+from gridflex.solvers.row_blocks import block_rows, for_row_blocks, thread_count
 
 __all__ = ["COLUMN_BLOCK", "BlockedSpectralFilter"]
 
@@ -112,7 +112,9 @@ class BlockedSpectralFilter:
     """
 
     def __init__(
-        self, shape: tuple[int, int], fft_shape: tuple[int, int],
+        self,
+        shape: tuple[int, int],
+        fft_shape: tuple[int, int],
         dtype: np.dtype | type = np.float64,
     ) -> None:
         self.shape = (int(shape[0]), int(shape[1]))

@@ -17,21 +17,25 @@ from typing import Any
 import numpy as np
 import scipy.fft
 
-from ..errors import ConvergenceError, InputError
-from ..grid import GridSpec
-from ..memory import check_memory
-from .blas_threads import single_threaded_blas
-from .conjugate_gradient import Progress, conjugate_gradient
-from .plate_operator import AXIS_EDGES, PlateOperator, area_weights, corner_rigidity
-from .preconditioners import BandSolver, BlendPreconditioner, MultiplicativePreconditioner
-from .rigidity_features import (
+from gridflex.errors import ConvergenceError, InputError
+from gridflex.grid import GridSpec
+from gridflex.memory import check_memory
+from gridflex.solvers.blas_threads import single_threaded_blas
+from gridflex.solvers.conjugate_gradient import Progress, conjugate_gradient
+from gridflex.solvers.plate_operator import AXIS_EDGES, PlateOperator, area_weights, corner_rigidity
+from gridflex.solvers.preconditioners import (
+    BandSolver,
+    BlendPreconditioner,
+    MultiplicativePreconditioner,
+)
+from gridflex.solvers.rigidity_features import (
     BAND_FLEXURAL_PARAMETERS,
     BREAK_FLEXURAL_PARAMETERS,
     STEEP_FLEXURAL_PARAMETERS,
     find_sharp_features,
     sharp_band,
 )
-from .spectral import DEFAULT_PAD_FACTOR
+from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 
 __all__ = [
     "AXIS_EDGES",
@@ -160,8 +164,12 @@ def _check_arguments(
 
 
 def _solve_grid(
-    load: np.ndarray, spec: GridSpec, rigidity: np.ndarray, stiffness: float,
-    edges: str | tuple[str, str], pad_factor: float,
+    load: np.ndarray,
+    spec: GridSpec,
+    rigidity: np.ndarray,
+    stiffness: float,
+    edges: str | tuple[str, str],
+    pad_factor: float,
 ) -> tuple[np.ndarray, np.ndarray, tuple[str, str]]:
     """Rigidity and load on the solve grid, and its axis edges.
 
@@ -203,7 +211,10 @@ def _preconditioner(
     blend = BlendPreconditioner.build(operator, nodes)
     log.info(
         "finite-difference solve on %s nodes: %d blend levels, band of %d nodes (%.0f m)",
-        operator.shape, blend.levels.size, band.size, width_used,
+        operator.shape,
+        blend.levels.size,
+        band.size,
+        width_used,
     )
     return MultiplicativePreconditioner(operator, blend, band), width_used
 
@@ -294,7 +305,9 @@ def finite_difference_deflection(
     if floor > 0.5 * tolerance:
         log.warning(
             "tolerance %.1e is close to the round-off limit (about %.0e) of a plate this "
-            "stiff on cells this small; the iteration may stop short of it", tolerance, floor,
+            "stiff on cells this small; the iteration may stop short of it",
+            tolerance,
+            floor,
         )
     with single_threaded_blas():  # see gridflex.solvers.blas_threads
         preconditioner, width_used = _preconditioner(operator, band_width, max_band_nodes)
@@ -302,8 +315,14 @@ def finite_difference_deflection(
         setup = time.perf_counter() - start
         try:
             x, iterations, residual = conjugate_gradient(
-                operator.apply, rhs, preconditioner.apply, float(tolerance), int(max_iterations),
-                progress, preconditioner.initial_guess(rhs), preconditioner.use_double_precision,
+                operator.apply,
+                rhs,
+                preconditioner.apply,
+                float(tolerance),
+                int(max_iterations),
+                progress,
+                preconditioner.initial_guess(rhs),
+                preconditioner.use_double_precision,
             )
         except ConvergenceError as exc:
             cells = (4.0 * float(solve_rigidity.max()) / stiffness) ** 0.25 / min(spec.dx, spec.dy)

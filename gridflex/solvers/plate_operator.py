@@ -31,8 +31,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.sparse as sp
 
-from ..errors import InputError
-from .row_blocks import block_rows, for_row_blocks, thread_count
+from gridflex.errors import InputError
+from gridflex.solvers.row_blocks import block_rows, for_row_blocks, thread_count
 
 __all__ = ["AXIS_EDGES", "PlateOperator", "area_weights", "corner_rigidity"]
 
@@ -312,10 +312,21 @@ class PlateOperator:
         diagonal_nodes = np.flatnonzero(diagonal)
         # the weights carry the 1/h^4 of the differences (taken undivided)
         return cls(
-            rigidity, float(stiffness), nu, float(dy), float(dx), edges, area,
-            bend, corner, diagonal_nodes, diagonal.ravel()[diagonal_nodes],
-            valid_x / dx**4, valid_y / dy**4,
-            (nu / (dx * dy) ** 2) * valid_x, None if valid_y.all() else valid_y,
+            rigidity,
+            float(stiffness),
+            nu,
+            float(dy),
+            float(dx),
+            edges,
+            area,
+            bend,
+            corner,
+            diagonal_nodes,
+            diagonal.ravel()[diagonal_nodes],
+            valid_x / dx**4,
+            valid_y / dy**4,
+            (nu / (dx * dy) ** 2) * valid_x,
+            None if valid_y.all() else valid_y,
         )
 
     @property
@@ -351,7 +362,8 @@ class PlateOperator:
         ny, nx = self.shape
         result = np.empty((ny, nx)) if out is None else out.reshape(ny, nx)
         for_row_blocks(
-            ny, work.rows,
+            ny,
+            work.rows,
             lambda j0, j1, thread: self._apply_rows(work, w, result, j0, j1, thread),
         )
         if self._diagonal_nodes.size:
@@ -368,7 +380,7 @@ class PlateOperator:
         inner_lo, inner_hi = max(lo, 0), min(hi, ny)
         ext[inner_lo - lo : inner_hi - lo, 1:-1] = w[inner_lo:inner_hi]
         if lo < 0:
-            ext[: -lo, 1:-1] = w[ny + lo :] if periodic_y else 0.0
+            ext[:-lo, 1:-1] = w[ny + lo :] if periodic_y else 0.0
         if hi > ny:
             ext[inner_hi - lo :, 1:-1] = w[: hi - ny] if periodic_y else 0.0
         if periodic_x:  # (otherwise the ghost columns stay zero: never written)
@@ -376,8 +388,13 @@ class PlateOperator:
             ext[:, -1] = ext[:, 1]
 
     def _apply_rows(
-        self, work: _Workspace, w: np.ndarray, result: np.ndarray,
-        j0: int, j1: int, thread: int,
+        self,
+        work: _Workspace,
+        w: np.ndarray,
+        result: np.ndarray,
+        j0: int,
+        j1: int,
+        thread: int,
     ) -> None:
         """Rows j0..j1-1 of K w, gathered from moments on rows j0-1..j1 and twists on
         corner rows j0..j1."""
@@ -474,8 +491,10 @@ class PlateOperator:
         j, i = np.divmod(nodes, self.shape[1])
         xx = {d: self._weight_at("xx", j, i, 0, d) for d in (-1, 0, 1)}
         yy = {d: self._weight_at("yy", j, i, d, 0) for d in (-1, 0, 1)}
-        cross = {(dj, di): self._weight_at("cross", j, i, dj, di)
-                 for dj, di in ((0, 0), (0, -1), (0, 1), (-1, 0), (1, 0))}
+        cross = {
+            (dj, di): self._weight_at("cross", j, i, dj, di)
+            for dj, di in ((0, 0), (0, -1), (0, 1), (-1, 0), (1, 0))
+        }
         # twist weights of the four corners round node (j, i): corner (J, I) lies between
         # nodes (J - 1, I - 1) and (J, I)
         corner = {(dj, di): self._corner[j + dj, i + di] for dj in (0, 1) for di in (0, 1)}
@@ -486,16 +505,34 @@ class PlateOperator:
             offsets.append(offset)
             values.append(value)
 
-        add((0, 0), xx[-1] + 4.0 * xx[0] + xx[1] + yy[-1] + 4.0 * yy[0] + yy[1]
-            + 8.0 * cross[0, 0] + corner[0, 0] + corner[0, 1] + corner[1, 0] + corner[1, 1])
-        add((0, 1), -2.0 * (xx[0] + xx[1] + cross[0, 0] + cross[0, 1])
-            - corner[0, 1] - corner[1, 1])
-        add((0, -1), -2.0 * (xx[0] + xx[-1] + cross[0, 0] + cross[0, -1])
-            - corner[0, 0] - corner[1, 0])
-        add((1, 0), -2.0 * (yy[0] + yy[1] + cross[0, 0] + cross[1, 0])
-            - corner[1, 0] - corner[1, 1])
-        add((-1, 0), -2.0 * (yy[0] + yy[-1] + cross[0, 0] + cross[-1, 0])
-            - corner[0, 0] - corner[0, 1])
+        add(
+            (0, 0),
+            xx[-1]
+            + 4.0 * xx[0]
+            + xx[1]
+            + yy[-1]
+            + 4.0 * yy[0]
+            + yy[1]
+            + 8.0 * cross[0, 0]
+            + corner[0, 0]
+            + corner[0, 1]
+            + corner[1, 0]
+            + corner[1, 1],
+        )
+        add(
+            (0, 1), -2.0 * (xx[0] + xx[1] + cross[0, 0] + cross[0, 1]) - corner[0, 1] - corner[1, 1]
+        )
+        add(
+            (0, -1),
+            -2.0 * (xx[0] + xx[-1] + cross[0, 0] + cross[0, -1]) - corner[0, 0] - corner[1, 0],
+        )
+        add(
+            (1, 0), -2.0 * (yy[0] + yy[1] + cross[0, 0] + cross[1, 0]) - corner[1, 0] - corner[1, 1]
+        )
+        add(
+            (-1, 0),
+            -2.0 * (yy[0] + yy[-1] + cross[0, 0] + cross[-1, 0]) - corner[0, 0] - corner[0, 1],
+        )
         add((0, 2), xx[1])
         add((0, -2), xx[-1])
         add((2, 0), yy[1])

@@ -27,9 +27,9 @@ import scipy.fft
 import scipy.ndimage
 import scipy.sparse.linalg as spla
 
-from .fft_buffers import BlockedSpectralFilter
-from .plate_operator import PlateOperator
-from .row_blocks import block_rows, dot, for_row_blocks, thread_count
+from gridflex.solvers.fft_buffers import BlockedSpectralFilter
+from gridflex.solvers.plate_operator import PlateOperator
+from gridflex.solvers.row_blocks import block_rows, dot, for_row_blocks, thread_count
 
 __all__ = [
     "BandSolver",
@@ -139,9 +139,7 @@ def smooth_like_gaussian(
     for axis in (0, 1):
         for width in _box_widths(sigma[axis]):
             if width > 1:
-                scipy.ndimage.uniform_filter1d(
-                    values, width, axis, output=spare, mode=modes[axis]
-                )
+                scipy.ndimage.uniform_filter1d(values, width, axis, output=spare, mode=modes[axis])
                 values, spare = spare, values
     return values
 
@@ -215,15 +213,11 @@ class BlendPreconditioner:
     _stiffness: float
     single: bool = SINGLE_PRECISION_FFT
     _transfers: dict[np.dtype, list[np.ndarray]] = field(default_factory=dict, repr=False)
-    _filters: dict[np.dtype, list[BlockedSpectralFilter]] = field(
-        default_factory=dict, repr=False
-    )
+    _filters: dict[np.dtype, list[BlockedSpectralFilter]] = field(default_factory=dict, repr=False)
     _tmp: list[np.ndarray] = field(default_factory=list, repr=False)
 
     @classmethod
-    def build(
-        cls, operator: PlateOperator, band: np.ndarray | None = None
-    ) -> BlendPreconditioner:
+    def build(cls, operator: PlateOperator, band: np.ndarray | None = None) -> BlendPreconditioner:
         """Levels and weights for *operator*'s rigidity grid.
 
         Nodes of zero rigidity take no part in the blend: their term is the exact local
@@ -282,8 +276,14 @@ class BlendPreconditioner:
             weights = list(_level_weights(operator, levels, plate, band))
         used = [i for i, c in enumerate(weights) if c is None or c.any()]
         return cls(
-            levels[used], fft_shape, shape, [weights[i] for i in used], local,
-            spacing, stiffness, SINGLE_PRECISION_FFT,
+            levels[used],
+            fft_shape,
+            shape,
+            [weights[i] for i in used],
+            local,
+            spacing,
+            stiffness,
+            SINGLE_PRECISION_FFT,
         )
 
     def _dtype(self) -> np.dtype:
@@ -419,7 +419,9 @@ class BandSolver:
         # diagonal pivots (measured on the step of tests/benchmarks/variable.py at 1024²:
         # 22 M factor entries and 1.0-1.9 s, against 36 M and 1.8-2.9 s with COLAMD)
         factor = spla.splu(
-            k_rows[:, position].tocsc(), permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
+            k_rows[:, position].tocsc(),
+            permc_spec="MMD_AT_PLUS_A",
+            diag_pivot_thresh=0.0,
             options={"SymmetricMode": True},
         )
         log.info("band LU of %d nodes", nodes.size)  # (factor.L builds a copy: not asked)

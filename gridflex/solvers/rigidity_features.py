@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.ndimage
 
-from .plate_operator import PlateOperator
+from gridflex.solvers.plate_operator import PlateOperator
 
 __all__ = [
     "BAND_FLEXURAL_PARAMETERS",
@@ -161,8 +161,7 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
     # the band width: by the kind of feature, of the weakest plate next to it
     touches_zero = low == 0 if broken else np.zeros(rigidity.shape, dtype=bool)
     weakest_next = (
-        _extreme3(np.where(plate, rigidity, np.float32(np.inf)), modes, False) if broken
-        else low
+        _extreme3(np.where(plate, rigidity, np.float32(np.inf)), modes, False) if broken else low
     )
     jump = jumpy & ~touches_zero
     gentle = (steep | edge_nodes) & ~touches_zero & ~jump
@@ -226,6 +225,9 @@ def sharp_band(
     log.warning(
         "the sharp features alone (%d nodes, about %.1f GiB of LU factors) exceed the band "
         "cap (%d nodes, %.1f GiB); solving without the band (more iterations)",
-        count, factor_bytes / 2**30, max_nodes, MAX_FACTOR_BYTES / 2**30,
+        count,
+        factor_bytes / 2**30,
+        max_nodes,
+        MAX_FACTOR_BYTES / 2**30,
     )
     return np.zeros(0, dtype=np.int64), 0.0, sharp

@@ -19,9 +19,9 @@ from functools import lru_cache
 import numpy as np
 import scipy.fft
 
-from ..errors import InputError
-from ..grid import GridSpec, padded_shape, wavenumbers_squared
-from ..memory import check_memory
+from gridflex.errors import InputError
+from gridflex.grid import GridSpec, padded_shape, wavenumbers_squared
+from gridflex.memory import check_memory
 
 __all__ = [
     "SpectralProblem",
@@ -123,8 +123,8 @@ def transfer_function(
     denom = np.empty((shape[0], kx2.shape[1]), dtype=np.float64)
     # in blocks of rows that stay in cache: a few passes per block, one over memory
     for start in range(0, shape[0], _BLOCK_ROWS):
-        block = denom[start: start + _BLOCK_ROWS]
-        rows = ky2[start: start + _BLOCK_ROWS]
+        block = denom[start : start + _BLOCK_ROWS]
+        rows = ky2[start : start + _BLOCK_ROWS]
         np.add(rows, kx2, out=block)
         np.square(block, out=block)
         block *= rigidity
@@ -228,8 +228,13 @@ class SpectralProblem:
     def transfer(self) -> np.ndarray:
         """The (cached) transfer function on this problem's FFT grid."""
         return transfer_function(
-            self.shape, self.spec.dy, self.spec.dx, self.rigidity, self.stiffness,
-            float(self.force_x), float(self.force_y),
+            self.shape,
+            self.spec.dy,
+            self.spec.dx,
+            self.rigidity,
+            self.stiffness,
+            float(self.force_x),
+            float(self.force_y),
         )
 
     def deflection(

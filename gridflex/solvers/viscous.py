@@ -36,10 +36,10 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.fft
 
-from ..errors import InputError
-from ..grid import GridSpec, padded_shape, wavenumbers_squared
-from ..memory import check_memory
-from .spectral import DEFAULT_PAD_FACTOR, decay_length, transfer_function
+from gridflex.errors import InputError
+from gridflex.grid import GridSpec, padded_shape, wavenumbers_squared
+from gridflex.memory import check_memory
+from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, decay_length, transfer_function
 
 __all__ = [
     "INTERPOLATIONS",
@@ -215,8 +215,11 @@ class SpectralRelaxation:
                 f"interpolation must be one of {', '.join(map(repr, INTERPOLATIONS))}; "
                 f"got {interpolation!r}"
             )
-        for name, value in (("stiffness", stiffness), ("viscosity", viscosity),
-                            ("relaxation_time", relaxation_time)):
+        for name, value in (
+            ("stiffness", stiffness),
+            ("viscosity", viscosity),
+            ("relaxation_time", relaxation_time),
+        ):
             if not (math.isfinite(value) and value > 0):
                 raise InputError(f"{name} must be a finite positive number, got {value!r}")
         if not (math.isfinite(rigidity) and rigidity >= 0):
@@ -246,8 +249,14 @@ class SpectralRelaxation:
         )
         half = (shape[0], shape[1] // 2 + 1)
         return cls(
-            spec, shape, model, interpolation, transfer, rates,
-            np.zeros(half, dtype=np.complex128), np.zeros(half, dtype=np.complex128),
+            spec,
+            shape,
+            model,
+            interpolation,
+            transfer,
+            rates,
+            np.zeros(half, dtype=np.complex128),
+            np.zeros(half, dtype=np.complex128),
         )
 
     # -- transforms ---------------------------------------------------------------

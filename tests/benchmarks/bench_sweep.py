@@ -1,4 +1,4 @@
-"""Benchmark: gridflex.sweep (dask, local threads) against a plain loop of gridflex.solve.
+"""Benchmark: gridflex.sweep (dask, local threads) against a plain loop of gridflex.engine.
 
 Run: PYTHONPATH=. python tests/benchmarks/bench_sweep.py [n]
 Prints both times and their ratio, measured in the same process (best of two).
@@ -19,8 +19,9 @@ def main(n: int = 256) -> None:
     dx = 4e3
     x = (np.arange(n) - n / 2) * dx
     xx, yy = np.meshgrid(x, x)
-    load = xr.DataArray(2e7 * np.exp(-(xx**2 + yy**2) / (2 * 25e3**2)), dims=("y", "x"),
-                        coords={"y": x, "x": x})
+    load = xr.DataArray(
+        2e7 * np.exp(-(xx**2 + yy**2) / (2 * 25e3**2)), dims=("y", "x"), coords={"y": x, "x": x}
+    )
     plate = gridflex.Plate(te=10e3)
     values = {"te": [5e3, 10e3, 15e3, 20e3], "infill_density": [0.0, 1030.0, 2400.0]}
     gridflex.sweep(load, plate, values)  # warm-up

@@ -22,8 +22,11 @@ def main(cases: int = 100) -> None:
     n, dx, truth = 64, 8e3, 23.4e3
     x = (np.arange(n) - n / 2) * dx
     xx, yy = np.meshgrid(x, x)
-    load = xr.DataArray(1770 * 9.81 * 3000 * np.exp(-(xx**2 + yy**2) / (2 * 20e3**2)),
-                        dims=("y", "x"), coords={"y": x, "x": x})
+    load = xr.DataArray(
+        1770 * 9.81 * 3000 * np.exp(-(xx**2 + yy**2) / (2 * 20e3**2)),
+        dims=("y", "x"),
+        coords={"y": x, "x": x},
+    )
     plate = gridflex.Plate(te=truth)
     w = gridflex.solve(load, plate)["deflection"]
     k2 = np.add.outer(scipy.fft.fftfreq(n) ** 2, scipy.fft.rfftfreq(n) ** 2)
@@ -34,18 +37,22 @@ def main(cases: int = 100) -> None:
             for _ in range(cases):
                 noise = rng.standard_normal(w.shape)
                 if smoothing:
-                    noise = scipy.fft.irfft2(scipy.fft.rfft2(noise) * np.exp(-k2 * smoothing),
-                                             s=w.shape)
+                    noise = scipy.fft.irfft2(
+                        scipy.fft.rfft2(noise) * np.exp(-k2 * smoothing), s=w.shape
+                    )
                 observed = w + 0.3 * float(w.max()) * noise / noise.std()
                 with warnings.catch_warnings():
                     warnings.simplefilter("ignore", gridflex.GridflexWarning)
-                    fit = gridflex.fit_te(observed, load, plate, samples=15,
-                                          correlated_residuals=corrected)
+                    fit = gridflex.fit_te(
+                        observed, load, plate, samples=15, correlated_residuals=corrected
+                    )
                 hits += fit.te_low <= truth <= fit.te_high
                 n_eff.append(fit.n_effective)
-            print(f"{label:11s} noise, correlation correction {str(corrected):5s}: coverage "
-                  f"{hits / cases:.3f} over {cases} cases, median n_eff {np.median(n_eff):.0f} "
-                  f"of {n * n}")
+            print(
+                f"{label:11s} noise, correlation correction {str(corrected):5s}: coverage "
+                f"{hits / cases:.3f} over {cases} cases, median n_eff {np.median(n_eff):.0f} "
+                f"of {n * n}"
+            )
 
 
 if __name__ == "__main__":

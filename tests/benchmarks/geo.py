@@ -18,7 +18,13 @@ import numpy as np
 import xarray as xr
 
 from gridflex import Plate, solve
-from gridflex.geo import LONLAT, GridGeometry, local_projection, reproject_values, working_geometry
+from gridflex.gis.geometry import (
+    LONLAT,
+    GridGeometry,
+    local_projection,
+    reproject_values,
+    working_geometry,
+)
 from gridflex.io.vectors import outline_features
 
 PLATE = Plate(te=15e3)
@@ -51,9 +57,11 @@ def run(n: int, repeat: int) -> None:
     t_back, _ = best(lambda: reproject_values(w, work, src), repeat)
     depth = 0.5 * float(w.max())
     t_lines, features = best(lambda: outline_features(result, crs, depth), repeat)
-    print(f"n={n:5d} work={work.shape} solve {t_solve:7.3f} s | to local {t_to:7.3f} s "
-          f"({t_to / t_solve:5.2f}x) | back {t_back:7.3f} s ({t_back / t_solve:5.2f}x) | "
-          f"outlines {t_lines:7.3f} s ({t_lines / t_solve:5.2f}x), {len(features)} features")
+    print(
+        f"n={n:5d} work={work.shape} solve {t_solve:7.3f} s | to local {t_to:7.3f} s "
+        f"({t_to / t_solve:5.2f}x) | back {t_back:7.3f} s ({t_back / t_solve:5.2f}x) | "
+        f"outlines {t_lines:7.3f} s ({t_lines / t_solve:5.2f}x), {len(features)} features"
+    )
 
 
 def main() -> None:

@@ -55,12 +55,18 @@ def main() -> None:
     rate = (time.perf_counter() - start) / 5
     print(f"model {model}, grid {n} x {n}, padded FFT grid {shape[0]} x {shape[1]}")
     print(f"one FFT pair of the padded grid (baseline): {pair * 1e3:8.2f} ms")
-    print(f"one advance() step:                          {per_step * 1e3:8.2f} ms  "
-          f"ratio {per_step / pair:5.2f}")
-    print(f"one uplift_rate() call:                      {rate * 1e3:8.2f} ms  "
-          f"ratio {rate / pair:5.2f}")
-    print(f"{steps} steps: {total:6.1f} s (target 60 s); "
-          f"final centre deflection {float(w.values[n // 2, n // 2]):.2f} m")
+    print(
+        f"one advance() step:                          {per_step * 1e3:8.2f} ms  "
+        f"ratio {per_step / pair:5.2f}"
+    )
+    print(
+        f"one uplift_rate() call:                      {rate * 1e3:8.2f} ms  "
+        f"ratio {rate / pair:5.2f}"
+    )
+    print(
+        f"{steps} steps: {total:6.1f} s (target 60 s); "
+        f"final centre deflection {float(w.values[n // 2, n // 2]):.2f} m"
+    )
 
 
 if __name__ == "__main__":

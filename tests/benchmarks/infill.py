@@ -25,7 +25,7 @@ import scipy.fft
 import xarray as xr
 
 from gridflex import Infill, Plate, load_from_elevation, model_gravity, solve_with_infill
-from gridflex.gravity import gravity_padded_shape
+from gridflex.gravity.interfaces import gravity_padded_shape
 from gridflex.grid import check_grid
 from gridflex.infill import spectral_inner
 
@@ -65,8 +65,12 @@ def bench(n: int, repeat: int) -> None:
     spec = check_grid(loads["load"])
     rho_max = RULE.max_density()
     g = PLATE.gravity
-    inner = spectral_inner(spec, float(PLATE.rigidity), (PLATE.mantle_density - rho_max / 2) * g,
-                           (PLATE.mantle_density - rho_max) * g)
+    inner = spectral_inner(
+        spec,
+        float(PLATE.rigidity),
+        (PLATE.mantle_density - rho_max / 2) * g,
+        (PLATE.mantle_density - rho_max) * g,
+    )
     rhs = np.zeros(inner.shape)
     rhs[inner.window] = loads["load"].values
     inner.solve(rhs)  # warm-up
@@ -76,25 +80,31 @@ def bench(n: int, repeat: int) -> None:
         (item, acc) for item in RULES.items() for acc in ("anderson", "none")
     ):
         run = lambda acc=acceleration, rule=rule: solve_with_infill(  # noqa: E731
-            loads, PLATE, infill=rule, acceleration=acc, tolerance=1e-4)
+            loads, PLATE, infill=rule, acceleration=acc, tolerance=1e-4
+        )
         run()
         elapsed, result = best(run, repeat)
         iterations = int(result.attrs["iterations"])
-        print(f"  {label}, {acceleration:8s}: {iterations:3d} iterations, {elapsed:6.2f} s = "
-              f"{elapsed / base:6.1f} solves ({elapsed / iterations / base:4.2f} per iteration), "
-              f"balance {result.attrs['force_balance_residual']:.1e}, "
-              f"peak {peak(run):.0f} MiB")
+        print(
+            f"  {label}, {acceleration:8s}: {iterations:3d} iterations, {elapsed:6.2f} s = "
+            f"{elapsed / base:6.1f} solves ({elapsed / iterations / base:4.2f} per iteration), "
+            f"balance {result.attrs['force_balance_residual']:.1e}, "
+            f"peak {peak(run):.0f} MiB"
+        )
     shape = gravity_padded_shape(spec, 4500.0 + 6000.0 + 2000.0 + 1000.0, 4.5)
     data = np.zeros(shape)
     spectrum = scipy.fft.rfft2(data, workers=-1)
-    pair, _ = best(lambda: scipy.fft.irfft2(scipy.fft.rfft2(data, workers=-1), s=shape,
-                                            workers=-1), repeat)
+    pair, _ = best(
+        lambda: scipy.fft.irfft2(scipy.fft.rfft2(data, workers=-1), s=shape, workers=-1), repeat
+    )
     del spectrum
     grav = lambda: model_gravity(result, observation_height=1000.0)  # noqa: E731
     grav()
     elapsed, _ = best(grav, repeat)
-    print(f"  model_gravity: FFT grid {shape}, {elapsed:6.2f} s = {elapsed / pair:6.1f} FFT pairs, "
-          f"peak {peak(grav):.0f} MiB")
+    print(
+        f"  model_gravity: FFT grid {shape}, {elapsed:6.2f} s = {elapsed / pair:6.1f} FFT pairs, "
+        f"peak {peak(grav):.0f} MiB"
+    )
 
 
 def main() -> None:

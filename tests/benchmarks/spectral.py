@@ -36,7 +36,7 @@ def make_load(n: int) -> xr.DataArray:
     coords = (np.arange(n) - n / 2) * DX
     load = xr.DataArray(np.zeros((n, n)), dims=("y", "x"), coords={"y": coords, "x": coords})
     r = n // 8
-    load.values[n // 2 - r: n // 2 + r, n // 2 - r: n // 2 + r] = 2.0e7
+    load.values[n // 2 - r : n // 2 + r, n // 2 - r : n // 2 + r] = 2.0e7
     return load
 
 
@@ -75,11 +75,13 @@ def bench(n: int, repeat: int) -> None:
     solve(load, PLATE)
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
-    print(f"{n:>5}^2  padded {shape[0]}x{shape[1]}  fft pair {pair:6.3f} s  "
-          f"new plate {fresh:6.3f} s (ratio {fresh / pair:4.2f})  "
-          f"same plate {again:6.3f} s (ratio {again / pair:4.2f})  "
-          f"peak {peak / 2**30:5.2f} GiB = {peak / (8 * shape[0] * shape[1]):3.1f} padded grids",
-          flush=True)
+    print(
+        f"{n:>5}^2  padded {shape[0]}x{shape[1]}  fft pair {pair:6.3f} s  "
+        f"new plate {fresh:6.3f} s (ratio {fresh / pair:4.2f})  "
+        f"same plate {again:6.3f} s (ratio {again / pair:4.2f})  "
+        f"peak {peak / 2**30:5.2f} GiB = {peak / (8 * shape[0] * shape[1]):3.1f} padded grids",
+        flush=True,
+    )
 
 
 def big(n: int) -> None:

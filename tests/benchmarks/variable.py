@@ -89,12 +89,22 @@ def run_one(name: str, n: int, dx: float, spsolve_max: int, tolerance: float) ->
         times.append(time.perf_counter() - start)
     out["spectral_s"] = float(np.median(times))
     start = time.perf_counter()
-    w, info = finite_difference_deflection(load, spec, rigidity, STIFFNESS, NU,
-                                           tolerance=tolerance)
+    w, info = finite_difference_deflection(load, spec, rigidity, STIFFNESS, NU, tolerance=tolerance)
     out["fd_s"] = time.perf_counter() - start
-    out.update({k: info[k] for k in ("iterations", "residual", "band_nodes", "band_width",
-                                      "setup_seconds", "solve_seconds",
-                                      "force_balance_residual")})
+    out.update(
+        {
+            k: info[k]
+            for k in (
+                "iterations",
+                "residual",
+                "band_nodes",
+                "band_width",
+                "setup_seconds",
+                "solve_seconds",
+                "force_balance_residual",
+            )
+        }
+    )
     out["solve_shape"] = list(info["solve_shape"])
     out["levels"] = int(np.size(info["blend_levels"]))
     out["peak_mb_fd"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
@@ -120,10 +130,17 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sizes", default="512,1024,2048")
     parser.add_argument("--cases", default=",".join(CASES))
-    parser.add_argument("--refine", action="store_true",
-                        help="fixed 1024 km domain (refinement) instead of fixed 2 km cells")
-    parser.add_argument("--spsolve-max", type=int, default=400_000,
-                        help="run spsolve when the padded grid has at most this many unknowns")
+    parser.add_argument(
+        "--refine",
+        action="store_true",
+        help="fixed 1024 km domain (refinement) instead of fixed 2 km cells",
+    )
+    parser.add_argument(
+        "--spsolve-max",
+        type=int,
+        default=400_000,
+        help="run spsolve when the padded grid has at most this many unknowns",
+    )
     parser.add_argument("--tolerance", type=float, default=1e-8)
     parser.add_argument("--one", help=argparse.SUPPRESS)
     args = parser.parse_args()
@@ -131,16 +148,27 @@ def main() -> None:
         name, n, dx = args.one.split(":")
         print(json.dumps(run_one(name, int(n), float(dx), args.spsolve_max, args.tolerance)))
         return
-    print(f"{'n':>5} {'case':<12} {'it':>3} {'residual':>8} {'setup':>6} {'solve':>6} "
-          f"{'total':>6} {'spec':>5} {'x spec':>6} {'spsolve':>7} {'x faster':>8} "
-          f"{'band':>7} {'MB fd':>6} {'MB all':>6}")
+    print(
+        f"{'n':>5} {'case':<12} {'it':>3} {'residual':>8} {'setup':>6} {'solve':>6} "
+        f"{'total':>6} {'spec':>5} {'x spec':>6} {'spsolve':>7} {'x faster':>8} "
+        f"{'band':>7} {'MB fd':>6} {'MB all':>6}"
+    )
     for n in map(int, args.sizes.split(",")):
         dx = 1024e3 / n if args.refine else 2e3
         for name in args.cases.split(","):
             child = subprocess.run(
-                [sys.executable, __file__, "--one", f"{name}:{n}:{dx}",
-                 "--spsolve-max", str(args.spsolve_max), "--tolerance", str(args.tolerance)],
-                capture_output=True, text=True,
+                [
+                    sys.executable,
+                    __file__,
+                    "--one",
+                    f"{name}:{n}:{dx}",
+                    "--spsolve-max",
+                    str(args.spsolve_max),
+                    "--tolerance",
+                    str(args.tolerance),
+                ],
+                capture_output=True,
+                text=True,
             )
             if child.returncode != 0:
                 print(f"{n:>5} {name:<12} failed: {child.stderr.strip().splitlines()[-1]}")
@@ -148,10 +176,13 @@ def main() -> None:
             r = json.loads(child.stdout.strip().splitlines()[-1])
             sp = r.get("spsolve_s")
             sp_text = f"{sp:7.1f} {sp / r['fd_s']:8.1f}" if sp else f"{'-':>7} {'-':>8}"
-            print(f"{n:>5} {name:<12} {r['iterations']:>3} {r['residual']:8.1e} "
-                  f"{r['setup_seconds']:6.2f} {r['solve_seconds']:6.2f} {r['fd_s']:6.2f} "
-                  f"{r['spectral_s']:5.2f} {r['fd_s'] / r['spectral_s']:6.1f} {sp_text} "
-                  f"{r['band_nodes']:>7} {r['peak_mb_fd']:6.0f} {r['peak_mb']:6.0f}", flush=True)
+            print(
+                f"{n:>5} {name:<12} {r['iterations']:>3} {r['residual']:8.1e} "
+                f"{r['setup_seconds']:6.2f} {r['solve_seconds']:6.2f} {r['fd_s']:6.2f} "
+                f"{r['spectral_s']:5.2f} {r['fd_s'] / r['spectral_s']:6.1f} {sp_text} "
+                f"{r['band_nodes']:>7} {r['peak_mb_fd']:6.0f} {r['peak_mb']:6.0f}",
+                flush=True,
+            )
 
 
 if __name__ == "__main__":

@@ -1,0 +1,1 @@
+"""Basin modelling: porosity-depth compaction, staged loading and backstripping."""

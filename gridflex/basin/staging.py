@@ -1,0 +1,954 @@
+"""Basin workflows: staged (delta) loading with compaction, and flexural backstripping.
+
+Staged loading (PHYSICS.md 9.1-9.2). Each stage deposits an isopach (thickness
+as deposited, at the top of the pile) of one lithology. Before the stage is
+solved, the older stages are re-compacted under it (grain thickness of every
+stage conserved, :mod:`gridflex.basin.compaction`), so their thickness and bulk
+density follow their new burial. The load increment of the stage is the change
+of the column weight relative to the state left by the previous stage,
+
+    dq = g [ (M' - M) + rho_w (h_w' - h_w) ],
+
+with M the sediment mass per area (pores water-saturated), h_w the water depth
+above the solid surface and primes the state with the new stage in place but
+the plate not yet moved. The increment is solved with the previous deflection
+frozen and the te of the stage (its time of loading; Watts, Karner & Steckler
+1982, eq. 9.1), with the self-consistent infill of :func:`gridflex.solve_with_infill`:
+water up to sea level, or sediment up to the stage's base level. With a
+constant te and water infill the response is path independent (the sum of the
+increments is the solve of the total: the equilibrium of a column is unique);
+with a te that changes from stage to stage it is not, as intended, and neither
+is a moat filled with sediment (each stage fills only the space it makes).
+Removing the top stage (:meth:`StagedBasin.remove_stage`) decompacts the rest
+and unloads the plate with water infill and the te the stage was loaded with.
+
+The moat-fill sediment of a stage becomes part of that stage (its grains are
+added to it). The infill solver carries the fill with the stage's mean bulk
+density and does not compact the column under it, so the stage is then settled:
+the remaining difference between the column the solver carried and the
+compacted column is solved again (new fill joining the stage) until it would
+move the plate by less than the tolerance (usually 1-3 passes). Limitations:
+the fill takes only space made by the deflection, not the space compaction of
+older stages opens; with ``edges="infinite"`` no fill is put on the outer ring
+of cells (the FFT padding copies it, and its state is not kept between stages);
+a stage with a te grid is solved with :func:`gridflex.solve` and water filling
+every depression (also above sea level), without sediment fill.
+
+Backstripping (PHYSICS.md 9.3; Steckler & Watts 1978, *Earth Planet. Sci.
+Lett.* 41, 1-13). The water-loaded tectonic subsidence is the basement depth
+with the sediment removed and replaced by water, the plate rebounding by w_s:
+
+    Y = B - w_s - dSL rho_m / (rho_m - rho_w),
+    D lap^2 w_s + (rho_m - rho_w) g w_s = (rho_s - rho_w) g S,
+
+with B = S + W the basement depth below the sea level of the time (present
+sea level for present-day grids), S the sediment
+thickness, W the water depth, rho_s the mean bulk density of the (compacted)
+sediment column and dSL the sea level of the time relative to present (positive
+higher). For te = 0 this is the local (Airy) formula
+Y = S (rho_m - rho_s)/(rho_m - rho_w) + W - dSL rho_m/(rho_m - rho_w).
+
+Depths, thicknesses and subsidence are positive DOWN here (m); elevations and
+levels positive up; ages in years before present.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+import math
+import warnings
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from gridflex.basin.compaction import Lithology, bulk_density, compacted_base, grain_thickness
+from gridflex.basin.compaction import lithology as as_lithology
+from gridflex.engine import solve
+from gridflex.errors import EdgeLoadWarning, InputError
+from gridflex.grid import check_grid, grid_values
+from gridflex.infill import Infill, solve_with_infill
+from gridflex.memory import check_memory
+from gridflex.plate import Plate
+
+__all__ = [
+    "ISOPACHS",
+    "Stage",
+    "StagedBasin",
+    "backstrip",
+    "backstrip_layers",
+    "stage_loading",
+]
+
+log = logging.getLogger(__name__)
+
+Level = float | xr.DataArray
+TeLike = float | xr.DataArray
+Progress = Callable[[int, int], Any]
+
+ISOPACHS = ("deposited", "present")
+"""Accepted values of ``stage_loading(isopachs=...)``."""
+
+_SETTLE_PASSES = 20
+_SNAPSHOT_GRIDS = 10  # grids kept per recorded stage (see _Snapshot)
+
+
+@dataclass(frozen=True)
+class Stage:
+    """One depositional stage of a basin fill.
+
+    Parameters
+    ----------
+    thickness : xarray.DataArray
+        Isopach of the stage as deposited (m, >= 0), dims ``("y", "x")``.
+    age : float
+        Age of the stage (years before present).
+    lithology : str or Lithology, default "shale"
+        A name of :data:`gridflex.basin.compaction.LITHOLOGIES` or a Lithology.
+    base_level : float or xarray.DataArray, optional
+        Elevation (m, positive up) up to which sediment fills the new flexural
+        depression of this stage; ``None``: the depression fills with water up to
+        sea level (air above).
+    sea_level : float, optional
+        Sea level at the time of the stage (m, positive up, present datum);
+        ``None``: the basin's sea level. A change loads (or unloads) every
+        submerged cell with the water column, up to the grid edge.
+    te : float or xarray.DataArray, optional
+        Elastic thickness at the time of loading (m); ``None``: the plate's te.
+    """
+
+    thickness: xr.DataArray
+    age: float
+    lithology: str | Lithology = "shale"
+    base_level: Level | None = None
+    sea_level: float | None = None
+    te: TeLike | None = None
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.thickness, xr.DataArray):
+            raise InputError(
+                f"stage thickness must be an xarray.DataArray, got {type(self.thickness).__name__}"
+            )
+        if not isinstance(self.age, (int, float)) or not math.isfinite(self.age):
+            raise InputError(f"stage age must be a number of years, got {self.age!r}")
+        object.__setattr__(self, "lithology", as_lithology(self.lithology))
+        if self.sea_level is not None and not (
+            isinstance(self.sea_level, (int, float)) and math.isfinite(self.sea_level)
+        ):
+            raise InputError(f"stage sea_level must be a number (m), got {self.sea_level!r}")
+
+
+@dataclass
+class _Snapshot:
+    """Arrays recorded after a stage (numpy, SI)."""
+
+    age: float
+    deflection: np.ndarray
+    increment: np.ndarray
+    surface: np.ndarray
+    accommodation: np.ndarray
+    water_depth: np.ndarray
+    stage_thickness: np.ndarray
+    stage_fill: np.ndarray
+    stage_density: np.ndarray
+    sediment_thickness: np.ndarray
+    sediment_density: np.ndarray
+    iterations: int
+
+
+class StagedBasin:
+    """A basin filled stage by stage on a flexing plate.
+
+    Parameters
+    ----------
+    initial_surface : xarray.DataArray
+        Elevation of the surface before the first stage (m, positive up; the
+        basement or pre-delta sea floor). Defines the grid.
+    plate : Plate
+        Plate parameters; its te is used for stages without their own te.
+        ``plate.infill_density`` is not used (the fill is decided per cell).
+    sea_level : float, default 0.0
+        Sea level (m, positive up).
+    water_density : float, default 1030.0
+        Sea water (kg m^-3), also the pore fluid.
+    compaction : bool, default True
+        False: every stage keeps its deposited thickness and its surface bulk
+        density rho_w phi_0 + rho_grain (1 - phi_0).
+    tolerance, max_iterations, edges, pad_factor
+        Passed to :func:`gridflex.solve_with_infill` (and *edges*/*pad_factor* to
+        :func:`gridflex.solve` for a te grid).
+    """
+
+    def __init__(
+        self,
+        initial_surface: xr.DataArray,
+        plate: Plate,
+        *,
+        sea_level: float = 0.0,
+        water_density: float = 1030.0,
+        compaction: bool = True,
+        tolerance: float = 1e-4,
+        max_iterations: int = 300,
+        edges: str = "infinite",
+        pad_factor: float = 4.5,
+    ) -> None:
+        if not isinstance(plate, Plate):
+            raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
+        check_grid(initial_surface, "initial_surface")
+        self.grid = initial_surface
+        self.base = grid_values(initial_surface, initial_surface, "initial_surface")
+        self.plate = plate
+        self.sea_level = _finite("sea_level", sea_level)
+        self.water_density = _finite("water_density", water_density)
+        if self.water_density < 0:
+            raise InputError(f"water_density must be >= 0 kg/m^3, got {water_density!r}")
+        self.compaction = bool(compaction)
+        self.solve_options = {
+            "tolerance": tolerance,
+            "max_iterations": max_iterations,
+            "edges": edges,
+            "pad_factor": pad_factor,
+        }
+        self.stages: list[Stage] = []
+        self.grains: list[np.ndarray] = []
+        self.deflection = np.zeros(self.base.shape)
+        self.mass = np.zeros(self.base.shape)  # sediment mass per area the plate carries
+        self.thickness = np.zeros(self.base.shape)  # sediment thickness as carried
+        self.current_sea_level = self.sea_level
+        self.history: list[_Snapshot] = []
+
+    # column -----------------------------------------------------------------
+    def _layer_density(self, lith: Lithology) -> float:
+        phi0 = lith.surface_porosity
+        return self.water_density * phi0 + lith.grain_density * (1.0 - phi0)
+
+    def _column(self, grains: Sequence[np.ndarray], stages: Sequence[Stage]):
+        """Thickness and mass per area of each stage, youngest on top (lists, oldest first)."""
+        thick: list[np.ndarray] = [np.empty(0)] * len(grains)
+        mass: list[np.ndarray] = [np.empty(0)] * len(grains)
+        top = np.zeros(self.base.shape)
+        for index in range(len(grains) - 1, -1, -1):
+            lith = stages[index].lithology
+            s = grains[index]
+            if self.compaction:
+                base = compacted_base(top, s, lith)
+                h = base - top
+                # saturated pores: rho_w * pore thickness + rho_grain * grains
+                mass[index] = self.water_density * (h - s) + lith.grain_density * s
+                top = base
+            else:
+                h = s / (1.0 - lith.surface_porosity)
+                mass[index] = self._layer_density(lith) * h
+            thick[index] = h
+        return thick, mass
+
+    def _grains_of(self, thickness: np.ndarray, lith: Lithology) -> np.ndarray:
+        """Grain thickness of a layer of *thickness* deposited at the top of the pile."""
+        if self.compaction:
+            return grain_thickness(0.0, thickness, lith)
+        return thickness * (1.0 - lith.surface_porosity)
+
+    def _water(self, thickness: np.ndarray, sea_level: float) -> np.ndarray:
+        surface = self.base - self.deflection + thickness
+        return np.clip(sea_level - surface, 0.0, None)
+
+    # solving ----------------------------------------------------------------
+    def _solve_increment(
+        self,
+        grains: list[np.ndarray],
+        stages: list[Stage],
+        te: TeLike,
+        sea_level: float,
+        infill: Infill,
+        fill_density: float,
+        min_deflection: float = 0.0,
+    ) -> tuple[np.ndarray, np.ndarray, int, np.ndarray, np.ndarray]:
+        """Solve the change from the carried state to the column of *grains*.
+
+        Returns (deflection increment, sediment fill, iterations, new carried mass,
+        new carried thickness). When the load change could not move the plate by
+        more than *min_deflection* (m) anywhere, nothing is solved (0 iterations).
+        """
+        thick, mass = self._column(grains, stages)
+        total_h = np.sum(thick, axis=0) if thick else np.zeros(self.base.shape)
+        total_m = np.sum(mass, axis=0) if mass else np.zeros(self.base.shape)
+        g = self.plate.gravity
+        water_before = self._water(self.thickness, self.current_sea_level)
+        water_after = self._water(total_h, sea_level)
+        increment = g * ((total_m - self.mass) + self.water_density * (water_after - water_before))
+        weakest = (self.plate.mantle_density - infill.max_density()) * g
+        if float(np.abs(increment).max()) <= min_deflection * weakest:
+            zero = np.zeros(self.base.shape)
+            return zero, zero.copy(), 0, total_m, total_h
+        load = self.grid.copy(data=increment)
+        load.name = "load"
+        surface = self.base - self.deflection + total_h
+        plate = self.plate.with_te(te)
+        options = self.solve_options
+        if plate.is_variable:
+            if infill.sediment != "none":
+                raise InputError(
+                    "a stage with a te grid is solved with water infill only; "
+                    "remove its base_level (sediment infill needs a constant te)"
+                )
+            result = solve(
+                load,
+                dataclasses.replace(plate, infill_density=self.water_density),
+                edges=options["edges"],
+                pad_factor=options["pad_factor"],
+            )
+            w = np.asarray(result["deflection"].values)
+            fill = np.zeros_like(w)
+            iterations = 1
+        else:
+            result = solve_with_infill(load, plate, self.grid.copy(data=surface), infill, **options)
+            w = np.asarray(result["deflection"].values)
+            fill = np.asarray(result["fill_sediment"].values)
+            iterations = int(result.attrs["iterations"])
+        return w, fill, iterations, total_m + fill_density * fill, total_h + fill
+
+    def _record(
+        self, age: float, increment: np.ndarray, level: np.ndarray, iterations: int
+    ) -> _Snapshot:
+        check_memory(
+            _SNAPSHOT_GRIDS * self.base.nbytes,
+            f"keeping the state after stage {len(self.history) + 1}",
+        )
+        thick, mass = self._column(self.grains, self.stages)
+        surface = self.base - self.deflection + self.thickness
+        top_h = thick[-1] if thick else np.zeros(self.base.shape)
+        top_m = mass[-1] if mass else np.zeros(self.base.shape)
+        total_h = np.sum(thick, axis=0) if thick else np.zeros(self.base.shape)
+        total_m = np.sum(mass, axis=0) if mass else np.zeros(self.base.shape)
+        fallback = self._layer_density(self.stages[-1].lithology) if self.stages else np.nan
+        with np.errstate(invalid="ignore", divide="ignore"):
+            top_rho = np.where(top_h > 0, top_m / np.where(top_h > 0, top_h, 1.0), fallback)
+            all_rho = np.where(total_h > 0, total_m / np.where(total_h > 0, total_h, 1.0), fallback)
+        snap = _Snapshot(
+            age=age,
+            deflection=self.deflection.copy(),
+            increment=increment,
+            surface=surface,
+            accommodation=level - surface,
+            water_depth=np.clip(self.current_sea_level - surface, 0.0, None),
+            stage_thickness=top_h,
+            stage_fill=np.zeros_like(top_h),
+            stage_density=top_rho,
+            sediment_thickness=total_h,
+            sediment_density=all_rho,
+            iterations=iterations,
+        )
+        self.history.append(snap)
+        return snap
+
+    def add_stage(self, stage: Stage) -> None:
+        """Deposit *stage* on top, compact the older stages, solve the flexure."""
+        if not isinstance(stage, Stage):
+            raise InputError(
+                f"stage must be a gridflex.basin.staging.Stage, got {type(stage).__name__}"
+            )
+        h = grid_values(stage.thickness, self.grid, f"stage (age {stage.age}) thickness")
+        if not np.all(np.isfinite(h)) or h.min() < 0:
+            raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")
+        if self.stages and not stage.age < self.stages[-1].age:
+            raise InputError(
+                f"stage ages must decrease (oldest first, years before present): "
+                f"{stage.age!r} follows {self.stages[-1].age!r}"
+            )
+        lith = stage.lithology
+        sea = self.sea_level if stage.sea_level is None else float(stage.sea_level)
+        fill_density = self._mean_density(h, lith)
+        if stage.base_level is None:
+            infill = Infill(sea_level=sea, water_density=self.water_density)
+            level = np.full(self.base.shape, sea)
+        else:
+            level = grid_values(stage.base_level, self.grid, "stage base_level")
+            infill = Infill(
+                sea_level=sea,
+                water_density=self.water_density,
+                sediment="to_level",
+                sediment_density=fill_density,
+                sediment_level=stage.base_level,
+                sediment_mask=self._fill_mask(),
+            )
+        grains = self.grains + [self._grains_of(h, lith)]
+        stages = self.stages + [stage]
+        te = self.plate.te if stage.te is None else stage.te
+        saved = (self.deflection, self.mass, self.thickness, self.current_sea_level)
+        try:
+            w, fill, iterations = self._add(h, lith, grains, stages, te, sea, infill, fill_density)
+        except BaseException:
+            # a failed solve (bad input, no convergence) leaves the basin as it was
+            self.deflection, self.mass, self.thickness, self.current_sea_level = saved
+            raise
+        self.grains, self.stages = grains, stages
+        snap = self._record(float(stage.age), w, level, iterations)
+        snap.stage_fill = fill
+        snap.stage_thickness = h + fill
+        log.info(
+            "stage of age %g yr: %d infill iterations, max deflection %.4g m",
+            stage.age,
+            iterations,
+            float(self.deflection.max()),
+        )
+
+    def _add(
+        self,
+        h: np.ndarray,
+        lith: Lithology,
+        grains: list[np.ndarray],
+        stages: list[Stage],
+        te: TeLike,
+        sea: float,
+        infill: Infill,
+        fill_density: float,
+    ) -> tuple[np.ndarray, np.ndarray, int]:
+        """Solve a new top stage and settle it; updates the carried state and grains[-1]."""
+        w, fill, iterations, mass, thickness = self._solve_increment(
+            grains, stages, te, sea, infill, fill_density
+        )
+        self.deflection = self.deflection + w
+        self.mass, self.thickness, self.current_sea_level = mass, thickness, sea
+        grains[-1] = self._grains_of(h + fill, lith)
+        # settle: the solver carried the moat fill with one density and did not compact
+        # the column under it; re-solve the remaining difference (new fill joins the stage)
+        tolerance = float(self.solve_options["tolerance"])
+        for _ in range(_SETTLE_PASSES):
+            with warnings.catch_warnings():
+                # the small remainder reaches the edges wherever the fill did; the stage
+                # solve above already warned about a load at the edge
+                warnings.simplefilter("ignore", EdgeLoadWarning)
+                dw, more, passes, mass, thickness = self._solve_increment(
+                    grains, stages, te, sea, infill, fill_density, min_deflection=tolerance
+                )
+            if passes == 0:
+                self.mass, self.thickness = mass, thickness
+                break
+            w, fill, iterations = w + dw, fill + more, iterations + passes
+            self.deflection = self.deflection + dw
+            self.mass, self.thickness = mass, thickness
+            grains[-1] = self._grains_of(h + fill, lith)
+        else:
+            log.warning(
+                "stage of age %g yr: column still settling after %d passes",
+                stages[-1].age,
+                _SETTLE_PASSES,
+            )
+        return w, fill, iterations
+
+    def remove_stage(self) -> None:
+        """Remove the top stage (with its moat fill), decompact the rest, unload the plate.
+
+        The unloading is solved with the te the stage was loaded with, so removal
+        undoes the stage (also when te changes from stage to stage); the rebound fills
+        with water up to the sea level of the stage below (the basin's sea level when
+        none is left).
+        """
+        if not self.stages:
+            raise InputError("remove_stage: the basin has no stage left to remove")
+        grains, stages = self.grains[:-1], self.stages[:-1]
+        below = stages[-1] if stages else None
+        sea = self.sea_level if below is None or below.sea_level is None else float(below.sea_level)
+        infill = Infill(sea_level=sea, water_density=self.water_density)
+        removed = self.stages[-1]
+        te = self.plate.te if removed.te is None else removed.te
+        w, _, iterations, mass, thickness = self._solve_increment(
+            grains, stages, te, sea, infill, 0.0
+        )
+        self.deflection = self.deflection + w
+        self.mass, self.thickness, self.current_sea_level = mass, thickness, sea
+        self.grains, self.stages = grains, stages
+        age = float(below.age) if below is not None else math.nan
+        level = np.full(self.base.shape, sea)
+        if below is not None and below.base_level is not None:
+            level = grid_values(below.base_level, self.grid, "stage base_level")
+        self._record(age, w, level, iterations)
+
+    def _fill_mask(self) -> xr.DataArray | None:
+        """Where moat-fill sediment may go: not in the FFT padding (its state is not kept
+        from stage to stage), so not on the outer ring of cells, which the padding copies."""
+        if self.solve_options["edges"] != "infinite":
+            return None
+        mask = np.zeros(self.base.shape, dtype=bool)
+        mask[1:-1, 1:-1] = True
+        return self.grid.copy(data=mask)
+
+    def _mean_density(self, h: np.ndarray, lith: Lithology) -> float:
+        """Mean bulk density of the deposit where it is present (kg m^-3)."""
+        present = h > 0
+        if not self.compaction or not present.any():
+            return self._layer_density(lith)
+        rho = bulk_density(0.0, h[present], lith, self.water_density)
+        return float(np.sum(rho * h[present]) / np.sum(h[present]))
+
+    def final_stage_thickness(self) -> np.ndarray:
+        """Present (compacted) thickness of each stage in the current column, (stage, y, x)."""
+        thick, _ = self._column(self.grains, self.stages)
+        return np.stack(thick) if thick else np.zeros((0,) + self.base.shape)
+
+    def to_dataset(self) -> xr.Dataset:
+        """The recorded states, one per stage added or removed, on a ``stage`` axis."""
+        if not self.history:
+            raise InputError("the basin has no stage yet")
+        check_memory(
+            _SNAPSHOT_GRIDS * self.base.nbytes * len(self.history),
+            f"the {len(self.history)}-stage result",
+        )
+        dims = ("stage", "y", "x")
+
+        def stack(name: str) -> np.ndarray:
+            return np.stack([getattr(s, name) for s in self.history])
+
+        fields = {
+            "deflection": ("m", "cumulative plate deflection (positive downward)"),
+            "deflection_increment": ("m", "deflection added by the stage (positive downward)"),
+            "surface": ("m", "solid surface elevation after the stage (positive up)"),
+            "accommodation": (
+                "m",
+                "space below the stage's base level (sea level without "
+                "one): level - surface; negative above it",
+            ),
+            "water_depth": ("m", "water depth above the solid surface"),
+            "stage_thickness": ("m", "thickness of the stage as deposited, moat fill included"),
+            "stage_fill": ("m", "moat-fill sediment of the stage"),
+            "stage_density": ("kg m-3", "mean bulk density of the stage when deposited"),
+            "sediment_thickness": ("m", "thickness of the whole sediment column"),
+            "sediment_density": ("kg m-3", "mean bulk density of the sediment column"),
+        }
+        source = {"deflection_increment": "increment"}
+        data = {
+            name: (dims, stack(source.get(name, name)), {"units": units, "long_name": long})
+            for name, (units, long) in fields.items()
+        }
+        data["iterations"] = (
+            "stage",
+            np.array([s.iterations for s in self.history]),
+            {"long_name": "infill iterations of the stage solve"},
+        )
+        coords = {
+            "stage": np.arange(len(self.history)),
+            "age": (
+                "stage",
+                np.array([s.age for s in self.history], dtype=float),
+                {"units": "years before present"},
+            ),
+            "y": self.grid["y"].variable,
+            "x": self.grid["x"].variable,
+        }
+        attrs: dict[str, Any] = {
+            "Conventions": "CF-1.8",
+            "title": "staged basin loading",
+            "sign_convention": "deflection positive downward; elevations positive up",
+            "sea_level": self.sea_level,
+            "water_density": self.water_density,
+            "compaction": int(self.compaction),
+            "lithologies": ", ".join(s.lithology.name for s in self.stages),
+        }
+        attrs.update({f"plate_{k}": v for k, v in self.plate.describe().items()})
+        return xr.Dataset(data, coords=coords, attrs=attrs)
+
+
+def _finite(name: str, value: Any) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        raise InputError(f"{name} must be a finite number, got {value!r}")
+    return float(value)
+
+
+def stage_loading(
+    stages: Iterable[Stage],
+    initial_surface: xr.DataArray,
+    plate: Plate,
+    *,
+    sea_level: float = 0.0,
+    water_density: float = 1030.0,
+    compaction: bool = True,
+    tolerance: float = 1e-4,
+    max_iterations: int = 300,
+    edges: str = "infinite",
+    pad_factor: float = 4.5,
+    isopachs: str = "deposited",
+    progress: Progress | None = None,
+) -> xr.Dataset:
+    """Flexure of a basin filled stage by stage (oldest first).
+
+    Parameters
+    ----------
+    stages : iterable of Stage
+        Oldest first (ages decreasing, years before present).
+    initial_surface : xarray.DataArray
+        Elevation before the first stage (m, positive up).
+    plate : Plate
+        Plate parameters and the default te.
+    sea_level, water_density, compaction, tolerance, max_iterations, edges, pad_factor
+        As in :class:`StagedBasin`.
+    isopachs : {"deposited", "present"}, default "deposited"
+        ``"deposited"``: stage thicknesses as deposited. ``"present"``: present-day
+        (compacted) thicknesses of a column in which the stages lie one on another in
+        order; each is first decompacted to the surface from its present burial under
+        the younger stages (grains conserved). With water infill the final column then
+        has the given thicknesses; moat fill (``base_level``) adds sediment to it.
+    progress : callable, optional
+        Called as ``progress(done, total)`` after each stage.
+
+    Returns
+    -------
+    xarray.Dataset
+        On dims ``("stage", "y", "x")``: ``deflection`` (m, cumulative, down),
+        ``deflection_increment``, ``surface``, ``accommodation`` (m, level -
+        surface), ``water_depth``, ``stage_thickness`` (as deposited, fill
+        included), ``stage_fill``, ``stage_density`` (kg m^-3),
+        ``sediment_thickness``, ``sediment_density``; ``final_stage_thickness``
+        (present compacted thickness of each stage); ``age`` coordinate.
+
+    Raises
+    ------
+    InputError
+        No stages, ages not decreasing, bad grids or parameters.
+    ConvergenceError
+        If an infill solve does not converge.
+    """
+    items = list(stages)
+    if not items:
+        raise InputError("stage_loading needs at least one Stage")
+    if isopachs not in ISOPACHS:
+        raise InputError(
+            f"isopachs must be one of {', '.join(map(repr, ISOPACHS))}, got {isopachs!r}"
+        )
+    if isopachs == "present" and compaction:
+        items = _deposited_stages(items)
+    basin = StagedBasin(
+        initial_surface,
+        plate,
+        sea_level=sea_level,
+        water_density=water_density,
+        compaction=compaction,
+        tolerance=tolerance,
+        max_iterations=max_iterations,
+        edges=edges,
+        pad_factor=pad_factor,
+    )
+    for index, stage in enumerate(items, start=1):
+        basin.add_stage(stage)
+        if progress is not None:
+            progress(index, len(items))
+    out = basin.to_dataset()
+    out["final_stage_thickness"] = (
+        ("stage", "y", "x"),
+        basin.final_stage_thickness(),
+        {"units": "m", "long_name": "present compacted thickness of each stage"},
+    )
+    return out
+
+
+def _deposited_stages(stages: list[Stage]) -> list[Stage]:
+    """Stages whose present (compacted) thicknesses are decompacted to the surface."""
+    burial = None
+    out: list[Stage] = []
+    for stage in reversed(stages):  # youngest first: its burial is 0
+        h = np.asarray(stage.thickness.values, dtype=np.float64)
+        if not np.all(np.isfinite(h)) or h.min() < 0:
+            raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")
+        top = np.zeros(h.shape) if burial is None else burial
+        grains = grain_thickness(top, top + h, stage.lithology)
+        deposited = compacted_base(np.zeros(h.shape), grains, stage.lithology)
+        out.append(dataclasses.replace(stage, thickness=stage.thickness.copy(data=deposited)))
+        burial = top + h
+    return out[::-1]
+
+
+def backstrip(
+    basement_depth: xr.DataArray | None,
+    sediment_thickness: xr.DataArray | None,
+    water_depth: xr.DataArray | None,
+    plate: Plate,
+    *,
+    lithology: str | Lithology = "shale",
+    sediment_density: float | xr.DataArray | None = None,
+    sea_level_change: float = 0.0,
+    water_density: float = 1030.0,
+    max_mismatch: float = 1.0,
+    edges: str = "infinite",
+    pad_factor: float = 4.5,
+) -> xr.Dataset:
+    """Water-loaded tectonic subsidence with flexural compensation of the sediment.
+
+    Parameters
+    ----------
+    basement_depth : xarray.DataArray or None
+        Depth of the basement below the sea level of the time (m, positive down):
+        sediment thickness + water depth; for present-day grids, below present sea
+        level.
+    sediment_thickness : xarray.DataArray or None
+        Present (compacted) sediment thickness (m, >= 0).
+    water_depth : xarray.DataArray or None
+        Water depth (m, positive down; negative for land above sea level).
+        One of the three may be ``None``; it is then derived from
+        basement = sediment + water.
+    plate : Plate
+        te (a number, 0 for local isostasy, or a grid) and rho_m, g;
+        ``plate.infill_density`` is replaced by *water_density*.
+    lithology : str or Lithology, default "shale"
+        Porosity law giving the mean bulk density of the column from 0 to S.
+    sediment_density : float or xarray.DataArray, optional
+        Mean bulk density of the column (kg m^-3), instead of *lithology*.
+    sea_level_change : float, default 0
+        Sea level at the time of the water depth relative to present (m,
+        positive higher).
+    water_density : float, default 1030.0
+        kg m^-3.
+    max_mismatch : float, default 1.0
+        With all three grids: largest allowed |basement - (sediment + water)| (m).
+    edges, pad_factor
+        As in :func:`gridflex.solve`.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``tectonic_subsidence`` (m, positive down, flexural), ``local_tectonic_subsidence``
+        (m, the Airy backstrip), ``sediment_rebound`` (m, upward rebound of the
+        basement when the sediment is removed), ``sediment_density`` (kg m^-3),
+        ``sediment_load`` (Pa, (rho_s - rho_w) g S), ``basement_depth``.
+
+    Raises
+    ------
+    InputError
+        Missing or inconsistent grids, bad densities.
+    """
+    given = {
+        "basement_depth": basement_depth,
+        "sediment_thickness": sediment_thickness,
+        "water_depth": water_depth,
+    }
+    missing = [name for name, value in given.items() if value is None]
+    if len(missing) > 1:
+        raise InputError(
+            f"backstrip needs at least two of basement_depth, sediment_thickness "
+            f"and water_depth; missing {', '.join(missing)}"
+        )
+    reference = next(value for value in given.values() if value is not None)
+    check_grid(reference, "backstrip grid")
+    arrays = {
+        name: grid_values(value, reference, name)
+        for name, value in given.items()
+        if value is not None
+    }
+    if "basement_depth" not in arrays:
+        arrays["basement_depth"] = arrays["sediment_thickness"] + arrays["water_depth"]
+    elif "sediment_thickness" not in arrays:
+        arrays["sediment_thickness"] = arrays["basement_depth"] - arrays["water_depth"]
+    elif "water_depth" not in arrays:
+        arrays["water_depth"] = arrays["basement_depth"] - arrays["sediment_thickness"]
+    else:
+        gap = np.abs(
+            arrays["basement_depth"] - arrays["sediment_thickness"] - arrays["water_depth"]
+        )
+        if float(gap.max()) > max_mismatch:
+            raise InputError(
+                f"basement_depth differs from sediment_thickness + water_depth by up to "
+                f"{float(gap.max()):.4g} m (max_mismatch {max_mismatch!r} m); fix the grids or "
+                "give only two of them"
+            )
+    s = arrays["sediment_thickness"]
+    if s.min() < 0:
+        raise InputError(f"sediment_thickness must be >= 0 m, minimum is {s.min()!r}")
+    rho_w = _finite("water_density", water_density)
+    rho_m, g = plate.mantle_density, plate.gravity
+    if sediment_density is None:
+        lith = as_lithology(lithology)
+        rho_s = bulk_density(np.zeros_like(s), s, lith, rho_w)
+        how = f"porosity law of {lith.name}"
+    else:
+        rho_s = grid_values(sediment_density, reference, "sediment_density")
+        how = "given"
+    if np.any(rho_s >= rho_m) or np.any(rho_s < rho_w):
+        raise InputError(
+            f"sediment_density must lie in [water_density={rho_w}, mantle_density={rho_m}) kg/m^3"
+        )
+    dsl = _finite("sea_level_change", sea_level_change)
+    load = reference.copy(data=(rho_s - rho_w) * g * s)
+    load.name = "load"
+    water_plate = dataclasses.replace(plate, infill_density=rho_w)
+    result = solve(load, water_plate, edges=edges, pad_factor=pad_factor)
+    rebound = np.asarray(result["deflection"].values)
+    sea_term = dsl * rho_m / (rho_m - rho_w)
+    basement = arrays["basement_depth"]
+    tectonic = basement - rebound - sea_term
+    local = s * (rho_m - rho_s) / (rho_m - rho_w) + arrays["water_depth"] - sea_term
+    dims = ("y", "x")
+    coords = {"y": reference["y"].variable, "x": reference["x"].variable}
+    attrs = dict(result.attrs)
+    attrs.update(
+        {
+            "title": "flexural backstrip (water-loaded tectonic subsidence)",
+            "sediment_density_from": how,
+            "sea_level_change": dsl,
+            "water_density": rho_w,
+            "sign_convention": "depths and subsidence positive downward",
+        }
+    )
+    return xr.Dataset(
+        {
+            "tectonic_subsidence": (
+                dims,
+                tectonic,
+                {
+                    "units": "m",
+                    "long_name": "water-loaded tectonic subsidence, flexural (positive down)",
+                },
+            ),
+            "local_tectonic_subsidence": (
+                dims,
+                local,
+                {
+                    "units": "m",
+                    "long_name": "water-loaded tectonic subsidence, local Airy (positive down)",
+                },
+            ),
+            "sediment_rebound": (
+                dims,
+                rebound,
+                {
+                    "units": "m",
+                    "long_name": "basement rebound when the sediment is removed (positive up)",
+                },
+            ),
+            "sediment_density": (
+                dims,
+                np.broadcast_to(rho_s, s.shape).copy(),
+                {"units": "kg m-3", "long_name": "mean bulk density of the sediment column"},
+            ),
+            "sediment_load": (
+                dims,
+                load.values,
+                {"units": "Pa", "long_name": "sediment load relative to water (positive downward)"},
+            ),
+            "basement_depth": (
+                dims,
+                basement,
+                {
+                    "units": "m",
+                    "long_name": "present basement depth below sea level (positive down)",
+                },
+            ),
+        },
+        coords=coords,
+        attrs=attrs,
+    )
+
+
+def backstrip_layers(
+    layers: Sequence[tuple[xr.DataArray, str | Lithology]],
+    water_depths: Sequence[float | xr.DataArray],
+    plate: Plate,
+    *,
+    sea_level_changes: Sequence[float] | None = None,
+    ages: Sequence[float] | None = None,
+    water_density: float = 1030.0,
+    edges: str = "infinite",
+    pad_factor: float = 4.5,
+) -> xr.Dataset:
+    """Backstrip a layered column step by step: remove the top layer, decompact the rest.
+
+    Step j removes the j youngest layers; the remaining ones are decompacted to the
+    surface (grains conserved, :mod:`gridflex.basin.compaction`) and the column is
+    backstripped with :func:`backstrip` using the water depth and sea level of that
+    time (Steckler & Watts 1978; Watts, Karner & Steckler 1982).
+
+    Parameters
+    ----------
+    layers : sequence of (thickness, lithology)
+        Present (compacted) thickness grids (m) with their lithology, youngest (top)
+        first.
+    water_depths : sequence of float or xarray.DataArray
+        Water depth (m, positive down) at the end of the deposition of each layer,
+        same order: ``water_depths[0]`` is the present water depth.
+    plate : Plate
+        As in :func:`backstrip`.
+    sea_level_changes : sequence of float, optional
+        Sea level at those times relative to present (m, positive higher); 0 by default.
+    ages : sequence of float, optional
+        Ages of those times (years before present), written as a coordinate.
+    water_density, edges, pad_factor
+        As in :func:`backstrip`.
+
+    Returns
+    -------
+    xarray.Dataset
+        On dims ``("step", "y", "x")``: ``tectonic_subsidence``,
+        ``local_tectonic_subsidence``, ``sediment_rebound`` (m), ``sediment_thickness``
+        (decompacted, m), ``sediment_density`` (kg m^-3), ``basement_depth`` (m below
+        the sea level of the time).
+
+    Raises
+    ------
+    InputError
+        Empty or mismatched sequences, bad grids.
+    """
+    items = list(layers)
+    if not items:
+        raise InputError("backstrip_layers needs at least one (thickness, lithology) layer")
+    count = len(items)
+    depths = list(water_depths)
+    levels = [0.0] * count if sea_level_changes is None else list(sea_level_changes)
+    for name, values in (("water_depths", depths), ("sea_level_changes", levels)):
+        if len(values) != count:
+            raise InputError(f"{name} must have one entry per layer ({count}), got {len(values)}")
+    if ages is not None and len(ages) != count:
+        raise InputError(f"ages must have one entry per layer ({count}), got {len(ages)}")
+    reference = items[0][0]
+    check_grid(reference, "layer 0 thickness")
+    thickness = []
+    liths = []
+    for index, (grid, lith) in enumerate(items):
+        h = grid_values(grid, reference, f"layer {index} thickness")
+        if h.min() < 0:
+            raise InputError(f"layer {index} thickness must be >= 0 m, minimum is {h.min()!r}")
+        thickness.append(h)
+        liths.append(as_lithology(lith))
+    # grains of each layer from its present burial
+    grains, top = [], np.zeros(reference.shape)
+    for h, lith in zip(thickness, liths, strict=True):
+        grains.append(grain_thickness(top, top + h, lith))
+        top = top + h
+    results = []
+    for step in range(count):
+        top = np.zeros(reference.shape)
+        mass = np.zeros(reference.shape)
+        for s, lith in zip(grains[step:], liths[step:], strict=True):
+            base = compacted_base(top, s, lith)
+            mass += water_density * (base - top - s) + lith.grain_density * s
+            top = base
+        total = top
+        fallback = liths[step].grain_density  # no sediment: no load, any valid density
+        with np.errstate(invalid="ignore", divide="ignore"):
+            density = np.where(total > 0, mass / np.where(total > 0, total, 1.0), fallback)
+        density = np.clip(density, water_density, None)
+        water = grid_values(depths[step], reference, f"water_depths[{step}]")
+        out = backstrip(
+            None,
+            reference.copy(data=total),
+            reference.copy(data=water),
+            plate,
+            sediment_density=reference.copy(data=density),
+            sea_level_change=levels[step],
+            water_density=water_density,
+            edges=edges,
+            pad_factor=pad_factor,
+        )
+        out["sediment_thickness"] = (
+            ("y", "x"),
+            total,
+            {"units": "m", "long_name": "decompacted sediment thickness"},
+        )
+        results.append(out.drop_vars("sediment_load"))
+    combined = xr.concat(results, dim="step", combine_attrs="override")
+    combined = combined.assign_coords(step=np.arange(count))
+    if ages is not None:
+        combined = combined.assign_coords(
+            age=("step", np.asarray(ages, dtype=float), {"units": "years before present"})
+        )
+    combined.attrs["lithologies"] = ", ".join(lith.name for lith in liths)
+    return combined

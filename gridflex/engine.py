@@ -1,0 +1,344 @@
+"""The one entry point for a flexure solve: check the grid, pick the solver, wrap
+the answer in an :class:`xarray.Dataset` that records how it was made."""
+
+from __future__ import annotations
+
+import logging
+import warnings
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from gridflex._version import __version__
+from gridflex.errors import EdgeLoadWarning, InputError
+from gridflex.grid import GridSpec, check_grid, check_same_grid
+from gridflex.plate import Plate
+from gridflex.solvers.conjugate_gradient import Progress
+from gridflex.solvers.finite_difference import (
+    DEFAULT_MAX_ITERATIONS,
+    DEFAULT_TOLERANCE,
+    finite_difference_deflection,
+)
+from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
+
+__all__ = [
+    "EDGES",
+    "METHODS",
+    "SIGN_CONVENTION",
+    "check_edge_load",
+    "solve",
+    "deflection_attrs",
+    "provenance_attrs",
+    "result_dataset",
+]
+
+log = logging.getLogger(__name__)
+
+METHODS = ("auto", "spectral", "finite-difference")
+"""Accepted values of ``solve(method=...)``."""
+
+EDGES = ("infinite", "periodic", "clamped", "free")
+"""Accepted values of ``solve(edges=...)``; the spectral solver takes the first two."""
+
+SPECTRAL_EDGES = ("infinite", "periodic")
+"""Edges the spectral solver can represent."""
+
+SIGN_CONVENTION = (
+    "deflection positive downward; load positive downward; in-plane force positive in tension"
+)
+
+_EDGE_CELLS = 2
+_EDGE_WARN_FRACTION = 1e-3
+
+
+def deflection_attrs() -> dict[str, str]:
+    """CF-style attributes of the ``deflection`` variable."""
+    return {"units": "m", "long_name": "plate deflection (positive downward)"}
+
+
+def _check_choice(name: str, value: Any, allowed: tuple[str, ...]) -> str:
+    if value not in allowed:
+        raise InputError(f"{name} must be one of {', '.join(map(repr, allowed))}; got {value!r}")
+    return str(value)
+
+
+def _check_force(name: str, value: Any) -> float:
+    try:
+        force = float(value)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{name} must be a number (N/m, tension positive), got {value!r}") from exc
+    if not np.isfinite(force):
+        raise InputError(f"{name} must be finite (N/m), got {value!r}")
+    return force
+
+
+def check_edge_load(values: np.ndarray, total: float) -> None:
+    """Warn when a share of the load (of magnitude Σ|q| = *total*) touches the grid edge."""
+    if total == 0.0:
+        return
+    e = _EDGE_CELLS
+    strips = (values[:e], values[-e:], values[e:-e, :e], values[e:-e, -e:])
+    edge = sum(float(np.abs(strip).sum()) for strip in strips)
+    fraction = edge / total
+    if fraction > _EDGE_WARN_FRACTION:
+        warnings.warn(
+            f"{fraction:.1%} of the load lies within {e} cells of the grid edge; the "
+            "infinite-plate solve treats the load as ending there. Enlarge the grid, "
+            "or use edges='periodic' if the load really repeats.",
+            EdgeLoadWarning,
+            stacklevel=3,
+        )
+
+
+def result_dataset(
+    load: xr.DataArray, deflection: np.ndarray, plate: Plate, attrs: dict[str, Any]
+) -> xr.Dataset:
+    """Wrap a deflection array in a Dataset on *load*'s grid with provenance attributes.
+
+    Parameters
+    ----------
+    load : xarray.DataArray
+        The load (Pa) that was solved; kept as variable ``load``.
+    deflection : numpy.ndarray
+        w (m, positive down), same shape as *load*.
+    plate : Plate
+        The plate used; its parameters go into the attributes.
+    attrs : dict
+        Solver-specific attributes (method, edges, residuals ...).
+    """
+    load_var = load.copy(deep=False)
+    load_var.attrs = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
+    data_vars: dict[str, Any] = {
+        "deflection": (("y", "x"), deflection, deflection_attrs()),
+        "load": load_var.variable,
+    }
+    coords = {"y": load["y"].variable, "x": load["x"].variable}
+    return xr.Dataset(data_vars, coords=coords, attrs=provenance_attrs(plate, attrs))
+
+
+def provenance_attrs(
+    plate: Plate, attrs: dict[str, Any], title: str = "thin elastic plate flexure"
+) -> dict[str, Any]:
+    """Global attributes of a result: conventions, version, sign convention, the
+    plate's parameters (prefixed ``plate_``) and the solver-specific *attrs*."""
+    all_attrs: dict[str, Any] = {
+        "Conventions": "CF-1.8",
+        "title": title,
+        "source": f"gridflex {__version__}",
+        "gridflex_version": __version__,
+        "sign_convention": SIGN_CONVENTION,
+    }
+    all_attrs.update({f"plate_{k}": v for k, v in plate.describe().items()})
+    all_attrs.update(attrs)
+    return all_attrs
+
+
+def solve(
+    load: xr.DataArray,
+    plate: Plate,
+    method: str = "auto",
+    *,
+    edges: str = "infinite",
+    inplane_force_x: float = 0.0,
+    inplane_force_y: float = 0.0,
+    pad_factor: float = DEFAULT_PAD_FACTOR,
+    tolerance: float = DEFAULT_TOLERANCE,
+    max_iterations: int = DEFAULT_MAX_ITERATIONS,
+    progress: Progress | None = None,
+) -> xr.Dataset:
+    """Deflection of an elastic plate under a gridded load.
+
+    Solves
+
+    .. math:: D \\nabla^4 w - N_x \\partial_{xx} w - N_y \\partial_{yy} w
+              + (\\rho_m - \\rho_f) g w = q
+
+    with w (m) and q (Pa) positive **downward** and the in-plane forces N (N m⁻¹)
+    positive in **tension** (compression negative).
+
+    Parameters
+    ----------
+    load : xarray.DataArray
+        Vertical stress q (Pa, positive downward), dims ``("y", "x")``, with 1-D
+        evenly spaced coordinates in metres (increasing or decreasing).
+    plate : Plate
+        Elastic thickness, moduli and densities.
+    method : {"auto", "spectral", "finite-difference"}, default "auto"
+        ``"auto"`` uses the FFT solver for a constant te and the finite-difference
+        solver (preconditioned conjugate gradients) when ``plate.te`` is a grid;
+        ``"finite-difference"`` forces the latter for a constant te too.
+    edges : {"infinite", "periodic", "clamped", "free"}, default "infinite"
+        ``"infinite"``: the grid is a window onto an infinite plate with no load
+        outside it; the load is zero-padded by *pad_factor* decay lengths on each
+        side (no wrap-around; for a te grid the edge rigidity continues into the
+        margin). ``"periodic"``: the domain repeats (no padding). Finite differences
+        only: ``"clamped"`` (w = 0 and zero slope one cell beyond the outermost cell
+        centres) and ``"free"`` (the plate ends at the outermost cell centres with
+        no moment and no shear).
+    inplane_force_x, inplane_force_y : float, default 0
+        Horizontal in-plane force per unit length along x and along y (N m⁻¹,
+        tension positive). Compression must stay below the buckling limit
+        2 sqrt(D (rho_m - rho_f) g).
+    pad_factor : float, default 4.5
+        Padding on each side in decay lengths (the flexural parameter without
+        in-plane force); ignored when periodic.
+    tolerance : float, default 1e-8
+        Finite differences: relative residual ||a q − K w|| / ||a q|| to reach.
+    max_iterations : int, default 300
+        Finite differences: iteration limit.
+    progress : callable, optional
+        Finite differences: called with (iterations done, iteration limit) after
+        each iteration; pass None (the default) for a quiet solve.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``deflection`` (m, positive down) and ``load`` (Pa) on the load's grid;
+        attributes record the plate, the solver, ``padded_shape`` (ny, nx) and the
+        global force-balance residual ``force_balance_residual``; the
+        finite-difference solver adds ``iterations``, ``residual`` (the true
+        relative residual, recomputed), ``tolerance``, ``blend_levels``,
+        ``band_nodes``, ``band_width`` and ``locally_compensated_load``.
+
+    Raises
+    ------
+    InputError
+        Invalid grid, parameters, or compression beyond buckling.
+    ConvergenceError
+        The finite-difference iteration did not reach *tolerance*.
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> x = np.arange(64) * 2e3
+    >>> q = xr.DataArray(np.zeros((64, 64)), dims=("y", "x"), coords={"y": x, "x": x})
+    >>> q[32, 32] = 1e7
+    >>> result = solve(q, Plate(te=10e3))
+    >>> result["deflection"].dims
+    ('y', 'x')
+    """
+    if not isinstance(plate, Plate):
+        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
+    spec = check_grid(load)
+    method = _check_choice("method", method, METHODS)
+    edges = _check_choice("edges", edges, EDGES)
+    force_x = _check_force("inplane_force_x", inplane_force_x)
+    force_y = _check_force("inplane_force_y", inplane_force_y)
+    if plate.is_variable:
+        assert isinstance(plate.te, xr.DataArray)
+        check_same_grid(plate.te, load, "te grid")
+    if method == "auto":
+        method = "finite-difference" if plate.is_variable else "spectral"
+    if method == "finite-difference":
+        return _solve_finite_difference(
+            load,
+            spec,
+            plate,
+            edges,
+            force_x,
+            force_y,
+            pad_factor,
+            tolerance,
+            max_iterations,
+            progress,
+        )
+    if plate.is_variable:
+        raise InputError(
+            "method='spectral' needs a constant te; a te grid needs "
+            "method='finite-difference' or 'auto'"
+        )
+    if edges not in SPECTRAL_EDGES:
+        raise InputError(
+            f"edges={edges!r} needs method='finite-difference'; the spectral solver "
+            f"takes {', '.join(map(repr, SPECTRAL_EDGES))}"
+        )
+    values = np.asarray(load.values, dtype=np.float64)
+    problem = SpectralProblem.build(
+        spec,
+        float(plate.rigidity),
+        plate.restoring_stiffness,
+        force_x,
+        force_y,
+        periodic=(edges == "periodic"),
+        pad_factor=pad_factor,
+    )
+    magnitude = float(np.abs(values).sum())
+    if edges == "infinite" and not problem.is_local:
+        check_edge_load(values, magnitude)
+    log.info("spectral solve on %s grid, FFT grid %s", spec.shape, problem.shape)
+    deflection, balance = problem.deflection(values, magnitude)
+    attrs = {
+        "solver": "spectral",
+        "spectral_symbol": "continuous",
+        "edges": edges,
+        "padded_shape": np.array(problem.shape, dtype=np.int64),
+        "pad_factor": float(pad_factor) if edges == "infinite" else 0.0,
+        "inplane_force_x": force_x,
+        "inplane_force_y": force_y,
+        "force_balance_residual": balance,
+    }
+    return result_dataset(load, deflection, plate, attrs)
+
+
+def _solve_finite_difference(
+    load: xr.DataArray,
+    spec: GridSpec,
+    plate: Plate,
+    edges: str,
+    force_x: float,
+    force_y: float,
+    pad_factor: float,
+    tolerance: float,
+    max_iterations: int,
+    progress: Progress | None,
+) -> xr.Dataset:
+    """The finite-difference branch of :func:`solve`."""
+    if force_x or force_y:
+        raise InputError(
+            "in-plane forces are not available with method='finite-difference' yet; "
+            f"got inplane_force_x={force_x!r}, inplane_force_y={force_y!r}"
+        )
+    values = np.asarray(load.values, dtype=np.float64)
+    rigidity = plate.rigidity
+    if isinstance(rigidity, xr.DataArray):
+        rigidity_grid = np.asarray(rigidity.values, dtype=np.float64)
+    else:
+        rigidity_grid = np.full(spec.shape, float(rigidity))
+    if edges == "infinite" and rigidity_grid.max() > 0:
+        check_edge_load(values, float(np.abs(values).sum()))
+    deflection, info = finite_difference_deflection(
+        values,
+        spec,
+        rigidity_grid,
+        plate.restoring_stiffness,
+        plate.poisson_ratio,
+        edges,
+        pad_factor=pad_factor,
+        tolerance=tolerance,
+        max_iterations=max_iterations,
+        progress=progress,
+    )
+    log.info(
+        "finite-difference solve: %d iterations, residual %.2e, band %d nodes",
+        info["iterations"],
+        info["residual"],
+        info["band_nodes"],
+    )
+    attrs = {
+        "solver": "finite-difference",
+        "edges": edges,
+        "padded_shape": np.array(info["solve_shape"], dtype=np.int64),
+        "pad_factor": float(pad_factor) if edges == "infinite" else 0.0,
+        "inplane_force_x": force_x,
+        "inplane_force_y": force_y,
+        "force_balance_residual": info["force_balance_residual"],
+        "iterations": info["iterations"],
+        "residual": info["residual"],
+        "tolerance": info["tolerance"],
+        "blend_levels": np.asarray(info["blend_levels"], dtype=np.float64),
+        "band_nodes": info["band_nodes"],
+        "band_width": info["band_width"],
+        "locally_compensated_load": info["locally_compensated_load"],
+    }
+    return result_dataset(load, deflection, plate, attrs)

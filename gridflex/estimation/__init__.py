@@ -1,0 +1,1 @@
+"""Elastic thickness from data: forward-model misfit and admittance/coherence."""

@@ -1,0 +1,1 @@
+"""Coordinate reference systems, georeferenced grid geometry and resampling."""

@@ -1,0 +1,1 @@
+"""Time-dependent response: viscous and relaxing mantle, ice and ocean loads."""

@@ -1,0 +1,424 @@
+"""Ice and ocean loads on the bed, and the bed's response to an ice-thickness history.
+
+The vertical stress on the bed (PHYSICS.md section 7.1) is
+
+    sigma = g max(rho_i H, rho_w max(z_sl − b, 0))
+
+so grounded ice (rho_i H ≥ rho_w (z_sl − b)) presses with its weight, floating ice
+presses exactly like the water it displaces, open ocean with its water column and
+ice-free land not at all. The plate is driven by sigma − sigma_ref, the change
+from a reference state (bed ``bed``, ice ``reference_ice_thickness``, sea level
+``reference_sea_level``) in which the deflection is zero. The bed moves with the
+plate, b = bed − w, so floatation and the ocean over depressed bedrock are evaluated
+again at every time from the current deflection (an explicit lag of one step).
+Every cell with its bed below sea level and no grounded ice counts as ocean; closed
+basins are not told apart from the sea.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from gridflex.engine import deflection_attrs, provenance_attrs
+from gridflex.errors import ConvergenceError, InputError
+from gridflex.glacial.response import (
+    INITIAL_STATES,
+    Progress,
+    ResponseStepper,
+    check_times,
+    uplift_rate_attrs,
+    warn_edge_load,
+)
+from gridflex.grid import check_grid, check_same_grid
+from gridflex.memory import check_memory
+from gridflex.plate import Plate
+from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
+from gridflex.solvers.viscous import DEFAULT_WIDTH_FACTOR
+
+__all__ = ["bed_stress", "grounded_mask", "ice_response"]
+
+log = logging.getLogger(__name__)
+
+ICE_DENSITY = 910.0
+WATER_DENSITY = 1030.0
+
+_EQUILIBRIUM_TOL = 1e-6  # m, change of the deflection between fixed-point iterations
+_EQUILIBRIUM_MAX_ITER = 200
+
+ArrayLike = Any
+
+
+def bed_stress(
+    ice_thickness: ArrayLike,
+    bed: ArrayLike,
+    sea_level: ArrayLike = 0.0,
+    *,
+    ice_density: float = ICE_DENSITY,
+    water_density: float = WATER_DENSITY,
+    gravity: float = 9.81,
+) -> ArrayLike:
+    """Vertical stress on the bed of ice and ocean water (Pa, positive down).
+
+    .. math:: \\sigma = g\\,\\max\\left(\\rho_i H,\\ \\rho_w \\max(z_{sl} - b, 0)\\right)
+
+    Parameters
+    ----------
+    ice_thickness : array_like or xarray.DataArray
+        Ice thickness H (m, >= 0).
+    bed : array_like or xarray.DataArray
+        Bed elevation b (m, positive up, same datum as *sea_level*).
+    sea_level : float or array_like, default 0
+        Sea-level elevation z_sl (m).
+    ice_density, water_density : float
+        rho_i and rho_w (kg m^-3), default 910 and 1030.
+    gravity : float, default 9.81
+        g (m s^-2).
+
+    Returns
+    -------
+    array or xarray.DataArray
+        sigma (Pa), broadcast over the inputs.
+
+    Examples
+    --------
+    >>> float(bed_stress(1000.0, 100.0))          # grounded ice on land
+    8927100.0
+    >>> float(bed_stress(300.0, -500.0))         # floating: only the displaced water
+    5052150.0
+    >>> float(bed_stress(0.0, -500.0))           # the same water column, no ice
+    5052150.0
+    """
+    ocean = water_density * np.maximum(sea_level - bed, 0.0)
+    return gravity * np.maximum(ice_density * ice_thickness, ocean)
+
+
+def grounded_mask(
+    ice_thickness: ArrayLike,
+    bed: ArrayLike,
+    sea_level: ArrayLike = 0.0,
+    *,
+    ice_density: float = ICE_DENSITY,
+    water_density: float = WATER_DENSITY,
+) -> ArrayLike:
+    """True where there is ice and it rests on the bed: H > 0 and
+    rho_i H >= rho_w (z_sl − b)."""
+    return (ice_thickness > 0) & (ice_density * ice_thickness >= water_density * (sea_level - bed))
+
+
+def _check_density(name: str, value: Any) -> float:
+    try:
+        number = float(value)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{name} must be a number (kg/m^3), got {value!r}") from exc
+    if not (np.isfinite(number) and number > 0):
+        raise InputError(f"{name} must be a finite positive density (kg/m^3), got {value!r}")
+    return number
+
+
+def _sea_level_series(sea_level: Any, times: np.ndarray) -> np.ndarray:
+    if isinstance(sea_level, xr.DataArray) and sea_level.ndim == 1:
+        if sea_level.dims != ("time",) or sea_level.size != times.size:
+            raise InputError(
+                f"sea_level as a series must have dim 'time' with {times.size} values "
+                f"like ice_thickness, got dims {sea_level.dims!r} and {sea_level.size} values"
+            )
+        if "time" in sea_level.coords and not np.allclose(
+            np.asarray(sea_level["time"].values, dtype=np.float64), times, rtol=0, atol=1e-6
+        ):
+            raise InputError("sea_level: its time coordinate differs from ice_thickness's")
+        values = np.asarray(sea_level.values, dtype=np.float64)
+    else:
+        values = np.asarray(sea_level, dtype=np.float64)
+        if values.ndim == 0:
+            values = np.full(times.size, float(values))
+        elif values.shape != times.shape:
+            raise InputError(
+                f"sea_level must be a number or a series of {times.size} values (one per "
+                f"time), got shape {values.shape}"
+            )
+    if not np.all(np.isfinite(values)):
+        raise InputError("sea_level contains NaN or infinite values")
+    return values
+
+
+def _reference_field(value: Any, like: xr.DataArray, label: str) -> np.ndarray:
+    if isinstance(value, xr.DataArray):
+        check_same_grid(value, like, label)
+        out = np.asarray(value.values, dtype=np.float64)
+    else:
+        out = np.full(like.shape, float(value))
+    if not np.all(np.isfinite(out)) or out.min() < 0:
+        raise InputError(f"{label} must be finite and >= 0 m")
+    return out
+
+
+def ice_response(
+    ice_thickness: xr.DataArray,
+    bed: xr.DataArray,
+    plate: Plate,
+    sea_level: float | xr.DataArray = 0.0,
+    model: str = "half-space",
+    mantle_viscosity: float = 1e21,
+    relaxation_time: float = 3000.0,
+    *,
+    reference_ice_thickness: float | xr.DataArray = 0.0,
+    reference_sea_level: float = 0.0,
+    ice_density: float = ICE_DENSITY,
+    water_density: float = WATER_DENSITY,
+    initial: str = "rest",
+    interpolation: str = "linear",
+    max_step: float | None = None,
+    edges: str = "infinite",
+    pad_factor: float = DEFAULT_PAD_FACTOR,
+    width_factor: float = DEFAULT_WIDTH_FACTOR,
+    progress: Progress | None = None,
+) -> xr.Dataset:
+    """Bed deflection through time under an ice-thickness history with floatation.
+
+    Parameters
+    ----------
+    ice_thickness : xarray.DataArray
+        H (m, >= 0), dims ``("time", "y", "x")``, time in years, increasing.
+    bed : xarray.DataArray
+        Bed elevation in the reference state (m, positive up), dims ``("y", "x")`` on
+        the same grid.
+    plate : Plate
+        Constant te and ``infill_density=0``: the ocean water over depressed bedrock is
+        added here explicitly.
+    sea_level : float or xarray.DataArray, default 0
+        Sea-level elevation (m): one number, or a series along ``time``.
+    model, mantle_viscosity, relaxation_time
+        As :func:`gridflex.viscous_response`.
+    reference_ice_thickness : float or xarray.DataArray, default 0
+        Ice of the reference state (m), in which the deflection is zero.
+    reference_sea_level : float, default 0
+        Sea level of the reference state (m).
+    ice_density, water_density : float
+        kg m^-3, default 910 and 1030.
+    initial : {"rest", "equilibrium"}, default "rest"
+        At the first time the bed is at its reference position, or in equilibrium
+        with the first ice and sea level (found by fixed-point iteration, since the
+        ocean load depends on the deflection).
+    interpolation : {"linear", "previous"}, default "linear"
+        Ice and sea level between the given times: linear, or held at the earlier
+        value. The load of a step uses the bed at its start (an explicit lag).
+    max_step : float, optional
+        Longest step (years): longer intervals of the history are split into equal
+        sub-steps, so that floatation and the ocean load follow the moving bed more
+        closely. Without an ocean the result does not depend on it (the steps are exact).
+    edges, pad_factor, width_factor
+        Padding; see :class:`gridflex.ResponseStepper`.
+    progress : callable, optional
+        Called as ``progress(done, total)`` after each time step.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``deflection`` (m, positive down), ``uplift_rate`` (m/yr, positive up),
+        ``bed_elevation`` (m), ``load`` (the stress change sigma − sigma_ref, Pa) and
+        ``grounded`` (1 where ice rests on the bed), all (time, y, x), and the
+        ``sea_level`` series.
+
+    Raises
+    ------
+    InputError
+        Invalid inputs, or a plate with a non-zero infill density.
+    ConvergenceError
+        The initial equilibrium iteration does not settle.
+    """
+    if not isinstance(ice_thickness, xr.DataArray) or ice_thickness.dims != ("time", "y", "x"):
+        raise InputError("ice_thickness must be a DataArray with dims ('time', 'y', 'x')")
+    if "time" not in ice_thickness.coords:
+        raise InputError("ice_thickness has no 'time' coordinate (years)")
+    times = check_times(ice_thickness["time"].values, "ice_thickness")
+    first = ice_thickness.isel(time=0, drop=True)
+    check_grid(first, "ice_thickness")
+    check_grid(bed, "bed")
+    check_same_grid(bed, first, "bed")
+    thickness = np.asarray(ice_thickness.values, dtype=np.float64)
+    if not np.all(np.isfinite(thickness)) or thickness.min() < 0:
+        raise InputError(
+            "ice_thickness must be finite and >= 0 m everywhere; where a file marks "
+            "ice-free cells as missing, fill them with 0 first (e.g. .fillna(0))"
+        )
+    if not isinstance(plate, Plate):
+        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
+    if plate.infill_density != 0.0:
+        raise InputError(
+            f"ice_response adds the ocean water over depressed bedrock itself; give a plate "
+            f"with infill_density=0.0 (got {plate.infill_density!r})"
+        )
+    if initial not in INITIAL_STATES:
+        raise InputError(
+            f"initial must be one of {', '.join(map(repr, INITIAL_STATES))}; got {initial!r}"
+        )
+    step_limit = None
+    if max_step is not None:
+        step_limit = float(max_step)
+        if not (math.isfinite(step_limit) and step_limit > 0):
+            raise InputError(f"max_step must be a positive number of years, got {max_step!r}")
+    rho_i = _check_density("ice_density", ice_density)
+    rho_w = _check_density("water_density", water_density)
+    levels = _sea_level_series(sea_level, times)
+    ref_level = float(reference_sea_level)
+    if not np.isfinite(ref_level):
+        raise InputError(f"reference_sea_level must be finite (m), got {reference_sea_level!r}")
+    bed0 = np.asarray(bed.values, dtype=np.float64)
+    ref_ice = _reference_field(reference_ice_thickness, first, "reference_ice_thickness")
+    g = plate.gravity
+    nt = times.size
+    ny, nx = first.shape
+    check_memory(
+        (4 * 8.0 + 1.0) * nt * ny * nx,
+        f"deflection, uplift rate, bed and load for {nt} times of {ny} x {nx}",
+    )
+
+    dens = {"ice_density": rho_i, "water_density": rho_w}
+    sigma_ref = bed_stress(ref_ice, bed0, ref_level, gravity=g, **dens)
+
+    def stress_change(ice: np.ndarray, level: float, w: np.ndarray) -> np.ndarray:
+        return bed_stress(ice, bed0 - w, level, gravity=g, **dens) - sigma_ref
+
+    def load_at(n: int, w: np.ndarray) -> np.ndarray:
+        return stress_change(thickness[n], levels[n], w)
+
+    zero = np.zeros((ny, nx))
+    if edges == "infinite":
+        # largest change of the ice load, plus the sea-level change over what is ocean
+        change = float(np.abs(levels - ref_level).max())
+        ocean = bed0 < levels.max()
+        ice_change = np.abs(thickness - ref_ice).max(axis=0)
+        warn_edge_load(g * (rho_i * ice_change + rho_w * change * ocean))
+    stepper = ResponseStepper(
+        first,
+        plate,
+        model,
+        mantle_viscosity,
+        relaxation_time,
+        load=load_at(0, zero),
+        initial="rest",
+        interpolation=interpolation,
+        edges=edges,
+        pad_factor=pad_factor,
+        width_factor=width_factor,
+    )
+    w = zero
+    if initial == "equilibrium":
+        w = _initial_equilibrium(stepper, lambda w_: load_at(0, w_))
+
+    out = {name: np.empty((nt, ny, nx)) for name in ("deflection", "uplift_rate", "load")}
+    grounded = np.empty((nt, ny, nx), dtype=np.int8)
+
+    def record(n: int, w_now: np.ndarray) -> None:
+        q_now = load_at(n, w_now)
+        out["deflection"][n] = w_now
+        out["load"][n] = q_now
+        out["uplift_rate"][n] = stepper.uplift_rate(q_now).values
+        grounded[n] = grounded_mask(thickness[n], bed0 - w_now, levels[n], **dens)
+
+    record(0, w)
+    linear = stepper.interpolation == "linear"
+    for n in range(1, nt):
+        dt = times[n] - times[n - 1]
+        parts = 1 if step_limit is None else max(1, math.ceil(dt / step_limit - 1e-9))
+        for part in range(1, parts + 1):
+            if linear:
+                # ice and sea level at the end of the sub-step, on the bed of its start
+                f = part / parts
+                ice = thickness[n - 1] + f * (thickness[n] - thickness[n - 1])
+                level = levels[n - 1] + f * (levels[n] - levels[n - 1])
+                w = stepper.advance(dt / parts, stress_change(ice, level, w)).values
+                if part < parts:
+                    stepper.set_load(stress_change(ice, level, w))
+            else:
+                # the earlier ice and sea level held, on the bed of the sub-step's start
+                held = stress_change(thickness[n - 1], levels[n - 1], w)
+                w = stepper.advance(dt / parts, held).values
+        record(n, w)
+        if progress is not None:
+            progress(n, nt - 1)
+
+    coords = {
+        "time": ("time", times, {"units": "years", "long_name": "time"}),
+        "y": first["y"].variable,
+        "x": first["x"].variable,
+    }
+    dims = ("time", "y", "x")
+    data_vars = {
+        "deflection": (dims, out["deflection"], deflection_attrs()),
+        "uplift_rate": (dims, out["uplift_rate"], uplift_rate_attrs()),
+        "bed_elevation": (
+            dims,
+            bed0[None] - out["deflection"],
+            {"units": "m", "long_name": "bed elevation (positive up)"},
+        ),
+        "load": (
+            dims,
+            out["load"],
+            {
+                "units": "Pa",
+                "long_name": "change of the vertical stress of ice and ocean on the bed",
+            },
+        ),
+        "grounded": (
+            dims,
+            grounded,
+            {
+                "long_name": "grounded ice",
+                "flag_values": np.array([0, 1], dtype=np.int8),
+                "flag_meanings": "not_grounded grounded",
+            },
+        ),
+        "sea_level": ("time", levels, {"units": "m", "long_name": "sea-level elevation"}),
+        "reference_load": (
+            ("y", "x"),
+            sigma_ref,
+            {
+                "units": "Pa",
+                "long_name": "vertical stress of ice and ocean on the bed in the "
+                "reference state (zero deflection)",
+            },
+        ),
+    }
+    attrs = stepper.describe()
+    attrs.update(
+        {
+            "ice_density": rho_i,
+            "water_density": rho_w,
+            "reference_sea_level": ref_level,
+            "reference_state": (
+                "deflection is zero for the given bed with the reference ice and sea level"
+            ),
+            "initial_state": initial,
+            "max_step": step_limit if step_limit is not None else "none",
+        }
+    )
+    ds_attrs = provenance_attrs(plate, attrs, "bed deflection under an ice-thickness history")
+    return xr.Dataset(data_vars, coords=coords, attrs=ds_attrs)
+
+
+def _initial_equilibrium(stepper: ResponseStepper, load_of: Any) -> np.ndarray:
+    """Fixed point w = equilibrium(load(w)); the ocean term makes the load depend on w.
+
+    Each iteration shrinks the error by about rho_w / rho_m (< 1/3 for water over
+    mantle), so a few tens of iterations reach the tolerance.
+    """
+    w = np.zeros(stepper.deflection.shape)
+    for iteration in range(1, _EQUILIBRIUM_MAX_ITER + 1):
+        stepper.set_load(load_of(w))
+        new = stepper.equilibrium().values
+        change = float(np.abs(new - w).max())
+        w = new
+        if change <= _EQUILIBRIUM_TOL:
+            stepper.set_load(load_of(w))
+            log.info("initial equilibrium after %d iterations", iteration)
+            return stepper.settle().values
+    raise ConvergenceError(
+        f"the initial equilibrium with the ocean load did not settle in "
+        f"{_EQUILIBRIUM_MAX_ITER} iterations (last change {change:.3g} m)"
+    )

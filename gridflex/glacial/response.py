@@ -1,0 +1,485 @@
+"""Plate deflection through time under a changing load.
+
+:func:`viscous_response` runs a whole load history; :class:`ResponseStepper` does the
+same one step at a time for coupling to an ice-sheet model. Both use the exact
+per-wavenumber update of :mod:`gridflex.solvers.viscous`, so a stepper fed the
+history's loads gives the batch result to round-off.
+
+Times at this interface are in years (1 yr = 3.15576e7 s, the Julian year).
+
+Restoring density. The restoring pressure is (rho_m − rho_infill) g w, exactly as in
+:func:`gridflex.solve`, so both models relax to the elastic equilibrium ``solve()``
+gives for the same plate. For ice that sits in air use ``infill_density=0`` (the
+mantle density alone restores, as in Le Meur & Huybrechts 1996 and Bueler et al.
+2007); for a load whose moat fills with water instantly, use the water density.
+A non-zero infill density raises a GridflexWarning, since the Plate default (sea
+water) would silently make ice loads sink too deep.
+:func:`gridflex.glacial.ice.ice_response` adds the ocean water over depressed bedrock
+explicitly and therefore requires ``infill_density=0``.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import warnings
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from gridflex.engine import check_edge_load, deflection_attrs, provenance_attrs
+from gridflex.errors import GridflexWarning, InputError
+from gridflex.grid import GridSpec, check_grid, check_same_grid
+from gridflex.memory import check_memory
+from gridflex.plate import Plate
+from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
+from gridflex.solvers.viscous import (
+    DEFAULT_WIDTH_FACTOR,
+    INTERPOLATIONS,
+    MODELS,
+    SECONDS_PER_YEAR,
+    SpectralRelaxation,
+)
+
+__all__ = [
+    "INITIAL_STATES",
+    "ResponseStepper",
+    "check_times",
+    "uplift_rate_attrs",
+    "viscous_response",
+    "warn_edge_load",
+]
+
+log = logging.getLogger(__name__)
+
+INITIAL_STATES = ("rest", "equilibrium")
+"""Start at rest (w = 0, the reference state) or in elastic equilibrium with the
+first load."""
+
+Progress = Callable[[int, int], Any]
+
+
+def uplift_rate_attrs() -> dict[str, str]:
+    """CF-style attributes of the ``uplift_rate`` variable."""
+    return {
+        "units": "m yr-1",
+        "long_name": "rate of vertical motion of the plate (positive upward)",
+        "comment": "-dw/dt at each time under the load of that time; yr = 365.25 days",
+    }
+
+
+def _positive(name: str, value: Any, unit: str) -> float:
+    try:
+        number = float(value)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{name} must be a number ({unit}), got {value!r}") from exc
+    if not (math.isfinite(number) and number > 0):
+        raise InputError(f"{name} must be a finite positive number ({unit}), got {value!r}")
+    return number
+
+
+def _choice(name: str, value: Any, allowed: tuple[str, ...]) -> str:
+    if value not in allowed:
+        raise InputError(f"{name} must be one of {', '.join(map(repr, allowed))}; got {value!r}")
+    return str(value)
+
+
+def check_times(times: Any, label: str) -> np.ndarray:
+    """Return *times* (years) as float64 after checking they are finite and increasing.
+
+    Raises
+    ------
+    InputError
+        Non-numeric (for example datetime) or non-finite times, or times that do not
+        strictly increase.
+    """
+    values = np.asarray(times)
+    if values.ndim != 1 or values.size == 0:
+        raise InputError(f"{label}: the time coordinate must be 1-D and non-empty")
+    if not np.issubdtype(values.dtype, np.number):
+        raise InputError(
+            f"{label}: time must be numbers of years, got dtype {values.dtype}; "
+            "convert dates to years first (for example years before present as negative numbers)"
+        )
+    values = values.astype(np.float64)
+    if not np.all(np.isfinite(values)):
+        raise InputError(f"{label}: time contains NaN or infinite values")
+    steps = np.diff(values)
+    if steps.size and steps.min() <= 0:
+        at = int(np.argmin(steps))
+        raise InputError(
+            f"{label}: time must strictly increase; {values[at]!r} is followed by "
+            f"{values[at + 1]!r} years"
+        )
+    return values
+
+
+def _constant_rigidity(plate: Plate) -> float:
+    if not isinstance(plate, Plate):
+        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
+    if plate.is_variable:
+        raise InputError(
+            "the time-dependent response needs a constant te (a number); "
+            "a te grid is not supported here"
+        )
+    return float(plate.rigidity)
+
+
+class ResponseStepper:
+    """Plate over a relaxing or viscous mantle, advanced one time step at a time.
+
+    Parameters
+    ----------
+    grid : xarray.DataArray
+        Any field on the working grid (dims ``("y", "x")``, metres); only its
+        coordinates are used.
+    plate : Plate
+        Constant te; the restoring pressure is (rho_m − rho_infill) g w. A non-zero
+        infill density raises a :class:`gridflex.GridflexWarning` (the Plate default,
+        sea water, is wrong for ice sitting in air: use ``infill_density=0``).
+    model : {"half-space", "relaxing"}, default "half-space"
+        ``"half-space"``: elastic plate over a viscous half-space of viscosity
+        *mantle_viscosity* (Bueler, Lingle & Brown 2007). ``"relaxing"``: elastic
+        plate over an asthenosphere relaxing with one *relaxation_time*
+        (Le Meur & Huybrechts 1996).
+    mantle_viscosity : float, default 1e21
+        Half-space viscosity eta (Pa s).
+    relaxation_time : float, default 3000.0
+        Relaxation time tau of the relaxing model (years).
+    load : xarray.DataArray or numpy.ndarray, optional
+        Vertical stress (Pa, positive down) acting at the start; zero if omitted.
+    initial : {"rest", "equilibrium"}, default "rest"
+        Start undeflected, or in elastic equilibrium with *load*.
+    interpolation : {"linear", "previous"}, default "linear"
+        Meaning of the load passed to :meth:`advance`: the load at the end of the
+        step, reached linearly from the load acting now (``"linear"``), or the load
+        held constant during the step (``"previous"``). Both updates are exact for
+        such loads.
+    edges : {"infinite", "periodic"}, default "infinite"
+        Zero-pad the grid (an isolated load on an infinite plate) or treat the
+        domain as periodic.
+    pad_factor : float, default 4.5
+        Padding on each side in flexural parameters (both models).
+    width_factor : float, default 1.0
+        Half-space only: padding on each side of at least this many grid widths. The
+        transient of the half-space reaches far beyond the load; the periodic images
+        this padding pushes away cause errors of a few tenths of a percent in the
+        first thousand years after a load the size of the grid is applied, less later.
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> x = np.arange(32) * 50e3
+    >>> q = xr.DataArray(np.zeros((32, 32)), dims=("y", "x"), coords={"y": x, "x": x})
+    >>> q[12:20, 12:20] = 9e6
+    >>> stepper = ResponseStepper(q, Plate(te=50e3, infill_density=0.0))
+    >>> w = stepper.advance(100.0, q)
+    >>> stepper.time, w.dims
+    (100.0, ('y', 'x'))
+    """
+
+    def __init__(
+        self,
+        grid: xr.DataArray,
+        plate: Plate,
+        model: str = "half-space",
+        mantle_viscosity: float = 1e21,
+        relaxation_time: float = 3000.0,
+        *,
+        load: xr.DataArray | np.ndarray | None = None,
+        initial: str = "rest",
+        interpolation: str = "linear",
+        edges: str = "infinite",
+        pad_factor: float = DEFAULT_PAD_FACTOR,
+        width_factor: float = DEFAULT_WIDTH_FACTOR,
+    ) -> None:
+        rigidity = _constant_rigidity(plate)
+        if plate.infill_density > 0:
+            warnings.warn(
+                f"the plate's infill_density is {plate.infill_density:g} kg/m^3, so the "
+                f"restoring pressure is ({plate.mantle_density:g} - {plate.infill_density:g}) "
+                "g w: right for a load whose moat fills with water at once; for ice or any "
+                "load in air use Plate(..., infill_density=0)",
+                GridflexWarning,
+                stacklevel=2,
+            )
+        self._spec: GridSpec = check_grid(grid, "grid")
+        self._grid = grid
+        self.plate = plate
+        self.model = _choice("model", model, MODELS)
+        self.mantle_viscosity = _positive("mantle_viscosity", mantle_viscosity, "Pa s")
+        self.relaxation_time = _positive("relaxation_time", relaxation_time, "years")
+        self.initial = _choice("initial", initial, INITIAL_STATES)
+        self.interpolation = _choice("interpolation", interpolation, INTERPOLATIONS)
+        self.edges = _choice("edges", edges, ("infinite", "periodic"))
+        self._engine = SpectralRelaxation.build(
+            self._spec,
+            rigidity,
+            plate.restoring_stiffness,
+            self.model,
+            self.mantle_viscosity,
+            self.relaxation_time * SECONDS_PER_YEAR,
+            interpolation=self.interpolation,
+            periodic=(self.edges == "periodic"),
+            pad_factor=pad_factor,
+            width_factor=width_factor,
+        )
+        self.pad_factor = float(pad_factor)
+        self.width_factor = float(width_factor)
+        self.time = 0.0
+        """Time elapsed since the start (years)."""
+        if load is not None:
+            self._engine.set_load(self._values(load, "load"))
+        if self.initial == "equilibrium":
+            self._engine.set_equilibrium()
+        log.info(
+            "%s model on %s grid, FFT grid %s", self.model, self._spec.shape, self._engine.shape
+        )
+
+    # -- helpers ------------------------------------------------------------------
+    @property
+    def padded_shape(self) -> tuple[int, int]:
+        """FFT grid ``(ny, nx)`` after padding."""
+        return self._engine.shape
+
+    def _values(self, load: xr.DataArray | np.ndarray, label: str) -> np.ndarray:
+        if isinstance(load, xr.DataArray):
+            check_same_grid(load, self._grid, label)
+            values = np.asarray(load.values, dtype=np.float64)
+        else:
+            values = np.asarray(load, dtype=np.float64)
+            if values.shape != self._spec.shape:
+                raise InputError(
+                    f"{label} has shape {values.shape}, the grid is {self._spec.shape}"
+                )
+        if not np.all(np.isfinite(values)):
+            raise InputError(f"{label} contains NaN or infinite values")
+        return values
+
+    def _wrap(self, values: np.ndarray, name: str, attrs: dict[str, str]) -> xr.DataArray:
+        coords = {"y": self._grid["y"].variable, "x": self._grid["x"].variable}
+        return xr.DataArray(values, dims=("y", "x"), coords=coords, name=name, attrs=attrs)
+
+    # -- stepping -----------------------------------------------------------------
+    def advance(self, dt: float, load: xr.DataArray | np.ndarray) -> xr.DataArray:
+        """Advance the plate by *dt* years under *load* and return the deflection.
+
+        Parameters
+        ----------
+        dt : float
+            Step length (years, > 0).
+        load : xarray.DataArray or numpy.ndarray
+            Vertical stress (Pa, positive down) on the grid: with
+            ``interpolation="linear"`` the load at the end of the step, with
+            ``"previous"`` the load held during the step. It is the load acting
+            afterwards.
+
+        Returns
+        -------
+        xarray.DataArray
+            Deflection w (m, positive down) at the new time.
+        """
+        step = _positive("dt", dt, "years")
+        self._engine.step(step * SECONDS_PER_YEAR, self._values(load, "load"))
+        self.time += step
+        return self.deflection
+
+    def set_load(self, load: xr.DataArray | np.ndarray) -> None:
+        """Change the load acting now (Pa) without moving the plate (a sudden change)."""
+        self._engine.set_load(self._values(load, "load"))
+
+    def settle(self) -> xr.DataArray:
+        """Put the plate in elastic equilibrium with the load acting now (as after an
+        infinitely long time) and return the deflection."""
+        self._engine.set_equilibrium()
+        return self.deflection
+
+    @property
+    def deflection(self) -> xr.DataArray:
+        """Current deflection w (m, positive down)."""
+        return self._wrap(self._engine.deflection(), "deflection", deflection_attrs())
+
+    def equilibrium(self) -> xr.DataArray:
+        """Elastic equilibrium (m, positive down) under the load acting now: where the
+        plate is heading."""
+        return self._wrap(self._engine.equilibrium(), "deflection", deflection_attrs())
+
+    def uplift_rate(self, load: xr.DataArray | np.ndarray | None = None) -> xr.DataArray:
+        """Uplift rate −dw/dt (m/yr, positive up) now.
+
+        Parameters
+        ----------
+        load : xarray.DataArray or numpy.ndarray, optional
+            If given, it first becomes the load acting now (as :meth:`set_load`);
+            the rate is the one under this load.
+        """
+        if load is not None:
+            self.set_load(load)
+        rate = self._engine.rate() * (-SECONDS_PER_YEAR)
+        return self._wrap(rate, "uplift_rate", uplift_rate_attrs())
+
+    def describe(self) -> dict[str, Any]:
+        """Model settings as a flat dict (for output attributes)."""
+        out: dict[str, Any] = {
+            "time_model": self.model,
+            "restoring_density": self.plate.density_contrast,
+            "load_interpolation": self.interpolation,
+            "initial_state": self.initial,
+            "edges": self.edges,
+            "padded_shape": np.array(self.padded_shape, dtype=np.int64),
+            "pad_factor": self.pad_factor,
+        }
+        if self.model == "half-space":
+            out["mantle_viscosity"] = self.mantle_viscosity
+            out["pad_width_factor"] = self.width_factor
+        else:
+            out["relaxation_time"] = self.relaxation_time
+        return out
+
+
+def warn_edge_load(magnitude: np.ndarray) -> None:
+    """Warn (EdgeLoadWarning) when much of a load's magnitude over time (Pa, the
+    largest |q| of each cell) lies on the grid edge, where zero padding cuts it off."""
+    check_edge_load(magnitude, float(np.abs(magnitude).sum()))
+
+
+def _check_history(load_history: Any) -> tuple[np.ndarray, xr.DataArray]:
+    if not isinstance(load_history, xr.DataArray):
+        raise InputError(
+            f"load_history must be an xarray.DataArray, got {type(load_history).__name__}"
+        )
+    if load_history.dims != ("time", "y", "x"):
+        raise InputError(
+            f"load_history must have dims ('time', 'y', 'x'), got {load_history.dims!r}; "
+            "use .transpose('time', 'y', 'x')"
+        )
+    if "time" not in load_history.coords:
+        raise InputError("load_history has no 'time' coordinate (years)")
+    times = check_times(load_history["time"].values, "load_history")
+    first = load_history.isel(time=0, drop=True)
+    check_grid(first, "load_history")
+    values = load_history.values
+    if not np.all(np.isfinite(values)):
+        raise InputError("load_history contains NaN or infinite values")
+    return times, first
+
+
+def viscous_response(
+    load_history: xr.DataArray,
+    plate: Plate,
+    model: str = "half-space",
+    mantle_viscosity: float = 1e21,
+    relaxation_time: float = 3000.0,
+    *,
+    initial: str = "rest",
+    interpolation: str = "linear",
+    edges: str = "infinite",
+    pad_factor: float = DEFAULT_PAD_FACTOR,
+    width_factor: float = DEFAULT_WIDTH_FACTOR,
+    progress: Progress | None = None,
+) -> xr.Dataset:
+    """Deflection through time of an elastic plate over a viscous or relaxing mantle.
+
+    Per Fourier mode k (w, q positive downward):
+
+    .. math:: \\tau(k)\\,\\partial_t W + W = Q / (D k^4 + \\Delta\\rho\\, g)
+
+    with :math:`\\tau = 2\\eta k / (D k^4 + \\Delta\\rho g)` for the viscous half-space
+    (Bueler, Lingle & Brown 2007) or one constant tau for the relaxing asthenosphere
+    (Le Meur & Huybrechts 1996). Both tend to the elastic equilibrium of
+    :func:`gridflex.solve` for the same plate.
+
+    Parameters
+    ----------
+    load_history : xarray.DataArray
+        Vertical stress q (Pa, positive down), dims ``("time", "y", "x")``; ``time``
+        in years, strictly increasing (any origin, e.g. negative before present).
+    plate : Plate
+        Constant te. The restoring pressure is (rho_m − rho_infill) g w: use
+        ``infill_density=0`` for ice sitting in air.
+    model : {"half-space", "relaxing"}, default "half-space"
+        Mantle model.
+    mantle_viscosity : float, default 1e21
+        Half-space viscosity (Pa s).
+    relaxation_time : float, default 3000.0
+        Relaxation time of the relaxing model (years).
+    initial : {"rest", "equilibrium"}, default "rest"
+        At the first time the plate is undeflected, or in equilibrium with the first load.
+    interpolation : {"linear", "previous"}, default "linear"
+        Between two times the load varies linearly, or stays at the earlier value.
+    edges, pad_factor, width_factor
+        Padding; see :class:`ResponseStepper`.
+    progress : callable, optional
+        Called as ``progress(done, total)`` after each time step.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``deflection`` (m, positive down) and ``uplift_rate`` (m/yr, positive up,
+        −dw/dt under the load of that time), both (time, y, x), and the ``load``;
+        attributes record the plate, the model and the padding.
+
+    Raises
+    ------
+    InputError
+        Invalid history, plate or parameter, or results too large for memory.
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> x = np.arange(32) * 50e3
+    >>> q = np.zeros((3, 32, 32)); q[:, 12:20, 12:20] = 9e6
+    >>> history = xr.DataArray(q, dims=("time", "y", "x"),
+    ...                        coords={"time": [0.0, 1e3, 1e4], "y": x, "x": x})
+    >>> out = viscous_response(history, Plate(te=50e3, infill_density=0.0))
+    >>> out["deflection"].dims
+    ('time', 'y', 'x')
+    """
+    times, first = _check_history(load_history)
+    _constant_rigidity(plate)
+    nt = times.size
+    ny, nx = first.shape
+    check_memory(
+        2 * 8.0 * nt * ny * nx, f"deflection and uplift rate for {nt} times of {ny} x {nx}"
+    )
+    if edges == "infinite":
+        warn_edge_load(np.abs(load_history.values).max(axis=0))
+    values = load_history.values
+    stepper = ResponseStepper(
+        first,
+        plate,
+        model,
+        mantle_viscosity,
+        relaxation_time,
+        load=values[0],
+        initial=initial,
+        interpolation=interpolation,
+        edges=edges,
+        pad_factor=pad_factor,
+        width_factor=width_factor,
+    )
+    deflection = np.empty((nt, ny, nx))
+    uplift = np.empty((nt, ny, nx))
+    deflection[0] = stepper.deflection.values
+    uplift[0] = stepper.uplift_rate().values
+    linear = stepper.interpolation == "linear"
+    for n in range(1, nt):
+        dt = times[n] - times[n - 1]
+        deflection[n] = stepper.advance(dt, values[n] if linear else values[n - 1]).values
+        uplift[n] = stepper.uplift_rate(None if linear else values[n]).values
+        if progress is not None:
+            progress(n, nt - 1)
+    time_coord = load_history["time"].variable.copy(deep=False)
+    time_coord.attrs = {**time_coord.attrs, "units": "years", "long_name": "time"}
+    coords = {"time": time_coord, "y": first["y"].variable, "x": first["x"].variable}
+    load_var = load_history.variable.copy(deep=False)
+    load_var.attrs = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
+    data_vars = {
+        "deflection": (("time", "y", "x"), deflection, deflection_attrs()),
+        "uplift_rate": (("time", "y", "x"), uplift, uplift_rate_attrs()),
+        "load": load_var,
+    }
+    attrs = provenance_attrs(plate, stepper.describe(), "plate deflection through time")
+    return xr.Dataset(data_vars, coords=coords, attrs=attrs)

@@ -1,0 +1,1 @@
+"""Gravity: closed-form prisms, Parker series of interfaces, anomalies, first-order filters."""

@@ -1,0 +1,1 @@
+"""What is derived from a solved grid: summaries, profiles, outlines."""

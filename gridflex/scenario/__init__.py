@@ -1,0 +1,1 @@
+"""Scenario files: the key schema engine shared by every command."""

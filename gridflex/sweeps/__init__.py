@@ -1,0 +1,1 @@
+"""Parameter sweeps on dask."""

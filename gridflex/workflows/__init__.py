@@ -1,0 +1,1 @@
+"""One module per command: its scenario tables, checks and runner."""

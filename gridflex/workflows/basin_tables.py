@@ -1,0 +1,227 @@
+"""Basin scenarios (``gridflex basin``): staged loading with compaction, or backstripping.
+
+A basin scenario has these tables (``[[...]]`` are arrays of tables)::
+
+    [plate]               elastic thickness, moduli, mantle density
+    [solver]              edges and padding of the solves
+    [basin]               staged loading: the surface before the first stage, sea level,
+                          water density, compaction, infill tolerance
+    [[stages]]            one per stage, oldest first: isopach file, age, lithology, base
+                          level, sea level, te of its time
+    [backstrip]           or backstripping: basement, sediment and water grids, density
+    [[backstrip_layers]]  optional: a layered column, backstripped step by step
+    [output]              NetCDF file
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from gridflex.basin.compaction import LITHOLOGIES
+from gridflex.errors import InputError
+from gridflex.scenario.schema import REQUIRED, SCHEMA, Key, Scenario, load_scenario, parse_tables
+
+_LITHOLOGY_KEYS: dict[str, Key] = {
+    "lithology": Key(
+        "choice",
+        "porosity-depth law (Sclater & Christie 1980)",
+        "shale",
+        choices=tuple(LITHOLOGIES),
+    ),
+    "surface_porosity": Key(
+        "number", "override the lithology's surface porosity", None, minimum=0.0
+    ),
+    "decay_length": Key(
+        "quantity", "override the lithology's porosity decay length", None, "length", minimum=0.0
+    ),
+    "grain_density": Key(
+        "quantity", "override the lithology's grain density", None, "density", minimum=0.0
+    ),
+}
+"""Keys shared by ``[[stages]]`` and ``[[backstrip_layers]]`` (one declaration)."""
+
+
+__all__ = ["BASIN_SCHEMA", "load_basin_scenario", "parse_basin_scenario"]
+
+
+def _choices(*names: str) -> tuple[str, ...]:
+    return tuple(names)
+
+
+BASIN_SCHEMA: dict[str, dict[str, Key]] = {
+    # infill_density is not used: the fill is decided per cell (water, sediment, air)
+    "plate": dict(SCHEMA["plate"]),
+    "solver": {key: SCHEMA["solver"][key] for key in ("edges", "pad_factor")},
+    "basin": {
+        "surface_file": Key(
+            "path",
+            "grid file (GeoTIFF or NetCDF, metric) of the surface "
+            "before the first stage (elevation, positive up)",
+            REQUIRED,
+        ),
+        "surface_variable": Key("string", "NetCDF variable or band in surface_file", None),
+        "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
+        "water_density": Key(
+            "quantity", "sea-water (and pore-water) density", 1030.0, "density", minimum=0.0
+        ),
+        "compaction": Key("bool", "compact older stages under younger ones", True),
+        "isopachs": Key(
+            "choice",
+            "stage thicknesses as deposited, or present-day (then decompacted first)",
+            "deposited",
+            choices=_choices("deposited", "present"),
+        ),
+        "tolerance": Key("quantity", "infill iteration tolerance", 1e-4, "length", minimum=0.0),
+        "max_iterations": Key("integer", "infill iterations before giving up", 300, minimum=1),
+    },
+    "stages": {
+        "file": Key(
+            "path",
+            "grid file (GeoTIFF or NetCDF) of the stage isopach (thickness as deposited)",
+            REQUIRED,
+        ),
+        "variable": Key("string", "NetCDF variable or band, if the file has several", None),
+        "age": Key("number", "age of the stage (years before present); oldest first", REQUIRED),
+        **_LITHOLOGY_KEYS,
+        "base_level": Key(
+            "quantity",
+            "sediment fills the new depression up to this elevation (default: water to sea level)",
+            None,
+            "length",
+        ),
+        "sea_level": Key("quantity", "sea level at the time of the stage", None, "length"),
+        "elastic_thickness": Key(
+            "quantity", "te at the time of loading (default: [plate])", None, "length", minimum=0.0
+        ),
+        "te_file": Key("path", "grid file of te at the time of loading", None),
+        "te_variable": Key("string", "NetCDF variable or band in te_file", None),
+    },
+    "backstrip": {
+        "basement_file": Key(
+            "path", "grid file of basement depth below sea level (positive down)", None
+        ),
+        "basement_variable": Key("string", "NetCDF variable or band in basement_file", None),
+        "sediment_file": Key("path", "grid file of sediment thickness", None),
+        "sediment_variable": Key("string", "NetCDF variable or band in sediment_file", None),
+        "water_file": Key("path", "grid file of water depth (positive down)", None),
+        "water_variable": Key("string", "NetCDF variable or band in water_file", None),
+        "lithology": Key(
+            "choice",
+            "porosity-depth law giving the sediment density",
+            "shale",
+            choices=_choices("shale", "sandstone", "chalk", "shaly_sandstone"),
+        ),
+        "sediment_density": Key(
+            "quantity",
+            "mean sediment bulk density instead of the porosity law",
+            None,
+            "density",
+            minimum=0.0,
+        ),
+        "sea_level_change": Key(
+            "quantity", "sea level of the time relative to present (positive higher)", 0.0, "length"
+        ),
+        "water_density": Key("quantity", "sea-water density", 1030.0, "density", minimum=0.0),
+        "max_mismatch": Key(
+            "quantity", "largest allowed |basement - sediment - water|", 1.0, "length", minimum=0.0
+        ),
+    },
+    "backstrip_layers": {
+        "file": Key("path", "grid file of the layer's present thickness", REQUIRED),
+        "variable": Key("string", "NetCDF variable or band, if the file has several", None),
+        **_LITHOLOGY_KEYS,
+        "water_depth": Key(
+            "quantity", "water depth when the layer had just been deposited", None, "length"
+        ),
+        "water_depth_file": Key("path", "or a grid file of that water depth", None),
+        "water_depth_variable": Key("string", "NetCDF variable or band in water_depth_file", None),
+        "sea_level_change": Key("quantity", "sea level then, relative to present", 0.0, "length"),
+        "age": Key("number", "age of the top of the layer (years before present)", None),
+    },
+    "output": {
+        "file": Key("path", "NetCDF file for the results", REQUIRED),
+    },
+}
+"""Every table and key a basin scenario may contain."""
+
+BASIN_ARRAY_TABLES = frozenset({"stages", "backstrip_layers"})
+BASIN_REQUIRED_TABLES = ("plate", "output")
+_OPTIONAL = ("basin", "backstrip")
+
+
+def parse_basin_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario:
+    """Validate a basin scenario already read into a dict."""
+    scenario = parse_tables(
+        data, path, text, BASIN_SCHEMA, BASIN_ARRAY_TABLES, BASIN_REQUIRED_TABLES
+    )
+    for name in _OPTIONAL:  # absent: None (the table switches the workflow on)
+        if name not in data:
+            scenario.tables[name] = None
+    _check_basin(scenario)
+    return scenario
+
+
+def load_basin_scenario(path: str | Path) -> Scenario:
+    """Read and validate a basin scenario (TOML); messages name file, table and key."""
+    return load_scenario(path, parser=parse_basin_scenario)
+
+
+def _check_basin(scenario: Scenario) -> None:
+    tables = scenario.tables
+    if tables["basin"] is not None and tables["backstrip"] is not None:
+        raise InputError(
+            f"{scenario.path}: give either [basin] (with [[stages]]) or [backstrip], not both"
+        )
+    if tables["basin"] is None and tables["backstrip"] is None:
+        raise InputError(
+            f"{scenario.path}: a basin scenario needs [basin] (with [[stages]]) or [backstrip]"
+        )
+    if tables["backstrip_layers"] and tables["backstrip"] is None:
+        raise InputError(f"{scenario.path}: [[backstrip_layers]] need a [backstrip] table")
+    if tables["basin"] is not None:
+        if not tables["stages"]:
+            raise InputError(f"{scenario.path}: [basin] needs at least one [[stages]] table")
+        for i, stage in enumerate(tables["stages"]):
+            if stage["te_file"] is None and stage["te_variable"] is not None:
+                raise InputError(f"{scenario.where('stages', 'te_variable', i)}: needs te_file")
+            if stage["te_file"] is not None and stage["elastic_thickness"] is not None:
+                raise InputError(
+                    f"{scenario.where('stages', index=i)}: give either elastic_thickness or te_file"
+                )
+        return
+    if tables["stages"]:
+        raise InputError(f"{scenario.path}: [[stages]] need a [basin] table")
+    table = tables["backstrip"]
+    if tables["backstrip_layers"]:
+        files = [f"{p}_file" for p in ("basement", "sediment", "water") if table[f"{p}_file"]]
+        files += ["sediment_density"] if table["sediment_density"] is not None else []
+        if files:
+            raise InputError(
+                f"{scenario.where('backstrip', files[0])}: leave it out with "
+                "[[backstrip_layers]] (each layer has its thickness and water "
+                "depth)"
+            )
+        ages = [layer["age"] for layer in tables["backstrip_layers"]]
+        if any(a is None for a in ages) and not all(a is None for a in ages):
+            raise InputError(
+                f"{scenario.path}: give age in every [[backstrip_layers]] table or in none"
+            )
+        for i, layer in enumerate(tables["backstrip_layers"]):
+            if (layer["water_depth"] is None) == (layer["water_depth_file"] is None):
+                raise InputError(
+                    f"{scenario.where('backstrip_layers', index=i)}: give either "
+                    "water_depth or water_depth_file"
+                )
+        return
+    given = [p for p in ("basement", "sediment", "water") if table[f"{p}_file"] is not None]
+    for part in ("basement", "sediment", "water"):
+        if table[f"{part}_file"] is None and table[f"{part}_variable"] is not None:
+            raise InputError(
+                f"{scenario.where('backstrip', part + '_variable')}: needs {part}_file"
+            )
+    if len(given) < 2:
+        raise InputError(
+            f"{scenario.where('backstrip')}: give at least two of basement_file, "
+            "sediment_file and water_file"
+        )

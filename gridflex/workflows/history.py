@@ -1,0 +1,417 @@
+"""History scenarios: an ice-thickness history on a plate over a viscous or relaxing
+mantle, written as deflection through time, an uplift-rate map and point series.
+
+A history scenario has these tables (``[[points]]`` is an array of tables)::
+
+    [plate]     elastic thickness, moduli, densities (infill_density must stay 0)
+    [mantle]    model, viscosity, relaxation time
+    [solver]    edges, padding, load interpolation, initial state
+    [grid]      size and spacing, for a synthetic ice history
+    [ice]       the ice-thickness history: a NetCDF (time, y, x) variable or a disc
+    [bed]       bed elevation of the reference state: a NetCDF grid or one number
+    [sea]       sea level: one number or a NetCDF series; reference level; water density
+    [[points]]  named points for time-series plots
+    [output]    NetCDF file, uplift-rate map (and its time), series plot
+"""
+
+from __future__ import annotations
+
+import logging
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from gridflex._version import __version__
+from gridflex.errors import InputError
+from gridflex.glacial.ice import ice_response
+from gridflex.glacial.response import Progress
+from gridflex.grid import check_same_grid
+from gridflex.io.atomic import check_output_path
+from gridflex.io.netcdf import write_netcdf
+from gridflex.io.plots import plot_point_series, plot_uplift_rate_map
+from gridflex.io.rasters import read_raster
+from gridflex.io.time_grids import DEFAULT_TIME_REFERENCE, cf_time_axis, read_history, read_series
+from gridflex.scenario.schema import REQUIRED, SCHEMA, Key, Scenario, load_scenario, parse_tables
+from gridflex.synthetic import disc_height, empty_grid
+from gridflex.units import unit_factor
+from gridflex.workflows.layers import apply_missing_policy
+from gridflex.workflows.run import RunOutcome, plate_from_scenario
+
+__all__ = [
+    "HISTORY_SCHEMA",
+    "format_history_summary",
+    "load_history_scenario",
+    "parse_history_scenario",
+    "run_history_scenario",
+]
+
+log = logging.getLogger(__name__)
+
+HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
+    "plate": {
+        **SCHEMA["plate"],
+        "infill_density": Key(
+            "quantity",
+            "must be 0: the ocean over depressed bedrock is added from the sea level",
+            0.0,
+            "density",
+            minimum=0.0,
+        ),
+    },
+    "mantle": {
+        "model": Key(
+            "choice",
+            "viscous half-space or relaxing asthenosphere",
+            "half-space",
+            choices=("half-space", "relaxing"),
+        ),
+        "viscosity": Key("quantity", "half-space viscosity", 1e21, "viscosity", minimum=0.0),
+        "relaxation_time": Key(
+            "quantity", "relaxation time of the relaxing model", 3000.0, "time", minimum=0.0
+        ),
+    },
+    "solver": {
+        "edges": Key(
+            "choice", "what lies beyond the grid edge", "infinite", choices=("infinite", "periodic")
+        ),
+        "pad_factor": Key(
+            "number", "zero padding per side in flexural parameters", 4.5, minimum=0.0
+        ),
+        "pad_width_factor": Key(
+            "number", "half-space: padding per side in grid widths", 1.0, minimum=0.0
+        ),
+        "interpolation": Key(
+            "choice", "load between the given times", "linear", choices=("linear", "previous")
+        ),
+        "initial": Key(
+            "choice", "state at the first time", "rest", choices=("rest", "equilibrium")
+        ),
+        "max_step": Key(
+            "quantity", "longest time step; longer intervals are split", None, "time", minimum=0.0
+        ),
+    },
+    "grid": {key: SCHEMA["grid"][key] for key in ("columns", "rows", "spacing")},
+    "ice": {
+        "file": Key("path", "NetCDF file with the ice thickness (time, y, x)", None),
+        "variable": Key("string", "ice-thickness variable in the file (m)", None),
+        "synthetic": Key(
+            "choice", "a built-in ice history instead of a file", None, choices=("disc",)
+        ),
+        "radius": Key("quantity", "radius of the synthetic ice disc", None, "length", minimum=0.0),
+        "height": Key(
+            "quantity", "full thickness of the synthetic ice disc", None, "length", minimum=0.0
+        ),
+        "center_x": Key("quantity", "x of the disc's centre", 0.0, "length"),
+        "center_y": Key("quantity", "y of the disc's centre", 0.0, "length"),
+        "times": Key("list", "times of the synthetic history (years)", None),
+        "thickness_factors": Key("list", "share of the full thickness at each time", None),
+        "density": Key("quantity", "ice density", 910.0, "density", minimum=0.0),
+        "missing": Key(
+            "choice",
+            "what nodata/NaN cells of the file mean: no ice (with a warning) or an error",
+            "zero",
+            choices=("zero", "error"),
+        ),
+    },
+    "bed": {
+        "file": Key("path", "NetCDF grid with the bed elevation of the reference state", None),
+        "variable": Key("string", "bed-elevation variable in the file (m, up)", None),
+        "elevation": Key("quantity", "one bed elevation everywhere (m, up)", None, "length"),
+    },
+    "sea": {
+        "level": Key("quantity", "sea level, constant in time", 0.0, "length"),
+        "file": Key("path", "NetCDF file with a sea-level series along time", None),
+        "variable": Key("string", "sea-level variable in the file (m)", None),
+        "reference_level": Key("quantity", "sea level of the reference state", 0.0, "length"),
+        "water_density": Key("quantity", "sea-water density", 1030.0, "density", minimum=0.0),
+    },
+    "points": {
+        "name": Key("string", "label of the point", REQUIRED),
+        "x": Key("quantity", "x of the point", REQUIRED, "length"),
+        "y": Key("quantity", "y of the point", REQUIRED, "length"),
+    },
+    "output": {
+        "file": Key("path", "NetCDF file with deflection through time", REQUIRED),
+        "rate_map": Key("path", "PNG map of the uplift rate", None),
+        "rate_time": Key(
+            "quantity", "time of the uplift-rate map (default: the last)", None, "time"
+        ),
+        "series_plot": Key("path", "PNG time series at the [[points]]", None),
+        "time_reference": Key("string", "date that is year 0 of the times", DEFAULT_TIME_REFERENCE),
+    },
+}
+"""Every table and key a history scenario may contain."""
+
+HISTORY_ARRAY_TABLES = frozenset({"points"})
+HISTORY_REQUIRED_TABLES = ("plate", "ice", "bed", "output")
+
+
+def parse_history_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario:
+    """Validate a history scenario already read into a dict."""
+    scenario = parse_tables(
+        data, path, text, HISTORY_SCHEMA, HISTORY_ARRAY_TABLES, HISTORY_REQUIRED_TABLES
+    )
+    _check_history(scenario)
+    return scenario
+
+
+def load_history_scenario(path: str | Path) -> Scenario:
+    """Read and validate a history scenario (TOML); messages name file, table and key."""
+    return load_scenario(path, parser=parse_history_scenario)
+
+
+def _check_history(scenario: Scenario) -> None:
+    ice = scenario.table("ice")
+    where = scenario.where("ice")
+    if (ice["file"] is None) == (ice["synthetic"] is None):
+        raise InputError(f"{where}: give either 'file' (with 'variable') or 'synthetic'")
+    if ice["file"] is not None and ice["variable"] is None:
+        raise InputError(f"{where} variable: required with 'file'")
+    if ice["synthetic"] is not None:
+        if scenario.tables["grid"] is None:
+            raise InputError(f"{scenario.path}: a synthetic ice history needs a [grid] table")
+        for name in ("radius", "height", "times", "thickness_factors"):
+            if ice[name] is None:
+                raise InputError(f"{where} {name}: required for a synthetic ice history")
+        times, factors = ice["times"], ice["thickness_factors"]
+        for name, values in (("times", times), ("thickness_factors", factors)):
+            if not values or not all(
+                isinstance(v, (int, float)) and not isinstance(v, bool) for v in values
+            ):
+                raise InputError(f"{where} {name}: expected a non-empty list of numbers")
+        if len(times) != len(factors):
+            raise InputError(
+                f"{where}: times has {len(times)} values, thickness_factors "
+                f"{len(factors)}; give one factor per time"
+            )
+    bed = scenario.table("bed")
+    if (bed["file"] is None) == (bed["elevation"] is None):
+        raise InputError(
+            f"{scenario.where('bed')}: give either 'file' (with 'variable') or 'elevation'"
+        )
+    if bed["file"] is not None and bed["variable"] is None:
+        raise InputError(f"{scenario.where('bed')} variable: required with 'file'")
+    sea = scenario.table("sea")
+    if sea["file"] is not None and sea["variable"] is None:
+        raise InputError(f"{scenario.where('sea')} variable: required with 'file'")
+    if scenario.table("plate")["infill_density"] != 0.0:
+        raise InputError(
+            f"{scenario.where('plate', 'infill_density')}: must be 0 for an ice "
+            "history (the ocean over depressed bedrock is added from the sea level)"
+        )
+    names = [p["name"] for p in scenario.table("points")]
+    if len(set(names)) != len(names):
+        raise InputError(f"{scenario.path}: [[points]] names must differ, got {names!r}")
+
+
+def _ice_history(scenario: Scenario, reference: str) -> xr.DataArray:
+    ice = scenario.table("ice")
+    if ice["file"] is not None:
+        history = read_history(ice["file"], ice["variable"], reference)
+        where = scenario.where("ice", "file")
+        return apply_missing_policy(history, ice["missing"], where)
+    g = scenario.table("grid")
+    grid = empty_grid(g["rows"], g["columns"], g["spacing"])
+    disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
+    factors = np.asarray(ice["thickness_factors"], dtype=np.float64)
+    values = factors[:, None, None] * disc.values[None]
+    return xr.DataArray(
+        values,
+        dims=("time", "y", "x"),
+        coords={"time": np.asarray(ice["times"], dtype=np.float64), "y": grid.y, "x": grid.x},
+        name="ice_thickness",
+    )
+
+
+def _bed(scenario: Scenario, like: xr.DataArray) -> xr.DataArray:
+    bed = scenario.table("bed")
+    if bed["file"] is None:
+        return xr.full_like(like, bed["elevation"], dtype=np.float64)
+    where = scenario.where("bed", "file")
+    grid = read_raster(bed["file"], bed["variable"])
+    if "degree" in str(grid["x"].attrs.get("units", "")):
+        raise InputError(
+            f"{where}: the bed grid is in degrees; it must be on the ice "
+            "history's projected grid (metres)"
+        )
+    units = str(grid.attrs.get("units", "m")).strip() or "m"
+    grid = grid * unit_factor(units, "length", f"{where}: bed elevation")
+    if not np.all(np.isfinite(grid.values)):
+        raise InputError(f"{where}: the bed elevation has missing (nodata) cells; fill them")
+    try:
+        check_same_grid(grid, like, "bed")
+    except InputError as exc:
+        raise InputError(f"{scenario.where('bed')}: {exc}; put it on the ice grid") from exc
+    return grid
+
+
+def _point_cells(
+    scenario: Scenario, grid: xr.DataArray
+) -> list[tuple[str, float, float, int, int]]:
+    x, y = grid["x"].values, grid["y"].values
+    cells = []
+    for index, point in enumerate(scenario.table("points")):
+        px, py = point["x"], point["y"]
+        dx, dy = abs(x[1] - x[0]), abs(y[1] - y[0])
+        if not (
+            x.min() - dx / 2 <= px <= x.max() + dx / 2
+            and y.min() - dy / 2 <= py <= y.max() + dy / 2
+        ):
+            raise InputError(
+                f"{scenario.where('points', index=index)}: point "
+                f"({px:g}, {py:g}) m lies outside the grid"
+            )
+        cells.append(
+            (point["name"], px, py, int(np.argmin(np.abs(y - py))), int(np.argmin(np.abs(x - px))))
+        )
+    return cells
+
+
+def run_history_scenario(
+    scenario: Scenario, overwrite: bool = False, progress: Progress | None = None
+) -> RunOutcome:
+    """Run a history scenario and write its outputs.
+
+    Output paths are checked before the run; files are written atomically and never
+    over an input.
+
+    Returns
+    -------
+    RunOutcome
+        ``result`` is the Dataset as written (CF time axis), ``summary`` a dict for
+        :func:`format_history_summary`.
+    """
+    outputs = scenario.table("output")
+    inputs = scenario.input_files
+    targets = [outputs["file"]] + [outputs[k] for k in ("rate_map", "series_plot") if outputs[k]]
+    for target in targets:
+        check_output_path(target, overwrite, inputs)
+    reference = outputs["time_reference"]
+    plate = plate_from_scenario(scenario)
+    thickness = _ice_history(scenario, reference)
+    bed = _bed(scenario, thickness.isel(time=0, drop=True))
+    sea = scenario.table("sea")
+    level: Any = sea["level"]
+    if sea["file"] is not None:
+        level = read_series(sea["file"], sea["variable"], reference)
+    times = np.asarray(thickness["time"].values, dtype=np.float64)
+    rate_time = float(times[-1]) if outputs["rate_time"] is None else outputs["rate_time"]
+    if not times[0] <= rate_time <= times[-1]:
+        raise InputError(
+            f"{scenario.where('output', 'rate_time')}: {rate_time:g} years is "
+            f"outside the history ({times[0]:g} to {times[-1]:g})"
+        )
+    at = int(np.argmin(np.abs(times - rate_time)))
+    cells = _point_cells(scenario, bed)
+    mantle, solver = scenario.table("mantle"), scenario.table("solver")
+    log.info("ice history of %d times on a %s grid", thickness.sizes["time"], bed.shape)
+    result = ice_response(
+        thickness,
+        bed,
+        plate,
+        level,
+        mantle["model"],
+        mantle["viscosity"],
+        mantle["relaxation_time"],
+        reference_sea_level=sea["reference_level"],
+        ice_density=scenario.table("ice")["density"],
+        water_density=sea["water_density"],
+        initial=solver["initial"],
+        interpolation=solver["interpolation"],
+        edges=solver["edges"],
+        pad_factor=solver["pad_factor"],
+        width_factor=solver["pad_width_factor"],
+        max_step=solver["max_step"],
+        progress=progress,
+    )
+    result["ice_thickness"] = (
+        ("time", "y", "x"),
+        thickness.values,
+        {"units": "m", "long_name": "ice thickness"},
+    )
+    out = result.copy()
+    out["vertical_displacement"] = -result["deflection"]
+    out["vertical_displacement"].attrs = {
+        "units": "m",
+        "long_name": "vertical displacement of the bed (positive upward)",
+    }
+    out["x"].attrs = {"units": "m", "axis": "X", "long_name": "x (projected)"}
+    out["y"].attrs = {"units": "m", "axis": "Y", "long_name": "y (projected)"}
+    out.attrs["history"] = f"gridflex {__version__} history {scenario.path.name}"
+    out.attrs["scenario"] = scenario.text
+    out = cf_time_axis(out, reference)
+    outcome = RunOutcome(result=out)
+    outcome.written.append(write_netcdf(out, outputs["file"], overwrite, inputs))
+    times = result["time"].values
+    if outputs["rate_map"]:
+        outcome.written.append(
+            plot_uplift_rate_map(
+                result["uplift_rate"].isel(time=at),
+                outputs["rate_map"],
+                overwrite,
+                inputs,
+                title=f"Uplift rate at {times[at]:g} years after {reference}",
+                outline=result["ice_thickness"].isel(time=at),
+            )
+        )
+    if outputs["series_plot"]:
+        if not cells:
+            raise InputError(
+                f"{scenario.where('output', 'series_plot')}: needs at least one [[points]] table"
+            )
+        series = {
+            name: (result["deflection"].values[:, iy, ix], result["uplift_rate"].values[:, iy, ix])
+            for name, _, _, iy, ix in cells
+        }
+        outcome.written.append(
+            plot_point_series(
+                times,
+                series,
+                outputs["series_plot"],
+                overwrite,
+                inputs,
+                time_label=f"time (years after {reference})",
+            )
+        )
+    outcome.summary = _summary(result, at, cells)
+    return outcome
+
+
+def _summary(result: xr.Dataset, at: int, cells: list) -> dict[str, Any]:
+    w = result["deflection"].values
+    rate = result["uplift_rate"].values[at]
+    return {
+        "times": int(w.shape[0]),
+        "first_time": float(result["time"].values[0]),
+        "last_time": float(result["time"].values[-1]),
+        "max_deflection": float(w.max()),
+        "max_deflection_time": float(
+            result["time"].values[np.unravel_index(w.argmax(), w.shape)[0]]
+        ),
+        "rate_time": float(result["time"].values[at]),
+        "max_uplift_rate": float(rate.max()),
+        "min_uplift_rate": float(rate.min()),
+        "points": {
+            name: (float(w[-1, iy, ix]), float(result["uplift_rate"].values[at, iy, ix]))
+            for name, _, _, iy, ix in cells
+        },
+    }
+
+
+def format_history_summary(summary: dict[str, Any]) -> str:
+    """The summary as a few lines of text (m, mm/yr)."""
+    lines = [
+        f"times               {summary['times']} from {summary['first_time']:g} "
+        f"to {summary['last_time']:g} years",
+        f"deepest depression  {summary['max_deflection']:10.1f} m at "
+        f"{summary['max_deflection_time']:g} years",
+        f"uplift rate at {summary['rate_time']:g} years: {summary['min_uplift_rate'] * 1e3:.2f} "
+        f"to {summary['max_uplift_rate'] * 1e3:.2f} mm/yr",
+    ]
+    for name, (w, rate) in summary["points"].items():
+        lines.append(
+            f"  {name}: deflection {w:.1f} m at the end, uplift rate {rate * 1e3:.2f} mm/yr"
+        )
+    return "\n".join(lines)

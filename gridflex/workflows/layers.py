@@ -1,0 +1,326 @@
+"""Scenario load layers onto one metric working grid, and results back to the input grid.
+
+Each ``[[loads]]`` layer is read (a raster or NetCDF file) or generated (a synthetic
+shape on the ``[grid]`` table's grid), its missing values handled by its
+``missing`` policy, and converted to vertical stress. The first layer's grid is the
+*input grid*. If it is geographic, or the layers lie on different grids, or a
+``[working_grid]`` spacing or projection is asked for, every layer is resampled onto
+one regular grid in a metric projection (by default a Lambert azimuthal equal-area
+projection centred on the domain), where the plate is solved; the results are then
+resampled back onto the input grid.
+"""
+
+from __future__ import annotations
+
+import logging
+import warnings
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import xarray as xr
+from affine import Affine
+from rasterio.crs import CRS
+
+from gridflex.errors import InputError, NodataWarning
+from gridflex.gis.geometry import (
+    GridGeometry,
+    from_lonlat,
+    local_projection,
+    parse_crs,
+    reproject_values,
+    working_geometry,
+)
+from gridflex.io.rasters import geometry_of, read_raster
+from gridflex.loads import load_from_elevation, regional_surface
+from gridflex.scenario.schema import Scenario
+from gridflex.synthetic import (
+    Points,
+    disc_height,
+    gaussian_height,
+    grid_points,
+    island_chain_height,
+)
+from gridflex.units import unit_factor
+
+__all__ = [
+    "WorkingGrid",
+    "apply_missing_policy",
+    "build_working_layers",
+    "build_working_load",
+    "elevation_stress",
+    "synthetic_grid",
+    "to_input_grid",
+]
+
+log = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True)
+class WorkingGrid:
+    """Where the solve happens and where its results go.
+
+    Attributes
+    ----------
+    input : GridGeometry
+        The first layer's grid; outputs are written on it.
+    working : GridGeometry
+        The metric grid of the solve.
+    resampled : bool
+        True when the working grid differs from the input grid.
+    resampling : str
+        Method used to resample the layers.
+    """
+
+    input: GridGeometry
+    working: GridGeometry
+    resampled: bool
+    resampling: str
+
+    def describe(self) -> dict[str, Any]:
+        """Attributes recording the working grid (for output metadata)."""
+        dy, dx = self.working.cell_size_metres()
+        return {
+            "working_grid_crs": self.working.crs.to_wkt() if self.working.crs else "",
+            "working_grid_shape": np.array(self.working.shape, dtype=np.int64),
+            "working_grid_spacing": float(min(dy, dx)),
+            "working_grid_resampled": int(self.resampled),
+            "working_grid_resampling": self.resampling if self.resampled else "none",
+        }
+
+
+def _as_dataarray(values: np.ndarray, geometry: GridGeometry, name: str) -> xr.DataArray:
+    y, x = geometry.coords()
+    da = xr.DataArray(values, dims=("y", "x"), coords={"y": y, "x": x}, name=name)
+    da.attrs["crs_wkt"] = geometry.crs.to_wkt() if geometry.crs is not None else ""
+    return da
+
+
+def _crs_label(crs: CRS | None) -> str:
+    """A short name of a CRS for messages: its EPSG code or its PROJ parameters."""
+    if crs is None:
+        return "plain metres"
+    epsg = crs.to_epsg()
+    if epsg is not None:
+        return f"EPSG:{epsg}"
+    params = crs.to_dict()
+    return " ".join(f"+{k}={v}" for k, v in params.items() if k in ("proj", "lat_0", "lon_0"))
+
+
+def synthetic_grid(table: dict[str, Any]) -> tuple[xr.DataArray, Points]:
+    """The empty ``[grid]`` of a scenario and the metric positions of its cells.
+
+    A grid without ``crs`` is metric, centred on (``center_x``, ``center_y``).
+    A geographic ``crs`` gives a north-up longitude/latitude grid centred on
+    (``center_x``, ``center_y``) degrees whose cells are ``spacing`` metres across
+    at the centre; the cell positions are then those in a local equal-area
+    projection centred on the grid, so shapes keep their size in metres.
+    """
+    rows, columns, spacing = table["rows"], table["columns"], float(table["spacing"])
+    cx, cy = float(table["center_x"]), float(table["center_y"])
+    crs = parse_crs(table["crs"], "[grid] crs") if table.get("crs") else None
+    if crs is None or crs.is_projected:
+        dx = dy = spacing
+    else:
+        probe = GridGeometry(crs, Affine(1.0, 0.0, cx - 0.5, 0.0, -1.0, cy + 0.5), (1, 1))
+        per_lat, per_lon = probe.cell_size_metres()
+        dy, dx = spacing / per_lat, spacing / per_lon
+    transform = Affine(dx, 0.0, cx - 0.5 * columns * dx, 0.0, -dy, cy + 0.5 * rows * dy)
+    geometry = GridGeometry(crs, transform, (rows, columns))
+    grid = _as_dataarray(np.zeros((rows, columns)), geometry, "grid")
+    if crs is None or crs.is_projected:
+        xx, yy, _, _ = grid_points(grid)
+        return grid, (xx - cx, yy - cy, spacing, spacing)
+    local = local_projection(geometry)
+    lon, lat = np.meshgrid(grid["x"].values, grid["y"].values)
+    xx, yy = from_lonlat(lon, lat, local)
+    return grid, (xx, yy, spacing, spacing)
+
+
+def _synthetic_layer(scenario: Scenario, layer: dict[str, Any]) -> xr.DataArray:
+    grid, points = synthetic_grid(scenario.table("grid"))
+    shape = layer["synthetic"]
+    if shape == "island-chain":
+        return island_chain_height(grid, points)
+    centre = (layer["center_x"], layer["center_y"])
+    if shape == "disc":
+        return disc_height(grid, layer["radius"], layer["height"], *centre, points=points)
+    return gaussian_height(grid, layer["radius"], layer["height"], *centre, points=points)
+
+
+def apply_missing_policy(
+    da: xr.DataArray, policy: str, where: str, elevation: bool = False
+) -> xr.DataArray:
+    missing = ~np.isfinite(da.values)
+    count = int(missing.sum())
+    if count == 0:
+        return da
+    if count == missing.size:
+        raise InputError(f"{where}: the layer has no valid value (all nodata)")
+    if policy == "error":
+        raise InputError(
+            f"{where}: {count} nodata or NaN cell(s); fill them, or set "
+            'missing = "zero" to treat them as no load'
+        )
+    if elevation:  # no load there: the surface at its typical (median) level
+        level = float(np.nanmedian(da.values))
+        warnings.warn(
+            f"{where}: {count} nodata or NaN cell(s) taken as no edifice (the "
+            f"layer's median elevation, {level:.6g})",
+            NodataWarning,
+            stacklevel=4,
+        )
+        return da.fillna(level)
+    warnings.warn(
+        f"{where}: {count} nodata or NaN cell(s) taken as zero load", NodataWarning, stacklevel=4
+    )
+    return da.fillna(0.0)
+
+
+def _layer_values(scenario: Scenario, index: int) -> xr.DataArray:
+    """A layer as read or generated, in SI: thickness or elevation (m), or stress (Pa)."""
+    layer = scenario.table("loads")[index]
+    where = scenario.where("loads", index=index)
+    if layer["file"] is None:
+        return _synthetic_layer(scenario, layer)
+    da = read_raster(layer["file"], layer["variable"])
+    where = f"{where} ({layer['file'].name})"
+    da = apply_missing_policy(da, layer["missing"], where, layer["kind"] == "elevation")
+    dimension = "pressure" if layer["kind"] == "stress" else "length"
+    units = str(da.attrs.get("units", "") or ("m" if dimension == "length" else "Pa"))
+    factor = unit_factor(units, dimension, f"{layer['file']}: variable {da.name!r}")
+    return da * factor
+
+
+def elevation_stress(scenario: Scenario, index: int, elevation: xr.DataArray) -> xr.Dataset:
+    """Load of an elevation layer on the working grid (see :func:`load_from_elevation`):
+    the rock above the regional surface, buoyed by sea water below sea level."""
+    layer = scenario.table("loads")[index]
+    infill = scenario.table("infill") or {}
+    regional: Any = layer["regional_elevation"]
+    try:
+        if regional is None:
+            regional = regional_surface(elevation, layer["regional_radius"])
+        return load_from_elevation(
+            elevation,
+            layer["density"],
+            regional,
+            sea_level=infill.get("sea_level", 0.0),
+            water_density=infill.get("water_density", 1030.0),
+            gravity=scenario.table("plate")["gravity"],
+        )
+    except InputError as exc:
+        raise InputError(f"{scenario.where('loads', index=index)}: {exc}") from exc
+
+
+def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], WorkingGrid]:
+    """Every ``[[loads]]`` layer on the working grid, in its own quantity (SI).
+
+    Returns
+    -------
+    layers : list of xarray.DataArray
+        Per layer, in scenario order: thickness or elevation (m) or stress (Pa) on dims
+        ``("y", "x")`` in metres of the working CRS. Outside a resampled layer a
+        thickness or stress is 0 and an elevation is the layer's median.
+    grid : WorkingGrid
+        Input and working geometries.
+
+    Raises
+    ------
+    InputError
+        Unreadable layers, wrong units, grids that cannot be aligned (one with a
+        CRS and one without), all-nodata layers.
+    """
+    options = scenario.table("working_grid")
+    layers = scenario.table("loads")
+    stresses = [_layer_values(scenario, i) for i in range(len(layers))]
+    geometries = [geometry_of(s) for s in stresses]
+    first = geometries[0]
+    crs: CRS | None
+    if options["projection"]:
+        crs = parse_crs(options["projection"], f"{scenario.where('working_grid', 'projection')}")
+    else:
+        crs = local_projection(first)
+    same = all(g == first for g in geometries[1:])
+    target = working_geometry(first, crs, options["spacing"])
+    resampled = not (
+        same
+        and options["spacing"] is None
+        and target == first.north_up()
+        and (crs == first.crs or (crs is None and first.crs is None))
+    )
+    if not resampled:
+        target = first
+    out = []
+    for layer, stress, geometry in zip(layers, stresses, geometries, strict=True):
+        values = stress.values
+        if resampled:
+            values = reproject_values(values, geometry, target, options["resampling"])
+            # outside a layer: no load, or the elevation model's typical level
+            outside = float(np.nanmedian(values)) if layer["kind"] == "elevation" else 0.0
+            values = np.nan_to_num(values, nan=outside)
+        out.append(_as_dataarray(values, target, str(layer["name"] or "layer")))
+    grid = WorkingGrid(first, target, resampled, options["resampling"])
+    if resampled:
+        log.info("layers resampled onto a %s working grid (%s)", target.shape, _crs_label(crs))
+    return out, grid
+
+
+def build_working_load(scenario: Scenario) -> tuple[xr.DataArray, WorkingGrid]:
+    """Total vertical stress (Pa, positive down) of the layers, on the working grid.
+
+    A thickness layer presses with (density - displaced_density) g h, a stress layer
+    as it is, an elevation layer with its rock above the regional surface
+    (:func:`elevation_stress`).
+
+    Returns
+    -------
+    load : xarray.DataArray
+        On dims ``("y", "x")`` in metres of the working CRS.
+    grid : WorkingGrid
+        Input and working geometries.
+
+    Raises
+    ------
+    InputError
+        As :func:`build_working_layers`.
+    """
+    gravity = scenario.table("plate")["gravity"]
+    values, grid = build_working_layers(scenario)
+    total = np.zeros(grid.working.shape)
+    for index, (layer, da) in enumerate(zip(scenario.table("loads"), values, strict=True)):
+        if layer["kind"] == "thickness":
+            total += da.values * ((layer["density"] - layer["displaced_density"]) * gravity)
+        elif layer["kind"] == "elevation":
+            total += elevation_stress(scenario, index, da)["load"].values
+        else:
+            total += da.values
+    load = _as_dataarray(total, grid.working, "load")
+    load.attrs.update(units="Pa", long_name="vertical stress of the load (positive downward)")
+    return load, grid
+
+
+def to_input_grid(result: xr.Dataset, grid: WorkingGrid) -> xr.Dataset:
+    """Resample every ``(y, x)`` variable of *result* back onto the input grid.
+
+    Returns *result* unchanged when no resampling was needed. Variables are
+    resampled bilinearly; the input grid's coordinates (degrees for a geographic
+    input) replace the working ones.
+    """
+    if not grid.resampled:
+        return result
+    y, x = grid.input.coords()
+    out = xr.Dataset(coords={"y": y, "x": x}, attrs=dict(result.attrs))
+    for name, var in result.data_vars.items():
+        if var.dims == ("y", "x"):
+            values = reproject_values(var.values, grid.working, grid.input, "bilinear")
+            out[name] = xr.DataArray(values, dims=("y", "x"), attrs=dict(var.attrs))
+        else:
+            out[name] = var
+    if grid.input.is_geographic:
+        out["x"].attrs = {"units": "degrees_east"}
+        out["y"].attrs = {"units": "degrees_north"}
+    else:
+        out["x"].attrs = {"units": "m"}
+        out["y"].attrs = {"units": "m"}
+    return out

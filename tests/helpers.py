@@ -1,0 +1,31 @@
+"""Helpers shared by the tests: small grids, a random broken plate operator, the repository root."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+REPO_ROOT = Path(__file__).resolve().parents[1]
+"""The repository's root folder (README, configs, examples)."""
+
+
+def random_broken_operator(shape: tuple[int, int], edges: tuple[str, str], seed: int):
+    """A plate operator on random rigidity (1e20-1e23 N m) cut by one zero row and one
+    zero column, spacing 1500 m along x and 2000 m along y; with its random generator."""
+    from gridflex.solvers.plate_operator import PlateOperator
+
+    rng = np.random.default_rng(seed)
+    rigidity = 10 ** rng.uniform(20, 23, shape)
+    rigidity[shape[0] // 2, :] = 0.0
+    rigidity[:, shape[1] // 3] = 0.0
+    return PlateOperator.build(rigidity, 2e4, 0.25, 2000.0, 1500.0, edges), rng
+
+
+def make_grid(ny: int, nx: int, dx: float, dy: float | None = None) -> xr.DataArray:
+    """Zeros on a (ny, nx) grid of spacing dx (and dy) centred on the origin."""
+    dy = dx if dy is None else dy
+    y = (np.arange(ny) - ny // 2) * dy
+    x = (np.arange(nx) - nx // 2) * dx
+    return xr.DataArray(np.zeros((ny, nx)), dims=("y", "x"), coords={"y": y, "x": x})

@@ -1,0 +1,241 @@
+"""The ``gridflex basin`` command with real NetCDF files written and read back."""
+
+import numpy as np
+import pytest
+import xarray as xr
+from numpy.testing import assert_allclose
+
+from gridflex import Plate
+from gridflex.basin.staging import Stage, backstrip, stage_loading
+from gridflex.cli.main import main
+from gridflex.workflows.basin_tables import BASIN_SCHEMA, load_basin_scenario
+from tests.helpers import REPO_ROOT
+
+N, DX = 40, 5e3
+
+
+def _grid(values):
+    coord = np.arange(N) * DX
+    return xr.DataArray(values, dims=("y", "x"), coords={"y": coord, "x": coord})
+
+
+def _lens(peak, radius):
+    coord = np.arange(N) * DX
+    y, x = np.meshgrid(coord, coord, indexing="ij")
+    r2 = ((x - coord.mean()) ** 2 + (y - coord.mean()) ** 2) / radius**2
+    return _grid(peak * np.exp(-r2) * (r2 < 9))
+
+
+def _write(path, name, grid):
+    grid.to_dataset(name=name).to_netcdf(path)
+    return path
+
+
+@pytest.fixture
+def stage_files(tmp_path):
+    shelf = _grid(np.broadcast_to(np.linspace(-400.0, 50.0, N), (N, N)).copy())
+    _write(tmp_path / "surface.nc", "elevation", shelf)
+    _write(tmp_path / "s1.nc", "thickness", _lens(500.0, 25e3))
+    _write(tmp_path / "s2.nc", "thickness", _lens(300.0, 18e3))
+    return tmp_path, shelf
+
+
+def test_basin_command_writes_the_staged_result(stage_files, capsys):
+    # the command must reproduce the library call on the same grids (common practice)
+    folder, shelf = stage_files
+    (folder / "delta.toml").write_text(
+        """
+[plate]
+elastic_thickness = "8 km"
+
+[basin]
+surface_file = "surface.nc"
+surface_variable = "elevation"
+
+[[stages]]
+file = "s1.nc"
+variable = "thickness"
+age = 3.0e6
+lithology = "shale"
+
+[[stages]]
+file = "s2.nc"
+variable = "thickness"
+age = 1.0e6
+lithology = "sandstone"
+base_level = "0 m"
+
+[output]
+file = "delta_out.nc"
+"""
+    )
+    assert main(["basin", str(folder / "delta.toml")]) == 0
+    assert "wrote" in capsys.readouterr().out
+    with xr.open_dataset(folder / "delta_out.nc") as ds:
+        out = ds.load()
+    stages = [
+        Stage(_lens(500.0, 25e3), 3.0e6, "shale"),
+        Stage(_lens(300.0, 18e3), 1.0e6, "sandstone", base_level=0.0),
+    ]
+    expected = stage_loading(stages, shelf, Plate(te=8e3))
+    assert out.sizes["stage"] == 2
+    for name in ("deflection", "accommodation", "stage_thickness", "stage_density"):
+        assert_allclose(out[name].values, expected[name].values, rtol=1e-12, atol=1e-12)
+    assert_allclose(out["age"].values, [3.0e6, 1.0e6])
+    assert float(out["stage_fill"][1].max()) > 0.0  # the second stage filled its moat
+
+
+def test_backstrip_command(tmp_path):
+    # same numbers as the library backstrip (Steckler & Watts 1978 formula in te = 0 limit
+    # is tested in test_basin.py); common practice
+    s, wd = _lens(4000.0, 30e3), _grid(np.full((N, N), 150.0))
+    _write(tmp_path / "sed.nc", "thickness", s)
+    _write(tmp_path / "water.nc", "depth", wd)
+    (tmp_path / "strip.toml").write_text(
+        """
+[plate]
+elastic_thickness = 0
+
+[backstrip]
+sediment_file = "sed.nc"
+sediment_variable = "thickness"
+water_file = "water.nc"
+water_variable = "depth"
+lithology = "shaly_sandstone"
+
+[output]
+file = "strip.nc"
+"""
+    )
+    assert main(["basin", "-q", str(tmp_path / "strip.toml")]) == 0
+    with xr.open_dataset(tmp_path / "strip.nc") as ds:
+        out = ds.load()
+    expected = backstrip(None, s, wd, Plate(te=0.0), lithology="shaly_sandstone")
+    assert_allclose(
+        out["tectonic_subsidence"].values, expected["tectonic_subsidence"].values, rtol=1e-12
+    )
+
+
+def test_basin_scenario_errors(stage_files, capsys):
+    folder, _ = stage_files
+    bad = folder / "bad.toml"
+    bad.write_text(
+        '[plate]\nelastic_thickness = 0\n[basin]\nsurface_file = "surface.nc"\n'
+        'surface_variable = "elevation"\n[output]\nfile = "x.nc"\n'
+    )
+    assert main(["basin", str(bad)]) == 2
+    assert "needs at least one [[stages]]" in capsys.readouterr().err
+    bad.write_text(
+        '[plate]\nelastic_thickness = 0\n[backstrip]\nsediment_file = "s1.nc"\n'
+        'sediment_variable = "thickness"\n[output]\nfile = "x.nc"\n'
+    )
+    assert main(["basin", str(bad)]) == 2
+    assert "at least two of basement_file" in capsys.readouterr().err
+    bad.write_text(
+        '[plate]\nelastic_thickness = 0\n[backstrip]\nsediment_file = "s1.nc"\n'
+        'sediment_variable = "thickness"\nwater_file = "s2.nc"\n'
+        'water_variable = "thickness"\n[output]\nfile = "x.nc"\n'
+    )
+    assert main(["run", str(bad)]) == 2
+    assert "unknown table [backstrip]" in capsys.readouterr().err
+    with pytest.raises(Exception, match="unknown key 'porosity'"):
+        bad.write_text(
+            '[plate]\nelastic_thickness = 0\n[basin]\nsurface_file = "a.nc"\n'
+            'surface_variable = "e"\n[[stages]]\nfile = "s1.nc"\n'
+            'variable = "thickness"\nage = 1\nporosity = 0.5\n[output]\nfile = "x.nc"\n'
+        )
+        load_basin_scenario(bad)
+
+
+def test_layered_backstrip_command(tmp_path):
+    # same numbers as the library's layered backstrip (checked against Steckler & Watts
+    # 1978 in test_basin.py); common practice
+    from gridflex.basin.staging import backstrip_layers
+
+    top, low = _lens(1500.0, 30e3), _lens(2500.0, 35e3)
+    _write(tmp_path / "top.nc", "thickness", top)
+    _write(tmp_path / "low.nc", "thickness", low)
+    (tmp_path / "layers.toml").write_text(
+        """
+[plate]
+elastic_thickness = "5 km"
+
+[backstrip]
+
+[[backstrip_layers]]
+file = "top.nc"
+lithology = "sandstone"
+water_depth = "120 m"
+age = 0
+
+[[backstrip_layers]]
+file = "low.nc"
+lithology = "shale"
+water_depth = "600 m"
+sea_level_change = "40 m"
+age = 10e6
+
+[output]
+file = "layers_out.nc"
+"""
+    )
+    assert main(["basin", "-q", str(tmp_path / "layers.toml")]) == 0
+    with xr.open_dataset(tmp_path / "layers_out.nc") as ds:
+        out = ds.load()
+    expected = backstrip_layers(
+        [(top, "sandstone"), (low, "shale")],
+        [120.0, 600.0],
+        Plate(te=5e3),
+        sea_level_changes=[0.0, 40.0],
+    )
+    assert out.sizes["step"] == 2
+    assert_allclose(
+        out["tectonic_subsidence"].values, expected["tectonic_subsidence"].values, rtol=1e-12
+    )
+    assert_allclose(out["age"].values, [0.0, 10e6])
+
+
+def test_basin_command_reads_geotiffs_and_keeps_their_crs(tmp_path):
+    # projected GeoTIFF inputs (north-up rasters, y decreasing) give the same numbers as
+    # the grids themselves, and the NetCDF keeps the CRS (common practice)
+    from gridflex.io.rasters import write_geotiff
+
+    crs = "EPSG:32633"
+    shelf = _grid(np.full((N, N), -600.0))
+    stage = _lens(400.0, 25e3)
+    write_geotiff(shelf, tmp_path / "surface.tif", crs)
+    write_geotiff(stage, tmp_path / "stage.tif", crs)
+    (tmp_path / "tif.toml").write_text(
+        """
+[plate]
+elastic_thickness = "6 km"
+
+[basin]
+surface_file = "surface.tif"
+isopachs = "present"
+
+[[stages]]
+file = "stage.tif"
+age = 1e6
+
+[output]
+file = "tif_out.nc"
+"""
+    )
+    assert main(["basin", "-q", str(tmp_path / "tif.toml")]) == 0
+    with xr.open_dataset(tmp_path / "tif_out.nc") as ds:
+        out = ds.load()
+    expected = stage_loading([Stage(stage, 1e6)], shelf, Plate(te=6e3), isopachs="present")
+    got = out["deflection"].isel(stage=0)
+    got = got.sortby("y") if "y" in got.dims else got
+    assert_allclose(got.values, expected["deflection"][0].values, rtol=1e-9, atol=1e-9)
+    assert "crs" in out.variables or "spatial_ref" in out.variables
+
+
+def test_every_basin_scenario_key_is_documented():
+    # the README key tables follow the schema (common practice, as tests/test_docs.py)
+    readme = (REPO_ROOT / "README.md").read_text()
+    for table, keys in BASIN_SCHEMA.items():
+        assert f"[{table}]" in readme, table
+        for key in keys:
+            assert f"`{key}`" in readme, f"[{table}] {key} is not in README.md"

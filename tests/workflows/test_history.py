@@ -1,0 +1,288 @@
+"""History scenarios and the ``gridflex history`` command, with real files."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import netCDF4
+import numpy as np
+import pytest
+import xarray as xr
+from numpy.testing import assert_allclose
+
+from gridflex import InputError, Plate, ice_response
+from gridflex.cli.main import main
+from gridflex.errors import NodataWarning
+from gridflex.io.time_grids import read_history, years_from_cf
+from gridflex.synthetic import disc_height, empty_grid
+from gridflex.workflows.history import load_history_scenario, run_history_scenario
+from tests.helpers import REPO_ROOT
+
+SYNTHETIC = """
+[plate]
+elastic_thickness = "80 km"
+
+[mantle]
+model = "half-space"
+viscosity = "1e21 Pa s"
+
+[grid]
+rows = 40
+columns = 40
+spacing = "40 km"
+
+[ice]
+synthetic = "disc"
+radius = "400 km"
+height = "2000 m"
+times = [-20000, -15000, -10000, -5000, 0]
+thickness_factors = [0.0, 1.0, 1.0, 0.2, 0.0]
+
+[bed]
+elevation = "300 m"
+
+[[points]]
+name = "centre"
+x = 0
+y = 0
+
+[[points]]
+name = "edge"
+x = "400 km"
+y = "0 km"
+
+[output]
+file = "out/ice.nc"
+rate_map = "out/rate.png"
+rate_time = "-5 kyr"
+series_plot = "out/series.png"
+"""
+
+
+def _write(tmp_path: Path, text: str, name: str = "history.toml") -> Path:
+    path = tmp_path / name
+    path.write_text(text)
+    return path
+
+
+def test_history_command_writes_cf_netcdf_map_and_series(tmp_path, capsys):
+    path = _write(tmp_path, SYNTHETIC)
+    assert main(["history", str(path)]) == 0
+    captured = capsys.readouterr()
+    assert "4/4" in captured.err  # progress over the time steps
+    assert "centre: deflection" in captured.out
+    for name in ("ice.nc", "rate.png", "series.png"):
+        assert (tmp_path / "out" / name).stat().st_size > 0
+    with netCDF4.Dataset(tmp_path / "out" / "ice.nc") as nc:
+        time = nc["time"]
+        assert time.units == "days since 1950-01-01 00:00:00"  # CF time axis
+        assert time.calendar == "proleptic_gregorian"
+        assert time.axis == "T"
+        assert_allclose(nc["time_years"][:], [-20000, -15000, -10000, -5000, 0])
+        assert nc["uplift_rate"].units == "m yr-1"
+        assert nc["deflection"].dimensions == ("time", "y", "x")
+    # same numbers as the library call (common practice: the CLI adds nothing numerical)
+    grid = empty_grid(40, 40, 40e3)
+    disc = disc_height(grid, 400e3, 2000.0)
+    factors = np.array([0.0, 1.0, 1.0, 0.2, 0.0])
+    ice = xr.DataArray(
+        factors[:, None, None] * disc.values[None],
+        dims=("time", "y", "x"),
+        coords={"time": [-20000.0, -15000, -10000, -5000, 0], "y": grid.y, "x": grid.x},
+    )
+    plate = Plate(te=80e3, infill_density=0.0)
+    expected = ice_response(ice, xr.full_like(grid, 300.0), plate)
+    written = xr.open_dataset(tmp_path / "out" / "ice.nc", decode_times=False)
+    assert_allclose(written.deflection.values, expected.deflection.values, rtol=0, atol=1e-9)
+    assert_allclose(written.vertical_displacement.values, -expected.deflection.values, atol=1e-9)
+    written.close()
+    # a second run refuses to overwrite without --overwrite
+    assert main(["history", str(path)]) == 2
+    assert "--overwrite" in capsys.readouterr().err
+
+
+def test_history_from_files_with_cf_days(tmp_path):
+    grid = empty_grid(32, 32, 50e3)
+    disc = disc_height(grid, 300e3, 1500.0)
+    days = np.array([0.0, 2000.0, 6000.0]) * 365.25
+    stack = np.stack([disc.values] * 3)
+    stack[:, 0, 0] = np.nan  # ice-free cells marked missing, as ice models often write
+    ice = xr.Dataset(
+        {"thk": (("time", "y", "x"), stack, {"units": "m"})},
+        coords={
+            "time": ("time", days, {"units": "days since 1950-01-01", "calendar": "julian"}),
+            "y": ("y", grid.y.values / 1e3, {"units": "km"}),
+            "x": ("x", grid.x.values / 1e3, {"units": "km"}),
+        },
+    )
+    ice.to_netcdf(tmp_path / "ice_in.nc")
+    bed = xr.Dataset(
+        {"topg": (("y", "x"), np.full((32, 32), -100.0), {"units": "m"})},
+        coords={"y": grid.y.values, "x": grid.x.values},
+    )
+    bed.to_netcdf(tmp_path / "bed_in.nc")
+    history = read_history(tmp_path / "ice_in.nc", "thk")
+    # 2000 Julian years of days since 1950 in the Julian calendar: exact by construction
+    assert_allclose(history.time.values, [0.0, 2000.0, 6000.0], rtol=0, atol=1e-6)
+    assert_allclose(history.x.values, grid.x.values)
+    text = f"""
+[plate]
+elastic_thickness = "50 km"
+[mantle]
+model = "relaxing"
+relaxation_time = "3 kyr"
+[solver]
+edges = "periodic"      # the sea-level rise loads an ocean that fills the grid
+[ice]
+file = "{tmp_path / "ice_in.nc"}"
+variable = "thk"
+[bed]
+file = "bed_in.nc"
+variable = "topg"
+[sea]
+level = "5 m"
+[output]
+file = "res.nc"
+"""
+    path = _write(tmp_path, text)
+    with pytest.warns(NodataWarning, match="3 nodata or NaN cell"):
+        outcome = run_history_scenario(load_history_scenario(path))
+    assert outcome.written == [tmp_path / "res.nc"]
+    with xr.open_dataset(tmp_path / "res.nc", decode_times=False) as out:
+        assert_allclose(out.sea_level.values, 5.0)
+        assert out.attrs["time_model"] == "relaxing"
+        assert out.deflection.values[-1].max() > 0
+        assert out.ice_thickness.values[0, 0, 0] == 0.0
+    strict_text = text.replace('variable = "thk"', 'variable = "thk"\nmissing = "error"')
+    strict = _write(tmp_path, strict_text, "strict.toml")
+    with pytest.raises(InputError, match="3 nodata or NaN cell"):
+        run_history_scenario(load_history_scenario(strict), overwrite=True)
+
+
+def test_years_from_plain_units():
+    assert_allclose(
+        years_from_cf(np.array([-21.0, 0.0]), "ka", None, "1950-01-01", "f"), [-21000.0, 0.0]
+    )
+
+
+@pytest.mark.parametrize(
+    ("edit", "match"),
+    [
+        (
+            lambda t: t.replace(
+                'elastic_thickness = "80 km"', 'elastic_thickness = "80 km"\ninfill_density = 1030'
+            ),
+            r"\[plate\] infill_density: must be 0 for an ice history",
+        ),
+        (lambda t: t.replace('elevation = "300 m"', ""), r"\[bed\]: give either 'file'"),
+        (
+            lambda t: t.replace(
+                "thickness_factors = [0.0, 1.0, 1.0, 0.2, 0.0]", "thickness_factors = [0.0, 1.0]"
+            ),
+            r"times has 5 values, thickness_factors 2",
+        ),
+        (
+            lambda t: t.replace('model = "half-space"', 'model = "maxwell"'),
+            r"\[mantle\] model: 'maxwell' is not allowed",
+        ),
+        (
+            lambda t: t.replace('viscosity = "1e21 Pa s"', 'viscosity = "1e21 Pa"'),
+            r"\[mantle\] viscosity: unit 'Pa' is not a viscosity",
+        ),
+    ],
+)
+def test_bad_history_scenarios_name_table_and_key(tmp_path, edit, match):
+    with pytest.raises(InputError, match=match):
+        load_history_scenario(_write(tmp_path, edit(SYNTHETIC)))
+
+
+def test_rate_time_outside_the_history_is_refused(tmp_path, capsys):
+    path = _write(tmp_path, SYNTHETIC.replace('rate_time = "-5 kyr"', 'rate_time = "5 kyr"'))
+    assert main(["history", str(path), "-q"]) == 2
+    assert "rate_time: 5000 years is outside the history" in capsys.readouterr().err
+    assert not (tmp_path / "out" / "ice.nc").exists()  # refused before any output
+
+
+def test_point_outside_the_grid_is_refused_before_running(tmp_path, capsys):
+    path = _write(tmp_path, SYNTHETIC.replace('x = "400 km"', 'x = "4000 km"'))
+    assert main(["history", str(path), "-q"]) == 2
+    assert "#2: point (4e+06, 0) m lies outside the grid" in capsys.readouterr().err
+    assert not (tmp_path / "out" / "ice.nc").exists()
+
+
+def test_shipped_history_scenario_is_valid():
+    path = REPO_ROOT / "configs" / "ice_history.toml"
+    scenario = load_history_scenario(path)
+    assert scenario.table("mantle")["model"] == "half-space"
+    assert len(scenario.table("points")) == 3
+
+
+def test_sea_level_series_from_a_file(tmp_path):
+    # 10 m of sea-level rise over a 1000 m deep ocean, Te = 0: at equilibrium the water
+    # column grows by 10 m plus the depression, w = rho_w 10 / (rho_m - rho_w)
+    # (hydro-isostasy, common practice). Steps of 250 yr << tau keep the lag small.
+    kyr = np.arange(0.0, 60.001, 0.25)
+    levels = np.where(kyr > 0, 10.0, 0.0)
+    series = xr.Dataset(
+        {"sl": ("time", levels, {"units": "m"})}, coords={"time": ("time", kyr, {"units": "kyr"})}
+    )
+    series.to_netcdf(tmp_path / "sea.nc")
+    years = ", ".join(f"{t * 1e3:g}" for t in kyr)
+    zeros = ", ".join("0" for _ in kyr)
+    text = f"""
+[plate]
+elastic_thickness = 0
+[mantle]
+model = "relaxing"
+relaxation_time = "3 kyr"
+[solver]
+edges = "periodic"
+[grid]
+rows = 8
+columns = 8
+spacing = "50 km"
+[ice]
+synthetic = "disc"
+radius = "1 km"
+height = 0
+times = [{years}]
+thickness_factors = [{zeros}]
+[bed]
+elevation = "-1000 m"
+[sea]
+file = "sea.nc"
+variable = "sl"
+[output]
+file = "sea_out.nc"
+"""
+    assert main(["history", str(_write(tmp_path, text)), "-q"]) == 0
+    with xr.open_dataset(tmp_path / "sea_out.nc", decode_times=False) as out:
+        assert_allclose(out.sea_level.values, levels)
+        # 60 kyr = 14 effective relaxation times tau rho_m / (rho_m - rho_w): within 1e-5
+        assert_allclose(out.deflection.values[-1], 1030.0 * 10.0 / (3300.0 - 1030.0), rtol=1e-5)
+        assert "reference_load" in out
+
+
+def test_every_history_scenario_key_is_documented():
+    from gridflex.workflows.history import HISTORY_SCHEMA
+
+    readme = (REPO_ROOT / "README.md").read_text()
+    section = readme[readme.index("## Ice loads through time") :]
+    for table, keys in HISTORY_SCHEMA.items():
+        if table in ("plate", "grid"):  # documented with the elastic scenario
+            continue
+        assert f"[{table}]" in section, table
+        for key in keys:
+            assert f"`{key}`" in section, f"[{table}] {key} is not in README.md"
+
+
+def test_coupling_example_runs():
+    import subprocess
+    import sys
+
+    script = REPO_ROOT / "examples" / "ice_coupling.py"
+    done = subprocess.run(
+        [sys.executable, str(script)], capture_output=True, text=True, timeout=300
+    )
+    assert done.returncode == 0, done.stderr
+    assert "uplift rate" in done.stdout

@@ -1,0 +1,164 @@
+"""A full scenario run on a longitude/latitude GeoTIFF: outputs open in place in a GIS."""
+
+from __future__ import annotations
+
+import json
+
+import netCDF4
+import numpy as np
+import pytest
+import rasterio
+import xarray as xr
+from affine import Affine
+from rasterio.crs import CRS
+
+from gridflex.cli.main import main
+from gridflex.io.rasters import read_raster
+
+LON0, LAT0, STEP = 25.0, -30.0, 0.02  # an invented open-ocean patch; 0.02 degree cells
+NY, NX = 120, 140
+
+
+def _write_lonlat_tiff(path, nodata_corner=False):
+    transform = Affine(STEP, 0.0, LON0 - NX * STEP / 2, 0.0, -STEP, LAT0 + NY * STEP / 2)
+    lon = LON0 - NX * STEP / 2 + (np.arange(NX) + 0.5) * STEP
+    lat = LAT0 + NY * STEP / 2 - (np.arange(NY) + 0.5) * STEP
+    km_x = (lon[None, :] - LON0) * 111.32 * np.cos(np.radians(LAT0))
+    km_y = (lat[:, None] - LAT0) * 110.57
+    height = 3000.0 * np.exp(-(km_x**2 + km_y**2) / (2 * 12.0**2))
+    height = height.astype(np.float32)
+    if nodata_corner:
+        height[:3, :3] = -9999.0
+    with rasterio.open(
+        path,
+        "w",
+        driver="GTiff",
+        width=NX,
+        height=NY,
+        count=1,
+        dtype="float32",
+        crs="EPSG:4326",
+        transform=transform,
+        nodata=-9999.0,
+    ) as dst:
+        dst.write(height, 1)
+        dst.update_tags(1, units="m")
+    return transform
+
+
+SCENARIO = """
+[plate]
+elastic_thickness = "10 km"
+
+[[loads]]
+file = "edifice.tif"
+density = 2800
+displaced_density = 1030
+{missing}
+
+[output]
+file = "out/result.nc"
+geotiff = true
+outlines = "out/outlines.geojson"
+map = "out/map.png"
+profile_start = [24.0, -30.0]
+profile_end = [26.0, -30.0]
+profile_csv = "out/profile.csv"
+"""
+
+
+def test_lonlat_geotiff_full_run(tmp_path, capsys):
+    transform = _write_lonlat_tiff(tmp_path / "edifice.tif")
+    (tmp_path / "s.toml").write_text(SCENARIO.format(missing=""))
+    assert main(["run", str(tmp_path / "s.toml"), "-q"]) == 0
+    out = tmp_path / "out"
+    # GeoTIFF outputs: same CRS, transform and shape as the input (common practice for GIS)
+    for name in ("deflection", "vertical_displacement", "load"):
+        with rasterio.open(out / f"result_{name}.tif") as src:
+            assert src.crs == CRS.from_epsg(4326)
+            assert src.transform.almost_equals(transform)
+            assert (src.height, src.width) == (NY, NX)
+            band = src.read(1)
+        assert np.isfinite(band).all()
+    # NetCDF: xarray and netCDF4 open it; GDAL (through rasterio) reads its CRS
+    with xr.open_dataset(out / "result.nc") as ds:
+        assert ds["deflection"].dims == ("lat", "lon")
+        assert ds["crs"].attrs["grid_mapping_name"] == "latitude_longitude"
+        w = ds["deflection"].values
+        assert ds["deflection"].attrs["grid_mapping"] == "crs"
+    with netCDF4.Dataset(out / "result.nc") as nc:
+        assert nc.variables["deflection"].units == "m"
+        assert "gridflex" in nc.history
+    with rasterio.open(f"netcdf:{out / 'result.nc'}:deflection") as src:
+        assert src.crs is not None and src.crs.to_epsg() == 4326
+    back = read_raster(out / "result.nc", "deflection")
+    np.testing.assert_allclose(back.values, w)
+    assert w.max() > 50.0 and w.min() < 0.0
+    # the load put back on the input grid keeps its total within 1 %: the working projection is
+    # equal-area (Snyder 1987, Map Projections: A Working Manual, USGS PP 1395, ch. 24)
+    with rasterio.open(tmp_path / "edifice.tif") as src:
+        height = src.read(1)
+    with rasterio.open(out / "result_load.tif") as src:
+        load_back = src.read(1)
+    expected = height * (2800.0 - 1030.0) * 9.81
+    assert load_back.sum() == pytest.approx(expected.sum(), rel=1e-2)
+    # GeoJSON (RFC 7946): closed rings in longitude/latitude inside the domain
+    features = json.loads((out / "outlines.geojson").read_text())["features"]
+    kinds = {f["properties"]["name"] for f in features}
+    assert {"moat", "zero_deflection"} <= kinds, kinds
+    for feature in features:
+        geometry = feature["geometry"]
+        if geometry["type"] in ("Polygon", "MultiPolygon"):
+            polygons = (
+                geometry["coordinates"]
+                if geometry["type"] == "MultiPolygon"
+                else [geometry["coordinates"]]
+            )
+            for polygon in polygons:
+                for ring in polygon:
+                    assert ring[0] == ring[-1] and len(ring) >= 4
+                    lon, lat = np.array(ring).T
+                    assert (abs(lon - LON0) < 1.5).all() and (abs(lat - LAT0) < 1.3).all()
+    assert (out / "profile.csv").read_text().startswith("distance [m]")
+    assert (out / "map.png").stat().st_size > 10_000
+
+
+def test_nodata_policy(tmp_path, capsys):
+    _write_lonlat_tiff(tmp_path / "edifice.tif", nodata_corner=True)
+    (tmp_path / "s.toml").write_text(SCENARIO.format(missing='missing = "error"'))
+    assert main(["run", str(tmp_path / "s.toml"), "-q"]) == 2
+    assert "9 nodata or NaN cell(s)" in capsys.readouterr().err
+    (tmp_path / "s.toml").write_text(SCENARIO.format(missing='missing = "zero"'))
+    assert main(["run", str(tmp_path / "s.toml")]) == 0
+    assert "taken as zero load" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    ("prepare", "message"),
+    [
+        (lambda p: p.write_bytes(b"II*\x00 not really a tiff"), "edifice.tif"),
+        (lambda p: _all_nodata(p), "no valid value"),
+    ],
+)
+def test_bad_rasters_give_one_clear_line(tmp_path, capsys, prepare, message):
+    prepare(tmp_path / "edifice.tif")
+    (tmp_path / "s.toml").write_text(SCENARIO.format(missing=""))
+    assert main(["run", str(tmp_path / "s.toml"), "-q"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("gridflex: error:") and message in err[0]
+
+
+def _all_nodata(path):
+    _write_lonlat_tiff(path)
+    with rasterio.open(path, "r+") as dst:
+        dst.write(np.full((NY, NX), -9999.0, dtype=np.float32), 1)
+
+
+def test_unknown_crs_in_grid_table(tmp_path, capsys):
+    (tmp_path / "s.toml").write_text(
+        "[plate]\nelastic_thickness = 1e4\n[grid]\nrows = 8\ncolumns = 8\nspacing = 1e3\n"
+        'crs = "EPSG:999999"\n[[loads]]\nsynthetic = "island-chain"\ndensity = 2800\n'
+        '[output]\nfile = "o.nc"\n'
+    )
+    assert main(["run", str(tmp_path / "s.toml"), "-q"]) == 2
+    assert "crs" in capsys.readouterr().err

@@ -1,0 +1,127 @@
+"""Scenarios with a Te grid, a margin profile and breaks, run end to end."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+import xarray as xr
+from numpy.testing import assert_allclose
+
+from gridflex import InputError
+from gridflex.scenario.schema import load_scenario
+from gridflex.workflows.run import elastic_thickness_from_scenario, run_scenario
+
+BASE = """
+[grid]
+columns = 64
+rows = 48
+spacing = "4 km"
+
+[[loads]]
+synthetic = "disc"
+height = "1500 m"
+radius = "30 km"
+density = 2800
+
+[output]
+file = "out.nc"
+"""
+
+MARGIN = """
+[plate]
+youngs_modulus = "100 GPa"
+
+[margin]
+te_left = "50 km"
+te_right = "5 km"
+line = [[20000.0, -100000.0], [20000.0, 100000.0]]
+width = "40 km"
+
+[[breaks]]
+line = [[-60000.0, -80000.0], [-60000.0, 40000.0]]
+
+[solver]
+tolerance = 1e-9
+"""
+
+
+def _write(tmp_path: Path, text: str) -> Path:
+    path = tmp_path / "scenario.toml"
+    path.write_text(text)
+    return path
+
+
+def test_margin_with_break_runs_by_finite_differences(tmp_path):
+    scenario = load_scenario(_write(tmp_path, MARGIN + BASE))
+    outcome = run_scenario(scenario)
+    with xr.open_dataset(tmp_path / "out.nc") as ds:
+        assert ds.attrs["solver"] == "finite-difference"
+        assert ds.attrs["residual"] <= 1e-9
+        assert ds.attrs["iterations"] >= 1
+        w = ds["deflection"].values
+    assert np.isfinite(w).all() and w.max() > 0
+    assert outcome.result.attrs["plate_te_min"] == 0.0  # the break
+    assert outcome.result.attrs["plate_te_max"] == pytest.approx(50e3)
+
+
+def test_te_grid_file_and_mask_file(tmp_path):
+    # a Te grid read from NetCDF gives the same Te as the margin it was made from
+    margin_scenario = load_scenario(_write(tmp_path, MARGIN + BASE))
+    like = xr.DataArray(
+        np.zeros((48, 64)),
+        dims=("y", "x"),
+        coords={"y": (np.arange(48) - 24) * 4e3, "x": (np.arange(64) - 32) * 4e3},
+    )
+    te = elastic_thickness_from_scenario(margin_scenario, like)
+    ds = xr.Dataset({"te": te.assign_attrs(units="m"), "mask": (te == 0).astype(np.int8)})
+    ds["x"].attrs["units"] = "m"
+    ds["y"].attrs["units"] = "m"
+    ds.to_netcdf(tmp_path / "te.nc")
+    text = BASE.replace(
+        "[grid]",
+        """[plate]
+elastic_thickness_file = "te.nc"
+elastic_thickness_variable = "te"
+
+[[breaks]]
+file = "te.nc"
+variable = "mask"
+
+[grid]""",
+    )
+    scenario = load_scenario(_write(tmp_path, text))
+    assert tmp_path / "te.nc" in scenario.input_files
+    again = elastic_thickness_from_scenario(scenario, like)
+    assert_allclose(again.values, te.values, rtol=1e-12)  # round trip through the file
+
+
+@pytest.mark.parametrize(
+    ("plate", "match"),
+    [
+        (
+            '[plate]\nelastic_thickness = "10 km"\nelastic_thickness_file = "te.nc"\n'
+            'elastic_thickness_variable = "te"\n',
+            "give only one of",
+        ),
+        ('[plate]\nelastic_thickness_file = "te.nc"\n', "go together"),
+        (
+            '[plate]\nelastic_thickness = "10 km"\n[[breaks]]\nwidth = "2 km"\n',
+            r"\[\[breaks\]\] #1: give either 'line' or 'file'",
+        ),
+        (
+            '[plate]\nelastic_thickness = "10 km"\n[solver]\nedges = "hinged"\n',
+            r"'hinged' is not allowed",
+        ),
+    ],
+)
+def test_bad_structure_keys(tmp_path, plate, match):
+    with pytest.raises(InputError, match=match):
+        load_scenario(_write(tmp_path, plate + BASE))
+
+
+def test_bad_break_line_names_the_table(tmp_path):
+    text = '[plate]\nelastic_thickness = "10 km"\n[[breaks]]\nline = [[0.0, 1.0]]\n' + BASE
+    with pytest.raises(InputError, match=r"\[\[breaks\]\] #1: break line 1 must be a list"):
+        run_scenario(load_scenario(_write(tmp_path, text)))
