@@ -10,9 +10,9 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from gridflex._version import __version__
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import GridSpec, check_grid, check_same_grid
+from gridflex.io.provenance import SIGN_CONVENTION, provenance_attrs
 from gridflex.plate import Plate
 from gridflex.solvers.conjugate_gradient import Progress
 from gridflex.solvers.finite_difference import (
@@ -43,10 +43,6 @@ EDGES = ("infinite", "periodic", "clamped", "free")
 
 SPECTRAL_EDGES = ("infinite", "periodic")
 """Edges the spectral solver can represent."""
-
-SIGN_CONVENTION = (
-    "deflection positive downward; load positive downward; in-plane force positive in tension"
-)
 
 _EDGE_CELLS = 2
 _EDGE_WARN_FRACTION = 1e-3
@@ -114,24 +110,7 @@ def result_dataset(
         "load": load_var.variable,
     }
     coords = {"y": load["y"].variable, "x": load["x"].variable}
-    return xr.Dataset(data_vars, coords=coords, attrs=provenance_attrs(plate, attrs))
-
-
-def provenance_attrs(
-    plate: Plate, attrs: dict[str, Any], title: str = "thin elastic plate flexure"
-) -> dict[str, Any]:
-    """Global attributes of a result: conventions, version, sign convention, the
-    plate's parameters (prefixed ``plate_``) and the solver-specific *attrs*."""
-    all_attrs: dict[str, Any] = {
-        "Conventions": "CF-1.8",
-        "title": title,
-        "source": f"gridflex {__version__}",
-        "gridflex_version": __version__,
-        "sign_convention": SIGN_CONVENTION,
-    }
-    all_attrs.update({f"plate_{k}": v for k, v in plate.describe().items()})
-    all_attrs.update(attrs)
-    return all_attrs
+    return xr.Dataset(data_vars, coords=coords, attrs=provenance_attrs(plate.describe(), attrs))
 
 
 def solve(

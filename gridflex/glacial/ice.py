@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from gridflex.engine import deflection_attrs, provenance_attrs
+from gridflex.engine import deflection_attrs
 from gridflex.errors import ConvergenceError, InputError
 from gridflex.glacial.response import (
     INITIAL_STATES,
@@ -35,6 +35,7 @@ from gridflex.glacial.response import (
     warn_edge_load,
 )
 from gridflex.grid import check_grid, check_same_grid
+from gridflex.io.provenance import provenance_attrs
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
@@ -398,7 +399,9 @@ def ice_response(
             "max_step": step_limit if step_limit is not None else "none",
         }
     )
-    ds_attrs = provenance_attrs(plate, attrs, "bed deflection under an ice-thickness history")
+    ds_attrs = provenance_attrs(
+        plate.describe(), attrs, "bed deflection under an ice-thickness history"
+    )
     return xr.Dataset(data_vars, coords=coords, attrs=ds_attrs)
 
 

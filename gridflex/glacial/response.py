@@ -29,9 +29,10 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from gridflex.engine import check_edge_load, deflection_attrs, provenance_attrs
+from gridflex.engine import check_edge_load, deflection_attrs
 from gridflex.errors import GridflexWarning, InputError
 from gridflex.grid import GridSpec, check_grid, check_same_grid
+from gridflex.io.provenance import provenance_attrs
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
@@ -481,5 +482,5 @@ def viscous_response(
         "uplift_rate": (("time", "y", "x"), uplift, uplift_rate_attrs()),
         "load": load_var,
     }
-    attrs = provenance_attrs(plate, stepper.describe(), "plate deflection through time")
+    attrs = provenance_attrs(plate.describe(), stepper.describe(), "plate deflection through time")
     return xr.Dataset(data_vars, coords=coords, attrs=attrs)

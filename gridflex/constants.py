@@ -1,0 +1,34 @@
+"""Physical constants and the default parameter values every module shares.
+
+Each value is written once here; modules import it instead of repeating the literal.
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "DAYS_PER_YEAR",
+    "DEFAULT_GRAVITY",
+    "GRAVITATIONAL_CONSTANT",
+    "MGAL",
+    "SEA_WATER_DENSITY",
+    "SECONDS_PER_YEAR",
+]
+
+GRAVITATIONAL_CONSTANT = 6.67430e-11
+"""Newtonian constant of gravitation G (m^3 kg^-1 s^-2), CODATA 2018."""
+
+MGAL = 1.0e-5
+"""One milligal in m/s^2 (the unit of gravity anomalies at the output)."""
+
+DEFAULT_GRAVITY = 9.81
+"""Gravitational acceleration at the surface (m/s^2) used by default: the rounded value of
+the flexure literature (common practice; standard gravity is 9.80665)."""
+
+SEA_WATER_DENSITY = 1030.0
+"""Density of sea water (kg/m^3), the default water and infill density (common practice)."""
+
+DAYS_PER_YEAR = 365.25
+"""Days in one Julian year, the year of every time in gridflex."""
+
+SECONDS_PER_YEAR = DAYS_PER_YEAR * 86400.0
+"""One Julian year (365.25 days) in seconds."""
