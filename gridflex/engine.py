@@ -12,25 +12,25 @@ import xarray as xr
 
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import GridSpec, check_grid, check_same_grid
-from gridflex.io.provenance import SIGN_CONVENTION, provenance_attrs
+from gridflex.io.provenance import provenance_attrs
 from gridflex.plate import Plate
-from gridflex.solvers.conjugate_gradient import Progress
+from gridflex.progress import Progress
 from gridflex.solvers.finite_difference import (
     DEFAULT_MAX_ITERATIONS,
     DEFAULT_TOLERANCE,
     finite_difference_deflection,
 )
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
+from gridflex.validation import check_choice, check_number
 
 __all__ = [
     "EDGES",
     "METHODS",
-    "SIGN_CONVENTION",
     "check_edge_load",
-    "solve",
+    "check_inplane_force",
     "deflection_attrs",
-    "provenance_attrs",
     "result_dataset",
+    "solve",
 ]
 
 log = logging.getLogger(__name__)
@@ -53,20 +53,9 @@ def deflection_attrs() -> dict[str, str]:
     return {"units": "m", "long_name": "plate deflection (positive downward)"}
 
 
-def _check_choice(name: str, value: Any, allowed: tuple[str, ...]) -> str:
-    if value not in allowed:
-        raise InputError(f"{name} must be one of {', '.join(map(repr, allowed))}; got {value!r}")
-    return str(value)
-
-
-def _check_force(name: str, value: Any) -> float:
-    try:
-        force = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number (N/m, tension positive), got {value!r}") from exc
-    if not np.isfinite(force):
-        raise InputError(f"{name} must be finite (N/m), got {value!r}")
-    return force
+def check_inplane_force(name: str, value: Any) -> float:
+    """An in-plane force per unit length (N/m, tension positive): any finite number."""
+    return check_number(name, value, unit="N/m, tension positive")
 
 
 def check_edge_load(values: np.ndarray, total: float) -> None:
@@ -200,10 +189,10 @@ def solve(
     if not isinstance(plate, Plate):
         raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
     spec = check_grid(load)
-    method = _check_choice("method", method, METHODS)
-    edges = _check_choice("edges", edges, EDGES)
-    force_x = _check_force("inplane_force_x", inplane_force_x)
-    force_y = _check_force("inplane_force_y", inplane_force_y)
+    method = check_choice("method", method, METHODS)
+    edges = check_choice("edges", edges, EDGES)
+    force_x = check_inplane_force("inplane_force_x", inplane_force_x)
+    force_y = check_inplane_force("inplane_force_y", inplane_force_y)
     if plate.is_variable:
         assert isinstance(plate.te, xr.DataArray)
         check_same_grid(plate.te, load, "te grid")

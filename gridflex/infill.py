@@ -44,11 +44,15 @@ from typing import Any, Protocol
 import numpy as np
 import xarray as xr
 
+from gridflex.constants import SEA_WATER_DENSITY
+from gridflex.engine import SPECTRAL_EDGES, check_edge_load, check_inplane_force, result_dataset
 from gridflex.errors import ConvergenceError, InputError
 from gridflex.grid import GridSpec, check_grid, check_same_grid, grid_values
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
+from gridflex.progress import Progress
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
+from gridflex.validation import check_choice, check_density, check_integer, check_number
 
 __all__ = [
     "ACCELERATIONS",
@@ -70,7 +74,6 @@ ACCELERATIONS = ("anderson", "none")
 _ANDERSON_DEPTH = 5
 
 Level = float | xr.DataArray
-Progress = Callable[[int, int], Any]
 
 
 @dataclass(frozen=True)
@@ -111,7 +114,7 @@ class Infill:
     """
 
     sea_level: float = 0.0
-    water_density: float = 1030.0
+    water_density: float = SEA_WATER_DENSITY
     sediment: str = "none"
     sediment_density: float = 2400.0
     sediment_level: Level | None = None
@@ -120,19 +123,11 @@ class Infill:
     load_buried: bool = False
 
     def __post_init__(self) -> None:
-        if self.sediment not in SEDIMENT_MODES:
-            raise InputError(
-                f"infill sediment must be one of {', '.join(map(repr, SEDIMENT_MODES))}; "
-                f"got {self.sediment!r}"
-            )
-        for name in ("sea_level", "water_density", "sediment_density"):
-            value = getattr(self, name)
-            if not isinstance(value, (int, float)) or not math.isfinite(value):
-                raise InputError(f"infill {name} must be a finite number, got {value!r}")
-            object.__setattr__(self, name, float(value))
+        check_choice("infill sediment", self.sediment, SEDIMENT_MODES)
+        set_ = object.__setattr__
+        set_(self, "sea_level", check_number("infill sea_level", self.sea_level, unit="m"))
         for name in ("water_density", "sediment_density"):
-            if getattr(self, name) < 0:
-                raise InputError(f"infill {name} must be >= 0 kg/m^3, got {getattr(self, name)!r}")
+            set_(self, name, check_density(f"infill {name}", getattr(self, name)))
         if self.sediment == "to_level" and self.sediment_level is None:
             raise InputError("infill sediment='to_level' needs sediment_level (m, positive up)")
         if self.fill_existing and self.sediment != "to_level":
@@ -159,8 +154,8 @@ class Infill:
             out["sediment_density"] = self.sediment_density
             out["fill_existing"] = int(self.fill_existing)
             out["sediment_mask"] = "grid" if self.sediment_mask is not None else "everywhere"
-        if self.sediment == "to_level":
-            level = self.sediment_level
+        level = self.sediment_level
+        if self.sediment == "to_level" and level is not None:
             out["sediment_level"] = "grid" if isinstance(level, xr.DataArray) else float(level)
         out["load_buried"] = int(self.load_buried)
         return out
@@ -179,9 +174,14 @@ class InnerSolver(Protocol):
         k0 (Pa m^-1), the constant Winkler coefficient of the operator.
     """
 
-    shape: tuple[int, int]
-    window: tuple[slice, slice]
-    stiffness: float
+    @property
+    def shape(self) -> tuple[int, int]: ...
+
+    @property
+    def window(self) -> tuple[slice, slice]: ...
+
+    @property
+    def stiffness(self) -> float: ...
 
     def solve(self, rhs: np.ndarray) -> np.ndarray:
         """w (m, positive down) on the working domain for *rhs* (Pa) on it."""
@@ -269,13 +269,12 @@ class _Column:
 
     def __post_init__(self) -> None:
         self.water0 = np.clip(self.infill.sea_level - self.surface, 0.0, None)
+        # the height of the surface above the sediment level, which new space must exceed
+        # before sediment collects (zero without a level)
+        self.offset = np.zeros_like(self.surface)
         if self.infill.sediment == "to_level":
             assert self.level is not None
-            # space below the level that sediment may fill at w = 0 (fill_existing) or
-            # the height of the surface above the level, which new space must exceed
             self.offset = np.clip(self.surface - self.level, 0.0, None)
-        else:
-            self.offset = None
 
     def state(self, w: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Sediment h_s, water change h_w - h_w0 and total load L (Pa) for *w*
@@ -293,8 +292,9 @@ class _Column:
             sediment = np.clip(w - self.offset, 0.0, None)
         if self.mask is not None and rule != "none":
             sediment *= self.mask
-        root = self.root(w)
-        if root is not None:  # under a buried load: its top stays, its base sinks
+        root = None
+        if self.footprint is not None:  # under a buried load: its top stays, its base sinks
+            root = w * self.footprint
             sediment *= 1.0 - self.footprint
             top = top + root
         water = np.clip(self.infill.sea_level - (top + sediment), 0.0, None) - self.water0
@@ -494,15 +494,54 @@ def solve_with_infill(
     ConvergenceError
         If the tolerance is not reached in *max_iterations*.
     """
-    # imported here: solve.py sits above this module and may dispatch to it
-    from gridflex.engine import _check_force, check_edge_load, result_dataset
-
     if not isinstance(plate, Plate):
         raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
     infill = Infill() if infill is None else infill
     if not isinstance(infill, Infill):
         raise InputError(f"infill must be a gridflex.Infill, got {type(infill).__name__}")
-    extra: dict[str, Any] = {}
+    given = _unpack_load(load, initial_surface)
+    options = _Options.checked(
+        edges, inplane_force_x, inplane_force_y, pad_factor, tolerance, max_iterations, acceleration
+    )
+    footprint, load_density = _buried_load(infill, given)
+    rho_max = infill.max_density(load_density)
+    c = _shift_density(rho_max, plate.mantle_density, shift)
+    solver, inner_name = _inner_solver(given.spec, plate, rho_max, c, options, inner)
+    values = np.asarray(given.load.values, dtype=np.float64)
+    if options.edges == "infinite":
+        check_edge_load(values, float(np.abs(values).sum()))
+    column = _working_column(given, infill, plate.gravity, solver, footprint, load_density, options)
+    w, iterations, update = _iterate(
+        column, solver, c, options.tolerance, options.max_iterations, options.acceleration, progress
+    )
+    attrs: dict[str, Any] = {
+        "solver": f"{inner_name} with self-consistent infill",
+        **options.describe(solver.shape),
+        "iterations": iterations,
+        "fixed_point_update": update,
+        "tolerance": options.tolerance,
+        "shift_density": float(c),
+        "acceleration": options.acceleration,
+    }
+    return _infill_result(given, plate, infill, column, w, solver.window, attrs)
+
+
+@dataclass(frozen=True)
+class _GivenLoad:
+    """The load as given: q (Pa), the initial surface (m) and what a load Dataset adds."""
+
+    load: xr.DataArray
+    spec: GridSpec
+    surface: np.ndarray
+    extra: dict[str, xr.Variable]
+    extra_attrs: dict[str, Any]
+
+
+def _unpack_load(
+    load: xr.DataArray | xr.Dataset, initial_surface: xr.DataArray | float | None
+) -> _GivenLoad:
+    """Split a load Dataset into q, its initial surface and the geometry kept in the result."""
+    extra: dict[str, xr.Variable] = {}
     extra_attrs: dict[str, Any] = {}
     if isinstance(load, xr.Dataset):
         if "load" not in load or "initial_surface" not in load:
@@ -519,66 +558,131 @@ def solve_with_infill(
     if initial_surface is None:
         raise InputError("initial_surface (m, positive up, load included) is required")
     surface = grid_values(initial_surface, load, "initial_surface")
-    if edges not in ("infinite", "periodic"):
-        raise InputError(f"edges must be 'infinite' or 'periodic', got {edges!r}")
-    if acceleration not in ACCELERATIONS:
-        raise InputError(f"acceleration must be one of {ACCELERATIONS!r}, got {acceleration!r}")
-    force_x = _check_force("inplane_force_x", inplane_force_x)
-    force_y = _check_force("inplane_force_y", inplane_force_y)
-    if not (isinstance(tolerance, (int, float)) and tolerance > 0 and math.isfinite(tolerance)):
-        raise InputError(f"tolerance must be a positive number of metres, got {tolerance!r}")
-    if (
-        isinstance(max_iterations, bool)
-        or not isinstance(max_iterations, int)
-        or max_iterations < 1
-    ):
-        raise InputError(f"max_iterations must be a whole number >= 1, got {max_iterations!r}")
-    rho_m, g = plate.mantle_density, plate.gravity
-    footprint_grid = None
-    load_density = 0.0
-    if infill.load_buried:
-        if "load_height" not in extra or "load_density" not in extra_attrs:
-            raise InputError(
-                "infill load_buried=True needs a load Dataset with 'load_height' "
-                "and a single load_density (gridflex.load_from_elevation)"
-            )
-        load_density = extra_attrs["load_density"]
-        footprint_grid = (np.asarray(extra["load_height"].values) > 0.0).astype(np.float64)
-    rho_max = infill.max_density(load_density)
+    return _GivenLoad(load, spec, surface, extra, extra_attrs)
+
+
+@dataclass(frozen=True)
+class _Options:
+    """The checked solver options of :func:`solve_with_infill`."""
+
+    edges: str
+    force_x: float
+    force_y: float
+    pad_factor: float
+    tolerance: float
+    max_iterations: int
+    acceleration: str
+
+    @classmethod
+    def checked(
+        cls,
+        edges: Any,
+        force_x: Any,
+        force_y: Any,
+        pad_factor: Any,
+        tolerance: Any,
+        max_iterations: Any,
+        acceleration: Any,
+    ) -> _Options:
+        return cls(
+            check_choice("edges", edges, SPECTRAL_EDGES),
+            check_inplane_force("inplane_force_x", force_x),
+            check_inplane_force("inplane_force_y", force_y),
+            check_number("pad_factor", pad_factor, minimum=0.0),
+            check_number("tolerance", tolerance, unit="m", minimum=0.0, strict=True),
+            check_integer("max_iterations", max_iterations, minimum=1),
+            check_choice("acceleration", acceleration, ACCELERATIONS),
+        )
+
+    def describe(self, shape: tuple[int, int]) -> dict[str, Any]:
+        """Output attributes of the padding and forces on a working domain of *shape*."""
+        return {
+            "edges": self.edges,
+            "padded_shape": np.array(shape, dtype=np.int64),
+            "pad_factor": self.pad_factor if self.edges == "infinite" else 0.0,
+            "inplane_force_x": self.force_x,
+            "inplane_force_y": self.force_y,
+        }
+
+
+def _buried_load(infill: Infill, given: _GivenLoad) -> tuple[np.ndarray | None, float]:
+    """Footprint (1 under the load, 0 elsewhere) and density (kg/m^3) of a buried load;
+    (None, 0) unless ``infill.load_buried``."""
+    if not infill.load_buried:
+        return None, 0.0
+    if "load_height" not in given.extra or "load_density" not in given.extra_attrs:
+        raise InputError(
+            "infill load_buried=True needs a load Dataset with 'load_height' "
+            "and a single load_density (gridflex.load_from_elevation)"
+        )
+    footprint = (np.asarray(given.extra["load_height"].values) > 0.0).astype(np.float64)
+    return footprint, float(given.extra_attrs["load_density"])
+
+
+def _shift_density(rho_max: float, rho_m: float, shift: float | None) -> float:
+    """The shift density c (kg/m^3) of eq. 5.3: *shift*, or half the densest fill."""
     if rho_max >= rho_m:
         raise InputError(
             f"the densest infill ({rho_max!r} kg/m^3) must be less than mantle_density "
             f"({rho_m!r}); otherwise nothing restores the plate"
         )
-    c = 0.5 * rho_max if shift is None else shift
-    if not (isinstance(c, (int, float)) and 0.0 <= c < rho_m):
-        raise InputError(f"shift must be a density in [0, mantle_density={rho_m!r}), got {shift!r}")
-    stiffness = (rho_m - c) * g
-    min_stiffness = (rho_m - rho_max) * g
+    if shift is None:
+        return 0.5 * rho_max
+    wanted = f"shift must be a density in [0, mantle_density={rho_m!r}) kg/m^3, got {shift!r}"
+    try:
+        c = check_number("shift", shift, unit="kg/m^3", minimum=0.0)
+    except InputError as exc:
+        raise InputError(wanted) from exc
+    if c >= rho_m:
+        raise InputError(wanted)
+    return c
+
+
+def _inner_solver(
+    spec: GridSpec,
+    plate: Plate,
+    rho_max: float,
+    shift: float,
+    options: _Options,
+    inner: Callable[[float, float], InnerSolver] | None,
+) -> tuple[InnerSolver, str]:
+    """The inner solver for the shift *shift* (kg/m^3), and its name for the attributes."""
+    stiffness = (plate.mantle_density - shift) * plate.gravity
+    min_stiffness = (plate.mantle_density - rho_max) * plate.gravity
     if inner is not None:
         solver = inner(stiffness, min_stiffness)
-        inner_name = type(solver).__name__
-    elif plate.is_variable:
+        return solver, type(solver).__name__
+    if plate.is_variable:
         raise InputError(
             "solve_with_infill has no variable-te inner solver yet; give te as a number, "
             "or pass inner= a finite-difference operator"
         )
-    else:
-        solver = spectral_inner(
-            spec,
-            float(plate.rigidity),
-            stiffness,
-            min_stiffness,
-            force_x=force_x,
-            force_y=force_y,
-            periodic=(edges == "periodic"),
-            pad_factor=pad_factor,
-        )
-        inner_name = "spectral"
-    values = np.asarray(load.values, dtype=np.float64)
-    if edges == "infinite":
-        check_edge_load(values, float(np.abs(values).sum()))
+    solver = spectral_inner(
+        spec,
+        float(plate.rigidity),
+        stiffness,
+        min_stiffness,
+        force_x=options.force_x,
+        force_y=options.force_y,
+        periodic=(options.edges == "periodic"),
+        pad_factor=options.pad_factor,
+    )
+    return solver, "spectral"
+
+
+def _working_column(
+    given: _GivenLoad,
+    infill: Infill,
+    gravity: float,
+    solver: InnerSolver,
+    footprint: np.ndarray | None,
+    load_density: float,
+    options: _Options,
+) -> _Column:
+    """The column model on the solver's working domain (the grid values continued from
+    its edges into the padding, where there is no load)."""
     shape, window = solver.shape, solver.window
+    load = given.load
     level = mask = None
     if infill.sediment == "to_level":
         assert infill.sediment_level is not None
@@ -590,99 +694,89 @@ def solve_with_infill(
         )
     # column grids and per-iteration temporaries (~12 working grids), plus the Anderson
     # history (2 per remembered step, and the last pair)
-    grids = 12 + (2 * _ANDERSON_DEPTH + 4 if acceleration == "anderson" else 0)
+    grids = 12 + (2 * _ANDERSON_DEPTH + 4 if options.acceleration == "anderson" else 0)
     check_memory(
         8.0 * shape[0] * shape[1] * grids,
         f"infill iteration on a working grid of {shape[0]} x {shape[1]}",
     )
     load_work = np.zeros(shape)
-    load_work[window] = values
-    footprint = None
-    if footprint_grid is not None:  # no load beyond the grid
-        footprint = np.zeros(shape)
-        footprint[window] = footprint_grid
-    column = _Column(
-        load_work, _extend(surface, shape, window), infill, g, level, mask, footprint, load_density
-    )
-    w, iterations, update = _iterate(
-        column, solver, c, float(tolerance), max_iterations, acceleration, progress
-    )
+    load_work[window] = np.asarray(load.values, dtype=np.float64)
+    footprint_work = None
+    if footprint is not None:  # no load beyond the grid
+        footprint_work = np.zeros(shape)
+        footprint_work[window] = footprint
+    surface = _extend(given.surface, shape, window)
+    return _Column(load_work, surface, infill, gravity, level, mask, footprint_work, load_density)
+
+
+_FILL_VARIABLES = {
+    "moat_fill": (
+        "m",
+        "thickness of infill (sediment and water) in the flexural depression",
+    ),
+    "fill_sediment": ("m", "sediment fill thickness"),
+    "fill_water": ("m", "change of water depth (negative where displaced by uplift)"),
+    "infill_density": ("kg m-3", "density of the material filling the depression"),
+    "fill_load": ("Pa", "vertical stress of the fill (positive downward)"),
+    "initial_surface": ("m", "surface before flexure, load included (positive up)"),
+    "load_root": ("m", "part of the buried load below its pre-flexure base"),
+    "surface": ("m", "final surface: initial surface - deflection + sediment fill"),
+}
+"""Units and long names of the fill variables of a :func:`solve_with_infill` result."""
+
+
+def _infill_result(
+    given: _GivenLoad,
+    plate: Plate,
+    infill: Infill,
+    column: _Column,
+    w: np.ndarray,
+    window: tuple[slice, slice],
+    attrs: dict[str, Any],
+) -> xr.Dataset:
+    """Wrap the converged deflection *w* (working domain) and its fill in a Dataset."""
     sediment, water, total = column.state(w)
     root = column.root(w)
+    g = plate.gravity
     magnitude = float(np.abs(total).sum())
-    balance = abs(rho_m * g * float(w.sum()) - float(total.sum())) / magnitude if magnitude else 0.0
+    balance = (
+        abs(plate.mantle_density * g * float(w.sum()) - float(total.sum())) / magnitude
+        if magnitude
+        else 0.0
+    )
     log.info(
         "infill converged in %d iterations (update %.3g m, balance %.2g)",
-        iterations,
-        update,
+        attrs["iterations"],
+        attrs["fixed_point_update"],
         balance,
     )
-    density = column.marginal_density(w, sediment)
-    win = window
-    w_out = np.ascontiguousarray(w[win])
-    attrs: dict[str, Any] = {
-        "solver": f"{inner_name} with self-consistent infill",
-        "edges": edges,
-        "padded_shape": np.array(shape, dtype=np.int64),
-        "pad_factor": float(pad_factor) if edges == "infinite" else 0.0,
-        "inplane_force_x": force_x,
-        "inplane_force_y": force_y,
-        "iterations": iterations,
-        "fixed_point_update": update,
-        "tolerance": float(tolerance),
-        "shift_density": float(c),
-        "acceleration": acceleration,
+    attrs = {
+        **attrs,
         "force_balance_residual": balance,
         "plate_infill_density": "spatially varying (variable infill_density)",
     }
     attrs.update({f"infill_{k}": v for k, v in infill.describe().items()})
-    attrs.update(extra_attrs)
-    result = result_dataset(load, w_out, plate, attrs)
+    attrs.update(given.extra_attrs)
+    w_out = np.ascontiguousarray(w[window])
+    result = result_dataset(given.load, w_out, plate, attrs)
     result.attrs["plate_infill_density"] = attrs["plate_infill_density"]
-    dims = ("y", "x")
-    fill_s, fill_w = sediment[win], water[win]
-    result["moat_fill"] = (
-        dims,
-        np.clip(fill_s + fill_w, 0.0, None),
-        {
-            "units": "m",
-            "long_name": "thickness of infill (sediment and water) in the flexural depression",
-        },
-    )
-    result["fill_sediment"] = (dims, fill_s, {"units": "m", "long_name": "sediment fill thickness"})
-    result["fill_water"] = (
-        dims,
-        fill_w,
-        {"units": "m", "long_name": "change of water depth (negative where displaced by uplift)"},
-    )
-    result["infill_density"] = (
-        dims,
-        density[win],
-        {"units": "kg m-3", "long_name": "density of the material filling the depression"},
-    )
-    result["fill_load"] = (
-        dims,
-        total[win] - values,
-        {"units": "Pa", "long_name": "vertical stress of the fill (positive downward)"},
-    )
-    result["initial_surface"] = (
-        dims,
-        surface,
-        {"units": "m", "long_name": "surface before flexure, load included (positive up)"},
-    )
-    final = surface - w_out + fill_s
+    fill_s, fill_w = sediment[window], water[window]
+    final = given.surface - w_out + fill_s
+    fields = {
+        "moat_fill": np.clip(fill_s + fill_w, 0.0, None),
+        "fill_sediment": fill_s,
+        "fill_water": fill_w,
+        "infill_density": column.marginal_density(w, sediment)[window],
+        "fill_load": total[window] - np.asarray(given.load.values, dtype=np.float64),
+        "initial_surface": given.surface,
+    }
     if root is not None:
-        final = final + root[win]
-        result["load_root"] = (
-            dims,
-            root[win],
-            {"units": "m", "long_name": "part of the buried load below its pre-flexure base"},
-        )
-    result["surface"] = (
-        dims,
-        final,
-        {"units": "m", "long_name": "final surface: initial surface - deflection + sediment fill"},
-    )
-    for name, variable in extra.items():
+        final = final + root[window]
+        fields["load_root"] = root[window]
+    fields["surface"] = final
+    for name, values in fields.items():
+        units, long_name = _FILL_VARIABLES[name]
+        result[name] = (("y", "x"), values, {"units": units, "long_name": long_name})
+    for name, variable in given.extra.items():
         result[name] = variable
     return result

@@ -9,13 +9,16 @@ the density.
 from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
+from typing import Any
 
 import numpy as np
 import xarray as xr
 from scipy import ndimage
 
+from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
 from gridflex.errors import InputError
 from gridflex.grid import check_grid, check_same_grid, grid_values
+from gridflex.validation import check_density, check_number
 
 __all__ = [
     "load_from_elevation",
@@ -26,12 +29,36 @@ __all__ = [
 ]
 
 Density = float | xr.DataArray
+LayerSpec = tuple[xr.DataArray, Density]
 Surface = float | xr.DataArray
 _LOAD_ATTRS = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
 
 
+def _check_gravity(gravity: object) -> float:
+    return check_number("gravity", gravity, unit="m/s^2", minimum=0.0, strict=True)
+
+
+def _layer_items(
+    layers: Iterable[LayerSpec] | Mapping[str, LayerSpec], caller: str, what: str
+) -> list[LayerSpec]:
+    """The layers as a list; none is an error of *caller*."""
+    items = list(layers.values()) if isinstance(layers, Mapping) else list(layers)
+    if not items:
+        raise InputError(f"{caller} needs at least one ({what}, density) layer")
+    return items
+
+
+def _layer_pair(item: Any, index: int, what: str) -> tuple[xr.DataArray, Density]:
+    """Unpack layer *index*, a (*what* DataArray, density) pair."""
+    try:
+        grid, density = item
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"layer {index} must be a ({what}, density) pair") from exc
+    return grid, density
+
+
 def pressure_from_height(
-    height: xr.DataArray, density: Density, gravity: float = 9.81
+    height: xr.DataArray, density: Density, gravity: float = DEFAULT_GRAVITY
 ) -> xr.DataArray:
     """Vertical stress of a layer of material: q = rho g h.
 
@@ -65,21 +92,17 @@ def pressure_from_height(
     """
     if not isinstance(height, xr.DataArray):
         raise InputError(f"height must be an xarray.DataArray, got {type(height).__name__}")
-    if not isinstance(density, xr.DataArray) and not np.isfinite(density):
-        raise InputError(f"density must be a finite number (kg/m^3), got {density!r}")
-    if not np.isfinite(gravity) or gravity <= 0:
-        raise InputError(f"gravity must be a positive number (m/s^2), got {gravity!r}")
-    stress = height * density * gravity
+    if not isinstance(density, xr.DataArray):
+        # any sign: a density contrast with what the layer replaces may be negative
+        density = check_number("density", density, unit="kg/m^3")
+    stress = height * density * _check_gravity(gravity)
     stress.name = "load"
-    stress.attrs = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
+    stress.attrs = dict(_LOAD_ATTRS)
     return stress
 
 
-LayerSpec = tuple[xr.DataArray, Density]
-
-
 def pressure_from_layers(
-    layers: Iterable[LayerSpec] | Mapping[str, LayerSpec], gravity: float = 9.81
+    layers: Iterable[LayerSpec] | Mapping[str, LayerSpec], gravity: float = DEFAULT_GRAVITY
 ) -> xr.DataArray:
     """Sum of the vertical stresses of several layers, each with its own density.
 
@@ -104,15 +127,10 @@ def pressure_from_layers(
     >>> float(q[0, 0])
     9191970.0
     """
-    items = list(layers.values()) if isinstance(layers, Mapping) else list(layers)
-    if not items:
-        raise InputError("pressure_from_layers needs at least one (height, density) layer")
+    items = _layer_items(layers, "pressure_from_layers", "height")
     total: xr.DataArray | None = None
     for index, item in enumerate(items):
-        try:
-            height, density = item
-        except (TypeError, ValueError) as exc:
-            raise InputError(f"layer {index} must be a (height, density) pair") from exc
+        height, density = _layer_pair(item, index, "height")
         stress = pressure_from_height(height, density, gravity)
         if total is not None and stress.shape != total.shape:
             raise InputError(
@@ -122,21 +140,11 @@ def pressure_from_layers(
         total = stress if total is None else total + stress
     assert total is not None
     total.name = "load"
-    total.attrs = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
+    total.attrs = dict(_LOAD_ATTRS)
     return total
 
 
 # --- loads from elevation models and thickness grids --------------------------------------
-
-
-def _check_density(name: str, value: float) -> float:
-    try:
-        number = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number (kg/m^3), got {value!r}") from exc
-    if not np.isfinite(number) or number < 0:
-        raise InputError(f"{name} must be a finite density >= 0 (kg/m^3), got {value!r}")
-    return number
 
 
 def regional_surface(elevation: xr.DataArray, radius: float) -> xr.DataArray:
@@ -176,12 +184,7 @@ def regional_surface(elevation: xr.DataArray, radius: float) -> xr.DataArray:
     -4000.0
     """
     spec = check_grid(elevation, "elevation")
-    try:
-        radius = float(radius)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"radius must be a number of metres, got {radius!r}") from exc
-    if not np.isfinite(radius) or radius <= 0:
-        raise InputError(f"radius must be a positive number of metres, got {radius!r}")
+    radius = check_number("radius", radius, unit="m", minimum=0.0, strict=True)
     values = np.asarray(elevation.values, dtype=np.float64)
     step = max(1, int(radius / (8.0 * max(spec.dx, spec.dy))))
     ny, nx = spec.shape
@@ -214,7 +217,9 @@ def regional_surface(elevation: xr.DataArray, radius: float) -> xr.DataArray:
     return out
 
 
-def _submerged_split(base: np.ndarray, thickness: np.ndarray, sea_level: float):
+def _submerged_split(
+    base: np.ndarray, thickness: np.ndarray, sea_level: float
+) -> tuple[np.ndarray, np.ndarray]:
     """Parts of a layer from *base* up by *thickness* below and above sea level."""
     below = np.clip(sea_level - base, 0.0, None)
     submerged = np.minimum(np.clip(thickness, 0.0, None), below)
@@ -226,8 +231,8 @@ def load_from_layers(
     layers: Iterable[LayerSpec] | Mapping[str, LayerSpec],
     *,
     sea_level: float = 0.0,
-    water_density: float = 1030.0,
-    gravity: float = 9.81,
+    water_density: float = SEA_WATER_DENSITY,
+    gravity: float = DEFAULT_GRAVITY,
 ) -> xr.Dataset:
     """Load of layers stacked on a surface, buoyed by sea water where submerged.
 
@@ -270,12 +275,10 @@ def load_from_layers(
     >>> round(float(ds["load"][0, 0]))
     387495
     """
-    items = list(layers.values()) if isinstance(layers, Mapping) else list(layers)
-    if not items:
-        raise InputError("load_from_layers needs at least one (thickness, density) layer")
-    rho_w = _check_density("water_density", water_density)
-    if not np.isfinite(gravity) or gravity <= 0:
-        raise InputError(f"gravity must be a positive number (m/s^2), got {gravity!r}")
+    items = _layer_items(layers, "load_from_layers", "thickness")
+    rho_w = check_density("water_density", water_density)
+    gravity = _check_gravity(gravity)
+    sea_level = check_number("sea_level", sea_level, unit="m")
     first = items[0][0] if isinstance(items[0], tuple) and len(items[0]) == 2 else None
     if not isinstance(first, xr.DataArray):
         raise InputError("layer 0 must be a (thickness DataArray, density) pair")
@@ -285,10 +288,7 @@ def load_from_layers(
     stress = np.zeros(first.shape)
     densities = set()
     for index, item in enumerate(items):
-        try:
-            thickness, density = item
-        except (TypeError, ValueError) as exc:
-            raise InputError(f"layer {index} must be a (thickness, density) pair") from exc
+        thickness, density = _layer_pair(item, index, "thickness")
         if not isinstance(thickness, xr.DataArray):
             raise InputError(f"layer {index} thickness must be an xarray.DataArray")
         check_grid(thickness, f"layer {index} thickness")
@@ -296,7 +296,7 @@ def load_from_layers(
         h = np.asarray(thickness.values, dtype=np.float64)
         if h.min() < 0:
             raise InputError(f"layer {index} thickness must be >= 0 m, minimum is {h.min()!r}")
-        rho = _check_density(f"layer {index} density", density)
+        rho = check_density(f"layer {index} density", density)
         densities.add(rho)
         submerged, emerged = _submerged_split(top, h, sea_level)
         stress += gravity * ((rho - rho_w) * submerged + rho * emerged)
@@ -335,8 +335,8 @@ def load_from_elevation(
     regional: Surface,
     *,
     sea_level: float = 0.0,
-    water_density: float = 1030.0,
-    gravity: float = 9.81,
+    water_density: float = SEA_WATER_DENSITY,
+    gravity: float = DEFAULT_GRAVITY,
 ) -> xr.Dataset:
     """Load of an edifice read from an elevation model.
 
@@ -374,7 +374,7 @@ def load_from_elevation(
     """
     check_grid(elevation, "elevation")
     ref = grid_values(regional, elevation, "regional")
-    rho = _check_density("rock_density", rock_density)
+    rho = check_density("rock_density", rock_density)
     height = np.clip(np.asarray(elevation.values, dtype=np.float64) - ref, 0.0, None)
     thickness = elevation.copy(data=height)
     base = regional if isinstance(regional, xr.DataArray) else float(regional)

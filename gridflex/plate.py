@@ -2,14 +2,15 @@
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
+from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
 from gridflex.errors import InputError
+from gridflex.validation import check_density, check_number
 
 __all__ = ["Plate", "rigidity_from_te", "te_from_rigidity"]
 
@@ -42,16 +43,6 @@ def te_from_rigidity(rigidity: Any, youngs_modulus: float, poisson_ratio: float)
     """Elastic thickness (m) of a plate of rigidity *rigidity* (N m); inverse of
     :func:`rigidity_from_te`."""
     return (12.0 * (1.0 - poisson_ratio**2) * rigidity / youngs_modulus) ** (1.0 / 3.0)
-
-
-def _check_positive(name: str, value: float) -> float:
-    try:
-        value = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number, got {value!r}") from exc
-    if not math.isfinite(value) or value <= 0.0:
-        raise InputError(f"{name} must be a finite positive number, got {value!r}")
-    return value
 
 
 @dataclass(frozen=True, eq=False)
@@ -106,25 +97,32 @@ class Plate:
     youngs_modulus: float = 1.0e11
     poisson_ratio: float = 0.25
     mantle_density: float = 3300.0
-    infill_density: float = 1030.0
-    gravity: float = 9.81
+    infill_density: float = SEA_WATER_DENSITY
+    gravity: float = DEFAULT_GRAVITY
     crust_thickness: float = 6000.0
     crust_density: float = 2800.0
 
     def __post_init__(self) -> None:
         set_ = object.__setattr__
-        set_(self, "crust_thickness", _check_positive("crust_thickness", self.crust_thickness))
-        set_(self, "crust_density", _check_positive("crust_density", self.crust_density))
-        set_(self, "youngs_modulus", _check_positive("youngs_modulus", self.youngs_modulus))
-        set_(self, "mantle_density", _check_positive("mantle_density", self.mantle_density))
-        set_(self, "gravity", _check_positive("gravity", self.gravity))
+        for name, unit in (
+            ("crust_thickness", "m"),
+            ("youngs_modulus", "Pa"),
+            ("gravity", "m/s^2"),
+        ):
+            set_(
+                self,
+                name,
+                check_number(name, getattr(self, name), unit=unit, minimum=0.0, strict=True),
+            )
+        set_(self, "crust_density", check_density("crust_density", self.crust_density))
+        # not zero: the length scales divide by (rho_m - rho_infill) g, which must be > 0
+        mantle = check_density("mantle_density", self.mantle_density, allow_zero=False)
+        set_(self, "mantle_density", mantle)
         nu = self.poisson_ratio
-        if not isinstance(nu, (int, float)) or not (0.0 < float(nu) < 0.5):
+        if not isinstance(nu, (int, float, np.floating)) or not (0.0 < float(nu) < 0.5):
             raise InputError(f"poisson_ratio must lie in (0, 0.5), got {nu!r}")
         set_(self, "poisson_ratio", float(nu))
-        rho_f = self.infill_density
-        if not isinstance(rho_f, (int, float)) or not math.isfinite(rho_f) or rho_f < 0:
-            raise InputError(f"infill_density must be a finite number >= 0, got {rho_f!r}")
+        rho_f = check_density("infill_density", self.infill_density)
         if rho_f >= self.mantle_density:
             raise InputError(
                 f"infill_density ({rho_f!r}) must be less than mantle_density "
@@ -144,13 +142,7 @@ class Plate:
             if values.min() < 0.0:
                 raise InputError(f"te grid must be >= 0 m everywhere, minimum is {values.min()!r}")
             return te.astype(np.float64)
-        try:
-            value = float(te)
-        except (TypeError, ValueError) as exc:
-            raise InputError(f"te must be a number of metres or a DataArray, got {te!r}") from exc
-        if not math.isfinite(value) or value < 0.0:
-            raise InputError(f"te must be a finite number >= 0 (metres), got {te!r}")
-        return value
+        return check_number("te", te, unit="m, or a DataArray of te", minimum=0.0)
 
     @property
     def is_variable(self) -> bool:
@@ -208,9 +200,7 @@ class Plate:
         Other keyword arguments are those of :class:`Plate`. The te stored is the
         one that gives *rigidity* with the plate's Young's modulus and Poisson's ratio.
         """
-        d = float(rigidity)
-        if not math.isfinite(d) or d < 0.0:
-            raise InputError(f"rigidity must be a finite number >= 0 (N m), got {rigidity!r}")
+        d = check_number("rigidity", rigidity, unit="N m", minimum=0.0)
         e = kwargs.get("youngs_modulus", 1.0e11)
         nu = kwargs.get("poisson_ratio", 0.25)
         cls(0.0, **kwargs)  # validates e and nu before they are used

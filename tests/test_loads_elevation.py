@@ -81,7 +81,7 @@ def test_ice_and_sediment_layers():
 
 def test_bad_input():
     z = grid(np.full((5, 5), -4000.0))
-    with pytest.raises(InputError, match="radius must be a positive"):
+    with pytest.raises(InputError, match=r"radius must be a finite number > 0 \(m\)"):
         regional_surface(z, -1.0)
     with pytest.raises(InputError, match="rock_density"):
         load_from_elevation(z, -5.0, -4000.0)

@@ -14,9 +14,10 @@ from collections.abc import Callable
 import numpy as np
 
 from gridflex.errors import ConvergenceError
+from gridflex.progress import Progress
 from gridflex.solvers.row_blocks import block_rows, for_row_blocks, thread_count
 
-__all__ = ["Operator", "Preconditioner", "Progress", "conjugate_gradient"]
+__all__ = ["Operator", "Preconditioner", "conjugate_gradient"]
 
 log = logging.getLogger(__name__)
 
@@ -24,9 +25,6 @@ STALL_FACTOR = 0.5
 """A restart must bring the true relative residual below this fraction of the previous
 restart's, or the iteration is declared stalled (:class:`~gridflex.errors.ConvergenceError`)
 instead of running on to the iteration limit."""
-
-Progress = Callable[[int, int], None]
-"""Progress callback, called with (iterations done, iteration limit)."""
 
 Operator = Callable[[np.ndarray, np.ndarray], np.ndarray]
 """``apply(x, out)``: writes K x into *out* (same shape as x) and returns it."""

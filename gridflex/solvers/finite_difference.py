@@ -20,8 +20,9 @@ import scipy.fft
 from gridflex.errors import ConvergenceError, InputError
 from gridflex.grid import GridSpec
 from gridflex.memory import check_memory
+from gridflex.progress import Progress
 from gridflex.solvers.blas_threads import single_threaded_blas
-from gridflex.solvers.conjugate_gradient import Progress, conjugate_gradient
+from gridflex.solvers.conjugate_gradient import conjugate_gradient
 from gridflex.solvers.plate_operator import AXIS_EDGES, PlateOperator, area_weights, corner_rigidity
 from gridflex.solvers.preconditioners import (
     BandSolver,

@@ -19,9 +19,10 @@ import numpy as np
 import xarray as xr
 
 from gridflex._version import __version__
-from gridflex.engine import EDGES, SIGN_CONVENTION, check_edge_load, deflection_attrs
+from gridflex.engine import EDGES, check_edge_load, deflection_attrs
 from gridflex.errors import InputError
 from gridflex.grid import check_grid
+from gridflex.io.provenance import SIGN_CONVENTION
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
