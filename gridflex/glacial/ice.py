@@ -19,18 +19,19 @@ from __future__ import annotations
 
 import logging
 import math
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
+from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
 from gridflex.engine import deflection_attrs
 from gridflex.errors import ConvergenceError, InputError
 from gridflex.glacial.response import (
     INITIAL_STATES,
-    Progress,
     ResponseStepper,
-    check_times,
+    check_history_grid,
     uplift_rate_attrs,
     warn_edge_load,
 )
@@ -38,15 +39,17 @@ from gridflex.grid import check_grid, check_same_grid
 from gridflex.io.provenance import provenance_attrs
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
+from gridflex.progress import Progress
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.solvers.viscous import DEFAULT_WIDTH_FACTOR
+from gridflex.validation import check_choice, check_density, check_number
 
 __all__ = ["bed_stress", "grounded_mask", "ice_response"]
 
 log = logging.getLogger(__name__)
 
 ICE_DENSITY = 910.0
-WATER_DENSITY = 1030.0
+"""Default density of glacier ice (kg/m^3; common practice)."""
 
 _EQUILIBRIUM_TOL = 1e-6  # m, change of the deflection between fixed-point iterations
 _EQUILIBRIUM_MAX_ITER = 200
@@ -60,8 +63,8 @@ def bed_stress(
     sea_level: ArrayLike = 0.0,
     *,
     ice_density: float = ICE_DENSITY,
-    water_density: float = WATER_DENSITY,
-    gravity: float = 9.81,
+    water_density: float = SEA_WATER_DENSITY,
+    gravity: float = DEFAULT_GRAVITY,
 ) -> ArrayLike:
     """Vertical stress on the bed of ice and ocean water (Pa, positive down).
 
@@ -104,21 +107,11 @@ def grounded_mask(
     sea_level: ArrayLike = 0.0,
     *,
     ice_density: float = ICE_DENSITY,
-    water_density: float = WATER_DENSITY,
+    water_density: float = SEA_WATER_DENSITY,
 ) -> ArrayLike:
     """True where there is ice and it rests on the bed: H > 0 and
     rho_i H >= rho_w (z_sl − b)."""
     return (ice_thickness > 0) & (ice_density * ice_thickness >= water_density * (sea_level - bed))
-
-
-def _check_density(name: str, value: Any) -> float:
-    try:
-        number = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number (kg/m^3), got {value!r}") from exc
-    if not (np.isfinite(number) and number > 0):
-        raise InputError(f"{name} must be a finite positive density (kg/m^3), got {value!r}")
-    return number
 
 
 def _sea_level_series(sea_level: Any, times: np.ndarray) -> np.ndarray:
@@ -170,7 +163,7 @@ def ice_response(
     reference_ice_thickness: float | xr.DataArray = 0.0,
     reference_sea_level: float = 0.0,
     ice_density: float = ICE_DENSITY,
-    water_density: float = WATER_DENSITY,
+    water_density: float = SEA_WATER_DENSITY,
     initial: str = "rest",
     interpolation: str = "linear",
     max_step: float | None = None,
@@ -232,76 +225,39 @@ def ice_response(
     ConvergenceError
         The initial equilibrium iteration does not settle.
     """
-    if not isinstance(ice_thickness, xr.DataArray) or ice_thickness.dims != ("time", "y", "x"):
-        raise InputError("ice_thickness must be a DataArray with dims ('time', 'y', 'x')")
-    if "time" not in ice_thickness.coords:
-        raise InputError("ice_thickness has no 'time' coordinate (years)")
-    times = check_times(ice_thickness["time"].values, "ice_thickness")
-    first = ice_thickness.isel(time=0, drop=True)
-    check_grid(first, "ice_thickness")
-    check_grid(bed, "bed")
-    check_same_grid(bed, first, "bed")
-    thickness = np.asarray(ice_thickness.values, dtype=np.float64)
-    if not np.all(np.isfinite(thickness)) or thickness.min() < 0:
-        raise InputError(
-            "ice_thickness must be finite and >= 0 m everywhere; where a file marks "
-            "ice-free cells as missing, fill them with 0 first (e.g. .fillna(0))"
-        )
-    if not isinstance(plate, Plate):
-        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
-    if plate.infill_density != 0.0:
-        raise InputError(
-            f"ice_response adds the ocean water over depressed bedrock itself; give a plate "
-            f"with infill_density=0.0 (got {plate.infill_density!r})"
-        )
-    if initial not in INITIAL_STATES:
-        raise InputError(
-            f"initial must be one of {', '.join(map(repr, INITIAL_STATES))}; got {initial!r}"
-        )
+    times, first, thickness = _check_ice(ice_thickness, bed)
+    _check_plate(plate)
+    initial = check_choice("initial", initial, INITIAL_STATES)
     step_limit = None
     if max_step is not None:
-        step_limit = float(max_step)
-        if not (math.isfinite(step_limit) and step_limit > 0):
-            raise InputError(f"max_step must be a positive number of years, got {max_step!r}")
-    rho_i = _check_density("ice_density", ice_density)
-    rho_w = _check_density("water_density", water_density)
+        step_limit = check_number("max_step", max_step, unit="years", minimum=0.0, strict=True)
     levels = _sea_level_series(sea_level, times)
-    ref_level = float(reference_sea_level)
-    if not np.isfinite(ref_level):
-        raise InputError(f"reference_sea_level must be finite (m), got {reference_sea_level!r}")
-    bed0 = np.asarray(bed.values, dtype=np.float64)
-    ref_ice = _reference_field(reference_ice_thickness, first, "reference_ice_thickness")
-    g = plate.gravity
-    nt = times.size
-    ny, nx = first.shape
+    ref_level = check_number("reference_sea_level", reference_sea_level, unit="m")
+    column = _IceColumn(
+        np.asarray(bed.values, dtype=np.float64),
+        thickness,
+        levels,
+        check_density("ice_density", ice_density),
+        check_density("water_density", water_density),
+        plate.gravity,
+        _reference_field(reference_ice_thickness, first, "reference_ice_thickness"),
+        ref_level,
+    )
+    nt, (ny, nx) = times.size, first.shape
     check_memory(
         (4 * 8.0 + 1.0) * nt * ny * nx,
         f"deflection, uplift rate, bed and load for {nt} times of {ny} x {nx}",
     )
-
-    dens = {"ice_density": rho_i, "water_density": rho_w}
-    sigma_ref = bed_stress(ref_ice, bed0, ref_level, gravity=g, **dens)
-
-    def stress_change(ice: np.ndarray, level: float, w: np.ndarray) -> np.ndarray:
-        return bed_stress(ice, bed0 - w, level, gravity=g, **dens) - sigma_ref
-
-    def load_at(n: int, w: np.ndarray) -> np.ndarray:
-        return stress_change(thickness[n], levels[n], w)
-
     zero = np.zeros((ny, nx))
     if edges == "infinite":
-        # largest change of the ice load, plus the sea-level change over what is ocean
-        change = float(np.abs(levels - ref_level).max())
-        ocean = bed0 < levels.max()
-        ice_change = np.abs(thickness - ref_ice).max(axis=0)
-        warn_edge_load(g * (rho_i * ice_change + rho_w * change * ocean))
+        warn_edge_load(column.largest_change())
     stepper = ResponseStepper(
         first,
         plate,
         model,
         mantle_viscosity,
         relaxation_time,
-        load=load_at(0, zero),
+        load=column.load_at(0, zero),
         initial="rest",
         interpolation=interpolation,
         edges=edges,
@@ -310,87 +266,13 @@ def ice_response(
     )
     w = zero
     if initial == "equilibrium":
-        w = _initial_equilibrium(stepper, lambda w_: load_at(0, w_))
-
-    out = {name: np.empty((nt, ny, nx)) for name in ("deflection", "uplift_rate", "load")}
-    grounded = np.empty((nt, ny, nx), dtype=np.int8)
-
-    def record(n: int, w_now: np.ndarray) -> None:
-        q_now = load_at(n, w_now)
-        out["deflection"][n] = w_now
-        out["load"][n] = q_now
-        out["uplift_rate"][n] = stepper.uplift_rate(q_now).values
-        grounded[n] = grounded_mask(thickness[n], bed0 - w_now, levels[n], **dens)
-
-    record(0, w)
-    linear = stepper.interpolation == "linear"
-    for n in range(1, nt):
-        dt = times[n] - times[n - 1]
-        parts = 1 if step_limit is None else max(1, math.ceil(dt / step_limit - 1e-9))
-        for part in range(1, parts + 1):
-            if linear:
-                # ice and sea level at the end of the sub-step, on the bed of its start
-                f = part / parts
-                ice = thickness[n - 1] + f * (thickness[n] - thickness[n - 1])
-                level = levels[n - 1] + f * (levels[n] - levels[n - 1])
-                w = stepper.advance(dt / parts, stress_change(ice, level, w)).values
-                if part < parts:
-                    stepper.set_load(stress_change(ice, level, w))
-            else:
-                # the earlier ice and sea level held, on the bed of the sub-step's start
-                held = stress_change(thickness[n - 1], levels[n - 1], w)
-                w = stepper.advance(dt / parts, held).values
-        record(n, w)
-        if progress is not None:
-            progress(n, nt - 1)
-
-    coords = {
-        "time": ("time", times, {"units": "years", "long_name": "time"}),
-        "y": first["y"].variable,
-        "x": first["x"].variable,
-    }
-    dims = ("time", "y", "x")
-    data_vars = {
-        "deflection": (dims, out["deflection"], deflection_attrs()),
-        "uplift_rate": (dims, out["uplift_rate"], uplift_rate_attrs()),
-        "bed_elevation": (
-            dims,
-            bed0[None] - out["deflection"],
-            {"units": "m", "long_name": "bed elevation (positive up)"},
-        ),
-        "load": (
-            dims,
-            out["load"],
-            {
-                "units": "Pa",
-                "long_name": "change of the vertical stress of ice and ocean on the bed",
-            },
-        ),
-        "grounded": (
-            dims,
-            grounded,
-            {
-                "long_name": "grounded ice",
-                "flag_values": np.array([0, 1], dtype=np.int8),
-                "flag_meanings": "not_grounded grounded",
-            },
-        ),
-        "sea_level": ("time", levels, {"units": "m", "long_name": "sea-level elevation"}),
-        "reference_load": (
-            ("y", "x"),
-            sigma_ref,
-            {
-                "units": "Pa",
-                "long_name": "vertical stress of ice and ocean on the bed in the "
-                "reference state (zero deflection)",
-            },
-        ),
-    }
+        w = _initial_equilibrium(stepper, lambda w_: column.load_at(0, w_))
+    out = _run_history(stepper, column, times, w, step_limit, progress)
     attrs = stepper.describe()
     attrs.update(
         {
-            "ice_density": rho_i,
-            "water_density": rho_w,
+            "ice_density": column.ice_density,
+            "water_density": column.water_density,
             "reference_sea_level": ref_level,
             "reference_state": (
                 "deflection is zero for the given bed with the reference ice and sea level"
@@ -399,6 +281,192 @@ def ice_response(
             "max_step": step_limit if step_limit is not None else "none",
         }
     )
+    return _ice_dataset(first, times, column, out, plate, attrs)
+
+
+def _check_ice(ice_thickness: Any, bed: Any) -> tuple[np.ndarray, xr.DataArray, np.ndarray]:
+    """Times (years), the first grid and the thickness values (m) of the ice history."""
+    times, first = check_history_grid(ice_thickness, "ice_thickness")
+    check_grid(bed, "bed")
+    check_same_grid(bed, first, "bed")
+    thickness = np.asarray(ice_thickness.values, dtype=np.float64)
+    if not np.all(np.isfinite(thickness)) or thickness.min() < 0:
+        raise InputError(
+            "ice_thickness must be finite and >= 0 m everywhere; where a file marks "
+            "ice-free cells as missing, fill them with 0 first (e.g. .fillna(0))"
+        )
+    return times, first, thickness
+
+
+def _check_plate(plate: Any) -> None:
+    if not isinstance(plate, Plate):
+        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
+    if plate.infill_density != 0.0:
+        raise InputError(
+            f"ice_response adds the ocean water over depressed bedrock itself; give a plate "
+            f"with infill_density=0.0 (got {plate.infill_density!r})"
+        )
+
+
+@dataclass
+class _IceColumn:
+    """Ice and ocean on the bed through time: the load of any deflection (numpy, SI)."""
+
+    bed: np.ndarray
+    thickness: np.ndarray
+    levels: np.ndarray
+    ice_density: float
+    water_density: float
+    gravity: float
+    reference_ice: np.ndarray
+    reference_level: float
+    reference_stress: np.ndarray = field(init=False)
+    """sigma_ref (Pa) of the reference state, in which the deflection is zero."""
+
+    def __post_init__(self) -> None:
+        self.reference_stress = self.stress(self.reference_ice, self.reference_level, 0.0)
+
+    def stress(self, ice: np.ndarray, level: float, w: np.ndarray | float) -> np.ndarray:
+        """sigma (Pa) of *ice* (m) and sea *level* (m) on the bed moved down by *w* (m)."""
+        return bed_stress(
+            ice,
+            self.bed - w,
+            level,
+            ice_density=self.ice_density,
+            water_density=self.water_density,
+            gravity=self.gravity,
+        )
+
+    def change(self, ice: np.ndarray, level: float, w: np.ndarray) -> np.ndarray:
+        """sigma - sigma_ref (Pa), the load that drives the plate."""
+        return self.stress(ice, level, w) - self.reference_stress
+
+    def load_at(self, n: int, w: np.ndarray) -> np.ndarray:
+        """The load (Pa) at the *n*-th time on the bed moved down by *w*."""
+        return self.change(self.thickness[n], self.levels[n], w)
+
+    def grounded(self, n: int, w: np.ndarray) -> np.ndarray:
+        """Where the ice of the *n*-th time rests on the bed moved down by *w*."""
+        return grounded_mask(
+            self.thickness[n],
+            self.bed - w,
+            self.levels[n],
+            ice_density=self.ice_density,
+            water_density=self.water_density,
+        )
+
+    def largest_change(self) -> np.ndarray:
+        """Largest change of the ice load in each cell, plus the sea-level change over
+        what is ocean (Pa): what reaches the grid edge."""
+        change = float(np.abs(self.levels - self.reference_level).max())
+        ocean = self.bed < self.levels.max()
+        ice_change = np.abs(self.thickness - self.reference_ice).max(axis=0)
+        return self.gravity * (self.ice_density * ice_change + self.water_density * change * ocean)
+
+
+def _advance_interval(
+    stepper: ResponseStepper,
+    column: _IceColumn,
+    n: int,
+    dt: float,
+    parts: int,
+    w: np.ndarray,
+) -> np.ndarray:
+    """Advance from the (*n*-1)-th to the *n*-th time in *parts* equal sub-steps."""
+    for part in range(1, parts + 1):
+        if stepper.interpolation == "linear":
+            # ice and sea level at the end of the sub-step, on the bed of its start
+            f = part / parts
+            ice = column.thickness[n - 1] + f * (column.thickness[n] - column.thickness[n - 1])
+            level = column.levels[n - 1] + f * (column.levels[n] - column.levels[n - 1])
+            w = stepper.advance(dt / parts, column.change(ice, level, w)).values
+            if part < parts:
+                stepper.set_load(column.change(ice, level, w))
+        else:
+            # the earlier ice and sea level held, on the bed of the sub-step's start
+            held = column.change(column.thickness[n - 1], column.levels[n - 1], w)
+            w = stepper.advance(dt / parts, held).values
+    return w
+
+
+def _run_history(
+    stepper: ResponseStepper,
+    column: _IceColumn,
+    times: np.ndarray,
+    w: np.ndarray,
+    step_limit: float | None,
+    progress: Progress | None,
+) -> dict[str, np.ndarray]:
+    """The time loop: deflection, uplift rate, load and grounded mask at every time."""
+    nt, (ny, nx) = times.size, w.shape
+    out = {name: np.empty((nt, ny, nx)) for name in ("deflection", "uplift_rate", "load")}
+    out["grounded"] = np.empty((nt, ny, nx), dtype=np.int8)
+
+    def record(n: int, w_now: np.ndarray) -> None:
+        q_now = column.load_at(n, w_now)
+        out["deflection"][n] = w_now
+        out["load"][n] = q_now
+        out["uplift_rate"][n] = stepper.uplift_rate(q_now).values
+        out["grounded"][n] = column.grounded(n, w_now)
+
+    record(0, w)
+    for n in range(1, nt):
+        dt = times[n] - times[n - 1]
+        parts = 1 if step_limit is None else max(1, math.ceil(dt / step_limit - 1e-9))
+        w = _advance_interval(stepper, column, n, dt, parts, w)
+        record(n, w)
+        if progress is not None:
+            progress(n, nt - 1)
+    return out
+
+
+_ICE_VARIABLES = {
+    "bed_elevation": {"units": "m", "long_name": "bed elevation (positive up)"},
+    "load": {
+        "units": "Pa",
+        "long_name": "change of the vertical stress of ice and ocean on the bed",
+    },
+    "grounded": {
+        "long_name": "grounded ice",
+        "flag_values": np.array([0, 1], dtype=np.int8),
+        "flag_meanings": "not_grounded grounded",
+    },
+    "sea_level": {"units": "m", "long_name": "sea-level elevation"},
+    "reference_load": {
+        "units": "Pa",
+        "long_name": "vertical stress of ice and ocean on the bed in the "
+        "reference state (zero deflection)",
+    },
+}
+"""Attributes of the variables of an :func:`ice_response` result besides the deflection
+and the uplift rate."""
+
+
+def _ice_dataset(
+    first: xr.DataArray,
+    times: np.ndarray,
+    column: _IceColumn,
+    out: dict[str, np.ndarray],
+    plate: Plate,
+    attrs: dict[str, Any],
+) -> xr.Dataset:
+    """Wrap the recorded history in a Dataset with provenance attributes."""
+    coords = {
+        "time": ("time", times, {"units": "years", "long_name": "time"}),
+        "y": first["y"].variable,
+        "x": first["x"].variable,
+    }
+    dims = ("time", "y", "x")
+    meta = _ICE_VARIABLES
+    data_vars = {
+        "deflection": (dims, out["deflection"], deflection_attrs()),
+        "uplift_rate": (dims, out["uplift_rate"], uplift_rate_attrs()),
+        "bed_elevation": (dims, column.bed[None] - out["deflection"], meta["bed_elevation"]),
+        "load": (dims, out["load"], meta["load"]),
+        "grounded": (dims, out["grounded"], meta["grounded"]),
+        "sea_level": ("time", column.levels, meta["sea_level"]),
+        "reference_load": (("y", "x"), column.reference_stress, meta["reference_load"]),
+    }
     ds_attrs = provenance_attrs(
         plate.describe(), attrs, "bed deflection under an ice-thickness history"
     )

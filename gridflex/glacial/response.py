@@ -21,32 +21,33 @@ explicitly and therefore requires ``infill_density=0``.
 from __future__ import annotations
 
 import logging
-import math
 import warnings
-from collections.abc import Callable
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
-from gridflex.engine import check_edge_load, deflection_attrs
+from gridflex.constants import SECONDS_PER_YEAR
+from gridflex.engine import SPECTRAL_EDGES, check_edge_load, deflection_attrs
 from gridflex.errors import GridflexWarning, InputError
 from gridflex.grid import GridSpec, check_grid, check_same_grid
 from gridflex.io.provenance import provenance_attrs
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
+from gridflex.progress import Progress
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.solvers.viscous import (
     DEFAULT_WIDTH_FACTOR,
     INTERPOLATIONS,
     MODELS,
-    SECONDS_PER_YEAR,
     SpectralRelaxation,
 )
+from gridflex.validation import check_choice, check_number
 
 __all__ = [
     "INITIAL_STATES",
     "ResponseStepper",
+    "check_history_grid",
     "check_times",
     "uplift_rate_attrs",
     "viscous_response",
@@ -59,8 +60,6 @@ INITIAL_STATES = ("rest", "equilibrium")
 """Start at rest (w = 0, the reference state) or in elastic equilibrium with the
 first load."""
 
-Progress = Callable[[int, int], Any]
-
 
 def uplift_rate_attrs() -> dict[str, str]:
     """CF-style attributes of the ``uplift_rate`` variable."""
@@ -69,22 +68,6 @@ def uplift_rate_attrs() -> dict[str, str]:
         "long_name": "rate of vertical motion of the plate (positive upward)",
         "comment": "-dw/dt at each time under the load of that time; yr = 365.25 days",
     }
-
-
-def _positive(name: str, value: Any, unit: str) -> float:
-    try:
-        number = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number ({unit}), got {value!r}") from exc
-    if not (math.isfinite(number) and number > 0):
-        raise InputError(f"{name} must be a finite positive number ({unit}), got {value!r}")
-    return number
-
-
-def _choice(name: str, value: Any, allowed: tuple[str, ...]) -> str:
-    if value not in allowed:
-        raise InputError(f"{name} must be one of {', '.join(map(repr, allowed))}; got {value!r}")
-    return str(value)
 
 
 def check_times(times: Any, label: str) -> np.ndarray:
@@ -209,12 +192,16 @@ class ResponseStepper:
         self._spec: GridSpec = check_grid(grid, "grid")
         self._grid = grid
         self.plate = plate
-        self.model = _choice("model", model, MODELS)
-        self.mantle_viscosity = _positive("mantle_viscosity", mantle_viscosity, "Pa s")
-        self.relaxation_time = _positive("relaxation_time", relaxation_time, "years")
-        self.initial = _choice("initial", initial, INITIAL_STATES)
-        self.interpolation = _choice("interpolation", interpolation, INTERPOLATIONS)
-        self.edges = _choice("edges", edges, ("infinite", "periodic"))
+        self.model = check_choice("model", model, MODELS)
+        self.mantle_viscosity = check_number(
+            "mantle_viscosity", mantle_viscosity, unit="Pa s", minimum=0.0, strict=True
+        )
+        self.relaxation_time = check_number(
+            "relaxation_time", relaxation_time, unit="years", minimum=0.0, strict=True
+        )
+        self.initial = check_choice("initial", initial, INITIAL_STATES)
+        self.interpolation = check_choice("interpolation", interpolation, INTERPOLATIONS)
+        self.edges = check_choice("edges", edges, SPECTRAL_EDGES)
         self._engine = SpectralRelaxation.build(
             self._spec,
             rigidity,
@@ -282,7 +269,7 @@ class ResponseStepper:
         xarray.DataArray
             Deflection w (m, positive down) at the new time.
         """
-        step = _positive("dt", dt, "years")
+        step = check_number("dt", dt, unit="years", minimum=0.0, strict=True)
         self._engine.step(step * SECONDS_PER_YEAR, self._values(load, "load"))
         self.time += step
         return self.deflection
@@ -346,23 +333,40 @@ def warn_edge_load(magnitude: np.ndarray) -> None:
     check_edge_load(magnitude, float(np.abs(magnitude).sum()))
 
 
-def _check_history(load_history: Any) -> tuple[np.ndarray, xr.DataArray]:
-    if not isinstance(load_history, xr.DataArray):
+def check_history_grid(history: Any, label: str) -> tuple[np.ndarray, xr.DataArray]:
+    """Check a field through time (a DataArray on dims ``("time", "y", "x")``).
+
+    Returns
+    -------
+    times : numpy.ndarray
+        The ``time`` coordinate (years), checked by :func:`check_times`.
+    first : xarray.DataArray
+        The field at the first time, a checked ``("y", "x")`` grid.
+
+    Raises
+    ------
+    InputError
+        Not a DataArray, other dims, no or bad time coordinate, or a bad grid; the
+        values themselves are not checked.
+    """
+    if not isinstance(history, xr.DataArray):
+        raise InputError(f"{label} must be an xarray.DataArray, got {type(history).__name__}")
+    if history.dims != ("time", "y", "x"):
         raise InputError(
-            f"load_history must be an xarray.DataArray, got {type(load_history).__name__}"
-        )
-    if load_history.dims != ("time", "y", "x"):
-        raise InputError(
-            f"load_history must have dims ('time', 'y', 'x'), got {load_history.dims!r}; "
+            f"{label} must have dims ('time', 'y', 'x'), got {history.dims!r}; "
             "use .transpose('time', 'y', 'x')"
         )
-    if "time" not in load_history.coords:
-        raise InputError("load_history has no 'time' coordinate (years)")
-    times = check_times(load_history["time"].values, "load_history")
-    first = load_history.isel(time=0, drop=True)
-    check_grid(first, "load_history")
-    values = load_history.values
-    if not np.all(np.isfinite(values)):
+    if "time" not in history.coords:
+        raise InputError(f"{label} has no 'time' coordinate (years)")
+    times = check_times(history["time"].values, label)
+    first = history.isel(time=0, drop=True)
+    check_grid(first, label)
+    return times, first
+
+
+def _check_history(load_history: Any) -> tuple[np.ndarray, xr.DataArray]:
+    times, first = check_history_grid(load_history, "load_history")
+    if not np.all(np.isfinite(load_history.values)):
         raise InputError("load_history contains NaN or infinite values")
     return times, first
 

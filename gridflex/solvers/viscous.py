@@ -30,29 +30,24 @@ Everything here works on numpy arrays in SI units (seconds internally).
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.fft
 
-from gridflex.errors import InputError
 from gridflex.grid import GridSpec, padded_shape, wavenumbers_squared
 from gridflex.memory import check_memory
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, decay_length, transfer_function
+from gridflex.validation import check_choice, check_number
 
 __all__ = [
     "INTERPOLATIONS",
     "MODELS",
-    "SECONDS_PER_YEAR",
     "DEFAULT_WIDTH_FACTOR",
     "SpectralRelaxation",
     "relaxation_rates",
     "relaxation_pad_distance",
 ]
-
-SECONDS_PER_YEAR = 3.15576e7
-"""One Julian year (365.25 days) in seconds, the year of the time API."""
 
 MODELS = ("half-space", "relaxing")
 """Accepted time-dependent mantle models."""
@@ -208,25 +203,17 @@ class SpectralRelaxation:
         InputError
             Bad parameter, or a padded grid that does not fit in memory.
         """
-        if model not in MODELS:
-            raise InputError(f"model must be one of {', '.join(map(repr, MODELS))}; got {model!r}")
-        if interpolation not in INTERPOLATIONS:
-            raise InputError(
-                f"interpolation must be one of {', '.join(map(repr, INTERPOLATIONS))}; "
-                f"got {interpolation!r}"
-            )
-        for name, value in (
-            ("stiffness", stiffness),
-            ("viscosity", viscosity),
-            ("relaxation_time", relaxation_time),
+        check_choice("model", model, MODELS)
+        check_choice("interpolation", interpolation, INTERPOLATIONS)
+        for name, value, unit in (
+            ("stiffness", stiffness, "Pa/m"),
+            ("viscosity", viscosity, "Pa s"),
+            ("relaxation_time", relaxation_time, "s"),
         ):
-            if not (math.isfinite(value) and value > 0):
-                raise InputError(f"{name} must be a finite positive number, got {value!r}")
-        if not (math.isfinite(rigidity) and rigidity >= 0):
-            raise InputError(f"rigidity must be a finite number >= 0, got {rigidity!r}")
+            check_number(name, value, unit=unit, minimum=0.0, strict=True)
+        check_number("rigidity", rigidity, unit="N m", minimum=0.0)
         for name, value in (("pad_factor", pad_factor), ("width_factor", width_factor)):
-            if not (math.isfinite(value) and value >= 0):
-                raise InputError(f"{name} must be a finite number >= 0, got {value!r}")
+            check_number(name, value, minimum=0.0)
         if periodic:
             shape = spec.shape
         else:
@@ -326,9 +313,8 @@ class SpectralRelaxation:
             factors = (decay, (1.0 - decay) * self.transfer)
         else:
             with np.errstate(divide="ignore", invalid="ignore"):
-                phi = np.where(np.isinf(x), 0.0, -np.expm1(-x) / x)
-            if not isinstance(x, np.ndarray):
-                phi = float(phi)
+                phi_modes = np.where(np.isinf(x), 0.0, -np.expm1(-x) / x)
+            phi = phi_modes if isinstance(x, np.ndarray) else float(phi_modes)
             factors = (decay, (phi - decay) * self.transfer, (1.0 - phi) * self.transfer)
         # real factors repeated for the (re, im) pairs of the complex spectra: plain
         # float64 products without a cast of the factor to complex

@@ -8,8 +8,9 @@ import scipy.fft
 from numpy.testing import assert_allclose
 
 from gridflex import InputError
+from gridflex.constants import SECONDS_PER_YEAR
 from gridflex.grid import GridSpec
-from gridflex.solvers.viscous import SECONDS_PER_YEAR, SpectralRelaxation
+from gridflex.solvers.viscous import SpectralRelaxation
 
 RHO_M, G, ETA, D = 3300.0, 9.81, 1e21, 1e24
 
@@ -116,5 +117,5 @@ def test_build_rejects_bad_parameters():
         SpectralRelaxation.build(spec, D, RHO_M * G, "maxwell", ETA, 1.0)
     with pytest.raises(InputError, match="interpolation must be one of"):
         SpectralRelaxation.build(spec, D, RHO_M * G, "relaxing", ETA, 1.0, interpolation="cubic")
-    with pytest.raises(InputError, match="viscosity must be a finite positive"):
+    with pytest.raises(InputError, match=r"viscosity must be a finite number > 0 .*-1.0"):
         SpectralRelaxation.build(spec, D, RHO_M * G, "half-space", -1.0, 1.0)
