@@ -27,13 +27,15 @@ down); thicknesses in m; densities in kg m^-3.
 
 from __future__ import annotations
 
-import math
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.errors import ConvergenceError, InputError
+from gridflex.validation import check_density, check_number
 
 __all__ = [
     "LITHOLOGIES",
@@ -44,6 +46,7 @@ __all__ = [
     "lithology",
     "move_layer",
     "porosity",
+    "saturated_column",
 ]
 
 _NEWTON_STEPS = 60
@@ -81,13 +84,14 @@ class Lithology:
             raise InputError(
                 f"lithology {self.name!r}: surface_porosity must lie in [0, 1), got {phi0!r}"
             )
-        for key in ("decay_length", "grain_density"):
-            value = getattr(self, key)
-            if not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0:
-                raise InputError(
-                    f"lithology {self.name!r}: {key} must be a positive number, got {value!r}"
-                )
-            object.__setattr__(self, key, float(value))
+        where = f"lithology {self.name!r}:"
+        # the porosity law divides the depth by the decay length
+        decay = check_number(
+            f"{where} decay_length", self.decay_length, unit="m", minimum=0.0, strict=True
+        )
+        grains = check_density(f"{where} grain_density", self.grain_density)
+        object.__setattr__(self, "decay_length", decay)
+        object.__setattr__(self, "grain_density", grains)
         object.__setattr__(self, "surface_porosity", float(phi0))
 
     def describe(self) -> dict[str, Any]:
@@ -213,7 +217,7 @@ def move_layer(top: Any, base: Any, new_top: Any, lith: str | Lithology) -> np.n
 
 
 def bulk_density(
-    top: Any, base: Any, lith: str | Lithology, water_density: float = 1030.0
+    top: Any, base: Any, lith: str | Lithology, water_density: float = SEA_WATER_DENSITY
 ) -> np.ndarray:
     """Mean bulk density (kg m^-3) of the water-saturated layer [top, base].
 
@@ -228,3 +232,39 @@ def bulk_density(
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_phi = np.where(h > 0, pores / np.where(h > 0, h, 1.0), porosity(z1, lith))
     return water_density * mean_phi + lith.grain_density * (1.0 - mean_phi)
+
+
+def saturated_column(
+    grains: Sequence[np.ndarray], lithologies: Sequence[Lithology], water_density: float
+) -> tuple[list[np.ndarray], list[np.ndarray], np.ndarray]:
+    """Layers stacked from the surface down, each compacted under the ones above it.
+
+    Parameters
+    ----------
+    grains : sequence of numpy.ndarray
+        Grain thickness of each layer (m), the top layer first; all of one shape.
+    lithologies : sequence of Lithology
+        The porosity law of each layer, same order.
+    water_density : float
+        Density of the pore water (kg m^-3).
+
+    Returns
+    -------
+    thickness : list of numpy.ndarray
+        Compacted thickness of each layer (m), same order.
+    mass : list of numpy.ndarray
+        Mass per area of each water-saturated layer (kg m^-2): rho_w P + rho_grain s.
+    bottom : numpy.ndarray
+        Burial depth of the base of the last layer (m): the thickness of the column.
+    """
+    thickness: list[np.ndarray] = []
+    mass: list[np.ndarray] = []
+    top = np.zeros(np.shape(grains[0])) if len(grains) else np.zeros(())
+    for s, lith in zip(grains, lithologies, strict=True):
+        base = compacted_base(top, s, lith)
+        h = base - top
+        thickness.append(h)
+        # saturated pores: rho_w * pore thickness + rho_grain * grains
+        mass.append(water_density * (h - s) + lith.grain_density * s)
+        top = base
+    return thickness, mass, top

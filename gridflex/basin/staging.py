@@ -1,4 +1,4 @@
-"""Basin workflows: staged (delta) loading with compaction, and flexural backstripping.
+"""Staged (delta) loading of a basin with compaction.
 
 Staged loading (PHYSICS.md 9.1-9.2). Each stage deposits an isopach (thickness
 as deposited, at the top of the pile) of one lithology. Before the stage is
@@ -34,19 +34,8 @@ of cells (the FFT padding copies it, and its state is not kept between stages);
 a stage with a te grid is solved with :func:`gridflex.solve` and water filling
 every depression (also above sea level), without sediment fill.
 
-Backstripping (PHYSICS.md 9.3; Steckler & Watts 1978, *Earth Planet. Sci.
-Lett.* 41, 1-13). The water-loaded tectonic subsidence is the basement depth
-with the sediment removed and replaced by water, the plate rebounding by w_s:
-
-    Y = B - w_s - dSL rho_m / (rho_m - rho_w),
-    D lap^2 w_s + (rho_m - rho_w) g w_s = (rho_s - rho_w) g S,
-
-with B = S + W the basement depth below the sea level of the time (present
-sea level for present-day grids), S the sediment
-thickness, W the water depth, rho_s the mean bulk density of the (compacted)
-sediment column and dSL the sea level of the time relative to present (positive
-higher). For te = 0 this is the local (Airy) formula
-Y = S (rho_m - rho_s)/(rho_m - rho_w) + W - dSL rho_m/(rho_m - rho_w).
+Flexural backstripping lives in :mod:`gridflex.basin.backstrip`; :func:`backstrip` and
+:func:`backstrip_layers` are importable from here too.
 
 Depths, thicknesses and subsidence are positive DOWN here (m); elevations and
 levels positive up; ages in years before present.
@@ -58,27 +47,37 @@ import dataclasses
 import logging
 import math
 import warnings
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
-from gridflex.basin.compaction import Lithology, bulk_density, compacted_base, grain_thickness
+from gridflex.basin.backstrip import backstrip, backstrip_layers
+from gridflex.basin.compaction import (
+    Lithology,
+    bulk_density,
+    compacted_base,
+    grain_thickness,
+    saturated_column,
+)
 from gridflex.basin.compaction import lithology as as_lithology
+from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.engine import solve
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import check_grid, grid_values
 from gridflex.infill import Infill, solve_with_infill
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
+from gridflex.progress import Progress
+from gridflex.validation import check_choice, check_density, check_number
 
 __all__ = [
     "ISOPACHS",
     "Stage",
     "StagedBasin",
-    "backstrip",
+    "backstrip",  # from gridflex.basin.backstrip, importable here as README.md shows
     "backstrip_layers",
     "stage_loading",
 ]
@@ -87,7 +86,6 @@ log = logging.getLogger(__name__)
 
 Level = float | xr.DataArray
 TeLike = float | xr.DataArray
-Progress = Callable[[int, int], Any]
 
 ISOPACHS = ("deposited", "present")
 """Accepted values of ``stage_loading(isopachs=...)``."""
@@ -132,13 +130,26 @@ class Stage:
             raise InputError(
                 f"stage thickness must be an xarray.DataArray, got {type(self.thickness).__name__}"
             )
-        if not isinstance(self.age, (int, float)) or not math.isfinite(self.age):
-            raise InputError(f"stage age must be a number of years, got {self.age!r}")
+        object.__setattr__(self, "age", check_number("stage age", self.age, unit="years"))
         object.__setattr__(self, "lithology", as_lithology(self.lithology))
-        if self.sea_level is not None and not (
-            isinstance(self.sea_level, (int, float)) and math.isfinite(self.sea_level)
-        ):
-            raise InputError(f"stage sea_level must be a number (m), got {self.sea_level!r}")
+        if self.sea_level is not None:
+            sea_level = check_number("stage sea_level", self.sea_level, unit="m")
+            object.__setattr__(self, "sea_level", sea_level)
+
+    @property
+    def rock(self) -> Lithology:
+        """The stage's porosity law (:attr:`lithology` as a Lithology)."""
+        return as_lithology(self.lithology)
+
+
+@dataclass(frozen=True)
+class _SolveOptions:
+    """Options of the stage solves (see :class:`StagedBasin`)."""
+
+    tolerance: float
+    max_iterations: int
+    edges: str
+    pad_factor: float
 
 
 @dataclass
@@ -188,7 +199,7 @@ class StagedBasin:
         plate: Plate,
         *,
         sea_level: float = 0.0,
-        water_density: float = 1030.0,
+        water_density: float = SEA_WATER_DENSITY,
         compaction: bool = True,
         tolerance: float = 1e-4,
         max_iterations: int = 300,
@@ -201,17 +212,10 @@ class StagedBasin:
         self.grid = initial_surface
         self.base = grid_values(initial_surface, initial_surface, "initial_surface")
         self.plate = plate
-        self.sea_level = _finite("sea_level", sea_level)
-        self.water_density = _finite("water_density", water_density)
-        if self.water_density < 0:
-            raise InputError(f"water_density must be >= 0 kg/m^3, got {water_density!r}")
+        self.sea_level = check_number("sea_level", sea_level, unit="m")
+        self.water_density = check_density("water_density", water_density)
         self.compaction = bool(compaction)
-        self.solve_options = {
-            "tolerance": tolerance,
-            "max_iterations": max_iterations,
-            "edges": edges,
-            "pad_factor": pad_factor,
-        }
+        self.solve_options = _SolveOptions(tolerance, max_iterations, edges, pad_factor)
         self.stages: list[Stage] = []
         self.grains: list[np.ndarray] = []
         self.deflection = np.zeros(self.base.shape)
@@ -225,24 +229,16 @@ class StagedBasin:
         phi0 = lith.surface_porosity
         return self.water_density * phi0 + lith.grain_density * (1.0 - phi0)
 
-    def _column(self, grains: Sequence[np.ndarray], stages: Sequence[Stage]):
+    def _column(
+        self, grains: Sequence[np.ndarray], stages: Sequence[Stage]
+    ) -> tuple[list[np.ndarray], list[np.ndarray]]:
         """Thickness and mass per area of each stage, youngest on top (lists, oldest first)."""
-        thick: list[np.ndarray] = [np.empty(0)] * len(grains)
-        mass: list[np.ndarray] = [np.empty(0)] * len(grains)
-        top = np.zeros(self.base.shape)
-        for index in range(len(grains) - 1, -1, -1):
-            lith = stages[index].lithology
-            s = grains[index]
-            if self.compaction:
-                base = compacted_base(top, s, lith)
-                h = base - top
-                # saturated pores: rho_w * pore thickness + rho_grain * grains
-                mass[index] = self.water_density * (h - s) + lith.grain_density * s
-                top = base
-            else:
-                h = s / (1.0 - lith.surface_porosity)
-                mass[index] = self._layer_density(lith) * h
-            thick[index] = h
+        liths = [stage.rock for stage in stages]
+        if self.compaction:
+            thick, mass, _ = saturated_column(grains[::-1], liths[::-1], self.water_density)
+            return thick[::-1], mass[::-1]
+        thick = [s / (1.0 - lith.surface_porosity) for s, lith in zip(grains, liths, strict=True)]
+        mass = [self._layer_density(lith) * h for h, lith in zip(thick, liths, strict=True)]
         return thick, mass
 
     def _grains_of(self, thickness: np.ndarray, lith: Lithology) -> np.ndarray:
@@ -297,14 +293,23 @@ class StagedBasin:
             result = solve(
                 load,
                 dataclasses.replace(plate, infill_density=self.water_density),
-                edges=options["edges"],
-                pad_factor=options["pad_factor"],
+                edges=options.edges,
+                pad_factor=options.pad_factor,
             )
             w = np.asarray(result["deflection"].values)
             fill = np.zeros_like(w)
             iterations = 1
         else:
-            result = solve_with_infill(load, plate, self.grid.copy(data=surface), infill, **options)
+            result = solve_with_infill(
+                load,
+                plate,
+                self.grid.copy(data=surface),
+                infill,
+                edges=options.edges,
+                pad_factor=options.pad_factor,
+                tolerance=options.tolerance,
+                max_iterations=options.max_iterations,
+            )
             w = np.asarray(result["deflection"].values)
             fill = np.asarray(result["fill_sediment"].values)
             iterations = int(result.attrs["iterations"])
@@ -323,7 +328,7 @@ class StagedBasin:
         top_m = mass[-1] if mass else np.zeros(self.base.shape)
         total_h = np.sum(thick, axis=0) if thick else np.zeros(self.base.shape)
         total_m = np.sum(mass, axis=0) if mass else np.zeros(self.base.shape)
-        fallback = self._layer_density(self.stages[-1].lithology) if self.stages else np.nan
+        fallback = self._layer_density(self.stages[-1].rock) if self.stages else np.nan
         with np.errstate(invalid="ignore", divide="ignore"):
             top_rho = np.where(top_h > 0, top_m / np.where(top_h > 0, top_h, 1.0), fallback)
             all_rho = np.where(total_h > 0, total_m / np.where(total_h > 0, total_h, 1.0), fallback)
@@ -358,7 +363,7 @@ class StagedBasin:
                 f"stage ages must decrease (oldest first, years before present): "
                 f"{stage.age!r} follows {self.stages[-1].age!r}"
             )
-        lith = stage.lithology
+        lith = stage.rock
         sea = self.sea_level if stage.sea_level is None else float(stage.sea_level)
         fill_density = self._mean_density(h, lith)
         if stage.base_level is None:
@@ -415,7 +420,7 @@ class StagedBasin:
         grains[-1] = self._grains_of(h + fill, lith)
         # settle: the solver carried the moat fill with one density and did not compact
         # the column under it; re-solve the remaining difference (new fill joins the stage)
-        tolerance = float(self.solve_options["tolerance"])
+        tolerance = float(self.solve_options.tolerance)
         for _ in range(_SETTLE_PASSES):
             with warnings.catch_warnings():
                 # the small remainder reaches the edges wherever the fill did; the stage
@@ -470,7 +475,7 @@ class StagedBasin:
     def _fill_mask(self) -> xr.DataArray | None:
         """Where moat-fill sediment may go: not in the FFT padding (its state is not kept
         from stage to stage), so not on the outer ring of cells, which the padding copies."""
-        if self.solve_options["edges"] != "infinite":
+        if self.solve_options.edges != "infinite":
             return None
         mask = np.zeros(self.base.shape, dtype=bool)
         mask[1:-1, 1:-1] = True
@@ -519,7 +524,7 @@ class StagedBasin:
             "sediment_density": ("kg m-3", "mean bulk density of the sediment column"),
         }
         source = {"deflection_increment": "increment"}
-        data = {
+        data: dict[str, tuple[Any, ...]] = {
             name: (dims, stack(source.get(name, name)), {"units": units, "long_name": long})
             for name, (units, long) in fields.items()
         }
@@ -545,16 +550,10 @@ class StagedBasin:
             "sea_level": self.sea_level,
             "water_density": self.water_density,
             "compaction": int(self.compaction),
-            "lithologies": ", ".join(s.lithology.name for s in self.stages),
+            "lithologies": ", ".join(s.rock.name for s in self.stages),
         }
         attrs.update({f"plate_{k}": v for k, v in self.plate.describe().items()})
         return xr.Dataset(data, coords=coords, attrs=attrs)
-
-
-def _finite(name: str, value: Any) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-        raise InputError(f"{name} must be a finite number, got {value!r}")
-    return float(value)
 
 
 def stage_loading(
@@ -563,7 +562,7 @@ def stage_loading(
     plate: Plate,
     *,
     sea_level: float = 0.0,
-    water_density: float = 1030.0,
+    water_density: float = SEA_WATER_DENSITY,
     compaction: bool = True,
     tolerance: float = 1e-4,
     max_iterations: int = 300,
@@ -613,10 +612,7 @@ def stage_loading(
     items = list(stages)
     if not items:
         raise InputError("stage_loading needs at least one Stage")
-    if isopachs not in ISOPACHS:
-        raise InputError(
-            f"isopachs must be one of {', '.join(map(repr, ISOPACHS))}, got {isopachs!r}"
-        )
+    check_choice("isopachs", isopachs, ISOPACHS)
     if isopachs == "present" and compaction:
         items = _deposited_stages(items)
     basin = StagedBasin(
@@ -652,303 +648,8 @@ def _deposited_stages(stages: list[Stage]) -> list[Stage]:
         if not np.all(np.isfinite(h)) or h.min() < 0:
             raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")
         top = np.zeros(h.shape) if burial is None else burial
-        grains = grain_thickness(top, top + h, stage.lithology)
-        deposited = compacted_base(np.zeros(h.shape), grains, stage.lithology)
+        grains = grain_thickness(top, top + h, stage.rock)
+        deposited = compacted_base(np.zeros(h.shape), grains, stage.rock)
         out.append(dataclasses.replace(stage, thickness=stage.thickness.copy(data=deposited)))
         burial = top + h
     return out[::-1]
-
-
-def backstrip(
-    basement_depth: xr.DataArray | None,
-    sediment_thickness: xr.DataArray | None,
-    water_depth: xr.DataArray | None,
-    plate: Plate,
-    *,
-    lithology: str | Lithology = "shale",
-    sediment_density: float | xr.DataArray | None = None,
-    sea_level_change: float = 0.0,
-    water_density: float = 1030.0,
-    max_mismatch: float = 1.0,
-    edges: str = "infinite",
-    pad_factor: float = 4.5,
-) -> xr.Dataset:
-    """Water-loaded tectonic subsidence with flexural compensation of the sediment.
-
-    Parameters
-    ----------
-    basement_depth : xarray.DataArray or None
-        Depth of the basement below the sea level of the time (m, positive down):
-        sediment thickness + water depth; for present-day grids, below present sea
-        level.
-    sediment_thickness : xarray.DataArray or None
-        Present (compacted) sediment thickness (m, >= 0).
-    water_depth : xarray.DataArray or None
-        Water depth (m, positive down; negative for land above sea level).
-        One of the three may be ``None``; it is then derived from
-        basement = sediment + water.
-    plate : Plate
-        te (a number, 0 for local isostasy, or a grid) and rho_m, g;
-        ``plate.infill_density`` is replaced by *water_density*.
-    lithology : str or Lithology, default "shale"
-        Porosity law giving the mean bulk density of the column from 0 to S.
-    sediment_density : float or xarray.DataArray, optional
-        Mean bulk density of the column (kg m^-3), instead of *lithology*.
-    sea_level_change : float, default 0
-        Sea level at the time of the water depth relative to present (m,
-        positive higher).
-    water_density : float, default 1030.0
-        kg m^-3.
-    max_mismatch : float, default 1.0
-        With all three grids: largest allowed |basement - (sediment + water)| (m).
-    edges, pad_factor
-        As in :func:`gridflex.solve`.
-
-    Returns
-    -------
-    xarray.Dataset
-        ``tectonic_subsidence`` (m, positive down, flexural), ``local_tectonic_subsidence``
-        (m, the Airy backstrip), ``sediment_rebound`` (m, upward rebound of the
-        basement when the sediment is removed), ``sediment_density`` (kg m^-3),
-        ``sediment_load`` (Pa, (rho_s - rho_w) g S), ``basement_depth``.
-
-    Raises
-    ------
-    InputError
-        Missing or inconsistent grids, bad densities.
-    """
-    given = {
-        "basement_depth": basement_depth,
-        "sediment_thickness": sediment_thickness,
-        "water_depth": water_depth,
-    }
-    missing = [name for name, value in given.items() if value is None]
-    if len(missing) > 1:
-        raise InputError(
-            f"backstrip needs at least two of basement_depth, sediment_thickness "
-            f"and water_depth; missing {', '.join(missing)}"
-        )
-    reference = next(value for value in given.values() if value is not None)
-    check_grid(reference, "backstrip grid")
-    arrays = {
-        name: grid_values(value, reference, name)
-        for name, value in given.items()
-        if value is not None
-    }
-    if "basement_depth" not in arrays:
-        arrays["basement_depth"] = arrays["sediment_thickness"] + arrays["water_depth"]
-    elif "sediment_thickness" not in arrays:
-        arrays["sediment_thickness"] = arrays["basement_depth"] - arrays["water_depth"]
-    elif "water_depth" not in arrays:
-        arrays["water_depth"] = arrays["basement_depth"] - arrays["sediment_thickness"]
-    else:
-        gap = np.abs(
-            arrays["basement_depth"] - arrays["sediment_thickness"] - arrays["water_depth"]
-        )
-        if float(gap.max()) > max_mismatch:
-            raise InputError(
-                f"basement_depth differs from sediment_thickness + water_depth by up to "
-                f"{float(gap.max()):.4g} m (max_mismatch {max_mismatch!r} m); fix the grids or "
-                "give only two of them"
-            )
-    s = arrays["sediment_thickness"]
-    if s.min() < 0:
-        raise InputError(f"sediment_thickness must be >= 0 m, minimum is {s.min()!r}")
-    rho_w = _finite("water_density", water_density)
-    rho_m, g = plate.mantle_density, plate.gravity
-    if sediment_density is None:
-        lith = as_lithology(lithology)
-        rho_s = bulk_density(np.zeros_like(s), s, lith, rho_w)
-        how = f"porosity law of {lith.name}"
-    else:
-        rho_s = grid_values(sediment_density, reference, "sediment_density")
-        how = "given"
-    if np.any(rho_s >= rho_m) or np.any(rho_s < rho_w):
-        raise InputError(
-            f"sediment_density must lie in [water_density={rho_w}, mantle_density={rho_m}) kg/m^3"
-        )
-    dsl = _finite("sea_level_change", sea_level_change)
-    load = reference.copy(data=(rho_s - rho_w) * g * s)
-    load.name = "load"
-    water_plate = dataclasses.replace(plate, infill_density=rho_w)
-    result = solve(load, water_plate, edges=edges, pad_factor=pad_factor)
-    rebound = np.asarray(result["deflection"].values)
-    sea_term = dsl * rho_m / (rho_m - rho_w)
-    basement = arrays["basement_depth"]
-    tectonic = basement - rebound - sea_term
-    local = s * (rho_m - rho_s) / (rho_m - rho_w) + arrays["water_depth"] - sea_term
-    dims = ("y", "x")
-    coords = {"y": reference["y"].variable, "x": reference["x"].variable}
-    attrs = dict(result.attrs)
-    attrs.update(
-        {
-            "title": "flexural backstrip (water-loaded tectonic subsidence)",
-            "sediment_density_from": how,
-            "sea_level_change": dsl,
-            "water_density": rho_w,
-            "sign_convention": "depths and subsidence positive downward",
-        }
-    )
-    return xr.Dataset(
-        {
-            "tectonic_subsidence": (
-                dims,
-                tectonic,
-                {
-                    "units": "m",
-                    "long_name": "water-loaded tectonic subsidence, flexural (positive down)",
-                },
-            ),
-            "local_tectonic_subsidence": (
-                dims,
-                local,
-                {
-                    "units": "m",
-                    "long_name": "water-loaded tectonic subsidence, local Airy (positive down)",
-                },
-            ),
-            "sediment_rebound": (
-                dims,
-                rebound,
-                {
-                    "units": "m",
-                    "long_name": "basement rebound when the sediment is removed (positive up)",
-                },
-            ),
-            "sediment_density": (
-                dims,
-                np.broadcast_to(rho_s, s.shape).copy(),
-                {"units": "kg m-3", "long_name": "mean bulk density of the sediment column"},
-            ),
-            "sediment_load": (
-                dims,
-                load.values,
-                {"units": "Pa", "long_name": "sediment load relative to water (positive downward)"},
-            ),
-            "basement_depth": (
-                dims,
-                basement,
-                {
-                    "units": "m",
-                    "long_name": "present basement depth below sea level (positive down)",
-                },
-            ),
-        },
-        coords=coords,
-        attrs=attrs,
-    )
-
-
-def backstrip_layers(
-    layers: Sequence[tuple[xr.DataArray, str | Lithology]],
-    water_depths: Sequence[float | xr.DataArray],
-    plate: Plate,
-    *,
-    sea_level_changes: Sequence[float] | None = None,
-    ages: Sequence[float] | None = None,
-    water_density: float = 1030.0,
-    edges: str = "infinite",
-    pad_factor: float = 4.5,
-) -> xr.Dataset:
-    """Backstrip a layered column step by step: remove the top layer, decompact the rest.
-
-    Step j removes the j youngest layers; the remaining ones are decompacted to the
-    surface (grains conserved, :mod:`gridflex.basin.compaction`) and the column is
-    backstripped with :func:`backstrip` using the water depth and sea level of that
-    time (Steckler & Watts 1978; Watts, Karner & Steckler 1982).
-
-    Parameters
-    ----------
-    layers : sequence of (thickness, lithology)
-        Present (compacted) thickness grids (m) with their lithology, youngest (top)
-        first.
-    water_depths : sequence of float or xarray.DataArray
-        Water depth (m, positive down) at the end of the deposition of each layer,
-        same order: ``water_depths[0]`` is the present water depth.
-    plate : Plate
-        As in :func:`backstrip`.
-    sea_level_changes : sequence of float, optional
-        Sea level at those times relative to present (m, positive higher); 0 by default.
-    ages : sequence of float, optional
-        Ages of those times (years before present), written as a coordinate.
-    water_density, edges, pad_factor
-        As in :func:`backstrip`.
-
-    Returns
-    -------
-    xarray.Dataset
-        On dims ``("step", "y", "x")``: ``tectonic_subsidence``,
-        ``local_tectonic_subsidence``, ``sediment_rebound`` (m), ``sediment_thickness``
-        (decompacted, m), ``sediment_density`` (kg m^-3), ``basement_depth`` (m below
-        the sea level of the time).
-
-    Raises
-    ------
-    InputError
-        Empty or mismatched sequences, bad grids.
-    """
-    items = list(layers)
-    if not items:
-        raise InputError("backstrip_layers needs at least one (thickness, lithology) layer")
-    count = len(items)
-    depths = list(water_depths)
-    levels = [0.0] * count if sea_level_changes is None else list(sea_level_changes)
-    for name, values in (("water_depths", depths), ("sea_level_changes", levels)):
-        if len(values) != count:
-            raise InputError(f"{name} must have one entry per layer ({count}), got {len(values)}")
-    if ages is not None and len(ages) != count:
-        raise InputError(f"ages must have one entry per layer ({count}), got {len(ages)}")
-    reference = items[0][0]
-    check_grid(reference, "layer 0 thickness")
-    thickness = []
-    liths = []
-    for index, (grid, lith) in enumerate(items):
-        h = grid_values(grid, reference, f"layer {index} thickness")
-        if h.min() < 0:
-            raise InputError(f"layer {index} thickness must be >= 0 m, minimum is {h.min()!r}")
-        thickness.append(h)
-        liths.append(as_lithology(lith))
-    # grains of each layer from its present burial
-    grains, top = [], np.zeros(reference.shape)
-    for h, lith in zip(thickness, liths, strict=True):
-        grains.append(grain_thickness(top, top + h, lith))
-        top = top + h
-    results = []
-    for step in range(count):
-        top = np.zeros(reference.shape)
-        mass = np.zeros(reference.shape)
-        for s, lith in zip(grains[step:], liths[step:], strict=True):
-            base = compacted_base(top, s, lith)
-            mass += water_density * (base - top - s) + lith.grain_density * s
-            top = base
-        total = top
-        fallback = liths[step].grain_density  # no sediment: no load, any valid density
-        with np.errstate(invalid="ignore", divide="ignore"):
-            density = np.where(total > 0, mass / np.where(total > 0, total, 1.0), fallback)
-        density = np.clip(density, water_density, None)
-        water = grid_values(depths[step], reference, f"water_depths[{step}]")
-        out = backstrip(
-            None,
-            reference.copy(data=total),
-            reference.copy(data=water),
-            plate,
-            sediment_density=reference.copy(data=density),
-            sea_level_change=levels[step],
-            water_density=water_density,
-            edges=edges,
-            pad_factor=pad_factor,
-        )
-        out["sediment_thickness"] = (
-            ("y", "x"),
-            total,
-            {"units": "m", "long_name": "decompacted sediment thickness"},
-        )
-        results.append(out.drop_vars("sediment_load"))
-    combined = xr.concat(results, dim="step", combine_attrs="override")
-    combined = combined.assign_coords(step=np.arange(count))
-    if ages is not None:
-        combined = combined.assign_coords(
-            age=("step", np.asarray(ages, dtype=float), {"units": "years before present"})
-        )
-    combined.attrs["lithologies"] = ", ".join(lith.name for lith in liths)
-    return combined

@@ -332,7 +332,8 @@ class PlateOperator:
     @property
     def shape(self) -> tuple[int, int]:
         """(ny, nx) of the node grid."""
-        return self.rigidity.shape  # type: ignore[return-value]
+        ny, nx = self.rigidity.shape
+        return ny, nx
 
     # -- matrix-free application ------------------------------------------------------
 

@@ -235,10 +235,11 @@ class BlendPreconditioner:
         """
         rigidity = operator.rigidity
         shape = operator.shape
-        fft_shape = tuple(
-            n if edge == "periodic" else scipy.fft.next_fast_len(n, real=True)
+        fft_y, fft_x = (
+            n if edge == "periodic" else int(scipy.fft.next_fast_len(n, real=True))
             for n, edge in zip(shape, operator.edges, strict=True)
         )
+        fft_shape = (fft_y, fft_x)
         spacing, stiffness = (operator.dy, operator.dx), operator.stiffness
         plate = rigidity > 0
         all_plate = bool(plate.all())
