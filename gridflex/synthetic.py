@@ -11,6 +11,7 @@ import numpy as np
 import xarray as xr
 
 from gridflex.errors import InputError
+from gridflex.validation import check_number
 
 __all__ = [
     "ISLAND_CHAIN",
@@ -43,8 +44,7 @@ def empty_grid(rows: int, columns: int, spacing: float) -> xr.DataArray:
     """
     if rows < 4 or columns < 4:
         raise InputError(f"grid must have at least 4 x 4 cells, got {rows} x {columns}")
-    if not spacing > 0:
-        raise InputError(f"grid spacing must be > 0 m, got {spacing!r}")
+    check_number("grid spacing", spacing, unit="m", minimum=0.0, strict=True)
     y = (np.arange(rows) - (rows - 1) / 2.0) * spacing
     x = (np.arange(columns) - (columns - 1) / 2.0) * spacing
     grid = xr.DataArray(np.zeros((rows, columns)), dims=("y", "x"), coords={"y": y, "x": x})

@@ -15,6 +15,7 @@ import xarray as xr
 
 from gridflex.errors import InputError
 from gridflex.grid import check_grid, check_same_grid
+from gridflex.validation import check_number
 
 __all__ = ["break_mask", "broken_te", "margin_te"]
 
@@ -76,8 +77,7 @@ def margin_te(
     """
     check_grid(like, "margin grid")
     for name, value in (("te_left", te_left), ("te_right", te_right), ("width", width)):
-        if not np.isfinite(value) or value < 0:
-            raise InputError(f"margin {name} must be a finite number >= 0 (m), got {value!r}")
+        check_number(f"margin {name}", value, unit="m", minimum=0.0)
     points = _points(line, "margin line")
     (x0, y0), (x1, y1) = points[0], points[1]
     length = float(np.hypot(x1 - x0, y1 - y0))
@@ -132,8 +132,7 @@ def break_mask(
     [1, 1, 1, 1, 1]
     """
     spec = check_grid(like, "break grid")
-    if not np.isfinite(width) or width < 0:
-        raise InputError(f"break width must be a finite number >= 0 (m), got {width!r}")
+    check_number("break width", width, unit="m", minimum=0.0)
     xs, ys = like["x"].values.astype(np.float64), like["y"].values.astype(np.float64)
     step_x, step_y = xs[1] - xs[0], ys[1] - ys[0]
     mask = np.zeros(spec.shape, dtype=bool)

@@ -37,6 +37,7 @@ from gridflex.solvers.rigidity_features import (
     sharp_band,
 )
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
+from gridflex.validation import check_choice, check_integer, check_number
 
 __all__ = [
     "AXIS_EDGES",
@@ -154,14 +155,12 @@ def _check_arguments(
     if isinstance(edges, tuple):
         if len(edges) != 2 or any(e not in AXIS_EDGES for e in edges):
             raise InputError(f"an edges pair must hold two of {AXIS_EDGES!r}; got {edges!r}")
-    elif edges not in EDGES:
-        raise InputError(f"edges must be one of {', '.join(map(repr, EDGES))}; got {edges!r}")
-    if not (0.0 < tolerance < 1.0):
+    else:
+        check_choice("edges", edges, EDGES)
+    if not 0.0 < check_number("tolerance", tolerance) < 1.0:
         raise InputError(f"tolerance must lie in (0, 1), got {tolerance!r}")
-    if int(max_iterations) < 1:
-        raise InputError(f"max_iterations must be >= 1, got {max_iterations!r}")
-    if not pad_factor >= 0:
-        raise InputError(f"pad_factor must be >= 0, got {pad_factor!r}")
+    check_integer("max_iterations", max_iterations, minimum=1)
+    check_number("pad_factor", pad_factor, minimum=0.0)
 
 
 def _solve_grid(

@@ -22,6 +22,7 @@ import scipy.fft
 from gridflex.errors import InputError
 from gridflex.grid import GridSpec, padded_shape, wavenumbers_squared
 from gridflex.memory import check_memory
+from gridflex.validation import check_number
 
 __all__ = [
     "SpectralProblem",
@@ -205,10 +206,8 @@ class SpectralProblem:
             raise InputError(
                 f"restoring stiffness (rho_m - rho_infill) g must be > 0, got {stiffness!r}"
             )
-        if not rigidity >= 0:
-            raise InputError(f"rigidity must be >= 0, got {rigidity!r}")
-        if not pad_factor >= 0:
-            raise InputError(f"pad_factor must be >= 0, got {pad_factor!r}")
+        check_number("rigidity", rigidity, unit="N m", minimum=0.0)
+        check_number("pad_factor", pad_factor, minimum=0.0)
         _check_buckling(rigidity, stiffness, force_x, force_y)
         if periodic:
             shape = spec.shape
@@ -314,8 +313,7 @@ class SpectralProblem:
         InputError
             Negative rigidity, or compression at or beyond the new buckling limit.
         """
-        if not rigidity >= 0:
-            raise InputError(f"rigidity must be >= 0, got {rigidity!r}")
+        check_number("rigidity", rigidity, unit="N m", minimum=0.0)
         _check_buckling(rigidity, self.stiffness, self.force_x, self.force_y)
         return replace(self, rigidity=float(rigidity))
 
