@@ -15,6 +15,7 @@ import scipy.fft
 import xarray as xr
 
 from gridflex.errors import InputError
+from gridflex.validation import check_number
 
 __all__ = [
     "GridSpec",
@@ -138,8 +139,9 @@ def check_same_grid(grid: xr.DataArray, reference: xr.DataArray, label: str) -> 
             raise InputError(f"{label} is not on the load grid: coordinate {name!r} differs")
 
 
-def grid_values(value: object, reference: xr.DataArray, name: str) -> np.ndarray:
-    """A number or a grid on *reference*'s grid, as a float array of its shape.
+def grid_values(value: object, reference: xr.DataArray, name: str, unit: str = "m") -> np.ndarray:
+    """A number or a grid on *reference*'s grid, as a float array of its shape; *unit*
+    is the unit of a number, for the message.
 
     Raises
     ------
@@ -150,12 +152,7 @@ def grid_values(value: object, reference: xr.DataArray, name: str) -> np.ndarray
         check_grid(value, name)
         check_same_grid(value, reference, name)
         return np.asarray(value.values, dtype=np.float64)
-    try:
-        number = float(value)  # type: ignore[arg-type]
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number (m) or a grid, got {value!r}") from exc
-    if not math.isfinite(number):
-        raise InputError(f"{name} must be finite, got {value!r}")
+    number = check_number(name, value, unit=f"{unit}; or a grid")
     return np.full(reference.shape, number)
 
 

@@ -85,7 +85,8 @@ def test_bad_input():
         regional_surface(z, -1.0)
     with pytest.raises(InputError, match="rock_density"):
         load_from_elevation(z, -5.0, -4000.0)
-    with pytest.raises(InputError, match="regional must be a number"):
+    regional = r"regional must be a finite number \(m; or a grid\), got 'deep'"
+    with pytest.raises(InputError, match=regional):
         load_from_elevation(z, 2800.0, "deep")
     with pytest.raises(InputError, match="thickness must be >= 0"):
         load_from_layers(0.0, [(z, 900.0)])

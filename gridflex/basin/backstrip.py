@@ -118,7 +118,7 @@ def _column_density(
         rho_s = bulk_density(np.zeros_like(thickness), thickness, lith, water_density)
         how = f"porosity law of {lith.name}"
     else:
-        rho_s = grid_values(sediment_density, reference, "sediment_density")
+        rho_s = grid_values(sediment_density, reference, "sediment_density", unit="kg/m^3")
         how = "given"
     if np.any(rho_s >= mantle_density) or np.any(rho_s < water_density):
         raise InputError(

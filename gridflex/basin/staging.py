@@ -68,6 +68,7 @@ from gridflex.engine import solve
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import check_grid, grid_values
 from gridflex.infill import Infill, solve_with_infill
+from gridflex.io.provenance import provenance_attrs
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
 from gridflex.progress import Progress
@@ -544,16 +545,14 @@ class StagedBasin:
             "x": self.grid["x"].variable,
         }
         attrs: dict[str, Any] = {
-            "Conventions": "CF-1.8",
-            "title": "staged basin loading",
             "sign_convention": "deflection positive downward; elevations positive up",
             "sea_level": self.sea_level,
             "water_density": self.water_density,
             "compaction": int(self.compaction),
             "lithologies": ", ".join(s.rock.name for s in self.stages),
         }
-        attrs.update({f"plate_{k}": v for k, v in self.plate.describe().items()})
-        return xr.Dataset(data, coords=coords, attrs=attrs)
+        stamp = provenance_attrs(self.plate.describe(), attrs, "staged basin loading")
+        return xr.Dataset(data, coords=coords, attrs=stamp)
 
 
 def stage_loading(
