@@ -254,9 +254,7 @@ def test_bad_inputs_are_rejected_with_clear_messages():
     plate = Plate(te=20e3, infill_density=0.0)
     with pytest.raises(InputError, match="model must be one of"):
         viscous_response(history, plate, model="elastic")
-    with pytest.raises(
-        InputError, match=r"mantle_viscosity must be a finite number > 0 \(Pa s\)"
-    ):
+    with pytest.raises(InputError, match=r"mantle_viscosity must be a finite number > 0 \(Pa s\)"):
         viscous_response(history, plate, mantle_viscosity=0.0)
     with pytest.raises(InputError, match=r"relaxation_time must be a finite number > 0 \(years\)"):
         viscous_response(history, plate, model="relaxing", relaxation_time=-5.0)
