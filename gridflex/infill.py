@@ -584,6 +584,7 @@ class _Options:
         max_iterations: Any,
         acceleration: Any,
     ) -> _Options:
+        """The options as given to :func:`solve_with_infill`, checked and converted."""
         return cls(
             check_choice("edges", edges, SPECTRAL_EDGES),
             check_inplane_force("inplane_force_x", force_x),

@@ -299,6 +299,7 @@ def _check_ice(ice_thickness: Any, bed: Any) -> tuple[np.ndarray, xr.DataArray, 
 
 
 def _check_plate(plate: Any) -> None:
+    """A Plate with no infill: the ocean over depressed bedrock is added explicitly."""
     if not isinstance(plate, Plate):
         raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
     if plate.infill_density != 0.0:
