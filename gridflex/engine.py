@@ -13,6 +13,7 @@ import xarray as xr
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import GridSpec, check_grid, check_same_grid
 from gridflex.io.provenance import provenance_attrs
+from gridflex.loads import load_attrs
 from gridflex.plate import Plate
 from gridflex.progress import Progress
 from gridflex.solvers.finite_difference import (
@@ -93,7 +94,7 @@ def result_dataset(
         Solver-specific attributes (method, edges, residuals ...).
     """
     load_var = load.copy(deep=False)
-    load_var.attrs = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
+    load_var.attrs = load_attrs()
     data_vars: dict[str, Any] = {
         "deflection": (("y", "x"), deflection, deflection_attrs()),
         "load": load_var.variable,

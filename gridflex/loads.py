@@ -21,6 +21,7 @@ from gridflex.grid import check_grid, check_same_grid, grid_values
 from gridflex.validation import check_density, check_number
 
 __all__ = [
+    "load_attrs",
     "load_from_elevation",
     "load_from_layers",
     "pressure_from_height",
@@ -31,11 +32,11 @@ __all__ = [
 Density = float | xr.DataArray
 LayerSpec = tuple[xr.DataArray, Density]
 Surface = float | xr.DataArray
-_LOAD_ATTRS = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
 
 
-def _check_gravity(gravity: object) -> float:
-    return check_number("gravity", gravity, unit="m/s^2", minimum=0.0, strict=True)
+def load_attrs() -> dict[str, str]:
+    """CF-style attributes of a ``load`` variable (Pa, positive downward)."""
+    return {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
 
 
 def _layer_items(
@@ -95,9 +96,10 @@ def pressure_from_height(
     if not isinstance(density, xr.DataArray):
         # any sign: a density contrast with what the layer replaces may be negative
         density = check_number("density", density, unit="kg/m^3")
-    stress = height * density * _check_gravity(gravity)
+    gravity = check_number("gravity", gravity, unit="m/s^2", minimum=0.0, strict=True)
+    stress = height * density * gravity
     stress.name = "load"
-    stress.attrs = dict(_LOAD_ATTRS)
+    stress.attrs = load_attrs()
     return stress
 
 
@@ -140,7 +142,7 @@ def pressure_from_layers(
         total = stress if total is None else total + stress
     assert total is not None
     total.name = "load"
-    total.attrs = dict(_LOAD_ATTRS)
+    total.attrs = load_attrs()
     return total
 
 
@@ -277,7 +279,7 @@ def load_from_layers(
     """
     items = _layer_items(layers, "load_from_layers", "thickness")
     rho_w = check_density("water_density", water_density)
-    gravity = _check_gravity(gravity)
+    gravity = check_number("gravity", gravity, unit="m/s^2", minimum=0.0, strict=True)
     sea_level = check_number("sea_level", sea_level, unit="m")
     first = items[0][0] if isinstance(items[0], tuple) and len(items[0]) == 2 else None
     if not isinstance(first, xr.DataArray):
@@ -307,7 +309,7 @@ def load_from_layers(
         attrs["load_density"] = densities.pop()
     return xr.Dataset(
         {
-            "load": (("y", "x"), stress, _LOAD_ATTRS),
+            "load": (("y", "x"), stress, load_attrs()),
             "initial_surface": (
                 ("y", "x"),
                 top,

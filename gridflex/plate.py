@@ -109,19 +109,16 @@ class Plate:
             ("youngs_modulus", "Pa"),
             ("gravity", "m/s^2"),
         ):
-            set_(
-                self,
-                name,
-                check_number(name, getattr(self, name), unit=unit, minimum=0.0, strict=True),
-            )
+            value = getattr(self, name)
+            set_(self, name, check_number(name, value, unit=unit, minimum=0.0, strict=True))
         set_(self, "crust_density", check_density("crust_density", self.crust_density))
         # not zero: the length scales divide by (rho_m - rho_infill) g, which must be > 0
         mantle = check_density("mantle_density", self.mantle_density, allow_zero=False)
         set_(self, "mantle_density", mantle)
-        nu = self.poisson_ratio
-        if not isinstance(nu, (int, float, np.floating)) or not (0.0 < float(nu) < 0.5):
-            raise InputError(f"poisson_ratio must lie in (0, 0.5), got {nu!r}")
-        set_(self, "poisson_ratio", float(nu))
+        nu = check_number("poisson_ratio", self.poisson_ratio)
+        if not 0.0 < nu < 0.5:
+            raise InputError(f"poisson_ratio must lie in (0, 0.5), got {self.poisson_ratio!r}")
+        set_(self, "poisson_ratio", nu)
         rho_f = check_density("infill_density", self.infill_density)
         if rho_f >= self.mantle_density:
             raise InputError(

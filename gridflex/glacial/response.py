@@ -32,6 +32,7 @@ from gridflex.engine import SPECTRAL_EDGES, check_edge_load, deflection_attrs
 from gridflex.errors import GridflexWarning, InputError
 from gridflex.grid import GridSpec, check_grid, check_same_grid
 from gridflex.io.provenance import provenance_attrs
+from gridflex.loads import load_attrs
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
 from gridflex.progress import Progress
@@ -480,7 +481,7 @@ def viscous_response(
     time_coord.attrs = {**time_coord.attrs, "units": "years", "long_name": "time"}
     coords = {"time": time_coord, "y": first["y"].variable, "x": first["x"].variable}
     load_var = load_history.variable.copy(deep=False)
-    load_var.attrs = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
+    load_var.attrs = load_attrs()
     data_vars = {
         "deflection": (("time", "y", "x"), deflection, deflection_attrs()),
         "uplift_rate": (("time", "y", "x"), uplift, uplift_rate_attrs()),
