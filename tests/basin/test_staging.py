@@ -1,35 +1,14 @@
-"""Tests of staged basin loading with compaction and of flexural backstripping."""
+"""Tests of staged basin loading with compaction."""
 
 import numpy as np
 import pytest
-import xarray as xr
 from numpy.testing import assert_allclose
 
 from gridflex import Infill, Plate, load_from_layers, solve, solve_with_infill
 from gridflex.basin.compaction import Lithology, bulk_density, grain_thickness
-from gridflex.basin.staging import Stage, StagedBasin, backstrip, stage_loading
+from gridflex.basin.staging import Stage, StagedBasin, stage_loading
 from gridflex.errors import InputError
-
-N = 48
-DX = 6e3
-TOL = 1e-7  # m, infill fixed-point tolerance used in these tests
-
-
-def grid(values):
-    coord = np.arange(N) * DX
-    return xr.DataArray(values, dims=("y", "x"), coords={"y": coord, "x": coord})
-
-
-def lens(peak, radius=45e3):
-    """A smooth invented sediment lens (m) in the middle of the grid."""
-    coord = np.arange(N) * DX
-    y, x = np.meshgrid(coord, coord, indexing="ij")
-    r2 = ((x - coord.mean()) ** 2 + (y - coord.mean()) ** 2) / radius**2
-    return grid(peak * np.exp(-r2) * (r2 < 9))
-
-
-def flat(value):
-    return grid(np.full((N, N), float(value)))
+from tests.basin.grids import DX, TOL, N, flat, grid, lens
 
 
 def test_staged_loading_without_compaction_equals_one_loading_with_the_total():
@@ -169,59 +148,8 @@ def test_moat_fills_with_sediment_to_base_level_locally():
     assert_allclose(out["stage_thickness"][0].values, 100.0 + w, rtol=1e-6)
 
 
-def test_local_backstrip_is_the_steckler_watts_formula():
-    # Y = S (rho_m - rho_s)/(rho_m - rho_w) - dSL rho_w/(rho_m - rho_w) + (Wd - dSL)
-    # (Steckler & Watts 1978, Earth Planet. Sci. Lett. 41, 1-13, Airy backstrip; written
-    # out here from memory of the standard 1-D form); te = 0; rtol 1e-12
-    rng = np.random.default_rng(3)
-    s = grid(rng.uniform(0.0, 6000.0, (N, N)))
-    wd = grid(rng.uniform(0.0, 2000.0, (N, N)))
-    rho_m, rho_w, dsl = 3300.0, 1030.0, 40.0
-    out = backstrip(
-        None, s, wd, Plate(te=0.0), sediment_density=2350.0, sea_level_change=dsl, edges="periodic"
-    )
-    expected = s * (rho_m - 2350.0) / (rho_m - rho_w) - dsl * rho_w / (rho_m - rho_w) + (wd - dsl)
-    assert_allclose(out["tectonic_subsidence"], expected, rtol=1e-12)
-    assert_allclose(out["local_tectonic_subsidence"], expected, rtol=1e-12)
-    # with the porosity law: the column's mean bulk density (Sclater & Christie 1980)
-    comp = backstrip(s + wd, s, wd, Plate(te=0.0), lithology="shale", edges="periodic")
-    rho_s = bulk_density(0.0, s.values, "shale")
-    assert_allclose(
-        comp["tectonic_subsidence"], s * (rho_m - rho_s) / (rho_m - rho_w) + wd, rtol=1e-12
-    )
-
-
-def test_flexural_backstrip_spreads_the_rebound_and_conserves_its_volume():
-    # flexural compensation of the removed sediment (Watts, Karner & Steckler 1982):
-    # the rebound is smoother than the local one but its volume is the same (force
-    # balance of the k = 0 term, PHYSICS.md 2.3, exact on a periodic domain); rtol 1e-9
-    s = lens(3000.0, 30e3)
-    wd = flat(200.0)
-    local = backstrip(None, s, wd, Plate(te=0.0), sediment_density=2400.0)
-    flex = backstrip(None, s, wd, Plate(te=15e3), sediment_density=2400.0, edges="periodic")
-    rebound_local = (s * (2400.0 - 1030.0) / (3300.0 - 1030.0)).values
-    assert_allclose(local["sediment_rebound"], rebound_local, rtol=1e-12)
-    # te -> 0: a 200 m plate (flexural parameter ~1.9 km < one 6 km cell) is local to
-    # 0.5 % of the peak (Steckler & Watts 1978 limit; the (k alpha)^4 term is small)
-    thin = backstrip(None, s, wd, Plate(te=200.0), sediment_density=2400.0)
-    assert_allclose(
-        thin["tectonic_subsidence"],
-        local["tectonic_subsidence"],
-        atol=5e-3 * float(local["tectonic_subsidence"].max()),
-    )
-    assert_allclose(flex["sediment_rebound"].sum(), rebound_local.sum(), rtol=1e-9)
-    centre = (N // 2, N // 2)
-    assert float(flex["sediment_rebound"][centre]) < 0.8 * rebound_local[centre]
-    assert float(flex["tectonic_subsidence"][centre]) > float(local["tectonic_subsidence"][centre])
-    assert_allclose(flex["local_tectonic_subsidence"], local["tectonic_subsidence"], rtol=1e-12)
-
-
 def test_bad_inputs_raise_input_error():
     s = lens(100.0)
-    with pytest.raises(InputError, match="differs from sediment_thickness"):
-        backstrip(flat(1000.0), s, flat(200.0), Plate(te=0.0))
-    with pytest.raises(InputError, match="at least two of"):
-        backstrip(None, s, None, Plate(te=0.0))
     with pytest.raises(InputError, match="ages must decrease"):
         stage_loading([Stage(s, 1e6), Stage(s, 2e6)], flat(-1000.0), Plate(te=0.0))
     with pytest.raises(InputError, match="at least one Stage"):
@@ -234,13 +162,11 @@ def test_bad_inputs_raise_input_error():
     holes[3, 3] = np.nan
     with pytest.raises(InputError, match="initial_surface contains 1 NaN"):
         StagedBasin(holes, Plate(te=0.0))
-    with pytest.raises(InputError, match="water_depth contains 1 NaN"):
-        backstrip(None, s, holes, Plate(te=0.0))
     with pytest.raises(InputError, match="thickness contains 1 NaN"):
         stage_loading([Stage(holes, 1e6)], flat(-1000.0), Plate(te=0.0))
 
 
-def test_te_grid_stage_and_backstrip_match_the_constant_te_solve():
+def test_te_grid_stage_matches_the_constant_te_solve():
     # a uniform te grid must give the constant-te answer (same plate equation, PHYSICS.md
     # 1.1); water infill of a fully submerged load is linear; atol 0.5 % of the peak: the
     # finite-difference discretisation error at ~6 cells per flexural parameter (measured
@@ -261,49 +187,6 @@ def test_te_grid_stage_and_backstrip_match_the_constant_te_solve():
     )
     peak = float(const["deflection"].max())
     assert_allclose(grid_te["deflection"], const["deflection"], atol=5e-3 * peak)
-    s = lens(3000.0, 30e3)
-    flex = backstrip(None, s, flat(200.0), Plate(te=flat(15e3)), sediment_density=2400.0)
-    ref = backstrip(None, s, flat(200.0), Plate(te=15e3), sediment_density=2400.0)
-    peak = float(ref["sediment_rebound"].max())
-    assert_allclose(flex["sediment_rebound"], ref["sediment_rebound"], atol=5e-3 * peak)
-
-
-def test_layered_backstrip_decompacts_the_remaining_layers():
-    # step j removes the j youngest layers and decompacts the rest to the surface, grains
-    # conserved (Sclater & Christie 1980); each step is the Airy backstrip with the
-    # decompacted thickness and mean density (Steckler & Watts 1978); te = 0; rtol 1e-9
-    from gridflex.basin.compaction import compacted_base
-    from gridflex.basin.staging import backstrip_layers
-
-    top_h, low_h = 1200.0, 1800.0
-    layers = [(flat(top_h), "sandstone"), (flat(low_h), "shale")]
-    out = backstrip_layers(
-        layers,
-        [100.0, 400.0],
-        Plate(te=0.0),
-        sea_level_changes=[0.0, 30.0],
-        ages=[0.0, 5e6],
-        edges="periodic",
-    )
-    rho_m, rho_w = 3300.0, 1030.0
-    # step 0: the present column
-    mass0 = (
-        bulk_density(0.0, top_h, "sandstone") * top_h
-        + bulk_density(top_h, top_h + low_h, "shale") * low_h
-    )
-    s0 = top_h + low_h
-    y0 = s0 * (rho_m - mass0 / s0) / (rho_m - rho_w) + 100.0
-    # step 1: the shale alone, brought back to the surface
-    base = compacted_base(0.0, grain_thickness(top_h, top_h + low_h, "shale"), "shale")
-    rho1 = bulk_density(0.0, base, "shale")
-    y1 = base * (rho_m - rho1) / (rho_m - rho_w) + 400.0 - 30.0 * rho_m / (rho_m - rho_w)
-    assert base > low_h  # decompacted
-    assert_allclose(out["sediment_thickness"][1].values, base, rtol=1e-9)
-    assert_allclose(out["tectonic_subsidence"][0].values, y0, rtol=1e-9)
-    assert_allclose(out["tectonic_subsidence"][1].values, y1, rtol=1e-9)
-    assert_allclose(out["age"].values, [0.0, 5e6])
-    with pytest.raises(InputError, match="one entry per layer"):
-        backstrip_layers(layers, [100.0], Plate(te=0.0))
 
 
 def test_sea_level_rise_of_a_stage_loads_the_submerged_plate():
