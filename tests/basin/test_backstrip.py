@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from gridflex import Plate, solve
+from gridflex import Plate
 from gridflex.basin.backstrip import backstrip, backstrip_layers
 from gridflex.basin.compaction import bulk_density, compacted_base, grain_thickness
 from gridflex.errors import InputError
@@ -112,12 +112,6 @@ def test_te_grid_backstrip_matches_the_constant_te_solve():
     # 1.1); atol 0.5 % of the peak: the finite-difference discretisation error at ~6 cells
     # per flexural parameter (common practice)
     s = lens(3000.0, 30e3)
-    try:
-        solve(s * 1.0, Plate(te=flat(10e3)))
-    except InputError as exc:
-        if "not available" in str(exc):
-            pytest.skip("the variable-te solver is not on this branch yet")
-        raise
     flex = backstrip(None, s, flat(200.0), Plate(te=flat(15e3)), sediment_density=2400.0)
     ref = backstrip(None, s, flat(200.0), Plate(te=15e3), sediment_density=2400.0)
     peak = float(ref["sediment_rebound"].max())

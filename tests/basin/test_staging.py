@@ -173,12 +173,6 @@ def test_te_grid_stage_matches_the_constant_te_solve():
     # 0.22 % with the variable-te solver of the finite-difference branch; common practice)
     rock = Lithology("rock", 0.0, 1000.0, 2500.0)
     thickness = lens(300.0)
-    try:
-        solve(thickness * 1.0, Plate(te=flat(10e3)))
-    except InputError as exc:
-        if "not available" in str(exc):
-            pytest.skip("the variable-te solver is not on this branch yet")
-        raise
     grid_te = stage_loading(
         [Stage(thickness, 1e6, rock, te=flat(10e3))], flat(-3000.0), Plate(te=10e3), tolerance=TOL
     )
