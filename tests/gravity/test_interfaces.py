@@ -178,6 +178,8 @@ def test_errors_and_warning():
         interface_gravity(h, 1000.0, math.nan)
     with pytest.raises(InputError, match="edges must be"):
         interface_gravity(h, 1000.0, 5000.0, edges="mirror")
+    with pytest.raises(InputError, match=r"pad_factor must be a finite number >= 0, got -1\.0"):
+        interface_gravity(h, 1000.0, 5000.0, pad_factor=-1.0)
     with pytest.raises(InputError, match="relief must have dims"):
         interface_gravity(h.T, 1000.0, 5000.0)
     # a relief reaching close to the plane with 2 terms is not converged: warned
