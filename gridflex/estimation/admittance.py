@@ -29,16 +29,14 @@ import scipy.optimize
 import scipy.signal.windows
 import xarray as xr
 
+from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
 from gridflex.errors import InputError
-from gridflex.gravity.first_order import (
-    GRAVITATIONAL_CONSTANT,
-    MGAL,
-    CrustLayers,
-    compensation_factor,
-)
-from gridflex.grid import check_grid, check_same_grid, wavenumbers_squared
+from gridflex.estimation.search import check_search_bounds, grid_then_refine
+from gridflex.gravity.first_order import CrustLayers, compensation_factor
+from gridflex.grid import GridSpec, check_grid, check_same_grid, wavenumbers_squared
 from gridflex.memory import check_memory
 from gridflex.plate import Plate, rigidity_from_te
+from gridflex.validation import check_choice, check_integer, check_number
 
 __all__ = [
     "CURVES",
@@ -68,7 +66,7 @@ def _detrend(values: np.ndarray) -> np.ndarray:
 class _Bands:
     """Multitaper transform of grids and averaging of products over wavenumber annuli."""
 
-    def __init__(self, spec: Any, edges: np.ndarray, bandwidth: float, count: int) -> None:
+    def __init__(self, spec: GridSpec, edges: np.ndarray, bandwidth: float, count: int) -> None:
         ky2, kx2 = wavenumbers_squared(spec.shape, spec.dy, spec.dx)
         self.shape = spec.shape
         self.k = np.sqrt(ky2 + kx2)
@@ -109,25 +107,27 @@ class _Bands:
         return cross, power_h, power_a
 
 
-def _band_setup(spec: Any, bands: Any, bandwidth: float, tapers: int | None) -> _Bands:
-    if not bandwidth >= 1.0:
-        raise InputError(f"bandwidth (NW) must be >= 1, got {bandwidth!r}")
-    count = int(tapers) if tapers is not None else max(int(round(2 * bandwidth - 1)), 1)
-    if count < 1 or count > 2 * bandwidth:
+def _band_setup(spec: GridSpec, bands: Any, bandwidth: Any, tapers: Any) -> _Bands:
+    """Check the band and taper settings of :func:`cross_spectra` and build its bands."""
+    bandwidth = check_number("bandwidth (NW)", bandwidth, minimum=1.0)
+    if tapers is None:
+        count = max(int(round(2 * bandwidth - 1)), 1)
+    else:
+        count = check_integer("tapers", tapers, minimum=1)
+    if count > 2 * bandwidth:
         raise InputError(
             f"tapers must lie in [1, 2 bandwidth]; got {tapers!r} for NW {bandwidth!r}"
         )
     k_nyquist = min(math.pi / spec.dx, math.pi / spec.dy)
     if isinstance(bands, (int, np.integer)):
-        if bands < 1:
-            raise InputError(f"bands must be >= 1, got {bands!r}")
+        bands = check_integer("bands", bands, minimum=1)
         length = min(spec.nx * spec.dx, spec.ny * spec.dy)
         edges = np.geomspace(2.0 * math.pi * bandwidth / length, k_nyquist, int(bands) + 1)
     else:
         edges = np.asarray(bands, dtype=np.float64)
         if edges.ndim != 1 or edges.size < 2 or np.any(np.diff(edges) <= 0) or edges[0] < 0:
             raise InputError("bands must be an int or increasing band edges (rad/m) >= 0")
-    return _Bands(spec, edges, float(bandwidth), count)
+    return _Bands(spec, edges, bandwidth, count)
 
 
 def cross_spectra(
@@ -180,9 +180,9 @@ def cross_spectra(
     )
     nb, edges = setup.nb, setup.edges
     estimates = np.bincount(setup.flat, minlength=nb)
-    k_mean = np.bincount(setup.flat, weights=setup.k[setup.inside], minlength=nb)
+    k_sum = np.bincount(setup.flat, weights=setup.k[setup.inside], minlength=nb)
     keep = (estimates > 0) & (power_h > 0) & (power_a > 0)
-    k_mean = k_mean[keep] / estimates[keep]
+    k_mean = k_sum[keep] / estimates[keep]
     n = estimates[keep].astype(np.float64)
     admittance = cross[keep].real / power_h[keep]
     coherence = np.abs(cross[keep]) ** 2 / (power_h[keep] * power_a[keep])
@@ -379,6 +379,103 @@ class SpectralFit:
         }
 
 
+def _observed_curve(
+    spectra: xr.Dataset, curve: str, wavenumber_range: tuple[float, float] | None
+) -> tuple[str, np.ndarray, np.ndarray, np.ndarray]:
+    """The observed curve on the bands used: (variable name, band selection, k, values)."""
+    k = np.asarray(spectra["wavenumber"].values, dtype=np.float64)
+    use = np.ones(k.shape, dtype=bool)
+    if wavenumber_range is not None:
+        use = (k >= wavenumber_range[0]) & (k <= wavenumber_range[1])
+    name = "coherence_corrected" if curve == "bouguer_coherence" else "admittance"
+    observed = np.asarray(spectra[name].values, dtype=np.float64)
+    use &= np.isfinite(observed)
+    if use.sum() < 3:
+        raise InputError(f"only {int(use.sum())} usable bands in wavenumber_range; need >= 3")
+    return name, use, k[use], observed[use]
+
+
+Theory = Callable[[float, float], np.ndarray]
+"""A theoretical curve on the bands used, as a function of (te (m), load ratio f)."""
+
+
+def _theory(
+    curve: str,
+    k: np.ndarray,
+    plate: Plate,
+    options: dict[str, Any],
+    spectra: xr.Dataset,
+    use: np.ndarray,
+) -> Theory:
+    """The curve to fit; *options* holds the keywords of :func:`fit_te_spectral`."""
+    crust_density = options["crust_density"]
+    if curve == "bouguer_coherence":
+        return lambda te, f: bouguer_coherence(k, plate.with_te(te), crust_density, f)
+    if curve == "bouguer_admittance":
+        if options["moho_depth"] is None:
+            raise InputError("curve 'bouguer_admittance' needs moho_depth (m)")
+        depth = float(options["moho_depth"])
+        return lambda te, f: bouguer_admittance(k, plate.with_te(te), crust_density, f, depth)
+    layers, contrast = options["gravity"], options["topography_contrast"]
+    if layers is None or contrast is None:
+        raise InputError(
+            "curve 'free_air_admittance' needs gravity=CrustLayers(...) "
+            "and topography_contrast (kg/m3)"
+        )
+    if options["topography"] is not None:
+        return _matched_free_air(spectra, options["topography"], plate, layers, contrast, use)
+    return lambda te, f: free_air_admittance(k, plate.with_te(te), layers, float(contrast))
+
+
+class _Profile:
+    """Sum of squared misfits of a curve at trial Te, the load ratio fitted inside each."""
+
+    def __init__(
+        self,
+        theory: Theory,
+        observed: np.ndarray,
+        with_ratio: bool,
+        ratio_bounds: tuple[float, float],
+    ) -> None:
+        self.theory = theory
+        self.observed = observed
+        self.with_ratio = with_ratio
+        self.ratio_grid = np.linspace(math.log(ratio_bounds[0]), math.log(ratio_bounds[1]), 9)
+        self.ratios: dict[float, float] = {}
+        self.cache: dict[float, float] = {}
+
+    def squares(self, te: float, f: float) -> float:
+        """Sum of squared differences between the observed and the curve of (te, f)."""
+        r = self.observed - self.theory(te, f)
+        return float(np.einsum("i,i", r, r))
+
+    def _best_ratio(self, te: float) -> float:
+        if not self.with_ratio:
+            self.ratios[te] = float("nan")
+            return self.squares(te, 0.0)
+        _, best = grid_then_refine(lambda g: self.squares(te, math.exp(g)), self.ratio_grid)
+        self.ratios[te] = math.exp(best)
+        return self.squares(te, self.ratios[te])
+
+    def objective(self, log_te: float) -> float:
+        """The misfit at Te = exp(*log_te*) with the best load ratio (cached by Te)."""
+        te = math.exp(log_te)
+        if te not in self.cache:
+            self.cache[te] = self._best_ratio(te)
+        return self.cache[te]
+
+    def misfit(self, bands: int, name: str) -> xr.DataArray:
+        """RMS misfit against every Te evaluated, sorted."""
+        tes = np.array(sorted(self.cache))
+        return xr.DataArray(
+            np.sqrt(np.array([self.cache[t] for t in tes]) / bands),
+            dims=("te",),
+            coords={"te": ("te", tes, {"units": "m"})},
+            name="rms_misfit",
+            attrs={"long_name": f"RMS misfit of {name}"},
+        )
+
+
 def fit_te_spectral(
     spectra: xr.Dataset,
     plate: Plate,
@@ -437,100 +534,25 @@ def fit_te_spectral(
     InputError
         Unknown curve, missing curve parameters, bad bounds or too few bands.
     """
-    if curve not in CURVES:
-        raise InputError(f"curve must be one of {', '.join(map(repr, CURVES))}; got {curve!r}")
-    low, high = (float(b) for b in bounds)
-    if not 0 < low < high:
-        raise InputError(f"bounds must satisfy 0 < low < high (m), got {bounds!r}")
-    k = np.asarray(spectra["wavenumber"].values, dtype=np.float64)
-    use = np.ones(k.shape, dtype=bool)
-    if wavenumber_range is not None:
-        use = (k >= wavenumber_range[0]) & (k <= wavenumber_range[1])
-    name = "coherence_corrected" if curve == "bouguer_coherence" else "admittance"
-    observed = np.asarray(spectra[name].values, dtype=np.float64)
-    use &= np.isfinite(observed)
-    if use.sum() < 3:
-        raise InputError(f"only {int(use.sum())} usable bands in wavenumber_range; need >= 3")
-    k, observed = k[use], observed[use]
-
-    contrast = float(topography_contrast) if topography_contrast is not None else 0.0
-    depth = float(moho_depth) if moho_depth is not None else 0.0
-
-    def model(te: float, f: float) -> np.ndarray:
-        trial = plate.with_te(te)
-        if curve == "free_air_admittance":
-            assert gravity is not None
-            return free_air_admittance(k, trial, gravity, contrast)
-        if curve == "bouguer_admittance":
-            return bouguer_admittance(k, trial, crust_density, f, depth)
-        return bouguer_coherence(k, trial, crust_density, f)
-
-    if curve == "free_air_admittance":
-        if gravity is None or topography_contrast is None:
-            raise InputError(
-                "curve 'free_air_admittance' needs gravity=CrustLayers(...) "
-                "and topography_contrast (kg/m3)"
-            )
-        if topography is not None:
-            model = _matched_free_air(spectra, topography, plate, gravity, contrast, use)
-    elif curve == "bouguer_admittance" and moho_depth is None:
-        raise InputError("curve 'bouguer_admittance' needs moho_depth (m)")
-    with_ratio = curve != "free_air_admittance"
-    f_lo, f_hi = (math.log(float(b)) for b in load_ratio_bounds)
-
-    def ss(te: float, f: float) -> float:
-        r = observed - model(te, f)
-        return float(np.einsum("i,i", r, r))
-
-    ratios: dict[float, float] = {}
-
-    def profile(log_te: float) -> float:
-        te = math.exp(log_te)
-        if not with_ratio:
-            ratios[te] = float("nan")
-            return ss(te, 0.0)
-        grid = np.linspace(f_lo, f_hi, 9)
-        values = [ss(te, math.exp(g)) for g in grid]
-        i = int(np.argmin(values))
-        opt = scipy.optimize.minimize_scalar(
-            lambda g: ss(te, math.exp(g)),
-            method="bounded",
-            bounds=(grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]),
-        )
-        best = float(opt.x) if opt.fun <= values[i] else float(grid[i])
-        ratios[te] = math.exp(best)
-        return ss(te, ratios[te])
-
-    cache: dict[float, float] = {}
-
-    def objective(log_te: float) -> float:
-        te = math.exp(log_te)
-        if te not in cache:
-            cache[te] = profile(log_te)
-        return cache[te]
-
-    grid = np.linspace(math.log(low), math.log(high), int(samples))
-    coarse = [objective(float(x)) for x in grid]
-    i = int(np.argmin(coarse))
-    opt = scipy.optimize.minimize_scalar(
-        objective,
-        method="bounded",
-        options={"xatol": 1e-5},
-        bounds=(grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]),
-    )
-    best_log = float(opt.x) if opt.fun <= coarse[i] else float(grid[i])
+    curve = check_choice("curve", curve, CURVES)
+    low, high = check_search_bounds("bounds", bounds, "m")
+    name, use, k, observed = _observed_curve(spectra, curve, wavenumber_range)
+    options = {
+        "crust_density": crust_density,
+        "moho_depth": moho_depth,
+        "gravity": gravity,
+        "topography_contrast": topography_contrast,
+        "topography": topography,
+    }
+    theory = _theory(curve, k, plate, options, spectra, use)
+    ratio_bounds = check_search_bounds("load_ratio_bounds", load_ratio_bounds)
+    profile = _Profile(theory, observed, curve != "free_air_admittance", ratio_bounds)
+    grid = np.linspace(math.log(low), math.log(high), check_integer("samples", samples, minimum=2))
+    _, best_log = grid_then_refine(profile.objective, grid)
     te = math.exp(best_log)
-    ss_min = objective(best_log)
-    f_best = ratios[te] if with_ratio else None
-    tes = np.array(sorted(cache))
-    misfit = xr.DataArray(
-        np.sqrt(np.array([cache[t] for t in tes]) / k.size),
-        dims=("te",),
-        coords={"te": ("te", tes, {"units": "m"})},
-        name="rms_misfit",
-        attrs={"long_name": f"RMS misfit of {name}"},
-    )
-    predicted = model(te, f_best if f_best is not None else 0.0)
+    ss_min = profile.objective(best_log)
+    f_best = profile.ratios[te] if profile.with_ratio else None
+    predicted = theory(te, f_best if f_best is not None else 0.0)
     units = spectra[name].attrs.get("units", "")
     curves = xr.Dataset(
         {
@@ -545,6 +567,6 @@ def fit_te_spectral(
         curve=curve,
         load_ratio=f_best,
         rms=math.sqrt(ss_min / k.size),
-        misfit=misfit,
+        misfit=profile.misfit(k.size, name),
         curves=curves,
     )

@@ -30,19 +30,23 @@ import scipy.optimize
 import scipy.stats
 import xarray as xr
 
+from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
 from gridflex.engine import EDGES, check_edge_load, deflection_attrs, result_dataset
 from gridflex.errors import GridflexWarning, InputError
+from gridflex.estimation.search import check_search_bounds, grid_then_refine
 from gridflex.gravity.anomalies import model_free_air_anomaly
-from gridflex.gravity.first_order import GRAVITATIONAL_CONSTANT, MGAL, CrustLayers, gravity_terms
+from gridflex.gravity.first_order import CrustLayers, gravity_terms
 from gridflex.grid import GridSpec, check_grid, check_same_grid, padded_shape
 from gridflex.memory import check_memory
 from gridflex.plate import Plate, rigidity_from_te
+from gridflex.progress import Progress
 from gridflex.solvers.spectral import (
     DEFAULT_PAD_FACTOR,
     SpectralProblem,
     decay_length,
     scale_spectrum,
 )
+from gridflex.validation import check_choice, check_integer, check_number
 
 __all__ = ["QUANTITIES", "OpenIntervalWarning", "TeFit", "fit_te"]
 
@@ -59,8 +63,6 @@ _LONG_NAMES = {
 }
 _REFINE_XTOL = 1e-4  # in ln(Te): 0.01 % of Te
 _ROOT_XTOL = 1e-6  # in ln(Te)
-
-Progress = Callable[..., Any]
 
 
 class OpenIntervalWarning(GridflexWarning):
@@ -221,7 +223,12 @@ class _Forward:
         base, spectrum, k = self.tiers[shape]
         return base.with_rigidity(rigidity), spectrum, k
 
+    def padded_shape(self, te: float) -> tuple[int, int]:
+        """Shape of the FFT grid the plate of *te* is solved on."""
+        return self._problem(te)[0].shape
+
     def deflection(self, te: float) -> np.ndarray:
+        """Deflection (m, positive down) of the plate of *te* under the load."""
         problem, spectrum, _ = self._problem(te)
         return problem.crop(problem.inverse(scale_spectrum(spectrum, problem.transfer())))
 
@@ -242,16 +249,6 @@ class _Forward:
         top, interfaces = terms  # both scaled by 2 pi G / (g mGal)
         factor = top - problem.transfer() * problem.stiffness * interfaces
         return problem.crop(problem.inverse(scale_spectrum(spectrum, factor)))
-
-
-def _check_bounds(bounds: Any) -> tuple[float, float]:
-    try:
-        low, high = (float(b) for b in bounds)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"bounds must be two numbers (m), got {bounds!r}") from exc
-    if not (math.isfinite(low) and math.isfinite(high) and 0.0 < low < high):
-        raise InputError(f"bounds must satisfy 0 < low < high (m, finite), got {bounds!r}")
-    return low, high
 
 
 def _check_mask(mask: Any, observed: xr.DataArray, load: xr.DataArray) -> np.ndarray:
@@ -321,6 +318,221 @@ def _correlation_factor(residual: np.ndarray, inside: np.ndarray, spec: GridSpec
     stop = int(flat[0]) if flat.size else len(mean)
     factor = float(sums[:stop].sum())
     return min(max(factor, 1.0), n / 4.0)
+
+
+def _check_options(
+    plate: Any, quantity: Any, edges: Any, confidence: Any, samples: Any
+) -> tuple[str, str, float, int]:
+    """The scalar arguments of :func:`fit_te`, checked: (quantity, edges, confidence, samples)."""
+    if not isinstance(plate, Plate):
+        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
+    if plate.is_variable:
+        raise InputError("fit_te needs a plate of constant te; got a te grid")
+    quantity = check_choice("quantity", quantity, QUANTITIES)
+    edges = check_choice("edges", edges, EDGES)
+    level = check_number("confidence", confidence)
+    if not 0.0 < level < 1.0:
+        raise InputError(f"confidence must lie in (0, 1), got {confidence!r}")
+    return quantity, edges, level, check_integer("samples", samples, minimum=5)
+
+
+def _compared_cells(
+    observed: Any, load: xr.DataArray, mask: Any, fit_load_scale: bool
+) -> np.ndarray:
+    """Where the data are compared: inside *mask* and finite in *observed*."""
+    if not isinstance(observed, xr.DataArray):
+        raise InputError(f"observed must be an xarray.DataArray, got {type(observed).__name__}")
+    check_same_grid(observed, load, "observed")
+    inside = _check_mask(mask, observed, load)
+    n = int(inside.sum())
+    if n < _parameters(fit_load_scale) + 2:
+        raise InputError(f"only {n} cells are compared (mask and finite observed); need >= 4")
+    return inside
+
+
+def _parameters(fit_load_scale: bool) -> int:
+    """Parameters fitted: te and the offset, and the load scale."""
+    return 3 if fit_load_scale else 2
+
+
+def _gravity_model(
+    quantity: str,
+    gravity: Any,
+    plate: Plate,
+    load: xr.DataArray,
+    edges: str,
+    fit_load_scale: bool,
+) -> tuple[CrustLayers | None, tuple[xr.DataArray, dict[str, Any]] | None]:
+    """The gravity model of a free-air fit: (first-order layers, None) or (None, series)."""
+    if quantity != "free_air_anomaly":
+        return None, None
+    if isinstance(gravity, CrustLayers):
+        gravity.check_plate(plate)
+        return gravity, None
+    if isinstance(gravity, Mapping):
+        if fit_load_scale:
+            raise InputError(
+                "fit_load_scale needs a model linear in the load: use "
+                "gravity=CrustLayers(...) (first order), not the full series"
+            )
+        return None, (load, {"edges": edges, **dict(gravity)})
+    raise InputError(
+        "quantity 'free_air_anomaly' needs gravity=CrustLayers(seafloor_depth=...) "
+        "(first-order model) or a mapping of gridflex.model_free_air_anomaly keywords "
+        f"(full Parker series); got {gravity!r}"
+    )
+
+
+class _Trials:
+    """Residual sum of squares of trial plates, after the nuisance fit, cached by Te."""
+
+    def __init__(
+        self, forward: _Forward, observed: np.ndarray, inside: np.ndarray, fit_load_scale: bool
+    ) -> None:
+        self.forward = forward
+        self.inside = inside
+        self.data = observed[inside]
+        self.fit_load_scale = fit_load_scale
+        self.cache: dict[float, float] = {}
+
+    def rss(self, log_te: float) -> float:
+        """RSS of the plate of Te = exp(*log_te*)."""
+        te = float(math.exp(log_te))
+        if te not in self.cache:
+            model = self.forward.model(te)[self.inside]
+            self.cache[te] = _nuisance_fit(self.data, model, self.fit_load_scale)[0]
+        return self.cache[te]
+
+    def nuisance(self, te: float) -> tuple[float, float]:
+        """(load scale, offset) fitted for *te*."""
+        model = self.forward.model(te)[self.inside]
+        _, load_scale, offset = _nuisance_fit(self.data, model, self.fit_load_scale)
+        return load_scale, offset
+
+
+def _interval(
+    rss: Callable[[float], float],
+    grid: np.ndarray,
+    best_index: int,
+    best: float,
+    rss_min: float,
+    threshold: float,
+) -> tuple[list[float], list[bool]]:
+    """Te (m) where RSS rises by *threshold* below and above *best* (ln Te), and whether
+    each was reached inside the grid (else the grid's end is returned)."""
+
+    def excess(x: float) -> float:
+        return rss(x) - rss_min - threshold
+
+    ends: list[float] = []
+    closed: list[bool] = []
+    for side in (-1, 1):
+        idx = range(best_index - 1, -1, -1) if side < 0 else range(best_index + 1, len(grid))
+        outer = next((float(grid[j]) for j in idx if excess(float(grid[j])) > 0), None)
+        if outer is None:
+            ends.append(math.exp(float(grid[0] if side < 0 else grid[-1])))
+            closed.append(False)
+            continue
+        root = scipy.optimize.brentq(excess, min(best, outer), max(best, outer), xtol=_ROOT_XTOL)
+        ends.append(math.exp(root))
+        closed.append(True)
+    return ends, closed
+
+
+def _warn_if_open(closed: list[bool], confidence: float, bounds: Any) -> None:
+    if all(closed):
+        return
+    sides = [name for name, ok in zip(("lower", "upper"), closed, strict=True) if not ok]
+    warnings.warn(
+        f"the {confidence:.0%} interval of te reaches the {' and '.join(sides)} search "
+        f"bound {bounds!r} m: the data do not constrain te there; widen bounds or "
+        "report the interval as open",
+        OpenIntervalWarning,
+        stacklevel=3,
+    )
+
+
+def _misfit_curve(
+    cache: dict[float, float], n: int, rss_min: float, scale: float, quantity: str
+) -> xr.DataArray:
+    """RMS misfit against every Te evaluated; *scale* is s^2 times the correlation factor."""
+    tes = np.array(sorted(cache))
+    rss_values = np.array([cache[t] for t in tes])
+    return xr.DataArray(
+        np.sqrt(rss_values / n),
+        dims=("te",),
+        coords={
+            "te": ("te", tes, {"units": "m", "long_name": "elastic thickness"}),
+            "scaled_increase": ("te", (rss_values - rss_min) / scale),
+        },
+        name="rms_misfit",
+        attrs={"units": _UNITS[quantity], "long_name": f"RMS misfit of {quantity}"},
+    )
+
+
+def _model_dataset(
+    fit: TeFit,
+    load: xr.DataArray,
+    plate: Plate,
+    forward: _Forward,
+    observed: np.ndarray,
+    inside: np.ndarray,
+    model: np.ndarray,
+) -> xr.Dataset:
+    """The best model of *fit* (whose ``model`` is not yet set) as a result Dataset.
+
+    *model* is the fitted model without the offset (load scale applied).
+    """
+    quantity, te = fit.quantity, fit.te
+    predicted = model + fit.offset
+    attrs = _fit_attrs(fit, forward, plate)
+    ds = result_dataset(
+        load * fit.load_scale, fit.load_scale * forward.deflection(te), plate.with_te(te), attrs
+    )
+    unit_attrs = {"units": _UNITS[quantity]}
+    long_name = _LONG_NAMES[quantity]
+    ds["observed"] = (("y", "x"), observed, {**unit_attrs, "long_name": f"observed {long_name}"})
+    ds["predicted"] = (
+        ("y", "x"),
+        predicted,
+        {**unit_attrs, "long_name": f"best model {long_name}"},
+    )
+    ds["residual"] = (
+        ("y", "x"),
+        np.where(inside, observed - predicted, np.nan),
+        {**unit_attrs, "long_name": "observed minus predicted"},
+    )
+    ds["mask"] = (("y", "x"), inside, {"long_name": "cells compared in the fit"})
+    if quantity == "free_air_anomaly":
+        ds["free_air_anomaly"] = (
+            ("y", "x"),
+            model,
+            {"units": "mGal", "long_name": "free-air anomaly of the best model (no offset)"},
+        )
+    ds["deflection"].attrs = deflection_attrs()
+    return ds
+
+
+def _fit_attrs(fit: TeFit, forward: _Forward, plate: Plate) -> dict[str, Any]:
+    """Attributes of the best model: the solve, the fit and the gravity model."""
+    attrs: dict[str, Any] = {
+        "solver": "spectral",
+        "edges": "periodic" if forward.periodic else "infinite",
+        "padded_shape": np.array(forward.padded_shape(fit.te), dtype=np.int64),
+        "fit_quantity": fit.quantity,
+        "fit_offset": fit.offset,
+        "fit_load_scale": fit.load_scale,
+        "fit_rms_misfit": fit.rms,
+        "fit_te_low": fit.te_low,
+        "fit_te_high": fit.te_high,
+        "fit_confidence": fit.confidence,
+    }
+    if forward.layers is not None:
+        attrs.update({f"gravity_{k}": v for k, v in forward.layers.describe(plate).items()})
+        attrs["gravity_model"] = "first order (linear term of the Parker series)"
+    if forward.series is not None:
+        attrs["gravity_model"] = "Parker series (gridflex.model_free_air_anomaly)"
+    return attrs
 
 
 def fit_te(
@@ -414,206 +626,58 @@ def fit_te(
     >>> round(fit.te / 1e3), fit.te_low < 20e3 < fit.te_high, round(fit.offset)
     (20, True, 3)
     """
-    if not isinstance(plate, Plate):
-        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
-    if plate.is_variable:
-        raise InputError("fit_te needs a plate of constant te; got a te grid")
-    if quantity not in QUANTITIES:
-        raise InputError(
-            f"quantity must be one of {', '.join(map(repr, QUANTITIES))}; got {quantity!r}"
-        )
-    if edges not in EDGES:
-        raise InputError(f"edges must be one of {', '.join(map(repr, EDGES))}; got {edges!r}")
-    if not 0.0 < float(confidence) < 1.0:
-        raise InputError(f"confidence must lie in (0, 1), got {confidence!r}")
-    if int(samples) != samples or samples < 5:
-        raise InputError(f"samples must be an integer >= 5, got {samples!r}")
-    low, high = _check_bounds(bounds)
+    quantity, edges, confidence, samples = _check_options(
+        plate, quantity, edges, confidence, samples
+    )
+    low, high = check_search_bounds("bounds", bounds, "m")
     spec = check_grid(load)
-    if not isinstance(observed, xr.DataArray):
-        raise InputError(f"observed must be an xarray.DataArray, got {type(observed).__name__}")
-    check_same_grid(observed, load, "observed")
-    inside = _check_mask(mask, observed, load)
-    n = int(inside.sum())
-    parameters = 3 if fit_load_scale else 2  # te, offset (and load scale)
-    if n < parameters + 2:
-        raise InputError(f"only {n} cells are compared (mask and finite observed); need >= 4")
-    layers = None
-    series = None
-    if quantity == "free_air_anomaly":
-        if isinstance(gravity, CrustLayers):
-            layers = gravity
-            layers.check_plate(plate)
-        elif isinstance(gravity, Mapping):
-            if fit_load_scale:
-                raise InputError(
-                    "fit_load_scale needs a model linear in the load: use "
-                    "gravity=CrustLayers(...) (first order), not the full series"
-                )
-            options = {"edges": edges, **dict(gravity)}
-            series = (load, options)
-        else:
-            raise InputError(
-                "quantity 'free_air_anomaly' needs gravity=CrustLayers(seafloor_depth=...) "
-                "(first-order model) or a mapping of gridflex.model_free_air_anomaly keywords "
-                f"(full Parker series); got {gravity!r}"
-            )
-
+    inside = _compared_cells(observed, load, mask, fit_load_scale)
+    layers, series = _gravity_model(quantity, gravity, plate, load, edges, fit_load_scale)
     load_values = np.asarray(load.values, dtype=np.float64)
     if edges == "infinite":
         check_edge_load(load_values, float(np.abs(load_values).sum()))
     forward = _Forward(
-        load_values,
-        spec,
-        plate,
-        high,
-        quantity,
-        layers,
-        edges == "periodic",
-        pad_factor,
-        series,
+        load_values, spec, plate, high, quantity, layers, edges == "periodic", pad_factor, series
     )
-    data = np.asarray(observed.values, dtype=np.float64)[inside]
-    rss_cache: dict[float, float] = {}
-
-    def rss(log_te: float) -> float:
-        te = float(math.exp(log_te))
-        if te not in rss_cache:
-            rss_cache[te] = _nuisance_fit(data, forward.model(te)[inside], fit_load_scale)[0]
-        return rss_cache[te]
-
-    grid = np.linspace(math.log(low), math.log(high), int(samples))
-    coarse = []
-    for i, x in enumerate(grid):
-        coarse.append(rss(float(x)))
-        if progress is not None:
-            progress(i + 1, len(grid))
-    best_i = int(np.argmin(coarse))
-    a, b = grid[max(best_i - 1, 0)], grid[min(best_i + 1, len(grid) - 1)]
-    opt = scipy.optimize.minimize_scalar(
-        rss, bounds=(a, b), method="bounded", options={"xatol": _REFINE_XTOL}
-    )
-    best_x = float(opt.x) if opt.fun <= coarse[best_i] else float(grid[best_i])
-    rss_min = rss(best_x)
+    observed_values = np.asarray(observed.values, dtype=np.float64)
+    trials = _Trials(forward, observed_values, inside, fit_load_scale)
+    grid = np.linspace(math.log(low), math.log(high), samples)
+    best_index, best_x = grid_then_refine(trials.rss, grid, xatol=_REFINE_XTOL, progress=progress)
+    rss_min = trials.rss(best_x)
     te_best = math.exp(best_x)
-
-    _, load_scale, offset = _nuisance_fit(data, forward.model(te_best)[inside], fit_load_scale)
+    load_scale, offset = trials.nuisance(te_best)
     model = load_scale * forward.model(te_best)
-    predicted = model + offset
+    n = int(inside.sum())
     factor = 1.0
     if correlated_residuals:
-        full_residual = np.where(
-            inside, np.asarray(observed.values, dtype=np.float64) - predicted, 0.0
-        )
-        factor = _correlation_factor(full_residual, inside, spec)
-    s2 = rss_min / (n - parameters)
+        residual = np.where(inside, observed_values - (model + offset), 0.0)
+        factor = _correlation_factor(residual, inside, spec)
+    s2 = rss_min / (n - _parameters(fit_load_scale))
     threshold = float(scipy.stats.chi2.ppf(confidence, 1)) * s2 * factor
-
-    def excess(x: float) -> float:
-        return rss(x) - rss_min - threshold
-
-    bounds_out = []
-    closed = []
-    for side in (-1, 1):
-        idx = range(best_i - 1, -1, -1) if side < 0 else range(best_i + 1, len(grid))
-        outer = next((float(grid[j]) for j in idx if excess(float(grid[j])) > 0), None)
-        if outer is None:
-            edge = float(grid[0] if side < 0 else grid[-1])
-            bounds_out.append(math.exp(edge))
-            closed.append(False)
-            continue
-        root = scipy.optimize.brentq(
-            excess, min(best_x, outer), max(best_x, outer), xtol=_ROOT_XTOL
-        )
-        bounds_out.append(math.exp(root))
-        closed.append(True)
-    if not all(closed):
-        sides = [name for name, ok in zip(("lower", "upper"), closed, strict=True) if not ok]
-        warnings.warn(
-            f"the {confidence:.0%} interval of te reaches the {' and '.join(sides)} search "
-            f"bound {bounds!r} m: the data do not constrain te there; widen bounds or "
-            "report the interval as open",
-            OpenIntervalWarning,
-            stacklevel=2,
-        )
+    ends, closed = _interval(trials.rss, grid, best_index, best_x, rss_min, threshold)
+    _warn_if_open(closed, confidence, bounds)
     log.info(
         "fit_te: te = %.4g m, interval [%.4g, %.4g] m, %d forward models",
         te_best,
-        bounds_out[0],
-        bounds_out[1],
+        ends[0],
+        ends[1],
         forward.evaluations,
     )
-
-    tes = np.array(sorted(rss_cache))
-    rss_values = np.array([rss_cache[t] for t in tes])
-    misfit = xr.DataArray(
-        np.sqrt(rss_values / n),
-        dims=("te",),
-        coords={
-            "te": ("te", tes, {"units": "m", "long_name": "elastic thickness"}),
-            "scaled_increase": ("te", (rss_values - rss_min) / (s2 * factor)),
-        },
-        name="rms_misfit",
-        attrs={"units": _UNITS[quantity], "long_name": f"RMS misfit of {quantity}"},
-    )
-    best_plate = plate.with_te(te_best)
-    attrs: dict[str, Any] = {
-        "solver": "spectral",
-        "edges": edges,
-        "padded_shape": np.array(forward._problem(te_best)[0].shape, dtype=np.int64),
-        "fit_quantity": quantity,
-        "fit_offset": offset,
-        "fit_load_scale": load_scale,
-        "fit_rms_misfit": math.sqrt(rss_min / n),
-        "fit_te_low": bounds_out[0],
-        "fit_te_high": bounds_out[1],
-        "fit_confidence": float(confidence),
-    }
-    if layers is not None:
-        attrs.update({f"gravity_{k}": v for k, v in layers.describe(plate).items()})
-        attrs["gravity_model"] = "first order (linear term of the Parker series)"
-    if series is not None:
-        attrs["gravity_model"] = "Parker series (gridflex.model_free_air_anomaly)"
-    ds = result_dataset(
-        load * load_scale, load_scale * forward.deflection(te_best), best_plate, attrs
-    )
-    unit_attrs = {"units": _UNITS[quantity]}
-    ds["observed"] = (
-        ("y", "x"),
-        np.asarray(observed.values, dtype=np.float64),
-        {**unit_attrs, "long_name": f"observed {_LONG_NAMES[quantity]}"},
-    )
-    ds["predicted"] = (
-        ("y", "x"),
-        predicted,
-        {**unit_attrs, "long_name": f"best model {_LONG_NAMES[quantity]}"},
-    )
-    ds["residual"] = (
-        ("y", "x"),
-        np.where(inside, ds["observed"].values - predicted, np.nan),
-        {**unit_attrs, "long_name": "observed minus predicted"},
-    )
-    ds["mask"] = (("y", "x"), inside, {"long_name": "cells compared in the fit"})
-    if quantity == "free_air_anomaly":
-        ds["free_air_anomaly"] = (
-            ("y", "x"),
-            model,
-            {"units": "mGal", "long_name": "free-air anomaly of the best model (no offset)"},
-        )
-    ds["deflection"].attrs = deflection_attrs()
-    return TeFit(
+    fit = TeFit(
         te=te_best,
-        te_low=bounds_out[0],
-        te_high=bounds_out[1],
+        te_low=ends[0],
+        te_high=ends[1],
         interval_closed=(closed[0], closed[1]),
         offset=offset,
         load_scale=load_scale,
         rms=math.sqrt(rss_min / n),
         quantity=quantity,
-        confidence=float(confidence),
+        confidence=confidence,
         threshold=threshold,
         n_data=n,
         n_effective=n / factor,
-        misfit=misfit,
-        model=ds,
+        misfit=_misfit_curve(trials.cache, n, rss_min, s2 * factor, quantity),
+        model=xr.Dataset(),  # set below, from the fit's numbers
     )
+    best = _model_dataset(fit, load, plate, forward, observed_values, inside, model)
+    return replace(fit, model=best)

@@ -34,25 +34,25 @@ from __future__ import annotations
 
 import logging
 import math
-import warnings
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
-from gridflex.errors import GravitySeriesWarning, InputError
+from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL, SEA_WATER_DENSITY
+from gridflex.errors import InputError
 from gridflex.gravity.interfaces import (
     DEFAULT_GRAVITY_PAD_FACTOR,
-    GRAVITY_EDGES,
-    _check_number,
-    _check_terms,
     blocks_to_grid,
+    check_series_arguments,
     gravity_padded_shape,
     parker_spectrum,
     spectrum_to_grid,
+    warn_if_not_converged,
 )
-from gridflex.gravity.prisms import GRAVITATIONAL_CONSTANT, MGAL
-from gridflex.grid import check_grid, grid_values
+from gridflex.grid import GridSpec, check_grid, grid_values
+from gridflex.validation import check_density, check_number
 
 __all__ = ["BOUGUER_DENSITY", "model_free_air_anomaly", "model_gravity"]
 
@@ -62,6 +62,10 @@ BOUGUER_DENSITY = 2670.0
 """Default Bouguer reduction density (kg m^-3), the conventional crustal value."""
 
 Surface = float | xr.DataArray
+
+Interface = tuple[np.ndarray, np.ndarray | float]
+"""One step of a column: its elevation (m above sea level) and its density contrast
+(kg m^-3, density below minus density above; a number or a grid)."""
 
 
 def _pick(name: str, given: Any, result: xr.Dataset, attr: str, default: Any = None) -> Any:
@@ -76,24 +80,32 @@ def _pick(name: str, given: Any, result: xr.Dataset, attr: str, default: Any = N
     )
 
 
-def _columns(result: xr.Dataset, options: dict[str, Any]):
-    """Interfaces (elevation above sea level, contrast) of the final and reference states."""
+@dataclass(frozen=True)
+class _Columns:
+    """The final and reference columns of a flexure result, as steps (see module docstring)."""
+
+    deflection: xr.DataArray
+    top: np.ndarray
+    """Elevation of the final surface (m above sea level)."""
+    reference_surface: np.ndarray
+    """Elevation of the surface under the load before loading (m above sea level)."""
+    final: list[Interface]
+    reference: list[Interface]
+    info: dict[str, float | str]
+    """The densities (kg m^-3), crustal thickness and sea level (m) used."""
+
+
+def _deflection_grid(result: xr.Dataset) -> xr.DataArray:
     if not isinstance(result, xr.Dataset) or "deflection" not in result:
         raise InputError("result must be an xarray.Dataset with a 'deflection' variable")
-    w_da = result["deflection"]
-    check_grid(w_da, "deflection")
-    w = np.asarray(w_da.values, dtype=np.float64)
+    check_grid(result["deflection"], "deflection")
+    return result["deflection"]
 
-    def value(name: str, attr: str, default: float | None = None) -> float:
-        return _check_number(name, _pick(name, options[name], result, attr, default))
 
-    sea = value("sea_level", "infill_sea_level", 0.0)
-    rho_w = value("water_density", "infill_water_density", 1030.0)
-    rho_c = value("crust_density", "plate_crust_density")
-    t_c = value("crust_thickness", "plate_crust_thickness")
-    rho_m = value("mantle_density", "plate_mantle_density")
-    if t_c <= 0:
-        raise InputError(f"crust_thickness must be > 0 m, got {t_c!r}")
+def _load_geometry(
+    result: xr.Dataset, options: dict[str, Any], w_da: xr.DataArray, sea: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Reference surface (m above sea level) and load height (m) on the deflection's grid."""
     ref_given = options["reference_surface"]
     if ref_given is None:
         if "reference_surface" not in result:
@@ -111,84 +123,146 @@ def _columns(result: xr.Dataset, options: dict[str, Any]):
             height_given = result["initial_surface"] - sea - xr.DataArray(z_ref, dims=w_da.dims)
         else:
             raise InputError("load_height (m) is needed: pass it or use a load Dataset result")
-    h_l = grid_values(height_given, w_da, "load_height")
-    if options["load_density"] is None and "load_density" not in result.attrs and np.any(h_l):
+    return z_ref, grid_values(height_given, w_da, "load_height")
+
+
+def _load_density(
+    result: xr.Dataset, options: dict[str, Any], load_height: np.ndarray, crust_density: float
+) -> float:
+    """The load's density (kg m^-3); the crust's when the load has no height."""
+    given = options["load_density"]
+    if given is None and "load_density" not in result.attrs and np.any(load_height):
         raise InputError("load_density (kg/m^3) is needed: pass it or use a load Dataset result")
-    rho_l = _check_number(
-        "load_density",
-        _pick("load_density", options["load_density"], result, "load_density", rho_c),
+    return check_density(
+        "load_density", _pick("load_density", given, result, "load_density", crust_density)
     )
+
+
+def _fill(
+    result: xr.Dataset, w: np.ndarray, water_density: float, load_density: float
+) -> tuple[np.ndarray, np.ndarray | float]:
+    """Thickness (m) and density (kg m^-3) of the layer filling the depression.
+
+    An infill result's sediment (with load material under a buried load), else the
+    plate's infill of thickness w when it is denser than water, else nothing (the
+    water, or air, above the surface fills it).
+    """
     if "fill_sediment" in result:
-        fill = np.asarray(result["fill_sediment"].values, dtype=np.float64)
-        rho_fill = float(result.attrs.get("infill_sediment_density", rho_w))
-        if "load_root" in result:  # a buried load: load material fills under it
-            root = np.asarray(result["load_root"].values, dtype=np.float64)
-            rho_fill = np.where(root != 0.0, rho_l, rho_fill)
-            fill = fill + root
-    else:  # constant-density infill of a plain solve: thickness w of plate_infill_density
-        rho_fill = _check_number(
-            "infill density", _pick("infill density", None, result, "plate_infill_density")
-        )
-        # a fill no denser than water is the water (or air) above the surface
-        fill = w if rho_fill > rho_w else np.zeros_like(w)
-        rho_fill = rho_fill if rho_fill > rho_w else rho_w
+        thickness = np.asarray(result["fill_sediment"].values, dtype=np.float64)
+        sediment_density = float(result.attrs.get("infill_sediment_density", water_density))
+        if "load_root" not in result:
+            return thickness, sediment_density
+        root = np.asarray(result["load_root"].values, dtype=np.float64)
+        return thickness + root, np.where(root != 0.0, load_density, sediment_density)
+    infill_density = check_density(
+        "infill density", _pick("infill density", None, result, "plate_infill_density")
+    )
+    if infill_density > water_density:
+        return w, infill_density
+    return np.zeros_like(w), water_density
+
+
+def _columns(result: xr.Dataset, options: dict[str, Any]) -> _Columns:
+    """Interfaces (elevation above sea level, contrast) of the final and reference states."""
+    w_da = _deflection_grid(result)
+    w = np.asarray(w_da.values, dtype=np.float64)
+
+    def value(name: str, attr: str, default: float | None = None) -> Any:
+        return _pick(name, options[name], result, attr, default)
+
+    sea = check_number("sea_level", value("sea_level", "infill_sea_level", 0.0), unit="m")
+    rho_w = check_density(
+        "water_density", value("water_density", "infill_water_density", SEA_WATER_DENSITY)
+    )
+    rho_c = check_density("crust_density", value("crust_density", "plate_crust_density"))
+    t_c = check_number(
+        "crust_thickness",
+        value("crust_thickness", "plate_crust_thickness"),
+        unit="m",
+        minimum=0.0,
+        strict=True,
+    )
+    rho_m = check_density("mantle_density", value("mantle_density", "plate_mantle_density"))
+    z_ref, h_l = _load_geometry(result, options, w_da, sea)
+    rho_l = _load_density(result, options, h_l, rho_c)
+    fill, fill_density = _fill(result, w, rho_w, rho_l)
     z0 = z_ref + h_l
     top = z0 - w + fill
-    final = [
+    final: list[Interface] = [
         (np.maximum(top, 0.0), rho_w),
-        (top, rho_fill - rho_w),
-        (z0 - w, rho_l - rho_fill),
+        (top, fill_density - rho_w),
+        (z0 - w, rho_l - fill_density),
         (z_ref - w, rho_c - rho_l),
         (z_ref - t_c - w, rho_m - rho_c),
     ]
-    reference = [
+    reference: list[Interface] = [
         (np.maximum(z_ref, 0.0), rho_w),
         (z_ref, rho_c - rho_w),
         (z_ref - t_c, rho_m - rho_c),
     ]
-    fill_attr = float(rho_fill) if np.ndim(rho_fill) == 0 else "load under the load, else sediment"
-    info = {
+    info: dict[str, float | str] = {
         "water_density": rho_w,
         "crust_density": rho_c,
         "crust_thickness": t_c,
         "mantle_density": rho_m,
         "load_density": rho_l,
-        "fill_density": fill_attr,
+        "fill_density": (
+            float(fill_density)
+            if np.ndim(fill_density) == 0
+            else "load under the load, else sediment"
+        ),
         "sea_level": sea,
     }
-    info["reference_surface"] = z_ref
-    return w_da, top, final, reference, info
+    return _Columns(w_da, top, z_ref, final, reference, info)
 
 
-def _spectrum_sum(interfaces, sign, spec, plane, terms, shape, sums, isolated):
-    """Add sign * the Parker spectra of *interfaces* to ``sums["total"]``, their last
-    terms to ``sums["last"]`` (arrays on the FFT grid *shape*) and their periodic
-    copies' fields to ``sums["images"]`` (on the grid)."""
-    for elevation, contrast in interfaces:
-        if np.all(np.asarray(contrast) == 0.0) or not np.any(elevation):
-            continue
-        spectrum, last_term, _, images = parker_spectrum(
-            elevation, contrast, plane, spec, terms, shape, isolated=isolated
-        )
-        sums["total"] += sign * spectrum
-        if last_term is not None:
-            sums["last"] += sign * last_term
+@dataclass(frozen=True)
+class _Series:
+    """Parker series of several interfaces summed on one FFT grid."""
+
+    spec: GridSpec
+    shape: tuple[int, int]
+    plane: float
+    """Depth (m) of sea level below the observation plane."""
+    terms: int
+    isolated: bool
+
+    def difference(
+        self, added: list[Interface], removed: list[Interface]
+    ) -> tuple[np.ndarray, float]:
+        """Anomaly (mGal) of the *added* steps minus the *removed* ones, and the largest
+        change (mGal) their last series terms make."""
+        half = (self.shape[0], self.shape[1] // 2 + 1)
+        total = np.zeros(half, complex)
+        last = np.zeros(half, complex)
+        images: np.ndarray | None = None
+        for sign, interfaces in ((1.0, added), (-1.0, removed)):
+            for elevation, contrast in interfaces:
+                if np.all(np.asarray(contrast) == 0.0) or not np.any(elevation):
+                    continue
+                spectrum, last_term, _, image = parker_spectrum(
+                    elevation,
+                    contrast,
+                    self.plane,
+                    self.spec,
+                    self.terms,
+                    self.shape,
+                    isolated=self.isolated,
+                )
+                total += sign * spectrum
+                if last_term is not None:
+                    last += sign * last_term
+                if image is not None:
+                    images = sign * image if images is None else images + sign * image
+        anomaly = spectrum_to_grid(total, self.spec, self.shape)
         if images is not None:
-            if sums["images"] is None:
-                sums["images"] = np.zeros_like(images)
-            sums["images"] += sign * images
+            anomaly = anomaly - blocks_to_grid(images, self.spec)
+        return anomaly, float(np.abs(spectrum_to_grid(last, self.spec, self.shape)).max())
 
 
-def _images(sums, spec) -> np.ndarray | float:
-    return 0.0 if sums["images"] is None else blocks_to_grid(sums["images"], spec)
-
-
-def _new_sums(spec, shape) -> dict[str, np.ndarray | None]:
-    half = (shape[0], shape[1] // 2 + 1)
-    return {"total": np.zeros(half, complex), "last": np.zeros(half, complex), "images": None}
-
-
-def _topography_interfaces(top, rho_b, rho_w, reference):
+def _topography_interfaces(
+    top: np.ndarray, rho_b: float, rho_w: float, reference: np.ndarray
+) -> tuple[list[Interface], list[Interface], float]:
     """Topography relative to sea level with density rho_B, as steps to add and subtract.
 
     Beyond the grid the surface is taken to be the reference (pre-load) surface at its
@@ -204,6 +278,16 @@ def _topography_interfaces(top, rho_b, rho_w, reference):
     edge_contrast = rho_b if level > 0.0 else rho_b - rho_w
     slab = 2.0 * math.pi * GRAVITATIONAL_CONSTANT * edge_contrast * level / MGAL
     return [(top, contrast)], [(np.full(top.shape, level), edge_contrast)], slab
+
+
+def _check_below_plane(top: np.ndarray, height: float, sea_level: float) -> None:
+    highest = float(top.max())
+    if highest >= height:
+        raise InputError(
+            f"observation_height ({height!r} m) must be above the highest point of the final "
+            f"surface ({highest + sea_level:.6g} m); the series needs every "
+            "mass below the observation plane"
+        )
 
 
 def model_gravity(
@@ -278,48 +362,27 @@ def model_gravity(
         "water_density": water_density,
         "sea_level": sea_level,
     }
-    terms = _check_terms(terms)
-    if edges not in GRAVITY_EDGES:
-        raise InputError(f"edges must be one of {GRAVITY_EDGES!r}, got {edges!r}")
-    height = _check_number("observation_height", observation_height)
-    rho_b = _check_number("bouguer_density", bouguer_density)
-    w_da, top, final, reference, info = _columns(result, options)
-    spec = check_grid(w_da, "deflection")
-    if float(top.max()) >= height:
-        raise InputError(
-            f"observation_height ({height!r} m) must be above the highest point of the final "
-            f"surface ({float(top.max()) + info['sea_level']:.6g} m); the series needs every "
-            "mass below the observation plane"
-        )
-    deepest = height - min(float(e.min()) for e, _ in final + reference)
-    shape = spec.shape if edges == "periodic" else gravity_padded_shape(spec, deepest, pad_factor)
-    isolated = edges != "periodic"
-    sums = _new_sums(spec, shape)
-    _spectrum_sum(final, 1.0, spec, height, terms, shape, sums, isolated)
-    _spectrum_sum(reference, -1.0, spec, height, terms, shape, sums, isolated)
-    free_air = spectrum_to_grid(sums["total"], spec, shape) - _images(sums, spec)
-    last = float(np.abs(spectrum_to_grid(sums["last"], spec, shape)).max())
-    topo_add, topo_remove, slab = _topography_interfaces(
-        top, rho_b, info["water_density"], info.pop("reference_surface")
+    terms, edges, height, pad_factor = check_series_arguments(
+        terms, edges, observation_height, pad_factor
     )
-    sums = _new_sums(spec, shape)
-    _spectrum_sum(topo_add, 1.0, spec, height, terms, shape, sums, isolated)
-    _spectrum_sum(topo_remove, -1.0, spec, height, terms, shape, sums, isolated)
-    topography = spectrum_to_grid(sums["total"], spec, shape) - _images(sums, spec) + slab
-    bouguer = free_air - topography
-    last = max(last, float(np.abs(spectrum_to_grid(sums["last"], spec, shape)).max()))
+    rho_b = check_density("bouguer_density", bouguer_density)
+    columns = _columns(result, options)
+    spec = check_grid(columns.deflection, "deflection")
+    _check_below_plane(columns.top, height, float(columns.info["sea_level"]))
+    deepest = height - min(float(e.min()) for e, _ in columns.final + columns.reference)
+    shape = spec.shape if edges == "periodic" else gravity_padded_shape(spec, deepest, pad_factor)
+    series = _Series(spec, shape, height, terms, isolated=edges != "periodic")
+    free_air, last = series.difference(columns.final, columns.reference)
+    topo_add, topo_remove, slab = _topography_interfaces(
+        columns.top, rho_b, float(columns.info["water_density"]), columns.reference_surface
+    )
+    topography, last_topography = series.difference(topo_add, topo_remove)
+    bouguer = free_air - (topography + slab)
+    last = max(last, last_topography)
     spread = float(free_air.max() - free_air.min())
-    if terms > 1 and last > max(0.01 * spread, 1e-3):
-        warnings.warn(
-            f"gravity series not converged: the last of {terms} terms still changes the "
-            f"anomaly by {last:.3g} mGal (free-air range {spread:.3g} mGal); "
-            "use more terms or a higher observation_height",
-            GravitySeriesWarning,
-            stacklevel=2,
-        )
+    warn_if_not_converged(terms, last, spread, f"free-air range {spread:.3g} mGal")
     log.info("model gravity: %d terms, FFT grid %s, last term %.3g mGal", terms, shape, last)
-    coords = {"y": w_da["y"].variable, "x": w_da["x"].variable}
-    attrs = {f"gravity_{k}": v for k, v in info.items()}
+    attrs = {f"gravity_{k}": v for k, v in columns.info.items()}
     attrs.update(
         {
             "gravity_observation_height": height,
@@ -347,7 +410,7 @@ def model_gravity(
                 },
             ),
         },
-        coords=coords,
+        coords={"y": columns.deflection["y"].variable, "x": columns.deflection["x"].variable},
         attrs=attrs,
     )
 

@@ -25,28 +25,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from gridflex.errors import InputError
-from gridflex.gravity.prisms import GRAVITATIONAL_CONSTANT, MGAL
 from gridflex.plate import Plate
+from gridflex.validation import check_density, check_number
 
-__all__ = [
-    "GRAVITATIONAL_CONSTANT",
-    "MGAL",
-    "CrustLayers",
-    "compensation_factor",
-    "gravity_terms",
-]
-
-
-def _check_number(name: str, value: float, minimum: float, strict: bool) -> float:
-    try:
-        out = float(value)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number, got {value!r}") from exc
-    ok = out > minimum if strict else out >= minimum
-    if not np.isfinite(out) or not ok:
-        relation = ">" if strict else ">="
-        raise InputError(f"{name} must be a finite number {relation} {minimum:g}, got {value!r}")
-    return out
+__all__ = ["CrustLayers", "compensation_factor", "gravity_terms"]
 
 
 @dataclass(frozen=True)
@@ -74,12 +56,16 @@ class CrustLayers:
 
     def __post_init__(self) -> None:
         set_ = object.__setattr__
-        set_(self, "seafloor_depth", _check_number("seafloor_depth", self.seafloor_depth, 0, True))
+        depth = check_number(
+            "seafloor_depth", self.seafloor_depth, unit="m", minimum=0, strict=True
+        )
+        set_(self, "seafloor_depth", depth)
         if self.crust_thickness is not None:
-            thickness = _check_number("crust_thickness", self.crust_thickness, 0, False)
+            thickness = check_number("crust_thickness", self.crust_thickness, unit="m", minimum=0)
             set_(self, "crust_thickness", thickness)
         if self.crust_density is not None:
-            set_(self, "crust_density", _check_number("crust_density", self.crust_density, 0, True))
+            density = check_density("crust_density", self.crust_density, allow_zero=False)
+            set_(self, "crust_density", density)
 
     def crust(self, plate: Plate) -> tuple[float, float]:
         """(thickness, density) of the crust: these layers' values, else the plate's.

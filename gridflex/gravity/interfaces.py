@@ -27,27 +27,31 @@ from __future__ import annotations
 import logging
 import math
 import warnings
+from typing import Any
 
 import numpy as np
 import scipy.fft
 import xarray as xr
 from scipy.interpolate import CubicSpline
 
+from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
 from gridflex.errors import GravitySeriesWarning, InputError
-from gridflex.gravity.prisms import GRAVITATIONAL_CONSTANT, MGAL
 from gridflex.grid import GridSpec, check_grid, check_same_grid, padded_shape, wavenumbers_squared
 from gridflex.memory import check_memory
+from gridflex.validation import check_choice, check_integer, check_number
 
 __all__ = [
     "DEFAULT_GRAVITY_PAD_FACTOR",
     "GRAVITY_EDGES",
     "gravity_padded_shape",
     "blocks_to_grid",
+    "check_series_arguments",
     "image_field",
     "interface_gravity",
     "parker_series",
     "parker_spectrum",
     "spectrum_to_grid",
+    "warn_if_not_converged",
 ]
 
 log = logging.getLogger(__name__)
@@ -66,25 +70,59 @@ _WARN_LAST_TERM = 0.01
 """Warn when the last series term still changes the anomaly by more than this
 share of its range."""
 
+_WARN_LAST_TERM_FLOOR = 1e-3
+"""Changes of the last term below this (mGal) are never warned about."""
 
-def _anomaly_attrs(what: str) -> dict[str, str]:
-    return {"units": "mGal", "long_name": what}
-
-
-def _check_number(name: str, value: object) -> float:
-    try:
-        number = float(value)  # type: ignore[arg-type]
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be a number (m), got {value!r}") from exc
-    if not math.isfinite(number):
-        raise InputError(f"{name} must be finite, got {value!r}")
-    return number
+MAX_TERMS = 60
+"""The most series terms accepted (the factorials and powers stay in float range)."""
 
 
-def _check_terms(terms: object) -> int:
-    if isinstance(terms, bool) or not isinstance(terms, (int, np.integer)) or not 1 <= terms <= 60:
-        raise InputError(f"terms must be a whole number from 1 to 60, got {terms!r}")
-    return int(terms)
+def check_series_arguments(
+    terms: Any, edges: Any, observation_height: Any, pad_factor: Any
+) -> tuple[int, str, float, float]:
+    """The arguments shared by the Parker-series functions, checked.
+
+    Returns
+    -------
+    tuple
+        ``(terms, edges, observation_height (m), pad_factor)`` as plain Python values.
+
+    Raises
+    ------
+    InputError
+        ``terms`` not a whole number from 1 to :data:`MAX_TERMS`, ``edges`` not one
+        of :data:`GRAVITY_EDGES`, a non-finite height or a negative ``pad_factor``.
+    """
+    return (
+        check_integer("terms", terms, minimum=1, maximum=MAX_TERMS),
+        check_choice("edges", edges, GRAVITY_EDGES),
+        check_number("observation_height", observation_height, unit="m"),
+        check_number("pad_factor", pad_factor, minimum=0.0),
+    )
+
+
+def warn_if_not_converged(terms: int, last_term: float, spread: float, detail: str) -> None:
+    """Warn (:class:`GravitySeriesWarning`) when the last series term still matters.
+
+    Parameters
+    ----------
+    terms : int
+        Terms summed; a single term is never warned about.
+    last_term : float
+        Largest change the last term made to the anomaly (mGal).
+    spread : float
+        Range (max - min) of the anomaly (mGal).
+    detail : str
+        What else to say in the message (e.g. the convergence ratio).
+    """
+    if terms > 1 and last_term > max(_WARN_LAST_TERM * spread, _WARN_LAST_TERM_FLOOR):
+        warnings.warn(
+            f"gravity series not converged: the last of {terms} terms still changes the "
+            f"anomaly by {last_term:.3g} mGal ({detail}); use more terms or a higher "
+            "observation_height",
+            GravitySeriesWarning,
+            stacklevel=3,
+        )
 
 
 def _layer_factor(k: np.ndarray, thickness: float) -> np.ndarray:
@@ -475,19 +513,16 @@ def interface_gravity(
     4.1936
     """
     spec = check_grid(relief, "relief")
-    if edges not in GRAVITY_EDGES:
-        raise InputError(f"edges must be one of {GRAVITY_EDGES!r}, got {edges!r}")
-    if not (isinstance(pad_factor, (int, float)) and math.isfinite(pad_factor) and pad_factor >= 0):
-        raise InputError(f"pad_factor must be a finite number >= 0, got {pad_factor!r}")
-    depth = _check_number("depth", depth)
-    height = _check_number("observation_height", observation_height)
-    terms = _check_terms(terms)
+    terms, edges, height, pad_factor = check_series_arguments(
+        terms, edges, observation_height, pad_factor
+    )
+    depth = check_number("depth", depth, unit="m")
     if isinstance(density_contrast, xr.DataArray):
         check_grid(density_contrast, "density_contrast")
         check_same_grid(density_contrast, relief, "density_contrast")
         contrast: np.ndarray | float = np.asarray(density_contrast.values, dtype=np.float64)
     else:
-        contrast = _check_number("density_contrast", density_contrast)
+        contrast = check_number("density_contrast", density_contrast, unit="kg/m^3")
     values = np.asarray(relief.values, dtype=np.float64)
     anomaly, info = parker_series(
         values,
@@ -496,35 +531,32 @@ def interface_gravity(
         spec,
         terms,
         periodic=(edges == "periodic"),
-        pad_factor=float(pad_factor),
+        pad_factor=pad_factor,
     )
     spread = float(anomaly.max() - anomaly.min())
-    if terms > 1 and info["last_term"] > max(_WARN_LAST_TERM * spread, 1e-3):
-        warnings.warn(
-            f"gravity series not converged: term {terms} still changes the anomaly by "
-            f"{info['last_term']:.3g} mGal (range {spread:.3g} mGal, convergence ratio "
-            f"{info['series_ratio']:.2f}); use more terms or a higher observation_height",
-            GravitySeriesWarning,
-            stacklevel=2,
-        )
+    warn_if_not_converged(
+        terms,
+        info["last_term"],
+        spread,
+        f"range {spread:.3g} mGal, convergence ratio {info['series_ratio']:.2f}",
+    )
     log.debug(
         "interface gravity: %d terms, ratio %.3f, last term %.3g mGal",
         terms,
         info["series_ratio"],
         info["last_term"],
     )
-    attrs = _anomaly_attrs("gravity anomaly of a density interface (positive for mass excess)")
-    attrs.update(
-        {
-            "series_terms": terms,
-            "series_ratio": info["series_ratio"],
-            "series_last_term": info["last_term"],
-            "observation_height": height,
-            "reference_depth": depth,
-            "edges": edges,
-            "gravitational_constant": GRAVITATIONAL_CONSTANT,
-        }
-    )
+    attrs: dict[str, Any] = {
+        "units": "mGal",
+        "long_name": "gravity anomaly of a density interface (positive for mass excess)",
+        "series_terms": terms,
+        "series_ratio": info["series_ratio"],
+        "series_last_term": info["last_term"],
+        "observation_height": height,
+        "reference_depth": depth,
+        "edges": edges,
+        "gravitational_constant": GRAVITATIONAL_CONSTANT,
+    }
     return xr.DataArray(
         anomaly,
         dims=("y", "x"),

@@ -13,15 +13,10 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
 from gridflex.errors import InputError
 
-__all__ = ["GRAVITATIONAL_CONSTANT", "MGAL", "prism_gravity"]
-
-GRAVITATIONAL_CONSTANT = 6.67430e-11
-"""G (m^3 kg^-1 s^-2), CODATA 2018 value (from memory)."""
-
-MGAL = 1.0e-5
-"""One milligal in m s^-2."""
+__all__ = ["prism_gravity"]
 
 
 def _log_term(a: np.ndarray, r: np.ndarray) -> np.ndarray:

@@ -26,8 +26,8 @@ Definitions (w positive down, m):
 from __future__ import annotations
 
 import logging
-import math
 from dataclasses import dataclass, field
+from typing import cast
 
 import contourpy
 import numpy as np
@@ -36,6 +36,7 @@ from scipy import ndimage
 
 from gridflex.errors import InputError
 from gridflex.io.rasters import geometry_of
+from gridflex.validation import check_number
 
 __all__ = [
     "CREST_MIN_UPLIFT",
@@ -126,14 +127,8 @@ def _lines(x: np.ndarray, y: np.ndarray, z: np.ndarray, level: float) -> list[np
 
 
 def check_moat_depth(depth: object) -> float:
-    """*depth* as a float; InputError unless it is a positive, finite number (m)."""
-    try:
-        level = float(depth)  # type: ignore[arg-type]
-    except (TypeError, ValueError):
-        level = math.nan
-    if not (math.isfinite(level) and level > 0):
-        raise InputError(f"moat depth must be a positive number of metres, got {depth!r}")
-    return level
+    """*depth* as a float; InputError unless it is a finite number > 0 (m)."""
+    return check_number("moat depth", depth, unit="m", minimum=0.0, strict=True)
 
 
 def moat_outline(deflection: xr.DataArray, depth: float) -> list[Polygon]:
@@ -158,7 +153,12 @@ def moat_outline(deflection: xr.DataArray, depth: float) -> list[Polygon]:
         return []
     box = _bounding_box(w >= depth, margin=1)
     x, y, w = x[box[1]], y[box[0]], w[box]
-    points, offsets = _generator(x, y, w).filled(float(depth), float(top) + 1.0)
+    # a generator made with FillType.OuterOffset fills as (points, offsets) per polygon;
+    # contourpy's return type is the union over all fill types
+    points, offsets = cast(
+        tuple[list[np.ndarray], list[np.ndarray]],
+        _generator(x, y, w).filled(float(depth), float(top) + 1.0),
+    )
     polygons = []
     for pts, off in zip(points, offsets, strict=True):
         rings = [pts[off[i] : off[i + 1]] for i in range(len(off) - 1)]

@@ -8,6 +8,7 @@ import numpy as np
 import xarray as xr
 
 from gridflex.errors import InputError
+from gridflex.validation import check_integer
 
 __all__ = ["EARTH_RADIUS", "sample_profile"]
 
@@ -83,8 +84,7 @@ def sample_profile(
         dx = abs(float(xs_grid[1] - xs_grid[0]))
         dy = abs(float(ys_grid[1] - ys_grid[0]))
         samples = max(int(2 * max(abs(x1 - x0) / dx, abs(y1 - y0) / dy)) + 1, 2)
-    if samples < 2:
-        raise InputError(f"profile needs at least 2 samples, got {samples!r}")
+    samples = check_integer("samples", samples, minimum=2)
     if variables is None:
         variables = [str(n) for n, v in ds.data_vars.items() if v.dims == ("y", "x")]
     missing = [v for v in variables if v not in ds]

@@ -18,14 +18,15 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from gridflex._version import __version__
 from gridflex.engine import EDGES, check_edge_load, deflection_attrs
 from gridflex.errors import InputError
 from gridflex.grid import check_grid
-from gridflex.io.provenance import SIGN_CONVENTION
+from gridflex.io.provenance import provenance_attrs
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
+from gridflex.progress import Progress
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
+from gridflex.validation import check_choice, check_number
 
 __all__ = ["FORCE_PARAMETERS", "LOCAL_SCHEDULERS", "PLATE_PARAMETERS", "sweep"]
 
@@ -63,18 +64,21 @@ LoadLike = xr.DataArray | Callable[..., xr.DataArray]
 
 
 def _check_values(name: str, values: Any) -> np.ndarray:
-    try:
-        array = np.atleast_1d(np.asarray(values, dtype=np.float64))
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"sweep values of {name!r} must be numbers, got {values!r}") from exc
-    if array.ndim != 1 or array.size == 0 or not np.all(np.isfinite(array)):
-        raise InputError(f"sweep values of {name!r} must be a non-empty list of finite numbers")
+    """The swept values of *name* as a 1-D float array: finite numbers, none repeated."""
+    items = np.atleast_1d(np.asarray(values, dtype=object))
+    if items.ndim != 1 or items.size == 0:
+        raise InputError(
+            f"sweep values of {name!r} must be a non-empty list of finite numbers, got {values!r}"
+        )
+    array = np.array([check_number(f"sweep value of {name!r}", v) for v in items])
     if np.unique(array).size != array.size:
         raise InputError(f"sweep values of {name!r} repeat a value: {array.tolist()!r}")
     return array
 
 
-def _split(combo: Mapping[str, float]) -> tuple[dict, dict, dict]:
+def _split(
+    combo: Mapping[str, float],
+) -> tuple[dict[str, float], dict[str, float], dict[str, float]]:
     plate_kw = {k: v for k, v in combo.items() if k in PLATE_PARAMETERS}
     force_kw = {  # forces of every solve, replaced below by swept ones
         "inplane_force_x": combo.get("base_force_x", 0.0),
@@ -145,7 +149,7 @@ def _client_for(scheduler: Any) -> Any:
     )
 
 
-def _run(tasks: list, scheduler: Any, progress: Callable[..., Any] | None) -> list:
+def _run(tasks: list[Any], scheduler: Any, progress: Progress | None) -> list[Any]:
     import dask
     from dask.callbacks import Callback
 
@@ -168,7 +172,9 @@ def _run(tasks: list, scheduler: Any, progress: Callable[..., Any] | None) -> li
     class _Count(Callback):
         done = 0
 
-        def _posttask(self, key, result, dsk, state, worker_id):  # noqa: ARG002
+        def _posttask(  # noqa: ARG002
+            self, key: Any, result: Any, dsk: Any, state: Any, worker_id: Any
+        ) -> None:
             if key in keys:
                 _Count.done += 1
                 if progress is not None:
@@ -176,6 +182,58 @@ def _run(tasks: list, scheduler: Any, progress: Callable[..., Any] | None) -> li
 
     with _Count():
         return list(dask.compute(*tasks, scheduler=scheduler or "threads"))
+
+
+def _check_parameters(
+    load: Any, plate: Any, parameters: Any
+) -> tuple[list[str], dict[str, np.ndarray]]:
+    """The swept names, in order, and their checked values."""
+    if not isinstance(plate, Plate):
+        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
+    if not isinstance(parameters, Mapping) or not parameters:
+        raise InputError(
+            f"parameters must be a non-empty mapping of name to values, got {parameters!r}"
+        )
+    load_is_grid = isinstance(load, xr.DataArray)
+    if not load_is_grid and not callable(load):
+        raise InputError(f"load must be a DataArray or a callable, got {type(load).__name__}")
+    known = PLATE_PARAMETERS + FORCE_PARAMETERS
+    for name in parameters:
+        if load_is_grid and name not in known:
+            raise InputError(
+                f"cannot sweep {name!r}: allowed are {', '.join(known)} "
+                "(other names need a load function)"
+            )
+    if "inplane_force" in parameters and (
+        "inplane_force_x" in parameters or "inplane_force_y" in parameters
+    ):
+        raise InputError(
+            "sweep either 'inplane_force' or 'inplane_force_x'/'inplane_force_y', not both"
+        )
+    names = list(parameters)
+    if plate.is_variable and "te" not in names:
+        raise InputError("sweeps need a constant te: the plate has a te grid and te is not swept")
+    return names, {name: _check_values(name, parameters[name]) for name in names}
+
+
+def _sweep_attrs(
+    plate: Plate, names: list[str], edges: str, pad_factor: float, forces: tuple[float, float]
+) -> dict[str, Any]:
+    """Global attributes: the provenance stamp, the sweep, and the base plate's unswept values."""
+    derived = ("rigidity", "flexural_parameter") if set(names) & set(PLATE_PARAMETERS) else ()
+    plate_parameters = {
+        k: v for k, v in plate.describe().items() if k not in names and k not in derived
+    }
+    attrs: dict[str, Any] = {
+        "swept_parameters": " ".join(names),
+        "edges": edges,
+        "pad_factor": float(pad_factor),
+    }
+    if not set(names) & set(FORCE_PARAMETERS):
+        attrs.update({"inplane_force_x": forces[0], "inplane_force_y": forces[1]})
+    return provenance_attrs(
+        plate_parameters, attrs, title="thin elastic plate flexure, parameter sweep"
+    )
 
 
 def sweep(
@@ -188,7 +246,7 @@ def sweep(
     pad_factor: float = DEFAULT_PAD_FACTOR,
     inplane_force_x: float = 0.0,
     inplane_force_y: float = 0.0,
-    progress: Callable[..., Any] | None = None,
+    progress: Progress | None = None,
 ) -> xr.Dataset:
     """Solve the flexure for every combination of swept parameter values.
 
@@ -233,42 +291,15 @@ def sweep(
     """
     import dask
 
-    if not isinstance(plate, Plate):
-        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
-    if not isinstance(parameters, Mapping) or not parameters:
-        raise InputError(
-            f"parameters must be a non-empty mapping of name to values, got {parameters!r}"
-        )
-    load_is_grid = isinstance(load, xr.DataArray)
-    if not load_is_grid and not callable(load):
-        raise InputError(f"load must be a DataArray or a callable, got {type(load).__name__}")
-    known = PLATE_PARAMETERS + FORCE_PARAMETERS
-    for name in parameters:
-        if load_is_grid and name not in known:
-            raise InputError(
-                f"cannot sweep {name!r}: allowed are {', '.join(known)} "
-                "(other names need a load function)"
-            )
-    if "inplane_force" in parameters and (
-        "inplane_force_x" in parameters or "inplane_force_y" in parameters
-    ):
-        raise InputError(
-            "sweep either 'inplane_force' or 'inplane_force_x'/'inplane_force_y', not both"
-        )
-    names = list(parameters)
-    if plate.is_variable and "te" not in names:
-        raise InputError("sweeps need a constant te: the plate has a te grid and te is not swept")
-    values = {name: _check_values(name, parameters[name]) for name in names}
+    names, values = _check_parameters(load, plate, parameters)
     shape = tuple(values[name].size for name in names)
     combos = [
         dict(zip(names, map(float, c), strict=True)) for c in itertools.product(*values.values())
     ]
     for combo in combos:  # fail early, on the client, for an invalid plate
         _plate_for(plate, _split(combo)[0])
-
-    if edges not in EDGES:
-        raise InputError(f"edges must be one of {', '.join(map(repr, EDGES))}; got {edges!r}")
-    template = load if load_is_grid else load(**_split(combos[0])[2])
+    edges = check_choice("edges", edges, EDGES)
+    template = load if isinstance(load, xr.DataArray) else load(**_split(combos[0])[2])
     spec = check_grid(template)
     if edges == "infinite":
         grid_values = np.asarray(template.values, dtype=np.float64)
@@ -277,9 +308,10 @@ def sweep(
         2.0 * 8.0 * math.prod(shape) * spec.ny * spec.nx,
         f"sweep result of {math.prod(shape)} grids of {spec.ny} x {spec.nx}",
     )
-    shared = dask.delayed(load, pure=True) if load_is_grid else load
+    shared = dask.delayed(load, pure=True) if isinstance(load, xr.DataArray) else load
     one = dask.delayed(_solve_one, pure=True)
-    base = {"base_force_x": float(inplane_force_x), "base_force_y": float(inplane_force_y)}
+    forces = (float(inplane_force_x), float(inplane_force_y))
+    base = {"base_force_x": forces[0], "base_force_y": forces[1]}
     tasks = [one(shared, plate, {**base, **combo}, edges, pad_factor) for combo in combos]
     log.info("sweep: %d solves of %s over %s", len(tasks), spec.shape, names)
     results = _run(tasks, scheduler, progress)
@@ -291,31 +323,11 @@ def sweep(
         for name in names
     }
     coords.update({"y": template["y"].variable, "x": template["x"].variable})
-    derived = ("rigidity", "flexural_parameter") if set(names) & set(PLATE_PARAMETERS) else ()
-    plate_attrs = {
-        f"plate_{k}": v for k, v in plate.describe().items() if k not in names and k not in derived
-    }
-    attrs = {
-        "Conventions": "CF-1.8",
-        "title": "thin elastic plate flexure, parameter sweep",
-        "source": f"gridflex {__version__}",
-        "gridflex_version": __version__,
-        "sign_convention": SIGN_CONVENTION,
-        "swept_parameters": " ".join(names),
-        "edges": edges,
-        "pad_factor": float(pad_factor),
-        **{
-            f"inplane_force_{axis}": force
-            for axis, force in (("x", float(inplane_force_x)), ("y", float(inplane_force_y)))
-            if not set(names) & set(FORCE_PARAMETERS)
-        },
-        **plate_attrs,
-    }
     return xr.Dataset(
         {
             "deflection": ((*names, "y", "x"), deflection, deflection_attrs()),
             "force_balance_residual": (tuple(names), balance, {"units": "1"}),
         },
         coords=coords,
-        attrs=attrs,
+        attrs=_sweep_attrs(plate, names, edges, pad_factor, forces),
     )

@@ -11,6 +11,7 @@ import xarray as xr
 from numpy.testing import assert_allclose
 
 import gridflex
+from gridflex.constants import DEFAULT_GRAVITY, GRAVITATIONAL_CONSTANT, MGAL
 from gridflex.errors import InputError
 from gridflex.estimation.admittance import (
     bouguer_admittance,
@@ -19,7 +20,7 @@ from gridflex.estimation.admittance import (
     fit_te_spectral,
     free_air_admittance,
 )
-from gridflex.gravity.first_order import GRAVITATIONAL_CONSTANT, CrustLayers
+from gridflex.gravity.first_order import CrustLayers
 
 N, DX = 256, 8e3
 TE = 20e3
@@ -53,7 +54,7 @@ def compensated():
         np.exp(-k * DEPTH) * scipy.fft.rfft2((RHO_C - RHO_W) * h)
         - np.exp(-k * (DEPTH + T_C)) * scipy.fft.rfft2((RHO_M - RHO_C) * w)
     )
-    anomaly = scipy.fft.irfft2(a, s=(N, N)) / 1e-5
+    anomaly = scipy.fft.irfft2(a, s=(N, N)) / MGAL
     return _grid(h), _grid(anomaly), plate, CrustLayers(DEPTH, T_C, RHO_C)
 
 
@@ -99,7 +100,7 @@ def test_free_air_admittance_limits():
     # PHYSICS.md 6.3: Z_FA(0) = 0 (full compensation); Z -> 2 pi G drho e^{-kd} for large k
     assert z[0] == 0.0
     uncompensated = (
-        2 * math.pi * GRAVITATIONAL_CONSTANT * (RHO_C - RHO_W) * math.exp(-1e-2 * DEPTH) / 1e-5
+        2 * math.pi * GRAVITATIONAL_CONSTANT * (RHO_C - RHO_W) * math.exp(-1e-2 * DEPTH) / MGAL
     )
     assert_allclose(z[1], uncompensated, rtol=1e-12)
     # slab factor: 41.94 mGal per km per 1000 kg/m3 (PHYSICS.md 6.1, 4 digits given)
@@ -113,8 +114,8 @@ def test_forsyth_limits():
     # Forsyth 1985, PHYSICS.md 8.2: f = 0 -> gamma^2 = 1 and Z_B = -2 pi G rho_c e^{-kz}/xi
     assert_allclose(bouguer_coherence(k, plate, 2800.0, 0.0), 1.0, rtol=1e-12)
     d = plate.rigidity
-    xi = 1 + d * k**4 / ((3300.0 - 2800.0) * 9.81)
-    expected = -2 * math.pi * GRAVITATIONAL_CONSTANT * 2800.0 * np.exp(-k * 35e3) / xi / 1e-5
+    xi = 1 + d * k**4 / ((3300.0 - 2800.0) * DEFAULT_GRAVITY)
+    expected = -2 * math.pi * GRAVITATIONAL_CONSTANT * 2800.0 * np.exp(-k * 35e3) / xi / MGAL
     assert_allclose(bouguer_admittance(k, plate, 2800.0, 0.0, 35e3), expected, rtol=1e-12)
     # k -> 0: gamma^2 -> 1; k -> infinity: gamma^2 -> 0 for 0 < f < infinity
     g = bouguer_coherence(k, plate, 2800.0, 1.0)
@@ -185,7 +186,7 @@ def test_forsyth_curves_from_the_two_load_model():
     hh = var_t / (1 + a) ** 2 + b**2 * var_b / (1 + b) ** 2
     ww = a**2 * var_t / (1 + a) ** 2 + var_b / (1 + b) ** 2
     assert_allclose(bouguer_coherence(k, plate, rho_c, f), hw**2 / (hh * ww), rtol=1e-12)
-    bouguer_per_moho = 2 * math.pi * GRAVITATIONAL_CONSTANT * drho * np.exp(-k * z_m) / 1e-5
+    bouguer_per_moho = 2 * math.pi * GRAVITATIONAL_CONSTANT * drho * np.exp(-k * z_m) / MGAL
     assert_allclose(
         bouguer_admittance(k, plate, rho_c, f, z_m), bouguer_per_moho * hw / hh, rtol=1e-12
     )

@@ -11,9 +11,10 @@ import xarray as xr
 from numpy.testing import assert_allclose
 
 import gridflex
+from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
 from gridflex.errors import InputError
 from gridflex.estimation.misfit import OpenIntervalWarning, fit_te
-from gridflex.gravity.first_order import GRAVITATIONAL_CONSTANT, CrustLayers, compensation_factor
+from gridflex.gravity.first_order import CrustLayers, compensation_factor
 
 TRUE_TE = 23.4e3
 N, DX = 96, 6e3
@@ -125,7 +126,7 @@ def _linear_free_air(load, w, plate, layers):
     spec = top * mass - (layers.crust_density - plate.infill_density) * top * wk
     spec -= (plate.mantle_density - layers.crust_density) * moho * wk
     field = scipy.fft.irfft2(2 * np.pi * GRAVITATIONAL_CONSTANT * spec, s=shape)
-    return _grid(field[:ny, :nx] / 1e-5)
+    return _grid(field[:ny, :nx] / MGAL)
 
 
 def test_free_air_anomaly_recovers_te(synthetic):

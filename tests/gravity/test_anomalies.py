@@ -18,9 +18,9 @@ from gridflex import (
     solve,
     solve_with_infill,
 )
-from gridflex.gravity.prisms import GRAVITATIONAL_CONSTANT, MGAL
+from gridflex.constants import DEFAULT_GRAVITY, GRAVITATIONAL_CONSTANT, MGAL
 
-G = 9.81
+G = DEFAULT_GRAVITY
 TWO_PI_G = 2.0 * math.pi * GRAVITATIONAL_CONSTANT / MGAL
 RHO_W, RHO_C, RHO_M, T_C = 1030.0, 2800.0, 3300.0, 6000.0
 

@@ -8,7 +8,8 @@ import xarray as xr
 from numpy.testing import assert_allclose
 
 from gridflex import GravitySeriesWarning, InputError, interface_gravity
-from gridflex.gravity.prisms import GRAVITATIONAL_CONSTANT, MGAL, prism_gravity
+from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
+from gridflex.gravity.prisms import prism_gravity
 
 SLAB = 2.0 * math.pi * GRAVITATIONAL_CONSTANT / MGAL  # mGal per m per kg/m^3
 
@@ -173,10 +174,12 @@ def test_errors_and_warning():
         interface_gravity(h, 1000.0, 2000.0)
     with pytest.raises(InputError, match="terms must be"):
         interface_gravity(h, 1000.0, 5000.0, terms=0)
-    with pytest.raises(InputError, match="depth must be finite"):
+    with pytest.raises(InputError, match="depth must be a finite number"):
         interface_gravity(h, 1000.0, math.nan)
     with pytest.raises(InputError, match="edges must be"):
         interface_gravity(h, 1000.0, 5000.0, edges="mirror")
+    with pytest.raises(InputError, match=r"pad_factor must be a finite number >= 0, got -1\.0"):
+        interface_gravity(h, 1000.0, 5000.0, pad_factor=-1.0)
     with pytest.raises(InputError, match="relief must have dims"):
         interface_gravity(h.T, 1000.0, 5000.0)
     # a relief reaching close to the plane with 2 terms is not converged: warned

@@ -5,7 +5,8 @@ import pytest
 from numpy.testing import assert_allclose
 
 from gridflex import InputError
-from gridflex.gravity.prisms import GRAVITATIONAL_CONSTANT, MGAL, prism_gravity
+from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
+from gridflex.gravity.prisms import prism_gravity
 
 
 def test_reference_values():

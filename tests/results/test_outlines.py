@@ -170,7 +170,7 @@ def test_bad_outline_requests(point_load, tmp_path):
     result = point_load[0]
     with pytest.raises(InputError, match="cannot be placed in longitude/latitude"):
         outline_features(result, None, 1e-3)
-    with pytest.raises(InputError, match="moat depth must be a positive number"):
+    with pytest.raises(InputError, match="moat depth must be a finite number > 0"):
         moat_outline(result["deflection"], -1.0)
     with pytest.raises(InputError, match="result has no variable 'load'"):
         outline_features(result[["deflection"]], LOCAL, 1e-3)

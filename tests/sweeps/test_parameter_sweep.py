@@ -8,6 +8,7 @@ import xarray as xr
 from numpy.testing import assert_allclose
 
 import gridflex
+from gridflex.constants import DEFAULT_GRAVITY
 from gridflex.errors import InputError
 from gridflex.sweeps.parameter_sweep import sweep
 
@@ -19,7 +20,9 @@ def _load(load_density: float = 1770.0) -> xr.DataArray:
     x = (np.arange(N) - N / 2) * DX
     xx, yy = np.meshgrid(x, x)
     height = 2000.0 * np.exp(-(xx**2 + yy**2) / (2 * 25e3**2))
-    return xr.DataArray(load_density * 9.81 * height, dims=("y", "x"), coords={"y": x, "x": x})
+    return xr.DataArray(
+        load_density * DEFAULT_GRAVITY * height, dims=("y", "x"), coords={"y": x, "x": x}
+    )
 
 
 PLATE = gridflex.Plate(te=10e3)
