@@ -27,6 +27,7 @@ __all__ = [
 
 Density = float | xr.DataArray
 Surface = float | xr.DataArray
+LOAD_KINDS = ("thickness", "stress", "elevation")  # a layer in m, in Pa, or a surface in m
 _LOAD_ATTRS = {"units": "Pa", "long_name": "vertical stress of the load (positive downward)"}
 
 

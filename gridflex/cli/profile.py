@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from gridflex.cli.common import add_common_options, add_overwrite_option
+from gridflex.cli.common import SubParsers, add_common_options, add_overwrite_option, wrote
 from gridflex.io.netcdf import read_result
 from gridflex.io.plots import plot_profile
 from gridflex.io.tables import write_csv
@@ -14,7 +14,7 @@ NAME = "profile"
 HELP = "sample a result grid along a straight line and write a CSV (and a plot)"
 
 
-def add_parser(subparsers: argparse._SubParsersAction) -> None:
+def add_parser(subparsers: SubParsers) -> None:
     parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
     parser.add_argument("result", help="result NetCDF written by 'gridflex run'")
     parser.add_argument(
@@ -49,6 +49,5 @@ def execute(args: argparse.Namespace) -> int:
     if args.plot:
         written.append(plot_profile(profile, args.plot, args.overwrite, inputs))
     if not args.quiet:
-        for path in written:
-            print(f"wrote {path}")
+        print("\n".join(wrote(written)))
     return 0

@@ -4,27 +4,27 @@ from __future__ import annotations
 
 import argparse
 
-from gridflex.cli.common import add_common_options, add_scenario_argument, progress_printer
+from gridflex.cli.common import (
+    SubParsers,
+    add_scenario_command,
+    execute_scenario_command,
+    wrote,
+)
 from gridflex.results.summary import format_summary
-from gridflex.scenario.schema import load_scenario
-from gridflex.workflows.run import run_scenario
+from gridflex.scenario.tables import load_scenario
+from gridflex.workflows.run import RunOutcome, run_scenario
 
 NAME = "run"
 HELP = "solve a scenario file and write its NetCDF and map"
 
 
-def add_parser(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
-    add_scenario_argument(parser, "scenario file (TOML)")
-    add_common_options(parser)
+def add_parser(subparsers: SubParsers) -> None:
+    add_scenario_command(subparsers, NAME, HELP, "scenario file (TOML)")
+
+
+def _report(outcome: RunOutcome) -> list[str]:
+    return [format_summary(outcome.summary), *wrote(outcome.written)]
 
 
 def execute(args: argparse.Namespace) -> int:
-    outcome = run_scenario(
-        load_scenario(args.scenario), overwrite=args.overwrite, progress=progress_printer(args)
-    )
-    if not args.quiet:
-        print(format_summary(outcome.summary))
-        for path in outcome.written:
-            print(f"wrote {path}")
-    return 0
+    return execute_scenario_command(args, load_scenario, run_scenario, _report)

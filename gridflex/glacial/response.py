@@ -29,7 +29,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from gridflex.engine import check_edge_load, deflection_attrs
+from gridflex.engine import SPECTRAL_EDGES, check_edge_load, deflection_attrs
 from gridflex.errors import GridflexWarning, InputError
 from gridflex.grid import GridSpec, check_grid, check_same_grid
 from gridflex.io.provenance import provenance_attrs
@@ -214,7 +214,7 @@ class ResponseStepper:
         self.relaxation_time = _positive("relaxation_time", relaxation_time, "years")
         self.initial = _choice("initial", initial, INITIAL_STATES)
         self.interpolation = _choice("interpolation", interpolation, INTERPOLATIONS)
-        self.edges = _choice("edges", edges, ("infinite", "periodic"))
+        self.edges = _choice("edges", edges, SPECTRAL_EDGES)
         self._engine = SpectralRelaxation.build(
             self._spec,
             rigidity,

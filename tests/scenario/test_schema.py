@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from gridflex import InputError
-from gridflex.scenario.schema import SCHEMA, load_scenario
+from gridflex.scenario.tables import SCHEMA, load_scenario
 from tests.helpers import REPO_ROOT
 
 GOOD = """

@@ -17,7 +17,7 @@ from gridflex import (
     solve_with_infill,
 )
 from gridflex.errors import NodataWarning
-from gridflex.scenario.schema import load_scenario
+from gridflex.scenario.tables import load_scenario
 from gridflex.workflows.run import run_scenario
 from tests.helpers import make_grid
 
