@@ -7,13 +7,15 @@ import logging
 import sys
 import warnings
 from collections.abc import Callable, Iterable
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, TextIO, TypeVar
+from typing import Any, Generic, TextIO, TypeVar
 
 from gridflex.errors import GridflexWarning
 from gridflex.progress import Progress
 
 __all__ = [
+    "ScenarioCommand",
     "SubParsers",
     "add_common_options",
     "add_overwrite_option",
@@ -92,6 +94,43 @@ def execute_scenario_command(
         for line in report(outcome):
             print(line)
     return 0
+
+
+@dataclass(frozen=True)
+class ScenarioCommand(Generic[Outcome]):
+    """A command that reads one scenario file, calls one library function, reports.
+
+    A command module binds ``add_parser`` and ``execute`` to one of these (see
+    :data:`gridflex.cli.main.COMMANDS`).
+
+    Parameters
+    ----------
+    name, help : str
+        The sub-command and its one-line description.
+    scenario_help : str
+        Help of the SCENARIO argument.
+    load : callable
+        Reads and validates the scenario file (path -> scenario).
+    call : callable
+        ``call(scenario, overwrite, progress)``: the command's library function.
+    report : callable
+        The lines to print about the outcome (see :func:`wrote`).
+    """
+
+    name: str
+    help: str
+    scenario_help: str
+    load: Callable[[str], Any]
+    call: Callable[[Any, bool, Progress | None], Outcome]
+    report: Callable[[Outcome], Iterable[str]]
+
+    def add_parser(self, subparsers: SubParsers) -> argparse.ArgumentParser:
+        """Declare the sub-command: SCENARIO, --overwrite, -q and -v."""
+        return add_scenario_command(subparsers, self.name, self.help, self.scenario_help)
+
+    def execute(self, args: argparse.Namespace) -> int:
+        """Run the command on parsed arguments; the exit status (0)."""
+        return execute_scenario_command(args, self.load, self.call, self.report)
 
 
 def wrote(paths: Iterable[str | Path]) -> list[str]:

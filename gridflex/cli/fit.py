@@ -2,23 +2,12 @@
 
 from __future__ import annotations
 
-import argparse
-
-from gridflex.cli.common import (
-    SubParsers,
-    add_scenario_command,
-    execute_scenario_command,
-    wrote,
-)
+from gridflex.cli.common import ScenarioCommand, wrote
 from gridflex.scenario.tables import load_scenario
 from gridflex.workflows.fit import FitOutcome, fit_scenario
 
 NAME = "fit"
 HELP = "estimate te from an observed grid: misfit plot, JSON summary, best model"
-
-
-def add_parser(subparsers: SubParsers) -> None:
-    add_scenario_command(subparsers, NAME, HELP, "scenario file (TOML) with a [fit] table")
 
 
 def _report(outcome: FitOutcome) -> list[str]:
@@ -37,5 +26,8 @@ def _report(outcome: FitOutcome) -> list[str]:
     return [*lines, *wrote(outcome.written)]
 
 
-def execute(args: argparse.Namespace) -> int:
-    return execute_scenario_command(args, load_scenario, fit_scenario, _report)
+COMMAND = ScenarioCommand(
+    NAME, HELP, "scenario file (TOML) with a [fit] table", load_scenario, fit_scenario, _report
+)
+add_parser = COMMAND.add_parser
+execute = COMMAND.execute

@@ -2,14 +2,7 @@
 
 from __future__ import annotations
 
-import argparse
-
-from gridflex.cli.common import (
-    SubParsers,
-    add_scenario_command,
-    execute_scenario_command,
-    wrote,
-)
+from gridflex.cli.common import ScenarioCommand, wrote
 from gridflex.results.summary import format_summary
 from gridflex.scenario.tables import load_scenario
 from gridflex.workflows.run import RunOutcome, run_scenario
@@ -18,13 +11,10 @@ NAME = "run"
 HELP = "solve a scenario file and write its NetCDF and map"
 
 
-def add_parser(subparsers: SubParsers) -> None:
-    add_scenario_command(subparsers, NAME, HELP, "scenario file (TOML)")
-
-
 def _report(outcome: RunOutcome) -> list[str]:
     return [format_summary(outcome.summary), *wrote(outcome.written)]
 
 
-def execute(args: argparse.Namespace) -> int:
-    return execute_scenario_command(args, load_scenario, run_scenario, _report)
+COMMAND = ScenarioCommand(NAME, HELP, "scenario file (TOML)", load_scenario, run_scenario, _report)
+add_parser = COMMAND.add_parser
+execute = COMMAND.execute

@@ -6,12 +6,7 @@ import argparse
 from functools import partial
 from pathlib import Path
 
-from gridflex.cli.common import (
-    SubParsers,
-    add_scenario_command,
-    execute_scenario_command,
-    wrote,
-)
+from gridflex.cli.common import SubParsers, add_scenario_command, execute_scenario_command, wrote
 from gridflex.scenario.tables import FlexureScenario, load_scenario
 from gridflex.workflows.sweep import sweep_scenario
 
@@ -45,6 +40,5 @@ def _report(path: Path) -> list[str]:
 
 
 def execute(args: argparse.Namespace) -> int:
-    return execute_scenario_command(
-        args, partial(_load, scheduler=args.scheduler), sweep_scenario, _report
-    )
+    load = partial(_load, scheduler=args.scheduler)
+    return execute_scenario_command(args, load, sweep_scenario, _report)

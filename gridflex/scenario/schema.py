@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import tomllib
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Generic, Literal, TypeVar, overload
 
@@ -99,10 +99,12 @@ class Scenario(Generic[TablesT]):
 
     path: Path
     text: str
-    tables: TablesT = field(default_factory=dict)  # type: ignore[assignment]  # dict fits the bound
+    tables: TablesT
 
-    # The ``gridflex run`` tables, typed (see gridflex.scenario.tables); any other
-    # table name (basin and history scenarios) falls through to the last overload.
+    # The ``gridflex run`` tables, typed (see gridflex.scenario.tables; a test keeps
+    # these overloads equal to FlexureTables). A plain ``Scenario`` annotation is taken
+    # as a run scenario; a ``Scenario[dict[str, Any]]`` (basin, history) and any other
+    # table name fall through to the last overload.
     @overload
     def table(self: Scenario[FlexureTables], name: Literal["plate"]) -> PlateTable: ...
     @overload

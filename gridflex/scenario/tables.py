@@ -522,9 +522,9 @@ class FlexureTables(TypedDict):
     """All tables of a ``gridflex run`` scenario (``None``: the table is absent)."""
 
     plate: PlateTable
+    solver: SolverTable
     margin: MarginTable | None
     breaks: list[BreakTable]
-    solver: SolverTable
     grid: GridTable | None
     working_grid: WorkingGridTable
     loads: list[LoadTable]
@@ -564,17 +564,20 @@ def load_scenario(
     ----------
     path : str or pathlib.Path
         The scenario file; relative paths inside it are taken from its folder.
-    parser : callable, default :func:`parse_scenario`
-        Validator for the kind of scenario (e.g. the history scenario's).
+    parser : callable, optional
+        Validator of another kind of scenario (e.g. the history scenario's); by
+        default :func:`parse_scenario`, the ``gridflex run`` tables.
 
     Returns
     -------
     Scenario
+        A :data:`FlexureScenario` unless *parser* makes another kind.
 
     Raises
     ------
     InputError
-        Missing or unreadable file, malformed TOML, unknown table or key, a value of
-        the wrong type, unit or range; the message names file, table and key.
+        Missing or malformed file (see :func:`~gridflex.scenario.schema.read_scenario`),
+        unknown table or key, a value of the wrong type, unit or range, keys that do
+        not go together; the message names file, table and key.
     """
     return read_scenario(path, parser)

@@ -48,7 +48,7 @@ _LITHOLOGY_KEYS: dict[str, Key] = {
 """Keys shared by ``[[stages]]`` and ``[[backstrip_layers]]`` (one declaration)."""
 
 
-__all__ = ["BASIN_SCHEMA", "load_basin_scenario", "parse_basin_scenario"]
+__all__ = ["BASIN_SCHEMA", "LITHOLOGY_NAMES", "load_basin_scenario", "parse_basin_scenario"]
 
 
 BASIN_SCHEMA: dict[str, dict[str, Key]] = {
