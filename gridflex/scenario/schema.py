@@ -10,6 +10,7 @@ belong to each kind of scenario (see :mod:`gridflex.scenario.checks`).
 
 from __future__ import annotations
 
+import math
 import tomllib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -18,6 +19,7 @@ from typing import TYPE_CHECKING, Any, Generic, Literal, TypeVar, overload
 
 from gridflex.errors import InputError
 from gridflex.units import parse_quantity
+from gridflex.validation import check_choice, check_flag, check_integer, check_number
 
 if TYPE_CHECKING:
     from gridflex.scenario.tables import (
@@ -159,34 +161,29 @@ _Checker = Callable[[Any, Key, str, Path], Any]
 
 
 def _check_number(value: Any, key: Key, where: str, base: Path) -> Any:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(f"{where}: expected a number, got {value!r}")
-    return float(value)
+    return check_number(where, value, minimum=key.minimum)
 
 
 def _check_integer(value: Any, key: Key, where: str, base: Path) -> Any:
-    if isinstance(value, bool) or not isinstance(value, int):
-        raise InputError(f"{where}: expected a whole number, got {value!r}")
-    return value
+    minimum = None if key.minimum is None else math.ceil(key.minimum)
+    return check_integer(where, value, minimum=minimum)
 
 
 def _check_quantity(value: Any, key: Key, where: str, base: Path) -> Any:
-    return parse_quantity(value, key.dimension, where)
+    number = parse_quantity(value, key.dimension, where)
+    if key.minimum is not None and number < key.minimum:  # the value as written, not in SI
+        raise InputError(f"{where} must be >= {key.minimum:g}, got {value!r}")
+    return number
 
 
 def _check_string(value: Any, key: Key, where: str, base: Path) -> Any:
     if not isinstance(value, str) or not value:
-        raise InputError(f"{where}: expected a non-empty string, got {value!r}")
+        raise InputError(f"{where} must be a non-empty string, got {value!r}")
     return value
 
 
 def _check_choice(value: Any, key: Key, where: str, base: Path) -> Any:
-    if value not in key.choices:
-        raise InputError(
-            f"{where}: {value!r} is not allowed; use one of "
-            + ", ".join(repr(c) for c in key.choices)
-        )
-    return value
+    return check_choice(where, value, key.choices)
 
 
 def _check_path(value: Any, key: Key, where: str, base: Path) -> Any:
@@ -196,14 +193,12 @@ def _check_path(value: Any, key: Key, where: str, base: Path) -> Any:
 
 
 def _check_bool(value: Any, key: Key, where: str, base: Path) -> Any:
-    if not isinstance(value, bool):
-        raise InputError(f"{where}: expected true or false, got {value!r}")
-    return value
+    return check_flag(where, value)
 
 
 def _check_list(value: Any, key: Key, where: str, base: Path) -> Any:
     if not isinstance(value, list):
-        raise InputError(f"{where}: expected a list, got {value!r}")
+        raise InputError(f"{where} must be a list, got {value!r}")
     return value
 
 
@@ -217,14 +212,6 @@ _CHECKERS: dict[str, _Checker] = {
     "bool": _check_bool,
     "list": _check_list,
 }
-
-
-def _parse_value(value: Any, key: Key, where: str, base: Path) -> Any:
-    """One key's value, checked by its kind and its minimum; *where* names it."""
-    parsed = _CHECKERS[key.kind](value, key, where, base)
-    if key.minimum is not None and isinstance(parsed, (int, float)) and parsed < key.minimum:
-        raise InputError(f"{where}: must be >= {key.minimum:g}, got {value!r}")
-    return parsed
 
 
 def _parse_table(values: Any, spec: dict[str, Key], where: str, base: Path) -> dict[str, Any]:
@@ -242,7 +229,7 @@ def _parse_table(values: Any, spec: dict[str, Key], where: str, base: Path) -> d
                 raise InputError(f"{where} {name}: required key is missing ({key.help})")
             out[name] = key.default
             continue
-        out[name] = _parse_value(values[name], key, f"{where} {name}", base)
+        out[name] = _CHECKERS[key.kind](values[name], key, f"{where} {name}", base)
     return out
 
 

@@ -112,7 +112,7 @@ variable = "mask"
         ),
         (
             '[plate]\nelastic_thickness = "10 km"\n[solver]\nedges = "hinged"\n',
-            r"'hinged' is not allowed",
+            r"\[solver\] edges must be one of .*; got 'hinged'",
         ),
     ],
 )
