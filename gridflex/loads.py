@@ -32,6 +32,7 @@ __all__ = [
 Density = float | xr.DataArray
 LayerSpec = tuple[xr.DataArray, Density]
 Surface = float | xr.DataArray
+LOAD_KINDS = ("thickness", "stress", "elevation")  # a layer in m, in Pa, or a surface in m
 
 
 def load_attrs() -> dict[str, str]:

@@ -22,6 +22,8 @@ __all__ = [
     "island_chain_height",
 ]
 
+SHAPES = ("island-chain", "disc", "gaussian")  # island_chain_height, disc_height, gaussian_height
+
 ISLAND_CHAIN = (
     # (x km, y km, height above the sea floor m, basal radius km)
     (-150.0, 110.0, 5200.0, 42.0),

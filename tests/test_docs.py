@@ -8,7 +8,7 @@ import sys
 
 import numpy as np
 
-from gridflex.scenario.schema import SCHEMA
+from gridflex.scenario.tables import SCHEMA
 from tests.helpers import REPO_ROOT
 
 REPO = REPO_ROOT

@@ -2,31 +2,27 @@
 
 from __future__ import annotations
 
-import argparse
-
-from gridflex.cli.common import add_common_options, add_scenario_argument, progress_printer
+from gridflex.cli.common import ScenarioCommand, wrote
 from gridflex.workflows.basin import run_basin
 from gridflex.workflows.basin_tables import load_basin_scenario
+from gridflex.workflows.run import RunOutcome
 
 NAME = "basin"
 HELP = "fill a basin stage by stage with compaction, or backstrip it, and write the NetCDF"
 
 
-def add_parser(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
-    add_scenario_argument(parser, "basin scenario file (TOML, [basin] or [backstrip])")
-    add_common_options(parser)
+def _report(outcome: RunOutcome) -> list[str]:
+    values = [f"{key.replace('_', ' ')}: {value:.6g}" for key, value in outcome.summary.items()]
+    return [*values, *wrote(outcome.written)]
 
 
-def execute(args: argparse.Namespace) -> int:
-    outcome = run_basin(
-        load_basin_scenario(args.scenario),
-        overwrite=args.overwrite,
-        progress=progress_printer(args),
-    )
-    if not args.quiet:
-        for key, value in outcome.summary.items():
-            print(f"{key.replace('_', ' ')}: {value:.6g}")
-        for path in outcome.written:
-            print(f"wrote {path}")
-    return 0
+COMMAND = ScenarioCommand(
+    NAME,
+    HELP,
+    "basin scenario file (TOML, [basin] or [backstrip])",
+    load_basin_scenario,
+    run_basin,
+    _report,
+)
+add_parser = COMMAND.add_parser
+execute = COMMAND.execute

@@ -1,4 +1,4 @@
-"""What every command shares: logging levels, progress on stderr, error reporting."""
+"""What every command shares: arguments, logging levels, progress on stderr, reporting."""
 
 from __future__ import annotations
 
@@ -6,17 +6,30 @@ import argparse
 import logging
 import sys
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Generic, TextIO, TypeVar
 
 from gridflex.errors import GridflexWarning
+from gridflex.progress import Progress
 
 __all__ = [
+    "ScenarioCommand",
+    "SubParsers",
     "add_common_options",
     "add_overwrite_option",
     "add_scenario_argument",
+    "add_scenario_command",
     "configure_output",
+    "execute_scenario_command",
     "progress_printer",
+    "wrote",
 ]
+
+Outcome = TypeVar("Outcome")
+
+SubParsers = argparse._SubParsersAction  # the type argparse gives add_subparsers()
 
 
 def add_scenario_argument(parser: argparse.ArgumentParser, help: str) -> None:
@@ -39,7 +52,100 @@ def add_common_options(parser: argparse.ArgumentParser) -> None:
     group.add_argument("-v", "--verbose", action="store_true", help="print debugging detail")
 
 
-def _show_warning(message, category, filename, lineno, file=None, line=None):  # type: ignore[no-untyped-def]
+def add_scenario_command(
+    subparsers: SubParsers, name: str, help: str, scenario_help: str
+) -> argparse.ArgumentParser:
+    """A sub-command that reads one scenario file: SCENARIO, --overwrite, -q and -v.
+
+    Returns the parser, for a command's own options.
+    """
+    parser: argparse.ArgumentParser = subparsers.add_parser(name, help=help, description=help)
+    add_scenario_argument(parser, scenario_help)
+    add_common_options(parser)
+    return parser
+
+
+def execute_scenario_command(
+    args: argparse.Namespace,
+    load: Callable[[str], Any],
+    call: Callable[[Any, bool, Progress | None], Outcome],
+    report: Callable[[Outcome], Iterable[str]],
+) -> int:
+    """Load ``args.scenario``, call the library on it and print the report.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed arguments of a command declared by :func:`add_scenario_command`.
+    load : callable
+        Reads and validates the scenario file (path -> scenario).
+    call : callable
+        ``call(scenario, overwrite, progress)``: the one library function of the command.
+    report : callable
+        The lines to print about its outcome (not printed with --quiet).
+
+    Returns
+    -------
+    int
+        The exit status, 0.
+    """
+    outcome = call(load(args.scenario), args.overwrite, progress_printer(args))
+    if not args.quiet:
+        for line in report(outcome):
+            print(line)
+    return 0
+
+
+@dataclass(frozen=True)
+class ScenarioCommand(Generic[Outcome]):
+    """A command that reads one scenario file, calls one library function, reports.
+
+    A command module binds ``add_parser`` and ``execute`` to one of these (see
+    :data:`gridflex.cli.main.COMMANDS`).
+
+    Parameters
+    ----------
+    name, help : str
+        The sub-command and its one-line description.
+    scenario_help : str
+        Help of the SCENARIO argument.
+    load : callable
+        Reads and validates the scenario file (path -> scenario).
+    call : callable
+        ``call(scenario, overwrite, progress)``: the command's library function.
+    report : callable
+        The lines to print about the outcome (see :func:`wrote`).
+    """
+
+    name: str
+    help: str
+    scenario_help: str
+    load: Callable[[str], Any]
+    call: Callable[[Any, bool, Progress | None], Outcome]
+    report: Callable[[Outcome], Iterable[str]]
+
+    def add_parser(self, subparsers: SubParsers) -> argparse.ArgumentParser:
+        """Declare the sub-command: SCENARIO, --overwrite, -q and -v."""
+        return add_scenario_command(subparsers, self.name, self.help, self.scenario_help)
+
+    def execute(self, args: argparse.Namespace) -> int:
+        """Run the command on parsed arguments; the exit status (0)."""
+        return execute_scenario_command(args, self.load, self.call, self.report)
+
+
+def wrote(paths: Iterable[str | Path]) -> list[str]:
+    """One ``wrote PATH`` line per file written."""
+    return [f"wrote {path}" for path in paths]
+
+
+def _show_warning(
+    message: Warning | str,
+    category: type[Warning],
+    filename: str,
+    lineno: int,
+    file: TextIO | None = None,
+    line: str | None = None,
+) -> None:
     print(f"gridflex: warning: {message}", file=sys.stderr)
 
 
@@ -58,7 +164,7 @@ def configure_output(args: argparse.Namespace) -> None:
     warnings.showwarning = _show_warning
 
 
-def progress_printer(args: argparse.Namespace) -> Callable[[int, int], None] | None:
+def progress_printer(args: argparse.Namespace) -> Progress | None:
     """A progress callback writing ``done/total`` on stderr, or None when quiet."""
     if getattr(args, "quiet", False):
         return None

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from gridflex.cli.common import add_common_options
+from gridflex.cli.common import SubParsers, add_common_options, wrote
 from gridflex.results.summary import format_summary
 from gridflex.workflows.demo import run_demo
 
@@ -12,7 +12,7 @@ NAME = "demo"
 HELP = "solve an invented volcanic island chain and write its outputs"
 
 
-def add_parser(subparsers: argparse._SubParsersAction) -> None:
+def add_parser(subparsers: SubParsers) -> None:
     parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
     parser.add_argument(
         "--out", default="gridflex-demo", help="folder for the outputs (default: ./gridflex-demo)"
@@ -26,6 +26,5 @@ def execute(args: argparse.Namespace) -> int:
         te = float(outcome.result.attrs["plate_te"])
         print(f"Invented volcanic island chain on a {te / 1e3:g} km thick elastic plate:")
         print(format_summary(outcome.summary))
-        for path in outcome.written:
-            print(f"wrote {path}")
+        print("\n".join(wrote(outcome.written)))
     return 0

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from gridflex.cli.common import add_common_options, add_overwrite_option
+from gridflex.cli.common import SubParsers, add_common_options, add_overwrite_option, wrote
 from gridflex.io.netcdf import read_result
 from gridflex.io.plots import plot_profile
 from gridflex.io.tables import write_csv
@@ -14,25 +14,16 @@ NAME = "profile"
 HELP = "sample a result grid along a straight line and write a CSV (and a plot)"
 
 
-def add_parser(subparsers: argparse._SubParsersAction) -> None:
+def add_parser(subparsers: SubParsers) -> None:
     parser = subparsers.add_parser(NAME, help=HELP, description=HELP)
     parser.add_argument("result", help="result NetCDF written by 'gridflex run'")
-    parser.add_argument(
-        "--start",
-        nargs=2,
-        type=float,
-        required=True,
-        metavar=("X", "Y"),
-        help="start point in the grid's map coordinates (m, or lon lat)",
-    )
-    parser.add_argument(
-        "--end",
-        nargs=2,
-        type=float,
-        required=True,
-        metavar=("X", "Y"),
-        help="end point in the grid's map coordinates",
-    )
+    for point, text in (
+        ("start", "start point in the grid's map coordinates (m, or lon lat)"),
+        ("end", "end point in the grid's map coordinates"),
+    ):
+        parser.add_argument(
+            f"--{point}", nargs=2, type=float, required=True, metavar=("X", "Y"), help=text
+        )
     parser.add_argument("--csv", required=True, help="CSV file to write")
     parser.add_argument("--plot", help="PNG plot of the profile")
     parser.add_argument("--samples", type=int, help="number of points (default: 2 per cell)")
@@ -49,6 +40,5 @@ def execute(args: argparse.Namespace) -> int:
     if args.plot:
         written.append(plot_profile(profile, args.plot, args.overwrite, inputs))
     if not args.quiet:
-        for path in written:
-            print(f"wrote {path}")
+        print("\n".join(wrote(written)))
     return 0

@@ -38,6 +38,8 @@ log = logging.getLogger(__name__)
 NETCDF_SUFFIXES = (".nc", ".nc4", ".cdf", ".netcdf")
 """File name endings read through xarray/netCDF4 rather than GDAL."""
 
+MISSING_POLICIES = ("zero", "error")  # what nodata/NaN cells of a layer mean
+
 _NETCDF_MAGIC = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n")
 _TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")
 _DEGREE_UNITS = {

@@ -1,1 +1,2 @@
-"""Scenario files: the key schema engine shared by every command."""
+"""Scenario files: the schema engine (``schema``), the run scenario's key tables and loader
+(``tables``), its cross-table checks (``checks``) and where-prefixed errors (``context``)."""

@@ -1,47 +1,49 @@
-"""Scenario files: a TOML description of one model run, validated key by key.
+"""The scenario schema engine: keys, their checks, and the parsed scenario.
 
-Every table and key is declared once in :data:`SCHEMA` (with its kind, unit
-dimension, default and allowed values); parsing, defaults, the error messages and
-the documentation table in the README are all derived from it. Every message names
-the file, the table and the key.
-
-A scenario has these tables (``[[loads]]`` is an array of tables)::
-
-    [plate]    elastic thickness (a number or a grid file), moduli, densities
-    [margin]   a te profile across a straight line, instead of a te number or file
-    [[breaks]] one table per break: a polyline in map coordinates or a mask grid
-    [solver]   method, edges, in-plane forces, padding, iteration tolerance
-    [grid]     size and spacing, for scenarios whose loads are all synthetic
-    [[loads]]  one table per load layer: a grid file or a synthetic shape
-    [infill]   optional: self-consistent infill (water, air, sediment) of the depression
-    [gravity]  optional: free-air and Bouguer anomalies of the result (needs [infill])
-    [output]   where the results go
-    [fit]      observation to fit te to (``gridflex fit``)
-    [sweep]    lists of values to sweep over (``gridflex sweep``)
+A kind of scenario file declares its tables once as ``{table: {key: Key}}`` (the
+``gridflex run`` tables are :data:`gridflex.scenario.tables.SCHEMA`); this module
+parses a TOML file against such a declaration: it fills defaults, converts
+quantities to SI, resolves paths against the file's folder and names the file, the
+table and the key in every message. Checks that tie several keys or tables together
+belong to each kind of scenario (see :mod:`gridflex.scenario.checks`).
 """
 
 from __future__ import annotations
 
+import math
 import tomllib
-from collections.abc import Callable
-from dataclasses import dataclass, field
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any, Generic, Literal, TypeVar, overload
 
 from gridflex.errors import InputError
-from gridflex.estimation.misfit import QUANTITIES
-from gridflex.sweeps.parameter_sweep import LOCAL_SCHEDULERS
 from gridflex.units import parse_quantity
+from gridflex.validation import check_choice, check_flag, check_integer, check_number
+
+if TYPE_CHECKING:
+    from gridflex.scenario.tables import (
+        BreakTable,
+        FitTable,
+        FlexureTables,
+        GravityTable,
+        GridTable,
+        InfillTable,
+        LoadTable,
+        MarginTable,
+        OutputTable,
+        PlateTable,
+        SolverTable,
+        SweepTable,
+        WorkingGridTable,
+    )
 
 __all__ = [
     "Key",
-    "SCHEMA",
-    "ARRAY_TABLES",
     "REQUIRED",
     "Scenario",
-    "load_scenario",
-    "parse_scenario",
     "parse_tables",
+    "read_scenario",
 ]
 
 REQUIRED = object()
@@ -65,7 +67,7 @@ class Key:
     dimension : str, optional
         Unit dimension for quantities (see :data:`gridflex.units.DIMENSIONS`).
     choices : tuple of str
-        Allowed values for ``"choice"``.
+        Allowed values for ``"choice"``: the library's own constant, never a copy.
     minimum : float, optional
         Smallest allowed value (inclusive) for numbers and quantities.
     """
@@ -78,305 +80,12 @@ class Key:
     minimum: float | None = None
 
 
-def _choices(*names: str) -> tuple[str, ...]:
-    return tuple(names)
-
-
-SCHEMA: dict[str, dict[str, Key]] = {
-    "plate": {
-        "elastic_thickness": Key(
-            "quantity", "effective elastic thickness Te", None, "length", minimum=0.0
-        ),
-        "elastic_thickness_file": Key("path", "NetCDF grid of Te on the load grid", None),
-        "elastic_thickness_variable": Key("string", "variable holding Te in that file", None),
-        "youngs_modulus": Key("quantity", "Young's modulus E", 1.0e11, "pressure", minimum=0.0),
-        "poisson_ratio": Key("number", "Poisson's ratio", 0.25),
-        "mantle_density": Key("quantity", "mantle density", 3300.0, "density", minimum=0.0),
-        "infill_density": Key(
-            "quantity",
-            "density of the material filling the deflection",
-            1030.0,
-            "density",
-            minimum=0.0,
-        ),
-        "gravity": Key("quantity", "gravitational acceleration", 9.81, "acceleration", minimum=0.0),
-        "crust_thickness": Key(
-            "quantity",
-            "crustal thickness above the crust-mantle boundary (for gravity)",
-            6000.0,
-            "length",
-            minimum=0.0,
-        ),
-        "crust_density": Key(
-            "quantity", "crustal density (for gravity)", 2800.0, "density", minimum=0.0
-        ),
-    },
-    "solver": {
-        "method": Key(
-            "choice", "solver", "auto", choices=_choices("auto", "spectral", "finite-difference")
-        ),
-        "edges": Key(
-            "choice",
-            "what lies beyond the grid edge",
-            "infinite",
-            choices=_choices("infinite", "periodic", "clamped", "free"),
-        ),
-        "inplane_force_x": Key(
-            "quantity", "in-plane force along x, tension positive", 0.0, "force_per_length"
-        ),
-        "inplane_force_y": Key(
-            "quantity", "in-plane force along y, tension positive", 0.0, "force_per_length"
-        ),
-        "pad_factor": Key(
-            "number", "zero padding per side in flexural parameters", 4.5, minimum=0.0
-        ),
-        "tolerance": Key(
-            "number", "relative residual of the finite-difference iteration", 1e-8, minimum=1e-15
-        ),
-        "max_iterations": Key(
-            "integer", "iteration limit of the finite-difference solver", 300, minimum=1
-        ),
-    },
-    "margin": {
-        "te_left": Key(
-            "quantity",
-            "Te on the left of the line, looking from its first point to its second",
-            REQUIRED,
-            "length",
-            minimum=0.0,
-        ),
-        "te_right": Key("quantity", "Te on the right of the line", REQUIRED, "length", minimum=0.0),
-        "line": Key("list", "two [x, y] points (m, map coordinates) on the line", REQUIRED),
-        "width": Key("quantity", "width of the transition", 0.0, "length", minimum=0.0),
-    },
-    "breaks": {
-        "line": Key("list", "polyline of [x, y] points (m, map coordinates) where Te = 0", None),
-        "width": Key(
-            "quantity", "width of a line break (0: one cell, a hinge)", 0.0, "length", minimum=0.0
-        ),
-        "file": Key("path", "NetCDF mask grid (non-zero = broken) on the load grid", None),
-        "variable": Key("string", "variable holding the mask in that file", None),
-    },
-    "grid": {
-        "columns": Key("integer", "number of cells along x", REQUIRED, minimum=4),
-        "rows": Key("integer", "number of cells along y", REQUIRED, minimum=4),
-        "spacing": Key(
-            "quantity", "cell size (m, also for a geographic grid)", REQUIRED, "length", minimum=0.0
-        ),
-        "crs": Key(
-            "string",
-            "coordinate reference system of the grid (EPSG code, PROJ or WKT); none: plain metres",
-            None,
-        ),
-        "center_x": Key("number", "x (or longitude) of the grid centre", 0.0),
-        "center_y": Key("number", "y (or latitude) of the grid centre", 0.0),
-    },
-    "working_grid": {
-        "projection": Key(
-            "string",
-            "metric CRS to solve in (default: the input's own, or "
-            "a local equal-area projection for geographic inputs)",
-            None,
-        ),
-        "spacing": Key(
-            "quantity",
-            "cell size of the working grid (default: the input's)",
-            None,
-            "length",
-            minimum=0.0,
-        ),
-        "resampling": Key(
-            "choice",
-            "how layers are resampled onto it",
-            "bilinear",
-            choices=_choices("bilinear", "average", "nearest", "cubic"),
-        ),
-    },
-    "loads": {
-        "name": Key("string", "label of the layer", None),
-        "file": Key("path", "GeoTIFF (or other GDAL raster) or NetCDF holding the layer", None),
-        "variable": Key("string", "NetCDF variable or raster band, if the file has several", None),
-        "missing": Key(
-            "choice",
-            "what nodata/NaN cells mean: zero load (with a warning) or an error",
-            "zero",
-            choices=_choices("zero", "error"),
-        ),
-        "synthetic": Key(
-            "choice",
-            "a built-in shape instead of a file",
-            None,
-            choices=_choices("island-chain", "disc", "gaussian"),
-        ),
-        "kind": Key(
-            "choice",
-            "thickness (m, times density), stress (Pa) or elevation (m, "
-            "the edifice is the rock above a regional surface)",
-            "thickness",
-            choices=_choices("thickness", "stress", "elevation"),
-        ),
-        "density": Key("quantity", "density of the layer", None, "density", minimum=0.0),
-        "displaced_density": Key(
-            "quantity",
-            "density of what the layer replaces (water for a submarine load)",
-            0.0,
-            "density",
-            minimum=0.0,
-        ),
-        "height": Key("quantity", "peak height of a synthetic shape", None, "length"),
-        "radius": Key(
-            "quantity",
-            "radius of a synthetic disc, or width of a gaussian",
-            None,
-            "length",
-            minimum=0.0,
-        ),
-        "center_x": Key("quantity", "x of a synthetic shape's centre", 0.0, "length"),
-        "center_y": Key("quantity", "y of a synthetic shape's centre", 0.0, "length"),
-        "regional_elevation": Key(
-            "quantity",
-            "elevation layer: constant regional surface the edifice stands on",
-            None,
-            "length",
-        ),
-        "regional_radius": Key(
-            "quantity",
-            "elevation layer: radius of the robust (median) "
-            "smoothing that gives the regional surface",
-            None,
-            "length",
-            minimum=0.0,
-        ),
-    },
-    "infill": {
-        "base_elevation": Key(
-            "quantity",
-            "elevation of the surface the thickness layers stand on (regional sea floor or land)",
-            None,
-            "length",
-        ),
-        "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
-        "water_density": Key("quantity", "sea-water density", 1030.0, "density", minimum=0.0),
-        "sediment": Key(
-            "choice",
-            "what sediment does in the depression",
-            "none",
-            choices=_choices("none", "full", "to_level"),
-        ),
-        "sediment_density": Key(
-            "quantity", "bulk density of the fill sediment", 2400.0, "density", minimum=0.0
-        ),
-        "sediment_level": Key(
-            "quantity", "elevation up to which sediment fills (to_level)", None, "length"
-        ),
-        "fill_existing": Key(
-            "bool", "to_level: also fill space below the level that existed before loading", False
-        ),
-        "load_buried": Key(
-            "bool",
-            "the surface is observed after flexure: the load's base "
-            "sank with the plate, the space under it is load material",
-            False,
-        ),
-        "tolerance": Key(
-            "quantity",
-            "stop when an iteration changes the deflection by less",
-            1e-4,
-            "length",
-            minimum=0.0,
-        ),
-        "max_iterations": Key("integer", "iterations before giving up", 300, minimum=1),
-    },
-    "gravity": {
-        "observation_height": Key(
-            "quantity", "height of the observation plane above sea level", 0.0, "length"
-        ),
-        "terms": Key("integer", "terms of each Parker series", 6, minimum=1),
-        "bouguer_density": Key(
-            "quantity", "Bouguer reduction density", 2670.0, "density", minimum=0.0
-        ),
-    },
-    "output": {
-        "file": Key("path", "NetCDF file for the results", REQUIRED),
-        "map": Key("path", "PNG map of the deflection", None),
-        "moat_fill_map": Key("path", "PNG map of the moat fill (needs [infill])", None),
-        "free_air_map": Key("path", "PNG map of the free-air anomaly (needs [gravity])", None),
-        "bouguer_map": Key("path", "PNG map of the Bouguer anomaly (needs [gravity])", None),
-        "geotiff": Key(
-            "bool", "also write one GeoTIFF per output variable beside the NetCDF", False
-        ),
-        "outlines": Key("path", "GeoJSON of the moat outline, forebulge crest and zero line", None),
-        "moat_depth": Key(
-            "quantity",
-            "deflection contour drawn as the moat outline "
-            "(default: a tenth of the maximum deflection)",
-            None,
-            "length",
-            minimum=0.0,
-        ),
-        "profile_start": Key("list", "[x, y] of a profile's start, in map coordinates", None),
-        "profile_end": Key("list", "[x, y] of a profile's end", None),
-        "profile_csv": Key("path", "CSV of the values along the profile", None),
-        "profile_plot": Key("path", "PNG plot of the profile", None),
-    },
-    "fit": {
-        "observed_file": Key("path", "NetCDF grid of the observation", REQUIRED),
-        "observed_variable": Key("string", "variable of the observation in the file", REQUIRED),
-        "quantity": Key("choice", "what is observed", "deflection", choices=QUANTITIES),
-        "mask_file": Key("path", "NetCDF grid, non-zero where data are compared", None),
-        "mask_variable": Key("string", "variable of the mask in its file", None),
-        "te_min": Key("quantity", "smallest te searched", 1.0e3, "length", minimum=0.0),
-        "te_max": Key("quantity", "largest te searched", 1.0e5, "length", minimum=0.0),
-        "samples": Key("integer", "log-spaced te of the coarse search", 25, minimum=5),
-        "confidence": Key("number", "confidence level of the te interval", 0.95, minimum=0.0),
-        "correlated_residuals": Key("bool", "widen the interval for correlated residuals", True),
-        "fit_load_scale": Key(
-            "bool", "also fit a factor on the load (its density contrast)", False
-        ),
-        "seafloor_depth": Key(
-            "quantity",
-            "depth of the undeflected plate top below the gravity observations (free_air_anomaly)",
-            None,
-            "length",
-            minimum=0.0,
-        ),
-        "summary": Key("path", "JSON summary of the fit", None),
-        "plot": Key("path", "PNG of the misfit curve", None),
-    },
-    "sweep": {
-        "te": Key("list", "elastic thicknesses", None, "length"),
-        "youngs_modulus": Key("list", "Young's moduli", None, "pressure"),
-        "poisson_ratio": Key("list", "Poisson's ratios", None),
-        "mantle_density": Key("list", "mantle densities", None, "density"),
-        "infill_density": Key("list", "infill densities", None, "density"),
-        "load_density": Key(
-            "list", "densities of every thickness layer of [[loads]]", None, "density"
-        ),
-        "inplane_force": Key(
-            "list", "in-plane forces on both axes, tension positive", None, "force_per_length"
-        ),
-        "inplane_force_x": Key("list", "in-plane forces along x", None, "force_per_length"),
-        "inplane_force_y": Key("list", "in-plane forces along y", None, "force_per_length"),
-        "scheduler": Key(
-            "string",
-            "where to run: " + ", ".join(LOCAL_SCHEDULERS) + " or a dask scheduler address",
-            "threads",
-        ),
-    },
-}
-"""Every table and key a scenario may contain."""
-
-ARRAY_TABLES = frozenset({"loads", "breaks"})
-"""Tables written as arrays of tables (``[[loads]]``)."""
-
-REQUIRED_TABLES = ("plate", "loads", "output")
-
-OPTIONAL_TABLES = frozenset({"infill", "gravity", "fit", "sweep"})
-"""Tables whose presence switches a feature on; absent, they are ``None``."""
+TablesT = TypeVar("TablesT", bound=Mapping[str, Any])
+"""The type of :attr:`Scenario.tables`: a TypedDict per kind of scenario, or a dict."""
 
 
 @dataclass(frozen=True)
-class Scenario:
+class Scenario(Generic[TablesT]):
     """A validated scenario.
 
     Attributes
@@ -392,10 +101,41 @@ class Scenario:
 
     path: Path
     text: str
-    tables: dict[str, Any] = field(default_factory=dict)
+    tables: TablesT
 
-    def table(self, name: str) -> dict[str, Any]:
-        """Values of one table (defaults for an absent table)."""
+    # The ``gridflex run`` tables, typed (see gridflex.scenario.tables; a test keeps
+    # these overloads equal to FlexureTables). A plain ``Scenario`` annotation is taken
+    # as a run scenario; a ``Scenario[dict[str, Any]]`` (basin, history) and any other
+    # table name fall through to the last overload.
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["plate"]) -> PlateTable: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["margin"]) -> MarginTable | None: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["breaks"]) -> list[BreakTable]: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["solver"]) -> SolverTable: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["grid"]) -> GridTable | None: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["working_grid"]) -> WorkingGridTable: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["loads"]) -> list[LoadTable]: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["infill"]) -> InfillTable | None: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["gravity"]) -> GravityTable | None: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["output"]) -> OutputTable: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["fit"]) -> FitTable | None: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["sweep"]) -> SweepTable | None: ...
+    @overload
+    def table(self, name: str) -> Any: ...
+    def table(self, name: str) -> Any:
+        """Values of one table (defaults for an absent table, ``None`` for an absent
+        optional one, a list of dicts for an array table)."""
         return self.tables[name]
 
     def where(self, table: str, key: str = "", index: int | None = None) -> str:
@@ -421,34 +161,29 @@ _Checker = Callable[[Any, Key, str, Path], Any]
 
 
 def _check_number(value: Any, key: Key, where: str, base: Path) -> Any:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(f"{where}: expected a number, got {value!r}")
-    return float(value)
+    return check_number(where, value, minimum=key.minimum)
 
 
 def _check_integer(value: Any, key: Key, where: str, base: Path) -> Any:
-    if isinstance(value, bool) or not isinstance(value, int):
-        raise InputError(f"{where}: expected a whole number, got {value!r}")
-    return value
+    minimum = None if key.minimum is None else math.ceil(key.minimum)
+    return check_integer(where, value, minimum=minimum)
 
 
 def _check_quantity(value: Any, key: Key, where: str, base: Path) -> Any:
-    return parse_quantity(value, key.dimension, where)
+    number = parse_quantity(value, key.dimension, where)
+    if key.minimum is not None and number < key.minimum:  # the value as written, not in SI
+        raise InputError(f"{where} must be >= {key.minimum:g}, got {value!r}")
+    return number
 
 
 def _check_string(value: Any, key: Key, where: str, base: Path) -> Any:
     if not isinstance(value, str) or not value:
-        raise InputError(f"{where}: expected a non-empty string, got {value!r}")
+        raise InputError(f"{where} must be a non-empty string, got {value!r}")
     return value
 
 
 def _check_choice(value: Any, key: Key, where: str, base: Path) -> Any:
-    if value not in key.choices:
-        raise InputError(
-            f"{where}: {value!r} is not allowed; use one of "
-            + ", ".join(repr(c) for c in key.choices)
-        )
-    return value
+    return check_choice(where, value, key.choices)
 
 
 def _check_path(value: Any, key: Key, where: str, base: Path) -> Any:
@@ -458,14 +193,12 @@ def _check_path(value: Any, key: Key, where: str, base: Path) -> Any:
 
 
 def _check_bool(value: Any, key: Key, where: str, base: Path) -> Any:
-    if not isinstance(value, bool):
-        raise InputError(f"{where}: expected true or false, got {value!r}")
-    return value
+    return check_flag(where, value)
 
 
 def _check_list(value: Any, key: Key, where: str, base: Path) -> Any:
     if not isinstance(value, list):
-        raise InputError(f"{where}: expected a list, got {value!r}")
+        raise InputError(f"{where} must be a list, got {value!r}")
     return value
 
 
@@ -496,21 +229,8 @@ def _parse_table(values: Any, spec: dict[str, Key], where: str, base: Path) -> d
                 raise InputError(f"{where} {name}: required key is missing ({key.help})")
             out[name] = key.default
             continue
-        value = _CHECKERS[key.kind](values[name], key, f"{where} {name}", base)
-        if key.minimum is not None and isinstance(value, (int, float)) and value < key.minimum:
-            raise InputError(f"{where} {name}: must be >= {key.minimum:g}, got {values[name]!r}")
-        out[name] = value
+        out[name] = _CHECKERS[key.kind](values[name], key, f"{where} {name}", base)
     return out
-
-
-def parse_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario:
-    """Validate a scenario already read into a dict (see :func:`load_scenario`)."""
-    scenario = parse_tables(data, path, text, SCHEMA, ARRAY_TABLES, REQUIRED_TABLES)
-    _check_loads(scenario)
-    _check_profile(scenario)
-    _check_structure(scenario)
-    _check_infill_and_gravity(scenario)
-    return scenario
 
 
 def parse_tables(
@@ -520,10 +240,34 @@ def parse_tables(
     schema: dict[str, dict[str, Key]],
     array_tables: frozenset[str],
     required_tables: tuple[str, ...],
-) -> Scenario:
+    optional_tables: frozenset[str] = frozenset(),
+) -> Scenario[dict[str, Any]]:
     """Validate *data* against *schema* (tables, keys, defaults); no cross-key checks.
 
-    Shared by every kind of scenario file (see :func:`parse_scenario`).
+    Shared by every kind of scenario file (see
+    :func:`gridflex.scenario.tables.parse_scenario`).
+
+    Parameters
+    ----------
+    data : dict
+        The TOML file as read.
+    path : pathlib.Path
+        The file (named in messages; relative paths are taken from its folder).
+    text : str
+        The file's text, kept in the scenario.
+    schema : dict
+        ``{table: {key: Key}}``.
+    array_tables : frozenset of str
+        Tables written as arrays of tables (``[[name]]``); absent, an empty list.
+    required_tables : tuple of str
+        Tables that must be given.
+    optional_tables : frozenset of str, optional
+        Tables whose presence switches a feature on: absent, they are ``None``. Any
+        other absent table holds its defaults (``None`` if it has a required key).
+
+    Returns
+    -------
+    Scenario
     """
     base = path.parent
     unknown = sorted(set(data) - set(schema))
@@ -547,7 +291,7 @@ def parse_tables(
                 for i, item in enumerate(items)
             ]
         elif raw is None:
-            if name in OPTIONAL_TABLES or any(k.default is REQUIRED for k in spec.values()):
+            if name in optional_tables or any(k.default is REQUIRED for k in spec.values()):
                 tables[name] = None
             else:
                 tables[name] = {k: v.default for k, v in spec.items()}
@@ -556,149 +300,20 @@ def parse_tables(
     return Scenario(path=path, text=text, tables=tables)
 
 
-def _check_structure(scenario: Scenario) -> None:
-    """One source of Te; every break is a line or a mask file."""
-    plate = scenario.tables["plate"]
-    sources = [
-        name
-        for name, given in (
-            ("elastic_thickness", plate["elastic_thickness"] is not None),
-            ("elastic_thickness_file", plate["elastic_thickness_file"] is not None),
-            ("[margin]", scenario.tables["margin"] is not None),
-        )
-        if given
-    ]
-    if not sources:
-        raise InputError(
-            f"{scenario.where('plate', 'elastic_thickness')}: required key is "
-            "missing (or give elastic_thickness_file, or a [margin] table)"
-        )
-    if len(sources) > 1:
-        raise InputError(
-            f"{scenario.where('plate', 'elastic_thickness')}: give only one of "
-            f"elastic_thickness, elastic_thickness_file or a [margin] table "
-            f"(found {', '.join(sources)})"
-        )
-    if (plate["elastic_thickness_file"] is None) != (plate["elastic_thickness_variable"] is None):
-        raise InputError(
-            f"{scenario.where('plate', 'elastic_thickness_variable')}: "
-            "elastic_thickness_file and elastic_thickness_variable go together"
-        )
-    for i, item in enumerate(scenario.tables["breaks"]):
-        where = scenario.where("breaks", index=i)
-        if (item["line"] is None) == (item["file"] is None):
-            raise InputError(f"{where}: give either 'line' or 'file' (with 'variable')")
-        if item["file"] is not None and item["variable"] is None:
-            raise InputError(f"{where} variable: required with 'file' (the mask's name in it)")
+ScenarioT = TypeVar("ScenarioT", bound=Scenario[Any])
 
 
-def _check_loads(scenario: Scenario) -> None:
-    layers = scenario.tables["loads"]
-    if not layers:
-        raise InputError(f"{scenario.path}: at least one [[loads]] table is needed")
-    for i, layer in enumerate(layers):
-        where = scenario.where("loads", index=i)
-        has_file, has_shape = layer["file"] is not None, layer["synthetic"] is not None
-        if has_file == has_shape:
-            raise InputError(f"{where}: give either 'file' (with 'variable') or 'synthetic'")
-        if layer["kind"] == "thickness" and layer["density"] is None:
-            raise InputError(f"{where} density: required for a thickness layer")
-        if has_shape:
-            if scenario.tables["grid"] is None:
-                raise InputError(
-                    f"{scenario.path}: a synthetic load needs a [grid] table "
-                    "(columns, rows, spacing)"
-                )
-            if layer["synthetic"] != "island-chain":
-                for name in ("height", "radius"):
-                    if layer[name] is None:
-                        raise InputError(
-                            f"{where} {name}: required for a {layer['synthetic']!r} shape"
-                        )
-
-
-def _check_infill_and_gravity(scenario: Scenario) -> None:
-    infill, gravity = scenario.tables["infill"], scenario.tables["gravity"]
-    layers = scenario.tables["loads"]
-    kinds = [layer["kind"] for layer in layers]
-    if "elevation" in kinds and kinds.count("elevation") > 1:
-        raise InputError(
-            f"{scenario.path}: at most one [[loads]] table may have kind = 'elevation'"
-        )
-    if "elevation" in kinds and "thickness" in kinds:
-        raise InputError(
-            f"{scenario.path}: an elevation layer cannot be combined with "
-            "thickness layers (it defines the surface itself)"
-        )
-    for i, layer in enumerate(layers):
-        where = scenario.where("loads", index=i)
-        if layer["kind"] != "elevation":
-            continue
-        if layer["file"] is None:
-            raise InputError(f"{where} file: an elevation layer is read from a file")
-        if (layer["regional_elevation"] is None) == (layer["regional_radius"] is None):
-            raise InputError(
-                f"{where}: give either regional_elevation or regional_radius for an elevation layer"
-            )
-        if layer["density"] is None:
-            raise InputError(f"{where} density: required for an elevation layer (rock)")
-    if infill is not None:
-        if "thickness" in kinds and infill["base_elevation"] is None:
-            raise InputError(
-                f"{scenario.where('infill', 'base_elevation')}: required with "
-                "thickness layers (the surface they stand on)"
-            )
-        for i, layer in enumerate(layers):
-            if layer["kind"] == "thickness" and layer["displaced_density"]:
-                raise InputError(
-                    f"{scenario.where('loads', 'displaced_density', i)}: leave it out with "
-                    "[infill]; the water a layer displaces follows from sea_level"
-                )
-        if infill["sediment"] == "to_level" and infill["sediment_level"] is None:
-            raise InputError(
-                f"{scenario.where('infill', 'sediment_level')}: required with sediment = 'to_level'"
-            )
-    if gravity is not None and infill is None:
-        raise InputError(
-            f"{scenario.path}: a [gravity] table needs an [infill] table (the "
-            "water, sediment and surfaces the anomaly comes from)"
-        )
-    outputs = scenario.tables["output"]
-    if outputs is not None:
-        if outputs["moat_fill_map"] is not None and infill is None:
-            raise InputError(f"{scenario.where('output', 'moat_fill_map')}: needs [infill]")
-        for key in ("free_air_map", "bouguer_map"):
-            if outputs[key] is not None and gravity is None:
-                raise InputError(f"{scenario.where('output', key)}: needs [gravity]")
-
-
-def _check_profile(scenario: Scenario) -> None:
-    out = scenario.tables["output"]
-    ends = [out["profile_start"], out["profile_end"]]
-    wanted = out["profile_csv"] is not None or out["profile_plot"] is not None
-    for key, value in zip(("profile_start", "profile_end"), ends):
-        if value is None:
-            if wanted:
-                raise InputError(f"{scenario.where('output', key)}: required for a profile")
-            continue
-        if len(value) != 2 or not all(isinstance(v, (int, float)) for v in value):
-            raise InputError(f"{scenario.where('output', key)}: expected [x, y], got {value!r}")
-    if all(v is not None for v in ends) and not wanted:
-        raise InputError(f"{scenario.where('output')}: a profile needs profile_csv or profile_plot")
-
-
-def load_scenario(
-    path: str | Path,
-    parser: Callable[[dict[str, Any], Path, str], Scenario] = parse_scenario,
-) -> Scenario:
-    """Read and validate a TOML scenario file.
+def read_scenario(
+    path: str | Path, parser: Callable[[dict[str, Any], Path, str], ScenarioT]
+) -> ScenarioT:
+    """Read a TOML scenario file and validate it with *parser*.
 
     Parameters
     ----------
     path : str or pathlib.Path
         The scenario file; relative paths inside it are taken from its folder.
-    parser : callable, default :func:`parse_scenario`
-        Validator for the kind of scenario (e.g. the history scenario's).
+    parser : callable
+        ``parser(data, resolved_path, text)``: the validator of the kind of scenario.
 
     Returns
     -------
@@ -707,8 +322,7 @@ def load_scenario(
     Raises
     ------
     InputError
-        Missing or unreadable file, malformed TOML, unknown table or key, a value of
-        the wrong type, unit or range; the message names file, table and key.
+        Missing or unreadable file, malformed TOML, or whatever *parser* refuses.
     """
     path = Path(path)
     try:

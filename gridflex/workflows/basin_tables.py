@@ -19,15 +19,21 @@ from pathlib import Path
 from typing import Any
 
 from gridflex.basin.compaction import LITHOLOGIES
+from gridflex.basin.staging import ISOPACHS
+from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.errors import InputError
-from gridflex.scenario.schema import REQUIRED, SCHEMA, Key, Scenario, load_scenario, parse_tables
+from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables, read_scenario
+from gridflex.scenario.tables import SCHEMA
+
+LITHOLOGY_NAMES = tuple(LITHOLOGIES)
+"""The names of :data:`gridflex.basin.compaction.LITHOLOGIES`, the accepted lithologies."""
 
 _LITHOLOGY_KEYS: dict[str, Key] = {
     "lithology": Key(
         "choice",
         "porosity-depth law (Sclater & Christie 1980)",
         "shale",
-        choices=tuple(LITHOLOGIES),
+        choices=LITHOLOGY_NAMES,
     ),
     "surface_porosity": Key(
         "number", "override the lithology's surface porosity", None, minimum=0.0
@@ -42,11 +48,7 @@ _LITHOLOGY_KEYS: dict[str, Key] = {
 """Keys shared by ``[[stages]]`` and ``[[backstrip_layers]]`` (one declaration)."""
 
 
-__all__ = ["BASIN_SCHEMA", "load_basin_scenario", "parse_basin_scenario"]
-
-
-def _choices(*names: str) -> tuple[str, ...]:
-    return tuple(names)
+__all__ = ["BASIN_SCHEMA", "LITHOLOGY_NAMES", "load_basin_scenario", "parse_basin_scenario"]
 
 
 BASIN_SCHEMA: dict[str, dict[str, Key]] = {
@@ -63,14 +65,18 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         "surface_variable": Key("string", "NetCDF variable or band in surface_file", None),
         "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
         "water_density": Key(
-            "quantity", "sea-water (and pore-water) density", 1030.0, "density", minimum=0.0
+            "quantity",
+            "sea-water (and pore-water) density",
+            SEA_WATER_DENSITY,
+            "density",
+            minimum=0.0,
         ),
         "compaction": Key("bool", "compact older stages under younger ones", True),
         "isopachs": Key(
             "choice",
             "stage thicknesses as deposited, or present-day (then decompacted first)",
             "deposited",
-            choices=_choices("deposited", "present"),
+            choices=ISOPACHS,
         ),
         "tolerance": Key("quantity", "infill iteration tolerance", 1e-4, "length", minimum=0.0),
         "max_iterations": Key("integer", "infill iterations before giving up", 300, minimum=1),
@@ -110,7 +116,7 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
             "choice",
             "porosity-depth law giving the sediment density",
             "shale",
-            choices=_choices("shale", "sandstone", "chalk", "shaly_sandstone"),
+            choices=LITHOLOGY_NAMES,
         ),
         "sediment_density": Key(
             "quantity",
@@ -122,7 +128,9 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         "sea_level_change": Key(
             "quantity", "sea level of the time relative to present (positive higher)", 0.0, "length"
         ),
-        "water_density": Key("quantity", "sea-water density", 1030.0, "density", minimum=0.0),
+        "water_density": Key(
+            "quantity", "sea-water density", SEA_WATER_DENSITY, "density", minimum=0.0
+        ),
         "max_mismatch": Key(
             "quantity", "largest allowed |basement - sediment - water|", 1.0, "length", minimum=0.0
         ),
@@ -147,27 +155,27 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
 
 BASIN_ARRAY_TABLES = frozenset({"stages", "backstrip_layers"})
 BASIN_REQUIRED_TABLES = ("plate", "output")
-_OPTIONAL = ("basin", "backstrip")
+_OPTIONAL = frozenset({"basin", "backstrip"})
+"""Tables that switch a workflow on; absent, they are ``None``."""
 
 
-def parse_basin_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario:
+def parse_basin_scenario(
+    data: dict[str, Any], path: Path, text: str = ""
+) -> Scenario[dict[str, Any]]:
     """Validate a basin scenario already read into a dict."""
     scenario = parse_tables(
-        data, path, text, BASIN_SCHEMA, BASIN_ARRAY_TABLES, BASIN_REQUIRED_TABLES
+        data, path, text, BASIN_SCHEMA, BASIN_ARRAY_TABLES, BASIN_REQUIRED_TABLES, _OPTIONAL
     )
-    for name in _OPTIONAL:  # absent: None (the table switches the workflow on)
-        if name not in data:
-            scenario.tables[name] = None
     _check_basin(scenario)
     return scenario
 
 
-def load_basin_scenario(path: str | Path) -> Scenario:
+def load_basin_scenario(path: str | Path) -> Scenario[dict[str, Any]]:
     """Read and validate a basin scenario (TOML); messages name file, table and key."""
-    return load_scenario(path, parser=parse_basin_scenario)
+    return read_scenario(path, parse_basin_scenario)
 
 
-def _check_basin(scenario: Scenario) -> None:
+def _check_basin(scenario: Scenario[dict[str, Any]]) -> None:
     tables = scenario.tables
     if tables["basin"] is not None and tables["backstrip"] is not None:
         raise InputError(

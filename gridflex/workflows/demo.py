@@ -5,7 +5,7 @@ from __future__ import annotations
 from importlib import resources
 from pathlib import Path
 
-from gridflex.scenario.schema import load_scenario
+from gridflex.scenario.tables import load_scenario
 from gridflex.workflows.run import RunOutcome, run_scenario
 
 __all__ = ["DEMO_FILE_NAME", "demo_scenario_text", "run_demo"]

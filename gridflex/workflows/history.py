@@ -24,16 +24,20 @@ import numpy as np
 import xarray as xr
 
 from gridflex._version import __version__
+from gridflex.constants import SEA_WATER_DENSITY
+from gridflex.engine import SPECTRAL_EDGES
 from gridflex.errors import InputError
 from gridflex.glacial.ice import ice_response
-from gridflex.glacial.response import Progress
+from gridflex.glacial.response import INITIAL_STATES, Progress
 from gridflex.grid import check_same_grid
 from gridflex.io.atomic import check_output_path
 from gridflex.io.netcdf import write_netcdf
 from gridflex.io.plots import plot_point_series, plot_uplift_rate_map
-from gridflex.io.rasters import read_raster
+from gridflex.io.rasters import MISSING_POLICIES, read_raster
 from gridflex.io.time_grids import DEFAULT_TIME_REFERENCE, cf_time_axis, read_history, read_series
-from gridflex.scenario.schema import REQUIRED, SCHEMA, Key, Scenario, load_scenario, parse_tables
+from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
+from gridflex.scenario.tables import SCHEMA, load_scenario
+from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
 from gridflex.synthetic import disc_height, empty_grid
 from gridflex.units import unit_factor
 from gridflex.workflows.layers import apply_missing_policy
@@ -48,6 +52,9 @@ __all__ = [
 ]
 
 log = logging.getLogger(__name__)
+
+SYNTHETIC_ICE = ("disc",)
+"""Built-in ice histories: a disc whose thickness follows ``thickness_factors``."""
 
 HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
     "plate": {
@@ -65,7 +72,7 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
             "choice",
             "viscous half-space or relaxing asthenosphere",
             "half-space",
-            choices=("half-space", "relaxing"),
+            choices=MODELS,
         ),
         "viscosity": Key("quantity", "half-space viscosity", 1e21, "viscosity", minimum=0.0),
         "relaxation_time": Key(
@@ -74,7 +81,7 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
     },
     "solver": {
         "edges": Key(
-            "choice", "what lies beyond the grid edge", "infinite", choices=("infinite", "periodic")
+            "choice", "what lies beyond the grid edge", "infinite", choices=SPECTRAL_EDGES
         ),
         "pad_factor": Key(
             "number", "zero padding per side in flexural parameters", 4.5, minimum=0.0
@@ -83,11 +90,9 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
             "number", "half-space: padding per side in grid widths", 1.0, minimum=0.0
         ),
         "interpolation": Key(
-            "choice", "load between the given times", "linear", choices=("linear", "previous")
+            "choice", "load between the given times", "linear", choices=INTERPOLATIONS
         ),
-        "initial": Key(
-            "choice", "state at the first time", "rest", choices=("rest", "equilibrium")
-        ),
+        "initial": Key("choice", "state at the first time", "rest", choices=INITIAL_STATES),
         "max_step": Key(
             "quantity", "longest time step; longer intervals are split", None, "time", minimum=0.0
         ),
@@ -97,7 +102,7 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
         "file": Key("path", "NetCDF file with the ice thickness (time, y, x)", None),
         "variable": Key("string", "ice-thickness variable in the file (m)", None),
         "synthetic": Key(
-            "choice", "a built-in ice history instead of a file", None, choices=("disc",)
+            "choice", "a built-in ice history instead of a file", None, choices=SYNTHETIC_ICE
         ),
         "radius": Key("quantity", "radius of the synthetic ice disc", None, "length", minimum=0.0),
         "height": Key(
@@ -112,7 +117,7 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
             "choice",
             "what nodata/NaN cells of the file mean: no ice (with a warning) or an error",
             "zero",
-            choices=("zero", "error"),
+            choices=MISSING_POLICIES,
         ),
     },
     "bed": {
@@ -125,7 +130,9 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
         "file": Key("path", "NetCDF file with a sea-level series along time", None),
         "variable": Key("string", "sea-level variable in the file (m)", None),
         "reference_level": Key("quantity", "sea level of the reference state", 0.0, "length"),
-        "water_density": Key("quantity", "sea-water density", 1030.0, "density", minimum=0.0),
+        "water_density": Key(
+            "quantity", "sea-water density", SEA_WATER_DENSITY, "density", minimum=0.0
+        ),
     },
     "points": {
         "name": Key("string", "label of the point", REQUIRED),

@@ -15,7 +15,8 @@ import xarray as xr
 from gridflex.errors import InputError
 from gridflex.io.atomic import check_output_path
 from gridflex.io.netcdf import write_netcdf
-from gridflex.scenario.schema import SCHEMA, Scenario
+from gridflex.scenario.schema import Scenario
+from gridflex.scenario.tables import SCHEMA
 from gridflex.sweeps.parameter_sweep import sweep
 from gridflex.units import parse_quantity
 from gridflex.workflows.layers import build_working_load

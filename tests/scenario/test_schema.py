@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from gridflex import InputError
-from gridflex.scenario.schema import SCHEMA, load_scenario
+from gridflex.scenario.tables import SCHEMA, load_scenario
 from tests.helpers import REPO_ROOT
 
 GOOD = """
@@ -63,9 +63,28 @@ def test_good_scenario_with_units_and_defaults(tmp_path):
             r"\[plate\] elastic_thickness: required key is missing",
         ),
         (lambda t: t.replace('density = "2.8 g/cm^3"', ""), r"#1 density: required"),
-        (lambda t: t.replace('"25 km"', '"-3 km"'), r"elastic_thickness: must be >= 0"),
-        (lambda t: t + "\n[solver]\nmethod = 'fastest'\n", r"\[solver\] method: 'fastest' is not"),
+        (lambda t: t.replace('"25 km"', '"-3 km"'), r"elastic_thickness must be >= 0, got '-3 km'"),
+        (
+            lambda t: t + "\n[solver]\nmethod = 'fastest'\n",
+            r"\[solver\] method must be one of 'auto', .*; got 'fastest'",
+        ),
         (lambda t: t.replace("[plate]", "[plate\n"), "malformed TOML"),
+        (
+            lambda t: t.replace("[plate]", "[plate]\npoisson_ratio = nan"),
+            r"\[plate\] poisson_ratio must be a finite number, got nan",
+        ),
+        (
+            lambda t: t + "\n[solver]\nmax_iterations = 2.5\n",
+            r"\[solver\] max_iterations must be a whole number >= 1, got 2.5",
+        ),
+        (
+            lambda t: t.replace("[output]\n", '[output]\ngeotiff = "yes"\n'),
+            r"\[output\] geotiff must be true or false, got 'yes'",
+        ),
+        (
+            lambda t: t.replace('variable = "height"', "variable = 3"),
+            r"#1 variable must be a non-empty string, got 3",
+        ),
         (
             lambda t: t.replace('file = "load.nc"', 'synthetic = "disc"'),
             r"either 'file' \(with 'variable'\) or 'synthetic'|needs a \[grid\] table",

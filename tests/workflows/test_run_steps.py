@@ -17,7 +17,7 @@ from gridflex import (
     solve_with_infill,
 )
 from gridflex.errors import NodataWarning
-from gridflex.scenario.schema import load_scenario
+from gridflex.scenario.tables import load_scenario
 from gridflex.workflows.run import run_scenario
 from tests.helpers import make_grid
 
@@ -137,11 +137,11 @@ file = "r.nc"
         ),
         (
             lambda t: t.replace('sediment = "full"', 'sediment = "some"'),
-            r"\[infill\] sediment: 'some' is not allowed",
+            r"\[infill\] sediment must be one of .*; got 'some'",
         ),
         (
             lambda t: t.replace("[gravity]\n", "[gravity]\nterms = 0\n"),
-            r"\[gravity\] terms: must be >= 1",
+            r"\[gravity\] terms must be a whole number >= 1, got 0",
         ),
     ],
 )

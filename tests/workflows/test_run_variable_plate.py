@@ -10,7 +10,7 @@ import xarray as xr
 from numpy.testing import assert_allclose
 
 from gridflex import InputError
-from gridflex.scenario.schema import load_scenario
+from gridflex.scenario.tables import load_scenario
 from gridflex.workflows.run import elastic_thickness_from_scenario, run_scenario
 
 BASE = """
@@ -112,7 +112,7 @@ variable = "mask"
         ),
         (
             '[plate]\nelastic_thickness = "10 km"\n[solver]\nedges = "hinged"\n',
-            r"'hinged' is not allowed",
+            r"\[solver\] edges must be one of .*; got 'hinged'",
         ),
     ],
 )
