@@ -19,6 +19,7 @@ from gridflex.loads import load_from_layers
 from gridflex.plate import Plate
 from gridflex.scenario.schema import Scenario
 from gridflex.workflows.layers import elevation_stress
+from gridflex.workflows.scenario_tables import array_table
 
 __all__ = ["gravity_step", "infill_from_scenario", "infill_step", "load_column"]
 
@@ -46,7 +47,7 @@ def load_column(scenario: Scenario, layers: list[xr.DataArray]) -> xr.Dataset:
         ``load`` (Pa), ``initial_surface``, ``reference_surface``, ``load_height`` (m).
     """
     infill = scenario.table("infill")
-    specs = scenario.table("loads")
+    specs = array_table(scenario, "loads")
     thickness = [
         (da, spec["density"])
         for spec, da in zip(specs, layers, strict=True)
