@@ -33,7 +33,13 @@ from gridflex.grid import check_same_grid
 from gridflex.io.rasters import geometry_of, read_raster
 from gridflex.units import DIMENSIONS, unit_factor
 
-__all__ = ["MISSING_POLICIES", "apply_missing_policy", "read_grid_input", "si_unit"]
+__all__ = [
+    "MISSING_POLICIES",
+    "apply_missing_policy",
+    "in_si_units",
+    "read_grid_input",
+    "si_unit",
+]
 
 log = logging.getLogger(__name__)
 
@@ -100,8 +106,17 @@ def apply_missing_policy(
     return da.fillna(0.0)
 
 
-def _in_si(da: xr.DataArray, dimension: str | None, where: str) -> xr.DataArray:
-    """*da* converted to the SI unit of *dimension* by its ``units`` attribute."""
+def in_si_units(da: xr.DataArray, dimension: str | None, where: str) -> xr.DataArray:
+    """*da* converted to the SI unit of *dimension* by its CF ``units`` attribute.
+
+    A grid without ``units`` is taken in SI already; ``dimension=None`` (no unit,
+    e.g. a mask) returns *da* unchanged. ``attrs["units"]`` of the result is the SI unit.
+
+    Raises
+    ------
+    InputError
+        A unit that is not one of *dimension* (naming *where* and the variable).
+    """
     if dimension is None:
         return da
     si = si_unit(dimension)
@@ -215,7 +230,7 @@ def read_grid_input(
             "this run needs a grid in a metric projection"
         )
     da = apply_missing_policy(da, missing, label, elevation, missing_hint)
-    da = _in_si(da, dimension, label)
+    da = in_si_units(da, dimension, label)
     if reference is None:
         return da
     return _onto(da, label, reference, working, resampling, missing)

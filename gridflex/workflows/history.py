@@ -31,7 +31,7 @@ from gridflex.io.time_grids import DEFAULT_TIME_REFERENCE, cf_time_axis, read_hi
 from gridflex.progress import Progress
 from gridflex.scenario.schema import REQUIRED, SCHEMA, Key, Scenario, load_scenario, parse_tables
 from gridflex.synthetic import disc_height, empty_grid
-from gridflex.workflows.grid_input import apply_missing_policy, read_grid_input
+from gridflex.workflows.grid_input import apply_missing_policy, in_si_units, read_grid_input
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan, stamp_result, with_vertical_displacement
 from gridflex.workflows.run import plate_from_scenario
@@ -208,8 +208,9 @@ def _ice_history(scenario: Scenario, reference: str) -> xr.DataArray:
     ice = scenario.table("ice")
     if ice["file"] is not None:
         history = read_history(ice["file"], ice["variable"], reference)
-        where = scenario.where("ice", "file")
-        return apply_missing_policy(history, ice["missing"], where)
+        where = f"{scenario.where('ice', 'file')}: {ice['file'].name}"
+        history = apply_missing_policy(history, ice["missing"], where)
+        return in_si_units(history, "length", where)
     g = scenario.table("grid")
     grid = empty_grid(g["rows"], g["columns"], g["spacing"])
     disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
@@ -288,7 +289,9 @@ def run_history_scenario(
     sea = scenario.table("sea")
     level: Any = sea["level"]
     if sea["file"] is not None:
-        level = read_series(sea["file"], sea["variable"], reference)
+        sea_series = read_series(sea["file"], sea["variable"], reference)
+        where = f"{scenario.where('sea', 'file')}: {sea['file'].name}"
+        level = in_si_units(sea_series, "length", where)
     times = np.asarray(thickness["time"].values, dtype=np.float64)
     rate_time = float(times[-1]) if outputs["rate_time"] is None else outputs["rate_time"]
     if not times[0] <= rate_time <= times[-1]:

@@ -22,7 +22,6 @@ from affine import Affine
 from rasterio.crs import CRS
 
 from gridflex.constants import SEA_WATER_DENSITY
-from gridflex.errors import InputError
 from gridflex.gis.geometry import (
     GridGeometry,
     from_lonlat,
@@ -33,6 +32,7 @@ from gridflex.gis.geometry import (
 )
 from gridflex.io.rasters import geometry_of
 from gridflex.loads import load_from_elevation, regional_surface
+from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import Scenario
 from gridflex.synthetic import (
     Points,
@@ -170,7 +170,7 @@ def elevation_stress(scenario: Scenario, index: int, elevation: xr.DataArray) ->
     layer = array_table(scenario, "loads")[index]
     infill = scenario.table("infill") or {}
     regional: Any = layer["regional_elevation"]
-    try:
+    with error_context(scenario.where("loads", index=index)):
         if regional is None:
             regional = regional_surface(elevation, layer["regional_radius"])
         return load_from_elevation(
@@ -181,8 +181,6 @@ def elevation_stress(scenario: Scenario, index: int, elevation: xr.DataArray) ->
             water_density=infill.get("water_density", SEA_WATER_DENSITY),
             gravity=scenario.table("plate")["gravity"],
         )
-    except InputError as exc:
-        raise InputError(f"{scenario.where('loads', index=index)}: {exc}") from exc
 
 
 def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], WorkingGrid]:

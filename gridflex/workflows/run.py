@@ -36,7 +36,7 @@ from gridflex.workflows.run_steps import gravity_step, infill_step, load_column
 from gridflex.workflows.scenario_tables import array_table
 
 __all__ = [
-    "RunOutcome",
+    "RunOutcome",  # defined in gridflex.workflows.outcome; kept here for existing imports
     "elastic_thickness_from_scenario",
     "output_dataset",
     "plate_from_scenario",
