@@ -31,6 +31,7 @@ from gridflex.errors import InputError, NodataWarning
 from gridflex.gis.geometry import GridGeometry, reproject_values
 from gridflex.grid import check_same_grid
 from gridflex.io.rasters import geometry_of, read_raster
+from gridflex.scenario.context import error_context
 from gridflex.units import DIMENSIONS, unit_factor
 
 __all__ = [
@@ -223,7 +224,8 @@ def read_grid_input(
     """
     path = Path(path)
     label = f"{where}: {path.name}"
-    da = read_raster(path, variable)
+    with error_context(where):
+        da = read_raster(path, variable)
     if metric and geometry_of(da).is_geographic:
         raise InputError(
             f"{label}: variable {da.name!r} is in longitude/latitude (geographic CRS); "

@@ -180,3 +180,8 @@ def test_grid_that_does_not_cover_the_working_grid_is_refused(tmp_path):
         read_grid_input(path, None, WHERE, reference=reference, working=working)
     kept = read_grid_input(path, None, WHERE, missing="keep", reference=reference, working=working)
     assert np.isnan(kept.values[0]).all() and np.isfinite(kept.values[-1]).all()
+
+
+def test_unreadable_file_names_the_scenario_key(tmp_path):
+    with pytest.raises(InputError, match=r"elastic_thickness_file: .*nothere\.tif: file not found"):
+        read_grid_input(tmp_path / "nothere.tif", None, WHERE)
