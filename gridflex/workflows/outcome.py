@@ -17,8 +17,9 @@ class RunOutcome:
 
     Attributes
     ----------
-    result : xarray.Dataset or None
-        The result as written (on the input grid), when the workflow has one.
+    result : xarray.Dataset
+        The result as written (on the input grid): the solve, the best model of a fit,
+        the sweep, the basin or the ice history.
     written : list of pathlib.Path
         Files written, in order.
     summary : dict
@@ -27,7 +28,7 @@ class RunOutcome:
         The summary as lines of text for people (may be empty).
     """
 
-    result: xr.Dataset | None = None
+    result: xr.Dataset
     written: list[Path] = field(default_factory=list)
     summary: dict[str, Any] = field(default_factory=dict)
     text: str = ""

@@ -227,8 +227,10 @@ def run_scenario(
     """Build the load, solve and write the outputs of *scenario*.
 
     *progress* (optional) is called with (done, total) during an iterative solve.
-    Output paths are checked before the solve, so a run that would fail to write
-    fails before any work; files are written atomically and never over an input.
+    Output paths are checked before the solve (:class:`OutputPlan`), so a run that would
+    fail to write fails before any work; the GeoTIFF files, named after the result's
+    variables, are checked once the result is known and before anything is written.
+    Files are written atomically and never over an input.
 
     Raises
     ------
@@ -259,7 +261,6 @@ def _write_outputs(
     """Write the planned outputs of a run, in order, recording them in *outcome*."""
     outputs = scenario.table("output")
     result = outcome.result
-    assert result is not None
     overwrite, inputs = plan.overwrite, plan.inputs
     crs = grid.input.crs
     written = outcome.written

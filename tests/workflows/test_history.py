@@ -318,7 +318,6 @@ def test_ice_thickness_units_are_honoured(tmp_path):
     """The same ice given in km and in m gives the same ice load (unit rule of all inputs)."""
     text = _ice_and_bed_files(tmp_path, "km", 1e-3)
     outcome = run_history_scenario(load_history_scenario(_write(tmp_path, text)))
-    assert outcome.result is not None
     assert_allclose(float(outcome.result["ice_thickness"].max()), 1500.0, rtol=1e-12)
     _ice_and_bed_files(tmp_path, "furlong", 1.0)
     with pytest.raises(InputError, match=r"\[ice\] file: ice\.nc: variable 'thk': unit 'furlong'"):
