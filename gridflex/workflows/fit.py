@@ -11,7 +11,6 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from gridflex._version import __version__
 from gridflex.errors import InputError
 from gridflex.estimation.misfit import TeFit, fit_te
 from gridflex.gravity.first_order import CrustLayers
@@ -184,7 +183,11 @@ def fit_scenario(
         progress=progress,
     )
     model = output_dataset(fit.model, scenario, grid, "fit")
-    summary = {"scenario": str(scenario.path), "gridflex_version": __version__, **fit.summary()}
+    summary = {
+        "scenario": str(scenario.path),
+        "gridflex_version": model.attrs["gridflex_version"],
+        **fit.summary(),
+    }
     outcome = FitOutcome(result=model, summary=summary, text=format_fit(fit), fit=fit)
     overwrite, inputs = plan.overwrite, plan.inputs
     outcome.written.append(write_netcdf(model, plan["file"], overwrite, inputs, crs=grid.input.crs))
