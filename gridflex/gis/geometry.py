@@ -313,6 +313,7 @@ def _same_crs(a: CRS | None, b: CRS | None) -> bool:
 def _check_alignable(src: CRS | None, dst: CRS | None) -> None:
     if (src is None) != (dst is None):
         known = dst if src is None else src
+        assert known is not None  # exactly one of the two is None
         raise InputError(
             "cannot align a grid with no coordinate reference system to one in "
             f"{known.to_string()[:60]!r}; give both grids a CRS (or neither)"

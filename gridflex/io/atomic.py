@@ -24,9 +24,23 @@ def _umask() -> int:
 
 
 def check_output_path(
-    path: str | Path, overwrite: bool = False, inputs: Iterable[str | Path] = ()
+    path: str | Path,
+    overwrite: bool = False,
+    inputs: Iterable[str | Path] = (),
+    create_folder: bool = True,
 ) -> Path:
     """Check that *path* may be written and return it as a Path.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        The output file.
+    overwrite : bool, default False
+        An existing file may be replaced.
+    inputs : iterable of path
+        Files that must never be written over.
+    create_folder : bool, default True
+        Create the missing parent folders (``False``: only check, create nothing).
 
     Raises
     ------
@@ -43,6 +57,8 @@ def check_output_path(
         raise InputError(f"{path}: output path is a directory")
     if path.exists() and not overwrite:
         raise InputError(f"{path}: output exists; pass --overwrite (overwrite=True) to replace it")
+    if not create_folder:
+        return path
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:

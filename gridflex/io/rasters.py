@@ -31,14 +31,24 @@ from gridflex.io.atomic import atomic_path
 from gridflex.memory import check_memory
 from gridflex.units import unit_factor
 
-__all__ = ["NETCDF_SUFFIXES", "geometry_of", "read_raster", "write_geotiff"]
+__all__ = [
+    "LAYER_MISSING_POLICIES",
+    "MISSING_POLICIES",
+    "NETCDF_SUFFIXES",
+    "geometry_of",
+    "read_raster",
+    "write_geotiff",
+]
 
 log = logging.getLogger(__name__)
 
 NETCDF_SUFFIXES = (".nc", ".nc4", ".cdf", ".netcdf")
 """File name endings read through xarray/netCDF4 rather than GDAL."""
 
-MISSING_POLICIES = ("zero", "error")  # what nodata/NaN cells of a layer mean
+MISSING_POLICIES = ("error", "zero", "keep")
+"""What nodata/NaN cells of an input grid mean: an error, no load (0), or no data (NaN)."""
+LAYER_MISSING_POLICIES = MISSING_POLICIES[:2]
+"""The policies a scenario offers for a load layer or an ice grid (``"keep"`` is internal)."""
 
 _NETCDF_MAGIC = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n")
 _TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")

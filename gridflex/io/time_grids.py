@@ -14,6 +14,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from gridflex.constants import DAYS_PER_YEAR
 from gridflex.errors import InputError
 from gridflex.gis.geometry import GridGeometry
 from gridflex.units import DIMENSIONS, unit_factor
@@ -27,7 +28,6 @@ __all__ = [
     "years_from_cf",
 ]
 
-DAYS_PER_YEAR = 365.25
 DEFAULT_TIME_REFERENCE = "1950-01-01"
 CALENDAR = "proleptic_gregorian"
 
@@ -113,6 +113,22 @@ def _time_years(da: xr.DataArray, ds: xr.Dataset, reference: str, where: str) ->
     )
 
 
+def _read_timed(
+    path: Path, variable: str, reference: str, ndim: int, expected: str
+) -> tuple[xr.DataArray, np.ndarray, str]:
+    """*variable* of *path* (loaded), its times in years, and ``"file: variable"``.
+
+    The variable must have *ndim* dims, time first; *expected* says so in messages.
+    """
+    where = f"{path}: variable {variable!r}"
+    da, ds = _open(path, variable)
+    with ds:
+        if da.ndim != ndim:
+            raise InputError(f"{where}: expected {expected}, got dims {da.dims!r}")
+        times = _time_years(da, ds, reference, where)
+    return da, times, where
+
+
 def read_history(
     path: str | Path, variable: str, reference: str = DEFAULT_TIME_REFERENCE
 ) -> xr.DataArray:
@@ -130,16 +146,10 @@ def read_history(
     InputError
         Missing file or variable, not 3-D, unknown units.
     """
-    path = Path(path)
-    where = f"{path}: variable {variable!r}"
-    da, ds = _open(path, variable)
-    with ds:
-        if da.ndim != 3:
-            raise InputError(f"{where}: expected (time, y, x), got dims {da.dims!r}")
-        times = _time_years(da, ds, reference, where)
-        ydim, xdim = (str(d) for d in da.dims[1:])
-        y = _metric_axis(da, ydim, where)
-        x = _metric_axis(da, xdim, where)
+    da, times, where = _read_timed(Path(path), variable, reference, 3, "(time, y, x)")
+    ydim, xdim = (str(d) for d in da.dims[1:])
+    y = _metric_axis(da, ydim, where)
+    x = _metric_axis(da, xdim, where)
     try:  # exactly even cell centres, also for coordinates stored in float32
         y, x = GridGeometry.from_coords(y, x, None).coords()
     except InputError as exc:
@@ -158,13 +168,7 @@ def read_series(
     path: str | Path, variable: str, reference: str = DEFAULT_TIME_REFERENCE
 ) -> xr.DataArray:
     """Read a 1-D time series (e.g. sea level, m) with its time in years."""
-    path = Path(path)
-    where = f"{path}: variable {variable!r}"
-    da, ds = _open(path, variable)
-    with ds:
-        if da.ndim != 1:
-            raise InputError(f"{where}: expected a series along time, got dims {da.dims!r}")
-        times = _time_years(da, ds, reference, where)
+    da, times, _ = _read_timed(Path(path), variable, reference, 1, "a series along time")
     return xr.DataArray(
         np.asarray(da.values, dtype=np.float64),
         dims=("time",),

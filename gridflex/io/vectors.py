@@ -135,7 +135,7 @@ def _moat_polygons(
             )
             for sign, far in ((1.0, False), (-1.0, True))
         ]
-    out = []
+    out: list[list[list[list[float]]]] = []
     for polygons, far in pieces:
         out.extend(p for p in (_polygon(p, crs, seam, far) for p in polygons) if p)
     return out
@@ -225,18 +225,18 @@ def outline_features(result: xr.Dataset, crs: CRS | str | None, moat_depth: floa
             "the result has no coordinate reference system, so its outlines cannot be "
             "placed in longitude/latitude for GeoJSON; give the input a CRS"
         )
-    crs = crs if isinstance(crs, CRS) else parse_crs(crs, "outline crs")
+    crs_object = crs if isinstance(crs, CRS) else parse_crs(crs, "outline crs")
     for name in ("deflection", "load"):
         if name not in result:
             raise InputError(f"result has no variable {name!r}; it is needed for the outlines")
     deflection = result["deflection"].copy(deep=False)
-    deflection.attrs = {**deflection.attrs, "crs_wkt": crs.to_wkt()}
+    deflection.attrs = {**deflection.attrs, "crs_wkt": crs_object.to_wkt()}
     w = np.asarray(deflection.values, float)
     moat_depth = check_moat_depth(moat_depth)
-    seam = _seam(deflection, crs)
+    seam = _seam(deflection, crs_object)
     features = []
 
-    polygons = _moat_polygons(deflection, moat_depth, crs, seam)
+    polygons = _moat_polygons(deflection, moat_depth, crs_object, seam)
     if polygons:
         geometry = (
             {"type": "Polygon", "coordinates": polygons[0]}
@@ -256,38 +256,26 @@ def outline_features(result: xr.Dataset, crs: CRS | str | None, moat_depth: floa
         )
     else:
         log.info("deflection never reaches the moat depth %s m: no moat outline", moat_depth)
-
-    crest = _lines(forebulge_crest(deflection, result["load"]), crs, seam)
-    if crest:
+    line_sets = (
+        (
+            forebulge_crest(deflection, result["load"]),
+            "forebulge_crest",
+            "forebulge crest (level: the deflection at the highest uplift)",
+            float(np.nanmin(w)),
+        ),
+        (zero_line(deflection), "zero_deflection", "zero-deflection line", 0.0),
+    )
+    for lines, name, long_name, level in line_sets:
+        coordinates = _lines(lines, crs_object, seam)
+        if not coordinates:
+            log.info("no %s line found", name)
+            continue
         features.append(
             _feature(
-                {"type": "MultiLineString", "coordinates": crest},
-                {
-                    "name": "forebulge_crest",
-                    "long_name": "forebulge crest (level: the deflection at the highest uplift)",
-                    "level": float(np.nanmin(w)),
-                    "units": "m",
-                },
+                {"type": "MultiLineString", "coordinates": coordinates},
+                {"name": name, "long_name": long_name, "level": level, "units": "m"},
             )
         )
-    else:
-        log.info("no forebulge crest found")
-
-    zero = _lines(zero_line(deflection), crs, seam)
-    if zero:
-        features.append(
-            _feature(
-                {"type": "MultiLineString", "coordinates": zero},
-                {
-                    "name": "zero_deflection",
-                    "long_name": "zero-deflection line",
-                    "level": 0.0,
-                    "units": "m",
-                },
-            )
-        )
-    else:
-        log.info("no zero-deflection line found")
     return features
 
 

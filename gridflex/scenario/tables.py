@@ -35,7 +35,7 @@ from gridflex.engine import EDGES, METHODS
 from gridflex.estimation.misfit import QUANTITIES
 from gridflex.gis.geometry import RESAMPLING
 from gridflex.infill import SEDIMENT_MODES
-from gridflex.io.rasters import MISSING_POLICIES
+from gridflex.io.rasters import LAYER_MISSING_POLICIES
 from gridflex.loads import LOAD_KINDS
 from gridflex.scenario.checks import check_scenario
 from gridflex.scenario.schema import REQUIRED, Key, Scenario, ScenarioT, parse_tables, read_scenario
@@ -183,7 +183,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
             "choice",
             "what nodata/NaN cells mean: zero load (with a warning) or an error",
             "zero",
-            choices=MISSING_POLICIES,
+            choices=LAYER_MISSING_POLICIES,
         ),
         "synthetic": Key(
             "choice",

@@ -3,52 +3,33 @@
 from __future__ import annotations
 
 import logging
-from collections.abc import Callable
+from pathlib import Path
 from typing import Any
 
-import numpy as np
 import xarray as xr
-from rasterio.crs import CRS
 
-from gridflex._version import __version__
 from gridflex.basin.compaction import LITHOLOGIES, Lithology
 from gridflex.basin.staging import Stage, backstrip, backstrip_layers, stage_loading
 from gridflex.errors import InputError
-from gridflex.grid import check_same_grid
-from gridflex.io.atomic import check_output_path
 from gridflex.io.netcdf import write_netcdf
-from gridflex.io.rasters import read_raster
+from gridflex.io.rasters import geometry_of
+from gridflex.progress import Progress
+from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import Scenario
-from gridflex.units import unit_factor
-from gridflex.workflows.run import RunOutcome, plate_from_scenario
+from gridflex.workflows.grid_input import read_grid_input
+from gridflex.workflows.outcome import RunOutcome
+from gridflex.workflows.outputs import OutputPlan, stamp_result
+from gridflex.workflows.run import plate_from_scenario
+from gridflex.workflows.scenario_tables import array_table
 
-__all__ = ["run_basin"]
+__all__ = ["format_basin_summary", "run_basin"]
 
 log = logging.getLogger(__name__)
 
 
-def _grid(path: Any, variable: str, where: str, reference: xr.DataArray | None) -> xr.DataArray:
-    """A metric length grid (m) read from a GeoTIFF or NetCDF file."""
-    where = f"{where} ({path.name})"
-    grid = read_raster(path, variable)
-    if grid.attrs.get("crs_wkt") and CRS.from_wkt(grid.attrs["crs_wkt"]).is_geographic:
-        raise InputError(
-            f"{where}: the grid is in longitude/latitude; a basin run needs a "
-            "grid in a metric projection"
-        )
-    if not np.all(np.isfinite(grid.values)):
-        raise InputError(
-            f"{where}: {int((~np.isfinite(grid.values)).sum())} nodata or NaN "
-            "cell(s); fill them first"
-        )
-    units = str(grid.attrs.get("units", "") or "m")
-    grid = grid * unit_factor(units, "length", f"{where}: variable {grid.name!r}")
-    if reference is not None:
-        try:
-            check_same_grid(grid, reference, where)
-        except InputError as exc:
-            raise InputError(f"{exc}; every grid must be on the first grid's grid") from exc
-    return grid
+def _grid(path: Path, variable: str, where: str, reference: xr.DataArray | None) -> xr.DataArray:
+    """A metric length grid (m) from a GeoTIFF or NetCDF file, on *reference*'s grid."""
+    return read_grid_input(path, variable, where, metric=True, reference=reference)
 
 
 def _lithology(row: dict[str, Any], where: str) -> Lithology:
@@ -60,7 +41,7 @@ def _lithology(row: dict[str, Any], where: str) -> Lithology:
     }
     if not overrides:
         return base
-    try:
+    with error_context(where):
         return Lithology(
             name=f"{base.name} (modified)",
             surface_porosity=overrides.get("surface_porosity", base.surface_porosity),
@@ -68,19 +49,17 @@ def _lithology(row: dict[str, Any], where: str) -> Lithology:
             grain_density=overrides.get("grain_density", base.grain_density),
             source=f"{base.source}; overridden in the scenario",
         )
-    except InputError as exc:
-        raise InputError(f"{where}: {exc}") from exc
 
 
 def _stages(scenario: Scenario, surface: xr.DataArray) -> list[Stage]:
     stages = []
-    for i, row in enumerate(scenario.table("stages")):
+    for i, row in enumerate(array_table(scenario, "stages")):
         where = scenario.where("stages", index=i)
         thickness = _grid(row["file"], row["variable"], where, surface)
         te: Any = row["elastic_thickness"]
         if row["te_file"] is not None:
             te = _grid(row["te_file"], row["te_variable"], f"{where} te_file", surface)
-        try:
+        with error_context(where):
             stages.append(
                 Stage(
                     thickness,
@@ -91,12 +70,11 @@ def _stages(scenario: Scenario, surface: xr.DataArray) -> list[Stage]:
                     te=te,
                 )
             )
-        except InputError as exc:
-            raise InputError(f"{where}: {exc}") from exc
     return stages
 
 
-def _run_stages(scenario: Scenario, progress: Callable[[int, int], Any] | None) -> xr.Dataset:
+def _run_stages(scenario: Scenario, progress: Progress | None) -> tuple[xr.Dataset, xr.DataArray]:
+    """The staged loading of ``[basin]`` and ``[[stages]]``, and the surface grid."""
     table, solver = scenario.table("basin"), scenario.table("solver")
     surface = _grid(
         table["surface_file"],
@@ -105,7 +83,7 @@ def _run_stages(scenario: Scenario, progress: Callable[[int, int], Any] | None) 
         None,
     )
     stages = _stages(scenario, surface)
-    try:
+    with error_context(scenario.where("basin")):
         result = stage_loading(
             stages,
             surface,
@@ -120,22 +98,23 @@ def _run_stages(scenario: Scenario, progress: Callable[[int, int], Any] | None) 
             pad_factor=solver["pad_factor"],
             progress=progress,
         )
-    except InputError as exc:
-        raise InputError(f"{scenario.where('basin')}: {exc}") from exc
-    result.attrs["crs_wkt"] = surface.attrs.get("crs_wkt", "")
-    return result
+    return result, surface
 
 
-def _run_backstrip_layers(scenario: Scenario) -> xr.Dataset:
+def _run_backstrip_layers(scenario: Scenario) -> tuple[xr.Dataset, xr.DataArray]:
+    """The backstrip of ``[[backstrip_layers]]``, and the first layer's grid."""
     table, solver = scenario.table("backstrip"), scenario.table("solver")
-    layers, depths, levels, ages = [], [], [], []
-    reference = None
-    for i, row in enumerate(scenario.table("backstrip_layers")):
+    layers: list[tuple[xr.DataArray, Lithology]] = []
+    depths: list[float | xr.DataArray] = []
+    levels: list[float] = []
+    ages: list[float] = []  # every layer has an age, or none (checked on loading)
+    reference: xr.DataArray | None = None
+    for i, row in enumerate(array_table(scenario, "backstrip_layers")):
         where = scenario.where("backstrip_layers", index=i)
         grid = _grid(row["file"], row["variable"], where, reference)
         reference = grid if reference is None else reference
         layers.append((grid, _lithology(row, where)))
-        depth: Any = row["water_depth"]
+        depth: float | xr.DataArray = row["water_depth"]
         if row["water_depth_file"] is not None:
             depth = _grid(
                 row["water_depth_file"],
@@ -145,31 +124,30 @@ def _run_backstrip_layers(scenario: Scenario) -> xr.Dataset:
             )
         depths.append(depth)
         levels.append(row["sea_level_change"])
-        ages.append(row["age"])
-    assert reference is not None
-    try:
+        if row["age"] is not None:
+            ages.append(float(row["age"]))
+    assert reference is not None  # the schema requires at least one layer
+    with error_context(scenario.where("backstrip")):
         result = backstrip_layers(
             layers,
             depths,
             plate_from_scenario(scenario),
             sea_level_changes=levels,
-            ages=None if ages[0] is None else ages,
+            ages=ages or None,
             water_density=table["water_density"],
             edges=solver["edges"],
             pad_factor=solver["pad_factor"],
         )
-    except InputError as exc:
-        raise InputError(f"{scenario.where('backstrip')}: {exc}") from exc
-    result.attrs["crs_wkt"] = reference.attrs.get("crs_wkt", "")
-    return result
+    return result, reference
 
 
-def _run_backstrip(scenario: Scenario) -> xr.Dataset:
+def _run_backstrip(scenario: Scenario) -> tuple[xr.Dataset, xr.DataArray]:
+    """The backstrip of ``[backstrip]`` (or its layers), and the first grid read."""
     table, solver = scenario.table("backstrip"), scenario.table("solver")
-    if scenario.table("backstrip_layers"):
+    if array_table(scenario, "backstrip_layers"):
         return _run_backstrip_layers(scenario)
     grids: dict[str, xr.DataArray | None] = {}
-    reference = None
+    reference: xr.DataArray | None = None
     for part in ("basement", "sediment", "water"):
         if table[f"{part}_file"] is None:
             grids[part] = None
@@ -182,7 +160,7 @@ def _run_backstrip(scenario: Scenario) -> xr.Dataset:
         )
         reference = grid if reference is None else reference
         grids[part] = grid
-    try:
+    with error_context(scenario.where("backstrip")):
         result = backstrip(
             grids["basement"],
             grids["sediment"],
@@ -196,17 +174,35 @@ def _run_backstrip(scenario: Scenario) -> xr.Dataset:
             edges=solver["edges"],
             pad_factor=solver["pad_factor"],
         )
-    except InputError as exc:
-        raise InputError(f"{scenario.where('backstrip')}: {exc}") from exc
-    assert reference is not None
-    result.attrs["crs_wkt"] = reference.attrs.get("crs_wkt", "")
-    return result
+    assert reference is not None  # backstrip() refuses a run without grids
+    return result, reference
+
+
+def _summary(result: xr.Dataset) -> dict[str, float]:
+    """Key numbers (m) of a staged-loading or backstrip result."""
+    if "stage" in result.dims:
+        last = result.isel(stage=-1)
+        return {
+            "stages": int(result.sizes["stage"]),
+            "max_deflection": float(last["deflection"].max()),
+            "max_sediment_thickness": float(last["sediment_thickness"].max()),
+        }
+    present = result.isel(step=0) if "step" in result.dims else result
+    return {
+        "max_tectonic_subsidence": float(present["tectonic_subsidence"].max()),
+        "max_local_tectonic_subsidence": float(present["local_tectonic_subsidence"].max()),
+    }
+
+
+def format_basin_summary(summary: dict[str, float]) -> str:
+    """The summary of :func:`run_basin` as ``key: value`` lines."""
+    return "\n".join(f"{key.replace('_', ' ')}: {value:.6g}" for key, value in summary.items())
 
 
 def run_basin(
     scenario: Scenario,
     overwrite: bool = False,
-    progress: Callable[[int, int], Any] | None = None,
+    progress: Progress | None = None,
 ) -> RunOutcome:
     """Solve a basin scenario and write its NetCDF file.
 
@@ -222,34 +218,15 @@ def run_basin(
             f"{scenario.path}: not a basin scenario (no [basin] or [backstrip] "
             "table); run it with 'gridflex run'"
         )
-    output = scenario.table("output")["file"]
-    inputs = scenario.input_files
-    check_output_path(output, overwrite, inputs)
+    plan = OutputPlan(scenario, overwrite)
+    plan.add({"file": scenario.table("output")["file"]})
     if scenario.tables.get("basin") is not None:
-        result = _run_stages(scenario, progress)
-        last = result.isel(stage=-1)
-        summary = {
-            "stages": int(result.sizes["stage"]),
-            "max_deflection": float(last["deflection"].max()),
-            "max_sediment_thickness": float(last["sediment_thickness"].max()),
-        }
+        result, reference = _run_stages(scenario, progress)
     else:
-        result = _run_backstrip(scenario)
-        present = result.isel(step=0) if "step" in result.dims else result
-        summary = {
-            "max_tectonic_subsidence": float(present["tectonic_subsidence"].max()),
-            "max_local_tectonic_subsidence": float(present["local_tectonic_subsidence"].max()),
-        }
-    result.attrs["history"] = f"gridflex {__version__} basin {scenario.path.name}"
-    result.attrs["scenario"] = scenario.text
-    for name in ("x", "y"):
-        result[name].attrs = {
-            "units": "m",
-            "axis": name.upper(),
-            "long_name": f"{name} (projected)",
-        }
-    outcome = RunOutcome(result=result, summary=summary)
-    wkt = str(result.attrs.pop("crs_wkt", "") or "")
-    crs = CRS.from_wkt(wkt) if wkt else None
-    outcome.written.append(write_netcdf(result, output, overwrite, inputs, crs=crs))
+        result, reference = _run_backstrip(scenario)
+    result = stamp_result(result, scenario, "basin", projected_axes=True)
+    summary = _summary(result)
+    outcome = RunOutcome(result=result, summary=summary, text=format_basin_summary(summary))
+    crs = geometry_of(reference).crs
+    outcome.written.append(write_netcdf(result, plan["file"], plan.overwrite, plan.inputs, crs=crs))
     return outcome

@@ -6,7 +6,8 @@ from importlib import resources
 from pathlib import Path
 
 from gridflex.scenario.tables import load_scenario
-from gridflex.workflows.run import RunOutcome, run_scenario
+from gridflex.workflows.outcome import RunOutcome
+from gridflex.workflows.run import run_scenario
 
 __all__ = ["DEMO_FILE_NAME", "demo_scenario_text", "run_demo"]
 
@@ -40,4 +41,7 @@ def run_demo(out_dir: str | Path = "gridflex-demo") -> RunOutcome:
     scenario_path.write_text(demo_scenario_text(), encoding="utf-8")
     outcome = run_scenario(load_scenario(scenario_path), overwrite=True)
     outcome.written.insert(0, scenario_path)
+    te = float(outcome.result.attrs["plate_te"])
+    heading = f"Invented volcanic island chain on a {te / 1e3:g} km thick elastic plate:"
+    outcome.text = f"{heading}\n{outcome.text}"
     return outcome

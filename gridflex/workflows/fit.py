@@ -4,41 +4,60 @@ from __future__ import annotations
 
 import json
 import logging
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
-from gridflex._version import __version__
 from gridflex.errors import InputError
 from gridflex.estimation.misfit import TeFit, fit_te
-from gridflex.gis.geometry import reproject_values
 from gridflex.gravity.first_order import CrustLayers
-from gridflex.grid import check_same_grid
-from gridflex.io.atomic import atomic_path, check_output_path
+from gridflex.io.atomic import atomic_path
 from gridflex.io.netcdf import write_netcdf
 from gridflex.io.plots import plot_deflection_map, plot_misfit
-from gridflex.io.rasters import geometry_of, read_raster
+from gridflex.progress import Progress
 from gridflex.scenario.schema import Scenario
-from gridflex.units import unit_factor
+from gridflex.workflows.grid_input import read_grid_input
 from gridflex.workflows.layers import WorkingGrid, build_working_load
+from gridflex.workflows.outcome import RunOutcome
+from gridflex.workflows.outputs import OutputPlan
 from gridflex.workflows.run import output_dataset, plate_from_scenario
+from gridflex.workflows.scenario_tables import refuse_tables
 
-__all__ = ["FitOutcome", "fit_outputs", "fit_scenario"]
+__all__ = ["FitOutcome", "fit_outputs", "fit_scenario", "format_fit"]
 
 log = logging.getLogger(__name__)
 
 _OBSERVED_DIMENSION = {"deflection": "length", "surface": "length", "free_air_anomaly": None}
 
 
-@dataclass
-class FitOutcome:
-    """What ``gridflex fit`` produced: the fit and the files written, in order."""
+@dataclass(kw_only=True)
+class FitOutcome(RunOutcome):
+    """What ``gridflex fit`` produced: a :class:`RunOutcome` with the fit itself.
+
+    ``result`` is the best model as written, ``summary`` the fit's JSON summary and
+    ``text`` :func:`format_fit` of the fit.
+    """
 
     fit: TeFit
-    written: list[Path] = field(default_factory=list)
+
+
+def format_fit(fit: TeFit) -> str:
+    """The fit as a few lines of text (km; the misfit in the units of the observation)."""
+    closed = "" if all(fit.interval_closed) else " (open: reaches a search bound)"
+    lines = [
+        f"te = {fit.te / 1e3:.3f} km, {fit.confidence:.0%} interval "
+        f"[{fit.te_low / 1e3:.3f}, {fit.te_high / 1e3:.3f}] km{closed}"
+    ]
+    if fit.load_scale != 1.0:
+        lines.append(f"load scale = {fit.load_scale:.4f} (fitted / given load)")
+    lines.append(
+        f"offset = {fit.offset:.6g}, RMS misfit = {fit.rms:.6g} "
+        f"({fit.n_data} cells, about {fit.n_effective:.0f} independent)"
+    )
+    return "\n".join(lines)
 
 
 def fit_outputs(scenario: Scenario) -> dict[str, Path | None]:
@@ -82,39 +101,46 @@ def _fit_table(scenario: Scenario) -> dict[str, Any]:
         raise InputError(
             f"{scenario.where('fit', 'seafloor_depth')}: required for quantity 'free_air_anomaly'"
         )
-    for name in ("infill", "gravity"):
-        if scenario.tables.get(name) is not None:
-            raise InputError(
-                f"{scenario.where(name)}: 'gridflex fit' uses the plain solve; "
-                f"remove the [{name}] table"
-            )
+    refuse_tables(scenario, ("infill", "gravity"), "'gridflex fit' uses the plain solve")
     return table
 
 
-def _on_working_grid(
-    path: Path,
-    variable: str,
-    dimension: str | None,
-    load: xr.DataArray,
-    grid: WorkingGrid,
-    where: str,
-) -> xr.DataArray:
-    """A grid read from *path*, in SI (or mGal), on the working grid of the load."""
-    da = read_raster(path, variable)
-    if dimension is not None:
-        units = str(da.attrs.get("units", "") or "m")
-        da = da * unit_factor(units, dimension, f"{where} ({path.name}): variable {da.name!r}")
-    if grid.resampled:
-        values = reproject_values(da.values, geometry_of(da), grid.working, "bilinear")
-        return load.copy(data=values)
-    try:
-        check_same_grid(da.assign_coords(y=da["y"].values, x=da["x"].values), load, where)
-    except InputError as exc:
-        raise InputError(f"{exc}; it must be on the grid of the first [[loads]] layer") from exc
-    return load.copy(data=np.asarray(da.values, dtype=np.float64))
+def _observed_grids(
+    scenario: Scenario, table: dict[str, Any], load: xr.DataArray, grid: WorkingGrid
+) -> tuple[xr.DataArray, xr.DataArray | None]:
+    """The observation (SI, or mGal) and the optional mask on the working grid of the load.
+
+    NaN cells of the observation (and cells outside it) are not compared; so are NaN
+    cells of the mask.
+    """
+    observed = read_grid_input(
+        table["observed_file"],
+        table["observed_variable"],
+        scenario.where("fit", "observed_file"),
+        dimension=_OBSERVED_DIMENSION[table["quantity"]],
+        missing="keep",
+        reference=load,
+        working=grid.working,
+    )
+    if table["mask_file"] is None:
+        return observed, None
+    raw = read_grid_input(
+        table["mask_file"],
+        table["mask_variable"],
+        scenario.where("fit", "mask_file"),
+        dimension=None,
+        missing="keep",
+        reference=load,
+        working=grid.working,
+        resampling="nearest",
+    )
+    values = np.asarray(raw.values)
+    return observed, raw.copy(data=np.isfinite(values) & (values != 0))
 
 
-def fit_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = None) -> FitOutcome:
+def fit_scenario(
+    scenario: Scenario, overwrite: bool = False, progress: Progress | None = None
+) -> FitOutcome:
     """Fit te to the ``[fit]`` observation of *scenario* and write the outputs.
 
     Writes the best model (``[output] file``, NetCDF), optionally its deflection
@@ -127,33 +153,12 @@ def fit_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = No
         Missing or invalid ``[fit]`` table, files or output paths.
     """
     table = _fit_table(scenario)
-    targets = fit_outputs(scenario)
-    inputs = scenario.input_files
-    for target in targets.values():
-        if target is not None:
-            check_output_path(target, overwrite, inputs)
+    plan = OutputPlan(scenario, overwrite)
+    plan.add(fit_outputs(scenario))
     plate = plate_from_scenario(scenario)
     load, grid = build_working_load(scenario)
     quantity = table["quantity"]
-    observed = _on_working_grid(
-        table["observed_file"],
-        table["observed_variable"],
-        _OBSERVED_DIMENSION[quantity],
-        load,
-        grid,
-        scenario.where("fit", "observed_file"),
-    )
-    mask = None
-    if table["mask_file"] is not None:
-        raw = _on_working_grid(
-            table["mask_file"],
-            table["mask_variable"],
-            None,
-            load,
-            grid,
-            scenario.where("fit", "mask_file"),
-        )
-        mask = raw.copy(data=np.nan_to_num(raw.values) != 0)
+    observed, mask = _observed_grids(scenario, table, load, grid)
     gravity = CrustLayers(table["seafloor_depth"]) if quantity == "free_air_anomaly" else None
     solver = scenario.table("solver")
     if solver["inplane_force_x"] or solver["inplane_force_y"]:
@@ -177,26 +182,28 @@ def fit_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = No
         pad_factor=solver["pad_factor"],
         progress=progress,
     )
-    outcome = FitOutcome(fit=fit)
-    model = output_dataset(fit.model, scenario, grid)
-    model.attrs["history"] = f"gridflex {__version__} fit {scenario.path.name}"
-    outcome.written.append(
-        write_netcdf(model, targets["file"], overwrite, inputs, crs=grid.input.crs)
-    )
-    if targets["map"] is not None:
+    model = output_dataset(fit.model, scenario, grid, "fit")
+    summary = {
+        "scenario": str(scenario.path),
+        "gridflex_version": model.attrs["gridflex_version"],
+        **fit.summary(),
+    }
+    outcome = FitOutcome(result=model, summary=summary, text=format_fit(fit), fit=fit)
+    overwrite, inputs = plan.overwrite, plan.inputs
+    outcome.written.append(write_netcdf(model, plan["file"], overwrite, inputs, crs=grid.input.crs))
+    if plan.get("map") is not None:
         outcome.written.append(
             plot_deflection_map(
                 model,
-                targets["map"],
+                plan["map"],
                 overwrite,
                 inputs,
                 title=f"Best-fitting deflection, Te = {fit.te / 1e3:.2f} km",
             )
         )
-    summary = {"scenario": str(scenario.path), "gridflex_version": __version__, **fit.summary()}
-    with atomic_path(targets["summary"], overwrite, inputs) as tmp:
-        Path(tmp).write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
-    outcome.written.append(Path(targets["summary"]))
-    outcome.written.append(plot_misfit(fit, targets["plot"], overwrite, inputs))
+    with atomic_path(plan["summary"], overwrite, inputs) as tmp:
+        tmp.write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
+    outcome.written.append(plan["summary"])
+    outcome.written.append(plot_misfit(fit, plan["plot"], overwrite, inputs))
     log.info("fit written: %s", ", ".join(map(str, outcome.written)))
     return outcome

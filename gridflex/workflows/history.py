@@ -23,25 +23,25 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from gridflex._version import __version__
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.engine import SPECTRAL_EDGES
 from gridflex.errors import InputError
 from gridflex.glacial.ice import ice_response
-from gridflex.glacial.response import INITIAL_STATES, Progress
-from gridflex.grid import check_same_grid
-from gridflex.io.atomic import check_output_path
+from gridflex.glacial.response import INITIAL_STATES
 from gridflex.io.netcdf import write_netcdf
 from gridflex.io.plots import plot_point_series, plot_uplift_rate_map
-from gridflex.io.rasters import MISSING_POLICIES, read_raster
+from gridflex.io.rasters import LAYER_MISSING_POLICIES
 from gridflex.io.time_grids import DEFAULT_TIME_REFERENCE, cf_time_axis, read_history, read_series
+from gridflex.progress import Progress
 from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
 from gridflex.scenario.tables import SCHEMA, load_scenario
 from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
 from gridflex.synthetic import disc_height, empty_grid
-from gridflex.units import unit_factor
-from gridflex.workflows.layers import apply_missing_policy
-from gridflex.workflows.run import RunOutcome, plate_from_scenario
+from gridflex.workflows.grid_input import apply_missing_policy, in_si_units, read_grid_input
+from gridflex.workflows.outcome import RunOutcome
+from gridflex.workflows.outputs import OutputPlan, stamp_result, with_vertical_displacement
+from gridflex.workflows.run import plate_from_scenario
+from gridflex.workflows.scenario_tables import array_table
 
 __all__ = [
     "HISTORY_SCHEMA",
@@ -117,7 +117,7 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
             "choice",
             "what nodata/NaN cells of the file mean: no ice (with a warning) or an error",
             "zero",
-            choices=MISSING_POLICIES,
+            choices=LAYER_MISSING_POLICIES,
         ),
     },
     "bed": {
@@ -208,7 +208,7 @@ def _check_history(scenario: Scenario) -> None:
             f"{scenario.where('plate', 'infill_density')}: must be 0 for an ice "
             "history (the ocean over depressed bedrock is added from the sea level)"
         )
-    names = [p["name"] for p in scenario.table("points")]
+    names = [p["name"] for p in array_table(scenario, "points")]
     if len(set(names)) != len(names):
         raise InputError(f"{scenario.path}: [[points]] names must differ, got {names!r}")
 
@@ -217,8 +217,9 @@ def _ice_history(scenario: Scenario, reference: str) -> xr.DataArray:
     ice = scenario.table("ice")
     if ice["file"] is not None:
         history = read_history(ice["file"], ice["variable"], reference)
-        where = scenario.where("ice", "file")
-        return apply_missing_policy(history, ice["missing"], where)
+        where = f"{scenario.where('ice', 'file')}: {ice['file'].name}"
+        history = apply_missing_policy(history, ice["missing"], where)
+        return in_si_units(history, "length", where)
     g = scenario.table("grid")
     grid = empty_grid(g["rows"], g["columns"], g["spacing"])
     disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
@@ -233,34 +234,24 @@ def _ice_history(scenario: Scenario, reference: str) -> xr.DataArray:
 
 
 def _bed(scenario: Scenario, like: xr.DataArray) -> xr.DataArray:
+    """The bed elevation (m, up) of the reference state on the ice grid *like*."""
     bed = scenario.table("bed")
     if bed["file"] is None:
         return xr.full_like(like, bed["elevation"], dtype=np.float64)
-    where = scenario.where("bed", "file")
-    grid = read_raster(bed["file"], bed["variable"])
-    if "degree" in str(grid["x"].attrs.get("units", "")):
-        raise InputError(
-            f"{where}: the bed grid is in degrees; it must be on the ice "
-            "history's projected grid (metres)"
-        )
-    units = str(grid.attrs.get("units", "m")).strip() or "m"
-    grid = grid * unit_factor(units, "length", f"{where}: bed elevation")
-    if not np.all(np.isfinite(grid.values)):
-        raise InputError(f"{where}: the bed elevation has missing (nodata) cells; fill them")
-    try:
-        check_same_grid(grid, like, "bed")
-    except InputError as exc:
-        raise InputError(f"{scenario.where('bed')}: {exc}; put it on the ice grid") from exc
-    return grid
+    return read_grid_input(
+        bed["file"], bed["variable"], scenario.where("bed", "file"), metric=True, reference=like
+    )
 
 
-def _point_cells(
-    scenario: Scenario, grid: xr.DataArray
-) -> list[tuple[str, float, float, int, int]]:
+PointCell = tuple[str, float, float, int, int]
+"""A ``[[points]]`` entry: name, x and y (m), and the row and column of its cell."""
+
+
+def _point_cells(scenario: Scenario, grid: xr.DataArray) -> list[PointCell]:
     x, y = grid["x"].values, grid["y"].values
     cells = []
-    for index, point in enumerate(scenario.table("points")):
-        px, py = point["x"], point["y"]
+    for index, point in enumerate(array_table(scenario, "points")):
+        px, py = float(point["x"]), float(point["y"])
         dx, dy = abs(x[1] - x[0]), abs(y[1] - y[0])
         if not (
             x.min() - dx / 2 <= px <= x.max() + dx / 2
@@ -271,7 +262,13 @@ def _point_cells(
                 f"({px:g}, {py:g}) m lies outside the grid"
             )
         cells.append(
-            (point["name"], px, py, int(np.argmin(np.abs(y - py))), int(np.argmin(np.abs(x - px))))
+            (
+                str(point["name"]),
+                px,
+                py,
+                int(np.argmin(np.abs(y - py))),
+                int(np.argmin(np.abs(x - px))),
+            )
         )
     return cells
 
@@ -291,10 +288,9 @@ def run_history_scenario(
         :func:`format_history_summary`.
     """
     outputs = scenario.table("output")
-    inputs = scenario.input_files
-    targets = [outputs["file"]] + [outputs[k] for k in ("rate_map", "series_plot") if outputs[k]]
-    for target in targets:
-        check_output_path(target, overwrite, inputs)
+    plan = OutputPlan(scenario, overwrite)
+    plan.add({key: outputs[key] for key in ("file", "rate_map", "series_plot")})
+    inputs = plan.inputs
     reference = outputs["time_reference"]
     plate = plate_from_scenario(scenario)
     thickness = _ice_history(scenario, reference)
@@ -302,7 +298,9 @@ def run_history_scenario(
     sea = scenario.table("sea")
     level: Any = sea["level"]
     if sea["file"] is not None:
-        level = read_series(sea["file"], sea["variable"], reference)
+        sea_series = read_series(sea["file"], sea["variable"], reference)
+        where = f"{scenario.where('sea', 'file')}: {sea['file'].name}"
+        level = in_si_units(sea_series, "length", where)
     times = np.asarray(thickness["time"].values, dtype=np.float64)
     rate_time = float(times[-1]) if outputs["rate_time"] is None else outputs["rate_time"]
     if not times[0] <= rate_time <= times[-1]:
@@ -312,6 +310,10 @@ def run_history_scenario(
         )
     at = int(np.argmin(np.abs(times - rate_time)))
     cells = _point_cells(scenario, bed)
+    if outputs["series_plot"] and not cells:
+        raise InputError(
+            f"{scenario.where('output', 'series_plot')}: needs at least one [[points]] table"
+        )
     mantle, solver = scenario.table("mantle"), scenario.table("solver")
     log.info("ice history of %d times on a %s grid", thickness.sizes["time"], bed.shape)
     result = ice_response(
@@ -338,16 +340,9 @@ def run_history_scenario(
         thickness.values,
         {"units": "m", "long_name": "ice thickness"},
     )
-    out = result.copy()
-    out["vertical_displacement"] = -result["deflection"]
-    out["vertical_displacement"].attrs = {
-        "units": "m",
-        "long_name": "vertical displacement of the bed (positive upward)",
-    }
-    out["x"].attrs = {"units": "m", "axis": "X", "long_name": "x (projected)"}
-    out["y"].attrs = {"units": "m", "axis": "Y", "long_name": "y (projected)"}
-    out.attrs["history"] = f"gridflex {__version__} history {scenario.path.name}"
-    out.attrs["scenario"] = scenario.text
+    out = stamp_result(
+        with_vertical_displacement(result, "bed"), scenario, "history", projected_axes=True
+    )
     out = cf_time_axis(out, reference)
     outcome = RunOutcome(result=out)
     outcome.written.append(write_netcdf(out, outputs["file"], overwrite, inputs))
@@ -364,10 +359,6 @@ def run_history_scenario(
             )
         )
     if outputs["series_plot"]:
-        if not cells:
-            raise InputError(
-                f"{scenario.where('output', 'series_plot')}: needs at least one [[points]] table"
-            )
         series = {
             name: (result["deflection"].values[:, iy, ix], result["uplift_rate"].values[:, iy, ix])
             for name, _, _, iy, ix in cells
@@ -383,10 +374,11 @@ def run_history_scenario(
             )
         )
     outcome.summary = _summary(result, at, cells)
+    outcome.text = format_history_summary(outcome.summary)
     return outcome
 
 
-def _summary(result: xr.Dataset, at: int, cells: list) -> dict[str, Any]:
+def _summary(result: xr.Dataset, at: int, cells: list[PointCell]) -> dict[str, Any]:
     w = result["deflection"].values
     rate = result["uplift_rate"].values[at]
     return {

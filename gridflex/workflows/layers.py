@@ -13,7 +13,6 @@ resampled back onto the input grid.
 from __future__ import annotations
 
 import logging
-import warnings
 from dataclasses import dataclass
 from typing import Any
 
@@ -22,7 +21,7 @@ import xarray as xr
 from affine import Affine
 from rasterio.crs import CRS
 
-from gridflex.errors import InputError, NodataWarning
+from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.gis.geometry import (
     GridGeometry,
     from_lonlat,
@@ -31,8 +30,9 @@ from gridflex.gis.geometry import (
     reproject_values,
     working_geometry,
 )
-from gridflex.io.rasters import geometry_of, read_raster
+from gridflex.io.rasters import geometry_of
 from gridflex.loads import load_from_elevation, regional_surface
+from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import Scenario
 from gridflex.synthetic import (
     Points,
@@ -41,11 +41,11 @@ from gridflex.synthetic import (
     grid_points,
     island_chain_height,
 )
-from gridflex.units import unit_factor
+from gridflex.workflows.grid_input import read_grid_input
+from gridflex.workflows.scenario_tables import array_table
 
 __all__ = [
     "WorkingGrid",
-    "apply_missing_policy",
     "build_working_layers",
     "build_working_load",
     "elevation_stress",
@@ -148,57 +148,29 @@ def _synthetic_layer(scenario: Scenario, layer: dict[str, Any]) -> xr.DataArray:
     return gaussian_height(grid, layer["radius"], layer["height"], *centre, points=points)
 
 
-def apply_missing_policy(
-    da: xr.DataArray, policy: str, where: str, elevation: bool = False
-) -> xr.DataArray:
-    missing = ~np.isfinite(da.values)
-    count = int(missing.sum())
-    if count == 0:
-        return da
-    if count == missing.size:
-        raise InputError(f"{where}: the layer has no valid value (all nodata)")
-    if policy == "error":
-        raise InputError(
-            f"{where}: {count} nodata or NaN cell(s); fill them, or set "
-            'missing = "zero" to treat them as no load'
-        )
-    if elevation:  # no load there: the surface at its typical (median) level
-        level = float(np.nanmedian(da.values))
-        warnings.warn(
-            f"{where}: {count} nodata or NaN cell(s) taken as no edifice (the "
-            f"layer's median elevation, {level:.6g})",
-            NodataWarning,
-            stacklevel=4,
-        )
-        return da.fillna(level)
-    warnings.warn(
-        f"{where}: {count} nodata or NaN cell(s) taken as zero load", NodataWarning, stacklevel=4
-    )
-    return da.fillna(0.0)
-
-
 def _layer_values(scenario: Scenario, index: int) -> xr.DataArray:
     """A layer as read or generated, in SI: thickness or elevation (m), or stress (Pa)."""
-    layer = scenario.table("loads")[index]
-    where = scenario.where("loads", index=index)
+    layer = array_table(scenario, "loads")[index]
     if layer["file"] is None:
         return _synthetic_layer(scenario, layer)
-    da = read_raster(layer["file"], layer["variable"])
-    where = f"{where} ({layer['file'].name})"
-    da = apply_missing_policy(da, layer["missing"], where, layer["kind"] == "elevation")
-    dimension = "pressure" if layer["kind"] == "stress" else "length"
-    units = str(da.attrs.get("units", "") or ("m" if dimension == "length" else "Pa"))
-    factor = unit_factor(units, dimension, f"{layer['file']}: variable {da.name!r}")
-    return da * factor
+    return read_grid_input(
+        layer["file"],
+        layer["variable"],
+        scenario.where("loads", index=index),
+        dimension="pressure" if layer["kind"] == "stress" else "length",
+        missing=layer["missing"],
+        missing_hint='set missing = "zero" to treat them as no load',
+        elevation=layer["kind"] == "elevation",
+    )
 
 
 def elevation_stress(scenario: Scenario, index: int, elevation: xr.DataArray) -> xr.Dataset:
     """Load of an elevation layer on the working grid (see :func:`load_from_elevation`):
     the rock above the regional surface, buoyed by sea water below sea level."""
-    layer = scenario.table("loads")[index]
+    layer = array_table(scenario, "loads")[index]
     infill = scenario.table("infill") or {}
     regional: Any = layer["regional_elevation"]
-    try:
+    with error_context(scenario.where("loads", index=index)):
         if regional is None:
             regional = regional_surface(elevation, layer["regional_radius"])
         return load_from_elevation(
@@ -206,11 +178,9 @@ def elevation_stress(scenario: Scenario, index: int, elevation: xr.DataArray) ->
             layer["density"],
             regional,
             sea_level=infill.get("sea_level", 0.0),
-            water_density=infill.get("water_density", 1030.0),
+            water_density=infill.get("water_density", SEA_WATER_DENSITY),
             gravity=scenario.table("plate")["gravity"],
         )
-    except InputError as exc:
-        raise InputError(f"{scenario.where('loads', index=index)}: {exc}") from exc
 
 
 def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], WorkingGrid]:
@@ -232,7 +202,7 @@ def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], Workin
         CRS and one without), all-nodata layers.
     """
     options = scenario.table("working_grid")
-    layers = scenario.table("loads")
+    layers = array_table(scenario, "loads")
     stresses = [_layer_values(scenario, i) for i in range(len(layers))]
     geometries = [geometry_of(s) for s in stresses]
     first = geometries[0]
@@ -288,7 +258,7 @@ def build_working_load(scenario: Scenario) -> tuple[xr.DataArray, WorkingGrid]:
     gravity = scenario.table("plate")["gravity"]
     values, grid = build_working_layers(scenario)
     total = np.zeros(grid.working.shape)
-    for index, (layer, da) in enumerate(zip(scenario.table("loads"), values, strict=True)):
+    for index, (layer, da) in enumerate(zip(array_table(scenario, "loads"), values, strict=True)):
         if layer["kind"] == "thickness":
             total += da.values * ((layer["density"] - layer["displaced_density"]) * gravity)
         elif layer["kind"] == "elevation":

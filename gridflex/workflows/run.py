@@ -3,40 +3,40 @@
 from __future__ import annotations
 
 import logging
-from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import xarray as xr
 
-from gridflex._version import __version__
 from gridflex.engine import solve
 from gridflex.errors import InputError
-from gridflex.gis.geometry import reproject_values
-from gridflex.io.atomic import check_output_path
+from gridflex.gis.geometry import GridGeometry
 from gridflex.io.netcdf import write_netcdf
 from gridflex.io.plots import plot_deflection_map, plot_field_map, plot_profile
-from gridflex.io.rasters import geometry_of, read_raster, write_geotiff
+from gridflex.io.rasters import write_geotiff
 from gridflex.io.tables import write_csv
 from gridflex.io.vectors import outline_features, write_geojson
 from gridflex.plate import Plate
+from gridflex.progress import Progress
 from gridflex.results.profile import sample_profile
-from gridflex.results.summary import deflection_summary
+from gridflex.results.summary import deflection_summary, format_summary
+from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import Scenario
-from gridflex.solvers.conjugate_gradient import Progress
 from gridflex.te_maps import break_mask, broken_te, margin_te
-from gridflex.units import unit_factor
+from gridflex.workflows.grid_input import read_grid_input
 from gridflex.workflows.layers import (
     WorkingGrid,
     build_working_layers,
     build_working_load,
     to_input_grid,
 )
+from gridflex.workflows.outcome import RunOutcome
+from gridflex.workflows.outputs import OutputPlan, stamp_result, with_vertical_displacement
 from gridflex.workflows.run_steps import gravity_step, infill_step, load_column
+from gridflex.workflows.scenario_tables import array_table
 
 __all__ = [
-    "RunOutcome",
+    "RunOutcome",  # defined in gridflex.workflows.outcome; kept here for existing imports
     "elastic_thickness_from_scenario",
     "output_dataset",
     "plate_from_scenario",
@@ -44,57 +44,6 @@ __all__ = [
 ]
 
 log = logging.getLogger(__name__)
-
-GEOTIFF_VARIABLES = ("deflection", "vertical_displacement", "load")
-"""Variables written as GeoTIFF bands when ``[output] geotiff = true`` (others follow as
-later features add them to the result)."""
-
-
-@dataclass
-class RunOutcome:
-    """What a scenario run produced.
-
-    Attributes
-    ----------
-    result : xarray.Dataset
-        The result as written (on the input grid).
-    written : list of pathlib.Path
-        Files written, in order.
-    summary : dict
-        :func:`gridflex.results.summary.deflection_summary` of the solve (on the metric
-        working grid).
-    """
-
-    result: xr.Dataset
-    written: list[Path] = field(default_factory=list)
-    summary: dict[str, Any] = field(default_factory=dict)
-
-
-def _on_working_grid(
-    path: Path,
-    variable: str,
-    like: xr.DataArray,
-    grid: WorkingGrid | None,
-    dimension: str | None,
-    resampling: str,
-) -> xr.DataArray:
-    """A raster (GeoTIFF or NetCDF) on *like*'s grid, resampled when *grid* says so."""
-    da = read_raster(path, variable)
-    values = np.asarray(da.values, dtype=np.float64)
-    if dimension is not None:
-        units = str(da.attrs.get("units", "") or "m")
-        values = values * unit_factor(units, dimension, f"{path}: variable {variable!r}")
-    geometry = geometry_of(da)
-    if grid is not None and geometry != grid.working:
-        values = reproject_values(values, geometry, grid.working, resampling)
-    if values.shape != like.shape:
-        raise InputError(
-            f"{path}: variable {variable!r} has shape {values.shape}, the load "
-            f"grid is {like.shape}; put it on the load grid"
-        )
-    if not np.all(np.isfinite(values)):
-        raise InputError(f"{path}: variable {variable!r} has missing values on the load grid")
-    return like.copy(data=values)
 
 
 def elastic_thickness_from_scenario(
@@ -116,9 +65,8 @@ def elastic_thickness_from_scenario(
         A Te grid or mask not on the load grid, a bad line; the message names the table.
     """
     table = scenario.table("plate")
-    breaks = scenario.tables.get("breaks") or []
+    breaks = array_table(scenario, "breaks")
     margin = scenario.tables.get("margin")
-    te: float | xr.DataArray
     if (
         table["elastic_thickness"] is None
         and table.get("elastic_thickness_file") is None
@@ -128,49 +76,51 @@ def elastic_thickness_from_scenario(
             f"{scenario.where('plate', 'elastic_thickness')}: required key is "
             "missing (effective elastic thickness Te)"
         )
-    if table["elastic_thickness"] is not None:
-        te = float(table["elastic_thickness"])
-        if not breaks:
-            return te
+    if table["elastic_thickness"] is not None and not breaks:
+        return float(table["elastic_thickness"])
     if like is None:
         raise InputError(f"{scenario.where('plate')}: a Te grid needs the load grid")
-    if table["elastic_thickness_file"] is not None:
-        where = scenario.where("plate", "elastic_thickness_file")
-        try:
-            te = _on_working_grid(
-                table["elastic_thickness_file"],
-                table["elastic_thickness_variable"],
-                like,
-                grid,
-                "length",
-                "bilinear",
-            )
-        except InputError as exc:
-            raise InputError(f"{where}: {exc}") from exc
-    elif margin is not None:
-        try:
-            te = margin_te(
-                like, margin["te_left"], margin["te_right"], margin["line"], margin["width"]
-            )
-        except InputError as exc:
-            raise InputError(f"{scenario.where('margin')}: {exc}") from exc
-    else:
-        te = xr.full_like(like, float(table["elastic_thickness"]), dtype=np.float64)
-    assert isinstance(te, xr.DataArray)
+    working = None if grid is None else grid.working
+    te = _te_grid(scenario, like, working)
     for index, item in enumerate(breaks):
         where = scenario.where("breaks", index=index)
-        try:
-            if item["file"] is not None:
-                mask = (
-                    _on_working_grid(item["file"], item["variable"], like, grid, None, "nearest")
-                    != 0
-                )
-            else:
-                mask = break_mask(like, [item["line"]], item["width"])
-            te = broken_te(te, mask)
-        except InputError as exc:
-            raise InputError(f"{where}: {exc}") from exc
+        if item["file"] is not None:
+            mask = read_grid_input(
+                item["file"],
+                item["variable"],
+                where,
+                dimension=None,
+                reference=like,
+                working=working,
+                resampling="nearest",
+            )
+            broken = mask != 0
+        else:
+            with error_context(where):
+                broken = break_mask(like, [item["line"]], item["width"])
+        with error_context(where):
+            te = broken_te(te, broken)
     return te
+
+
+def _te_grid(scenario: Scenario, like: xr.DataArray, working: GridGeometry | None) -> xr.DataArray:
+    """Te (m) on *like*'s grid from a file, a ``[margin]`` profile or the constant."""
+    table = scenario.table("plate")
+    margin = scenario.tables.get("margin")
+    if table["elastic_thickness_file"] is not None:
+        return read_grid_input(
+            table["elastic_thickness_file"],
+            table["elastic_thickness_variable"],
+            scenario.where("plate", "elastic_thickness_file"),
+            reference=like,
+            working=working,
+        )
+    if margin is not None:
+        with error_context(scenario.where("margin")):
+            return margin_te(
+                like, margin["te_left"], margin["te_right"], margin["line"], margin["width"]
+            )
+    return xr.full_like(like, float(table["elastic_thickness"]), dtype=np.float64)
 
 
 def plate_from_scenario(
@@ -179,7 +129,7 @@ def plate_from_scenario(
     """The :class:`Plate` of the ``[plate]`` table (Te grids on *like*'s grid)."""
     table = scenario.table("plate")
     te = elastic_thickness_from_scenario(scenario, like, grid)
-    try:
+    with error_context(scenario.where("plate")):
         return Plate(
             te,
             youngs_modulus=table["youngs_modulus"],
@@ -190,21 +140,15 @@ def plate_from_scenario(
             crust_thickness=table["crust_thickness"],
             crust_density=table["crust_density"],
         )
-    except InputError as exc:
-        raise InputError(f"{scenario.where('plate')}: {exc}") from exc
 
 
-def output_dataset(result: xr.Dataset, scenario: Scenario, grid: WorkingGrid) -> xr.Dataset:
-    """The result with GIS-friendly extras and provenance, on the input grid."""
-    out = result.copy()
-    out["vertical_displacement"] = -result["deflection"]
-    out["vertical_displacement"].attrs = {
-        "units": "m",
-        "long_name": "vertical displacement of the plate (positive upward)",
-    }
+def output_dataset(
+    result: xr.Dataset, scenario: Scenario, grid: WorkingGrid, command: str = "run"
+) -> xr.Dataset:
+    """The result with GIS-friendly extras and the provenance of ``gridflex COMMAND``,
+    on the input grid."""
+    out = stamp_result(with_vertical_displacement(result, "plate"), scenario, command)
     out.attrs.update(grid.describe())
-    out.attrs["history"] = f"gridflex {__version__} run {scenario.path.name}"
-    out.attrs["scenario"] = scenario.text
     return to_input_grid(out, grid)
 
 
@@ -237,10 +181,10 @@ _FIELD_MAPS = {
 """PNG maps of single fields: ``[output]`` key -> what to draw."""
 
 
-def _planned_outputs(scenario: Scenario) -> list[Path]:
+def _planned_outputs(scenario: Scenario) -> dict[str, Path | None]:
     out = scenario.table("output")
     keys = ("file", "map", "outlines", "profile_csv", "profile_plot", *_FIELD_MAPS)
-    return [out[k] for k in keys if out[k] is not None]
+    return {k: out[k] for k in keys}
 
 
 def _solve_working(
@@ -283,8 +227,10 @@ def run_scenario(
     """Build the load, solve and write the outputs of *scenario*.
 
     *progress* (optional) is called with (done, total) during an iterative solve.
-    Output paths are checked before the solve, so a run that would fail to write
-    fails before any work; files are written atomically and never over an input.
+    Output paths are checked before the solve (:class:`OutputPlan`), so a run that would
+    fail to write fails before any work; the GeoTIFF files, named after the result's
+    variables, are checked once the result is known and before anything is written.
+    Files are written atomically and never over an input.
 
     Raises
     ------
@@ -292,22 +238,35 @@ def run_scenario(
         Bad inputs or output paths.
     """
     outputs = scenario.table("output")
-    inputs = scenario.input_files
-    for target in _planned_outputs(scenario):
-        check_output_path(target, overwrite, inputs)
+    plan = OutputPlan(scenario, overwrite)
+    plan.add(_planned_outputs(scenario))
     working, grid = _solve_working(scenario, progress)
     result = output_dataset(working, scenario, grid)
-    outcome = RunOutcome(result=result, summary=deflection_summary(working))
+    summary = deflection_summary(working)
+    outcome = RunOutcome(result=result, summary=summary, text=format_summary(summary))
+    tiffs = _geotiff_paths(outputs["file"], result) if outputs["geotiff"] else {}
+    plan.add({f"geotiff {name}": path for name, path in tiffs.items()})
+    _write_outputs(scenario, plan, outcome, working, grid, tiffs)
+    return outcome
+
+
+def _write_outputs(
+    scenario: Scenario,
+    plan: OutputPlan,
+    outcome: RunOutcome,
+    working: xr.Dataset,
+    grid: WorkingGrid,
+    tiffs: dict[str, Path],
+) -> None:
+    """Write the planned outputs of a run, in order, recording them in *outcome*."""
+    outputs = scenario.table("output")
+    result = outcome.result
+    overwrite, inputs = plan.overwrite, plan.inputs
     crs = grid.input.crs
     written = outcome.written
-    if outputs["geotiff"]:
-        tiffs = _geotiff_paths(outputs["file"], result)
-        for path in tiffs.values():
-            check_output_path(path, overwrite, inputs)
     written.append(write_netcdf(result, outputs["file"], overwrite, inputs, crs=crs))
-    if outputs["geotiff"]:
-        for name, path in tiffs.items():
-            written.append(write_geotiff(result[name], path, crs, overwrite, inputs))
+    for name, path in tiffs.items():
+        written.append(write_geotiff(result[name], path, crs, overwrite, inputs))
     if outputs["map"]:
         written.append(plot_deflection_map(result, outputs["map"], overwrite, inputs))
     for key, (variable, title, label, signed) in _FIELD_MAPS.items():
@@ -336,4 +295,3 @@ def run_scenario(
             written.append(write_csv(profile, outputs["profile_csv"], overwrite, inputs))
         if outputs["profile_plot"]:
             written.append(plot_profile(profile, outputs["profile_plot"], overwrite, inputs))
-    return outcome

@@ -17,8 +17,11 @@ from gridflex.gravity.anomalies import model_gravity
 from gridflex.infill import Infill, solve_with_infill
 from gridflex.loads import load_from_layers
 from gridflex.plate import Plate
+from gridflex.progress import Progress
+from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import Scenario
 from gridflex.workflows.layers import elevation_stress
+from gridflex.workflows.scenario_tables import array_table
 
 __all__ = ["gravity_step", "infill_from_scenario", "infill_step", "load_column"]
 
@@ -46,7 +49,7 @@ def load_column(scenario: Scenario, layers: list[xr.DataArray]) -> xr.Dataset:
         ``load`` (Pa), ``initial_surface``, ``reference_surface``, ``load_height`` (m).
     """
     infill = scenario.table("infill")
-    specs = scenario.table("loads")
+    specs = array_table(scenario, "loads")
     thickness = [
         (da, spec["density"])
         for spec, da in zip(specs, layers, strict=True)
@@ -57,7 +60,7 @@ def load_column(scenario: Scenario, layers: list[xr.DataArray]) -> xr.Dataset:
     if elevation:
         column = elevation_stress(scenario, elevation[0], layers[elevation[0]])
     elif thickness:
-        try:
+        with error_context(scenario.where("loads")):
             column = load_from_layers(
                 infill["base_elevation"],
                 thickness,
@@ -65,8 +68,6 @@ def load_column(scenario: Scenario, layers: list[xr.DataArray]) -> xr.Dataset:
                 water_density=infill["water_density"],
                 gravity=scenario.table("plate")["gravity"],
             )
-        except InputError as exc:
-            raise InputError(f"{scenario.where('loads')}: {exc}") from exc
     else:
         if infill["base_elevation"] is None:
             raise InputError(
@@ -94,7 +95,7 @@ def load_column(scenario: Scenario, layers: list[xr.DataArray]) -> xr.Dataset:
 def infill_from_scenario(scenario: Scenario) -> Infill:
     """The :class:`Infill` of the ``[infill]`` table."""
     table = scenario.table("infill")
-    try:
+    with error_context(scenario.where("infill")):
         return Infill(
             sea_level=table["sea_level"],
             water_density=table["water_density"],
@@ -104,11 +105,11 @@ def infill_from_scenario(scenario: Scenario) -> Infill:
             fill_existing=table["fill_existing"],
             load_buried=table["load_buried"],
         )
-    except InputError as exc:
-        raise InputError(f"{scenario.where('infill')}: {exc}") from exc
 
 
-def infill_step(scenario: Scenario, plate: Plate, column: xr.Dataset, progress=None) -> xr.Dataset:
+def infill_step(
+    scenario: Scenario, plate: Plate, column: xr.Dataset, progress: Progress | None = None
+) -> xr.Dataset:
     """Solve the column with the self-consistent infill of the scenario."""
     table, solver = scenario.table("infill"), scenario.table("solver")
     if solver["method"] == "finite-difference" or plate.is_variable:
@@ -134,7 +135,7 @@ def infill_step(scenario: Scenario, plate: Plate, column: xr.Dataset, progress=N
 def gravity_step(scenario: Scenario, result: xr.Dataset) -> xr.Dataset:
     """The result with ``free_air_anomaly`` and ``bouguer_anomaly`` added."""
     table = scenario.table("gravity")
-    try:
+    with error_context(scenario.where("gravity")):
         gravity = model_gravity(
             result,
             observation_height=table["observation_height"],
@@ -142,8 +143,6 @@ def gravity_step(scenario: Scenario, result: xr.Dataset) -> xr.Dataset:
             bouguer_density=table["bouguer_density"],
             edges=scenario.table("solver")["edges"],
         )
-    except InputError as exc:
-        raise InputError(f"{scenario.where('gravity')}: {exc}") from exc
     out = result.copy()
     for name in ("free_air_anomaly", "bouguer_anomaly"):
         out[name] = gravity[name]

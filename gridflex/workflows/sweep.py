@@ -8,21 +8,24 @@ import logging
 import tomllib
 from dataclasses import replace
 from pathlib import Path
-from typing import Any
 
 import xarray as xr
 
 from gridflex.errors import InputError
-from gridflex.io.atomic import check_output_path
 from gridflex.io.netcdf import write_netcdf
+from gridflex.progress import Progress
+from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import Scenario
 from gridflex.scenario.tables import SCHEMA
-from gridflex.sweeps.parameter_sweep import sweep
+from gridflex.sweeps.parameter_sweep import LoadLike, sweep
 from gridflex.units import parse_quantity
 from gridflex.workflows.layers import build_working_load
+from gridflex.workflows.outcome import RunOutcome
+from gridflex.workflows.outputs import OutputPlan, stamp_result
 from gridflex.workflows.run import plate_from_scenario
+from gridflex.workflows.scenario_tables import array_table, refuse_tables
 
-__all__ = ["load_with_density", "sweep_parameters", "sweep_scenario"]
+__all__ = ["load_with_density", "run_sweep", "sweep_parameters", "sweep_scenario"]
 
 log = logging.getLogger(__name__)
 
@@ -54,10 +57,18 @@ def sweep_parameters(scenario: Scenario) -> dict[str, list[float]]:
     return out
 
 
-def sweep_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = None) -> Path:
+def run_sweep(
+    scenario: Scenario, overwrite: bool = False, progress: Progress | None = None
+) -> RunOutcome:
     """Sweep the ``[sweep]`` values of *scenario* and write one NetCDF (``[output] file``).
 
-    The in-plane forces of ``[solver]`` apply unless swept. Returns the path written.
+    The in-plane forces of ``[solver]`` apply unless swept.
+
+    Returns
+    -------
+    RunOutcome
+        ``result`` is the sweep as written (one deflection per combination of values),
+        ``summary`` the swept parameters and their counts.
 
     Raises
     ------
@@ -68,19 +79,14 @@ def sweep_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = 
     if scenario.tables.get("sweep") is None:
         raise InputError(f"{scenario.path}: 'gridflex sweep' needs a [sweep] table")
     parameters = sweep_parameters(scenario)
-    for name in ("infill", "gravity"):
-        if scenario.tables.get(name) is not None:
-            raise InputError(
-                f"{scenario.where(name)}: sweeps use the plain solve; remove the [{name}] table"
-            )
-    output = scenario.table("output")
-    inputs = scenario.input_files
-    check_output_path(output["file"], overwrite, inputs)
+    refuse_tables(scenario, ("infill", "gravity"), "sweeps use the plain solve")
+    plan = OutputPlan(scenario, overwrite)
+    plan.add({"file": scenario.table("output")["file"]})
     plate = plate_from_scenario(scenario)
-    load: Any
+    load: LoadLike
     load, grid = build_working_load(scenario)  # also checks the layers before any task runs
     if "load_density" in parameters:
-        if not any(layer["kind"] == "thickness" for layer in scenario.table("loads")):
+        if not any(layer["kind"] == "thickness" for layer in array_table(scenario, "loads")):
             raise InputError(
                 f"{scenario.where('sweep', 'load_density')}: no [[loads]] layer "
                 "of kind 'thickness' to give a density"
@@ -89,7 +95,7 @@ def sweep_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = 
     solver = scenario.table("solver")
     if solver["method"] == "finite-difference":
         raise InputError(f"{scenario.where('solver', 'method')}: sweeps use the spectral solver")
-    try:
+    with error_context(scenario.where("sweep")):
         result = sweep(
             load,
             plate,
@@ -101,12 +107,21 @@ def sweep_scenario(scenario: Scenario, overwrite: bool = False, progress: Any = 
             inplane_force_y=solver["inplane_force_y"],
             progress=progress,
         )
-    except InputError as exc:
-        raise InputError(f"{scenario.where('sweep')}: {exc}") from exc
-    result = _with_provenance(result, scenario)
-    path = write_netcdf(result, output["file"], overwrite, inputs, crs=grid.working.crs)
-    log.info("sweep written to %s", path)
-    return path
+    result = stamp_result(result, scenario, "sweep", projected_axes=True)
+    summary = {name: len(values) for name, values in parameters.items()}
+    outcome = RunOutcome(result=result, summary=summary)
+    outcome.written.append(
+        write_netcdf(result, plan["file"], plan.overwrite, plan.inputs, crs=grid.working.crs)
+    )
+    log.info("sweep written to %s", plan["file"])
+    return outcome
+
+
+def sweep_scenario(
+    scenario: Scenario, overwrite: bool = False, progress: Progress | None = None
+) -> Path:
+    """:func:`run_sweep`, returning only the path written (``[output] file``)."""
+    return run_sweep(scenario, overwrite, progress).written[0]
 
 
 def load_with_density(scenario: Scenario, load_density: float) -> xr.DataArray:
@@ -119,14 +134,3 @@ def load_with_density(scenario: Scenario, load_density: float) -> xr.DataArray:
         if layer["kind"] == "thickness":
             layer["density"] = float(load_density)
     return build_working_load(replace(scenario, tables=tables))[0]
-
-
-def _with_provenance(result: xr.Dataset, scenario: Scenario) -> xr.Dataset:
-    from gridflex._version import __version__
-
-    out = result.copy()
-    out["x"].attrs = {"units": "m", "axis": "X", "long_name": "x (projected)"}
-    out["y"].attrs = {"units": "m", "axis": "Y", "long_name": "y (projected)"}
-    out.attrs["history"] = f"gridflex {__version__} sweep {scenario.path.name}"
-    out.attrs["scenario"] = scenario.text
-    return out

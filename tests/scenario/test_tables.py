@@ -16,7 +16,7 @@ from gridflex.estimation.misfit import QUANTITIES
 from gridflex.gis.geometry import RESAMPLING
 from gridflex.glacial.response import INITIAL_STATES
 from gridflex.infill import SEDIMENT_MODES
-from gridflex.io.rasters import MISSING_POLICIES
+from gridflex.io.rasters import LAYER_MISSING_POLICIES
 from gridflex.loads import LOAD_KINDS
 from gridflex.scenario.schema import Key, Scenario
 from gridflex.scenario.tables import SCHEMA, FlexureTables, load_scenario
@@ -29,7 +29,7 @@ LIBRARY_CHOICES: dict[tuple[str, str, str], tuple[str, ...]] = {
     ("run", "solver", "method"): METHODS,
     ("run", "solver", "edges"): EDGES,
     ("run", "working_grid", "resampling"): RESAMPLING,
-    ("run", "loads", "missing"): MISSING_POLICIES,
+    ("run", "loads", "missing"): LAYER_MISSING_POLICIES,
     ("run", "loads", "synthetic"): SHAPES,
     ("run", "loads", "kind"): LOAD_KINDS,
     ("run", "infill", "sediment"): SEDIMENT_MODES,
@@ -44,7 +44,7 @@ LIBRARY_CHOICES: dict[tuple[str, str, str], tuple[str, ...]] = {
     ("history", "solver", "interpolation"): INTERPOLATIONS,
     ("history", "solver", "initial"): INITIAL_STATES,
     ("history", "ice", "synthetic"): SYNTHETIC_ICE,
-    ("history", "ice", "missing"): MISSING_POLICIES,
+    ("history", "ice", "missing"): LAYER_MISSING_POLICIES,
 }
 """Every choice key of every kind of scenario and the library constant it must be."""
 

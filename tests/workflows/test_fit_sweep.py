@@ -196,3 +196,40 @@ def test_estimate_te_example_runs(tmp_path):
     assert done.returncode == 0, done.stderr
     assert "(truth 18)" in done.stdout and "(truth 25)" in done.stdout
     assert (tmp_path / "misfit.png").exists() and (tmp_path / "admittance.png").exists()
+
+
+def test_fit_reads_observation_units_and_a_mask_with_gaps(tmp_path):
+    """The fit's inputs follow the one grid-input rule: units honoured, NaN not compared."""
+    from gridflex.scenario.schema import load_scenario
+    from gridflex.workflows.fit import fit_scenario
+
+    _write_inputs(tmp_path)
+    with xr.open_dataset(tmp_path / "observed.nc") as ds:
+        depth = ds["depth"].load()
+    km = (depth / 1e3).assign_attrs(units="km")
+    xr.Dataset({"depth": km}).to_netcdf(tmp_path / "observed_km.nc")
+    mask = xr.ones_like(depth).where(depth["x"] > 0)  # west half: NaN, not compared
+    xr.Dataset({"use": mask}).to_netcdf(tmp_path / "mask.nc")
+    (tmp_path / "s.toml").write_text(
+        BASE
+        + """
+[output]
+file = "best.nc"
+
+[fit]
+observed_file = "observed_km.nc"
+observed_variable = "depth"
+mask_file = "mask.nc"
+mask_variable = "use"
+quantity = "surface"
+te_min = "2 km"
+te_max = "80 km"
+"""
+    )
+    outcome = fit_scenario(load_scenario(tmp_path / "s.toml"))
+    compared = np.isfinite(depth.values) & (depth["x"].values[None, :] > 0)
+    assert outcome.fit.n_data == int(compared.sum())
+    observed = outcome.result["observed"].values
+    assert_allclose(observed[compared], depth.values[compared], rtol=1e-12)
+    assert outcome.text.startswith("te = ")
+    assert outcome.written[0] == tmp_path / "best.nc"

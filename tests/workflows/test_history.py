@@ -286,3 +286,70 @@ def test_coupling_example_runs():
     )
     assert done.returncode == 0, done.stderr
     assert "uplift rate" in done.stdout
+
+
+def _ice_and_bed_files(tmp_path: Path, ice_units: str, ice_scale: float) -> str:
+    """Ice (time, y, x) and bed NetCDF files on one metric grid; the scenario text."""
+    grid = empty_grid(16, 16, 50e3)
+    disc = disc_height(grid, 200e3, 1500.0).values * ice_scale
+    xr.Dataset(
+        {"thk": (("time", "y", "x"), np.stack([0.0 * disc, disc]), {"units": ice_units})},
+        coords={"time": ("time", [0.0, 5000.0], {"units": "yr"}), "y": grid.y, "x": grid.x},
+    ).to_netcdf(tmp_path / "ice.nc")
+    xr.Dataset(
+        {"topg": (("y", "x"), np.full((16, 16), 200.0), {"units": "m"})},
+        coords={"y": grid.y.values, "x": grid.x.values},
+    ).to_netcdf(tmp_path / "bed.nc")
+    return """
+[plate]
+elastic_thickness = "40 km"
+[ice]
+file = "ice.nc"
+variable = "thk"
+[bed]
+file = "bed.nc"
+variable = "topg"
+[output]
+file = "res.nc"
+"""
+
+
+def test_ice_thickness_units_are_honoured(tmp_path):
+    """The same ice given in km and in m gives the same ice load (unit rule of all inputs)."""
+    text = _ice_and_bed_files(tmp_path, "km", 1e-3)
+    outcome = run_history_scenario(load_history_scenario(_write(tmp_path, text)))
+    assert_allclose(float(outcome.result["ice_thickness"].max()), 1500.0, rtol=1e-12)
+    _ice_and_bed_files(tmp_path, "furlong", 1.0)
+    with pytest.raises(InputError, match=r"\[ice\] file: ice\.nc: variable 'thk': unit 'furlong'"):
+        run_history_scenario(load_history_scenario(_write(tmp_path, text)), overwrite=True)
+
+
+def test_bed_in_a_geographic_crs_is_refused(tmp_path):
+    """A geographic bed is recognised from its CRS (a GeoTIFF says nothing about degrees)."""
+    import rasterio
+    from affine import Affine
+
+    text = _ice_and_bed_files(tmp_path, "m", 1.0).replace("bed.nc", "bed.tif")
+    with rasterio.open(
+        tmp_path / "bed.tif",
+        "w",
+        driver="GTiff",
+        width=16,
+        height=16,
+        count=1,
+        dtype="float64",
+        crs="EPSG:4326",
+        transform=Affine(0.5, 0.0, -4.0, 0.0, -0.5, 60.0),
+    ) as dst:
+        dst.write(np.full((16, 16), 200.0), 1)
+        dst.set_band_description(1, "topg")
+    with pytest.raises(InputError, match=r"\[bed\] file: bed\.tif: .*longitude/latitude"):
+        run_history_scenario(load_history_scenario(_write(tmp_path, text)))
+    assert not (tmp_path / "res.nc").exists()
+
+
+def test_series_plot_without_points_is_refused_before_the_run(tmp_path):
+    text = _ice_and_bed_files(tmp_path, "m", 1.0) + 'series_plot = "series.png"\n'
+    with pytest.raises(InputError, match=r"series_plot: needs at least one \[\[points\]\]"):
+        run_history_scenario(load_history_scenario(_write(tmp_path, text)))
+    assert not (tmp_path / "res.nc").exists()  # nothing written
