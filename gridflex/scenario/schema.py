@@ -43,6 +43,7 @@ __all__ = [
     "REQUIRED",
     "Scenario",
     "parse_tables",
+    "present",
     "read_scenario",
 ]
 
@@ -155,6 +156,29 @@ class Scenario(Generic[TablesT]):
             for row in values if isinstance(values, list) else [values]:
                 files.extend(v for v in row.values() if isinstance(v, Path))
         return files
+
+
+TableT = TypeVar("TableT")
+
+
+def present(table: TableT | None, where: str) -> TableT:
+    """*table* itself; ``None`` (an optional table the scenario left out) is refused.
+
+    Parameters
+    ----------
+    table : dict or None
+        A value of :meth:`Scenario.table`.
+    where : str
+        ``file [table]`` for the message (see :meth:`Scenario.where`).
+
+    Raises
+    ------
+    InputError
+        The table is absent but this step needs it.
+    """
+    if table is None:
+        raise InputError(f"{where}: this table is required here")
+    return table
 
 
 _Checker = Callable[[Any, Key, str, Path], Any]

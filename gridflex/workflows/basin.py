@@ -8,14 +8,15 @@ from typing import Any
 
 import xarray as xr
 
+from gridflex.basin.backstrip import backstrip, backstrip_layers
 from gridflex.basin.compaction import LITHOLOGIES, Lithology
-from gridflex.basin.staging import Stage, backstrip, backstrip_layers, stage_loading
+from gridflex.basin.staging import Stage, stage_loading
 from gridflex.errors import InputError
 from gridflex.io.netcdf import write_netcdf
 from gridflex.io.rasters import geometry_of
 from gridflex.progress import Progress
 from gridflex.scenario.context import error_context
-from gridflex.scenario.schema import Scenario
+from gridflex.workflows.basin_tables import BasinScenario
 from gridflex.workflows.grid_input import read_grid_input
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan, stamp_result
@@ -51,7 +52,7 @@ def _lithology(row: dict[str, Any], where: str) -> Lithology:
         )
 
 
-def _stages(scenario: Scenario, surface: xr.DataArray) -> list[Stage]:
+def _stages(scenario: BasinScenario, surface: xr.DataArray) -> list[Stage]:
     stages = []
     for i, row in enumerate(array_table(scenario, "stages")):
         where = scenario.where("stages", index=i)
@@ -73,7 +74,9 @@ def _stages(scenario: Scenario, surface: xr.DataArray) -> list[Stage]:
     return stages
 
 
-def _run_stages(scenario: Scenario, progress: Progress | None) -> tuple[xr.Dataset, xr.DataArray]:
+def _run_stages(
+    scenario: BasinScenario, progress: Progress | None
+) -> tuple[xr.Dataset, xr.DataArray]:
     """The staged loading of ``[basin]`` and ``[[stages]]``, and the surface grid."""
     table, solver = scenario.table("basin"), scenario.table("solver")
     surface = _grid(
@@ -101,7 +104,7 @@ def _run_stages(scenario: Scenario, progress: Progress | None) -> tuple[xr.Datas
     return result, surface
 
 
-def _run_backstrip_layers(scenario: Scenario) -> tuple[xr.Dataset, xr.DataArray]:
+def _run_backstrip_layers(scenario: BasinScenario) -> tuple[xr.Dataset, xr.DataArray]:
     """The backstrip of ``[[backstrip_layers]]``, and the first layer's grid."""
     table, solver = scenario.table("backstrip"), scenario.table("solver")
     layers: list[tuple[xr.DataArray, Lithology]] = []
@@ -141,7 +144,7 @@ def _run_backstrip_layers(scenario: Scenario) -> tuple[xr.Dataset, xr.DataArray]
     return result, reference
 
 
-def _run_backstrip(scenario: Scenario) -> tuple[xr.Dataset, xr.DataArray]:
+def _run_backstrip(scenario: BasinScenario) -> tuple[xr.Dataset, xr.DataArray]:
     """The backstrip of ``[backstrip]`` (or its layers), and the first grid read."""
     table, solver = scenario.table("backstrip"), scenario.table("solver")
     if array_table(scenario, "backstrip_layers"):
@@ -200,7 +203,7 @@ def format_basin_summary(summary: dict[str, float]) -> str:
 
 
 def run_basin(
-    scenario: Scenario,
+    scenario: BasinScenario,
     overwrite: bool = False,
     progress: Progress | None = None,
 ) -> RunOutcome:

@@ -48,7 +48,16 @@ _LITHOLOGY_KEYS: dict[str, Key] = {
 """Keys shared by ``[[stages]]`` and ``[[backstrip_layers]]`` (one declaration)."""
 
 
-__all__ = ["BASIN_SCHEMA", "LITHOLOGY_NAMES", "load_basin_scenario", "parse_basin_scenario"]
+BasinScenario = Scenario[dict[str, Any]]
+"""A validated basin scenario (its tables are checked against :data:`BASIN_SCHEMA`)."""
+
+__all__ = [
+    "BASIN_SCHEMA",
+    "BasinScenario",
+    "LITHOLOGY_NAMES",
+    "load_basin_scenario",
+    "parse_basin_scenario",
+]
 
 
 BASIN_SCHEMA: dict[str, dict[str, Key]] = {
@@ -159,9 +168,7 @@ _OPTIONAL = frozenset({"basin", "backstrip"})
 """Tables that switch a workflow on; absent, they are ``None``."""
 
 
-def parse_basin_scenario(
-    data: dict[str, Any], path: Path, text: str = ""
-) -> Scenario[dict[str, Any]]:
+def parse_basin_scenario(data: dict[str, Any], path: Path, text: str = "") -> BasinScenario:
     """Validate a basin scenario already read into a dict."""
     scenario = parse_tables(
         data, path, text, BASIN_SCHEMA, BASIN_ARRAY_TABLES, BASIN_REQUIRED_TABLES, _OPTIONAL
@@ -170,12 +177,12 @@ def parse_basin_scenario(
     return scenario
 
 
-def load_basin_scenario(path: str | Path) -> Scenario[dict[str, Any]]:
+def load_basin_scenario(path: str | Path) -> BasinScenario:
     """Read and validate a basin scenario (TOML); messages name file, table and key."""
     return read_scenario(path, parse_basin_scenario)
 
 
-def _check_basin(scenario: Scenario[dict[str, Any]]) -> None:
+def _check_basin(scenario: BasinScenario) -> None:
     tables = scenario.tables
     if tables["basin"] is not None and tables["backstrip"] is not None:
         raise InputError(

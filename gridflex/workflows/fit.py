@@ -18,7 +18,7 @@ from gridflex.io.atomic import atomic_path
 from gridflex.io.netcdf import write_netcdf
 from gridflex.io.plots import plot_deflection_map, plot_misfit
 from gridflex.progress import Progress
-from gridflex.scenario.schema import Scenario
+from gridflex.scenario.schema import Scenario, present
 from gridflex.workflows.grid_input import read_grid_input
 from gridflex.workflows.layers import WorkingGrid, build_working_load
 from gridflex.workflows.outcome import RunOutcome
@@ -66,7 +66,8 @@ def fit_outputs(scenario: Scenario) -> dict[str, Path | None]:
     The summary and plot default to ``<output file stem>_fit.json`` and
     ``<output file stem>_misfit.png`` beside the output file.
     """
-    output, table = scenario.table("output"), scenario.table("fit")
+    output = scenario.table("output")
+    table = present(scenario.table("fit"), scenario.where("fit"))
     stem = Path(output["file"]).with_suffix("")
     return {
         "file": output["file"],

@@ -43,8 +43,12 @@ from gridflex.workflows.outputs import OutputPlan, stamp_result, with_vertical_d
 from gridflex.workflows.run import plate_from_scenario
 from gridflex.workflows.scenario_tables import array_table
 
+HistoryScenario = Scenario[dict[str, Any]]
+"""A validated history scenario (its tables are checked against :data:`HISTORY_SCHEMA`)."""
+
 __all__ = [
     "HISTORY_SCHEMA",
+    "HistoryScenario",
     "format_history_summary",
     "load_history_scenario",
     "parse_history_scenario",
@@ -155,7 +159,7 @@ HISTORY_ARRAY_TABLES = frozenset({"points"})
 HISTORY_REQUIRED_TABLES = ("plate", "ice", "bed", "output")
 
 
-def parse_history_scenario(data: dict[str, Any], path: Path, text: str = "") -> Scenario:
+def parse_history_scenario(data: dict[str, Any], path: Path, text: str = "") -> HistoryScenario:
     """Validate a history scenario already read into a dict."""
     scenario = parse_tables(
         data, path, text, HISTORY_SCHEMA, HISTORY_ARRAY_TABLES, HISTORY_REQUIRED_TABLES
@@ -164,12 +168,12 @@ def parse_history_scenario(data: dict[str, Any], path: Path, text: str = "") -> 
     return scenario
 
 
-def load_history_scenario(path: str | Path) -> Scenario:
+def load_history_scenario(path: str | Path) -> HistoryScenario:
     """Read and validate a history scenario (TOML); messages name file, table and key."""
     return load_scenario(path, parser=parse_history_scenario)
 
 
-def _check_history(scenario: Scenario) -> None:
+def _check_history(scenario: HistoryScenario) -> None:
     ice = scenario.table("ice")
     where = scenario.where("ice")
     if (ice["file"] is None) == (ice["synthetic"] is None):
@@ -213,7 +217,7 @@ def _check_history(scenario: Scenario) -> None:
         raise InputError(f"{scenario.path}: [[points]] names must differ, got {names!r}")
 
 
-def _ice_history(scenario: Scenario, reference: str) -> xr.DataArray:
+def _ice_history(scenario: HistoryScenario, reference: str) -> xr.DataArray:
     ice = scenario.table("ice")
     if ice["file"] is not None:
         history = read_history(ice["file"], ice["variable"], reference)
@@ -233,7 +237,7 @@ def _ice_history(scenario: Scenario, reference: str) -> xr.DataArray:
     )
 
 
-def _bed(scenario: Scenario, like: xr.DataArray) -> xr.DataArray:
+def _bed(scenario: HistoryScenario, like: xr.DataArray) -> xr.DataArray:
     """The bed elevation (m, up) of the reference state on the ice grid *like*."""
     bed = scenario.table("bed")
     if bed["file"] is None:
@@ -247,7 +251,7 @@ PointCell = tuple[str, float, float, int, int]
 """A ``[[points]]`` entry: name, x and y (m), and the row and column of its cell."""
 
 
-def _point_cells(scenario: Scenario, grid: xr.DataArray) -> list[PointCell]:
+def _point_cells(scenario: HistoryScenario, grid: xr.DataArray) -> list[PointCell]:
     x, y = grid["x"].values, grid["y"].values
     cells = []
     for index, point in enumerate(array_table(scenario, "points")):
@@ -274,7 +278,7 @@ def _point_cells(scenario: Scenario, grid: xr.DataArray) -> list[PointCell]:
 
 
 def run_history_scenario(
-    scenario: Scenario, overwrite: bool = False, progress: Progress | None = None
+    scenario: HistoryScenario, overwrite: bool = False, progress: Progress | None = None
 ) -> RunOutcome:
     """Run a history scenario and write its outputs.
 

@@ -13,6 +13,7 @@ resampled back onto the input grid.
 from __future__ import annotations
 
 import logging
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -33,7 +34,7 @@ from gridflex.gis.geometry import (
 from gridflex.io.rasters import geometry_of
 from gridflex.loads import load_from_elevation, regional_surface
 from gridflex.scenario.context import error_context
-from gridflex.scenario.schema import Scenario
+from gridflex.scenario.schema import Scenario, present
 from gridflex.synthetic import (
     Points,
     disc_height,
@@ -46,11 +47,13 @@ from gridflex.workflows.scenario_tables import array_table
 
 __all__ = [
     "WorkingGrid",
+    "WorkingLoad",
     "build_working_layers",
     "build_working_load",
     "elevation_stress",
     "synthetic_grid",
     "to_input_grid",
+    "working_load",
 ]
 
 log = logging.getLogger(__name__)
@@ -107,7 +110,7 @@ def _crs_label(crs: CRS | None) -> str:
     return " ".join(f"+{k}={v}" for k, v in params.items() if k in ("proj", "lat_0", "lon_0"))
 
 
-def synthetic_grid(table: dict[str, Any]) -> tuple[xr.DataArray, Points]:
+def synthetic_grid(table: Mapping[str, Any]) -> tuple[xr.DataArray, Points]:
     """The empty ``[grid]`` of a scenario and the metric positions of its cells.
 
     A grid without ``crs`` is metric, centred on (``center_x``, ``center_y``).
@@ -138,7 +141,7 @@ def synthetic_grid(table: dict[str, Any]) -> tuple[xr.DataArray, Points]:
 
 
 def _synthetic_layer(scenario: Scenario, layer: dict[str, Any]) -> xr.DataArray:
-    grid, points = synthetic_grid(scenario.table("grid"))
+    grid, points = synthetic_grid(present(scenario.table("grid"), scenario.where("grid")))
     shape = layer["synthetic"]
     if shape == "island-chain":
         return island_chain_height(grid, points)
@@ -168,7 +171,7 @@ def elevation_stress(scenario: Scenario, index: int, elevation: xr.DataArray) ->
     """Load of an elevation layer on the working grid (see :func:`load_from_elevation`):
     the rock above the regional surface, buoyed by sea water below sea level."""
     layer = array_table(scenario, "loads")[index]
-    infill = scenario.table("infill") or {}
+    infill: Mapping[str, Any] = scenario.table("infill") or {}
     regional: Any = layer["regional_elevation"]
     with error_context(scenario.where("loads", index=index)):
         if regional is None:
@@ -236,12 +239,77 @@ def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], Workin
     return out, grid
 
 
-def build_working_load(scenario: Scenario) -> tuple[xr.DataArray, WorkingGrid]:
-    """Total vertical stress (Pa, positive down) of the layers, on the working grid.
+@dataclass(frozen=True)
+class WorkingLoad:
+    """The load of a scenario's layers on the working grid, kept by part.
+
+    Thickness layers are kept apart so the load can be rebuilt for another density
+    without reading the files again (picklable: a sweep's tasks call it).
+
+    Attributes
+    ----------
+    fixed : numpy.ndarray
+        Stress of the stress and elevation layers (Pa, positive down), ``(ny, nx)``.
+    thickness : tuple of (numpy.ndarray, float, float)
+        Per thickness layer: its thickness (m), density and displaced density (kg m⁻³).
+    gravity : float
+        Gravitational acceleration (m s⁻²).
+    working : GridGeometry
+        The working grid.
+    """
+
+    fixed: np.ndarray
+    thickness: tuple[tuple[np.ndarray, float, float], ...]
+    gravity: float
+    working: GridGeometry
+
+    def __call__(self, load_density: float | None = None) -> xr.DataArray:
+        """Total vertical stress (Pa, positive down) on the working grid.
+
+        Parameters
+        ----------
+        load_density : float, optional
+            Density (kg m⁻³) given to every thickness layer instead of its own.
+        """
+        total = self.fixed.copy()
+        for height, density, displaced in self.thickness:
+            rho = density if load_density is None else float(load_density)
+            total += height * ((rho - displaced) * self.gravity)
+        load = _as_dataarray(total, self.working, "load")
+        load.attrs.update(units="Pa", long_name="vertical stress of the load (positive downward)")
+        return load
+
+
+def working_load(scenario: Scenario) -> tuple[WorkingLoad, WorkingGrid]:
+    """The load of the ``[[loads]]`` layers on the working grid, by part.
 
     A thickness layer presses with (density - displaced_density) g h, a stress layer
     as it is, an elevation layer with its rock above the regional surface
     (:func:`elevation_stress`).
+
+    Raises
+    ------
+    InputError
+        As :func:`build_working_layers`.
+    """
+    gravity = scenario.table("plate")["gravity"]
+    values, grid = build_working_layers(scenario)
+    fixed = np.zeros(grid.working.shape)
+    thickness = []
+    for index, (layer, da) in enumerate(zip(array_table(scenario, "loads"), values, strict=True)):
+        if layer["kind"] == "thickness":
+            thickness.append((da.values, layer["density"], layer["displaced_density"]))
+        elif layer["kind"] == "elevation":
+            fixed += elevation_stress(scenario, index, da)["load"].values
+        else:
+            fixed += da.values
+    return WorkingLoad(fixed, tuple(thickness), gravity, grid.working), grid
+
+
+def build_working_load(scenario: Scenario) -> tuple[xr.DataArray, WorkingGrid]:
+    """Total vertical stress (Pa, positive down) of the layers, on the working grid.
+
+    See :func:`working_load`.
 
     Returns
     -------
@@ -255,19 +323,8 @@ def build_working_load(scenario: Scenario) -> tuple[xr.DataArray, WorkingGrid]:
     InputError
         As :func:`build_working_layers`.
     """
-    gravity = scenario.table("plate")["gravity"]
-    values, grid = build_working_layers(scenario)
-    total = np.zeros(grid.working.shape)
-    for index, (layer, da) in enumerate(zip(array_table(scenario, "loads"), values, strict=True)):
-        if layer["kind"] == "thickness":
-            total += da.values * ((layer["density"] - layer["displaced_density"]) * gravity)
-        elif layer["kind"] == "elevation":
-            total += elevation_stress(scenario, index, da)["load"].values
-        else:
-            total += da.values
-    load = _as_dataarray(total, grid.working, "load")
-    load.attrs.update(units="Pa", long_name="vertical stress of the load (positive downward)")
-    return load, grid
+    parts, grid = working_load(scenario)
+    return parts(), grid
 
 
 def to_input_grid(result: xr.Dataset, grid: WorkingGrid) -> xr.Dataset:

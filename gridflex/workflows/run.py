@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import logging
+from collections.abc import Mapping
 from pathlib import Path
+from typing import Any, cast
 
 import numpy as np
 import xarray as xr
@@ -120,7 +122,9 @@ def _te_grid(scenario: Scenario, like: xr.DataArray, working: GridGeometry | Non
             return margin_te(
                 like, margin["te_left"], margin["te_right"], margin["line"], margin["width"]
             )
-    return xr.full_like(like, float(table["elastic_thickness"]), dtype=np.float64)
+    # plate_from_scenario refused a plate without any source of Te before calling here
+    constant = cast(float, table["elastic_thickness"])
+    return xr.full_like(like, float(constant), dtype=np.float64)
 
 
 def plate_from_scenario(
@@ -182,7 +186,7 @@ _FIELD_MAPS = {
 
 
 def _planned_outputs(scenario: Scenario) -> dict[str, Path | None]:
-    out = scenario.table("output")
+    out: Mapping[str, Any] = scenario.table("output")
     keys = ("file", "map", "outlines", "profile_csv", "profile_plot", *_FIELD_MAPS)
     return {k: out[k] for k in keys}
 
@@ -269,12 +273,14 @@ def _write_outputs(
         written.append(write_geotiff(result[name], path, crs, overwrite, inputs))
     if outputs["map"]:
         written.append(plot_deflection_map(result, outputs["map"], overwrite, inputs))
+    by_key: Mapping[str, Any] = outputs
     for key, (variable, title, label, signed) in _FIELD_MAPS.items():
-        if outputs[key]:
+        path = by_key[key]
+        if path:
             written.append(
                 plot_field_map(
                     result[variable],
-                    outputs[key],
+                    path,
                     title,
                     label,
                     overwrite,
@@ -289,8 +295,9 @@ def _write_outputs(
             depth = 0.1 * outcome.summary["max_deflection"]
         features = outline_features(working, grid.working.crs, depth)
         written.append(write_geojson(features, outputs["outlines"], overwrite, inputs))
-    if outputs["profile_start"] is not None:
-        profile = sample_profile(result, outputs["profile_start"], outputs["profile_end"])
+    start, end = outputs["profile_start"], outputs["profile_end"]
+    if start is not None and end is not None:  # both or neither (scenario.checks)
+        profile = sample_profile(result, start, end)
         if outputs["profile_csv"]:
             written.append(write_csv(profile, outputs["profile_csv"], overwrite, inputs))
         if outputs["profile_plot"]:

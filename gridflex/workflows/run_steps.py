@@ -19,13 +19,25 @@ from gridflex.loads import load_from_layers
 from gridflex.plate import Plate
 from gridflex.progress import Progress
 from gridflex.scenario.context import error_context
-from gridflex.scenario.schema import Scenario
+from gridflex.scenario.schema import Scenario, present
+from gridflex.scenario.tables import InfillTable
 from gridflex.workflows.layers import elevation_stress
 from gridflex.workflows.scenario_tables import array_table
 
 __all__ = ["gravity_step", "infill_from_scenario", "infill_step", "load_column"]
 
 log = logging.getLogger(__name__)
+
+
+def _base_elevation(scenario: Scenario, infill: InfillTable) -> float:
+    """``[infill] base_elevation`` (m), required under thickness and stress layers."""
+    base = infill["base_elevation"]
+    if base is None:
+        raise InputError(
+            f"{scenario.where('infill', 'base_elevation')}: required with thickness or "
+            "stress layers (the surface the loads stand on before flexure)"
+        )
+    return base
 
 
 def load_column(scenario: Scenario, layers: list[xr.DataArray]) -> xr.Dataset:
@@ -48,7 +60,7 @@ def load_column(scenario: Scenario, layers: list[xr.DataArray]) -> xr.Dataset:
     xarray.Dataset
         ``load`` (Pa), ``initial_surface``, ``reference_surface``, ``load_height`` (m).
     """
-    infill = scenario.table("infill")
+    infill = present(scenario.table("infill"), scenario.where("infill"))
     specs = array_table(scenario, "loads")
     thickness = [
         (da, spec["density"])
@@ -62,19 +74,14 @@ def load_column(scenario: Scenario, layers: list[xr.DataArray]) -> xr.Dataset:
     elif thickness:
         with error_context(scenario.where("loads")):
             column = load_from_layers(
-                infill["base_elevation"],
+                _base_elevation(scenario, infill),
                 thickness,
                 sea_level=infill["sea_level"],
                 water_density=infill["water_density"],
                 gravity=scenario.table("plate")["gravity"],
             )
     else:
-        if infill["base_elevation"] is None:
-            raise InputError(
-                f"{scenario.where('infill', 'base_elevation')}: required for "
-                "stress-only loads (the surface before flexure)"
-            )
-        flat = xr.full_like(stresses[0], infill["base_elevation"])
+        flat = xr.full_like(stresses[0], _base_elevation(scenario, infill))
         column = xr.Dataset(
             {
                 "load": flat * 0.0,
@@ -94,7 +101,7 @@ def load_column(scenario: Scenario, layers: list[xr.DataArray]) -> xr.Dataset:
 
 def infill_from_scenario(scenario: Scenario) -> Infill:
     """The :class:`Infill` of the ``[infill]`` table."""
-    table = scenario.table("infill")
+    table = present(scenario.table("infill"), scenario.where("infill"))
     with error_context(scenario.where("infill")):
         return Infill(
             sea_level=table["sea_level"],
@@ -111,7 +118,8 @@ def infill_step(
     scenario: Scenario, plate: Plate, column: xr.Dataset, progress: Progress | None = None
 ) -> xr.Dataset:
     """Solve the column with the self-consistent infill of the scenario."""
-    table, solver = scenario.table("infill"), scenario.table("solver")
+    table = present(scenario.table("infill"), scenario.where("infill"))
+    solver = scenario.table("solver")
     if solver["method"] == "finite-difference" or plate.is_variable:
         raise InputError(
             f"{scenario.where('infill')}: the self-consistent infill runs with "
@@ -134,7 +142,7 @@ def infill_step(
 
 def gravity_step(scenario: Scenario, result: xr.Dataset) -> xr.Dataset:
     """The result with ``free_air_anomaly`` and ``bouguer_anomaly`` added."""
-    table = scenario.table("gravity")
+    table = present(scenario.table("gravity"), scenario.where("gravity"))
     with error_context(scenario.where("gravity")):
         gravity = model_gravity(
             result,

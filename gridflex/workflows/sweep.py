@@ -2,37 +2,34 @@
 
 from __future__ import annotations
 
-import copy
-import functools
 import logging
 import tomllib
-from dataclasses import replace
+from collections.abc import Mapping
 from pathlib import Path
-
-import xarray as xr
+from typing import Any
 
 from gridflex.errors import InputError
 from gridflex.io.netcdf import write_netcdf
 from gridflex.progress import Progress
 from gridflex.scenario.context import error_context
-from gridflex.scenario.schema import Scenario
+from gridflex.scenario.schema import Scenario, present
 from gridflex.scenario.tables import SCHEMA
 from gridflex.sweeps.parameter_sweep import LoadLike, sweep
 from gridflex.units import parse_quantity
-from gridflex.workflows.layers import build_working_load
+from gridflex.workflows.layers import working_load
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan, stamp_result
 from gridflex.workflows.run import plate_from_scenario
 from gridflex.workflows.scenario_tables import array_table, refuse_tables
 
-__all__ = ["load_with_density", "run_sweep", "sweep_parameters", "sweep_scenario"]
+__all__ = ["run_sweep", "sweep_parameters", "sweep_scenario"]
 
 log = logging.getLogger(__name__)
 
 
 def sweep_parameters(scenario: Scenario) -> dict[str, list[float]]:
     """The swept values of the ``[sweep]`` table in SI, in the order written."""
-    table = scenario.table("sweep")
+    table: Mapping[str, Any] = present(scenario.table("sweep"), scenario.where("sweep"))
     spec = SCHEMA["sweep"]
     written = tomllib.loads(scenario.text).get("sweep", {}) if scenario.text else table
     out: dict[str, list[float]] = {}
@@ -83,15 +80,15 @@ def run_sweep(
     plan = OutputPlan(scenario, overwrite)
     plan.add({"file": scenario.table("output")["file"]})
     plate = plate_from_scenario(scenario)
-    load: LoadLike
-    load, grid = build_working_load(scenario)  # also checks the layers before any task runs
+    parts, grid = working_load(scenario)  # every file read once, here, before any task
+    load: LoadLike = parts()
     if "load_density" in parameters:
         if not any(layer["kind"] == "thickness" for layer in array_table(scenario, "loads")):
             raise InputError(
                 f"{scenario.where('sweep', 'load_density')}: no [[loads]] layer "
                 "of kind 'thickness' to give a density"
             )
-        load = functools.partial(load_with_density, scenario)
+        load = parts  # rebuilt per density from the arrays, no file read in a task
     solver = scenario.table("solver")
     if solver["method"] == "finite-difference":
         raise InputError(f"{scenario.where('solver', 'method')}: sweeps use the spectral solver")
@@ -100,7 +97,7 @@ def run_sweep(
             load,
             plate,
             parameters,
-            scheduler=scenario.table("sweep")["scheduler"],
+            scheduler=present(scenario.table("sweep"), scenario.where("sweep"))["scheduler"],
             edges=solver["edges"],
             pad_factor=solver["pad_factor"],
             inplane_force_x=solver["inplane_force_x"],
@@ -122,15 +119,3 @@ def sweep_scenario(
 ) -> Path:
     """:func:`run_sweep`, returning only the path written (``[output] file``)."""
     return run_sweep(scenario, overwrite, progress).written[0]
-
-
-def load_with_density(scenario: Scenario, load_density: float) -> xr.DataArray:
-    """The scenario's load with every thickness layer given *load_density* (kg m⁻³).
-
-    Module-level (picklable), so dask workers can build the load themselves.
-    """
-    tables = copy.deepcopy(scenario.tables)
-    for layer in tables["loads"]:
-        if layer["kind"] == "thickness":
-            layer["density"] = float(load_density)
-    return build_working_load(replace(scenario, tables=tables))[0]

@@ -200,7 +200,7 @@ def test_estimate_te_example_runs(tmp_path):
 
 def test_fit_reads_observation_units_and_a_mask_with_gaps(tmp_path):
     """The fit's inputs follow the one grid-input rule: units honoured, NaN not compared."""
-    from gridflex.scenario.schema import load_scenario
+    from gridflex.scenario.tables import load_scenario
     from gridflex.workflows.fit import fit_scenario
 
     _write_inputs(tmp_path)

@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from gridflex.errors import InputError
-from gridflex.scenario.schema import load_scenario
+from gridflex.scenario.tables import load_scenario
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan
 from gridflex.workflows.run import run_scenario
