@@ -16,10 +16,12 @@ from gridflex.errors import (
     GridflexWarning,
     InputError,
 )
+from gridflex.estimation.admittance import cross_spectra, fit_te_spectral
 from gridflex.estimation.misfit import TeFit, fit_te
 from gridflex.glacial.ice import bed_stress, grounded_mask, ice_response
 from gridflex.glacial.response import ResponseStepper, viscous_response
 from gridflex.gravity.anomalies import model_free_air_anomaly, model_gravity
+from gridflex.gravity.first_order import CrustLayers
 from gridflex.gravity.interfaces import interface_gravity
 from gridflex.infill import Infill, solve_with_infill
 from gridflex.loads import (
@@ -60,9 +62,12 @@ __all__ = [
     "interface_gravity",
     "model_gravity",
     "model_free_air_anomaly",
+    "CrustLayers",
     # estimating te, sweeping parameters
     "fit_te",
     "TeFit",
+    "cross_spectra",
+    "fit_te_spectral",
     "sweep",
     # errors and warnings
     "GridflexError",

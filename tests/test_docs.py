@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import importlib
 import re
 import subprocess
 import sys
@@ -41,3 +42,45 @@ def test_example_script_runs(tmp_path):
     assert done.returncode == 0, done.stderr
     assert "forebulge height" in done.stdout
     assert (tmp_path / "island_chain_api.nc").exists()
+
+
+def _resolve(dotted: str) -> object:
+    """The object a dotted ``gridflex.…`` name refers to (module prefix, then attributes)."""
+    parts = dotted.split(".")
+    for cut in range(len(parts), 0, -1):
+        try:
+            obj: object = importlib.import_module(".".join(parts[:cut]))
+        except ModuleNotFoundError:
+            continue
+        for attr in parts[cut:]:
+            obj = getattr(obj, attr)
+        return obj
+    raise ModuleNotFoundError(dotted)
+
+
+def test_every_python_name_in_the_readme_exists():
+    readme = (REPO / "README.md").read_text()
+    names = set(re.findall(r"`(gridflex(?:\.[A-Za-z_]\w*)+)", readme))
+    names |= {
+        f"{module}.{name.strip()}"
+        for module, imported in re.findall(r"from (gridflex[\w.]*) import ([\w, ]+)", readme)
+        for name in imported.split(",")
+    }
+    assert len(names) > 30  # the README documents the API by these names
+    missing = []
+    for dotted in sorted(names):
+        try:
+            _resolve(dotted)
+        except (ImportError, AttributeError):
+            missing.append(dotted)
+    assert not missing, f"README.md names that do not exist: {missing}"
+
+
+def test_public_names_resolve_and_no_module_hides_a_function():
+    import gridflex
+
+    for name in gridflex.__all__:
+        assert getattr(gridflex, name) is not None, name
+    assert callable(gridflex.solve) and callable(gridflex.sweep)
+    assert importlib.import_module("gridflex.engine").solve is gridflex.solve
+    assert importlib.import_module("gridflex.sweeps.parameter_sweep").sweep is gridflex.sweep

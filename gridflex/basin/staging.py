@@ -34,8 +34,7 @@ of cells (the FFT padding copies it, and its state is not kept between stages);
 a stage with a te grid is solved with :func:`gridflex.solve` and water filling
 every depression (also above sea level), without sediment fill.
 
-Flexural backstripping lives in :mod:`gridflex.basin.backstrip`; :func:`backstrip` and
-:func:`backstrip_layers` are importable from here too.
+Flexural backstripping lives in :mod:`gridflex.basin.backstrip`.
 
 Depths, thicknesses and subsidence are positive DOWN here (m); elevations and
 levels positive up; ages in years before present.
@@ -54,7 +53,6 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from gridflex.basin.backstrip import backstrip, backstrip_layers
 from gridflex.basin.compaction import (
     Lithology,
     bulk_density,
@@ -78,8 +76,6 @@ __all__ = [
     "ISOPACHS",
     "Stage",
     "StagedBasin",
-    "backstrip",  # from gridflex.basin.backstrip, importable here as README.md shows
-    "backstrip_layers",
     "stage_loading",
 ]
 

@@ -118,8 +118,12 @@ def test_te_grid_backstrip_matches_the_constant_te_solve():
     assert_allclose(flex["sediment_rebound"], ref["sediment_rebound"], atol=5e-3 * peak)
 
 
-def test_backstrip_is_importable_where_the_readme_showed_it():
-    import gridflex.basin.staging as staging
+def test_basin_names_are_importable_where_the_readme_shows_them():
+    import gridflex.basin as basin
+    from gridflex.basin import staging
 
-    assert staging.backstrip is backstrip
-    assert staging.backstrip_layers is backstrip_layers
+    assert basin.backstrip is backstrip
+    assert basin.backstrip_layers is backstrip_layers
+    assert basin.stage_loading is staging.stage_loading
+    assert basin.Stage is staging.Stage
+    assert basin.StagedBasin is staging.StagedBasin

@@ -133,7 +133,7 @@ def test_stage_te_applies_at_the_time_of_loading():
 
 def test_moat_fills_with_sediment_to_base_level_locally():
     # te = 0 with sediment filling the new space up to a base level above the surface:
-    # rho_m w = (rho_b - rho_w) h + rho_fill w (local balance, PHYSICS.md 5.1/5.3), fill = w
+    # rho_m w = (rho_b - rho_w) h + rho_sediment w (local balance, PHYSICS.md 5.1/5.3), fill = w
     rock = Lithology("rock", 0.0, 1000.0, 2400.0)
     out = stage_loading(
         [Stage(flat(100.0), 1e6, rock, base_level=0.0)],

@@ -6,7 +6,7 @@ import xarray as xr
 from numpy.testing import assert_allclose
 
 from gridflex import Plate
-from gridflex.basin.staging import Stage, backstrip, stage_loading
+from gridflex.basin import Stage, backstrip, stage_loading
 from gridflex.cli.main import main
 from gridflex.workflows.basin_tables import BASIN_SCHEMA, load_basin_scenario
 from tests.helpers import REPO_ROOT
@@ -150,7 +150,7 @@ def test_basin_scenario_errors(stage_files, capsys):
 def test_layered_backstrip_command(tmp_path):
     # same numbers as the library's layered backstrip (checked against Steckler & Watts
     # 1978 in test_basin.py); common practice
-    from gridflex.basin.staging import backstrip_layers
+    from gridflex.basin import backstrip_layers
 
     top, low = _lens(1500.0, 30e3), _lens(2500.0, 35e3)
     _write(tmp_path / "top.nc", "thickness", top)
