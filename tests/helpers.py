@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -29,3 +31,14 @@ def make_grid(ny: int, nx: int, dx: float, dy: float | None = None) -> xr.DataAr
     y = (np.arange(ny) - ny // 2) * dy
     x = (np.arange(nx) - nx // 2) * dx
     return xr.DataArray(np.zeros((ny, nx)), dims=("y", "x"), coords={"y": y, "x": x})
+
+
+def run_cli(*args: str, cwd: Path) -> subprocess.CompletedProcess:
+    """``python -m gridflex ARGS`` in *cwd*, its output captured as text (5 min limit)."""
+    return subprocess.run(
+        [sys.executable, "-m", "gridflex", *args],
+        cwd=cwd,
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )

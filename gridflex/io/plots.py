@@ -4,6 +4,10 @@ matplotlib is imported with the non-interactive Agg backend inside each function
 so importing gridflex never opens a window. Signed fields (deflection, anomalies)
 use a diverging colour map centred on zero; one-signed fields (fill thickness) a
 perceptually uniform sequential one.
+
+Every plot takes ``path`` (the PNG file), ``overwrite`` (replace an existing file,
+default False), ``inputs`` (files never to be overwritten) and most a ``title``;
+each returns the path written.
 """
 
 from __future__ import annotations
@@ -60,6 +64,20 @@ def _save(fig: Any, path: str | Path, overwrite: bool, inputs: Paths) -> Path:
         fig.savefig(tmp, format="png", dpi=120)
     plt.close(fig)
     return Path(path)
+
+
+def _curve_axes() -> tuple[Any, Any]:
+    """A figure with one set of axes for curves."""
+    return _pyplot().subplots(figsize=(6.4, 4.2), constrained_layout=True)
+
+
+def _finish_curve(
+    fig: Any, ax: Any, title: str, path: str | Path, overwrite: bool, inputs: Paths
+) -> Path:
+    """Title and legend on *ax*, then the figure written to *path*."""
+    ax.set_title(title, fontsize=10)
+    ax.legend(loc="best", fontsize="small")
+    return _save(fig, path, overwrite, inputs)
 
 
 def plot_field_map(
@@ -277,19 +295,14 @@ def plot_misfit(
         Result of :func:`gridflex.fit_te`.
     path : str or pathlib.Path
         PNG file.
-    overwrite : bool, default False
-        Replace an existing file.
-    inputs : iterable of path
-        Files never to be overwritten.
-    title : str
-        Figure title.
+    overwrite, inputs, title
+        As for every plot here (see the module notes).
 
     Returns
     -------
     pathlib.Path
     """
-    plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(6.4, 4.2), constrained_layout=True)
+    fig, ax = _curve_axes()
     te_km = fit.misfit["te"].values / 1e3
     ax.plot(te_km, fit.misfit.values, "o-", ms=3, color="0.2", label="RMS misfit")
     ax.axvspan(
@@ -308,9 +321,7 @@ def plot_misfit(
     ax.set_xlabel("elastic thickness Te (km)")
     unit = fit.misfit.attrs.get("units", "")
     ax.set_ylabel(f"RMS misfit of {fit.quantity} ({unit})")
-    ax.set_title(title, fontsize=10)
-    ax.legend(loc="best", fontsize="small")
-    return _save(fig, path, overwrite, inputs)
+    return _finish_curve(fig, ax, title, path, overwrite, inputs)
 
 
 def plot_spectral_fit(
@@ -328,19 +339,14 @@ def plot_spectral_fit(
         Result of :func:`gridflex.estimation.admittance.fit_te_spectral`.
     path : str or pathlib.Path
         PNG file.
-    overwrite : bool, default False
-        Replace an existing file.
-    inputs : iterable of path
-        Files never to be overwritten.
-    title : str
-        Figure title.
+    overwrite, inputs, title
+        As for every plot here (see the module notes).
 
     Returns
     -------
     pathlib.Path
     """
-    plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(6.4, 4.2), constrained_layout=True)
+    fig, ax = _curve_axes()
     curves = fit.curves
     wavelength_km = 2.0 * np.pi / curves["wavenumber"].values / 1e3
     ax.plot(wavelength_km, curves["observed"].values, "o", ms=4, color="0.2", label="observed")
@@ -353,6 +359,4 @@ def plot_spectral_fit(
     ax.set_xlabel("wavelength (km)")
     unit = curves["observed"].attrs.get("units", "")
     ax.set_ylabel(f"{curves.attrs.get('quantity', '')} ({unit})")
-    ax.set_title(title, fontsize=10)
-    ax.legend(loc="best", fontsize="small")
-    return _save(fig, path, overwrite, inputs)
+    return _finish_curve(fig, ax, title, path, overwrite, inputs)

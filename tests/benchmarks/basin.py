@@ -15,32 +15,23 @@ Timings are the best of --repeat runs in this process; machines are noisy.
 from __future__ import annotations
 
 import argparse
-import time
 
 import numpy as np
 import xarray as xr
 from scipy import optimize
+from timing import best
 
 from gridflex import Infill, Plate, load_from_layers, solve_with_infill
 from gridflex.basin.compaction import compacted_base, grain_thickness
 from gridflex.basin.staging import Stage, stage_loading
 
 
-def best(fn, repeat: int) -> float:
-    times = []
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return min(times)
-
-
 def compaction_bench(n: int, repeat: int) -> None:
     rng = np.random.default_rng(0)
     top = rng.uniform(0.0, 6000.0, (n, n))
     grains = rng.uniform(0.0, 2000.0, (n, n))
-    t_newton = best(lambda: compacted_base(top, grains, "shale"), repeat)
-    t_closed = best(lambda: grain_thickness(top, top + grains, "shale"), repeat)
+    t_newton = best(lambda: compacted_base(top, grains, "shale"), repeat)[0]
+    t_closed = best(lambda: grain_thickness(top, top + grains, "shale"), repeat)[0]
     cells = 2000
     flat_top, flat_s = top.ravel()[:cells], grains.ravel()[:cells]
 
@@ -53,7 +44,7 @@ def compaction_bench(n: int, repeat: int) -> None:
                 xtol=1e-9,
             )
 
-    t_scalar = best(scalar, 1) * (n * n) / cells
+    t_scalar = best(scalar, 1)[0] * (n * n) / cells
     print(
         f"compaction {n}x{n}: newton {t_newton:.4f} s = {t_newton / t_closed:.1f} x one "
         f"closed-form pass; scalar brentq (scaled) {t_scalar:.2f} s = "
@@ -79,17 +70,17 @@ def staged_bench(n: int, count: int, repeat: int) -> None:
     def staged() -> None:
         result["out"] = stage_loading(stages, shelf, plate, compaction=False)
 
-    t_staged = best(staged, repeat)
+    t_staged = best(staged, repeat)[0]
     rho = 1030 * 0.63 + 2720 * 0.37
     column = load_from_layers(shelf, [(s.thickness, rho) for s in stages])
     infill = Infill(sediment="to_level", sediment_level=0.0, sediment_density=rho)
-    t_total = best(lambda: solve_with_infill(column, plate, infill=infill), repeat)
+    t_total = best(lambda: solve_with_infill(column, plate, infill=infill), repeat)[0]
     iterations = result["out"]["iterations"].values.tolist()
     print(
         f"staged {n}x{n}, {count} stages: {t_staged:.3f} s = {t_staged / t_total:.2f} x one "
         f"infill solve of the total ({t_total:.3f} s); iterations per stage {iterations}"
     )
-    t_comp = best(lambda: stage_loading(stages, shelf, plate), repeat)
+    t_comp = best(lambda: stage_loading(stages, shelf, plate), repeat)[0]
     print(f"  with compaction: {t_comp:.3f} s = {t_comp / t_total:.2f} x")
 
 

@@ -10,20 +10,14 @@ import sys
 import time
 
 import numpy as np
-import xarray as xr
+from timing import gaussian_seamount_load
 
 import gridflex
 
 
 def main(n: int = 256) -> None:
     dx = 4e3
-    x = (np.arange(n) - n / 2) * dx
-    xx, yy = np.meshgrid(x, x)
-    load = xr.DataArray(
-        1770 * 9.81 * 3000 * np.exp(-(xx**2 + yy**2) / (2 * 20e3**2)),
-        dims=("y", "x"),
-        coords={"y": x, "x": x},
-    )
+    load = gaussian_seamount_load(n, dx)
     plate = gridflex.Plate(te=23.4e3)
     w = gridflex.solve(load, plate)["deflection"]
     rng = np.random.default_rng(0)

@@ -13,20 +13,14 @@ import warnings
 
 import numpy as np
 import scipy.fft
-import xarray as xr
+from timing import gaussian_seamount_load
 
 import gridflex
 
 
 def main(cases: int = 100) -> None:
     n, dx, truth = 64, 8e3, 23.4e3
-    x = (np.arange(n) - n / 2) * dx
-    xx, yy = np.meshgrid(x, x)
-    load = xr.DataArray(
-        1770 * 9.81 * 3000 * np.exp(-(xx**2 + yy**2) / (2 * 20e3**2)),
-        dims=("y", "x"),
-        coords={"y": x, "x": x},
-    )
+    load = gaussian_seamount_load(n, dx)
     plate = gridflex.Plate(te=truth)
     w = gridflex.solve(load, plate)["deflection"]
     k2 = np.add.outer(scipy.fft.fftfreq(n) ** 2, scipy.fft.rfftfreq(n) ** 2)

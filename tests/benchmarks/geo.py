@@ -12,10 +12,10 @@ Timings are the best of --repeat runs, measured in the same process after a warm
 from __future__ import annotations
 
 import argparse
-import time
 
 import numpy as np
 import xarray as xr
+from timing import best
 
 from gridflex import Plate, solve
 from gridflex.gis.geometry import (
@@ -28,15 +28,6 @@ from gridflex.gis.geometry import (
 from gridflex.io.vectors import outline_features
 
 PLATE = Plate(te=15e3)
-
-
-def best(func, repeat: int) -> tuple[float, object]:
-    times, out = [], None
-    for _ in range(repeat):
-        start = time.perf_counter()
-        out = func()
-        times.append(time.perf_counter() - start)
-    return min(times), out
 
 
 def run(n: int, repeat: int) -> None:

@@ -17,12 +17,12 @@ Timings are the best of --repeat runs; machines are noisy.
 from __future__ import annotations
 
 import argparse
-import time
 import tracemalloc
 
 import numpy as np
 import scipy.fft
 import xarray as xr
+from timing import best
 
 from gridflex import Infill, Plate, load_from_elevation, model_gravity, solve_with_infill
 from gridflex.gravity.interfaces import gravity_padded_shape
@@ -41,15 +41,6 @@ def make_loads(n: int) -> xr.Dataset:
     h = 4900.0 * np.clip(1.0 - (X**2 + Y**2) / (n * DX / 10) ** 2, 0.0, None) ** 1.5
     elevation = xr.DataArray(-4500.0 + h, dims=("y", "x"), coords={"y": x, "x": x})
     return load_from_elevation(elevation, 2800.0, -4500.0)
-
-
-def best(func, repeat: int) -> tuple[float, object]:
-    times, out = [], None
-    for _ in range(repeat):
-        start = time.perf_counter()
-        out = func()
-        times.append(time.perf_counter() - start)
-    return min(times), out
 
 
 def peak(func) -> float:

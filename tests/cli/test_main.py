@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import subprocess
-import sys
 from pathlib import Path
 
 import netCDF4
@@ -13,17 +11,7 @@ import xarray as xr
 
 from gridflex import Plate, solve
 from gridflex.cli.main import main
-from tests.helpers import make_grid
-
-
-def _cli(*args: str, cwd: Path) -> subprocess.CompletedProcess:
-    return subprocess.run(
-        [sys.executable, "-m", "gridflex", *args],
-        cwd=cwd,
-        capture_output=True,
-        text=True,
-        timeout=300,
-    )
+from tests.helpers import make_grid, run_cli
 
 
 def _write_load(path: Path) -> xr.DataArray:
@@ -58,7 +46,7 @@ map = "out/map.png"
 def test_run_writes_netcdf_and_map(tmp_path):
     height = _write_load(tmp_path / "load.nc")
     (tmp_path / "s.toml").write_text(SCENARIO)
-    done = _cli("run", "s.toml", cwd=tmp_path)
+    done = run_cli("run", "s.toml", cwd=tmp_path)
     assert done.returncode == 0, done.stderr
     assert "forebulge height" in done.stdout
     expected = solve(height * (1770.0 * 9.81), Plate(te=12e3))["deflection"].values
@@ -72,9 +60,9 @@ def test_run_writes_netcdf_and_map(tmp_path):
     png = (tmp_path / "out" / "map.png").read_bytes()
     assert png[:8] == b"\x89PNG\r\n\x1a\n"
     # a second run refuses to overwrite, then replaces with --overwrite
-    again = _cli("run", "s.toml", cwd=tmp_path)
+    again = run_cli("run", "s.toml", cwd=tmp_path)
     assert again.returncode == 2 and "output exists" in again.stderr
-    assert _cli("run", "s.toml", "--overwrite", "-q", cwd=tmp_path).returncode == 0
+    assert run_cli("run", "s.toml", "--overwrite", "-q", cwd=tmp_path).returncode == 0
     assert not list((tmp_path / "out").glob("*.part"))
 
 
@@ -100,7 +88,7 @@ def test_cli_errors_are_one_line(tmp_path, scenario, message):
     _write_load(tmp_path / "load.nc")
     if scenario is not None:
         (tmp_path / "s.toml").write_text(scenario)
-    done = _cli("run", "s.toml", cwd=tmp_path)
+    done = run_cli("run", "s.toml", cwd=tmp_path)
     assert done.returncode == 2
     assert "Traceback" not in done.stderr
     lines = done.stderr.strip().splitlines()
@@ -115,7 +103,7 @@ def test_wrong_grid_unit_is_reported(tmp_path):
     bad["height"].attrs["units"] = "kg"
     bad.to_netcdf(tmp_path / "bad.nc")
     (tmp_path / "s.toml").write_text(SCENARIO.replace("load.nc", "bad.nc"))
-    done = _cli("run", "s.toml", cwd=tmp_path)
+    done = run_cli("run", "s.toml", cwd=tmp_path)
     assert done.returncode == 2
     assert "bad.nc: variable 'height': unit 'kg' is not a length" in done.stderr
 

@@ -8,8 +8,7 @@ from numpy.testing import assert_allclose
 from gridflex import Plate
 from gridflex.basin import Stage, backstrip, stage_loading
 from gridflex.cli.main import main
-from gridflex.workflows.basin_tables import BASIN_SCHEMA, load_basin_scenario
-from tests.helpers import REPO_ROOT
+from gridflex.workflows.basin_tables import load_basin_scenario
 
 N, DX = 40, 5e3
 
@@ -230,12 +229,3 @@ file = "tif_out.nc"
     got = got.sortby("y") if "y" in got.dims else got
     assert_allclose(got.values, expected["deflection"][0].values, rtol=1e-9, atol=1e-9)
     assert "crs" in out.variables or "spatial_ref" in out.variables
-
-
-def test_every_basin_scenario_key_is_documented():
-    # the README key tables follow the schema (common practice, as tests/test_docs.py)
-    readme = (REPO_ROOT / "README.md").read_text()
-    for table, keys in BASIN_SCHEMA.items():
-        assert f"[{table}]" in readme, table
-        for key in keys:
-            assert f"`{key}`" in readme, f"[{table}] {key} is not in README.md"

@@ -14,19 +14,9 @@ from numpy.testing import assert_allclose
 
 from gridflex import Plate, solve
 from gridflex.cli.main import main
-from tests.helpers import REPO_ROOT, make_grid
+from tests.helpers import REPO_ROOT, make_grid, run_cli
 
 TRUE_TE = 23.4e3
-
-
-def _cli(*args: str, cwd: Path) -> subprocess.CompletedProcess:
-    return subprocess.run(
-        [sys.executable, "-m", "gridflex", *args],
-        cwd=cwd,
-        capture_output=True,
-        text=True,
-        timeout=300,
-    )
 
 
 def _write_inputs(folder: Path) -> xr.DataArray:
@@ -72,7 +62,7 @@ te_min = "2 km"
 te_max = "80 km"
 """
     )
-    done = _cli("fit", "s.toml", cwd=tmp_path)
+    done = run_cli("fit", "s.toml", cwd=tmp_path)
     assert done.returncode == 0, done.stderr
     assert "te = " in done.stdout and "interval" in done.stdout
     summary = json.loads((tmp_path / "out" / "best_fit.json").read_text())
@@ -87,7 +77,7 @@ te_max = "80 km"
         assert_allclose(ds.attrs["plate_te"], summary["te"])
         assert "[fit]" in ds.attrs["scenario"]
     # outputs are not replaced without --overwrite
-    again = _cli("fit", "s.toml", cwd=tmp_path)
+    again = run_cli("fit", "s.toml", cwd=tmp_path)
     assert again.returncode == 2 and "output exists" in again.stderr
 
 
@@ -129,7 +119,7 @@ te = ["5 km", "12 km", "30 km"]
 infill_density = [0, 1030]
 """
     )
-    done = _cli("sweep", "s.toml", cwd=tmp_path)
+    done = run_cli("sweep", "s.toml", cwd=tmp_path)
     assert done.returncode == 0, done.stderr
     assert "6/6" in done.stderr  # progress shown on stderr
     with xr.open_dataset(tmp_path / "sweep.nc") as ds:

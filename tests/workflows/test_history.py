@@ -263,19 +263,6 @@ file = "sea_out.nc"
         assert "reference_load" in out
 
 
-def test_every_history_scenario_key_is_documented():
-    from gridflex.workflows.history import HISTORY_SCHEMA
-
-    readme = (REPO_ROOT / "README.md").read_text()
-    section = readme[readme.index("## Ice loads through time") :]
-    for table, keys in HISTORY_SCHEMA.items():
-        if table in ("plate", "grid"):  # documented with the elastic scenario
-            continue
-        assert f"[{table}]" in section, table
-        for key in keys:
-            assert f"`{key}`" in section, f"[{table}] {key} is not in README.md"
-
-
 def test_coupling_example_runs():
     import subprocess
     import sys
