@@ -24,6 +24,7 @@ from typing import Any
 import numpy as np
 import rasterio
 import rasterio.warp
+import xarray as xr
 from affine import Affine
 from rasterio.crs import CRS
 from rasterio.enums import Resampling
@@ -39,6 +40,7 @@ __all__ = [
     "cell_areas",
     "even_step",
     "from_lonlat",
+    "geometry_of",
     "local_projection",
     "parse_crs",
     "reproject_values",
@@ -495,3 +497,20 @@ def from_lonlat(lon: Any, lat: Any, crs: CRS) -> tuple[np.ndarray, np.ndarray]:
             LONLAT, crs, np.broadcast_to(lon, shape).ravel(), np.broadcast_to(lat, shape).ravel()
         )
     return np.asarray(x).reshape(shape), np.asarray(y).reshape(shape)
+
+
+def geometry_of(da: xr.DataArray) -> GridGeometry:
+    """The :class:`GridGeometry` of a grid (e.g. from :func:`gridflex.io.rasters.read_raster`).
+
+    Uses the ``y``/``x`` coordinates and ``attrs["crs_wkt"]`` (missing or empty:
+    unknown CRS in metres).
+    """
+    if not isinstance(da, xr.DataArray) or da.dims != ("y", "x"):
+        raise InputError("expected a DataArray on dims ('y', 'x')")
+    wkt = da.attrs.get("crs_wkt", "")
+    label = da.name or "grid"
+    crs = parse_crs(wkt, f"{label}: crs_wkt") if wkt else None
+    try:
+        return GridGeometry.from_coords(da["y"].values, da["x"].values, crs)
+    except InputError as exc:
+        raise InputError(f"{label}: {exc}") from exc

@@ -3,7 +3,8 @@
 Every reader returns the same thing: a float64 :class:`xarray.DataArray` on dims
 ``("y", "x")`` with 1-D cell-centre coordinates in the units of its CRS (degrees
 for geographic grids, metres for projected ones), missing values as NaN, and the
-CRS as WKT in ``attrs["crs_wkt"]`` (``""`` when unknown). :func:`geometry_of`
+CRS as WKT in ``attrs["crs_wkt"]`` (``""`` when unknown).
+:func:`gridflex.gis.geometry.geometry_of`
 turns that back into a :class:`gridflex.gis.geometry.GridGeometry`.
 
 Missing values: nodata (GeoTIFF) and ``_FillValue``/``missing_value`` (NetCDF)
@@ -35,7 +36,6 @@ __all__ = [
     "LAYER_MISSING_POLICIES",
     "MISSING_POLICIES",
     "NETCDF_SUFFIXES",
-    "geometry_of",
     "read_raster",
     "write_geotiff",
 ]
@@ -346,23 +346,6 @@ def read_raster(path: str | Path, variable: str | None = None) -> xr.DataArray:
     da = _read_netcdf(path, variable) if netcdf else _read_gdal(path, variable)
     log.info("read %s %r: %s cells", path, da.name, da.shape)
     return da
-
-
-def geometry_of(da: xr.DataArray) -> GridGeometry:
-    """The :class:`~gridflex.gis.geometry.GridGeometry` of a grid from :func:`read_raster`.
-
-    Uses the ``y``/``x`` coordinates and ``attrs["crs_wkt"]`` (missing or empty:
-    unknown CRS in metres).
-    """
-    if not isinstance(da, xr.DataArray) or da.dims != ("y", "x"):
-        raise InputError("expected a DataArray on dims ('y', 'x')")
-    wkt = da.attrs.get("crs_wkt", "")
-    label = da.name or "grid"
-    crs = parse_crs(wkt, f"{label}: crs_wkt") if wkt else None
-    try:
-        return GridGeometry.from_coords(da["y"].values, da["x"].values, crs)
-    except InputError as exc:
-        raise InputError(f"{label}: {exc}") from exc
 
 
 def write_geotiff(

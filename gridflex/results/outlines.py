@@ -35,7 +35,7 @@ import xarray as xr
 from scipy import ndimage
 
 from gridflex.errors import InputError
-from gridflex.io.rasters import geometry_of
+from gridflex.gis.geometry import geometry_of
 from gridflex.validation import check_number
 
 __all__ = [

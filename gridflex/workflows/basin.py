@@ -12,8 +12,8 @@ from gridflex.basin.backstrip import backstrip, backstrip_layers
 from gridflex.basin.compaction import LITHOLOGIES, Lithology
 from gridflex.basin.staging import Stage, stage_loading
 from gridflex.errors import InputError
+from gridflex.gis.geometry import geometry_of
 from gridflex.io.netcdf import write_netcdf
-from gridflex.io.rasters import geometry_of
 from gridflex.progress import Progress
 from gridflex.scenario.context import error_context
 from gridflex.workflows.basin_tables import BasinScenario

@@ -28,9 +28,9 @@ import numpy as np
 import xarray as xr
 
 from gridflex.errors import InputError, NodataWarning
-from gridflex.gis.geometry import GridGeometry, reproject_values
+from gridflex.gis.geometry import GridGeometry, geometry_of, reproject_values
 from gridflex.grid import check_same_grid
-from gridflex.io.rasters import MISSING_POLICIES, geometry_of, read_raster
+from gridflex.io.rasters import MISSING_POLICIES, read_raster
 from gridflex.scenario.context import error_context
 from gridflex.units import DIMENSIONS, unit_factor
 

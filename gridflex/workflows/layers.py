@@ -26,12 +26,12 @@ from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.gis.geometry import (
     GridGeometry,
     from_lonlat,
+    geometry_of,
     local_projection,
     parse_crs,
     reproject_values,
     working_geometry,
 )
-from gridflex.io.rasters import geometry_of
 from gridflex.loads import load_from_elevation, regional_surface
 from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import Scenario, present

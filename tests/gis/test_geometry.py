@@ -227,7 +227,8 @@ def test_solve_through_the_local_grid_matches_a_direct_metric_solve(tmp_path):
     # within 1% (of the peak deflection). The load is a smooth seamount defined by distance in
     # the local equal-area frame, so both grids sample the same function.
     from gridflex import Plate, solve
-    from gridflex.io.rasters import geometry_of, read_raster, write_geotiff
+    from gridflex.gis.geometry import geometry_of
+    from gridflex.io.rasters import read_raster, write_geotiff
 
     lon = -150.6 + 0.012 * (np.arange(100) + 0.5)
     lat = -11.4 - 0.012 * (np.arange(100) + 0.5)

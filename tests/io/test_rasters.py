@@ -12,8 +12,8 @@ from numpy.testing import assert_allclose, assert_array_equal
 from rasterio.crs import CRS
 
 from gridflex import InputError
-from gridflex.gis.geometry import LONLAT, GridGeometry
-from gridflex.io.rasters import geometry_of, read_raster, write_geotiff
+from gridflex.gis.geometry import LONLAT, GridGeometry, geometry_of
+from gridflex.io.rasters import read_raster, write_geotiff
 
 UTM33 = CRS.from_epsg(32633)
 
