@@ -1,4 +1,5 @@
-"""Helpers shared by the tests: small grids, a random broken plate operator, the repository root."""
+"""Helpers shared by the tests: small grids, a random broken plate operator, the repository root,
+the seamount inputs of the fit and sweep tests."""
 
 from __future__ import annotations
 
@@ -42,3 +43,38 @@ def run_cli(*args: str, cwd: Path) -> subprocess.CompletedProcess:
         text=True,
         timeout=300,
     )
+
+
+TRUE_TE = 23.4e3
+"""Elastic thickness (m) of the plate :func:`write_seamount_inputs` flexes."""
+
+BASE = """
+[plate]
+elastic_thickness = "10 km"      # not used by fit (te is searched)
+
+[[loads]]
+file = "load.nc"
+variable = "height"
+density = 2800
+displaced_density = 1030
+"""
+"""The scenario head of the fit and sweep tests: the seamount load of
+:func:`write_seamount_inputs` on a 10 km plate; a test appends its tables."""
+
+
+def write_seamount_inputs(folder: Path) -> xr.DataArray:
+    """Invented seamount height (m) and its noisy flexed sea floor, as NetCDF files
+    ``load.nc`` and ``observed.nc`` (plate te = TRUE_TE); returns the load (Pa)."""
+    from gridflex import Plate, solve
+
+    grid = make_grid(64, 64, 6e3)
+    r2 = (grid.y**2 + grid.x**2).values
+    height = grid.copy(data=3000.0 * np.exp(-r2 / (2 * 15e3**2)))
+    xr.Dataset({"height": height.assign_attrs(units="m")}).to_netcdf(folder / "load.nc")
+    load = height * (1770.0 * 9.81)
+    w = solve(load, Plate(te=TRUE_TE))["deflection"]
+    rng = np.random.default_rng(3)
+    floor = -4000.0 - w + 0.05 * float(w.max()) * rng.standard_normal(w.shape)
+    floor = floor.where(r2 > (40e3) ** 2)  # the edifice itself is not a flexed surface
+    xr.Dataset({"depth": floor.assign_attrs(units="m")}).to_netcdf(folder / "observed.nc")
+    return load

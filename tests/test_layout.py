@@ -127,3 +127,28 @@ RESULTS_MAY_USE = {"errors", "constants", "validation", "memory", "units", "grid
 def test_results_work_in_memory(module):
     outside = {m for m in IMPORTS[module] if _area(m) not in RESULTS_MAY_USE | {"results"}}
     assert not outside, f"{module} imports {sorted(outside)}"
+
+
+TESTS = REPO_ROOT / "tests"
+NOT_MIRRORED = {TESTS / "test_docs.py", TESTS / "test_layout.py"}  # about the repository
+
+
+def _tested_module(test_file: Path) -> Path | None:
+    """``tests/<sub>/test_<name>.py`` tests ``gridflex/<sub>/<module>.py`` where ``<name>`` is
+    ``<module>`` or ``<module>_<aspect>``; a top-level test file, a top-level module."""
+    name = test_file.stem.removeprefix("test_")
+    folder = PACKAGE / test_file.parent.relative_to(TESTS)
+    modules = [m for m in sorted(folder.glob("*.py")) if m.stem != "__init__"]
+    named = [m for m in modules if name == m.stem or name.startswith(m.stem + "_")]
+    return named[0] if named else None
+
+
+def test_every_test_file_names_the_module_it_tests():
+    files = [
+        path
+        for path in sorted(TESTS.rglob("test_*.py"))
+        if "benchmarks" not in path.relative_to(TESTS).parts and path not in NOT_MIRRORED
+    ]
+    assert files
+    unnamed = [str(path.relative_to(REPO_ROOT)) for path in files if _tested_module(path) is None]
+    assert not unnamed, f"test files naming no gridflex module: {unnamed}"

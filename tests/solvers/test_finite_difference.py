@@ -32,6 +32,7 @@ from gridflex.solvers.rigidity_features import sharp_band
 from tests.helpers import random_broken_operator
 
 NU = 0.25
+STIFFNESS = 2270 * 9.81
 RHO_G = 1000.0 * 9.81  # (rho_m - rho_infill) g for drho = 1000 kg m^-3
 D20 = float(rigidity_from_te(20e3, 70e9, NU))  # Te = 20 km, E = 70 GPa: 4.978e22 N m
 ALPHA20 = (4.0 * D20 / RHO_G) ** 0.25  # 67.1 km (PHYSICS.md table 1.2)
@@ -397,3 +398,23 @@ def test_pad_rigidity_continues_edges_and_wraps_smoothly():
     assert_allclose(padded[:6, -6:], 1e21, rtol=1e-12)  # last quarter, before the wrap
     steps = np.abs(np.diff(np.log(padded), axis=1, append=np.log(padded[:, :1])))
     assert steps[:, 7:].max() < np.log(1e3) / 10
+
+
+def test_unreachable_tolerance_stops_early_with_the_round_off_limit():
+    # common practice: a tolerance below the round-off floor of a stiff plate on fine cells
+    # is reported as such after a couple of restarts, not after max_iterations
+    n, h = 96, 1000.0
+    x = np.arange(n) * h
+    te = 30e3 + 25e3 * np.sin(2 * np.pi * x / (n * h))[None, :] * np.ones((n, 1))
+    load = np.zeros((n, n))
+    load[40:56, 40:56] = 2800 * 9.81 * 1000.0
+    with pytest.raises(ConvergenceError, match="stalled.*round-off alone limits"):
+        finite_difference_deflection(
+            load,
+            GridSpec(n, n, h, h),
+            rigidity_from_te(te, 1e11, NU),
+            STIFFNESS,
+            NU,
+            edges="periodic",
+            tolerance=1e-12,
+        )
