@@ -63,6 +63,16 @@ def test_example_script_runs(tmp_path):
     assert (tmp_path / "island_chain_api.nc").exists()
 
 
+def test_estimate_te_example_runs(tmp_path):
+    script = REPO / "examples" / "estimate_te.py"
+    done = subprocess.run(
+        [sys.executable, str(script), str(tmp_path)], capture_output=True, text=True, timeout=300
+    )
+    assert done.returncode == 0, done.stderr
+    assert "(truth 18)" in done.stdout and "(truth 25)" in done.stdout
+    assert (tmp_path / "misfit.png").exists() and (tmp_path / "admittance.png").exists()
+
+
 def _resolve(dotted: str) -> object:
     """The object a dotted ``gridflex.…`` name refers to (module prefix, then attributes)."""
     parts = dotted.split(".")

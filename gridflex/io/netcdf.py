@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Iterable
 from pathlib import Path
 from typing import Any
@@ -14,7 +15,12 @@ from gridflex.errors import InputError
 from gridflex.io.atomic import atomic_path
 from gridflex.io.gridmapping import cf_grid_mapping
 
-__all__ = ["read_result", "write_netcdf"]
+__all__ = ["NETCDF_LOCK", "read_result", "write_netcdf"]
+
+NETCDF_LOCK = threading.RLock()
+"""Held by every NetCDF read and write of gridflex: the netCDF-C and HDF5 libraries are
+not safe to call from several threads at once (dask's threaded scheduler runs tasks in
+threads), and a concurrent open/close has crashed the interpreter."""
 
 
 def read_result(path: str | Path) -> xr.Dataset:
@@ -32,7 +38,7 @@ def read_result(path: str | Path) -> xr.Dataset:
     if not path.is_file():
         raise InputError(f"{path}: file not found")
     try:
-        with xr.open_dataset(path, engine="netcdf4") as ds:
+        with NETCDF_LOCK, xr.open_dataset(path, engine="netcdf4") as ds:
             ds = ds.load()
     except (OSError, ValueError, RuntimeError) as exc:
         raise InputError(f"{path}: cannot read as NetCDF ({exc})") from exc
@@ -137,6 +143,6 @@ def write_netcdf(
         for name, var in out.data_vars.items()
         if np.issubdtype(var.dtype, np.number) and var.ndim >= 1
     }
-    with atomic_path(path, overwrite, inputs) as tmp:
+    with NETCDF_LOCK, atomic_path(path, overwrite, inputs) as tmp:
         out.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
     return Path(path)

@@ -29,6 +29,7 @@ from rasterio.errors import RasterioError
 from gridflex.errors import InputError
 from gridflex.gis.geometry import GridGeometry, even_step, parse_crs
 from gridflex.io.atomic import atomic_path
+from gridflex.io.netcdf import NETCDF_LOCK
 from gridflex.memory import check_memory
 from gridflex.units import unit_factor
 
@@ -249,7 +250,7 @@ def _netcdf_variable(ds: xr.Dataset, path: Path, variable: str | None) -> str:
 
 def _read_netcdf(path: Path, variable: str | None) -> xr.DataArray:
     try:
-        with xr.open_dataset(path, engine="netcdf4", decode_times=False) as ds:
+        with NETCDF_LOCK, xr.open_dataset(path, engine="netcdf4", decode_times=False) as ds:
             name = _netcdf_variable(ds, path, variable)
             da = ds[name]
             where = f"{path}: variable {name!r}"

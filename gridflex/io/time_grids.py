@@ -17,6 +17,7 @@ import xarray as xr
 from gridflex.constants import DAYS_PER_YEAR
 from gridflex.errors import InputError
 from gridflex.gis.geometry import GridGeometry
+from gridflex.io.netcdf import NETCDF_LOCK
 from gridflex.units import DIMENSIONS, unit_factor
 
 __all__ = [
@@ -121,11 +122,12 @@ def _read_timed(
     The variable must have *ndim* dims, time first; *expected* says so in messages.
     """
     where = f"{path}: variable {variable!r}"
-    da, ds = _open(path, variable)
-    with ds:
-        if da.ndim != ndim:
-            raise InputError(f"{where}: expected {expected}, got dims {da.dims!r}")
-        times = _time_years(da, ds, reference, where)
+    with NETCDF_LOCK:
+        da, ds = _open(path, variable)
+        with ds:
+            if da.ndim != ndim:
+                raise InputError(f"{where}: expected {expected}, got dims {da.dims!r}")
+            times = _time_years(da, ds, reference, where)
     return da, times, where
 
 

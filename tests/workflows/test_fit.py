@@ -3,15 +3,13 @@
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 
 import numpy as np
 import xarray as xr
 from numpy.testing import assert_allclose
 
 from gridflex.cli.main import main
-from tests.helpers import BASE, REPO_ROOT, TRUE_TE, run_cli, write_seamount_inputs
+from tests.helpers import BASE, TRUE_TE, run_cli, write_seamount_inputs
 
 
 def test_fit_writes_plot_summary_and_model(tmp_path):
@@ -72,16 +70,6 @@ quantity = "free_air_anomaly"
     )
     assert main(["fit", str(tmp_path / "s.toml")]) == 2
     assert "seafloor_depth: required" in capsys.readouterr().err
-
-
-def test_estimate_te_example_runs(tmp_path):
-    script = REPO_ROOT / "examples" / "estimate_te.py"
-    done = subprocess.run(
-        [sys.executable, str(script), str(tmp_path)], capture_output=True, text=True, timeout=300
-    )
-    assert done.returncode == 0, done.stderr
-    assert "(truth 18)" in done.stdout and "(truth 25)" in done.stdout
-    assert (tmp_path / "misfit.png").exists() and (tmp_path / "admittance.png").exists()
 
 
 def test_fit_reads_observation_units_and_a_mask_with_gaps(tmp_path):
