@@ -32,9 +32,12 @@ from gridflex.gis.geometry import (
     reproject_values,
     working_geometry,
 )
+from gridflex.gis.resampling import aggregate_values, sample_values
+from gridflex.grid import GridSpec
 from gridflex.loads import load_from_elevation, regional_surface
 from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import Scenario, present
+from gridflex.solvers.spectral import SpectralProblem
 from gridflex.synthetic import (
     Points,
     disc_height,
@@ -52,6 +55,7 @@ __all__ = [
     "build_working_load",
     "elevation_stress",
     "synthetic_grid",
+    "input_grid_load",
     "to_input_grid",
     "working_load",
 ]
@@ -73,12 +77,17 @@ class WorkingGrid:
         True when the working grid differs from the input grid.
     resampling : str
         Method used to resample the layers.
+    input_layers : tuple of xarray.DataArray
+        The layers as read, on the input grid (empty unless the working grid was
+        resampled and every layer shares the input grid): what the load is on the
+        input grid, for :func:`to_input_grid`.
     """
 
     input: GridGeometry
     working: GridGeometry
     resampled: bool
     resampling: str
+    input_layers: tuple[xr.DataArray, ...] = ()
 
     def describe(self) -> dict[str, Any]:
         """Attributes recording the working grid (for output metadata)."""
@@ -186,6 +195,20 @@ def elevation_stress(scenario: Scenario, index: int, elevation: xr.DataArray) ->
         )
 
 
+def _onto_working(
+    values: np.ndarray, src: GridGeometry, dst: GridGeometry, method: str, kind: str
+) -> np.ndarray:
+    """A layer moved onto the working grid.
+
+    ``"average"`` aggregates by area (:func:`gridflex.gis.resampling.aggregate_values`):
+    a thickness or stress keeps its integral (the total force), an elevation the mean
+    of what covers each cell. The other methods interpolate (GDAL).
+    """
+    if method == "average":
+        return aggregate_values(values, src, dst, "mean" if kind == "elevation" else "sum")
+    return reproject_values(values, src, dst, method)
+
+
 def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], WorkingGrid]:
     """Every ``[[loads]]`` layer on the working grid, in its own quantity (SI).
 
@@ -228,12 +251,13 @@ def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], Workin
     for layer, stress, geometry in zip(layers, stresses, geometries, strict=True):
         values = stress.values
         if resampled:
-            values = reproject_values(values, geometry, target, options["resampling"])
+            values = _onto_working(values, geometry, target, options["resampling"], layer["kind"])
             # outside a layer: no load, or the elevation model's typical level
             outside = float(np.nanmedian(values)) if layer["kind"] == "elevation" else 0.0
             values = np.nan_to_num(values, nan=outside)
         out.append(_as_dataarray(values, target, str(layer["name"] or "layer")))
-    grid = WorkingGrid(first, target, resampled, options["resampling"])
+    kept = tuple(stresses) if resampled and same else ()
+    grid = WorkingGrid(first, target, resampled, options["resampling"], kept)
     if resampled:
         log.info("layers resampled onto a %s working grid (%s)", target.shape, _crs_label(crs))
     return out, grid
@@ -256,12 +280,16 @@ class WorkingLoad:
         Gravitational acceleration (m s⁻²).
     working : GridGeometry
         The working grid.
+    regional : tuple of numpy.ndarray or None
+        Per layer, the regional surface (m) of an elevation layer on the working grid;
+        None for the other kinds.
     """
 
     fixed: np.ndarray
     thickness: tuple[tuple[np.ndarray, float, float], ...]
     gravity: float
     working: GridGeometry
+    regional: tuple[np.ndarray | None, ...] = ()
 
     def __call__(self, load_density: float | None = None) -> xr.DataArray:
         """Total vertical stress (Pa, positive down) on the working grid.
@@ -296,14 +324,20 @@ def working_load(scenario: Scenario) -> tuple[WorkingLoad, WorkingGrid]:
     values, grid = build_working_layers(scenario)
     fixed = np.zeros(grid.working.shape)
     thickness = []
+    regional: list[np.ndarray | None] = []
     for index, (layer, da) in enumerate(zip(array_table(scenario, "loads"), values, strict=True)):
+        surface = None
         if layer["kind"] == "thickness":
             thickness.append((da.values, layer["density"], layer["displaced_density"]))
         elif layer["kind"] == "elevation":
-            fixed += elevation_stress(scenario, index, da)["load"].values
+            column = elevation_stress(scenario, index, da)
+            fixed += column["load"].values
+            surface = column["reference_surface"].values
         else:
             fixed += da.values
-    return WorkingLoad(fixed, tuple(thickness), gravity, grid.working), grid
+        regional.append(surface)
+    parts = WorkingLoad(fixed, tuple(thickness), gravity, grid.working, tuple(regional))
+    return parts, grid
 
 
 def build_working_load(scenario: Scenario) -> tuple[xr.DataArray, WorkingGrid]:
@@ -327,12 +361,145 @@ def build_working_load(scenario: Scenario) -> tuple[xr.DataArray, WorkingGrid]:
     return parts(), grid
 
 
-def to_input_grid(result: xr.Dataset, grid: WorkingGrid) -> xr.Dataset:
-    """Resample every ``(y, x)`` variable of *result* back onto the input grid.
+def input_grid_load(scenario: Scenario, grid: WorkingGrid, parts: WorkingLoad) -> np.ndarray | None:
+    """The load (Pa) of the ``[[loads]]`` layers on the input grid, cell by cell.
 
-    Returns *result* unchanged when no resampling was needed. Variables are
-    resampled bilinearly; the input grid's coordinates (degrees for a geographic
-    input) replace the working ones.
+    Thickness and stress layers as read; an elevation layer through
+    :func:`load_from_elevation` with its regional surface from the working grid (a
+    smooth surface: sampled back). Missing cells carry no load. ``None`` when the
+    layers were not kept (no resampling, or layers on different grids).
+    """
+    if not grid.input_layers:
+        return None
+    gravity = scenario.table("plate")["gravity"]
+    infill: Mapping[str, Any] = scenario.table("infill") or {}
+    total = np.zeros(grid.input.shape)
+    specs = array_table(scenario, "loads")
+    for index, (layer, da) in enumerate(zip(specs, grid.input_layers, strict=True)):
+        values = np.asarray(da.values, dtype=np.float64)
+        if layer["kind"] == "thickness":
+            part = values * ((layer["density"] - layer["displaced_density"]) * gravity)
+        elif layer["kind"] == "stress":
+            part = values
+        else:
+            regional: Any = layer["regional_elevation"]
+            if regional is None:
+                surface = parts.regional[index]
+                if surface is None:
+                    return None
+                regional = sample_values(surface, grid.working, grid.input)
+            with error_context(scenario.where("loads", index=index)):
+                part = load_from_elevation(
+                    da.copy(data=values),
+                    layer["density"],
+                    da.copy(data=np.broadcast_to(regional, values.shape).copy()),
+                    sea_level=infill.get("sea_level", 0.0),
+                    water_density=infill.get("water_density", SEA_WATER_DENSITY),
+                    gravity=gravity,
+                )["load"].values
+        total += np.nan_to_num(part)
+    return total
+
+
+def _restoring_stiffness(attrs: Mapping[str, Any]) -> float | None:
+    """(rho_m - rho_infill) g (Pa/m) from a result's plate attributes (None when the
+    infill density is not one number)."""
+    try:
+        contrast = float(attrs["plate_mantle_density"]) - float(attrs["plate_infill_density"])
+        return contrast * float(attrs["plate_gravity"])
+    except (KeyError, TypeError, ValueError):
+        return None
+
+
+_NEGLIGIBLE_SHARE = 1e-4
+"""Below this share of the local response at the working grid's finest wavelength, the
+unresolved load's response is taken as zero (no solve on the input grid)."""
+_RIGIDITY_LEVELS = 8
+
+
+def _share_at(rigidity: float, stiffness: float, spacing: float) -> float:
+    """K / (K + D k⁴) at the Nyquist wavenumber k = π / spacing (PHYSICS.md 1.1)."""
+    return stiffness / (stiffness + rigidity * (np.pi / spacing) ** 4)
+
+
+def _rigidity_levels(rigidity: np.ndarray) -> np.ndarray:
+    """Constant rigidities (N m) spanning a rigidity grid: 0 if present, then log-spaced."""
+    positive = rigidity[rigidity > 0]
+    if positive.size == 0:
+        return np.zeros(1)
+    low, high = float(positive.min()), float(positive.max())
+    levels = np.geomspace(low, high, _RIGIDITY_LEVELS) if high > low else np.array([high])
+    return np.concatenate([[0.0], levels]) if (rigidity <= 0).any() else levels
+
+
+def _unresolved_response(
+    unresolved: np.ndarray,
+    grid: WorkingGrid,
+    rigidity: float | np.ndarray,
+    stiffness: float,
+) -> np.ndarray:
+    """Deflection (m) of the input grid under the load the working grid could not carry.
+
+    The residual holds only wavelengths shorter than about two working cells, whose
+    response is local: it is solved on the input grid, taken as metric with its cell
+    size at the domain centre, by the spectral solver (infinite edges) for a constant
+    rigidity, or for a few constant levels between which each cell interpolates in log
+    rigidity. In-plane forces are left out of this small term.
+    """
+    spacing = max(grid.working.cell_size_metres())
+    dy, dx = grid.input.cell_size_metres()
+    spec = GridSpec(grid.input.shape[0], grid.input.shape[1], dy, dx)
+    per_cell = np.asarray(rigidity, dtype=np.float64)
+    levels = _rigidity_levels(per_cell.ravel()) if per_cell.ndim else per_cell.reshape(1)
+    responses = []
+    for level in levels:
+        if _share_at(float(level), stiffness, spacing) < _NEGLIGIBLE_SHARE:
+            responses.append(np.zeros(spec.shape))
+            continue
+        problem = SpectralProblem.build(spec, float(level), stiffness)
+        responses.append(problem.deflection(unresolved)[0])
+    if len(responses) == 1:
+        return responses[0]
+    floor = float(levels[levels > 0].min()) / 10.0
+    scale = np.log10(levels + floor)
+    position = np.interp(np.log10(per_cell + floor), scale, np.arange(scale.size))
+    lower = np.clip(np.floor(position).astype(np.int64), 0, scale.size - 2)
+    weight = position - lower
+    stack = np.stack(responses)
+    rows, cols = np.indices(spec.shape)
+    return (1 - weight) * stack[lower, rows, cols] + weight * stack[lower + 1, rows, cols]
+
+
+def to_input_grid(
+    result: xr.Dataset,
+    grid: WorkingGrid,
+    input_load: np.ndarray | None = None,
+    rigidity: float | np.ndarray | None = None,
+) -> xr.Dataset:
+    """Every ``(y, x)`` variable of *result* on the input grid.
+
+    Returns *result* unchanged when no resampling was needed. Each value is read at
+    the input cell's centre (bilinear between working cells,
+    :func:`gridflex.gis.resampling.sample_values`), so nothing is widened. When the
+    load on the input grid is known (*input_load*, Pa) it is written as the load,
+    and the plate's response to the part of it the working grid could not carry,
+    r = q_in - q_sampled (wavelengths below about two working cells), is added to
+    the deflection (solved on the input grid, :func:`_unresolved_response`). With
+    te = 0 this gives w = q / ((ρm - ρinfill) g) cell by cell (local isostasy) at any
+    working spacing; on a plate stiff at the working cell's scale the added part is
+    ~0 and w is the sampled one.
+
+    Parameters
+    ----------
+    result : xarray.Dataset
+        On the working grid.
+    grid : WorkingGrid
+        Its geometries.
+    input_load : numpy.ndarray, optional
+        The load (Pa) on the input grid (:func:`input_grid_load`).
+    rigidity : float or numpy.ndarray, optional
+        Flexural rigidity (N m), constant or on the working grid; default the
+        result's ``plate_rigidity`` attribute. Without it no share is added.
     """
     if not grid.resampled:
         return result
@@ -340,10 +507,11 @@ def to_input_grid(result: xr.Dataset, grid: WorkingGrid) -> xr.Dataset:
     out = xr.Dataset(coords={"y": y, "x": x}, attrs=dict(result.attrs))
     for name, var in result.data_vars.items():
         if var.dims == ("y", "x"):
-            values = reproject_values(var.values, grid.working, grid.input, "bilinear")
+            values = sample_values(var.values, grid.working, grid.input)
             out[name] = xr.DataArray(values, dims=("y", "x"), attrs=dict(var.attrs))
         else:
             out[name] = var
+    _add_unresolved_load(out, result, grid, input_load, rigidity)
     if grid.input.is_geographic:
         out["x"].attrs = {"units": "degrees_east"}
         out["y"].attrs = {"units": "degrees_north"}
@@ -351,3 +519,36 @@ def to_input_grid(result: xr.Dataset, grid: WorkingGrid) -> xr.Dataset:
         out["x"].attrs = {"units": "m"}
         out["y"].attrs = {"units": "m"}
     return out
+
+
+def _add_unresolved_load(
+    out: xr.Dataset,
+    result: xr.Dataset,
+    grid: WorkingGrid,
+    input_load: np.ndarray | None,
+    rigidity: float | np.ndarray | None,
+) -> None:
+    """The input-grid load and its unresolved part's response, in *out* (see
+    :func:`to_input_grid`); nothing for results with a fill (infill runs)."""
+    stiffness = _restoring_stiffness(result.attrs)
+    if rigidity is None and "plate_rigidity" in result.attrs:
+        rigidity = float(result.attrs["plate_rigidity"])
+    if (
+        input_load is None
+        or rigidity is None
+        or stiffness is None
+        or stiffness <= 0
+        or "moat_fill" in result
+        or not {"load", "deflection"} <= set(result.data_vars)
+    ):
+        return
+    if np.ndim(rigidity):
+        rigidity = sample_values(np.asarray(rigidity), grid.working, grid.input)
+    unresolved = np.nan_to_num(input_load - out["load"].values)
+    response = _unresolved_response(unresolved, grid, rigidity, stiffness)
+    out["deflection"] = out["deflection"].copy(data=out["deflection"].values + response)
+    out["load"] = out["load"].copy(data=input_load)
+    if "vertical_displacement" in out:
+        out["vertical_displacement"] = out["vertical_displacement"].copy(
+            data=-out["deflection"].values
+        )

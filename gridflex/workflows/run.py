@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Mapping
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, cast
 
@@ -29,8 +30,9 @@ from gridflex.workflows.grid_input import read_grid_input
 from gridflex.workflows.layers import (
     WorkingGrid,
     build_working_layers,
-    build_working_load,
+    input_grid_load,
     to_input_grid,
+    working_load,
 )
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan, stamp_result, with_vertical_displacement
@@ -147,13 +149,29 @@ def plate_from_scenario(
 
 
 def output_dataset(
-    result: xr.Dataset, scenario: Scenario, grid: WorkingGrid, command: str = "run"
+    result: xr.Dataset,
+    scenario: Scenario,
+    grid: WorkingGrid,
+    command: str = "run",
+    back: BackToInput | None = None,
 ) -> xr.Dataset:
     """The result with GIS-friendly extras and the provenance of ``gridflex COMMAND``,
-    on the input grid."""
+    on the input grid (*back*: the load there and the plate's rigidity, see
+    :func:`to_input_grid`)."""
     out = stamp_result(with_vertical_displacement(result, "plate"), scenario, command)
     out.attrs.update(grid.describe())
-    return to_input_grid(out, grid)
+    if back is None:
+        return to_input_grid(out, grid)
+    return to_input_grid(out, grid, back.input_load, back.rigidity)
+
+
+@dataclass(frozen=True)
+class BackToInput:
+    """What :func:`to_input_grid` needs beyond the result: the load on the input grid
+    (Pa) and the plate's flexural rigidity (N m, constant or on the working grid)."""
+
+    input_load: np.ndarray | None
+    rigidity: float | np.ndarray
 
 
 def _geotiff_paths(netcdf: Path, result: xr.Dataset) -> dict[str, Path]:
@@ -193,20 +211,23 @@ def _planned_outputs(scenario: Scenario) -> dict[str, Path | None]:
 
 def _solve_working(
     scenario: Scenario, progress: Progress | None = None
-) -> tuple[xr.Dataset, WorkingGrid]:
+) -> tuple[xr.Dataset, WorkingGrid, BackToInput]:
     """The solve on the working grid: plain, or with ``[infill]`` and ``[gravity]``.
 
     Te grids (files, margins, breaks) are put on the working grid of the load.
     """
     solver = scenario.table("solver")
+    input_load = None
     if scenario.table("infill") is not None:
         layers, grid = build_working_layers(scenario)
         column = load_column(scenario, layers)
         plate = plate_from_scenario(scenario, column["load"], grid)
         working = infill_step(scenario, plate, column, progress)
     else:
-        load, grid = build_working_load(scenario)
+        parts, grid = working_load(scenario)
+        load = parts()
         plate = plate_from_scenario(scenario, load, grid)
+        input_load = input_grid_load(scenario, grid, parts)
         log.info("solving %s load grid", load.shape)
         working = solve(
             load,
@@ -222,7 +243,9 @@ def _solve_working(
         )
     if scenario.table("gravity") is not None:
         working = gravity_step(scenario, working)
-    return working, grid
+    rigidity = plate.rigidity
+    stiff = np.asarray(rigidity.values) if isinstance(rigidity, xr.DataArray) else float(rigidity)
+    return working, grid, BackToInput(input_load, stiff)
 
 
 def run_scenario(
@@ -244,8 +267,8 @@ def run_scenario(
     outputs = scenario.table("output")
     plan = OutputPlan(scenario, overwrite)
     plan.add(_planned_outputs(scenario))
-    working, grid = _solve_working(scenario, progress)
-    result = output_dataset(working, scenario, grid)
+    working, grid, back = _solve_working(scenario, progress)
+    result = output_dataset(working, scenario, grid, back=back)
     summary = deflection_summary(working)
     outcome = RunOutcome(result=result, summary=summary, text=format_summary(summary))
     tiffs = _geotiff_paths(outputs["file"], result) if outputs["geotiff"] else {}
