@@ -6,10 +6,13 @@ Each value is written once here; modules import it instead of repeating the lite
 from __future__ import annotations
 
 __all__ = [
+    "BED_ELEVATION_RANGE",
     "DAYS_PER_YEAR",
     "DEFAULT_GRAVITY",
     "GRAVITATIONAL_CONSTANT",
+    "MAX_ICE_THICKNESS",
     "MGAL",
+    "PRESENT_DATE",
     "SEA_WATER_DENSITY",
     "SECONDS_PER_YEAR",
 ]
@@ -32,3 +35,17 @@ DAYS_PER_YEAR = 365.25
 
 SECONDS_PER_YEAR = DAYS_PER_YEAR * 86400.0
 """One Julian year (365.25 days) in seconds."""
+
+PRESENT_DATE = "1950-01-01"
+"""The "present" of ages before present (BP): 1 January 1950 (common practice of
+radiocarbon and palaeoclimate time scales)."""
+
+MAX_ICE_THICKNESS = 5000.0
+"""Thickest ice (m) an ice-thickness input may hold: the thickest ice on Earth today is
+about 4.9 km (East Antarctica; common practice, from memory); more is a unit or
+fill-value error."""
+
+BED_ELEVATION_RANGE = (-12000.0, 10000.0)
+"""Lowest and highest bed elevation (m, up) an input may hold: the deepest trench is about
+11 km below sea level and the highest summit about 8.8 km above it (common practice);
+anything outside is a unit or fill-value error."""

@@ -28,7 +28,14 @@ import numpy as np
 
 from gridflex.errors import InputError
 
-__all__ = ["check_choice", "check_density", "check_flag", "check_integer", "check_number"]
+__all__ = [
+    "check_choice",
+    "check_density",
+    "check_flag",
+    "check_integer",
+    "check_number",
+    "check_values_within",
+]
 
 
 def _is_real(value: Any) -> bool:
@@ -127,3 +134,50 @@ def check_flag(name: str, value: Any) -> bool:
     if not isinstance(value, (bool, np.bool_)):
         raise InputError(f"{name} must be true or false, got {value!r}")
     return bool(value)
+
+
+def check_values_within(
+    name: str, values: Any, minimum: float, maximum: float, *, unit: str = ""
+) -> None:
+    """Refuse an array with values outside ``[minimum, maximum]`` (NaN cells are ignored).
+
+    For grids whose role bounds them physically (ice thickness, bed elevation): a value
+    outside is a wrong unit or an undeclared fill value, never data.
+
+    Parameters
+    ----------
+    name : str
+        What the values are (file, variable, key), for the message.
+    values : array_like
+        The values, already in *unit*.
+    minimum, maximum : float
+        Inclusive bounds.
+    unit : str, optional
+        Unit of the values and bounds, shown in the message.
+
+    Raises
+    ------
+    InputError
+        Naming *name*, the number of cells outside and the worst value.
+
+    Examples
+    --------
+    >>> check_values_within("ice", [0.0, 7000.0, 9000.0], 0.0, 5000.0, unit="m")
+    Traceback (most recent call last):
+    ...
+    gridflex.errors.InputError: ice: 2 cell(s) outside 0 to 5000 m; the worst is 9000 m
+    """
+    array = np.asarray(values, dtype=np.float64)
+    with np.errstate(invalid="ignore"):
+        below = array < minimum
+        above = array > maximum
+    count = int(below.sum() + above.sum())
+    if count == 0:
+        return
+    excess = np.where(below, minimum - array, 0.0) + np.where(above, array - maximum, 0.0)
+    worst = float(array.flat[int(np.argmax(np.nan_to_num(excess, nan=0.0)))])
+    unit_text = f" {unit}" if unit else ""
+    raise InputError(
+        f"{name}: {count} cell(s) outside {minimum:g} to {maximum:g}{unit_text}; "
+        f"the worst is {worst:g}{unit_text}"
+    )

@@ -6,6 +6,7 @@ from __future__ import annotations
 import subprocess
 import sys
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import xarray as xr
@@ -78,3 +79,52 @@ def write_seamount_inputs(folder: Path) -> xr.DataArray:
     floor = floor.where(r2 > (40e3) ** 2)  # the edifice itself is not a flexed surface
     xr.Dataset({"depth": floor.assign_attrs(units="m")}).to_netcdf(folder / "observed.nc")
     return load
+
+
+def write_time_grid(
+    path: Path,
+    variable: str,
+    times: Any,
+    values: Any = None,
+    *,
+    time_name: str = "time",
+    time_attrs: dict[str, Any] | None = None,
+    attrs: dict[str, Any] | None = None,
+    dtype: str = "f4",
+    fill_value: Any = None,
+    shape: tuple[int, int] = (3, 4),
+    spacing: float = 10e3,
+    crs: Any = None,
+) -> Path:
+    """Write a (time, y, x) NetCDF variable with the netCDF4 library itself, so that the
+    time attributes, dtype and fill values are exactly what a test sets.
+
+    *values* of None leaves the variable unwritten (the netCDF default fill value);
+    y runs south to north (CF order); *crs* (anything rasterio reads) adds a CF grid
+    mapping ``crs`` with ``crs_wkt``; *shape* is ``(ny, nx)``.
+    """
+    import netCDF4
+    from rasterio.crs import CRS
+
+    ny, nx = shape
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.createDimension(time_name, len(times))
+        nc.createDimension("y", ny)
+        nc.createDimension("x", nx)
+        t = nc.createVariable(time_name, "f8", (time_name,))
+        t[:] = np.asarray(times, dtype=np.float64)
+        t.setncatts(time_attrs or {})
+        for name, size in (("y", ny), ("x", nx)):
+            c = nc.createVariable(name, "f8", (name,))
+            c[:] = (np.arange(size) + 0.5) * spacing
+            c.units = "m"
+        v = nc.createVariable(variable, dtype, (time_name, "y", "x"), fill_value=fill_value)
+        v.set_auto_maskandscale(False)
+        v.setncatts(attrs or {"units": "m"})
+        if crs is not None:
+            g = nc.createVariable("crs", "i4")
+            g.crs_wkt = CRS.from_user_input(crs).to_wkt()
+            v.grid_mapping = "crs"
+        if values is not None:
+            v[:] = np.asarray(values)
+    return path

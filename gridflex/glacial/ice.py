@@ -44,7 +44,7 @@ from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.solvers.viscous import DEFAULT_WIDTH_FACTOR
 from gridflex.validation import check_choice, check_density, check_number
 
-__all__ = ["bed_stress", "grounded_mask", "ice_response"]
+__all__ = ["bed_stress", "grounded_mask", "ice_response", "sea_level_at"]
 
 log = logging.getLogger(__name__)
 
@@ -114,17 +114,80 @@ def grounded_mask(
     return (ice_thickness > 0) & (ice_density * ice_thickness >= water_density * (sea_level - bed))
 
 
+SERIES_END_TOLERANCE = 1e-6
+"""Years by which a time may lie beyond the ends of a sea-level series (round-off of
+times converted from days)."""
+
+
+def sea_level_at(series: xr.DataArray, times: ArrayLike, where: str = "sea_level") -> np.ndarray:
+    """Sea level (m) of *series* at *times* (years), linear in time between its times.
+
+    The rule of every sea-level series: linear interpolation between the series' own
+    times; a time before its first or after its last time is refused, never extrapolated
+    or held constant (an invented sea level would be a silently wrong number).
+
+    Parameters
+    ----------
+    series : xarray.DataArray
+        Sea level (m) on dim ``"time"`` with a ``time`` coordinate in years,
+        strictly increasing.
+    times : array_like
+        Times (years) wanted.
+    where : str, default "sea_level"
+        What the series is (file and variable), for messages.
+
+    Returns
+    -------
+    numpy.ndarray
+        float64, one sea level per time.
+
+    Raises
+    ------
+    InputError
+        Not a series along time, times not increasing, NaN values, or *times* beyond
+        the series' span.
+
+    Examples
+    --------
+    >>> s = xr.DataArray([-120.0, 0.0], dims="time", coords={"time": [-20000.0, 0.0]})
+    >>> sea_level_at(s, [-20000.0, -5000.0, 0.0])
+    array([-120.,  -30.,    0.])
+    """
+    if (
+        not isinstance(series, xr.DataArray)
+        or series.dims != ("time",)
+        or "time" not in (series.coords)
+    ):
+        raise InputError(f"{where}: a sea-level series must be 1-D along 'time' with its times")
+    at = np.asarray(times, dtype=np.float64)
+    given = np.asarray(series["time"].values, dtype=np.float64)
+    values = np.asarray(series.values, dtype=np.float64)
+    if not np.all(np.isfinite(given)) or np.any(np.diff(given) <= 0):
+        raise InputError(f"{where}: the times of the sea-level series must increase")
+    missing = int((~np.isfinite(values)).sum())
+    if missing:
+        raise InputError(f"{where}: {missing} missing (NaN or fill) value(s) in the series")
+    outside = (at < given[0] - SERIES_END_TOLERANCE) | (at > given[-1] + SERIES_END_TOLERANCE)
+    if np.any(outside):
+        raise InputError(
+            f"{where}: the series covers {given[0]:g} to {given[-1]:g} years but sea level "
+            f"is needed from {at.min():g} to {at.max():g} years ({int(outside.sum())} "
+            "time(s) outside); extend the series, it is not extrapolated"
+        )
+    if given.size == 1:
+        return np.full(at.shape, values[0])
+    return np.interp(at, given, values)
+
+
 def _sea_level_series(sea_level: Any, times: np.ndarray) -> np.ndarray:
+    if isinstance(sea_level, xr.DataArray) and sea_level.ndim == 1 and "time" in sea_level.coords:
+        return sea_level_at(sea_level, times)
     if isinstance(sea_level, xr.DataArray) and sea_level.ndim == 1:
         if sea_level.dims != ("time",) or sea_level.size != times.size:
             raise InputError(
                 f"sea_level as a series must have dim 'time' with {times.size} values "
                 f"like ice_thickness, got dims {sea_level.dims!r} and {sea_level.size} values"
             )
-        if "time" in sea_level.coords and not np.allclose(
-            np.asarray(sea_level["time"].values, dtype=np.float64), times, rtol=0, atol=1e-6
-        ):
-            raise InputError("sea_level: its time coordinate differs from ice_thickness's")
         values = np.asarray(sea_level.values, dtype=np.float64)
     else:
         values = np.asarray(sea_level, dtype=np.float64)
@@ -185,7 +248,9 @@ def ice_response(
         Constant te and ``infill_density=0``: the ocean water over depressed bedrock is
         added here explicitly.
     sea_level : float or xarray.DataArray, default 0
-        Sea-level elevation (m): one number, or a series along ``time``.
+        Sea-level elevation (m): one number, one value per time, or a series with its
+        own ``time`` coordinate, interpolated linearly onto the ice times
+        (:func:`sea_level_at`: never extrapolated beyond its span).
     model, mantle_viscosity, relaxation_time
         As :func:`gridflex.viscous_response`.
     reference_ice_thickness : float or xarray.DataArray, default 0

@@ -1,42 +1,169 @@
-"""Grids through time in NetCDF: reading ice histories, a CF time axis for outputs.
+"""Grids through time in NetCDF: reading ice histories and series, a CF time axis for outputs.
 
-Inside gridflex a time is a number of Julian years (365.25 days) after a reference
-date, negative before it (1950-01-01 by default, the "present" of years before
-present). Written files carry a CF time axis, ``days since <reference>`` in the
-proleptic Gregorian calendar (days = years x 365.25), and the same times in years
-as the auxiliary coordinate ``time_years``.
+Inside gridflex a time is a number of years after a reference date (``time_reference``,
+1 January 1950 by default), negative before it. The year is the Julian year of
+:data:`gridflex.constants.DAYS_PER_YEAR` (365.25 days).
+
+**Reading a time axis.** The rule for the CF calendars (CF conventions 1.8 section 4.4.1):
+a time is the time elapsed since the reference, in years of the file's calendar.
+
+* ``<unit> since <date>`` with ``days``, ``hours``, ``minutes`` or ``seconds``: the days
+  elapsed from the reference date to each time, counted in the file's calendar, divided by
+  the days in a year of that calendar: 365.25 in the calendars of real days (``standard``,
+  ``gregorian``, ``proleptic_gregorian``, ``julian``; the Julian year), 365 in ``noleap`` /
+  ``365_day``, 366 in ``all_leap`` / ``366_day`` and 360 in ``360_day``: one model year is
+  one year. (111 000 model years of a ``noleap`` run are 111 000 years, not the 110 924
+  Julian years their day count would make.)
+* ``<years|year|yr|kyr|ka> since <date>``: a count of years of the calendar, plus the
+  time from the reference to ``<date>`` by the rule above. (udunits makes a "year"
+  365.242198781 days; a file that counts years means years, so that is not used.)
+* a plain unit ``yr``, ``year``, ``years``, ``kyr`` or ``ka`` (no unit: years), numbers
+  after the reference;
+* ``months since``, calendar ``none`` and unknown calendars are refused.
+
+**Ages before present.** Units ``<year unit> BP`` (``"ka BP"``, ``"kyr BP"``,
+``"years BP"``, ``"cal yr BP"``, or ``... before present``), an axis named ``age``, or the
+attribute ``positive = "down"`` make the axis an age before 1950-01-01
+(:data:`gridflex.constants.PRESENT_DATE`): time = -age (moved to the reference date when it
+is not 1950), so the history runs forward, the oldest state first. An age name or
+``positive = "down"`` with ``since`` units, or ``positive = "up"`` with BP units, is a
+contradiction and refused. An axis with a plain unit (or none) that is not named like
+time (``time``, ``standard_name = "time"`` or ``axis = "T"``) or age is refused: its
+direction cannot be told. Times are sorted to increase, the data with them; only a plain
+time axis that runs backwards is refused (it may be ages without their "BP").
+
+**Missing values** (CF conventions 1.8 section 2.5.1; NetCDF Users Guide, attribute
+conventions): ``_FillValue``, ``missing_value``, the netCDF default fill value of the
+variable's type (``netCDF4.default_fillvals``, e.g. 9.96921e36 for float32) when no
+``_FillValue`` is set, and values outside ``valid_min`` / ``valid_max`` / ``valid_range``
+become NaN; ``scale_factor`` and ``add_offset`` are then applied.
+
+**Written files** carry a CF time axis, ``days since <reference>`` in the proleptic
+Gregorian calendar (days = years x 365.25, so reading it back gives the same years), and
+the same times in years as the auxiliary coordinate ``time_years``.
 """
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import xarray as xr
+from rasterio.crs import CRS
 
-from gridflex.constants import DAYS_PER_YEAR
+from gridflex.constants import DAYS_PER_YEAR, PRESENT_DATE
 from gridflex.errors import InputError
 from gridflex.gis.geometry import GridGeometry
 from gridflex.io.netcdf import NETCDF_LOCK
+from gridflex.io.rasters import _grid_mapping_crs
 from gridflex.units import DIMENSIONS, unit_factor
 
 __all__ = [
+    "CALENDAR_YEAR_DAYS",
     "DAYS_PER_YEAR",
     "DEFAULT_TIME_REFERENCE",
+    "calendar_year_days",
     "cf_time_axis",
     "read_history",
     "read_series",
     "years_from_cf",
 ]
 
-DEFAULT_TIME_REFERENCE = "1950-01-01"
+DEFAULT_TIME_REFERENCE = PRESENT_DATE
 CALENDAR = "proleptic_gregorian"
+
+CALENDAR_YEAR_DAYS: dict[str, float] = {
+    "standard": DAYS_PER_YEAR,
+    "gregorian": DAYS_PER_YEAR,
+    "proleptic_gregorian": DAYS_PER_YEAR,
+    "julian": DAYS_PER_YEAR,
+    "noleap": 365.0,
+    "365_day": 365.0,
+    "all_leap": 366.0,
+    "366_day": 366.0,
+    "360_day": 360.0,
+}
+"""Days in one year of each CF calendar (CF conventions 1.8 section 4.4.1): the Julian
+year where a day is a real day, the calendar's own year in the model calendars."""
+
+_DAY_UNITS = {
+    **dict.fromkeys(("days", "day", "d"), 1.0),
+    **dict.fromkeys(("hours", "hour", "hrs", "hr", "h"), 1.0 / 24.0),
+    **dict.fromkeys(("minutes", "minute", "mins", "min"), 1.0 / 1440.0),
+    **dict.fromkeys(("seconds", "second", "secs", "sec", "s"), 1.0 / 86400.0),
+}
+_SINCE = re.compile(r"^\s*(\S+)\s+since\s+(\S.*?)\s*$", re.IGNORECASE)
+_BEFORE_PRESENT = re.compile(
+    r"^\s*(?:cal\.?\s+)?(?P<unit>.*?)\s*(?:BP|B\.P\.|before\s+present)\s*$", re.IGNORECASE
+)
+_AGE_NAME = re.compile(r"^ages?(?:[_ ].*)?$", re.IGNORECASE)
+_PACKING = ("_FillValue", "missing_value", "valid_min", "valid_max", "valid_range")
+
+
+def calendar_year_days(calendar: str | None, where: str) -> float:
+    """Days in one year of the CF *calendar* (``standard`` when None).
+
+    Raises
+    ------
+    InputError
+        Calendar ``none`` or one CF does not define, naming *where*.
+
+    Examples
+    --------
+    >>> calendar_year_days("360_day", "t")
+    360.0
+    >>> calendar_year_days(None, "t")
+    365.25
+    """
+    name = "standard" if calendar is None else str(calendar).strip().lower() or "standard"
+    if name not in CALENDAR_YEAR_DAYS:
+        raise InputError(
+            f"{where}: calendar {calendar!r} is not understood; use one of "
+            f"{', '.join(CALENDAR_YEAR_DAYS)}"
+        )
+    return CALENDAR_YEAR_DAYS[name]
+
+
+def _days_between(reference: str, date: str, calendar: str, where: str) -> float:
+    """Days from *reference* to *date* (negative when *date* is earlier), in *calendar*."""
+    import warnings
+
+    import cftime
+
+    try:
+        with warnings.catch_warnings():  # dates before year 1 are fine for a time span
+            warnings.simplefilter("ignore", cftime.CFWarning)
+            instant = cftime.num2date(0.0, f"days since {date}", calendar=calendar)
+            days = cftime.date2num(instant, f"days since {reference}", calendar=calendar)
+    except (ValueError, TypeError) as exc:
+        raise InputError(
+            f"{where}: cannot place {date!r} against the reference date {reference!r} in "
+            f"the {calendar!r} calendar ({exc})"
+        ) from exc
+    return float(days)
+
+
+def _plain_year_factor(unit: str) -> float | None:
+    """Years per *unit* for ``yr``, ``years``, ``kyr``, ``ka`` ... (None for others)."""
+    return DIMENSIONS["time"].get(unit.strip().lower())
+
+
+def _unit_kind(units: str | None) -> str:
+    """``"since"`` (CF date units), ``"age"`` (before present) or ``"plain"``."""
+    text = "" if units is None else str(units).strip()
+    if _SINCE.match(text):
+        return "since"
+    if text and _BEFORE_PRESENT.match(text):
+        return "age"
+    return "plain"
 
 
 def years_from_cf(
     values: np.ndarray, units: str | None, calendar: str | None, reference: str, where: str
 ) -> np.ndarray:
-    """Times of a file in years after *reference*.
+    """Times of a file in years after *reference* (see the module notes for the rule).
 
     Parameters
     ----------
@@ -44,35 +171,183 @@ def years_from_cf(
         Raw numbers of the time variable.
     units : str or None
         Its ``units``: ``"<unit> since <date>"`` (CF), a plain year unit (``yr``,
-        ``year``, ``years``, ``kyr``, ``ka``) or None (years).
+        ``year``, ``years``, ``kyr``, ``ka``), an age ``"<year unit> BP"`` (returned as
+        time = -age), or None (years).
     calendar : str or None
-        CF calendar (``standard`` if None).
+        CF calendar (``standard`` if None); used only with ``since`` units.
     reference : str
         Date that is year 0, e.g. ``"1950-01-01"``.
     where : str
         File and variable, for messages.
+
+    Returns
+    -------
+    numpy.ndarray
+        Years (float64) after *reference*, in the order given.
+
+    Raises
+    ------
+    InputError
+        Unknown unit or calendar, ``months since``, a date the calendar does not have.
+
+    Examples
+    --------
+    >>> years_from_cf(np.array([-40515000.0]), "days since 1950-01-01", "365_day",
+    ...               "1950-01-01", "t")
+    array([-111000.])
+    >>> years_from_cf(np.array([21.0, 0.0]), "ka BP", None, "1950-01-01", "t")
+    array([-21000.,      0.])
     """
     raw = np.asarray(values, dtype=np.float64)
-    if units is None or not str(units).strip():
+    text = "" if units is None else str(units).strip()
+    if not text:
         return raw
-    units = str(units).strip()
-    if " since " not in units:
-        factors = DIMENSIONS["time"]
-        if units not in factors:
+    since = _SINCE.match(text)
+    if since:
+        unit, date = since.group(1).lower(), since.group(2)
+        year_days = calendar_year_days(calendar, where)
+        name = "standard" if calendar is None else str(calendar).strip().lower() or "standard"
+        offset = _days_between(reference, date, name, where) / year_days
+        per_year = _plain_year_factor(unit)
+        if per_year is not None:
+            return raw * per_year + offset
+        if unit in _DAY_UNITS:
+            return raw * (_DAY_UNITS[unit] / year_days) + offset
+        raise InputError(
+            f"{where}: time unit {unit!r} in {text!r} is not understood; use days, hours, "
+            "minutes, seconds or years since a date (months are not a fixed time)"
+        )
+    age = _BEFORE_PRESENT.match(text)
+    if age:
+        per_year = _plain_year_factor(age.group("unit"))
+        if per_year is None:
             raise InputError(
-                f"{where}: time unit {units!r} is not understood; use years "
-                f"({', '.join(factors)}) or a CF unit like 'days since 1950-01-01'"
+                f"{where}: age unit {text!r} is not understood; use e.g. 'ka BP', "
+                f"'kyr BP' or 'years BP' ({', '.join(DIMENSIONS['time'])} before present)"
             )
-        return raw * factors[units]
-    import cftime
+        return (_present_offset(reference, where) - raw * per_year) + 0.0  # no -0
+    per_year = _plain_year_factor(text)
+    if per_year is None:
+        raise InputError(
+            f"{where}: time unit {text!r} is not understood; use years "
+            f"({', '.join(DIMENSIONS['time'])}), ages like 'ka BP' or a CF unit like "
+            "'days since 1950-01-01'"
+        )
+    return raw * per_year
 
-    calendar = calendar or "standard"
-    try:
-        dates = cftime.num2date(raw, units, calendar=calendar, only_use_cftime_datetimes=True)
-        days = cftime.date2num(dates, f"days since {reference}", calendar=calendar)
-    except (ValueError, TypeError) as exc:
-        raise InputError(f"{where}: cannot convert the time axis {units!r} ({exc})") from exc
-    return np.asarray(days, dtype=np.float64) / DAYS_PER_YEAR
+
+def _present_offset(reference: str, where: str) -> float:
+    """Years from *reference* to the present of ages (1950-01-01), in Julian years."""
+    if reference == PRESENT_DATE:
+        return 0.0
+    return _days_between(reference, PRESENT_DATE, CALENDAR, where) / DAYS_PER_YEAR
+
+
+def _direction(dim: str, attrs: dict[str, Any], kind: str, where: str) -> tuple[str, bool]:
+    """``("time" | "age", sure)`` of a time axis: *sure* when its units or ``positive``
+    say so (then a backward axis is only reordered), not only its name."""
+    positive = str(attrs.get("positive", "")).strip().lower()
+    if positive not in ("", "up", "down"):
+        raise InputError(f"{where}: time axis {dim!r} has positive={positive!r}; use up or down")
+    by_positive = {"up": "time", "down": "age"}.get(positive)
+    by_units = {"since": "time", "age": "age"}.get(kind)
+    age_name = bool(_AGE_NAME.match(dim))
+    if by_positive and by_units and by_positive != by_units:
+        raise InputError(
+            f"{where}: time axis {dim!r} has units {attrs.get('units')!r} but "
+            f"positive={positive!r}; the direction of the history cannot be told"
+        )
+    told = by_units or by_positive
+    if told == "time" and age_name:
+        raise InputError(
+            f"{where}: axis {dim!r} is named as an age but its units or positive attribute "
+            "make it a time; the direction of the history cannot be told"
+        )
+    if told:
+        return told, True
+    if age_name:
+        return "age", False
+    time_name = (
+        dim.lower().startswith("time")
+        or str(attrs.get("standard_name", "")).strip().lower() == "time"
+        or str(attrs.get("axis", "")).strip().upper() == "T"
+    )
+    if time_name:
+        return "time", False
+    raise InputError(
+        f"{where}: cannot tell whether axis {dim!r} (units {attrs.get('units')!r}) is a time "
+        "(increasing forward) or an age before present; name it 'time' or 'age', or give "
+        "units like 'ka BP' or 'days since 1950-01-01', or positive='up'/'down'"
+    )
+
+
+def _time_axis(
+    dim: str, values: np.ndarray, attrs: dict[str, Any], reference: str, where: str
+) -> tuple[np.ndarray, np.ndarray]:
+    """Years after *reference*, increasing, and the order that sorts the file's axis."""
+    units = attrs.get("units")
+    kind = _unit_kind(units)
+    direction, sure = _direction(dim, attrs, kind, where)
+    years = years_from_cf(values, units, attrs.get("calendar"), reference, where)
+    if direction == "age" and kind != "age":  # an age in plain years: time = -age
+        years = _present_offset(reference, where) - years
+    if not np.all(np.isfinite(years)):
+        raise InputError(f"{where}: time axis {dim!r} has NaN or infinite values")
+    order = np.arange(years.size)
+    steps = np.diff(years)
+    if steps.size and not np.all(steps > 0):
+        if not np.all(steps < 0):
+            raise InputError(
+                f"{where}: time axis {dim!r} is not in order (repeated or unsorted times)"
+            )
+        if direction == "time" and not sure:
+            raise InputError(
+                f"{where}: time axis {dim!r} runs backwards ({years[0]:g} to {years[-1]:g} "
+                "years); if these are ages before present, give units like 'ka BP', name "
+                "the axis 'age' or set positive='down'; if they are times, store them "
+                "increasing"
+            )
+        order = order[::-1]
+    return years[order], order
+
+
+def _unpacked(da: xr.DataArray, where: str) -> np.ndarray:
+    """The values of *da* (opened without decoding) as float64, missing values as NaN."""
+    raw = np.asarray(da.values)
+    attrs = da.attrs
+    if str(attrs.get("_Unsigned", "")).lower() == "true":
+        raise InputError(f"{where}: unsigned packed values (_Unsigned) are not supported")
+    if not np.issubdtype(raw.dtype, np.number):
+        raise InputError(f"{where}: values are not numbers ({raw.dtype})")
+    missing = (
+        ~np.isfinite(raw) if np.issubdtype(raw.dtype, np.floating) else np.zeros(raw.shape, bool)
+    )
+    fill = attrs.get("_FillValue")
+    if fill is None:
+        import netCDF4
+
+        fill = netCDF4.default_fillvals.get(raw.dtype.str[1:])
+    marks = [] if fill is None else [fill]
+    marks += list(np.atleast_1d(attrs.get("missing_value", [])))
+    for mark in marks:
+        if np.isfinite(mark):
+            missing |= raw == np.asarray(mark).astype(raw.dtype)
+    low, high = attrs.get("valid_min"), attrs.get("valid_max")
+    if "valid_range" in attrs:
+        low, high = np.atleast_1d(attrs["valid_range"])[:2]
+    with np.errstate(invalid="ignore"):
+        if low is not None:
+            missing |= raw < low
+        if high is not None:
+            missing |= raw > high
+    values = raw.astype(np.float64)
+    values[missing] = np.nan
+    scale, offset = attrs.get("scale_factor"), attrs.get("add_offset")
+    if scale is not None:
+        values = values * float(scale)
+    if offset is not None:
+        values = values + float(offset)
+    return values
 
 
 def _metric_axis(da: xr.DataArray, dim: str, where: str) -> np.ndarray:
@@ -94,7 +369,7 @@ def _open(path: Path, variable: str) -> tuple[xr.DataArray, xr.Dataset]:
     if not path.is_file():
         raise InputError(f"{path}: file not found")
     try:
-        ds = xr.open_dataset(path, engine="netcdf4", decode_times=False)
+        ds = xr.open_dataset(path, engine="netcdf4", decode_times=False, mask_and_scale=False)
     except (OSError, ValueError, RuntimeError) as exc:
         raise InputError(f"{path}: cannot read as NetCDF ({exc})") from exc
     if variable not in ds.variables:
@@ -104,31 +379,30 @@ def _open(path: Path, variable: str) -> tuple[xr.DataArray, xr.Dataset]:
     return ds[variable].load(), ds
 
 
-def _time_years(da: xr.DataArray, ds: xr.Dataset, reference: str, where: str) -> np.ndarray:
-    tdim = str(da.dims[0])
-    if tdim not in ds.variables:
-        raise InputError(f"{where}: dimension {tdim!r} has no time values")
-    tvar = ds[tdim]
-    return years_from_cf(
-        tvar.values, tvar.attrs.get("units"), tvar.attrs.get("calendar"), reference, where
-    )
+class _Timed:
+    """A variable read with its time axis: values (float64, NaN missing, time sorted),
+    times (years, increasing), the variable as opened, its CRS and ``"file: variable"``."""
 
-
-def _read_timed(
-    path: Path, variable: str, reference: str, ndim: int, expected: str
-) -> tuple[xr.DataArray, np.ndarray, str]:
-    """*variable* of *path* (loaded), its times in years, and ``"file: variable"``.
-
-    The variable must have *ndim* dims, time first; *expected* says so in messages.
-    """
-    where = f"{path}: variable {variable!r}"
-    with NETCDF_LOCK:
-        da, ds = _open(path, variable)
-        with ds:
-            if da.ndim != ndim:
-                raise InputError(f"{where}: expected {expected}, got dims {da.dims!r}")
-            times = _time_years(da, ds, reference, where)
-    return da, times, where
+    def __init__(self, path: Path, variable: str, reference: str, ndim: int, expected: str):
+        self.where = f"{path}: variable {variable!r}"
+        with NETCDF_LOCK:
+            da, ds = _open(path, variable)
+            with ds:
+                if da.ndim != ndim:
+                    raise InputError(f"{self.where}: expected {expected}, got dims {da.dims!r}")
+                tdim = str(da.dims[0])
+                if tdim not in ds.variables:
+                    raise InputError(f"{self.where}: dimension {tdim!r} has no time values")
+                tvar = ds[tdim]
+                self.times, order = _time_axis(
+                    tdim, np.asarray(tvar.values), dict(tvar.attrs), reference, self.where
+                )
+                self.crs: CRS | None = _grid_mapping_crs(ds, da, self.where)
+        self.values = _unpacked(da, self.where)[order]
+        self.da = da
+        self.attrs = {k: v for k, v in da.attrs.items() if k not in _PACKING}
+        for name in ("scale_factor", "add_offset", "grid_mapping", "_Unsigned"):
+            self.attrs.pop(name, None)
 
 
 def read_history(
@@ -136,19 +410,29 @@ def read_history(
 ) -> xr.DataArray:
     """Read a (time, y, x) variable, e.g. ice thickness (m), with time in years.
 
-    The first dimension is time, the other two y and x (metres; converted from km).
+    The first dimension is time (or age; see the module notes), the other two y and x
+    (metres; converted from km).
 
     Returns
     -------
     xarray.DataArray
-        dims ``("time", "y", "x")``, time in years after *reference*, float64.
+        dims ``("time", "y", "x")``, time in years after *reference*, increasing,
+        float64 with missing values as NaN; ``attrs["crs_wkt"]`` is the CRS of the CF
+        grid mapping (``""`` when the file has none), ``attrs["units"]`` as in the file.
 
     Raises
     ------
     InputError
-        Missing file or variable, not 3-D, unknown units.
+        Missing file or variable, not 3-D, unknown units or calendar, a time axis whose
+        direction cannot be told or that is not in order, a geographic grid.
     """
-    da, times, where = _read_timed(Path(path), variable, reference, 3, "(time, y, x)")
+    timed = _Timed(Path(path), variable, reference, 3, "(time, y, x)")
+    where, da = timed.where, timed.da
+    if timed.crs is not None and timed.crs.is_geographic:
+        raise InputError(
+            f"{where}: the grid is in longitude/latitude (geographic CRS); an ice history "
+            "must be on a projected grid in metres (project it first)"
+        )
     ydim, xdim = (str(d) for d in da.dims[1:])
     y = _metric_axis(da, ydim, where)
     x = _metric_axis(da, xdim, where)
@@ -157,25 +441,33 @@ def read_history(
     except InputError as exc:
         raise InputError(f"{where}: {exc}") from exc
     out = xr.DataArray(
-        np.asarray(da.values, dtype=np.float64),
+        timed.values,
         dims=("time", "y", "x"),
-        coords={"time": times, "y": y, "x": x},
+        coords={"time": timed.times, "y": y, "x": x},
         name=variable,
     )
-    out.attrs = {k: v for k, v in da.attrs.items() if k not in ("_FillValue",)}
+    out.attrs = timed.attrs | {"crs_wkt": "" if timed.crs is None else timed.crs.to_wkt()}
     return out
 
 
 def read_series(
     path: str | Path, variable: str, reference: str = DEFAULT_TIME_REFERENCE
 ) -> xr.DataArray:
-    """Read a 1-D time series (e.g. sea level, m) with its time in years."""
-    da, times, _ = _read_timed(Path(path), variable, reference, 1, "a series along time")
+    """Read a 1-D time series (e.g. sea level, m) with its time in years.
+
+    Returns
+    -------
+    xarray.DataArray
+        dim ``"time"`` (years after *reference*, increasing), float64 with missing
+        values as NaN, the file's attributes (``units``).
+    """
+    timed = _Timed(Path(path), variable, reference, 1, "a series along time")
     return xr.DataArray(
-        np.asarray(da.values, dtype=np.float64),
+        timed.values,
         dims=("time",),
-        coords={"time": times},
+        coords={"time": timed.times},
         name=variable,
+        attrs=timed.attrs,
     )
 
 

@@ -22,12 +22,15 @@ from typing import Any
 
 import numpy as np
 import xarray as xr
+from rasterio.crs import CRS
 
-from gridflex.constants import SEA_WATER_DENSITY
+from gridflex.constants import BED_ELEVATION_RANGE, MAX_ICE_THICKNESS, SEA_WATER_DENSITY
 from gridflex.engine import SPECTRAL_EDGES
 from gridflex.errors import InputError
-from gridflex.glacial.ice import ice_response
+from gridflex.gis.geometry import parse_crs
+from gridflex.glacial.ice import ice_response, sea_level_at
 from gridflex.glacial.response import INITIAL_STATES
+from gridflex.grid import check_same_grid
 from gridflex.io.netcdf import write_netcdf
 from gridflex.io.plots import plot_point_series, plot_uplift_rate_map
 from gridflex.io.rasters import LAYER_MISSING_POLICIES
@@ -37,6 +40,7 @@ from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
 from gridflex.scenario.tables import SCHEMA, load_scenario
 from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
 from gridflex.synthetic import disc_height, empty_grid
+from gridflex.validation import check_values_within
 from gridflex.workflows.grid_input import apply_missing_policy, in_si_units, read_grid_input
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan, stamp_result, with_vertical_displacement
@@ -218,14 +222,28 @@ def _check_history(scenario: HistoryScenario) -> None:
 
 
 def _ice_history(scenario: HistoryScenario, reference: str) -> xr.DataArray:
+    """The ice thickness (m) through time: from the file (missing cells by the ``missing``
+    policy, in metres, within 0 to :data:`~gridflex.constants.MAX_ICE_THICKNESS`) or the
+    synthetic disc. ``attrs["crs_wkt"]`` is the file's CRS (``""`` when unknown)."""
     ice = scenario.table("ice")
     if ice["file"] is not None:
         history = read_history(ice["file"], ice["variable"], reference)
         where = f"{scenario.where('ice', 'file')}: {ice['file'].name}"
         history = apply_missing_policy(history, ice["missing"], where)
-        return in_si_units(history, "length", where)
+        history = in_si_units(history, "length", where)
+        check_values_within(
+            f"{where}: variable {ice['variable']!r} (ice thickness)",
+            history.values,
+            0.0,
+            MAX_ICE_THICKNESS,
+            unit="m",
+        )
+        return history
     g = scenario.table("grid")
     grid = empty_grid(g["rows"], g["columns"], g["spacing"])
+    check_values_within(
+        scenario.where("ice", "height"), [ice["height"]], 0.0, MAX_ICE_THICKNESS, unit="m"
+    )
     disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
     factors = np.asarray(ice["thickness_factors"], dtype=np.float64)
     values = factors[:, None, None] * disc.values[None]
@@ -234,17 +252,66 @@ def _ice_history(scenario: HistoryScenario, reference: str) -> xr.DataArray:
         dims=("time", "y", "x"),
         coords={"time": np.asarray(ice["times"], dtype=np.float64), "y": grid.y, "x": grid.x},
         name="ice_thickness",
+        attrs={"crs_wkt": ""},
     )
+
+
+def _in_order_of(grid: xr.DataArray, like: xr.DataArray) -> xr.DataArray:
+    """*grid* with each axis that runs the other way than *like*'s reversed (a north-up
+    GeoTIFF against a south-up NetCDF): the same cells in *like*'s row and column order."""
+    for dim in ("y", "x"):
+        ours, theirs = grid[dim].values, like[dim].values
+        if ours.size > 1 and theirs.size > 1 and (ours[1] - ours[0]) * (theirs[1] - theirs[0]) < 0:
+            grid = grid.isel({dim: slice(None, None, -1)})
+    return grid
 
 
 def _bed(scenario: HistoryScenario, like: xr.DataArray) -> xr.DataArray:
-    """The bed elevation (m, up) of the reference state on the ice grid *like*."""
+    """The bed elevation (m, up) of the reference state on the ice grid *like*.
+
+    A bed file must lie on the ice grid; rows (or columns) stored in the other order
+    are put in the ice grid's order first. ``attrs["crs_wkt"]`` is the bed's CRS.
+    """
     bed = scenario.table("bed")
     if bed["file"] is None:
-        return xr.full_like(like, bed["elevation"], dtype=np.float64)
-    return read_grid_input(
-        bed["file"], bed["variable"], scenario.where("bed", "file"), metric=True, reference=like
+        out = xr.full_like(like, bed["elevation"], dtype=np.float64)
+        out.attrs = {"crs_wkt": ""}
+        return out
+    where = scenario.where("bed", "file")
+    grid = read_grid_input(bed["file"], bed["variable"], where, metric=True)
+    label = f"{where}: {bed['file'].name}: variable {grid.name!r}"
+    grid = _in_order_of(grid, like)
+    check_same_grid(grid, like, label)
+    check_values_within(label, grid.values, *BED_ELEVATION_RANGE, unit="m")
+    return xr.DataArray(
+        np.asarray(grid.values, dtype=np.float64),
+        dims=like.dims,
+        coords={name: like[name].values for name in like.dims},
+        name=grid.name,
+        attrs=dict(grid.attrs),
     )
+
+
+def _output_crs(scenario: HistoryScenario, ice: xr.DataArray, bed: xr.DataArray) -> CRS | None:
+    """The CRS of the ice history, else of the bed (None when neither has one).
+
+    Raises
+    ------
+    InputError
+        Both have a CRS and they differ (the grids cannot be the same).
+    """
+    where = {"ice": scenario.where("ice", "file"), "bed": scenario.where("bed", "file")}
+    found = {
+        name: parse_crs(wkt, f"{where[name]}: CRS")
+        for name, wkt in (("ice", ice.attrs.get("crs_wkt")), ("bed", bed.attrs.get("crs_wkt")))
+        if wkt
+    }
+    if len(found) == 2 and found["ice"] != found["bed"]:
+        raise InputError(
+            f"{where['bed']}: the bed's CRS ({found['bed'].to_string()[:60]}) differs from "
+            f"the ice history's ({found['ice'].to_string()[:60]}); give both on one grid"
+        )
+    return found.get("ice", found.get("bed"))
 
 
 PointCell = tuple[str, float, float, int, int]
@@ -300,12 +367,14 @@ def run_history_scenario(
     thickness = _ice_history(scenario, reference)
     bed = _bed(scenario, thickness.isel(time=0, drop=True))
     sea = scenario.table("sea")
+    crs = _output_crs(scenario, thickness, bed)
+    times = np.asarray(thickness["time"].values, dtype=np.float64)
     level: Any = sea["level"]
     if sea["file"] is not None:
         sea_series = read_series(sea["file"], sea["variable"], reference)
         where = f"{scenario.where('sea', 'file')}: {sea['file'].name}"
-        level = in_si_units(sea_series, "length", where)
-    times = np.asarray(thickness["time"].values, dtype=np.float64)
+        sea_in_m = in_si_units(sea_series, "length", where)
+        level = sea_level_at(sea_in_m, times, f"{where}: variable {sea['variable']!r}")
     rate_time = float(times[-1]) if outputs["rate_time"] is None else outputs["rate_time"]
     if not times[0] <= rate_time <= times[-1]:
         raise InputError(
@@ -349,7 +418,7 @@ def run_history_scenario(
     )
     out = cf_time_axis(out, reference)
     outcome = RunOutcome(result=out)
-    outcome.written.append(write_netcdf(out, outputs["file"], overwrite, inputs))
+    outcome.written.append(write_netcdf(out, outputs["file"], overwrite, inputs, crs=crs))
     times = result["time"].values
     if outputs["rate_map"]:
         outcome.written.append(

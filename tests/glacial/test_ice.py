@@ -208,3 +208,26 @@ def test_sub_steps_reduce_the_flooding_lag():
     assert errors[0] > errors[1] > errors[2]
     # first order in the step: 30-yr steps within 1 % of the exact value
     assert errors[2] < 0.01 * exact
+
+
+def test_sea_level_series_on_its_own_times():
+    # the documented rule: linear in time between the series' times, never extrapolated
+    from gridflex.glacial.ice import sea_level_at
+
+    series = xr.DataArray(
+        [-120.0, -60.0, 0.0], dims="time", coords={"time": [-20000.0, -10000.0, 0.0]}
+    )
+    assert_allclose(sea_level_at(series, [-20000.0, -12500.0, 0.0]), [-120.0, -75.0, 0.0])
+    with pytest.raises(InputError, match=r"sea: the series covers -20000 to 0 years .* to 100"):
+        sea_level_at(series, [-100.0, 100.0], "sea")
+    with pytest.raises(InputError, match=r"sea: 1 missing \(NaN or fill\) value"):
+        sea_level_at(series.where(series < 0), [-100.0], "sea")
+    with pytest.raises(InputError, match=r"sea: the times of the sea-level series must increase"):
+        sea_level_at(series.isel(time=[2, 1, 0]), [-100.0], "sea")
+    # ice_response takes such a series as it is (Te = 0 keeps the run short)
+    grid = empty_grid(4, 4, 50e3)
+    ice = _series(grid, [-15000.0, -5000.0])
+    out = ice_response(
+        ice, grid - 1000.0, Plate(te=0.0, infill_density=0.0), series, edges="periodic"
+    )
+    assert_allclose(out.sea_level.values, [-90.0, -30.0])

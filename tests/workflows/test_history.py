@@ -9,14 +9,15 @@ import numpy as np
 import pytest
 import xarray as xr
 from numpy.testing import assert_allclose
+from rasterio.crs import CRS
 
 from gridflex import InputError, Plate, ice_response
 from gridflex.cli.main import main
 from gridflex.errors import NodataWarning
-from gridflex.io.time_grids import read_history, years_from_cf
+from gridflex.io.time_grids import read_history
 from gridflex.synthetic import disc_height, empty_grid
 from gridflex.workflows.history import load_history_scenario, run_history_scenario
-from tests.helpers import REPO_ROOT
+from tests.helpers import REPO_ROOT, write_time_grid
 
 SYNTHETIC = """
 [plate]
@@ -157,12 +158,6 @@ file = "res.nc"
     strict = _write(tmp_path, strict_text, "strict.toml")
     with pytest.raises(InputError, match="3 nodata or NaN cell"):
         run_history_scenario(load_history_scenario(strict), overwrite=True)
-
-
-def test_years_from_plain_units():
-    assert_allclose(
-        years_from_cf(np.array([-21.0, 0.0]), "ka", None, "1950-01-01", "f"), [-21000.0, 0.0]
-    )
 
 
 @pytest.mark.parametrize(
@@ -340,3 +335,220 @@ def test_series_plot_without_points_is_refused_before_the_run(tmp_path):
     with pytest.raises(InputError, match=r"series_plot: needs at least one \[\[points\]\]"):
         run_history_scenario(load_history_scenario(_write(tmp_path, text)))
     assert not (tmp_path / "res.nc").exists()  # nothing written
+
+
+LAEA = "+proj=laea +lat_0=60 +lon_0=10 +datum=WGS84 +units=m +no_defs"
+"""An invented local equal-area projection of the ice grids below."""
+
+FILE_SCENARIO = """
+[plate]
+elastic_thickness = "40 km"
+[mantle]
+model = "relaxing"
+relaxation_time = "3 kyr"
+[ice]
+file = "ice.nc"
+variable = "thk"
+[bed]
+file = "{bed}"
+variable = "topg"
+[output]
+file = "res.nc"
+"""
+
+
+def _ice_file(tmp_path: Path, times, time_attrs, values=None, crs=LAEA, **kw) -> np.ndarray:
+    """A 16 x 16 ice history of 50 km cells (rows south to north) in ``ice.nc``: 1000 m of
+    ice within 200 km of (400, 400) km, growing through the given times; the ice (m)."""
+    centres = (np.arange(16) + 0.5) * 50e3
+    cap = np.hypot(*np.meshgrid(centres - 400e3, centres - 400e3)) < 200e3
+    if values is None:
+        values = np.stack([cap * 1000.0 * k / max(len(times) - 1, 1) for k in range(len(times))])
+    write_time_grid(
+        tmp_path / "ice.nc",
+        "thk",
+        times,
+        values,
+        time_attrs=time_attrs,
+        shape=(16, 16),
+        spacing=50e3,
+        crs=crs,
+        **kw,
+    )
+    return values
+
+
+def _north_up_bed(path: Path, crs=LAEA, values=None) -> np.ndarray:
+    """The bed of the ice grid as a north-up GeoTIFF (rows north to south): 200 m plus
+    y / 1000 (so its row order shows); the bed on south-to-north rows."""
+    import rasterio
+    from affine import Affine
+
+    y = (np.arange(16) + 0.5) * 50e3
+    bed = np.repeat((200.0 + y / 1000.0)[:, None], 16, axis=1) if values is None else values
+    with rasterio.open(
+        path,
+        "w",
+        driver="GTiff",
+        width=16,
+        height=16,
+        count=1,
+        dtype="float32",
+        crs=crs,
+        transform=Affine(50e3, 0.0, 0.0, 0.0, -50e3, 16 * 50e3),
+    ) as dst:
+        dst.write(bed[::-1].astype(np.float32), 1)
+        dst.set_band_description(1, "topg")
+    return bed
+
+
+def test_north_up_geotiff_bed_on_a_netcdf_ice_grid_and_the_crs_goes_out(tmp_path):
+    import rasterio
+
+    # noleap days of 365 (CF conventions 1.8 section 4.4.1): 0, 2 and 6 kyr
+    _ice_file(
+        tmp_path,
+        np.array([0.0, 2000.0, 6000.0]) * 365.0,
+        {"units": "days since 1950-01-01", "calendar": "noleap"},
+    )
+    bed = _north_up_bed(tmp_path / "bed.tif")
+    text = FILE_SCENARIO.format(bed="bed.tif")
+    outcome = run_history_scenario(load_history_scenario(_write(tmp_path, text)))
+    out = outcome.result
+    assert_allclose(out["time_years"].values, [0.0, 2000.0, 6000.0], rtol=0, atol=1e-9)
+    assert_allclose(out["y"].values, (np.arange(16) + 0.5) * 50e3)  # the ice grid's order
+    # at rest at the first time (initial = "rest"), the bed is the file's bed, row by row
+    assert_allclose(out["bed_elevation"].values[0], bed, rtol=0, atol=1e-4)
+    # GDAL reads the CRS of the CF grid mapping (CF conventions 1.8 section 5.6)
+    with rasterio.open(f"netcdf:{tmp_path / 'res.nc'}:deflection") as src:
+        assert src.crs == CRS.from_user_input(LAEA)
+        assert src.count == 3
+        assert_allclose(src.bounds, (0.0, 0.0, 800e3, 800e3))
+        top_row = src.read(3)[0]  # GDAL shows north up: the last time, northernmost row
+    assert_allclose(top_row, out["deflection"].values[2, -1], rtol=1e-6)
+
+
+def test_bed_in_another_crs_is_refused(tmp_path):
+    _ice_file(tmp_path, [0.0, 1000.0], {"units": "yr"})
+    _north_up_bed(tmp_path / "bed.tif", crs="+proj=laea +lat_0=50 +lon_0=10 +datum=WGS84")
+    text = FILE_SCENARIO.format(bed="bed.tif")
+    with pytest.raises(InputError, match=r"\[bed\] file: the bed's CRS .* differs from the ice"):
+        run_history_scenario(load_history_scenario(_write(tmp_path, text)))
+    assert not (tmp_path / "res.nc").exists()
+
+
+def test_ice_crs_is_taken_from_the_bed_when_only_the_bed_has_one(tmp_path):
+    import rasterio
+
+    _ice_file(tmp_path, [0.0, 1000.0], {"units": "yr"}, crs=None)
+    _north_up_bed(tmp_path / "bed.tif")
+    run_history_scenario(
+        load_history_scenario(_write(tmp_path, FILE_SCENARIO.format(bed="bed.tif")))
+    )
+    with rasterio.open(f"netcdf:{tmp_path / 'res.nc'}:deflection") as src:
+        assert src.crs == CRS.from_user_input(LAEA)
+
+
+def test_ages_before_present_play_the_history_forward(tmp_path):
+    # ka BP, youngest first: time = -age (common practice: BP counts back from 1950)
+    values = _ice_file(tmp_path, [0.0, 5.0, 10.0], {"units": "ka BP"})
+    _north_up_bed(tmp_path / "bed.tif")
+    outcome = run_history_scenario(
+        load_history_scenario(_write(tmp_path, FILE_SCENARIO.format(bed="bed.tif")))
+    )
+    out = outcome.result
+    assert_allclose(out["time_years"].values, [-10_000.0, -5000.0, 0.0])
+    assert_allclose(out["ice_thickness"].values, values[::-1])  # the 10 ka ice comes first
+
+
+def test_fill_values_are_missing_and_impossible_ice_is_refused(tmp_path):
+    _north_up_bed(tmp_path / "bed.tif")
+    text = FILE_SCENARIO.format(bed="bed.tif")
+    # netCDF default fill (9.96921e36 for float32; NetCDF Users Guide) in 5 cells: before,
+    # 1e37 m of ice; now missing, zero ice by the "missing" policy, with a warning
+    values = _ice_file(tmp_path, [0.0, 1000.0], {"units": "yr"}).astype(np.float32)
+    values[1, 0, :5] = netCDF4.default_fillvals["f4"]
+    _ice_file(tmp_path, [0.0, 1000.0], {"units": "yr"}, values=values, dtype="f4")
+    with pytest.warns(NodataWarning, match="5 nodata or NaN cell"):
+        outcome = run_history_scenario(load_history_scenario(_write(tmp_path, text)))
+    assert float(outcome.result["ice_thickness"].max()) == 1000.0
+    # 6 km of ice given in km: above the 5000 m the thickest ice on Earth stays below
+    # (common practice), after the unit conversion
+    kilometres = values / 1000.0
+    kilometres[1, 3, 3] = 6.0
+    kilometres[1, 3, 4] = 5.5
+    kilometres[1, 0, :5] = 0.0
+    _ice_file(tmp_path, [0.0, 1000.0], {"units": "yr"}, values=kilometres, attrs={"units": "km"})
+    with pytest.raises(
+        InputError,
+        match=r"\[ice\] file: ice\.nc: variable 'thk' .*: 2 cell\(s\) outside 0 to 5000 m; "
+        r"the worst is 6000 m",
+    ):
+        run_history_scenario(load_history_scenario(_write(tmp_path, text)), overwrite=True)
+
+
+def test_bed_with_an_undeclared_fill_value_is_refused(tmp_path):
+    # the shared grid reader keeps netCDF default fill values of a bed; the bed's range
+    # (deepest trench about 11 km, highest summit about 8.8 km; common practice) stops them
+    _ice_file(tmp_path, [0.0, 1000.0], {"units": "yr"})
+    bed = np.full((16, 16), 100.0, dtype=np.float32)
+    bed[2, 2] = netCDF4.default_fillvals["f4"]
+    _north_up_bed(tmp_path / "bed.tif", values=bed)
+    with pytest.raises(
+        InputError, match=r"\[bed\] file: bed\.tif: .*1 cell\(s\) outside -12000 to 10000 m"
+    ):
+        run_history_scenario(
+            load_history_scenario(_write(tmp_path, FILE_SCENARIO.format(bed="bed.tif")))
+        )
+
+
+SEA_SCENARIO = """
+[plate]
+elastic_thickness = "40 km"
+[mantle]
+model = "relaxing"
+[solver]
+edges = "periodic"
+[grid]
+rows = 8
+columns = 8
+spacing = "50 km"
+[ice]
+synthetic = "disc"
+radius = "100 km"
+height = "1000 m"
+times = [-20000, -15000, -10000, -5000, 0]
+thickness_factors = [1, 1, 0.5, 0, 0]
+[bed]
+elevation = "-500 m"
+[sea]
+file = "sea.nc"
+variable = "sl"
+[output]
+file = "sea_out.nc"
+"""
+
+
+def _sea_file(tmp_path: Path, kyr: list[float], levels: list[float]) -> None:
+    xr.Dataset(
+        {"sl": ("time", np.asarray(levels), {"units": "m"})},
+        coords={"time": ("time", np.asarray(kyr), {"units": "kyr"})},
+    ).to_netcdf(tmp_path / "sea.nc")
+
+
+def test_sea_level_series_is_interpolated_onto_the_ice_times(tmp_path):
+    _sea_file(tmp_path, [-20.0, -10.0, 0.0], [-120.0, -60.0, 0.0])
+    outcome = run_history_scenario(load_history_scenario(_write(tmp_path, SEA_SCENARIO)))
+    # linear in time between the series' times (the documented rule)
+    assert_allclose(outcome.result["sea_level"].values, [-120.0, -90.0, -60.0, -30.0, 0.0])
+
+
+def test_sea_level_is_never_extrapolated(tmp_path):
+    _sea_file(tmp_path, [-10.0, 0.0], [-60.0, 0.0])
+    with pytest.raises(
+        InputError,
+        match=r"\[sea\] file: sea\.nc: variable 'sl': the series covers -10000 to 0 years but "
+        r"sea level is needed from -20000 to 0 years \(2 time\(s\) outside\)",
+    ):
+        run_history_scenario(load_history_scenario(_write(tmp_path, SEA_SCENARIO)))
+    assert not (tmp_path / "sea_out.nc").exists()
