@@ -9,6 +9,8 @@ __all__ = [
     "DAYS_PER_YEAR",
     "DEFAULT_GRAVITY",
     "GRAVITATIONAL_CONSTANT",
+    "MAX_ABS_ELEVATION",
+    "MAX_ICE_THICKNESS",
     "MGAL",
     "SEA_WATER_DENSITY",
     "SECONDS_PER_YEAR",
@@ -32,3 +34,12 @@ DAYS_PER_YEAR = 365.25
 
 SECONDS_PER_YEAR = DAYS_PER_YEAR * 86400.0
 """One Julian year (365.25 days) in seconds."""
+
+MAX_ABS_ELEVATION = 11.0e3
+"""Largest elevation or depth (m, either sign) a grid may hold: the deepest ocean trench is
+about 11 km below sea level and the highest summit under 9 km above it (common knowledge).
+A larger value is a wrong unit or a fill value, and is refused."""
+
+MAX_ICE_THICKNESS = 5000.0
+"""Largest ice thickness (m) a grid may hold: the thickest ice measured on the present ice
+sheets is under 5 km (common knowledge, from memory); a thicker cell is refused."""
