@@ -6,10 +6,10 @@ Each value is written once here; modules import it instead of repeating the lite
 from __future__ import annotations
 
 __all__ = [
-    "BED_ELEVATION_RANGE",
     "DAYS_PER_YEAR",
     "DEFAULT_GRAVITY",
     "GRAVITATIONAL_CONSTANT",
+    "MAX_ABS_ELEVATION",
     "MAX_ICE_THICKNESS",
     "MGAL",
     "PRESENT_DATE",
@@ -40,12 +40,11 @@ PRESENT_DATE = "1950-01-01"
 """The "present" of ages before present (BP): 1 January 1950 (common practice of
 radiocarbon and palaeoclimate time scales)."""
 
-MAX_ICE_THICKNESS = 5000.0
-"""Thickest ice (m) an ice-thickness input may hold: the thickest ice on Earth today is
-about 4.9 km (East Antarctica; common practice, from memory); more is a unit or
-fill-value error."""
+MAX_ABS_ELEVATION = 11.0e3
+"""Largest elevation or depth (m, either sign) a grid may hold: the deepest ocean trench is
+about 11 km below sea level and the highest summit under 9 km above it (common knowledge).
+A larger value is a wrong unit or a fill value, and is refused."""
 
-BED_ELEVATION_RANGE = (-12000.0, 10000.0)
-"""Lowest and highest bed elevation (m, up) an input may hold: the deepest trench is about
-11 km below sea level and the highest summit about 8.8 km above it (common practice);
-anything outside is a unit or fill-value error."""
+MAX_ICE_THICKNESS = 5000.0
+"""Largest ice thickness (m) a grid may hold: the thickest ice measured on the present ice
+sheets is under 5 km (common knowledge, from memory); a thicker cell is refused."""

@@ -8,10 +8,30 @@ from typing import Any
 
 from gridflex.errors import InputError
 
-__all__ = ["DIMENSIONS", "parse_quantity", "unit_factor"]
+__all__ = ["DIMENSIONS", "FOOT", "parse_quantity", "unit_factor"]
+
+FOOT = 0.3048
+"""The international foot in metres (exact; international yard and pound agreement of 1959,
+from memory). ``ft``, ``foot`` and ``feet`` mean this foot; the US survey foot is not accepted."""
 
 DIMENSIONS: dict[str, dict[str, float]] = {
-    "length": {"m": 1.0, "km": 1.0e3, "metre": 1.0, "meter": 1.0, "metres": 1.0, "meters": 1.0},
+    "length": {
+        "m": 1.0,
+        "metre": 1.0,
+        "meter": 1.0,
+        "metres": 1.0,
+        "meters": 1.0,
+        "km": 1.0e3,
+        "kilometre": 1.0e3,
+        "kilometer": 1.0e3,
+        "kilometres": 1.0e3,
+        "kilometers": 1.0e3,
+        "cm": 1.0e-2,
+        "mm": 1.0e-3,
+        "ft": FOOT,
+        "foot": FOOT,
+        "feet": FOOT,
+    },
     "density": {
         "kg/m^3": 1.0,
         "kg/m3": 1.0,
@@ -19,6 +39,8 @@ DIMENSIONS: dict[str, dict[str, float]] = {
         "kg m^-3": 1.0,
         "g/cm^3": 1.0e3,
         "g/cm3": 1.0e3,
+        "g cm-3": 1.0e3,
+        "g cm^-3": 1.0e3,
     },
     "pressure": {"Pa": 1.0, "kPa": 1.0e3, "MPa": 1.0e6, "GPa": 1.0e9},
     "force_per_length": {"N/m": 1.0, "N m-1": 1.0, "kN/m": 1.0e3, "MN/m": 1.0e6, "TN/m": 1.0e12},
@@ -27,7 +49,10 @@ DIMENSIONS: dict[str, dict[str, float]] = {
     "time": {"yr": 1.0, "year": 1.0, "years": 1.0, "kyr": 1.0e3, "ka": 1.0e3},
     "viscosity": {"Pa s": 1.0, "Pa*s": 1.0},
 }
-"""Accepted units per dimension, with their factor to the SI (or year) unit."""
+"""Accepted units per dimension, with their factor to the SI (or year) unit.
+
+The one table of units: scenario quantities (``"25 km"``) and the CF ``units``
+attribute of grid files (``"km"``, ``"g cm-3"``, ``"MPa"``) are both read through it."""
 
 _QUANTITY = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
 
@@ -40,7 +65,9 @@ def unit_factor(unit: str, dimension: str, where: str) -> float:
         return table[unit]
     allowed = ", ".join(table)
     kind = dimension.replace("_", " ")
-    raise InputError(f"{where}: unit {unit!r} is not a {kind}; use one of {allowed}")
+    other = next((name for name, units in DIMENSIONS.items() if unit in units), None)
+    actually = f" (it is a {other.replace('_', ' ')})" if other else ""
+    raise InputError(f"{where}: unit {unit!r} is not a {kind}{actually}; use one of {allowed}")
 
 
 def parse_quantity(value: Any, dimension: str, where: str) -> float:

@@ -22,19 +22,23 @@ from __future__ import annotations
 import math
 import numbers
 from collections.abc import Iterable
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
+from numpy.typing import ArrayLike
 
+from gridflex.constants import MAX_ABS_ELEVATION, MAX_ICE_THICKNESS
 from gridflex.errors import InputError
 
 __all__ = [
+    "GRID_ROLES",
+    "GridRole",
     "check_choice",
     "check_density",
     "check_flag",
+    "check_grid_range",
     "check_integer",
     "check_number",
-    "check_values_within",
 ]
 
 
@@ -136,48 +140,95 @@ def check_flag(name: str, value: Any) -> bool:
     return bool(value)
 
 
-def check_values_within(
-    name: str, values: Any, minimum: float, maximum: float, *, unit: str = ""
-) -> None:
-    """Refuse an array with values outside ``[minimum, maximum]`` (NaN cells are ignored).
+class GridRole(NamedTuple):
+    """What a grid file holds: its quantity and the physical range of its values (SI).
 
-    For grids whose role bounds them physically (ice thickness, bed elevation): a value
-    outside is a wrong unit or an undeclared fill value, never data.
+    Attributes
+    ----------
+    dimension : str or None
+        A :data:`gridflex.units.DIMENSIONS` key (``None``: no unit, e.g. a mask).
+    minimum, maximum : float or None
+        Inclusive bounds in the SI unit of *dimension* (``None``: unbounded).
+    label : str
+        What the values are, for messages.
+    """
+
+    dimension: str | None
+    minimum: float | None
+    maximum: float | None
+    label: str
+
+
+GRID_ROLES: dict[str, GridRole] = {
+    "thickness": GridRole("length", 0.0, None, "a thickness (m)"),
+    "elevation": GridRole(
+        "length", -MAX_ABS_ELEVATION, MAX_ABS_ELEVATION, "an elevation or bathymetry (m)"
+    ),
+    "depth": GridRole("length", -MAX_ABS_ELEVATION, MAX_ABS_ELEVATION, "a depth (m)"),
+    "ice_thickness": GridRole("length", 0.0, MAX_ICE_THICKNESS, "an ice thickness (m)"),
+    "elastic_thickness": GridRole("length", 0.0, None, "an elastic thickness (m)"),
+    "deflection": GridRole("length", None, None, "a deflection (m)"),
+    "length": GridRole("length", None, None, "a length (m)"),
+    "stress": GridRole("pressure", None, None, "a stress (Pa)"),
+    "density": GridRole("density", 0.0, None, "a density (kg m-3)"),
+    "mask": GridRole(None, None, None, "a mask"),
+    "anomaly": GridRole(None, None, None, "a gravity anomaly (mGal)"),
+}
+"""Every kind of grid a scenario reads, with its quantity and physical range (SI).
+
+Thicknesses are never negative; elevations, bathymetry and depths lie within
+``gridflex.constants.MAX_ABS_ELEVATION`` of sea level; ice is at most
+``gridflex.constants.MAX_ICE_THICKNESS`` thick."""
+
+
+def check_grid_range(values: ArrayLike, role: str, where: str) -> None:
+    """Refuse a grid with values outside the physical range of its *role*.
 
     Parameters
     ----------
-    name : str
-        What the values are (file, variable, key), for the message.
     values : array_like
-        The values, already in *unit*.
-    minimum, maximum : float
-        Inclusive bounds.
-    unit : str, optional
-        Unit of the values and bounds, shown in the message.
+        The grid's values in the SI unit of the role (m, Pa, kg m-3); NaN cells (no
+        data) are not checked.
+    role : str
+        A :data:`GRID_ROLES` key, e.g. ``"thickness"`` or ``"ice_thickness"``.
+    where : str
+        File and variable (and scenario key), for the message.
 
     Raises
     ------
     InputError
-        Naming *name*, the number of cells outside and the worst value.
+        Naming *where*, the number of cells out of range and the worst value.
 
     Examples
     --------
-    >>> check_values_within("ice", [0.0, 7000.0, 9000.0], 0.0, 5000.0, unit="m")
+    >>> check_grid_range([0.0, 120.0, float("nan")], "thickness", "a.nc: variable 'h'")
+    >>> check_grid_range([[0.0, -3.0], [-0.5, 2.0]], "thickness", "a.nc: variable 'h'")
     Traceback (most recent call last):
     ...
-    gridflex.errors.InputError: ice: 2 cell(s) outside 0 to 5000 m; the worst is 9000 m
+    gridflex.errors.InputError: a.nc: variable 'h': 2 cell(s) below 0, down to -3 \
+(a thickness (m) cannot be negative); check the units and the fill values
     """
+    spec = GRID_ROLES.get(role)
+    if spec is None:
+        raise InputError(f"{where}: unknown grid role {role!r}; use one of {', '.join(GRID_ROLES)}")
     array = np.asarray(values, dtype=np.float64)
     with np.errstate(invalid="ignore"):
-        below = array < minimum
-        above = array > maximum
-    count = int(below.sum() + above.sum())
-    if count == 0:
-        return
-    excess = np.where(below, minimum - array, 0.0) + np.where(above, array - maximum, 0.0)
-    worst = float(array.flat[int(np.argmax(np.nan_to_num(excess, nan=0.0)))])
-    unit_text = f" {unit}" if unit else ""
-    raise InputError(
-        f"{name}: {count} cell(s) outside {minimum:g} to {maximum:g}{unit_text}; "
-        f"the worst is {worst:g}{unit_text}"
-    )
+        if spec.minimum is not None:
+            low = array < spec.minimum
+            if low.any():
+                reason = (
+                    "cannot be negative" if spec.minimum == 0.0 else f"is at least {spec.minimum:g}"
+                )
+                raise InputError(
+                    f"{where}: {int(low.sum())} cell(s) below {spec.minimum:g}, down to "
+                    f"{float(array[low].min()):.6g} ({spec.label} {reason}); check the units "
+                    "and the fill values"
+                )
+        if spec.maximum is not None:
+            high = array > spec.maximum
+            if high.any():
+                raise InputError(
+                    f"{where}: {int(high.sum())} cell(s) above {spec.maximum:g}, up to "
+                    f"{float(array[high].max()):.6g} ({spec.label} is at most "
+                    f"{spec.maximum:g}); check the units and the fill values"
+                )

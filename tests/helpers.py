@@ -128,3 +128,25 @@ def write_time_grid(
         if values is not None:
             v[:] = np.asarray(values)
     return path
+
+
+def write_both_orders(
+    folder: Path, stem: str, grid: xr.DataArray, crs: str = "EPSG:32633", units: str = "m"
+) -> tuple[Path, Path]:
+    """*grid* (dims ``("y", "x")``, metres of *crs*) as a real north-up GeoTIFF
+    ``<stem>.tif`` (rasterio, y decreasing) and a real CF NetCDF ``<stem>.nc`` stored
+    south-up (y increasing, grid mapping with ``crs_wkt``): the same cells twice."""
+    from rasterio.crs import CRS
+
+    from gridflex.io.rasters import write_geotiff
+
+    grid = grid.assign_attrs(units=units)
+    tif = write_geotiff(grid.sortby("y", ascending=False), folder / f"{stem}.tif", crs)
+    south_up = grid.sortby("y").assign_attrs(grid_mapping="crs")
+    ds = xr.Dataset(
+        {stem: south_up, "crs": ((), 0, {"crs_wkt": CRS.from_user_input(crs).to_wkt()})}
+    )
+    ds["y"].attrs = {"units": "m", "standard_name": "projection_y_coordinate"}
+    ds["x"].attrs = {"units": "m", "standard_name": "projection_x_coordinate"}
+    ds.to_netcdf(folder / f"{stem}.nc")
+    return tif, folder / f"{stem}.nc"

@@ -222,3 +222,41 @@ def test_progress_is_called_with_done_and_total():
 
     viscous_response(history, Plate(te=20e3, infill_density=0.0), progress=progress)
     assert calls == [(1, 3), (2, 3), (3, 3)]
+
+
+# --- check_grid_range -----------------------------------------------------------------
+
+
+def test_check_grid_range_names_the_count_and_the_worst_value():
+    from gridflex.validation import check_grid_range
+
+    values = np.array([[1.0, -2.0, np.nan], [-0.5, 3.0, 0.0]])
+    with pytest.raises(InputError, match=r"a\.nc: variable 'h': 2 cell\(s\) below 0, down to -2 "):
+        check_grid_range(values, "thickness", "a.nc: variable 'h'")
+    check_grid_range(np.abs(values), "thickness", "a.nc")  # NaN cells are not checked
+
+
+@pytest.mark.parametrize(
+    ("role", "good", "bad", "worst"),
+    [
+        # deepest trench ~11 km, highest summit < 9 km (common knowledge)
+        ("elevation", [-10.9e3, 8.8e3], [11.5e3, -12e3, 0.0], "-12000"),
+        ("depth", [10.9e3], [-11.2e3], "-11200"),
+        # thickest ice on the present ice sheets < 5 km (common knowledge, from memory)
+        ("ice_thickness", [0.0, 4.9e3], [5.2e3, 6e3], "6000"),
+        ("elastic_thickness", [0.0, 120e3], [-1.0], "-1"),
+    ],
+)
+def test_check_grid_range_per_role(role, good, bad, worst):
+    from gridflex.validation import check_grid_range
+
+    check_grid_range(np.array(good), role, "g.nc")
+    with pytest.raises(InputError, match=rf"g\.nc: .* {worst} "):
+        check_grid_range(np.array(bad), role, "g.nc")
+
+
+def test_check_grid_range_unknown_role():
+    from gridflex.validation import check_grid_range
+
+    with pytest.raises(InputError, match="unknown grid role 'rock'"):
+        check_grid_range(np.zeros(2), "rock", "g.nc")

@@ -136,17 +136,29 @@ def _linear_factor(crs: CRS) -> float:
         return 1.0
 
 
-def even_step(coord: Any, name: str) -> tuple[float, float, int]:
+def even_step(coord: Any, name: str, tolerance: float | None = None) -> tuple[float, float, int]:
     """First value, step and length of evenly spaced 1-D cell centres *coord*.
 
     The step is taken from the end points; coordinates stored in float32 are
     checked only to float32 precision.
 
+    Parameters
+    ----------
+    coord : array_like
+        Cell centres, increasing or decreasing.
+    name : str
+        The coordinate's name, for messages.
+    tolerance : float, optional
+        Accept centres up to this fraction of the step away from the regular axis
+        through the first and last centre (e.g. coordinates rounded in the file);
+        they must still be strictly monotonic. Default: every step equals the mean
+        step to a relative 1e-5 (or float32 round-off).
+
     Raises
     ------
     InputError
-        Not 1-D, fewer than 2 values, not finite, or not evenly spaced
-        (relative 1e-5); the message names coordinate *name*.
+        Not 1-D, fewer than 2 values, not finite, or not evenly spaced; the
+        message names coordinate *name*.
     """
     given = np.asarray(coord)
     if given.ndim != 1 or given.size < 2 or not np.issubdtype(given.dtype, np.number):
@@ -158,9 +170,16 @@ def even_step(coord: Any, name: str) -> tuple[float, float, int]:
         raise InputError(f"coordinate {name!r} has NaN or infinite values")
     step = (values[-1] - values[0]) / (values.size - 1)
     diffs = np.diff(values)
-    eps = np.finfo(given.dtype).eps if np.issubdtype(given.dtype, np.floating) else 0.0
-    tol = max(_SPACING_RTOL * abs(step), 8.0 * eps * float(np.max(np.abs(values))))
-    if step == 0.0 or np.max(np.abs(diffs - step)) > tol:
+    if tolerance is not None:
+        regular = values[0] + step * np.arange(values.size)
+        uneven = not np.all(diffs * step > 0.0) or bool(
+            np.max(np.abs(values - regular)) > tolerance * abs(step)
+        )
+    else:
+        eps = np.finfo(given.dtype).eps if np.issubdtype(given.dtype, np.floating) else 0.0
+        tol = max(_SPACING_RTOL * abs(step), 8.0 * eps * float(np.max(np.abs(values))))
+        uneven = bool(np.max(np.abs(diffs - step)) > tol)
+    if step == 0.0 or uneven:
         raise InputError(
             f"coordinate {name!r} is not evenly spaced (steps from {float(diffs.min())!r} "
             f"to {float(diffs.max())!r}); resample onto a regular grid first"

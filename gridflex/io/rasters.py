@@ -7,9 +7,17 @@ CRS as WKT in ``attrs["crs_wkt"]`` (``""`` when unknown).
 :func:`gridflex.gis.geometry.geometry_of`
 turns that back into a :class:`gridflex.gis.geometry.GridGeometry`.
 
-Missing values: nodata (GeoTIFF) and ``_FillValue``/``missing_value`` (NetCDF)
-become NaN here; what NaN means for a given layer (a load of zero, or an error)
-is decided by the caller. A layer with no valid value at all is an error here.
+Missing values: nodata (GeoTIFF) and ``_FillValue``/``missing_value``, values
+outside ``valid_min``/``valid_max``/``valid_range`` and, when no ``_FillValue`` is
+declared, netCDF's default fill value of the variable's type (NetCDF,
+:func:`netcdf_missing`) become NaN here; what NaN means for a given layer (a load
+of zero, or an error) is decided by the caller. A layer with no valid value at all
+is an error here, and so is a value of magnitude :data:`FILL_LIKE` or more (a fill
+value the file does not declare).
+
+Coordinates (NetCDF): an axis within :data:`SNAP_TOLERANCE` of a step of a regular
+one is snapped onto it; an irregular axis is resampled linearly onto a regular one
+(:func:`regular_axis`), or refused.
 """
 
 from __future__ import annotations
@@ -20,6 +28,7 @@ from collections.abc import Iterable
 from pathlib import Path
 from typing import Any
 
+import netCDF4
 import numpy as np
 import rasterio
 import xarray as xr
@@ -34,10 +43,17 @@ from gridflex.memory import check_memory
 from gridflex.units import unit_factor
 
 __all__ = [
+    "FILL_LIKE",
+    "IRREGULAR_POLICIES",
     "LAYER_MISSING_POLICIES",
     "MISSING_POLICIES",
     "NETCDF_SUFFIXES",
+    "SNAP_TOLERANCE",
+    "grid_mapping_crs",
+    "increasing_axes",
+    "netcdf_missing",
     "read_raster",
+    "regular_axis",
     "write_geotiff",
 ]
 
@@ -50,6 +66,17 @@ MISSING_POLICIES = ("error", "zero", "keep")
 """What nodata/NaN cells of an input grid mean: an error, no load (0), or no data (NaN)."""
 LAYER_MISSING_POLICIES = MISSING_POLICIES[:2]
 """The policies a scenario offers for a load layer or an ice grid (``"keep"`` is internal)."""
+
+FILL_LIKE = 1.0e30
+"""Values of this magnitude or more are taken for a fill value the file does not declare
+(no grid gridflex reads holds such numbers in any accepted unit) and refused."""
+
+SNAP_TOLERANCE = 0.01
+"""Coordinates whose cell centres lie within this fraction of a step of a regular axis (e.g.
+values rounded to a few decimals in the file) are snapped onto that axis."""
+
+IRREGULAR_POLICIES = ("resample", "refuse")
+"""What :func:`read_raster` does with an irregular NetCDF axis: resample it, or refuse it."""
 
 _NETCDF_MAGIC = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n")
 _TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")
@@ -108,6 +135,14 @@ def _finish(
     values = np.asarray(values, dtype=np.float64)
     if not np.any(np.isfinite(values)):
         raise InputError(f"{path}: {name!r} has no valid values (every cell is nodata or NaN)")
+    with np.errstate(invalid="ignore"):
+        huge = np.abs(values) >= FILL_LIKE
+    if huge.any():
+        raise InputError(
+            f"{path}: {name!r} has {int(huge.sum())} cell(s) holding "
+            f"{float(values[huge][0]):.7g}, which looks like a fill value the file does not "
+            "declare; declare it (_FillValue or missing_value in NetCDF, nodata in a GeoTIFF)"
+        )
     attrs: dict[str, Any] = {"crs_wkt": "" if crs is None else crs.to_wkt()}
     if units:
         attrs["units"] = str(units)
@@ -212,7 +247,9 @@ def _in_degrees(coord: xr.DataArray, dim: str) -> bool:
     )
 
 
-def _grid_mapping_crs(ds: xr.Dataset, da: xr.DataArray, where: str) -> CRS | None:
+def grid_mapping_crs(ds: xr.Dataset, da: xr.DataArray, where: str) -> CRS | None:
+    """The CRS of *da* from its CF ``grid_mapping`` variable in *ds* (``crs_wkt`` or
+    ``spatial_ref``, or a latitude_longitude mapping); None when it names none."""
     text = da.attrs.get("grid_mapping") or da.encoding.get("grid_mapping")
     if not text:
         return None
@@ -248,16 +285,177 @@ def _netcdf_variable(ds: xr.Dataset, path: Path, variable: str | None) -> str:
     return variable
 
 
-def _read_netcdf(path: Path, variable: str | None) -> xr.DataArray:
+def netcdf_missing(raw: np.ndarray, attrs: dict[str, Any]) -> np.ndarray:
+    """Values of a NetCDF variable as stored (not decoded) as float64, missing cells NaN.
+
+    Missing, by the CF conventions 1.8, section 2.5.1: cells equal to ``_FillValue``
+    or to any ``missing_value``, and cells outside ``valid_range`` (or below
+    ``valid_min``, above ``valid_max``). When the variable declares no
+    ``_FillValue``, cells equal to netCDF's default fill value of its type
+    (:data:`netCDF4.default_fillvals`, e.g. 9.969209968386869e36 for float and double)
+    are missing too: that is what netCDF writes into cells never written. One-byte
+    types have no default fill check (netCDF User Guide, from memory). Then
+    ``scale_factor`` and ``add_offset`` are applied, and ``_Unsigned = "true"`` is
+    honoured.
+
+    Parameters
+    ----------
+    raw : numpy.ndarray
+        The variable's values in their stored type.
+    attrs : dict
+        The variable's attributes.
+
+    Returns
+    -------
+    numpy.ndarray
+        float64 values, NaN where missing.
+    """
+    data = np.asarray(raw)
+    if str(attrs.get("_Unsigned", "")).lower() == "true" and data.dtype.kind == "i":
+        data = data.view(data.dtype.str.replace("i", "u"))
+    missing = np.isnan(data) if data.dtype.kind == "f" else np.zeros(data.shape, dtype=bool)
+
+    def stored(value: Any) -> np.ndarray:
+        return np.atleast_1d(np.asarray(value)).astype(data.dtype)
+
+    for key in ("_FillValue", "missing_value"):
+        if key in attrs:
+            for value in stored(attrs[key]):
+                missing |= data == value
+    if "_FillValue" not in attrs and data.dtype.kind in "iuf" and data.dtype.itemsize > 1:
+        default = netCDF4.default_fillvals[data.dtype.str[1:]]
+        missing |= data == stored(default)[0]
+    low, high = attrs.get("valid_min"), attrs.get("valid_max")
+    if "valid_range" in attrs:
+        low, high = stored(attrs["valid_range"])[:2]
+    with np.errstate(invalid="ignore"):
+        if low is not None:
+            missing |= data < stored(low)[0]
+        if high is not None:
+            missing |= data > stored(high)[0]
+    values = data.astype(np.float64)
+    scale, offset = attrs.get("scale_factor"), attrs.get("add_offset")
+    if scale is not None:
+        values = values * float(np.asarray(scale).ravel()[0])
+    if offset is not None:
+        values = values + float(np.asarray(offset).ravel()[0])
+    values[missing] = np.nan
+    return values
+
+
+def regular_axis(
+    coord: np.ndarray, values: np.ndarray, axis: int, where: str, irregular: str = "resample"
+) -> tuple[np.ndarray, np.ndarray]:
+    """A coordinate made exactly regular, and *values* on it.
+
+    Rules (the tolerance is :data:`SNAP_TOLERANCE`, 1 % of a step):
+
+    - evenly spaced (to 1e-5 of the step, or float32 round-off): kept;
+    - every centre within 1 % of a step of the regular axis through the first and
+      last centre (coordinates rounded in the file): snapped onto that axis, values
+      unchanged (logged);
+    - otherwise (truly irregular, e.g. latitudes of a Mercator grid): with
+      ``irregular="resample"`` the values are interpolated linearly along this axis
+      onto a regular axis over the same extent (first to last centre) whose step is
+      the median step, rounded so that a whole number of steps spans the extent
+      (logged as a warning); NaN spreads to the cells next to it. With
+      ``"refuse"`` (masks and classes, which must not be interpolated) an
+      InputError says how to fix the file.
+
+    Parameters
+    ----------
+    coord : numpy.ndarray
+        1-D cell centres (CRS units), strictly increasing or decreasing.
+    values : numpy.ndarray
+        float64 grid; its *axis* runs along *coord*.
+    axis : int
+        Axis of *values* along *coord*.
+    where : str
+        File, variable and coordinate, for messages.
+    irregular : {"resample", "refuse"}, default "resample"
+
+    Returns
+    -------
+    coord : numpy.ndarray
+        Exactly regular float64 centres, in the direction of the input.
+    values : numpy.ndarray
+        *values*, resampled along *axis* if the axis was irregular.
+
+    Raises
+    ------
+    InputError
+        A coordinate that is not strictly monotonic, or irregular with ``"refuse"``.
+    """
+    if irregular not in IRREGULAR_POLICIES:
+        raise InputError(f"irregular must be one of {IRREGULAR_POLICIES}, got {irregular!r}")
     try:
-        with NETCDF_LOCK, xr.open_dataset(path, engine="netcdf4", decode_times=False) as ds:
+        first, step, n = even_step(coord, "")
+        return first + step * np.arange(n), values
+    except InputError:
+        pass
+    given = np.asarray(coord, dtype=np.float64)
+    diffs = np.diff(given)
+    if not (np.all(diffs > 0) or np.all(diffs < 0)):
+        raise InputError(
+            f"{where}: values are not strictly increasing or decreasing; "
+            "sort the file along this axis and remove repeated values"
+        )
+    try:
+        first, step, n = even_step(given, "", tolerance=SNAP_TOLERANCE)
+    except InputError:
+        pass
+    else:
+        regular = first + step * np.arange(n)
+        shift = float(np.max(np.abs(given - regular))) / abs(step)
+        log.info(
+            "%s: coordinates snapped onto a regular axis (moved by <= %.2g of a step)", where, shift
+        )
+        return regular, values
+    if irregular == "refuse":
+        raise InputError(
+            f"{where}: not evenly spaced (steps from {float(diffs.min()):.6g} "
+            f"to {float(diffs.max()):.6g}), and this grid (a mask or classes) is not "
+            "interpolated; write it on a regular grid (e.g. gdalwarp or cdo remapnn)"
+        )
+    median = float(np.median(np.abs(diffs)))
+    extent = float(given[-1] - given[0])
+    n = max(2, round(abs(extent) / median) + 1)
+    regular = given[0] + extent / (n - 1) * np.arange(n)
+    check_memory(24.0 * values.size * n / given.size, f"{where}: resampling onto {n} cells")
+    ascending = diffs[0] > 0
+    source = given if ascending else given[::-1]
+    target = regular if ascending else regular[::-1]
+    moved = np.moveaxis(values, axis, -1)
+    moved = moved if ascending else moved[..., ::-1]
+    upper = np.clip(np.searchsorted(source, target), 1, source.size - 1)
+    weight = (target - source[upper - 1]) / (source[upper] - source[upper - 1])
+    out = moved[..., upper - 1] * (1.0 - weight) + moved[..., upper] * weight
+    out = out if ascending else out[..., ::-1]
+    log.warning(
+        "%s: not evenly spaced (steps from %.6g to %.6g); the grid was "
+        "resampled linearly along it onto %d cells of %.6g",
+        where,
+        float(diffs.min()),
+        float(diffs.max()),
+        n,
+        abs(extent) / (n - 1),
+    )
+    return regular, np.moveaxis(out, -1, axis)
+
+
+def _read_netcdf(path: Path, variable: str | None, irregular: str) -> xr.DataArray:
+    try:
+        with (
+            NETCDF_LOCK,
+            xr.open_dataset(path, engine="netcdf4", decode_times=False, mask_and_scale=False) as ds,
+        ):
             name = _netcdf_variable(ds, path, variable)
             da = ds[name]
             where = f"{path}: variable {name!r}"
             squeezed = da.squeeze(drop=True) if da.ndim > 2 else da
             if squeezed.ndim != 2:
                 raise InputError(f"{where}: expected a 2-D grid, got dims {da.dims!r}")
-            crs = _grid_mapping_crs(ds, da, where)
+            crs = grid_mapping_crs(ds, da, where)
             check_memory(squeezed.size * 16.0, f"{where}: reading")
             da = squeezed.load()
     except InputError:
@@ -278,14 +476,17 @@ def _read_netcdf(path: Path, variable: str | None) -> xr.DataArray:
         ydim = next(d for d, r in roles.items() if r == "y")
         xdim = next(d for d, r in roles.items() if r == "x")
     da = da.transpose(ydim, xdim)
+    data = netcdf_missing(da.values, da.attrs)
     degrees = [_in_degrees(da[d], d) for d in (ydim, xdim)]
     if crs is None and all(degrees):
         crs = CRS.from_epsg(4326)
     coords = []
-    for dim, is_degree in zip((ydim, xdim), degrees, strict=True):
+    for axis, (dim, is_degree) in enumerate(zip((ydim, xdim), degrees, strict=True)):
         values = np.asarray(da[dim].values)
         if not np.issubdtype(values.dtype, np.number):
             raise InputError(f"{where}: coordinate {dim!r} is not numeric ({values.dtype})")
+        if any(k in da[dim].attrs for k in ("scale_factor", "add_offset", "_Unsigned")):
+            values = netcdf_missing(values, da[dim].attrs)  # packed coordinates
         if crs is not None and crs.is_geographic:
             if not is_degree and str(da[dim].attrs.get("units", "")).strip():
                 raise InputError(
@@ -298,17 +499,22 @@ def _read_netcdf(path: Path, variable: str | None) -> xr.DataArray:
             units = str(da[dim].attrs.get("units", "m")).strip() or "m"
             values = values * unit_factor(units, "length", f"{where}: coordinate {dim!r}")
         try:
-            even_step(values, str(dim))
+            even_step(values[:2], str(dim))  # 1-D, at least 2 finite numbers
         except InputError as exc:
             raise InputError(f"{where}: {exc}") from exc
-        coords.append(values)
+        if not np.all(np.isfinite(np.asarray(values, dtype=np.float64))):
+            raise InputError(f"{where}: coordinate {dim!r} has NaN or infinite values")
+        regular, data = regular_axis(values, data, axis, f"{where}: coordinate {dim!r}", irregular)
+        coords.append(regular)
     geometry = GridGeometry.from_coords(coords[0], coords[1], crs)
     y, x = geometry.coords()  # exactly even, also for coordinates stored in float32
     extra = {k: da.attrs[k] for k in ("long_name", "standard_name") if k in da.attrs}
-    return _finish(path, name, da.values, y, x, crs, da.attrs.get("units"), extra)
+    return _finish(path, name, data, y, x, crs, da.attrs.get("units"), extra)
 
 
-def read_raster(path: str | Path, variable: str | None = None) -> xr.DataArray:
+def read_raster(
+    path: str | Path, variable: str | None = None, *, irregular: str = "resample"
+) -> xr.DataArray:
     """Read one georeferenced 2-D grid.
 
     Parameters
@@ -319,23 +525,28 @@ def read_raster(path: str | Path, variable: str | None = None) -> xr.DataArray:
     variable : str, optional
         NetCDF variable, or band (description, ``"band2"`` or ``"2"``). Needed
         only when the file holds more than one grid.
+    irregular : {"resample", "refuse"}, default "resample"
+        A NetCDF axis that is not regular (beyond :data:`SNAP_TOLERANCE`) is
+        resampled linearly onto a regular one, or refused (masks, classes); see
+        :func:`regular_axis`.
 
     Returns
     -------
     xarray.DataArray
         float64 on dims ``("y", "x")`` with cell-centre coordinates in CRS units
-        (degrees or metres), nodata as NaN; ``attrs["crs_wkt"]`` (``""`` when the
-        CRS is unknown) and ``attrs["units"]`` when the file gives one. NetCDF
-        CRS: the CF ``grid_mapping`` variable's ``crs_wkt`` or ``spatial_ref``;
-        else coordinates in degrees mean EPSG:4326; else metric x/y with an
-        unknown CRS.
+        (degrees or metres), rows in the file's order, nodata as NaN;
+        ``attrs["crs_wkt"]`` (``""`` when the CRS is unknown) and ``attrs["units"]``
+        when the file gives one. NetCDF CRS: the CF ``grid_mapping`` variable's
+        ``crs_wkt`` or ``spatial_ref``; else coordinates in degrees mean
+        EPSG:4326; else metric x/y with an unknown CRS.
 
     Raises
     ------
     InputError
         Missing, corrupt or unreadable file; unknown variable or band (the valid
-        ones are listed); not 2-D; rotated or sheared grid; unknown CRS; uneven
-        coordinates; no valid value.
+        ones are listed); not 2-D; rotated or sheared grid; unknown CRS; coordinates
+        not monotonic, or irregular with ``irregular="refuse"``; no valid value; a
+        value of magnitude :data:`FILL_LIKE` or more.
     """
     path = Path(path)
     if not path.is_file():
@@ -344,9 +555,31 @@ def read_raster(path: str | Path, variable: str | None = None) -> xr.DataArray:
         netcdf = _is_netcdf(path)
     except OSError as exc:
         raise InputError(f"{path}: cannot open ({exc})") from exc
-    da = _read_netcdf(path, variable) if netcdf else _read_gdal(path, variable)
+    da = _read_netcdf(path, variable, irregular) if netcdf else _read_gdal(path, variable)
     log.info("read %s %r: %s cells", path, da.name, da.shape)
     return da
+
+
+def increasing_axes(da: xr.DataArray) -> xr.DataArray:
+    """*da* with both coordinates increasing: rows south to north (``y`` increasing,
+    as most NetCDF files store them) and columns west to east; the same cells and values.
+
+    A north-up GeoTIFF (``y`` decreasing) and a NetCDF of the same cells come back
+    identical. Returns *da* itself when it is already in that order.
+
+    Examples
+    --------
+    >>> da = xr.DataArray([[1.0, 2.0], [3.0, 4.0]], dims=("y", "x"),
+    ...                   coords={"y": [1.0, 0.0], "x": [0.0, 1.0]})
+    >>> increasing_axes(da).values.tolist()
+    [[3.0, 4.0], [1.0, 2.0]]
+    """
+    flips = {}
+    for dim in ("y", "x"):
+        coord = np.asarray(da[dim].values, dtype=np.float64)
+        if coord.size > 1 and coord[-1] < coord[0]:
+            flips[dim] = slice(None, None, -1)
+    return da.isel(flips) if flips else da
 
 
 def write_geotiff(

@@ -57,7 +57,7 @@ from gridflex.constants import DAYS_PER_YEAR, PRESENT_DATE
 from gridflex.errors import InputError
 from gridflex.gis.geometry import GridGeometry
 from gridflex.io.netcdf import NETCDF_LOCK
-from gridflex.io.rasters import _grid_mapping_crs
+from gridflex.io.rasters import grid_mapping_crs, netcdf_missing
 from gridflex.units import DIMENSIONS, unit_factor
 
 __all__ = [
@@ -312,42 +312,12 @@ def _time_axis(
 
 
 def _unpacked(da: xr.DataArray, where: str) -> np.ndarray:
-    """The values of *da* (opened without decoding) as float64, missing values as NaN."""
+    """The values of *da* (opened without decoding) as float64, missing values as NaN
+    (the one CF rule of :func:`gridflex.io.rasters.netcdf_missing`)."""
     raw = np.asarray(da.values)
-    attrs = da.attrs
-    if str(attrs.get("_Unsigned", "")).lower() == "true":
-        raise InputError(f"{where}: unsigned packed values (_Unsigned) are not supported")
     if not np.issubdtype(raw.dtype, np.number):
         raise InputError(f"{where}: values are not numbers ({raw.dtype})")
-    missing = (
-        ~np.isfinite(raw) if np.issubdtype(raw.dtype, np.floating) else np.zeros(raw.shape, bool)
-    )
-    fill = attrs.get("_FillValue")
-    if fill is None:
-        import netCDF4
-
-        fill = netCDF4.default_fillvals.get(raw.dtype.str[1:])
-    marks = [] if fill is None else [fill]
-    marks += list(np.atleast_1d(attrs.get("missing_value", [])))
-    for mark in marks:
-        if np.isfinite(mark):
-            missing |= raw == np.asarray(mark).astype(raw.dtype)
-    low, high = attrs.get("valid_min"), attrs.get("valid_max")
-    if "valid_range" in attrs:
-        low, high = np.atleast_1d(attrs["valid_range"])[:2]
-    with np.errstate(invalid="ignore"):
-        if low is not None:
-            missing |= raw < low
-        if high is not None:
-            missing |= raw > high
-    values = raw.astype(np.float64)
-    values[missing] = np.nan
-    scale, offset = attrs.get("scale_factor"), attrs.get("add_offset")
-    if scale is not None:
-        values = values * float(scale)
-    if offset is not None:
-        values = values + float(offset)
-    return values
+    return netcdf_missing(raw, dict(da.attrs))
 
 
 def _metric_axis(da: xr.DataArray, dim: str, where: str) -> np.ndarray:
@@ -397,7 +367,7 @@ class _Timed:
                 self.times, order = _time_axis(
                     tdim, np.asarray(tvar.values), dict(tvar.attrs), reference, self.where
                 )
-                self.crs: CRS | None = _grid_mapping_crs(ds, da, self.where)
+                self.crs: CRS | None = grid_mapping_crs(ds, da, self.where)
         self.values = _unpacked(da, self.where)[order]
         self.da = da
         self.attrs = {k: v for k, v in da.attrs.items() if k not in _PACKING}

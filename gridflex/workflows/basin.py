@@ -28,9 +28,14 @@ __all__ = ["format_basin_summary", "run_basin"]
 log = logging.getLogger(__name__)
 
 
-def _grid(path: Path, variable: str, where: str, reference: xr.DataArray | None) -> xr.DataArray:
-    """A metric length grid (m) from a GeoTIFF or NetCDF file, on *reference*'s grid."""
-    return read_grid_input(path, variable, where, metric=True, reference=reference)
+def _grid(
+    path: Path, variable: str, where: str, reference: xr.DataArray | None, role: str
+) -> xr.DataArray:
+    """A metric length grid (m) from a GeoTIFF or NetCDF file, on *reference*'s grid.
+
+    *role* (a :data:`gridflex.validation.GRID_ROLES` key) sets the physical range.
+    Rows come back south to north, or in *reference*'s order, whatever the file's order."""
+    return read_grid_input(path, variable, where, metric=True, reference=reference, role=role)
 
 
 def _lithology(row: dict[str, Any], where: str) -> Lithology:
@@ -56,10 +61,16 @@ def _stages(scenario: BasinScenario, surface: xr.DataArray) -> list[Stage]:
     stages = []
     for i, row in enumerate(array_table(scenario, "stages")):
         where = scenario.where("stages", index=i)
-        thickness = _grid(row["file"], row["variable"], where, surface)
+        thickness = _grid(row["file"], row["variable"], where, surface, "thickness")
         te: Any = row["elastic_thickness"]
         if row["te_file"] is not None:
-            te = _grid(row["te_file"], row["te_variable"], f"{where} te_file", surface)
+            te = _grid(
+                row["te_file"],
+                row["te_variable"],
+                f"{where} te_file",
+                surface,
+                "elastic_thickness",
+            )
         with error_context(where):
             stages.append(
                 Stage(
@@ -84,6 +95,7 @@ def _run_stages(
         table["surface_variable"],
         scenario.where("basin", "surface_file"),
         None,
+        "elevation",
     )
     stages = _stages(scenario, surface)
     with error_context(scenario.where("basin")):
@@ -114,7 +126,7 @@ def _run_backstrip_layers(scenario: BasinScenario) -> tuple[xr.Dataset, xr.DataA
     reference: xr.DataArray | None = None
     for i, row in enumerate(array_table(scenario, "backstrip_layers")):
         where = scenario.where("backstrip_layers", index=i)
-        grid = _grid(row["file"], row["variable"], where, reference)
+        grid = _grid(row["file"], row["variable"], where, reference, "thickness")
         reference = grid if reference is None else reference
         layers.append((grid, _lithology(row, where)))
         depth: float | xr.DataArray = row["water_depth"]
@@ -124,6 +136,7 @@ def _run_backstrip_layers(scenario: BasinScenario) -> tuple[xr.Dataset, xr.DataA
                 row["water_depth_variable"],
                 f"{where} water_depth_file",
                 reference,
+                "depth",
             )
         depths.append(depth)
         levels.append(row["sea_level_change"])
@@ -160,6 +173,7 @@ def _run_backstrip(scenario: BasinScenario) -> tuple[xr.Dataset, xr.DataArray]:
             table[f"{part}_variable"],
             scenario.where("backstrip", f"{part}_file"),
             reference,
+            "thickness" if part == "sediment" else "depth",
         )
         reference = grid if reference is None else reference
         grids[part] = grid

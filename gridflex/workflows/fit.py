@@ -30,7 +30,7 @@ __all__ = ["FitOutcome", "fit_outputs", "fit_scenario", "format_fit"]
 
 log = logging.getLogger(__name__)
 
-_OBSERVED_DIMENSION = {"deflection": "length", "surface": "length", "free_air_anomaly": None}
+_OBSERVED_ROLE = {"deflection": "deflection", "surface": "elevation", "free_air_anomaly": "anomaly"}
 
 
 @dataclass(kw_only=True)
@@ -118,7 +118,7 @@ def _observed_grids(
         table["observed_file"],
         table["observed_variable"],
         scenario.where("fit", "observed_file"),
-        dimension=_OBSERVED_DIMENSION[table["quantity"]],
+        role=_OBSERVED_ROLE[table["quantity"]],
         missing="keep",
         reference=load,
         working=grid.working,

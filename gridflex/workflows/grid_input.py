@@ -4,13 +4,29 @@ Every grid a scenario names (load layers, Te grids, break masks, observations,
 basin surfaces and layers, the bed of an ice history) comes through
 :func:`read_grid_input`, so one rule set holds for all of them:
 
-- **Units.** The CF ``units`` attribute of the variable is honoured through
-  :mod:`gridflex.units`; a grid without one is taken in the SI unit of its
-  quantity (m, Pa); an unknown unit is refused, naming the file and variable.
-- **Missing cells.** Nodata and NaN cells follow one explicit policy
+- **Units.** The CF ``units`` attribute of the variable (the band unit of a
+  GeoTIFF) is honoured through :mod:`gridflex.units` (lengths m, km, cm, mm, ft;
+  densities kg m-3, g cm-3; stresses Pa, kPa, MPa); a grid without one is taken in
+  the SI unit of its quantity (m, Pa); a unit of another kind (``Pa`` on a
+  thickness) or an unknown one is refused, naming the file and variable.
+- **Missing cells.** Nodata, ``_FillValue``, ``missing_value``, values outside
+  ``valid_range`` and netCDF's default fill values are missing
+  (:func:`gridflex.io.rasters.netcdf_missing`); they follow one explicit policy
   (:func:`apply_missing_policy`): ``"error"`` refuses them, ``"zero"`` fills them
   (with a :class:`~gridflex.errors.NodataWarning`), ``"keep"`` leaves them as NaN
   for the caller (an observation with gaps). Nothing is zeroed silently.
+- **Physical range.** A *role* (:data:`gridflex.validation.GRID_ROLES`) gives the
+  quantity and its range, checked after the unit conversion
+  (:func:`gridflex.validation.check_grid_range`): thicknesses not negative,
+  elevations and depths within 11 km of sea level, ice at most 5000 m thick.
+- **Coordinates.** An axis within 1 % of a step of a regular one is snapped onto
+  it; a truly irregular axis is resampled linearly onto a regular one, except for
+  masks and classes, which are refused (:func:`gridflex.io.rasters.regular_axis`).
+- **Row order.** Grids come back with both coordinates increasing (rows south to
+  north, as most NetCDF files store them), whatever the file's order
+  (:func:`gridflex.io.rasters.increasing_axes`); a grid checked against a
+  reference grid comes back in the reference's order. A north-up GeoTIFF and a
+  south-up NetCDF of the same cells are the same grid.
 - **Geographic grids** are recognised from the CRS only (a longitude/latitude
   CRS), never from the wording of coordinate units.
 - **Grid placement.** A grid on another geometry than the working grid is
@@ -30,11 +46,13 @@ import xarray as xr
 from gridflex.errors import InputError, NodataWarning
 from gridflex.gis.geometry import GridGeometry, geometry_of, reproject_values
 from gridflex.grid import check_same_grid
-from gridflex.io.rasters import MISSING_POLICIES, read_raster
+from gridflex.io.rasters import MISSING_POLICIES, increasing_axes, read_raster
 from gridflex.scenario.context import error_context
 from gridflex.units import DIMENSIONS, unit_factor
+from gridflex.validation import GRID_ROLES, check_grid_range
 
 __all__ = [
+    "GRID_ROLES",
     "MISSING_POLICIES",
     "apply_missing_policy",
     "in_si_units",
@@ -133,7 +151,17 @@ def _onto(
     resampling: str,
     missing: str,
 ) -> xr.DataArray:
-    """*da* resampled onto *working*, or checked to lie on *reference*'s grid."""
+    """*da* resampled onto *working*, or checked to lie on *reference*'s grid (rows and
+    columns put in *reference*'s order first)."""
+    flips = {
+        dim: slice(None, None, -1)
+        for dim in ("y", "x")
+        if da.sizes[dim] > 1
+        and reference.sizes.get(dim, 0) > 1
+        and (float(da[dim][-1] - da[dim][0]) > 0)
+        != (float(reference[dim][-1] - reference[dim][0]) > 0)
+    }
+    da = da.isel(flips) if flips else da
     geometry = geometry_of(da)
     if working is not None and geometry != working:
         values = reproject_values(
@@ -171,8 +199,12 @@ def read_grid_input(
     reference: xr.DataArray | None = None,
     working: GridGeometry | None = None,
     resampling: str = "bilinear",
+    role: str | None = None,
 ) -> xr.DataArray:
     """A grid file (GeoTIFF or NetCDF) read as a scenario input, in SI, on the working grid.
+
+    See the module's rules: units, missing cells, physical range, coordinates, row
+    order, placement.
 
     Parameters
     ----------
@@ -204,32 +236,52 @@ def read_grid_input(
         grid is resampled onto it with *resampling*; otherwise it must have
         *reference*'s coordinates.
     resampling : str, default "bilinear"
-        ``"bilinear"`` for continuous values, ``"nearest"`` for masks and classes.
+        ``"bilinear"`` for continuous values, ``"nearest"`` for masks and classes
+        (which are then never interpolated along an irregular file axis either).
+    role : str, optional
+        What the grid is, a :data:`gridflex.validation.GRID_ROLES` key
+        (``"thickness"``, ``"elevation"``, ``"depth"``, ``"ice_thickness"``,
+        ``"elastic_thickness"``, ``"stress"``, ...): its quantity replaces
+        *dimension*, and values outside its physical range are refused. Default:
+        ``"elevation"`` when *elevation* is set, else no range check.
 
     Returns
     -------
     xarray.DataArray
-        float64 on dims ``("y", "x")``; ``attrs["units"]`` is the SI unit when
-        *dimension* is given, ``attrs["crs_wkt"]`` the CRS of the grid returned.
+        float64 on dims ``("y", "x")``, ``y`` and ``x`` increasing (rows south
+        to north), or in *reference*'s order; ``attrs["units"]`` is the SI unit
+        when *dimension* is given, ``attrs["crs_wkt"]`` the CRS of the grid returned.
 
     Raises
     ------
     InputError
-        Unreadable file, unknown unit, refused missing cells, geographic grid where
-        a metric one is needed, a grid not on the reference grid; the message names
-        *where* and the file.
+        Unreadable file, unknown unit or one of another quantity, refused missing
+        cells, values out of the role's range (count and worst value), irregular
+        coordinates of a mask, geographic grid where a metric one is needed, a grid
+        not on the reference grid; the message names *where* and the file.
     """
     path = Path(path)
     label = f"{where}: {path.name}"
+    if role is None and elevation:
+        role = "elevation"
+    if role is not None:
+        if role not in GRID_ROLES:
+            raise ValueError(f"role must be one of {', '.join(GRID_ROLES)}, got {role!r}")
+        dimension = GRID_ROLES[role].dimension
+        elevation = elevation or role == "elevation"
+    classes = dimension is None or resampling == "nearest"
     with error_context(where):
-        da = read_raster(path, variable)
+        da = read_raster(path, variable, irregular="refuse" if classes else "resample")
     if metric and geometry_of(da).is_geographic:
         raise InputError(
             f"{label}: variable {da.name!r} is in longitude/latitude (geographic CRS); "
             "this run needs a grid in a metric projection"
         )
+    da = increasing_axes(da)
     da = apply_missing_policy(da, missing, label, elevation, missing_hint)
     da = in_si_units(da, dimension, label)
+    if role is not None:
+        check_grid_range(da.values, role, f"{label}: variable {da.name!r}")
     if reference is None:
         return da
     return _onto(da, label, reference, working, resampling, missing)

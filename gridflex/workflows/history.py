@@ -24,7 +24,7 @@ import numpy as np
 import xarray as xr
 from rasterio.crs import CRS
 
-from gridflex.constants import BED_ELEVATION_RANGE, MAX_ICE_THICKNESS, SEA_WATER_DENSITY
+from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.engine import SPECTRAL_EDGES
 from gridflex.errors import InputError
 from gridflex.gis.geometry import parse_crs
@@ -40,7 +40,7 @@ from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
 from gridflex.scenario.tables import SCHEMA, load_scenario
 from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
 from gridflex.synthetic import disc_height, empty_grid
-from gridflex.validation import check_values_within
+from gridflex.validation import check_grid_range
 from gridflex.workflows.grid_input import apply_missing_policy, in_si_units, read_grid_input
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan, stamp_result, with_vertical_displacement
@@ -231,19 +231,11 @@ def _ice_history(scenario: HistoryScenario, reference: str) -> xr.DataArray:
         where = f"{scenario.where('ice', 'file')}: {ice['file'].name}"
         history = apply_missing_policy(history, ice["missing"], where)
         history = in_si_units(history, "length", where)
-        check_values_within(
-            f"{where}: variable {ice['variable']!r} (ice thickness)",
-            history.values,
-            0.0,
-            MAX_ICE_THICKNESS,
-            unit="m",
-        )
+        check_grid_range(history.values, "ice_thickness", f"{where}: variable {ice['variable']!r}")
         return history
     g = scenario.table("grid")
     grid = empty_grid(g["rows"], g["columns"], g["spacing"])
-    check_values_within(
-        scenario.where("ice", "height"), [ice["height"]], 0.0, MAX_ICE_THICKNESS, unit="m"
-    )
+    check_grid_range([ice["height"]], "ice_thickness", scenario.where("ice", "height"))
     disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
     factors = np.asarray(ice["thickness_factors"], dtype=np.float64)
     values = factors[:, None, None] * disc.values[None]
@@ -278,11 +270,10 @@ def _bed(scenario: HistoryScenario, like: xr.DataArray) -> xr.DataArray:
         out.attrs = {"crs_wkt": ""}
         return out
     where = scenario.where("bed", "file")
-    grid = read_grid_input(bed["file"], bed["variable"], where, metric=True)
+    grid = read_grid_input(bed["file"], bed["variable"], where, metric=True, role="elevation")
     label = f"{where}: {bed['file'].name}: variable {grid.name!r}"
     grid = _in_order_of(grid, like)
     check_same_grid(grid, like, label)
-    check_values_within(label, grid.values, *BED_ELEVATION_RANGE, unit="m")
     return xr.DataArray(
         np.asarray(grid.values, dtype=np.float64),
         dims=like.dims,

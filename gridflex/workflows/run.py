@@ -118,6 +118,7 @@ def _te_grid(scenario: Scenario, like: xr.DataArray, working: GridGeometry | Non
             scenario.where("plate", "elastic_thickness_file"),
             reference=like,
             working=working,
+            role="elastic_thickness",
         )
     if margin is not None:
         with error_context(scenario.where("margin")):

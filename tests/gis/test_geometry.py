@@ -16,6 +16,7 @@ from gridflex.gis.geometry import (
     LONLAT,
     GridGeometry,
     cell_areas,
+    even_step,
     from_lonlat,
     local_projection,
     parse_crs,
@@ -266,3 +267,17 @@ def test_solve_through_the_local_grid_matches_a_direct_metric_solve(tmp_path):
     assert again.crs == LONLAT and again.shape == geometry.shape
     assert again.transform.almost_equals(geometry.transform, precision=1e-12)
     assert np.nanmax(back) == pytest.approx(peak, rel=0.01)
+
+
+def test_even_step_with_a_tolerance_accepts_rounded_centres():
+    # centres of 1/30-degree cells rounded to 4 decimals lie within 1.5e-3 of a step of
+    # the regular axis (common practice); the strict default refuses them
+    rounded = np.round(np.arange(40) / 30.0, 4)
+    with pytest.raises(InputError, match="not evenly spaced"):
+        even_step(rounded, "lat")
+    first, step, n = even_step(rounded, "lat", tolerance=0.01)
+    assert (first, n) == (0.0, 40) and step == pytest.approx(1 / 30.0, rel=1e-5)
+    with pytest.raises(InputError, match="not evenly spaced"):
+        even_step(np.array([0.0, 1.0, 2.05, 3.0]), "y", tolerance=0.01)
+    with pytest.raises(InputError, match="not evenly spaced"):
+        even_step(np.array([0.0, 2.0, 1.0, 3.0]), "y", tolerance=1.0)  # not monotonic

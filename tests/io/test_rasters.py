@@ -191,9 +191,9 @@ def test_netcdf_float32_coordinates_come_back_evenly_spaced(tmp_path):
     steps = np.diff(da["x"].values)
     assert np.ptp(steps) < 1e-12  # exactly even (round-off), common practice
     assert_allclose(da["x"].values, lon, rtol=0, atol=1e-4)  # float32 precision at 173 deg
-    with pytest.raises(InputError, match=r"f2\.nc: variable 'h': coordinate 'lon' is not evenly"):
-        ds.assign_coords(lon=np.r_[lon[:-1], np.float32(180.0)]).to_netcdf(tmp_path / "f2.nc")
-        read_raster(tmp_path / "f2.nc")
+    ds.assign_coords(lon=np.r_[lon[:-1], np.float32(180.0)]).to_netcdf(tmp_path / "f2.nc")
+    with pytest.raises(InputError, match=r"f2\.nc: variable 'h': coordinate 'lon': not evenly"):
+        read_raster(tmp_path / "f2.nc", irregular="refuse")
 
 
 def test_netcdf_metric_km_without_crs(tmp_path):
@@ -327,3 +327,160 @@ def test_file_type_comes_from_its_bytes(tmp_path):
     )
     ds.to_netcdf(tmp_path / "b.nc")
     assert read_raster(tmp_path / "b.nc").name == "h"
+
+
+# --- missing values (CF conventions 1.8, section 2.5.1; netCDF default fill values) ----------
+
+
+def _grid_file(path, values, dtype="f4", fill_value=None, attrs=None, rows=None):
+    """A NetCDF file written with netCDF4 itself; only *rows* of the variable are written
+    (the rest keep whatever netCDF-C fills in)."""
+    ny, nx = values.shape
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.createDimension("y", ny)
+        nc.createDimension("x", nx)
+        for name, n in (("y", ny), ("x", nx)):
+            coord = nc.createVariable(name, "f8", (name,))
+            coord[:] = 1000.0 * np.arange(n)
+            coord.units = "m"
+        var = nc.createVariable("h", dtype, ("y", "x"), fill_value=fill_value)
+        var.set_auto_maskandscale(False)
+        for key, value in (attrs or {}).items():
+            var.setncattr(key, value)
+        written = slice(None) if rows is None else rows
+        var[written, :] = values[written]
+    return path
+
+
+def test_netcdf_default_fill_value_is_missing(tmp_path):
+    # netCDF-C fills never-written cells of a variable without _FillValue with its type's
+    # default fill, 9.969209968386869e36 for float (netCDF-C default fill values, from
+    # memory; netCDF4.default_fillvals)
+    path = _grid_file(tmp_path / "part.nc", np.ones((6, 5)), rows=slice(0, 4))
+    with netCDF4.Dataset(path) as nc:
+        assert "_FillValue" not in nc["h"].ncattrs()
+        nc["h"].set_auto_mask(False)
+        assert nc["h"][5, 0] == np.float32(netCDF4.default_fillvals["f4"])
+    da = read_raster(path)
+    assert np.isnan(da.values).sum() == 10  # never 1e37 m of rock
+    assert_allclose(da.values[np.isfinite(da.values)], 1.0)
+
+
+def test_netcdf_default_fill_of_a_scaled_integer_grid(tmp_path):
+    # int16 default fill -32767 (netCDF-C, from memory); scale_factor and add_offset
+    # applied after masking (CF conventions 1.8, section 8.1)
+    values = np.arange(30, dtype=np.int16).reshape(6, 5)
+    attrs = {"scale_factor": 0.5, "add_offset": 100.0, "units": "m"}
+    da = read_raster(_grid_file(tmp_path / "i.nc", values, "i2", attrs=attrs, rows=slice(0, 3)))
+    assert_allclose(da.values[:3], values[:3] * 0.5 + 100.0)
+    assert np.isnan(da.values[3:]).all()
+
+
+def test_netcdf_declared_fill_missing_value_and_valid_range(tmp_path):
+    # CF conventions 1.8, section 2.5.1: _FillValue, missing_value and valid_range
+    values = np.array([[1.0, -9999.0, 3.0], [-1.0, 5.0, 9e3], [2.0, 2.0, 2.0]])
+    attrs = {"missing_value": -1.0, "valid_range": np.array([0.0, 8000.0])}
+    da = read_raster(_grid_file(tmp_path / "m.nc", values, "f8", -9999.0, attrs))
+    assert_array_equal(np.isnan(da.values), [[0, 1, 0], [1, 0, 1], [0, 0, 0]])
+    # a declared _FillValue other than the default: default-valued cells are not missing,
+    # but such a value is refused as an undeclared fill rather than read as 1e37 m
+    values[2, 2] = netCDF4.default_fillvals["f8"]
+    with pytest.raises(InputError, match=r"d\.nc: 'h' has 1 cell\(s\) holding 9\.96921e\+36"):
+        read_raster(_grid_file(tmp_path / "d.nc", values, "f8", -9999.0))
+
+
+def test_geotiff_float32_fill_without_nodata_is_refused(tmp_path):
+    # -3.4e38 (float32 minimum) is a common undeclared GDAL fill (common practice)
+    values = np.ones((4, 4), dtype=np.float32)
+    values[0, 0] = np.finfo(np.float32).min
+    _write_tif(tmp_path / "f.tif", values, Affine(1e3, 0, 0, 0, -1e3, 4e3), UTM33, None, "float32")
+    with pytest.raises(InputError, match=r"f\.tif: 'band1' has 1 cell\(s\) .* declare it"):
+        read_raster(tmp_path / "f.tif")
+
+
+# --- coordinates: snapped when rounded, resampled when irregular ------------------------------
+
+
+def test_rounded_coordinates_are_snapped_with_a_note(tmp_path, caplog):
+    # 1/30 degree cells stored with 4 decimals: steps differ by up to 3e-3 of a step
+    # (common practice in NetCDF files)
+    lat = np.round(-10.0 + np.arange(40) / 30.0, 4)
+    lon = np.round(150.0 + np.arange(50) / 30.0, 4)
+    steps = np.diff(lat)
+    assert np.ptp(steps) / steps.mean() > 2e-3
+    ds = xr.Dataset(
+        {"h": (("lat", "lon"), np.ones((40, 50)))},
+        coords={
+            "lat": ("lat", lat, {"units": "degrees_north"}),
+            "lon": ("lon", lon, {"units": "degrees_east"}),
+        },
+    )
+    ds.to_netcdf(tmp_path / "r.nc")
+    with caplog.at_level("INFO", logger="gridflex.io.rasters"):
+        da = read_raster(tmp_path / "r.nc")
+    assert "snapped onto a regular axis" in caplog.text
+    assert np.ptp(np.diff(da["y"].values)) < 1e-12
+    assert_allclose(da["y"].values, -10.0 + np.arange(40) / 30.0, rtol=0, atol=6e-5)
+
+
+def _mercator_file(path, name="h"):
+    """Latitudes spaced like a Mercator grid (equal steps in y = ln tan(pi/4 + lat/2));
+    values linear in latitude and longitude."""
+    merc = np.linspace(np.log(np.tan(np.pi / 4 + np.radians(10.0) / 2)), 1.0, 30)
+    lat = np.degrees(2 * np.arctan(np.exp(merc)) - np.pi / 2)
+    lon = 20.0 + 0.5 * np.arange(12)
+    values = 3.0 * lat[:, None] - 2.0 * lon[None, :]
+    ds = xr.Dataset(
+        {name: (("lat", "lon"), values)},
+        coords={
+            "lat": ("lat", lat, {"units": "degrees_north"}),
+            "lon": ("lon", lon, {"units": "degrees_east"}),
+        },
+    )
+    ds.to_netcdf(path)
+    return lat, lon
+
+
+def test_irregular_latitudes_are_resampled_onto_the_median_step(tmp_path, caplog):
+    lat, lon = _mercator_file(tmp_path / "merc.nc")
+    with caplog.at_level("WARNING", logger="gridflex.io.rasters"):
+        da = read_raster(tmp_path / "merc.nc")
+    assert "resampled linearly" in caplog.text
+    y = da["y"].values
+    assert y[0] == pytest.approx(lat[0], abs=1e-12) and y[-1] == pytest.approx(lat[-1], abs=1e-9)
+    step = np.median(np.diff(lat))
+    assert abs(np.diff(y)[0] - step) < 0.5 * step / (y.size - 1)  # the median, rounded
+    assert np.ptp(np.diff(y)) < 1e-9
+    # linear interpolation of a field linear in latitude is exact (common practice)
+    assert_allclose(da.values, 3.0 * y[:, None] - 2.0 * lon[None, :], rtol=0, atol=1e-9)
+
+
+def test_irregular_axis_refused_when_asked_and_unsorted_axis_always(tmp_path):
+    _mercator_file(tmp_path / "merc.nc")
+    with pytest.raises(
+        InputError,
+        match=r"merc\.nc: variable 'h': coordinate 'lat': not evenly .* "
+        r"write it on a regular grid",
+    ):
+        read_raster(tmp_path / "merc.nc", irregular="refuse")
+    ds = xr.Dataset(
+        {"h": (("y", "x"), np.ones((4, 4)))},
+        coords={"y": [0.0, 2.0, 1.0, 3.0], "x": np.arange(4.0)},
+    )
+    ds.to_netcdf(tmp_path / "u.nc")
+    with pytest.raises(InputError, match=r"u\.nc: .*'y': values are not strictly increasing"):
+        read_raster(tmp_path / "u.nc")
+
+
+def test_packed_coordinates_are_unpacked(tmp_path):
+    # scale_factor and add_offset on a coordinate variable (CF conventions 1.8, section 8.1)
+    with netCDF4.Dataset(tmp_path / "p.nc", "w") as nc:
+        for name, n in (("y", 4), ("x", 5)):
+            nc.createDimension(name, n)
+            coord = nc.createVariable(name, "i2", (name,))
+            coord.set_auto_maskandscale(False)
+            coord.setncatts({"scale_factor": 500.0, "add_offset": 1.0e4, "units": "m"})
+            coord[:] = np.arange(n, dtype=np.int16)
+        nc.createVariable("h", "f8", ("y", "x"))[:] = np.ones((4, 5))
+    da = read_raster(tmp_path / "p.nc")
+    assert_allclose(da["x"].values, 1.0e4 + 500.0 * np.arange(5))

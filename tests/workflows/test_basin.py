@@ -229,3 +229,62 @@ file = "tif_out.nc"
     got = got.sortby("y") if "y" in got.dims else got
     assert_allclose(got.values, expected["deflection"][0].values, rtol=1e-9, atol=1e-9)
     assert "crs" in out.variables or "spatial_ref" in out.variables
+
+
+@pytest.mark.parametrize("surface_kind", ["tif", "nc"])
+def test_basin_mixes_a_north_up_geotiff_and_a_south_up_netcdf(tmp_path, surface_kind):
+    # a north-up GeoTIFF (y decreasing, rasterio) and a south-up NetCDF (y increasing) of the
+    # same cells are the same grid; the run equals the library call on the grids themselves
+    # (common practice)
+    from tests.helpers import write_both_orders
+
+    shelf = _grid(np.broadcast_to(np.linspace(-400.0, 50.0, N), (N, N)).copy())
+    stage = _lens(400.0, 25e3)
+    surface_files = write_both_orders(tmp_path, "elevation", shelf)
+    stage_files = write_both_orders(tmp_path, "thickness", stage)
+    surface, stage_file = (
+        (surface_files[0], stage_files[1])
+        if surface_kind == "tif"
+        else (surface_files[1], stage_files[0])
+    )
+    (tmp_path / "mixed.toml").write_text(
+        f"""
+[plate]
+elastic_thickness = "6 km"
+
+[basin]
+surface_file = "{surface.name}"
+
+[[stages]]
+file = "{stage_file.name}"
+age = 1e6
+
+[output]
+file = "mixed_out.nc"
+"""
+    )
+    assert main(["basin", "-q", str(tmp_path / "mixed.toml")]) == 0
+    with xr.open_dataset(tmp_path / "mixed_out.nc") as ds:
+        out = ds.load()
+    assert np.all(np.diff(out["y"].values) > 0)  # the documented order: y increasing
+    expected = stage_loading([Stage(stage, 1e6)], shelf, Plate(te=6e3))
+    assert_allclose(
+        out["deflection"].isel(stage=0).values,
+        expected["deflection"][0].values,
+        rtol=1e-9,
+        atol=1e-9,
+    )
+
+
+def test_basin_refuses_a_negative_isopach_naming_file_and_variable(stage_files, capsys):
+    folder, _ = stage_files
+    _write(folder / "neg.nc", "thickness", _lens(500.0, 25e3) - 10.0)
+    (folder / "neg.toml").write_text(
+        '[plate]\nelastic_thickness = 0\n[basin]\nsurface_file = "surface.nc"\n'
+        'surface_variable = "elevation"\n[[stages]]\nfile = "neg.nc"\nvariable = "thickness"\n'
+        'age = 1e6\n[output]\nfile = "x.nc"\n'
+    )
+    assert main(["basin", str(folder / "neg.toml")]) == 2
+    err = capsys.readouterr().err
+    # a thickness is never negative (common practice)
+    assert "neg.nc: variable 'thickness':" in err and "below 0, down to -10" in err

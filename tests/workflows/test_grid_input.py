@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import netCDF4
 import numpy as np
 import pytest
 import rasterio
@@ -12,6 +13,7 @@ from numpy.testing import assert_allclose
 from gridflex.errors import InputError, NodataWarning
 from gridflex.gis.geometry import GridGeometry
 from gridflex.workflows.grid_input import apply_missing_policy, read_grid_input
+from tests.helpers import write_both_orders
 
 NY, NX, STEP = 6, 8, 1000.0
 WHERE = "s.toml: [plate] elastic_thickness_file"
@@ -61,7 +63,7 @@ def _reference(dx=STEP) -> xr.DataArray:
 def test_geotiff_in_km_is_read_in_metres(tmp_path):
     path = _write_tiff(tmp_path / "te.tif", _values(), unit="km")
     da = read_grid_input(path, None, WHERE)
-    assert_allclose(da.values, _values() * 1e3)
+    assert_allclose(da.values, _values()[::-1] * 1e3)  # rows come back south to north
     assert da.attrs["units"] == "m"
     assert da.attrs["crs_wkt"]  # the CRS travels with the grid
 
@@ -106,14 +108,14 @@ def test_nodata_policy_error_refuses_with_count_and_file(holed):
 def test_nodata_policy_zero_fills_and_warns(holed):
     with pytest.warns(NodataWarning, match="3 nodata or NaN cell"):
         da = read_grid_input(holed, None, WHERE, missing="zero")
-    assert np.all(da.values[0, :3] == 0.0)
-    assert_allclose(da.values[1:], _values()[1:])
+    assert np.all(da.values[-1, :3] == 0.0)  # the file's first (northern) row
+    assert_allclose(da.values[:-1], _values()[1:][::-1])
 
 
 def test_nodata_policy_zero_for_an_elevation_takes_the_median(holed):
     with pytest.warns(NodataWarning, match="no edifice"):
         da = read_grid_input(holed, None, WHERE, missing="zero", elevation=True)
-    assert np.all(da.values[0, :3] == np.median(_values().ravel()[3:]))
+    assert np.all(da.values[-1, :3] == np.median(_values().ravel()[3:]))
 
 
 def test_nodata_policy_keep_leaves_nan(holed):
@@ -141,7 +143,7 @@ def test_projected_grid_in_km_coordinates_is_metric(tmp_path):
     """A projected CRS is metric, whatever its coordinates are called."""
     path = _write_tiff(tmp_path / "utm.tif", _values())
     da = read_grid_input(path, None, WHERE, metric=True)
-    assert_allclose(da.values, _values())
+    assert_allclose(da.values, _values()[::-1])
 
 
 def test_grid_off_the_reference_grid_is_refused_naming_the_file(tmp_path):
@@ -185,3 +187,147 @@ def test_grid_that_does_not_cover_the_working_grid_is_refused(tmp_path):
 def test_unreadable_file_names_the_scenario_key(tmp_path):
     with pytest.raises(InputError, match=r"elastic_thickness_file: .*nothere\.tif: file not found"):
         read_grid_input(tmp_path / "nothere.tif", None, WHERE)
+
+
+# --- units of every role (gridflex.units, one table) ------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("units", "dimension", "factor"),
+    [
+        ("cm", "length", 1e-2),
+        ("mm", "length", 1e-3),
+        ("ft", "length", 0.3048),  # international foot (1959 agreement, from memory)
+        ("g cm-3", "density", 1e3),
+        ("kg m-3", "density", 1.0),
+        ("kPa", "pressure", 1e3),
+        ("Pa", "pressure", 1.0),
+    ],
+)
+def test_cf_units_of_each_quantity(tmp_path, units, dimension, factor):
+    # CF conventions 1.8, section 3.1: the units attribute of the variable
+    path = _write_netcdf(tmp_path / "u.nc", _values(), units)
+    da = read_grid_input(path, "h", WHERE, dimension=dimension)
+    assert_allclose(da.values, _values() * factor, rtol=1e-15)
+
+
+def test_a_pressure_unit_on_a_thickness_is_refused(tmp_path):
+    path = _write_netcdf(tmp_path / "p.nc", _values(), "Pa")
+    with pytest.raises(
+        InputError, match=r"p\.nc: variable 'h': unit 'Pa' is not a length \(it is a pressure\)"
+    ):
+        read_grid_input(path, "h", WHERE, role="thickness")
+
+
+# --- missing data and physical ranges -----------------------------------------------------
+
+
+def test_netcdf_default_fill_is_missing_not_rock(tmp_path):
+    # cells never written hold netCDF's default float fill 9.969209968386869e36 when no
+    # _FillValue is declared (netCDF-C default fill values, from memory): missing, counted
+    path = tmp_path / "part.nc"
+    with netCDF4.Dataset(path, "w") as nc:
+        for name, n in (("y", NY), ("x", NX)):
+            nc.createDimension(name, n)
+            coord = nc.createVariable(name, "f8", (name,))
+            coord[:] = STEP * np.arange(n)
+        var = nc.createVariable("h", "f4", ("y", "x"))
+        var.units = "km"
+        var[: NY - 1, :] = 1.5
+    with pytest.raises(InputError, match=rf"part\.nc: {NX} nodata or NaN cell\(s\)"):
+        read_grid_input(path, "h", WHERE, role="thickness")
+    with pytest.warns(NodataWarning):
+        da = read_grid_input(path, "h", WHERE, role="thickness", missing="zero")
+    assert float(da.max()) == 1500.0
+
+
+@pytest.mark.parametrize(
+    ("role", "units", "value", "message"),
+    [
+        ("thickness", "m", -3.0, r"1 cell\(s\) below 0, down to -3 \(a thickness"),
+        # deepest trench ~11 km, highest summit < 9 km (common knowledge)
+        ("elevation", "km", 12.0, r"1 cell\(s\) above 11000, up to 12000 \(an elevation"),
+        ("depth", "ft", -40000.0, r"1 cell\(s\) below -11000, down to -12192 \(a depth"),
+        # thickest ice today < 5 km (common knowledge, from memory)
+        ("ice_thickness", "m", 5200.0, r"1 cell\(s\) above 5000, up to 5200 \(an ice"),
+    ],
+)
+def test_values_out_of_the_roles_range_are_refused(tmp_path, role, units, value, message):
+    values = np.full((NY, NX), 0.1)
+    values[2, 3] = value
+    path = _write_netcdf(tmp_path / "r.nc", values, units)
+    with pytest.raises(InputError, match=r"r\.nc: variable 'h': " + message):
+        read_grid_input(path, "h", WHERE, role=role)
+
+
+def test_elevation_flag_checks_the_elevation_range(tmp_path):
+    # an elevation model in km read as metres would be refused, not silently 1000x
+    path = _write_tiff(tmp_path / "dem.tif", _values(), unit="km")
+    with pytest.raises(InputError, match=r"dem\.tif: variable 'band1': 37 cell\(s\) above 11000"):
+        read_grid_input(path, None, WHERE, elevation=True)
+
+
+# --- coordinates and row order ------------------------------------------------------------
+
+
+def test_mask_on_an_irregular_axis_is_refused_with_a_fix(tmp_path):
+    y = np.array([0.0, 1000.0, 2500.0, 4500.0, 7000.0, 10000.0])
+    ds = xr.Dataset(
+        {"m": (("y", "x"), np.ones((NY, NX)))}, coords={"y": y, "x": STEP * np.arange(NX)}
+    )
+    ds.to_netcdf(tmp_path / "mask.nc")
+    with pytest.raises(
+        InputError,
+        match=r"mask\.nc: variable 'm': coordinate 'y': not evenly .*"
+        r"not interpolated; write it on a regular grid",
+    ):
+        read_grid_input(tmp_path / "mask.nc", "m", WHERE, dimension=None)
+    da = read_grid_input(tmp_path / "mask.nc", "m", WHERE)  # a continuous value: resampled
+    assert da.sizes["y"] == 6 and float(da["y"][-1]) == 10000.0  # median step 2000 m
+
+
+def _field() -> xr.DataArray:
+    y = 6.0e6 + STEP * (np.arange(NY) + 0.5)
+    x = 5.0e5 + STEP * (np.arange(NX) + 0.5)
+    values = np.add.outer(np.arange(NY) * 10.0, np.arange(NX)) + 1.0
+    return xr.DataArray(values, dims=("y", "x"), coords={"y": y, "x": x}, name="h")
+
+
+def test_geotiff_and_south_up_netcdf_of_the_same_cells_are_the_same_grid(tmp_path):
+    # north-up GeoTIFF (GDAL convention) and south-up NetCDF (y increasing): same cells,
+    # same values at the same coordinates (common practice)
+    tif, nc = write_both_orders(tmp_path, "h", _field())
+    from_tif = read_grid_input(tif, None, WHERE, role="thickness")
+    from_nc = read_grid_input(nc, "h", WHERE, role="thickness")
+    assert np.all(np.diff(from_tif["y"].values) > 0)  # documented order: y increasing
+    assert_allclose(from_tif["y"].values, from_nc["y"].values, rtol=0, atol=1e-6)
+    assert_allclose(from_tif.values, from_nc.values, rtol=0, atol=0)
+    assert_allclose(from_nc.values, _field().values)
+    # each lies on the other's grid, whichever order the reference has
+    on_tif = read_grid_input(nc, "h", WHERE, reference=from_tif)
+    assert_allclose(on_tif.values, from_tif.values, rtol=0, atol=0)
+    north_up = from_tif.isel(y=slice(None, None, -1))
+    on_north = read_grid_input(nc, "h", WHERE, reference=north_up)
+    assert np.all(np.diff(on_north["y"].values) < 0)  # the reference's order
+    assert_allclose(on_north.values, north_up.values, rtol=0, atol=0)
+
+
+def test_run_layers_from_a_geotiff_and_a_netcdf_share_one_grid(tmp_path):
+    # two [[loads]] layers of the same cells, one north-up GeoTIFF and one south-up NetCDF:
+    # no resampling, the layers add cell by cell (common practice)
+    from gridflex.scenario.tables import load_scenario
+    from gridflex.workflows.layers import build_working_layers
+
+    field = _field()
+    tif, _ = write_both_orders(tmp_path, "a", field)
+    _, nc = write_both_orders(tmp_path, "b", field * 2.0)
+    (tmp_path / "two.toml").write_text(
+        f'[plate]\nelastic_thickness = "10 km"\n'
+        f'[[loads]]\nfile = "{tif.name}"\ndensity = 2800\n'
+        f'[[loads]]\nfile = "{nc.name}"\nvariable = "b"\ndensity = 2800\n'
+        '[output]\nfile = "out.nc"\n'
+    )
+    layers, grid = build_working_layers(load_scenario(tmp_path / "two.toml"))
+    assert not grid.resampled
+    assert_allclose(layers[1].values, 2.0 * layers[0].values, rtol=0, atol=0)
+    assert_allclose(layers[0].values, field.values)
