@@ -51,6 +51,7 @@ from gridflex.workflows.scenario_tables import array_table
 __all__ = [
     "WorkingGrid",
     "WorkingLoad",
+    "automatic_spacing",
     "build_working_layers",
     "build_working_load",
     "elevation_stress",
@@ -81,6 +82,9 @@ class WorkingGrid:
         The layers as read, on the input grid (empty unless the working grid was
         resampled and every layer shares the input grid): what the load is on the
         input grid, for :func:`to_input_grid`.
+    spacing_rule : str
+        Where the working cell size came from: the input's cells, ``[working_grid]
+        spacing``, or the smallest flexural parameter (:func:`automatic_spacing`).
     """
 
     input: GridGeometry
@@ -88,6 +92,7 @@ class WorkingGrid:
     resampled: bool
     resampling: str
     input_layers: tuple[xr.DataArray, ...] = ()
+    spacing_rule: str = "input cells"
 
     def describe(self) -> dict[str, Any]:
         """Attributes recording the working grid (for output metadata)."""
@@ -98,6 +103,7 @@ class WorkingGrid:
             "working_grid_spacing": float(min(dy, dx)),
             "working_grid_resampled": int(self.resampled),
             "working_grid_resampling": self.resampling if self.resampled else "none",
+            "working_grid_spacing_rule": self.spacing_rule,
         }
 
 
@@ -209,8 +215,48 @@ def _onto_working(
     return reproject_values(values, src, dst, method)
 
 
-def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], WorkingGrid]:
+SPACING_PER_FLEXURAL_PARAMETER = 16
+"""Automatic working cells are the smallest flexural parameter / this (see
+:func:`automatic_spacing`)."""
+COARSEN_BELOW = 4
+"""Input cells are coarsened automatically only when this many times finer than needed."""
+
+
+def automatic_spacing(input_cell: float, flexural_parameter: float | None) -> float | None:
+    """The working cell size (m) for an input much finer than the flexure needs.
+
+    The plate smooths the load over its flexural parameter alpha; cells of alpha / 16
+    resolve the deflection to a few per mille of its peak (measured on rough loads, see
+    DEVELOPERS.md), and the load detail finer than two working cells is added back on
+    the input grid (:func:`to_input_grid`). Inputs are coarsened only when their cells
+    are at least 4 times finer than alpha / 16; otherwise (and with no plate stiffness,
+    alpha = 0) the input's own cells are used.
+
+    Parameters
+    ----------
+    input_cell : float
+        The input's smaller cell size (m).
+    flexural_parameter : float or None
+        The smallest flexural parameter of the plate (m); None when not known.
+
+    Returns
+    -------
+    float or None
+        The spacing (m), or None to keep the input's cells.
+    """
+    if flexural_parameter is None or not flexural_parameter > 0:
+        return None
+    spacing = flexural_parameter / SPACING_PER_FLEXURAL_PARAMETER
+    return spacing if input_cell * COARSEN_BELOW <= spacing else None
+
+
+def build_working_layers(
+    scenario: Scenario, flexural_parameter: float | None = None
+) -> tuple[list[xr.DataArray], WorkingGrid]:
     """Every ``[[loads]]`` layer on the working grid, in its own quantity (SI).
+
+    Without ``[working_grid] spacing``, an input much finer than the plate needs is
+    aggregated onto cells of *flexural_parameter* / 16 (:func:`automatic_spacing`).
 
     Returns
     -------
@@ -238,10 +284,24 @@ def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], Workin
     else:
         crs = local_projection(first)
     same = all(g == first for g in geometries[1:])
-    target = working_geometry(first, crs, options["spacing"])
+    spacing, method = options["spacing"], options["resampling"]
+    rule = "input cells" if spacing is None else "[working_grid] spacing"
+    if spacing is None:
+        spacing = automatic_spacing(min(first.cell_size_metres()), flexural_parameter)
+        if spacing is not None:
+            method = "average"  # many input cells to one: aggregate, keeping the force
+            rule = f"smallest flexural parameter / {SPACING_PER_FLEXURAL_PARAMETER}"
+            log.info(
+                "input cells %.4g m are much finer than the plate needs: working cells "
+                "of %.4g m (flexural parameter %.4g m / %d)",
+                min(first.cell_size_metres()),
+                spacing,
+                flexural_parameter,
+                SPACING_PER_FLEXURAL_PARAMETER,
+            )
+    target = working_geometry(first, crs, spacing)
     resampled = not (
         same
-        and options["spacing"] is None
         and target == first.north_up()
         and (crs == first.crs or (crs is None and first.crs is None))
     )
@@ -251,13 +311,13 @@ def build_working_layers(scenario: Scenario) -> tuple[list[xr.DataArray], Workin
     for layer, stress, geometry in zip(layers, stresses, geometries, strict=True):
         values = stress.values
         if resampled:
-            values = _onto_working(values, geometry, target, options["resampling"], layer["kind"])
+            values = _onto_working(values, geometry, target, method, layer["kind"])
             # outside a layer: no load, or the elevation model's typical level
             outside = float(np.nanmedian(values)) if layer["kind"] == "elevation" else 0.0
             values = np.nan_to_num(values, nan=outside)
         out.append(_as_dataarray(values, target, str(layer["name"] or "layer")))
     kept = tuple(stresses) if resampled and same else ()
-    grid = WorkingGrid(first, target, resampled, options["resampling"], kept)
+    grid = WorkingGrid(first, target, resampled, method, kept, rule)
     if resampled:
         log.info("layers resampled onto a %s working grid (%s)", target.shape, _crs_label(crs))
     return out, grid
@@ -308,7 +368,9 @@ class WorkingLoad:
         return load
 
 
-def working_load(scenario: Scenario) -> tuple[WorkingLoad, WorkingGrid]:
+def working_load(
+    scenario: Scenario, flexural_parameter: float | None = None
+) -> tuple[WorkingLoad, WorkingGrid]:
     """The load of the ``[[loads]]`` layers on the working grid, by part.
 
     A thickness layer presses with (density - displaced_density) g h, a stress layer
@@ -321,7 +383,7 @@ def working_load(scenario: Scenario) -> tuple[WorkingLoad, WorkingGrid]:
         As :func:`build_working_layers`.
     """
     gravity = scenario.table("plate")["gravity"]
-    values, grid = build_working_layers(scenario)
+    values, grid = build_working_layers(scenario, flexural_parameter)
     fixed = np.zeros(grid.working.shape)
     thickness = []
     regional: list[np.ndarray | None] = []

@@ -130,12 +130,42 @@ def _te_grid(scenario: Scenario, like: xr.DataArray, working: GridGeometry | Non
     return xr.full_like(like, float(constant), dtype=np.float64)
 
 
+def smallest_flexural_parameter(scenario: Scenario) -> float:
+    """The plate's smallest flexural parameter (m), before any working grid exists.
+
+    From the smallest Te of the constant, the ``[margin]`` profile or the Te file (read on
+    its own grid); breaks do not change it. 0 when Te reaches 0 anywhere.
+    """
+    table = scenario.table("plate")
+    margin = scenario.tables.get("margin")
+    if table["elastic_thickness_file"] is not None:
+        te_grid = read_grid_input(
+            table["elastic_thickness_file"],
+            table["elastic_thickness_variable"],
+            scenario.where("plate", "elastic_thickness_file"),
+        )
+        smallest = float(np.nanmin(te_grid.values))
+    elif margin is not None:
+        smallest = min(float(margin["te_left"]), float(margin["te_right"]))
+    elif table["elastic_thickness"] is not None:
+        smallest = float(table["elastic_thickness"])
+    else:
+        return 0.0  # no Te at all: plate_from_scenario says so
+    if not np.isfinite(smallest):
+        return 0.0
+    return float(_plate(scenario, max(smallest, 0.0)).flexural_parameter)
+
+
 def plate_from_scenario(
     scenario: Scenario, like: xr.DataArray | None = None, grid: WorkingGrid | None = None
 ) -> Plate:
     """The :class:`Plate` of the ``[plate]`` table (Te grids on *like*'s grid)."""
+    return _plate(scenario, elastic_thickness_from_scenario(scenario, like, grid))
+
+
+def _plate(scenario: Scenario, te: float | xr.DataArray) -> Plate:
+    """A :class:`Plate` of *te* with the other ``[plate]`` values."""
     table = scenario.table("plate")
-    te = elastic_thickness_from_scenario(scenario, like, grid)
     with error_context(scenario.where("plate")):
         return Plate(
             te,
@@ -219,13 +249,14 @@ def _solve_working(
     """
     solver = scenario.table("solver")
     input_load = None
+    alpha = smallest_flexural_parameter(scenario)
     if scenario.table("infill") is not None:
-        layers, grid = build_working_layers(scenario)
+        layers, grid = build_working_layers(scenario, alpha)
         column = load_column(scenario, layers)
         plate = plate_from_scenario(scenario, column["load"], grid)
         working = infill_step(scenario, plate, column, progress)
     else:
-        parts, grid = working_load(scenario)
+        parts, grid = working_load(scenario, alpha)
         load = parts()
         plate = plate_from_scenario(scenario, load, grid)
         input_load = input_grid_load(scenario, grid, parts)
