@@ -78,13 +78,13 @@ def apply_missing_policy(
     da : xarray.DataArray
         A grid (any dims) with missing cells as NaN.
     policy : {"error", "zero", "keep"}
-        ``"error"``: refuse missing cells; ``"zero"``: fill them with 0 (no load), or
-        with the median when *elevation* (no edifice there), and warn; ``"keep"``:
-        leave them NaN.
+        ``"error"``: refuse missing cells; ``"zero"``: fill them with 0 (no load) and
+        warn, or, for an *elevation*, warn and leave them NaN for the load to set to
+        its regional surface (no edifice there); ``"keep"``: leave them NaN.
     where : str
         The file and scenario key, for messages.
     elevation : bool, default False
-        The grid is a surface elevation (m): ``"zero"`` fills with its median.
+        The grid is a surface elevation (m): ``"zero"`` leaves missing cells NaN.
     hint : str, optional
         What else the user may do, added to the ``"error"`` message.
 
@@ -107,15 +107,14 @@ def apply_missing_policy(
         raise InputError(
             f"{where}: {count} nodata or NaN cell(s); fill them" + (f", or {hint}" if hint else "")
         )
-    if elevation:  # no load there: the surface at its typical (median) level
-        level = float(np.nanmedian(da.values))
+    if elevation:  # no load there: the load sets them to its regional surface
         warnings.warn(
-            f"{where}: {count} nodata or NaN cell(s) taken as no edifice (the "
-            f"layer's median elevation, {level:.6g})",
+            f"{where}: {count} nodata or NaN cell(s) taken as no edifice (they get the "
+            "regional surface: no load)",
             NodataWarning,
             stacklevel=4,
         )
-        return da.fillna(level)
+        return da
     warnings.warn(
         f"{where}: {count} nodata or NaN cell(s) taken as zero load", NodataWarning, stacklevel=4
     )
@@ -224,7 +223,9 @@ def read_grid_input(
     missing_hint : str, optional
         What else the user may do about missing cells (e.g. a policy key to set).
     elevation : bool, default False
-        The values are a surface elevation (``"zero"`` fills with the median).
+        The values are a surface elevation (``"zero"`` keeps missing cells NaN, for
+        :func:`gridflex.workflows.layers.elevation_stress` to set to the regional
+        surface).
     metric : bool, default False
         Refuse a grid in a geographic (longitude/latitude) CRS: the caller cannot
         resample it.

@@ -175,7 +175,7 @@ def _layer_values(scenario: Scenario, index: int) -> xr.DataArray:
         layer["file"],
         layer["variable"],
         scenario.where("loads", index=index),
-        dimension="pressure" if layer["kind"] == "stress" else "length",
+        role=layer["kind"],  # thickness >= 0, elevation within 11 km, stress in Pa
         missing=layer["missing"],
         missing_hint='set missing = "zero" to treat them as no load',
         elevation=layer["kind"] == "elevation",
@@ -188,9 +188,15 @@ def elevation_stress(scenario: Scenario, index: int, elevation: xr.DataArray) ->
     layer = array_table(scenario, "loads")[index]
     infill: Mapping[str, Any] = scenario.table("infill") or {}
     regional: Any = layer["regional_elevation"]
+    missing = np.isnan(elevation.values)
     with error_context(scenario.where("loads", index=index)):
         if regional is None:
-            regional = regional_surface(elevation, layer["regional_radius"])
+            # the median smoothing sees the missing cells at the layer's median level
+            known = elevation.fillna(float(np.nanmedian(elevation.values)))
+            regional = regional_surface(known, layer["regional_radius"])
+        if missing.any():  # no data: no edifice, the surface at the regional level
+            level = regional.values if isinstance(regional, xr.DataArray) else regional
+            elevation = elevation.copy(data=np.where(missing, level, elevation.values))
         return load_from_elevation(
             elevation,
             layer["density"],
@@ -263,7 +269,8 @@ def build_working_layers(
     layers : list of xarray.DataArray
         Per layer, in scenario order: thickness or elevation (m) or stress (Pa) on dims
         ``("y", "x")`` in metres of the working CRS. Outside a resampled layer a
-        thickness or stress is 0 and an elevation is the layer's median.
+        thickness or stress is 0 and an elevation is NaN (no data: set to the regional
+        surface by :func:`elevation_stress`).
     grid : WorkingGrid
         Input and working geometries.
 
@@ -312,9 +319,8 @@ def build_working_layers(
         values = stress.values
         if resampled:
             values = _onto_working(values, geometry, target, method, layer["kind"])
-            # outside a layer: no load, or the elevation model's typical level
-            outside = float(np.nanmedian(values)) if layer["kind"] == "elevation" else 0.0
-            values = np.nan_to_num(values, nan=outside)
+            if layer["kind"] != "elevation":  # outside a layer: no load
+                values = np.nan_to_num(values, nan=0.0)  # (elevations: see elevation_stress)
         out.append(_as_dataarray(values, target, str(layer["name"] or "layer")))
     kept = tuple(stresses) if resampled and same else ()
     grid = WorkingGrid(first, target, resampled, method, kept, rule)
@@ -450,11 +456,15 @@ def input_grid_load(scenario: Scenario, grid: WorkingGrid, parts: WorkingLoad) -
                 if surface is None:
                     return None
                 regional = sample_values(surface, grid.working, grid.input)
+            base = np.broadcast_to(np.asarray(regional, dtype=np.float64), values.shape)
+            if not np.isfinite(base).all():
+                return None
+            surface_in = np.where(np.isnan(values), base, values)  # no data: no edifice
             with error_context(scenario.where("loads", index=index)):
                 part = load_from_elevation(
-                    da.copy(data=values),
+                    da.copy(data=surface_in),
                     layer["density"],
-                    da.copy(data=np.broadcast_to(regional, values.shape).copy()),
+                    da.copy(data=base.copy()),
                     sea_level=infill.get("sea_level", 0.0),
                     water_density=infill.get("water_density", SEA_WATER_DENSITY),
                     gravity=gravity,

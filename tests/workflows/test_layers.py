@@ -6,6 +6,7 @@ import numpy as np
 import rasterio
 import xarray as xr
 from affine import Affine
+from numpy.testing import assert_allclose
 
 from gridflex.cli.main import main
 from gridflex.workflows.layers import automatic_spacing
@@ -70,3 +71,43 @@ def test_a_fine_raster_is_solved_on_cells_of_a_sixteenth_flexural_parameter(tmp_
     assert direct.attrs["working_grid_resampled"] == 0
     w, w0 = auto["deflection"].values, direct["deflection"].values
     assert np.abs(w - w0).max() <= 0.005 * np.abs(w0).max()
+
+
+def test_elevation_cells_without_data_carry_no_load(tmp_path, capsys):
+    # issue 14: nodata cells of an elevation model used to get the layer's median as rock
+    # (a load where nothing is known); now they get the regional surface (no load), and a
+    # warning counts them. Expected load from the rule rho g (z - regional) below sea level
+    # buoyed by sea water (PHYSICS.md section 0, rule 3)
+    y, x = np.mgrid[0:N, 0:N] * CELL
+    elevation = -4000.0 + 3000.0 * np.exp(-((x - 32e3) ** 2 + (y - 32e3) ** 2) / (2 * 5e3**2))
+    elevation[150:170, 150:170] = np.nan  # on the edifice's summit
+    elevation[10:20, 10:20] = np.nan  # on the flat sea floor
+    _write(tmp_path / "fine.tif", elevation)
+    (tmp_path / "s.toml").write_text(
+        """
+[plate]
+elastic_thickness = "5 km"
+
+[working_grid]
+spacing = "800 m"
+
+[[loads]]
+file = "fine.tif"
+kind = "elevation"
+density = 2800
+regional_elevation = -4000
+missing = "zero"
+
+[output]
+file = "out.nc"
+"""
+    )
+    assert main(["run", str(tmp_path / "s.toml")]) == 0
+    assert "500 nodata or NaN cell(s) taken as no edifice" in capsys.readouterr().err
+    with xr.open_dataset(tmp_path / "out.nc") as ds:
+        load = ds["load"].sortby("y", ascending=False).values
+    assert np.all(load[150:170, 150:170] == 0.0) and np.all(load[10:20, 10:20] == 0.0)
+    known = np.isfinite(elevation)
+    expected = (2800.0 - 1030.0) * 9.81 * (elevation + 4000.0)
+    summit = known & (elevation > -3900.0)
+    assert_allclose(load[summit], expected[summit].astype(np.float32), rtol=1e-5)
