@@ -13,6 +13,7 @@ __all__ = [
     "InputError",
     "ConvergenceError",
     "GridflexWarning",
+    "CompensationOutsideWarning",
     "EdgeLoadWarning",
     "GravitySeriesWarning",
     "NodataWarning",
@@ -43,6 +44,10 @@ class GridflexWarning(UserWarning):
 
 class EdgeLoadWarning(GridflexWarning):
     """A load reaches the edge of the grid, where it is cut off by the solver."""
+
+
+class CompensationOutsideWarning(GridflexWarning):
+    """Part of the load's compensation (the moat and bulge) lies beyond the written grid."""
 
 
 class GravitySeriesWarning(GridflexWarning):

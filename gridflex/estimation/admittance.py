@@ -26,7 +26,6 @@ from typing import Any
 import numpy as np
 import scipy.fft
 import scipy.optimize
-import scipy.signal.windows
 import xarray as xr
 
 from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
@@ -75,8 +74,10 @@ class _Bands:
         self.flat = index[self.inside]
         self.nb = edges.size - 1
         self.edges = edges
-        vy = np.atleast_2d(scipy.signal.windows.dpss(spec.ny, bandwidth, count))
-        vx = np.atleast_2d(scipy.signal.windows.dpss(spec.nx, bandwidth, count))
+        from scipy.signal import windows  # imported here: slow, and only tapers need it
+
+        vy = np.atleast_2d(windows.dpss(spec.ny, bandwidth, count))
+        vx = np.atleast_2d(windows.dpss(spec.nx, bandwidth, count))
         self.tapers = [(ty, tx) for ty in vy for tx in vx]
         self.count = count
         check_memory(16.0 * len(self.tapers) * self.flat.size * 2, "multitaper spectra")

@@ -27,7 +27,6 @@ from typing import Any
 import numpy as np
 import scipy.fft
 import scipy.optimize
-import scipy.stats
 import xarray as xr
 
 from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
@@ -67,6 +66,13 @@ _ROOT_XTOL = 1e-6  # in ln(Te)
 
 class OpenIntervalWarning(GridflexWarning):
     """The Te interval reaches a search bound: the data do not limit Te on that side."""
+
+
+def _chi2_quantile(confidence: float) -> float:
+    """The *confidence* quantile of the chi-square law with one degree of freedom."""
+    from scipy.stats import chi2  # imported here: scipy.stats is slow to import
+
+    return float(chi2.ppf(confidence, 1))
 
 
 @dataclass(frozen=True)
@@ -126,7 +132,7 @@ class TeFit:
     @property
     def criterion(self) -> str:
         """The rule that bounds the interval, in words and numbers."""
-        quantile = float(scipy.stats.chi2.ppf(self.confidence, 1))
+        quantile = _chi2_quantile(self.confidence)
         return (
             f"profile likelihood: (RSS - RSS_min) / s^2 * n_eff / n = chi2_1({self.confidence:g})"
             f" = {quantile:.4g}, s^2 = RSS_min / (n - p), n = {self.n_data}, "
@@ -653,7 +659,7 @@ def fit_te(
         residual = np.where(inside, observed_values - (model + offset), 0.0)
         factor = _correlation_factor(residual, inside, spec)
     s2 = rss_min / (n - _parameters(fit_load_scale))
-    threshold = float(scipy.stats.chi2.ppf(confidence, 1)) * s2 * factor
+    threshold = _chi2_quantile(confidence) * s2 * factor
     ends, closed = _interval(trials.rss, grid, best_index, best_x, rss_min, threshold)
     _warn_if_open(closed, confidence, bounds)
     log.info(

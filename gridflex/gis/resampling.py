@@ -29,12 +29,17 @@ import numpy as np
 import rasterio.warp
 from affine import Affine
 from rasterio.crs import CRS
+from scipy import sparse
 
 from gridflex.errors import InputError
 from gridflex.gis.geometry import GridGeometry, cell_areas
 from gridflex.memory import check_memory
 
-__all__ = ["PARTIAL_RULES", "aggregate_values", "sample_values"]
+__all__ = ["PARTIAL_RULES", "RESULT_GRIDS", "aggregate_values", "sample_values"]
+
+RESULT_GRIDS = ("input", "working")
+"""Where results may be written: brought back onto the input grid, or on the grid of the
+solve (no resampling back)."""
 
 PARTIAL_RULES = ("sum", "mean")
 """How :func:`aggregate_values` fills a partially covered destination cell."""
@@ -166,6 +171,30 @@ def aggregate_values(
     d_up = dst.north_up()
     ny_d, nx_d = d_up.shape
     check_memory(8.0 * (3 * ny_d * nx_d + 2 * values.size), "aggregating onto the working grid")
+    if pair is None:  # the same CRS: axis by axis, with sparse sharing matrices
+        total, covered = _aggregate_separable(values, src, d_up, split)
+    else:
+        total, covered = _aggregate_points(values, src, d_up, split, pair)
+    out = np.full(ny_d * nx_d, np.nan)
+    has = covered > 0
+    if partial == "sum":
+        out[has] = total[has] / cell_areas(d_up).ravel()[has]
+    else:
+        out[has] = total[has] / covered[has]
+    grid = out.reshape(ny_d, nx_d)
+    return grid if d_up is dst else grid[::-1].copy()
+
+
+def _aggregate_points(
+    values: np.ndarray,
+    src: GridGeometry,
+    d_up: GridGeometry,
+    split: int,
+    pair: tuple[CRS, CRS] | None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Shared integral and covered area per destination cell (flat), sub-cell by sub-cell
+    through the CRS transform."""
+    ny_d, nx_d = d_up.shape
     total = np.zeros(ny_d * nx_d)
     covered = np.zeros(ny_d * nx_d)
     src_area = cell_areas(src) / split**2
@@ -186,14 +215,52 @@ def aggregate_values(
                 index, weights=weight * block[keep] * area[keep], minlength=total.size
             )
             covered += np.bincount(index, weights=weight * area[keep], minlength=covered.size)
-    out = np.full(ny_d * nx_d, np.nan)
-    has = covered > 0
-    if partial == "sum":
-        out[has] = total[has] / cell_areas(d_up).ravel()[has]
-    else:
-        out[has] = total[has] / covered[has]
-    grid = out.reshape(ny_d, nx_d)
-    return grid if d_up is dst else grid[::-1].copy()
+    return total, covered
+
+
+def _axis_sharing(
+    src_start: float,
+    src_step: float,
+    n_src: int,
+    dst_start: float,
+    dst_step: float,
+    n_dst: int,
+    split: int,
+) -> sparse.csr_matrix:
+    """(n_dst, n_src) weights sharing each source cell's ``split`` sub-cells among the two
+    nearest destination centres along one axis (each source column sums to 1, less what
+    falls beyond the destination's outer edges)."""
+    offsets = (np.arange(split) + 0.5) / split
+    source = np.repeat(np.arange(n_src), split)
+    position = src_start + src_step * (source + np.tile(offsets, n_src))
+    u = (position - dst_start) / dst_step  # in destination cells from its outer edge
+    inside = (u >= 0) & (u <= n_dst)
+    source, u = source[inside], u[inside] - 0.5
+    lower = np.floor(u).astype(np.int64)
+    frac = u - lower
+    rows = np.concatenate([np.clip(lower, 0, n_dst - 1), np.clip(lower + 1, 0, n_dst - 1)])
+    cols = np.concatenate([source, source])
+    data = np.concatenate([1.0 - frac, frac]) / split
+    return sparse.csr_matrix((data, (rows, cols)), shape=(n_dst, n_src))
+
+
+def _aggregate_separable(
+    values: np.ndarray, src: GridGeometry, d_up: GridGeometry, split: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """As :func:`_aggregate_points` for grids in one CRS: the sharing is the product of
+    one matrix per axis, applied as two sparse products (no per-point work)."""
+    t, d = src.transform, d_up.transform
+    ny_s, nx_s = src.shape
+    ny_d, nx_d = d_up.shape
+    along_x = _axis_sharing(t.c, t.a, nx_s, d.c, d.a, nx_d, split)
+    along_y = _axis_sharing(t.f, t.e, ny_s, d.f, d.e, ny_d, split)
+    area = cell_areas(src)
+    known = np.isfinite(values)
+    force = np.where(known, values, 0.0) * area
+    cover = known * area
+    total = along_y @ (along_x @ force.T).T
+    covered = along_y @ (along_x @ cover.T).T
+    return np.asarray(total).ravel(), np.asarray(covered).ravel()
 
 
 def _cloud_in_cell(
@@ -209,7 +276,7 @@ def _cloud_in_cell(
     """
     r0 = np.floor(row).astype(np.int64)
     c0 = np.floor(col).astype(np.int64)
-    fr, fc = row - r0, col - c0
+    fr, fc = _snap(row - r0), _snap(col - c0)
     shares = []
     for dr, wr in ((0, 1.0 - fr), (1, fr)):
         for dc, wc in ((0, 1.0 - fc), (1, fc)):
@@ -242,6 +309,8 @@ def sample_values(values: np.ndarray, src: GridGeometry, dst: GridGeometry) -> n
     ny_s, nx_s = src.shape
     ny_d, nx_d = dst.shape
     check_memory(8.0 * (ny_d * nx_d + 6 * min(_BLOCK_POINTS, ny_d * nx_d)), "sampling a grid")
+    if pair is None:  # the same CRS: one axis at a time
+        return _sample_separable(values, src, dst)
     inverse = ~src.transform
     out = np.empty((ny_d, nx_d))
     cols = np.arange(nx_d) + 0.5
@@ -257,6 +326,43 @@ def sample_values(values: np.ndarray, src: GridGeometry, dst: GridGeometry) -> n
     return out
 
 
+def _snap(frac: np.ndarray) -> np.ndarray:
+    """Fractions within 1e-9 of 0 or 1 set to it: a centre that coincides with a source
+    centre up to round-off reads that centre alone."""
+    return np.where(frac < 1e-9, 0.0, np.where(frac > 1.0 - 1e-9, 1.0, frac))
+
+
+def _axis_weights(
+    src_start: float, src_step: float, n_src: int, dst_start: float, dst_step: float, n_dst: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Per destination centre along one axis: the two source cells, their weights, and
+    whether it lies within the source's outer edges."""
+    position = dst_start + dst_step * (np.arange(n_dst) + 0.5)
+    index = (position - src_start) / src_step - 0.5  # in source centres
+    inside = (index >= -0.5) & (index <= n_src - 0.5)
+    index = np.clip(index, 0, n_src - 1)
+    lower = np.minimum(np.floor(index).astype(np.int64), max(n_src - 2, 0))
+    frac = _snap(index - lower)
+    return lower, np.minimum(lower + 1, n_src - 1), 1.0 - frac, frac, inside
+
+
+def _sample_separable(values: np.ndarray, src: GridGeometry, dst: GridGeometry) -> np.ndarray:
+    """:func:`sample_values` for grids in one CRS: interpolate along x, then along y. A
+    neighbour of zero weight is not read (a NaN there does not spread)."""
+    t, d = src.transform, dst.transform
+    (ny_s, nx_s), (ny_d, nx_d) = src.shape, dst.shape
+    c0, c1, wc0, wc1, in_x = _axis_weights(t.c, t.a, nx_s, d.c, d.a, nx_d)
+    r0, r1, wr0, wr1, in_y = _axis_weights(t.f, t.e, ny_s, d.f, d.e, ny_d)
+    along_x = np.where(wc0 > 0, wc0 * values[:, c0], 0.0) + np.where(
+        wc1 > 0, wc1 * values[:, c1], 0.0
+    )
+    out = np.where(wr0[:, None] > 0, wr0[:, None] * along_x[r0], 0.0)
+    out += np.where(wr1[:, None] > 0, wr1[:, None] * along_x[r1], 0.0)
+    out[~in_y, :] = np.nan
+    out[:, ~in_x] = np.nan
+    return out
+
+
 def _bilinear(values: np.ndarray, row: np.ndarray, col: np.ndarray) -> np.ndarray:
     """Bilinear interpolation at fractional (row, col) inside the array's centres.
 
@@ -266,7 +372,7 @@ def _bilinear(values: np.ndarray, row: np.ndarray, col: np.ndarray) -> np.ndarra
     ny, nx = values.shape
     r0 = np.minimum(np.floor(row).astype(np.int64), max(ny - 2, 0))
     c0 = np.minimum(np.floor(col).astype(np.int64), max(nx - 2, 0))
-    fr, fc = row - r0, col - c0
+    fr, fc = _snap(row - r0), _snap(col - c0)
     r1, c1 = np.minimum(r0 + 1, ny - 1), np.minimum(c0 + 1, nx - 1)
     out = np.zeros(row.shape)
     for rr, cc, weight in (

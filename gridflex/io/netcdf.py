@@ -15,7 +15,10 @@ from gridflex.errors import InputError
 from gridflex.io.atomic import atomic_path
 from gridflex.io.gridmapping import cf_grid_mapping
 
-__all__ = ["NETCDF_LOCK", "read_result", "write_netcdf"]
+__all__ = ["NETCDF_LOCK", "OUTPUT_DTYPES", "as_output_dtype", "read_result", "write_netcdf"]
+
+OUTPUT_DTYPES = ("float64", "float32")
+"""Precisions the grids of a result may be written in."""
 
 NETCDF_LOCK = threading.RLock()
 """Held by every NetCDF read and write of gridflex: the netCDF-C and HDF5 libraries are
@@ -50,6 +53,25 @@ def read_result(path: str | Path) -> xr.Dataset:
     if not {"y", "x"} <= set(ds.dims):
         raise InputError(f"{path}: not a gridflex result: no (y, x) or (lat, lon) grid")
     return ds
+
+
+def as_output_dtype(ds: xr.Dataset, dtype: str) -> xr.Dataset:
+    """*ds* with every floating-point data variable in *dtype* (coordinates untouched).
+
+    Raises
+    ------
+    InputError
+        *dtype* is not one of :data:`OUTPUT_DTYPES`.
+    """
+    if dtype not in OUTPUT_DTYPES:
+        raise InputError(f"dtype must be one of {OUTPUT_DTYPES}, got {dtype!r}")
+    if dtype == "float64":
+        return ds
+    out = ds.copy()
+    for name, var in ds.data_vars.items():
+        if np.issubdtype(var.dtype, np.floating):
+            out[name] = var.astype(dtype, keep_attrs=True)
+    return out
 
 
 def _netcdf_attr(value: Any) -> Any:

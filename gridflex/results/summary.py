@@ -58,11 +58,13 @@ def deflection_summary(result: xr.Dataset, footprint_fraction: float = 0.01) -> 
 
 def format_summary(summary: dict[str, Any]) -> str:
     """The summary as a few aligned lines of text (km and m)."""
-    return "\n".join(
-        [
-            f"maximum deflection  {summary['max_deflection']:10.1f} m (downward)",
-            f"moat depth          {summary['moat_depth']:10.1f} m (deepest point beyond the load)",
-            f"forebulge height    {summary['bulge_height']:10.1f} m (uplift)",
-            f"forebulge distance  {summary['bulge_distance'] / 1e3:10.1f} km from the load's edge",
-        ]
-    )
+    lines = [
+        f"maximum deflection  {summary['max_deflection']:10.1f} m (downward)",
+        f"moat depth          {summary['moat_depth']:10.1f} m (deepest point beyond the load)",
+        f"forebulge height    {summary['bulge_height']:10.1f} m (uplift)",
+        f"forebulge distance  {summary['bulge_distance'] / 1e3:10.1f} km from the load's edge",
+    ]
+    if "compensation_outside" in summary:
+        share = 100.0 * summary["compensation_outside"]
+        lines.append(f"beyond the grid     {share:10.1f} % of the compensation (not written)")
+    return "\n".join(lines)

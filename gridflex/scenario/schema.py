@@ -59,7 +59,8 @@ class Key:
     ----------
     kind : str
         ``"quantity"`` (number or string with unit of *dimension*), ``"number"``,
-        ``"integer"``, ``"string"``, ``"choice"``, ``"path"``, ``"bool"``, ``"list"``.
+        ``"integer"``, ``"string"``, ``"choice"``, ``"path"``, ``"bool"``,
+        ``"flag_or_names"`` (true, false or a list of names), ``"list"``.
     help : str
         One line for documentation.
     default : object
@@ -220,6 +221,14 @@ def _check_bool(value: Any, key: Key, where: str, base: Path) -> Any:
     return check_flag(where, value)
 
 
+def _check_flag_or_names(value: Any, key: Key, where: str, base: Path) -> Any:
+    if isinstance(value, list):
+        if not all(isinstance(item, str) and item for item in value):
+            raise InputError(f"{where} must be true, false or a list of names, got {value!r}")
+        return list(value)
+    return check_flag(where, value)
+
+
 def _check_list(value: Any, key: Key, where: str, base: Path) -> Any:
     if not isinstance(value, list):
         raise InputError(f"{where} must be a list, got {value!r}")
@@ -234,6 +243,7 @@ _CHECKERS: dict[str, _Checker] = {
     "choice": _check_choice,
     "path": _check_path,
     "bool": _check_bool,
+    "flag_or_names": _check_flag_or_names,
     "list": _check_list,
 }
 

@@ -34,7 +34,9 @@ from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
 from gridflex.engine import EDGES, METHODS
 from gridflex.estimation.misfit import QUANTITIES
 from gridflex.gis.geometry import RESAMPLING
+from gridflex.gis.resampling import RESULT_GRIDS
 from gridflex.infill import SEDIMENT_MODES
+from gridflex.io.netcdf import OUTPUT_DTYPES
 from gridflex.io.rasters import LAYER_MISSING_POLICIES
 from gridflex.loads import LOAD_KINDS
 from gridflex.scenario.checks import check_scenario
@@ -288,8 +290,18 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "free_air_map": Key("path", "PNG map of the free-air anomaly (needs [gravity])", None),
         "bouguer_map": Key("path", "PNG map of the Bouguer anomaly (needs [gravity])", None),
         "geotiff": Key(
-            "bool", "also write one GeoTIFF per output variable beside the NetCDF", False
+            "flag_or_names",
+            "also write GeoTIFFs beside the NetCDF: true for every output grid, or a list "
+            "of variable names",
+            False,
         ),
+        "grid": Key(
+            "choice",
+            "where the results are written: on the input grid or on the working grid",
+            "input",
+            choices=RESULT_GRIDS,
+        ),
+        "dtype": Key("choice", "precision of the written grids", "float64", choices=OUTPUT_DTYPES),
         "outlines": Key("path", "GeoJSON of the moat outline, forebulge crest and zero line", None),
         "moat_depth": Key(
             "quantity",
@@ -475,7 +487,9 @@ class OutputTable(TypedDict):
     moat_fill_map: Path | None
     free_air_map: Path | None
     bouguer_map: Path | None
-    geotiff: bool
+    geotiff: bool | list[str]
+    grid: str
+    dtype: str
     outlines: Path | None
     moat_depth: float | None
     profile_start: list[Any] | None

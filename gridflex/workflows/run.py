@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import dataclasses
 import logging
+import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -10,11 +12,12 @@ from typing import Any, cast
 
 import numpy as np
 import xarray as xr
+from rasterio.crs import CRS
 
 from gridflex.engine import solve
-from gridflex.errors import InputError
+from gridflex.errors import CompensationOutsideWarning, InputError
 from gridflex.gis.geometry import GridGeometry
-from gridflex.io.netcdf import write_netcdf
+from gridflex.io.netcdf import as_output_dtype, write_netcdf
 from gridflex.io.plots import plot_deflection_map, plot_field_map, plot_profile
 from gridflex.io.rasters import write_geotiff
 from gridflex.io.tables import write_csv
@@ -191,6 +194,8 @@ def output_dataset(
     :func:`to_input_grid`)."""
     out = stamp_result(with_vertical_displacement(result, "plate"), scenario, command)
     out.attrs.update(grid.describe())
+    if scenario.table("output")["grid"] == "working":
+        return out
     if back is None:
         return to_input_grid(out, grid)
     return to_input_grid(out, grid, back.input_load, back.rigidity)
@@ -205,9 +210,50 @@ class BackToInput:
     rigidity: float | np.ndarray
 
 
-def _geotiff_paths(netcdf: Path, result: xr.Dataset) -> dict[str, Path]:
-    names = [n for n in result.data_vars if result[n].dims == ("y", "x")]
-    return {str(n): netcdf.with_name(f"{netcdf.stem}_{n}.tif") for n in names}
+def _geotiff_paths(scenario: Scenario, result: xr.Dataset) -> dict[str, Path]:
+    """``{variable: path}`` of the GeoTIFFs ``[output] geotiff`` asks for (none, every
+    grid of the result, or the listed variables, each of which must be one)."""
+    output = scenario.table("output")
+    wanted, netcdf = output["geotiff"], output["file"]
+    grids = [str(n) for n in result.data_vars if result[n].dims == ("y", "x")]
+    if wanted is False:
+        return {}
+    names = grids if wanted is True else list(wanted)
+    unknown = [n for n in names if n not in grids]
+    if unknown:
+        raise InputError(
+            f"{scenario.where('output', 'geotiff')}: no output grid {unknown[0]!r}; "
+            f"the grids are {', '.join(grids)}"
+        )
+    return {name: netcdf.with_name(f"{netcdf.stem}_{name}.tif") for name in names}
+
+
+def _written_crs(scenario: Scenario, grid: WorkingGrid) -> CRS | None:
+    """The CRS of the written grids: the input's, or the working grid's."""
+    return grid.working.crs if scenario.table("output")["grid"] == "working" else grid.input.crs
+
+
+def compensation_outside(working: xr.Dataset) -> float | None:
+    """Share of the load's compensation that lies outside the grid (0 to 1).
+
+    On an unbounded plate the restoring force ∫ (ρm − ρinfill) g w dA balances the
+    load ∫ q dA (force balance, PHYSICS.md 1.1); the part of it missing from the grid
+    is the compensation beyond its edges. Known for a plain solve with infinite edges
+    and one infill density (else None).
+    """
+    attrs = working.attrs
+    if attrs.get("edges") != "infinite" or "moat_fill" in working:
+        return None
+    try:
+        contrast = float(attrs["plate_mantle_density"]) - float(attrs["plate_infill_density"])
+        stiffness = contrast * float(attrs["plate_gravity"])
+    except (KeyError, TypeError, ValueError):
+        return None
+    total = float(np.sum(working["load"].values))
+    if not total > 0:
+        return None
+    inside = stiffness * float(np.sum(working["deflection"].values))
+    return float(min(max(1.0 - inside / total, 0.0), 1.0))
 
 
 _FIELD_MAPS = {
@@ -260,6 +306,7 @@ def _solve_working(
         load = parts()
         plate = plate_from_scenario(scenario, load, grid)
         input_load = input_grid_load(scenario, grid, parts)
+        grid = dataclasses.replace(grid, input_layers=())  # read layers: free them now
         log.info("solving %s load grid", load.shape)
         working = solve(
             load,
@@ -296,17 +343,37 @@ def run_scenario(
     InputError
         Bad inputs or output paths.
     """
-    outputs = scenario.table("output")
     plan = OutputPlan(scenario, overwrite)
     plan.add(_planned_outputs(scenario))
     working, grid, back = _solve_working(scenario, progress)
     result = output_dataset(working, scenario, grid, back=back)
     summary = deflection_summary(working)
     outcome = RunOutcome(result=result, summary=summary, text=format_summary(summary))
-    tiffs = _geotiff_paths(outputs["file"], result) if outputs["geotiff"] else {}
+    tiffs = _geotiff_paths(scenario, result)
+    _warn_compensation_outside(working, summary)
     plan.add({f"geotiff {name}": path for name, path in tiffs.items()})
     _write_outputs(scenario, plan, outcome, working, grid, tiffs)
     return outcome
+
+
+COMPENSATION_WARNING = 0.05
+"""Share of the compensation outside the grid above which a run warns."""
+
+
+def _warn_compensation_outside(working: xr.Dataset, summary: dict[str, Any]) -> None:
+    """Record the compensation beyond the grid in *summary*; warn above 5 %."""
+    share = compensation_outside(working)
+    if share is None:
+        return
+    summary["compensation_outside"] = share
+    if share > COMPENSATION_WARNING:
+        warnings.warn(
+            f"{share:.0%} of the load's compensation (the plate's restoring force) lies "
+            "outside the grid and is not written; extend the input grid beyond the load "
+            "by a few flexural parameters to see all of the moat and bulge",
+            CompensationOutsideWarning,
+            stacklevel=3,
+        )
 
 
 def _write_outputs(
@@ -321,11 +388,12 @@ def _write_outputs(
     outputs = scenario.table("output")
     result = outcome.result
     overwrite, inputs = plan.overwrite, plan.inputs
-    crs = grid.input.crs
+    crs = _written_crs(scenario, grid)
     written = outcome.written
-    written.append(write_netcdf(result, outputs["file"], overwrite, inputs, crs=crs))
+    grids = as_output_dtype(result, outputs["dtype"])
+    written.append(write_netcdf(grids, outputs["file"], overwrite, inputs, crs=crs))
     for name, path in tiffs.items():
-        written.append(write_geotiff(result[name], path, crs, overwrite, inputs))
+        written.append(write_geotiff(grids[name], path, crs, overwrite, inputs))
     if outputs["map"]:
         written.append(plot_deflection_map(result, outputs["map"], overwrite, inputs))
     by_key: Mapping[str, Any] = outputs

@@ -100,3 +100,16 @@ def test_interpolated_coordinate_lattice_is_within_a_few_centimetres():
     )
     assert np.abs(exact[0] - lattice[0]).max() < 0.05
     assert np.abs(exact[1] - lattice[1]).max() < 0.05
+
+
+def test_aggregation_in_one_crs_keeps_the_force_and_a_constant():
+    # the same rule axis by axis (sparse sharing matrices) when no CRS change is needed:
+    # the integral is kept to round-off and a constant stays constant inside (common practice)
+    src = GridGeometry(None, Affine(30.0, 0.0, 0.0, 0.0, -30.0, 30e3), (1000, 1200))
+    dst = working_geometry(src, None, 1700.0)
+    q = np.random.default_rng(5).uniform(0.0, 1e6, src.shape)
+    q[400:420, 500:530] = np.nan
+    out = resampling.aggregate_values(q, src, dst)
+    assert abs(np.nansum(out) * 1700.0**2 / (np.nansum(q) * 30.0**2) - 1.0) < 1e-9
+    flat = resampling.aggregate_values(np.full(src.shape, 2.0), src, dst, "mean")
+    assert_allclose(flat[np.isfinite(flat)], 2.0, rtol=1e-12)

@@ -14,8 +14,10 @@ from gridflex.basin.staging import ISOPACHS
 from gridflex.engine import EDGES, METHODS, SPECTRAL_EDGES
 from gridflex.estimation.misfit import QUANTITIES
 from gridflex.gis.geometry import RESAMPLING
+from gridflex.gis.resampling import RESULT_GRIDS
 from gridflex.glacial.response import INITIAL_STATES
 from gridflex.infill import SEDIMENT_MODES
+from gridflex.io.netcdf import OUTPUT_DTYPES
 from gridflex.io.rasters import LAYER_MISSING_POLICIES
 from gridflex.loads import LOAD_KINDS
 from gridflex.scenario.schema import Key, Scenario
@@ -34,6 +36,8 @@ LIBRARY_CHOICES: dict[tuple[str, str, str], tuple[str, ...]] = {
     ("run", "loads", "kind"): LOAD_KINDS,
     ("run", "infill", "sediment"): SEDIMENT_MODES,
     ("run", "fit", "quantity"): QUANTITIES,
+    ("run", "output", "grid"): RESULT_GRIDS,
+    ("run", "output", "dtype"): OUTPUT_DTYPES,
     ("basin", "solver", "edges"): EDGES,
     ("basin", "basin", "isopachs"): ISOPACHS,
     ("basin", "stages", "lithology"): tuple(LITHOLOGIES),
@@ -83,6 +87,7 @@ _KIND_TYPES: dict[str, Any] = {
     "choice": str,
     "path": Path,
     "bool": bool,
+    "flag_or_names": bool | list[str],
     "list": list[Any],
 }
 

@@ -4,9 +4,12 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import numpy as np
 import pytest
+import rasterio
+import xarray as xr
 
-from gridflex.errors import InputError
+from gridflex.errors import CompensationOutsideWarning, InputError
 from gridflex.scenario.tables import load_scenario
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan
@@ -79,12 +82,79 @@ def test_later_paths_are_checked_before_earlier_folders_are_made(tmp_path):
 
 def test_plan_creates_folders_and_the_run_writes_what_was_planned(tmp_path):
     scenario = _scenario(tmp_path, 'map = "maps/deflection.png"')
-    outcome = run_scenario(scenario)
+    with pytest.warns(CompensationOutsideWarning, match="compensation"):  # a small grid
+        outcome = run_scenario(scenario)
     assert isinstance(outcome, RunOutcome)
     assert outcome.written == [tmp_path / "out/result.nc", tmp_path / "maps/deflection.png"]
     assert all(p.is_file() for p in outcome.written)
     report = outcome.report().splitlines()
     assert report[-2:] == [f"wrote {p}" for p in outcome.written]
     assert "deflection" in outcome.text
-    again = run_scenario(scenario, overwrite=True)
+    with pytest.warns(CompensationOutsideWarning):
+        again = run_scenario(scenario, overwrite=True)
     assert again.written == outcome.written
+
+
+def _gaussian_scenario(tmp_path, rows, output_extra):
+    tmp_path.mkdir(parents=True, exist_ok=True)
+    (tmp_path / "s.toml").write_text(
+        f"""
+[plate]
+elastic_thickness = "20 km"
+
+[grid]
+rows = {rows}
+columns = {rows}
+spacing = "4 km"
+
+[[loads]]
+synthetic = "gaussian"
+radius = "15 km"
+height = "2 km"
+density = 2800
+displaced_density = 1030
+
+[output]
+file = "out/result.nc"
+{output_extra}
+"""
+    )
+    return load_scenario(tmp_path / "s.toml")
+
+
+def test_compensation_outside_the_grid_is_what_a_larger_grid_sees_beyond_it(tmp_path):
+    # on an unbounded plate the restoring force balances the load (force balance,
+    # Turcotte & Schubert 2002, Geodynamics, section 3-9); the share missing from a small
+    # grid must equal what a grid 4 times wider finds beyond the small grid's extent
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CompensationOutsideWarning)
+        small = run_scenario(_gaussian_scenario(tmp_path / "a", 40, ""))
+        large = run_scenario(_gaussian_scenario(tmp_path / "b", 160, ""))
+    w = large.result["deflection"]
+    q = float(large.result["load"].sum())
+    half = 80e3  # the small grid spans 40 cells of 4 km
+    inside = w.where((abs(w["x"]) < half) & (abs(w["y"]) < half)).sum()
+    expected = 1.0 - (3300.0 - 1030.0) * 9.81 * float(inside) / q
+    assert small.summary["compensation_outside"] == pytest.approx(expected, abs=2e-3)
+    assert small.summary["compensation_outside"] > 0.05
+    assert large.summary["compensation_outside"] < 0.01
+
+
+def test_output_keys_choose_the_grid_the_precision_and_the_geotiffs(tmp_path):
+    scenario = _gaussian_scenario(
+        tmp_path, 160, 'geotiff = ["deflection"]\ndtype = "float32"\ngrid = "working"'
+    )
+    outcome = run_scenario(scenario)
+    out = tmp_path / "out"
+    assert sorted(p.name for p in out.iterdir()) == ["result.nc", "result_deflection.tif"]
+    with xr.open_dataset(out / "result.nc") as ds:
+        assert ds["deflection"].dtype == np.float32
+        assert ds["deflection"].shape == (160, 160)
+    with rasterio.open(out / "result_deflection.tif") as src:
+        assert src.dtypes[0] == "float32"
+    assert outcome.result["deflection"].dtype == np.float64  # in memory: full precision
+    bad = _gaussian_scenario(tmp_path / "c", 160, 'geotiff = ["no_such_grid"]')
+    with pytest.raises(InputError, match=r"\[output\] geotiff: no output grid 'no_such_grid'"):
+        run_scenario(bad)
