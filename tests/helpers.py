@@ -150,3 +150,34 @@ def write_both_orders(
     ds["x"].attrs = {"units": "m", "standard_name": "projection_x_coordinate"}
     ds.to_netcdf(folder / f"{stem}.nc")
     return tif, folder / f"{stem}.nc"
+
+
+def write_float32_geotiff(
+    path: Path,
+    values: Any,
+    transform: Any,
+    crs: str = "EPSG:32633",
+    nodata: float | None = None,
+    units: str | None = None,
+) -> Path:
+    """One band of *values* (rows north to south) as a float32 GeoTIFF, with an optional
+    nodata value and band ``units`` tag."""
+    import rasterio
+
+    data = np.asarray(values, dtype=np.float32)
+    with rasterio.open(
+        path,
+        "w",
+        driver="GTiff",
+        width=data.shape[1],
+        height=data.shape[0],
+        count=1,
+        dtype="float32",
+        crs=crs,
+        transform=transform,
+        nodata=nodata,
+    ) as dst:
+        dst.write(data, 1)
+        if units is not None:
+            dst.update_tags(1, units=units)
+    return path

@@ -3,13 +3,13 @@
 from __future__ import annotations
 
 import numpy as np
-import rasterio
 import xarray as xr
 from affine import Affine
 from numpy.testing import assert_allclose
 
 from gridflex.cli.main import main
 from gridflex.workflows.layers import automatic_spacing
+from tests.helpers import write_float32_geotiff
 
 N, CELL = 320, 200.0  # an invented 64 km square raster of 200 m cells
 
@@ -22,18 +22,7 @@ def test_automatic_spacing_only_for_inputs_much_finer_than_the_plate_needs():
 
 
 def _write(path, height):
-    with rasterio.open(
-        path,
-        "w",
-        driver="GTiff",
-        width=N,
-        height=N,
-        count=1,
-        dtype="float32",
-        crs="EPSG:32633",
-        transform=Affine(CELL, 0.0, 500e3, 0.0, -CELL, 4.0e6),
-    ) as dst:
-        dst.write(height.astype(np.float32), 1)
+    write_float32_geotiff(path, height, Affine(CELL, 0.0, 500e3, 0.0, -CELL, 4.0e6))
 
 
 def _run(tmp_path, name, working):

@@ -15,6 +15,7 @@ from rasterio.crs import CRS
 
 from gridflex.cli.main import main
 from gridflex.io.rasters import read_raster
+from tests.helpers import write_float32_geotiff
 
 LON0, LAT0, STEP = 25.0, -30.0, 0.02  # an invented open-ocean patch; 0.02 degree cells
 NY, NX = 120, 140
@@ -30,20 +31,7 @@ def _write_lonlat_tiff(path, nodata_corner=False):
     height = height.astype(np.float32)
     if nodata_corner:
         height[:3, :3] = -9999.0
-    with rasterio.open(
-        path,
-        "w",
-        driver="GTiff",
-        width=NX,
-        height=NY,
-        count=1,
-        dtype="float32",
-        crs="EPSG:4326",
-        transform=transform,
-        nodata=-9999.0,
-    ) as dst:
-        dst.write(height, 1)
-        dst.update_tags(1, units="m")
+    write_float32_geotiff(path, height, transform, "EPSG:4326", nodata=-9999.0, units="m")
     return transform
 
 
@@ -167,19 +155,7 @@ def test_unknown_crs_in_grid_table(tmp_path, capsys):
 
 def _write_rough_lonlat(path, values):
     transform = Affine(STEP, 0.0, LON0 - NX * STEP / 2, 0.0, -STEP, LAT0 + NY * STEP / 2)
-    with rasterio.open(
-        path,
-        "w",
-        driver="GTiff",
-        width=NX,
-        height=NY,
-        count=1,
-        dtype="float32",
-        crs="EPSG:4326",
-        transform=transform,
-    ) as dst:
-        dst.write(values.astype(np.float32), 1)
-        dst.update_tags(1, units="m")
+    write_float32_geotiff(path, values, transform, "EPSG:4326", units="m")
 
 
 LOCAL = """
@@ -264,18 +240,7 @@ def _projected_rough(path):
     rng = np.random.default_rng(7)
     height = np.zeros((120, 140))
     height[30:90, 40:100] = rng.uniform(0.0, 2500.0, (60, 60))
-    with rasterio.open(
-        path,
-        "w",
-        driver="GTiff",
-        width=140,
-        height=120,
-        count=1,
-        dtype="float32",
-        crs="EPSG:32633",
-        transform=Affine(1000.0, 0.0, 500e3, 0.0, -1000.0, 4.0e6),
-    ) as dst:
-        dst.write(height.astype(np.float32), 1)
+    write_float32_geotiff(path, height, Affine(1000.0, 0.0, 500e3, 0.0, -1000.0, 4.0e6))
 
 
 def _deflection_for(tmp_path, name, working):
