@@ -5,10 +5,11 @@ from __future__ import annotations
 import argparse
 
 from gridflex.cli.common import SubParsers, add_common_options, add_overwrite_option, wrote
+from gridflex.errors import InputError
 from gridflex.io.netcdf import read_result
 from gridflex.io.plots import plot_profile
 from gridflex.io.tables import write_csv
-from gridflex.results.profile import sample_profile
+from gridflex.results.profile import at_step, one_column_per_step, sample_profile
 
 NAME = "profile"
 HELP = "sample a result grid along a straight line and write a CSV (and a plot)"
@@ -28,15 +29,27 @@ def add_parser(subparsers: SubParsers) -> None:
     parser.add_argument("--plot", help="PNG plot of the profile")
     parser.add_argument("--samples", type=int, help="number of points (default: 2 per cell)")
     parser.add_argument("--variables", nargs="+", help="variables to sample (default: all)")
+    parser.add_argument(
+        "--at",
+        type=float,
+        metavar="VALUE",
+        help="for a result with a time, stage or step axis: sample only the step nearest "
+        "VALUE (years for a history; default: a column per step)",
+    )
     add_overwrite_option(parser)
     add_common_options(parser)
 
 
 def execute(args: argparse.Namespace) -> int:
     result = read_result(args.result)
+    if args.at is not None:
+        result = at_step(result, args.at, args.result)
     profile = sample_profile(result, args.start, args.end, args.samples, args.variables)
+    if args.plot and any(v.dims != ("distance",) for v in profile.data_vars.values()):
+        raise InputError(f"{args.result}: --plot draws one step; choose it with --at")
+    table = one_column_per_step(profile)
     inputs = [args.result]
-    written = [write_csv(profile, args.csv, args.overwrite, inputs)]
+    written = [write_csv(table, args.csv, args.overwrite, inputs)]
     if args.plot:
         written.append(plot_profile(profile, args.plot, args.overwrite, inputs))
     if not args.quiet:

@@ -10,7 +10,7 @@ import xarray as xr
 from gridflex.errors import InputError
 from gridflex.validation import check_integer
 
-__all__ = ["EARTH_RADIUS", "sample_profile"]
+__all__ = ["EARTH_RADIUS", "at_step", "one_column_per_step", "sample_profile"]
 
 EARTH_RADIUS = 6_371_008.8
 """Mean Earth radius (m) for distances along geographic profiles (IUGG; from memory)."""
@@ -19,6 +19,60 @@ EARTH_RADIUS = 6_371_008.8
 def _is_geographic(ds: xr.Dataset) -> bool:
     units = str(ds["x"].attrs.get("units", "")).lower()
     return units.startswith("degree")
+
+
+def _wrap_into(lon: float, grid_lon: np.ndarray) -> float:
+    """*lon* moved by whole turns into the span of the grid's longitudes, if that helps."""
+    west = float(np.min(grid_lon))
+    wrapped = west + (lon - west) % 360.0
+    return wrapped if wrapped <= float(np.max(grid_lon)) else lon
+
+
+def at_step(ds: xr.Dataset, value: float, where: str) -> xr.Dataset:
+    """*ds* at the step of its one extra axis (time, stage, step) nearest *value*.
+
+    Raises
+    ------
+    InputError
+        *ds* has no axis besides ``y`` and ``x``, or more than one.
+    """
+    others = sorted({str(d) for v in ds.data_vars.values() for d in v.dims} - {"y", "x"})
+    if len(others) != 1:
+        raise InputError(f"{where}: --at needs exactly one axis besides y and x, found {others}")
+    axis = others[0]
+    index = int(np.argmin(np.abs(_step_values(ds, axis) - value)))
+    return ds.isel({axis: index})
+
+
+def _step_values(ds: xr.Dataset | xr.DataArray, axis: str) -> np.ndarray:
+    """Numbers labelling the steps of *axis*: ``<axis>_years`` when present (times of a
+    history in years), else the axis' own numeric coordinate, else the step index."""
+    for name in (f"{axis}_years", axis):
+        if name in ds.coords and ds[name].dims == (axis,):
+            try:
+                return np.asarray(ds[name].values, dtype=np.float64)
+            except (TypeError, ValueError):
+                continue  # dates
+    return np.arange(ds.sizes[axis], dtype=np.float64)
+
+
+def one_column_per_step(profile: xr.Dataset) -> xr.Dataset:
+    """*profile* with each variable that has an axis besides ``distance`` (time, stage,
+    step) split into one variable per step, named ``name[axis=value]``: a table for CSV.
+    """
+    out = xr.Dataset(coords={k: v for k, v in profile.coords.items() if v.dims == ("distance",)})
+    for name, var in profile.data_vars.items():
+        others = [str(d) for d in var.dims if d != "distance"]
+        if not others:
+            out[name] = var
+            continue
+        if len(others) > 1:
+            raise InputError(f"{name}: more than one axis besides the profile ({others})")
+        axis = others[0]
+        for i, value in enumerate(_step_values(var, axis)):
+            column = var.isel({axis: i}, drop=True)
+            out[f"{name}[{axis}={value:g}]"] = column.assign_attrs(var.attrs)
+    return out
 
 
 def _distances(xs: np.ndarray, ys: np.ndarray, geographic: bool) -> np.ndarray:
@@ -74,6 +128,8 @@ def sample_profile(
             f"profile ends must be two (x, y) pairs, got {start!r} and {end!r}"
         ) from exc
     xs_grid, ys_grid = ds["x"].values, ds["y"].values
+    if _is_geographic(ds):  # longitudes in the grid's convention (0-360 or ±180)
+        x0, x1 = _wrap_into(x0, xs_grid), _wrap_into(x1, xs_grid)
     for name, (px, py) in (("start", (x0, y0)), ("end", (x1, y1))):
         if not (min(xs_grid) <= px <= max(xs_grid) and min(ys_grid) <= py <= max(ys_grid)):
             raise InputError(
@@ -85,8 +141,8 @@ def sample_profile(
         dy = abs(float(ys_grid[1] - ys_grid[0]))
         samples = max(int(2 * max(abs(x1 - x0) / dx, abs(y1 - y0) / dy)) + 1, 2)
     samples = check_integer("samples", samples, minimum=2)
-    if variables is None:
-        variables = [str(n) for n, v in ds.data_vars.items() if v.dims == ("y", "x")]
+    if variables is None:  # every grid, also with a time, stage or step axis before (y, x)
+        variables = [str(n) for n, v in ds.data_vars.items() if {"y", "x"} <= set(v.dims)]
     missing = [v for v in variables if v not in ds]
     if missing:
         have = ", ".join(map(str, ds.data_vars))

@@ -88,3 +88,74 @@ def test_profile_command_writes_csv_and_plot(tmp_path, result):
         )
         == 2
     )
+
+
+def _stepped(result: xr.Dataset) -> xr.Dataset:
+    """The result at three invented steps (a history-like output): 0.5, 1 and 2 times it."""
+    factors = xr.DataArray([0.5, 1.0, 2.0], dims="time")
+    out = xr.Dataset({"deflection": (result["deflection"] * factors).transpose("time", "y", "x")})
+    return out.assign_coords(time_years=("time", [-2000.0, -1000.0, 0.0]))
+
+
+def test_profile_of_a_result_with_steps_has_a_column_per_step_or_one_step(tmp_path, result):
+    # linearity: the profile of a scaled grid is the scaled profile (common practice)
+    write_netcdf(_stepped(result), tmp_path / "steps.nc")
+    line = ["--start", "-50000", "0", "--end", "50000", "0"]
+    assert (
+        main(["profile", str(tmp_path / "steps.nc"), *line, "--csv", str(tmp_path / "a.csv"), "-q"])
+        == 0
+    )
+    with open(tmp_path / "a.csv") as handle:
+        rows = list(csv.reader(handle))
+    assert rows[0][3:] == [
+        "deflection[time=-2000] [m]",
+        "deflection[time=-1000] [m]",
+        "deflection[time=0] [m]",
+    ]
+    values = np.array(rows[1:], dtype=float)
+    np.testing.assert_allclose(values[:, 3] * 2.0, values[:, 4], rtol=1e-8)  # CSV digits
+    np.testing.assert_allclose(values[:, 4] * 2.0, values[:, 5], rtol=1e-8)
+    assert (
+        main(
+            [
+                "profile",
+                str(tmp_path / "steps.nc"),
+                *line,
+                "--at",
+                "-900",
+                "--csv",
+                str(tmp_path / "b.csv"),
+                "-q",
+            ]
+        )
+        == 0
+    )
+    with open(tmp_path / "b.csv") as handle:
+        one = np.array(list(csv.reader(handle))[1:], dtype=float)
+    np.testing.assert_allclose(one[:, 3], values[:, 4], rtol=1e-12)  # the step at -1000 yr
+    code = main(
+        [
+            "profile",
+            str(tmp_path / "steps.nc"),
+            *line,
+            "--csv",
+            str(tmp_path / "c.csv"),
+            "--plot",
+            str(tmp_path / "c.png"),
+        ]
+    )
+    assert code == 2 and not (tmp_path / "c.csv").exists()  # all or nothing
+
+
+def test_profile_ends_wrap_longitudes_into_the_grid_convention():
+    # a grid in 0-360 degrees east, ends given as -170 (= 190 E): the same line (common practice)
+    lon = np.arange(180.0, 200.0, 0.5)
+    lat = np.arange(-10.0, 10.0, 0.5)
+    field = xr.DataArray(
+        np.add.outer(lat, lon), dims=("y", "x"), coords={"y": lat, "x": lon}, name="value"
+    )
+    ds = xr.Dataset({"value": field})
+    ds["x"].attrs["units"] = "degrees_east"
+    wrapped = sample_profile(ds, (-175.0, 0.0), (-165.0, 0.0), samples=5)
+    plain = sample_profile(ds, (185.0, 0.0), (195.0, 0.0), samples=5)
+    np.testing.assert_allclose(wrapped["value"].values, plain["value"].values, rtol=1e-12)
