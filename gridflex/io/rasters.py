@@ -639,6 +639,7 @@ def write_geotiff(
         "nodata": nodata,
         "compress": "deflate",
         "predictor": 3,
+        "num_threads": "all_cpus",  # GDAL compresses blocks on every core
     }
     if nx >= 256 and ny >= 256:
         profile.update(tiled=True, blockxsize=256, blockysize=256)

@@ -577,13 +577,38 @@ def to_input_grid(
         return result
     y, x = grid.input.coords()
     out = xr.Dataset(coords={"y": y, "x": x}, attrs=dict(result.attrs))
+    plate = _plate_response(result, input_load, rigidity)
+    spacing = max(grid.working.cell_size_metres())
+    needs_residual = plate is not None and (
+        _share_at(plate.smallest, plate.stiffness, spacing) >= _NEGLIGIBLE_SHARE
+    )
+    derived = {"vertical_displacement"} if "deflection" in result else set()
+    if plate is not None and not needs_residual:
+        derived.add("load")  # the input load itself: no need to read the working one back
     for name, var in result.data_vars.items():
+        if name in derived:
+            continue
         if var.dims == ("y", "x"):
             values = sample_values(var.values, grid.working, grid.input)
             out[name] = xr.DataArray(values, dims=("y", "x"), attrs=dict(var.attrs))
         else:
             out[name] = var
-    _add_unresolved_load(out, result, grid, input_load, rigidity)
+    if plate is not None and input_load is not None:
+        if needs_residual:
+            unresolved = np.nan_to_num(input_load - out["load"].values)
+            rigidity_in = plate.rigidity
+            if np.ndim(rigidity_in):
+                rigidity_in = sample_values(np.asarray(rigidity_in), grid.working, grid.input)
+            response = _unresolved_response(unresolved, grid, rigidity_in, plate.stiffness)
+            out["deflection"] = out["deflection"].copy(data=out["deflection"].values + response)
+        out["load"] = xr.DataArray(input_load, dims=("y", "x"), attrs=dict(result["load"].attrs))
+    if "vertical_displacement" in derived and "vertical_displacement" in result:
+        out["vertical_displacement"] = xr.DataArray(
+            -out["deflection"].values,
+            dims=("y", "x"),
+            attrs=dict(result["vertical_displacement"].attrs),
+        )
+    out = out[[name for name in result.data_vars if name in out.data_vars]]
     if grid.input.is_geographic:
         out["x"].attrs = {"units": "degrees_east"}
         out["y"].attrs = {"units": "degrees_north"}
@@ -593,15 +618,21 @@ def to_input_grid(
     return out
 
 
-def _add_unresolved_load(
-    out: xr.Dataset,
-    result: xr.Dataset,
-    grid: WorkingGrid,
-    input_load: np.ndarray | None,
-    rigidity: float | np.ndarray | None,
-) -> None:
-    """The input-grid load and its unresolved part's response, in *out* (see
-    :func:`to_input_grid`); nothing for results with a fill (infill runs)."""
+@dataclass(frozen=True)
+class _PlateResponse:
+    """What the unresolved load's response needs: K (Pa/m), D (N m, constant or on the
+    working grid) and the smallest D."""
+
+    stiffness: float
+    rigidity: float | np.ndarray
+    smallest: float
+
+
+def _plate_response(
+    result: xr.Dataset, input_load: np.ndarray | None, rigidity: float | np.ndarray | None
+) -> _PlateResponse | None:
+    """The plate behind *result* when the input-grid load can be written and its
+    unresolved part added (a plain solve, one infill density); else None."""
     stiffness = _restoring_stiffness(result.attrs)
     if rigidity is None and "plate_rigidity" in result.attrs:
         rigidity = float(result.attrs["plate_rigidity"])
@@ -613,14 +644,6 @@ def _add_unresolved_load(
         or "moat_fill" in result
         or not {"load", "deflection"} <= set(result.data_vars)
     ):
-        return
-    if np.ndim(rigidity):
-        rigidity = sample_values(np.asarray(rigidity), grid.working, grid.input)
-    unresolved = np.nan_to_num(input_load - out["load"].values)
-    response = _unresolved_response(unresolved, grid, rigidity, stiffness)
-    out["deflection"] = out["deflection"].copy(data=out["deflection"].values + response)
-    out["load"] = out["load"].copy(data=input_load)
-    if "vertical_displacement" in out:
-        out["vertical_displacement"] = out["vertical_displacement"].copy(
-            data=-out["deflection"].values
-        )
+        return None
+    smallest = float(np.min(rigidity)) if np.ndim(rigidity) else float(rigidity)
+    return _PlateResponse(stiffness, rigidity, max(smallest, 0.0))
