@@ -35,11 +35,13 @@ from gridflex.errors import InputError
 from gridflex.gis.geometry import GridGeometry, cell_areas
 from gridflex.memory import check_memory
 
-__all__ = ["PARTIAL_RULES", "RESULT_GRIDS", "aggregate_values", "sample_values"]
+__all__ = ["PARTIAL_RULES", "RESULT_EXTENTS", "RESULT_GRIDS", "aggregate_values", "sample_values"]
 
 RESULT_GRIDS = ("input", "working")
 """Where results may be written: brought back onto the input grid, or on the grid of the
 solve (no resampling back)."""
+RESULT_EXTENTS = ("input", "response")
+"""What the written grids cover: the input's footprint, or the whole plate response."""
 
 PARTIAL_RULES = ("sum", "mean")
 """How :func:`aggregate_values` fills a partially covered destination cell."""

@@ -160,3 +160,8 @@ def _check_profile(scenario: FlexureScenario) -> None:
             raise InputError(f"{scenario.where('output', key)}: expected [x, y], got {value!r}")
     if all(v is not None for v in ends) and not wanted:
         raise InputError(f"{scenario.where('output')}: a profile needs profile_csv or profile_plot")
+    if out["extent"] == "response" and out["grid"] == "input":
+        raise InputError(
+            f"{scenario.where('output', 'extent')}: the response reaches beyond the input grid, "
+            'so it is written on the working grid; leave out grid = "input"'
+        )

@@ -34,7 +34,7 @@ from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
 from gridflex.engine import EDGES, METHODS
 from gridflex.estimation.misfit import QUANTITIES
 from gridflex.gis.geometry import RESAMPLING
-from gridflex.gis.resampling import RESULT_GRIDS
+from gridflex.gis.resampling import RESULT_EXTENTS, RESULT_GRIDS
 from gridflex.infill import SEDIMENT_MODES
 from gridflex.io.netcdf import OUTPUT_DTYPES
 from gridflex.io.rasters import LAYER_MISSING_POLICIES
@@ -297,9 +297,17 @@ SCHEMA: dict[str, dict[str, Key]] = {
         ),
         "grid": Key(
             "choice",
-            "where the results are written: on the input grid or on the working grid",
-            "input",
+            "where the results are written: on the input grid or on the working grid "
+            "(default: the input grid; the working grid with extent = response)",
+            None,
             choices=RESULT_GRIDS,
+        ),
+        "extent": Key(
+            "choice",
+            "what the written grids cover: the input's footprint, or the whole area where "
+            "the deflection exceeds 0.1 % of its peak",
+            "input",
+            choices=RESULT_EXTENTS,
         ),
         "dtype": Key("choice", "precision of the written grids", "float64", choices=OUTPUT_DTYPES),
         "outlines": Key("path", "GeoJSON of the moat outline, forebulge crest and zero line", None),
@@ -488,7 +496,8 @@ class OutputTable(TypedDict):
     free_air_map: Path | None
     bouguer_map: Path | None
     geotiff: bool | list[str]
-    grid: str
+    grid: str | None
+    extent: str
     dtype: str
     outlines: Path | None
     moat_depth: float | None

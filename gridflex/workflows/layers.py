@@ -228,6 +228,17 @@ COARSEN_BELOW = 4
 """Input cells are coarsened automatically only when this many times finer than needed."""
 
 
+def _widened(geometry: GridGeometry, margin: float) -> GridGeometry:
+    """*geometry* (north-up) with whole cells added on every side to reach *margin* (m)."""
+    if not margin > 0:
+        return geometry
+    t = geometry.transform
+    n = int(np.ceil(margin / abs(t.a)))
+    ny, nx = geometry.shape
+    widened = Affine(t.a, 0.0, t.c - n * t.a, 0.0, t.e, t.f - n * t.e)
+    return GridGeometry(geometry.crs, widened, (ny + 2 * n, nx + 2 * n))
+
+
 def automatic_spacing(input_cell: float, flexural_parameter: float | None) -> float | None:
     """The working cell size (m) for an input much finer than the flexure needs.
 
@@ -257,7 +268,7 @@ def automatic_spacing(input_cell: float, flexural_parameter: float | None) -> fl
 
 
 def build_working_layers(
-    scenario: Scenario, flexural_parameter: float | None = None
+    scenario: Scenario, flexural_parameter: float | None = None, margin: float = 0.0
 ) -> tuple[list[xr.DataArray], WorkingGrid]:
     """Every ``[[loads]]`` layer on the working grid, in its own quantity (SI).
 
@@ -306,9 +317,10 @@ def build_working_layers(
                 flexural_parameter,
                 SPACING_PER_FLEXURAL_PARAMETER,
             )
-    target = working_geometry(first, crs, spacing)
+    target = _widened(working_geometry(first, crs, spacing), margin)
     resampled = not (
-        same
+        margin == 0.0
+        and same
         and target == first.north_up()
         and (crs == first.crs or (crs is None and first.crs is None))
     )
@@ -375,7 +387,7 @@ class WorkingLoad:
 
 
 def working_load(
-    scenario: Scenario, flexural_parameter: float | None = None
+    scenario: Scenario, flexural_parameter: float | None = None, margin: float = 0.0
 ) -> tuple[WorkingLoad, WorkingGrid]:
     """The load of the ``[[loads]]`` layers on the working grid, by part.
 
@@ -389,7 +401,7 @@ def working_load(
         As :func:`build_working_layers`.
     """
     gravity = scenario.table("plate")["gravity"]
-    values, grid = build_working_layers(scenario, flexural_parameter)
+    values, grid = build_working_layers(scenario, flexural_parameter, margin)
     fixed = np.zeros(grid.working.shape)
     thickness = []
     regional: list[np.ndarray | None] = []

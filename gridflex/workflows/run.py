@@ -133,11 +133,18 @@ def _te_grid(scenario: Scenario, like: xr.DataArray, working: GridGeometry | Non
     return xr.full_like(like, float(constant), dtype=np.float64)
 
 
-def smallest_flexural_parameter(scenario: Scenario) -> float:
-    """The plate's smallest flexural parameter (m), before any working grid exists.
+RESPONSE_MARGIN = 8.0
+"""With ``extent = "response"`` the working grid reaches this many (largest) flexural
+parameters beyond the input: the deflection of a point load has fallen below 0.1 % of its
+peak well within it (|kei(x)| / kei(0) < 1e-3 beyond x ~ 7; kei by scipy.special)."""
 
-    From the smallest Te of the constant, the ``[margin]`` profile or the Te file (read on
-    its own grid); breaks do not change it. 0 when Te reaches 0 anywhere.
+
+def flexural_parameter_range(scenario: Scenario) -> tuple[float, float]:
+    """The plate's smallest and largest flexural parameters (m), before any working grid.
+
+    From the Te of the constant, the ``[margin]`` profile or the Te file (read on its own
+    grid); breaks do not change them. ``(0, 0)`` when no Te is given (plate_from_scenario
+    says so) or it is not finite.
     """
     table = scenario.table("plate")
     margin = scenario.tables.get("margin")
@@ -147,16 +154,19 @@ def smallest_flexural_parameter(scenario: Scenario) -> float:
             table["elastic_thickness_variable"],
             scenario.where("plate", "elastic_thickness_file"),
         )
-        smallest = float(np.nanmin(te_grid.values))
+        low, high = float(np.nanmin(te_grid.values)), float(np.nanmax(te_grid.values))
     elif margin is not None:
-        smallest = min(float(margin["te_left"]), float(margin["te_right"]))
+        low, high = sorted((float(margin["te_left"]), float(margin["te_right"])))
     elif table["elastic_thickness"] is not None:
-        smallest = float(table["elastic_thickness"])
+        low = high = float(table["elastic_thickness"])
     else:
-        return 0.0  # no Te at all: plate_from_scenario says so
-    if not np.isfinite(smallest):
-        return 0.0
-    return float(_plate(scenario, max(smallest, 0.0)).flexural_parameter)
+        return 0.0, 0.0
+    if not (np.isfinite(low) and np.isfinite(high)):
+        return 0.0, 0.0
+    return (
+        float(_plate(scenario, max(low, 0.0)).flexural_parameter),
+        float(_plate(scenario, max(high, 0.0)).flexural_parameter),
+    )
 
 
 def plate_from_scenario(
@@ -194,7 +204,7 @@ def output_dataset(
     :func:`to_input_grid`)."""
     out = stamp_result(with_vertical_displacement(result, "plate"), scenario, command)
     out.attrs.update(grid.describe())
-    if scenario.table("output")["grid"] == "working":
+    if _on_working_grid(scenario):
         return out
     if back is None:
         return to_input_grid(out, grid)
@@ -228,9 +238,35 @@ def _geotiff_paths(scenario: Scenario, result: xr.Dataset) -> dict[str, Path]:
     return {name: netcdf.with_name(f"{netcdf.stem}_{name}.tif") for name in names}
 
 
+def _on_working_grid(scenario: Scenario) -> bool:
+    """Results are written on the working grid: asked for, or implied by the response extent."""
+    output = scenario.table("output")
+    return output["grid"] == "working" or output["extent"] == "response"
+
+
 def _written_crs(scenario: Scenario, grid: WorkingGrid) -> CRS | None:
     """The CRS of the written grids: the input's, or the working grid's."""
-    return grid.working.crs if scenario.table("output")["grid"] == "working" else grid.input.crs
+    return grid.working.crs if _on_working_grid(scenario) else grid.input.crs
+
+
+RESPONSE_THRESHOLD = 1e-3
+"""``extent = "response"`` keeps the cells where |w| exceeds this share of its peak."""
+
+
+def crop_to_response(working: xr.Dataset) -> xr.Dataset:
+    """*working* cut to the rows and columns where |deflection| exceeds 0.1 % of its
+    peak, and one cell more on each side."""
+    w = np.abs(working["deflection"].values)
+    peak = float(w.max())
+    if not peak > 0:
+        return working
+    rows = np.flatnonzero((w > RESPONSE_THRESHOLD * peak).any(axis=1))
+    cols = np.flatnonzero((w > RESPONSE_THRESHOLD * peak).any(axis=0))
+    ny, nx = w.shape
+    return working.isel(
+        y=slice(max(rows[0] - 1, 0), min(rows[-1] + 2, ny)),
+        x=slice(max(cols[0] - 1, 0), min(cols[-1] + 2, nx)),
+    )
 
 
 def compensation_outside(working: xr.Dataset) -> float | None:
@@ -295,14 +331,15 @@ def _solve_working(
     """
     solver = scenario.table("solver")
     input_load = None
-    alpha = smallest_flexural_parameter(scenario)
+    alpha, widest = flexural_parameter_range(scenario)
+    margin = RESPONSE_MARGIN * widest if scenario.table("output")["extent"] == "response" else 0.0
     if scenario.table("infill") is not None:
-        layers, grid = build_working_layers(scenario, alpha)
+        layers, grid = build_working_layers(scenario, alpha, margin)
         column = load_column(scenario, layers)
         plate = plate_from_scenario(scenario, column["load"], grid)
         working = infill_step(scenario, plate, column, progress)
     else:
-        parts, grid = working_load(scenario, alpha)
+        parts, grid = working_load(scenario, alpha, margin)
         load = parts()
         plate = plate_from_scenario(scenario, load, grid)
         input_load = input_grid_load(scenario, grid, parts)
@@ -346,6 +383,8 @@ def run_scenario(
     plan = OutputPlan(scenario, overwrite)
     plan.add(_planned_outputs(scenario))
     working, grid, back = _solve_working(scenario, progress)
+    if scenario.table("output")["extent"] == "response":
+        working = crop_to_response(working)
     result = output_dataset(working, scenario, grid, back=back)
     summary = deflection_summary(working)
     outcome = RunOutcome(result=result, summary=summary, text=format_summary(summary))

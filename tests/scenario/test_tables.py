@@ -14,7 +14,7 @@ from gridflex.basin.staging import ISOPACHS
 from gridflex.engine import EDGES, METHODS, SPECTRAL_EDGES
 from gridflex.estimation.misfit import QUANTITIES
 from gridflex.gis.geometry import RESAMPLING
-from gridflex.gis.resampling import RESULT_GRIDS
+from gridflex.gis.resampling import RESULT_EXTENTS, RESULT_GRIDS
 from gridflex.glacial.response import INITIAL_STATES
 from gridflex.infill import SEDIMENT_MODES
 from gridflex.io.netcdf import OUTPUT_DTYPES
@@ -37,6 +37,7 @@ LIBRARY_CHOICES: dict[tuple[str, str, str], tuple[str, ...]] = {
     ("run", "infill", "sediment"): SEDIMENT_MODES,
     ("run", "fit", "quantity"): QUANTITIES,
     ("run", "output", "grid"): RESULT_GRIDS,
+    ("run", "output", "extent"): RESULT_EXTENTS,
     ("run", "output", "dtype"): OUTPUT_DTYPES,
     ("basin", "solver", "edges"): EDGES,
     ("basin", "basin", "isopachs"): ISOPACHS,
