@@ -69,7 +69,12 @@ def si_unit(dimension: str) -> str:
 
 
 def apply_missing_policy(
-    da: xr.DataArray, policy: str, where: str, elevation: bool = False, hint: str = ""
+    da: xr.DataArray,
+    policy: str,
+    where: str,
+    elevation: bool = False,
+    hint: str = "",
+    keep_nan: bool = False,
 ) -> xr.DataArray:
     """*da* with its nodata/NaN cells handled by *policy*.
 
@@ -87,6 +92,9 @@ def apply_missing_policy(
         The grid is a surface elevation (m): ``"zero"`` leaves missing cells NaN.
     hint : str, optional
         What else the user may do, added to the ``"error"`` message.
+    keep_nan : bool, default False
+        With ``"zero"``: warn but leave the cells NaN, for a caller that loads them as
+        zero and writes them back as nodata.
 
     Raises
     ------
@@ -115,10 +123,13 @@ def apply_missing_policy(
             stacklevel=4,
         )
         return da
+    written = " (written as nodata)" if keep_nan else ""
     warnings.warn(
-        f"{where}: {count} nodata or NaN cell(s) taken as zero load", NodataWarning, stacklevel=4
+        f"{where}: {count} nodata or NaN cell(s) taken as zero load{written}",
+        NodataWarning,
+        stacklevel=4,
     )
-    return da.fillna(0.0)
+    return da if keep_nan else da.fillna(0.0)
 
 
 def in_si_units(da: xr.DataArray, dimension: str | None, where: str) -> xr.DataArray:
@@ -199,6 +210,7 @@ def read_grid_input(
     working: GridGeometry | None = None,
     resampling: str = "bilinear",
     role: str | None = None,
+    keep_nan: bool = False,
 ) -> xr.DataArray:
     """A grid file (GeoTIFF or NetCDF) read as a scenario input, in SI, on the working grid.
 
@@ -246,6 +258,10 @@ def read_grid_input(
         *dimension*, and values outside its physical range are refused. Default:
         ``"elevation"`` when *elevation* is set, else no range check.
 
+    keep_nan : bool, default False
+        With ``missing="zero"``: warn but leave missing cells NaN (the caller loads them
+        as zero and writes them back as nodata).
+
     Returns
     -------
     xarray.DataArray
@@ -279,7 +295,7 @@ def read_grid_input(
             "this run needs a grid in a metric projection"
         )
     da = increasing_axes(da)
-    da = apply_missing_policy(da, missing, label, elevation, missing_hint)
+    da = apply_missing_policy(da, missing, label, elevation, missing_hint, keep_nan)
     da = in_si_units(da, dimension, label)
     if role is not None:
         check_grid_range(da.values, role, f"{label}: variable {da.name!r}")

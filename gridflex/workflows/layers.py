@@ -85,6 +85,9 @@ class WorkingGrid:
     spacing_rule : str
         Where the working cell size came from: the input's cells, ``[working_grid]
         spacing``, or the smallest flexural parameter (:func:`automatic_spacing`).
+    input_nodata : numpy.ndarray of bool or None
+        Input cells without data in any layer on the input grid (carried no load; written
+        back as nodata), or None when there are none.
     """
 
     input: GridGeometry
@@ -93,6 +96,7 @@ class WorkingGrid:
     resampling: str
     input_layers: tuple[xr.DataArray, ...] = ()
     spacing_rule: str = "input cells"
+    input_nodata: np.ndarray | None = None
 
     def describe(self) -> dict[str, Any]:
         """Attributes recording the working grid (for output metadata)."""
@@ -179,6 +183,7 @@ def _layer_values(scenario: Scenario, index: int) -> xr.DataArray:
         missing=layer["missing"],
         missing_hint='set missing = "zero" to treat them as no load',
         elevation=layer["kind"] == "elevation",
+        keep_nan=True,  # no load, and written back as nodata (build_working_layers)
     )
 
 
@@ -331,11 +336,15 @@ def build_working_layers(
         values = stress.values
         if resampled:
             values = _onto_working(values, geometry, target, method, layer["kind"])
-            if layer["kind"] != "elevation":  # outside a layer: no load
-                values = np.nan_to_num(values, nan=0.0)  # (elevations: see elevation_stress)
+        if layer["kind"] != "elevation":  # no data, or outside a layer: no load
+            values = np.nan_to_num(values, nan=0.0)  # (elevations: see elevation_stress)
         out.append(_as_dataarray(values, target, str(layer["name"] or "layer")))
+    nodata = [np.isnan(s.values) for s, g in zip(stresses, geometries, strict=True) if g == first]
+    input_nodata = np.logical_or.reduce(nodata) if nodata else None
+    if input_nodata is not None and not input_nodata.any():
+        input_nodata = None
     kept = tuple(stresses) if resampled and same else ()
-    grid = WorkingGrid(first, target, resampled, method, kept, rule)
+    grid = WorkingGrid(first, target, resampled, method, kept, rule, input_nodata)
     if resampled:
         log.info("layers resampled onto a %s working grid (%s)", target.shape, _crs_label(crs))
     return out, grid

@@ -207,8 +207,21 @@ def output_dataset(
     if _on_working_grid(scenario):
         return out
     if back is None:
-        return to_input_grid(out, grid)
-    return to_input_grid(out, grid, back.input_load, back.rigidity)
+        return with_nodata(to_input_grid(out, grid), grid.input_nodata)
+    back_on_input = to_input_grid(out, grid, back.input_load, back.rigidity)
+    return with_nodata(back_on_input, grid.input_nodata)
+
+
+def with_nodata(result: xr.Dataset, nodata: np.ndarray | None) -> xr.Dataset:
+    """*result* with every ``(y, x)`` grid NaN where the input had no data (the cells the
+    load file left empty stay empty in what is written)."""
+    if nodata is None:
+        return result
+    out = result.copy()
+    for name, var in result.data_vars.items():
+        if var.dims == ("y", "x") and var.shape == nodata.shape:
+            out[name] = var.where(~nodata)
+    return out
 
 
 @dataclass(frozen=True)

@@ -64,9 +64,10 @@ def test_a_fine_raster_is_solved_on_cells_of_a_sixteenth_flexural_parameter(tmp_
 
 def test_elevation_cells_without_data_carry_no_load(tmp_path, capsys):
     # issue 14: nodata cells of an elevation model used to get the layer's median as rock
-    # (a load where nothing is known); now they get the regional surface (no load), and a
-    # warning counts them. Expected load from the rule rho g (z - regional) below sea level
-    # buoyed by sea water (PHYSICS.md section 0, rule 3)
+    # (a load where nothing is known); now they get the regional surface (no load), a
+    # warning counts them, and they are written back as nodata. Expected load from the
+    # rule rho g (z - regional) below sea level buoyed by sea water (PHYSICS.md section 0,
+    # rule 3)
     y, x = np.mgrid[0:N, 0:N] * CELL
     elevation = -4000.0 + 3000.0 * np.exp(-((x - 32e3) ** 2 + (y - 32e3) ** 2) / (2 * 5e3**2))
     elevation[150:170, 150:170] = np.nan  # on the edifice's summit
@@ -95,7 +96,7 @@ file = "out.nc"
     assert "500 nodata or NaN cell(s) taken as no edifice" in capsys.readouterr().err
     with xr.open_dataset(tmp_path / "out.nc") as ds:
         load = ds["load"].sortby("y", ascending=False).values
-    assert np.all(load[150:170, 150:170] == 0.0) and np.all(load[10:20, 10:20] == 0.0)
+    assert np.isnan(load[150:170, 150:170]).all() and np.isnan(load[10:20, 10:20]).all()
     known = np.isfinite(elevation)
     expected = (2800.0 - 1030.0) * 9.81 * (elevation + 4000.0)
     summit = known & (elevation > -3900.0)

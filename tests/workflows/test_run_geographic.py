@@ -119,7 +119,18 @@ def test_nodata_policy(tmp_path, capsys):
     assert "9 nodata or NaN cell(s)" in capsys.readouterr().err
     (tmp_path / "s.toml").write_text(SCENARIO.format(missing='missing = "zero"'))
     assert main(["run", str(tmp_path / "s.toml")]) == 0
-    assert "taken as zero load" in capsys.readouterr().err
+    assert "9 nodata or NaN cell(s) taken as zero load (written as nodata)" in (
+        capsys.readouterr().err
+    )
+    # issue 14: nodata stays nodata in the outputs (the corner of a north-up GeoTIFF is the
+    # north-west corner), in the NetCDF and in the GeoTIFFs
+    with xr.open_dataset(tmp_path / "out" / "result.nc") as ds:
+        for name in ("deflection", "load"):
+            grid = ds[name].sortby("lat", ascending=False).sortby("lon")
+            assert np.isnan(grid.values[:3, :3]).all()
+            assert np.isfinite(grid.values[3:, 3:]).all()
+    with rasterio.open(tmp_path / "out" / "result_deflection.tif") as src:
+        assert np.isnan(src.read(1)[:3, :3]).all()
 
 
 @pytest.mark.parametrize(

@@ -184,8 +184,14 @@ def test_nodata_in_an_elevation_layer_means_no_edifice(tmp_path):
     (tmp_path / "s.toml").write_text(text)
     with pytest.warns(NodataWarning, match="taken as no edifice"):
         outcome = run_scenario(load_scenario(tmp_path / "s.toml"))
-    # elevation 0 there would load 4200 m of rock, (2700 - 1030) g 4200 ~ 7e7 Pa
-    assert float(outcome.result["load"].values[10:13, 46:50].max()) < 1e6
+    # nodata stays nodata in what is written
+    assert np.isnan(outcome.result["load"].values[10:13, 46:50]).all()
+    # elevation 0 there would load 4200 m of rock, (2700 - 1030) g 4200 ~ 7e7 Pa, and
+    # deepen the plate; with no edifice there the deflection is that of the full grid
+    (tmp_path / "full.toml").write_text(SCENARIO)
+    full = run_scenario(load_scenario(tmp_path / "full.toml"), overwrite=True)
+    w, w_full = outcome.result["deflection"].values, full.result["deflection"].values
+    assert np.nanmax(np.abs(w - w_full)) <= 0.01 * np.abs(w_full).max()
 
 
 def test_lonlat_bathymetry_geotiff_with_infill_and_gravity(tmp_path):
