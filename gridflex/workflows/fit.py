@@ -15,7 +15,7 @@ from gridflex.errors import InputError
 from gridflex.estimation.misfit import TeFit, fit_te
 from gridflex.gravity.first_order import CrustLayers
 from gridflex.io.atomic import atomic_path
-from gridflex.io.netcdf import write_netcdf
+from gridflex.io.netcdf import as_output_dtype, write_netcdf
 from gridflex.io.plots import plot_deflection_map, plot_misfit
 from gridflex.progress import Progress
 from gridflex.scenario.schema import Scenario, present
@@ -23,7 +23,7 @@ from gridflex.workflows.grid_input import read_grid_input
 from gridflex.workflows.layers import WorkingGrid, build_working_load
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan
-from gridflex.workflows.run import output_dataset, plate_from_scenario
+from gridflex.workflows.run import output_dataset, plate_from_scenario, written_crs
 from gridflex.workflows.scenario_tables import refuse_tables
 
 __all__ = ["FitOutcome", "fit_outputs", "fit_scenario", "format_fit"]
@@ -154,6 +154,16 @@ def fit_scenario(
         Missing or invalid ``[fit]`` table, files or output paths.
     """
     table = _fit_table(scenario)
+    if scenario.table("output")["extent"] != "input":
+        raise InputError(
+            f"{scenario.where('output', 'extent')}: the fit's model covers the input grid; "
+            'leave extent = "input"'
+        )
+    if scenario.table("output")["geotiff"] is not False:
+        raise InputError(
+            f"{scenario.where('output', 'geotiff')}: 'gridflex fit' writes its model as "
+            "NetCDF only; leave geotiff out (or run the fitted te with 'gridflex run')"
+        )
     plan = OutputPlan(scenario, overwrite)
     plan.add(fit_outputs(scenario))
     plate = plate_from_scenario(scenario)
@@ -191,7 +201,9 @@ def fit_scenario(
     }
     outcome = FitOutcome(result=model, summary=summary, text=format_fit(fit), fit=fit)
     overwrite, inputs = plan.overwrite, plan.inputs
-    outcome.written.append(write_netcdf(model, plan["file"], overwrite, inputs, crs=grid.input.crs))
+    written = as_output_dtype(model, scenario.table("output")["dtype"])
+    crs = written_crs(scenario, grid)
+    outcome.written.append(write_netcdf(written, plan["file"], overwrite, inputs, crs=crs))
     if plan.get("map") is not None:
         outcome.written.append(
             plot_deflection_map(

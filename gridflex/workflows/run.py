@@ -257,7 +257,7 @@ def _on_working_grid(scenario: Scenario) -> bool:
     return output["grid"] == "working" or output["extent"] == "response"
 
 
-def _written_crs(scenario: Scenario, grid: WorkingGrid) -> CRS | None:
+def written_crs(scenario: Scenario, grid: WorkingGrid) -> CRS | None:
     """The CRS of the written grids: the input's, or the working grid's."""
     return grid.working.crs if _on_working_grid(scenario) else grid.input.crs
 
@@ -440,7 +440,7 @@ def _write_outputs(
     outputs = scenario.table("output")
     result = outcome.result
     overwrite, inputs = plan.overwrite, plan.inputs
-    crs = _written_crs(scenario, grid)
+    crs = written_crs(scenario, grid)
     written = outcome.written
     grids = as_output_dtype(result, outputs["dtype"])
     written.append(write_netcdf(grids, outputs["file"], overwrite, inputs, crs=crs))

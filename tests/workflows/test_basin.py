@@ -229,6 +229,12 @@ file = "tif_out.nc"
     got = got.sortby("y") if "y" in got.dims else got
     assert_allclose(got.values, expected["deflection"][0].values, rtol=1e-9, atol=1e-9)
     assert "crs" in out.variables or "spatial_ref" in out.variables
+    # and GDAL reads that CRS from the NetCDF (CF grid mapping, issue 14)
+    import rasterio
+    from rasterio.crs import CRS
+
+    with rasterio.open(f"netcdf:{tmp_path / 'tif_out.nc'}:deflection") as src:
+        assert src.crs == CRS.from_string(crs)
 
 
 @pytest.mark.parametrize("surface_kind", ["tif", "nc"])

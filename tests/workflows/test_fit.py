@@ -107,3 +107,16 @@ te_max = "80 km"
     assert_allclose(observed[compared], depth.values[compared], rtol=1e-12)
     assert outcome.text.startswith("te = ")
     assert outcome.written[0] == tmp_path / "best.nc"
+
+
+def test_fit_refuses_output_keys_it_cannot_honour(tmp_path, capsys):
+    # a key the command would silently ignore is refused before any work (common practice)
+    write_seamount_inputs(tmp_path)
+    fit = '[fit]\nobserved_file = "observed.nc"\nobserved_variable = "depth"\n'
+    for key, value in (("extent", '"response"'), ("geotiff", "true")):
+        (tmp_path / "s.toml").write_text(
+            BASE + f'\n[output]\nfile = "o.nc"\n{key} = {value}\n\n' + fit
+        )
+        assert main(["fit", str(tmp_path / "s.toml"), "-q"]) == 2
+        assert f"[output] {key}" in capsys.readouterr().err
+        assert not (tmp_path / "o.nc").exists()
