@@ -209,7 +209,39 @@ def output_dataset(
     if back is None:
         return with_nodata(to_input_grid(out, grid), grid.input_nodata)
     back_on_input = to_input_grid(out, grid, back.input_load, back.rigidity)
+    if back.local is not None:
+        back_on_input = _with_local_columns(back_on_input, back.local)
     return with_nodata(back_on_input, grid.input_nodata)
+
+
+def _local_infill(scenario: Scenario, grid: WorkingGrid) -> xr.Dataset:
+    """The infill solution of a plate without stiffness (te = 0 everywhere) on the input
+    grid itself: each column floats on its own, so the grid's projection and spacing do
+    not enter and it is exact cell by cell (written instead of the working solution read
+    back, which would smooth the cell-to-cell detail)."""
+    ny, nx = grid.input.shape
+    dy, dx = grid.input.cell_size_metres()
+    coords = {"y": np.arange(ny) * dy, "x": np.arange(nx) * dx}
+    layers = [
+        xr.DataArray(np.asarray(da.values), dims=("y", "x"), coords=coords, name=da.name)
+        for da in grid.input_layers
+    ]
+    column = load_column(scenario, layers)
+    return infill_step(scenario, _plate(scenario, 0.0), column)
+
+
+def _with_local_columns(result: xr.Dataset, local: xr.Dataset) -> xr.Dataset:
+    """*result* with every grid *local* holds (load, deflection, fill, surfaces) taken
+    from it, cell by cell; the rest (gravity) as it was."""
+    out = result.copy()
+    for name, var in local.data_vars.items():
+        if name in out and out[name].dims == ("y", "x") and var.shape == out[name].shape:
+            out[name] = out[name].copy(data=np.asarray(var.values))
+    if "vertical_displacement" in out and "deflection" in local:
+        out["vertical_displacement"] = out["vertical_displacement"].copy(
+            data=-np.asarray(local["deflection"].values)
+        )
+    return out
 
 
 def with_nodata(result: xr.Dataset, nodata: np.ndarray | None) -> xr.Dataset:
@@ -231,6 +263,7 @@ class BackToInput:
 
     input_load: np.ndarray | None
     rigidity: float | np.ndarray
+    local: xr.Dataset | None = None
 
 
 def _geotiff_paths(scenario: Scenario, result: xr.Dataset) -> dict[str, Path]:
@@ -346,11 +379,15 @@ def _solve_working(
     input_load = None
     alpha, widest = flexural_parameter_range(scenario)
     margin = RESPONSE_MARGIN * widest if scenario.table("output")["extent"] == "response" else 0.0
+    local = None
     if scenario.table("infill") is not None:
         layers, grid = build_working_layers(scenario, alpha, margin)
         column = load_column(scenario, layers)
         plate = plate_from_scenario(scenario, column["load"], grid)
         working = infill_step(scenario, plate, column, progress)
+        if widest == 0.0 and grid.input_layers:  # no stiffness: every column on its own
+            local = _local_infill(scenario, grid)
+        grid = dataclasses.replace(grid, input_layers=())
     else:
         parts, grid = working_load(scenario, alpha, margin)
         load = parts()
@@ -374,7 +411,7 @@ def _solve_working(
         working = gravity_step(scenario, working)
     rigidity = plate.rigidity
     stiff = np.asarray(rigidity.values) if isinstance(rigidity, xr.DataArray) else float(rigidity)
-    return working, grid, BackToInput(input_load, stiff)
+    return working, grid, BackToInput(input_load, stiff, local)
 
 
 def run_scenario(

@@ -285,3 +285,26 @@ def test_a_coarse_working_grid_adds_the_response_to_the_load_it_cannot_carry(tmp
         tmp_path, "coarse", '[working_grid]\nspacing = "3 km"\nresampling = "average"\n'
     )
     assert np.abs(coarse - reference).max() <= 0.015 * np.abs(reference).max()
+
+
+def test_no_plate_with_water_infill_on_a_geographic_raster_is_local_cell_by_cell(tmp_path):
+    # te = 0 with the moat filled by sea water: each column floats on its own,
+    # w = (rho_r - rho_w) h / (rho_m - rho_w) (Airy isostasy with a water-filled depression,
+    # Turcotte & Schubert 2002, section 3-2), also where a coarser working grid was used
+    rng = np.random.default_rng(8)
+    elevation = np.full((NY, NX), -4000.0)
+    elevation[40:80, 50:90] += rng.uniform(0.0, 3500.0, (40, 40))
+    _write_rough_lonlat(tmp_path / "rough.tif", elevation)
+    text = LOCAL.format(
+        spacing="5 km",
+        resampling="bilinear",
+        kind="elevation",
+        extra="regional_elevation = -4000",
+        tag="infill",
+    )
+    (tmp_path / "s.toml").write_text(text + "\n[infill]\nsea_level = 0\n")
+    assert main(["run", str(tmp_path / "s.toml"), "-q"]) == 0
+    with xr.open_dataset(tmp_path / "local_infill.nc") as ds:
+        w = ds["deflection"].sortby("lat", ascending=False).values
+    expected = (elevation.astype(np.float32) + 4000.0) * (2800.0 - 1030.0) / (3300.0 - 1030.0)
+    assert np.abs(w - expected).max() <= 0.01 * expected.max()
