@@ -200,8 +200,9 @@ def output_dataset(
     back: BackToInput | None = None,
 ) -> xr.Dataset:
     """The result with GIS-friendly extras and the provenance of ``gridflex COMMAND``,
-    on the input grid (*back*: the load there and the plate's rigidity, see
-    :func:`to_input_grid`)."""
+    on the input grid, nodata where the load file had none (*back*: the load there, the
+    plate's rigidity, see :func:`to_input_grid`, and for an infill run without plate
+    stiffness its columns solved on the input grid)."""
     out = stamp_result(with_vertical_displacement(result, "plate"), scenario, command)
     out.attrs.update(grid.describe())
     if _on_working_grid(scenario):
