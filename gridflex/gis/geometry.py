@@ -38,12 +38,14 @@ __all__ = [
     "LONLAT",
     "RESAMPLING",
     "cell_areas",
+    "check_alignable",
     "even_step",
     "from_lonlat",
     "geometry_of",
     "local_projection",
     "parse_crs",
     "reproject_values",
+    "same_crs",
     "to_lonlat",
     "working_geometry",
 ]
@@ -325,13 +327,15 @@ def local_projection(geometry: GridGeometry) -> CRS | None:
     )
 
 
-def _same_crs(a: CRS | None, b: CRS | None) -> bool:
+def same_crs(a: CRS | None, b: CRS | None) -> bool:
+    """Both CRSs unknown, or both known and equal."""
     if a is None or b is None:
         return a is None and b is None
     return a == b
 
 
-def _check_alignable(src: CRS | None, dst: CRS | None) -> None:
+def check_alignable(src: CRS | None, dst: CRS | None) -> None:
+    """Refuse to align a grid without a CRS with one that has a CRS."""
     if (src is None) != (dst is None):
         known = dst if src is None else src
         assert known is not None  # exactly one of the two is None
@@ -364,7 +368,7 @@ def working_geometry(
         :func:`reproject_values`). If the source is already in *crs* with that
         cell size, its own cells (north-up).
     """
-    _check_alignable(geometry.crs, crs)
+    check_alignable(geometry.crs, crs)
     if crs is not None and not crs.is_projected:
         raise InputError(f"working CRS must be projected (metres), got {crs.to_string()!r}")
     if spacing is None:
@@ -373,7 +377,7 @@ def working_geometry(
     if not (math.isfinite(spacing) and spacing > 0):
         raise InputError(f"spacing must be a positive number of metres, got {spacing!r}")
     t = geometry.transform
-    if _same_crs(geometry.crs, crs):
+    if same_crs(geometry.crs, crs):
         factor = 1.0 if crs is None else _linear_factor(crs)
         if math.isclose(abs(t.a) * factor, spacing, rel_tol=1e-9) and math.isclose(
             abs(t.e) * factor, spacing, rel_tol=1e-9
@@ -404,7 +408,7 @@ def _resampling(name: str) -> Resampling:
 
 def _same_cells(a: GridGeometry, b: GridGeometry) -> bool:
     """Same CRS, shape and (to 1e-6 of a cell) transform."""
-    if not _same_crs(a.crs, b.crs) or tuple(a.shape) != tuple(b.shape):
+    if not same_crs(a.crs, b.crs) or tuple(a.shape) != tuple(b.shape):
         return False
     cell = min(abs(a.transform.a), abs(a.transform.e))
     return all(
@@ -439,7 +443,7 @@ def reproject_values(
     values = np.asarray(values, dtype=np.float64)
     if values.shape != tuple(src.shape):
         raise InputError(f"values have shape {values.shape}, the source grid {tuple(src.shape)}")
-    _check_alignable(src.crs, dst.crs)
+    check_alignable(src.crs, dst.crs)
     s_up, d_up = src.north_up(), dst.north_up()
     s_vals = values if s_up is src else values[::-1]
     if _same_cells(s_up, d_up):

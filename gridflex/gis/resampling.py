@@ -5,19 +5,22 @@ Two operations, each exact for the quantity it keeps:
 * :func:`aggregate_values` — area-weighted aggregation that conserves the integral
   (the total force of a stress, the volume of a thickness). Every source cell is cut
   into ``s × s`` equal sub-cells; each sub-cell gives its share (value × its true
-  area) to the destination cell its centre falls in, and a destination cell's value
-  is the sum of the shares over its true area. Every share lands in exactly one
-  cell, so the total is kept to round-off whatever ``s`` is; ``s`` only sets how
-  finely a source cell is split among its neighbours (at most an eighth of a
-  destination cell per sub-cell, capped at 16). Partially covered cells keep their
-  share (``partial="sum"``) or the mean of what covers them (``partial="mean"``).
+  area) to the four destination cells nearest its centre, with bilinear
+  ("cloud-in-cell") weights that sum to 1, and a destination cell's value is the sum
+  of the shares over its true area. Nothing is lost or counted twice, so the total is
+  kept to round-off whatever ``s`` is; ``s`` only sets how smoothly a source cell is
+  spread (at most an eighth of a destination cell per sub-cell, capped at 16).
+  Partially covered cells keep their share (``partial="sum"``) or the mean of what
+  covers them (``partial="mean"``).
 * :func:`sample_values` — values at the destination cell centres by bilinear
   interpolation of the source's cell centres (no widening kernel when the
   destination is coarser: each value is read at a point). NaN stays NaN, and
   centres outside the source's footprint are NaN.
 
-Both work in row blocks of bounded memory and use exact coordinate transforms
-(GDAL/PROJ through rasterio) for every point that must change CRS.
+Between grids in one CRS both work axis by axis (sparse sharing matrices, separable
+interpolation). Across CRSs they work in row blocks of bounded memory; coordinates are
+transformed exactly (GDAL/PROJ through rasterio) every few points and interpolated
+between (:func:`_lattice_points`), every point when the target CRS is geographic.
 """
 
 from __future__ import annotations
@@ -32,7 +35,7 @@ from rasterio.crs import CRS
 from scipy import sparse
 
 from gridflex.errors import InputError
-from gridflex.gis.geometry import GridGeometry, cell_areas
+from gridflex.gis.geometry import GridGeometry, cell_areas, check_alignable, same_crs
 from gridflex.memory import check_memory
 
 __all__ = ["PARTIAL_RULES", "RESULT_EXTENTS", "RESULT_GRIDS", "aggregate_values", "sample_values"]
@@ -54,12 +57,8 @@ _LATTICE_SPAN = 2000.0  # m, at most this far apart
 
 def _crs_pair(src: GridGeometry, dst: GridGeometry) -> tuple[CRS, CRS] | None:
     """The two CRSs for a transform, or None when the coordinates need none."""
-    if (src.crs is None) != (dst.crs is None):
-        raise InputError(
-            "cannot align a grid with no coordinate reference system to one with a CRS; "
-            "give both grids a CRS (or neither)"
-        )
-    if src.crs is None or dst.crs is None or src.crs == dst.crs:
+    check_alignable(src.crs, dst.crs)
+    if src.crs is None or dst.crs is None or same_crs(src.crs, dst.crs):
         return None
     return src.crs, dst.crs
 
@@ -93,6 +92,8 @@ def _lattice_points(
     x, y = _apply(t, cols[None, :], rows[:, None])
     if pair is None:
         return x, y
+    if pair[1].is_geographic:  # longitudes may jump at the antimeridian: every point
+        return _transform(pair, x, y)
     step = int(min(_LATTICE_STEP, max(1, _LATTICE_SPAN // max(spacing, 1e-9))))
     r_nodes = np.unique(np.r_[np.arange(0, rows.size, step), rows.size - 1])
     c_nodes = np.unique(np.r_[np.arange(0, cols.size, step), cols.size - 1])
@@ -307,7 +308,7 @@ def sample_values(values: np.ndarray, src: GridGeometry, dst: GridGeometry) -> n
     values = np.asarray(values, dtype=np.float64)
     if values.shape != tuple(src.shape):
         raise InputError(f"values have shape {values.shape}, the source grid {tuple(src.shape)}")
-    pair = None if dst.crs is None and src.crs is None else _crs_pair(dst, src)
+    pair = _crs_pair(dst, src)
     ny_s, nx_s = src.shape
     ny_d, nx_d = dst.shape
     check_memory(8.0 * (ny_d * nx_d + 6 * min(_BLOCK_POINTS, ny_d * nx_d)), "sampling a grid")

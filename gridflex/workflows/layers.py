@@ -187,12 +187,21 @@ def _layer_values(scenario: Scenario, index: int) -> xr.DataArray:
     )
 
 
-def elevation_stress(scenario: Scenario, index: int, elevation: xr.DataArray) -> xr.Dataset:
-    """Load of an elevation layer on the working grid (see :func:`load_from_elevation`):
-    the rock above the regional surface, buoyed by sea water below sea level."""
+def elevation_stress(
+    scenario: Scenario, index: int, elevation: xr.DataArray, regional: Any = None
+) -> xr.Dataset:
+    """Load of an elevation layer (see :func:`load_from_elevation`): the rock above the
+    regional surface, buoyed by sea water below sea level; cells without data are the
+    regional surface (no edifice).
+
+    *regional* (m, a number or a grid like *elevation*) replaces the layer's own
+    ``regional_elevation`` or ``regional_radius`` surface (the working grid's surface
+    read back onto the input grid, :func:`input_grid_load`).
+    """
     layer = array_table(scenario, "loads")[index]
     infill: Mapping[str, Any] = scenario.table("infill") or {}
-    regional: Any = layer["regional_elevation"]
+    if regional is None:
+        regional = layer["regional_elevation"]
     missing = np.isnan(elevation.values)
     with error_context(scenario.where("loads", index=index)):
         if regional is None:
@@ -461,7 +470,6 @@ def input_grid_load(scenario: Scenario, grid: WorkingGrid, parts: WorkingLoad) -
     if not grid.input_layers:
         return None
     gravity = scenario.table("plate")["gravity"]
-    infill: Mapping[str, Any] = scenario.table("infill") or {}
     total = np.zeros(grid.input.shape)
     specs = array_table(scenario, "loads")
     for index, (layer, da) in enumerate(zip(specs, grid.input_layers, strict=True)):
@@ -471,25 +479,13 @@ def input_grid_load(scenario: Scenario, grid: WorkingGrid, parts: WorkingLoad) -
         elif layer["kind"] == "stress":
             part = values
         else:
-            regional: Any = layer["regional_elevation"]
-            if regional is None:
-                surface = parts.regional[index]
-                if surface is None:
-                    return None
-                regional = sample_values(surface, grid.working, grid.input)
-            base = np.broadcast_to(np.asarray(regional, dtype=np.float64), values.shape)
-            if not np.isfinite(base).all():
+            surface = parts.regional[index]
+            if surface is None:
                 return None
-            surface_in = np.where(np.isnan(values), base, values)  # no data: no edifice
-            with error_context(scenario.where("loads", index=index)):
-                part = load_from_elevation(
-                    da.copy(data=surface_in),
-                    layer["density"],
-                    da.copy(data=base.copy()),
-                    sea_level=infill.get("sea_level", 0.0),
-                    water_density=infill.get("water_density", SEA_WATER_DENSITY),
-                    gravity=gravity,
-                )["load"].values
+            regional = sample_values(surface, grid.working, grid.input)
+            if not np.isfinite(regional).all():
+                return None
+            part = elevation_stress(scenario, index, da, da.copy(data=regional))["load"].values
         total += np.nan_to_num(part)
     return total
 
