@@ -599,12 +599,9 @@ def to_input_grid(
     needs_residual = plate is not None and (
         _share_at(plate.smallest, plate.stiffness, spacing) >= _NEGLIGIBLE_SHARE
     )
-    derived = {"vertical_displacement"} if "deflection" in result else set()
-    if plate is not None and not needs_residual:
-        derived.add("load")  # the input load itself: no need to read the working one back
     for name, var in result.data_vars.items():
-        if name in derived:
-            continue
+        if name == "load" and plate is not None and not needs_residual:
+            continue  # the input load itself is written: no need to read the working one back
         if var.dims == ("y", "x"):
             values = sample_values(var.values, grid.working, grid.input)
             out[name] = xr.DataArray(values, dims=("y", "x"), attrs=dict(var.attrs))
@@ -619,12 +616,6 @@ def to_input_grid(
             response = _unresolved_response(unresolved, grid, rigidity_in, plate.stiffness)
             out["deflection"] = out["deflection"].copy(data=out["deflection"].values + response)
         out["load"] = xr.DataArray(input_load, dims=("y", "x"), attrs=dict(result["load"].attrs))
-    if "vertical_displacement" in derived and "vertical_displacement" in result:
-        out["vertical_displacement"] = xr.DataArray(
-            -out["deflection"].values,
-            dims=("y", "x"),
-            attrs=dict(result["vertical_displacement"].attrs),
-        )
     out = out[[name for name in result.data_vars if name in out.data_vars]]
     if grid.input.is_geographic:
         out["x"].attrs = {"units": "degrees_east"}

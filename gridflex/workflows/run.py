@@ -203,16 +203,17 @@ def output_dataset(
     on the input grid, nodata where the load file had none (*back*: the load there, the
     plate's rigidity, see :func:`to_input_grid`, and for an infill run without plate
     stiffness its columns solved on the input grid)."""
-    out = stamp_result(with_vertical_displacement(result, "plate"), scenario, command)
+    out = stamp_result(result, scenario, command)
     out.attrs.update(grid.describe())
     if _on_working_grid(scenario):
-        return out
+        return with_vertical_displacement(out, "plate")
     if back is None:
-        return with_nodata(to_input_grid(out, grid), grid.input_nodata)
-    back_on_input = to_input_grid(out, grid, back.input_load, back.rigidity)
-    if back.local is not None:
-        back_on_input = _with_local_columns(back_on_input, back.local)
-    return with_nodata(back_on_input, grid.input_nodata)
+        on_input = to_input_grid(out, grid)
+    else:
+        on_input = to_input_grid(out, grid, back.input_load, back.rigidity)
+        if back.local is not None:
+            on_input = _with_local_columns(on_input, back.local)
+    return with_nodata(with_vertical_displacement(on_input, "plate"), grid.input_nodata)
 
 
 def _local_infill(scenario: Scenario, grid: WorkingGrid) -> xr.Dataset:
@@ -238,10 +239,6 @@ def _with_local_columns(result: xr.Dataset, local: xr.Dataset) -> xr.Dataset:
     for name, var in local.data_vars.items():
         if name in out and out[name].dims == ("y", "x") and var.shape == out[name].shape:
             out[name] = out[name].copy(data=np.asarray(var.values))
-    if "vertical_displacement" in out and "deflection" in local:
-        out["vertical_displacement"] = out["vertical_displacement"].copy(
-            data=-np.asarray(local["deflection"].values)
-        )
     return out
 
 
