@@ -57,6 +57,7 @@ __all__ = [
     "elevation_stress",
     "synthetic_grid",
     "input_grid_load",
+    "restoring_stiffness",
     "to_input_grid",
     "working_load",
 ]
@@ -490,7 +491,7 @@ def input_grid_load(scenario: Scenario, grid: WorkingGrid, parts: WorkingLoad) -
     return total
 
 
-def _restoring_stiffness(attrs: Mapping[str, Any]) -> float | None:
+def restoring_stiffness(attrs: Mapping[str, Any]) -> float | None:
     """(rho_m - rho_infill) g (Pa/m) from a result's plate attributes (None when the
     infill density is not one number)."""
     try:
@@ -641,7 +642,7 @@ def _plate_response(
 ) -> _PlateResponse | None:
     """The plate behind *result* when the input-grid load can be written and its
     unresolved part added (a plain solve, one infill density); else None."""
-    stiffness = _restoring_stiffness(result.attrs)
+    stiffness = restoring_stiffness(result.attrs)
     if rigidity is None and "plate_rigidity" in result.attrs:
         rigidity = float(result.attrs["plate_rigidity"])
     if (

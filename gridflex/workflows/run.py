@@ -34,6 +34,7 @@ from gridflex.workflows.layers import (
     WorkingGrid,
     build_working_layers,
     input_grid_load,
+    restoring_stiffness,
     to_input_grid,
     working_load,
 )
@@ -324,10 +325,8 @@ def compensation_outside(working: xr.Dataset) -> float | None:
     attrs = working.attrs
     if attrs.get("edges") != "infinite" or "moat_fill" in working:
         return None
-    try:
-        contrast = float(attrs["plate_mantle_density"]) - float(attrs["plate_infill_density"])
-        stiffness = contrast * float(attrs["plate_gravity"])
-    except (KeyError, TypeError, ValueError):
+    stiffness = restoring_stiffness(attrs)
+    if stiffness is None:
         return None
     total = float(np.sum(working["load"].values))
     if not total > 0:
