@@ -44,7 +44,7 @@ import numpy as np
 import xarray as xr
 
 from gridflex.errors import InputError, NodataWarning
-from gridflex.gis.geometry import GridGeometry, geometry_of, reproject_values
+from gridflex.gis.geometry import GridGeometry, geometry_of, reproject_values, same_crs
 from gridflex.grid import check_same_grid
 from gridflex.io.rasters import MISSING_POLICIES, increasing_axes, read_raster
 from gridflex.scenario.context import error_context
@@ -185,6 +185,12 @@ def _onto(
             )
     else:
         check_same_grid(da, reference, f"{where}: variable {da.name!r}")
+        theirs = geometry_of(reference).crs
+        if geometry.crs is not None and theirs is not None and not same_crs(geometry.crs, theirs):
+            raise InputError(
+                f"{where}: variable {da.name!r} has the grid's coordinates but another "
+                "coordinate reference system; give it the grid's CRS"
+            )
         values = np.asarray(da.values, dtype=np.float64)
     return xr.DataArray(
         values,

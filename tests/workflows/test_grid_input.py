@@ -314,6 +314,15 @@ def test_geotiff_and_south_up_netcdf_of_the_same_cells_are_the_same_grid(tmp_pat
     assert_allclose(on_north.values, north_up.values, rtol=0, atol=0)
 
 
+def test_a_grid_with_the_same_coordinates_in_another_crs_is_refused(tmp_path):
+    # the same numbers in another projection are other places: never taken as the grid
+    tif, _ = write_both_orders(tmp_path, "h", _field(), crs="EPSG:32633")
+    other, _ = write_both_orders(tmp_path, "g", _field(), crs="EPSG:32634")
+    reference = read_grid_input(tif, None, WHERE)
+    with pytest.raises(InputError, match="another coordinate reference system"):
+        read_grid_input(other, None, WHERE, reference=reference)
+
+
 def test_run_layers_from_a_geotiff_and_a_netcdf_share_one_grid(tmp_path):
     # two [[loads]] layers of the same cells, one north-up GeoTIFF and one south-up NetCDF:
     # no resampling, the layers add cell by cell (common practice)
