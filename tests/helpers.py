@@ -181,3 +181,28 @@ def write_float32_geotiff(
         if units is not None:
             dst.update_tags(1, units=units)
     return path
+
+
+def run_thickness_raster(folder: Path, name: str, raster: str, te: str, working: str = ""):
+    """``gridflex run`` of one thickness layer (density 2800, displacing sea water) read
+    from *raster* on a plate of *te*, with an optional ``[working_grid]`` text; the
+    written result (``<name>.nc``) loaded."""
+    from gridflex.cli.main import main
+
+    (folder / f"{name}.toml").write_text(
+        f"""
+[plate]
+elastic_thickness = "{te}"
+{working}
+[[loads]]
+file = "{raster}"
+density = 2800
+displaced_density = 1030
+
+[output]
+file = "{name}.nc"
+"""
+    )
+    assert main(["run", str(folder / f"{name}.toml"), "-q"]) == 0
+    with xr.open_dataset(folder / f"{name}.nc") as ds:
+        return ds.load()

@@ -9,7 +9,7 @@ from numpy.testing import assert_allclose
 
 from gridflex.cli.main import main
 from gridflex.workflows.layers import automatic_spacing
-from tests.helpers import write_float32_geotiff
+from tests.helpers import run_thickness_raster, write_float32_geotiff
 
 N, CELL = 320, 200.0  # an invented 64 km square raster of 200 m cells
 
@@ -26,23 +26,7 @@ def _write(path, height):
 
 
 def _run(tmp_path, name, working):
-    (tmp_path / f"{name}.toml").write_text(
-        f"""
-[plate]
-elastic_thickness = "5 km"
-{working}
-[[loads]]
-file = "fine.tif"
-density = 2800
-displaced_density = 1030
-
-[output]
-file = "{name}.nc"
-"""
-    )
-    assert main(["run", str(tmp_path / f"{name}.toml"), "-q"]) == 0
-    with xr.open_dataset(tmp_path / f"{name}.nc") as ds:
-        return ds.load()
+    return run_thickness_raster(tmp_path, name, "fine.tif", "5 km", working)
 
 
 def test_a_fine_raster_is_solved_on_cells_of_a_sixteenth_flexural_parameter(tmp_path):

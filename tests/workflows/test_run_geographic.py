@@ -15,7 +15,7 @@ from rasterio.crs import CRS
 
 from gridflex.cli.main import main
 from gridflex.io.rasters import read_raster
-from tests.helpers import write_float32_geotiff
+from tests.helpers import run_thickness_raster, write_float32_geotiff
 
 LON0, LAT0, STEP = 25.0, -30.0, 0.02  # an invented open-ocean patch; 0.02 degree cells
 NY, NX = 120, 140
@@ -255,23 +255,7 @@ def _projected_rough(path):
 
 
 def _deflection_for(tmp_path, name, working):
-    (tmp_path / f"{name}.toml").write_text(
-        f"""
-[plate]
-elastic_thickness = "1 km"
-{working}
-[[loads]]
-file = "rough.tif"
-density = 2800
-displaced_density = 1030
-
-[output]
-file = "{name}.nc"
-"""
-    )
-    assert main(["run", str(tmp_path / f"{name}.toml"), "-q"]) == 0
-    with xr.open_dataset(tmp_path / f"{name}.nc") as ds:
-        return ds["deflection"].values
+    return run_thickness_raster(tmp_path, name, "rough.tif", "1 km", working)["deflection"].values
 
 
 def test_a_coarse_working_grid_adds_the_response_to_the_load_it_cannot_carry(tmp_path):
