@@ -12,6 +12,8 @@ from __future__ import annotations
 import logging
 import math
 import time
+from collections.abc import Callable
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -47,8 +49,10 @@ __all__ = [
     "DEFAULT_MAX_ITERATIONS",
     "DEFAULT_TOLERANCE",
     "EDGES",
+    "FiniteDifferenceSolver",
     "STEEP_FLEXURAL_PARAMETERS",
     "PlateOperator",
+    "SpectralTerm",
     "area_weights",
     "corner_rigidity",
     "finite_difference_deflection",
@@ -163,21 +167,23 @@ def _check_arguments(
     check_number("pad_factor", pad_factor, minimum=0.0)
 
 
-def _solve_grid(
-    load: np.ndarray,
+def _solve_rigidity(
     spec: GridSpec,
     rigidity: np.ndarray,
-    stiffness: float,
+    pad_stiffness: float,
     edges: str | tuple[str, str],
     pad_factor: float,
-) -> tuple[np.ndarray, np.ndarray, tuple[str, str]]:
-    """Rigidity and load on the solve grid, and its axis edges.
+) -> tuple[np.ndarray, tuple[str, str]]:
+    """Rigidity on the solve grid, and its axis edges.
 
-    For ``edges="infinite"`` the grid embedded in a periodic margin (:func:`pad_rigidity`,
-    zero load); otherwise the grid itself. Checks the memory the solve will need first.
+    For ``edges="infinite"`` the grid embedded in a periodic margin (:func:`pad_rigidity`)
+    sized with the flexural parameter of *pad_stiffness*; otherwise the grid itself. Checks
+    the memory the solve will need first.
     """
+    if rigidity.shape != spec.shape:
+        raise InputError(f"rigidity grid has shape {rigidity.shape}, the grid {spec.shape}")
     if edges == "infinite":
-        shape = _infinite_shape(spec, rigidity, stiffness, pad_factor)
+        shape = _infinite_shape(spec, rigidity, pad_stiffness, pad_factor)
     else:
         shape = spec.shape
     n = shape[0] * shape[1]
@@ -189,26 +195,31 @@ def _solve_grid(
     check_memory(8.0 * n * 22, f"finite-difference solve on a grid of {shape[0]} x {shape[1]}")
     if edges != "infinite":
         axis_edges = edges if isinstance(edges, tuple) else (edges, edges)
-        return rigidity, np.asarray(load, dtype=np.float64), axis_edges
-    ny, nx = spec.shape
-    rhs_load = np.zeros(shape)
-    rhs_load[:ny, :nx] = load
-    return pad_rigidity(rigidity, shape), rhs_load, ("periodic", "periodic")
+        return rigidity, axis_edges
+    return pad_rigidity(rigidity, shape), ("periodic", "periodic")
 
 
 def _preconditioner(
-    operator: PlateOperator, band_width: float | None, max_band_nodes: int
+    operator: PlateOperator,
+    band_width: float | None,
+    max_band_nodes: int,
+    spectral_term: SpectralTerm | None,
 ) -> tuple[MultiplicativePreconditioner, float]:
     """The band round the operator's sharp features, the blend, and their combination;
-    also the band width used (m)."""
-    features = find_sharp_features(operator)
-    if band_width is None:
-        band_width = features.band_width
-    nodes, width_used, _ = sharp_band(
-        operator, float(band_width), int(max_band_nodes), features.nodes
-    )
+    also the band width used (m). With a *spectral_term* the band is left out (its exact
+    solve would need the term's dense matrix) and the blend's levels include the term."""
+    if spectral_term is None:
+        features = find_sharp_features(operator)
+        if band_width is None:
+            band_width = features.band_width
+        nodes, width_used, _ = sharp_band(
+            operator, float(band_width), int(max_band_nodes), features.nodes
+        )
+    else:
+        nodes, width_used = np.zeros(0, dtype=np.int64), 0.0
     band = BandSolver.build(operator, nodes)
-    blend = BlendPreconditioner.build(operator, nodes)
+    extra = None if spectral_term is None else spectral_term.symbol
+    blend = BlendPreconditioner.build(operator, nodes, extra)
     log.info(
         "finite-difference solve on %s nodes: %d blend levels, band of %d nodes (%.0f m)",
         operator.shape,
@@ -217,6 +228,265 @@ def _preconditioner(
         width_used,
     )
     return MultiplicativePreconditioner(operator, blend, band), width_used
+
+
+@dataclass(eq=False)
+class SpectralTerm:
+    """A constant-coefficient term S w added to the plate operator, applied by FFT on the
+    (doubly periodic) solve grid: S w = irfft2(s(k) rfft2(w)) with a symbol s >= 0.
+
+    Used by the implicit time step of a plate over a viscous half-space, whose operator
+    adds 2 η |k| / Δt (Bueler, Lingle & Brown 2007, J. Glaciol. 53, eq. 11; PHYSICS.md 7.3).
+
+    Attributes
+    ----------
+    symbol : numpy.ndarray, shape (ny, nx // 2 + 1)
+        s(k) on the rfft2 half-spectrum of the solve grid (Pa m⁻¹), finite and >= 0.
+    """
+
+    symbol: np.ndarray
+
+    def add_to(self, w: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """out += S w; returns *out*."""
+        spectrum = scipy.fft.rfft2(w, workers=-1)
+        spectrum *= self.symbol
+        out += scipy.fft.irfft2(spectrum, s=w.shape, workers=-1)
+        return out
+
+
+@dataclass(eq=False)
+class FiniteDifferenceSolver:
+    """A variable-rigidity plate set up once (operator, preconditioner, band factor) and
+    solved for any number of loads, each optionally started from a previous deflection.
+
+    Build it with :meth:`build`; :meth:`solve` takes a load on the grid,
+    :meth:`solve_full` a load on the whole solve grid (the grid sits at
+    ``[:ny, :nx]`` of it, :attr:`window`; for ``edges="infinite"`` the rest is the
+    periodic margin).
+
+    Attributes
+    ----------
+    operator : PlateOperator
+        K on the solve grid.
+    preconditioner : MultiplicativePreconditioner
+        Band and blend.
+    grid_shape : tuple of int
+        (ny, nx) of the grid.
+    spacing : tuple of float
+        (dy, dx) (m).
+    band_width : float
+        Width of the exact-solve band used (m).
+    tolerance : float
+        Default stopping tolerance of :meth:`solve`.
+    max_iterations : int
+        Default iteration limit.
+    spectral_term : SpectralTerm or None
+        Constant-coefficient term added to K (applied by FFT), if any.
+    setup_seconds : float
+        Time spent building (s).
+    """
+
+    operator: PlateOperator
+    preconditioner: MultiplicativePreconditioner
+    grid_shape: tuple[int, int]
+    spacing: tuple[float, float]
+    band_width: float
+    tolerance: float
+    max_iterations: int
+    spectral_term: SpectralTerm | None
+    setup_seconds: float
+
+    @classmethod
+    def build(
+        cls,
+        spec: GridSpec,
+        rigidity: np.ndarray,
+        stiffness: float,
+        poisson_ratio: float,
+        edges: str | tuple[str, str] = "infinite",
+        *,
+        pad_factor: float = DEFAULT_PAD_FACTOR,
+        pad_stiffness: float | None = None,
+        tolerance: float = DEFAULT_TOLERANCE,
+        max_iterations: int = DEFAULT_MAX_ITERATIONS,
+        band_width: float | None = None,
+        max_band_nodes: int = DEFAULT_MAX_BAND_NODES,
+        spectral_symbol: Callable[[tuple[int, int]], np.ndarray] | None = None,
+    ) -> FiniteDifferenceSolver:
+        """Set up the solve of K w = a q for a rigidity grid.
+
+        Parameters
+        ----------
+        spec, rigidity, stiffness, poisson_ratio, edges, pad_factor, tolerance,
+        max_iterations, band_width, max_band_nodes
+            As in :func:`finite_difference_deflection`.
+        pad_stiffness : float, optional
+            Restoring stiffness (Pa m⁻¹) whose flexural parameter sets the margin of
+            ``edges="infinite"`` (the weakest restoring force the caller will meet, say
+            under a fill lighter than the operator's); *stiffness* by default.
+        spectral_symbol : callable, optional
+            ``spectral_symbol(solve_shape)`` returns the symbol of a
+            :class:`SpectralTerm` on the rfft2 half-spectrum of the solve grid; needs a
+            doubly periodic solve grid (``edges`` "infinite" or "periodic").
+
+        Raises
+        ------
+        InputError
+            Bad edges, settings or sizes; not enough memory; a spectral term on a grid
+            that is not doubly periodic.
+        """
+        _check_arguments(edges, tolerance, max_iterations, pad_factor)
+        start = time.perf_counter()
+        pad = (
+            stiffness
+            if pad_stiffness is None
+            else check_number("pad_stiffness", pad_stiffness, unit="Pa/m", minimum=0.0, strict=True)
+        )
+        solve_rigidity, axis_edges = _solve_rigidity(
+            spec, np.asarray(rigidity, dtype=np.float64), pad, edges, pad_factor
+        )
+        operator = PlateOperator.build(
+            solve_rigidity, stiffness, poisson_ratio, spec.dy, spec.dx, axis_edges
+        )
+        term = None
+        if spectral_symbol is not None:
+            if axis_edges != ("periodic", "periodic"):
+                raise InputError(
+                    "a spectral term needs a doubly periodic solve grid: "
+                    f"edges='infinite' or 'periodic', got {edges!r}"
+                )
+            term = SpectralTerm(np.asarray(spectral_symbol(operator.shape), dtype=np.float64))
+        with single_threaded_blas():  # see gridflex.solvers.blas_threads
+            preconditioner, width_used = _preconditioner(operator, band_width, max_band_nodes, term)
+        return cls(
+            operator,
+            preconditioner,
+            spec.shape,
+            (spec.dy, spec.dx),
+            float(width_used),
+            float(tolerance),
+            int(max_iterations),
+            term,
+            time.perf_counter() - start,
+        )
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        """Shape of the solve grid."""
+        return self.operator.shape
+
+    @property
+    def window(self) -> tuple[slice, slice]:
+        """Where the grid lies in the solve grid."""
+        return (slice(0, self.grid_shape[0]), slice(0, self.grid_shape[1]))
+
+    def apply(self, w: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """K w (plus the spectral term, if any) into *out* (solve grid)."""
+        self.operator.apply(w, out)
+        if self.spectral_term is not None:
+            self.spectral_term.add_to(w, out)
+        return out
+
+    def solve(
+        self,
+        load: np.ndarray,
+        start: np.ndarray | None = None,
+        *,
+        tolerance: float | None = None,
+        progress: Progress | None = None,
+    ) -> tuple[np.ndarray, dict[str, Any]]:
+        """Deflection (m, positive down) on the grid for a load (Pa) on the grid.
+
+        *start* (on the grid) is a first guess, for example the deflection of a nearby
+        problem; the margin of the solve grid then starts from zero.
+        """
+        full = np.zeros(self.shape)
+        full[self.window] = load
+        guess = None
+        if start is not None:
+            guess = np.zeros(self.shape)
+            guess[self.window] = start
+        w, info = self.solve_full(full, guess, tolerance=tolerance, progress=progress)
+        return np.ascontiguousarray(w[self.window]), info
+
+    def solve_full(
+        self,
+        load: np.ndarray,
+        start: np.ndarray | None = None,
+        *,
+        tolerance: float | None = None,
+        progress: Progress | None = None,
+    ) -> tuple[np.ndarray, dict[str, Any]]:
+        """Deflection (m) on the whole solve grid for a load (Pa) on it.
+
+        Parameters
+        ----------
+        load : numpy.ndarray, shape :attr:`shape`
+            q (Pa, positive down) on the solve grid.
+        start : numpy.ndarray, shape :attr:`shape`, optional
+            First guess of w (m); zero by default.
+        tolerance : float, optional
+            Overrides :attr:`tolerance` for this solve.
+        progress : callable, optional
+            As in :func:`finite_difference_deflection`.
+
+        Returns
+        -------
+        deflection : numpy.ndarray, shape :attr:`shape`
+        info : dict
+            As in :func:`finite_difference_deflection`.
+        """
+        tol = self.tolerance if tolerance is None else float(tolerance)
+        if not 0.0 < tol < 1.0:
+            raise InputError(f"tolerance must lie in (0, 1), got {tolerance!r}")
+        began = time.perf_counter()
+        operator, preconditioner = self.operator, self.preconditioner
+        dy, dx = self.spacing
+        floor = roundoff_residual(operator.rigidity, operator.stiffness, min(dx, dy))
+        if floor > 0.5 * tol:
+            log.warning(
+                "tolerance %.1e is close to the round-off limit (about %.0e) of a plate this "
+                "stiff on cells this small; the iteration may stop short of it",
+                tol,
+                floor,
+            )
+        rhs = operator.area * load
+        with single_threaded_blas():
+            first = preconditioner.initial_guess(rhs, start, self.apply)
+            try:
+                x, iterations, residual = conjugate_gradient(
+                    self.apply,
+                    rhs,
+                    preconditioner.apply,
+                    tol,
+                    self.max_iterations,
+                    progress,
+                    first,
+                    preconditioner.use_double_precision,
+                )
+            except ConvergenceError as exc:
+                alpha = (4.0 * float(operator.rigidity.max()) / operator.stiffness) ** 0.25
+                raise ConvergenceError(
+                    f"{exc}. On this grid the flexural parameter spans up to "
+                    f"{alpha / min(dx, dy):.0f} cells; double-precision round-off alone "
+                    f"limits the residual to about {floor:.0e}"
+                ) from exc
+        total = float(np.abs(rhs).sum())
+        imbalance = abs(operator.stiffness * float((operator.area * x).sum()) - float(rhs.sum()))
+        info: dict[str, Any] = {
+            "iterations": int(iterations),
+            "residual": float(residual),
+            "tolerance": tol,
+            "solve_shape": self.shape,
+            "blend_levels": preconditioner.blend.levels.copy(),
+            "band_nodes": preconditioner.band.size,
+            "band_width": self.band_width,
+            "force_balance_residual": imbalance / total if total > 0 else 0.0,
+            "locally_compensated_load": float(((1.0 - operator.area) * load).sum() * dy * dx),
+            "setup_seconds": self.setup_seconds,
+            "solve_seconds": time.perf_counter() - began,
+        }
+        return x, info
 
 
 def finite_difference_deflection(
@@ -235,6 +505,8 @@ def finite_difference_deflection(
     progress: Progress | None = None,
 ) -> tuple[np.ndarray, dict[str, Any]]:
     """Deflection of a plate of spatially varying rigidity by preconditioned CG.
+
+    One solve of a :class:`FiniteDifferenceSolver` (build it once to solve many loads).
 
     Parameters
     ----------
@@ -291,60 +563,16 @@ def finite_difference_deflection(
         The tolerance was not reached within *max_iterations*, or round-off stalled the
         iteration above it (the message gives the estimated round-off limit).
     """
-    _check_arguments(edges, tolerance, max_iterations, pad_factor)
-    start = time.perf_counter()
-    ny, nx = spec.shape
-    solve_rigidity, rhs_load, axis_edges = _solve_grid(
-        load, spec, np.asarray(rigidity, dtype=np.float64), stiffness, edges, pad_factor
+    solver = FiniteDifferenceSolver.build(
+        spec,
+        rigidity,
+        stiffness,
+        poisson_ratio,
+        edges,
+        pad_factor=pad_factor,
+        tolerance=tolerance,
+        max_iterations=max_iterations,
+        band_width=band_width,
+        max_band_nodes=max_band_nodes,
     )
-    shape = solve_rigidity.shape
-    operator = PlateOperator.build(
-        solve_rigidity, stiffness, poisson_ratio, spec.dy, spec.dx, axis_edges
-    )
-    floor = roundoff_residual(solve_rigidity, stiffness, min(spec.dx, spec.dy))
-    if floor > 0.5 * tolerance:
-        log.warning(
-            "tolerance %.1e is close to the round-off limit (about %.0e) of a plate this "
-            "stiff on cells this small; the iteration may stop short of it",
-            tolerance,
-            floor,
-        )
-    with single_threaded_blas():  # see gridflex.solvers.blas_threads
-        preconditioner, width_used = _preconditioner(operator, band_width, max_band_nodes)
-        rhs = operator.area * rhs_load
-        setup = time.perf_counter() - start
-        try:
-            x, iterations, residual = conjugate_gradient(
-                operator.apply,
-                rhs,
-                preconditioner.apply,
-                float(tolerance),
-                int(max_iterations),
-                progress,
-                preconditioner.initial_guess(rhs),
-                preconditioner.use_double_precision,
-            )
-        except ConvergenceError as exc:
-            cells = (4.0 * float(solve_rigidity.max()) / stiffness) ** 0.25 / min(spec.dx, spec.dy)
-            raise ConvergenceError(
-                f"{exc}. On this grid the flexural parameter spans up to {cells:.0f} cells; "
-                f"double-precision round-off alone limits the residual to about {floor:.0e}"
-            ) from exc
-    solve_seconds = time.perf_counter() - start - setup
-    total = float(np.abs(rhs).sum())
-    imbalance = abs(stiffness * float((operator.area * x).sum()) - float(rhs.sum()))
-    cell = spec.dx * spec.dy
-    info: dict[str, Any] = {
-        "iterations": int(iterations),
-        "residual": float(residual),
-        "tolerance": float(tolerance),
-        "solve_shape": shape,
-        "blend_levels": preconditioner.blend.levels.copy(),
-        "band_nodes": preconditioner.band.size,
-        "band_width": float(width_used),
-        "force_balance_residual": imbalance / total if total > 0 else 0.0,
-        "locally_compensated_load": float(((1.0 - operator.area) * rhs_load).sum() * cell),
-        "setup_seconds": setup,
-        "solve_seconds": solve_seconds,
-    }
-    return np.ascontiguousarray(x[:ny, :nx]), info
+    return solver.solve(np.asarray(load, dtype=np.float64), progress=progress)

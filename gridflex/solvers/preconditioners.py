@@ -212,12 +212,18 @@ class BlendPreconditioner:
     _spacing: tuple[float, float]
     _stiffness: float
     single: bool = SINGLE_PRECISION_FFT
+    _extra: np.ndarray | None = None
     _transfers: dict[np.dtype, list[np.ndarray]] = field(default_factory=dict, repr=False)
     _filters: dict[np.dtype, list[BlockedSpectralFilter]] = field(default_factory=dict, repr=False)
     _tmp: list[np.ndarray] = field(default_factory=list, repr=False)
 
     @classmethod
-    def build(cls, operator: PlateOperator, band: np.ndarray | None = None) -> BlendPreconditioner:
+    def build(
+        cls,
+        operator: PlateOperator,
+        band: np.ndarray | None = None,
+        extra_symbol: np.ndarray | None = None,
+    ) -> BlendPreconditioner:
         """Levels and weights for *operator*'s rigidity grid.
 
         Nodes of zero rigidity take no part in the blend: their term is the exact local
@@ -232,6 +238,10 @@ class BlendPreconditioner:
             The residual the blend receives there is zero and its output there is
             replaced by the second band solve, so the weights are set to zero on the band
             and a level used only inside it is dropped (one FFT pair less per iteration).
+        extra_symbol : numpy.ndarray, optional
+            Symbol (Pa m⁻¹) of a constant-coefficient term added to the operator, on the
+            rfft2 half-spectrum of the (doubly periodic) node grid; it is added to every
+            level's denominator.
         """
         rigidity = operator.rigidity
         shape = operator.shape
@@ -243,6 +253,11 @@ class BlendPreconditioner:
         spacing, stiffness = (operator.dy, operator.dx), operator.stiffness
         plate = rigidity > 0
         all_plate = bool(plate.all())
+        extra = None
+        if extra_symbol is not None:
+            if operator.edges != ("periodic", "periodic"):
+                raise ValueError("an extra spectral symbol needs a doubly periodic operator")
+            extra = np.asarray(extra_symbol, dtype=np.float64)
         local = None
         if not all_plate:
             local = np.where(plate, 0.0, 1.0 / (operator.area * operator.stiffness))
@@ -256,8 +271,14 @@ class BlendPreconditioner:
             acting.reshape(-1)[band] = False
         if not acting.any():
             acting = plate
+        if not acting.any() and extra is not None:
+            # no plate anywhere: the operator is a Δρ g + S, and its spectral inverse at
+            # zero rigidity is exact where a = 1
+            return cls(
+                np.zeros(1), fft_shape, shape, [None], None, spacing, stiffness, False, extra
+            )
         if not acting.any():
-            return cls(np.zeros(0), fft_shape, shape, [], local, spacing, stiffness, False)
+            return cls(np.zeros(0), fft_shape, shape, [], local, spacing, stiffness, False, extra)
         lo = math.log(float(np.min(rigidity, where=acting, initial=np.inf)))
         hi = math.log(float(np.max(rigidity, where=acting, initial=0.0)))
         count = 1 + math.ceil((hi - lo) / math.log(LEVEL_SPACING) - 1e-6) if hi > lo else 1
@@ -285,6 +306,7 @@ class BlendPreconditioner:
             spacing,
             stiffness,
             SINGLE_PRECISION_FFT,
+            extra,
         )
 
     def _dtype(self) -> np.dtype:
@@ -302,6 +324,8 @@ class BlendPreconditioner:
             for level in self.levels:
                 transfer = np.multiply(symbol, level, dtype=dtype)
                 transfer += dtype.type(self._stiffness)
+                if self._extra is not None:
+                    transfer += self._extra.astype(dtype, copy=False)
                 transfers.append(np.reciprocal(transfer, out=transfer))
         return transfers
 
@@ -506,15 +530,32 @@ class MultiplicativePreconditioner:
         z.reshape(-1)[band.nodes] += band.solve_band(band.residual_band(residual, z))
         return z
 
-    def initial_guess(self, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Start x₀ = B b (exact on the band, zero elsewhere) and its residual b − K x₀,
-        which is zero on the band (set exactly)."""
-        x = np.zeros(rhs.shape)
+    def initial_guess(
+        self,
+        rhs: np.ndarray,
+        start: np.ndarray | None = None,
+        apply: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """A start x₀ and its residual b − K x₀, which is zero on the band (set exactly).
+
+        Without *start*, x₀ = B b (exact on the band, zero elsewhere). With *start* (a
+        previous deflection, say), x₀ is *start* corrected on the band by B (b − K start),
+        its residual taken with *apply* (the full operator, :meth:`PlateOperator.apply`
+        by default).
+        """
         band = self.band
+        if start is None:
+            x = np.zeros(rhs.shape)
+            residual = rhs.copy()
+        else:
+            x = np.array(start, dtype=np.float64, copy=True).reshape(rhs.shape)
+            product = np.empty(rhs.shape)
+            (self.operator.apply if apply is None else apply)(x, product)
+            residual = np.subtract(rhs, product, out=product)
         if band.size == 0:
-            return x, rhs.copy()
-        on_band = band.solve_band(rhs.ravel()[band.nodes])
-        x.reshape(-1)[band.nodes] = on_band
-        residual = band.subtract_product(rhs, on_band)
+            return x, residual
+        on_band = band.solve_band(residual.ravel()[band.nodes])
+        x.reshape(-1)[band.nodes] += on_band
+        residual = band.subtract_product(residual, on_band)
         residual.reshape(-1)[band.nodes] = 0.0
         return x, residual
