@@ -152,8 +152,12 @@ def solve(
     pad_factor : float, default 4.5
         Padding on each side in decay lengths (the flexural parameter without
         in-plane force); ignored when periodic.
-    tolerance : float, default 1e-8
-        Finite differences: relative residual ||a q − K w|| / ||a q|| to reach.
+    tolerance : float, default 1e-6
+        Finite differences: relative accuracy of the deflection to reach, as the
+        estimated error of w in the energy norm of the discrete plate operator K,
+        ||w* − w||_K / ||w*||_K (the default keeps the largest error of w within 1e-6
+        of its peak; see
+        :func:`~gridflex.solvers.finite_difference.finite_difference_deflection`).
     max_iterations : int, default 300
         Finite differences: iteration limit.
     progress : callable, optional
@@ -167,7 +171,11 @@ def solve(
         attributes record the plate, the solver, ``padded_shape`` (ny, nx) and the
         global force-balance residual ``force_balance_residual``; the
         finite-difference solver adds ``iterations``, ``residual`` (the true
-        relative residual, recomputed), ``tolerance``, ``blend_levels``,
+        relative residual ||a q − K w|| / ||a q||, recomputed), ``accuracy`` (the
+        estimated relative error of w in the energy norm), ``backward_error`` (the
+        normwise backward error ||a q − K w|| / (||K|| ||w|| + ||a q||)),
+        ``at_round_off`` (1 when double-precision round-off stopped the iteration
+        above *tolerance*), ``tolerance``, ``blend_levels``,
         ``band_nodes``, ``band_width`` and ``locally_compensated_load``.
 
     Raises
@@ -175,7 +183,9 @@ def solve(
     InputError
         Invalid grid, parameters, or compression beyond buckling.
     ConvergenceError
-        The finite-difference iteration did not reach *tolerance*.
+        The finite-difference iteration did not converge (error estimate above
+        *tolerance* at *max_iterations* with a backward error above round-off, or a
+        breakdown).
 
     Examples
     --------
@@ -289,8 +299,9 @@ def _solve_finite_difference(
         progress=progress,
     )
     log.info(
-        "finite-difference solve: %d iterations, residual %.2e, band %d nodes",
+        "finite-difference solve: %d iterations, accuracy %.1e, residual %.2e, band %d nodes",
         info["iterations"],
+        info["accuracy"],
         info["residual"],
         info["band_nodes"],
     )
@@ -304,6 +315,9 @@ def _solve_finite_difference(
         "force_balance_residual": info["force_balance_residual"],
         "iterations": info["iterations"],
         "residual": info["residual"],
+        "accuracy": info["accuracy"],
+        "backward_error": info["backward_error"],
+        "at_round_off": int(info["at_round_off"]),
         "tolerance": info["tolerance"],
         "blend_levels": np.asarray(info["blend_levels"], dtype=np.float64),
         "band_nodes": info["band_nodes"],

@@ -116,7 +116,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
             "number", "zero padding per side in flexural parameters", 4.5, minimum=0.0
         ),
         "tolerance": Key(
-            "number", "relative residual of the finite-difference iteration", 1e-8, minimum=1e-15
+            "number",
+            "relative accuracy of the deflection (energy norm) of the finite-difference iteration",
+            1e-6,
+            minimum=1e-15,
         ),
         "max_iterations": Key(
             "integer", "iteration limit of the finite-difference solver", 300, minimum=1
