@@ -385,6 +385,7 @@ class OutputSet:
             raise RuntimeError(f"{path}: not in the output plan of this run")
         previous = self._staged.pop(final, None)
         _unlink(previous)
+        self._make_folders()  # again, should a failing run beside this one have removed one
         tmp = temporary_path(final)
         self._staged[final] = tmp
         return tmp
