@@ -266,6 +266,7 @@ class _Committed:
     final: Path
     backup: Path | None
     inode: tuple[int, int]
+    existed: bool
 
 
 class OutputSet:
@@ -421,13 +422,14 @@ class OutputSet:
                 for final, tmp in staged:
                     stat = tmp.stat()
                     inode = (stat.st_dev, stat.st_ino)
+                    existed = final.exists()
                     if self.overwrite:
                         backup = _keep_copy(final)
                         os.replace(tmp, final)
                     else:
                         backup = None
                         _link_new(tmp, final)
-                    done.append(_Committed(final, backup, inode))
+                    done.append(_Committed(final, backup, inode, existed))
             except FileExistsError as exc:
                 self._roll_back(done)
                 raise OutputError(
@@ -453,7 +455,7 @@ class OutputSet:
             try:
                 if item.backup is not None:
                     os.replace(item.backup, item.final)
-                elif ours and not self.overwrite:
+                elif ours and not item.existed:
                     item.final.unlink()
                 elif ours:  # replaced an existing file that could not be kept
                     self.replaced.append(item.final)

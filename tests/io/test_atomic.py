@@ -115,17 +115,18 @@ def test_without_overwrite_a_file_written_meanwhile_is_kept_and_this_run_undone(
 def test_with_overwrite_a_failed_commit_puts_the_replaced_files_back(tmp_path):
     for name in ("a.txt", "b.txt"):
         (tmp_path / name).write_text(f"old {name}")
+    names = ("a.txt", "a_new.txt", "b.txt", "c.txt")  # committed in this order
     files = OutputSet(overwrite=True)
-    files.add({"a": tmp_path / "a.txt", "b": tmp_path / "b.txt", "c": tmp_path / "c.txt"})
+    files.add({name: tmp_path / name for name in names})
     with pytest.raises(OutputError, match=r"c\.txt: cannot write .*nothing of this run"):
         with files.writing():
-            for name in ("a.txt", "b.txt", "c.txt"):
+            for name in names:
                 _write(tmp_path / name, f"new {name}")
             (tmp_path / "c.txt").mkdir()  # the rename of the last one fails
             (tmp_path / "c.txt" / "keep").write_text("x")
     assert (tmp_path / "a.txt").read_text() == "old a.txt"
     assert (tmp_path / "b.txt").read_text() == "old b.txt"
-    assert _tree(tmp_path) == ["a.txt", "b.txt", "c.txt", "c.txt/keep"]
+    assert _tree(tmp_path) == ["a.txt", "b.txt", "c.txt", "c.txt/keep"]  # a_new.txt removed
 
 
 def test_single_file_is_not_put_over_a_file_that_appeared_meanwhile(tmp_path):
