@@ -15,6 +15,7 @@ from gridflex.errors import (
     GridflexError,
     GridflexWarning,
     InputError,
+    OutputError,
 )
 from gridflex.estimation.admittance import cross_spectra, fit_te_spectral
 from gridflex.estimation.misfit import TeFit, fit_te
@@ -73,6 +74,7 @@ __all__ = [
     "GridflexError",
     "InputError",
     "ConvergenceError",
+    "OutputError",
     "GridflexWarning",
     "EdgeLoadWarning",
     "GravitySeriesWarning",

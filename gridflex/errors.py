@@ -12,6 +12,7 @@ __all__ = [
     "GridflexError",
     "InputError",
     "ConvergenceError",
+    "OutputError",
     "GridflexWarning",
     "CompensationOutsideWarning",
     "EdgeLoadWarning",
@@ -35,6 +36,15 @@ class ConvergenceError(GridflexError, RuntimeError):
     """An iterative solve stopped before reaching its tolerance.
 
     No result grid is returned (or written) when this is raised.
+    """
+
+
+class OutputError(GridflexError, OSError):
+    """An output file could not be written or put in place (full disk, no permission,
+    another run took its name meanwhile).
+
+    Nothing of the run is left under a final output name when this is raised; the
+    message names the file.
     """
 
 

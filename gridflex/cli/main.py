@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 import warnings
 from collections.abc import Sequence
@@ -18,6 +19,7 @@ COMMANDS: tuple[ModuleType, ...] = (run, history, fit, sweep, demo, profile, bas
 
 EXIT_INPUT = 2
 EXIT_CONVERGENCE = 3
+EXIT_FAILURE = 1
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -33,7 +35,8 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Run the command line; return the exit status (0 ok, 2 bad input, 3 no convergence)."""
+    """Run the command line; return the exit status (0 ok, 2 bad input or an output that
+    could not be written, 3 no convergence, 1 any other failure)."""
     parser = build_parser()
     args = parser.parse_args(argv)
     if args.command is None:
@@ -56,3 +59,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("gridflex: interrupted", file=sys.stderr)
         return 130
+    except Exception as exc:  # a bug or a library failure: still one line, no traceback
+        logging.getLogger(__name__).debug("traceback", exc_info=True)
+        print(
+            f"gridflex: error: {type(exc).__name__}: {exc} (run with -v for the traceback)",
+            file=sys.stderr,
+        )
+        return EXIT_FAILURE

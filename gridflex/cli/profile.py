@@ -6,6 +6,7 @@ import argparse
 
 from gridflex.cli.common import SubParsers, add_common_options, add_overwrite_option, wrote
 from gridflex.errors import InputError
+from gridflex.io.atomic import OutputSet
 from gridflex.io.netcdf import read_result
 from gridflex.io.plots import plot_profile
 from gridflex.io.tables import write_csv
@@ -41,6 +42,8 @@ def add_parser(subparsers: SubParsers) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
+    files = OutputSet(args.overwrite, [args.result])
+    files.add({"--csv": args.csv, "--plot": args.plot})  # checked before any work
     result = read_result(args.result)
     if args.at is not None:
         result = at_step(result, args.at, args.result)
@@ -49,9 +52,10 @@ def execute(args: argparse.Namespace) -> int:
         raise InputError(f"{args.result}: --plot draws one step; choose it with --at")
     table = one_column_per_step(profile)
     inputs = [args.result]
-    written = [write_csv(table, args.csv, args.overwrite, inputs)]
-    if args.plot:
-        written.append(plot_profile(profile, args.plot, args.overwrite, inputs))
+    with files.writing():  # both files or neither
+        written = [write_csv(table, args.csv, args.overwrite, inputs)]
+        if args.plot:
+            written.append(plot_profile(profile, args.plot, args.overwrite, inputs))
     if not args.quiet:
         print("\n".join(wrote(written)))
     return 0

@@ -24,9 +24,11 @@ from __future__ import annotations
 
 import logging
 import math
+import re
 from collections.abc import Iterable
 from pathlib import Path
 from typing import Any
+from xml.etree import ElementTree
 
 import netCDF4
 import numpy as np
@@ -48,7 +50,9 @@ __all__ = [
     "LAYER_MISSING_POLICIES",
     "MISSING_POLICIES",
     "NETCDF_SUFFIXES",
+    "GDAL_INPUT_OPTIONS",
     "SNAP_TOLERANCE",
+    "check_local_input",
     "grid_mapping_crs",
     "increasing_axes",
     "netcdf_missing",
@@ -171,9 +175,112 @@ def _band_index(src: Any, path: Path, variable: str | None) -> tuple[int, str]:
     raise InputError(f"{path}: no band {variable!r}; bands are {', '.join(map(repr, names))}")
 
 
+GDAL_INPUT_OPTIONS = {
+    "GDAL_VRT_ENABLE_PYTHON": "NO",
+    "CPL_VSIL_CURL_ALLOWED_EXTENSIONS": ".gridflex-no-network",
+    "GDAL_HTTP_MAX_RETRY": "0",
+}
+"""GDAL configuration of every input opened by :func:`read_raster`: no Python in VRT
+pixel functions, and no file of the HTTP-based virtual file systems (/vsicurl/ and those
+built on it) seen to exist. The inputs are also checked before GDAL opens them
+(:func:`check_local_input`)."""
+
+_REMOTE = re.compile(r"(?i)(^|[\s\"'(,])([a-z][a-z0-9+.-]*://|/vsi[a-z0-9_]+)")
+"""A URL (``scheme://``) or a GDAL virtual file system path (``/vsicurl/``,
+``/vsis3/``, ``/vsizip/``, ...) anywhere in a file name or source string."""
+
+_XML_LIMIT = 64 * 2**20
+"""Largest XML raster description (a VRT) read to check its sources (bytes)."""
+
+
+def _refuse_remote(text: str, where: str) -> None:
+    match = _REMOTE.search(text)
+    if match is not None:
+        raise InputError(
+            f"{where}: {text!r} is a URL or a GDAL virtual file system path "
+            f"({match.group(2)!r}); gridflex reads local files only, never over the "
+            "network; download the file and name the local copy"
+        )
+
+
+def check_local_input(path: str | Path, _seen: frozenset[Path] = frozenset()) -> None:
+    """Refuse an input that would make GDAL reach the network or run code.
+
+    A path that is a URL or a GDAL virtual file system (``/vsicurl/``, ``/vsis3/``,
+    ...); an XML description other than a VRT (a web map or coverage service); a JSON
+    description; a VRT with a Python pixel function (``PixelFunctionLanguage`` Python,
+    ``PixelFunctionCode``) or a source that is a URL or a virtual file system path, or a
+    local VRT with such a source (followed down).
+
+    Raises
+    ------
+    InputError
+        Naming the file and what was refused.
+    """
+    _refuse_remote(str(path), f"{path}")
+    path = Path(path)
+    try:
+        with open(path, "rb") as handle:
+            head = handle.read(_XML_LIMIT + 1)
+    except OSError:
+        return  # reported by the reader
+    text = head.lstrip(b"\xef\xbb\xbf \t\r\n")
+    if text.startswith(b"{"):
+        raise InputError(
+            f"{path}: a JSON description, not a raster file; gridflex reads local raster "
+            "files (GeoTIFF, NetCDF, a VRT of local files)"
+        )
+    if not text.startswith(b"<"):
+        return
+    if len(head) > _XML_LIMIT:
+        raise InputError(f"{path}: XML raster description larger than {_XML_LIMIT} bytes")
+    try:
+        root = ElementTree.fromstring(text)
+    except ElementTree.ParseError as exc:
+        raise InputError(f"{path}: cannot read as XML ({exc})") from exc
+    _check_vrt(root, path, _seen | {path.resolve()})
+
+
+def _check_vrt(root: ElementTree.Element, path: Path, seen: frozenset[Path]) -> None:
+    """Check the XML *root* read from *path* (see :func:`check_local_input`)."""
+    if root.tag != "VRTDataset":
+        raise InputError(
+            f"{path}: an XML <{root.tag}> description (a web service or another "
+            "connection) would make GDAL reach the network; gridflex reads local files only"
+        )
+    for element in root.iter():
+        value = (element.text or "").strip()
+        if element.tag == "PixelFunctionCode" or (
+            element.tag == "PixelFunctionLanguage" and value.lower() != "c"
+        ):
+            raise InputError(
+                f"{path}: the VRT has a pixel function in {value or 'Python'!r} "
+                "(<PixelFunctionLanguage>/<PixelFunctionCode>); gridflex runs no code "
+                "from input files"
+            )
+        if element.tag not in ("SourceFilename", "SourceDataset") or not value:
+            continue
+        where = f"{path}: VRT source <{element.tag}>"
+        _refuse_remote(value, where)
+        if value.startswith("<"):  # an inline description
+            try:
+                inline = ElementTree.fromstring(value)
+            except ElementTree.ParseError as exc:
+                raise InputError(f"{where}: cannot read as XML ({exc})") from exc
+            _check_vrt(inline, path, seen)
+            continue
+        source = Path(value)
+        if element.get("relativeToVRT", "0").strip() == "1" and not source.is_absolute():
+            source = path.parent / source
+        if source.resolve() in seen:
+            raise InputError(f"{where}: {value!r} refers back to a VRT that uses it")
+        if source.is_file():
+            check_local_input(source, seen)
+
+
 def _read_gdal(path: Path, variable: str | None) -> xr.DataArray:
     try:
-        with rasterio.Env(), rasterio.open(path) as src:
+        with rasterio.Env(**GDAL_INPUT_OPTIONS), rasterio.open(path) as src:
             band, name = _band_index(src, path, variable)
             t = src.transform
             if t.b != 0.0 or t.d != 0.0:
@@ -543,11 +650,14 @@ def read_raster(
     Raises
     ------
     InputError
-        Missing, corrupt or unreadable file; unknown variable or band (the valid
+        A URL, a GDAL virtual file system path, or a file that would make GDAL reach
+        the network or run code (:func:`check_local_input`); missing, corrupt or
+        unreadable file; unknown variable or band (the valid
         ones are listed); not 2-D; rotated or sheared grid; unknown CRS; coordinates
         not monotonic, or irregular with ``irregular="refuse"``; no valid value; a
         value of magnitude :data:`FILL_LIKE` or more.
     """
+    _refuse_remote(str(path), f"{path}")
     path = Path(path)
     if not path.is_file():
         raise InputError(f"{path}: file not found")
@@ -555,6 +665,8 @@ def read_raster(
         netcdf = _is_netcdf(path)
     except OSError as exc:
         raise InputError(f"{path}: cannot open ({exc})") from exc
+    if not netcdf:
+        check_local_input(path)
     da = _read_netcdf(path, variable, irregular) if netcdf else _read_gdal(path, variable)
     log.info("read %s %r: %s cells", path, da.name, da.shape)
     return da

@@ -10,7 +10,7 @@ import xarray as xr
 from gridflex.errors import InputError
 from gridflex.validation import check_integer
 
-__all__ = ["EARTH_RADIUS", "at_step", "one_column_per_step", "sample_profile"]
+__all__ = ["EARTH_RADIUS", "at_step", "one_column_per_step", "profile_ends", "sample_profile"]
 
 EARTH_RADIUS = 6_371_008.8
 """Mean Earth radius (m) for distances along geographic profiles (IUGG; from memory)."""
@@ -87,6 +87,39 @@ def _distances(xs: np.ndarray, ys: np.ndarray, geographic: bool) -> np.ndarray:
     return 2 * EARTH_RADIUS * np.arcsin(np.sqrt(np.clip(a, 0.0, 1.0)))
 
 
+def profile_ends(
+    ds: xr.Dataset, start: Sequence[float], end: Sequence[float]
+) -> tuple[float, float, float, float]:
+    """``(x0, y0, x1, y1)`` of a profile on *ds*'s grid, checked to lie on it.
+
+    Only the coordinates ``x`` and ``y`` of *ds* are used (a Dataset of coordinates
+    alone will do, e.g. to check a line before the grid is computed); longitudes are
+    put in the grid's convention (0-360 or ±180).
+
+    Raises
+    ------
+    InputError
+        Ends that are not two numbers each, or an end outside the grid.
+    """
+    try:
+        x0, y0 = (float(v) for v in start)
+        x1, y1 = (float(v) for v in end)
+    except (TypeError, ValueError) as exc:
+        raise InputError(
+            f"profile ends must be two (x, y) pairs, got {start!r} and {end!r}"
+        ) from exc
+    xs_grid, ys_grid = ds["x"].values, ds["y"].values
+    if _is_geographic(ds):  # longitudes in the grid's convention (0-360 or ±180)
+        x0, x1 = _wrap_into(x0, xs_grid), _wrap_into(x1, xs_grid)
+    for name, (px, py) in (("start", (x0, y0)), ("end", (x1, y1))):
+        if not (min(xs_grid) <= px <= max(xs_grid) and min(ys_grid) <= py <= max(ys_grid)):
+            raise InputError(
+                f"profile {name} ({px:g}, {py:g}) lies outside the grid "
+                f"(x {min(xs_grid):g} to {max(xs_grid):g}, y {min(ys_grid):g} to {max(ys_grid):g})"
+            )
+    return x0, y0, x1, y1
+
+
 def sample_profile(
     ds: xr.Dataset,
     start: Sequence[float],
@@ -120,22 +153,8 @@ def sample_profile(
     InputError
         Ends that are not two numbers each, or a line that leaves the grid.
     """
-    try:
-        x0, y0 = (float(v) for v in start)
-        x1, y1 = (float(v) for v in end)
-    except (TypeError, ValueError) as exc:
-        raise InputError(
-            f"profile ends must be two (x, y) pairs, got {start!r} and {end!r}"
-        ) from exc
+    x0, y0, x1, y1 = profile_ends(ds, start, end)
     xs_grid, ys_grid = ds["x"].values, ds["y"].values
-    if _is_geographic(ds):  # longitudes in the grid's convention (0-360 or ±180)
-        x0, x1 = _wrap_into(x0, xs_grid), _wrap_into(x1, xs_grid)
-    for name, (px, py) in (("start", (x0, y0)), ("end", (x1, y1))):
-        if not (min(xs_grid) <= px <= max(xs_grid) and min(ys_grid) <= py <= max(ys_grid)):
-            raise InputError(
-                f"profile {name} ({px:g}, {py:g}) lies outside the grid "
-                f"(x {min(xs_grid):g} to {max(xs_grid):g}, y {min(ys_grid):g} to {max(ys_grid):g})"
-            )
     if samples is None:
         dx = abs(float(xs_grid[1] - xs_grid[0]))
         dy = abs(float(ys_grid[1] - ys_grid[0]))

@@ -213,6 +213,8 @@ def _check_choice(value: Any, key: Key, where: str, base: Path) -> Any:
 
 def _check_path(value: Any, key: Key, where: str, base: Path) -> Any:
     _check_string(value, key, where, base)
+    if value.endswith(("/", "\\")):  # Path() would drop the separator
+        raise InputError(f"{where} must name a file, got the folder {value!r}")
     path = Path(value).expanduser()
     return path if path.is_absolute() else (base / path)
 

@@ -245,5 +245,8 @@ def run_basin(
     summary = _summary(result)
     outcome = RunOutcome(result=result, summary=summary, text=format_basin_summary(summary))
     crs = geometry_of(reference).crs
-    outcome.written.append(write_netcdf(result, plan["file"], plan.overwrite, plan.inputs, crs=crs))
+    with plan.writing():
+        outcome.written.append(
+            write_netcdf(result, plan["file"], plan.overwrite, plan.inputs, crs=crs)
+        )
     return outcome

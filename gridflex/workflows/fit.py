@@ -203,20 +203,21 @@ def fit_scenario(
     overwrite, inputs = plan.overwrite, plan.inputs
     written = as_output_dtype(model, scenario.table("output")["dtype"])
     crs = written_crs(scenario, grid)
-    outcome.written.append(write_netcdf(written, plan["file"], overwrite, inputs, crs=crs))
-    if plan.get("map") is not None:
-        outcome.written.append(
-            plot_deflection_map(
-                model,
-                plan["map"],
-                overwrite,
-                inputs,
-                title=f"Best-fitting deflection, Te = {fit.te / 1e3:.2f} km",
+    with plan.writing():
+        outcome.written.append(write_netcdf(written, plan["file"], overwrite, inputs, crs=crs))
+        if plan.get("map") is not None:
+            outcome.written.append(
+                plot_deflection_map(
+                    model,
+                    plan["map"],
+                    overwrite,
+                    inputs,
+                    title=f"Best-fitting deflection, Te = {fit.te / 1e3:.2f} km",
+                )
             )
-        )
-    with atomic_path(plan["summary"], overwrite, inputs) as tmp:
-        tmp.write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
-    outcome.written.append(plan["summary"])
-    outcome.written.append(plot_misfit(fit, plan["plot"], overwrite, inputs))
+        with atomic_path(plan["summary"], overwrite, inputs) as tmp:
+            tmp.write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
+        outcome.written.append(plan["summary"])
+        outcome.written.append(plot_misfit(fit, plan["plot"], overwrite, inputs))
     log.info("fit written: %s", ", ".join(map(str, outcome.written)))
     return outcome

@@ -409,34 +409,38 @@ def run_history_scenario(
     )
     out = cf_time_axis(out, reference)
     outcome = RunOutcome(result=out)
-    outcome.written.append(write_netcdf(out, outputs["file"], overwrite, inputs, crs=crs))
-    times = result["time"].values
-    if outputs["rate_map"]:
-        outcome.written.append(
-            plot_uplift_rate_map(
-                result["uplift_rate"].isel(time=at),
-                outputs["rate_map"],
-                overwrite,
-                inputs,
-                title=f"Uplift rate at {times[at]:g} years after {reference}",
-                outline=result["ice_thickness"].isel(time=at),
+    with plan.writing():
+        outcome.written.append(write_netcdf(out, outputs["file"], overwrite, inputs, crs=crs))
+        times = result["time"].values
+        if outputs["rate_map"]:
+            outcome.written.append(
+                plot_uplift_rate_map(
+                    result["uplift_rate"].isel(time=at),
+                    outputs["rate_map"],
+                    overwrite,
+                    inputs,
+                    title=f"Uplift rate at {times[at]:g} years after {reference}",
+                    outline=result["ice_thickness"].isel(time=at),
+                )
             )
-        )
-    if outputs["series_plot"]:
-        series = {
-            name: (result["deflection"].values[:, iy, ix], result["uplift_rate"].values[:, iy, ix])
-            for name, _, _, iy, ix in cells
-        }
-        outcome.written.append(
-            plot_point_series(
-                times,
-                series,
-                outputs["series_plot"],
-                overwrite,
-                inputs,
-                time_label=f"time (years after {reference})",
+        if outputs["series_plot"]:
+            series = {
+                name: (
+                    result["deflection"].values[:, iy, ix],
+                    result["uplift_rate"].values[:, iy, ix],
+                )
+                for name, _, _, iy, ix in cells
+            }
+            outcome.written.append(
+                plot_point_series(
+                    times,
+                    series,
+                    outputs["series_plot"],
+                    overwrite,
+                    inputs,
+                    time_label=f"time (years after {reference})",
+                )
             )
-        )
     outcome.summary = _summary(result, at, cells)
     outcome.text = format_history_summary(outcome.summary)
     return outcome

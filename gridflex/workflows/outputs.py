@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
+import contextlib
 import logging
 from collections.abc import Mapping
 from pathlib import Path
 
 import xarray as xr
 
-from gridflex.errors import InputError
-from gridflex.io.atomic import check_output_path
+from gridflex.io.atomic import OutputSet
 from gridflex.io.provenance import history_line, provenance_attrs
 from gridflex.scenario.schema import Scenario
 
@@ -19,12 +19,15 @@ log = logging.getLogger(__name__)
 
 
 class OutputPlan:
-    """The files a run will write, checked together before the run does any work.
+    """The files a run will write: checked together before any work, written together.
 
     Each path must be writable (:func:`gridflex.io.atomic.check_output_path`: not an
-    input of the scenario, not an existing file unless *overwrite*, not a folder), and
-    no two outputs may share a path. Nothing is written or created when a check
-    fails; once every path passes, the missing output folders are created.
+    input of the scenario, not an existing file unless *overwrite*, not a folder) and
+    no two outputs may share a path; the message names the ``[output]`` key. Nothing is
+    written or created when a check fails. The files are written inside
+    :meth:`writing` (a :class:`gridflex.io.atomic.OutputSet`): each into a temporary,
+    all renamed into place only when every one was written, never over a file another
+    run wrote meanwhile unless *overwrite*; on any failure nothing of the run is left.
 
     Parameters
     ----------
@@ -38,10 +41,17 @@ class OutputPlan:
         self.scenario = scenario
         self.overwrite = overwrite
         self.inputs: list[Path] = scenario.input_files
-        self.paths: dict[str, Path] = {}
+        self.files = OutputSet(overwrite, self.inputs)
+
+    @property
+    def paths(self) -> dict[str, Path]:
+        """The planned paths by output name."""
+        return self.files.paths
 
     def add(self, outputs: Mapping[str, Path | None]) -> None:
         """Check the outputs (name -> path; ``None``: not written) and add them to the plan.
+
+        A name that is an ``[output]`` key is named in messages as that key.
 
         Raises
         ------
@@ -49,22 +59,13 @@ class OutputPlan:
             A path that may not be written, or two outputs on one path; the
             message names the output key(s) and the path.
         """
-        planned = {name: Path(path) for name, path in outputs.items() if path is not None}
-        taken = {path.resolve(): name for name, path in self.paths.items()}
-        for name, path in planned.items():
-            where = self.scenario.where("output", name)
-            other = taken.get(path.resolve())
-            if other is not None:
-                raise InputError(
-                    f"{where}: {str(path)!r} is also the path of output {other!r}; "
-                    "give each output its own file"
-                )
-            taken[path.resolve()] = name
-            check_output_path(path, self.overwrite, self.inputs, create_folder=False)
-        for path in planned.values():
-            check_output_path(path, self.overwrite, self.inputs)
-        self.paths.update(planned)
+        where = {name: self.scenario.where("output", name.split()[0]) for name in outputs}
+        planned = self.files.add(outputs, where)
         log.debug("output plan: %s", ", ".join(map(str, planned.values())))
+
+    def writing(self) -> contextlib.AbstractContextManager[OutputSet]:
+        """The block in which the planned files are written (see the class)."""
+        return self.files.writing()
 
     def __getitem__(self, name: str) -> Path:
         return self.paths[name]

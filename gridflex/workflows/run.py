@@ -5,7 +5,7 @@ from __future__ import annotations
 import dataclasses
 import logging
 import warnings
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, cast
@@ -24,7 +24,7 @@ from gridflex.io.tables import write_csv
 from gridflex.io.vectors import outline_features, write_geojson
 from gridflex.plate import Plate
 from gridflex.progress import Progress
-from gridflex.results.profile import sample_profile
+from gridflex.results.profile import profile_ends, sample_profile
 from gridflex.results.summary import deflection_summary, format_summary
 from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import Scenario
@@ -360,17 +360,71 @@ _FIELD_MAPS = {
 
 
 def _planned_outputs(scenario: Scenario) -> dict[str, Path | None]:
+    """Every output path known before the solve: the keys of ``[output]`` and the
+    GeoTIFFs of the grids ``geotiff`` lists by name."""
     out: Mapping[str, Any] = scenario.table("output")
     keys = ("file", "map", "outlines", "profile_csv", "profile_plot", *_FIELD_MAPS)
-    return {k: out[k] for k in keys}
+    planned: dict[str, Path | None] = {k: out[k] for k in keys}
+    if isinstance(out["geotiff"], list):
+        netcdf = out["file"]
+        for name in out["geotiff"]:
+            planned[f"geotiff {name}"] = netcdf.with_name(f"{netcdf.stem}_{name}.tif")
+    return planned
+
+
+def _check_geotiff_names(scenario: Scenario, plan: OutputPlan) -> None:
+    """With ``geotiff = true`` (a GeoTIFF per grid, named once the grids are known) no
+    other output may be named like one: ``<stem>_<anything>.tif`` beside the NetCDF."""
+    out = scenario.table("output")
+    if out["geotiff"] is not True:
+        return
+    netcdf = out["file"]
+    folder, prefix = netcdf.resolve().parent, f"{netcdf.stem}_"
+    for key, path in plan.paths.items():
+        resolved = path.resolve()
+        if (
+            key != "file"
+            and resolved.parent == folder
+            and resolved.name.startswith(prefix)
+            and resolved.suffix.lower() in (".tif", ".tiff")
+        ):
+            raise InputError(
+                f"{scenario.where('output', key.split()[0])}: {str(path)!r} may be the "
+                f"GeoTIFF of a result grid (geotiff = true writes {prefix}<grid>.tif); "
+                "give the output another name"
+            )
+
+
+def _check_before_solve(scenario: Scenario, grid: WorkingGrid) -> None:
+    """What would stop the outputs from being written, checked once the grids are
+    known and before the solve: the profile line lies on the written grid, the outlines
+    have a CRS."""
+    outputs = scenario.table("output")
+    if outputs["outlines"] and grid.working.crs is None:
+        raise InputError(
+            f"{scenario.where('output', 'outlines')}: the grid has no coordinate reference "
+            "system, so the outlines cannot be placed in longitude/latitude; give the "
+            "input a CRS or leave outlines out"
+        )
+    start, end = outputs["profile_start"], outputs["profile_end"]
+    if start is not None and end is not None:
+        written = grid.working if _on_working_grid(scenario) else grid.input
+        y, x = written.coords()
+        units = "degrees_east" if written.is_geographic else "m"
+        axes = xr.Dataset(coords={"y": ("y", y), "x": ("x", x, {"units": units})})
+        with error_context(scenario.where("output", "profile_start")):
+            profile_ends(axes, start, end)
 
 
 def _solve_working(
-    scenario: Scenario, progress: Progress | None = None
+    scenario: Scenario,
+    progress: Progress | None = None,
+    check: Callable[[WorkingGrid], None] | None = None,
 ) -> tuple[xr.Dataset, WorkingGrid, BackToInput]:
     """The solve on the working grid: plain, or with ``[infill]`` and ``[gravity]``.
 
-    Te grids (files, margins, breaks) are put on the working grid of the load.
+    Te grids (files, margins, breaks) are put on the working grid of the load. *check*
+    is called with the grids before the solve.
     """
     solver = scenario.table("solver")
     input_load = None
@@ -379,6 +433,8 @@ def _solve_working(
     local = None
     if scenario.table("infill") is not None:
         layers, grid = build_working_layers(scenario, alpha, margin)
+        if check is not None:
+            check(grid)
         column = load_column(scenario, layers)
         plate = plate_from_scenario(scenario, column["load"], grid)
         working = infill_step(scenario, plate, column, progress)
@@ -387,6 +443,8 @@ def _solve_working(
         grid = dataclasses.replace(grid, input_layers=())
     else:
         parts, grid = working_load(scenario, alpha, margin)
+        if check is not None:
+            check(grid)
         load = parts()
         plate = plate_from_scenario(scenario, load, grid)
         input_load = input_grid_load(scenario, grid, parts)
@@ -417,10 +475,12 @@ def run_scenario(
     """Build the load, solve and write the outputs of *scenario*.
 
     *progress* (optional) is called with (done, total) during an iterative solve.
-    Output paths are checked before the solve (:class:`OutputPlan`), so a run that would
-    fail to write fails before any work; the GeoTIFF files, named after the result's
-    variables, are checked once the result is known and before anything is written.
-    Files are written atomically and never over an input.
+    Output paths are checked before the solve (:class:`OutputPlan`), and the profile
+    line and the outlines' CRS once the grids are known, so a run that would fail to
+    write fails before any work; with ``geotiff = true`` the GeoTIFF files, named after
+    the result's grids, are checked once the result is known and before anything is
+    written. The files are written together (:meth:`OutputPlan.writing`): all or none,
+    never over an input.
 
     Raises
     ------
@@ -429,15 +489,19 @@ def run_scenario(
     """
     plan = OutputPlan(scenario, overwrite)
     plan.add(_planned_outputs(scenario))
-    working, grid, back = _solve_working(scenario, progress)
+    _check_geotiff_names(scenario, plan)
+    working, grid, back = _solve_working(
+        scenario, progress, lambda grid: _check_before_solve(scenario, grid)
+    )
     if scenario.table("output")["extent"] == "response":
         working = crop_to_response(working)
     result = output_dataset(working, scenario, grid, back=back)
     summary = deflection_summary(working)
     outcome = RunOutcome(result=result, summary=summary, text=format_summary(summary))
     tiffs = _geotiff_paths(scenario, result)
+    listed = {key.split(" ", 1)[1] for key in plan.paths if key.startswith("geotiff ")}
     _warn_compensation_outside(working, summary)
-    plan.add({f"geotiff {name}": path for name, path in tiffs.items()})
+    plan.add({f"geotiff {name}": path for name, path in tiffs.items() if name not in listed})
     _write_outputs(scenario, plan, outcome, working, grid, tiffs)
     return outcome
 
@@ -470,44 +534,53 @@ def _write_outputs(
     grid: WorkingGrid,
     tiffs: dict[str, Path],
 ) -> None:
-    """Write the planned outputs of a run, in order, recording them in *outcome*."""
+    """Write the planned outputs of a run, recording them in *outcome*.
+
+    What can still fail (the outlines, the profile) is computed first; the files are
+    then written together, all or none (:meth:`OutputPlan.writing`)."""
     outputs = scenario.table("output")
     result = outcome.result
     overwrite, inputs = plan.overwrite, plan.inputs
     crs = written_crs(scenario, grid)
     written = outcome.written
     grids = as_output_dtype(result, outputs["dtype"])
-    written.append(write_netcdf(grids, outputs["file"], overwrite, inputs, crs=crs))
-    for name, path in tiffs.items():
-        written.append(write_geotiff(grids[name], path, crs, overwrite, inputs))
-    if outputs["map"]:
-        written.append(plot_deflection_map(result, outputs["map"], overwrite, inputs))
-    by_key: Mapping[str, Any] = outputs
-    for key, (variable, title, label, signed) in _FIELD_MAPS.items():
-        path = by_key[key]
-        if path:
-            written.append(
-                plot_field_map(
-                    result[variable],
-                    path,
-                    title,
-                    label,
-                    overwrite,
-                    inputs,
-                    outline=result["load"],
-                    signed=signed,
-                )
-            )
+    features = None
     if outputs["outlines"]:
         depth = outputs["moat_depth"]
         if depth is None:
             depth = 0.1 * outcome.summary["max_deflection"]
         features = outline_features(working, grid.working.crs, depth)
-        written.append(write_geojson(features, outputs["outlines"], overwrite, inputs))
     start, end = outputs["profile_start"], outputs["profile_end"]
+    profile = None
     if start is not None and end is not None:  # both or neither (scenario.checks)
-        profile = sample_profile(result, start, end)
-        if outputs["profile_csv"]:
-            written.append(write_csv(profile, outputs["profile_csv"], overwrite, inputs))
-        if outputs["profile_plot"]:
-            written.append(plot_profile(profile, outputs["profile_plot"], overwrite, inputs))
+        with error_context(scenario.where("output", "profile_start")):
+            profile = sample_profile(result, start, end)
+    by_key: Mapping[str, Any] = outputs
+    with plan.writing():
+        written.append(write_netcdf(grids, outputs["file"], overwrite, inputs, crs=crs))
+        for name, path in tiffs.items():
+            written.append(write_geotiff(grids[name], path, crs, overwrite, inputs))
+        if outputs["map"]:
+            written.append(plot_deflection_map(result, outputs["map"], overwrite, inputs))
+        for key, (variable, title, label, signed) in _FIELD_MAPS.items():
+            path = by_key[key]
+            if path:
+                written.append(
+                    plot_field_map(
+                        result[variable],
+                        path,
+                        title,
+                        label,
+                        overwrite,
+                        inputs,
+                        outline=result["load"],
+                        signed=signed,
+                    )
+                )
+        if features is not None and outputs["outlines"]:
+            written.append(write_geojson(features, outputs["outlines"], overwrite, inputs))
+        if profile is not None:
+            if outputs["profile_csv"]:
+                written.append(write_csv(profile, outputs["profile_csv"], overwrite, inputs))
+            if outputs["profile_plot"]:
+                written.append(plot_profile(profile, outputs["profile_plot"], overwrite, inputs))

@@ -107,9 +107,10 @@ def run_sweep(
     result = stamp_result(result, scenario, "sweep", projected_axes=True)
     summary = {name: len(values) for name, values in parameters.items()}
     outcome = RunOutcome(result=result, summary=summary)
-    outcome.written.append(
-        write_netcdf(result, plan["file"], plan.overwrite, plan.inputs, crs=grid.working.crs)
-    )
+    with plan.writing():
+        outcome.written.append(
+            write_netcdf(result, plan["file"], plan.overwrite, plan.inputs, crs=grid.working.crs)
+        )
     log.info("sweep written to %s", plan["file"])
     return outcome
 
