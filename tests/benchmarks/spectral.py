@@ -19,18 +19,21 @@ and the peak memory of the solve (tracemalloc: numpy allocations). With --big N 
 checks in a child process whether an N² load solves on this machine and reports
 the child's peak RSS. These timings are the best of --repeat runs.
 
-Measured on the 2-core VM shared with other jobs (load average 6-8, so single timings
-vary by up to 2x; the ratios of interleaved runs are steadier), wall-time ratio medians
-at 2048², te 30 km / te 5 km:
+Measured on the 2-core VM shared with other jobs (load average 5-11 during the runs, so
+single timings varied by up to 2x; the ratios of interleaved runs are steadier). Median
+ratios solve / FFT pair at 2048², te 30 km (2430²) / te 5 km (2160²), runs of 7-9
+repeats each (three before, four after):
 
 * before (padded copy, ``rfft2``, product, ``irfft2`` of the whole padded grid, crop
-  copy, a separate pass for Σ w and two for Σ q and Σ |q|): solve 1.26 / 1.56,
-  deflection 1.27 / 1.42; CPU-time ratios 1.18 / 1.48.
-* after (``SpectralProblem.response``: blocked row transforms of the data rows only,
-  fused with the padding copy and the load sums; blocked column transforms fused with
-  the product; inverse row transforms written straight into the unpadded result; Σ w
-  read from the k = 0 terms): see the module's git log for the numbers recorded with
-  the change.
+  copy, one pass for Σ w and, in ``solve``, two for Σ q and Σ |q|): wall 1.24-1.42 /
+  1.54-1.91, CPU 1.24-1.34 / 1.48-1.59; ``deflection`` alone wall 1.11-1.42 / 1.47-1.60.
+* after (``SpectralProblem.response``: row transforms of the data rows only, in blocks
+  fused with the padding copy and the load sums; column transforms fused with the
+  product; inverse row transforms written straight into the unpadded result; Σ w read
+  from the k = 0 terms; transfer rows built once per ±ky over threads): wall 0.98-1.03 /
+  1.04-1.19, CPU 1.00-1.03 / 1.11-1.20; ``deflection`` alone wall 0.95-1.07 / 1.02-1.19;
+  a new plate (transfer function built) wall 1.05-1.11 / 1.12-1.34. Peak numpy memory
+  of the 1 km solve: 3.1 -> 2.1 padded grids.
 """
 
 from __future__ import annotations
