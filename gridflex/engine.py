@@ -232,7 +232,7 @@ def solve(
             f"edges={edges!r} needs method='finite-difference'; the spectral solver "
             f"takes {', '.join(map(repr, SPECTRAL_EDGES))}"
         )
-    values = np.asarray(load.values, dtype=np.float64)
+    values = load.values
     problem = SpectralProblem.build(
         spec,
         float(plate.rigidity),
@@ -242,11 +242,10 @@ def solve(
         periodic=(edges == "periodic"),
         pad_factor=pad_factor,
     )
-    magnitude = float(np.abs(values).sum())
-    if edges == "infinite" and not problem.is_local:
-        check_edge_load(values, magnitude)
     log.info("spectral solve on %s grid, FFT grid %s", spec.shape, problem.shape)
-    deflection, balance = problem.deflection(values, magnitude)
+    deflection, balance, magnitude = problem.response(values)
+    if edges == "infinite" and not problem.is_local:
+        check_edge_load(values, magnitude)  # Σ |q| was summed during the solve
     attrs = {
         "solver": "spectral",
         "spectral_symbol": "continuous",

@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, replace
 from functools import lru_cache
+from typing import NamedTuple
 
 import numpy as np
 import scipy.fft
@@ -22,10 +23,13 @@ import scipy.fft
 from gridflex.errors import InputError
 from gridflex.grid import GridSpec, padded_shape, wavenumbers_squared
 from gridflex.memory import check_memory
+from gridflex.solvers.fft_buffers import BlockedSpectralFilter
+from gridflex.solvers.row_blocks import for_row_blocks
 from gridflex.validation import check_number
 
 __all__ = [
     "SpectralProblem",
+    "SpectralResponse",
     "buckling_force",
     "decay_length",
     "scale_spectrum",
@@ -121,11 +125,17 @@ def transfer_function(
         Real-valued transfer function for :func:`scipy.fft.rfft2` spectra.
     """
     ky2, kx2 = wavenumbers_squared(shape, dy, dx)
-    denom = np.empty((shape[0], kx2.shape[1]), dtype=np.float64)
-    # in blocks of rows that stay in cache: a few passes per block, one over memory
-    for start in range(0, shape[0], _BLOCK_ROWS):
-        block = denom[start : start + _BLOCK_ROWS]
-        rows = ky2[start : start + _BLOCK_ROWS]
+    ny = shape[0]
+    denom = np.empty((ny, kx2.shape[1]), dtype=np.float64)
+    # rows j and ny - j have the same ky² (fftfreq gives them exactly opposite values):
+    # build rows 0 to ny // 2 and copy the rest, mirrored
+    unique = ny // 2 + 1
+
+    # in blocks of rows that stay in cache, shared among threads: a few passes per
+    # block, one over memory; each block also fills its mirrored rows
+    def build(start: int, stop: int, _thread: int) -> None:
+        block = denom[start:stop]
+        rows = ky2[start:stop]
         np.add(rows, kx2, out=block)
         np.square(block, out=block)
         block *= rigidity
@@ -135,6 +145,11 @@ def transfer_function(
             block += force_y * rows
         block += stiffness
         np.reciprocal(block, out=block)
+        first = max(start, 1)  # row 0 (ky = 0) has no mirror
+        if first < stop and ny - stop + 1 < ny - first + 1:
+            denom[ny - stop + 1 : ny - first + 1] = block[first - start :][::-1]
+
+    for_row_blocks(unique, _BLOCK_ROWS, build)
     denom.flags.writeable = False
     return denom
 
@@ -153,6 +168,17 @@ def scale_spectrum(
     target = out.view(np.float64).reshape(*out.shape, 2)
     np.multiply(pairs, factor[..., None], out=target)
     return out
+
+
+class SpectralResponse(NamedTuple):
+    """What :meth:`SpectralProblem.response` returns."""
+
+    deflection: np.ndarray
+    """w (m, positive down) on the unpadded grid, float64."""
+    force_balance: float
+    """|Σ Δρ g w − Σ q| / Σ |q| over the whole FFT domain (dimensionless)."""
+    load_magnitude: float
+    """Σ |q| over the grid (Pa, summed over cells)."""
 
 
 @dataclass(frozen=True)
@@ -214,7 +240,8 @@ class SpectralProblem:
         else:
             decay = decay_length(rigidity, stiffness, force_x, force_y)
             shape = padded_shape(spec, pad_factor * decay)
-        # peak: padded load, its spectrum, the transfer function, the output grid
+        # peak of load_spectrum + inverse: padded load, its spectrum, the transfer function,
+        # the output grid (response keeps the spectrum, transfer and output: about 2.5)
         n = shape[0] * shape[1]
         check_memory(8.0 * n * 3.5, f"spectral solve on a padded grid of {shape[0]} x {shape[1]}")
         return cls(spec, rigidity, stiffness, force_x, force_y, shape, periodic)
@@ -246,7 +273,8 @@ class SpectralProblem:
         load : numpy.ndarray, shape (ny, nx)
             Vertical stress on the unpadded grid.
         load_magnitude : float, optional
-            Σ |q| if the caller has it already (saves a pass over the grid).
+            Σ |q| to divide the imbalance by, if the caller wants another scale (it is
+            otherwise summed while the load is transformed, at no extra pass).
 
         Returns
         -------
@@ -256,17 +284,70 @@ class SpectralProblem:
             |Σ Δρ g w − Σ q| / Σ |q| over the whole FFT domain: the global force
             balance, exact to round-off because W(k = 0) = Q(0) / (Δρ g).
         """
+        response = self.response(load, load_magnitude)
+        return response.deflection, response.force_balance
+
+    def response(self, load: np.ndarray, load_magnitude: float | None = None) -> SpectralResponse:
+        """Deflection under *load* with the force balance and Σ |q| (see :meth:`deflection`).
+
+        The solve is one pass over the load's rows, one over the spectrum's columns and
+        one over the output rows, in cache-sized blocks shared among threads
+        (:class:`~gridflex.solvers.fft_buffers.BlockedSpectralFilter`): each block of
+        load rows is copied into a zero-padded row buffer, summed (Σ q and Σ |q|) and
+        transformed along x; each block of spectrum columns is transformed along y,
+        multiplied by the transfer function and transformed back; each block of output
+        rows is transformed back along x straight into the unpadded result. The padded
+        grid never exists in real space, and the rows of zero padding are never
+        transformed along x (the transform runs on the data rows only). Σ w over the
+        FFT domain is the k = 0 term of the row spectra after the inverse column
+        transforms (Σ_x of a row is its rfft at k = 0), read without another pass.
+
+        Parameters
+        ----------
+        load : numpy.ndarray, shape (ny, nx)
+            Vertical stress (Pa, positive down) on the unpadded grid.
+        load_magnitude : float, optional
+            Σ |q| to use for the force balance instead of the one summed here.
+
+        Returns
+        -------
+        SpectralResponse
+        """
         ny, nx = self.spec.shape
+        load = np.asarray(load)
+        if load.shape != (ny, nx):
+            raise InputError(f"load has shape {load.shape}, the problem's grid is {(ny, nx)}")
         if self.is_local:
-            full = np.asarray(load, dtype=np.float64) / self.stiffness
+            deflection = np.asarray(load, dtype=np.float64) / self.stiffness
+            total, magnitude = float(np.sum(load)), float(np.abs(load).sum())
+            deflection_sum = float(deflection.sum())
         else:
-            spectrum = self.load_spectrum(load)
-            scale_spectrum(spectrum, self.transfer(), out=spectrum)
-            full = self.inverse(spectrum)
-        magnitude = float(np.abs(load).sum()) if load_magnitude is None else load_magnitude
-        imbalance = abs(self.stiffness * float(full.sum()) - float(np.sum(load)))
+            transfer = self.transfer()
+            fft = BlockedSpectralFilter((ny, nx), self.shape)
+
+            def forward(j0: int, j1: int, thread: int) -> tuple[float, float]:
+                rows = fft.row_buffer(thread, j1 - j0)
+                rows[...] = load[j0:j1]
+                sums = float(rows.sum()), float(np.abs(rows).sum())
+                fft.forward_rows(j0, j1, thread)
+                return sums
+
+            sums = for_row_blocks(ny, fft.rows, forward)
+            total = sum(block[0] for block in sums)
+            magnitude = sum(block[1] for block in sums)
+            fft.filter_columns(transfer)
+            deflection_sum = float(fft.spectrum[:, 0].real.sum())
+            deflection = np.empty((ny, nx), dtype=np.float64)
+
+            def inverse(j0: int, j1: int, thread: int) -> None:
+                deflection[j0:j1] = fft.inverse_rows(j0, j1, thread)
+
+            for_row_blocks(ny, fft.rows, inverse)
+        if load_magnitude is not None:
+            magnitude = load_magnitude
+        imbalance = abs(self.stiffness * deflection_sum - total)
         balance = imbalance / magnitude if magnitude > 0 else 0.0
-        return self.crop(full), balance
+        return SpectralResponse(deflection, balance, magnitude)
 
     def load_spectrum(self, load: np.ndarray) -> np.ndarray:
         """Real-FFT spectrum of *load* zero-padded to this problem's FFT grid.
