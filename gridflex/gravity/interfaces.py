@@ -146,7 +146,12 @@ def gravity_padded_shape(spec: GridSpec, deepest: float, pad_factor: float) -> t
     compact one.
     """
     half_extent = 0.5 * max(spec.ny * spec.dy, spec.nx * spec.dx)
-    return padded_shape(spec, max(pad_factor * deepest, half_extent))
+    return padded_shape(
+        spec,
+        max(pad_factor * deepest, half_extent),
+        advice=f"the padding is pad_factor x {deepest:.4g} m (the deepest source below the "
+        "observation plane): lower observation_height or the gravity pad_factor",
+    )
 
 
 def parker_series(

@@ -38,7 +38,7 @@ from rasterio.errors import RasterioError
 from gridflex.errors import InputError
 from gridflex.gis.geometry import GridGeometry, even_step, parse_crs
 from gridflex.io.atomic import atomic_path
-from gridflex.io.netcdf import NETCDF_LOCK
+from gridflex.io.netcdf import NETCDF_LOCK, input_file
 from gridflex.memory import check_memory
 from gridflex.units import unit_factor
 
@@ -548,9 +548,7 @@ def read_raster(
         not monotonic, or irregular with ``irregular="refuse"``; no valid value; a
         value of magnitude :data:`FILL_LIKE` or more.
     """
-    path = Path(path)
-    if not path.is_file():
-        raise InputError(f"{path}: file not found")
+    path = input_file(path)
     try:
         netcdf = _is_netcdf(path)
     except OSError as exc:

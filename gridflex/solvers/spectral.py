@@ -20,7 +20,7 @@ import numpy as np
 import scipy.fft
 
 from gridflex.errors import InputError
-from gridflex.grid import GridSpec, padded_shape, wavenumbers_squared
+from gridflex.grid import PADDING_ADVICE, GridSpec, padded_shape, wavenumbers_squared
 from gridflex.memory import check_memory
 from gridflex.validation import check_number
 
@@ -216,7 +216,11 @@ class SpectralProblem:
             shape = padded_shape(spec, pad_factor * decay)
         # peak: padded load, its spectrum, the transfer function, the output grid
         n = shape[0] * shape[1]
-        check_memory(8.0 * n * 3.5, f"spectral solve on a padded grid of {shape[0]} x {shape[1]}")
+        check_memory(
+            8.0 * n * 3.5,
+            f"spectral solve on a padded grid of {shape[0]} x {shape[1]}",
+            advice=PADDING_ADVICE,
+        )
         return cls(spec, rigidity, stiffness, force_x, force_y, shape, periodic)
 
     @property

@@ -48,7 +48,7 @@ from gridflex.gis.geometry import GridGeometry, geometry_of, reproject_values, s
 from gridflex.grid import check_same_grid
 from gridflex.io.rasters import MISSING_POLICIES, increasing_axes, read_raster
 from gridflex.scenario.context import error_context
-from gridflex.units import DIMENSIONS, unit_factor
+from gridflex.units import si_unit, unit_factor
 from gridflex.validation import GRID_ROLES, check_grid_range
 
 __all__ = [
@@ -61,11 +61,6 @@ __all__ = [
 ]
 
 log = logging.getLogger(__name__)
-
-
-def si_unit(dimension: str) -> str:
-    """The SI unit (factor 1) of a :data:`gridflex.units.DIMENSIONS` entry, e.g. ``"m"``."""
-    return next(unit for unit, factor in DIMENSIONS[dimension].items() if factor == 1.0)
 
 
 def apply_missing_policy(
@@ -105,7 +100,15 @@ def apply_missing_policy(
         raise InputError(
             f"{where}: missing policy must be one of {MISSING_POLICIES}, got {policy!r}"
         )
-    missing = ~np.isfinite(np.asarray(da.values, dtype=np.float64))
+    values = np.asarray(da.values, dtype=np.float64)
+    infinite = np.isinf(values)
+    if infinite.any():  # neither a value nor a nodata marker: refused under every policy
+        first = float(values[infinite][0])
+        raise InputError(
+            f"{where}: {int(infinite.sum())} infinite cell(s) (first {first!r}); "
+            "mark missing cells with NaN or the nodata value instead"
+        )
+    missing = np.isnan(values)
     count = int(missing.sum())
     if count == 0 or policy == "keep" and count < missing.size:
         return da
