@@ -57,7 +57,7 @@ from gridflex.constants import DAYS_PER_YEAR, PRESENT_DATE
 from gridflex.errors import InputError
 from gridflex.gis.geometry import GridGeometry
 from gridflex.io.netcdf import NETCDF_LOCK, input_file
-from gridflex.io.rasters import grid_mapping_crs, netcdf_missing
+from gridflex.io.rasters import grid_mapping_crs, netcdf_missing, refuse_fill_like
 from gridflex.units import DIMENSIONS, unit_factor
 
 __all__ = [
@@ -318,7 +318,9 @@ def _unpacked(da: xr.DataArray, where: str) -> np.ndarray:
     raw = np.asarray(da.values)
     if not np.issubdtype(raw.dtype, np.number):
         raise InputError(f"{where}: values are not numbers ({raw.dtype})")
-    return netcdf_missing(raw, dict(da.attrs))
+    values = netcdf_missing(raw, dict(da.attrs))
+    refuse_fill_like(values, where)
+    return values
 
 
 def _metric_axis(da: xr.DataArray, dim: str, where: str) -> np.ndarray:

@@ -100,15 +100,7 @@ def apply_missing_policy(
         raise InputError(
             f"{where}: missing policy must be one of {MISSING_POLICIES}, got {policy!r}"
         )
-    values = np.asarray(da.values, dtype=np.float64)
-    infinite = np.isinf(values)
-    if infinite.any():  # neither a value nor a nodata marker: refused under every policy
-        first = float(values[infinite][0])
-        raise InputError(
-            f"{where}: {int(infinite.sum())} infinite cell(s) (first {first!r}); "
-            "mark missing cells with NaN or the nodata value instead"
-        )
-    missing = np.isnan(values)
+    missing = ~np.isfinite(np.asarray(da.values, dtype=np.float64))
     count = int(missing.sum())
     if count == 0 or policy == "keep" and count < missing.size:
         return da
