@@ -12,10 +12,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 import xarray as xr
+from rasterio.crs import CRS
 
 from gridflex import InputError, Plate, solve
 from gridflex.cli.main import main
 from gridflex.estimation.misfit import fit_te
+from gridflex.gis.geometry import from_lonlat, to_lonlat
 from gridflex.glacial.ice import ice_response
 from gridflex.results.profile import sample_profile
 from gridflex.sweeps.parameter_sweep import sweep
@@ -298,6 +300,12 @@ CASES: dict[str, tuple[str, str, list[str], str]] = {
         + ["--samples", "1000000000"],
         "ask for fewer samples",
     ),
+    "NUL in the scenario path": (
+        "run",
+        "",
+        ["s\0.toml"],
+        "scenario file must be a file path without NUL characters",
+    ),
     "NUL in a profile path": (
         "profile",
         "",
@@ -333,6 +341,8 @@ def _load() -> xr.DataArray:
     grid[8, 8] = 1e7
     return grid
 
+
+POLAR = CRS.from_proj4("+proj=laea +lat_0=89.9 +lon_0=0 +datum=WGS84 +units=m")
 
 API: dict[str, tuple[Callable[[], object], str]] = {
     "max_iterations 2.5": (
@@ -376,6 +386,14 @@ API: dict[str, tuple[Callable[[], object], str]] = {
     "scheduler banana": (
         lambda: sweep(_load(), Plate(te=1e4), {"te": [1e4, 2e4]}, scheduler="banana"),
         "scheduler must be one of",
+    ),
+    "PROJ error at a pole": (
+        lambda: from_lonlat([0.0], [95.0], POLAR),
+        "projecting longitude/latitude: the coordinates cannot be transformed (PROJ",
+    ),
+    "PROJ error outside the projection": (
+        lambda: to_lonlat([1e9], [1e9], POLAR),
+        "longitude/latitude of the grid: the coordinates cannot be transformed",
     ),
     "integer 2.5": (lambda: check_integer("n", 2.5), "n must be a whole number, got 2.5"),
     "number as a string": (
