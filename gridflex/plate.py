@@ -137,6 +137,8 @@ class Plate:
     @staticmethod
     def _checked_te(te: Any) -> TeLike:
         if isinstance(te, xr.DataArray):
+            if not np.issubdtype(te.dtype, np.number) or np.iscomplexobj(te.values):
+                raise InputError(f"te grid must hold real numbers, got dtype {te.dtype}")
             values = np.asarray(te.values, dtype=np.float64)
             if values.ndim != 2 or te.dims != ("y", "x"):
                 raise InputError(f"te grid must have dims ('y', 'x'), got {te.dims!r}")

@@ -353,6 +353,10 @@ API: dict[str, tuple[Callable[[], object], str]] = {
         lambda: solve(_load().astype(complex), Plate(te=1e4)),
         "load must hold real numbers, got dtype complex128",
     ),
+    "complex te grid": (
+        lambda: Plate(te=make_grid(16, 16, 5e3).astype(complex) + 1e4),
+        "te grid must hold real numbers, got dtype complex128",
+    ),
     "in-plane force as a string": (
         lambda: solve(_load(), Plate(te=1e4), inplane_force_x="1e9"),
         "inplane_force_x must be a finite number (N/m, tension positive), got '1e9'",
