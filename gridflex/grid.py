@@ -195,7 +195,8 @@ def padded_shape(
         copy would not fit in memory (sizes are counted in Python integers, so an
         absurd margin is refused with an estimate instead of overflowing).
     """
-    check_number("pad distance", pad_distance, unit="m", minimum=0.0)
+    if not pad_distance >= 0:  # NaN or negative: a bug of the caller, not too much memory
+        raise InputError(f"pad distance must be a number >= 0 (m), got {pad_distance!r}")
     sizes = []
     for n, d in ((spec.ny, spec.dy), (spec.nx, spec.dx)):
         cells = pad_distance / d  # may be inf for a tiny spacing: counted as too many

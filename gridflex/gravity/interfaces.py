@@ -403,7 +403,11 @@ def parker_spectrum(
     ratio = 0.5 * (h_max - h_min) / z_mid
     ny, nx = spec.shape
     n = shape[0] * shape[1]
-    check_memory(8.0 * n * 6, f"gravity series on a padded grid of {shape[0]} x {shape[1]}")
+    check_memory(
+        8.0 * n * 6,
+        f"gravity series on a padded grid of {shape[0]} x {shape[1]}",
+        advice="lower observation_height or the gravity pad_factor, or use coarser cells",
+    )
     ky2, kx2 = wavenumbers_squared(shape, spec.dy, spec.dx)
     k = np.sqrt(ky2 + kx2)
 

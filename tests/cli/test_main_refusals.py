@@ -361,6 +361,10 @@ API: dict[str, tuple[Callable[[], object], str]] = {
         lambda: solve(_load(), Plate(te=1e4), inplane_force_x="1e9"),
         "inplane_force_x must be a finite number (N/m, tension positive), got '1e9'",
     ),
+    "pad_factor 1e300": (
+        lambda: solve(_load(), Plate(te=1e4), pad_factor=1e300),
+        "with a margin of 3.555e+304 m needs more memory than exists",
+    ),
     "te 1e200 m": (lambda: Plate(te=1e200), "te must be a finite number >= 0 and <= 1e+06"),
     "rigidity overflow": (
         lambda: Plate(te=1e4, youngs_modulus=1e300),
