@@ -10,6 +10,7 @@ __all__ = [
     "DEFAULT_GRAVITY",
     "GRAVITATIONAL_CONSTANT",
     "MAX_ABS_ELEVATION",
+    "MAX_ELASTIC_THICKNESS",
     "MAX_ICE_THICKNESS",
     "MGAL",
     "PRESENT_DATE",
@@ -48,3 +49,9 @@ A larger value is a wrong unit or a fill value, and is refused."""
 MAX_ICE_THICKNESS = 5000.0
 """Largest ice thickness (m) a grid may hold: the thickest ice measured on the present ice
 sheets is under 5 km (common knowledge, from memory); a thicker cell is refused."""
+
+MAX_ELASTIC_THICKNESS = 1.0e6
+"""Largest elastic thickness (m) accepted: 1000 km. The thin-plate model needs te far below
+the Earth's radius, and published te values stay below about 150 km (common knowledge,
+from memory); a larger value is a wrong unit, and beyond about 1e99 m the rigidity would
+overflow a float."""

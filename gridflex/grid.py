@@ -15,11 +15,13 @@ import scipy.fft
 import xarray as xr
 
 from gridflex.errors import InputError
+from gridflex.memory import check_memory
 from gridflex.validation import check_number
 
 __all__ = [
     "GridSpec",
     "MIN_CELLS",
+    "PADDING_ADVICE",
     "check_grid",
     "check_same_grid",
     "grid_values",
@@ -31,6 +33,9 @@ MIN_CELLS = 4
 """Smallest number of cells accepted along each axis."""
 
 _SPACING_RTOL = 1e-6
+
+PADDING_ADVICE = "use a smaller pad_factor or coarser cells (in a scenario: [working_grid] spacing)"
+"""What to change when a padded grid does not fit in memory (the default hint)."""
 
 
 @dataclass(frozen=True)
@@ -73,7 +78,12 @@ def _axis_spacing(coord: np.ndarray, name: str, label: str) -> float:
         raise InputError(f"{label}: coordinate {name!r} must be finite numbers (metres)")
     steps = np.diff(coord.astype(np.float64))
     step = float(np.mean(steps))
-    if step == 0.0 or not np.allclose(steps, step, rtol=_SPACING_RTOL, atol=0.0):
+    if not np.any(steps):
+        raise InputError(
+            f"{label}: coordinate {name!r} has a spacing of 0 (every value is {coord[0]!r}); "
+            "the cells must have a positive size"
+        )
+    if not np.allclose(steps, step, rtol=_SPACING_RTOL, atol=0.0):
         raise InputError(
             f"{label}: coordinate {name!r} is not evenly spaced "
             f"(steps from {steps.min()!r} to {steps.max()!r} m); "
@@ -116,8 +126,10 @@ def check_grid(grid: xr.DataArray, label: str = "load") -> GridSpec:
     dy = _axis_spacing(np.asarray(grid["y"].values), "y", label)
     dx = _axis_spacing(np.asarray(grid["x"].values), "x", label)
     values = grid.values
-    if not np.issubdtype(values.dtype, np.number):
-        raise InputError(f"{label} must hold numbers, got dtype {values.dtype}")
+    if not np.issubdtype(values.dtype, np.number) or np.issubdtype(
+        values.dtype, np.complexfloating
+    ):
+        raise InputError(f"{label} must hold real numbers, got dtype {values.dtype}")
     # one reduction instead of a boolean grid; the full test only if the sum is not finite
     if not np.isfinite(values.sum()) and not np.all(np.isfinite(values)):
         bad = int(np.count_nonzero(~np.isfinite(values)))
@@ -156,7 +168,9 @@ def grid_values(value: object, reference: xr.DataArray, name: str, unit: str = "
     return np.full(reference.shape, number)
 
 
-def padded_shape(spec: GridSpec, pad_distance: float) -> tuple[int, int]:
+def padded_shape(
+    spec: GridSpec, pad_distance: float, advice: str = PADDING_ADVICE
+) -> tuple[int, int]:
     """Padded FFT shape that adds at least *pad_distance* on each side.
 
     Parameters
@@ -166,17 +180,40 @@ def padded_shape(spec: GridSpec, pad_distance: float) -> tuple[int, int]:
     pad_distance : float
         Margin (m) to add beyond each edge. The shortest wrap-around path between
         a load cell and an output cell then crosses ``2 * pad_distance``.
+    advice : str, optional
+        What to change when one padded grid cannot fit in memory (for the message).
 
     Returns
     -------
     tuple of int
         ``(ny, nx)`` rounded up to fast lengths for real FFTs.
+
+    Raises
+    ------
+    InputError
+        A non-finite or negative *pad_distance*, or a padded grid of which one float64
+        copy would not fit in memory (sizes are counted in Python integers, so an
+        absurd margin is refused with an estimate instead of overflowing).
     """
-    out = []
+    if not pad_distance >= 0:  # NaN or negative: a bug of the caller, not too much memory
+        raise InputError(f"pad distance must be a number >= 0 (m), got {pad_distance!r}")
+    sizes = []
     for n, d in ((spec.ny, spec.dy), (spec.nx, spec.dx)):
-        extra = 2 * math.ceil(pad_distance / d) if pad_distance > 0 else 0
-        out.append(scipy.fft.next_fast_len(n + extra, real=True))
-    return (out[0], out[1])
+        cells = pad_distance / d  # may be inf for a tiny spacing: counted as too many
+        extra = 2 * math.ceil(cells) if math.isfinite(cells) and pad_distance > 0 else 0
+        sizes.append(n + extra if math.isfinite(cells) else None)
+    ny, nx = sizes
+    what = (
+        f"one padded grid of {spec.ny} x {spec.nx} cells of {spec.dy:.4g} x {spec.dx:.4g} m "
+        f"with a margin of {pad_distance:.4g} m"
+    )
+    cells = ny * nx if ny is not None and nx is not None else math.inf
+    check_memory(8 * cells, what, advice=advice)
+    assert ny is not None and nx is not None  # a non-finite count was refused just above
+    return (
+        scipy.fft.next_fast_len(ny, real=True),
+        scipy.fft.next_fast_len(nx, real=True),
+    )
 
 
 def wavenumbers_squared(

@@ -8,7 +8,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
+from gridflex.constants import DEFAULT_GRAVITY, MAX_ELASTIC_THICKNESS, SEA_WATER_DENSITY
 from gridflex.errors import InputError
 from gridflex.validation import check_density, check_number
 
@@ -127,10 +127,18 @@ class Plate:
             )
         set_(self, "infill_density", float(rho_f))
         set_(self, "te", self._checked_te(self.te))
+        largest = float(np.max(self.te.values)) if isinstance(self.te, xr.DataArray) else self.te
+        if not np.isfinite(rigidity_from_te(largest, self.youngs_modulus, nu)):
+            raise InputError(
+                f"youngs_modulus ({self.youngs_modulus!r} Pa) with te {largest!r} m gives a "
+                "rigidity beyond the floating-point range; check the units"
+            )
 
     @staticmethod
     def _checked_te(te: Any) -> TeLike:
         if isinstance(te, xr.DataArray):
+            if not np.issubdtype(te.dtype, np.number) or np.iscomplexobj(te.values):
+                raise InputError(f"te grid must hold real numbers, got dtype {te.dtype}")
             values = np.asarray(te.values, dtype=np.float64)
             if values.ndim != 2 or te.dims != ("y", "x"):
                 raise InputError(f"te grid must have dims ('y', 'x'), got {te.dims!r}")
@@ -138,8 +146,15 @@ class Plate:
                 raise InputError("te grid contains NaN or infinite values")
             if values.min() < 0.0:
                 raise InputError(f"te grid must be >= 0 m everywhere, minimum is {values.min()!r}")
+            if values.max() > MAX_ELASTIC_THICKNESS:
+                raise InputError(
+                    f"te grid must be <= {MAX_ELASTIC_THICKNESS:g} m everywhere, maximum is "
+                    f"{values.max()!r}; check the units"
+                )
             return te.astype(np.float64)
-        return check_number("te", te, unit="m, or a DataArray of te", minimum=0.0)
+        return check_number(
+            "te", te, unit="m, or a DataArray of te", minimum=0.0, maximum=MAX_ELASTIC_THICKNESS
+        )
 
     @property
     def is_variable(self) -> bool:

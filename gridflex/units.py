@@ -8,7 +8,7 @@ from typing import Any
 
 from gridflex.errors import InputError
 
-__all__ = ["DIMENSIONS", "FOOT", "parse_quantity", "unit_factor"]
+__all__ = ["DIMENSIONS", "FOOT", "parse_quantity", "si_unit", "unit_factor"]
 
 FOOT = 0.3048
 """The international foot in metres (exact; international yard and pound agreement of 1959,
@@ -55,6 +55,11 @@ The one table of units: scenario quantities (``"25 km"``) and the CF ``units``
 attribute of grid files (``"km"``, ``"g cm-3"``, ``"MPa"``) are both read through it."""
 
 _QUANTITY = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
+
+
+def si_unit(dimension: str) -> str:
+    """The SI unit (factor 1) of a :data:`DIMENSIONS` entry, e.g. ``"m"``."""
+    return next(unit for unit, factor in DIMENSIONS[dimension].items() if factor == 1.0)
 
 
 def unit_factor(unit: str, dimension: str, where: str) -> float:

@@ -21,13 +21,14 @@ from __future__ import annotations
 
 import math
 import numbers
+import os
 from collections.abc import Iterable
 from typing import Any, NamedTuple
 
 import numpy as np
 from numpy.typing import ArrayLike
 
-from gridflex.constants import MAX_ABS_ELEVATION, MAX_ICE_THICKNESS
+from gridflex.constants import MAX_ABS_ELEVATION, MAX_ELASTIC_THICKNESS, MAX_ICE_THICKNESS
 from gridflex.errors import InputError
 
 __all__ = [
@@ -39,6 +40,7 @@ __all__ = [
     "check_grid_range",
     "check_integer",
     "check_number",
+    "check_path_text",
 ]
 
 
@@ -140,6 +142,33 @@ def check_flag(name: str, value: Any) -> bool:
     return bool(value)
 
 
+def check_path_text(name: str, value: Any) -> str:
+    """A file path (a string or :class:`os.PathLike`) the operating system can take:
+    no NUL character, not empty. Returns it as a string.
+
+    Examples
+    --------
+    >>> check_path_text("--csv", "out/profile.csv")
+    'out/profile.csv'
+    >>> check_path_text("[output] file", "out\\x00.nc")
+    Traceback (most recent call last):
+    ...
+    gridflex.errors.InputError: [output] file must be a file path without NUL characters, \
+got 'out\\x00.nc'
+    """
+    try:
+        text = os.fspath(value)
+    except TypeError:
+        raise InputError(f"{name} must be a file path, got {value!r}") from None
+    if isinstance(text, bytes):
+        text = os.fsdecode(text)
+    if not text:
+        raise InputError(f"{name} must be a file path, got an empty string")
+    if "\x00" in text:
+        raise InputError(f"{name} must be a file path without NUL characters, got {text!r}")
+    return text
+
+
 class GridRole(NamedTuple):
     """What a grid file holds: its quantity and the physical range of its values (SI).
 
@@ -166,7 +195,7 @@ GRID_ROLES: dict[str, GridRole] = {
     ),
     "depth": GridRole("length", -MAX_ABS_ELEVATION, MAX_ABS_ELEVATION, "a depth (m)"),
     "ice_thickness": GridRole("length", 0.0, MAX_ICE_THICKNESS, "an ice thickness (m)"),
-    "elastic_thickness": GridRole("length", 0.0, None, "an elastic thickness (m)"),
+    "elastic_thickness": GridRole("length", 0.0, MAX_ELASTIC_THICKNESS, "an elastic thickness (m)"),
     "deflection": GridRole("length", None, None, "a deflection (m)"),
     "length": GridRole("length", None, None, "a length (m)"),
     "stress": GridRole("pressure", None, None, "a stress (Pa)"),

@@ -41,6 +41,7 @@ __all__ = [
     "LITHOLOGIES",
     "Lithology",
     "bulk_density",
+    "check_grains_sink",
     "compacted_base",
     "grain_thickness",
     "lithology",
@@ -116,6 +117,29 @@ LITHOLOGIES: dict[str, Lithology] = {
     "shaly_sandstone": Lithology("shaly_sandstone", 0.56, 2464.0, 2680.0, _SC80),
 }
 """Default lithologies (Sclater & Christie 1980); keys are the accepted names."""
+
+
+def check_grains_sink(grain_density: float, water_density: float, where: str) -> None:
+    """Refuse grains not denser than the pore and sea water they settle through.
+
+    Parameters
+    ----------
+    grain_density, water_density : float
+        Densities (kg m^-3).
+    where : str
+        The lithology, stage or scenario key, for the message.
+
+    Raises
+    ------
+    InputError
+        ``grain_density <= water_density``: such grains would float, and the
+        decompacted column would be lighter than the water it replaces.
+    """
+    if not grain_density > water_density:
+        raise InputError(
+            f"{where}: grain_density ({grain_density:g} kg/m^3) must exceed the water "
+            f"density ({water_density:g} kg/m^3); grains lighter than water would float"
+        )
 
 
 def lithology(value: str | Lithology) -> Lithology:

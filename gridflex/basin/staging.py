@@ -56,6 +56,7 @@ import xarray as xr
 from gridflex.basin.compaction import (
     Lithology,
     bulk_density,
+    check_grains_sink,
     compacted_base,
     grain_thickness,
     saturated_column,
@@ -352,6 +353,9 @@ class StagedBasin:
             raise InputError(
                 f"stage must be a gridflex.basin.staging.Stage, got {type(stage).__name__}"
             )
+        check_grains_sink(
+            stage.rock.grain_density, self.water_density, f"stage (age {stage.age}) lithology"
+        )
         h = grid_values(stage.thickness, self.grid, f"stage (age {stage.age}) thickness")
         if not np.all(np.isfinite(h)) or h.min() < 0:
             raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")

@@ -56,6 +56,13 @@ def main(argv: Sequence[str] | None = None) -> int:
     except OSError as exc:
         print(f"gridflex: error: {exc.filename or ''}: {exc.strerror or exc}", file=sys.stderr)
         return EXIT_INPUT
+    except MemoryError as exc:  # a step whose estimate fell short: still one line
+        print(
+            f"gridflex: error: out of memory ({exc or 'allocation failed'}); use coarser "
+            "cells, a smaller domain or less padding",
+            file=sys.stderr,
+        )
+        return EXIT_INPUT
     except KeyboardInterrupt:
         print("gridflex: interrupted", file=sys.stderr)
         return 130

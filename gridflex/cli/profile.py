@@ -11,6 +11,7 @@ from gridflex.io.netcdf import read_result
 from gridflex.io.plots import plot_profile
 from gridflex.io.tables import write_csv
 from gridflex.results.profile import at_step, one_column_per_step, sample_profile
+from gridflex.validation import check_path_text
 
 NAME = "profile"
 HELP = "sample a result grid along a straight line and write a CSV (and a plot)"
@@ -42,6 +43,9 @@ def add_parser(subparsers: SubParsers) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
+    for name, path in (("RESULT", args.result), ("--csv", args.csv), ("--plot", args.plot)):
+        if path is not None:
+            check_path_text(name, path)
     files = OutputSet(args.overwrite, [args.result])
     files.add({"--csv": args.csv, "--plot": args.plot})  # checked before any work
     result = read_result(args.result)

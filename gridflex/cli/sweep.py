@@ -8,6 +8,7 @@ from pathlib import Path
 
 from gridflex.cli.common import SubParsers, add_scenario_command, execute_scenario_command, wrote
 from gridflex.scenario.tables import FlexureScenario, load_scenario
+from gridflex.sweeps.parameter_sweep import check_scheduler
 from gridflex.workflows.sweep import sweep_scenario
 
 NAME = "sweep"
@@ -28,6 +29,7 @@ def add_parser(subparsers: SubParsers) -> None:
 
 def _load(path: str, scheduler: str | None) -> FlexureScenario:
     """The scenario, with --scheduler (when given) in place of ``[sweep] scheduler``."""
+    check_scheduler("--scheduler", scheduler)
     scenario = load_scenario(path)
     sweep = scenario.table("sweep")
     if scheduler is not None and sweep is not None:

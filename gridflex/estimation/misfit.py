@@ -258,7 +258,13 @@ class _Forward:
 
 
 def _check_mask(mask: Any, observed: xr.DataArray, load: xr.DataArray) -> np.ndarray:
-    valid = np.isfinite(np.asarray(observed.values, dtype=np.float64))
+    values = np.asarray(observed.values, dtype=np.float64)
+    if np.isinf(values).any():
+        raise InputError(
+            f"observed has {int(np.isinf(values).sum())} infinite value(s); "
+            "use NaN for cells without data"
+        )
+    valid = ~np.isnan(values)
     if mask is None:
         return valid
     check_same_grid(mask, load, "mask")

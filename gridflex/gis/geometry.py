@@ -18,6 +18,8 @@ import logging
 import math
 import os
 import re
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any
 
@@ -28,10 +30,15 @@ import xarray as xr
 from affine import Affine
 from rasterio.crs import CRS
 from rasterio.enums import Resampling
-from rasterio.errors import CRSError
+from rasterio.errors import CRSError, RasterioError
 
 from gridflex.errors import InputError
 from gridflex.memory import check_memory
+
+try:  # GDAL and PROJ errors (e.g. "PROJ: laea: Invalid latitude")
+    from rasterio._err import CPLE_BaseError
+except ImportError:  # pragma: no cover - rasterio moved it
+    CPLE_BaseError = RasterioError
 
 __all__ = [
     "GridGeometry",
@@ -39,6 +46,7 @@ __all__ = [
     "RESAMPLING",
     "cell_areas",
     "check_alignable",
+    "check_on_earth",
     "even_step",
     "from_lonlat",
     "geometry_of",
@@ -181,6 +189,11 @@ def even_step(coord: Any, name: str, tolerance: float | None = None) -> tuple[fl
         eps = np.finfo(given.dtype).eps if np.issubdtype(given.dtype, np.floating) else 0.0
         tol = max(_SPACING_RTOL * abs(step), 8.0 * eps * float(np.max(np.abs(values))))
         uneven = bool(np.max(np.abs(diffs - step)) > tol)
+    if not np.any(diffs):
+        raise InputError(
+            f"coordinate {name!r} has a spacing of 0 (every value is {float(values[0])!r}); "
+            "the cells must have a positive size"
+        )
     if step == 0.0 or uneven:
         raise InputError(
             f"coordinate {name!r} is not evenly spaced (steps from {float(diffs.min())!r} "
@@ -385,16 +398,73 @@ def working_geometry(
             return geometry.north_up()
         left, bottom, right, top = geometry.bounds
     else:
-        with rasterio.Env():
+        check_on_earth(geometry, "working grid")
+        with rasterio.Env(), _proj_errors("working grid"):
             left, bottom, right, top = rasterio.warp.transform_bounds(
                 geometry.crs, crs, *geometry.bounds, densify_pts=101
             )
     unit = spacing / (1.0 if crs is None else _linear_factor(crs))
+    if not all(math.isfinite(v) for v in (left, bottom, right, top, (right - left) / unit)):
+        raise InputError(
+            f"working grid: the footprint ({left:.6g}, {bottom:.6g}, {right:.6g}, {top:.6g}) "
+            f"cannot be covered with cells of {spacing:.6g} m; use a smaller domain"
+        )
     nx = max(1, math.ceil((right - left) / unit - 1e-9))
     ny = max(1, math.ceil((top - bottom) / unit - 1e-9))
     cx, cy = 0.5 * (left + right), 0.5 * (bottom + top)
     transform = Affine(unit, 0.0, cx - 0.5 * nx * unit, 0.0, -unit, cy + 0.5 * ny * unit)
     return GridGeometry(crs, transform, (ny, nx))
+
+
+_PROJ_ERRORS = (CPLE_BaseError, CRSError, RasterioError)
+
+
+@contextmanager
+def _proj_errors(what: str) -> Iterator[None]:
+    """Turn a PROJ or GDAL failure while doing *what* into one :class:`InputError`."""
+    try:
+        yield
+    except _PROJ_ERRORS as exc:
+        raise InputError(
+            f"{what}: the coordinates cannot be transformed ({exc}); a grid that reaches a "
+            "pole or spans too much of the globe cannot be projected, use a smaller domain"
+        ) from exc
+
+
+_POLE_TOLERANCE = 1e-9  # degrees
+
+
+def check_on_earth(geometry: GridGeometry, where: str, advice: str = "") -> None:
+    """Refuse a geographic grid whose cells reach beyond a pole or wrap the globe.
+
+    Parameters
+    ----------
+    geometry : GridGeometry
+        The grid; grids in a projected CRS or without one are not checked.
+    where : str
+        File, table or key, for the message.
+    advice : str, optional
+        What to change (e.g. ``"use fewer rows or a smaller spacing"``).
+
+    Raises
+    ------
+    InputError
+        Cell edges beyond latitude ±90 or a longitude span over 360 degrees.
+    """
+    if not geometry.is_geographic:
+        return
+    left, bottom, right, top = geometry.bounds
+    hint = f"; {advice}" if advice else ""
+    if bottom < -90.0 - _POLE_TOLERANCE or top > 90.0 + _POLE_TOLERANCE:
+        raise InputError(
+            f"{where}: the grid spans latitudes {bottom:.6g} to {top:.6g}, beyond a pole "
+            f"(latitudes lie within -90 to 90){hint}"
+        )
+    if right - left > 360.0 + _POLE_TOLERANCE:
+        raise InputError(
+            f"{where}: the grid spans {right - left:.6g} degrees of longitude, more than the "
+            f"globe's 360{hint}"
+        )
 
 
 def _resampling(name: str) -> Resampling:
@@ -456,7 +526,7 @@ def reproject_values(
             f"resampling onto a {dst.shape[0]} x {dst.shape[1]} grid",
         )
         out = np.full(dst.shape, np.nan)
-        with rasterio.Env():
+        with rasterio.Env(), _proj_errors("resampling onto the working grid"):
             rasterio.warp.reproject(
                 np.ascontiguousarray(s_vals),
                 out,
@@ -503,7 +573,7 @@ def to_lonlat(x: Any, y: Any, crs: CRS | None) -> tuple[np.ndarray, np.ndarray]:
     if crs == LONLAT:
         lon, lat = xf.copy(), yf.copy()
     else:
-        with rasterio.Env():
+        with rasterio.Env(), _proj_errors("longitude/latitude of the grid"):
             lon, lat = rasterio.warp.transform(crs, LONLAT, xf, yf)
         lon, lat = np.asarray(lon), np.asarray(lat)
     lon = np.where((lon > 180.0) | (lon < -180.0), (lon + 180.0) % 360.0 - 180.0, lon)
@@ -515,7 +585,7 @@ def from_lonlat(lon: Any, lat: Any, crs: CRS) -> tuple[np.ndarray, np.ndarray]:
     lon = np.asarray(lon, dtype=np.float64)
     lat = np.asarray(lat, dtype=np.float64)
     shape = np.broadcast_shapes(lon.shape, lat.shape)
-    with rasterio.Env():
+    with rasterio.Env(), _proj_errors("projecting longitude/latitude"):
         x, y = rasterio.warp.transform(
             LONLAT, crs, np.broadcast_to(lon, shape).ravel(), np.broadcast_to(lat, shape).ravel()
         )

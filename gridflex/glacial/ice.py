@@ -44,7 +44,14 @@ from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.solvers.viscous import DEFAULT_WIDTH_FACTOR
 from gridflex.validation import check_choice, check_density, check_number
 
-__all__ = ["bed_stress", "grounded_mask", "ice_response", "sea_level_at"]
+__all__ = [
+    "MAX_STEPS",
+    "bed_stress",
+    "check_max_step",
+    "grounded_mask",
+    "ice_response",
+    "sea_level_at",
+]
 
 log = logging.getLogger(__name__)
 
@@ -55,6 +62,36 @@ _EQUILIBRIUM_TOL = 1e-6  # m, change of the deflection between fixed-point itera
 _EQUILIBRIUM_MAX_ITER = 200
 
 ArrayLike = Any
+
+MAX_STEPS = 100_000
+"""Most time steps a history may be split into by ``max_step``: each costs one FFT pair
+of the padded grid, so more would run for hours without telling why."""
+
+
+def check_max_step(name: str, max_step: Any, times: Any) -> float | None:
+    """*max_step* (years) checked against the history's *times*: > 0 and splitting the
+    intervals into at most :data:`MAX_STEPS` steps in all. None means no limit.
+
+    Raises
+    ------
+    InputError
+        Naming *name* (e.g. ``"[solver] max_step"``), the value, the number of steps it
+        would take and the smallest value allowed.
+    """
+    if max_step is None:
+        return None
+    step = check_number(name, max_step, unit="years", minimum=0.0, strict=True)
+    gaps = np.diff(np.asarray(times, dtype=np.float64))
+    with np.errstate(over="ignore"):  # a tiny step counts as infinitely many
+        steps = float(np.sum(np.maximum(1.0, np.ceil(gaps[gaps > 0] / step - 1e-9))))
+    if steps > MAX_STEPS:
+        span = float(np.sum(gaps))
+        raise InputError(
+            f"{name} = {step:g} years splits the history of {span:g} years into {steps:.3g} "
+            f"steps (at most {MAX_STEPS}); use a max_step of at least "
+            f"{span / (MAX_STEPS - gaps.size):.3g} years"
+        )
+    return step
 
 
 def bed_stress(
@@ -293,9 +330,7 @@ def ice_response(
     times, first, thickness = _check_ice(ice_thickness, bed)
     _check_plate(plate)
     initial = check_choice("initial", initial, INITIAL_STATES)
-    step_limit = None
-    if max_step is not None:
-        step_limit = check_number("max_step", max_step, unit="years", minimum=0.0, strict=True)
+    step_limit = check_max_step("max_step", max_step, times)
     levels = _sea_level_series(sea_level, times)
     ref_level = check_number("reference_sea_level", reference_sea_level, unit="m")
     column = _IceColumn(

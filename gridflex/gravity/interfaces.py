@@ -146,7 +146,12 @@ def gravity_padded_shape(spec: GridSpec, deepest: float, pad_factor: float) -> t
     compact one.
     """
     half_extent = 0.5 * max(spec.ny * spec.dy, spec.nx * spec.dx)
-    return padded_shape(spec, max(pad_factor * deepest, half_extent))
+    return padded_shape(
+        spec,
+        max(pad_factor * deepest, half_extent),
+        advice=f"the padding is pad_factor x {deepest:.4g} m (the deepest source below the "
+        "observation plane): lower observation_height or the gravity pad_factor",
+    )
 
 
 def parker_series(
@@ -398,7 +403,11 @@ def parker_spectrum(
     ratio = 0.5 * (h_max - h_min) / z_mid
     ny, nx = spec.shape
     n = shape[0] * shape[1]
-    check_memory(8.0 * n * 6, f"gravity series on a padded grid of {shape[0]} x {shape[1]}")
+    check_memory(
+        8.0 * n * 6,
+        f"gravity series on a padded grid of {shape[0]} x {shape[1]}",
+        advice="lower observation_height or the gravity pad_factor, or use coarser cells",
+    )
     ky2, kx2 = wavenumbers_squared(shape, spec.dy, spec.dx)
     k = np.sqrt(ky2 + kx2)
 

@@ -14,8 +14,16 @@ from rasterio.crs import CRS
 from gridflex.errors import InputError
 from gridflex.io.atomic import atomic_path
 from gridflex.io.gridmapping import cf_grid_mapping
+from gridflex.validation import check_path_text
 
-__all__ = ["NETCDF_LOCK", "OUTPUT_DTYPES", "as_output_dtype", "read_result", "write_netcdf"]
+__all__ = [
+    "NETCDF_LOCK",
+    "OUTPUT_DTYPES",
+    "as_output_dtype",
+    "input_file",
+    "read_result",
+    "write_netcdf",
+]
 
 OUTPUT_DTYPES = ("float64", "float32")
 """Precisions the grids of a result may be written in."""
@@ -24,6 +32,22 @@ NETCDF_LOCK = threading.RLock()
 """Held by every NetCDF read and write of gridflex: the netCDF-C and HDF5 libraries are
 not safe to call from several threads at once (dask's threaded scheduler runs tasks in
 threads), and a concurrent open/close has crashed the interpreter."""
+
+
+def input_file(path: str | Path) -> Path:
+    """*path* as a :class:`~pathlib.Path` if it names an existing file.
+
+    Raises
+    ------
+    InputError
+        A NUL character in the path, a folder instead of a file, or nothing there.
+    """
+    path = Path(check_path_text("input file", path))
+    if path.is_dir():
+        raise InputError(f"{path}: is a folder, not a file; give the grid file inside it")
+    if not path.is_file():
+        raise InputError(f"{path}: file not found")
+    return path
 
 
 def read_result(path: str | Path) -> xr.Dataset:
@@ -37,9 +61,7 @@ def read_result(path: str | Path) -> xr.Dataset:
     InputError
         Missing or unreadable file.
     """
-    path = Path(path)
-    if not path.is_file():
-        raise InputError(f"{path}: file not found")
+    path = input_file(path)
     try:
         with NETCDF_LOCK, xr.open_dataset(path, engine="netcdf4") as ds:
             ds = ds.load()

@@ -34,13 +34,14 @@ import netCDF4
 import numpy as np
 import rasterio
 import xarray as xr
+from affine import Affine
 from rasterio.crs import CRS
 from rasterio.errors import RasterioError
 
 from gridflex.errors import InputError
-from gridflex.gis.geometry import GridGeometry, even_step, parse_crs
+from gridflex.gis.geometry import GridGeometry, check_on_earth, even_step, parse_crs
 from gridflex.io.atomic import atomic_path
-from gridflex.io.netcdf import NETCDF_LOCK
+from gridflex.io.netcdf import NETCDF_LOCK, input_file
 from gridflex.memory import check_memory
 from gridflex.units import unit_factor
 
@@ -57,6 +58,7 @@ __all__ = [
     "increasing_axes",
     "netcdf_missing",
     "read_raster",
+    "refuse_fill_like",
     "regular_axis",
     "write_geotiff",
 ]
@@ -126,6 +128,25 @@ def _axis_coords(y: np.ndarray, x: np.ndarray, crs: CRS | None) -> dict[str, Any
     return {"y": ("y", y, yattrs), "x": ("x", x, xattrs)}
 
 
+def refuse_fill_like(values: np.ndarray, where: str) -> None:
+    """Refuse values of magnitude :data:`FILL_LIKE` or more (infinities included): an
+    undeclared fill value, never data.
+
+    Raises
+    ------
+    InputError
+        Naming *where* (file and variable), the number of cells and the first value.
+    """
+    with np.errstate(invalid="ignore"):
+        huge = np.abs(values) >= FILL_LIKE
+    if huge.any():
+        raise InputError(
+            f"{where} has {int(huge.sum())} cell(s) holding "
+            f"{float(values[huge][0]):.7g}, which looks like a fill value the file does not "
+            "declare; declare it (_FillValue or missing_value in NetCDF, nodata in a GeoTIFF)"
+        )
+
+
 def _finish(
     path: Path,
     name: str,
@@ -139,14 +160,11 @@ def _finish(
     values = np.asarray(values, dtype=np.float64)
     if not np.any(np.isfinite(values)):
         raise InputError(f"{path}: {name!r} has no valid values (every cell is nodata or NaN)")
-    with np.errstate(invalid="ignore"):
-        huge = np.abs(values) >= FILL_LIKE
-    if huge.any():
-        raise InputError(
-            f"{path}: {name!r} has {int(huge.sum())} cell(s) holding "
-            f"{float(values[huge][0]):.7g}, which looks like a fill value the file does not "
-            "declare; declare it (_FillValue or missing_value in NetCDF, nodata in a GeoTIFF)"
-        )
+    refuse_fill_like(values, f"{path}: {name!r}")
+    if crs is not None and crs.is_geographic and y.size > 1 and x.size > 1:
+        dy, dx = (y[-1] - y[0]) / (y.size - 1), (x[-1] - x[0]) / (x.size - 1)
+        cells = Affine(dx, 0.0, x[0] - dx / 2, 0.0, dy, y[0] - dy / 2)
+        check_on_earth(GridGeometry(crs, cells, (y.size, x.size)), f"{path}: {name!r}")
     attrs: dict[str, Any] = {"crs_wkt": "" if crs is None else crs.to_wkt()}
     if units:
         attrs["units"] = str(units)
@@ -658,9 +676,7 @@ def read_raster(
         value of magnitude :data:`FILL_LIKE` or more.
     """
     _refuse_remote(str(path), f"{path}")
-    path = Path(path)
-    if not path.is_file():
-        raise InputError(f"{path}: file not found")
+    path = input_file(path)
     try:
         netcdf = _is_netcdf(path)
     except OSError as exc:

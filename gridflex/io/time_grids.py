@@ -56,8 +56,8 @@ from rasterio.crs import CRS
 from gridflex.constants import DAYS_PER_YEAR, PRESENT_DATE
 from gridflex.errors import InputError
 from gridflex.gis.geometry import GridGeometry
-from gridflex.io.netcdf import NETCDF_LOCK
-from gridflex.io.rasters import grid_mapping_crs, netcdf_missing
+from gridflex.io.netcdf import NETCDF_LOCK, input_file
+from gridflex.io.rasters import grid_mapping_crs, netcdf_missing, refuse_fill_like
 from gridflex.units import DIMENSIONS, unit_factor
 
 __all__ = [
@@ -66,6 +66,7 @@ __all__ = [
     "DEFAULT_TIME_REFERENCE",
     "calendar_year_days",
     "cf_time_axis",
+    "check_time_reference",
     "read_history",
     "read_series",
     "years_from_cf",
@@ -317,7 +318,9 @@ def _unpacked(da: xr.DataArray, where: str) -> np.ndarray:
     raw = np.asarray(da.values)
     if not np.issubdtype(raw.dtype, np.number):
         raise InputError(f"{where}: values are not numbers ({raw.dtype})")
-    return netcdf_missing(raw, dict(da.attrs))
+    values = netcdf_missing(raw, dict(da.attrs))
+    refuse_fill_like(values, where)
+    return values
 
 
 def _metric_axis(da: xr.DataArray, dim: str, where: str) -> np.ndarray:
@@ -336,8 +339,7 @@ def _metric_axis(da: xr.DataArray, dim: str, where: str) -> np.ndarray:
 
 
 def _open(path: Path, variable: str) -> tuple[xr.DataArray, xr.Dataset]:
-    if not path.is_file():
-        raise InputError(f"{path}: file not found")
+    path = input_file(path)
     try:
         ds = xr.open_dataset(path, engine="netcdf4", decode_times=False, mask_and_scale=False)
     except (OSError, ValueError, RuntimeError) as exc:
@@ -441,8 +443,46 @@ def read_series(
     )
 
 
+_DATE = re.compile(r"^-?\d{1,6}-\d{1,2}-\d{1,2}$")
+
+
+def check_time_reference(name: str, reference: Any) -> str:
+    """*reference* if it is a date ``YYYY-MM-DD`` that a CF time axis can be counted from.
+
+    Raises
+    ------
+    InputError
+        Naming *name* (e.g. ``"[output] time_reference"``) and the value.
+
+    Examples
+    --------
+    >>> check_time_reference("time_reference", "2000-01-01")
+    '2000-01-01'
+    >>> check_time_reference("time_reference", "yesterday")
+    Traceback (most recent call last):
+    ...
+    gridflex.errors.InputError: time_reference must be a date written YYYY-MM-DD (e.g. \
+'1950-01-01'), got 'yesterday'
+    """
+    import warnings
+
+    import cftime
+
+    wanted = f"{name} must be a date written YYYY-MM-DD (e.g. {PRESENT_DATE!r}), got {reference!r}"
+    if not isinstance(reference, str) or not _DATE.match(reference):
+        raise InputError(wanted)
+    try:
+        with warnings.catch_warnings():  # dates before year 1 are fine for a time span
+            warnings.simplefilter("ignore", cftime.CFWarning)
+            cftime.num2date(0.0, f"days since {reference} 00:00:00", calendar=CALENDAR)
+    except (ValueError, TypeError) as exc:
+        raise InputError(f"{wanted} ({exc})") from exc
+    return reference
+
+
 def cf_time_axis(ds: xr.Dataset, reference: str = DEFAULT_TIME_REFERENCE) -> xr.Dataset:
     """*ds* with its ``time`` in years replaced by a CF time axis (see module notes)."""
+    reference = check_time_reference("time_reference", reference)
     years = np.asarray(ds["time"].values, dtype=np.float64)
     out = ds.assign_coords(
         time=(

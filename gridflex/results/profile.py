@@ -3,14 +3,24 @@
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 import xarray as xr
 
 from gridflex.errors import InputError
-from gridflex.validation import check_integer
+from gridflex.memory import check_memory
+from gridflex.validation import check_integer, check_number
 
-__all__ = ["EARTH_RADIUS", "at_step", "one_column_per_step", "profile_ends", "sample_profile"]
+__all__ = [
+    "EARTH_RADIUS",
+    "at_step",
+    "check_profile_ends",
+    "check_profile_point",
+    "one_column_per_step",
+    "profile_ends",
+    "sample_profile",
+]
 
 EARTH_RADIUS = 6_371_008.8
 """Mean Earth radius (m) for distances along geographic profiles (IUGG; from memory)."""
@@ -87,6 +97,52 @@ def _distances(xs: np.ndarray, ys: np.ndarray, geographic: bool) -> np.ndarray:
     return 2 * EARTH_RADIUS * np.arcsin(np.sqrt(np.clip(a, 0.0, 1.0)))
 
 
+PROFILE_SAMPLE_WORDS = 8
+"""float64 values per profile point and sampled step besides the variables (positions,
+distances, interpolation weights), for the memory estimate before sampling."""
+
+
+def check_profile_point(name: str, value: Any) -> tuple[float, float]:
+    """One end of a profile as ``(x, y)``: a pair of finite numbers (not booleans).
+
+    Raises
+    ------
+    InputError
+        Naming *name* and the value.
+    """
+    if isinstance(value, (str, bytes)) or not isinstance(value, Sequence) or len(value) != 2:
+        raise InputError(f"{name} must be a pair [x, y] of numbers, got {value!r}")
+    x, y = (check_number(f"{name} {axis}", v) for axis, v in zip("xy", value, strict=True))
+    return x, y
+
+
+def check_profile_ends(
+    start: Any, end: Any, names: tuple[str, str] = ("start", "end")
+) -> tuple[tuple[float, float], tuple[float, float]]:
+    """The two ends of a profile as ``((x0, y0), (x1, y1))``: each a pair of finite
+    numbers (not booleans), and the two ends apart.
+
+    Parameters
+    ----------
+    start, end : object
+        The ends as given.
+    names : tuple of str
+        How the two ends are called in messages (e.g. ``"[output] profile_start"``).
+
+    Raises
+    ------
+    InputError
+        Naming the end and its value.
+    """
+    ends = [check_profile_point(name, v) for name, v in zip(names, (start, end), strict=True)]
+    if ends[0] == ends[1]:
+        raise InputError(
+            f"{names[0]} and {names[1]} are the same point {list(ends[0])!r}: "
+            "a profile needs two different ends"
+        )
+    return ends[0], ends[1]
+
+
 def profile_ends(
     ds: xr.Dataset, start: Sequence[float], end: Sequence[float]
 ) -> tuple[float, float, float, float]:
@@ -99,15 +155,10 @@ def profile_ends(
     Raises
     ------
     InputError
-        Ends that are not two numbers each, or an end outside the grid.
+        Ends that are not two numbers each, the same point twice, or an end outside
+        the grid.
     """
-    try:
-        x0, y0 = (float(v) for v in start)
-        x1, y1 = (float(v) for v in end)
-    except (TypeError, ValueError) as exc:
-        raise InputError(
-            f"profile ends must be two (x, y) pairs, got {start!r} and {end!r}"
-        ) from exc
+    (x0, y0), (x1, y1) = check_profile_ends(start, end, ("profile start", "profile end"))
     xs_grid, ys_grid = ds["x"].values, ds["y"].values
     if _is_geographic(ds):  # longitudes in the grid's convention (0-360 or ±180)
         x0, x1 = _wrap_into(x0, xs_grid), _wrap_into(x1, xs_grid)
@@ -166,6 +217,12 @@ def sample_profile(
     if missing:
         have = ", ".join(map(str, ds.data_vars))
         raise InputError(f"no variable {missing[0]!r} to sample; have {have}")
+    steps = sum(int(ds[v].size // (ds.sizes["y"] * ds.sizes["x"])) for v in variables)
+    check_memory(
+        8 * samples * (steps + PROFILE_SAMPLE_WORDS),
+        f"a profile of {samples} points over {steps} grid(s)",
+        advice="ask for fewer samples",
+    )
     t = np.linspace(0.0, 1.0, samples)
     xs, ys = x0 + t * (x1 - x0), y0 + t * (y1 - y0)
     distance = _distances(xs, ys, _is_geographic(ds))

@@ -10,6 +10,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING
 
 from gridflex.errors import InputError
+from gridflex.results.profile import check_profile_ends, check_profile_point
 
 if TYPE_CHECKING:
     from gridflex.scenario.tables import FlexureScenario
@@ -156,8 +157,10 @@ def _check_profile(scenario: FlexureScenario) -> None:
             if wanted:
                 raise InputError(f"{scenario.where('output', key)}: required for a profile")
             continue
-        if len(value) != 2 or not all(isinstance(v, (int, float)) for v in value):
-            raise InputError(f"{scenario.where('output', key)}: expected [x, y], got {value!r}")
+        check_profile_point(scenario.where("output", key), value)
+    if all(v is not None for v in ends):
+        names = (scenario.where("output", "profile_start"), scenario.where("output", "profile_end"))
+        check_profile_ends(ends[0], ends[1], names)
     if all(v is not None for v in ends) and not wanted:
         raise InputError(f"{scenario.where('output')}: a profile needs profile_csv or profile_plot")
     if out["extent"] == "response" and out["grid"] == "input":

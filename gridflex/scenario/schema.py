@@ -18,8 +18,14 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any, Generic, Literal, TypeVar, overload
 
 from gridflex.errors import InputError
-from gridflex.units import parse_quantity
-from gridflex.validation import check_choice, check_flag, check_integer, check_number
+from gridflex.units import parse_quantity, si_unit
+from gridflex.validation import (
+    check_choice,
+    check_flag,
+    check_integer,
+    check_number,
+    check_path_text,
+)
 
 if TYPE_CHECKING:
     from gridflex.scenario.tables import (
@@ -72,6 +78,10 @@ class Key:
         Allowed values for ``"choice"``: the library's own constant, never a copy.
     minimum : float, optional
         Smallest allowed value (inclusive) for numbers and quantities.
+    strict : bool, default False
+        Whether *minimum* itself is refused (e.g. a spacing must be > 0).
+    maximum : float, optional
+        Largest allowed value (inclusive, in SI) for numbers and quantities.
     """
 
     kind: str
@@ -80,6 +90,8 @@ class Key:
     dimension: str = ""
     choices: tuple[str, ...] = ()
     minimum: float | None = None
+    strict: bool = False
+    maximum: float | None = None
 
 
 TablesT = TypeVar("TablesT", bound=Mapping[str, Any])
@@ -186,7 +198,7 @@ _Checker = Callable[[Any, Key, str, Path], Any]
 
 
 def _check_number(value: Any, key: Key, where: str, base: Path) -> Any:
-    return check_number(where, value, minimum=key.minimum)
+    return check_number(where, value, minimum=key.minimum, maximum=key.maximum, strict=key.strict)
 
 
 def _check_integer(value: Any, key: Key, where: str, base: Path) -> Any:
@@ -196,8 +208,14 @@ def _check_integer(value: Any, key: Key, where: str, base: Path) -> Any:
 
 def _check_quantity(value: Any, key: Key, where: str, base: Path) -> Any:
     number = parse_quantity(value, key.dimension, where)
-    if key.minimum is not None and number < key.minimum:  # the value as written, not in SI
-        raise InputError(f"{where} must be >= {key.minimum:g}, got {value!r}")
+    if key.minimum is not None and (  # the value as written, not in SI
+        number <= key.minimum if key.strict else number < key.minimum
+    ):
+        sign = ">" if key.strict else ">="
+        raise InputError(f"{where} must be {sign} {key.minimum:g}, got {value!r}")
+    if key.maximum is not None and number > key.maximum:
+        unit = f" {si_unit(key.dimension)}" if key.dimension else ""
+        raise InputError(f"{where} must be at most {key.maximum:g}{unit}, got {value!r}")
     return number
 
 
@@ -213,6 +231,7 @@ def _check_choice(value: Any, key: Key, where: str, base: Path) -> Any:
 
 def _check_path(value: Any, key: Key, where: str, base: Path) -> Any:
     _check_string(value, key, where, base)
+    check_path_text(where, value)
     if value.endswith(("/", "\\")):  # Path() would drop the separator
         raise InputError(f"{where} must name a file, got the folder {value!r}")
     path = Path(value).expanduser()
@@ -360,7 +379,7 @@ def read_scenario(
     InputError
         Missing or unreadable file, malformed TOML, or whatever *parser* refuses.
     """
-    path = Path(path)
+    path = Path(check_path_text("scenario file", path))
     try:
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError as exc:

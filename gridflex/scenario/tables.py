@@ -30,7 +30,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any, TypedDict, cast, overload
 
-from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
+from gridflex.constants import DEFAULT_GRAVITY, MAX_ELASTIC_THICKNESS, SEA_WATER_DENSITY
 from gridflex.engine import EDGES, METHODS
 from gridflex.estimation.misfit import QUANTITIES
 from gridflex.gis.geometry import RESAMPLING
@@ -70,7 +70,12 @@ __all__ = [
 SCHEMA: dict[str, dict[str, Key]] = {
     "plate": {
         "elastic_thickness": Key(
-            "quantity", "effective elastic thickness Te", None, "length", minimum=0.0
+            "quantity",
+            "effective elastic thickness Te",
+            None,
+            "length",
+            minimum=0.0,
+            maximum=MAX_ELASTIC_THICKNESS,
         ),
         "elastic_thickness_file": Key("path", "NetCDF grid of Te on the load grid", None),
         "elastic_thickness_variable": Key("string", "variable holding Te in that file", None),
@@ -149,7 +154,12 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "columns": Key("integer", "number of cells along x", REQUIRED, minimum=4),
         "rows": Key("integer", "number of cells along y", REQUIRED, minimum=4),
         "spacing": Key(
-            "quantity", "cell size (m, also for a geographic grid)", REQUIRED, "length", minimum=0.0
+            "quantity",
+            "cell size (m, also for a geographic grid)",
+            REQUIRED,
+            "length",
+            minimum=0.0,
+            strict=True,
         ),
         "crs": Key(
             "string",
@@ -172,6 +182,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
             None,
             "length",
             minimum=0.0,
+            strict=True,
         ),
         "resampling": Key(
             "choice",

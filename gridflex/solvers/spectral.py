@@ -21,7 +21,7 @@ import numpy as np
 import scipy.fft
 
 from gridflex.errors import InputError
-from gridflex.grid import GridSpec, padded_shape, wavenumbers_squared
+from gridflex.grid import PADDING_ADVICE, GridSpec, padded_shape, wavenumbers_squared
 from gridflex.memory import check_memory
 from gridflex.solvers.fft_buffers import BlockedSpectralFilter
 from gridflex.solvers.row_blocks import for_row_blocks
@@ -243,7 +243,11 @@ class SpectralProblem:
         # peak of load_spectrum + inverse: padded load, its spectrum, the transfer function,
         # the output grid (response keeps the spectrum, transfer and output: about 2.5)
         n = shape[0] * shape[1]
-        check_memory(8.0 * n * 3.5, f"spectral solve on a padded grid of {shape[0]} x {shape[1]}")
+        check_memory(
+            8.0 * n * 3.5,
+            f"spectral solve on a padded grid of {shape[0]} x {shape[1]}",
+            advice=PADDING_ADVICE,
+        )
         return cls(spec, rigidity, stiffness, force_x, force_y, shape, periodic)
 
     @property

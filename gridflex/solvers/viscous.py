@@ -61,6 +61,8 @@ DEFAULT_WIDTH_FACTOR = 1.0
 
 _CACHE_STEPS = 4
 
+_PAD_ADVICE = "use a smaller pad_factor or pad width factor, fewer cells or coarser cells"
+
 
 def relaxation_rates(
     shape: tuple[int, int],
@@ -220,7 +222,7 @@ class SpectralRelaxation:
             pad = relaxation_pad_distance(
                 spec, rigidity, stiffness, model, pad_factor, width_factor
             )
-            shape = padded_shape(spec, pad)
+            shape = padded_shape(spec, pad, advice=_PAD_ADVICE)
         n_half = shape[0] * (shape[1] // 2 + 1)
         # per half-spectrum mode, in float64 words: transfer and rates (2), cached step
         # factors (3 per step length, repeated for re/im: 6 each), state and load spectra
@@ -229,6 +231,7 @@ class SpectralRelaxation:
         check_memory(
             8.0 * n_half * words,
             f"time-dependent response on a padded grid of {shape[0]} x {shape[1]}",
+            advice=_PAD_ADVICE,
         )
         transfer = transfer_function(shape, spec.dy, spec.dx, rigidity, stiffness)
         rates = relaxation_rates(

@@ -12,6 +12,7 @@ import dataclasses
 import itertools
 import logging
 import math
+import re
 from collections.abc import Callable, Mapping, Sequence
 from typing import Any
 
@@ -28,7 +29,14 @@ from gridflex.progress import Progress
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 from gridflex.validation import check_choice, check_number
 
-__all__ = ["FORCE_PARAMETERS", "LOCAL_SCHEDULERS", "PLATE_PARAMETERS", "sweep"]
+__all__ = [
+    "FORCE_PARAMETERS",
+    "LOCAL_SCHEDULERS",
+    "MEMBER_OVERHEAD",
+    "PLATE_PARAMETERS",
+    "check_scheduler",
+    "sweep",
+]
 
 log = logging.getLogger(__name__)
 
@@ -124,8 +132,42 @@ def _solve_one(
     return problem.deflection(np.asarray(grid.values, dtype=np.float64))
 
 
+_ADDRESS = re.compile(
+    r"(?:(?:tcp|tls|inproc|ucx|ws|wss)://[^\s/]+|[A-Za-z0-9_.\-]+:\d{1,5}|\[[0-9A-Fa-f:]+\]:\d{1,5})/?"
+)
+"""A dask scheduler address: ``protocol://host[:port]`` or ``host:port``."""
+
+MEMBER_OVERHEAD = 4096
+"""Bytes per sweep member (a dask task, its parameters and its result record), besides
+its deflection grid: the memory estimate counts both before any member is built."""
+_FEWER_MEMBERS = "sweep fewer values (the number of members is the product of the list lengths)"
+
+
+def check_scheduler(name: str, scheduler: Any) -> Any:
+    """*scheduler* if it is None, a local scheduler name, an address or a Client.
+
+    The form is checked before any work (an address is only tried when the sweep runs).
+
+    Raises
+    ------
+    InputError
+        Naming *name* (``"scheduler"``, ``"--scheduler"`` or a scenario key) and the value.
+    """
+    if scheduler is None or (isinstance(scheduler, str) and scheduler in LOCAL_SCHEDULERS):
+        return scheduler
+    if isinstance(scheduler, str) and _ADDRESS.fullmatch(scheduler):
+        return scheduler
+    if type(scheduler).__name__ == "Client" and hasattr(scheduler, "compute"):
+        return scheduler  # a connected distributed.Client
+    raise InputError(
+        f"{name} must be one of {', '.join(map(repr, LOCAL_SCHEDULERS))}, a dask scheduler "
+        f"address such as 'tcp://host:8786' or a distributed.Client; got {scheduler!r}"
+    )
+
+
 def _client_for(scheduler: Any) -> Any:
     """A dask.distributed Client for an address or Client; None for a local scheduler."""
+    check_scheduler("scheduler", scheduler)
     if scheduler is None or scheduler in LOCAL_SCHEDULERS:
         return None
     try:
@@ -138,8 +180,8 @@ def _client_for(scheduler: Any) -> Any:
         return scheduler
     if isinstance(scheduler, str):
         try:
-            return distributed.Client(scheduler, timeout="10s", set_as_default=False)
-        except (OSError, TimeoutError) as exc:
+            return distributed.Client(scheduler, timeout="5s", set_as_default=False)
+        except (OSError, TimeoutError, ValueError) as exc:
             raise InputError(
                 f"scheduler: cannot reach a dask scheduler at {scheduler!r} ({exc})"
             ) from exc
@@ -292,7 +334,15 @@ def sweep(
     import dask
 
     names, values = _check_parameters(load, plate, parameters)
+    check_scheduler("scheduler", scheduler)
     shape = tuple(values[name].size for name in names)
+    members = math.prod(shape)  # a Python int: counted before any member is built
+    cells = load.size if isinstance(load, xr.DataArray) else 0  # a function's: below
+    check_memory(
+        members * (MEMBER_OVERHEAD + 2 * 8 * cells),
+        f"sweep of {members} members ({' x '.join(map(str, shape))})",
+        advice=_FEWER_MEMBERS,
+    )
     combos = [
         dict(zip(names, map(float, c), strict=True)) for c in itertools.product(*values.values())
     ]
@@ -305,8 +355,10 @@ def sweep(
         grid_values = np.asarray(template.values, dtype=np.float64)
         check_edge_load(grid_values, float(np.abs(grid_values).sum()))
     check_memory(
-        2.0 * 8.0 * math.prod(shape) * spec.ny * spec.nx,
-        f"sweep result of {math.prod(shape)} grids of {spec.ny} x {spec.nx}",
+        members * (MEMBER_OVERHEAD + 2 * 8 * spec.ny * spec.nx),
+        f"sweep of {members} members ({' x '.join(map(str, shape))}) on grids of "
+        f"{spec.ny} x {spec.nx}",
+        advice=_FEWER_MEMBERS,
     )
     shared = dask.delayed(load, pure=True) if isinstance(load, xr.DataArray) else load
     one = dask.delayed(_solve_one, pure=True)

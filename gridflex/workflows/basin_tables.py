@@ -18,7 +18,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-from gridflex.basin.compaction import LITHOLOGIES
+from gridflex.basin.compaction import LITHOLOGIES, check_grains_sink
 from gridflex.basin.staging import ISOPACHS
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.errors import InputError
@@ -182,8 +182,23 @@ def load_basin_scenario(path: str | Path) -> BasinScenario:
     return read_scenario(path, parse_basin_scenario)
 
 
+def _check_grains(scenario: BasinScenario) -> None:
+    """Every lithology's grains are denser than the water of the run."""
+    for rows, table in (("stages", "basin"), ("backstrip_layers", "backstrip")):
+        if scenario.tables[table] is None:
+            continue
+        water = scenario.tables[table]["water_density"]
+        for i, row in enumerate(scenario.tables[rows]):
+            grains = row["grain_density"]
+            if grains is None:
+                grains = LITHOLOGIES[row["lithology"]].grain_density
+            key = "grain_density" if row["grain_density"] is not None else "lithology"
+            check_grains_sink(grains, water, scenario.where(rows, key, i))
+
+
 def _check_basin(scenario: BasinScenario) -> None:
     tables = scenario.tables
+    _check_grains(scenario)
     if tables["basin"] is not None and tables["backstrip"] is not None:
         raise InputError(
             f"{scenario.path}: give either [basin] (with [[stages]]) or [backstrip], not both"

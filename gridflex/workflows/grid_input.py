@@ -48,7 +48,7 @@ from gridflex.gis.geometry import GridGeometry, geometry_of, reproject_values, s
 from gridflex.grid import check_same_grid
 from gridflex.io.rasters import MISSING_POLICIES, increasing_axes, read_raster
 from gridflex.scenario.context import error_context
-from gridflex.units import DIMENSIONS, unit_factor
+from gridflex.units import si_unit, unit_factor
 from gridflex.validation import GRID_ROLES, check_grid_range
 
 __all__ = [
@@ -61,11 +61,6 @@ __all__ = [
 ]
 
 log = logging.getLogger(__name__)
-
-
-def si_unit(dimension: str) -> str:
-    """The SI unit (factor 1) of a :data:`gridflex.units.DIMENSIONS` entry, e.g. ``"m"``."""
-    return next(unit for unit, factor in DIMENSIONS[dimension].items() if factor == 1.0)
 
 
 def apply_missing_policy(

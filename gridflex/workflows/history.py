@@ -28,13 +28,20 @@ from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.engine import SPECTRAL_EDGES
 from gridflex.errors import InputError
 from gridflex.gis.geometry import parse_crs
-from gridflex.glacial.ice import ice_response, sea_level_at
+from gridflex.glacial.ice import check_max_step, ice_response, sea_level_at
 from gridflex.glacial.response import INITIAL_STATES
 from gridflex.grid import check_same_grid
 from gridflex.io.netcdf import write_netcdf
 from gridflex.io.plots import plot_point_series, plot_uplift_rate_map
 from gridflex.io.rasters import LAYER_MISSING_POLICIES
-from gridflex.io.time_grids import DEFAULT_TIME_REFERENCE, cf_time_axis, read_history, read_series
+from gridflex.io.time_grids import (
+    DEFAULT_TIME_REFERENCE,
+    cf_time_axis,
+    check_time_reference,
+    read_history,
+    read_series,
+)
+from gridflex.memory import check_memory
 from gridflex.progress import Progress
 from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
 from gridflex.scenario.tables import SCHEMA, load_scenario
@@ -159,6 +166,10 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
 }
 """Every table and key a history scenario may contain."""
 
+HISTORY_WORDS_PER_TIME = 8
+"""float64 grids per time a history holds at its peak (ice, load, deflection, uplift rate,
+vertical displacement, the copies written), for the memory estimate before the ice grid."""
+
 HISTORY_ARRAY_TABLES = frozenset({"points"})
 HISTORY_REQUIRED_TABLES = ("plate", "ice", "bed", "output")
 
@@ -196,6 +207,11 @@ def _check_history(scenario: HistoryScenario) -> None:
                 isinstance(v, (int, float)) and not isinstance(v, bool) for v in values
             ):
                 raise InputError(f"{where} {name}: expected a non-empty list of numbers")
+        if any(later <= earlier for earlier, later in zip(times, times[1:])):
+            raise InputError(
+                f"{where} times: must increase from the oldest to the youngest (years after "
+                f"time_reference, the past negative), got {times!r}"
+            )
         if len(times) != len(factors):
             raise InputError(
                 f"{where}: times has {len(times)} values, thickness_factors "
@@ -216,6 +232,9 @@ def _check_history(scenario: HistoryScenario) -> None:
             f"{scenario.where('plate', 'infill_density')}: must be 0 for an ice "
             "history (the ocean over depressed bedrock is added from the sea level)"
         )
+    check_time_reference(
+        scenario.where("output", "time_reference"), scenario.table("output")["time_reference"]
+    )
     names = [p["name"] for p in array_table(scenario, "points")]
     if len(set(names)) != len(names):
         raise InputError(f"{scenario.path}: [[points]] names must differ, got {names!r}")
@@ -234,6 +253,12 @@ def _ice_history(scenario: HistoryScenario, reference: str) -> xr.DataArray:
         check_grid_range(history.values, "ice_thickness", f"{where}: variable {ice['variable']!r}")
         return history
     g = scenario.table("grid")
+    nt, cells = len(ice["times"]), g["rows"] * g["columns"]  # Python ints: no overflow
+    check_memory(
+        8 * cells * (HISTORY_WORDS_PER_TIME * nt + 4),
+        f"an ice history of {nt} times on a grid of {g['rows']} x {g['columns']}",
+        advice="use fewer [grid] rows and columns (a coarser spacing) or fewer [ice] times",
+    )
     grid = empty_grid(g["rows"], g["columns"], g["spacing"])
     check_grid_range([ice["height"]], "ice_thickness", scenario.where("ice", "height"))
     disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
@@ -360,6 +385,9 @@ def run_history_scenario(
     sea = scenario.table("sea")
     crs = _output_crs(scenario, thickness, bed)
     times = np.asarray(thickness["time"].values, dtype=np.float64)
+    max_step = check_max_step(
+        scenario.where("solver", "max_step"), scenario.table("solver")["max_step"], times
+    )
     level: Any = sea["level"]
     if sea["file"] is not None:
         sea_series = read_series(sea["file"], sea["variable"], reference)
@@ -396,7 +424,7 @@ def run_history_scenario(
         edges=solver["edges"],
         pad_factor=solver["pad_factor"],
         width_factor=solver["pad_width_factor"],
-        max_step=solver["max_step"],
+        max_step=max_step,
         progress=progress,
     )
     result["ice_thickness"] = (

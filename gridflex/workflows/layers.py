@@ -25,6 +25,7 @@ from rasterio.crs import CRS
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.gis.geometry import (
     GridGeometry,
+    check_on_earth,
     from_lonlat,
     geometry_of,
     local_projection,
@@ -35,6 +36,7 @@ from gridflex.gis.geometry import (
 from gridflex.gis.resampling import aggregate_values, sample_values
 from gridflex.grid import GridSpec
 from gridflex.loads import load_from_elevation, regional_surface
+from gridflex.memory import check_memory
 from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import Scenario, present
 from gridflex.solvers.spectral import SpectralProblem
@@ -150,6 +152,17 @@ def synthetic_grid(table: Mapping[str, Any]) -> tuple[xr.DataArray, Points]:
         dy, dx = spacing / per_lat, spacing / per_lon
     transform = Affine(dx, 0.0, cx - 0.5 * columns * dx, 0.0, -dy, cy + 0.5 * rows * dy)
     geometry = GridGeometry(crs, transform, (rows, columns))
+    check_on_earth(
+        geometry,
+        "[grid]",
+        "use fewer rows or columns, a smaller spacing or a centre nearer the equator",
+    )
+    # the grid, the cell positions (x, y; lon, lat) and the shape generated on it
+    check_memory(
+        8 * rows * columns * SYNTHETIC_GRID_WORDS,
+        f"a synthetic [grid] of {rows} x {columns} cells",
+        advice="use fewer [grid] rows and columns (a coarser spacing)",
+    )
     grid = _as_dataarray(np.zeros((rows, columns)), geometry, "grid")
     if crs is None or crs.is_projected:
         xx, yy, _, _ = grid_points(grid)
@@ -235,6 +248,13 @@ def _onto_working(
         return aggregate_values(values, src, dst, "mean" if kind == "elevation" else "sum")
     return reproject_values(values, src, dst, method)
 
+
+SYNTHETIC_GRID_WORDS = 8
+"""float64 grids a synthetic ``[grid]`` layer holds while it is generated (the grid, cell
+positions in metres and degrees, the shape and its sub-sampling)."""
+WORKING_GRID_WORDS = 4
+"""float64 grids besides the layers a working grid needs before the solve (the load by
+part, the nodata mask, the load)."""
 
 SPACING_PER_FLEXURAL_PARAMETER = 16
 """Automatic working cells are the smallest flexural parameter / this (see
@@ -333,6 +353,12 @@ def build_working_layers(
                 SPACING_PER_FLEXURAL_PARAMETER,
             )
     target = _widened(working_geometry(first, crs, spacing), margin)
+    ny, nx = target.shape
+    check_memory(  # each layer, the load by part and the solve's own grids (checked there)
+        8 * ny * nx * (len(layers) + WORKING_GRID_WORDS),
+        f"a working grid of {ny} x {nx} cells of {min(target.cell_size_metres()):.4g} m",
+        advice=f"use a coarser [working_grid] spacing (the {rule} gave this grid)",
+    )
     resampled = not (
         margin == 0.0
         and same

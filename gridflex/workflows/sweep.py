@@ -14,7 +14,7 @@ from gridflex.progress import Progress
 from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import Scenario, present
 from gridflex.scenario.tables import SCHEMA
-from gridflex.sweeps.parameter_sweep import LoadLike, sweep
+from gridflex.sweeps.parameter_sweep import LoadLike, check_scheduler, sweep
 from gridflex.units import parse_quantity
 from gridflex.workflows.layers import working_load
 from gridflex.workflows.outcome import RunOutcome
@@ -76,6 +76,10 @@ def run_sweep(
     if scenario.tables.get("sweep") is None:
         raise InputError(f"{scenario.path}: 'gridflex sweep' needs a [sweep] table")
     parameters = sweep_parameters(scenario)
+    scheduler = check_scheduler(
+        scenario.where("sweep", "scheduler"),
+        present(scenario.table("sweep"), scenario.where("sweep"))["scheduler"],
+    )
     refuse_tables(scenario, ("infill", "gravity"), "sweeps use the plain solve")
     plan = OutputPlan(scenario, overwrite)
     plan.add({"file": scenario.table("output")["file"]})
@@ -97,7 +101,7 @@ def run_sweep(
             load,
             plate,
             parameters,
-            scheduler=present(scenario.table("sweep"), scenario.where("sweep"))["scheduler"],
+            scheduler=scheduler,
             edges=solver["edges"],
             pad_factor=solver["pad_factor"],
             inplane_force_x=solver["inplane_force_x"],

@@ -135,7 +135,9 @@ def test_all_nodata_is_refused_under_every_policy():
 
 
 def test_geographic_grid_is_known_by_its_crs(tmp_path):
-    path = _write_tiff(tmp_path / "geo.tif", _values(), crs="EPSG:4326", step=0.01, west=10.0)
+    path = _write_tiff(
+        tmp_path / "geo.tif", _values(), crs="EPSG:4326", step=0.01, west=10.0, north=50.0
+    )
     with pytest.raises(InputError, match=r"geo\.tif: variable .* longitude/latitude"):
         read_grid_input(path, None, WHERE, metric=True)
     assert read_grid_input(path, None, WHERE).shape == (NY, NX)  # allowed when resampled
