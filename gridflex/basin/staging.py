@@ -27,12 +27,13 @@ added to it). The infill solver carries the fill with the stage's mean bulk
 density and does not compact the column under it, so the stage is then settled:
 the remaining difference between the column the solver carried and the
 compacted column is solved again (new fill joining the stage) until it would
-move the plate by less than the tolerance (usually 1-3 passes). Limitations:
-the fill takes only space made by the deflection, not the space compaction of
-older stages opens; with ``edges="infinite"`` no fill is put on the outer ring
-of cells (the FFT padding copies it, and its state is not kept between stages);
-a stage with a te grid is solved with :func:`gridflex.solve` and water filling
-every depression (also above sea level), without sediment fill.
+move the plate by less than the tolerance (usually 1-3 passes). Every stage,
+whatever its te (a number, or a grid with margins and breaks, solved by finite
+differences), goes through the same infill solve: sediment up to the base level,
+water below sea level, air above. Limitations: the fill takes only space made by
+the deflection, not the space compaction of older stages opens; with
+``edges="infinite"`` no fill is put on the outer ring of cells (the padding of
+the solve copies it, and its state is not kept between stages).
 
 Flexural backstripping lives in :mod:`gridflex.basin.backstrip`.
 
@@ -62,7 +63,6 @@ from gridflex.basin.compaction import (
 )
 from gridflex.basin.compaction import lithology as as_lithology
 from gridflex.constants import SEA_WATER_DENSITY
-from gridflex.engine import solve
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import check_grid, grid_values
 from gridflex.infill import Infill, solve_with_infill
@@ -186,8 +186,8 @@ class StagedBasin:
         False: every stage keeps its deposited thickness and its surface bulk
         density rho_w phi_0 + rho_grain (1 - phi_0).
     tolerance, max_iterations, edges, pad_factor
-        Passed to :func:`gridflex.solve_with_infill` (and *edges*/*pad_factor* to
-        :func:`gridflex.solve` for a te grid).
+        Passed to :func:`gridflex.solve_with_infill` (a te grid, or *edges* "clamped"
+        or "free", is solved by finite differences).
     """
 
     def __init__(
@@ -279,37 +279,22 @@ class StagedBasin:
         load = self.grid.copy(data=increment)
         load.name = "load"
         surface = self.base - self.deflection + total_h
-        plate = self.plate.with_te(te)
         options = self.solve_options
-        if plate.is_variable:
-            if infill.sediment != "none":
-                raise InputError(
-                    "a stage with a te grid is solved with water infill only; "
-                    "remove its base_level (sediment infill needs a constant te)"
-                )
-            result = solve(
-                load,
-                dataclasses.replace(plate, infill_density=self.water_density),
-                edges=options.edges,
-                pad_factor=options.pad_factor,
-            )
-            w = np.asarray(result["deflection"].values)
-            fill = np.zeros_like(w)
-            iterations = 1
-        else:
-            result = solve_with_infill(
-                load,
-                plate,
-                self.grid.copy(data=surface),
-                infill,
-                edges=options.edges,
-                pad_factor=options.pad_factor,
-                tolerance=options.tolerance,
-                max_iterations=options.max_iterations,
-            )
-            w = np.asarray(result["deflection"].values)
-            fill = np.asarray(result["fill_sediment"].values)
-            iterations = int(result.attrs["iterations"])
+        # one engine for every plate: the FFT for a constant te, finite differences for a
+        # te grid (margins, breaks), both with the same column model
+        result = solve_with_infill(
+            load,
+            self.plate.with_te(te),
+            self.grid.copy(data=surface),
+            infill,
+            edges=options.edges,
+            pad_factor=options.pad_factor,
+            tolerance=options.tolerance,
+            max_iterations=options.max_iterations,
+        )
+        w = np.asarray(result["deflection"].values)
+        fill = np.asarray(result["fill_sediment"].values)
+        iterations = int(result.attrs["iterations"])
         return w, fill, iterations, total_m + fill_density * fill, total_h + fill
 
     def _record(
