@@ -88,7 +88,7 @@ ISOPACHS = ("deposited", "present")
 """Accepted values of ``stage_loading(isopachs=...)``."""
 
 _SETTLE_PASSES = 20
-_SNAPSHOT_GRIDS = 10  # grids kept per recorded stage (see _Snapshot)
+_SNAPSHOT_GRIDS = 11  # grids kept per recorded stage (see _Snapshot)
 
 
 @dataclass(frozen=True)
@@ -165,6 +165,7 @@ class _Snapshot:
     sediment_thickness: np.ndarray
     sediment_density: np.ndarray
     iterations: int
+    te: np.ndarray
 
 
 class StagedBasin:
@@ -298,7 +299,12 @@ class StagedBasin:
         return w, fill, iterations, total_m + fill_density * fill, total_h + fill
 
     def _record(
-        self, age: float, increment: np.ndarray, level: np.ndarray, iterations: int
+        self,
+        age: float,
+        increment: np.ndarray,
+        level: np.ndarray,
+        iterations: int,
+        te: TeLike,
     ) -> _Snapshot:
         check_memory(
             _SNAPSHOT_GRIDS * self.base.nbytes,
@@ -327,6 +333,7 @@ class StagedBasin:
             sediment_thickness=total_h,
             sediment_density=all_rho,
             iterations=iterations,
+            te=grid_values(te, self.grid, "stage te"),
         )
         self.history.append(snap)
         return snap
@@ -372,7 +379,7 @@ class StagedBasin:
             self.deflection, self.mass, self.thickness, self.current_sea_level = saved
             raise
         self.grains, self.stages = grains, stages
-        snap = self._record(float(stage.age), w, level, iterations)
+        snap = self._record(float(stage.age), w, level, iterations, te)
         snap.stage_fill = fill
         snap.stage_thickness = h + fill
         log.info(
@@ -452,7 +459,7 @@ class StagedBasin:
         level = np.full(self.base.shape, sea)
         if below is not None and below.base_level is not None:
             level = grid_values(below.base_level, self.grid, "stage base_level")
-        self._record(age, w, level, iterations)
+        self._record(age, w, level, iterations, te)
 
     def _fill_mask(self) -> xr.DataArray | None:
         """Where moat-fill sediment may go: not in the FFT padding (its state is not kept
@@ -504,8 +511,9 @@ class StagedBasin:
             "stage_density": ("kg m-3", "mean bulk density of the stage when deposited"),
             "sediment_thickness": ("m", "thickness of the whole sediment column"),
             "sediment_density": ("kg m-3", "mean bulk density of the sediment column"),
+            "elastic_thickness": ("m", "te the stage was loaded (or unloaded) with"),
         }
-        source = {"deflection_increment": "increment"}
+        source = {"deflection_increment": "increment", "elastic_thickness": "te"}
         data: dict[str, tuple[Any, ...]] = {
             name: (dims, stack(source.get(name, name)), {"units": units, "long_name": long})
             for name, (units, long) in fields.items()
@@ -579,7 +587,8 @@ def stage_loading(
         ``deflection_increment``, ``surface``, ``accommodation`` (m, level -
         surface), ``water_depth``, ``stage_thickness`` (as deposited, fill
         included), ``stage_fill``, ``stage_density`` (kg m^-3),
-        ``sediment_thickness``, ``sediment_density``; ``final_stage_thickness``
+        ``sediment_thickness``, ``sediment_density``, ``elastic_thickness`` (m, the te
+        each stage was solved with); ``final_stage_thickness``
         (present compacted thickness of each stage); ``age`` coordinate.
 
     Raises
