@@ -69,7 +69,6 @@ from gridflex.plate import Plate
 from gridflex.progress import Progress
 from gridflex.solvers.finite_difference import (
     DEFAULT_MAX_ITERATIONS,
-    DEFAULT_TOLERANCE,
     FiniteDifferenceSolver,
     roundoff_residual,
 )
@@ -415,9 +414,10 @@ def finite_difference_inner(
         max_iterations=max_iterations,
     )
     operator = solver.operator
-    # twice the round-off limit, below which the solver warns and may stall
+    # the tightest residual asked for: twice the round-off limit, below which the solver
+    # warns and may stall (1e-16 at least)
     floor = 2.0 * roundoff_residual(operator.rigidity, operator.stiffness, min(spec.dx, spec.dy))
-    return _FiniteDifferenceInner(solver, min(floor, DEFAULT_TOLERANCE))
+    return _FiniteDifferenceInner(solver, max(floor, 1e-16))
 
 
 def _extend(values: np.ndarray, shape: tuple[int, int], window: tuple[slice, slice]) -> np.ndarray:
