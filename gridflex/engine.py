@@ -278,11 +278,7 @@ def _solve_finite_difference(
             f"got inplane_force_x={force_x!r}, inplane_force_y={force_y!r}"
         )
     values = np.asarray(load.values, dtype=np.float64)
-    rigidity = plate.rigidity
-    if isinstance(rigidity, xr.DataArray):
-        rigidity_grid = np.asarray(rigidity.values, dtype=np.float64)
-    else:
-        rigidity_grid = np.full(spec.shape, float(rigidity))
+    rigidity_grid = plate.rigidity_grid(spec.shape)
     if edges == "infinite" and rigidity_grid.max() > 0:
         check_edge_load(values, float(np.abs(values).sum()))
     deflection, info = finite_difference_deflection(

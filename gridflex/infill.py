@@ -27,10 +27,19 @@ c = rho_f,max / 2 (optimal for that bound), and Anderson acceleration (Walker &
 Ni 2011, *SIAM J. Numer. Anal.* 49, 1715-1735, from memory) speeds it up.
 
 The inner solve is any object with the :class:`InnerSolver` interface: the FFT
-solver for a constant te (:func:`spectral_inner`), or later a variable-te
-finite-difference operator. The FFT working domain is the padded grid; the
-column model is applied in the padding too (surface, level and mask extended
-from the nearest edge, no load), so force balance holds on the whole domain.
+solver for a constant te (:func:`spectral_inner`), or the finite-difference
+solver for a te grid (:func:`finite_difference_inner`: margins, breaks, te = 0
+cells, and the edges "clamped" and "free"). The working domain is the padded FFT
+grid, or the finite-difference solve grid (the grid at its start, followed by a
+periodic margin); the column model is applied in the padding too (surface, level
+and mask continued from the nearest edge, no load), so force balance holds on
+the whole domain.
+
+The finite-difference operator is set up once per call and each fixed-point step
+is solved by conjugate gradients started from the current (mixed) iterate,
+only as accurately as the outer iteration needs at that point: to an rms error
+of a tenth of the last fixed-point update (the first steps are loose, the last
+ones tight), so that the whole infill costs a few plain solves.
 """
 
 from __future__ import annotations
@@ -38,19 +47,31 @@ from __future__ import annotations
 import logging
 import math
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Protocol
 
 import numpy as np
 import xarray as xr
 
 from gridflex.constants import SEA_WATER_DENSITY
-from gridflex.engine import SPECTRAL_EDGES, check_edge_load, check_inplane_force, result_dataset
+from gridflex.engine import (
+    EDGES,
+    METHODS,
+    SPECTRAL_EDGES,
+    check_edge_load,
+    check_inplane_force,
+    result_dataset,
+)
 from gridflex.errors import ConvergenceError, InputError
 from gridflex.grid import GridSpec, check_grid, check_same_grid, grid_values
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
 from gridflex.progress import Progress
+from gridflex.solvers.finite_difference import (
+    DEFAULT_MAX_ITERATIONS,
+    FiniteDifferenceSolver,
+    roundoff_residual,
+)
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 from gridflex.validation import check_choice, check_density, check_integer, check_number
 
@@ -59,6 +80,7 @@ __all__ = [
     "SEDIMENT_MODES",
     "Infill",
     "InnerSolver",
+    "finite_difference_inner",
     "solve_with_infill",
     "spectral_inner",
 ]
@@ -167,11 +189,16 @@ class InnerSolver(Protocol):
     Attributes
     ----------
     shape : tuple of int
-        Shape of the working domain (the padded FFT grid, or the grid itself).
+        Shape of the working domain (the padded FFT grid, or the finite-difference
+        solve grid).
     window : tuple of slice
         Where the output grid lies inside the working domain.
     stiffness : float
         k0 (Pa m^-1), the constant Winkler coefficient of the operator.
+    area : numpy.ndarray or None
+        Nodal area weights of the force balance on the working domain (None: all 1).
+    iterative : bool
+        True when :meth:`solve` is iterative: it then takes a start and an accuracy.
     """
 
     @property
@@ -183,8 +210,23 @@ class InnerSolver(Protocol):
     @property
     def stiffness(self) -> float: ...
 
-    def solve(self, rhs: np.ndarray) -> np.ndarray:
-        """w (m, positive down) on the working domain for *rhs* (Pa) on it."""
+    @property
+    def area(self) -> np.ndarray | None: ...
+
+    @property
+    def iterative(self) -> bool: ...
+
+    def solve(
+        self, rhs: np.ndarray, start: np.ndarray | None = None, accuracy: float | None = None
+    ) -> np.ndarray:
+        """w (m, positive down) on the working domain for *rhs* (Pa) on it.
+
+        An iterative solver starts from *start* (m, a nearby solution) and stops once
+        the rms error of w is below *accuracy* (m); a direct one ignores both."""
+        ...
+
+    def describe(self) -> dict[str, Any]:
+        """What the solver did, as output attributes."""
         ...
 
 
@@ -194,12 +236,19 @@ class _SpectralInner:
     shape: tuple[int, int]
     window: tuple[slice, slice]
     stiffness: float
+    area: np.ndarray | None = None
+    iterative: bool = False
 
-    def solve(self, rhs: np.ndarray) -> np.ndarray:
+    def solve(
+        self, rhs: np.ndarray, start: np.ndarray | None = None, accuracy: float | None = None
+    ) -> np.ndarray:
         # the per-solve balance is not used (the outer loop checks its own), so a dummy
         # magnitude saves a pass over the grid
         w, _ = self.problem.deflection(rhs, 1.0)
         return w
+
+    def describe(self) -> dict[str, Any]:
+        return {"inner_solver": "spectral"}
 
 
 def spectral_inner(
@@ -245,13 +294,147 @@ def spectral_inner(
     return _SpectralInner(problem, shape, window, stiffness)
 
 
+_LOOSEST_INNER = 0.1
+"""Loosest relative residual of an inexact inner finite-difference solve (the first steps:
+1e-2 took 10-15 % more iterations in all, 0.3 no fewer; tests/benchmarks/infill.py)."""
+
+
+@dataclass(eq=False)
+class _FiniteDifferenceInner:
+    """The finite-difference solver as an :class:`InnerSolver`, counting its work."""
+
+    solver: FiniteDifferenceSolver
+    floor: float
+    iterative: bool = True
+    iterations: int = 0
+    solves: int = 0
+    last: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return self.solver.shape
+
+    @property
+    def window(self) -> tuple[slice, slice]:
+        return self.solver.window
+
+    @property
+    def stiffness(self) -> float:
+        return float(self.solver.operator.stiffness)
+
+    @property
+    def area(self) -> np.ndarray:
+        return self.solver.operator.area
+
+    def tolerance(self, rhs: np.ndarray, accuracy: float | None) -> float:
+        """Relative residual that bounds the rms error of w by *accuracy* (m): the error
+        is K^-1 r and K >= k0, so rms(e) <= ||r|| / (k0 sqrt(N)); between the round-off
+        floor and :data:`_LOOSEST_INNER`."""
+        if accuracy is None:
+            return self.solver.tolerance
+        rms = math.sqrt(_dot(rhs.ravel(), rhs.ravel()) / rhs.size)
+        wanted = accuracy * self.stiffness / rms if rms > 0 else _LOOSEST_INNER
+        return float(min(max(wanted, self.floor), _LOOSEST_INNER))
+
+    def solve(
+        self, rhs: np.ndarray, start: np.ndarray | None = None, accuracy: float | None = None
+    ) -> np.ndarray:
+        tolerance = self.tolerance(self.area * rhs, accuracy)
+        w, info = self.solver.solve_full(rhs, start, tolerance=tolerance)
+        self.iterations += int(info["iterations"])
+        self.solves += 1
+        self.last = info
+        return w
+
+    def describe(self) -> dict[str, Any]:
+        info = self.last
+        out: dict[str, Any] = {
+            "inner_solver": "finite-difference",
+            "inner_iterations": self.iterations,
+            "inner_solves": self.solves,
+            "residual": float(info.get("residual", math.nan)),
+            "inner_tolerance": float(info.get("tolerance", math.nan)),
+            "setup_seconds": self.solver.setup_seconds,
+            "blend_levels": np.asarray(info.get("blend_levels", []), dtype=np.float64),
+            "band_nodes": int(info.get("band_nodes", 0)),
+            "band_width": self.solver.band_width,
+            "locally_compensated_load": float(info.get("locally_compensated_load", 0.0)),
+        }
+        # the error estimate of the CG stopping rule, when the solver gives one: numbers
+        # only (output attributes), a mapping flattened to accuracy_<key>
+        accuracy = info.get("accuracy")
+        items = accuracy.items() if isinstance(accuracy, dict) else [("", accuracy)]
+        for key, value in items:
+            if isinstance(value, int | float | np.number) and not isinstance(value, bool):
+                out["accuracy" + (f"_{key}" if key else "")] = float(value)
+        return out
+
+
+def finite_difference_inner(
+    spec: GridSpec,
+    rigidity: np.ndarray,
+    stiffness: float,
+    min_stiffness: float,
+    poisson_ratio: float,
+    *,
+    edges: str = "infinite",
+    pad_factor: float = DEFAULT_PAD_FACTOR,
+    max_iterations: int = DEFAULT_MAX_ITERATIONS,
+) -> InnerSolver:
+    """Finite-difference inner solver for a rigidity grid (set up once).
+
+    Parameters
+    ----------
+    spec : GridSpec
+        The output grid.
+    rigidity : numpy.ndarray, shape (ny, nx)
+        Nodal D (N m), >= 0; 0 marks broken cells.
+    stiffness : float
+        k0 = (rho_m - c) g of the inner operator (Pa m^-1).
+    min_stiffness : float
+        (rho_m - rho_f,max) g; its flexural parameter sizes the margin of
+        ``edges="infinite"``.
+    poisson_ratio : float
+        nu.
+    edges : {"infinite", "periodic", "clamped", "free"}, default "infinite"
+        As in :func:`gridflex.solve`.
+    pad_factor : float, default 4.5
+        Margin of ``"infinite"`` in flexural parameters.
+    max_iterations : int, default 300
+        Iteration limit of each inner solve.
+    """
+    solver = FiniteDifferenceSolver.build(
+        spec,
+        rigidity,
+        stiffness,
+        poisson_ratio,
+        edges,
+        pad_factor=pad_factor,
+        pad_stiffness=min_stiffness,
+        max_iterations=max_iterations,
+    )
+    operator = solver.operator
+    # the tightest residual asked for: twice the round-off limit, below which the solver
+    # warns and may stall (1e-16 at least)
+    floor = 2.0 * roundoff_residual(operator.rigidity, operator.stiffness, min(spec.dx, spec.dy))
+    return _FiniteDifferenceInner(solver, max(floor, 1e-16))
+
+
 def _extend(values: np.ndarray, shape: tuple[int, int], window: tuple[slice, slice]) -> np.ndarray:
-    """Put *values* into *window* of a *shape* array, continuing its edges outward."""
+    """Put *values* into *window* of a periodic *shape* array, continuing its edges
+    outward: the half of the padding after the last row (column) repeats it, the half
+    before the first row (column), wrapping round the periodic domain, repeats that
+    (the window may sit anywhere: centred in the FFT grid, at the start of the
+    finite-difference solve grid)."""
     if values.shape == shape:
         return values
-    wy, wx = window
-    pads = ((wy.start, shape[0] - wy.stop), (wx.start, shape[1] - wx.stop))
-    return np.pad(values, pads, mode="edge")
+    pads = []
+    for n, size in zip(values.shape, shape, strict=True):
+        extra = size - n
+        pads.append((extra // 2, extra - extra // 2))
+    out = np.pad(values, pads, mode="edge")
+    shift = (window[0].start - pads[0][0], window[1].start - pads[1][0])
+    return np.roll(out, shift, axis=(0, 1)) if any(shift) else out
 
 
 @dataclass
@@ -371,6 +554,11 @@ class _Anderson:
         return out
 
 
+_INNER_SHARE = 0.1
+"""An iterative inner solve is made accurate to this share of the last fixed-point
+update (rms, m), and of the tolerance at the end."""
+
+
 def _iterate(
     column: _Column,
     inner: InnerSolver,
@@ -380,7 +568,12 @@ def _iterate(
     acceleration: str,
     progress: Progress | None,
 ) -> tuple[np.ndarray, int, float]:
-    """Shifted fixed point (with optional Anderson mixing) to max|update| < tolerance."""
+    """Shifted fixed point (with optional Anderson mixing) to max|update| < tolerance.
+
+    An iterative inner solve starts from the current iterate and is made only as
+    accurate as the iteration needs: to :data:`_INNER_SHARE` of the last update (loose
+    at first); it stops once an update below the tolerance follows one below ten times
+    the tolerance (the image then holds an inner error below the tolerance)."""
     cg = shift * column.gravity
     w = np.zeros(inner.shape)
     mixer = _Anderson(_ANDERSON_DEPTH)
@@ -389,13 +582,16 @@ def _iterate(
     for iteration in range(1, max_iterations + 1):
         _, _, total = column.state(w)
         total -= cg * w
-        image = inner.solve(total)
+        accuracy = _INNER_SHARE * max(update, tolerance)
+        # start from the iterate: the mixed one is Anderson's guess of the fixed point, and
+        # took ~25 % fewer inner iterations than the previous image (measured, sediment fill)
+        image = inner.solve(total, start=w if iteration > 1 else None, accuracy=accuracy)
         residual = image - w
         update = float(np.abs(residual).max())
         if progress is not None:
             progress(iteration, max_iterations)
         log.debug("infill iteration %d: max update %.3g m", iteration, update)
-        if update < tolerance:
+        if update < tolerance and (not inner.iterative or accuracy <= tolerance):
             return image, iteration, update
         if acceleration == "none":
             w = image
@@ -418,6 +614,7 @@ def solve_with_infill(
     initial_surface: xr.DataArray | float | None = None,
     infill: Infill | None = None,
     *,
+    method: str = "auto",
     edges: str = "infinite",
     inplane_force_x: float = 0.0,
     inplane_force_y: float = 0.0,
@@ -443,17 +640,22 @@ def solve_with_infill(
         :func:`gridflex.load_from_layers` (its ``load`` and ``initial_surface``
         are used, and its load geometry is kept for :func:`gridflex.model_gravity`).
     plate : Plate
-        Constant te (spectral inner solve). ``plate.infill_density`` is not used:
-        the fill is decided per cell.
+        A constant te (spectral inner solve) or a te grid on the load grid
+        (finite-difference inner solve; 0 marks broken cells). ``plate.infill_density``
+        is not used: the fill is decided per cell.
     initial_surface : xarray.DataArray or float, optional
         Elevation of the top of the solid before flexure, load included (m,
         positive up). Required unless *load* is a Dataset.
     infill : Infill, optional
         The fill rule; water/air by default.
-    edges : {"infinite", "periodic"}, default "infinite"
-        As in :func:`gridflex.solve`.
+    method : {"auto", "spectral", "finite-difference"}, default "auto"
+        The inner solve: ``"auto"`` takes the FFT for a constant te and finite
+        differences (set up once, each step started from the current iterate) for a
+        te grid or the edges "clamped" and "free".
+    edges : {"infinite", "periodic", "clamped", "free"}, default "infinite"
+        As in :func:`gridflex.solve` (the last two by finite differences).
     inplane_force_x, inplane_force_y : float, default 0
-        In-plane forces (N m^-1, tension positive).
+        In-plane forces (N m^-1, tension positive); spectral inner solve only.
     pad_factor : float, default 4.5
         Padding per side in decay lengths of the weakest fill.
     tolerance : float, default 1e-4
@@ -467,8 +669,8 @@ def solve_with_infill(
     acceleration : {"anderson", "none"}, default "anderson"
         Anderson mixing of the last 5 steps, or the plain shifted iteration.
     inner : callable, optional
-        ``inner(stiffness, min_stiffness) -> InnerSolver``, to replace the FFT solve
-        (for example a variable-te finite-difference operator).
+        ``inner(stiffness, min_stiffness) -> InnerSolver``, to replace the inner solve
+        *method* picks.
     progress : callable, optional
         Called as ``progress(iteration, max_iterations)``.
 
@@ -485,14 +687,20 @@ def solve_with_infill(
         geometry of a Dataset *load*. Attributes: ``iterations``,
         ``fixed_point_update`` (m), ``tolerance``, ``shift_density``,
         ``acceleration``, ``force_balance_residual`` (relative, whole working
-        domain), ``infill_*`` parameters.
+        domain), ``inner_solver``, ``infill_*`` parameters; with finite differences
+        also ``inner_iterations`` (conjugate-gradient iterations of all steps),
+        ``inner_solves``, ``residual`` and ``inner_tolerance`` (relative residual
+        reached and asked for in the last step), ``setup_seconds``, ``blend_levels``,
+        ``band_nodes``, ``band_width`` and ``locally_compensated_load``.
 
     Raises
     ------
     InputError
-        Bad grids or parameters; a variable te without *inner*.
+        Bad grids or parameters; a te grid with ``method="spectral"``; in-plane
+        forces with finite differences; edges the inner solve cannot represent.
     ConvergenceError
-        If the tolerance is not reached in *max_iterations*.
+        If the tolerance is not reached in *max_iterations*, or an inner
+        finite-difference solve does not converge.
     """
     if not isinstance(plate, Plate):
         raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
@@ -501,12 +709,22 @@ def solve_with_infill(
         raise InputError(f"infill must be a gridflex.Infill, got {type(infill).__name__}")
     given = _unpack_load(load, initial_surface)
     options = _Options.checked(
-        edges, inplane_force_x, inplane_force_y, pad_factor, tolerance, max_iterations, acceleration
+        method,
+        edges,
+        inplane_force_x,
+        inplane_force_y,
+        pad_factor,
+        tolerance,
+        max_iterations,
+        acceleration,
     )
+    if plate.is_variable:
+        assert isinstance(plate.te, xr.DataArray)
+        check_same_grid(plate.te, given.load, "te grid")
     footprint, load_density = _buried_load(infill, given)
     rho_max = infill.max_density(load_density)
     c = _shift_density(rho_max, plate.mantle_density, shift)
-    solver, inner_name = _inner_solver(given.spec, plate, rho_max, c, options, inner)
+    solver = _inner_solver(given.spec, plate, rho_max, c, options, inner)
     values = np.asarray(given.load.values, dtype=np.float64)
     if options.edges == "infinite":
         check_edge_load(values, float(np.abs(values).sum()))
@@ -514,8 +732,11 @@ def solve_with_infill(
     w, iterations, update = _iterate(
         column, solver, c, options.tolerance, options.max_iterations, options.acceleration, progress
     )
+    described = solver.describe()
+    inner_name = described.get("inner_solver", type(solver).__name__)
     attrs: dict[str, Any] = {
         "solver": f"{inner_name} with self-consistent infill",
+        **described,
         **options.describe(solver.shape),
         "iterations": iterations,
         "fixed_point_update": update,
@@ -523,7 +744,7 @@ def solve_with_infill(
         "shift_density": float(c),
         "acceleration": options.acceleration,
     }
-    return _infill_result(given, plate, infill, column, w, solver.window, attrs)
+    return _infill_result(given, plate, infill, column, w, solver, attrs)
 
 
 @dataclass(frozen=True)
@@ -565,6 +786,7 @@ def _unpack_load(
 class _Options:
     """The checked solver options of :func:`solve_with_infill`."""
 
+    method: str
     edges: str
     force_x: float
     force_y: float
@@ -576,6 +798,7 @@ class _Options:
     @classmethod
     def checked(
         cls,
+        method: Any,
         edges: Any,
         force_x: Any,
         force_y: Any,
@@ -586,7 +809,8 @@ class _Options:
     ) -> _Options:
         """The options as given to :func:`solve_with_infill`, checked and converted."""
         return cls(
-            check_choice("edges", edges, SPECTRAL_EDGES),
+            check_choice("method", method, METHODS),
+            check_choice("edges", edges, EDGES),
             check_inplane_force("inplane_force_x", force_x),
             check_inplane_force("inplane_force_y", force_y),
             check_number("pad_factor", pad_factor, minimum=0.0),
@@ -646,19 +870,44 @@ def _inner_solver(
     shift: float,
     options: _Options,
     inner: Callable[[float, float], InnerSolver] | None,
-) -> tuple[InnerSolver, str]:
-    """The inner solver for the shift *shift* (kg/m^3), and its name for the attributes."""
+) -> InnerSolver:
+    """The inner solver for the shift *shift* (kg/m^3): *inner*'s, or the one
+    ``options.method`` picks for the plate."""
     stiffness = (plate.mantle_density - shift) * plate.gravity
     min_stiffness = (plate.mantle_density - rho_max) * plate.gravity
     if inner is not None:
-        solver = inner(stiffness, min_stiffness)
-        return solver, type(solver).__name__
+        return inner(stiffness, min_stiffness)
+    method = options.method
+    if method == "auto":
+        finite = plate.is_variable or options.edges not in SPECTRAL_EDGES
+        method = "finite-difference" if finite else "spectral"
+    if method == "finite-difference":
+        if options.force_x or options.force_y:
+            raise InputError(
+                "in-plane forces are not available with the finite-difference infill solve "
+                f"(a te grid, or method='finite-difference'); got inplane_force_x="
+                f"{options.force_x!r}, inplane_force_y={options.force_y!r}"
+            )
+        return finite_difference_inner(
+            spec,
+            plate.rigidity_grid(spec.shape),
+            stiffness,
+            min_stiffness,
+            plate.poisson_ratio,
+            edges=options.edges,
+            pad_factor=options.pad_factor,
+        )
     if plate.is_variable:
         raise InputError(
-            "solve_with_infill has no variable-te inner solver yet; give te as a number, "
-            "or pass inner= a finite-difference operator"
+            "method='spectral' needs a constant te; a te grid needs "
+            "method='finite-difference' or 'auto'"
         )
-    solver = spectral_inner(
+    if options.edges not in SPECTRAL_EDGES:
+        raise InputError(
+            f"edges={options.edges!r} needs method='finite-difference'; the spectral solver "
+            f"takes {', '.join(map(repr, SPECTRAL_EDGES))}"
+        )
+    return spectral_inner(
         spec,
         float(plate.rigidity),
         stiffness,
@@ -668,7 +917,6 @@ def _inner_solver(
         periodic=(options.edges == "periodic"),
         pad_factor=options.pad_factor,
     )
-    return solver, "spectral"
 
 
 def _working_column(
@@ -732,16 +980,20 @@ def _infill_result(
     infill: Infill,
     column: _Column,
     w: np.ndarray,
-    window: tuple[slice, slice],
+    solver: InnerSolver,
     attrs: dict[str, Any],
 ) -> xr.Dataset:
-    """Wrap the converged deflection *w* (working domain) and its fill in a Dataset."""
+    """Wrap the converged deflection *w* (working domain of *solver*) and its fill in a
+    Dataset; the force balance is weighted by the solver's nodal areas."""
     sediment, water, total = column.state(w)
     root = column.root(w)
     g = plate.gravity
-    magnitude = float(np.abs(total).sum())
+    window, area = solver.window, solver.area
+    weighted = total if area is None else area * total
+    magnitude = float(np.abs(weighted).sum())
+    support = float(w.sum()) if area is None else float((area * w).sum())
     balance = (
-        abs(plate.mantle_density * g * float(w.sum()) - float(total.sum())) / magnitude
+        abs(plate.mantle_density * g * support - float(weighted.sum())) / magnitude
         if magnitude
         else 0.0
     )

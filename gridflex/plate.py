@@ -176,6 +176,14 @@ class Plate:
         """Flexural rigidity D = E Te^3 / (12 (1 - nu^2)) (N m); a grid if te is one."""
         return rigidity_from_te(self.te, self.youngs_modulus, self.poisson_ratio)
 
+    def rigidity_grid(self, shape: tuple[int, int]) -> np.ndarray:
+        """D (N m) as a float64 array of *shape*: the te grid's, or the constant
+        repeated (a te grid must have *shape*; its grid is checked by the caller)."""
+        rigidity = self.rigidity
+        if isinstance(rigidity, xr.DataArray):
+            return np.asarray(rigidity.values, dtype=np.float64)
+        return np.full(shape, float(rigidity))
+
     @property
     def flexural_parameter(self) -> TeLike:
         """alpha = (4 D / ((rho_m - rho_infill) g))^(1/4) (m), for line loads."""

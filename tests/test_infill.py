@@ -249,8 +249,14 @@ def test_bad_input():
     with pytest.raises(InputError, match="less than mantle_density"):
         solve_with_infill(load, PLATE, surface, Infill(sediment="full", sediment_density=3400.0))
     te_grid = xr.full_like(load, 10e3)
-    with pytest.raises(InputError, match="variable-te"):
-        solve_with_infill(load, PLATE.with_te(te_grid), surface)
+    with pytest.raises(InputError, match="method='spectral' needs a constant te"):
+        solve_with_infill(load, PLATE.with_te(te_grid), surface, method="spectral")
+    with pytest.raises(InputError, match="in-plane forces are not available"):
+        solve_with_infill(load, PLATE.with_te(te_grid), surface, inplane_force_x=-1e12)
+    with pytest.raises(InputError, match="edges='clamped' needs method='finite-difference'"):
+        solve_with_infill(load, PLATE, surface, edges="clamped", method="spectral")
+    with pytest.raises(InputError, match="te grid"):
+        solve_with_infill(load, PLATE.with_te(te_grid.isel(x=slice(1, None))), surface)
 
 
 def test_sediment_mask_limits_where_sediment_collects():

@@ -27,12 +27,13 @@ added to it). The infill solver carries the fill with the stage's mean bulk
 density and does not compact the column under it, so the stage is then settled:
 the remaining difference between the column the solver carried and the
 compacted column is solved again (new fill joining the stage) until it would
-move the plate by less than the tolerance (usually 1-3 passes). Limitations:
-the fill takes only space made by the deflection, not the space compaction of
-older stages opens; with ``edges="infinite"`` no fill is put on the outer ring
-of cells (the FFT padding copies it, and its state is not kept between stages);
-a stage with a te grid is solved with :func:`gridflex.solve` and water filling
-every depression (also above sea level), without sediment fill.
+move the plate by less than the tolerance (usually 1-3 passes). Every stage,
+whatever its te (a number, or a grid with margins and breaks, solved by finite
+differences), goes through the same infill solve: sediment up to the base level,
+water below sea level, air above. Limitations: the fill takes only space made by
+the deflection, not the space compaction of older stages opens; with
+``edges="infinite"`` no fill is put on the outer ring of cells (the padding of
+the solve copies it, and its state is not kept between stages).
 
 Flexural backstripping lives in :mod:`gridflex.basin.backstrip`.
 
@@ -63,7 +64,6 @@ from gridflex.basin.compaction import (
 )
 from gridflex.basin.compaction import lithology as as_lithology
 from gridflex.constants import SEA_WATER_DENSITY
-from gridflex.engine import solve
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import check_grid, grid_values
 from gridflex.infill import Infill, solve_with_infill
@@ -89,7 +89,7 @@ ISOPACHS = ("deposited", "present")
 """Accepted values of ``stage_loading(isopachs=...)``."""
 
 _SETTLE_PASSES = 20
-_SNAPSHOT_GRIDS = 10  # grids kept per recorded stage (see _Snapshot)
+_SNAPSHOT_GRIDS = 11  # grids kept per recorded stage (see _Snapshot)
 
 
 @dataclass(frozen=True)
@@ -166,6 +166,7 @@ class _Snapshot:
     sediment_thickness: np.ndarray
     sediment_density: np.ndarray
     iterations: int
+    te: np.ndarray
 
 
 class StagedBasin:
@@ -187,8 +188,8 @@ class StagedBasin:
         False: every stage keeps its deposited thickness and its surface bulk
         density rho_w phi_0 + rho_grain (1 - phi_0).
     tolerance, max_iterations, edges, pad_factor
-        Passed to :func:`gridflex.solve_with_infill` (and *edges*/*pad_factor* to
-        :func:`gridflex.solve` for a te grid).
+        Passed to :func:`gridflex.solve_with_infill` (a te grid, or *edges* "clamped"
+        or "free", is solved by finite differences).
     """
 
     def __init__(
@@ -280,41 +281,31 @@ class StagedBasin:
         load = self.grid.copy(data=increment)
         load.name = "load"
         surface = self.base - self.deflection + total_h
-        plate = self.plate.with_te(te)
         options = self.solve_options
-        if plate.is_variable:
-            if infill.sediment != "none":
-                raise InputError(
-                    "a stage with a te grid is solved with water infill only; "
-                    "remove its base_level (sediment infill needs a constant te)"
-                )
-            result = solve(
-                load,
-                dataclasses.replace(plate, infill_density=self.water_density),
-                edges=options.edges,
-                pad_factor=options.pad_factor,
-            )
-            w = np.asarray(result["deflection"].values)
-            fill = np.zeros_like(w)
-            iterations = 1
-        else:
-            result = solve_with_infill(
-                load,
-                plate,
-                self.grid.copy(data=surface),
-                infill,
-                edges=options.edges,
-                pad_factor=options.pad_factor,
-                tolerance=options.tolerance,
-                max_iterations=options.max_iterations,
-            )
-            w = np.asarray(result["deflection"].values)
-            fill = np.asarray(result["fill_sediment"].values)
-            iterations = int(result.attrs["iterations"])
+        # one engine for every plate: the FFT for a constant te, finite differences for a
+        # te grid (margins, breaks), both with the same column model
+        result = solve_with_infill(
+            load,
+            self.plate.with_te(te),
+            self.grid.copy(data=surface),
+            infill,
+            edges=options.edges,
+            pad_factor=options.pad_factor,
+            tolerance=options.tolerance,
+            max_iterations=options.max_iterations,
+        )
+        w = np.asarray(result["deflection"].values)
+        fill = np.asarray(result["fill_sediment"].values)
+        iterations = int(result.attrs["iterations"])
         return w, fill, iterations, total_m + fill_density * fill, total_h + fill
 
     def _record(
-        self, age: float, increment: np.ndarray, level: np.ndarray, iterations: int
+        self,
+        age: float,
+        increment: np.ndarray,
+        level: np.ndarray,
+        iterations: int,
+        te: TeLike,
     ) -> _Snapshot:
         check_memory(
             _SNAPSHOT_GRIDS * self.base.nbytes,
@@ -343,6 +334,7 @@ class StagedBasin:
             sediment_thickness=total_h,
             sediment_density=all_rho,
             iterations=iterations,
+            te=grid_values(te, self.grid, "stage te"),
         )
         self.history.append(snap)
         return snap
@@ -391,7 +383,7 @@ class StagedBasin:
             self.deflection, self.mass, self.thickness, self.current_sea_level = saved
             raise
         self.grains, self.stages = grains, stages
-        snap = self._record(float(stage.age), w, level, iterations)
+        snap = self._record(float(stage.age), w, level, iterations, te)
         snap.stage_fill = fill
         snap.stage_thickness = h + fill
         log.info(
@@ -471,7 +463,7 @@ class StagedBasin:
         level = np.full(self.base.shape, sea)
         if below is not None and below.base_level is not None:
             level = grid_values(below.base_level, self.grid, "stage base_level")
-        self._record(age, w, level, iterations)
+        self._record(age, w, level, iterations, te)
 
     def _fill_mask(self) -> xr.DataArray | None:
         """Where moat-fill sediment may go: not in the FFT padding (its state is not kept
@@ -523,8 +515,9 @@ class StagedBasin:
             "stage_density": ("kg m-3", "mean bulk density of the stage when deposited"),
             "sediment_thickness": ("m", "thickness of the whole sediment column"),
             "sediment_density": ("kg m-3", "mean bulk density of the sediment column"),
+            "elastic_thickness": ("m", "te the stage was loaded (or unloaded) with"),
         }
-        source = {"deflection_increment": "increment"}
+        source = {"deflection_increment": "increment", "elastic_thickness": "te"}
         data: dict[str, tuple[Any, ...]] = {
             name: (dims, stack(source.get(name, name)), {"units": units, "long_name": long})
             for name, (units, long) in fields.items()
@@ -598,7 +591,8 @@ def stage_loading(
         ``deflection_increment``, ``surface``, ``accommodation`` (m, level -
         surface), ``water_depth``, ``stage_thickness`` (as deposited, fill
         included), ``stage_fill``, ``stage_density`` (kg m^-3),
-        ``sediment_thickness``, ``sediment_density``; ``final_stage_thickness``
+        ``sediment_thickness``, ``sediment_density``, ``elastic_thickness`` (m, the te
+        each stage was solved with); ``final_stage_thickness``
         (present compacted thickness of each stage); ``age`` coordinate.
 
     Raises

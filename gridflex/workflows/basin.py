@@ -6,6 +6,7 @@ import logging
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import xarray as xr
 
 from gridflex.basin.backstrip import backstrip, backstrip_layers
@@ -20,7 +21,7 @@ from gridflex.workflows.basin_tables import BasinScenario
 from gridflex.workflows.grid_input import read_grid_input
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan, stamp_result
-from gridflex.workflows.run import plate_from_scenario
+from gridflex.workflows.run import plate_from_scenario, with_breaks
 from gridflex.workflows.scenario_tables import array_table
 
 __all__ = ["format_basin_summary", "run_basin"]
@@ -57,20 +58,34 @@ def _lithology(row: dict[str, Any], where: str) -> Lithology:
         )
 
 
+def _stage_te(
+    scenario: BasinScenario, row: dict[str, Any], where: str, surface: xr.DataArray
+) -> float | xr.DataArray | None:
+    """The te of a stage (m): its ``elastic_thickness`` or ``te_file``, with the
+    ``[[breaks]]`` of the plate cut into it (breaks are the plate's structure, so they
+    hold in every stage); None when the stage has neither (the ``[plate]`` te)."""
+    te: float | xr.DataArray | None = row["elastic_thickness"]
+    if row["te_file"] is not None:
+        te = _grid(
+            row["te_file"],
+            row["te_variable"],
+            f"{where} te_file",
+            surface,
+            "elastic_thickness",
+        )
+    if te is None or not array_table(scenario, "breaks"):
+        return te
+    if not isinstance(te, xr.DataArray):
+        te = xr.full_like(surface, float(te), dtype=np.float64)
+    return with_breaks(scenario, te, surface)
+
+
 def _stages(scenario: BasinScenario, surface: xr.DataArray) -> list[Stage]:
     stages = []
     for i, row in enumerate(array_table(scenario, "stages")):
         where = scenario.where("stages", index=i)
         thickness = _grid(row["file"], row["variable"], where, surface, "thickness")
-        te: Any = row["elastic_thickness"]
-        if row["te_file"] is not None:
-            te = _grid(
-                row["te_file"],
-                row["te_variable"],
-                f"{where} te_file",
-                surface,
-                "elastic_thickness",
-            )
+        te = _stage_te(scenario, row, where, surface)
         with error_context(where):
             stages.append(
                 Stage(
@@ -98,11 +113,14 @@ def _run_stages(
         "elevation",
     )
     stages = _stages(scenario, surface)
+    # te from a number, a grid file, [margin] and [[breaks]], on the surface's grid, as
+    # gridflex run builds it (its messages name [plate], [margin] or [[breaks]])
+    plate = plate_from_scenario(scenario, surface)
     with error_context(scenario.where("basin")):
         result = stage_loading(
             stages,
             surface,
-            plate_from_scenario(scenario),
+            plate,
             sea_level=table["sea_level"],
             water_density=table["water_density"],
             compaction=table["compaction"],
@@ -143,11 +161,12 @@ def _run_backstrip_layers(scenario: BasinScenario) -> tuple[xr.Dataset, xr.DataA
         if row["age"] is not None:
             ages.append(float(row["age"]))
     assert reference is not None  # the schema requires at least one layer
+    plate = plate_from_scenario(scenario, reference)
     with error_context(scenario.where("backstrip")):
         result = backstrip_layers(
             layers,
             depths,
-            plate_from_scenario(scenario),
+            plate,
             sea_level_changes=levels,
             ages=ages or None,
             water_density=table["water_density"],
@@ -177,12 +196,14 @@ def _run_backstrip(scenario: BasinScenario) -> tuple[xr.Dataset, xr.DataArray]:
         )
         reference = grid if reference is None else reference
         grids[part] = grid
+    assert reference is not None  # backstrip() refuses a run without grids
+    plate = plate_from_scenario(scenario, reference)
     with error_context(scenario.where("backstrip")):
         result = backstrip(
             grids["basement"],
             grids["sediment"],
             grids["water"],
-            plate_from_scenario(scenario),
+            plate,
             lithology=table["lithology"],
             sediment_density=table["sediment_density"],
             sea_level_change=table["sea_level_change"],
@@ -191,7 +212,6 @@ def _run_backstrip(scenario: BasinScenario) -> tuple[xr.Dataset, xr.DataArray]:
             edges=solver["edges"],
             pad_factor=solver["pad_factor"],
         )
-    assert reference is not None  # backstrip() refuses a run without grids
     return result, reference
 
 

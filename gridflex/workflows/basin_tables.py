@@ -2,7 +2,9 @@
 
 A basin scenario has these tables (``[[...]]`` are arrays of tables)::
 
-    [plate]               elastic thickness, moduli, mantle density
+    [plate]               elastic thickness (a number or a grid file), moduli, mantle density
+    [margin]              optional: a te profile across a straight line instead
+    [[breaks]]            optional: lines or mask files where te = 0
     [solver]              edges and padding of the solves
     [basin]               staged loading: the surface before the first stage, sea level,
                           water density, compaction, infill tolerance
@@ -22,6 +24,7 @@ from gridflex.basin.compaction import LITHOLOGIES, check_grains_sink
 from gridflex.basin.staging import ISOPACHS
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.errors import InputError
+from gridflex.scenario.checks import check_plate_structure
 from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables, read_scenario
 from gridflex.scenario.tables import SCHEMA
 
@@ -63,6 +66,9 @@ __all__ = [
 BASIN_SCHEMA: dict[str, dict[str, Key]] = {
     # infill_density is not used: the fill is decided per cell (water, sediment, air)
     "plate": dict(SCHEMA["plate"]),
+    # te structure as in gridflex run (the same keys, read by the same functions)
+    "margin": dict(SCHEMA["margin"]),
+    "breaks": dict(SCHEMA["breaks"]),
     "solver": {key: SCHEMA["solver"][key] for key in ("edges", "pad_factor")},
     "basin": {
         "surface_file": Key(
@@ -162,7 +168,7 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
 }
 """Every table and key a basin scenario may contain."""
 
-BASIN_ARRAY_TABLES = frozenset({"stages", "backstrip_layers"})
+BASIN_ARRAY_TABLES = frozenset({"stages", "backstrip_layers", "breaks"})
 BASIN_REQUIRED_TABLES = ("plate", "output")
 _OPTIONAL = frozenset({"basin", "backstrip"})
 """Tables that switch a workflow on; absent, they are ``None``."""
@@ -197,6 +203,7 @@ def _check_grains(scenario: BasinScenario) -> None:
 
 
 def _check_basin(scenario: BasinScenario) -> None:
+    check_plate_structure(scenario)
     tables = scenario.tables
     _check_grains(scenario)
     if tables["basin"] is not None and tables["backstrip"] is not None:

@@ -49,6 +49,7 @@ __all__ = [
     "output_dataset",
     "plate_from_scenario",
     "run_scenario",
+    "with_breaks",
 ]
 
 log = logging.getLogger(__name__)
@@ -89,8 +90,25 @@ def elastic_thickness_from_scenario(
     if like is None:
         raise InputError(f"{scenario.where('plate')}: a Te grid needs the load grid")
     working = None if grid is None else grid.working
-    te = _te_grid(scenario, like, working)
-    for index, item in enumerate(breaks):
+    return with_breaks(scenario, _te_grid(scenario, like, working), like, working)
+
+
+def with_breaks(
+    scenario: Scenario,
+    te: xr.DataArray,
+    like: xr.DataArray,
+    working: GridGeometry | None = None,
+) -> xr.DataArray:
+    """*te* (m, a grid on *like*'s grid) with Te = 0 on the cells of every ``[[breaks]]``
+    entry (a line in *like*'s projected coordinates, or a mask file put on its grid;
+    *like* and *working* as in :func:`elastic_thickness_from_scenario`).
+
+    Raises
+    ------
+    InputError
+        A bad line or mask; the message names the ``[[breaks]]`` entry.
+    """
+    for index, item in enumerate(array_table(scenario, "breaks")):
         where = scenario.where("breaks", index=index)
         if item["file"] is not None:
             mask = read_grid_input(

@@ -117,19 +117,16 @@ def infill_from_scenario(scenario: Scenario) -> Infill:
 def infill_step(
     scenario: Scenario, plate: Plate, column: xr.Dataset, progress: Progress | None = None
 ) -> xr.Dataset:
-    """Solve the column with the self-consistent infill of the scenario."""
+    """Solve the column with the self-consistent infill of the scenario, for any plate
+    (a te grid from a file, ``[margin]`` or ``[[breaks]]`` runs by finite differences)."""
     table = present(scenario.table("infill"), scenario.where("infill"))
     solver = scenario.table("solver")
-    if solver["method"] == "finite-difference" or plate.is_variable:
-        raise InputError(
-            f"{scenario.where('infill')}: the self-consistent infill runs with "
-            "the spectral solver (a constant elastic_thickness) in this version"
-        )
     log.info("solving %s column with self-consistent infill", column["load"].shape)
     return solve_with_infill(
         column,
         plate,
         infill=infill_from_scenario(scenario),
+        method=solver["method"],
         edges=solver["edges"],
         inplane_force_x=solver["inplane_force_x"],
         inplane_force_y=solver["inplane_force_y"],

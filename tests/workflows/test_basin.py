@@ -294,3 +294,94 @@ def test_basin_refuses_a_negative_isopach_naming_file_and_variable(stage_files, 
     err = capsys.readouterr().err
     # a thickness is never negative (common practice)
     assert "neg.nc: variable 'thickness':" in err and "below 0, down to -10" in err
+
+
+MARGIN_BASIN = """
+[plate]
+youngs_modulus = "70 GPa"
+{te}
+
+[basin]
+surface_file = "surface.nc"
+surface_variable = "elevation"
+
+[[stages]]
+file = "s1.nc"
+variable = "thickness"
+age = 3.0e6
+
+[[stages]]
+file = "s2.nc"
+variable = "thickness"
+age = 1.0e6
+lithology = "sandstone"
+base_level = "20 m"
+{stage_te}
+
+[output]
+file = "margin_out.nc"
+"""
+
+MARGIN_TABLES = """
+[margin]
+te_left = "15 km"
+te_right = "4 km"
+line = [[120000.0, -1.0], [120000.0, 300000.0]]
+width = "30 km"
+
+[[breaks]]
+line = [[40000.0, 20000.0], [40000.0, 170000.0]]
+"""
+
+
+@pytest.mark.parametrize("stage_te", ["", 'elastic_thickness = "10 km"'])
+def test_basin_with_a_margin_and_a_break(stage_files, stage_te):
+    # [margin] and [[breaks]] make the te grid as in gridflex run (one builder), for the
+    # plate and, with the breaks cut in, for a stage's own te; the command must give the
+    # library call on the same grids (common practice). The shelf crosses sea level and
+    # the second stage fills its moat with sediment to 20 m above it.
+    from gridflex.te_maps import break_mask, margin_te
+
+    folder, shelf = stage_files
+    path = folder / "margin.toml"
+    path.write_text(MARGIN_BASIN.format(te=MARGIN_TABLES, stage_te=stage_te))
+    assert main(["basin", "-q", str(path)]) == 0
+    with xr.open_dataset(folder / "margin_out.nc") as ds:
+        out = ds.load()
+    hinge = break_mask(shelf, [[[40e3, 20e3], [40e3, 170e3]]])
+    te = margin_te(shelf, 15e3, 4e3, [[120e3, -1.0], [120e3, 300e3]], 30e3).where(~hinge, 0.0)
+    second_te = te if not stage_te else _grid(np.full((N, N), 10e3)).where(~hinge, 0.0)
+    stages = [
+        Stage(_lens(500.0, 25e3), 3.0e6, "shale"),
+        Stage(_lens(300.0, 18e3), 1.0e6, "sandstone", base_level=20.0, te=second_te),
+    ]
+    expected = stage_loading(stages, shelf, Plate(te=te, youngs_modulus=70e9))
+    for name in ("deflection", "stage_fill", "water_depth"):
+        assert_allclose(out[name].values, expected[name].values, atol=1e-9)
+    assert_allclose(out["elastic_thickness"].values, [te.values, second_te.values])
+    assert float(out["stage_fill"][1].max()) > 0.0
+    assert out.attrs["plate_te_min"] == 0.0
+
+
+def test_basin_te_file_and_its_errors_name_the_plate_table(stage_files, capsys):
+    # [plate] elastic_thickness_file is read onto the surface's grid (as in gridflex run);
+    # a bad one is reported against [plate], not [basin]; a bad [margin] against [margin]
+    folder, shelf = stage_files
+    _write(folder / "te.nc", "te", _grid(np.full((N, N), 9e3)))
+    te_file = 'elastic_thickness_file = "te.nc"\nelastic_thickness_variable = "te"'
+    path = folder / "te_file.toml"
+    path.write_text(MARGIN_BASIN.format(te=te_file, stage_te=""))
+    assert main(["basin", "-q", str(path)]) == 0
+    with xr.open_dataset(folder / "margin_out.nc") as ds:
+        assert_allclose(ds["elastic_thickness"].values, 9e3)
+        assert ds.attrs["plate_te"] == "grid"
+    path.write_text(MARGIN_BASIN.format(te=te_file.replace('"te"', '"nope"'), stage_te=""))
+    assert main(["basin", "-q", "--overwrite", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert "[plate] elastic_thickness_file" in err and "[basin]" not in err
+    path.write_text(
+        MARGIN_BASIN.format(te=MARGIN_TABLES.replace("[[120000.0, -1.0], ", "["), stage_te="")
+    )
+    assert main(["basin", "-q", "--overwrite", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert "[margin]" in err and "[basin]" not in err

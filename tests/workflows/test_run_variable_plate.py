@@ -128,3 +128,75 @@ def test_bad_break_line_names_the_table(tmp_path):
     text = '[plate]\nelastic_thickness = "10 km"\n[[breaks]]\nline = [[0.0, 1.0]]\n' + BASE
     with pytest.raises(InputError, match=r"\[\[breaks\]\] #1: break line 1 must be a list"):
         run_scenario(load_scenario(_write(tmp_path, text)))
+
+
+INFILL_MARGIN = """
+[plate]
+youngs_modulus = "70 GPa"
+
+[margin]
+te_left = "25 km"
+te_right = "6 km"
+line = [[30000.0, -200000.0], [30000.0, 200000.0]]
+width = "30 km"
+
+[[breaks]]
+file = "hinge.nc"
+variable = "mask"
+
+[[loads]]
+name = "island"
+kind = "elevation"
+file = "bathymetry.nc"
+variable = "elevation"
+density = 2800
+regional_elevation = "-4 km"
+
+[infill]
+sediment = "to_level"
+sediment_level = "-3.8 km"
+
+[output]
+file = "out.nc"
+"""
+
+
+def test_infill_with_a_margin_and_a_break_through_the_command(tmp_path, capsys):
+    # [infill] with a te grid ([margin] and a [[breaks]] mask file) runs by finite
+    # differences and must give what the library gives for the same inputs (common
+    # practice: the scenario layer only wires the calls); the fill keeps the force balance
+    # of the whole solve grid (PHYSICS.md 3.1: bending carries no net force).
+    from gridflex import Infill, Plate, load_from_elevation, solve_with_infill
+    from gridflex.cli.main import main
+    from gridflex.te_maps import margin_te
+    from tests.helpers import make_grid
+
+    grid = make_grid(56, 64, 4e3)
+    r2 = (grid.y**2 + grid.x**2).values
+    elevation = grid.copy(data=-4000.0 + 3800.0 * np.exp(-r2 / (2 * 12e3**2)))
+    xr.Dataset({"elevation": elevation.assign_attrs(units="m")}).to_netcdf(
+        tmp_path / "bathymetry.nc"
+    )
+    x, y = np.meshgrid(grid.x.values, grid.y.values)
+    hinge = (np.abs(x + 60e3) < 1e3) & (np.abs(y) < 80e3)  # one column of cells
+    xr.Dataset({"mask": grid.copy(data=hinge.astype(np.int8))}).to_netcdf(tmp_path / "hinge.nc")
+    path = _write(tmp_path, INFILL_MARGIN)
+    assert main(["run", str(path)]) == 0
+    assert "wrote" in capsys.readouterr().out
+    with xr.open_dataset(tmp_path / "out.nc") as ds:
+        out = ds.load()
+    assert out.attrs["solver"] == "finite-difference with self-consistent infill"
+    assert out.attrs["inner_iterations"] >= out.attrs["iterations"] >= 2
+    assert out.attrs["force_balance_residual"] < 1e-6
+    assert out.attrs["plate_te_min"] == 0.0
+    te = margin_te(elevation, 25e3, 6e3, [[30e3, -200e3], [30e3, 200e3]], 30e3)
+    te = te.where(~hinge, 0.0)
+    expected = solve_with_infill(
+        load_from_elevation(elevation, 2800.0, -4000.0),
+        Plate(te=te, youngs_modulus=70e9),
+        infill=Infill(sediment="to_level", sediment_level=-3800.0),
+    )
+    peak = float(expected["deflection"].max())
+    assert_allclose(out["deflection"].values, expected["deflection"].values, atol=1e-6 * peak)
+    assert float(out["fill_sediment"].max()) > 10.0
+    assert_allclose(out["fill_sediment"].values, expected["fill_sediment"].values, atol=1e-4)
