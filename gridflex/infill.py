@@ -70,7 +70,6 @@ from gridflex.progress import Progress
 from gridflex.solvers.finite_difference import (
     DEFAULT_MAX_ITERATIONS,
     FiniteDifferenceSolver,
-    roundoff_residual,
 )
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 from gridflex.validation import check_choice, check_density, check_integer, check_number
@@ -295,8 +294,12 @@ def spectral_inner(
 
 
 _LOOSEST_INNER = 0.1
-"""Loosest relative residual of an inexact inner finite-difference solve (the first steps:
-1e-2 took 10-15 % more iterations in all, 0.3 no fewer; tests/benchmarks/infill.py)."""
+"""Loosest tolerance of an inexact inner finite-difference solve (the first steps: 1e-2
+took 10-15 % more iterations in all, 0.3 no fewer; tests/benchmarks/infill.py, measured
+with the earlier relative-residual rule)."""
+
+_TIGHTEST_INNER = 1e-12
+"""Tightest tolerance asked of an inner finite-difference solve."""
 
 
 @dataclass(eq=False)
@@ -305,6 +308,7 @@ class _FiniteDifferenceInner:
 
     solver: FiniteDifferenceSolver
     floor: float
+    area_min: float
     iterative: bool = True
     iterations: int = 0
     solves: int = 0
@@ -327,13 +331,16 @@ class _FiniteDifferenceInner:
         return self.solver.operator.area
 
     def tolerance(self, rhs: np.ndarray, accuracy: float | None) -> float:
-        """Relative residual that bounds the rms error of w by *accuracy* (m): the error
-        is K^-1 r and K >= k0, so rms(e) <= ||r|| / (k0 sqrt(N)); between the round-off
-        floor and :data:`_LOOSEST_INNER`."""
+        """Solver tolerance (relative energy-norm error of w, the finite-difference
+        stopping rule) that bounds the rms error of w by *accuracy* (m): with
+        K >= k0 a_min (a the nodal area weights), ||e||_2² <= ||e||_K² / (k0 a_min) and
+        ||w||_K² = w·b <= ||b||² / (k0 a_min), so rms(e) <= tol rms(b) / (k0 a_min);
+        between :attr:`floor` and :data:`_LOOSEST_INNER`."""
         if accuracy is None:
             return self.solver.tolerance
         rms = math.sqrt(_dot(rhs.ravel(), rhs.ravel()) / rhs.size)
-        wanted = accuracy * self.stiffness / rms if rms > 0 else _LOOSEST_INNER
+        scale = self.stiffness * self.area_min
+        wanted = accuracy * scale / rms if rms > 0 else _LOOSEST_INNER
         return float(min(max(wanted, self.floor), _LOOSEST_INNER))
 
     def solve(
@@ -413,11 +420,9 @@ def finite_difference_inner(
         pad_stiffness=min_stiffness,
         max_iterations=max_iterations,
     )
-    operator = solver.operator
-    # the tightest residual asked for: twice the round-off limit, below which the solver
-    # warns and may stall (1e-16 at least)
-    floor = 2.0 * roundoff_residual(operator.rigidity, operator.stiffness, min(spec.dx, spec.dy))
-    return _FiniteDifferenceInner(solver, max(floor, 1e-16))
+    # the tightest accuracy asked for: the solver stops at its round-off limit anyway
+    # (at_round_off) when this cannot be reached
+    return _FiniteDifferenceInner(solver, _TIGHTEST_INNER, float(solver.operator.area.min()))
 
 
 def _extend(values: np.ndarray, shape: tuple[int, int], window: tuple[slice, slice]) -> np.ndarray:
