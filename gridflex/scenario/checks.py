@@ -7,14 +7,15 @@ which others. Every message names the file, the table and the key.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from gridflex.errors import InputError
 
 if TYPE_CHECKING:
+    from gridflex.scenario.schema import Scenario
     from gridflex.scenario.tables import FlexureScenario
 
-__all__ = ["check_scenario"]
+__all__ = ["check_plate_structure", "check_scenario"]
 
 
 def check_scenario(scenario: FlexureScenario) -> None:
@@ -27,12 +28,13 @@ def check_scenario(scenario: FlexureScenario) -> None:
     """
     _check_loads(scenario)
     _check_profile(scenario)
-    _check_structure(scenario)
+    check_plate_structure(scenario)
     _check_infill_and_gravity(scenario)
 
 
-def _check_structure(scenario: FlexureScenario) -> None:
-    """One source of Te; every break is a line or a mask file."""
+def check_plate_structure(scenario: Scenario[Any]) -> None:
+    """One source of Te; every break is a line or a mask file (any scenario with the
+    ``[plate]``, ``[margin]`` and ``[[breaks]]`` tables of ``gridflex run``)."""
     plate = scenario.tables["plate"]
     sources = [
         name

@@ -266,8 +266,8 @@ def test_bad_inputs_are_rejected_with_clear_messages():
     dated = history.assign_coords(time=np.arange(7).astype("datetime64[s]"))
     with pytest.raises(InputError, match="numbers of years"):
         viscous_response(dated, plate)
-    grid_te = empty_grid(40, 36, 30e3) + 20e3
-    with pytest.raises(InputError, match="constant te"):
+    grid_te = empty_grid(36, 40, 30e3) + 20e3  # a te grid on another grid
+    with pytest.raises(InputError, match="te grid"):
         viscous_response(history, Plate(te=grid_te, infill_density=0.0))
     stepper = ResponseStepper(history.isel(time=0, drop=True), plate)
     with pytest.raises(InputError, match=r"dt must be a finite number > 0 \(years\)"):
