@@ -127,34 +127,24 @@ def _time_engine(
     """The exact per-wavenumber update for a constant te; the finite-difference one
     (:mod:`gridflex.solvers.variable_relaxation`) for a te grid on *grid*'s grid.
     *relaxation_time* in seconds."""
+    settings: dict[str, Any] = {
+        "interpolation": interpolation,
+        "periodic": periodic,
+        "pad_factor": pad_factor,
+        "width_factor": width_factor,
+    }
+    stiffness = plate.restoring_stiffness
     if not plate.is_variable:
+        rigidity = float(plate.rigidity)
         return SpectralRelaxation.build(
-            spec,
-            float(plate.rigidity),
-            plate.restoring_stiffness,
-            model,
-            viscosity,
-            relaxation_time,
-            interpolation=interpolation,
-            periodic=periodic,
-            pad_factor=pad_factor,
-            width_factor=width_factor,
+            spec, rigidity, stiffness, model, viscosity, relaxation_time, **settings
         )
-    rigidity = plate.rigidity
-    assert isinstance(plate.te, xr.DataArray) and isinstance(rigidity, xr.DataArray)
+    grid_rigidity = plate.rigidity
+    assert isinstance(plate.te, xr.DataArray) and isinstance(grid_rigidity, xr.DataArray)
     check_same_grid(plate.te, grid, "te grid")
+    values = np.asarray(grid_rigidity.values, dtype=np.float64)
     return VariableRelaxation.build(
-        spec,
-        np.asarray(rigidity.values, dtype=np.float64),
-        plate.restoring_stiffness,
-        plate.poisson_ratio,
-        model,
-        viscosity,
-        relaxation_time,
-        interpolation=interpolation,
-        periodic=periodic,
-        pad_factor=pad_factor,
-        width_factor=width_factor,
+        spec, values, stiffness, plate.poisson_ratio, model, viscosity, relaxation_time, **settings
     )
 
 

@@ -64,11 +64,9 @@ from gridflex.solvers.finite_difference import DEFAULT_MAX_ITERATIONS, FiniteDif
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.solvers.viscous import (
     DEFAULT_WIDTH_FACTOR,
-    INTERPOLATIONS,
-    MODELS,
+    check_relaxation_settings,
     relaxation_pad_distance,
 )
-from gridflex.validation import check_choice, check_number
 
 __all__ = ["PLATE_CUT", "SDIRK_GAMMA", "SUBSTEP_FRACTION", "TOLERANCE", "VariableRelaxation"]
 
@@ -212,18 +210,11 @@ class VariableRelaxation:
         InputError
             Bad parameter or rigidity grid, or not enough memory.
         """
-        check_choice("model", model, MODELS)
-        check_choice("interpolation", interpolation, INTERPOLATIONS)
+        check_relaxation_settings(
+            model, interpolation, stiffness, viscosity, relaxation_time, pad_factor, width_factor
+        )
         if tolerance is None:
             tolerance = TOLERANCE[model]
-        for name, value, unit in (
-            ("stiffness", stiffness, "Pa/m"),
-            ("viscosity", viscosity, "Pa s"),
-            ("relaxation_time", relaxation_time, "s"),
-        ):
-            check_number(name, value, unit=unit, minimum=0.0, strict=True)
-        for name, value in (("pad_factor", pad_factor), ("width_factor", width_factor)):
-            check_number(name, value, minimum=0.0)
         grid = np.asarray(rigidity, dtype=np.float64)
         if grid.shape != spec.shape:
             raise InputError(f"rigidity grid has shape {grid.shape}, the grid {spec.shape}")
