@@ -267,7 +267,8 @@ class ResponseStepper:
     # -- helpers ------------------------------------------------------------------
     @property
     def padded_shape(self) -> tuple[int, int]:
-        """FFT grid ``(ny, nx)`` after padding."""
+        """FFT grid ``(ny, nx)`` after padding (for a te grid: the finite-difference
+        solve grid, the grid in its margin)."""
         return self._engine.shape
 
     def _values(self, load: xr.DataArray | np.ndarray, label: str) -> np.ndarray:

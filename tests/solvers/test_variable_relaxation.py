@@ -92,3 +92,21 @@ def test_minimum_margin_widens_the_solve_grid_only_when_asked():
     wide = FiniteDifferenceSolver.build(spec, rigidity, STIFFNESS, 0.25, min_margin=240e3)
     assert wide.shape == padded_shape(spec, 240e3)
     assert wide.shape[0] > plain.shape[0]
+
+
+def test_steps_differing_by_round_off_share_one_set_up():
+    # Times converted from dates give steps like 100 yr +- 1e-9: one solver set-up, and the
+    # result of exactly equal steps to the solve tolerance (1e-6; common practice).
+    spec, load, _, _ = _mode(n=16)
+    engines = []
+    for jitter in (0.0, 1e-9):
+        engine = VariableRelaxation.build(
+            spec, np.full(spec.shape, D), STIFFNESS, 0.25, "half-space", ETA, 1.0, periodic=True
+        )
+        engine.set_load(load)
+        for n in range(4):
+            engine.step(100.0 * YEAR * (1.0 + jitter * (-1) ** n), load)
+        engines.append(engine)
+    assert len(engines[1]._step_solvers) == 1
+    peak = np.abs(engines[0].deflection()).max()
+    assert_allclose(engines[1].deflection(), engines[0].deflection(), rtol=0, atol=1e-6 * peak)
