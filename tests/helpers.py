@@ -206,3 +206,20 @@ file = "{name}.nc"
     assert main(["run", str(folder / f"{name}.toml"), "-q"]) == 0
     with xr.open_dataset(folder / f"{name}.nc") as ds:
         return ds.load()
+
+
+def assert_stepper_matches_batch(stepper, history, batch, interpolation: str) -> None:
+    """Feed *stepper* (a ResponseStepper at the history's first load) the loads of
+    *history* as viscous_response does and check it gives *batch*'s deflection and uplift
+    rate at every time to 1e-12 of their peaks."""
+    from numpy.testing import assert_allclose
+
+    times = history.time.values
+    for n in range(1, times.size):
+        load = history.values[n] if interpolation == "linear" else history.values[n - 1]
+        w = stepper.advance(times[n] - times[n - 1], load)
+        scale = np.abs(batch.deflection.values[n]).max()
+        assert_allclose(w.values, batch.deflection.values[n], rtol=0, atol=1e-12 * scale)
+        rate = stepper.uplift_rate(history.values[n])
+        rate_scale = np.abs(batch.uplift_rate.values[n]).max()
+        assert_allclose(rate.values, batch.uplift_rate.values[n], rtol=0, atol=1e-12 * rate_scale)

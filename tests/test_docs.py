@@ -23,8 +23,9 @@ REPO = REPO_ROOT
     [
         (SCHEMA, "", ()),
         (BASIN_SCHEMA, "", ()),
-        # plate and grid of a history scenario are documented with the elastic scenario
-        (HISTORY_SCHEMA, "## Ice loads through time", ("plate", "grid")),
+        # plate, margin, breaks and grid of a history scenario are documented with the
+        # elastic scenario
+        (HISTORY_SCHEMA, "## Ice loads through time", ("plate", "margin", "breaks", "grid")),
     ],
     ids=["run", "basin", "history"],
 )

@@ -282,8 +282,9 @@ def ice_response(
         Bed elevation in the reference state (m, positive up), dims ``("y", "x")`` on
         the same grid.
     plate : Plate
-        Constant te and ``infill_density=0``: the ocean water over depressed bedrock is
-        added here explicitly.
+        A constant te or a te grid on the ice grid (see :class:`gridflex.ResponseStepper`),
+        and ``infill_density=0``: the ocean water over depressed bedrock is added here
+        explicitly.
     sea_level : float or xarray.DataArray, default 0
         Sea-level elevation (m): one number, one value per time, or a series with its
         own ``time`` coordinate, interpolated linearly onto the ice times

@@ -1,9 +1,13 @@
 """Plate deflection through time under a changing load.
 
 :func:`viscous_response` runs a whole load history; :class:`ResponseStepper` does the
-same one step at a time for coupling to an ice-sheet model. Both use the exact
-per-wavenumber update of :mod:`gridflex.solvers.viscous`, so a stepper fed the
-history's loads gives the batch result to round-off.
+same one step at a time for coupling to an ice-sheet model. For a constant te both use
+the exact per-wavenumber update of :mod:`gridflex.solvers.viscous`; for a te grid (a
+file, a margin, breaks) the finite-difference update of
+:mod:`gridflex.solvers.variable_relaxation` (the relaxing model: the same exact update
+about the finite-difference equilibrium; the half-space: an L-stable second-order
+implicit step, sub-stepped as that module says). Either way a stepper fed the history's
+loads gives the batch result to round-off.
 
 Times at this interface are in years (1 yr = 3.15576e7 s, the Julian year).
 
@@ -37,6 +41,7 @@ from gridflex.memory import check_memory
 from gridflex.plate import Plate
 from gridflex.progress import Progress
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
+from gridflex.solvers.variable_relaxation import VariableRelaxation
 from gridflex.solvers.viscous import (
     DEFAULT_WIDTH_FACTOR,
     INTERPOLATIONS,
@@ -101,15 +106,46 @@ def check_times(times: Any, label: str) -> np.ndarray:
     return values
 
 
-def _constant_rigidity(plate: Plate) -> float:
+def _check_plate(plate: Any) -> Plate:
     if not isinstance(plate, Plate):
         raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
-    if plate.is_variable:
-        raise InputError(
-            "the time-dependent response needs a constant te (a number); "
-            "a te grid is not supported here"
+    return plate
+
+
+def _time_engine(
+    spec: GridSpec,
+    grid: xr.DataArray,
+    plate: Plate,
+    model: str,
+    viscosity: float,
+    relaxation_time: float,
+    interpolation: str,
+    periodic: bool,
+    pad_factor: float,
+    width_factor: float,
+) -> SpectralRelaxation | VariableRelaxation:
+    """The exact per-wavenumber update for a constant te; the finite-difference one
+    (:mod:`gridflex.solvers.variable_relaxation`) for a te grid on *grid*'s grid.
+    *relaxation_time* in seconds."""
+    settings: dict[str, Any] = {
+        "interpolation": interpolation,
+        "periodic": periodic,
+        "pad_factor": pad_factor,
+        "width_factor": width_factor,
+    }
+    stiffness = plate.restoring_stiffness
+    if not plate.is_variable:
+        rigidity = float(plate.rigidity)
+        return SpectralRelaxation.build(
+            spec, rigidity, stiffness, model, viscosity, relaxation_time, **settings
         )
-    return float(plate.rigidity)
+    grid_rigidity = plate.rigidity
+    assert isinstance(plate.te, xr.DataArray) and isinstance(grid_rigidity, xr.DataArray)
+    check_same_grid(plate.te, grid, "te grid")
+    values = np.asarray(grid_rigidity.values, dtype=np.float64)
+    return VariableRelaxation.build(
+        spec, values, stiffness, plate.poisson_ratio, model, viscosity, relaxation_time, **settings
+    )
 
 
 class ResponseStepper:
@@ -121,9 +157,10 @@ class ResponseStepper:
         Any field on the working grid (dims ``("y", "x")``, metres); only its
         coordinates are used.
     plate : Plate
-        Constant te; the restoring pressure is (rho_m − rho_infill) g w. A non-zero
-        infill density raises a :class:`gridflex.GridflexWarning` (the Plate default,
-        sea water, is wrong for ice sitting in air: use ``infill_density=0``).
+        A constant te or a te grid on *grid*'s grid (zeros for no plate); the restoring
+        pressure is (rho_m − rho_infill) g w. A non-zero infill density raises a
+        :class:`gridflex.GridflexWarning` (the Plate default, sea water, is wrong for ice
+        sitting in air: use ``infill_density=0``).
     model : {"half-space", "relaxing"}, default "half-space"
         ``"half-space"``: elastic plate over a viscous half-space of viscosity
         *mantle_viscosity* (Bueler, Lingle & Brown 2007). ``"relaxing"``: elastic
@@ -180,7 +217,7 @@ class ResponseStepper:
         pad_factor: float = DEFAULT_PAD_FACTOR,
         width_factor: float = DEFAULT_WIDTH_FACTOR,
     ) -> None:
-        rigidity = _constant_rigidity(plate)
+        _check_plate(plate)
         if plate.infill_density > 0:
             warnings.warn(
                 f"the plate's infill_density is {plate.infill_density:g} kg/m^3, so the "
@@ -203,17 +240,17 @@ class ResponseStepper:
         self.initial = check_choice("initial", initial, INITIAL_STATES)
         self.interpolation = check_choice("interpolation", interpolation, INTERPOLATIONS)
         self.edges = check_choice("edges", edges, SPECTRAL_EDGES)
-        self._engine = SpectralRelaxation.build(
+        self._engine = _time_engine(
             self._spec,
-            rigidity,
-            plate.restoring_stiffness,
+            grid,
+            plate,
             self.model,
             self.mantle_viscosity,
             self.relaxation_time * SECONDS_PER_YEAR,
-            interpolation=self.interpolation,
-            periodic=(self.edges == "periodic"),
-            pad_factor=pad_factor,
-            width_factor=width_factor,
+            self.interpolation,
+            self.edges == "periodic",
+            pad_factor,
+            width_factor,
         )
         self.pad_factor = float(pad_factor)
         self.width_factor = float(width_factor)
@@ -230,7 +267,8 @@ class ResponseStepper:
     # -- helpers ------------------------------------------------------------------
     @property
     def padded_shape(self) -> tuple[int, int]:
-        """FFT grid ``(ny, nx)`` after padding."""
+        """FFT grid ``(ny, nx)`` after padding (for a te grid: the finite-difference
+        solve grid, the grid in its margin)."""
         return self._engine.shape
 
     def _values(self, load: xr.DataArray | np.ndarray, label: str) -> np.ndarray:
@@ -311,8 +349,10 @@ class ResponseStepper:
 
     def describe(self) -> dict[str, Any]:
         """Model settings as a flat dict (for output attributes)."""
+        engine = self._engine
         out: dict[str, Any] = {
             "time_model": self.model,
+            "solver": "spectral" if isinstance(engine, SpectralRelaxation) else "finite-difference",
             "restoring_density": self.plate.density_contrast,
             "load_interpolation": self.interpolation,
             "initial_state": self.initial,
@@ -325,6 +365,13 @@ class ResponseStepper:
             out["pad_width_factor"] = self.width_factor
         else:
             out["relaxation_time"] = self.relaxation_time
+        if isinstance(engine, VariableRelaxation):
+            if self.model == "half-space":
+                out["time_scheme"] = "two-stage L-stable SDIRK (order 2)"
+                out["max_substep"] = engine.max_substep / SECONDS_PER_YEAR
+            out["finite_difference_solves"] = engine.solves
+            out["finite_difference_iterations"] = engine.iterations
+            out["tolerance"] = engine.tolerance
         return out
 
 
@@ -403,8 +450,9 @@ def viscous_response(
         Vertical stress q (Pa, positive down), dims ``("time", "y", "x")``; ``time``
         in years, strictly increasing (any origin, e.g. negative before present).
     plate : Plate
-        Constant te. The restoring pressure is (rho_m − rho_infill) g w: use
-        ``infill_density=0`` for ice sitting in air.
+        A constant te or a te grid on the history's grid (see :class:`ResponseStepper`).
+        The restoring pressure is (rho_m − rho_infill) g w: use ``infill_density=0``
+        for ice sitting in air.
     model : {"half-space", "relaxing"}, default "half-space"
         Mantle model.
     mantle_viscosity : float, default 1e21
@@ -444,7 +492,7 @@ def viscous_response(
     ('time', 'y', 'x')
     """
     times, first = _check_history(load_history)
-    _constant_rigidity(plate)
+    _check_plate(plate)
     nt = times.size
     ny, nx = first.shape
     check_memory(

@@ -36,7 +36,7 @@ def check_scenario(scenario: FlexureScenario) -> None:
 def check_plate_structure(scenario: Scenario[Any]) -> None:
     """One source of Te (``[plate] elastic_thickness``, ``elastic_thickness_file`` or
     ``[margin]``); every ``[[breaks]]`` entry is a line or a mask file. Shared by every
-    scenario that has these tables (``gridflex run``, ``gridflex basin``)."""
+    scenario that has these tables (``gridflex run``, ``basin``, ``history``)."""
     plate = scenario.tables["plate"]
     sources = [
         name

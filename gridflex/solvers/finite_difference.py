@@ -134,15 +134,21 @@ def pad_rigidity(rigidity: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
 
 
 def _infinite_shape(
-    spec: GridSpec, rigidity: np.ndarray, stiffness: float, pad_factor: float
+    spec: GridSpec,
+    rigidity: np.ndarray,
+    stiffness: float,
+    pad_factor: float,
+    min_margin: float = 0.0,
 ) -> tuple[int, int]:
     """Solve grid for ``edges="infinite"``: *pad_factor* flexural parameters of the stiffest
-    edge rigidity on each side, rounded up to fast FFT lengths."""
+    edge rigidity (at least *min_margin* metres) on each side, rounded up to fast FFT
+    lengths."""
     edge = np.concatenate([rigidity[0], rigidity[-1], rigidity[:, 0], rigidity[:, -1]])
     alpha = (4.0 * float(edge.max()) / stiffness) ** 0.25
+    margin = max(pad_factor * alpha, min_margin)
     out = []
     for n, h in ((spec.ny, spec.dy), (spec.nx, spec.dx)):
-        extra = 2 * max(math.ceil(pad_factor * alpha / h), 2)
+        extra = 2 * max(math.ceil(margin / h), 2)
         out.append(scipy.fft.next_fast_len(n + extra, real=True))
     return (out[0], out[1])
 
@@ -180,17 +186,18 @@ def _solve_rigidity(
     pad_stiffness: float,
     edges: str | tuple[str, str],
     pad_factor: float,
+    min_margin: float = 0.0,
 ) -> tuple[np.ndarray, tuple[str, str]]:
     """Rigidity on the solve grid, and its axis edges.
 
     For ``edges="infinite"`` the grid embedded in a periodic margin (:func:`pad_rigidity`)
-    sized with the flexural parameter of *pad_stiffness*; otherwise the grid itself. Checks
-    the memory the solve will need first.
+    sized with the flexural parameter of *pad_stiffness* (at least *min_margin* metres);
+    otherwise the grid itself. Checks the memory the solve will need first.
     """
     if rigidity.shape != spec.shape:
         raise InputError(f"rigidity grid has shape {rigidity.shape}, the grid {spec.shape}")
     if edges == "infinite":
-        shape = _infinite_shape(spec, rigidity, pad_stiffness, pad_factor)
+        shape = _infinite_shape(spec, rigidity, pad_stiffness, pad_factor, min_margin)
     else:
         shape = spec.shape
     n = shape[0] * shape[1]
@@ -314,6 +321,7 @@ class FiniteDifferenceSolver:
         *,
         pad_factor: float = DEFAULT_PAD_FACTOR,
         pad_stiffness: float | None = None,
+        min_margin: float = 0.0,
         tolerance: float = DEFAULT_TOLERANCE,
         max_iterations: int = DEFAULT_MAX_ITERATIONS,
         band_width: float | None = None,
@@ -331,6 +339,9 @@ class FiniteDifferenceSolver:
             Restoring stiffness (Pa m⁻¹) whose flexural parameter sets the margin of
             ``edges="infinite"`` (the weakest restoring force the caller will meet, say
             under a fill lighter than the operator's); *stiffness* by default.
+        min_margin : float, default 0
+            Smallest margin (m) on each side for ``edges="infinite"``, for a caller whose
+            response reaches further than the plate's (the viscous half-space's transient).
         spectral_symbol : callable, optional
             ``spectral_symbol(solve_shape)`` returns the symbol of a
             :class:`SpectralTerm` on the rfft2 half-spectrum of the solve grid; needs a
@@ -349,8 +360,9 @@ class FiniteDifferenceSolver:
             if pad_stiffness is None
             else check_number("pad_stiffness", pad_stiffness, unit="Pa/m", minimum=0.0, strict=True)
         )
+        margin = check_number("min_margin", min_margin, unit="m", minimum=0.0)
         solve_rigidity, axis_edges = _solve_rigidity(
-            spec, np.asarray(rigidity, dtype=np.float64), pad, edges, pad_factor
+            spec, np.asarray(rigidity, dtype=np.float64), pad, edges, pad_factor, margin
         )
         operator = PlateOperator.build(
             solve_rigidity, stiffness, poisson_ratio, spec.dy, spec.dx, axis_edges

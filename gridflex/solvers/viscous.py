@@ -45,6 +45,7 @@ __all__ = [
     "MODELS",
     "DEFAULT_WIDTH_FACTOR",
     "SpectralRelaxation",
+    "check_relaxation_settings",
     "relaxation_rates",
     "relaxation_pad_distance",
 ]
@@ -134,6 +135,36 @@ def relaxation_pad_distance(
     return pad
 
 
+def check_relaxation_settings(
+    model: str,
+    interpolation: str,
+    stiffness: float,
+    viscosity: float,
+    relaxation_time: float,
+    pad_factor: float,
+    width_factor: float,
+) -> None:
+    """Check the settings every time-dependent engine takes (SI units; see
+    :meth:`SpectralRelaxation.build`).
+
+    Raises
+    ------
+    InputError
+        A model or interpolation not on the list, a stiffness, viscosity or relaxation time
+        not > 0, or a negative padding factor.
+    """
+    check_choice("model", model, MODELS)
+    check_choice("interpolation", interpolation, INTERPOLATIONS)
+    for name, value, unit in (
+        ("stiffness", stiffness, "Pa/m"),
+        ("viscosity", viscosity, "Pa s"),
+        ("relaxation_time", relaxation_time, "s"),
+    ):
+        check_number(name, value, unit=unit, minimum=0.0, strict=True)
+    for name, value in (("pad_factor", pad_factor), ("width_factor", width_factor)):
+        check_number(name, value, minimum=0.0)
+
+
 @dataclass
 class SpectralRelaxation:
     """State of a relaxing plate on a (padded) periodic FFT grid.
@@ -205,17 +236,10 @@ class SpectralRelaxation:
         InputError
             Bad parameter, or a padded grid that does not fit in memory.
         """
-        check_choice("model", model, MODELS)
-        check_choice("interpolation", interpolation, INTERPOLATIONS)
-        for name, value, unit in (
-            ("stiffness", stiffness, "Pa/m"),
-            ("viscosity", viscosity, "Pa s"),
-            ("relaxation_time", relaxation_time, "s"),
-        ):
-            check_number(name, value, unit=unit, minimum=0.0, strict=True)
+        check_relaxation_settings(
+            model, interpolation, stiffness, viscosity, relaxation_time, pad_factor, width_factor
+        )
         check_number("rigidity", rigidity, unit="N m", minimum=0.0)
-        for name, value in (("pad_factor", pad_factor), ("width_factor", width_factor)):
-            check_number(name, value, minimum=0.0)
         if periodic:
             shape = spec.shape
         else:

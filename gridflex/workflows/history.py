@@ -3,7 +3,10 @@ mantle, written as deflection through time, an uplift-rate map and point series.
 
 A history scenario has these tables (``[[points]]`` is an array of tables)::
 
-    [plate]     elastic thickness, moduli, densities (infill_density must stay 0)
+    [plate]     elastic thickness (a number or a te file), moduli, densities
+                (infill_density must stay 0)
+    [margin]    te changing across a line, instead of the number or the file
+    [[breaks]]  lines or mask files where te = 0
     [mantle]    model, viscosity, relaxation time
     [solver]    edges, padding, load interpolation, initial state
     [grid]      size and spacing, for a synthetic ice history
@@ -43,6 +46,7 @@ from gridflex.io.time_grids import (
 )
 from gridflex.memory import check_memory
 from gridflex.progress import Progress
+from gridflex.scenario.checks import check_plate_structure
 from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
 from gridflex.scenario.tables import SCHEMA, load_scenario
 from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
@@ -82,6 +86,8 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
             minimum=0.0,
         ),
     },
+    "margin": SCHEMA["margin"],
+    "breaks": SCHEMA["breaks"],
     "mantle": {
         "model": Key(
             "choice",
@@ -170,7 +176,7 @@ HISTORY_WORDS_PER_TIME = 8
 """float64 grids per time a history holds at its peak (ice, load, deflection, uplift rate,
 vertical displacement, the copies written), for the memory estimate before the ice grid."""
 
-HISTORY_ARRAY_TABLES = frozenset({"points"})
+HISTORY_ARRAY_TABLES = frozenset({"points", "breaks"})
 HISTORY_REQUIRED_TABLES = ("plate", "ice", "bed", "output")
 
 
@@ -189,6 +195,7 @@ def load_history_scenario(path: str | Path) -> HistoryScenario:
 
 
 def _check_history(scenario: HistoryScenario) -> None:
+    check_plate_structure(scenario)
     ice = scenario.table("ice")
     where = scenario.where("ice")
     if (ice["file"] is None) == (ice["synthetic"] is None):
@@ -379,9 +386,10 @@ def run_history_scenario(
     plan.add({key: outputs[key] for key in ("file", "rate_map", "series_plot")})
     inputs = plan.inputs
     reference = outputs["time_reference"]
-    plate = plate_from_scenario(scenario)
     thickness = _ice_history(scenario, reference)
     bed = _bed(scenario, thickness.isel(time=0, drop=True))
+    # a te file, [margin] or [[breaks]] become a te grid on the ice grid, as in gridflex run
+    plate = plate_from_scenario(scenario, bed)
     sea = scenario.table("sea")
     crs = _output_crs(scenario, thickness, bed)
     times = np.asarray(thickness["time"].values, dtype=np.float64)

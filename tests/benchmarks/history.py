@@ -3,7 +3,12 @@
 Prints the time per step against one FFT pair (rfft2 + irfft2) of the padded grid,
 timed in the same process, and the total against the 60 s target.
 
+With ``te-grid`` as the first argument it times instead a te grid (a uniform one, and a
+margin from 10 to 60 km) against the constant te on the same grid and prints the ratio
+(target: at most 10) with the finite-difference iterations per solve.
+
 Run:  PYTHONPATH=. python tests/benchmarks/history.py [steps] [n] [model]
+      PYTHONPATH=. python tests/benchmarks/history.py te-grid [steps] [n] [model] [dt]
 """
 
 from __future__ import annotations
@@ -13,9 +18,11 @@ import time
 
 import numpy as np
 import scipy.fft
+import xarray as xr
 
 from gridflex import Plate, ResponseStepper
 from gridflex.synthetic import disc_height, empty_grid
+from gridflex.te_maps import margin_te
 
 
 def fft_pair_seconds(shape: tuple[int, int], repeats: int = 10) -> float:
@@ -69,5 +76,49 @@ def main() -> None:
     )
 
 
+def _seconds_per_step(
+    stepper: ResponseStepper, load: np.ndarray, thickness: np.ndarray, dt: float
+) -> float:
+    stepper.advance(dt, load * thickness[0])  # warm-up: set-ups and caches
+    start = time.perf_counter()
+    for h in thickness[1:]:
+        stepper.advance(dt, load * h)
+    return (time.perf_counter() - start) / (thickness.size - 1)
+
+
+def te_grid_ratio() -> None:
+    """Time per step with a te grid against the constant te on the same grid."""
+    steps = int(sys.argv[2]) if len(sys.argv) > 2 else 20
+    n = int(sys.argv[3]) if len(sys.argv) > 3 else 128
+    model = sys.argv[4] if len(sys.argv) > 4 else "half-space"
+    dt = float(sys.argv[5]) if len(sys.argv) > 5 else 100.0
+    grid = empty_grid(n, n, 10e3)  # invented: a 300 km ice cap, 10 km cells
+    load = disc_height(grid, 300e3, 1.0, supersample=2).values * (910.0 * 9.81)
+    thickness = 3000.0 * np.sin(np.linspace(0.0, np.pi, steps + 1)) ** 2
+    half = 0.5 * n * 10e3
+    maps = {
+        "uniform te grid": xr.full_like(grid, 40e3),
+        "margin 10 -> 60 km": margin_te(grid, 10e3, 60e3, [(0.0, -half), (0.0, half)], 100e3),
+    }
+    constant = ResponseStepper(grid, Plate(te=40e3, infill_density=0.0), model)
+    base = _seconds_per_step(constant, load, thickness, dt)
+    print(f"model {model}, grid {n} x {n}, {steps} steps of {dt:g} yr")
+    print(f"constant te (spectral), FFT grid {constant.padded_shape}: {base * 1e3:8.2f} ms/step")
+    for name, te in maps.items():
+        stepper = ResponseStepper(grid, Plate(te=te, infill_density=0.0), model)
+        per_step = _seconds_per_step(stepper, load, thickness, dt)
+        info = stepper.describe()
+        solves = info["finite_difference_solves"]
+        per_solve = info["finite_difference_iterations"] / max(solves, 1)
+        print(
+            f"{name:20s} solve grid {stepper.padded_shape}: {per_step * 1e3:8.2f} ms/step  "
+            f"ratio {per_step / base:6.1f} (target 10); {solves} solves, "
+            f"{per_solve:.2f} iterations per solve"
+        )
+
+
 if __name__ == "__main__":
-    main()
+    if len(sys.argv) > 1 and sys.argv[1] == "te-grid":
+        te_grid_ratio()
+    else:
+        main()
