@@ -196,7 +196,7 @@ def interval_end(
         x = pending.pop(0)
         z = signed(x)
         slope = (z - z_inner) / (x - inner) if x != inner else 0.0
-        outward = (x - inner) * (z - z_inner) > 0  # z grows away from best, as it should
+        outward = z > z_inner  # z grows away from best, as it should
         if outward and abs(z / slope) <= xtol:
             return x, True
         if z > 0:

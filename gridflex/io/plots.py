@@ -24,7 +24,7 @@ from gridflex.io.atomic import atomic_path
 if TYPE_CHECKING:  # type hints only: plots sits below fitting in the import floors
     from gridflex.estimation.admittance import SpectralFit
     from gridflex.estimation.misfit import TeFit
-    from gridflex.estimation.te_map_misfit import TeMapFit
+    from gridflex.estimation.misfit_te_maps import TeMapFit
 
 __all__ = [
     "plot_deflection_map",

@@ -33,7 +33,7 @@ from typing import Any, TypedDict, cast, overload
 from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
 from gridflex.engine import EDGES, METHODS
 from gridflex.estimation.misfit import QUANTITIES, TE_BOUNDS, TE_SAMPLES
-from gridflex.estimation.te_map_misfit import MAP_SAMPLES, SCALE_BOUNDS
+from gridflex.estimation.misfit_te_maps import MAP_SAMPLES, SCALE_BOUNDS
 from gridflex.gis.geometry import RESAMPLING
 from gridflex.gis.resampling import RESULT_EXTENTS, RESULT_GRIDS
 from gridflex.infill import SEDIMENT_MODES

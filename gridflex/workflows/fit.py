@@ -14,7 +14,7 @@ import xarray as xr
 from gridflex.engine import SPECTRAL_EDGES
 from gridflex.errors import InputError
 from gridflex.estimation.misfit import TE_BOUNDS, TE_SAMPLES, TeFit, fit_te
-from gridflex.estimation.te_map_misfit import (
+from gridflex.estimation.misfit_te_maps import (
     MAP_SAMPLES,
     SCALE_BOUNDS,
     MarginFit,

@@ -88,8 +88,9 @@ MAP_SAMPLES = 7
 
 _DIFF_STEP = 2e-3  # forward-difference step of the Jacobian, in [0, 1] coordinates
 _REFINE_XTOL = 1e-4  # relative step tolerance of the refinement, [0, 1] coordinates
-_REFINE_FTOL = 1e-8  # relative change of the sum of squares that ends the refinement
+_REFINE_SHARE = 1e-3  # the refinement ends on RSS changes below this share of the threshold
 _END_XTOL = 5e-4  # tolerance of an interval's end, [0, 1] coordinates
+_END_SHARE = 0.01  # ... and at most this share of the predicted half-width
 _CONDITIONAL_STEPS = 6  # Gauss-Newton steps of the other parameters at one profile value
 _END_STEPS = (1.0, 2.0, 4.0)  # candidate ends, in predicted half-widths
 
@@ -566,12 +567,15 @@ def _search_map(
 ) -> _Search:
     """Coarse scans, least-squares refinement, then each parameter's profile interval."""
     parameters = trials.parameters
+    n = int(trials.inside.sum())
     coarse = scan_groups(trials.rss, start, groups, samples, progress=progress)
+    # stop when an iteration lowers the RSS (about n s^2) by < 0.1 % of the threshold
+    ftol = _REFINE_SHARE * chi2_quantile(confidence) / n
     point, jacobian = refine_least_squares(
-        trials.residuals, coarse, diff_step=_DIFF_STEP, xtol=_REFINE_XTOL, ftol=_REFINE_FTOL
+        trials.residuals, coarse, diff_step=_DIFF_STEP, xtol=_REFINE_XTOL, ftol=ftol
     )
     best = trials.best
-    rss_min, n = best.rss, int(trials.inside.sum())
+    rss_min = best.rss
     factor = 1.0
     if correlated_residuals:
         residual = np.zeros(trials.inside.shape)
@@ -593,7 +597,7 @@ def _search_map(
                 rss_min,
                 threshold,
                 _candidates(centre, side, width),
-                _END_XTOL,
+                min(_END_XTOL, _END_SHARE * width),
                 extrapolate=True,
             )
             ends.append(p.value(end))
@@ -619,7 +623,13 @@ def _search_map(
             trials.best.rss,
             rss_min,
         )
-    log.info("te map fit: refined at %s, %d forward models", point, trials.forward.solves)
+    log.info(
+        "te map fit: refined to %s after %d forward models",
+        ", ".join(
+            f"{p.name} {p.value(float(u)):.6g}" for p, u in zip(parameters, point, strict=True)
+        ),
+        trials.forward.solves,
+    )
     return _Search(estimates, best, rss_min, factor, threshold, n, trials.table())
 
 
