@@ -26,6 +26,7 @@ from __future__ import annotations
 import logging
 import math
 import warnings
+from collections import OrderedDict
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -89,6 +90,8 @@ MAP_SAMPLES = 7
 _DIFF_STEP = 2e-3  # forward-difference step of the Jacobian, in [0, 1] coordinates
 _REFINE_XTOL = 1e-4  # relative step tolerance of the refinement, [0, 1] coordinates
 _REFINE_SHARE = 1e-3  # the refinement ends on RSS changes below this share of the threshold
+_RECENT_MODELS = 64  # residual vectors kept for repeated requests, at most ...
+_RECENT_BYTES = 256 * 2**20  # ... and at most this much memory (but always 4)
 _END_XTOL = 5e-4  # tolerance of an interval's end, [0, 1] coordinates
 _END_SHARE = 0.01  # ... and at most this share of the predicted half-width
 _CONDITIONAL_STEPS = 6  # Gauss-Newton steps of the other parameters at one profile value
@@ -382,6 +385,7 @@ class _Best:
 
     rss: float = math.inf
     point: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    residual: np.ndarray = field(default_factory=lambda: np.zeros(0))
     model: np.ndarray = field(default_factory=lambda: np.zeros(0))
     result: xr.Dataset = field(default_factory=xr.Dataset)
     te: xr.DataArray = field(default_factory=xr.DataArray)
@@ -407,7 +411,10 @@ class _MapTrials:
         self.inside = inside
         self.data = observed[inside]
         self.fit_load_scale = fit_load_scale
-        self.cache: dict[tuple[float, ...], tuple[float, np.ndarray]] = {}
+        self.rss_cache: dict[tuple[float, ...], float] = {}
+        # the residual vectors of the latest models (n floats each): bounded in memory
+        self.recent: OrderedDict[tuple[float, ...], np.ndarray] = OrderedDict()
+        self.keep = int(min(_RECENT_MODELS, max(4, _RECENT_BYTES // (8 * self.data.size))))
         self.best = _Best()
 
     def values(self, point: np.ndarray) -> list[float]:
@@ -417,26 +424,35 @@ class _MapTrials:
     def residuals(self, point: np.ndarray) -> np.ndarray:
         """Observed minus fitted model on the compared cells, at *point*."""
         key = tuple(float(u) for u in np.clip(point, 0.0, 1.0))
-        if key not in self.cache:
-            te = self.te_map(self.values(np.array(key)))
-            model, result = self.forward.predict(te)
-            inside = model[self.inside]
-            rss, load_scale, offset = nuisance_fit(self.data, inside, self.fit_load_scale)
-            residual = self.data - (load_scale * inside + offset)
-            self.cache[key] = (rss, residual)
-            if rss < self.best.rss:
-                self.best = _Best(rss, np.array(key), model, result, te, load_scale, offset)
-        return self.cache[key][1]
+        if key in self.recent:
+            self.recent.move_to_end(key)
+            return self.recent[key]
+        if key == tuple(self.best.point):
+            return self.best.residual
+        te = self.te_map(self.values(np.array(key)))
+        model, result = self.forward.predict(te)
+        inside = model[self.inside]
+        rss, load_scale, offset = nuisance_fit(self.data, inside, self.fit_load_scale)
+        residual = self.data - (load_scale * inside + offset)
+        self.rss_cache[key] = rss
+        self.recent[key] = residual
+        if len(self.recent) > self.keep:
+            self.recent.popitem(last=False)
+        if rss < self.best.rss:
+            self.best = _Best(rss, np.array(key), residual, model, result, te, load_scale, offset)
+        return residual
 
     def rss(self, point: np.ndarray) -> float:
         """Residual sum of squares at *point*."""
-        self.residuals(point)
-        return self.cache[tuple(float(u) for u in np.clip(point, 0.0, 1.0))][0]
+        key = tuple(float(u) for u in np.clip(point, 0.0, 1.0))
+        if key not in self.rss_cache:
+            self.residuals(point)
+        return self.rss_cache[key]
 
     def table(self) -> xr.Dataset:
         """Every model evaluated: its parameters and RMS misfit, in evaluation order."""
-        points = np.array(list(self.cache), dtype=np.float64).reshape(len(self.cache), -1)
-        rss = np.array([value[0] for value in self.cache.values()])
+        points = np.array(list(self.rss_cache), dtype=np.float64).reshape(len(self.rss_cache), -1)
+        rss = np.array(list(self.rss_cache.values()))
         data: dict[str, Any] = {}
         for i, p in enumerate(self.parameters):
             values = [p.value(float(u)) for u in points[:, i]]
@@ -579,7 +595,7 @@ def _search_map(
     factor = 1.0
     if correlated_residuals:
         residual = np.zeros(trials.inside.shape)
-        residual[trials.inside] = trials.residuals(best.point)
+        residual[trials.inside] = best.residual
         factor = correlation_factor(residual, trials.inside, spec)
     count = parameter_count(len(parameters), trials.fit_load_scale)
     threshold, s2 = interval_threshold(rss_min, n, count, factor, confidence)

@@ -360,7 +360,8 @@ def plot_profiles(
     for ax, (name, estimate) in zip(np.atleast_1d(axes), estimates.items(), strict=True):
         factor, unit = (1e3, "km") if estimate.unit == "m" else (1.0, estimate.unit)
         values = estimate.profile[name].values / factor
-        ax.plot(values, estimate.profile.values, "o-", ms=3, color="0.2", label="profile")
+        # the points evaluated (few, near the ends): markers, not a curve between them
+        ax.plot(values, estimate.profile.values, "o", ms=4, color="0.2", label="profile")
         ax.axhline(fit.quantile, color="0.5", ls="--", lw=0.8, label="interval threshold")
         ax.axvspan(
             estimate.low / factor,
