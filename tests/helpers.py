@@ -63,6 +63,16 @@ displaced_density = 1030
 :func:`write_seamount_inputs` on a 10 km plate; a test appends its tables."""
 
 
+def seamount_heights(like: xr.DataArray, centres: Any) -> xr.DataArray:
+    """Invented Gaussian edifices 2.5 km high and 15 km wide (m) at *centres* ((x, y) in m)
+    on *like*'s grid: the loads of the te-map fit tests."""
+    xx, yy = np.meshgrid(like["x"].values, like["y"].values)
+    height = sum(
+        2500.0 * np.exp(-((xx - cx) ** 2 + (yy - cy) ** 2) / (2 * 15e3**2)) for cx, cy in centres
+    )
+    return like.copy(data=height)
+
+
 def linear_free_air(load: xr.DataArray, w: xr.DataArray, plate: Any, layers: Any) -> xr.DataArray:
     """Independent first-order free-air anomaly (mGal) of a load and a deflection on its grid:
     the Parker (1973) n = 1 term for each interface (PHYSICS.md 6.1, 6.3): the load's mass

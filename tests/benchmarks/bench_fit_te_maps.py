@@ -13,8 +13,7 @@ import sys
 import time
 
 import numpy as np
-import xarray as xr
-from timing import best
+from timing import best, margin_seamounts_load
 
 import gridflex
 from gridflex.te_maps import margin_te
@@ -22,13 +21,7 @@ from gridflex.te_maps import margin_te
 
 def main(n: int = 64) -> None:
     dx = 6e3
-    x = (np.arange(n) - n / 2) * dx
-    xx, yy = np.meshgrid(x, x)
-    height = sum(
-        2500.0 * np.exp(-((xx - cx) ** 2 + (yy - cy) ** 2) / (2 * 15e3**2))
-        for cx, cy in ((-60e3, 20e3), (60e3, -20e3))
-    )
-    load = xr.DataArray(height * 1770.0 * 9.81, dims=("y", "x"), coords={"y": x, "x": x})
+    load = margin_seamounts_load(n, dx)
     line, width = [(0.0, 0.0), (0.0, 1.0)], 30e3
     te = margin_te(load, 10e3, 40e3, line, width)
     one, result = best(lambda: gridflex.solve(load, gridflex.Plate(te=te)), 3)

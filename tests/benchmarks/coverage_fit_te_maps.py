@@ -16,7 +16,7 @@ import time
 import warnings
 
 import numpy as np
-import xarray as xr
+from timing import margin_seamounts_load
 
 import gridflex
 from gridflex.te_maps import margin_te
@@ -24,13 +24,7 @@ from gridflex.te_maps import margin_te
 
 def main(cases: int = 40) -> None:
     n, dx = 48, 8e3
-    x = (np.arange(n) - n / 2) * dx
-    xx, yy = np.meshgrid(x, x)
-    height = sum(
-        2500.0 * np.exp(-((xx - cx) ** 2 + (yy - cy) ** 2) / (2 * 15e3**2))
-        for cx, cy in ((-60e3, 20e3), (60e3, -20e3))
-    )
-    load = xr.DataArray(height * 1770.0 * 9.81, dims=("y", "x"), coords={"y": x, "x": x})
+    load = margin_seamounts_load(n, dx)
     line, width, truth = [(0.0, 0.0), (0.0, 1.0)], 30e3, {"te_left": 10e3, "te_right": 40e3}
     w = gridflex.solve(
         load, gridflex.Plate(te=margin_te(load, 10e3, 40e3, line, width)), edges="periodic"

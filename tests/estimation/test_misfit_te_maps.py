@@ -19,7 +19,7 @@ from gridflex.errors import InputError
 from gridflex.estimation.misfit_te_maps import fit_te_margin, fit_te_scale
 from gridflex.gravity.first_order import CrustLayers
 from gridflex.te_maps import margin_te
-from tests.helpers import linear_free_air, make_grid
+from tests.helpers import linear_free_air, make_grid, seamount_heights
 
 TE_LEFT, TE_RIGHT = 10e3, 40e3
 LINE = [(0.0, 0.0), (0.0, 1.0)]  # x = 0, looking north: west is left
@@ -28,12 +28,8 @@ N, DX = 64, 6e3
 
 
 def _seamounts(like: xr.DataArray, centres) -> xr.DataArray:
-    """Invented Gaussian edifices, 2.5 km high, submerged (rho_l - rho_w = 1770)."""
-    xx, yy = np.meshgrid(like["x"].values, like["y"].values)
-    height = sum(
-        2500.0 * np.exp(-((xx - cx) ** 2 + (yy - cy) ** 2) / (2 * 15e3**2)) for cx, cy in centres
-    )
-    return gridflex.pressure_from_height(like.copy(data=height), 1770.0)
+    """The load (Pa) of invented seamounts (tests.helpers), submerged (rho_l - rho_w = 1770)."""
+    return gridflex.pressure_from_height(seamount_heights(like, centres), 1770.0)
 
 
 @pytest.fixture(scope="module")

@@ -14,7 +14,7 @@ from numpy.testing import assert_allclose
 from gridflex import Plate, solve
 from gridflex.cli.main import main
 from gridflex.te_maps import break_mask, broken_te, margin_te
-from tests.helpers import make_grid
+from tests.helpers import make_grid, seamount_heights
 
 TRUE_LEFT, TRUE_RIGHT = 10e3, 40e3
 TRUE_LINE = [(0.0, -1e5), (0.0, 1e5)]  # x = 0, looking north: west is left
@@ -52,14 +52,7 @@ def _inputs(folder: Path, te: xr.DataArray | None = None) -> xr.DataArray:
     """Two invented seamounts (heights in load.nc), one on each side of x = 0, and the
     deflection of the plate of *te* (default: the true margin) with 3 % noise in
     observed.nc; returns the load (Pa)."""
-    grid = make_grid(64, 64, 6e3)
-    xx, yy = np.meshgrid(grid["x"].values, grid["y"].values)
-    height = grid.copy(
-        data=sum(
-            2500.0 * np.exp(-((xx - cx) ** 2 + (yy - cy) ** 2) / (2 * 15e3**2))
-            for cx, cy in ((-60e3, 20e3), (60e3, -20e3))
-        )
-    )
+    height = seamount_heights(make_grid(64, 64, 6e3), [(-60e3, 20e3), (60e3, -20e3)])
     xr.Dataset({"height": height.assign_attrs(units="m")}).to_netcdf(folder / "load.nc")
     load = height * (1770.0 * 9.81)
     if te is None:
