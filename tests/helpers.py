@@ -63,6 +63,44 @@ displaced_density = 1030
 :func:`write_seamount_inputs` on a 10 km plate; a test appends its tables."""
 
 
+def seamount_heights(like: xr.DataArray, centres: Any) -> xr.DataArray:
+    """Invented Gaussian edifices 2.5 km high and 15 km wide (m) at *centres* ((x, y) in m)
+    on *like*'s grid: the loads of the te-map fit tests."""
+    xx, yy = np.meshgrid(like["x"].values, like["y"].values)
+    height = sum(
+        2500.0 * np.exp(-((xx - cx) ** 2 + (yy - cy) ** 2) / (2 * 15e3**2)) for cx, cy in centres
+    )
+    return like.copy(data=height)
+
+
+def linear_free_air(load: xr.DataArray, w: xr.DataArray, plate: Any, layers: Any) -> xr.DataArray:
+    """Independent first-order free-air anomaly (mGal) of a load and a deflection on its grid:
+    the Parker (1973) n = 1 term for each interface (PHYSICS.md 6.1, 6.3): the load's mass
+    q / g on the sea floor, the top of the crust (rho_c - rho_f) and the Moho (rho_m - rho_c)
+    displaced down by w, zero-padded to four times the grid (an isolated relief)."""
+    import scipy.fft
+
+    from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
+
+    ny, nx = load.shape
+    dy = abs(float(load["y"][1] - load["y"][0]))
+    dx = abs(float(load["x"][1] - load["x"][0]))
+    shape = (4 * ny, 4 * nx)
+    ky = 2 * np.pi * scipy.fft.fftfreq(shape[0], dy)[:, None]
+    kx = 2 * np.pi * scipy.fft.rfftfreq(shape[1], dx)[None, :]
+    k = np.hypot(ky, kx)
+    thickness = plate.crust_thickness if layers.crust_thickness is None else layers.crust_thickness
+    density = plate.crust_density if layers.crust_density is None else layers.crust_density
+    top = np.exp(-k * layers.seafloor_depth)
+    moho = np.exp(-k * (layers.seafloor_depth + thickness))
+    mass = scipy.fft.rfft2(load.values / plate.gravity, s=shape)
+    wk = scipy.fft.rfft2(w.values, s=shape)
+    spec = top * mass - (density - plate.infill_density) * top * wk
+    spec -= (plate.mantle_density - density) * moho * wk
+    field = scipy.fft.irfft2(2 * np.pi * GRAVITATIONAL_CONSTANT * spec, s=shape)
+    return load.copy(data=field[:ny, :nx] / MGAL)
+
+
 def write_seamount_inputs(folder: Path) -> xr.DataArray:
     """Invented seamount height (m) and its noisy flexed sea floor, as NetCDF files
     ``load.nc`` and ``observed.nc`` (plate te = TRUE_TE); returns the load (Pa)."""

@@ -7,7 +7,10 @@ from gridflex.scenario.tables import load_scenario
 from gridflex.workflows.fit import FitOutcome, fit_scenario, format_fit
 
 NAME = "fit"
-HELP = "estimate te from an observed grid: misfit plot, JSON summary, best model"
+HELP = (
+    "estimate te (a constant, both sides of a [margin], or a factor on a te grid) from an "
+    "observed grid: misfit plot, JSON summary, best model"
+)
 
 
 def _report(outcome: FitOutcome) -> list[str]:

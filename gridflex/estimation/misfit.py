@@ -19,23 +19,39 @@ from __future__ import annotations
 
 import logging
 import math
-import warnings
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
-import scipy.fft
-import scipy.optimize
 import xarray as xr
 
-from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
-from gridflex.engine import EDGES, check_edge_load, deflection_attrs, result_dataset
-from gridflex.errors import GridflexWarning, InputError
+from gridflex.engine import SPECTRAL_EDGES, check_edge_load, result_dataset
+from gridflex.estimation.likelihood import (
+    OpenIntervalWarning,
+    chi2_quantile,
+    correlation_factor,
+    interval_end,
+    interval_threshold,
+    nuisance_fit,
+    parameter_count,
+    warn_if_open,
+)
+from gridflex.estimation.observation import (
+    QUANTITIES,
+    UNITS,
+    FirstOrderGravity,
+    QuantityRule,
+    best_model_dataset,
+    check_fit_options,
+    check_plate,
+    compared_cells,
+    gravity_attrs,
+    gravity_model,
+)
 from gridflex.estimation.search import check_search_bounds, grid_then_refine
-from gridflex.gravity.anomalies import model_free_air_anomaly
-from gridflex.gravity.first_order import CrustLayers, gravity_terms
-from gridflex.grid import GridSpec, check_grid, check_same_grid, padded_shape
+from gridflex.gravity.first_order import CrustLayers
+from gridflex.grid import GridSpec, check_grid, padded_shape
 from gridflex.memory import check_memory
 from gridflex.plate import Plate, rigidity_from_te
 from gridflex.progress import Progress
@@ -45,34 +61,19 @@ from gridflex.solvers.spectral import (
     decay_length,
     scale_spectrum,
 )
-from gridflex.validation import check_choice, check_integer, check_number
 
-__all__ = ["QUANTITIES", "OpenIntervalWarning", "TeFit", "fit_te"]
+__all__ = ["QUANTITIES", "TE_BOUNDS", "TE_SAMPLES", "OpenIntervalWarning", "TeFit", "fit_te"]
 
 log = logging.getLogger(__name__)
 
-QUANTITIES = ("deflection", "surface", "free_air_anomaly")
-"""Accepted values of ``fit_te(quantity=...)``."""
+TE_BOUNDS = (1e3, 1e5)
+"""Default search range of te (m) of :func:`fit_te` (and of each side of a margin)."""
 
-_UNITS = {"deflection": "m", "surface": "m", "free_air_anomaly": "mGal"}
-_LONG_NAMES = {
-    "deflection": "plate deflection (positive downward)",
-    "surface": "elevation of the flexed surface (positive upward)",
-    "free_air_anomaly": "free-air gravity anomaly",
-}
+TE_SAMPLES = 25
+"""Default number of log-spaced te of the coarse search of :func:`fit_te`."""
+
 _REFINE_XTOL = 1e-4  # in ln(Te): 0.01 % of Te
 _ROOT_XTOL = 1e-6  # in ln(Te)
-
-
-class OpenIntervalWarning(GridflexWarning):
-    """The Te interval reaches a search bound: the data do not limit Te on that side."""
-
-
-def _chi2_quantile(confidence: float) -> float:
-    """The *confidence* quantile of the chi-square law with one degree of freedom."""
-    from scipy.stats import chi2  # imported here: scipy.stats is slow to import
-
-    return float(chi2.ppf(confidence, 1))
 
 
 @dataclass(frozen=True)
@@ -132,7 +133,7 @@ class TeFit:
     @property
     def criterion(self) -> str:
         """The rule that bounds the interval, in words and numbers."""
-        quantile = _chi2_quantile(self.confidence)
+        quantile = chi2_quantile(self.confidence)
         return (
             f"profile likelihood: (RSS - RSS_min) / s^2 * n_eff / n = chi2_1({self.confidence:g})"
             f" = {quantile:.4g}, s^2 = RSS_min / (n - p), n = {self.n_data}, "
@@ -144,7 +145,7 @@ class TeFit:
         return {
             "interval_criterion": self.criterion,
             "quantity": self.quantity,
-            "unit": _UNITS[self.quantity],
+            "unit": UNITS[self.quantity],
             "te": self.te,
             "te_low": self.te_low,
             "te_high": self.te_high,
@@ -172,16 +173,14 @@ class _Forward:
         spec: GridSpec,
         plate: Plate,
         te_max: float,
-        quantity: str,
+        rule: QuantityRule,
         layers: CrustLayers | None,
         periodic: bool,
         pad_factor: float,
-        series: tuple[xr.DataArray, dict[str, Any]] | None = None,
     ) -> None:
         self.plate = plate
-        self.quantity = quantity
+        self.rule = rule
         self.layers = layers
-        self.series = series  # (load grid, model_free_air_anomaly keywords) for the full series
         self.load = load
         self.spec = spec
         self.periodic = periodic
@@ -195,14 +194,16 @@ class _Forward:
         # the cached load spectra of the padding tiers add up to about two of the largest
         cells = self.problem.shape[0] * self.problem.shape[1]
         check_memory(8.0 * cells * (3.5 + 2.0), f"fit_te on FFT grids up to {self.problem.shape}")
-        self.tiers: dict[tuple[int, int], tuple[SpectralProblem, np.ndarray, Any]] = {}
+        self.tiers: dict[
+            tuple[int, int], tuple[SpectralProblem, np.ndarray, FirstOrderGravity | None]
+        ] = {}
         self.evaluations = 0
 
     def _rigidity(self, te: float) -> float:
         return float(rigidity_from_te(te, self.plate.youngs_modulus, self.plate.poisson_ratio))
 
-    def _problem(self, te: float) -> tuple[SpectralProblem, np.ndarray, Any]:
-        """Problem, load spectrum and (scaled) gravity terms on the padding tier of *te*.
+    def _problem(self, te: float) -> tuple[SpectralProblem, np.ndarray, FirstOrderGravity | None]:
+        """Problem, load spectrum and first-order gravity on the padding tier of *te*.
 
         Padding distances come in steps of sqrt(2) below the largest one, so a
         trial plate gets at least its own pad_factor decay lengths (more is only
@@ -219,180 +220,34 @@ class _Forward:
             base = replace(self.problem, shape=shape)
             spectrum = base.load_spectrum(self.load)
             spectrum.flags.writeable = False
-            terms = None
-            if self.quantity == "free_air_anomaly" and self.series is None:
-                assert self.layers is not None
-                top, interfaces = gravity_terms(base.wavenumber(), self.layers, self.plate)
-                scale = 2.0 * math.pi * GRAVITATIONAL_CONSTANT / (self.plate.gravity * MGAL)
-                terms = (top * scale, interfaces * scale)
-            self.tiers[shape] = (base, spectrum, terms)
-        base, spectrum, k = self.tiers[shape]
-        return base.with_rigidity(rigidity), spectrum, k
+            gravity = None
+            if self.layers is not None:
+                gravity = FirstOrderGravity(base, spectrum, self.layers, self.plate)
+            self.tiers[shape] = (base, spectrum, gravity)
+        base, spectrum, gravity = self.tiers[shape]
+        return base.with_rigidity(rigidity), spectrum, gravity
 
     def padded_shape(self, te: float) -> tuple[int, int]:
         """Shape of the FFT grid the plate of *te* is solved on."""
         return self._problem(te)[0].shape
 
+    def _deflection_spectrum(self, te: float) -> np.ndarray:
+        problem, spectrum, _ = self._problem(te)
+        return scale_spectrum(spectrum, problem.transfer())
+
     def deflection(self, te: float) -> np.ndarray:
         """Deflection (m, positive down) of the plate of *te* under the load."""
-        problem, spectrum, _ = self._problem(te)
-        return problem.crop(problem.inverse(scale_spectrum(spectrum, problem.transfer())))
+        problem = self._problem(te)[0]
+        return problem.crop(problem.inverse(self._deflection_spectrum(te)))
 
     def model(self, te: float) -> np.ndarray:
         """The observed quantity predicted for *te*, without offset."""
         self.evaluations += 1
-        if self.quantity == "deflection":
-            return self.deflection(te)
-        if self.quantity == "surface":
-            return -self.deflection(te)
-        if self.series is not None:
-            load_grid, options = self.series
-            trial = self.plate.with_te(te)
-            result = result_dataset(load_grid, self.deflection(te), trial, {})
-            return np.asarray(model_free_air_anomaly(result, **options).values, dtype=np.float64)
-        problem, spectrum, terms = self._problem(te)
-        assert terms is not None
-        top, interfaces = terms  # both scaled by 2 pi G / (g mGal)
-        factor = top - problem.transfer() * problem.stiffness * interfaces
-        return problem.crop(problem.inverse(scale_spectrum(spectrum, factor)))
-
-
-def _check_mask(mask: Any, observed: xr.DataArray, load: xr.DataArray) -> np.ndarray:
-    values = np.asarray(observed.values, dtype=np.float64)
-    if np.isinf(values).any():
-        raise InputError(
-            f"observed has {int(np.isinf(values).sum())} infinite value(s); "
-            "use NaN for cells without data"
-        )
-    valid = ~np.isnan(values)
-    if mask is None:
-        return valid
-    check_same_grid(mask, load, "mask")
-    values = np.asarray(mask.values)
-    if values.dtype != bool:
-        if not np.all(np.isin(values, (0, 1))):
-            raise InputError("mask must be boolean (True where the data are compared)")
-        values = values.astype(bool)
-    return values & valid
-
-
-def _nuisance_fit(data: np.ndarray, model: np.ndarray, scale: bool) -> tuple[float, float, float]:
-    """Least-squares offset (and load scale) of ``data ≈ s model + c``: (rss, s, c)."""
-    d_mean = float(data.mean())
-    dc = data - d_mean
-    if not scale:
-        r = dc - (model - model.mean())
-        # einsum, not the BLAS dot: its thread start-up costs ms per call here
-        return float(np.einsum("i,i", r, r)), 1.0, d_mean - float(model.mean())
-    m_mean = float(model.mean())
-    mc = model - m_mean
-    mm = float(np.einsum("i,i", mc, mc))
-    dm = float(np.einsum("i,i", dc, mc))
-    s = dm / mm if mm > 0 else 0.0
-    rss = max(float(np.einsum("i,i", dc, dc)) - s * dm, 0.0)
-    return rss, s, d_mean - s * m_mean
-
-
-def _correlation_factor(residual: np.ndarray, inside: np.ndarray, spec: GridSpec) -> float:
-    """Sum of the residual autocorrelation over the lags of its first correlation ring.
-
-    This is the number of data per independent datum, n / n_eff, for residuals
-    correlated over an area (common practice: the correlation area taken as the
-    region where the radially averaged autocorrelation is still significantly
-    positive).
-    """
-    r = np.where(inside, residual - residual[inside].mean(), 0.0)
-    m = inside.astype(np.float64)
-    shape = tuple(scipy.fft.next_fast_len(2 * n, real=True) for n in r.shape)
-    power = scipy.fft.rfft2(r, s=shape, workers=-1)
-    pairs = scipy.fft.rfft2(m, s=shape, workers=-1)
-    auto = scipy.fft.irfft2(power * power.conj(), s=shape, workers=-1)
-    count = scipy.fft.irfft2(pairs * pairs.conj(), s=shape, workers=-1)
-    n = float(inside.sum())
-    usable = count > 0.25 * n
-    rho = np.zeros(shape)
-    rho[usable] = auto[usable] / count[usable]
-    rho /= rho[0, 0]
-    ly = np.minimum(np.arange(shape[0]), shape[0] - np.arange(shape[0]))[:, None] * spec.dy
-    lx = np.minimum(np.arange(shape[1]), shape[1] - np.arange(shape[1]))[None, :] * spec.dx
-    dist = np.hypot(ly, lx)
-    ring = np.rint(dist / max(spec.dx, spec.dy)).astype(np.int64)
-    sums = np.bincount(ring[usable], weights=rho[usable])
-    counts = np.bincount(ring[usable])
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = sums / counts
-    # first ring whose mean correlation is not significantly positive (2 standard errors of
-    # a mean over that ring's lags for uncorrelated residuals, ~1/sqrt(n * lags))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        noise_level = 2.0 / np.sqrt(n * counts)
-    flat = np.nonzero((counts > 0) & (mean <= noise_level))[0]
-    flat = flat[flat > 0]
-    stop = int(flat[0]) if flat.size else len(mean)
-    factor = float(sums[:stop].sum())
-    return min(max(factor, 1.0), n / 4.0)
-
-
-def _check_options(
-    plate: Any, quantity: Any, edges: Any, confidence: Any, samples: Any
-) -> tuple[str, str, float, int]:
-    """The scalar arguments of :func:`fit_te`, checked: (quantity, edges, confidence, samples)."""
-    if not isinstance(plate, Plate):
-        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
-    if plate.is_variable:
-        raise InputError("fit_te needs a plate of constant te; got a te grid")
-    quantity = check_choice("quantity", quantity, QUANTITIES)
-    edges = check_choice("edges", edges, EDGES)
-    level = check_number("confidence", confidence)
-    if not 0.0 < level < 1.0:
-        raise InputError(f"confidence must lie in (0, 1), got {confidence!r}")
-    return quantity, edges, level, check_integer("samples", samples, minimum=5)
-
-
-def _compared_cells(
-    observed: Any, load: xr.DataArray, mask: Any, fit_load_scale: bool
-) -> np.ndarray:
-    """Where the data are compared: inside *mask* and finite in *observed*."""
-    if not isinstance(observed, xr.DataArray):
-        raise InputError(f"observed must be an xarray.DataArray, got {type(observed).__name__}")
-    check_same_grid(observed, load, "observed")
-    inside = _check_mask(mask, observed, load)
-    n = int(inside.sum())
-    if n < _parameters(fit_load_scale) + 2:
-        raise InputError(f"only {n} cells are compared (mask and finite observed); need >= 4")
-    return inside
-
-
-def _parameters(fit_load_scale: bool) -> int:
-    """Parameters fitted: te and the offset, and the load scale."""
-    return 3 if fit_load_scale else 2
-
-
-def _gravity_model(
-    quantity: str,
-    gravity: Any,
-    plate: Plate,
-    load: xr.DataArray,
-    edges: str,
-    fit_load_scale: bool,
-) -> tuple[CrustLayers | None, tuple[xr.DataArray, dict[str, Any]] | None]:
-    """The gravity model of a free-air fit: (first-order layers, None) or (None, series)."""
-    if quantity != "free_air_anomaly":
-        return None, None
-    if isinstance(gravity, CrustLayers):
-        gravity.check_plate(plate)
-        return gravity, None
-    if isinstance(gravity, Mapping):
-        if fit_load_scale:
-            raise InputError(
-                "fit_load_scale needs a model linear in the load: use "
-                "gravity=CrustLayers(...) (first order), not the full series"
-            )
-        return None, (load, {"edges": edges, **dict(gravity)})
-    raise InputError(
-        "quantity 'free_air_anomaly' needs gravity=CrustLayers(seafloor_depth=...) "
-        "(first-order model) or a mapping of gridflex.model_free_air_anomaly keywords "
-        f"(full Parker series); got {gravity!r}"
-    )
+        gravity = self._problem(te)[2]
+        first_order = None
+        if gravity is not None:
+            first_order = lambda: gravity.anomaly(self._deflection_spectrum(te))  # noqa: E731
+        return self.rule.predict(lambda: self.deflection(te), self.plate.with_te(te), first_order)
 
 
 class _Trials:
@@ -412,13 +267,13 @@ class _Trials:
         te = float(math.exp(log_te))
         if te not in self.cache:
             model = self.forward.model(te)[self.inside]
-            self.cache[te] = _nuisance_fit(self.data, model, self.fit_load_scale)[0]
+            self.cache[te] = nuisance_fit(self.data, model, self.fit_load_scale)[0]
         return self.cache[te]
 
     def nuisance(self, te: float) -> tuple[float, float]:
         """(load scale, offset) fitted for *te*."""
         model = self.forward.model(te)[self.inside]
-        _, load_scale, offset = _nuisance_fit(self.data, model, self.fit_load_scale)
+        _, load_scale, offset = nuisance_fit(self.data, model, self.fit_load_scale)
         return load_scale, offset
 
 
@@ -431,37 +286,17 @@ def _interval(
     threshold: float,
 ) -> tuple[list[float], list[bool]]:
     """Te (m) where RSS rises by *threshold* below and above *best* (ln Te), and whether
-    each was reached inside the grid (else the grid's end is returned)."""
-
-    def excess(x: float) -> float:
-        return rss(x) - rss_min - threshold
-
+    each was reached inside the grid (else the grid's end is returned): the coarse grid
+    points beyond *best* bracket each end (their RSS is cached)."""
+    lower = [float(x) for x in grid[:best_index][::-1]] or [float(grid[0])]
+    upper = [float(x) for x in grid[best_index + 1 :]] or [float(grid[-1])]
     ends: list[float] = []
     closed: list[bool] = []
-    for side in (-1, 1):
-        idx = range(best_index - 1, -1, -1) if side < 0 else range(best_index + 1, len(grid))
-        outer = next((float(grid[j]) for j in idx if excess(float(grid[j])) > 0), None)
-        if outer is None:
-            ends.append(math.exp(float(grid[0] if side < 0 else grid[-1])))
-            closed.append(False)
-            continue
-        root = scipy.optimize.brentq(excess, min(best, outer), max(best, outer), xtol=_ROOT_XTOL)
-        ends.append(math.exp(root))
-        closed.append(True)
+    for candidates in (lower, upper):
+        end, reached = interval_end(rss, best, rss_min, threshold, candidates, _ROOT_XTOL)
+        ends.append(math.exp(end))
+        closed.append(reached)
     return ends, closed
-
-
-def _warn_if_open(closed: list[bool], confidence: float, bounds: Any) -> None:
-    if all(closed):
-        return
-    sides = [name for name, ok in zip(("lower", "upper"), closed, strict=True) if not ok]
-    warnings.warn(
-        f"the {confidence:.0%} interval of te reaches the {' and '.join(sides)} search "
-        f"bound {bounds!r} m: the data do not constrain te there; widen bounds or "
-        "report the interval as open",
-        OpenIntervalWarning,
-        stacklevel=3,
-    )
 
 
 def _misfit_curve(
@@ -478,7 +313,7 @@ def _misfit_curve(
             "scaled_increase": ("te", (rss_values - rss_min) / scale),
         },
         name="rms_misfit",
-        attrs={"units": _UNITS[quantity], "long_name": f"RMS misfit of {quantity}"},
+        attrs={"units": UNITS[quantity], "long_name": f"RMS misfit of {quantity}"},
     )
 
 
@@ -490,47 +325,17 @@ def _model_dataset(
     observed: np.ndarray,
     inside: np.ndarray,
     model: np.ndarray,
+    series: object | None,
 ) -> xr.Dataset:
     """The best model of *fit* (whose ``model`` is not yet set) as a result Dataset.
 
     *model* is the fitted model without the offset (load scale applied).
     """
-    quantity, te = fit.quantity, fit.te
-    predicted = model + fit.offset
-    attrs = _fit_attrs(fit, forward, plate)
-    ds = result_dataset(
-        load * fit.load_scale, fit.load_scale * forward.deflection(te), plate.with_te(te), attrs
-    )
-    unit_attrs = {"units": _UNITS[quantity]}
-    long_name = _LONG_NAMES[quantity]
-    ds["observed"] = (("y", "x"), observed, {**unit_attrs, "long_name": f"observed {long_name}"})
-    ds["predicted"] = (
-        ("y", "x"),
-        predicted,
-        {**unit_attrs, "long_name": f"best model {long_name}"},
-    )
-    ds["residual"] = (
-        ("y", "x"),
-        np.where(inside, observed - predicted, np.nan),
-        {**unit_attrs, "long_name": "observed minus predicted"},
-    )
-    ds["mask"] = (("y", "x"), inside, {"long_name": "cells compared in the fit"})
-    if quantity == "free_air_anomaly":
-        ds["free_air_anomaly"] = (
-            ("y", "x"),
-            model,
-            {"units": "mGal", "long_name": "free-air anomaly of the best model (no offset)"},
-        )
-    ds["deflection"].attrs = deflection_attrs()
-    return ds
-
-
-def _fit_attrs(fit: TeFit, forward: _Forward, plate: Plate) -> dict[str, Any]:
-    """Attributes of the best model: the solve, the fit and the gravity model."""
+    te = fit.te
     attrs: dict[str, Any] = {
         "solver": "spectral",
         "edges": "periodic" if forward.periodic else "infinite",
-        "padded_shape": np.array(forward.padded_shape(fit.te), dtype=np.int64),
+        "padded_shape": np.array(forward.padded_shape(te), dtype=np.int64),
         "fit_quantity": fit.quantity,
         "fit_offset": fit.offset,
         "fit_load_scale": fit.load_scale,
@@ -538,13 +343,12 @@ def _fit_attrs(fit: TeFit, forward: _Forward, plate: Plate) -> dict[str, Any]:
         "fit_te_low": fit.te_low,
         "fit_te_high": fit.te_high,
         "fit_confidence": fit.confidence,
+        **gravity_attrs(forward.layers, series, plate),
     }
-    if forward.layers is not None:
-        attrs.update({f"gravity_{k}": v for k, v in forward.layers.describe(plate).items()})
-        attrs["gravity_model"] = "first order (linear term of the Parker series)"
-    if forward.series is not None:
-        attrs["gravity_model"] = "Parker series (gridflex.model_free_air_anomaly)"
-    return attrs
+    result = result_dataset(
+        load * fit.load_scale, fit.load_scale * forward.deflection(te), plate.with_te(te), attrs
+    )
+    return best_model_dataset(result, fit.quantity, observed, inside, model, fit.offset)
 
 
 def fit_te(
@@ -553,10 +357,10 @@ def fit_te(
     plate: Plate,
     quantity: str = "deflection",
     mask: xr.DataArray | None = None,
-    bounds: tuple[float, float] = (1e3, 1e5),
+    bounds: tuple[float, float] = TE_BOUNDS,
     *,
     confidence: float = 0.95,
-    samples: int = 25,
+    samples: int = TE_SAMPLES,
     correlated_residuals: bool = True,
     fit_load_scale: bool = False,
     gravity: CrustLayers | Mapping[str, float] | None = None,
@@ -638,18 +442,20 @@ def fit_te(
     >>> round(fit.te / 1e3), fit.te_low < 20e3 < fit.te_high, round(fit.offset)
     (20, True, 3)
     """
-    quantity, edges, confidence, samples = _check_options(
-        plate, quantity, edges, confidence, samples
+    check_plate(plate, "fit_te", te_grid=False)
+    quantity, edges, confidence, samples = check_fit_options(
+        quantity, edges, confidence, samples, SPECTRAL_EDGES
     )
     low, high = check_search_bounds("bounds", bounds, "m")
     spec = check_grid(load)
-    inside = _compared_cells(observed, load, mask, fit_load_scale)
-    layers, series = _gravity_model(quantity, gravity, plate, load, edges, fit_load_scale)
+    inside = compared_cells(observed, load, mask, parameter_count(1, fit_load_scale))
+    layers, series = gravity_model(quantity, gravity, plate, load, edges, fit_load_scale)
     load_values = np.asarray(load.values, dtype=np.float64)
     if edges == "infinite":
         check_edge_load(load_values, float(np.abs(load_values).sum()))
+    rule = QuantityRule(quantity, series)
     forward = _Forward(
-        load_values, spec, plate, high, quantity, layers, edges == "periodic", pad_factor, series
+        load_values, spec, plate, high, rule, layers, edges == "periodic", pad_factor
     )
     observed_values = np.asarray(observed.values, dtype=np.float64)
     trials = _Trials(forward, observed_values, inside, fit_load_scale)
@@ -663,11 +469,11 @@ def fit_te(
     factor = 1.0
     if correlated_residuals:
         residual = np.where(inside, observed_values - (model + offset), 0.0)
-        factor = _correlation_factor(residual, inside, spec)
-    s2 = rss_min / (n - _parameters(fit_load_scale))
-    threshold = _chi2_quantile(confidence) * s2 * factor
+        factor = correlation_factor(residual, inside, spec)
+    parameters = parameter_count(1, fit_load_scale)
+    threshold, s2 = interval_threshold(rss_min, n, parameters, factor, confidence)
     ends, closed = _interval(trials.rss, grid, best_index, best_x, rss_min, threshold)
-    _warn_if_open(closed, confidence, bounds)
+    warn_if_open(closed, confidence, "te", bounds, "m")
     log.info(
         "fit_te: te = %.4g m, interval [%.4g, %.4g] m, %d forward models",
         te_best,
@@ -691,5 +497,5 @@ def fit_te(
         misfit=_misfit_curve(trials.cache, n, rss_min, s2 * factor, quantity),
         model=xr.Dataset(),  # set below, from the fit's numbers
     )
-    best = _model_dataset(fit, load, plate, forward, observed_values, inside, model)
+    best = _model_dataset(fit, load, plate, forward, observed_values, inside, model, series)
     return replace(fit, model=best)

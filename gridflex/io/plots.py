@@ -24,6 +24,7 @@ from gridflex.io.atomic import atomic_path
 if TYPE_CHECKING:  # type hints only: plots sits below fitting in the import floors
     from gridflex.estimation.admittance import SpectralFit
     from gridflex.estimation.misfit import TeFit
+    from gridflex.estimation.misfit_te_maps import TeMapFit
 
 __all__ = [
     "plot_deflection_map",
@@ -31,6 +32,7 @@ __all__ = [
     "plot_misfit",
     "plot_point_series",
     "plot_profile",
+    "plot_profiles",
     "plot_spectral_fit",
     "plot_uplift_rate_map",
 ]
@@ -322,6 +324,63 @@ def plot_misfit(
     unit = fit.misfit.attrs.get("units", "")
     ax.set_ylabel(f"RMS misfit of {fit.quantity} ({unit})")
     return _finish_curve(fig, ax, title, path, overwrite, inputs)
+
+
+def plot_profiles(
+    fit: TeMapFit,
+    path: str | Path,
+    overwrite: bool = False,
+    inputs: Iterable[str | Path] = (),
+    title: str = "Profile likelihood of the fitted parameters",
+) -> Path:
+    """The profile of each fitted parameter of a te-map fit, with its interval.
+
+    One panel per parameter: the scaled misfit increase (RSS - RSS_min) n_eff / (n s²)
+    of its profile (the other parameters re-fitted) against its value (km, or the
+    factor), the chi-squared quantile that ends the interval, the interval and the best
+    value.
+
+    Parameters
+    ----------
+    fit : gridflex.MarginFit or gridflex.ScaleFit
+        Result of :func:`gridflex.fit_te_margin` or :func:`gridflex.fit_te_scale`.
+    path : str or pathlib.Path
+        PNG file.
+    overwrite, inputs, title
+        As for every plot here (see the module notes).
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    estimates = fit.estimates
+    fig, axes = _pyplot().subplots(
+        1, len(estimates), figsize=(3.6 * len(estimates) + 0.8, 3.8), constrained_layout=True
+    )
+    for ax, (name, estimate) in zip(np.atleast_1d(axes), estimates.items(), strict=True):
+        factor, unit = (1e3, "km") if estimate.unit == "m" else (1.0, estimate.unit)
+        values = estimate.profile[name].values / factor
+        # the points evaluated (few, near the ends): markers, not a curve between them
+        ax.plot(values, estimate.profile.values, "o", ms=4, color="0.2", label="profile")
+        ax.axhline(fit.quantile, color="0.5", ls="--", lw=0.8, label="interval threshold")
+        ax.axvspan(
+            estimate.low / factor,
+            estimate.high / factor,
+            color="tab:blue",
+            alpha=0.2,
+            label=f"{fit.confidence:.0%} interval",
+        )
+        ax.axvline(estimate.value / factor, color="tab:blue", label="best")
+        ax.set_xlabel(f"{name} ({unit})" if unit != "1" else name)
+        ax.set_ylabel("(RSS - RSS_min) n_eff / (n s²)")
+        ax.set_title(
+            f"{name} = {estimate.value / factor:.4g} [{estimate.low / factor:.4g}, "
+            f"{estimate.high / factor:.4g}]",
+            fontsize=9,
+        )
+    np.atleast_1d(axes)[0].legend(loc="best", fontsize="small")
+    fig.suptitle(title, fontsize=10)
+    return _save(fig, path, overwrite, inputs)
 
 
 def plot_spectral_fit(

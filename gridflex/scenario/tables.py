@@ -32,7 +32,8 @@ from typing import Any, TypedDict, cast, overload
 
 from gridflex.constants import DEFAULT_GRAVITY, MAX_ELASTIC_THICKNESS, SEA_WATER_DENSITY
 from gridflex.engine import EDGES, METHODS
-from gridflex.estimation.misfit import QUANTITIES
+from gridflex.estimation.misfit import QUANTITIES, TE_BOUNDS, TE_SAMPLES
+from gridflex.estimation.misfit_te_maps import MAP_SAMPLES, SCALE_BOUNDS
 from gridflex.gis.geometry import RESAMPLING
 from gridflex.gis.resampling import RESULT_EXTENTS, RESULT_GRIDS
 from gridflex.infill import SEDIMENT_MODES
@@ -344,9 +345,47 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "quantity": Key("choice", "what is observed", "deflection", choices=QUANTITIES),
         "mask_file": Key("path", "NetCDF grid, non-zero where data are compared", None),
         "mask_variable": Key("string", "variable of the mask in its file", None),
-        "te_min": Key("quantity", "smallest te searched", 1.0e3, "length", minimum=0.0),
-        "te_max": Key("quantity", "largest te searched", 1.0e5, "length", minimum=0.0),
-        "samples": Key("integer", "log-spaced te of the coarse search", 25, minimum=5),
+        "te_min": Key(
+            "quantity",
+            "smallest te searched (constant te, both sides of a [margin]; "
+            f"default {TE_BOUNDS[0] / 1e3:g} km)",
+            None,
+            "length",
+            minimum=0.0,
+        ),
+        "te_max": Key(
+            "quantity",
+            f"largest te searched (default {TE_BOUNDS[1] / 1e3:g} km)",
+            None,
+            "length",
+            minimum=0.0,
+        ),
+        "scale_min": Key(
+            "number",
+            f"smallest factor on a te grid searched (default {SCALE_BOUNDS[0]:g})",
+            None,
+            minimum=0.0,
+        ),
+        "scale_max": Key(
+            "number",
+            f"largest factor on a te grid searched (default {SCALE_BOUNDS[1]:g})",
+            None,
+            minimum=0.0,
+        ),
+        "fit_line_shift": Key(
+            "bool", "also fit the position of the [margin] line (moved perpendicular to it)", False
+        ),
+        "line_shift_min": Key(
+            "quantity", "smallest shift of the line (towards its left: negative)", None, "length"
+        ),
+        "line_shift_max": Key("quantity", "largest shift of the line", None, "length"),
+        "samples": Key(
+            "integer",
+            f"coarse values of the search (default {TE_SAMPLES} for a constant te, "
+            f"{MAP_SAMPLES} per parameter for a te map)",
+            None,
+            minimum=5,
+        ),
         "confidence": Key("number", "confidence level of the te interval", 0.95, minimum=0.0),
         "correlated_residuals": Key("bool", "widen the interval for correlated residuals", True),
         "fit_load_scale": Key(
@@ -529,9 +568,14 @@ class FitTable(TypedDict):
     quantity: str
     mask_file: Path | None
     mask_variable: str | None
-    te_min: float
-    te_max: float
-    samples: int
+    te_min: float | None
+    te_max: float | None
+    scale_min: float | None
+    scale_max: float | None
+    fit_line_shift: bool
+    line_shift_min: float | None
+    line_shift_max: float | None
+    samples: int | None
     confidence: float
     correlated_residuals: bool
     fit_load_scale: bool

@@ -17,6 +17,7 @@ from rasterio.crs import CRS
 from gridflex.engine import solve
 from gridflex.errors import CompensationOutsideWarning, InputError
 from gridflex.gis.geometry import GridGeometry
+from gridflex.grid import check_same_grid
 from gridflex.io.netcdf import as_output_dtype, write_netcdf
 from gridflex.io.plots import plot_deflection_map, plot_field_map, plot_profile
 from gridflex.io.rasters import write_geotiff
@@ -45,6 +46,7 @@ from gridflex.workflows.scenario_tables import array_table
 
 __all__ = [
     "RunOutcome",  # defined in gridflex.workflows.outcome; kept here for existing imports
+    "broken_cells",
     "elastic_thickness_from_scenario",
     "output_dataset",
     "plate_from_scenario",
@@ -89,8 +91,26 @@ def elastic_thickness_from_scenario(
         return float(table["elastic_thickness"])
     if like is None:
         raise InputError(f"{scenario.where('plate')}: a Te grid needs the load grid")
-    working = None if grid is None else grid.working
-    return with_breaks(scenario, _te_grid(scenario, like, working), like, working)
+    te = _te_grid(scenario, like, None if grid is None else grid.working)
+    broken = broken_cells(scenario, like, grid)
+    return te if broken is None else broken_te(te, broken)
+
+
+def broken_cells(
+    scenario: Scenario, like: xr.DataArray, grid: WorkingGrid | None = None
+) -> xr.DataArray | None:
+    """The cells of every ``[[breaks]]`` entry (True: te = 0) on *like*'s grid, or None.
+
+    Mask files are resampled onto *like*'s grid by nearest neighbour (*grid*: the
+    geometry of the working grid, when the layers were resampled); lines are drawn in its
+    projected coordinates (m).
+
+    Raises
+    ------
+    InputError
+        A mask not on the load grid or a bad line; the message names the entry.
+    """
+    return _broken_on(scenario, like, None if grid is None else grid.working)
 
 
 def with_breaks(
@@ -108,7 +128,19 @@ def with_breaks(
     InputError
         A bad line or mask; the message names the ``[[breaks]]`` entry.
     """
-    for index, item in enumerate(array_table(scenario, "breaks")):
+    broken = _broken_on(scenario, like, working)
+    return te if broken is None else broken_te(te, broken)
+
+
+def _broken_on(
+    scenario: Scenario, like: xr.DataArray, working: GridGeometry | None
+) -> xr.DataArray | None:
+    """The break cells of :func:`broken_cells` for a working geometry (or None)."""
+    breaks = array_table(scenario, "breaks")
+    if not breaks:
+        return None
+    broken = np.zeros(like.shape, dtype=bool)
+    for index, item in enumerate(breaks):
         where = scenario.where("breaks", index=index)
         if item["file"] is not None:
             mask = read_grid_input(
@@ -120,13 +152,16 @@ def with_breaks(
                 working=working,
                 resampling="nearest",
             )
-            broken = mask != 0
+            cells = mask != 0
         else:
             with error_context(where):
-                broken = break_mask(like, [item["line"]], item["width"])
+                cells = break_mask(like, [item["line"]], item["width"])
         with error_context(where):
-            te = broken_te(te, broken)
-    return te
+            check_same_grid(cells, like, "break mask")
+        broken |= np.asarray(cells.values, dtype=bool)
+    out = like.copy(data=broken)
+    out.attrs = {"long_name": "broken plate (te = 0)"}
+    return out.rename("broken")
 
 
 def _te_grid(scenario: Scenario, like: xr.DataArray, working: GridGeometry | None) -> xr.DataArray:

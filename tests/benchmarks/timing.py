@@ -34,3 +34,16 @@ def gaussian_seamount_load(n: int, dx: float) -> xr.DataArray:
         dims=("y", "x"),
         coords={"y": x, "x": x},
     )
+
+
+def margin_seamounts_load(n: int, dx: float) -> xr.DataArray:
+    """Invented load (Pa) of the te-map fits: two Gaussian seamounts 2.5 km high, 15 km wide,
+    of density contrast 1770 kg m⁻³, at (-60, 20) km and (60, -20) km, one on each side of
+    the line x = 0, on an n × n grid of spacing *dx* (m) centred on the origin."""
+    x = (np.arange(n) - n / 2) * dx
+    xx, yy = np.meshgrid(x, x)
+    height = sum(
+        2500.0 * np.exp(-((xx - cx) ** 2 + (yy - cy) ** 2) / (2 * 15e3**2))
+        for cx, cy in ((-60e3, 20e3), (60e3, -20e3))
+    )
+    return xr.DataArray(height * 1770.0 * 9.81, dims=("y", "x"), coords={"y": x, "x": x})

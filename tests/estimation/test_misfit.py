@@ -11,10 +11,10 @@ import xarray as xr
 from numpy.testing import assert_allclose
 
 import gridflex
-from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
 from gridflex.errors import InputError
 from gridflex.estimation.misfit import OpenIntervalWarning, fit_te
 from gridflex.gravity.first_order import CrustLayers, compensation_factor
+from tests.helpers import linear_free_air
 
 TRUE_TE = 23.4e3
 N, DX = 96, 6e3
@@ -110,29 +110,10 @@ def test_surface_with_mask_ignores_masked_cells(synthetic):
     assert np.isnan(fit.model["residual"].values[r <= 40e3]).all()
 
 
-def _linear_free_air(load, w, plate, layers):
-    """Independent first-order free-air anomaly (mGal): Parker (1973) n = 1 term for each
-    interface (PHYSICS.md 6.1, 6.3): load mass q/g on the sea floor, top of crust
-    (rho_c - rho_f) and Moho (rho_m - rho_c) displaced down by w."""
-    ny, nx = load.shape
-    shape = (4 * ny, 4 * nx)  # zero padding: an isolated load
-    ky = 2 * np.pi * scipy.fft.fftfreq(shape[0], DX)[:, None]
-    kx = 2 * np.pi * scipy.fft.rfftfreq(shape[1], DX)[None, :]
-    k = np.hypot(ky, kx)
-    top = np.exp(-k * layers.seafloor_depth)
-    moho = np.exp(-k * (layers.seafloor_depth + layers.crust_thickness))
-    mass = scipy.fft.rfft2(load.values / plate.gravity, s=shape)
-    wk = scipy.fft.rfft2(w.values, s=shape)
-    spec = top * mass - (layers.crust_density - plate.infill_density) * top * wk
-    spec -= (plate.mantle_density - layers.crust_density) * moho * wk
-    field = scipy.fft.irfft2(2 * np.pi * GRAVITATIONAL_CONSTANT * spec, s=shape)
-    return _grid(field[:ny, :nx] / MGAL)
-
-
 def test_free_air_anomaly_recovers_te(synthetic):
     load, plate, w, _, _ = synthetic
     layers = CrustLayers(seafloor_depth=4500.0, crust_thickness=6000.0, crust_density=2800.0)
-    anomaly = _linear_free_air(load, w, plate, layers)
+    anomaly = linear_free_air(load, w, plate, layers)
     rng = np.random.default_rng(11)
     sigma = 0.05 * float(np.abs(anomaly).max())
     observed = anomaly + sigma * rng.standard_normal(anomaly.shape) + 3.0
@@ -143,7 +124,7 @@ def test_free_air_anomaly_recovers_te(synthetic):
         quantity="free_air_anomaly",
         gravity=CrustLayers(seafloor_depth=4500.0, crust_thickness=6000.0, crust_density=2800.0),
     )
-    # synthetic recovery against an independent gravity computation (see _linear_free_air)
+    # synthetic recovery against an independent gravity computation (helpers.linear_free_air)
     assert_allclose(fit.te, TRUE_TE, rtol=0.05)
     assert fit.te_low < TRUE_TE < fit.te_high
     assert abs(fit.offset - 3.0) < 5 * sigma / N

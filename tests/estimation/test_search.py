@@ -8,7 +8,12 @@ import numpy as np
 import pytest
 
 from gridflex.errors import InputError
-from gridflex.estimation.search import check_search_bounds, grid_then_refine
+from gridflex.estimation.search import (
+    check_search_bounds,
+    grid_then_refine,
+    refine_least_squares,
+    scan_groups,
+)
 
 
 def test_refines_between_the_best_grid_point_and_its_neighbours():
@@ -46,3 +51,34 @@ def test_bad_bounds_are_named_with_their_value(bounds, match):
 
 def test_good_bounds_come_back_as_floats():
     assert check_search_bounds("bounds", (np.int64(1), 2)) == (1.0, 2.0)
+
+
+def test_scans_then_least_squares_find_a_two_parameter_minimum():
+    # residuals r = A u - b, linear least squares (exact algebra): the scans reach the
+    # right neighbourhood, the refinement the minimiser, its Jacobian is A
+    a = np.array([[2.0, 0.5], [0.3, 1.5], [1.0, -1.0]])
+    truth = np.array([0.37, 0.62])
+    b = a @ truth + np.array([0.01, -0.02, 0.015])
+
+    def residuals(u):
+        return a @ u - b
+
+    calls = []
+    start = scan_groups(
+        lambda u: float(residuals(u) @ residuals(u)),
+        np.array([0.5, 0.5]),
+        [(0, 1), (0,), (1,)],
+        5,
+        progress=lambda d, t: calls.append((d, t)),
+    )
+    assert calls[-1] == (15, 15)
+    point, jacobian = refine_least_squares(residuals, start, diff_step=1e-3, xtol=1e-10, ftol=1e-12)
+    expected = np.linalg.lstsq(a, b, rcond=None)[0]
+    assert point == pytest.approx(expected, abs=1e-6)
+    assert jacobian == pytest.approx(a, abs=1e-6)
+
+
+def test_bounds_of_a_linear_range_may_be_negative():
+    assert check_search_bounds("shift", (-3.0, 2.0), "m", positive=False) == (-3.0, 2.0)
+    with pytest.raises(InputError, match=r"shift must satisfy low < high \(m\)"):
+        check_search_bounds("shift", (2.0, -3.0), "m", positive=False)
