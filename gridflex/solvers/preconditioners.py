@@ -548,19 +548,26 @@ class MultiplicativePreconditioner:
         """A start x₀ and its residual b − K x₀, which is zero on the band (set exactly).
 
         Without *start*, x₀ = B b (exact on the band, zero elsewhere). With *start* (a
-        previous deflection, say), x₀ is *start* corrected on the band by B (b − K start),
-        its residual taken with *apply* (the full operator, :meth:`PlateOperator.apply`
-        by default).
+        previous deflection, say), x₀ is ξ *start* with the ξ that minimises the energy
+        norm of the error along it, ξ = s·b / s·K s (zero when that is not positive, so a
+        start is never worse than none, even for a load that has all but vanished; the
+        "Hegedüs trick", Liesen & Strakoš 2013, "Krylov Subspace Methods", from memory),
+        then corrected on the band by B (b − K x₀); its residual is taken with *apply*
+        (the full operator, :meth:`PlateOperator.apply` by default).
         """
         band = self.band
-        if start is None:
-            x = np.zeros(rhs.shape)
-            residual = rhs.copy()
-        else:
-            x = np.array(start, dtype=np.float64, copy=True).reshape(rhs.shape)
+        x = np.zeros(rhs.shape)
+        residual = rhs.copy()
+        if start is not None:
+            s = np.asarray(start, dtype=np.float64).reshape(rhs.shape)
             product = np.empty(rhs.shape)
-            (self.operator.apply if apply is None else apply)(x, product)
-            residual = np.subtract(rhs, product, out=product)
+            (self.operator.apply if apply is None else apply)(s, product)
+            energy = dot(s, product)
+            xi = dot(s, rhs) / energy if energy > 0 else 0.0
+            if xi > 0:
+                np.multiply(s, xi, out=x)
+                product *= xi
+                residual = np.subtract(rhs, product, out=product)
         if band.size == 0:
             return x, residual
         on_band = band.solve_band(residual.ravel()[band.nodes])

@@ -18,6 +18,7 @@ from gridflex.plate import rigidity_from_te
 from gridflex.solvers import row_blocks
 from gridflex.solvers.finite_difference import (
     AXIS_EDGES,
+    FiniteDifferenceSolver,
     PlateOperator,
     area_weights,
     finite_difference_deflection,
@@ -422,3 +423,22 @@ def test_unreachable_tolerance_stops_at_the_round_off_limit(caplog):
     exact = scipy.sparse.linalg.spsolve(operator.matrix().tocsc(), (operator.area * load).ravel())
     error = np.abs(w.ravel() - exact).max() / np.abs(exact).max()
     assert error <= min(info["accuracy"], 1e-8)  # seen 1.1e-9 (the direct solve's own)
+
+
+def test_warm_start_is_scaled_so_a_vanishing_load_still_converges() -> None:
+    """A start far larger than the solution (the previous deflection when the load has
+    all but vanished) is scaled along itself first (ξ = s·b / s·Ks), so it is never worse
+    than no start (K linear: common practice)."""
+    n, h = 64, 8e3
+    spec = GridSpec(ny=n, nx=n, dy=h, dx=h)
+    x = np.arange(n) * h
+    te = np.where(x[None, :] < 0.5 * n * h, 10e3, 40e3) * np.ones((n, 1))
+    rigidity = rigidity_from_te(te, 7e10, NU)
+    load = np.zeros((n, n))
+    load[28:36, 24:32] = 1e7
+    solver = FiniteDifferenceSolver.build(spec, rigidity, RHO_G, NU)
+    w, _ = solver.solve(load)
+    tiny, info = solver.solve(load * 1e-29, start=w)
+    assert_allclose(tiny, w * 1e-29, rtol=0, atol=1e-6 * float(np.abs(w).max()) * 1e-29)
+    double, _ = solver.solve(2.0 * load, start=w)
+    assert_allclose(double, 2.0 * w, rtol=0, atol=1e-6 * float(np.abs(w).max()))
