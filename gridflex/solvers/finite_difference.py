@@ -78,9 +78,13 @@ error reached 2e-6 of the peak, at 1e-5 6e-8."""
 DEFAULT_MAX_ITERATIONS = 300
 """Iteration limit before :class:`~gridflex.errors.ConvergenceError` is raised."""
 
-DEFAULT_MAX_BAND_NODES = 400_000
-"""Cap on the band size (nodes). Beyond it the band width is halved until it fits; if even
-the sharp nodes alone do not fit, the solve runs with the blend alone (more iterations)."""
+DEFAULT_MAX_BAND_NODES = 1_000_000
+"""Cap on the band size (nodes). Beyond it the band widths shrink until it fits
+(:data:`~gridflex.solvers.rigidity_features.BAND_SHRINK`); if even the sharp nodes alone
+do not fit, the solve runs with the blend alone (more iterations). Raised from 400 k with
+the wider bands of :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`;
+the LU memory cap (:data:`~gridflex.solvers.rigidity_features.MAX_FACTOR_BYTES`) usually
+binds first."""
 
 
 def _ramp(count: int) -> np.ndarray:
@@ -565,7 +569,7 @@ def finite_difference_deflection(
         :data:`BREAK_FLEXURAL_PARAMETERS` next to a break, and at least
         :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS` of the
         stiff side of a jump or a break).
-    max_band_nodes : int, default 400000
+    max_band_nodes : int, default 1000000
         Cap on the band size; see :func:`~gridflex.solvers.rigidity_features.sharp_band`.
     progress : callable, optional
         Called with (iterations done, iteration limit) after each iteration and with

@@ -19,6 +19,7 @@ from gridflex.solvers.plate_operator import PlateOperator
 
 __all__ = [
     "BAND_FLEXURAL_PARAMETERS",
+    "BAND_SHRINK",
     "BREAK_FLEXURAL_PARAMETERS",
     "FACTOR_BYTES_PER_NODE_CELL",
     "MAX_FACTOR_BYTES",
@@ -80,11 +81,17 @@ band) but saves more in iterations, up to the band caps (:data:`MAX_FACTOR_BYTES
 MAX_FACTOR_BYTES = 1.5 * 2**30
 """Cap on the estimated memory of the band's LU factors (bytes)."""
 
-FACTOR_BYTES_PER_NODE_CELL = 60.0
-"""Estimated LU factor memory per band node and per node across the band (bytes): COLAMD
-fill measured at 3-5 non-zeros per node per cell of band width, 12 bytes each. The symmetric
-ordering now used fills less (22 M against 36 M entries on the benchmark's step at 1024²),
-so the estimate errs on the safe side."""
+FACTOR_BYTES_PER_NODE_CELL = 25.0
+"""Estimated LU factor memory per band node and per node across the band (bytes), with the
+symmetric ordering used (MMD on K + Kᵀ): measured 1634 bytes per node on the hinge network
+of tests/benchmarks/variable.py at 1024² (band of 250 k nodes, 82 nodes across, 34 M
+entries of 12 bytes), 20 per node per cell; 25 errs on the safe side. (COLAMD filled 3-5
+non-zeros per node per cell, 60 bytes.)"""
+
+BAND_SHRINK = 0.75
+"""Factor by which the band widths shrink until the band fits its caps (was 0.5: the weak
+zone of tests/benchmarks/variable.py at 2048² fell from a 443 k band to 248 k nodes under a
+400 k cap, and from 8 to 20 iterations)."""
 
 
 @dataclass(frozen=True)
@@ -226,7 +233,8 @@ def sharp_band(
     width : float
         Distance (m) by which the sharp nodes are widened (the largest, with *widths*).
     max_nodes : int
-        Cap on the band size. The width is halved until the band fits, in nodes and in the
+        Cap on the band size. The width shrinks (:data:`BAND_SHRINK`) until the band fits,
+        in nodes and in the
         estimated memory of its LU factors (:data:`MAX_FACTOR_BYTES`), down to one
         spacing; if even that does not fit, the band is empty and the blend works alone.
     sharp : numpy.ndarray of bool, optional
@@ -279,7 +287,7 @@ def sharp_band(
             return np.flatnonzero(band), width, sharp
         if width <= minimum:
             break
-        width = max(0.5 * width, minimum)
+        width = max(BAND_SHRINK * width, minimum)
     log.warning(
         "the sharp features alone (%d nodes, about %.1f GiB of LU factors) exceed the band "
         "cap (%d nodes, %.1f GiB); solving without the band (more iterations)",
