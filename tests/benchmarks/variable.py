@@ -22,6 +22,25 @@ Cases (invented; rigidity ratios are te ratios cubed):
                 third of 400 km ending inside at both ends
   step_sharp    te 5 -> 50 km in one cell
 
+Measured (``--refine``, 2048 km domain, default tolerance; iterations at 256² / 512² /
+1024² / 2048², on a shared 2-core machine):
+
+  ==============  ====================  ========================  =====================
+  case            one band width: 3     per-node band, at least   same, caps calibrated
+                  weak-side flexural    1 stiff-side flexural     (2048²: band nodes,
+                  parameters (before)   parameter                 peak memory)
+  ==============  ====================  ========================  =====================
+  weak_zone       26 / 44 / - / -       7 / 8 / 8 / 20 (capped)   9 (437 k, 2.5 GB)
+  margin_hinges   19 / 56 / - / -       17 / 17 / 18 / -          34 (611 k, 2.8 GB)
+  hinge_network   23 / 28 / - / -       7 / 9 / 10 / 62 (capped)  23 (568 k, 2.4 GB)
+  step_sharp      13 / - / - / -        9 / 10 / 10 / -           14 (419 k, 2.7 GB)
+  smooth          20 / - / - / -        20 / 20 / 20 / -          (no band)
+  ==============  ====================  ========================  =====================
+
+At 2048² the bands meet the LU memory cap and shrink, so the iterations grow there (the
+margin with hinges 18 -> 34); a coarse correction, not a wider band, is what would keep
+them flat beyond (not tried).
+
 Usage::
 
     python tests/benchmarks/variable.py                      # 512, 1024, 2048; 2 km cells
