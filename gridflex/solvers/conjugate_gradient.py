@@ -1,7 +1,6 @@
 """Preconditioned conjugate gradients to a stated accuracy of the solution, estimated from the
 CG coefficients, with the true residual and the normwise backward error recomputed at the end.
 
-
 The vectors live in arrays allocated once; the updates of an iteration are fused into two
 passes over memory in cache-sized row blocks shared among threads
 (:mod:`gridflex.solvers.row_blocks`).

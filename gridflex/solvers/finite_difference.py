@@ -78,9 +78,13 @@ error reached 2e-6 of the peak, at 1e-5 6e-8."""
 DEFAULT_MAX_ITERATIONS = 300
 """Iteration limit before :class:`~gridflex.errors.ConvergenceError` is raised."""
 
-DEFAULT_MAX_BAND_NODES = 400_000
-"""Cap on the band size (nodes). Beyond it the band width is halved until it fits; if even
-the sharp nodes alone do not fit, the solve runs with the blend alone (more iterations)."""
+DEFAULT_MAX_BAND_NODES = 1_000_000
+"""Cap on the band size (nodes). Beyond it the band widths shrink until it fits
+(:data:`~gridflex.solvers.rigidity_features.BAND_SHRINK`); if even the sharp nodes alone
+do not fit, the solve runs with the blend alone (more iterations). Raised from 400 k with
+the wider bands of :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`;
+the LU memory cap (:data:`~gridflex.solvers.rigidity_features.MAX_FACTOR_BYTES`) usually
+binds first."""
 
 
 def _ramp(count: int) -> np.ndarray:
@@ -224,10 +228,11 @@ def _preconditioner(
     solve would need the term's dense matrix) and the blend's levels include the term."""
     if spectral_term is None:
         features = find_sharp_features(operator)
-        if band_width is None:
-            band_width = features.band_width
+        widths = None
+        if band_width is None:  # each sharp node's own width (SharpFeatures.widths)
+            band_width, widths = features.band_width, features.widths
         nodes, width_used, _ = sharp_band(
-            operator, float(band_width), int(max_band_nodes), features.nodes
+            operator, float(band_width), int(max_band_nodes), features.nodes, widths
         )
     else:
         nodes, width_used = np.zeros(0, dtype=np.int64), 0.0
@@ -568,12 +573,15 @@ def finite_difference_deflection(
     max_iterations : int, default 300
         Iteration limit.
     band_width : float, optional
-        Width (m) of the exact-solve band round sharp features; by default the widest the
-        features call for (:attr:`~gridflex.solvers.rigidity_features.SharpFeatures.band_width`:
+        Width (m) of the exact-solve band round sharp features, the same everywhere. By
+        default each sharp node gets the width its features call for
+        (:attr:`~gridflex.solvers.rigidity_features.SharpFeatures.widths`:
         :data:`BAND_FLEXURAL_PARAMETERS` flexural parameters of the weak side of a jump,
         :data:`STEEP_FLEXURAL_PARAMETERS` at a steep change or grid edge,
-        :data:`BREAK_FLEXURAL_PARAMETERS` next to a break).
-    max_band_nodes : int, default 400000
+        :data:`BREAK_FLEXURAL_PARAMETERS` next to a break, and at least
+        :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS` of the
+        stiff side of a jump or a break).
+    max_band_nodes : int, default 1000000
         Cap on the band size; see :func:`~gridflex.solvers.rigidity_features.sharp_band`.
     progress : callable, optional
         Called with (iterations done, iteration limit) after each iteration and with

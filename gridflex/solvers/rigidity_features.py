@@ -19,12 +19,14 @@ from gridflex.solvers.plate_operator import PlateOperator
 
 __all__ = [
     "BAND_FLEXURAL_PARAMETERS",
+    "BAND_SHRINK",
     "BREAK_FLEXURAL_PARAMETERS",
     "FACTOR_BYTES_PER_NODE_CELL",
     "MAX_FACTOR_BYTES",
     "SHARP_RATIO",
     "STEEP_FLEXURAL_PARAMETERS",
     "STEEP_WINDOW",
+    "STIFF_SIDE_FLEXURAL_PARAMETERS",
     "SharpFeatures",
     "find_sharp_features",
     "sharp_band",
@@ -58,14 +60,38 @@ BREAK_FLEXURAL_PARAMETERS = 0.35
 plate (measured on a hinge line crossing a 512² grid of 2 km cells: 1 -> 7 iterations,
 0.5 -> 12, 0.25 -> 17; the narrower band is cheaper overall)."""
 
+STIFF_SIDE_FLEXURAL_PARAMETERS = 1.0
+"""Least width of the band round a rigidity jump or a break, in flexural parameters of the
+stiffest plate next to it (each sharp node gets its own width, the largest its rules ask
+for: this one, or the weak-side rules above). The band then reaches a fixed distance into
+the stiff plate, in which the slow modes of the blend (the stiff plate bending round the
+weak feature) are solved exactly, so that the iterations stop growing with refinement.
+
+Measured with tests/benchmarks/variable.py on a 2048 km domain at 512² (4 km cells),
+iterations to the default tolerance. One width for the whole grid: 20 km zone of te 0.5 km
+in a 25 km plate (the former default 11 km, 0.16 of the stiff flexural parameter) 44, at
+22 km 26, at 44 km 14; te 5 -> 50 km margin crossed by hinges (31 km) 56, at 42 km 40, at
+84 km 20. Per node with this rule, at 0.5 / 0.75 / 1.0: margin with hinges 30 / 21 / 17
+(band 45 k / 52 k / 59 k nodes, solve 15.6 / 10.1 / 7.4 s); at 1.0 the weak zone 8 (band
+27 k), a network of crossing and ending hinges 9 (65 k), a sharp te 5 -> 50 km step 10 (48 k);
+at 0.5 they took 18, 20 and (at 1024²) 14. The wider band costs set-up time (the LU of the
+band) but saves more in iterations, up to the band caps (:data:`MAX_FACTOR_BYTES`,
+``max_band_nodes``)."""
+
 MAX_FACTOR_BYTES = 1.5 * 2**30
 """Cap on the estimated memory of the band's LU factors (bytes)."""
 
-FACTOR_BYTES_PER_NODE_CELL = 60.0
-"""Estimated LU factor memory per band node and per node across the band (bytes): COLAMD
-fill measured at 3-5 non-zeros per node per cell of band width, 12 bytes each. The symmetric
-ordering now used fills less (22 M against 36 M entries on the benchmark's step at 1024²),
-so the estimate errs on the safe side."""
+FACTOR_BYTES_PER_NODE_CELL = 25.0
+"""Estimated LU factor memory per band node and per node across the band (bytes), with the
+symmetric ordering used (MMD on K + Kᵀ): measured 1634 bytes per node on the hinge network
+of tests/benchmarks/variable.py at 1024² (band of 250 k nodes, 82 nodes across, 34 M
+entries of 12 bytes), 20 per node per cell; 25 errs on the safe side. (COLAMD filled 3-5
+non-zeros per node per cell, 60 bytes.)"""
+
+BAND_SHRINK = 0.75
+"""Factor by which the band widths shrink until the band fits its caps (was 0.5: the weak
+zone of tests/benchmarks/variable.py at 2048² fell from a 443 k band to 248 k nodes under a
+400 k cap, and from 8 to 20 iterations)."""
 
 
 @dataclass(frozen=True)
@@ -81,11 +107,16 @@ class SharpFeatures:
         :data:`BAND_FLEXURAL_PARAMETERS` flexural parameters of the weakest non-zero
         rigidity next to a jump, :data:`STEEP_FLEXURAL_PARAMETERS` of the weakest at a steep
         change or a grid edge, :data:`BREAK_FLEXURAL_PARAMETERS` of the weakest plate next
-        to a break; 0 without sharp nodes.
+        to a break, or :data:`STIFF_SIDE_FLEXURAL_PARAMETERS` of the stiffest next to a
+        jump or a break; 0 without sharp nodes.
+    widths : numpy.ndarray of float32, shape (ny, nx), optional
+        The width (m) each sharp node asks for by the same rules, taken at the node (its
+        weakest and stiffest neighbours); 0 elsewhere.
     """
 
     nodes: np.ndarray
     band_width: float
+    widths: np.ndarray | None = None
 
 
 def _modes(operator: PlateOperator) -> list[str]:
@@ -166,20 +197,32 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
     jump = jumpy & ~touches_zero
     gentle = (steep | edge_nodes) & ~touches_zero & ~jump
     at_break = sharp & touches_zero & np.isfinite(weakest_next)
-    width = 0.0
+    strongest_next = _extreme3(rigidity, modes, True)
+    widths = np.zeros(rigidity.shape, dtype=np.float32)
     for mask, factor in (
         (jump, BAND_FLEXURAL_PARAMETERS),
         (gentle, STEEP_FLEXURAL_PARAMETERS),
         (at_break, BREAK_FLEXURAL_PARAMETERS),
     ):
         if mask.any():
-            weak = float(np.min(weakest_next, where=mask, initial=np.inf))
-            width = max(width, factor * _flexural_parameter(weak, operator.stiffness))
-    return SharpFeatures(sharp, width)
+            local = factor * _flexural_parameter_grid(weakest_next[mask], operator.stiffness)
+            if factor != STEEP_FLEXURAL_PARAMETERS:
+                stiff = _flexural_parameter_grid(strongest_next[mask], operator.stiffness)
+                np.maximum(local, STIFF_SIDE_FLEXURAL_PARAMETERS * stiff, out=local)
+            widths[mask] = np.maximum(widths[mask], local)
+    return SharpFeatures(sharp, float(widths.max()), widths)
+
+
+def _flexural_parameter_grid(rigidity: np.ndarray, stiffness: float) -> np.ndarray:
+    return np.power(np.float32(4.0 / stiffness) * rigidity, np.float32(0.25))
 
 
 def sharp_band(
-    operator: PlateOperator, width: float, max_nodes: int, sharp: np.ndarray | None = None
+    operator: PlateOperator,
+    width: float,
+    max_nodes: int,
+    sharp: np.ndarray | None = None,
+    widths: np.ndarray | None = None,
 ) -> tuple[np.ndarray, float, np.ndarray]:
     """Nodes within *width* (m) of a sharp feature; the width shrinks to respect *max_nodes*.
 
@@ -188,20 +231,26 @@ def sharp_band(
     operator : PlateOperator
         The operator whose rigidity and edges define the features.
     width : float
-        Distance (m) by which the sharp nodes are widened.
+        Distance (m) by which the sharp nodes are widened (the largest, with *widths*).
     max_nodes : int
-        Cap on the band size. The width is halved until the band fits, in nodes and in the
+        Cap on the band size. The width shrinks (:data:`BAND_SHRINK`) until the band fits,
+        in nodes and in the
         estimated memory of its LU factors (:data:`MAX_FACTOR_BYTES`), down to one
         spacing; if even that does not fit, the band is empty and the blend works alone.
     sharp : numpy.ndarray of bool, optional
         The sharp nodes if already found (:func:`find_sharp_features`).
+    widths : numpy.ndarray, optional
+        A width (m) per sharp node (:attr:`SharpFeatures.widths`): a node joins the band
+        when it lies within the width of its nearest sharp node (all scaled down
+        together by the cap); *width* alone by default.
 
     Returns
     -------
     nodes : numpy.ndarray of int
         Sorted flat indices of the band.
     width : float
-        The width used (m); 0 when the band was dropped or there is no sharp feature.
+        The largest width used (m); 0 when the band was dropped or there is no sharp
+        feature.
     sharp : numpy.ndarray of bool, shape (ny, nx)
         The sharp nodes before widening.
     """
@@ -209,19 +258,36 @@ def sharp_band(
         sharp = find_sharp_features(operator).nodes
     if not sharp.any():
         return np.zeros(0, dtype=np.int64), 0.0, sharp
-    distance = scipy.ndimage.distance_transform_edt(~sharp, sampling=(operator.dy, operator.dx))
+    sampling = (operator.dy, operator.dx)
     minimum = max(operator.dx, operator.dy)
     width = max(float(width), minimum)
+    if widths is None:
+        distance = scipy.ndimage.distance_transform_edt(~sharp, sampling=sampling)
+    else:
+        nearest = np.empty((2, *sharp.shape), dtype=np.int32)
+        distance = scipy.ndimage.distance_transform_edt(
+            ~sharp, sampling=sampling, return_indices=True, indices=nearest
+        )
+        # distance relative to the nearest sharp node's own width (<= 1 inside its band)
+        reach = widths[nearest[0], nearest[1]]
+        del nearest
+        np.maximum(reach, np.float32(minimum), out=reach)
+        distance /= reach
+        distance *= width  # in metres at the largest width
     spacing = min(operator.dx, operator.dy)
+    largest = width
     while True:
         band = distance <= width
         count = int(np.count_nonzero(band))
-        factor_bytes = FACTOR_BYTES_PER_NODE_CELL * count * (2.0 * width / spacing + 1.0)
+        across = width  # the band's width; with *widths*, its mean over the band
+        if widths is not None and count:
+            across = float(reach[band].mean()) * width / largest
+        factor_bytes = FACTOR_BYTES_PER_NODE_CELL * count * (2.0 * across / spacing + 1.0)
         if count <= max_nodes and factor_bytes <= MAX_FACTOR_BYTES:
             return np.flatnonzero(band), width, sharp
         if width <= minimum:
             break
-        width = max(0.5 * width, minimum)
+        width = max(BAND_SHRINK * width, minimum)
     log.warning(
         "the sharp features alone (%d nodes, about %.1f GiB of LU factors) exceed the band "
         "cap (%d nodes, %.1f GiB); solving without the band (more iterations)",

@@ -1,22 +1,55 @@
-"""Benchmark: variable-te finite-difference solves against a spectral solve and spsolve.
+"""Benchmark: variable-te finite-difference solves against a spectral solve, spsolve and a
+sparse Cholesky factorisation.
 
 Not collected by pytest. Each (size, case) runs in a fresh child process so that its peak
-memory (ru_maxrss) is its own; inside the child the spectral baseline and (where it fits)
-scipy.sparse.linalg.spsolve on the same operator run too, so the ratios are same-process.
+memory (ru_maxrss) is its own; inside the child the spectral baseline and (where they fit)
+scipy.sparse.linalg.spsolve and a CHOLMOD sparse Cholesky (scikit-sparse, if installed: it
+builds against the Debian package libsuitesparse-dev; never a dependency of gridflex or its
+tests) on the same operator run too, so the ratios are same-process. The largest difference
+from the direct solve is given relative to its peak.
 
-Cases (invented, factor-10 te contrast = 1000-fold rigidity unless said):
-  smooth      te 6 -> 60 km, tanh margin of half-width 80 km
-  step        te 6 -> 60 km over three cells
-  hinge_cross te 30 km with a te = 0 line crossing the grid
-  hinge_end   te 30 km with a te = 0 line of 400 km ending inside the plate
-  hinge_diag  te 30 km with a diagonal te = 0 line across the grid
-  weak        te 30 km with a 60 km wide zone of te 3 km
+Cases (invented; rigidity ratios are te ratios cubed):
+  smooth        te 6 -> 60 km, tanh margin of half-width 80 km
+  step          te 6 -> 60 km over three cells
+  hinge_cross   te 30 km with a te = 0 line crossing the grid
+  hinge_end     te 30 km with a te = 0 line of 400 km ending inside the plate
+  hinge_diag    te 30 km with a diagonal te = 0 line across the grid
+  weak          te 30 km with a 60 km wide zone of te 3 km
+  weak_zone     te 25 km with a 20 km wide zone of te 0.5 km (fixed width under refinement)
+  margin_hinges te 5 -> 50 km, tanh margin of half-width 40 km, crossed by a te = 0 line
+                across the grid and by one of 500 km that crosses it and ends inside
+  hinge_network te 30 km with two te = 0 lines crossing each other across the grid and a
+                third of 400 km ending inside at both ends
+  step_sharp    te 5 -> 50 km in one cell
+
+Measured (``--refine``, 2048 km domain, default tolerance; iterations at 256² / 512² /
+1024² / 2048², on a shared 2-core machine):
+
+  ==============  ====================  ========================  =====================
+  case            one band width: 3     per-node band, at least   same, caps calibrated
+                  weak-side flexural    1 stiff-side flexural     (2048²: band nodes,
+                  parameters (before)   parameter                 peak memory)
+  ==============  ====================  ========================  =====================
+  weak_zone       26 / 44 / - / -       7 / 8 / 8 / 20 (capped)   9 (437 k, 2.5 GB)
+  margin_hinges   19 / 56 / - / -       17 / 17 / 18 / -          34 (611 k, 2.8 GB)
+  hinge_network   23 / 28 / - / -       7 / 9 / 10 / 62 (capped)  23 (568 k, 2.4 GB)
+  step_sharp      13 / - / - / -        9 / 10 / 10 / -           14 (419 k, 2.7 GB)
+  smooth          20 / - / - / -        20 / 20 / 20 / -          (no band)
+  ==============  ====================  ========================  =====================
+
+At 2048² the bands meet the LU memory cap and shrink, so the iterations grow there (the
+margin with hinges 18 -> 34); a coarse correction, not a wider band, is what would keep
+them flat beyond (not tried). CHOLMOD at 1024² (same process, after the solve): weak_zone
+1055 s against 6.0 s (176 times), hinge_network 361 s against 8.0 s (45 times); largest
+difference 3.7e-9 and 9.5e-10 of the peak; peak memory 4.3 and 4.0 GB against 0.6 and
+0.9 GB.
 
 Usage::
 
     python tests/benchmarks/variable.py                      # 512, 1024, 2048; 2 km cells
-    python tests/benchmarks/variable.py --sizes 256,512,1024 --refine   # fixed 1024 km domain
+    python tests/benchmarks/variable.py --sizes 256,512,1024,2048 --refine   # 2048 km domain
     python tests/benchmarks/variable.py --spsolve-max 600000 # spsolve up to that many unknowns
+    python tests/benchmarks/variable.py --cholesky-max 3000000
 """
 
 from __future__ import annotations
@@ -37,15 +70,32 @@ sys.path.insert(0, str(ROOT))
 from gridflex.grid import GridSpec  # noqa: E402
 from gridflex.plate import rigidity_from_te  # noqa: E402
 from gridflex.solvers.finite_difference import (  # noqa: E402
-    PlateOperator,
-    _infinite_shape,
-    finite_difference_deflection,
-    pad_rigidity,
+    DEFAULT_TOLERANCE,
+    FiniteDifferenceSolver,
 )
 from gridflex.solvers.spectral import SpectralProblem  # noqa: E402
 
-CASES = ("smooth", "step", "hinge_cross", "hinge_end", "hinge_diag", "weak")
+CASES = ("weak_zone", "margin_hinges", "hinge_network", "step_sharp", "smooth")
+ALL_CASES = (
+    "smooth",
+    "step",
+    "hinge_cross",
+    "hinge_end",
+    "hinge_diag",
+    "weak",
+    "weak_zone",
+    "margin_hinges",
+    "hinge_network",
+    "step_sharp",
+)
 E, NU, STIFFNESS = 1e11, 0.25, (3300.0 - 1030.0) * 9.81
+REFINE_DOMAIN = 2048e3
+"""Side of the fixed domain of ``--refine`` (m)."""
+
+
+def _line(coordinate: np.ndarray, value: float, dx: float) -> np.ndarray:
+    """The one line of nodes nearest to *coordinate* = *value*."""
+    return np.abs(coordinate - value) <= 0.5 * dx
 
 
 def make_case(name: str, n: int, dx: float) -> tuple[np.ndarray, np.ndarray]:
@@ -56,6 +106,15 @@ def make_case(name: str, n: int, dx: float) -> tuple[np.ndarray, np.ndarray]:
         te = 6e3 + 54e3 * 0.5 * (1 + np.tanh(xx / 80e3))
     elif name == "step":
         te = 6e3 + 54e3 * np.clip(xx / (3 * dx) + 0.5, 0.0, 1.0)
+    elif name == "step_sharp":
+        te = np.where(xx > 0, 50e3, 5e3)
+    elif name == "margin_hinges":
+        te = 5e3 + 45e3 * 0.5 * (1 + np.tanh(xx / 40e3))
+        te[_line(yy, -100e3, dx)] = 0.0
+        te[_line(xx, -150e3, dx) & (yy > -300e3) & (yy < 200e3)] = 0.0
+    elif name == "weak_zone":
+        te = np.full((n, n), 25e3)
+        te[np.abs(xx - 100e3) < 10e3] = 0.5e3
     else:
         te = np.full((n, n), 30e3)
         if name == "hinge_cross":
@@ -66,95 +125,130 @@ def make_case(name: str, n: int, dx: float) -> tuple[np.ndarray, np.ndarray]:
             te[np.abs(xx - yy) < 0.5 * dx] = 0.0
         elif name == "weak":
             te[np.abs(xx - 100e3) < 30e3] = 3e3
+        elif name == "hinge_network":
+            te[_line(xx, 0.0, dx)] = 0.0
+            te[_line(yy, 50e3, dx)] = 0.0
+            te[_line(xx, 200e3, dx) & (np.abs(yy) < 200e3)] = 0.0
     load = np.zeros((n, n))
     load[np.hypot(xx + 50e3, yy) < 80e3] = 2800 * 9.81 * 2000.0
     load[np.hypot(xx - 150e3, yy - 200e3) < 50e3] = 2800 * 9.81 * 1000.0
     return te, load
 
 
-def run_one(name: str, n: int, dx: float, spsolve_max: int, tolerance: float) -> dict:
+def _peak_mb() -> float:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+
+
+def run_one(
+    name: str, n: int, dx: float, spsolve_max: int, cholesky_max: int, tolerance: float
+) -> dict:
     te, load = make_case(name, n, dx)
     spec = GridSpec(n, n, dx, dx)
     rigidity = rigidity_from_te(te, E, NU)
     out: dict = {"case": name, "n": n, "dx": dx}
     # baseline: one spectral solve of the same grid with the largest te of the case (so the
     # same margin: infinite plate, pad 4.5 flexural parameters), set-up included; the median
-    # of five fresh builds (rigidity nudged so no cached transfer function is reused), as
+    # of three fresh builds (rigidity nudged so no cached transfer function is reused), as
     # single runs on this shared 2-core machine have varied by a factor of two
     times = []
-    for k in range(5):
+    for k in range(3):
         start = time.perf_counter()
         problem = SpectralProblem.build(spec, float(rigidity.max()) * (1 + 1e-4 * k), STIFFNESS)
         problem.deflection(load)
         times.append(time.perf_counter() - start)
     out["spectral_s"] = float(np.median(times))
     start = time.perf_counter()
-    w, info = finite_difference_deflection(load, spec, rigidity, STIFFNESS, NU, tolerance=tolerance)
+    solver = FiniteDifferenceSolver.build(spec, rigidity, STIFFNESS, NU, tolerance=tolerance)
+    w, info = solver.solve(load)
     out["fd_s"] = time.perf_counter() - start
-    out.update(
-        {
-            k: info[k]
-            for k in (
-                "iterations",
-                "residual",
-                "band_nodes",
-                "band_width",
-                "setup_seconds",
-                "solve_seconds",
-                "force_balance_residual",
-            )
-        }
-    )
+    for key in (
+        "iterations",
+        "residual",
+        "accuracy",
+        "backward_error",
+        "band_nodes",
+        "band_width",
+        "setup_seconds",
+        "solve_seconds",
+        "force_balance_residual",
+    ):
+        out[key] = info[key]
     out["solve_shape"] = list(info["solve_shape"])
     out["levels"] = int(np.size(info["blend_levels"]))
-    out["peak_mb_fd"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
-    shape = _infinite_shape(spec, rigidity, STIFFNESS, 4.5)
+    out["peak_mb_fd"] = _peak_mb()
+    shape = solver.shape
     unknowns = shape[0] * shape[1]
-    if unknowns <= spsolve_max:
+    full = np.zeros(shape)
+    full[solver.window] = load
+    rhs = (solver.operator.area * full).ravel()
+    exact = None
+    if unknowns <= cholesky_max:
+        try:
+            from sksparse.cholmod import cholesky  # type: ignore[import-not-found]
+        except ImportError:
+            out["cholesky"] = "scikit-sparse not installed"
+        else:
+            start = time.perf_counter()
+            factor = cholesky(solver.operator.matrix().tocsc())
+            exact = factor(rhs).reshape(shape)
+            out["cholesky_s"] = time.perf_counter() - start
+            del factor
+    if exact is None and unknowns <= spsolve_max:
         import scipy.sparse.linalg as spla
 
         start = time.perf_counter()
-        op = PlateOperator.build(pad_rigidity(rigidity, shape), STIFFNESS, NU, dx, dx)
-        matrix = op.matrix().tocsc()
-        rhs = np.zeros(shape)
-        rhs[:n, :n] = load
-        rhs *= op.area
-        exact = spla.spsolve(matrix, rhs.ravel(), permc_spec="COLAMD").reshape(shape)
+        matrix = solver.operator.matrix().tocsc()
+        exact = spla.spsolve(matrix, rhs, permc_spec="COLAMD").reshape(shape)
         out["spsolve_s"] = time.perf_counter() - start
-        out["max_diff_vs_spsolve"] = float(np.abs(exact[:n, :n] - w).max() / np.abs(exact).max())
-    out["peak_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    if exact is not None:
+        out["max_diff_vs_direct"] = float(
+            np.abs(exact[solver.window] - w).max() / np.abs(exact).max()
+        )
+    out["peak_mb"] = _peak_mb()
     return out
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sizes", default="512,1024,2048")
-    parser.add_argument("--cases", default=",".join(CASES))
+    parser.add_argument("--cases", default=",".join(CASES), help=f"of {','.join(ALL_CASES)}")
     parser.add_argument(
         "--refine",
         action="store_true",
-        help="fixed 1024 km domain (refinement) instead of fixed 2 km cells",
+        help="fixed 2048 km domain (refinement) instead of fixed 2 km cells",
     )
     parser.add_argument(
         "--spsolve-max",
         type=int,
         default=400_000,
-        help="run spsolve when the padded grid has at most this many unknowns",
+        help="run spsolve when the padded grid has at most this many unknowns (and no "
+        "Cholesky ran)",
     )
-    parser.add_argument("--tolerance", type=float, default=1e-8)
-    parser.add_argument("--one", help=argparse.SUPPRESS)
+    parser.add_argument(
+        "--cholesky-max",
+        type=int,
+        default=2_500_000,
+        help="run the CHOLMOD Cholesky when the padded grid has at most this many unknowns",
+    )
+    parser.add_argument("--tolerance", type=float, default=DEFAULT_TOLERANCE)
+    parser.add_argument(
+        "--one", help=argparse.SUPPRESS
+    )  # one (case, size) in this process: name:n:dx
     args = parser.parse_args()
     if args.one:
         name, n, dx = args.one.split(":")
-        print(json.dumps(run_one(name, int(n), float(dx), args.spsolve_max, args.tolerance)))
+        result = run_one(
+            name, int(n), float(dx), args.spsolve_max, args.cholesky_max, args.tolerance
+        )
+        print(json.dumps(result))
         return
     print(
-        f"{'n':>5} {'case':<12} {'it':>3} {'residual':>8} {'setup':>6} {'solve':>6} "
-        f"{'total':>6} {'spec':>5} {'x spec':>6} {'spsolve':>7} {'x faster':>8} "
-        f"{'band':>7} {'MB fd':>6} {'MB all':>6}"
+        f"{'n':>5} {'dx km':>5} {'case':<13} {'it':>3} {'accuracy':>8} {'residual':>8} "
+        f"{'setup':>6} {'solve':>6} {'total':>6} {'x spec':>6} {'direct':>7} {'x faster':>8} "
+        f"{'vs direct':>9} {'band':>7} {'MB fd':>6} {'MB all':>6}"
     )
     for n in map(int, args.sizes.split(",")):
-        dx = 1024e3 / n if args.refine else 2e3
+        dx = REFINE_DOMAIN / n if args.refine else 2e3
         for name in args.cases.split(","):
             child = subprocess.run(
                 [
@@ -164,6 +258,8 @@ def main() -> None:
                     f"{name}:{n}:{dx}",
                     "--spsolve-max",
                     str(args.spsolve_max),
+                    "--cholesky-max",
+                    str(args.cholesky_max),
                     "--tolerance",
                     str(args.tolerance),
                 ],
@@ -171,18 +267,25 @@ def main() -> None:
                 text=True,
             )
             if child.returncode != 0:
-                print(f"{n:>5} {name:<12} failed: {child.stderr.strip().splitlines()[-1]}")
+                print(f"{n:>5} {name:<13} failed: {child.stderr.strip().splitlines()[-1]}")
                 continue
             r = json.loads(child.stdout.strip().splitlines()[-1])
-            sp = r.get("spsolve_s")
-            sp_text = f"{sp:7.1f} {sp / r['fd_s']:8.1f}" if sp else f"{'-':>7} {'-':>8}"
+            direct = r.get("cholesky_s", r.get("spsolve_s"))
+            kind = "c" if "cholesky_s" in r else "s"
+            direct_text = (
+                f"{direct:6.1f}{kind} {direct / r['fd_s']:8.1f}" if direct else f"{'-':>7} {'-':>8}"
+            )
+            diff = r.get("max_diff_vs_direct")
+            diff_text = f"{diff:9.1e}" if diff is not None else f"{'-':>9}"
             print(
-                f"{n:>5} {name:<12} {r['iterations']:>3} {r['residual']:8.1e} "
-                f"{r['setup_seconds']:6.2f} {r['solve_seconds']:6.2f} {r['fd_s']:6.2f} "
-                f"{r['spectral_s']:5.2f} {r['fd_s'] / r['spectral_s']:6.1f} {sp_text} "
-                f"{r['band_nodes']:>7} {r['peak_mb_fd']:6.0f} {r['peak_mb']:6.0f}",
+                f"{n:>5} {dx / 1e3:5.2f} {name:<13} {r['iterations']:>3} {r['accuracy']:8.1e} "
+                f"{r['residual']:8.1e} {r['setup_seconds']:6.2f} {r['solve_seconds']:6.2f} "
+                f"{r['fd_s']:6.2f} {r['fd_s'] / r['spectral_s']:6.1f} {direct_text} "
+                f"{diff_text} {r['band_nodes']:>7} {r['peak_mb_fd']:6.0f} {r['peak_mb']:6.0f}",
                 flush=True,
             )
+            if "cholesky" in r:
+                print(f"      ({r['cholesky']}: no Cholesky baseline)")
 
 
 if __name__ == "__main__":

@@ -300,7 +300,7 @@ def test_iterations_do_not_grow_with_the_grid():
     # Issue 3 target (scaled down here to keep the test fast; full sizes in
     # tests/benchmarks/variable.py): a factor-10 te contrast with a step and a break that
     # ends inside the plate converges in a number of iterations that stays within a factor
-    # 1.5 under refinement, to a true relative residual of 1e-8 with exact force balance
+    # 1.5 under refinement, to the default accuracy with exact force balance
     counts = []
     for n in (64, 128, 256):
         spec, rigidity, load = _margin_with_break(n)
@@ -313,7 +313,7 @@ def test_iterations_do_not_grow_with_the_grid():
 
 
 def test_smooth_margin_converges_within_target():
-    # Issue 3 target: at most 30 iterations to a true relative residual of 1e-8 at a
+    # Issue 3 target: at most 30 iterations to the default accuracy at a
     # factor-10 te contrast on a smooth margin (invented: te 6 -> 60 km, tanh of half-width
     # 80 km, as in tests/benchmarks/variable.py, 256² cells of 4 km); measured 34 with
     # unscaled blend weights and 3 levels, 24 with the rigidity scaling and 2 levels

@@ -9,6 +9,7 @@ from gridflex.solvers.plate_operator import PlateOperator
 from gridflex.solvers.rigidity_features import (
     BAND_FLEXURAL_PARAMETERS,
     BREAK_FLEXURAL_PARAMETERS,
+    STIFF_SIDE_FLEXURAL_PARAMETERS,
     find_sharp_features,
     sharp_band,
 )
@@ -20,7 +21,9 @@ STIFFNESS = 2270 * 9.81
 def test_sharp_features_and_band_widths():
     # common practice (the band rules of gridflex.solvers.rigidity_features): a ten-fold
     # jump is sharp and widens by BAND_FLEXURAL_PARAMETERS flexural parameters of its weak
-    # side; a break alone by BREAK_FLEXURAL_PARAMETERS; a constant plate has no sharp node
+    # side or STIFF_SIDE_FLEXURAL_PARAMETERS of its stiff side, whichever is more; a break
+    # alone by the larger of BREAK_FLEXURAL_PARAMETERS and STIFF_SIDE_FLEXURAL_PARAMETERS
+    # of the plate; a constant plate has no sharp node
     n, h = 128, 2000.0
     constant = PlateOperator.build(np.full((n, n), 1e23), STIFFNESS, NU, h, h)
     assert not find_sharp_features(constant).nodes.any()
@@ -29,15 +32,40 @@ def test_sharp_features_and_band_widths():
     rigidity[:, 64:] = high
     step = find_sharp_features(PlateOperator.build(rigidity, STIFFNESS, NU, h, h))
     assert step.nodes[:, 63:65].all() and not step.nodes[:, 30].any()
-    alpha_low = (4 * low / STIFFNESS) ** 0.25
-    assert step.band_width == pytest.approx(BAND_FLEXURAL_PARAMETERS * alpha_low, rel=1e-6)
+    alpha_low, alpha_high = ((4 * d / STIFFNESS) ** 0.25 for d in (low, high))
+    expected = max(
+        BAND_FLEXURAL_PARAMETERS * alpha_low, STIFF_SIDE_FLEXURAL_PARAMETERS * alpha_high
+    )
+    assert step.band_width == pytest.approx(expected, rel=1e-6)
+    assert step.widths is not None and step.widths.max() == step.band_width
     hinge = np.full((n, n), high)
     hinge[:, 60] = 0.0
     op = PlateOperator.build(hinge, STIFFNESS, NU, h, h)
     broken = find_sharp_features(op)
-    alpha_high = (4 * high / STIFFNESS) ** 0.25
-    assert broken.band_width == pytest.approx(BREAK_FLEXURAL_PARAMETERS * alpha_high, rel=1e-6)
+    factor = max(BREAK_FLEXURAL_PARAMETERS, STIFF_SIDE_FLEXURAL_PARAMETERS)
+    assert broken.band_width == pytest.approx(factor * alpha_high, rel=1e-6)
     nodes, width, _ = sharp_band(op, broken.band_width, 10**6, broken.nodes)
     columns = np.unique(nodes % n)
     reach = int(width // h)
     assert columns.min() == 60 - 1 - reach and columns.max() == 60 + 1 + reach
+
+
+def test_band_follows_each_sharp_node_own_width():
+    # common practice: with per-node widths a hinge reaches STIFF_SIDE_FLEXURAL_PARAMETERS
+    # flexural parameters of the plate next to each of its nodes: wider where the plate is
+    # stiff, narrower where it is weak, instead of one width for all (rigidity 1e22 to
+    # 1e23 N m, smooth along the hinge)
+    n, h = 128, 2000.0
+    rows = np.arange(n)
+    rigidity = np.repeat(10 ** (22.5 + 0.5 * np.cos(2 * np.pi * rows / n)), n).reshape(n, n)
+    rigidity[:, 30] = 0.0
+    op = PlateOperator.build(rigidity, STIFFNESS, NU, h, h)
+    features = find_sharp_features(op)
+    nodes, _, _ = sharp_band(op, features.band_width, 10**6, features.nodes, features.widths)
+    band = np.zeros(n * n, dtype=bool)
+    band[nodes] = True
+    band = band.reshape(n, n)
+    factor = max(STIFF_SIDE_FLEXURAL_PARAMETERS, BREAK_FLEXURAL_PARAMETERS)
+    for row in (0, n // 2):  # stiffest and weakest rows
+        reach = factor * (4 * rigidity[row, 31] / STIFFNESS) ** 0.25 / h
+        assert np.flatnonzero(band[row]).max() - 30 == pytest.approx(reach, abs=1.5)
