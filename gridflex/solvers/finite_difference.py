@@ -255,7 +255,7 @@ class SpectralTerm:
     (doubly periodic) solve grid: S w = irfft2(s(k) rfft2(w)) with a symbol s >= 0.
 
     Used by the implicit time step of a plate over a viscous half-space, whose operator
-    adds 2 η |k| / Δt (Bueler, Lingle & Brown 2007, J. Glaciol. 53, eq. 11; PHYSICS.md 7.3).
+    adds 2 η |k| / Δt (Bueler, Lingle & Brown 2007, Ann. Glaciol. 46, 97–105; PHYSICS.md 7.3).
 
     Attributes
     ----------
