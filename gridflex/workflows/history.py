@@ -51,7 +51,7 @@ from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
 from gridflex.scenario.tables import SCHEMA, load_scenario
 from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
 from gridflex.synthetic import disc_height, empty_grid
-from gridflex.validation import check_grid_range
+from gridflex.validation import check_grid_range, check_number
 from gridflex.workflows.grid_input import apply_missing_policy, in_si_units, read_grid_input
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan, stamp_result, with_vertical_displacement
@@ -214,6 +214,8 @@ def _check_history(scenario: HistoryScenario) -> None:
                 isinstance(v, (int, float)) and not isinstance(v, bool) for v in values
             ):
                 raise InputError(f"{where} {name}: expected a non-empty list of numbers")
+            for value in values:  # NaN or inf would reach the solver as a NaN ice load
+                check_number(f"{where} {name}", value, minimum=0.0 if name != "times" else None)
         if any(later <= earlier for earlier, later in zip(times, times[1:])):
             raise InputError(
                 f"{where} times: must increase from the oldest to the youngest (years after "
