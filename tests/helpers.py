@@ -270,9 +270,12 @@ def toml_text(doc: dict[str, Any]) -> str:
     import json
     import math
 
+    def quoted(text: str) -> str:  # TOML takes no surrogate pairs and no raw DEL
+        return json.dumps(text, ensure_ascii=False).replace("\x7f", "\\u007f")
+
     def key(name: str) -> str:
         bare = name and all(c.isascii() and (c.isalnum() or c in "-_") for c in name)
-        return name if bare else json.dumps(name)
+        return name if bare else quoted(name)
 
     def value(v: Any) -> str:
         if isinstance(v, bool):
@@ -286,7 +289,7 @@ def toml_text(doc: dict[str, Any]) -> str:
                 return "inf" if v > 0 else "-inf"
             return repr(v)
         if isinstance(v, str):
-            return json.dumps(v)
+            return quoted(v)
         if isinstance(v, dict):
             return "{" + ", ".join(f"{key(k)} = {value(x)}" for k, x in v.items()) + "}"
         return "[" + ", ".join(value(x) for x in v) + "]"

@@ -270,8 +270,13 @@ def _ice_history(scenario: HistoryScenario, reference: str) -> xr.DataArray:
     )
     grid = empty_grid(g["rows"], g["columns"], g["spacing"])
     check_grid_range([ice["height"]], "ice_thickness", scenario.where("ice", "height"))
-    disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
     factors = np.asarray(ice["thickness_factors"], dtype=np.float64)
+    check_grid_range(  # the thickest ice of the history, not only the disc's height
+        [ice["height"] * float(factors.max())],
+        "ice_thickness",
+        f"{scenario.where('ice', 'thickness_factors')} (times height {ice['height']!r} m)",
+    )
+    disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
     values = factors[:, None, None] * disc.values[None]
     return xr.DataArray(
         values,

@@ -447,10 +447,8 @@ def _write_grid(path: Path, name: str, grid: xr.DataArray, units: str = "m") -> 
     ds.to_netcdf(path)
 
 
-@pytest.fixture(scope="module")
-def inputs(tmp_path_factory) -> Path:
-    """The input files every case may read, written once."""
-    folder = tmp_path_factory.mktemp("inputs")
+def write_inputs(folder: Path) -> Path:
+    """The input files every case may read, written into *folder*."""
     write_seamount_inputs(folder)  # load.nc (height), observed.nc (depth): 64 x 64, 6 km
     load = make_grid(64, 64, 6e3)
     _write_grid(folder / "te.nc", "te", load + 1e4)
@@ -474,6 +472,12 @@ def inputs(tmp_path_factory) -> Path:
     (folder / "folder").mkdir()
     (folder / "folder.toml").mkdir()
     return folder
+
+
+@pytest.fixture(scope="module")
+def inputs(tmp_path_factory) -> Path:
+    """The input files, written once."""
+    return write_inputs(tmp_path_factory.mktemp("inputs"))
 
 
 def _listing(folder: Path) -> list[str]:
