@@ -261,3 +261,59 @@ def assert_stepper_matches_batch(stepper, history, batch, interpolation: str) ->
         rate = stepper.uplift_rate(history.values[n])
         rate_scale = np.abs(batch.uplift_rate.values[n]).max()
         assert_allclose(rate.values, batch.uplift_rate.values[n], rtol=0, atol=1e-12 * rate_scale)
+
+
+def toml_text(doc: dict[str, Any]) -> str:
+    """A scenario document (nested dicts, lists, scalars) written as TOML text: scalars at
+    the top first, then ``[table]`` for dicts and ``[[table]]`` for lists of dicts;
+    floats may be nan or inf and strings any text (JSON escapes are valid TOML)."""
+    import json
+    import math
+
+    def quoted(text: str) -> str:  # TOML takes no surrogate pairs and no raw DEL
+        return json.dumps(text, ensure_ascii=False).replace("\x7f", "\\u007f")
+
+    def key(name: str) -> str:
+        bare = name and all(c.isascii() and (c.isalnum() or c in "-_") for c in name)
+        return name if bare else quoted(name)
+
+    def value(v: Any) -> str:
+        if isinstance(v, bool):
+            return "true" if v else "false"
+        if isinstance(v, int):
+            return str(v)
+        if isinstance(v, float):
+            if math.isnan(v):
+                return "nan"
+            if math.isinf(v):
+                return "inf" if v > 0 else "-inf"
+            return repr(v)
+        if isinstance(v, str):
+            return quoted(v)
+        if isinstance(v, dict):
+            return "{" + ", ".join(f"{key(k)} = {value(x)}" for k, x in v.items()) + "}"
+        return "[" + ", ".join(value(x) for x in v) + "]"
+
+    def is_table_list(v: Any) -> bool:
+        return isinstance(v, list) and bool(v) and all(isinstance(x, dict) for x in v)
+
+    head = [f"{key(k)} = {value(v)}" for k, v in doc.items() if not isinstance(v, dict)]
+    head = [
+        line
+        for (k, v), line in zip(
+            [(k, v) for k, v in doc.items() if not isinstance(v, dict)], head, strict=True
+        )
+        if not is_table_list(v)
+    ]
+    lines = head
+    for name, table in doc.items():
+        if isinstance(table, dict):
+            lines += ["", f"[{key(name)}]", *(f"{key(k)} = {value(v)}" for k, v in table.items())]
+        elif is_table_list(table):
+            for item in table:
+                lines += [
+                    "",
+                    f"[[{key(name)}]]",
+                    *(f"{key(k)} = {value(v)}" for k, v in item.items()),
+                ]
+    return "\n".join(lines) + "\n"

@@ -51,7 +51,7 @@ from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
 from gridflex.scenario.tables import SCHEMA, load_scenario
 from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
 from gridflex.synthetic import disc_height, empty_grid
-from gridflex.validation import check_grid_range
+from gridflex.validation import check_grid_range, check_number
 from gridflex.workflows.grid_input import apply_missing_policy, in_si_units, read_grid_input
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan, stamp_result, with_vertical_displacement
@@ -214,6 +214,8 @@ def _check_history(scenario: HistoryScenario) -> None:
                 isinstance(v, (int, float)) and not isinstance(v, bool) for v in values
             ):
                 raise InputError(f"{where} {name}: expected a non-empty list of numbers")
+            for value in values:  # NaN or inf would reach the solver as a NaN ice load
+                check_number(f"{where} {name}", value, minimum=0.0 if name != "times" else None)
         if any(later <= earlier for earlier, later in zip(times, times[1:])):
             raise InputError(
                 f"{where} times: must increase from the oldest to the youngest (years after "
@@ -268,8 +270,13 @@ def _ice_history(scenario: HistoryScenario, reference: str) -> xr.DataArray:
     )
     grid = empty_grid(g["rows"], g["columns"], g["spacing"])
     check_grid_range([ice["height"]], "ice_thickness", scenario.where("ice", "height"))
-    disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
     factors = np.asarray(ice["thickness_factors"], dtype=np.float64)
+    check_grid_range(  # the thickest ice of the history, not only the disc's height
+        [ice["height"] * float(factors.max())],
+        "ice_thickness",
+        f"{scenario.where('ice', 'thickness_factors')} (times height {ice['height']!r} m)",
+    )
+    disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
     values = factors[:, None, None] * disc.values[None]
     return xr.DataArray(
         values,
