@@ -73,13 +73,15 @@ def _step_values(ds: xr.Dataset | xr.DataArray, axis: str) -> tuple[str, np.ndar
     """A name and the numbers labelling the steps of *axis*: ``<axis>_years`` when
     present (times of a history in years, named *axis*), else an ``age`` coordinate on
     *axis* (a basin's stages, years before present), else the axis' own numeric
-    coordinate, else the step index."""
+    coordinate, else the step index (the first of these whose values all differ)."""
     for name, label in ((f"{axis}_years", axis), ("age", "age"), (axis, axis)):
         if name in ds.coords and ds[name].dims == (axis,):
             try:
-                return label, np.asarray(ds[name].values, dtype=np.float64)
+                values = np.asarray(ds[name].values, dtype=np.float64)
             except (TypeError, ValueError):
                 continue  # dates
+            if np.unique(values).size == values.size:  # labels that tell the steps apart
+                return label, values
     return axis, np.arange(ds.sizes[axis], dtype=np.float64)
 
 

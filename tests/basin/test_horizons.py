@@ -18,21 +18,21 @@ def _airy(column, rho_w=1030.0, rho_m=3300.0):
     return (mass - rho_w * thick) / (rho_m - rho_w)
 
 
-def test_horizons_of_three_compacting_stages_follow_their_burial():
+def test_horizons_of_four_compacting_stages_follow_their_burial():
     # te = 0, fully submerged, so every step is a local (Airy) balance of the compacted
     # column (Turcotte & Schubert 2002); each stage's thickness at each step comes from
     # its grains at its burial (closed-form porosity law, Athy 1930; Sclater & Christie
     # 1980), recomputed here independently. rtol 1e-6: infill iteration tolerance.
-    h = [700.0, 500.0, 300.0]
-    liths = ["shale", "sandstone", "shale"]
-    ages = [5e6, 3e6, 1e6]
+    h = [700.0, 500.0, 300.0, 400.0]
+    liths = ["shale", "sandstone", "shale", "chalk"]
+    ages = [7e6, 5e6, 3e6, 1e6]
     base, sea = -4000.0, 0.0
     stages = [Stage(flat(t), a, lith) for t, a, lith in zip(h, ages, liths, strict=True)]
     out = stage_loading(stages, flat(base), Plate(te=0.0), tolerance=TOL, edges="periodic")
     grains = [grain_thickness(0.0, t, lith) for t, lith in zip(h, liths, strict=True)]
-    assert out.sizes["horizon"] == 3
+    assert out.sizes["horizon"] == 4
     assert_allclose(out["horizon_age"].values, ages)
-    for step in range(3):
+    for step in range(4):
         top, column = 0.0, []
         for k in range(step, -1, -1):  # youngest first: its top is at the surface
             bottom = compacted_base(top, grains[k], liths[k])
