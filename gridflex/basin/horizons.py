@@ -13,6 +13,18 @@ and its depth below sea level (the basin's sea level, the present datum) is
 Because each stage's thickness is recomputed at each step from its grains (compaction
 under the younger stages), the buried horizons of earlier times follow their burial.
 
+The accommodation created during a step is the new space below its level (base level,
+or sea level) for the step's sediment: the rise of the level plus the sinking of the
+floor the step deposits on (the top of the pile before it, the basement for the first
+step) by flexure and by the compaction of the pile under it,
+
+    created_j = (level_j - level_{j-1}) + (d_f(t_j) - d_f(t_{j-1})),
+
+with d_f the depth of that floor, level_{-1} the basin's sea level and d_f(t_{-1}) the
+depth of the surface before the first stage. Then the accommodation left after the step
+is what was left before, plus what was created, minus the stage's thickness (an
+accommodation budget, e.g. Jervey 1988 - from memory).
+
 Depths are positive DOWN (m); elevations positive up.
 """
 
@@ -24,7 +36,7 @@ import numpy as np
 
 from gridflex.memory import check_memory
 
-__all__ = ["horizon_ages", "horizon_depths"]
+__all__ = ["accommodation_created", "horizon_ages", "horizon_depths"]
 
 
 def horizon_depths(
@@ -92,3 +104,61 @@ def horizon_ages(ages: Sequence[float], columns: Sequence[Sequence[np.ndarray]])
         while len(out) < len(column):
             out.append(float(age))
     return np.array(out, dtype=np.float64)
+
+
+def accommodation_created(
+    levels: Sequence[np.ndarray],
+    basement: np.ndarray,
+    horizons: np.ndarray,
+    counts: Sequence[int],
+    base: np.ndarray,
+    datum: float,
+) -> np.ndarray:
+    """The accommodation created during each step (m, positive: new space).
+
+    Parameters
+    ----------
+    levels : sequence of numpy.ndarray
+        Elevation of each step's level (its base level, or its sea level; m, up).
+    basement, horizons : numpy.ndarray
+        Of :func:`horizon_depths`.
+    counts : sequence of int
+        Number of stages in the pile after each step.
+    base : numpy.ndarray
+        Elevation of the surface before the first stage (m, positive up).
+    datum : float
+        The basin's sea level (m, positive up): the level before the first step.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``(step, ny, nx)``; NaN where the floor of a step was removed by it.
+
+    Examples
+    --------
+    >>> base = np.full((1, 1), -100.0)
+    >>> basement = np.array([[[110.0]], [[130.0]]])
+    >>> tops = np.array([[[[80.0]], [[np.nan]]], [[[85.0]], [[60.0]]]])
+    >>> created = accommodation_created(
+    ...     [np.zeros((1, 1)), np.full((1, 1), 5.0)], basement, tops, [1, 2], base, 0.0
+    ... )
+    >>> created[:, 0, 0].tolist()
+    [10.0, 10.0]
+    """
+    out = np.empty_like(basement)
+    previous_level = np.full(base.shape, float(datum))
+    previous_count = 0
+    for step, (level, count) in enumerate(zip(levels, counts, strict=True)):
+        floor = previous_count - 1  # the top of the pile before the step; -1: basement
+
+        def depth(at: int, floor: int = floor) -> np.ndarray:
+            if at < 0:
+                return datum - base
+            if floor < 0:
+                return basement[at]
+            return horizons[at, floor]
+
+        now = depth(step) if floor < count else np.full(base.shape, np.nan)
+        out[step] = (level - previous_level) + (now - depth(step - 1))
+        previous_level, previous_count = level, count
+    return out

@@ -63,7 +63,7 @@ from gridflex.basin.compaction import (
     saturated_column,
 )
 from gridflex.basin.compaction import lithology as as_lithology
-from gridflex.basin.horizons import horizon_ages, horizon_depths
+from gridflex.basin.horizons import accommodation_created, horizon_ages, horizon_depths
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import check_grid, grid_values
@@ -564,7 +564,24 @@ class StagedBasin:
         below = f"below the basin's sea level ({self.sea_level:g} m, positive down)"
         down = {"units": "m", "positive": "down"}
         ages = horizon_ages([s.age for s in self.history], columns)
+        created = accommodation_created(
+            [s.accommodation + s.surface for s in self.history],
+            basement,
+            horizons,
+            [len(c) for c in columns],
+            self.base,
+            self.sea_level,
+        )
         return {
+            "accommodation_created": (
+                dims,
+                created,
+                {
+                    "units": "m",
+                    "long_name": "accommodation created by the stage: rise of its level "
+                    "plus the sinking (flexure, compaction) of the surface it deposits on",
+                },
+            ),
             "basement_depth": (
                 dims,
                 basement,

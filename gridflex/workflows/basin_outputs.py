@@ -62,6 +62,7 @@ __all__ = [
 
 STAGE_GRIDS = (
     "stage_thickness",
+    "accommodation_created",
     "accommodation",
     "deflection_increment",
     "deflection",
@@ -73,10 +74,12 @@ STAGE_GRIDS = (
 )
 """Grids of a staged basin that ``[output] geotiff`` and ``maps`` may name."""
 
-DEFAULT_STAGE_GRIDS = ("stage_thickness", "accommodation", "deflection_increment")
+DEFAULT_STAGE_GRIDS = ("stage_thickness", "accommodation_created", "deflection_increment")
 """What ``geotiff = true`` and ``maps = true`` write for every stage."""
 
-_SIGNED = frozenset({"accommodation", "deflection_increment", "deflection", "surface"})
+_SIGNED = frozenset(
+    {"accommodation_created", "accommodation", "deflection_increment", "deflection", "surface"}
+)
 """Grids drawn with a diverging colour map centred on zero."""
 
 WELL_VARIABLES = ("thermal_subsidence",)

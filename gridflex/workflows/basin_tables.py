@@ -169,8 +169,8 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         "geotiff": Key(
             "flag_or_names",
             "GeoTIFFs of each stage beside the NetCDF (<stem>_<grid>_stage<k>.tif): true "
-            "for stage_thickness, accommodation and deflection_increment, or a list of "
-            "stage grids",
+            "for stage_thickness, accommodation_created and deflection_increment, or a "
+            "list of stage grids",
             False,
         ),
         "maps": Key(

@@ -7,7 +7,7 @@ from gridflex import Plate
 from gridflex.basin.compaction import bulk_density, compacted_base, grain_thickness
 from gridflex.basin.horizons import horizon_ages, horizon_depths
 from gridflex.basin.staging import Stage, stage_loading
-from tests.basin.grids import TOL, flat, lens
+from tests.basin.grids import TOL, N, flat, grid, lens
 
 
 def _airy(column, rho_w=1030.0, rho_m=3300.0):
@@ -56,6 +56,33 @@ def test_horizons_of_four_compacting_stages_follow_their_burial():
     )
     assert_allclose(-spacing, out["final_stage_thickness"].values, rtol=1e-10, atol=1e-9)
     assert_allclose(last["horizon_depth"][-1].values, -last["surface"].values, atol=1e-9)
+
+
+def test_accommodation_budget_of_each_stage():
+    # the space left after a stage is the space left before it, plus the space the stage
+    # created, minus what it deposited (accommodation budget, Jervey 1988 - from memory);
+    # before the first stage the space is sea level - surface. Flexure, compaction, a
+    # sea-level rise and a moat filled to a base level all enter it.
+    shelf = grid(np.broadcast_to(np.linspace(-500.0, 40.0, N), (N, N)).copy())
+    stages = [
+        Stage(lens(450.0), 4e6),
+        Stage(lens(300.0, 30e3), 2e6, "sandstone", sea_level=20.0),
+        Stage(lens(200.0), 1e6, base_level=0.0, sea_level=20.0),
+    ]
+    # periodic: the sea-level rise loads the plate up to the edges (an identity either way)
+    out = stage_loading(stages, shelf, Plate(te=10e3), tolerance=TOL, edges="periodic")
+    before = 0.0 - shelf.values
+    for j in range(3):
+        step = out.isel(stage=j)
+        after = before + step["accommodation_created"].values - step["stage_thickness"].values
+        assert_allclose(step["accommodation"].values, after, atol=1e-8)
+        before = step["accommodation"].values
+    # a stage under water with no level change creates what its floor sank
+    first = out.isel(stage=0)
+    assert_allclose(
+        first["accommodation_created"].values, first["deflection_increment"].values, atol=1e-9
+    )
+    assert float(out["accommodation_created"][1].min()) > 19.0  # the 20 m sea-level rise
 
 
 def test_horizons_on_a_flexed_plate_are_the_surface_at_their_time():

@@ -60,7 +60,7 @@ def test_every_planned_file_is_written(basin_run):
     assert (out / "basin_section.png").read_bytes()[:8] == PNG
 
 
-_DEFAULT = ("stage_thickness", "accommodation", "deflection_increment")
+_DEFAULT = ("stage_thickness", "accommodation_created", "deflection_increment")
 
 
 def test_stage_geotiffs_hold_the_stage_grids(basin_run):
@@ -180,13 +180,15 @@ def test_an_existing_stage_geotiff_stops_the_run_before_work(tmp_path, capsys):
     # all or nothing: a planned GeoTIFF that exists (no --overwrite) is refused before
     # the solve, and the NetCDF is not written either
     surface = write_basin_inputs(tmp_path, N)
-    write_geotiff(surface, tmp_path / "bad_accommodation_stage1.tif", "EPSG:32633")
+    write_geotiff(surface, tmp_path / "bad_accommodation_created_stage1.tif", "EPSG:32633")
     outputs = '[output]\nfile = "bad.nc"\ngeotiff = true\n'
     (tmp_path / "bad.toml").write_text(BASIN_SCENARIO + outputs)
     assert main(["basin", str(tmp_path / "bad.toml")]) == 2
-    assert "bad_accommodation_stage1.tif" in capsys.readouterr().err
+    assert "bad_accommodation_created_stage1.tif" in capsys.readouterr().err
     assert not (tmp_path / "bad.nc").exists()
-    assert sorted(p.name for p in tmp_path.glob("*.tif")) == ["bad_accommodation_stage1.tif"]
+    assert sorted(p.name for p in tmp_path.glob("*.tif")) == [
+        "bad_accommodation_created_stage1.tif"
+    ]
 
 
 def test_geotiffs_keep_the_crs_of_the_inputs_and_maps_are_drawn(tmp_path):
