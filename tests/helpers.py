@@ -317,3 +317,47 @@ def toml_text(doc: dict[str, Any]) -> str:
                     *(f"{key(k)} = {value(v)}" for k, v in item.items()),
                 ]
     return "\n".join(lines) + "\n"
+
+
+BASIN_CELL = 5e3  # m, cell size of write_basin_inputs
+BASIN_SCENARIO = """
+[plate]
+elastic_thickness = "8 km"
+
+[basin]
+surface_file = "surface.nc"
+
+[[stages]]
+file = "s1.nc"
+age = 3.0e6
+
+[[stages]]
+file = "s2.nc"
+age = 2.0e6
+lithology = "sandstone"
+base_level = "0 m"
+
+[[stages]]
+file = "s3.nc"
+age = 1.0e6
+"""
+"""Three stages on a shelf (files of :func:`write_basin_inputs`); add an [output] table."""
+
+
+def write_basin_inputs(folder: Path, n: int = 24) -> xr.DataArray:
+    """Write ``surface.nc`` (a shelf, -400 to 50 m west to east) and ``s1.nc``-``s3.nc``
+    (invented sediment lenses, m) on *n* x *n* cells of 5 km (y, x from 0; no CRS);
+    returns the surface."""
+    coord = np.arange(n) * BASIN_CELL
+    y, x = np.meshgrid(coord, coord, indexing="ij")
+    r2 = (x - coord.mean()) ** 2 + (y - coord.mean()) ** 2
+
+    def grid(values: np.ndarray) -> xr.DataArray:
+        return xr.DataArray(values, dims=("y", "x"), coords={"y": coord, "x": coord})
+
+    surface = grid(np.broadcast_to(np.linspace(-400.0, 50.0, n), (n, n)).copy())
+    surface.to_dataset(name="elevation").to_netcdf(folder / "surface.nc")
+    for i, (peak, radius) in enumerate([(500.0, 25e3), (300.0, 18e3), (200.0, 20e3)], 1):
+        lens = grid(peak * np.exp(-r2 / radius**2) * (r2 < 9 * radius**2))
+        lens.to_dataset(name="thickness").to_netcdf(folder / f"s{i}.nc")
+    return surface

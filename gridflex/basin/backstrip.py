@@ -41,7 +41,7 @@ from gridflex.grid import check_grid, grid_values
 from gridflex.plate import Plate
 from gridflex.validation import check_density, check_number
 
-__all__ = ["backstrip", "backstrip_layers"]
+__all__ = ["airy_tectonic_subsidence", "backstrip", "backstrip_layers"]
 
 _DEPTHS = ("basement_depth", "sediment_thickness", "water_depth")
 
@@ -202,8 +202,8 @@ def backstrip(
     basement = arrays["basement_depth"]
     fields = {
         "tectonic_subsidence": basement - rebound - sea_term,
-        "local_tectonic_subsidence": (
-            s * (rho_m - rho_s) / (rho_m - rho_w) + arrays["water_depth"] - sea_term
+        "local_tectonic_subsidence": airy_tectonic_subsidence(
+            s, rho_s, arrays["water_depth"], dsl, rho_m, rho_w
         ),
         "sediment_rebound": rebound,
         "sediment_density": np.broadcast_to(rho_s, s.shape).copy(),
@@ -223,6 +223,36 @@ def backstrip(
     data_vars = {name: (("y", "x"), values, _attributes(name)) for name, values in fields.items()}
     coords = {"y": reference["y"].variable, "x": reference["x"].variable}
     return xr.Dataset(data_vars, coords=coords, attrs=attrs)
+
+
+def airy_tectonic_subsidence(
+    sediment_thickness: Any,
+    sediment_density: Any,
+    water_depth: Any,
+    sea_level_change: Any,
+    mantle_density: float,
+    water_density: float,
+) -> np.ndarray:
+    """Local (Airy) water-loaded tectonic subsidence of a column (m, positive down).
+
+    Steckler & Watts 1978 (PHYSICS.md 9.2):
+    Y = S (rho_m - rho_s)/(rho_m - rho_w) + W - dSL rho_m/(rho_m - rho_w), with S the
+    sediment thickness (m), rho_s its mean bulk density, W the water depth (m, negative
+    above sea level) and dSL the sea level relative to present (m, positive higher).
+    Arguments broadcast against each other.
+
+    Examples
+    --------
+    >>> round(float(airy_tectonic_subsidence(1000.0, 2300.0, 200.0, 0.0, 3300.0, 1000.0)), 6)
+    634.782609
+    """
+    s, rho_s = np.asarray(sediment_thickness), np.asarray(sediment_density)
+    contrast = mantle_density - water_density
+    return np.asarray(
+        s * (mantle_density - rho_s) / contrast
+        + np.asarray(water_depth)
+        - np.asarray(sea_level_change) * mantle_density / contrast
+    )
 
 
 def _attributes(name: str) -> dict[str, str]:

@@ -48,7 +48,7 @@ import logging
 import math
 import warnings
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -63,6 +63,7 @@ from gridflex.basin.compaction import (
     saturated_column,
 )
 from gridflex.basin.compaction import lithology as as_lithology
+from gridflex.basin.horizons import accommodation_created, horizon_ages, horizon_depths
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import check_grid, grid_values
@@ -167,6 +168,8 @@ class _Snapshot:
     sediment_density: np.ndarray
     iterations: int
     te: np.ndarray
+    sea_level: float = math.nan
+    column: list[np.ndarray] = field(default_factory=list)  # stage thicknesses, oldest first
 
 
 class StagedBasin:
@@ -308,7 +311,7 @@ class StagedBasin:
         te: TeLike,
     ) -> _Snapshot:
         check_memory(
-            _SNAPSHOT_GRIDS * self.base.nbytes,
+            (_SNAPSHOT_GRIDS + len(self.stages)) * self.base.nbytes,
             f"keeping the state after stage {len(self.history) + 1}",
         )
         thick, mass = self._column(self.grains, self.stages)
@@ -335,6 +338,8 @@ class StagedBasin:
             sediment_density=all_rho,
             iterations=iterations,
             te=grid_values(te, self.grid, "stage te"),
+            sea_level=self.current_sea_level,
+            column=list(thick),
         )
         self.history.append(snap)
         return snap
@@ -522,6 +527,7 @@ class StagedBasin:
             name: (dims, stack(source.get(name, name)), {"units": units, "long_name": long})
             for name, (units, long) in fields.items()
         }
+        data.update(self._horizon_variables(dims))
         data["iterations"] = (
             "stage",
             np.array([s.iterations for s in self.history]),
@@ -545,7 +551,62 @@ class StagedBasin:
             "lithologies": ", ".join(s.rock.name for s in self.stages),
         }
         stamp = provenance_attrs(self.plate.describe(), attrs, "staged basin loading")
-        return xr.Dataset(data, coords=coords, attrs=stamp)
+        out = xr.Dataset(data, coords=coords, attrs=stamp).set_coords("horizon_age")
+        return out.assign_coords(horizon=np.arange(out.sizes["horizon"]))
+
+    def _horizon_variables(self, dims: tuple[str, str, str]) -> dict[str, tuple[Any, ...]]:
+        """``basement_depth``, ``horizon_depth`` (with its ``horizon_age``) and
+        ``sea_level`` of each recorded step (:mod:`gridflex.basin.horizons`)."""
+        columns = [s.column for s in self.history]
+        basement, horizons = horizon_depths(
+            self.base, [s.deflection for s in self.history], columns, self.sea_level
+        )
+        below = f"below the basin's sea level ({self.sea_level:g} m, positive down)"
+        down = {"units": "m", "positive": "down"}
+        ages = horizon_ages([s.age for s in self.history], columns)
+        created = accommodation_created(
+            [s.accommodation + s.surface for s in self.history],
+            basement,
+            horizons,
+            [len(c) for c in columns],
+            self.base,
+            self.sea_level,
+        )
+        return {
+            "accommodation_created": (
+                dims,
+                created,
+                {
+                    "units": "m",
+                    "long_name": "accommodation created by the stage: rise of its level "
+                    "plus the sinking (flexure, compaction) of the surface it deposits on",
+                },
+            ),
+            "basement_depth": (
+                dims,
+                basement,
+                {**down, "long_name": f"depth of the surface before the first stage {below}"},
+            ),
+            "horizon_depth": (
+                (dims[0], "horizon", *dims[1:]),
+                horizons,
+                {
+                    **down,
+                    "long_name": f"depth of the top of each stage after each stage {below}; "
+                    "NaN before the stage is deposited",
+                },
+            ),
+            "horizon_age": (
+                "horizon",
+                ages,
+                {"units": "years before present", "long_name": "age of the stage below"},
+            ),
+            "sea_level": (
+                dims[0],
+                np.array([s.sea_level for s in self.history]),
+                {"units": "m", "long_name": "sea level of the stage (positive up)"},
+            ),
+        }
 
 
 def stage_loading(

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import logging
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -17,6 +18,11 @@ from gridflex.gis.geometry import geometry_of
 from gridflex.io.netcdf import write_netcdf
 from gridflex.progress import Progress
 from gridflex.scenario.context import error_context
+from gridflex.workflows.basin_outputs import (
+    check_basin_outputs,
+    plan_basin_outputs,
+    write_basin_outputs,
+)
 from gridflex.workflows.basin_tables import BasinScenario
 from gridflex.workflows.grid_input import read_grid_input
 from gridflex.workflows.outcome import RunOutcome
@@ -101,9 +107,12 @@ def _stages(scenario: BasinScenario, surface: xr.DataArray) -> list[Stage]:
 
 
 def _run_stages(
-    scenario: BasinScenario, progress: Progress | None
+    scenario: BasinScenario,
+    progress: Progress | None,
+    check: Callable[[xr.DataArray], None] | None = None,
 ) -> tuple[xr.Dataset, xr.DataArray]:
-    """The staged loading of ``[basin]`` and ``[[stages]]``, and the surface grid."""
+    """The staged loading of ``[basin]`` and ``[[stages]]``, and the surface grid;
+    *check* is called with the surface before any stage is read or solved."""
     table, solver = scenario.table("basin"), scenario.table("solver")
     surface = _grid(
         table["surface_file"],
@@ -112,6 +121,8 @@ def _run_stages(
         None,
         "elevation",
     )
+    if check is not None:
+        check(surface)
     stages = _stages(scenario, surface)
     # te from a number, a grid file, [margin] and [[breaks]], on the surface's grid, as
     # gridflex run builds it (its messages name [plate], [margin] or [[breaks]])
@@ -257,8 +268,11 @@ def run_basin(
         )
     plan = OutputPlan(scenario, overwrite)
     plan.add({"file": scenario.table("output")["file"]})
+    extra = plan_basin_outputs(scenario, plan)  # grids, maps, wells, section
     if scenario.tables.get("basin") is not None:
-        result, reference = _run_stages(scenario, progress)
+        result, reference = _run_stages(
+            scenario, progress, lambda surface: check_basin_outputs(scenario, extra, surface)
+        )
     else:
         result, reference = _run_backstrip(scenario)
     result = stamp_result(result, scenario, "basin", projected_axes=True)
@@ -269,4 +283,5 @@ def run_basin(
         outcome.written.append(
             write_netcdf(result, plan["file"], plan.overwrite, plan.inputs, crs=crs)
         )
+        write_basin_outputs(extra, result, crs, plan, outcome.written)
     return outcome

@@ -12,7 +12,9 @@ A basin scenario has these tables (``[[...]]`` are arrays of tables)::
                           level, sea level, te of its time
     [backstrip]           or backstripping: basement, sediment and water grids, density
     [[backstrip_layers]]  optional: a layered column, backstripped step by step
-    [output]              NetCDF file
+    [output]              NetCDF file; GeoTIFFs and maps of each stage, section plot
+    [[wells]]             optional: pseudo-wells (name, x, y), a CSV each
+    [section]             optional: a cross-section of the horizons at chosen ages
 """
 
 from __future__ import annotations
@@ -164,13 +166,43 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
     },
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),
+        "geotiff": Key(
+            "flag_or_names",
+            "GeoTIFFs of each stage beside the NetCDF (<stem>_<grid>_stage<k>.tif): true "
+            "for stage_thickness, accommodation_created and deflection_increment, or a "
+            "list of stage grids",
+            False,
+        ),
+        "maps": Key(
+            "flag_or_names",
+            "PNG maps of each stage beside the NetCDF (<stem>_<grid>_stage<k>.png), as geotiff",
+            False,
+        ),
+        "section_plot": Key(
+            "path", "PNG of the horizons along [section] (default <stem>_section.png)", None
+        ),
+    },
+    # pseudo-wells: one CSV each beside the NetCDF (<stem>_well_<name>.csv)
+    "wells": {
+        "name": Key("string", "name of the pseudo-well (also in its CSV file's name)", REQUIRED),
+        "x": Key("number", "x of the well in the grid's coordinates", REQUIRED),
+        "y": Key("number", "y of the well in the grid's coordinates", REQUIRED),
+    },
+    "section": {
+        "start": Key(
+            "list", "[x, y] of the cross-section's start, in the grid's coordinates", REQUIRED
+        ),
+        "end": Key("list", "[x, y] of the cross-section's end", REQUIRED),
+        "ages": Key(
+            "list", "ages of the stages drawn (years before present), a panel each", REQUIRED
+        ),
     },
 }
 """Every table and key a basin scenario may contain."""
 
-BASIN_ARRAY_TABLES = frozenset({"stages", "backstrip_layers", "breaks"})
+BASIN_ARRAY_TABLES = frozenset({"stages", "backstrip_layers", "breaks", "wells"})
 BASIN_REQUIRED_TABLES = ("plate", "output")
-_OPTIONAL = frozenset({"basin", "backstrip"})
+_OPTIONAL = frozenset({"basin", "backstrip", "section"})
 """Tables that switch a workflow on; absent, they are ``None``."""
 
 
