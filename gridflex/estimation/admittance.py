@@ -19,6 +19,7 @@ coherence and admittance for uncorrelated surface and subsurface loads
 from __future__ import annotations
 
 import math
+import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -29,7 +30,7 @@ import scipy.optimize
 import xarray as xr
 
 from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
-from gridflex.errors import InputError
+from gridflex.errors import GridflexWarning, InputError
 from gridflex.estimation.search import check_search_bounds, grid_then_refine
 from gridflex.gravity.first_order import CrustLayers, compensation_factor
 from gridflex.grid import GridSpec, check_grid, check_same_grid, wavenumbers_squared
@@ -39,6 +40,7 @@ from gridflex.validation import check_choice, check_integer, check_number
 
 __all__ = [
     "CURVES",
+    "LeakageBiasWarning",
     "SpectralFit",
     "bouguer_admittance",
     "bouguer_coherence",
@@ -51,6 +53,11 @@ CURVES = ("free_air_admittance", "bouguer_admittance", "bouguer_coherence")
 """Theoretical curves accepted by :func:`fit_te_spectral`."""
 
 _TWO_PI_G = 2.0 * math.pi * GRAVITATIONAL_CONSTANT
+
+
+class LeakageBiasWarning(GridflexWarning):
+    """A spectral prediction could not be estimated like the data: taper leakage of a
+    red topography spectrum pulls the fitted te low."""
 
 
 def _detrend(values: np.ndarray) -> np.ndarray:
@@ -163,7 +170,9 @@ def cross_spectra(
         m⁻¹), ``coherence`` (raw), ``coherence_corrected`` ((n γ² - 1)/(n - 1),
         an approximate bias correction [from memory, PHYSICS.md 8.2]), ``estimates``
         (Fourier coefficients in the band), ``wavelength`` (m), ``band_low`` and
-        ``band_high`` (rad m⁻¹). Empty bands are dropped. Both grids are
+        ``band_high`` (rad m⁻¹), and ``topography`` (dims ``("y", "x")``, the grid
+        given), from which :func:`fit_te_spectral` estimates its prediction like the
+        data (drop it to save memory; the fit then warns). Empty bands are dropped. Both grids are
         detrended (plane removed) first. Attributes keep the taper settings and
         the band edges.
 
@@ -206,13 +215,20 @@ def cross_spectra(
             "wavelength": ("wavenumber", 2.0 * math.pi / k_mean, {"units": "m"}),
             "band_low": ("wavenumber", edges[:-1][keep], {"units": "rad m-1"}),
             "band_high": ("wavenumber", edges[1:][keep], {"units": "rad m-1"}),
+            "topography": (
+                ("y", "x"),
+                np.asarray(topography.values, dtype=np.float64),
+                {"units": topography.attrs.get("units", "m"), "long_name": "topography given"},
+            ),
         },
         coords={
             "wavenumber": (
                 "wavenumber",
                 k_mean,
                 {"units": "rad m-1", "long_name": "mean radial wavenumber of the band"},
-            )
+            ),
+            "y": topography["y"].values,
+            "x": topography["x"].values,
         },
         attrs={
             "tapers_per_axis": setup.count,
@@ -423,8 +439,19 @@ def _theory(
             "curve 'free_air_admittance' needs gravity=CrustLayers(...) "
             "and topography_contrast (kg/m3)"
         )
-    if options["topography"] is not None:
-        return _matched_free_air(spectra, options["topography"], plate, layers, contrast, use)
+    topography = options["topography"]
+    if topography is None and "topography" in spectra.data_vars:
+        topography = spectra["topography"]
+    if topography is not None:
+        return _matched_free_air(spectra, topography, plate, layers, contrast, use)
+    warnings.warn(
+        "fit_te_spectral: the spectra carry no topography and none was given, so the "
+        "free-air prediction is the bare theoretical curve; taper leakage of red "
+        "topography spectra then pulls te low (seen: 30-38 km for 50 km). Pass "
+        "topography= or keep the spectra's 'topography' variable",
+        LeakageBiasWarning,
+        stacklevel=3,
+    )
     return lambda te, f: free_air_admittance(k, plate.with_te(te), layers, float(contrast))
 
 
@@ -520,11 +547,13 @@ def fit_te_spectral(
     load_ratio_bounds : tuple of float, default (0.01, 100)
         Search range of f.
     topography : xarray.DataArray, optional
-        The topography the spectra were estimated from. With the free-air curve
-        the prediction is then estimated like the data: the theoretical
-        admittance is applied to this topography and the model anomaly passes
-        through the same tapers and bands. This removes most of the bias of
-        taper leakage, which pulls Te low for red (steep) topography spectra.
+        The topography the spectra were estimated from; by default the spectra's own
+        ``topography`` variable (kept by :func:`cross_spectra`). With the free-air
+        curve the prediction is estimated like the data: the theoretical admittance
+        is applied to this topography and the model anomaly passes through the same
+        tapers and bands. This removes most of the bias of taper leakage, which
+        pulls Te low for red (steep) topography spectra. Without either, the bare
+        curve is fitted and :class:`LeakageBiasWarning` is issued.
 
     Returns
     -------
