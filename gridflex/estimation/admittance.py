@@ -61,12 +61,14 @@ class LeakageBiasWarning(GridflexWarning):
 
 
 def _detrend(values: np.ndarray) -> np.ndarray:
-    """Remove the least-squares plane a + b i + c j (common practice before tapering)."""
-    ny, nx = values.shape
+    """Remove the least-squares plane a + b i + c j (common practice before tapering)
+    from a grid, or from each grid of a stack (the last two axes)."""
+    ny, nx = values.shape[-2:]
     j, i = np.meshgrid(np.arange(nx, dtype=np.float64), np.arange(ny, dtype=np.float64))
-    design = np.column_stack([np.ones(values.size), i.ravel(), j.ravel()])
-    coef, *_ = np.linalg.lstsq(design, values.ravel(), rcond=None)
-    return values - (design @ coef).reshape(values.shape)
+    design = np.column_stack([np.ones(ny * nx), i.ravel(), j.ravel()])
+    flat = values.reshape(-1, ny * nx)
+    coef, *_ = np.linalg.lstsq(design, flat.T, rcond=None)
+    return values - (design @ coef).T.reshape(values.shape)
 
 
 class _Bands:
@@ -90,10 +92,11 @@ class _Bands:
         check_memory(16.0 * len(self.tapers) * self.flat.size * 2, "multitaper spectra")
 
     def transform(self, values: np.ndarray) -> list[np.ndarray]:
-        """Band-selected Fourier coefficients of the detrended grid, one array per taper."""
+        """Band-selected Fourier coefficients of the detrended grid (or of each grid of a
+        stack, the last two axes), one array per taper."""
         v = _detrend(np.asarray(values, dtype=np.float64))
         return [
-            scipy.fft.rfft2(ty[:, None] * tx[None, :] * v, workers=-1)[self.inside]
+            scipy.fft.rfft2(ty[:, None] * tx[None, :] * v, workers=-1)[..., self.inside]
             for ty, tx in self.tapers
         ]
 
