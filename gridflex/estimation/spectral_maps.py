@@ -439,7 +439,9 @@ def te_map(
     )
     low, high = check_search_bounds("bounds", bounds, "m")
     samples = check_integer("samples", samples, minimum=3)
-    confidence = check_number("confidence", confidence, minimum=0.0, maximum=1.0, strict=True)
+    confidence = check_number("confidence", confidence)
+    if not 0.0 < confidence < 1.0:
+        raise InputError(f"confidence must lie in (0, 1), got {confidence!r}")
     shape = (
         _window_cells(window, spec.dy, spec.ny, "y"),
         _window_cells(window, spec.dx, spec.nx, "x"),
@@ -463,6 +465,7 @@ def te_map(
         else check_number("moho_depth", moho_depth, minimum=0.0, unit="m"),
         "gravity": gravity,
         "topography_contrast": topography_contrast,
+        "confidence": confidence,
     }
     setup = _Setup(spec, shape, plate, quantity, spectral)
     starts_y = _starts(spec.ny, shape[0], steps[0])
@@ -560,6 +563,7 @@ def _map_dataset(
         "tapers_per_axis": setup.bands.count,
         "bandwidth": float(spectral["bandwidth"]),
         "bands_used": setup.n_bands,
+        "confidence": float(spectral["confidence"]),
         "band_wavenumbers": setup.k_mean,
     }
     if setup.quantity == "bouguer":
