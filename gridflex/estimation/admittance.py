@@ -430,6 +430,15 @@ def _theory(
     """The curve to fit; *options* holds the keywords of :func:`fit_te_spectral`."""
     crust_density = options["crust_density"]
     if curve == "bouguer_coherence":
+        warnings.warn(
+            "fit_te_spectral: the Bouguer coherence is fitted with Forsyth's analytic curve "
+            "(one load ratio at all wavenumbers, no taper leakage); on red two-load "
+            "synthetics it was off by -27 to +95 % (tests/benchmarks/spectral_bias.py). "
+            "gridflex.te_map(topography, anomaly, plate, window=<the grid's side>) "
+            "estimates the prediction from the data's own spectra (load deconvolution)",
+            LeakageBiasWarning,
+            stacklevel=3,
+        )
         return lambda te, f: bouguer_coherence(k, plate.with_te(te), crust_density, f)
     if curve == "bouguer_admittance":
         if options["moho_depth"] is None:
@@ -535,6 +544,9 @@ def fit_te_spectral(
         *topography_contrast*), :func:`bouguer_admittance` (needs *moho_depth*) or
         :func:`bouguer_coherence` (fitted to ``coherence_corrected``). For the
         Forsyth curves the load ratio f is a nuisance parameter fitted inside each Te.
+        The analytic coherence curve is biased on red loads and warns
+        (:class:`LeakageBiasWarning`); :func:`gridflex.te_map` with one window the size
+        of the grid deconvolves the loads instead.
     bounds : tuple of float, default (1e3, 1e5)
         Te search range (m): log-spaced coarse grid of *samples*, then Brent.
     wavenumber_range : tuple of float, optional

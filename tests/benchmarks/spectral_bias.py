@@ -6,7 +6,8 @@ PHYSICS.md eq. 6.2 applied to it. For each true te and seed the script fits the 
 admittance twice: with the bare theoretical curve (the spectra's ``topography`` dropped,
 which is what ``fit_te_spectral`` did by default before) and with the default, which
 estimates the prediction from the data's own topography through the same tapers and bands.
-Prints te and its error in percent.
+Prints te and its error in percent. Then the Bouguer curves of Forsyth's two-load model
+against load deconvolution (``gridflex.te_map`` with one window).
 Run: PYTHONPATH=. python tests/benchmarks/spectral_bias.py [seeds]
 """
 
@@ -75,5 +76,39 @@ def main(seeds: int = 4) -> None:
         )
 
 
+def bouguer(seeds: int) -> None:
+    """Forsyth's (1985) two-load model (tests/helpers.two_load_plate, f = 1, 256² of 20 km):
+    the analytic coherence and admittance curves with a fitted load ratio, against load
+    deconvolution (gridflex.te_map with one window the size of the grid)."""
+    from tests.helpers import two_load_plate
+
+    plate = gridflex.Plate(te=0.0, crust_thickness=35e3)
+    print("Bouguer, two loads: te in km (analytic coherence, analytic admittance, deconvolution)")
+    for truth in (10e3, 25e3, 40e3):
+        for seed in range(seeds):
+            topography, anomaly = two_load_plate(truth, 256, 20e3, seed=seed, plate=plate)
+            spectra = gridflex.cross_spectra(topography, anomaly)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", LeakageBiasWarning)
+                coherence = gridflex.fit_te_spectral(spectra, plate, "bouguer_coherence").te
+            admittance = gridflex.fit_te_spectral(
+                spectra, plate, "bouguer_admittance", moho_depth=35e3
+            ).te
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", gridflex.GridflexWarning)
+                deconvolved = float(
+                    gridflex.te_map(topography, anomaly, plate, window=256 * 20e3)["te"].item()
+                )
+            print(
+                f"{truth / 1e3:5.0f}  {seed:4d}   "
+                + "   ".join(
+                    f"{te / 1e3:6.1f} ({100 * (te / truth - 1):+5.0f} %)"
+                    for te in (coherence, admittance, deconvolved)
+                )
+            )
+
+
 if __name__ == "__main__":
-    main(int(sys.argv[1]) if len(sys.argv) > 1 else 4)
+    count = int(sys.argv[1]) if len(sys.argv) > 1 else 4
+    main(count)
+    bouguer(count)

@@ -135,7 +135,8 @@ def test_bouguer_coherence_fit_recovers_te():
         },
         coords={"wavenumber": k},
     )
-    fit = fit_te_spectral(spectra, plate.with_te(5e3), "bouguer_coherence")
+    with pytest.warns(LeakageBiasWarning, match="te_map"):
+        fit = fit_te_spectral(spectra, plate.with_te(5e3), "bouguer_coherence")
     assert_allclose(fit.te, 35e3, rtol=1e-3)  # optimiser tolerance
     assert_allclose(fit.load_ratio, 0.7, rtol=1e-2)
 
