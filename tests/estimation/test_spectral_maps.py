@@ -174,3 +174,19 @@ def test_free_air_map_of_a_uniform_plate():
     )
     assert result.attrs["quantity"] == "free_air"
     assert_allclose(result["te"].values, 25e3, rtol=0.25)
+
+
+def test_chunks_give_the_same_map(two_domains, monkeypatch):
+    """Windows in chunks of one equal windows in one batch (common practice: batching
+    must not change a result)."""
+    from gridflex.estimation import spectral_maps
+
+    topography, bouguer, _ = two_domains
+    options = {"window": WINDOW, "step": 3000e3, "samples": 8}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", OpenIntervalWarning)
+        batch = te_map(topography, bouguer, PLATE, **options)
+        monkeypatch.setattr(spectral_maps, "_CHUNK_BYTES", 1)
+        single = te_map(topography, bouguer, PLATE, **options)
+    for name in ("te", "te_low", "te_high", "rms_misfit"):
+        assert_allclose(single[name].values, batch[name].values, rtol=1e-9)
