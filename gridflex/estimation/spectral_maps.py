@@ -38,7 +38,6 @@ from __future__ import annotations
 import logging
 import math
 import warnings
-from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -94,9 +93,6 @@ _CHUNK_BYTES = 256 * 2**20
 _XTOL = 1e-4
 """Tolerance of the refinement and of the interval ends, in log te."""
 
-Misfit = Callable[[np.ndarray], np.ndarray]
-"""Sum of squared band misfits of a chunk's windows at one trial te (m)."""
-
 
 def _window_cells(window: float, spacing: float, cells: int, axis: str) -> int:
     n = int(round(window / spacing))
@@ -117,10 +113,10 @@ def _starts(cells: int, size: int, step: int) -> np.ndarray:
 
 def _membership(index: np.ndarray, count: int) -> Any:
     """Sparse (count, len(index)) matrix with a 1 at (index[i], i): sums by bin as a product;
-    bins of *index* >= *count* are dropped."""
+    indices outside [0, count) are dropped."""
     from scipy.sparse import csr_matrix
 
-    keep = index < count
+    keep = (index >= 0) & (index < count)
     n = index.size
     return csr_matrix(
         (np.ones(int(keep.sum())), (index[keep], np.arange(n)[keep])), shape=(count, n)
@@ -133,11 +129,12 @@ def _binned(values: np.ndarray, membership: Any) -> np.ndarray:
 
 
 class _Runs:
-    """Sums over runs of a non-decreasing bin index (groups sorted by |k| into bands)."""
+    """Sums over runs of a non-decreasing bin index (groups sorted by |k| into bands);
+    indices outside [0, count) are dropped."""
 
     def __init__(self, index: np.ndarray, count: int) -> None:
         self.starts = np.flatnonzero(np.r_[True, np.diff(index) != 0])
-        self.keep = index[self.starts] < count
+        self.keep = (index[self.starts] >= 0) & (index[self.starts] < count)
 
     def __call__(self, values: np.ndarray) -> np.ndarray:
         return np.add.reduceat(values, self.starts, axis=-1)[..., self.keep]
@@ -258,10 +255,12 @@ class _Setup:
                 "cells (wavenumber_range, bands); need >= 3"
             )
         self.k_mean = k_mean[use]
-        # bands used, numbered 0..n-1; coefficients of other bands go to a dropped bin
-        number = np.full(bands.nb, int(use.sum()), dtype=np.int64)
-        number[use] = np.arange(int(use.sum()))
+        # bands used, numbered 0..n-1; coefficients of bands left out go to a dropped bin,
+        # -1 below the used range and n above it, so the numbers still grow with |k|
         self.n_bands = int(use.sum())
+        used = np.flatnonzero(use)
+        number = np.where(np.arange(bands.nb) < used[0], -1, self.n_bands)
+        number[use] = np.arange(self.n_bands)
         flat = number[bands.flat]
         self.coefficient_bands = _membership(flat, self.n_bands)
         # coefficients sharing |k| share every weight of the deconvolution: sum them first

@@ -190,3 +190,19 @@ def test_chunks_give_the_same_map(two_domains, monkeypatch):
         single = te_map(topography, bouguer, PLATE, **options)
     for name in ("te", "te_low", "te_high", "rms_misfit"):
         assert_allclose(single[name].values, batch[name].values, rtol=1e-9)
+
+
+def test_wavenumber_range_drops_bands_at_both_ends(two_domains):
+    topography, bouguer, _ = two_domains
+    options = {"window": WINDOW, "step": 3000e3, "samples": 8}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", OpenIntervalWarning)
+        full = te_map(topography, bouguer, PLATE, **options)
+        k = full.attrs["band_wavenumbers"]
+        cut = te_map(topography, bouguer, PLATE, wavenumber_range=(k[1], k[-2]), **options)
+    assert cut.attrs["bands_used"] == full.attrs["bands_used"] - 2
+    assert_allclose(cut.attrs["band_wavenumbers"], k[1:-1])
+    # the rollover of te 10-40 km lies inside the kept bands: te changes little (25 %)
+    assert_allclose(cut["te"].values, full["te"].values, rtol=0.25)
+    with pytest.raises(InputError, match="usable bands"):
+        te_map(topography, bouguer, PLATE, wavenumber_range=(k[0], k[1]), **options)
