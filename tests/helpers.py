@@ -361,3 +361,70 @@ def write_basin_inputs(folder: Path, n: int = 24) -> xr.DataArray:
         lens = grid(peak * np.exp(-r2 / radius**2) * (r2 < 9 * radius**2))
         lens.to_dataset(name="thickness").to_netcdf(folder / f"s{i}.nc")
     return surface
+
+
+def two_load_plate(
+    te: Any, n: int, dx: float, seed: int, load_ratio: float = 1.0, plate: Any = None
+) -> tuple[xr.DataArray, xr.DataArray]:
+    """Topography (m) and Bouguer anomaly (mGal) of Forsyth's (1985) two-load model on an
+    n x n periodic grid of spacing *dx*, solved by ``gridflex.solve`` (te a number or a
+    grid on the same coordinates, which picks the finite-difference solver).
+
+    Invented, uncorrelated initial loads with red spectra (amplitude ~ k^-1.5): surface
+    topography H_I and Moho relief W_I (up), scaled so that f = drho W_I / (rho_c H_I) is
+    *load_ratio* in every band. Both load the plate from above and below, which sinks by w
+    with air above (restoring rho_m g w): final topography H = H_I - w, Moho W = W_I - w,
+    Bouguer anomaly 2 pi G drho e^{-k z_m} W (PHYSICS.md 8.2, first order; z_m the
+    plate's crust_thickness)."""
+    import scipy.fft
+
+    import gridflex
+    from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
+
+    x = np.arange(n) * dx
+    plate = plate if plate is not None else gridflex.Plate(te=0.0, crust_thickness=35e3)
+    rho_c, rho_m = plate.crust_density, plate.mantle_density
+    ky = 2 * np.pi * scipy.fft.fftfreq(n, dx)[:, None]
+    kx = 2 * np.pi * scipy.fft.rfftfreq(n, dx)[None, :]
+    k = np.hypot(ky, kx)
+    rng = np.random.default_rng(seed)
+
+    def red() -> np.ndarray:
+        spec = rng.standard_normal(k.shape) + 1j * rng.standard_normal(k.shape)
+        field = scipy.fft.irfft2(spec * np.where(k > 0, k, np.inf) ** -1.5, s=(n, n))
+        return field / field.std()
+
+    h_i = 1000.0 * red()
+    w_i = 1000.0 * load_ratio * rho_c / (rho_m - rho_c) * red()
+    coords = {"y": x, "x": x}
+    te_value = te if np.isscalar(te) else xr.DataArray(te, dims=("y", "x"), coords=coords)
+    flexed = gridflex.Plate(
+        te=te_value,
+        youngs_modulus=plate.youngs_modulus,
+        poisson_ratio=plate.poisson_ratio,
+        mantle_density=rho_m,
+        infill_density=0.0,
+        crust_density=rho_c,
+        crust_thickness=plate.crust_thickness,
+    )
+    load = xr.DataArray(
+        (rho_c * h_i + (rho_m - rho_c) * w_i) * flexed.gravity, dims=("y", "x"), coords=coords
+    )
+    w = gridflex.solve(load, flexed, edges="periodic")["deflection"].values
+    moho = w_i - w
+    bouguer = (
+        scipy.fft.irfft2(
+            2
+            * np.pi
+            * GRAVITATIONAL_CONSTANT
+            * (rho_m - rho_c)
+            * np.exp(-k * plate.crust_thickness)
+            * scipy.fft.rfft2(moho),
+            s=(n, n),
+        )
+        / MGAL
+    )
+    return (
+        xr.DataArray(h_i - w, dims=("y", "x"), coords=coords),
+        xr.DataArray(bouguer, dims=("y", "x"), coords=coords),
+    )

@@ -482,3 +482,52 @@ def plot_spectral_fit(
     unit = curves["observed"].attrs.get("units", "")
     ax.set_ylabel(f"{curves.attrs.get('quantity', '')} ({unit})")
     return _finish_curve(fig, ax, title, path, overwrite, inputs)
+
+
+def plot_te_map(
+    result: xr.Dataset,
+    path: str | Path,
+    overwrite: bool = False,
+    inputs: Paths = (),
+    title: str = "Elastic thickness",
+) -> Path:
+    """Map of ``te`` beside the width of its interval (``te_high - te_low``), in km.
+
+    Parameters
+    ----------
+    result : xarray.Dataset
+        Output of :func:`gridflex.te_map` (``te``, ``te_low``, ``te_high`` in m).
+    path : str or pathlib.Path
+        PNG file.
+    overwrite : bool, default False
+        Replace an existing file.
+    inputs : iterable of path
+        Files never to be overwritten.
+    title : str
+        Title of the figure.
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    plt = _pyplot()
+    x, y, xlabel, ylabel, aspect = _axes_coordinates(result)
+    confidence = result.attrs.get("confidence")
+    share = f"{float(confidence):.0%} " if confidence is not None else ""
+    panels = (
+        (result["te"].values / 1e3, "te (km)", "viridis"),
+        (
+            (result["te_high"].values - result["te_low"].values) / 1e3,
+            f"width of the {share}interval (km)",
+            "magma",
+        ),
+    )
+    fig, axes = plt.subplots(1, 2, figsize=(12.0, 5.2), constrained_layout=True)
+    for ax, (values, label, cmap) in zip(axes, panels, strict=True):
+        mesh = ax.pcolormesh(x, y, values, shading="nearest", cmap=cmap)
+        fig.colorbar(mesh, ax=ax, shrink=0.85, format="%.3g").set_label(label)
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel(ylabel)
+        ax.set_aspect(aspect)
+    fig.suptitle(title, fontsize=10)
+    return _save(fig, path, overwrite, inputs)
