@@ -88,6 +88,17 @@ FIT: dict[str, Any] = {
     "output": {"file": "fit.nc"},
 }
 SWEEP: dict[str, Any] = {**RUN, "sweep": {"te": ["5 km", "10 km"]}}
+TEMAP: dict[str, Any] = {
+    "plate": {"crust_thickness": "35 km"},
+    "data": {
+        "topography_file": "load.nc",
+        "topography_variable": "height",
+        "anomaly_file": "bouguer.nc",
+        "anomaly_variable": "bouguer",
+    },
+    "temap": {"window": "192 km", "step": "96 km", "samples": 6},
+    "output": {"file": "temap.nc"},
+}
 BASES = {
     "run": RUN,
     "file": FILE_RUN,
@@ -96,6 +107,7 @@ BASES = {
     "backstrip": BACKSTRIP,
     "fit": FIT,
     "sweep": SWEEP,
+    "temap": TEMAP,
 }
 
 NOT_NUMBERS = ["banana", [1, 2], True, {"a": 1}, float("nan"), float("inf")]
@@ -407,6 +419,18 @@ ROWS: list[tuple[str, str, dict[tuple, Any], list[str], str]] = [
     ("demo", "", {}, ["--out", "d\0"], "--out"),
     ("demo", "", {}, ["--out", "text.nc/sub"], "text.nc"),
     # ---- profile
+    # ---- temap
+    *_each("temap", "temap", ("temap", "window"), [*NOT_NUMBERS, "-10 km", "1 kg"], "window"),
+    *_each("temap", "temap", ("temap", "step"), ["x", "0 km", "1 s"], "step"),
+    *_each("temap", "temap", ("temap", "quantity"), ["banana", 3], "quantity"),
+    *_each("temap", "temap", ("temap", "samples"), [2, 2.5, "x"], "samples"),
+    *_each("temap", "temap", ("data", "topography_file"), ["nope.nc", "folder"], "topography_file"),
+    ("temap", "temap", {("data", "anomaly_variable"): "missing"}, [], "no variable 'missing'"),
+    ("temap", "temap", {("data", "anomaly_variable"): 3}, [], "anomaly_variable"),
+    ("temap", "temap", {("data", "anomaly_file"): "other_grid.nc"}, [], "anomaly_file"),
+    ("temap", "temap", {("temap", "te_min"): "90 km", ("temap", "te_max"): "20 km"}, [], "te_min"),
+    ("temap", "temap", {("output", "file"): "load.nc"}, [], "load.nc"),
+    ("temap", "temap", {("temap", "banana"): 1}, [], "banana"),
     ("profile", "", {}, ["nope.nc", *PROFILE[1:]], "nope.nc"),
     ("profile", "", {}, ["folder", *PROFILE[1:]], "folder"),
     ("profile", "", {}, ["text.nc", *PROFILE[1:]], "text.nc"),
@@ -459,6 +483,8 @@ def write_inputs(folder: Path) -> Path:
     _write_grid(folder / "surface.nc", "elevation", basin + np.linspace(-400, 50, 24))
     _write_grid(folder / "s1.nc", "thickness", basin.copy(data=500 * np.exp(-r2 / 25e3**2)))
     _write_grid(folder / "water.nc", "depth", basin + 150.0)
+    noise = np.random.default_rng(1).normal(size=load.shape)  # invented data, any numbers
+    _write_grid(folder / "bouguer.nc", "bouguer", load.copy(data=20.0 * noise), units="mGal")
     _write_grid(folder / "other_grid.nc", "thickness", make_grid(10, 12, 3e3))
     irregular = make_grid(16, 16, 5e3)
     irregular = irregular.assign_coords(x=np.r_[irregular.x.values[8:], irregular.x.values[:8]])
