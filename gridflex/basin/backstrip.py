@@ -30,7 +30,7 @@ import xarray as xr
 from gridflex.basin.compaction import (
     Lithology,
     bulk_density,
-    grain_thickness,
+    layer_grains,
     saturated_column,
 )
 from gridflex.basin.compaction import lithology as as_lithology
@@ -251,12 +251,15 @@ def _decompacted(
     grains: list[np.ndarray], liths: list[Lithology], water_density: float
 ) -> tuple[np.ndarray, np.ndarray]:
     """Thickness (m) and mean bulk density (kg m^-3) of the layers decompacted to the
-    surface (at least the water density; the first layer's grain density where none)."""
+    surface (at least the water density). Each layer's mass is its thickness times its
+    mean bulk density, so the column's density is a thickness-weighted mean that stays
+    physical for vanishing columns; where there is no sediment at all, the limit: the
+    top layer's density at the surface."""
     _, masses, total = saturated_column(grains, liths, water_density)
     mass = np.zeros(total.shape)
     for layer_mass in masses:
         mass += layer_mass
-    fallback = liths[0].grain_density  # no sediment: no load, any valid density
+    fallback = bulk_density(0.0, 0.0, liths[0], water_density)
     with np.errstate(invalid="ignore", divide="ignore"):
         density = np.where(total > 0, mass / np.where(total > 0, total, 1.0), fallback)
     return total, np.clip(density, water_density, None)
@@ -325,7 +328,7 @@ def backstrip_layers(
     # grains of each layer from its present burial
     grains, top = [], np.zeros(reference.shape)
     for h, lith in zip(thickness, liths, strict=True):
-        grains.append(grain_thickness(top, top + h, lith))
+        grains.append(layer_grains(top, h, lith))
         top = top + h
     results = []
     for step in range(count):

@@ -58,8 +58,8 @@ from gridflex.basin.compaction import (
     Lithology,
     bulk_density,
     check_grains_sink,
-    compacted_base,
-    grain_thickness,
+    compacted_thickness,
+    layer_grains,
     saturated_column,
 )
 from gridflex.basin.compaction import lithology as as_lithology
@@ -243,7 +243,7 @@ class StagedBasin:
     def _grains_of(self, thickness: np.ndarray, lith: Lithology) -> np.ndarray:
         """Grain thickness of a layer of *thickness* deposited at the top of the pile."""
         if self.compaction:
-            return grain_thickness(0.0, thickness, lith)
+            return layer_grains(0.0, thickness, lith)
         return thickness * (1.0 - lith.surface_porosity)
 
     def _water(self, thickness: np.ndarray, sea_level: float) -> np.ndarray:
@@ -641,8 +641,8 @@ def _deposited_stages(stages: list[Stage]) -> list[Stage]:
         if not np.all(np.isfinite(h)) or h.min() < 0:
             raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")
         top = np.zeros(h.shape) if burial is None else burial
-        grains = grain_thickness(top, top + h, stage.rock)
-        deposited = compacted_base(np.zeros(h.shape), grains, stage.rock)
+        grains = layer_grains(top, h, stage.rock)
+        deposited = compacted_thickness(np.zeros(h.shape), grains, stage.rock)
         out.append(dataclasses.replace(stage, thickness=stage.thickness.copy(data=deposited)))
         burial = top + h
     return out[::-1]

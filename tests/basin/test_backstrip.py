@@ -127,3 +127,24 @@ def test_basin_names_are_importable_where_the_readme_shows_them():
     assert basin.stage_loading is staging.stage_loading
     assert basin.Stage is staging.Stage
     assert basin.StagedBasin is staging.StagedBasin
+
+
+def test_vanishing_layers_backstrip_with_the_limit_density():
+    # a layer 5e-14 m thick under 2500 m of sediment (the size at which the decompacted
+    # column got 7400-8900 kg/m^3) or absent: decompacted to the surface its mean bulk
+    # density is the surface limit rho_w phi0 + rho_g (1 - phi0) (Athy 1930 law,
+    # Sclater & Christie 1980 shale), and the Airy backstrip (Steckler & Watts 1978) of
+    # that column is the water depth alone to round-off; te = 0
+    values = np.zeros((N, N))
+    values[: N // 2] = 5e-14
+    layers = [(flat(2500.0), "sandstone"), (grid(values), "shale")]
+    out = backstrip_layers(layers, [50.0, 80.0], Plate(te=0.0), edges="periodic")
+    step = out.isel(step=1)
+    surface_density = 1030.0 * 0.63 + 2720.0 * 0.37
+    assert float(step["sediment_thickness"].min()) >= 0.0
+    # grains conserved: h (1 - phi(2500 m)) = h' (1 - phi0) for a vanishing layer
+    expanded = 5e-14 * (1.0 - 0.63 * np.exp(-2500.0 / 1960.0)) / (1.0 - 0.63)
+    assert_allclose(step["sediment_thickness"].values[: N // 2], expanded, rtol=1e-12)
+    assert np.all(step["sediment_thickness"].values[N // 2 :] == 0.0)
+    assert_allclose(step["sediment_density"].values, surface_density, rtol=1e-9)
+    assert_allclose(step["tectonic_subsidence"].values, 80.0, atol=1e-12)
