@@ -27,7 +27,12 @@ added to it). The infill solver carries the fill with the stage's mean bulk
 density and does not compact the column under it, so the stage is then settled:
 the remaining difference between the column the solver carried and the
 compacted column is solved again (new fill joining the stage) until it would
-move the plate by less than the tolerance (usually 1-3 passes). Every stage,
+move the plate by less than the tolerance (usually 1-3 passes). Where the fill
+actually deposited is lighter than carried, the plate rebounds and would lift filled
+cells above the base level; before each pass the fill is trimmed back to the level
+(the excess removed, at most the fill), so no filled cell ends more than about the
+tolerance above its base level (the trimming converges geometrically: by a factor of
+about 0.5 per pass with te = 0, faster with flexure). Every stage,
 whatever its te (a number, or a grid with margins and breaks, solved by finite
 differences), goes through the same infill solve: sediment up to the base level,
 water below sea level, air above. Limitations: the fill takes only space made by
@@ -88,7 +93,7 @@ TeLike = float | xr.DataArray
 ISOPACHS = ("deposited", "present")
 """Accepted values of ``stage_loading(isopachs=...)``."""
 
-_SETTLE_PASSES = 20
+_SETTLE_PASSES = 40  # trimming converges geometrically (ratio ~0.5 with te = 0, less with flexure)
 _SNAPSHOT_GRIDS = 11  # grids kept per recorded stage (see _Snapshot)
 
 
@@ -377,7 +382,9 @@ class StagedBasin:
         te = self.plate.te if stage.te is None else stage.te
         saved = (self.deflection, self.mass, self.thickness, self.current_sea_level)
         try:
-            w, fill, iterations = self._add(h, lith, grains, stages, te, sea, infill, fill_density)
+            w, fill, iterations = self._add(
+                h, lith, grains, stages, te, sea, infill, fill_density, level
+            )
         except BaseException:
             # a failed solve (bad input, no convergence) leaves the basin as it was
             self.deflection, self.mass, self.thickness, self.current_sea_level = saved
@@ -403,6 +410,7 @@ class StagedBasin:
         sea: float,
         infill: Infill,
         fill_density: float,
+        level: np.ndarray,
     ) -> tuple[np.ndarray, np.ndarray, int]:
         """Solve a new top stage and settle it; updates the carried state and grains[-1]."""
         w, fill, iterations, mass, thickness = self._solve_increment(
@@ -412,9 +420,14 @@ class StagedBasin:
         self.mass, self.thickness, self.current_sea_level = mass, thickness, sea
         grains[-1] = self._grains_of(h + fill, lith)
         # settle: the solver carried the moat fill with one density and did not compact
-        # the column under it; re-solve the remaining difference (new fill joins the stage)
+        # the column under it; re-solve the remaining difference (new fill joins the stage).
+        # Where the real fill is lighter than carried, the plate rebounds and lifts filled
+        # cells above the base level; the fill there is trimmed back to the level first,
+        # so every pass solves the column as it will be kept
         tolerance = float(self.solve_options.tolerance)
         for _ in range(_SETTLE_PASSES):
+            if infill.sediment != "none":
+                fill = self._trim_fill(h, fill, lith, grains, stages, level)
             with warnings.catch_warnings():
                 # the small remainder reaches the edges wherever the fill did; the stage
                 # solve above already warned about a load at the edge
@@ -436,6 +449,29 @@ class StagedBasin:
                 _SETTLE_PASSES,
             )
         return w, fill, iterations
+
+    def _trim_fill(
+        self,
+        h: np.ndarray,
+        fill: np.ndarray,
+        lith: Lithology,
+        grains: list[np.ndarray],
+        stages: list[Stage],
+        level: np.ndarray,
+    ) -> np.ndarray:
+        """The moat fill less what stands above the base level (m); updates grains[-1].
+
+        The surface of the compacted column with the present deflection is compared
+        with *level* where there is fill; the excess (at most the fill) is removed.
+        """
+        thick, _ = self._column(grains, stages)
+        surface = self.base - self.deflection + np.sum(thick, axis=0)
+        excess = np.clip(np.minimum(surface - level, fill), 0.0, None)
+        if not excess.any():
+            return fill
+        trimmed = fill - excess
+        grains[-1] = self._grains_of(h + trimmed, lith)
+        return trimmed
 
     def remove_stage(self) -> None:
         """Remove the top stage (with its moat fill), decompact the rest, unload the plate.
