@@ -306,7 +306,8 @@ def backstrip_layers(
         On dims ``("step", "y", "x")``: ``tectonic_subsidence``,
         ``local_tectonic_subsidence``, ``sediment_rebound`` (m), ``sediment_thickness``
         (decompacted, m), ``sediment_density`` (kg m^-3), ``basement_depth`` (m below
-        the sea level of the time).
+        the sea level of the time); ``sea_level_change`` (m, on ``step``; also the
+        attribute ``sea_level_changes``).
 
     Raises
     ------
@@ -353,6 +354,17 @@ def backstrip_layers(
         results.append(out.drop_vars("sediment_load"))
     combined = xr.concat(results, dim="step", combine_attrs="override")
     combined = combined.assign_coords(step=np.arange(count))
+    # each step has its own sea level: kept per step, not the first step's as an attribute
+    changes = np.asarray(
+        [check_number(f"sea_level_changes[{i}]", v, unit="m") for i, v in enumerate(levels)]
+    )
+    combined["sea_level_change"] = (
+        "step",
+        changes,
+        {"units": "m", "long_name": "sea level of the step's time relative to present"},
+    )
+    combined.attrs["sea_level_change"] = "per step: see the sea_level_change variable"
+    combined.attrs["sea_level_changes"] = changes
     if ages is not None:
         combined = combined.assign_coords(
             age=("step", np.asarray(ages, dtype=float), {"units": "years before present"})

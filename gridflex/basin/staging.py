@@ -563,6 +563,7 @@ class StagedBasin:
             np.array([s.iterations for s in self.history]),
             {"long_name": "infill iterations of the stage solve"},
         )
+        data.update(self._stage_te())
         coords = {
             "stage": np.arange(len(self.history)),
             "age": (
@@ -580,8 +581,44 @@ class StagedBasin:
             "compaction": int(self.compaction),
             "lithologies": ", ".join(s.rock.name for s in self.stages),
         }
-        stamp = provenance_attrs(self.plate.describe(), attrs, "staged basin loading")
+        stamp = provenance_attrs(self._plate_attrs(), attrs, "staged basin loading")
         return xr.Dataset(data, coords=coords, attrs=stamp)
+
+    def _stage_te(self) -> dict[str, tuple[Any, ...]]:
+        """The te each recorded stage was solved with, on the ``stage`` axis (m)."""
+        low = np.array([float(s.te.min()) for s in self.history])
+        high = np.array([float(s.te.max()) for s in self.history])
+        one = np.where(low == high, low, np.nan)
+        return {
+            "stage_te": (
+                "stage",
+                one,
+                {
+                    "units": "m",
+                    "long_name": "te the stage was loaded (or unloaded) with; NaN for a "
+                    "te grid (see elastic_thickness, stage_te_min, stage_te_max)",
+                },
+            ),
+            "stage_te_min": ("stage", low, {"units": "m", "long_name": "smallest te of the stage"}),
+            "stage_te_max": ("stage", high, {"units": "m", "long_name": "largest te of the stage"}),
+        }
+
+    def _plate_attrs(self) -> dict[str, Any]:
+        """The plate's parameters for the output; its te only when every stage used it.
+
+        When a stage had a te of its own, ``te`` (and its rigidity, flexural parameter,
+        range) would describe a plate no stage may have had: they get the prefix
+        ``default_`` (the te of stages without their own) and ``te`` says "per stage"."""
+
+        out = self.plate.describe()
+        plate_te = grid_values(self.plate.te, self.grid, "plate te")
+        if all(np.array_equal(s.te, plate_te) for s in self.history):
+            return out
+        for key in ("te", "te_min", "te_max", "rigidity", "flexural_parameter"):
+            if key in out:
+                out[f"default_{key}"] = out.pop(key)
+        out["te"] = "per stage: see stage_te, stage_te_min, stage_te_max, elastic_thickness"
+        return out
 
 
 def stage_loading(

@@ -103,7 +103,12 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
             REQUIRED,
         ),
         "variable": Key("string", "NetCDF variable or band, if the file has several", None),
-        "age": Key("number", "age of the stage (years before present); oldest first", REQUIRED),
+        "age": Key(
+            "quantity",
+            "age of the stage before present (years, or with a unit: 5 Myr, 5 Ma); oldest first",
+            REQUIRED,
+            "time",
+        ),
         **_LITHOLOGY_KEYS,
         "base_level": Key(
             "quantity",
@@ -160,7 +165,12 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         "water_depth_file": Key("path", "or a grid file of that water depth", None),
         "water_depth_variable": Key("string", "NetCDF variable or band in water_depth_file", None),
         "sea_level_change": Key("quantity", "sea level then, relative to present", 0.0, "length"),
-        "age": Key("number", "age of the top of the layer (years before present)", None),
+        "age": Key(
+            "quantity",
+            "age of the top of the layer before present (years, or 5 Myr, 5 Ma)",
+            None,
+            "time",
+        ),
     },
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),

@@ -90,6 +90,9 @@ def test_layered_backstrip_decompacts_the_remaining_layers():
     assert_allclose(out["tectonic_subsidence"][0].values, y0, rtol=1e-9)
     assert_allclose(out["tectonic_subsidence"][1].values, y1, rtol=1e-9)
     assert_allclose(out["age"].values, [0.0, 5e6])
+    # each step's sea level is kept, not only the first one's
+    assert_allclose(out["sea_level_change"].values, [0.0, 30.0])
+    assert_allclose(out.attrs["sea_level_changes"], [0.0, 30.0])
     with pytest.raises(InputError, match="one entry per layer"):
         backstrip_layers(layers, [100.0], Plate(te=0.0))
 

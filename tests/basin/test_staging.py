@@ -279,3 +279,28 @@ def test_moat_fill_never_stands_above_the_base_level(te):
     assert float(np.max(surface[fill > 0])) <= 1e-6
     at_level = (fill > 0) & (surface > -1e-6)
     assert at_level.sum() > 50
+
+
+def test_the_te_of_each_stage_is_recorded_and_plate_te_only_when_all_used_it():
+    # bookkeeping of eq. 9.1 (Watts, Karner & Steckler 1982: each increment with the te of
+    # its time): stage_te holds the te each stage was solved with; the [plate] te is not
+    # written as plate_te when a stage used another (common practice: outputs describe the
+    # run)
+    stages = [Stage(lens(300.0), 3e6, "shale"), Stage(lens(200.0), 2e6, "shale", te=2e3)]
+    out = stage_loading(stages, flat(-2000.0), Plate(te=6e3), tolerance=TOL)
+    assert_allclose(out["stage_te"].values, [6e3, 2e3])
+    assert_allclose(out["stage_te_min"].values, [6e3, 2e3])
+    assert out.attrs["plate_default_te"] == 6e3
+    assert "per stage" in out.attrs["plate_te"]
+    assert "plate_rigidity" not in out.attrs
+    same = stage_loading(stages[:1], flat(-2000.0), Plate(te=6e3), tolerance=TOL)
+    assert same.attrs["plate_te"] == 6e3 and "plate_default_te" not in same.attrs
+    te_grid = flat(4e3).copy(
+        data=np.where(np.arange(N) < N // 2, 4e3, 9e3)[None, :] + 0.0 * flat(0.0).values
+    )
+    grid_stage = [Stage(lens(300.0), 3e6, "shale", te=te_grid)]
+    varied = stage_loading(grid_stage, flat(-2000.0), Plate(te=6e3), tolerance=1e-5)
+    assert np.isnan(varied["stage_te"].values[0])
+    assert_allclose(
+        [varied["stage_te_min"].values[0], varied["stage_te_max"].values[0]], [4e3, 9e3]
+    )

@@ -3,11 +3,12 @@
 Run:  python tests/benchmarks/basin_large.py [--sizes 800 1000] [--stages 10]
 
 An invented passive margin (size^2 cells of 2 km; shelf at -450 m, slope down to a
--2800 m basin) receives ``--stages`` prograding delta lobes of 200-260 m (shale and
-sandstone in turn), each stage filling its flexural moat with sediment up to its base
-level (-60 m, so the whole model stays submerged), with compaction and a constant te
-of 15 km. This is the run that
-used to abort on 800^2 grids (negative layer thicknesses from ``compacted_base``).
+-2800 m basin at x = 100 km) receives ``--stages`` delta lobes of 140-260 m prograding
+seaward by 45 km a stage (shale and sandstone in turn), each stage filling its flexural
+moat with sediment up to its base level (-200 m, reached by the lobes' crests on the
+shelf; the whole model stays submerged), with compaction and a constant te of 15 km.
+Before the compaction fix this run could not be backstripped (negative
+``final_stage_thickness``; 809 values down to -9.1e-13 m at 200^2).
 
 For each size it prints
 
@@ -43,27 +44,29 @@ from gridflex.basin.staging import Stage, stage_loading
 DX = 2e3
 WATER = 1030.0
 SHELF, BASIN = 450.0, 2800.0  # m below sea level
-PEAK = 200.0  # m, a lobe's crest (x 1.3 where the lobes add up)
-BASE_LEVEL = -60.0  # m: the fill stops 60 m below sea level, so every column stays
-# submerged and the water-loaded backstrip holds exactly
+SHELF_BREAK = 100e3  # m, x of the shelf break (the grid is centred on x = 0)
+PEAK = 200.0  # m, a lobe's crest (x 1.3 where the lobes along y add up)
+HALF_WIDTH, SPACING, FIRST_FRONT = 25e3, 45e3, -150e3  # m: lobes prograde seaward
+BASE_LEVEL = -200.0  # m: the fill stops 200 m below sea level, so every column stays
+# submerged (the water-loaded backstrip then holds exactly) while the crests of the lobes
+# on the shelf reach it
 
 
 def margin(n: int, count: int) -> tuple[xr.DataArray, list[Stage]]:
     """The initial surface and the stages of the invented margin on n x n cells."""
     coord = (np.arange(n) - n / 2) * DX
     y, x = np.meshgrid(coord, coord, indexing="ij")
-    width = n * DX
 
     def grid(values: np.ndarray) -> xr.DataArray:
         return xr.DataArray(values, dims=("y", "x"), coords={"y": coord, "x": coord})
 
-    surface = -SHELF - (BASIN - SHELF) * 0.5 * (1.0 + np.tanh(x / (0.06 * width)))
+    surface = -SHELF - (BASIN - SHELF) * 0.5 * (1.0 + np.tanh((x - SHELF_BREAK) / 40e3))
     stages = []
     for i in range(count):
-        front = (-0.25 + 0.45 * i / max(count - 1, 1)) * width
-        lobes = 1.0 + 0.3 * np.cos(2.0 * np.pi * y / (0.35 * width) + i)
-        h = PEAK * np.exp(-(((x - front) / (0.05 * width)) ** 2)) * lobes
-        h[np.abs(x - front) > 0.2 * width] = 0.0
+        front = FIRST_FRONT + SPACING * i
+        lobes = 1.0 + 0.3 * np.cos(2.0 * np.pi * y / 150e3 + i)
+        h = PEAK * np.exp(-(((x - front) / HALF_WIDTH) ** 2)) * lobes
+        h[np.abs(x - front) > 4.0 * HALF_WIDTH] = 0.0
         lith = "shale" if i % 2 == 0 else "sandstone"
         stages.append(Stage(grid(h), (count - i) * 1e6, lith, base_level=BASE_LEVEL))
     return grid(surface), stages

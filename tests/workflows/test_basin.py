@@ -54,13 +54,13 @@ surface_variable = "elevation"
 [[stages]]
 file = "s1.nc"
 variable = "thickness"
-age = 3.0e6
+age = "3 Myr"
 lithology = "shale"
 
 [[stages]]
 file = "s2.nc"
 variable = "thickness"
-age = 1.0e6
+age = "1 Ma"
 lithology = "sandstone"
 base_level = "0 m"
 
@@ -80,8 +80,10 @@ file = "delta_out.nc"
     assert out.sizes["stage"] == 2
     for name in ("deflection", "accommodation", "stage_thickness", "stage_density"):
         assert_allclose(out[name].values, expected[name].values, rtol=1e-12, atol=1e-12)
-    assert_allclose(out["age"].values, [3.0e6, 1.0e6])
+    assert_allclose(out["age"].values, [3.0e6, 1.0e6])  # "3 Myr", "1 Ma" in years
     assert float(out["stage_fill"][1].max()) > 0.0  # the second stage filled its moat
+    assert_allclose(out["stage_te"].values, [8e3, 8e3])  # every stage used [plate] te
+    assert out.attrs["plate_te"] == 8e3
 
 
 def test_backstrip_command(tmp_path):
@@ -360,7 +362,10 @@ def test_basin_with_a_margin_and_a_break(stage_files, stage_te):
         assert_allclose(out[name].values, expected[name].values, atol=1e-9)
     assert_allclose(out["elastic_thickness"].values, [te.values, second_te.values])
     assert float(out["stage_fill"][1].max()) > 0.0
-    assert out.attrs["plate_te_min"] == 0.0
+    # the [plate] te grid is plate_te only when every stage used it (common practice)
+    assert out.attrs["plate_default_te_min" if stage_te else "plate_te_min"] == 0.0
+    assert_allclose(out["stage_te_min"].values, [0.0, 0.0])  # the hinge
+    assert_allclose(out["stage_te_max"].values[1], 10e3 if stage_te else 15e3)
 
 
 def test_basin_te_file_and_its_errors_name_the_plate_table(stage_files, capsys):
