@@ -79,6 +79,12 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         ),
         "surface_variable": Key("string", "NetCDF variable or band in surface_file", None),
         "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
+        "sea_level_file": Key(
+            "path",
+            "CSV of sea level through time, columns 'age [Ma]' and 'level [m]' (units in "
+            "the header): a stage without its own sea_level takes it at its age",
+            None,
+        ),
         "water_density": Key(
             "quantity",
             "sea-water (and pore-water) density",

@@ -390,3 +390,57 @@ def test_basin_te_file_and_its_errors_name_the_plate_table(stage_files, capsys):
     assert main(["basin", "-q", "--overwrite", str(path)]) == 2
     err = capsys.readouterr().err
     assert "[margin]" in err and "[basin]" not in err
+
+
+# a sea-level change loads every submerged cell up to the grid edge (expected)
+@pytest.mark.filterwarnings("ignore::gridflex.errors.EdgeLoadWarning")
+def test_sea_level_through_time_from_a_csv_file(stage_files, capsys):
+    # each stage takes the sea level of the file at its age, linear in time between rows
+    # (the one sea-level series rule, gridflex.glacial.ice.sea_level_at; common practice),
+    # ages in Ma (1e6 years); a stage's own sea_level wins; the command must equal the
+    # library call with those levels; ages outside the file are refused
+    folder, shelf = stage_files
+    (folder / "sea.csv").write_text("age [Ma],level [m]\n0,0\n2,30\n4,-10\n")
+    text = """
+[plate]
+elastic_thickness = "8 km"
+
+[basin]
+surface_file = "surface.nc"
+sea_level_file = "sea.csv"
+
+[[stages]]
+file = "s1.nc"
+age = "3 Ma"
+
+[[stages]]
+file = "s2.nc"
+age = "1 Myr"
+lithology = "sandstone"
+{own}
+
+[output]
+file = "sea_out.nc"
+"""
+    (folder / "sea.toml").write_text(text.format(own=""))
+    assert main(["basin", "-q", str(folder / "sea.toml")]) == 0
+    with xr.open_dataset(folder / "sea_out.nc") as ds:
+        out = ds.load()
+    stages = [
+        Stage(_lens(500.0, 25e3), 3.0e6, "shale", sea_level=10.0),
+        Stage(_lens(300.0, 18e3), 1.0e6, "sandstone", sea_level=15.0),
+    ]
+    expected = stage_loading(stages, shelf, Plate(te=8e3))
+    for name in ("deflection", "water_depth"):
+        assert_allclose(out[name].values, expected[name].values, rtol=1e-12, atol=1e-12)
+    (folder / "sea.toml").write_text(text.format(own='sea_level = "-5 m"'))
+    assert main(["basin", "-q", "--overwrite", str(folder / "sea.toml")]) == 0
+    with xr.open_dataset(folder / "sea_out.nc") as ds:
+        own = ds.load()
+    stages[1] = Stage(_lens(300.0, 18e3), 1.0e6, "sandstone", sea_level=-5.0)
+    expected = stage_loading(stages, shelf, Plate(te=8e3))
+    assert_allclose(own["water_depth"].values, expected["water_depth"].values, atol=1e-12)
+    (folder / "sea.csv").write_text("age [Ma],level [m]\n0,0\n2,30\n")
+    assert main(["basin", "-q", "--overwrite", str(folder / "sea.toml")]) == 2
+    err = capsys.readouterr().err
+    assert "[basin] sea_level_file" in err and "not extrapolated" in err
