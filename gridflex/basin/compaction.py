@@ -333,7 +333,10 @@ def _saturated_density(phi: np.ndarray, lith: Lithology, water_density: float) -
 
 
 def saturated_column(
-    grains: Sequence[np.ndarray], lithologies: Sequence[Lithology], water_density: float
+    grains: Sequence[np.ndarray],
+    lithologies: Sequence[Lithology],
+    water_density: float,
+    burial: Sequence[np.ndarray | float] | None = None,
 ) -> tuple[list[np.ndarray], list[np.ndarray], np.ndarray]:
     """Layers stacked from the surface down, each compacted under the ones above it.
 
@@ -345,6 +348,11 @@ def saturated_column(
         The porosity law of each layer, same order.
     water_density : float
         Density of the pore water (kg m^-3).
+    burial : sequence of numpy.ndarray or float, optional
+        Deepest burial (m) the top of each layer has had, same order: compaction is
+        irreversible, so a layer brought up by erosion above it keeps the porosity of
+        that burial (its thickness is compacted from the deeper of its present top and
+        this depth). None: every layer at its present burial.
 
     Returns
     -------
@@ -358,11 +366,14 @@ def saturated_column(
     thickness: list[np.ndarray] = []
     mass: list[np.ndarray] = []
     top = np.zeros(np.shape(grains[0])) if len(grains) else np.zeros(())
-    for s, lith in zip(grains, lithologies, strict=True):
-        h = compacted_thickness(top, s, lith)
+    deepest: Sequence[np.ndarray | float] = [0.0] * len(grains) if burial is None else burial
+    for s, lith, past in zip(grains, lithologies, deepest, strict=True):
+        compacted_at = np.maximum(top, past)
+        h = compacted_thickness(compacted_at, s, lith)
         thickness.append(h)
         # saturated pores: the mean bulk density times the thickness (a weighted mean of
         # rho_w and rho_grain, so a vanishing layer keeps a physical density)
-        mass.append(h * _saturated_density(mean_porosity(top, h, lith), lith, water_density))
+        phi = mean_porosity(compacted_at, h, lith)
+        mass.append(h * _saturated_density(phi, lith, water_density))
         top = top + h
     return thickness, mass, top

@@ -19,6 +19,12 @@ constant te and water infill the response is path independent (the sum of the
 increments is the solve of the total: the equilibrium of a column is unique);
 with a te that changes from stage to stage it is not, as intended, and neither
 is a moat filled with sediment (each stage fills only the space it makes).
+A negative isopach erodes: its (compacted) thickness is removed from the top of the
+pile, youngest stage first. Compaction is taken as irreversible (common practice): what
+remains keeps the thickness and porosity of its deepest burial, and is compacted
+further only once a later stage buries it deeper than that; the plate unloads by the
+mass removed (and the water or sediment that fills the rebound). Erosion deeper than
+the pile is refused.
 Removing the top stage (:meth:`StagedBasin.remove_stage`) decompacts the rest
 and unloads the plate with water infill and the te the stage was loaded with.
 
@@ -104,7 +110,10 @@ class Stage:
     Parameters
     ----------
     thickness : xarray.DataArray
-        Isopach of the stage as deposited (m, >= 0), dims ``("y", "x")``.
+        Isopach of the stage as deposited (m), dims ``("y", "x")``. Negative cells are
+        erosion: that (compacted) thickness is removed from the top of the pile before
+        the stage is solved; what remains keeps the porosity of its deepest burial
+        (compaction is irreversible) and the plate unloads.
     age : float
         Age of the stage (years before present).
     lithology : str or Lithology, default "shale"
@@ -227,6 +236,9 @@ class StagedBasin:
         self.thickness = np.zeros(self.base.shape)  # sediment thickness as carried
         self.current_sea_level = self.sea_level
         self.history: list[_Snapshot] = []
+        # deepest burial of each stage's top (m), oldest first; kept once erosion has
+        # brought layers up (compaction is irreversible), empty before
+        self.burial: list[np.ndarray] = []
 
     # column -----------------------------------------------------------------
     def _layer_density(self, lith: Lithology) -> float:
@@ -239,11 +251,54 @@ class StagedBasin:
         """Thickness and mass per area of each stage, youngest on top (lists, oldest first)."""
         liths = [stage.rock for stage in stages]
         if self.compaction:
-            thick, mass, _ = saturated_column(grains[::-1], liths[::-1], self.water_density)
+            burial = self._burial_of(len(grains))
+            thick, mass, _ = saturated_column(
+                grains[::-1], liths[::-1], self.water_density, burial[::-1]
+            )
             return thick[::-1], mass[::-1]
         thick = [s / (1.0 - lith.surface_porosity) for s, lith in zip(grains, liths, strict=True)]
         mass = [self._layer_density(lith) * h for h, lith in zip(thick, liths, strict=True)]
         return thick, mass
+
+    def _burial_of(self, count: int) -> list[np.ndarray | float]:
+        """Deepest past burial of the tops of the *count* oldest stages (m; 0: none)."""
+        kept: list[np.ndarray | float] = list(self.burial[:count])
+        return kept + [0.0] * (count - len(kept))
+
+    def _erode(self, eroded: np.ndarray, where: str) -> list[np.ndarray]:
+        """The grains of the stages after *eroded* (m, compacted thickness) is removed
+        from the top of the pile; sets :attr:`burial`.
+
+        Compaction is irreversible (common practice since Sclater & Christie 1980, who
+        decompact only by removing the overburden in backstripping; a column brought up
+        by erosion keeps the porosity of its deepest burial): what remains of each stage
+        keeps the thickness it had, and the porosity of the depth its new top had reached.
+        """
+        thick, _ = self._column(self.grains, self.stages)
+        burial = self._burial_of(len(self.grains))
+        grains = list(self.grains)
+        deepest: list[np.ndarray] = []
+        top = np.zeros(self.base.shape)
+        rest = eroded.copy()
+        for i in reversed(range(len(grains))):  # youngest first
+            t, lith = thick[i], self.stages[i].rock
+            at = np.maximum(top, burial[i])  # the depth the layer is compacted to
+            cut = np.minimum(rest, t)
+            if self.compaction:
+                grains[i] = layer_grains(at + cut, t - cut, lith)
+            else:
+                grains[i] = (t - cut) * (1.0 - lith.surface_porosity)
+            deepest.append(at + cut)
+            rest = rest - cut
+            top = top + t
+        if rest.max(initial=0.0) > 0.0:
+            raise InputError(
+                f"{where} erodes up to {float(rest.max()):.6g} m more than the sediment pile "
+                f"holds ({int((rest > 0).sum())} cells); erosion of the surface below the "
+                "first stage is not modelled"
+            )
+        self.burial = deepest[::-1]
+        return grains
 
     def _grains_of(self, thickness: np.ndarray, lith: Lithology) -> np.ndarray:
         """Grain thickness of a layer of *thickness* deposited at the top of the pile."""
@@ -353,9 +408,12 @@ class StagedBasin:
         check_grains_sink(
             stage.rock.grain_density, self.water_density, f"stage (age {stage.age}) lithology"
         )
-        h = grid_values(stage.thickness, self.grid, f"stage (age {stage.age}) thickness")
-        if not np.all(np.isfinite(h)) or h.min() < 0:
-            raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")
+        where = f"stage (age {stage.age})"
+        h = grid_values(stage.thickness, self.grid, f"{where} thickness")
+        if not np.all(np.isfinite(h)):
+            raise InputError(f"{where} thickness must be finite (m; negative: erosion)")
+        eroded = np.clip(-h, 0.0, None)
+        h = np.clip(h, 0.0, None)  # the deposit
         if self.stages and not stage.age < self.stages[-1].age:
             raise InputError(
                 f"stage ages must decrease (oldest first, years before present): "
@@ -377,22 +435,25 @@ class StagedBasin:
                 sediment_level=stage.base_level,
                 sediment_mask=self._fill_mask(),
             )
-        grains = self.grains + [self._grains_of(h, lith)]
         stages = self.stages + [stage]
         te = self.plate.te if stage.te is None else stage.te
-        saved = (self.deflection, self.mass, self.thickness, self.current_sea_level)
+        saved = (self.deflection, self.mass, self.thickness, self.current_sea_level, self.burial)
         try:
+            older = self._erode(eroded, where) if eroded.any() else self.grains
+            grains = older + [self._grains_of(h, lith)]
             w, fill, iterations = self._add(
                 h, lith, grains, stages, te, sea, infill, fill_density, level
             )
         except BaseException:
             # a failed solve (bad input, no convergence) leaves the basin as it was
-            self.deflection, self.mass, self.thickness, self.current_sea_level = saved
+            (self.deflection, self.mass, self.thickness, self.current_sea_level, self.burial) = (
+                saved
+            )
             raise
         self.grains, self.stages = grains, stages
         snap = self._record(float(stage.age), w, level, iterations, te)
         snap.stage_fill = fill
-        snap.stage_thickness = h + fill
+        snap.stage_thickness = h + fill - eroded
         log.info(
             "stage of age %g yr: %d infill iterations, max deflection %.4g m",
             stage.age,
@@ -483,6 +544,12 @@ class StagedBasin:
         """
         if not self.stages:
             raise InputError("remove_stage: the basin has no stage left to remove")
+        if self.burial:
+            raise InputError(
+                "remove_stage: the column has been eroded, and compaction is irreversible "
+                "(the eroded layers kept the porosity of their deepest burial), so removing "
+                "stages cannot restore an earlier state; rebuild the basin from its first stage"
+            )
         grains, stages = self.grains[:-1], self.stages[:-1]
         below = stages[-1] if stages else None
         sea = self.sea_level if below is None or below.sea_level is None else float(below.sea_level)
@@ -546,7 +613,10 @@ class StagedBasin:
                 "one): level - surface; negative above it",
             ),
             "water_depth": ("m", "water depth above the solid surface"),
-            "stage_thickness": ("m", "thickness of the stage as deposited, moat fill included"),
+            "stage_thickness": (
+                "m",
+                "thickness of the stage as deposited, moat fill included; negative: eroded",
+            ),
             "stage_fill": ("m", "moat-fill sediment of the stage"),
             "stage_density": ("kg m-3", "mean bulk density of the stage when deposited"),
             "sediment_thickness": ("m", "thickness of the whole sediment column"),
@@ -712,7 +782,10 @@ def _deposited_stages(stages: list[Stage]) -> list[Stage]:
     for stage in reversed(stages):  # youngest first: its burial is 0
         h = np.asarray(stage.thickness.values, dtype=np.float64)
         if not np.all(np.isfinite(h)) or h.min() < 0:
-            raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")
+            raise InputError(
+                f"stage (age {stage.age}) thickness must be finite and >= 0 m with "
+                "isopachs='present' (erosion, a negative thickness, needs 'deposited')"
+            )
         top = np.zeros(h.shape) if burial is None else burial
         grains = layer_grains(top, h, stage.rock)
         deposited = compacted_thickness(np.zeros(h.shape), grains, stage.rock)

@@ -104,7 +104,9 @@ def _stages(scenario: BasinScenario, surface: xr.DataArray) -> list[Stage]:
     sea_levels = _sea_levels(scenario)
     for i, row in enumerate(array_table(scenario, "stages")):
         where = scenario.where("stages", index=i)
-        thickness = _grid(row["file"], row["variable"], where, surface, "thickness")
+        # an erosion stage's isopach may be negative (any length); otherwise a thickness
+        role = "length" if row["erosion"] else "thickness"
+        thickness = _grid(row["file"], row["variable"], where, surface, role)
         te = _stage_te(scenario, row, where, surface)
         with error_context(where):
             stages.append(

@@ -109,6 +109,12 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
             REQUIRED,
         ),
         "variable": Key("string", "NetCDF variable or band, if the file has several", None),
+        "erosion": Key(
+            "bool",
+            "the isopach may be negative: negative cells erode that (compacted) thickness "
+            "from the top of the pile",
+            False,
+        ),
         "age": Key(
             "quantity",
             "age of the stage before present (years, or with a unit: 5 Myr, 5 Ma); oldest first",

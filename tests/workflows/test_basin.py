@@ -444,3 +444,26 @@ file = "sea_out.nc"
     assert main(["basin", "-q", "--overwrite", str(folder / "sea.toml")]) == 2
     err = capsys.readouterr().err
     assert "[basin] sea_level_file" in err and "not extrapolated" in err
+
+
+def test_an_erosion_stage_reads_a_negative_isopach(stage_files):
+    # erosion = true lets the isopach be negative (its cells erode the pile); the command
+    # must equal the library call on the same grids (common practice); without the key the
+    # same file is refused (test above)
+    folder, shelf = stage_files
+    _write(folder / "cut.nc", "thickness", _lens(-200.0, 18e3))
+    (folder / "cut.toml").write_text(
+        '[plate]\nelastic_thickness = "8 km"\n[basin]\nsurface_file = "surface.nc"\n'
+        '[[stages]]\nfile = "s1.nc"\nage = "3 Ma"\n'
+        '[[stages]]\nfile = "cut.nc"\nage = "1 Ma"\nerosion = true\n'
+        '[output]\nfile = "cut_out.nc"\n'
+    )
+    assert main(["basin", "-q", str(folder / "cut.toml")]) == 0
+    with xr.open_dataset(folder / "cut_out.nc") as ds:
+        out = ds.load()
+    stages = [Stage(_lens(500.0, 25e3), 3e6, "shale"), Stage(_lens(-200.0, 18e3), 1e6, "shale")]
+    expected = stage_loading(stages, shelf, Plate(te=8e3))
+    for name in ("deflection", "final_stage_thickness", "stage_thickness"):
+        assert_allclose(out[name].values, expected[name].values, rtol=1e-12, atol=1e-12)
+    assert float(out["deflection_increment"][1].min()) < 0.0  # the plate rebounds
+    assert_allclose(out["stage_thickness"][1].values, _lens(-200.0, 18e3).values, atol=1e-12)
