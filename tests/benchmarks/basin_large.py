@@ -26,6 +26,12 @@ For each size it prints
   every stage).
 
 Timings are from one run (2 shared cores: noisy); the counts and errors are not.
+
+Measured (one run each, machine shared with other jobs): 800^2 completed in 541 s
+(85.8 x one infill solve of the total, 16 infill iterations per stage), fill at most
+5.2e-7 m above its base level, no negative thickness, backstrip error 4.1e-3 m; 1000^2
+in 530 s (108 x), 1.0e-7 m, none, 7.9e-5 m (the 800^2 domain is narrower, so its edges
+lie nearer the delta).
 """
 
 from __future__ import annotations
