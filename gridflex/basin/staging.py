@@ -19,6 +19,12 @@ constant te and water infill the response is path independent (the sum of the
 increments is the solve of the total: the equilibrium of a column is unique);
 with a te that changes from stage to stage it is not, as intended, and neither
 is a moat filled with sediment (each stage fills only the space it makes).
+A negative isopach erodes: its (compacted) thickness is removed from the top of the
+pile, youngest stage first. Compaction is taken as irreversible (common practice): what
+remains keeps the thickness and porosity of its deepest burial, and is compacted
+further only once a later stage buries it deeper than that; the plate unloads by the
+mass removed (and the water or sediment that fills the rebound). Erosion deeper than
+the pile is refused.
 Removing the top stage (:meth:`StagedBasin.remove_stage`) decompacts the rest
 and unloads the plate with water infill and the te the stage was loaded with.
 
@@ -27,7 +33,12 @@ added to it). The infill solver carries the fill with the stage's mean bulk
 density and does not compact the column under it, so the stage is then settled:
 the remaining difference between the column the solver carried and the
 compacted column is solved again (new fill joining the stage) until it would
-move the plate by less than the tolerance (usually 1-3 passes). Every stage,
+move the plate by less than the tolerance (usually 1-3 passes). Where the fill
+actually deposited is lighter than carried, the plate rebounds and would lift filled
+cells above the base level; before each pass the fill is trimmed back to the level
+(the excess removed, at most the fill), so no filled cell ends more than about the
+tolerance above its base level (the trimming converges geometrically: by a factor of
+about 0.5 per pass with te = 0, faster with flexure). Every stage,
 whatever its te (a number, or a grid with margins and breaks, solved by finite
 differences), goes through the same infill solve: sediment up to the base level,
 water below sea level, air above. Limitations: the fill takes only space made by
@@ -58,8 +69,8 @@ from gridflex.basin.compaction import (
     Lithology,
     bulk_density,
     check_grains_sink,
-    compacted_base,
-    grain_thickness,
+    compacted_thickness,
+    layer_grains,
     saturated_column,
 )
 from gridflex.basin.compaction import lithology as as_lithology
@@ -89,7 +100,7 @@ TeLike = float | xr.DataArray
 ISOPACHS = ("deposited", "present")
 """Accepted values of ``stage_loading(isopachs=...)``."""
 
-_SETTLE_PASSES = 20
+_SETTLE_PASSES = 40  # trimming converges geometrically (ratio ~0.5 with te = 0, less with flexure)
 _SNAPSHOT_GRIDS = 11  # grids kept per recorded stage (see _Snapshot)
 
 
@@ -100,7 +111,10 @@ class Stage:
     Parameters
     ----------
     thickness : xarray.DataArray
-        Isopach of the stage as deposited (m, >= 0), dims ``("y", "x")``.
+        Isopach of the stage as deposited (m), dims ``("y", "x")``. Negative cells are
+        erosion: that (compacted) thickness is removed from the top of the pile before
+        the stage is solved; what remains keeps the porosity of its deepest burial
+        (compaction is irreversible) and the plate unloads.
     age : float
         Age of the stage (years before present).
     lithology : str or Lithology, default "shale"
@@ -225,6 +239,9 @@ class StagedBasin:
         self.thickness = np.zeros(self.base.shape)  # sediment thickness as carried
         self.current_sea_level = self.sea_level
         self.history: list[_Snapshot] = []
+        # deepest burial of each stage's top (m), oldest first; kept once erosion has
+        # brought layers up (compaction is irreversible), empty before
+        self.burial: list[np.ndarray] = []
 
     # column -----------------------------------------------------------------
     def _layer_density(self, lith: Lithology) -> float:
@@ -237,16 +254,59 @@ class StagedBasin:
         """Thickness and mass per area of each stage, youngest on top (lists, oldest first)."""
         liths = [stage.rock for stage in stages]
         if self.compaction:
-            thick, mass, _ = saturated_column(grains[::-1], liths[::-1], self.water_density)
+            burial = self._burial_of(len(grains))
+            thick, mass, _ = saturated_column(
+                grains[::-1], liths[::-1], self.water_density, burial[::-1]
+            )
             return thick[::-1], mass[::-1]
         thick = [s / (1.0 - lith.surface_porosity) for s, lith in zip(grains, liths, strict=True)]
         mass = [self._layer_density(lith) * h for h, lith in zip(thick, liths, strict=True)]
         return thick, mass
 
+    def _burial_of(self, count: int) -> list[np.ndarray | float]:
+        """Deepest past burial of the tops of the *count* oldest stages (m; 0: none)."""
+        kept: list[np.ndarray | float] = list(self.burial[:count])
+        return kept + [0.0] * (count - len(kept))
+
+    def _erode(self, eroded: np.ndarray, where: str) -> list[np.ndarray]:
+        """The grains of the stages after *eroded* (m, compacted thickness) is removed
+        from the top of the pile; sets :attr:`burial`.
+
+        Compaction is irreversible (common practice since Sclater & Christie 1980, who
+        decompact only by removing the overburden in backstripping; a column brought up
+        by erosion keeps the porosity of its deepest burial): what remains of each stage
+        keeps the thickness it had, and the porosity of the depth its new top had reached.
+        """
+        thick, _ = self._column(self.grains, self.stages)
+        burial = self._burial_of(len(self.grains))
+        grains = list(self.grains)
+        deepest: list[np.ndarray] = []
+        top = np.zeros(self.base.shape)
+        rest = eroded.copy()
+        for i in reversed(range(len(grains))):  # youngest first
+            t, lith = thick[i], self.stages[i].rock
+            at = np.maximum(top, burial[i])  # the depth the layer is compacted to
+            cut = np.minimum(rest, t)
+            if self.compaction:
+                grains[i] = layer_grains(at + cut, t - cut, lith)
+            else:
+                grains[i] = (t - cut) * (1.0 - lith.surface_porosity)
+            deepest.append(at + cut)
+            rest = rest - cut
+            top = top + t
+        if rest.max(initial=0.0) > 0.0:
+            raise InputError(
+                f"{where} erodes up to {float(rest.max()):.6g} m more than the sediment pile "
+                f"holds ({int((rest > 0).sum())} cells); erosion of the surface below the "
+                "first stage is not modelled"
+            )
+        self.burial = deepest[::-1]
+        return grains
+
     def _grains_of(self, thickness: np.ndarray, lith: Lithology) -> np.ndarray:
         """Grain thickness of a layer of *thickness* deposited at the top of the pile."""
         if self.compaction:
-            return grain_thickness(0.0, thickness, lith)
+            return layer_grains(0.0, thickness, lith)
         return thickness * (1.0 - lith.surface_porosity)
 
     def _water(self, thickness: np.ndarray, sea_level: float) -> np.ndarray:
@@ -353,9 +413,12 @@ class StagedBasin:
         check_grains_sink(
             stage.rock.grain_density, self.water_density, f"stage (age {stage.age}) lithology"
         )
-        h = grid_values(stage.thickness, self.grid, f"stage (age {stage.age}) thickness")
-        if not np.all(np.isfinite(h)) or h.min() < 0:
-            raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")
+        where = f"stage (age {stage.age})"
+        h = grid_values(stage.thickness, self.grid, f"{where} thickness")
+        if not np.all(np.isfinite(h)):
+            raise InputError(f"{where} thickness must be finite (m; negative: erosion)")
+        eroded = np.clip(-h, 0.0, None)
+        h = np.clip(h, 0.0, None)  # the deposit
         if self.stages and not stage.age < self.stages[-1].age:
             raise InputError(
                 f"stage ages must decrease (oldest first, years before present): "
@@ -377,20 +440,25 @@ class StagedBasin:
                 sediment_level=stage.base_level,
                 sediment_mask=self._fill_mask(),
             )
-        grains = self.grains + [self._grains_of(h, lith)]
         stages = self.stages + [stage]
         te = self.plate.te if stage.te is None else stage.te
-        saved = (self.deflection, self.mass, self.thickness, self.current_sea_level)
+        saved = (self.deflection, self.mass, self.thickness, self.current_sea_level, self.burial)
         try:
-            w, fill, iterations = self._add(h, lith, grains, stages, te, sea, infill, fill_density)
+            older = self._erode(eroded, where) if eroded.any() else self.grains
+            grains = older + [self._grains_of(h, lith)]
+            w, fill, iterations = self._add(
+                h, lith, grains, stages, te, sea, infill, fill_density, level
+            )
         except BaseException:
             # a failed solve (bad input, no convergence) leaves the basin as it was
-            self.deflection, self.mass, self.thickness, self.current_sea_level = saved
+            (self.deflection, self.mass, self.thickness, self.current_sea_level, self.burial) = (
+                saved
+            )
             raise
         self.grains, self.stages = grains, stages
         snap = self._record(float(stage.age), w, level, iterations, te)
         snap.stage_fill = fill
-        snap.stage_thickness = h + fill
+        snap.stage_thickness = h + fill - eroded
         log.info(
             "stage of age %g yr: %d infill iterations, max deflection %.4g m",
             stage.age,
@@ -408,6 +476,7 @@ class StagedBasin:
         sea: float,
         infill: Infill,
         fill_density: float,
+        level: np.ndarray,
     ) -> tuple[np.ndarray, np.ndarray, int]:
         """Solve a new top stage and settle it; updates the carried state and grains[-1]."""
         w, fill, iterations, mass, thickness = self._solve_increment(
@@ -417,9 +486,14 @@ class StagedBasin:
         self.mass, self.thickness, self.current_sea_level = mass, thickness, sea
         grains[-1] = self._grains_of(h + fill, lith)
         # settle: the solver carried the moat fill with one density and did not compact
-        # the column under it; re-solve the remaining difference (new fill joins the stage)
+        # the column under it; re-solve the remaining difference (new fill joins the stage).
+        # Where the real fill is lighter than carried, the plate rebounds and lifts filled
+        # cells above the base level; the fill there is trimmed back to the level first,
+        # so every pass solves the column as it will be kept
         tolerance = float(self.solve_options.tolerance)
         for _ in range(_SETTLE_PASSES):
+            if infill.sediment != "none":
+                fill = self._trim_fill(h, fill, lith, grains, stages, level)
             with warnings.catch_warnings():
                 # the small remainder reaches the edges wherever the fill did; the stage
                 # solve above already warned about a load at the edge
@@ -442,6 +516,29 @@ class StagedBasin:
             )
         return w, fill, iterations
 
+    def _trim_fill(
+        self,
+        h: np.ndarray,
+        fill: np.ndarray,
+        lith: Lithology,
+        grains: list[np.ndarray],
+        stages: list[Stage],
+        level: np.ndarray,
+    ) -> np.ndarray:
+        """The moat fill less what stands above the base level (m); updates grains[-1].
+
+        The surface of the compacted column with the present deflection is compared
+        with *level* where there is fill; the excess (at most the fill) is removed.
+        """
+        thick, _ = self._column(grains, stages)
+        surface = self.base - self.deflection + np.sum(thick, axis=0)
+        excess = np.clip(np.minimum(surface - level, fill), 0.0, None)
+        if not excess.any():
+            return fill
+        trimmed = fill - excess
+        grains[-1] = self._grains_of(h + trimmed, lith)
+        return trimmed
+
     def remove_stage(self) -> None:
         """Remove the top stage (with its moat fill), decompact the rest, unload the plate.
 
@@ -452,6 +549,12 @@ class StagedBasin:
         """
         if not self.stages:
             raise InputError("remove_stage: the basin has no stage left to remove")
+        if self.burial:
+            raise InputError(
+                "remove_stage: the column has been eroded, and compaction is irreversible "
+                "(the eroded layers kept the porosity of their deepest burial), so removing "
+                "stages cannot restore an earlier state; rebuild the basin from its first stage"
+            )
         grains, stages = self.grains[:-1], self.stages[:-1]
         below = stages[-1] if stages else None
         sea = self.sea_level if below is None or below.sea_level is None else float(below.sea_level)
@@ -515,7 +618,10 @@ class StagedBasin:
                 "one): level - surface; negative above it",
             ),
             "water_depth": ("m", "water depth above the solid surface"),
-            "stage_thickness": ("m", "thickness of the stage as deposited, moat fill included"),
+            "stage_thickness": (
+                "m",
+                "thickness of the stage as deposited, moat fill included; negative: eroded",
+            ),
             "stage_fill": ("m", "moat-fill sediment of the stage"),
             "stage_density": ("kg m-3", "mean bulk density of the stage when deposited"),
             "sediment_thickness": ("m", "thickness of the whole sediment column"),
@@ -533,6 +639,7 @@ class StagedBasin:
             np.array([s.iterations for s in self.history]),
             {"long_name": "infill iterations of the stage solve"},
         )
+        data.update(self._stage_te())
         coords = {
             "stage": np.arange(len(self.history)),
             "age": (
@@ -550,7 +657,7 @@ class StagedBasin:
             "compaction": int(self.compaction),
             "lithologies": ", ".join(s.rock.name for s in self.stages),
         }
-        stamp = provenance_attrs(self.plate.describe(), attrs, "staged basin loading")
+        stamp = provenance_attrs(self._plate_attrs(), attrs, "staged basin loading")
         out = xr.Dataset(data, coords=coords, attrs=stamp).set_coords("horizon_age")
         return out.assign_coords(horizon=np.arange(out.sizes["horizon"]))
 
@@ -607,6 +714,42 @@ class StagedBasin:
                 {"units": "m", "long_name": "sea level of the stage (positive up)"},
             ),
         }
+
+    def _stage_te(self) -> dict[str, tuple[Any, ...]]:
+        """The te each recorded stage was solved with, on the ``stage`` axis (m)."""
+        low = np.array([float(s.te.min()) for s in self.history])
+        high = np.array([float(s.te.max()) for s in self.history])
+        one = np.where(low == high, low, np.nan)
+        return {
+            "stage_te": (
+                "stage",
+                one,
+                {
+                    "units": "m",
+                    "long_name": "te the stage was loaded (or unloaded) with; NaN for a "
+                    "te grid (see elastic_thickness, stage_te_min, stage_te_max)",
+                },
+            ),
+            "stage_te_min": ("stage", low, {"units": "m", "long_name": "smallest te of the stage"}),
+            "stage_te_max": ("stage", high, {"units": "m", "long_name": "largest te of the stage"}),
+        }
+
+    def _plate_attrs(self) -> dict[str, Any]:
+        """The plate's parameters for the output; its te only when every stage used it.
+
+        When a stage had a te of its own, ``te`` (and its rigidity, flexural parameter,
+        range) would describe a plate no stage may have had: they get the prefix
+        ``default_`` (the te of stages without their own) and ``te`` says "per stage"."""
+
+        out = self.plate.describe()
+        plate_te = grid_values(self.plate.te, self.grid, "plate te")
+        if all(np.array_equal(s.te, plate_te) for s in self.history):
+            return out
+        for key in ("te", "te_min", "te_max", "rigidity", "flexural_parameter"):
+            if key in out:
+                out[f"default_{key}"] = out.pop(key)
+        out["te"] = "per stage: see stage_te, stage_te_min, stage_te_max, elastic_thickness"
+        return out
 
 
 def stage_loading(
@@ -700,10 +843,13 @@ def _deposited_stages(stages: list[Stage]) -> list[Stage]:
     for stage in reversed(stages):  # youngest first: its burial is 0
         h = np.asarray(stage.thickness.values, dtype=np.float64)
         if not np.all(np.isfinite(h)) or h.min() < 0:
-            raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")
+            raise InputError(
+                f"stage (age {stage.age}) thickness must be finite and >= 0 m with "
+                "isopachs='present' (erosion, a negative thickness, needs 'deposited')"
+            )
         top = np.zeros(h.shape) if burial is None else burial
-        grains = grain_thickness(top, top + h, stage.rock)
-        deposited = compacted_base(np.zeros(h.shape), grains, stage.rock)
+        grains = layer_grains(top, h, stage.rock)
+        deposited = compacted_thickness(np.zeros(h.shape), grains, stage.rock)
         out.append(dataclasses.replace(stage, thickness=stage.thickness.copy(data=deposited)))
         burial = top + h
     return out[::-1]

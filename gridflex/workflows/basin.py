@@ -15,7 +15,9 @@ from gridflex.basin.compaction import LITHOLOGIES, Lithology
 from gridflex.basin.staging import Stage, stage_loading
 from gridflex.errors import InputError
 from gridflex.gis.geometry import geometry_of
+from gridflex.glacial.ice import sea_level_at
 from gridflex.io.netcdf import write_netcdf
+from gridflex.io.tables import read_csv_quantities
 from gridflex.progress import Progress
 from gridflex.scenario.context import error_context
 from gridflex.workflows.basin_outputs import (
@@ -86,11 +88,31 @@ def _stage_te(
     return with_breaks(scenario, te, surface)
 
 
+def _sea_levels(scenario: BasinScenario) -> list[float | None]:
+    """Each stage's sea level (m): its own ``sea_level``, else the ``[basin]
+    sea_level_file`` at its age (linear in time, never extrapolated), else None."""
+    rows = array_table(scenario, "stages")
+    own: list[float | None] = [row["sea_level"] for row in rows]
+    path = scenario.table("basin")["sea_level_file"]
+    if path is None:
+        return own
+    where = scenario.where("basin", "sea_level_file")
+    table = read_csv_quantities(path, {"age": "time", "level": "length"}, where)
+    order = np.argsort(-table["age"], kind="stable")  # oldest first: time = -age increasing
+    series = xr.DataArray(table["level"][order], dims="time", coords={"time": -table["age"][order]})
+    ages = np.array([row["age"] for row in rows], dtype=np.float64)
+    levels = sea_level_at(series, -ages, f"{where} ({path}; time = -age in years)")
+    return [float(level) if mine is None else mine for mine, level in zip(own, levels, strict=True)]
+
+
 def _stages(scenario: BasinScenario, surface: xr.DataArray) -> list[Stage]:
     stages = []
+    sea_levels = _sea_levels(scenario)
     for i, row in enumerate(array_table(scenario, "stages")):
         where = scenario.where("stages", index=i)
-        thickness = _grid(row["file"], row["variable"], where, surface, "thickness")
+        # an erosion stage's isopach may be negative (any length); otherwise a thickness
+        role = "length" if row["erosion"] else "thickness"
+        thickness = _grid(row["file"], row["variable"], where, surface, role)
         te = _stage_te(scenario, row, where, surface)
         with error_context(where):
             stages.append(
@@ -99,7 +121,7 @@ def _stages(scenario: BasinScenario, surface: xr.DataArray) -> list[Stage]:
                     row["age"],
                     _lithology(row, where),
                     base_level=row["base_level"],
-                    sea_level=row["sea_level"],
+                    sea_level=sea_levels[i],
                     te=te,
                 )
             )

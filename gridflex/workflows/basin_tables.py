@@ -81,6 +81,12 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         ),
         "surface_variable": Key("string", "NetCDF variable or band in surface_file", None),
         "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
+        "sea_level_file": Key(
+            "path",
+            "CSV of sea level through time, columns 'age [Ma]' and 'level [m]' (units in "
+            "the header): a stage without its own sea_level takes it at its age",
+            None,
+        ),
         "water_density": Key(
             "quantity",
             "sea-water (and pore-water) density",
@@ -105,7 +111,18 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
             REQUIRED,
         ),
         "variable": Key("string", "NetCDF variable or band, if the file has several", None),
-        "age": Key("number", "age of the stage (years before present); oldest first", REQUIRED),
+        "erosion": Key(
+            "bool",
+            "the isopach may be negative: negative cells erode that (compacted) thickness "
+            "from the top of the pile",
+            False,
+        ),
+        "age": Key(
+            "quantity",
+            "age of the stage before present (years, or with a unit: 5 Myr, 5 Ma); oldest first",
+            REQUIRED,
+            "time",
+        ),
         **_LITHOLOGY_KEYS,
         "base_level": Key(
             "quantity",
@@ -162,7 +179,12 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         "water_depth_file": Key("path", "or a grid file of that water depth", None),
         "water_depth_variable": Key("string", "NetCDF variable or band in water_depth_file", None),
         "sea_level_change": Key("quantity", "sea level then, relative to present", 0.0, "length"),
-        "age": Key("number", "age of the top of the layer (years before present)", None),
+        "age": Key(
+            "quantity",
+            "age of the top of the layer before present (years, or 5 Myr, 5 Ma)",
+            None,
+            "time",
+        ),
     },
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),
