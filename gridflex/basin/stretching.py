@@ -63,7 +63,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -79,6 +79,7 @@ __all__ = [
     "DEFAULT_THERMAL_DIFFUSIVITY",
     "ISOSTASY",
     "MAX_TERMS",
+    "Stretching",
     "StretchingModel",
     "check_stretching_factor",
     "mckenzie_subsidence",
@@ -423,3 +424,97 @@ def model_subsidence(model: StretchingModel, stretching_factor: Any, time: Any) 
         {}, attrs, "uniform lithospheric stretching (McKenzie 1978, EPSL 40, 25-32)"
     )
     return out
+
+
+@dataclass(frozen=True)
+class Stretching:
+    """A rift under a staged basin: where and when the lithosphere was stretched.
+
+    Parameters
+    ----------
+    stretching_factor : float or xarray.DataArray
+        beta (>= 1): one number, or a grid on the basin's grid.
+    rift_age : float
+        Age of the (instantaneous) stretching, years before present.
+    model : StretchingModel, optional
+        The lithosphere; its ``mantle_density`` and ``water_density`` are replaced by
+        the plate's and the basin's when a basin uses it (:meth:`for_densities`).
+
+    Notes
+    -----
+    :meth:`subsidence` is the water-loaded tectonic subsidence S(age) of the model,
+    initial plus thermal, 0 before *rift_age*. :class:`gridflex.basin.StagedBasin`
+    turns the change of S between two stages into a load on the plate,
+    q = (rho_m - rho_w) g dS: the load under which a column without strength (te = 0),
+    covered by water, sinks by exactly dS (local isostasy). It is then flexed with the
+    stage's plate (te) and infill, so a plate with strength spreads the tectonic
+    subsidence of a varying beta, and sediment fill deepens it (common practice in
+    forward basin models: local tectonic subsidence as an equivalent load).
+    """
+
+    stretching_factor: float | xr.DataArray
+    rift_age: float
+    model: StretchingModel = field(default_factory=StretchingModel)
+
+    def __post_init__(self) -> None:
+        if isinstance(self.stretching_factor, xr.DataArray):
+            check_stretching_factor("stretching_factor", self.stretching_factor)
+        else:
+            beta = check_stretching_factor("stretching_factor", self.stretching_factor)
+            if beta.ndim:
+                raise InputError(
+                    "stretching_factor must be a number or an xarray.DataArray grid, "
+                    f"got an array of shape {beta.shape}"
+                )
+            object.__setattr__(self, "stretching_factor", float(beta))
+        age = check_number("rift_age", self.rift_age, unit="years before present")
+        object.__setattr__(self, "rift_age", age)
+        if not isinstance(self.model, StretchingModel):
+            raise InputError(
+                f"model must be a gridflex.basin.StretchingModel, got {type(self.model).__name__}"
+            )
+
+    def for_densities(self, mantle_density: float, water_density: float) -> Stretching:
+        """The same rift with the model's mantle and water densities replaced."""
+        model = replace(self.model, mantle_density=mantle_density, water_density=water_density)
+        return replace(self, model=model)
+
+    def subsidence(self, age: float, values: np.ndarray | None = None) -> np.ndarray:
+        """Water-loaded tectonic subsidence (m, positive down) at *age* (years before present).
+
+        Parameters
+        ----------
+        age : float
+            Years before present; before :attr:`rift_age` the subsidence is 0.
+        values : numpy.ndarray, optional
+            The stretching factors to use (e.g. the grid's values already aligned
+            with a basin); default :attr:`stretching_factor`.
+        """
+        initial, thermal = self.subsidence_parts(age, values)
+        return initial + thermal
+
+    def subsidence_parts(
+        self, age: float, values: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Initial and thermal parts of :meth:`subsidence` (m), each 0 before the rift."""
+        beta = np.asarray(
+            self.stretching_factor.values
+            if values is None and isinstance(self.stretching_factor, xr.DataArray)
+            else (self.stretching_factor if values is None else values),
+            dtype=float,
+        )
+        time = self.rift_age - float(age)
+        if time < 0.0:
+            return np.zeros(beta.shape), np.zeros(beta.shape)
+        thermal = self.model.thermal_subsidence(beta, np.array([time]))[..., 0]
+        return np.asarray(self.model.initial_subsidence(beta), dtype=float), thermal
+
+    def describe(self) -> dict[str, Any]:
+        """Parameters as output attributes (prefix ``stretching_``)."""
+        beta = self.stretching_factor
+        out: dict[str, Any] = {
+            "stretching_factor": "grid" if isinstance(beta, xr.DataArray) else beta,
+            "stretching_rift_age": self.rift_age,
+        }
+        out.update({f"stretching_{k}": v for k, v in self.model.describe().items()})
+        return out
