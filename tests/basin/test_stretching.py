@@ -56,39 +56,31 @@ def _balance(column, depth=200e3):
     )
 
 
-def _stretched_column(beta):
+def _column_under_water(beta, lithosphere):
+    """Column with water s on the crust thinned to tc/beta and a lithosphere of the given
+    thickness (a/beta just after stretching, a in the final equilibrium)."""
     hot = RHO_M * (1 - ALPHA * T1)
 
     def column(s, depth):
-        thin = A / beta
         return _column_mass(
             [
                 (0.0, s, lambda z: RHO_W),
-                (s, s + TC / beta, _geotherm_density(RHO_C, s, thin)),
-                (s + TC / beta, s + thin, _geotherm_density(RHO_M, s, thin)),
-                (s + thin, depth, lambda z: hot),
+                (s, s + TC / beta, _geotherm_density(RHO_C, s, lithosphere)),
+                (s + TC / beta, s + lithosphere, _geotherm_density(RHO_M, s, lithosphere)),
+                (s + lithosphere, depth, lambda z: hot),
             ],
             depth,
         )
 
     return column
+
+
+def _stretched_column(beta):
+    return _column_under_water(beta, A / beta)
 
 
 def _equilibrium_column(beta):
-    hot = RHO_M * (1 - ALPHA * T1)
-
-    def column(s, depth):
-        return _column_mass(
-            [
-                (0.0, s, lambda z: RHO_W),
-                (s, s + TC / beta, _geotherm_density(RHO_C, s, A)),
-                (s + TC / beta, s + A, _geotherm_density(RHO_M, s, A)),
-                (s + A, depth, lambda z: hot),
-            ],
-            depth,
-        )
-
-    return column
+    return _column_under_water(beta, A)
 
 
 def test_initial_subsidence_matches_mckenzie_closed_form_and_column_balance():
