@@ -10,8 +10,10 @@ the pre-rift surface below the datum, solved by least squares at every beta):
 
 The search runs in x = 1 - 1/beta, in which the initial and the final subsidence
 are linear (so the misfit is nearly quadratic): a coarse scan of :data:`SAMPLES`
-values of x between the bounds, then golden-section refinement between the best
-value's neighbours, cell by cell on whole arrays. S(beta, t_j) comes from a cubic
+values of x between the bounds, then Newton steps on the gradient of the misfit
+(Gauss-Newton curvature) between the best value's neighbours, with a bisection
+whenever a step leaves that bracket; the interval's ends likewise from the coarse
+values that bracket them; cell by cell on whole arrays. S(beta, t_j) comes from a cubic
 spline in x of the model evaluated once on :data:`TABLE_SIZE` values (one table per
 fit: the model depends on beta and t only). The interval is the profile-likelihood
 bound shared by every fit of gridflex (:func:`gridflex.estimation.likelihood.interval_threshold`;
@@ -21,7 +23,6 @@ PHYSICS.md 8.1): where RSS - RSS_min reaches chi^2_1(c) s^2, s^2 = RSS_min / (n 
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 from typing import Any
 
@@ -48,8 +49,7 @@ SAMPLES = 129
 TABLE_SIZE = 2049
 """Values of x of the model table behind the spline."""
 
-_GOLDEN_STEPS = 60  # bracket of width 2/128 shrinks to < 1e-14
-_BISECTION_STEPS = 60
+_NEWTON_STEPS = 24  # quadratic convergence; bisection fall-backs halve a 0.014-wide bracket
 _BLOCK_VALUES = 1 << 22  # data values per block of cells
 
 
@@ -116,9 +116,18 @@ class _ModelTable:
         self.coarse_index = np.linspace(0, TABLE_SIZE - 1, SAMPLES).astype(int)
         self.table = table
 
-    def __call__(self, x: np.ndarray) -> np.ndarray:
-        """S at each cell's x: shape (times, cells)."""
-        return np.asarray(self.spline(x)).T
+        self.coefficients = np.asarray(self.spline.c)  # (4, TABLE_SIZE - 1, times)
+        self.step = float(self.x[1] - self.x[0])
+
+    def __call__(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """S and dS/dx at each cell's x, each of shape (times, cells): the spline's
+        cubic pieces on the uniform table, evaluated by Horner's rule."""
+        piece = np.clip(((x - self.x[0]) / self.step).astype(np.int64), 0, TABLE_SIZE - 2)
+        dx = (x - self.x[piece])[None, :]
+        c0, c1, c2, c3 = (self.coefficients[i][piece].T for i in range(4))
+        value = ((c0 * dx + c1) * dx + c2) * dx + c3
+        slope = (3.0 * c0 * dx + 2.0 * c1) * dx + c2
+        return value, slope
 
 
 class _Cells:
@@ -130,44 +139,46 @@ class _Cells:
         self.count = self.valid.sum(axis=0)
         self.offset = offset
 
+    def _centred(self, r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(r without its mean over the valid values, the mean): the offset removed."""
+        if not self.offset:
+            return r, np.zeros(r.shape[1])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            shift = r.sum(axis=0) / self.count
+        return np.where(self.valid, r - shift, 0.0), shift
+
     def residuals(self, model: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(RSS, offset) per cell for *model* of shape (times, cells)."""
-        r = np.where(self.valid, self.values - model, 0.0)
-        shift = np.zeros(r.shape[1])
-        if self.offset:
-            with np.errstate(invalid="ignore", divide="ignore"):
-                shift = r.sum(axis=0) / self.count
-            r = np.where(self.valid, r - shift, 0.0)
+        r, shift = self._centred(np.where(self.valid, self.values - model, 0.0))
         return np.einsum("jc,jc->c", r, r), shift
 
-
-def _golden(rss: Any, a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Minimise *rss(x)* per cell between *a* and *b* (golden section); (x, rss).
-
-    All cells step together: one new point per cell and step, on whole arrays."""
-    ratio = (math.sqrt(5.0) - 1.0) / 2.0
-    c = b - ratio * (b - a)
-    d = a + ratio * (b - a)
-    fc, fd = rss(c), rss(d)
-    for _ in range(_GOLDEN_STEPS):
-        left = fc < fd  # the minimum lies in [a, d]: d becomes the far point
-        a, b = np.where(left, a, c), np.where(left, d, b)
-        new = np.where(left, b - ratio * (b - a), a + ratio * (b - a))
-        f_new = rss(new)
-        c, d = np.where(left, new, d), np.where(left, c, new)
-        fc, fd = np.where(left, f_new, fd), np.where(left, fc, f_new)
-    x = (a + b) / 2.0
-    return x, rss(x)
+    def misfit(self, table: _ModelTable, x: np.ndarray) -> tuple[np.ndarray, ...]:
+        """(RSS, dRSS/dx, Gauss-Newton d2RSS/dx2, offset) per cell at *x*."""
+        model, slope = table(x)
+        r, shift = self._centred(np.where(self.valid, self.values - model, 0.0))
+        slope, _ = self._centred(np.where(self.valid, slope, 0.0))
+        rss = np.einsum("jc,jc->c", r, r)
+        gradient = -2.0 * np.einsum("jc,jc->c", r, slope)
+        curvature = 2.0 * np.einsum("jc,jc->c", slope, slope)
+        return rss, gradient, curvature, shift
 
 
-def _bisect(excess: Any, inner: np.ndarray, outer: np.ndarray) -> np.ndarray:
-    """Root of *excess* (< 0 at *inner*, > 0 at *outer*) per cell by bisection."""
-    for _ in range(_BISECTION_STEPS):
-        middle = (inner + outer) / 2.0
-        above = excess(middle) > 0.0
-        outer = np.where(above, middle, outer)
-        inner = np.where(above, inner, middle)
-    return (inner + outer) / 2.0
+def _newton_in_bracket(
+    function: Any, low: np.ndarray, high: np.ndarray, start: np.ndarray, rising: bool
+) -> np.ndarray:
+    """Root per cell of *function(x) -> (f, f')* in [low, high], where f < 0 at *low* and
+    > 0 at *high* when *rising* (the reverse otherwise): Newton steps, a bisection when a
+    step leaves the bracket (Press et al. 2007, Numerical Recipes 9.4, from memory)."""
+    x = start.copy()
+    for _ in range(_NEWTON_STEPS):
+        f, slope = function(x)
+        above = (f > 0.0) == rising
+        high, low = np.where(above, x, high), np.where(above, low, x)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            step = x - f / slope
+        inside = np.isfinite(step) & ((step - low) * (step - high) <= 0.0)
+        x = np.where(inside, step, (low + high) / 2.0)
+    return x
 
 
 def _fit_block(
@@ -181,8 +192,9 @@ def _fit_block(
     cells = _Cells(values, offset)
     ncell = values.shape[1]
 
-    def rss(x: np.ndarray) -> np.ndarray:
-        return cells.residuals(table(x))[0]
+    def gradient(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        _, slope, curvature, _ = cells.misfit(table, x)
+        return slope, curvature
 
     coarse_x = table.x[table.coarse_index]
     coarse = np.empty((coarse_x.size, ncell))
@@ -193,7 +205,8 @@ def _fit_block(
     last = coarse_x.size - 1
     a = coarse_x[np.maximum(best - 1, 0)]
     b = coarse_x[np.minimum(best + 1, last)]
-    x, rss_min = _golden(rss, a, b)
+    x = _newton_in_bracket(gradient, a, b, coarse_x[best], rising=True)
+    rss_min = cells.misfit(table, x)[0]
     at_node = coarse[best, np.arange(ncell)] <= rss_min
     x = np.where(at_node, coarse_x[best], x)
     rss_min = np.minimum(rss_min, coarse[best, np.arange(ncell)])
@@ -209,8 +222,9 @@ def _fit_block(
         enough = n >= 1
         threshold = np.full(ncell, chi2_quantile(confidence) * sigma**2)
 
-    def excess(x_end: np.ndarray) -> np.ndarray:
-        return rss(x_end) - rss_min - threshold
+    def excess(x_end: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        rss, slope, _, _ = cells.misfit(table, x_end)
+        return rss - rss_min - threshold, slope
 
     rise = coarse - rss_min - threshold  # > 0 outside the interval
     ends, closed = [], []
@@ -225,10 +239,14 @@ def _fit_block(
             first = np.where(found, last - np.argmax(outside[::-1], axis=0), 0)
         previous = first - side
         inner = np.where((previous - best) * side > 0, coarse_x[np.clip(previous, 0, last)], x)
-        end = _bisect(excess, inner, coarse_x[first])
+        outer = coarse_x[first]
+        if side > 0:
+            end = _newton_in_bracket(excess, inner, outer, (inner + outer) / 2, rising=True)
+        else:
+            end = _newton_in_bracket(excess, outer, inner, (inner + outer) / 2, rising=False)
         ends.append(np.where(found, end, coarse_x[first]))
         closed.append(found | ~enough)
-    shift = cells.residuals(table(x))[1]
+    shift = cells.misfit(table, x)[3]
     missing = ~enough | (n == 0)
     return {
         "x": np.where(missing, np.nan, x),
@@ -335,7 +353,7 @@ def fit_stretching(
     table = _ModelTable(model, rift - age_values, 1.0 - 1.0 / low, 1.0 - 1.0 / high)
     cell_shape = values.shape[1:]
     flat = values.reshape(values.shape[0], -1)
-    block = max(1, _BLOCK_VALUES // (values.shape[0] * SAMPLES))
+    block = max(1, _BLOCK_VALUES // (SAMPLES + 12 * values.shape[0]))
     parts = [
         _fit_block(table, flat[:, c0 : c0 + block], offset, noise, level)
         for c0 in range(0, flat.shape[1], block)
