@@ -232,6 +232,7 @@ class StagedBasin:
         self.current_sea_level = self.sea_level
         self.history: list[_Snapshot] = []
         self.stretching = _rift_on_grid(stretching, plate, self.water_density, initial_surface)
+        self._rift_cache: dict[float, np.ndarray] = {}
 
     # column -----------------------------------------------------------------
     def _layer_density(self, lith: Lithology) -> float:
@@ -489,8 +490,12 @@ class StagedBasin:
         or before the first stage (*age* ``None``)."""
         if self.stretching is None or age is None:
             return np.zeros(self.base.shape)
-        rift, beta = self.stretching
-        return np.broadcast_to(rift.subsidence(age, beta), self.base.shape).copy()
+        if age not in self._rift_cache:  # each age is asked for by two stages in turn
+            rift, beta = self.stretching
+            if len(self._rift_cache) >= 2:
+                del self._rift_cache[next(iter(self._rift_cache))]
+            self._rift_cache[age] = np.broadcast_to(rift.subsidence(age, beta), self.base.shape)
+        return self._rift_cache[age].copy()
 
     def _tectonic_load(self, before: float | None, after: float | None) -> np.ndarray | None:
         """(rho_m - rho_w) g dS (Pa), dS = S(after) - S(before) the change of the tectonic
