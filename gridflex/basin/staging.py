@@ -75,6 +75,7 @@ from gridflex.basin.compaction import (
 )
 from gridflex.basin.compaction import lithology as as_lithology
 from gridflex.basin.horizons import accommodation_created, horizon_ages, horizon_depths
+from gridflex.basin.stretching import Stretching
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import check_grid, grid_values
@@ -207,6 +208,13 @@ class StagedBasin:
     tolerance, max_iterations, edges, pad_factor
         Passed to :func:`gridflex.solve_with_infill` (a te grid, or *edges* "clamped"
         or "free", is solved by finite differences).
+    stretching : Stretching, optional
+        A rift under the basin: each stage adds the change of its water-loaded
+        tectonic subsidence since the stage below as a load (rho_m - rho_w) g dS,
+        flexed with the stage's te and infill (:class:`gridflex.basin.Stretching`;
+        computed with the plate's mantle density and *water_density*). The subsidence
+        before the first stage counts from the rift, so *initial_surface* is then the
+        surface before rifting.
     """
 
     def __init__(
@@ -221,6 +229,7 @@ class StagedBasin:
         max_iterations: int = 300,
         edges: str = "infinite",
         pad_factor: float = 4.5,
+        stretching: Stretching | None = None,
     ) -> None:
         if not isinstance(plate, Plate):
             raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
@@ -242,6 +251,8 @@ class StagedBasin:
         # deepest burial of each stage's top (m), oldest first; kept once erosion has
         # brought layers up (compaction is irreversible), empty before
         self.burial: list[np.ndarray] = []
+        self.stretching = _rift_on_grid(stretching, plate, self.water_density, initial_surface)
+        self._rift_cache: dict[float, np.ndarray] = {}
 
     # column -----------------------------------------------------------------
     def _layer_density(self, lith: Lithology) -> float:
@@ -323,8 +334,10 @@ class StagedBasin:
         infill: Infill,
         fill_density: float,
         min_deflection: float = 0.0,
+        tectonic_load: np.ndarray | None = None,
     ) -> tuple[np.ndarray, np.ndarray, int, np.ndarray, np.ndarray]:
-        """Solve the change from the carried state to the column of *grains*.
+        """Solve the change from the carried state to the column of *grains*, plus
+        *tectonic_load* (Pa, positive down) when given.
 
         Returns (deflection increment, sediment fill, iterations, new carried mass,
         new carried thickness). When the load change could not move the plate by
@@ -337,6 +350,8 @@ class StagedBasin:
         water_before = self._water(self.thickness, self.current_sea_level)
         water_after = self._water(total_h, sea_level)
         increment = g * ((total_m - self.mass) + self.water_density * (water_after - water_before))
+        if tectonic_load is not None:
+            increment = increment + tectonic_load
         weakest = (self.plate.mantle_density - infill.max_density()) * g
         if float(np.abs(increment).max()) <= min_deflection * weakest:
             zero = np.zeros(self.base.shape)
@@ -444,10 +459,11 @@ class StagedBasin:
         te = self.plate.te if stage.te is None else stage.te
         saved = (self.deflection, self.mass, self.thickness, self.current_sea_level, self.burial)
         try:
+            tectonic = self._tectonic_load(self.stages[-1].age if self.stages else None, stage.age)
             older = self._erode(eroded, where) if eroded.any() else self.grains
             grains = older + [self._grains_of(h, lith)]
             w, fill, iterations = self._add(
-                h, lith, grains, stages, te, sea, infill, fill_density, level
+                h, lith, grains, stages, te, sea, infill, fill_density, level, tectonic
             )
         except BaseException:
             # a failed solve (bad input, no convergence) leaves the basin as it was
@@ -477,10 +493,11 @@ class StagedBasin:
         infill: Infill,
         fill_density: float,
         level: np.ndarray,
+        tectonic: np.ndarray | None = None,
     ) -> tuple[np.ndarray, np.ndarray, int]:
         """Solve a new top stage and settle it; updates the carried state and grains[-1]."""
         w, fill, iterations, mass, thickness = self._solve_increment(
-            grains, stages, te, sea, infill, fill_density
+            grains, stages, te, sea, infill, fill_density, tectonic_load=tectonic
         )
         self.deflection = self.deflection + w
         self.mass, self.thickness, self.current_sea_level = mass, thickness, sea
@@ -561,8 +578,9 @@ class StagedBasin:
         infill = Infill(sea_level=sea, water_density=self.water_density)
         removed = self.stages[-1]
         te = self.plate.te if removed.te is None else removed.te
+        tectonic = self._tectonic_load(removed.age, below.age if below is not None else None)
         w, _, iterations, mass, thickness = self._solve_increment(
-            grains, stages, te, sea, infill, 0.0
+            grains, stages, te, sea, infill, 0.0, tectonic_load=tectonic
         )
         self.deflection = self.deflection + w
         self.mass, self.thickness, self.current_sea_level = mass, thickness, sea
@@ -572,6 +590,26 @@ class StagedBasin:
         if below is not None and below.base_level is not None:
             level = grid_values(below.base_level, self.grid, "stage base_level")
         self._record(age, w, level, iterations, te)
+
+    def tectonic_subsidence(self, age: float | None) -> np.ndarray:
+        """Water-loaded tectonic subsidence of the rift (m) at *age*; zeros without a rift
+        or before the first stage (*age* ``None``)."""
+        if self.stretching is None or age is None:
+            return np.zeros(self.base.shape)
+        if age not in self._rift_cache:  # each age is asked for by two stages in turn
+            rift, beta = self.stretching
+            if len(self._rift_cache) >= 2:
+                del self._rift_cache[next(iter(self._rift_cache))]
+            self._rift_cache[age] = np.broadcast_to(rift.subsidence(age, beta), self.base.shape)
+        return self._rift_cache[age].copy()
+
+    def _tectonic_load(self, before: float | None, after: float | None) -> np.ndarray | None:
+        """(rho_m - rho_w) g dS (Pa), dS = S(after) - S(before) the change of the tectonic
+        subsidence (negative when a removed stage is undone); None without a rift."""
+        if self.stretching is None:
+            return None
+        change = self.tectonic_subsidence(after) - self.tectonic_subsidence(before)
+        return (self.plate.mantle_density - self.water_density) * self.plate.gravity * change
 
     def _fill_mask(self) -> xr.DataArray | None:
         """Where moat-fill sediment may go: not in the FFT padding (its state is not kept
@@ -766,6 +804,7 @@ def stage_loading(
     pad_factor: float = 4.5,
     isopachs: str = "deposited",
     progress: Progress | None = None,
+    stretching: Stretching | None = None,
 ) -> xr.Dataset:
     """Flexure of a basin filled stage by stage (oldest first).
 
@@ -787,6 +826,10 @@ def stage_loading(
         has the given thicknesses; moat fill (``base_level``) adds sediment to it.
     progress : callable, optional
         Called as ``progress(done, total)`` after each stage.
+    stretching : Stretching, optional
+        A rift under the basin (see :class:`StagedBasin`); its water-loaded tectonic
+        subsidence at each stage is added as a flexed load and written as
+        ``tectonic_subsidence`` and ``thermal_subsidence``.
 
     Returns
     -------
@@ -797,7 +840,10 @@ def stage_loading(
         included), ``stage_fill``, ``stage_density`` (kg m^-3),
         ``sediment_thickness``, ``sediment_density``, ``elastic_thickness`` (m, the te
         each stage was solved with); ``final_stage_thickness``
-        (present compacted thickness of each stage); ``age`` coordinate.
+        (present compacted thickness of each stage); ``age`` coordinate. With
+        *stretching*: ``tectonic_subsidence`` (m, initial plus thermal, water-loaded,
+        local: the rift model's own column at the stage's age) and
+        ``thermal_subsidence`` (m, its thermal part).
 
     Raises
     ------
@@ -822,6 +868,7 @@ def stage_loading(
         max_iterations=max_iterations,
         edges=edges,
         pad_factor=pad_factor,
+        stretching=stretching,
     )
     for index, stage in enumerate(items, start=1):
         basin.add_stage(stage)
@@ -833,7 +880,35 @@ def stage_loading(
         basin.final_stage_thickness(),
         {"units": "m", "long_name": "present compacted thickness of each stage"},
     )
+    if basin.stretching is not None:
+        _add_rift(out, basin)
     return out
+
+
+def _add_rift(out: xr.Dataset, basin: StagedBasin) -> None:
+    """The rift's water-loaded tectonic and thermal subsidence at each stage of *out*."""
+    assert basin.stretching is not None
+    rift, beta = basin.stretching
+    check_memory(2 * basin.base.nbytes * out.sizes["stage"], "the tectonic subsidence")
+    parts = [rift.subsidence_parts(float(age), beta) for age in out["age"].values]
+    shape = basin.base.shape
+    for name, index, long_name in (
+        ("tectonic_subsidence", None, "initial plus thermal"),
+        ("thermal_subsidence", 1, "thermal (post-rift)"),
+    ):
+        values = np.stack(
+            [np.broadcast_to(p[0] + p[1] if index is None else p[index], shape) for p in parts]
+        )
+        out[name] = (
+            ("stage", "y", "x"),
+            values,
+            {
+                "units": "m",
+                "long_name": f"{long_name} tectonic subsidence of the rift, water-loaded, "
+                "local (positive down)",
+            },
+        )
+    out.attrs.update(rift.describe())
 
 
 def _deposited_stages(stages: list[Stage]) -> list[Stage]:
@@ -853,3 +928,21 @@ def _deposited_stages(stages: list[Stage]) -> list[Stage]:
         out.append(dataclasses.replace(stage, thickness=stage.thickness.copy(data=deposited)))
         burial = top + h
     return out[::-1]
+
+
+def _rift_on_grid(
+    stretching: Stretching | None, plate: Plate, water_density: float, grid: xr.DataArray
+) -> tuple[Stretching, np.ndarray] | None:
+    """The rift with the plate's mantle and the basin's water densities, and its
+    stretching factors on *grid* (a number stays a 0-d array)."""
+    if stretching is None:
+        return None
+    if not isinstance(stretching, Stretching):
+        raise InputError(
+            f"stretching must be a gridflex.basin.Stretching, got {type(stretching).__name__}"
+        )
+    rift = stretching.for_densities(plate.mantle_density, water_density)
+    beta = rift.stretching_factor
+    if isinstance(beta, xr.DataArray):
+        return rift, grid_values(beta, grid, "stretching_factor", unit="")
+    return rift, np.asarray(float(beta))

@@ -13,6 +13,7 @@ import xarray as xr
 from gridflex.basin.backstrip import backstrip, backstrip_layers
 from gridflex.basin.compaction import LITHOLOGIES, Lithology
 from gridflex.basin.staging import Stage, stage_loading
+from gridflex.basin.stretching import Stretching, StretchingModel
 from gridflex.errors import InputError
 from gridflex.gis.geometry import geometry_of
 from gridflex.glacial.ice import sea_level_at
@@ -163,6 +164,7 @@ def _run_stages(
             edges=solver["edges"],
             pad_factor=solver["pad_factor"],
             progress=progress,
+            stretching=_stretching(scenario, surface),
         )
     return result, surface
 
@@ -307,3 +309,33 @@ def run_basin(
         )
         write_basin_outputs(extra, result, crs, plan, outcome.written)
     return outcome
+
+
+def _stretching(scenario: BasinScenario, surface: xr.DataArray) -> Stretching | None:
+    """The rift of ``[stretching]`` (beta a number or a grid on the surface's grid)."""
+    table = scenario.tables.get("stretching")
+    if table is None:
+        return None
+    beta: float | xr.DataArray = table["stretching_factor"]
+    if table["stretching_factor_file"] is not None:
+        beta = read_grid_input(
+            table["stretching_factor_file"],
+            table["stretching_factor_variable"],
+            scenario.where("stretching", "stretching_factor_file"),
+            dimension=None,
+            metric=True,
+            reference=surface,
+            role="stretching_factor",
+        )
+    parameters = (
+        "lithosphere_thickness",
+        "crust_thickness",
+        "mantle_temperature",
+        "thermal_expansion",
+        "thermal_diffusivity",
+        "crust_density",
+        "isostasy",
+    )
+    with error_context(scenario.where("stretching")):
+        model = StretchingModel(**{name: table[name] for name in parameters})
+        return Stretching(beta, table["rift_age"], model)

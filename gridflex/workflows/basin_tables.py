@@ -10,6 +10,7 @@ A basin scenario has these tables (``[[...]]`` are arrays of tables)::
                           water density, compaction, infill tolerance
     [[stages]]            one per stage, oldest first: isopach file, age, lithology, base
                           level, sea level, te of its time
+    [stretching]          optional, with [basin]: a rift under the basin (beta, rift age)
     [backstrip]           or backstripping: basement, sediment and water grids, density
     [[backstrip_layers]]  optional: a layered column, backstripped step by step
     [output]              NetCDF file; GeoTIFFs and maps of each stage, section plot
@@ -24,6 +25,7 @@ from typing import Any
 
 from gridflex.basin.compaction import LITHOLOGIES, check_grains_sink
 from gridflex.basin.staging import ISOPACHS
+from gridflex.basin.stretching import DEFAULT_CRUST_THICKNESS, DEFAULT_THERMAL_DIFFUSIVITY, ISOSTASY
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.errors import InputError
 from gridflex.scenario.checks import check_plate_structure
@@ -137,6 +139,49 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         "te_file": Key("path", "grid file of te at the time of loading", None),
         "te_variable": Key("string", "NetCDF variable or band in te_file", None),
     },
+    # a rift under the staged basin (McKenzie 1978); the mantle and water densities are
+    # those of [plate] and [basin]
+    "stretching": {
+        "stretching_factor": Key("number", "stretching factor beta (1 = none)", None, minimum=1.0),
+        "stretching_factor_file": Key("path", "or a grid file of beta", None),
+        "stretching_factor_variable": Key(
+            "string", "NetCDF variable or band in stretching_factor_file", None
+        ),
+        "rift_age": Key(
+            "quantity", "age of the stretching (years before present)", REQUIRED, "time"
+        ),
+        "lithosphere_thickness": Key(
+            "quantity", "thickness a of the lithosphere", 125e3, "length", minimum=0.0, strict=True
+        ),
+        "crust_thickness": Key(
+            "quantity",
+            "unstretched crustal thickness",
+            DEFAULT_CRUST_THICKNESS,
+            "length",
+            minimum=0.0,
+            strict=True,
+        ),
+        "mantle_temperature": Key(
+            "number", "temperature at the base of the lithosphere (degC)", 1333.0, minimum=0.0
+        ),
+        "thermal_expansion": Key(
+            "number", "volumetric thermal expansion (1/K)", 3.28e-5, minimum=0.0
+        ),
+        "thermal_diffusivity": Key(
+            "number",
+            "thermal diffusivity (m^2/s)",
+            DEFAULT_THERMAL_DIFFUSIVITY,
+            minimum=0.0,
+            strict=True,
+        ),
+        "crust_density": Key("quantity", "crust density at 0 degC", 2800.0, "density", minimum=0.0),
+        "isostasy": Key(
+            "choice",
+            "thermal subsidence as published (mckenzie) or on the full column (column)",
+            "mckenzie",
+            choices=ISOSTASY,
+        ),
+    },
     "backstrip": {
         "basement_file": Key(
             "path", "grid file of basement depth below sea level (positive down)", None
@@ -224,7 +269,7 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
 
 BASIN_ARRAY_TABLES = frozenset({"stages", "backstrip_layers", "breaks", "wells"})
 BASIN_REQUIRED_TABLES = ("plate", "output")
-_OPTIONAL = frozenset({"basin", "backstrip", "section"})
+_OPTIONAL = frozenset({"basin", "backstrip", "section", "stretching"})
 """Tables that switch a workflow on; absent, they are ``None``."""
 
 
@@ -270,6 +315,7 @@ def _check_basin(scenario: BasinScenario) -> None:
         )
     if tables["backstrip_layers"] and tables["backstrip"] is None:
         raise InputError(f"{scenario.path}: [[backstrip_layers]] need a [backstrip] table")
+    _check_stretching(scenario)
     if tables["basin"] is not None:
         if not tables["stages"]:
             raise InputError(f"{scenario.path}: [basin] needs at least one [[stages]] table")
@@ -315,4 +361,23 @@ def _check_basin(scenario: BasinScenario) -> None:
         raise InputError(
             f"{scenario.where('backstrip')}: give at least two of basement_file, "
             "sediment_file and water_file"
+        )
+
+
+def _check_stretching(scenario: BasinScenario) -> None:
+    """[stretching] goes with [basin] and gives beta as a number or a file."""
+    table = scenario.tables.get("stretching")
+    if table is None:
+        return
+    if scenario.tables["basin"] is None:
+        raise InputError(f"{scenario.where('stretching')}: needs a [basin] table")
+    if (table["stretching_factor"] is None) == (table["stretching_factor_file"] is None):
+        raise InputError(
+            f"{scenario.where('stretching')}: give either stretching_factor or "
+            "stretching_factor_file"
+        )
+    if table["stretching_factor_file"] is None and table["stretching_factor_variable"]:
+        raise InputError(
+            f"{scenario.where('stretching', 'stretching_factor_variable')}: needs "
+            "stretching_factor_file"
         )
