@@ -51,13 +51,14 @@ from __future__ import annotations
 
 import logging
 import math
+import warnings
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import scipy.fft
 
-from gridflex.errors import InputError
+from gridflex.errors import GridflexWarning, InputError
 from gridflex.grid import GridSpec, wavenumbers_squared
 from gridflex.memory import check_memory
 from gridflex.solvers.finite_difference import DEFAULT_MAX_ITERATIONS, FiniteDifferenceSolver
@@ -68,9 +69,25 @@ from gridflex.solvers.viscous import (
     relaxation_pad_distance,
 )
 
-__all__ = ["PLATE_CUT", "SDIRK_GAMMA", "SUBSTEP_FRACTION", "TOLERANCE", "VariableRelaxation"]
+__all__ = [
+    "FAR_FIELD_WARNING",
+    "PLATE_CUT",
+    "SDIRK_GAMMA",
+    "SUBSTEP_FRACTION",
+    "TOLERANCE",
+    "VariableRelaxation",
+]
 
 log = logging.getLogger(__name__)
+
+FAR_FIELD_WARNING = (
+    "half-space model on a te grid: the longest wavelengths are not treated on the infinite "
+    "plane here (the constant-te path does this), so the mean of the padded solve grid "
+    "follows the net load at once: in the first centuries after a load changes the whole "
+    "grid moves too far (metres after one year under an ice-sheet-sized load); use a "
+    "constant te for such transients"
+)
+"""Warned when the half-space runs on a te grid with a margin (not periodic)."""
 
 SDIRK_GAMMA = 1.0 - 1.0 / math.sqrt(2.0)
 """Diagonal coefficient of the two-stage L-stable SDIRK method (Alexander 1977)."""
@@ -254,6 +271,8 @@ class VariableRelaxation:
                 equilibrium.shape, spec, float(grid.max()), stiffness, viscosity
             )
         state_shape = equilibrium.shape if model == "half-space" else spec.shape
+        if model == "half-space" and not periodic:
+            warnings.warn(FAR_FIELD_WARNING, GridflexWarning, stacklevel=2)
         log.info(
             "%s model on a te grid: finite-difference solve grid %s, sub-steps <= %.3g s",
             model,
