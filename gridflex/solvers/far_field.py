@@ -38,9 +38,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.sparse
 from scipy import special
 
 from gridflex.grid import GridSpec
+from gridflex.memory import check_memory
 
 __all__ = ["CUTOFF_CYCLES", "FarField", "step_factors"]
 
@@ -99,9 +101,7 @@ class FarField:
     rows: np.ndarray
     cols: np.ndarray
     kernels: np.ndarray
-    radial_index: np.ndarray
-    radial_fraction: np.ndarray
-    direction: np.ndarray
+    interpolation: scipy.sparse.csr_matrix
     offsets: tuple[np.ndarray, np.ndarray]
     cell_area: float
     state: np.ndarray
@@ -137,17 +137,36 @@ class FarField:
         common = weights * taper * nodes / (2.0 * np.pi)
         hankel0 = special.j0(kr) * common
         hankel1 = special.j1(kr) * (common * nodes)
-        # cells: radial interpolation and direction
+        # cells: linear interpolation in r of the three radial profiles, the two dipole
+        # profiles times the direction cosines, as one sparse matrix (6 entries per cell)
+        cells = spec.ny * spec.nx
+        check_memory(
+            6.0 * 12.0 * cells + 8.0 * 4 * cells,
+            f"far-field interpolation on {spec.ny} x {spec.nx} cells",
+        )
         oy = np.arange(spec.ny) * spec.dy - cy
         ox = np.arange(spec.nx) * spec.dx - cx
-        r = np.hypot(oy[:, None], ox[None, :])
+        r = np.hypot(oy[:, None], ox[None, :]).ravel()
         position = r / step
-        index = np.minimum(position.astype(np.int64), radii.size - 2)
+        index = np.minimum(position.astype(np.int32), radii.size - 2)
         fraction = position - index
         with np.errstate(invalid="ignore", divide="ignore"):
-            direction = np.stack(
-                [np.where(r > 0, oy[:, None] / r, 0.0), np.where(r > 0, ox[None, :] / r, 0.0)]
-            )
+            cos_y = np.where(r > 0, np.broadcast_to(oy[:, None], (spec.ny, spec.nx)).ravel() / r, 0)
+            cos_x = np.where(r > 0, np.broadcast_to(ox[None, :], (spec.ny, spec.nx)).ravel() / r, 0)
+        n_r = radii.size
+        columns = np.stack(
+            [index, index + 1, index + n_r, index + 1 + n_r, index + 2 * n_r, index + 1 + 2 * n_r],
+            axis=1,
+        ).ravel()
+        below = 1.0 - fraction
+        values = np.stack(
+            [below, fraction, below * cos_y, fraction * cos_y, below * cos_x, fraction * cos_x],
+            axis=1,
+        ).ravel()
+        pointers = np.arange(0, 6 * cells + 1, 6, dtype=np.int32)
+        interpolation = scipy.sparse.csr_matrix(
+            (values, columns.astype(np.int32), pointers), shape=(cells, 3 * n_r)
+        )
         # low-wavenumber block of the FFT grid where phi is not negligible
         top = _TOP * k_c
         my = min(int(np.ceil(top * ny_pad * spec.dy / (2 * np.pi))), ny_pad // 2 - 1)
@@ -169,9 +188,7 @@ class FarField:
             rows,
             cols,
             kernels,
-            index,
-            fraction,
-            direction,
+            interpolation,
             (oy, ox),
             spec.cell_area,
             np.zeros((3, count)),
@@ -220,12 +237,15 @@ class FarField:
 
     # -- fields ---------------------------------------------------------------------
     def _field(self, modes: np.ndarray) -> np.ndarray:
-        radial = np.stack(
-            [self.hankel0 @ modes[0], self.hankel1 @ modes[1], self.hankel1 @ modes[2]]
+        # einsum, not BLAS: a small matrix-vector product in BLAS costs a thread start-up
+        radial = np.concatenate(
+            [
+                np.einsum("rk,k->r", self.hankel0, modes[0]),
+                np.einsum("rk,jk->jr", self.hankel1, modes[1:]).ravel(),
+            ]
         )
-        i, f = self.radial_index, self.radial_fraction
-        values = radial[:, i] * (1.0 - f) + radial[:, i + 1] * f
-        return values[0] + self.direction[0] * values[1] + self.direction[1] * values[2]
+        ny, nx = self.offsets[0].size, self.offsets[1].size
+        return np.asarray(self.interpolation @ radial).reshape(ny, nx)
 
     def field(self) -> np.ndarray:
         """Deflection (m) of the far part on the window now."""
