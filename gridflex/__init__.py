@@ -20,6 +20,7 @@ from gridflex.errors import (
 from gridflex.estimation.admittance import cross_spectra, fit_te_spectral
 from gridflex.estimation.misfit import TeFit, fit_te
 from gridflex.estimation.misfit_te_maps import MarginFit, ScaleFit, fit_te_margin, fit_te_scale
+from gridflex.glacial.elastic import elastic_halfspace_response
 from gridflex.glacial.ice import bed_stress, grounded_mask, ice_response
 from gridflex.glacial.response import ResponseStepper, viscous_response
 from gridflex.gravity.anomalies import model_free_air_anomaly, model_gravity
@@ -56,6 +57,7 @@ __all__ = [
     "viscous_response",
     "ResponseStepper",
     "ice_response",
+    "elastic_halfspace_response",
     "bed_stress",
     "grounded_mask",
     "Infill",

@@ -51,8 +51,10 @@ __all__ = [
     "DEFAULT_WIDTH_FACTOR",
     "SpectralRelaxation",
     "check_relaxation_settings",
+    "padded_forward",
     "relaxation_rates",
     "relaxation_pad_distance",
+    "window_inverse",
 ]
 
 MODELS = ("half-space", "relaxing")
@@ -290,21 +292,14 @@ class SpectralRelaxation:
         The transform along x runs only over the rows that hold data (the padding
         rows are zero), which is what makes a widely padded grid affordable.
         """
-        ny_pad, nx_pad = self.shape
-        rows = scipy.fft.rfft(np.asarray(load, dtype=np.float64), n=nx_pad, axis=1, workers=-1)
-        return scipy.fft.fft(rows, n=ny_pad, axis=0, workers=-1, overwrite_x=True)
+        return padded_forward(load, self.shape)
 
     def inverse(self, spectrum: np.ndarray) -> np.ndarray:
         """Field on the unpadded grid from a spectrum on the FFT grid (input kept).
 
         Only the rows and columns of the output window are transformed back along x.
         """
-        ny, nx = self.spec.shape
-        columns = scipy.fft.ifft(spectrum, axis=0, workers=-1)[:ny]
-        full = scipy.fft.irfft(columns, n=self.shape[1], axis=1, workers=-1)
-        if full.shape[1] == nx:
-            return full
-        return np.ascontiguousarray(full[:, :nx])
+        return window_inverse(spectrum, self.shape, self.spec.shape)
 
     # -- state --------------------------------------------------------------------
     def _spectrum(self, load: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
@@ -409,6 +404,26 @@ class SpectralRelaxation:
             np.multiply(_floats(new), factors[2], out=scratch)
             state += scratch
         self.load_spectrum = new
+
+
+def padded_forward(values: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
+    """Half spectrum (as ``scipy.fft.rfft2``) of *values* zero-padded to *shape*, the data
+    at the first rows and columns; the transform along x runs only over the data rows."""
+    rows = scipy.fft.rfft(np.asarray(values, dtype=np.float64), n=shape[1], axis=1, workers=-1)
+    return scipy.fft.fft(rows, n=shape[0], axis=0, workers=-1, overwrite_x=True)
+
+
+def window_inverse(
+    spectrum: np.ndarray, shape: tuple[int, int], window: tuple[int, int]
+) -> np.ndarray:
+    """The first *window* rows and columns of the inverse of a half spectrum of *shape*
+    (input kept); only the window's rows are transformed back along x."""
+    ny, nx = window
+    columns = scipy.fft.ifft(spectrum, axis=0, workers=-1)[:ny]
+    full = scipy.fft.irfft(columns, n=shape[1], axis=1, workers=-1)
+    if full.shape[1] == nx:
+        return full
+    return np.ascontiguousarray(full[:, :nx])
 
 
 def _floats(spectrum: np.ndarray) -> np.ndarray:
