@@ -38,6 +38,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.fft
 import scipy.sparse
 from scipy import special
 
@@ -76,6 +77,35 @@ def step_factors(
     return (decay, (phi - decay) * transfer, (1.0 - phi) * transfer)
 
 
+def _interpolation_matrix(
+    oy: np.ndarray, ox: np.ndarray, step: float, n_r: int
+) -> scipy.sparse.csr_matrix:
+    """Linear interpolation in r of the three radial profiles (the two dipole profiles
+    times the direction cosines) at the cells of offsets *oy* x *ox* from the centre, as
+    one sparse matrix of 6 entries per cell onto the stacked profiles (3 *n_r*)."""
+    cells = oy.size * ox.size
+    check_memory(6.0 * 12.0 * cells + 8.0 * 4 * cells, f"far-field interpolation on {cells} cells")
+    yy = np.broadcast_to(oy[:, None], (oy.size, ox.size)).ravel()
+    xx = np.broadcast_to(ox[None, :], (oy.size, ox.size)).ravel()
+    r = np.hypot(yy, xx)
+    position = r / step
+    index = np.minimum(position.astype(np.int32), n_r - 2)
+    fraction = position - index
+    safe = np.where(r > 0, r, 1.0)
+    cos_y, cos_x = np.where(r > 0, yy / safe, 0.0), np.where(r > 0, xx / safe, 0.0)
+    columns = np.stack(
+        [index, index + 1, index + n_r, index + 1 + n_r, index + 2 * n_r, index + 1 + 2 * n_r],
+        axis=1,
+    ).ravel()
+    below = 1.0 - fraction
+    values = np.stack(
+        [below, fraction, below * cos_y, fraction * cos_y, below * cos_x, fraction * cos_x],
+        axis=1,
+    ).ravel()
+    pointers = np.arange(0, 6 * cells + 1, 6, dtype=np.int64)
+    return scipy.sparse.csr_matrix((values, columns, pointers), shape=(cells, 3 * n_r))
+
+
 def _simpson_weights(n: int, step: float) -> np.ndarray:
     """Composite Simpson weights for *n* (odd) equally spaced nodes."""
     weights = np.full(n, 2.0)
@@ -103,6 +133,7 @@ class FarField:
     kernels: np.ndarray
     interpolation: scipy.sparse.csr_matrix
     offsets: tuple[np.ndarray, np.ndarray]
+    radial_step: float
     cell_area: float
     state: np.ndarray
     moments: np.ndarray
@@ -115,9 +146,12 @@ class FarField:
         rigidity: float,
         stiffness: float,
         viscosity: float,
+        whole_grid: bool = False,
     ) -> FarField:
         """Nodes, Hankel matrices and the low-wavenumber block of the FFT grid *shape*
-        (the window at its first rows and columns, as the engine pads)."""
+        (the window at its first rows and columns, as the engine pads). With
+        *whole_grid* the radial grid reaches every cell of *shape* (nearest periodic
+        image), for :meth:`grid_interpolation`."""
         ny_pad, nx_pad = shape
         k_c = CUTOFF_CYCLES * 2.0 * np.pi / min(ny_pad * spec.dy, nx_pad * spec.dx)
         # quadrature in u = ln k: int f dk = int f k du, Simpson on an odd node count
@@ -131,42 +165,17 @@ class FarField:
         # radial grid through the window (distances from its centre)
         cy, cx = 0.5 * (spec.ny - 1) * spec.dy, 0.5 * (spec.nx - 1) * spec.dx
         reach = float(np.hypot(cy, cx))
+        if whole_grid:
+            reach = max(reach, float(np.hypot(ny_pad * spec.dy, nx_pad * spec.dx)) / 2)
         step = _RADIAL_STEP / k_c
         radii = np.arange(int(np.ceil(reach / step)) + 2) * step
         kr = radii[:, None] * nodes[None, :]
         common = weights * taper * nodes / (2.0 * np.pi)
         hankel0 = special.j0(kr) * common
         hankel1 = special.j1(kr) * (common * nodes)
-        # cells: linear interpolation in r of the three radial profiles, the two dipole
-        # profiles times the direction cosines, as one sparse matrix (6 entries per cell)
-        cells = spec.ny * spec.nx
-        check_memory(
-            6.0 * 12.0 * cells + 8.0 * 4 * cells,
-            f"far-field interpolation on {spec.ny} x {spec.nx} cells",
-        )
         oy = np.arange(spec.ny) * spec.dy - cy
         ox = np.arange(spec.nx) * spec.dx - cx
-        r = np.hypot(oy[:, None], ox[None, :]).ravel()
-        position = r / step
-        index = np.minimum(position.astype(np.int32), radii.size - 2)
-        fraction = position - index
-        with np.errstate(invalid="ignore", divide="ignore"):
-            cos_y = np.where(r > 0, np.broadcast_to(oy[:, None], (spec.ny, spec.nx)).ravel() / r, 0)
-            cos_x = np.where(r > 0, np.broadcast_to(ox[None, :], (spec.ny, spec.nx)).ravel() / r, 0)
-        n_r = radii.size
-        columns = np.stack(
-            [index, index + 1, index + n_r, index + 1 + n_r, index + 2 * n_r, index + 1 + 2 * n_r],
-            axis=1,
-        ).ravel()
-        below = 1.0 - fraction
-        values = np.stack(
-            [below, fraction, below * cos_y, fraction * cos_y, below * cos_x, fraction * cos_x],
-            axis=1,
-        ).ravel()
-        pointers = np.arange(0, 6 * cells + 1, 6, dtype=np.int32)
-        interpolation = scipy.sparse.csr_matrix(
-            (values, columns.astype(np.int32), pointers), shape=(cells, 3 * n_r)
-        )
+        interpolation = _interpolation_matrix(oy, ox, step, radii.size)
         # low-wavenumber block of the FFT grid where phi is not negligible
         top = _TOP * k_c
         my = min(int(np.ceil(top * ny_pad * spec.dy / (2 * np.pi))), ny_pad // 2 - 1)
@@ -190,6 +199,7 @@ class FarField:
             kernels,
             interpolation,
             (oy, ox),
+            step,
             spec.cell_area,
             np.zeros((3, count)),
             np.zeros(3),
@@ -202,18 +212,53 @@ class FarField:
 
         *spectrum* is the DFT of *load* zero-padded as the engine does; its k = 0 value
         is the net force, so after the split that mode is exactly zero."""
-        oy, ox = self.offsets
-        sums = np.array(
-            [
-                spectrum[0, 0].real,
-                float(load.sum(axis=1) @ oy),
-                float(load.sum(axis=0) @ ox),
-            ]
-        )
+        sums = self.sums(load, float(spectrum[0, 0].real))
         block = np.ix_(self.rows, self.cols)
         spectrum[block] -= np.tensordot(sums, self.kernels, axes=1)
         spectrum[0, 0] = 0.0
         return sums * self.cell_area
+
+    def sums(self, load: np.ndarray, total: float | None = None) -> np.ndarray:
+        """``(Σ q, Σ q (y − y_c), Σ q (x − x_c))`` over the window's cells (Pa, Pa m);
+        *total* replaces Σ q when the caller has it (the k = 0 value of a spectrum)."""
+        oy, ox = self.offsets
+        first = float(load.sum()) if total is None else total
+        return np.array([first, float(load.sum(axis=1) @ oy), float(load.sum(axis=0) @ ox)])
+
+    def grid_interpolation(self, shape: tuple[int, int], dy: float, dx: float):
+        """Interpolation of the far field onto every cell of the periodic grid *shape*
+        (the window at its first cells), at the nearest periodic image of the window
+        centre; needs a FarField built with ``whole_grid=True``."""
+        oy, ox = self.offsets
+        cy, cx = -float(oy[0]), -float(ox[0])
+        ly, lx = shape[0] * dy, shape[1] * dx
+        gy = (np.arange(shape[0]) * dy - cy + ly / 2) % ly - ly / 2
+        gx = (np.arange(shape[1]) * dx - cx + lx / 2) % lx - lx / 2
+        return _interpolation_matrix(gy, gx, self.radial_step, self.hankel0.shape[0])
+
+    def real_basis(self, shape: tuple[int, int]) -> np.ndarray:
+        """The three loads (per unit sum, on the periodic grid *shape*) that :meth:`split`
+        takes out of a spectrum, in real space: Σ_j sums_j basis_j is the far part of a
+        load."""
+        basis = np.empty((3, *shape))
+        for j in range(3):
+            spectrum = np.zeros((shape[0], shape[1] // 2 + 1), dtype=np.complex128)
+            spectrum[np.ix_(self.rows, self.cols)] = self.kernels[j]
+            basis[j] = scipy.fft.irfft2(spectrum, s=shape, workers=-1)
+        return basis
+
+    def modes_after(self, dt: float, new: np.ndarray, interpolation: str) -> np.ndarray:
+        """The radial modes *dt* seconds on (towards the moments *new*), without
+        advancing the state (for stage times inside a step)."""
+        factors = self.factors(dt, interpolation)
+        modes = self.state * factors[0]
+        if interpolation == "previous":
+            return modes + factors[1] * new[:, None]
+        return modes + factors[1] * self.moments[:, None] + factors[2] * new[:, None]
+
+    def field_with(self, matrix: scipy.sparse.csr_matrix, modes: np.ndarray) -> np.ndarray:
+        """Far field (flat, m) of *modes* through an interpolation *matrix*."""
+        return np.asarray(matrix @ self._radial(modes))
 
     def step(self, factors: tuple, new: np.ndarray, interpolation: str) -> None:
         """Advance the radial modes with *factors* (from :func:`step_factors` on
@@ -236,16 +281,18 @@ class FarField:
         return step_factors(self.rates, self.transfer, dt, interpolation)
 
     # -- fields ---------------------------------------------------------------------
-    def _field(self, modes: np.ndarray) -> np.ndarray:
+    def _radial(self, modes: np.ndarray) -> np.ndarray:
         # einsum, not BLAS: a small matrix-vector product in BLAS costs a thread start-up
-        radial = np.concatenate(
+        return np.concatenate(
             [
                 np.einsum("rk,k->r", self.hankel0, modes[0]),
                 np.einsum("rk,jk->jr", self.hankel1, modes[1:]).ravel(),
             ]
         )
+
+    def _field(self, modes: np.ndarray) -> np.ndarray:
         ny, nx = self.offsets[0].size, self.offsets[1].size
-        return np.asarray(self.interpolation @ radial).reshape(ny, nx)
+        return self.field_with(self.interpolation, modes).reshape(ny, nx)
 
     def field(self) -> np.ndarray:
         """Deflection (m) of the far part on the window now."""

@@ -66,7 +66,6 @@ def _run(folder: Path, text: str) -> xr.Dataset:
     return run_history_scenario(load_history_scenario(path), overwrite=True).result
 
 
-@pytest.mark.filterwarnings("ignore:half-space model on a te grid")
 @pytest.mark.parametrize("model", ["half-space", "relaxing"])
 def test_margin_and_break_run_through_the_history_command(tmp_path, model):
     # The [margin] and [[breaks]] tables of gridflex run give the te grid of a history
