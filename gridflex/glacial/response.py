@@ -431,6 +431,10 @@ class ResponseStepper:
         if self.model == "half-space":
             out["mantle_viscosity"] = self.mantle_viscosity
             out["pad_width_factor"] = self.width_factor
+            if getattr(engine, "far", None) is not None:
+                out["long_wavelengths"] = (
+                    "net force and first moment of the load relaxed on the infinite plane"
+                )
         else:
             out["relaxation_time"] = self.relaxation_time
         if isinstance(engine, VariableRelaxation):
