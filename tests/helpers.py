@@ -10,6 +10,9 @@ from typing import Any
 
 import numpy as np
 import xarray as xr
+from scipy import integrate, special
+
+from gridflex.constants import SECONDS_PER_YEAR
 
 REPO_ROOT = Path(__file__).resolve().parents[1]
 """The repository's root folder (README, configs, examples)."""
@@ -428,3 +431,33 @@ def two_load_plate(
         xr.DataArray(h_i - w, dims=("y", "x"), coords=coords),
         xr.DataArray(bouguer, dims=("y", "x"), coords=coords),
     )
+
+
+# Disc test of Bueler, Lingle & Brown 2007 (Ann. Glaciol. 46, 97-105); parameters as we
+# believe the paper uses them (from memory, PHYSICS.md 7.3): H0 = 1000 m of ice (910 kg/m3)
+# on R0 = 1000 km, rho_m = 3300, eta = 1e21 Pa s, D = 5e24 N m, g = 9.81.
+BUELER_DISC = (1000.0, 1000e3, 910.0, 3300.0, 9.81, 1e21, 5e24)
+"""(H0, R0, rho_i, rho_m, g, eta, D) of the disc test, SI units."""
+
+
+def exact_disc(r: np.ndarray, t_years: np.ndarray, rate: bool = False) -> np.ndarray:
+    """Disc load switched on at t = 0 over a plate on a viscous half-space, by Hankel
+    transform of the per-mode equation (PHYSICS.md 7.6, the integral formula Bueler et al.
+    2007 verify against):
+    w(r, t) = q0 R0 int_0^inf (1 - exp(-beta t / (2 eta k))) J1(k R0) J0(k r) / beta dk,
+    beta = rho_m g + D k^4; with rate=True its time derivative (m/s). Shape (r, t)."""
+    H0, R0, RHO_I, RHO_M, G, ETA, D = BUELER_DISC
+    q0 = RHO_I * G * H0
+    rr = np.asarray(r, dtype=float)[:, None]
+    tt = np.asarray(t_years, dtype=float)[None, :] * SECONDS_PER_YEAR
+
+    def integrand(k):
+        beta = RHO_M * G + D * k**4
+        with np.errstate(divide="ignore", invalid="ignore"):
+            x = beta * tt / (2 * ETA * k)
+            time_part = np.exp(-x) * beta / (2 * ETA * k) if rate else -np.expm1(-x)
+        return time_part * special.j1(k * R0) * special.j0(k * rr) / beta
+
+    # beyond k = 4e-4 rad/m (40 times 1/l) beta ~ D k^4 makes the integrand negligible
+    value, _ = integrate.quad_vec(integrand, 0.0, 4e-4, epsabs=0.0, epsrel=1e-10, limit=4000)
+    return q0 * R0 * value

@@ -28,6 +28,11 @@ import xarray as xr
 from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
 from gridflex.engine import deflection_attrs
 from gridflex.errors import ConvergenceError, InputError
+from gridflex.glacial.elastic import (
+    EARTH_POISSON_RATIO,
+    EARTH_YOUNGS_MODULUS,
+    elastic_deflection_attrs,
+)
 from gridflex.glacial.response import (
     INITIAL_STATES,
     ResponseStepper,
@@ -270,6 +275,9 @@ def ice_response(
     edges: str = "infinite",
     pad_factor: float = DEFAULT_PAD_FACTOR,
     width_factor: float = DEFAULT_WIDTH_FACTOR,
+    elastic: bool = False,
+    elastic_youngs_modulus: float = EARTH_YOUNGS_MODULUS,
+    elastic_poisson_ratio: float = EARTH_POISSON_RATIO,
     progress: Progress | None = None,
 ) -> xr.Dataset:
     """Bed deflection through time under an ice-thickness history with floatation.
@@ -310,6 +318,10 @@ def ice_response(
         closely. Without an ocean the result does not depend on it (the steps are exact).
     edges, pad_factor, width_factor
         Padding; see :class:`gridflex.ResponseStepper`.
+    elastic, elastic_youngs_modulus, elastic_poisson_ratio
+        The instantaneous elastic half-space response of the Earth to the load change,
+        added to the deflection (so the bed and the floatation move with it too); see
+        :class:`gridflex.ResponseStepper`.
     progress : callable, optional
         Called as ``progress(done, total)`` after each time step.
 
@@ -319,7 +331,8 @@ def ice_response(
         ``deflection`` (m, positive down), ``uplift_rate`` (m/yr, positive up),
         ``bed_elevation`` (m), ``load`` (the stress change sigma − sigma_ref, Pa) and
         ``grounded`` (1 where ice rests on the bed), all (time, y, x), and the
-        ``sea_level`` series.
+        ``sea_level`` series; with ``elastic=True`` also ``elastic_deflection`` (m, the
+        elastic part of ``deflection``).
 
     Raises
     ------
@@ -346,7 +359,7 @@ def ice_response(
     )
     nt, (ny, nx) = times.size, first.shape
     check_memory(
-        (4 * 8.0 + 1.0) * nt * ny * nx,
+        ((5 if elastic is True else 4) * 8.0 + 1.0) * nt * ny * nx,
         f"deflection, uplift rate, bed and load for {nt} times of {ny} x {nx}",
     )
     zero = np.zeros((ny, nx))
@@ -364,6 +377,9 @@ def ice_response(
         edges=edges,
         pad_factor=pad_factor,
         width_factor=width_factor,
+        elastic=elastic,
+        elastic_youngs_modulus=elastic_youngs_modulus,
+        elastic_poisson_ratio=elastic_poisson_ratio,
     )
     w = zero
     if initial == "equilibrium":
@@ -503,9 +519,13 @@ def _run_history(
     nt, (ny, nx) = times.size, w.shape
     out = {name: np.empty((nt, ny, nx)) for name in ("deflection", "uplift_rate", "load")}
     out["grounded"] = np.empty((nt, ny, nx), dtype=np.int8)
+    if stepper.elastic:
+        out["elastic_deflection"] = np.empty((nt, ny, nx))
 
     def record(n: int, w_now: np.ndarray) -> None:
         q_now = column.load_at(n, w_now)
+        if stepper.elastic:  # the part in w_now, before the load is re-evaluated
+            out["elastic_deflection"][n] = stepper.elastic_deflection.values
         out["deflection"][n] = w_now
         out["load"][n] = q_now
         out["uplift_rate"][n] = stepper.uplift_rate(q_now).values
@@ -569,6 +589,12 @@ def _ice_dataset(
         "sea_level": ("time", column.levels, meta["sea_level"]),
         "reference_load": (("y", "x"), column.reference_stress, meta["reference_load"]),
     }
+    if "elastic_deflection" in out:
+        data_vars["elastic_deflection"] = (
+            dims,
+            out["elastic_deflection"],
+            elastic_deflection_attrs(),
+        )
     ds_attrs = provenance_attrs(
         plate.describe(), attrs, "bed deflection under an ice-thickness history"
     )

@@ -34,12 +34,18 @@ import xarray as xr
 from gridflex.constants import SECONDS_PER_YEAR
 from gridflex.engine import SPECTRAL_EDGES, check_edge_load, deflection_attrs
 from gridflex.errors import GridflexWarning, InputError
+from gridflex.glacial.elastic import (
+    EARTH_POISSON_RATIO,
+    EARTH_YOUNGS_MODULUS,
+    elastic_deflection_attrs,
+)
 from gridflex.grid import GridSpec, check_grid, check_same_grid
 from gridflex.io.provenance import provenance_attrs
 from gridflex.loads import load_attrs
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
 from gridflex.progress import Progress
+from gridflex.solvers.elastic_halfspace import ElasticHalfSpace
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.solvers.variable_relaxation import VariableRelaxation
 from gridflex.solvers.viscous import (
@@ -48,7 +54,7 @@ from gridflex.solvers.viscous import (
     MODELS,
     SpectralRelaxation,
 )
-from gridflex.validation import check_choice, check_number
+from gridflex.validation import check_choice, check_flag, check_number
 
 __all__ = [
     "INITIAL_STATES",
@@ -186,9 +192,19 @@ class ResponseStepper:
         Padding on each side in flexural parameters (both models).
     width_factor : float, default 1.0
         Half-space only: padding on each side of at least this many grid widths. The
-        transient of the half-space reaches far beyond the load; the periodic images
-        this padding pushes away cause errors of a few tenths of a percent in the
-        first thousand years after a load the size of the grid is applied, less later.
+        net force and first moment of the load relax on the infinite plane (computed
+        apart, :mod:`gridflex.solvers.far_field`); the rest decays fast enough for this
+        padding (on the Bueler et al. disc: 0.1 % of w(0) from the first year).
+    elastic : bool, default False
+        Add the instantaneous elastic response of the Earth, an elastic half-space
+        under the load acting now (Boussinesq; :func:`gridflex.elastic_halfspace_response`),
+        to the deflection; it is also given apart (:attr:`elastic_deflection`). Needs
+        ``edges="infinite"``.
+    elastic_youngs_modulus : float, default 1.74e11
+        E of that half-space (Pa; uppermost mantle of PREM, see
+        :data:`gridflex.glacial.elastic.EARTH_YOUNGS_MODULUS`).
+    elastic_poisson_ratio : float, default 0.28
+        Its ν.
 
     Examples
     --------
@@ -216,6 +232,9 @@ class ResponseStepper:
         edges: str = "infinite",
         pad_factor: float = DEFAULT_PAD_FACTOR,
         width_factor: float = DEFAULT_WIDTH_FACTOR,
+        elastic: bool = False,
+        elastic_youngs_modulus: float = EARTH_YOUNGS_MODULUS,
+        elastic_poisson_ratio: float = EARTH_POISSON_RATIO,
     ) -> None:
         _check_plate(plate)
         if plate.infill_density > 0:
@@ -256,8 +275,25 @@ class ResponseStepper:
         self.width_factor = float(width_factor)
         self.time = 0.0
         """Time elapsed since the start (years)."""
+        self.elastic = check_flag("elastic", elastic)
+        self._elastic: ElasticHalfSpace | None = None
+        self._elastic_now = np.zeros(self._spec.shape)
+        self._elastic_before = self._elastic_now
+        self._elastic_dt = 0.0
+        if self.elastic:
+            if self.edges != "infinite":
+                raise InputError(
+                    "elastic=True needs edges='infinite': the elastic half-space's response "
+                    "to a periodic load has no finite mean"
+                )
+            self._elastic = ElasticHalfSpace.build(
+                self._spec, elastic_youngs_modulus, elastic_poisson_ratio
+            )
+            self.elastic_youngs_modulus = float(elastic_youngs_modulus)
+            self.elastic_poisson_ratio = float(elastic_poisson_ratio)
         if load is not None:
-            self._engine.set_load(self._values(load, "load"))
+            self.set_load(load)
+            self._elastic_before = self._elastic_now
         if self.initial == "equilibrium":
             self._engine.set_equilibrium()
         log.info(
@@ -309,13 +345,22 @@ class ResponseStepper:
             Deflection w (m, positive down) at the new time.
         """
         step = check_number("dt", dt, unit="years", minimum=0.0, strict=True)
-        self._engine.step(step * SECONDS_PER_YEAR, self._values(load, "load"))
+        values = self._values(load, "load")
+        self._engine.step(step * SECONDS_PER_YEAR, values)
         self.time += step
+        if self._elastic is not None:
+            self._elastic_before = self._elastic_now
+            self._elastic_dt = step * SECONDS_PER_YEAR
+            self._elastic_now = self._elastic.response(values)
         return self.deflection
 
     def set_load(self, load: xr.DataArray | np.ndarray) -> None:
-        """Change the load acting now (Pa) without moving the plate (a sudden change)."""
-        self._engine.set_load(self._values(load, "load"))
+        """Change the load acting now (Pa) without moving the plate (a sudden change;
+        the elastic part, if any, follows it at once)."""
+        values = self._values(load, "load")
+        self._engine.set_load(values)
+        if self._elastic is not None:
+            self._elastic_now = self._elastic.response(values)
 
     def settle(self) -> xr.DataArray:
         """Put the plate in elastic equilibrium with the load acting now (as after an
@@ -325,16 +370,31 @@ class ResponseStepper:
 
     @property
     def deflection(self) -> xr.DataArray:
-        """Current deflection w (m, positive down)."""
-        return self._wrap(self._engine.deflection(), "deflection", deflection_attrs())
+        """Current deflection w (m, positive down), with the elastic part if any."""
+        values = self._engine.deflection()
+        if self._elastic is not None:
+            values += self._elastic_now
+        return self._wrap(values, "deflection", deflection_attrs())
+
+    @property
+    def elastic_deflection(self) -> xr.DataArray:
+        """The elastic half-space's part of the deflection (m, positive down) under the
+        load acting now; zeros without ``elastic=True``."""
+        return self._wrap(
+            self._elastic_now.copy(), "elastic_deflection", elastic_deflection_attrs()
+        )
 
     def equilibrium(self) -> xr.DataArray:
         """Elastic equilibrium (m, positive down) under the load acting now: where the
-        plate is heading."""
-        return self._wrap(self._engine.equilibrium(), "deflection", deflection_attrs())
+        plate is heading (with the elastic part if any)."""
+        values = self._engine.equilibrium()
+        if self._elastic is not None:
+            values += self._elastic_now
+        return self._wrap(values, "deflection", deflection_attrs())
 
     def uplift_rate(self, load: xr.DataArray | np.ndarray | None = None) -> xr.DataArray:
-        """Uplift rate −dw/dt (m/yr, positive up) now.
+        """Uplift rate −dw/dt (m/yr, positive up) now; with the elastic part, whose rate
+        is its change since the start of the last step over that step.
 
         Parameters
         ----------
@@ -344,8 +404,12 @@ class ResponseStepper:
         """
         if load is not None:
             self.set_load(load)
-        rate = self._engine.rate() * (-SECONDS_PER_YEAR)
-        return self._wrap(rate, "uplift_rate", uplift_rate_attrs())
+        rate = self._engine.rate()
+        if self._elastic is not None and self._elastic_dt > 0:
+            # the elastic part follows the load: its change since the start of the last
+            # step over that step (exact for a load linear within the step)
+            rate += (self._elastic_now - self._elastic_before) / self._elastic_dt
+        return self._wrap(rate * (-SECONDS_PER_YEAR), "uplift_rate", uplift_rate_attrs())
 
     def describe(self) -> dict[str, Any]:
         """Model settings as a flat dict (for output attributes)."""
@@ -359,10 +423,18 @@ class ResponseStepper:
             "edges": self.edges,
             "padded_shape": np.array(self.padded_shape, dtype=np.int64),
             "pad_factor": self.pad_factor,
+            "elastic_earth": "half-space (Boussinesq)" if self.elastic else "none",
         }
+        if self.elastic:
+            out["elastic_youngs_modulus"] = self.elastic_youngs_modulus
+            out["elastic_poisson_ratio"] = self.elastic_poisson_ratio
         if self.model == "half-space":
             out["mantle_viscosity"] = self.mantle_viscosity
             out["pad_width_factor"] = self.width_factor
+            if getattr(engine, "far", None) is not None:
+                out["long_wavelengths"] = (
+                    "net force and first moment of the load relaxed on the infinite plane"
+                )
         else:
             out["relaxation_time"] = self.relaxation_time
         if isinstance(engine, VariableRelaxation):
@@ -431,6 +503,9 @@ def viscous_response(
     edges: str = "infinite",
     pad_factor: float = DEFAULT_PAD_FACTOR,
     width_factor: float = DEFAULT_WIDTH_FACTOR,
+    elastic: bool = False,
+    elastic_youngs_modulus: float = EARTH_YOUNGS_MODULUS,
+    elastic_poisson_ratio: float = EARTH_POISSON_RATIO,
     progress: Progress | None = None,
 ) -> xr.Dataset:
     """Deflection through time of an elastic plate over a viscous or relaxing mantle.
@@ -465,6 +540,9 @@ def viscous_response(
         Between two times the load varies linearly, or stays at the earlier value.
     edges, pad_factor, width_factor
         Padding; see :class:`ResponseStepper`.
+    elastic, elastic_youngs_modulus, elastic_poisson_ratio
+        The instantaneous elastic half-space response of the Earth, added to the
+        deflection; see :class:`ResponseStepper`.
     progress : callable, optional
         Called as ``progress(done, total)`` after each time step.
 
@@ -473,7 +551,8 @@ def viscous_response(
     xarray.Dataset
         ``deflection`` (m, positive down) and ``uplift_rate`` (m/yr, positive up,
         −dw/dt under the load of that time), both (time, y, x), and the ``load``;
-        attributes record the plate, the model and the padding.
+        with ``elastic=True`` also ``elastic_deflection`` (the elastic part, included
+        in ``deflection``); attributes record the plate, the model and the padding.
 
     Raises
     ------
@@ -496,7 +575,8 @@ def viscous_response(
     nt = times.size
     ny, nx = first.shape
     check_memory(
-        2 * 8.0 * nt * ny * nx, f"deflection and uplift rate for {nt} times of {ny} x {nx}"
+        (3 if elastic is True else 2) * 8.0 * nt * ny * nx,
+        f"deflection and uplift rate for {nt} times of {ny} x {nx}",
     )
     if edges == "infinite":
         warn_edge_load(np.abs(load_history.values).max(axis=0))
@@ -513,15 +593,23 @@ def viscous_response(
         edges=edges,
         pad_factor=pad_factor,
         width_factor=width_factor,
+        elastic=elastic,
+        elastic_youngs_modulus=elastic_youngs_modulus,
+        elastic_poisson_ratio=elastic_poisson_ratio,
     )
     deflection = np.empty((nt, ny, nx))
     uplift = np.empty((nt, ny, nx))
+    elastic_part = np.empty((nt, ny, nx)) if stepper.elastic else None
     deflection[0] = stepper.deflection.values
     uplift[0] = stepper.uplift_rate().values
+    if elastic_part is not None:
+        elastic_part[0] = stepper.elastic_deflection.values
     linear = stepper.interpolation == "linear"
     for n in range(1, nt):
         dt = times[n] - times[n - 1]
         deflection[n] = stepper.advance(dt, values[n] if linear else values[n - 1]).values
+        if elastic_part is not None:
+            elastic_part[n] = stepper.elastic_deflection.values
         uplift[n] = stepper.uplift_rate(None if linear else values[n]).values
         if progress is not None:
             progress(n, nt - 1)
@@ -535,5 +623,11 @@ def viscous_response(
         "uplift_rate": (("time", "y", "x"), uplift, uplift_rate_attrs()),
         "load": load_var,
     }
+    if elastic_part is not None:
+        data_vars["elastic_deflection"] = (
+            ("time", "y", "x"),
+            elastic_part,
+            elastic_deflection_attrs(),
+        )
     attrs = provenance_attrs(plate.describe(), stepper.describe(), "plate deflection through time")
     return xr.Dataset(data_vars, coords=coords, attrs=attrs)

@@ -7,7 +7,7 @@ A history scenario has these tables (``[[points]]`` is an array of tables)::
                 (infill_density must stay 0)
     [margin]    te changing across a line, instead of the number or the file
     [[breaks]]  lines or mask files where te = 0
-    [mantle]    model, viscosity, relaxation time
+    [mantle]    model, viscosity, relaxation time, the elastic Earth (elastic = true)
     [solver]    edges, padding, load interpolation, initial state
     [grid]      size and spacing, for a synthetic ice history
     [ice]       the ice-thickness history: a NetCDF (time, y, x) variable or a disc
@@ -31,6 +31,7 @@ from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.engine import SPECTRAL_EDGES
 from gridflex.errors import InputError
 from gridflex.gis.geometry import parse_crs
+from gridflex.glacial.elastic import EARTH_POISSON_RATIO, EARTH_YOUNGS_MODULUS
 from gridflex.glacial.ice import check_max_step, ice_response, sea_level_at
 from gridflex.glacial.response import INITIAL_STATES
 from gridflex.grid import check_same_grid
@@ -98,6 +99,25 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
         "viscosity": Key("quantity", "half-space viscosity", 1e21, "viscosity", minimum=0.0),
         "relaxation_time": Key(
             "quantity", "relaxation time of the relaxing model", 3000.0, "time", minimum=0.0
+        ),
+        "elastic": Key(
+            "bool", "add the instantaneous elastic half-space response of the Earth", False
+        ),
+        "elastic_youngs_modulus": Key(
+            "quantity",
+            "Young's modulus of the elastic Earth (PREM uppermost mantle)",
+            EARTH_YOUNGS_MODULUS,
+            "pressure",
+            minimum=0.0,
+            strict=True,
+        ),
+        "elastic_poisson_ratio": Key(
+            "number",
+            "Poisson's ratio of the elastic Earth (PREM uppermost mantle)",
+            EARTH_POISSON_RATIO,
+            minimum=0.0,
+            strict=True,
+            maximum=0.5,
         ),
     },
     "solver": {
@@ -440,6 +460,9 @@ def run_history_scenario(
         pad_factor=solver["pad_factor"],
         width_factor=solver["pad_width_factor"],
         max_step=max_step,
+        elastic=mantle["elastic"],
+        elastic_youngs_modulus=mantle["elastic_youngs_modulus"],
+        elastic_poisson_ratio=mantle["elastic_poisson_ratio"],
         progress=progress,
     )
     result["ice_thickness"] = (
