@@ -133,14 +133,37 @@ def measure(n: int, count: int, te: float) -> None:
     )
 
 
+def te_grid_ratio(n: int, count: int, te: float) -> None:
+    """Time of the staged margin with a te grid (te rising from 0.5 te on the shelf to
+    2 te in the basin across the shelf break, invented) against the same stages with the
+    constant te, in the same process (target: at most 2)."""
+    surface, stages = margin(n, count)
+    x = surface["x"].values
+    ramp = 0.5 * (1.0 + np.tanh((x - SHELF_BREAK) / 60e3))
+    te_grid = surface.copy(data=np.broadcast_to(te * (0.5 + 1.5 * ramp), surface.shape).copy())
+    seconds = {}
+    for name, plate in (("constant te", Plate(te=te)), ("te grid", Plate(te=te_grid))):
+        start = time.perf_counter()
+        out = stage_loading(stages, surface, plate)
+        seconds[name] = time.perf_counter() - start
+        print(
+            f"{n}x{n}, {count} stages, {name}: {seconds[name]:.1f} s; infill iterations "
+            f"per stage {out['iterations'].values.tolist()}"
+        )
+    print(f"  te grid / constant te: {seconds['te grid'] / seconds['constant te']:.2f} (target 2)")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__)
     parser.add_argument("--sizes", type=int, nargs="+", default=[800, 1000])
     parser.add_argument("--stages", type=int, default=10)
     parser.add_argument("--te", type=float, default=15e3)
+    parser.add_argument(
+        "--te-grid", action="store_true", help="time a te grid against the constant te"
+    )
     args = parser.parse_args()
     for n in args.sizes:
-        measure(n, args.stages, args.te)
+        (te_grid_ratio if args.te_grid else measure)(n, args.stages, args.te)
 
 
 if __name__ == "__main__":
