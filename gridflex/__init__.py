@@ -34,6 +34,7 @@ from gridflex.loads import (
     regional_surface,
 )
 from gridflex.plate import Plate, rigidity_from_te, te_from_rigidity
+from gridflex.sweeps.monte_carlo import ensemble
 from gridflex.sweeps.parameter_sweep import sweep
 
 logging.getLogger(__name__).addHandler(logging.NullHandler())
@@ -75,6 +76,7 @@ __all__ = [
     "cross_spectra",
     "fit_te_spectral",
     "sweep",
+    "ensemble",
     # errors and warnings
     "GridflexError",
     "InputError",
