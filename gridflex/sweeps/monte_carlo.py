@@ -31,8 +31,8 @@ Design (what is computed where):
   (1983, *The American Statistician* 37, 242-247, from memory). The mean, standard
   deviation and exceedance maps therefore never need members x grid in memory.
   Quantiles need every member of a cell: the chunks also return their members in
-  float32 (relative rounding 6e-8), and the quantiles are computed block of rows by
-  block of rows (members x block rows at a time) with numpy's default (linear,
+  float32 (relative rounding 6e-8), and the quantiles are computed block of cells by
+  block of cells (members x block cells at a time, sorted) with numpy's default (linear,
   Hyndman & Fan type 7) rule. That store (members x grid x 4 bytes per quantity) is
   estimated with :func:`gridflex.memory.check_memory` before any work and refused
   with advice when it cannot fit; ``quantiles=()`` skips it (then only the streaming
@@ -54,7 +54,7 @@ import xarray as xr
 from gridflex.engine import EDGES, SPECTRAL_EDGES, check_edge_load, result_dataset
 from gridflex.errors import InputError
 from gridflex.gravity.anomalies import model_gravity
-from gridflex.grid import GridSpec, check_grid
+from gridflex.grid import GridSpec, check_grid, wavenumbers_squared
 from gridflex.infill import Infill, solve_with_infill
 from gridflex.io.provenance import provenance_attrs
 from gridflex.memory import check_memory
@@ -65,12 +65,11 @@ from gridflex.solvers.finite_difference import (
     DEFAULT_TOLERANCE,
     finite_difference_deflection,
 )
+from gridflex.solvers.row_blocks import for_row_blocks
 from gridflex.solvers.spectral import (
     DEFAULT_PAD_FACTOR,
     SpectralProblem,
     decay_length,
-    scale_spectrum,
-    transfer_function,
 )
 from gridflex.sweeps.parameter_sweep import check_scheduler, run_tasks
 from gridflex.validation import check_choice, check_integer, check_number
@@ -268,6 +267,8 @@ class _Job:
     method: str
     problem: SpectralProblem | None = None
     spectrum: np.ndarray | None = None
+    biharmonic: np.ndarray | None = None
+    """k^4 = (kx^2 + ky^2)^2 (rad^4 m^-4) on the half spectrum of *problem*."""
 
     @property
     def q(self) -> xr.DataArray:
@@ -290,19 +291,26 @@ def _member_infill(job: _Job, params: Mapping[str, float]) -> Infill | None:
     return dataclasses.replace(job.infill, **fields)
 
 
-def _unit_deflection(job: _Job, plate: Plate) -> np.ndarray:
+def _unit_deflection(job: _Job, plate: Plate, work: dict[str, np.ndarray]) -> np.ndarray:
     """Deflection (m) of *plate* under the unscaled load, plain solve."""
     values = np.asarray(job.q.values, dtype=np.float64)
     spec = check_grid(job.q)
     if job.path == "spectral":
         assert job.problem is not None and job.spectrum is not None
-        problem = job.problem
-        transfer = transfer_function(
-            problem.shape, spec.dy, spec.dx, float(plate.rigidity), plate.restoring_stiffness
-        )
-        product = scale_spectrum(job.spectrum, transfer)
+        assert job.biharmonic is not None
+        # W = Q / (D k^4 + (rho_m - rho_f) g), the symbol of transfer_function without
+        # in-plane forces, fused into two passes over buffers kept for the whole chunk
+        # (fresh memory costs about as much as the arithmetic here)
+        if "symbol" not in work:
+            work["symbol"] = np.empty(job.biharmonic.shape)
+            work["product"] = np.empty(job.spectrum.shape, dtype=np.complex128)
+        symbol, product = work["symbol"], work["product"]
+        np.multiply(job.biharmonic, float(plate.rigidity), out=symbol)
+        symbol += plate.restoring_stiffness
+        pairs = job.spectrum.view(np.float64).reshape(*job.spectrum.shape, 2)
+        np.divide(pairs, symbol[..., None], out=product.view(np.float64).reshape(pairs.shape))
         columns = scipy.fft.ifft(product, axis=0, workers=-1, overwrite_x=True)
-        rows = scipy.fft.irfft(columns[: spec.ny], n=problem.shape[1], axis=1, workers=-1)
+        rows = scipy.fft.irfft(columns[: spec.ny], n=job.problem.shape[1], axis=1, workers=-1)
         return np.ascontiguousarray(rows[:, : spec.nx])
     w, _ = finite_difference_deflection(
         values,
@@ -342,7 +350,10 @@ def _gravity_options(job: _Job, scale: float) -> dict[str, Any]:
 
 
 def _member(
-    job: _Job, params: Mapping[str, float], cache: dict[tuple[float, ...], Any]
+    job: _Job,
+    params: Mapping[str, float],
+    cache: dict[tuple[float, ...], Any],
+    work: dict[str, np.ndarray],
 ) -> np.ndarray:
     """The quantities (len(job.quantities), ny, nx) of one member."""
     scale = float(params.get("load_scale", 1.0))
@@ -367,7 +378,7 @@ def _member(
     else:
         key = tuple(v for k, v in params.items() if k != "load_scale")
         if key not in cache:
-            cache[key] = _unit_deflection(job, plate)
+            cache[key] = _unit_deflection(job, plate, work)
         fields["deflection"] = scale * cache[key]
         result = None
     if job.gravity is not None:
@@ -411,9 +422,10 @@ def _chunk(job: _Job, samples: dict[str, np.ndarray]) -> tuple[_Moments, np.ndar
     quantiles need them."""
     count = len(next(iter(samples.values())))
     cache: dict[tuple[float, ...], Any] = {}
+    work: dict[str, np.ndarray] = {}
     stack = None
     for i in range(count):
-        values = _member(job, {k: float(v[i]) for k, v in samples.items()}, cache)
+        values = _member(job, {k: float(v[i]) for k, v in samples.items()}, cache, work)
         if stack is None:
             stack = np.empty((count, *values.shape))
         stack[i] = values
@@ -424,7 +436,10 @@ def _chunk(job: _Job, samples: dict[str, np.ndarray]) -> tuple[_Moments, np.ndar
     exceed = np.zeros((job.thresholds.size, *deflection.shape[1:]), dtype=np.int64)
     for i, threshold in enumerate(job.thresholds):
         exceed[i] = (deflection > threshold).sum(axis=0)
-    kept = stack.astype(np.float32) if job.keep_members else None
+    kept = None
+    if job.keep_members:  # (quantity, cell, member): a cell's members side by side
+        flat = stack.astype(np.float32).reshape(count, stack.shape[1], -1)
+        kept = np.ascontiguousarray(flat.transpose(1, 2, 0))
     return _Moments(count, mean, m2, exceed), kept
 
 
@@ -465,8 +480,9 @@ def _path(plate: Plate, infill: Infill | None, method: str, edges: str) -> str:
     return "spectral"
 
 
-def _spectral_setup(job: _Job, plates: list[Plate]) -> tuple[SpectralProblem, np.ndarray]:
-    """The FFT problem padded for the stiffest member, and the load's spectrum on it."""
+def _spectral_setup(job: _Job, plates: list[Plate]) -> _Job:
+    """*job* with the FFT problem padded for the stiffest member, the load's spectrum and
+    k^4 on it."""
     spec = check_grid(job.q)
     decays = [decay_length(float(p.rigidity), p.restoring_stiffness) for p in plates]
     stiffest = plates[int(np.argmax(decays))]
@@ -479,7 +495,10 @@ def _spectral_setup(job: _Job, plates: list[Plate]) -> tuple[SpectralProblem, np
     )
     spectrum = problem.load_spectrum(np.asarray(job.q.values, dtype=np.float64))
     spectrum.flags.writeable = False
-    return problem, spectrum
+    ky2, kx2 = wavenumbers_squared(problem.shape, spec.dy, spec.dx)
+    biharmonic = np.square(ky2 + kx2)
+    biharmonic.flags.writeable = False
+    return dataclasses.replace(job, problem=problem, spectrum=spectrum, biharmonic=biharmonic)
 
 
 def _member_plates(job: _Job, samples: dict[str, np.ndarray], members: int) -> list[Plate]:
@@ -664,8 +683,7 @@ def ensemble(
     if edges == "infinite" and path != "infill":
         check_edge_load(values, float(np.abs(values).sum()))
     if path == "spectral":
-        problem, spectrum = _spectral_setup(job, plates)
-        job = dataclasses.replace(job, problem=problem, spectrum=spectrum)
+        job = _spectral_setup(job, plates)
     results = _compute(job, samples, members, size, scheduler, progress)
     return _dataset(job, q_grid, spec, samples, spread, results, probabilities, seed, sampling)
 
@@ -693,17 +711,28 @@ def _compute(
 def _quantile_maps(
     kept: list[np.ndarray], probabilities: np.ndarray, shape: tuple[int, int, int]
 ) -> np.ndarray:
-    """Quantiles (quantity, quantile, ny, nx) from the chunks' members, block of rows by
-    block of rows (only members x block rows are copied at a time)."""
+    """Quantiles (quantity, quantile, ny, nx) from the chunks' members (each chunk's
+    array is (quantity, cell, member)), block of cells by block of cells: a block's
+    members are gathered contiguously, sorted, and interpolated linearly between order
+    statistics (numpy's default rule: position p (members - 1)). Only members x block
+    cells are copied at a time, in each of the row-block threads."""
     quantities, ny, nx = shape
-    members = sum(k.shape[0] for k in kept)
-    out = np.empty((quantities, probabilities.size, ny, nx))
-    rows = max(1, _CHUNK_BYTES // (4 * members * nx))
+    members = sum(k.shape[2] for k in kept)
+    position = probabilities * (members - 1)
+    low = np.floor(position).astype(np.int64)
+    high = np.minimum(low + 1, members - 1)
+    weight = position - low
+    out = np.empty((quantities, probabilities.size, ny * nx))
+    cells = max(1, _CHUNK_BYTES // (4 * members * 4))
     for f in range(quantities):
-        for r0 in range(0, ny, rows):
-            block = np.concatenate([k[:, f, r0 : r0 + rows] for k in kept])
-            out[f, :, r0 : r0 + rows] = np.quantile(block, probabilities, axis=0)
-    return out
+
+        def block(c0: int, c1: int, _thread: int, f: int = f) -> None:
+            values = np.concatenate([k[f, c0:c1] for k in kept], axis=1)
+            values.sort(axis=1)
+            out[f, :, c0:c1] = (values[:, low] * (1.0 - weight) + values[:, high] * weight).T
+
+        for_row_blocks(ny * nx, cells, block)
+    return out.reshape(quantities, probabilities.size, ny, nx)
 
 
 def _dataset(
