@@ -10,11 +10,11 @@ from collections.abc import Sequence
 from types import ModuleType
 
 from gridflex._version import __version__
-from gridflex.cli import basin, demo, fit, history, profile, run, sweep
+from gridflex.cli import basin, demo, ensemble, fit, history, profile, run, sweep
 from gridflex.cli.common import configure_output
 from gridflex.errors import ConvergenceError, GridflexError
 
-COMMANDS: tuple[ModuleType, ...] = (run, history, fit, sweep, demo, profile, basin)
+COMMANDS: tuple[ModuleType, ...] = (run, history, fit, sweep, ensemble, demo, profile, basin)
 """Command modules; each has NAME, add_parser(subparsers) and execute(args)."""
 
 EXIT_INPUT = 2

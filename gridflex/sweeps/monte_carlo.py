@@ -76,9 +76,11 @@ from gridflex.validation import check_choice, check_integer, check_number
 
 __all__ = [
     "DEFAULT_QUANTILES",
+    "DISTRIBUTIONS",
     "ENSEMBLE_PARAMETERS",
     "PARAMETER_UNITS",
     "SAMPLINGS",
+    "distribution",
     "draw_samples",
     "ensemble",
 ]
@@ -128,6 +130,70 @@ _ADVICE = (
     "use fewer members, a coarser grid, or quantiles=() (the mean, standard deviation "
     "and exceedance maps are then computed chunk by chunk without keeping the members)"
 )
+
+
+DISTRIBUTIONS: dict[str, tuple[str, ...]] = {
+    "normal": ("mean", "std"),
+    "truncated_normal": ("mean", "std", "low", "high"),
+    "uniform": ("low", "high"),
+    "triangular": ("low", "mode", "high"),
+    "lognormal": ("median", "sigma"),
+}
+"""Distributions by name (scenario files) and their arguments: all in the parameter's
+unit, except ``sigma`` of ``lognormal`` (the standard deviation of its logarithm)."""
+
+
+def distribution(name: Any, where: str = "distribution", **arguments: float) -> Any:
+    """A frozen ``scipy.stats`` distribution from a name and plain arguments.
+
+    Parameters
+    ----------
+    name : str
+        One of :data:`DISTRIBUTIONS`.
+    where : str
+        What to name in messages (e.g. a scenario key).
+    **arguments : float
+        The arguments :data:`DISTRIBUTIONS` lists for *name* (SI units).
+
+    Raises
+    ------
+    InputError
+        Unknown name, missing or unknown arguments, or values that give no distribution.
+
+    Examples
+    --------
+    >>> distribution("normal", mean=30e3, std=5e3).std()
+    5000.0
+    """
+    import scipy.stats
+
+    name = check_choice(f"{where} distribution", name, tuple(DISTRIBUTIONS))
+    wanted = DISTRIBUTIONS[name]
+    if set(arguments) != set(wanted):
+        raise InputError(
+            f"{where}: a {name} distribution takes {', '.join(wanted)}; got "
+            f"{', '.join(sorted(arguments)) or 'nothing'}"
+        )
+    a = {k: check_number(f"{where} {k}", v) for k, v in arguments.items()}
+    positive = {"std", "sigma", "median"} & set(a)
+    for key in sorted(positive):
+        if not a[key] > 0:
+            raise InputError(f"{where} {key} must be > 0, got {arguments[key]!r}")
+    if "low" in a and "high" in a and not a["low"] < a["high"]:
+        raise InputError(f"{where}: low must be below high, got {a['low']!r} and {a['high']!r}")
+    if name == "normal":
+        return scipy.stats.norm(a["mean"], a["std"])
+    if name == "truncated_normal":
+        low, high = (a["low"] - a["mean"]) / a["std"], (a["high"] - a["mean"]) / a["std"]
+        return scipy.stats.truncnorm(low, high, loc=a["mean"], scale=a["std"])
+    if name == "uniform":
+        return scipy.stats.uniform(a["low"], a["high"] - a["low"])
+    if name == "triangular":
+        if not a["low"] <= a["mode"] <= a["high"]:
+            raise InputError(f"{where}: mode must lie between low and high, got {a['mode']!r}")
+        width = a["high"] - a["low"]
+        return scipy.stats.triang((a["mode"] - a["low"]) / width, loc=a["low"], scale=width)
+    return scipy.stats.lognorm(a["sigma"], scale=a["median"])
 
 
 def _uniforms(rng: np.random.Generator, members: int, sampling: str) -> np.ndarray:
