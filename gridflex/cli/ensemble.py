@@ -6,8 +6,8 @@ import argparse
 from functools import partial
 
 from gridflex.cli.common import SubParsers, add_scenario_command, execute_scenario_command, wrote
-from gridflex.scenario.tables import FlexureScenario, load_scenario
-from gridflex.sweeps.parameter_sweep import check_scheduler
+from gridflex.cli.sweep import add_scheduler_option, load_with_scheduler
+from gridflex.scenario.tables import FlexureScenario
 from gridflex.workflows.ensemble import ensemble_scenario
 
 NAME = "ensemble"
@@ -21,22 +21,12 @@ def add_parser(subparsers: SubParsers) -> None:
     parser = add_scenario_command(
         subparsers, NAME, HELP, "scenario file (TOML) with an [ensemble] table"
     )
-    parser.add_argument(
-        "--scheduler",
-        default=None,
-        help="dask scheduler address (tcp://host:port) or threads, processes, "
-        "synchronous; overrides [ensemble] scheduler",
-    )
+    add_scheduler_option(parser, "ensemble")
 
 
 def _load(path: str, scheduler: str | None) -> FlexureScenario:
     """The scenario, with --scheduler (when given) in place of ``[ensemble] scheduler``."""
-    check_scheduler("--scheduler", scheduler)
-    scenario = load_scenario(path)
-    table = scenario.table("ensemble")
-    if scheduler is not None and table is not None:
-        table["scheduler"] = scheduler
-    return scenario
+    return load_with_scheduler(path, scheduler, "ensemble")
 
 
 def execute(args: argparse.Namespace) -> int:
