@@ -26,10 +26,11 @@ Design (what is computed where):
   only more accurate); each member then costs one transfer function, one product
   and one inverse FFT (the inverse along x only of the rows kept).
 * **Statistics.** Each chunk returns its count, mean and sum of squared deviations
-  (two passes over the chunk's members) and its counts of exceedance; the caller
+  (Welford's update, member by member) and its counts of exceedance; the caller
   merges the chunks in order with the pairwise update of Chan, Golub & LeVeque
   (1983, *The American Statistician* 37, 242-247, from memory). The mean, standard
-  deviation and exceedance maps therefore never need members x grid in memory.
+  deviation and exceedance maps therefore need a few grids per chunk (at most 16
+  chunks), never members x grid.
   Quantiles need every member of a cell: the chunks also return their members in
   float32 (relative rounding 6e-8), and the quantiles are computed block of cells by
   block of cells (members x block cells at a time, sorted) with numpy's default (linear,
@@ -44,6 +45,7 @@ from __future__ import annotations
 import dataclasses
 import logging
 import math
+import os
 from collections.abc import Mapping, Sequence
 from typing import Any
 
@@ -118,7 +120,7 @@ _CHUNKS = 16
 """Members are cut into at most this many chunks (tasks), whatever the workers."""
 
 _CHUNK_BYTES = 64 * 2**20
-"""Largest float64 stack of one chunk's members (all quantities), bytes."""
+"""Bytes of the members gathered at a time for the quantiles."""
 
 _UNITS = {
     "deflection": "m",
@@ -474,6 +476,16 @@ class _Moments:
     exceed: np.ndarray
     """Members deeper than each threshold, (thresholds, ny, nx), int64."""
 
+    def add(self, values: np.ndarray, thresholds: np.ndarray) -> None:
+        """Add one member (Welford 1962, *Technometrics* 4, 419-420, from memory)."""
+        self.count += 1
+        delta = values - self.mean
+        self.mean += delta / self.count
+        delta *= values - self.mean
+        self.m2 += delta
+        for i, threshold in enumerate(thresholds):
+            self.exceed[i] += values[0] > threshold
+
     def merge(self, other: _Moments) -> _Moments:
         """Both sets together (Chan, Golub & LeVeque 1983)."""
         n = self.count + other.count
@@ -484,36 +496,36 @@ class _Moments:
 
 
 def _chunk(job: _Job, samples: dict[str, np.ndarray]) -> tuple[_Moments, np.ndarray | None]:
-    """One task: the moments of a chunk of members, and its members in float32 when the
-    quantiles need them."""
+    """One task: the moments of a chunk of members (Welford's update, member by member:
+    a few grids whatever the chunk's size), and its members in float32 when the quantiles
+    need them."""
     count = len(next(iter(samples.values())))
     cache: dict[tuple[float, ...], Any] = {}
     work: dict[str, np.ndarray] = {}
-    stack = None
+    moments: _Moments | None = None
+    members: np.ndarray | None = None
     for i in range(count):
         values = _member(job, {k: float(v[i]) for k, v in samples.items()}, cache, work)
-        if stack is None:
-            stack = np.empty((count, *values.shape))
-        stack[i] = values
-    assert stack is not None
-    mean = stack.mean(axis=0)
-    m2 = np.square(stack - mean).sum(axis=0)
-    deflection = stack[:, 0]
-    exceed = np.zeros((job.thresholds.size, *deflection.shape[1:]), dtype=np.int64)
-    for i, threshold in enumerate(job.thresholds):
-        exceed[i] = (deflection > threshold).sum(axis=0)
+        if moments is None:
+            shape = (job.thresholds.size, *values.shape[1:])
+            moments = _Moments(
+                0, np.zeros_like(values), np.zeros_like(values), np.zeros(shape, np.int64)
+            )
+            if job.keep_members:
+                members = np.empty((count, *values.shape), dtype=np.float32)
+        moments.add(values, job.thresholds)
+        if members is not None:
+            members[i] = values
+    assert moments is not None
     kept = None
-    if job.keep_members:  # (quantity, cell, member): a cell's members side by side
-        flat = stack.astype(np.float32).reshape(count, stack.shape[1], -1)
-        kept = np.ascontiguousarray(flat.transpose(1, 2, 0))
-    return _Moments(count, mean, m2, exceed), kept
+    if members is not None:  # (quantity, cell, member): a cell's members side by side
+        kept = np.ascontiguousarray(members.reshape(count, members.shape[1], -1).transpose(1, 2, 0))
+    return moments, kept
 
 
-def _chunk_size(members: int, quantities: int, cells: int) -> int:
-    """Members per task: from the number of members and the grid only (never the workers)."""
-    by_count = math.ceil(members / _CHUNKS)
-    by_memory = max(1, _CHUNK_BYTES // (8 * quantities * cells))
-    return max(1, min(by_count, by_memory))
+def _chunk_size(members: int) -> int:
+    """Members per task: from the number of members only (never the workers)."""
+    return max(1, math.ceil(members / _CHUNKS))
 
 
 def _check_thresholds(thresholds: Any) -> np.ndarray:
@@ -733,12 +745,16 @@ def ensemble(
         method,
     )
     cells = spec.ny * spec.nx  # Python ints: an absurd ensemble is refused, not overflowed
-    size = _chunk_size(members, len(quantities), cells)
+    size = _chunk_size(members)
     chunks = math.ceil(members / size)
+    # the chunks' results (moments, exceedance counts, float32 members for the quantiles)
+    # and, per running task, a few grids and its members twice (gathered, transposed)
     kept = 4 * members * len(quantities) * cells if job.keep_members else 0
     streamed = 8 * chunks * (2 * len(quantities) + job.thresholds.size) * cells
+    tasks = min(chunks, os.cpu_count() or 1)
+    running = tasks * (8 * 6 * len(quantities) * cells + (2 * kept) // chunks)
     check_memory(
-        kept + streamed + 8 * 3 * size * len(quantities) * cells + 1024 * members,
+        kept + streamed + running + 1024 * members,
         f"ensemble of {members} members of {len(quantities)} quantities on a "
         f"{spec.ny} x {spec.nx} grid",
         advice=_ADVICE,
