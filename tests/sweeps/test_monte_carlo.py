@@ -77,7 +77,8 @@ def threaded(quadrature) -> xr.Dataset:
 def test_mean_and_exceedance_against_quadrature(threaded, quadrature):
     # Latin hypercube sampling (McKay, Beckman & Conover 1979) against Gauss-Hermite
     # and probability-space quadrature: issue 19 targets, mean 1 % of the peak and
-    # probabilities 0.03 with 400 members (seen: 1.5e-4 and 0.002)
+    # probabilities 0.03 with 400 members (seen: 3.1e-4 and 0.0020; plain random draws
+    # with the same seed: 2.6e-3 and 0.0245)
     mean = threaded["mean"].sel(quantity="deflection").values
     error = np.abs(mean - quadrature["mean"]).max() / quadrature["peak"]
     assert error < 0.01
