@@ -580,20 +580,26 @@ def _spectral_setup(job: _Job, plates: list[Plate]) -> _Job:
 
 
 def _member_plates(job: _Job, samples: dict[str, np.ndarray], members: int) -> list[Plate]:
-    """Every member's plate, checked in the caller (the message names the member)."""
-    plates = []
+    """The distinct plates of the members, checked in the caller (the message names the
+    first member that gives no valid plate); only their number for a te grid."""
+    plates: dict[tuple[float, ...], Plate] = {}
     for i in range(members):
         params = {k: float(v[i]) for k, v in samples.items()}
+        key = tuple(params.values())
+        if key in plates:
+            continue
         try:
-            plates.append(_member_plate(job, params))
+            plates[key] = _member_plate(job, params)
             _member_infill(job, params)
+            if job.plate.is_variable:  # te grids are rebuilt in the tasks: keep none here
+                plates[key] = job.plate
         except InputError as exc:
             drawn = ", ".join(f"{k}={v:.6g}" for k, v in params.items())
             raise InputError(
                 f"spread: member {i} ({drawn}) is not a valid plate: {exc}; choose "
                 "distributions that stay in the physical range (e.g. scipy.stats.truncnorm)"
             ) from exc
-    return plates
+    return list(plates.values())
 
 
 def ensemble(
@@ -718,8 +724,11 @@ def ensemble(
     edges = check_choice("edges", edges, EDGES)
     method = check_choice("method", method, ("auto", "spectral", "finite-difference"))
     path = _path(plate, infill, method, edges)
-    if path == "spectral" and method == "spectral" and plate.is_variable:
-        raise InputError("method='spectral' needs a constant te; a te grid needs 'auto'")
+    if method == "spectral" and path != "spectral" and infill is None:
+        raise InputError(
+            "method='spectral' needs a constant te and edges 'infinite' or 'periodic'; "
+            f"got {'a te grid' if plate.is_variable else 'a constant te'} and edges={edges!r}"
+        )
     quantities = ["deflection"]
     if infill is not None:
         quantities.append("moat_fill")

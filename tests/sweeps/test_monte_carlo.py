@@ -282,6 +282,7 @@ def test_anomalies_of_a_single_member_are_model_gravity():
         ({"te": [1e4]}, {"quantiles": [1.5]}, "quantiles"),
         ({"te": [1e4]}, {"sampling": "sobol"}, "sampling"),
         ({"te": [1e4]}, {"scheduler": "nowhere"}, "scheduler"),
+        ({"te": [1e4]}, {"method": "spectral", "edges": "free"}, "method='spectral' needs"),
         ({"te": [1e4]}, {"members": 10**12}, "fewer members"),
     ],
 )
