@@ -72,9 +72,9 @@ def main(n: int = 512, members: int = 400, scheduler: str | None = None) -> None
         f"(range {min(ratios):.3f}-{max(ratios):.3f}); target <= 1.2"
     )
     mean = out["mean"].sel(quantity="deflection")
+    std = out["std"].sel(quantity="deflection").values.flat[int(np.argmax(mean.values))]
     print(
-        f"mean peak {float(mean.max()):.1f} m, std at the peak "
-        f"{float(out['std'].sel(quantity='deflection').values.flat[int(mean.argmax())]):.1f} m, "
+        f"mean peak {float(mean.max()):.1f} m, std at the peak {float(std):.1f} m, "
         f"one member's solve peak {float(w['deflection'].max()):.1f} m"
     )
 
