@@ -164,7 +164,7 @@ def distribution(name: Any, where: str = "distribution", **arguments: float) -> 
 
     Examples
     --------
-    >>> distribution("normal", mean=30e3, std=5e3).std()
+    >>> float(distribution("normal", mean=30e3, std=5e3).std())
     5000.0
     """
     import scipy.stats
