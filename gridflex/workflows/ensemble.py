@@ -159,6 +159,12 @@ def run_ensemble(
     load, like, plate, grid = _inputs(scenario)
     spread = ensemble_spread(scenario, te_factor=plate.is_variable)
     solver = scenario.table("solver")
+    for key in ("inplane_force_x", "inplane_force_y"):
+        if solver[key]:
+            raise InputError(
+                f"{scenario.where('solver', key)}: ensembles take no in-plane force yet; "
+                f"got {solver[key]!r} N/m"
+            )
     infill = gravity = None
     if scenario.tables.get("infill") is not None:
         infill = infill_from_scenario(scenario)

@@ -110,6 +110,7 @@ quantiles = [0.5]
         ("seed = 1", "draws nothing"),
         ('te = ["10 km"]\nwater_density = [1000]', "needs infill="),
         ("density = [1]", "unknown key 'density'"),
+        ('te = ["10 km"]\n[solver]\ninplane_force_x = -1e12', "no in-plane force"),
     ],
 )
 def test_bad_tables_are_refused(tmp_path, capsys, table, match):
