@@ -37,6 +37,7 @@ from gridflex.loads import (
     regional_surface,
 )
 from gridflex.plate import Plate, rigidity_from_te, te_from_rigidity
+from gridflex.sweeps.monte_carlo import ensemble
 from gridflex.sweeps.parameter_sweep import sweep
 
 logging.getLogger(__name__).addHandler(logging.NullHandler())
@@ -82,6 +83,7 @@ __all__ = [
     # stretching factor of a rift
     "fit_stretching",
     "sweep",
+    "ensemble",
     # errors and warnings
     "GridflexError",
     "InputError",

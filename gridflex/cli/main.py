@@ -10,11 +10,21 @@ from collections.abc import Sequence
 from types import ModuleType
 
 from gridflex._version import __version__
-from gridflex.cli import basin, demo, fit, history, profile, run, sweep, temap
+from gridflex.cli import basin, demo, ensemble, fit, history, profile, run, sweep, temap
 from gridflex.cli.common import configure_output, one_line
 from gridflex.errors import ConvergenceError, GridflexError
 
-COMMANDS: tuple[ModuleType, ...] = (run, history, fit, sweep, demo, profile, basin, temap)
+COMMANDS: tuple[ModuleType, ...] = (
+    run,
+    history,
+    fit,
+    sweep,
+    ensemble,
+    demo,
+    profile,
+    basin,
+    temap,
+)
 """Command modules; each has NAME, add_parser(subparsers) and execute(args)."""
 
 EXIT_INPUT = 2

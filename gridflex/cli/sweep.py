@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 from functools import partial
 from pathlib import Path
+from typing import Any, cast
 
 from gridflex.cli.common import SubParsers, add_scenario_command, execute_scenario_command, wrote
 from gridflex.scenario.tables import FlexureScenario, load_scenario
@@ -15,26 +16,36 @@ NAME = "sweep"
 HELP = "solve a scenario for every combination of the [sweep] values into one NetCDF"
 
 
-def add_parser(subparsers: SubParsers) -> None:
-    parser = add_scenario_command(
-        subparsers, NAME, HELP, "scenario file (TOML) with a [sweep] table"
-    )
+def add_scheduler_option(parser: argparse.ArgumentParser, table: str) -> None:
+    """``--scheduler``, which overrides ``[table] scheduler``."""
     parser.add_argument(
         "--scheduler",
         default=None,
         help="dask scheduler address (tcp://host:port) or threads, processes, "
-        "synchronous; overrides [sweep] scheduler",
+        f"synchronous; overrides [{table}] scheduler",
     )
+
+
+def load_with_scheduler(path: str, scheduler: str | None, table: str) -> FlexureScenario:
+    """The scenario, with --scheduler (when given) in place of ``[table] scheduler``."""
+    check_scheduler("--scheduler", scheduler)
+    scenario = load_scenario(path)
+    values = cast(dict[str, Any] | None, scenario.tables.get(table))
+    if scheduler is not None and values is not None:
+        values["scheduler"] = scheduler
+    return scenario
+
+
+def add_parser(subparsers: SubParsers) -> None:
+    parser = add_scenario_command(
+        subparsers, NAME, HELP, "scenario file (TOML) with a [sweep] table"
+    )
+    add_scheduler_option(parser, "sweep")
 
 
 def _load(path: str, scheduler: str | None) -> FlexureScenario:
     """The scenario, with --scheduler (when given) in place of ``[sweep] scheduler``."""
-    check_scheduler("--scheduler", scheduler)
-    scenario = load_scenario(path)
-    sweep = scenario.table("sweep")
-    if scheduler is not None and sweep is not None:
-        sweep["scheduler"] = scheduler
-    return scenario
+    return load_with_scheduler(path, scheduler, "sweep")
 
 
 def _report(path: Path) -> list[str]:

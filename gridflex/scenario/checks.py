@@ -149,6 +149,12 @@ def _check_infill_and_gravity(scenario: FlexureScenario) -> None:
         for key in ("free_air_map", "bouguer_map"):
             if outputs[key] is not None and gravity is None:
                 raise InputError(f"{scenario.where('output', key)}: needs [gravity]")
+        for key, path in (
+            ("std_map", outputs["std_map"]),
+            ("exceedance_map", outputs["exceedance_map"]),
+        ):
+            if path is not None and scenario.tables["ensemble"] is None:
+                raise InputError(f"{scenario.where('output', key)}: needs [ensemble]")
 
 
 def _check_profile(scenario: FlexureScenario) -> None:

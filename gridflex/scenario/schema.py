@@ -30,6 +30,7 @@ from gridflex.validation import (
 if TYPE_CHECKING:
     from gridflex.scenario.tables import (
         BreakTable,
+        EnsembleTable,
         FitTable,
         FlexureTables,
         GravityTable,
@@ -66,7 +67,8 @@ class Key:
     kind : str
         ``"quantity"`` (number or string with unit of *dimension*), ``"number"``,
         ``"integer"``, ``"string"``, ``"choice"``, ``"path"``, ``"bool"``,
-        ``"flag_or_names"`` (true, false or a list of names), ``"list"``.
+        ``"flag_or_names"`` (true, false or a list of names), ``"list"``,
+        ``"distribution"`` (a list of samples or an inline table, read by the workflow).
     help : str
         One line for documentation.
     default : object
@@ -145,6 +147,8 @@ class Scenario(Generic[TablesT]):
     def table(self: Scenario[FlexureTables], name: Literal["fit"]) -> FitTable | None: ...
     @overload
     def table(self: Scenario[FlexureTables], name: Literal["sweep"]) -> SweepTable | None: ...
+    @overload
+    def table(self: Scenario[FlexureTables], name: Literal["ensemble"]) -> EnsembleTable | None: ...
     @overload
     def table(self, name: str) -> Any: ...
     def table(self, name: str) -> Any:
@@ -256,6 +260,15 @@ def _check_list(value: Any, key: Key, where: str, base: Path) -> Any:
     return value
 
 
+def _check_distribution(value: Any, key: Key, where: str, base: Path) -> Any:
+    if not isinstance(value, (list, dict)) or not value:
+        raise InputError(
+            f"{where} must be a list of samples or a table such as "
+            f'{{distribution = "normal", mean = ..., std = ...}}, got {value!r}'
+        )
+    return value
+
+
 _CHECKERS: dict[str, _Checker] = {
     "number": _check_number,
     "integer": _check_integer,
@@ -266,6 +279,7 @@ _CHECKERS: dict[str, _Checker] = {
     "bool": _check_bool,
     "flag_or_names": _check_flag_or_names,
     "list": _check_list,
+    "distribution": _check_distribution,
 }
 
 

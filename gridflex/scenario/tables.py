@@ -22,6 +22,7 @@ A scenario has these tables (``[[loads]]`` is an array of tables)::
     [output]       where the results go
     [fit]          observation to fit te to (``gridflex fit``)
     [sweep]        lists of values to sweep over (``gridflex sweep``)
+    [ensemble]     distributions of parameters for an ensemble (``gridflex ensemble``)
 """
 
 from __future__ import annotations
@@ -42,6 +43,7 @@ from gridflex.io.rasters import LAYER_MISSING_POLICIES
 from gridflex.loads import LOAD_KINDS
 from gridflex.scenario.checks import check_scenario
 from gridflex.scenario.schema import REQUIRED, Key, Scenario, ScenarioT, parse_tables, read_scenario
+from gridflex.sweeps.monte_carlo import SAMPLINGS
 from gridflex.sweeps.parameter_sweep import LOCAL_SCHEDULERS
 from gridflex.synthetic import SHAPES
 
@@ -63,6 +65,7 @@ __all__ = [
     "PlateTable",
     "SolverTable",
     "SweepTable",
+    "EnsembleTable",
     "WorkingGridTable",
     "load_scenario",
     "parse_scenario",
@@ -339,6 +342,12 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "profile_end": Key("list", "[x, y] of a profile's end", None),
         "profile_csv": Key("path", "CSV of the values along the profile", None),
         "profile_plot": Key("path", "PNG plot of the profile", None),
+        "std_map": Key(
+            "path", "PNG of the deflection's standard deviation (needs [ensemble])", None
+        ),
+        "exceedance_map": Key(
+            "path", "PNG of the first threshold's exceedance probability (needs [ensemble])", None
+        ),
     },
     "fit": {
         "observed_file": Key("path", "NetCDF grid of the observation", REQUIRED),
@@ -422,6 +431,30 @@ SCHEMA: dict[str, dict[str, Key]] = {
             "threads",
         ),
     },
+    "ensemble": {
+        "members": Key("integer", "number of members", 400, minimum=2),
+        "seed": Key("integer", "seed of the random draws (same seed, same numbers)", 0, minimum=0),
+        "sampling": Key(
+            "choice", "stratified or plain draws", "latin_hypercube", choices=SAMPLINGS
+        ),
+        "te": Key(
+            "distribution", "elastic thickness (a factor, no unit, on a te grid)", None, "length"
+        ),
+        "youngs_modulus": Key("distribution", "Young's modulus", None, "pressure"),
+        "mantle_density": Key("distribution", "mantle density", None, "density"),
+        "infill_density": Key("distribution", "infill density (plain solve)", None, "density"),
+        "crust_density": Key("distribution", "crust density (gravity)", None, "density"),
+        "water_density": Key("distribution", "sea-water density ([infill])", None, "density"),
+        "sediment_density": Key("distribution", "sediment density ([infill])", None, "density"),
+        "load_scale": Key("distribution", "factor on the load", None),
+        "thresholds": Key("list", "depths for the exceedance maps (deflection)", None, "length"),
+        "quantiles": Key("list", "probabilities of the quantile maps", None),
+        "scheduler": Key(
+            "string",
+            "where to run: " + ", ".join(LOCAL_SCHEDULERS) + " or a dask scheduler address",
+            "threads",
+        ),
+    },
 }
 """Every table and key a scenario may contain."""
 
@@ -431,7 +464,7 @@ ARRAY_TABLES = frozenset({"loads", "breaks"})
 REQUIRED_TABLES = ("plate", "loads", "output")
 """Tables every scenario must give."""
 
-OPTIONAL_TABLES = frozenset({"infill", "gravity", "fit", "sweep"})
+OPTIONAL_TABLES = frozenset({"infill", "gravity", "fit", "sweep", "ensemble"})
 """Tables whose presence switches a feature on; absent, they are ``None``."""
 
 
@@ -559,6 +592,8 @@ class OutputTable(TypedDict):
     profile_end: list[Any] | None
     profile_csv: Path | None
     profile_plot: Path | None
+    std_map: Path | None
+    exceedance_map: Path | None
 
 
 class FitTable(TypedDict):
@@ -600,6 +635,25 @@ class SweepTable(TypedDict):
     scheduler: str
 
 
+class EnsembleTable(TypedDict):
+    """One ``[ensemble]`` table, in SI (see :data:`SCHEMA`; distributions as written)."""
+
+    members: int
+    seed: int
+    sampling: str
+    te: list[Any] | dict[str, Any] | None
+    youngs_modulus: list[Any] | dict[str, Any] | None
+    mantle_density: list[Any] | dict[str, Any] | None
+    infill_density: list[Any] | dict[str, Any] | None
+    crust_density: list[Any] | dict[str, Any] | None
+    water_density: list[Any] | dict[str, Any] | None
+    sediment_density: list[Any] | dict[str, Any] | None
+    load_scale: list[Any] | dict[str, Any] | None
+    thresholds: list[Any] | None
+    quantiles: list[Any] | None
+    scheduler: str
+
+
 class FlexureTables(TypedDict):
     """All tables of a ``gridflex run`` scenario (``None``: the table is absent)."""
 
@@ -615,6 +669,7 @@ class FlexureTables(TypedDict):
     output: OutputTable
     fit: FitTable | None
     sweep: SweepTable | None
+    ensemble: EnsembleTable | None
 
 
 FlexureScenario = Scenario[FlexureTables]

@@ -35,6 +35,7 @@ __all__ = [
     "MEMBER_OVERHEAD",
     "PLATE_PARAMETERS",
     "check_scheduler",
+    "run_tasks",
     "sweep",
 ]
 
@@ -191,10 +192,19 @@ def _client_for(scheduler: Any) -> Any:
     )
 
 
-def _run(tasks: list[Any], scheduler: Any, progress: Progress | None) -> list[Any]:
+def run_tasks(tasks: list[Any], scheduler: Any, progress: Progress | None) -> list[Any]:
+    """Compute dask *tasks* on *scheduler* (see :func:`sweep`), reporting each one done
+    through *progress*; the results in the order of *tasks*. Tasks with the same key
+    (pure calls with equal arguments) are computed and counted once."""
     import dask
     from dask.callbacks import Callback
 
+    unique = list({task.key: task for task in tasks}.values())
+    if len(unique) < len(tasks):
+        found = dict(
+            zip((t.key for t in unique), run_tasks(unique, scheduler, progress), strict=True)
+        )
+        return [found[task.key] for task in tasks]
     total = len(tasks)
     client = _client_for(scheduler)
     if client is not None:
@@ -366,7 +376,7 @@ def sweep(
     base = {"base_force_x": forces[0], "base_force_y": forces[1]}
     tasks = [one(shared, plate, {**base, **combo}, edges, pad_factor) for combo in combos]
     log.info("sweep: %d solves of %s over %s", len(tasks), spec.shape, names)
-    results = _run(tasks, scheduler, progress)
+    results = run_tasks(tasks, scheduler, progress)
 
     deflection = np.stack([r[0] for r in results]).reshape(shape + spec.shape)
     balance = np.array([r[1] for r in results]).reshape(shape)

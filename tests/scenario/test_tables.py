@@ -24,6 +24,7 @@ from gridflex.loads import LOAD_KINDS
 from gridflex.scenario.schema import Key, Scenario
 from gridflex.scenario.tables import SCHEMA, FlexureTables, load_scenario
 from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
+from gridflex.sweeps.monte_carlo import SAMPLINGS
 from gridflex.synthetic import SHAPES
 from gridflex.workflows.basin_tables import BASIN_SCHEMA
 from gridflex.workflows.history import HISTORY_SCHEMA, SYNTHETIC_ICE
@@ -40,6 +41,7 @@ LIBRARY_CHOICES: dict[tuple[str, str, str], tuple[str, ...]] = {
     ("run", "output", "grid"): RESULT_GRIDS,
     ("run", "output", "extent"): RESULT_EXTENTS,
     ("run", "output", "dtype"): OUTPUT_DTYPES,
+    ("run", "ensemble", "sampling"): SAMPLINGS,
     ("basin", "solver", "edges"): EDGES,
     ("basin", "basin", "isopachs"): ISOPACHS,
     ("basin", "stages", "lithology"): tuple(LITHOLOGIES),
@@ -92,6 +94,7 @@ _KIND_TYPES: dict[str, Any] = {
     "bool": bool,
     "flag_or_names": bool | list[str],
     "list": list[Any],
+    "distribution": list[Any] | dict[str, Any],
 }
 
 
@@ -122,7 +125,7 @@ def test_typed_table_keys_and_types_follow_the_schema(table):
 
 def test_absent_tables_are_typed_as_optional():
     hints = get_type_hints(FlexureTables)
-    for table in ("infill", "gravity", "fit", "sweep", "margin", "grid"):
+    for table in ("infill", "gravity", "fit", "sweep", "ensemble", "margin", "grid"):
         assert type(None) in get_args(hints[table]), table
     for table in ("plate", "solver", "working_grid", "output"):
         assert type(None) not in get_args(hints[table]), table
