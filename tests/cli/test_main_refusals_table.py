@@ -88,6 +88,16 @@ FIT: dict[str, Any] = {
     "output": {"file": "fit.nc"},
 }
 SWEEP: dict[str, Any] = {**RUN, "sweep": {"te": ["5 km", "10 km"]}}
+ENSEMBLE: dict[str, Any] = {
+    **RUN,
+    "output": {"file": "ens.nc"},
+    "ensemble": {
+        "members": 8,
+        "seed": 1,
+        "te": {"distribution": "normal", "mean": "10 km", "std": "2 km"},
+        "thresholds": ["100 m"],
+    },
+}
 TEMAP: dict[str, Any] = {
     "plate": {"crust_thickness": "35 km"},
     "data": {
@@ -108,6 +118,7 @@ BASES = {
     "fit": FIT,
     "sweep": SWEEP,
     "temap": TEMAP,
+    "ensemble": ENSEMBLE,
 }
 
 NOT_NUMBERS = ["banana", [1, 2], True, {"a": 1}, float("nan"), float("inf")]
@@ -419,6 +430,17 @@ ROWS: list[tuple[str, str, dict[tuple, Any], list[str], str]] = [
     ("demo", "", {}, ["--out", "d\0"], "--out"),
     ("demo", "", {}, ["--out", "text.nc/sub"], "text.nc"),
     # ---- profile
+    # ---- ensemble
+    *_each("ensemble", "ensemble", ("ensemble", "members"), [0, 2.5, "x", -3], "members"),
+    *_each("ensemble", "ensemble", ("ensemble", "seed"), ["x", 1.5], "seed"),
+    *_each("ensemble", "ensemble", ("ensemble", "te"), ["x", [], {"distribution": "banana"}], "te"),
+    ("ensemble", "ensemble", {("ensemble", "te", "std"): "-2 km"}, [], "te"),
+    ("ensemble", "ensemble", {("ensemble", "te", "mean"): "10 kg"}, [], "te"),
+    ("ensemble", "ensemble", {("ensemble", "banana"): [1, 2]}, [], "banana"),
+    *_each("ensemble", "ensemble", ("ensemble", "thresholds"), ["x", ["1 kg"]], "thresholds"),
+    ("ensemble", "ensemble", {("output", "file"): "load.nc"}, [], "load.nc"),
+    ("ensemble", "ensemble", {("ensemble", "te"): ["10 km", "-1 km"]}, [], "te"),
+    ("ensemble", "", {}, ["nope.toml"], "nope.toml"),
     # ---- temap
     *_each("temap", "temap", ("temap", "window"), [*NOT_NUMBERS, "-10 km", "1 kg"], "window"),
     *_each("temap", "temap", ("temap", "step"), ["x", "0 km", "1 s"], "step"),
