@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import logging
 import warnings
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -34,6 +35,14 @@ import xarray as xr
 from gridflex.constants import SECONDS_PER_YEAR
 from gridflex.engine import SPECTRAL_EDGES, check_edge_load, deflection_attrs
 from gridflex.errors import GridflexWarning, InputError
+from gridflex.glacial.state import (
+    engine_state,
+    plate_from_state,
+    plate_state,
+    read_state,
+    restore_engine,
+    write_state,
+)
 from gridflex.grid import GridSpec, check_grid, check_same_grid
 from gridflex.io.provenance import provenance_attrs
 from gridflex.loads import load_attrs
@@ -53,6 +62,7 @@ from gridflex.validation import check_choice, check_number
 __all__ = [
     "INITIAL_STATES",
     "ResponseStepper",
+    "SAVED_SETTINGS",
     "check_history_grid",
     "check_times",
     "uplift_rate_attrs",
@@ -146,6 +156,19 @@ def _time_engine(
     return VariableRelaxation.build(
         spec, values, stiffness, plate.poisson_ratio, model, viscosity, relaxation_time, **settings
     )
+
+
+SAVED_SETTINGS = (
+    "model",
+    "mantle_viscosity",
+    "relaxation_time",
+    "initial",
+    "interpolation",
+    "edges",
+    "pad_factor",
+    "width_factor",
+)
+"""The :class:`ResponseStepper` arguments a state file keeps (all but grid, plate, load)."""
 
 
 class ResponseStepper:
@@ -254,6 +277,7 @@ class ResponseStepper:
         )
         self.pad_factor = float(pad_factor)
         self.width_factor = float(width_factor)
+        self._settings: dict[str, Any] = {name: getattr(self, name) for name in SAVED_SETTINGS}
         self.time = 0.0
         """Time elapsed since the start (years)."""
         if load is not None:
@@ -346,6 +370,73 @@ class ResponseStepper:
             self.set_load(load)
         rate = self._engine.rate() * (-SECONDS_PER_YEAR)
         return self._wrap(rate, "uplift_rate", uplift_rate_attrs())
+
+    # -- saving and restoring ---------------------------------------------------------
+    def state(self) -> tuple[dict[str, Any], dict[str, Any]]:
+        """Attributes and variables of the state file (:mod:`gridflex.glacial.state`)."""
+        attrs, variables = plate_state(self.plate)
+        engine_attrs, engine_variables = engine_state(self._engine)
+        return (
+            {**self._settings, "time": self.time, **attrs, **engine_attrs},
+            {**variables, **engine_variables},
+        )
+
+    def save(self, path: str | Path, overwrite: bool = False) -> Path:
+        """Write the stepper (settings, plate, time and state) to a NetCDF file.
+
+        The format is described in :mod:`gridflex.glacial.state`; the file is written
+        atomically. :meth:`restore` continues the run bit for bit.
+
+        Parameters
+        ----------
+        path : str or pathlib.Path
+            The state file (``.nc``).
+        overwrite : bool, default False
+            Replace an existing file.
+
+        Returns
+        -------
+        pathlib.Path
+            The file written.
+        """
+        attrs, variables = self.state()
+        return write_state(path, "ResponseStepper", attrs, variables, self._grid, overwrite)
+
+    @classmethod
+    def from_state(cls, ds: xr.Dataset, path: Path) -> ResponseStepper:
+        """The stepper held by an opened state file *ds* (read from *path*)."""
+        grid = xr.DataArray(
+            np.zeros((ds.sizes["y"], ds.sizes["x"])),
+            dims=("y", "x"),
+            coords={"y": ds["y"].values, "x": ds["x"].values},
+        )
+        try:
+            settings = {name: ds.attrs[name] for name in SAVED_SETTINGS}
+            plate = plate_from_state(ds, grid)
+        except KeyError as exc:
+            raise InputError(f"{path}: the stepper state lacks the setting {exc}") from exc
+        initial = settings.pop("initial")
+        with warnings.catch_warnings():
+            # the plate's infill density was warned about when the run began
+            warnings.simplefilter("ignore", GridflexWarning)
+            stepper = cls(grid, plate, initial="rest", **settings)
+        stepper.initial = check_choice("initial", initial, INITIAL_STATES)
+        stepper._settings["initial"] = stepper.initial
+        restore_engine(stepper._engine, ds, path)
+        stepper.time = float(ds.attrs["time"])
+        return stepper
+
+    @classmethod
+    def restore(cls, path: str | Path) -> ResponseStepper:
+        """A stepper saved by :meth:`save`, ready to continue where it stopped.
+
+        Raises
+        ------
+        InputError
+            The file is missing or not a ``ResponseStepper`` state; the message names it.
+        """
+        path = Path(path)
+        return cls.from_state(read_state(path, "ResponseStepper"), path)
 
     def describe(self) -> dict[str, Any]:
         """Model settings as a flat dict (for output attributes)."""
