@@ -20,6 +20,7 @@ from gridflex.errors import (
 from gridflex.estimation.admittance import cross_spectra, fit_te_spectral
 from gridflex.estimation.misfit import TeFit, fit_te
 from gridflex.estimation.misfit_te_maps import MarginFit, ScaleFit, fit_te_margin, fit_te_scale
+from gridflex.glacial.coupling import IceStepper
 from gridflex.glacial.ice import bed_stress, grounded_mask, ice_response
 from gridflex.glacial.response import ResponseStepper, viscous_response
 from gridflex.gravity.anomalies import model_free_air_anomaly, model_gravity
@@ -55,6 +56,7 @@ __all__ = [
     # through time
     "viscous_response",
     "ResponseStepper",
+    "IceStepper",
     "ice_response",
     "bed_stress",
     "grounded_mask",
