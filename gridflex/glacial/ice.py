@@ -22,7 +22,7 @@ import xarray as xr
 
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.engine import deflection_attrs
-from gridflex.errors import InputError
+from gridflex.errors import ConvergenceError, InputError
 from gridflex.glacial.coupling import BED_ATTRS, IceStepper, check_ice_plate
 from gridflex.glacial.floatation import ICE_DENSITY, bed_stress, grounded_mask
 from gridflex.glacial.response import (
@@ -39,10 +39,12 @@ from gridflex.plate import Plate
 from gridflex.progress import Progress
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.solvers.viscous import DEFAULT_WIDTH_FACTOR
-from gridflex.validation import check_choice, check_number
+from gridflex.validation import check_choice, check_flag, check_number
 
 __all__ = [
     "MAX_STEPS",
+    "PRESENT_DAY_MAX_ITERATIONS",
+    "PRESENT_DAY_TOLERANCE",
     "bed_stress",
     "check_max_step",
     "check_output_times",
@@ -54,6 +56,12 @@ __all__ = [
 log = logging.getLogger(__name__)
 
 ArrayLike = Any
+
+PRESENT_DAY_TOLERANCE = 1e-9
+"""Largest miss (m) of the final bed against the given present-day bed."""
+
+PRESENT_DAY_MAX_ITERATIONS = 40
+"""Most runs of the history when the reference bed is solved for."""
 
 MAX_STEPS = 100_000
 """Most time steps a history may be split into by ``max_step``: each costs one FFT pair
@@ -206,6 +214,7 @@ def ice_response(
     pad_factor: float = DEFAULT_PAD_FACTOR,
     width_factor: float = DEFAULT_WIDTH_FACTOR,
     output_times: ArrayLike | None = None,
+    present_day: bool = False,
     progress: Progress | None = None,
 ) -> xr.Dataset:
     """Bed deflection through time under an ice-thickness history with floatation.
@@ -251,6 +260,13 @@ def ice_response(
         otherwise); by default every time of the history. A time between two times of
         the history ends a step there (the ice in between as *interpolation* says), and
         only the recorded times cost an uplift-rate transform and memory.
+    present_day : bool, default False
+        *bed* is the bed at the last time (the observed present-day bed), not the
+        reference bed: the reference bed is solved for by running the history again with
+        the reference bed corrected by what the final bed misses, until it misses by at
+        most :data:`PRESENT_DAY_TOLERANCE` (one correction suffices where no ocean or
+        floating ice depends on the bed; each further run shrinks the miss by about
+        rho_w / rho_m). The result adds ``reference_bed``.
     progress : callable, optional
         Called as ``progress(done, total)`` after each time step.
 
@@ -277,40 +293,76 @@ def ice_response(
     ref_level = check_number("reference_sea_level", reference_sea_level, unit="m")
     reference = _reference_field(reference_ice_thickness, first, "reference_ice_thickness")
     wanted = times if output_times is None else check_output_times(output_times, times)
+    present_day = check_flag("present_day", present_day)
     (ny, nx) = first.shape
     check_memory(
         (4 * 8.0 + 1.0) * wanted.size * ny * nx,
         f"deflection, uplift rate, bed and load for {wanted.size} times of {ny} x {nx}",
     )
-    stepper = IceStepper(
-        bed,
-        plate,
-        model,
-        mantle_viscosity,
-        relaxation_time,
-        ice_thickness=thickness[0],
-        sea_level=float(levels[0]),
-        reference_ice_thickness=reference,
-        reference_sea_level=ref_level,
-        ice_density=ice_density,
-        water_density=water_density,
-        initial=initial,
-        interpolation=interpolation,
-        edges=edges,
-        pad_factor=pad_factor,
-        width_factor=width_factor,
-    )
+
+    def build(reference_bed: xr.DataArray) -> IceStepper:
+        return IceStepper(
+            reference_bed,
+            plate,
+            model,
+            mantle_viscosity,
+            relaxation_time,
+            ice_thickness=thickness[0],
+            sea_level=float(levels[0]),
+            reference_ice_thickness=reference,
+            reference_sea_level=ref_level,
+            ice_density=ice_density,
+            water_density=water_density,
+            initial=initial,
+            interpolation=interpolation,
+            edges=edges,
+            pad_factor=pad_factor,
+            width_factor=width_factor,
+        )
+
+    stepper = build(bed)
     if edges == "infinite":
         warn_edge_load(_largest_change(stepper, thickness, levels))
     out = _run_history(stepper, times, thickness, levels, wanted, step_limit, progress)
     attrs = stepper.describe()
+    if present_day:
+        # the given bed is the bed at the last time: correct the reference bed by what
+        # the run's final bed misses (a fixed point; without ocean one correction is exact)
+        given = np.asarray(bed.values, dtype=np.float64)
+        for iteration in range(1, PRESENT_DAY_MAX_ITERATIONS + 1):
+            miss = given - stepper.bed_elevation.values
+            largest = float(np.abs(miss).max())
+            log.info("present-day bed: run %d misses by %.3g m", iteration, largest)
+            if largest <= PRESENT_DAY_TOLERANCE:
+                break
+            stepper = build(bed.copy(data=stepper.rule.bed + miss))
+            out = _run_history(stepper, times, thickness, levels, wanted, step_limit, progress)
+        else:
+            raise ConvergenceError(
+                f"present_day: the reference bed did not settle in {PRESENT_DAY_MAX_ITERATIONS} "
+                f"runs (the final bed still misses the given bed by {largest:.3g} m)"
+            )
+        attrs.update(
+            {
+                "present_day": "the given bed is the bed at the last time",
+                "present_day_runs": iteration,
+                "present_day_misfit": largest,
+            }
+        )
     attrs.update(
         {
             "initial_state": initial,
             "max_step": step_limit if step_limit is not None else "none",
         }
     )
-    return _ice_dataset(first, wanted, stepper, out, plate, attrs)
+    out_ds = _ice_dataset(first, wanted, stepper, out, plate, attrs)
+    if present_day:
+        out_ds["reference_bed"] = (
+            ("y", "x"),
+            stepper.rule.bed.copy(),
+            _ICE_VARIABLES["reference_bed"],
+        )
+    return out_ds
 
 
 def check_output_times(
@@ -438,6 +490,11 @@ _ICE_VARIABLES = {
         "flag_meanings": "not_grounded grounded",
     },
     "sea_level": {"units": "m", "long_name": "sea-level elevation"},
+    "reference_bed": {
+        "units": "m",
+        "long_name": "bed elevation of the reference state (zero deflection), solved so "
+        "that the bed at the last time is the given bed",
+    },
     "reference_load": {
         "units": "Pa",
         "long_name": "vertical stress of ice and ocean on the bed in the "
