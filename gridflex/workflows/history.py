@@ -31,12 +31,13 @@ from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.engine import SPECTRAL_EDGES
 from gridflex.errors import InputError
 from gridflex.gis.geometry import parse_crs
-from gridflex.glacial.ice import check_max_step, ice_response, sea_level_at
+from gridflex.glacial.ice import check_max_step, check_output_times, ice_response, sea_level_at
 from gridflex.glacial.response import INITIAL_STATES
 from gridflex.grid import check_same_grid
-from gridflex.io.netcdf import write_netcdf
+from gridflex.io.netcdf import as_output_dtype, write_netcdf
 from gridflex.io.plots import plot_point_series, plot_uplift_rate_map
 from gridflex.io.rasters import LAYER_MISSING_POLICIES
+from gridflex.io.tables import write_csv
 from gridflex.io.time_grids import (
     DEFAULT_TIME_REFERENCE,
     cf_time_axis,
@@ -51,6 +52,7 @@ from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
 from gridflex.scenario.tables import SCHEMA, load_scenario
 from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
 from gridflex.synthetic import disc_height, empty_grid
+from gridflex.units import parse_quantity
 from gridflex.validation import check_grid_range
 from gridflex.workflows.grid_input import apply_missing_policy, in_si_units, read_grid_input
 from gridflex.workflows.outcome import RunOutcome
@@ -64,6 +66,8 @@ HistoryScenario = Scenario[dict[str, Any]]
 __all__ = [
     "HISTORY_SCHEMA",
     "HistoryScenario",
+    "SERIES_VARIABLES",
+    "point_series_table",
     "format_history_summary",
     "load_history_scenario",
     "parse_history_scenario",
@@ -145,6 +149,11 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
         "file": Key("path", "NetCDF grid with the bed elevation of the reference state", None),
         "variable": Key("string", "bed-elevation variable in the file (m, up)", None),
         "elevation": Key("quantity", "one bed elevation everywhere (m, up)", None, "length"),
+        "present_day": Key(
+            "bool",
+            "the bed given is the bed at the last time; the reference bed is solved for",
+            False,
+        ),
     },
     "sea": {
         "level": Key("quantity", "sea level, constant in time", 0.0, "length"),
@@ -167,6 +176,11 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
             "quantity", "time of the uplift-rate map (default: the last)", None, "time"
         ),
         "series_plot": Key("path", "PNG time series at the [[points]]", None),
+        "series_csv": Key("path", "CSV table of the time series at the [[points]]", None),
+        "times": Key(
+            "list", "times to write, each a number of years or with units (default: all)", None
+        ),
+        "dtype": SCHEMA["output"]["dtype"],
         "time_reference": Key("string", "date that is year 0 of the times", DEFAULT_TIME_REFERENCE),
     },
 }
@@ -242,6 +256,15 @@ def _check_history(scenario: HistoryScenario) -> None:
     check_time_reference(
         scenario.where("output", "time_reference"), scenario.table("output")["time_reference"]
     )
+    output = scenario.table("output")
+    if output["times"] is not None:
+        where = scenario.where("output", "times")
+        if not output["times"]:
+            raise InputError(f"{where}: give at least one time, or leave the key out")
+        output["times"] = [
+            parse_quantity(value, "time", f"{where}[{i}]")
+            for i, value in enumerate(output["times"])
+        ]
     names = [p["name"] for p in array_table(scenario, "points")]
     if len(set(names)) != len(names):
         raise InputError(f"{scenario.path}: [[points]] names must differ, got {names!r}")
@@ -383,7 +406,7 @@ def run_history_scenario(
     """
     outputs = scenario.table("output")
     plan = OutputPlan(scenario, overwrite)
-    plan.add({key: outputs[key] for key in ("file", "rate_map", "series_plot")})
+    plan.add({key: outputs[key] for key in ("file", "rate_map", "series_plot", "series_csv")})
     inputs = plan.inputs
     reference = outputs["time_reference"]
     thickness = _ice_history(scenario, reference)
@@ -402,18 +425,22 @@ def run_history_scenario(
         where = f"{scenario.where('sea', 'file')}: {sea['file'].name}"
         sea_in_m = in_si_units(sea_series, "length", where)
         level = sea_level_at(sea_in_m, times, f"{where}: variable {sea['variable']!r}")
+    wanted = times
+    if outputs["times"] is not None:
+        wanted = check_output_times(outputs["times"], times, scenario.where("output", "times"))
     rate_time = float(times[-1]) if outputs["rate_time"] is None else outputs["rate_time"]
     if not times[0] <= rate_time <= times[-1]:
         raise InputError(
             f"{scenario.where('output', 'rate_time')}: {rate_time:g} years is "
             f"outside the history ({times[0]:g} to {times[-1]:g})"
         )
-    at = int(np.argmin(np.abs(times - rate_time)))
+    at = int(np.argmin(np.abs(wanted - rate_time)))  # the nearest time written
     cells = _point_cells(scenario, bed)
-    if outputs["series_plot"] and not cells:
-        raise InputError(
-            f"{scenario.where('output', 'series_plot')}: needs at least one [[points]] table"
-        )
+    for key in ("series_plot", "series_csv"):
+        if outputs[key] and not cells:
+            raise InputError(
+                f"{scenario.where('output', key)}: needs at least one [[points]] table"
+            )
     mantle, solver = scenario.table("mantle"), scenario.table("solver")
     log.info("ice history of %d times on a %s grid", thickness.sizes["time"], bed.shape)
     result = ice_response(
@@ -433,17 +460,23 @@ def run_history_scenario(
         pad_factor=solver["pad_factor"],
         width_factor=solver["pad_width_factor"],
         max_step=max_step,
+        output_times=None if outputs["times"] is None else wanted,
+        present_day=scenario.table("bed")["present_day"],
         progress=progress,
     )
     result["ice_thickness"] = (
         ("time", "y", "x"),
-        thickness.values,
+        thickness.values
+        if wanted is times
+        else thickness.interp(
+            time=wanted, method="linear" if solver["interpolation"] == "linear" else "zero"
+        ).values,
         {"units": "m", "long_name": "ice thickness"},
     )
     out = stamp_result(
         with_vertical_displacement(result, "bed"), scenario, "history", projected_axes=True
     )
-    out = cf_time_axis(out, reference)
+    out = as_output_dtype(cf_time_axis(out, reference), outputs["dtype"])
     outcome = RunOutcome(result=out)
     with plan.writing():
         outcome.written.append(write_netcdf(out, outputs["file"], overwrite, inputs, crs=crs))
@@ -477,9 +510,41 @@ def run_history_scenario(
                     time_label=f"time (years after {reference})",
                 )
             )
+        if outputs["series_csv"]:
+            outcome.written.append(
+                write_csv(
+                    point_series_table(result, cells),
+                    outputs["series_csv"],
+                    overwrite,
+                    inputs,
+                )
+            )
     outcome.summary = _summary(result, at, cells)
     outcome.text = format_history_summary(outcome.summary)
     return outcome
+
+
+SERIES_VARIABLES = ("deflection", "uplift_rate", "bed_elevation", "elastic_deflection")
+"""Variables of the point series table, in column order; those the result lacks (the
+elastic part without an elastic Earth) are left out."""
+
+
+def point_series_table(result: xr.Dataset, cells: list[PointCell]) -> xr.Dataset:
+    """The series at the ``[[points]]`` as one table along time: a column
+    ``<point>:<variable>`` for each point and each of :data:`SERIES_VARIABLES` the result
+    has (values of the cell holding the point), with their units."""
+    columns: dict[str, Any] = {}
+    for name, _, _, iy, ix in cells:
+        for variable in SERIES_VARIABLES:
+            if variable in result:
+                grid = result[variable]
+                columns[f"{name}:{variable}"] = (
+                    "time",
+                    np.asarray(grid.values[:, iy, ix], dtype=np.float64),
+                    {"units": grid.attrs.get("units", "")},
+                )
+    time = ("time", np.asarray(result["time"].values, dtype=np.float64), {"units": "years"})
+    return xr.Dataset(columns, coords={"time": time})
 
 
 def _summary(result: xr.Dataset, at: int, cells: list[PointCell]) -> dict[str, Any]:
