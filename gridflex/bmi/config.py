@@ -16,7 +16,7 @@ from gridflex.errors import InputError
 from gridflex.scenario.checks import check_plate_structure
 from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
 from gridflex.scenario.tables import load_scenario
-from gridflex.workflows.history import HISTORY_SCHEMA
+from gridflex.workflows.history import HISTORY_SCHEMA, check_bed_and_plate
 
 __all__ = ["BMI_SCHEMA", "BmiConfig", "load_bmi_config", "parse_bmi_config"]
 
@@ -64,20 +64,9 @@ def parse_bmi_config(data: dict[str, Any], path: Path, text: str = "") -> BmiCon
     """Validate a BMI configuration already read into a dict."""
     config = parse_tables(data, path, text, BMI_SCHEMA, _ARRAY_TABLES, _REQUIRED_TABLES)
     check_plate_structure(config)
-    bed = config.table("bed")
-    if (bed["file"] is None) == (bed["elevation"] is None):
-        raise InputError(
-            f"{config.where('bed')}: give either 'file' (with 'variable') or 'elevation'"
-        )
-    if bed["file"] is not None and bed["variable"] is None:
-        raise InputError(f"{config.where('bed')} variable: required with 'file'")
-    if bed["file"] is None and config.tables["grid"] is None:
+    check_bed_and_plate(config)
+    if config.table("bed")["file"] is None and config.tables["grid"] is None:
         raise InputError(f"{path}: give a [grid] table, or a [bed] file whose grid is used")
-    if config.table("plate")["infill_density"] != 0.0:
-        raise InputError(
-            f"{config.where('plate', 'infill_density')}: must be 0 (the ocean over depressed "
-            "bedrock is added from the sea level)"
-        )
     ice = config.table("ice")
     if (ice["radius"] is None) != (ice["height"] is None):
         raise InputError(f"{config.where('ice')}: a disc of ice needs both 'radius' and 'height'")

@@ -44,6 +44,7 @@ from gridflex.errors import InputError
 from gridflex.glacial.coupling import IceStepper
 from gridflex.synthetic import disc_height, empty_grid
 from gridflex.workflows.grid_input import read_grid_input
+from gridflex.workflows.history import ice_model_options
 from gridflex.workflows.run import plate_from_scenario
 
 __all__ = ["FlexureBmi", "INPUT_VARIABLES", "OUTPUT_VARIABLES"]
@@ -99,23 +100,9 @@ class FlexureBmi(Bmi):
             thickness = thickness + disc_height(
                 bed, ice["radius"], ice["height"], ice["center_x"], ice["center_y"]
             )
-        mantle, solver, sea = config.table("mantle"), config.table("solver"), config.table("sea")
+        level = config.table("sea")["level"]
         self._stepper = IceStepper(
-            bed,
-            plate,
-            mantle["model"],
-            mantle["viscosity"],
-            mantle["relaxation_time"],
-            ice_thickness=thickness,
-            sea_level=sea["level"],
-            reference_sea_level=sea["reference_level"],
-            ice_density=ice["density"],
-            water_density=sea["water_density"],
-            initial=solver["initial"],
-            interpolation=solver["interpolation"],
-            edges=solver["edges"],
-            pad_factor=solver["pad_factor"],
-            width_factor=solver["pad_width_factor"],
+            bed, plate, ice_thickness=thickness, sea_level=level, **ice_model_options(config)
         )
         self._config = config
         ny, nx = bed.shape
@@ -126,7 +113,7 @@ class FlexureBmi(Bmi):
         self._origin = np.array([self._y[0], self._x[0]])
         self._values = {name: np.zeros(ny * nx) for name in _UNITS}
         self._values["glacier_ice__thickness"][:] = thickness.values.ravel()
-        self._values["sea_water_surface__elevation"][:] = sea["level"]
+        self._values["sea_water_surface__elevation"][:] = level
         self._refresh()
 
     def _running(self) -> IceStepper:

@@ -67,6 +67,8 @@ __all__ = [
     "HISTORY_SCHEMA",
     "HistoryScenario",
     "SERIES_VARIABLES",
+    "check_bed_and_plate",
+    "ice_model_options",
     "point_series_table",
     "format_history_summary",
     "load_history_scenario",
@@ -238,21 +240,10 @@ def _check_history(scenario: HistoryScenario) -> None:
                 f"{where}: times has {len(times)} values, thickness_factors "
                 f"{len(factors)}; give one factor per time"
             )
-    bed = scenario.table("bed")
-    if (bed["file"] is None) == (bed["elevation"] is None):
-        raise InputError(
-            f"{scenario.where('bed')}: give either 'file' (with 'variable') or 'elevation'"
-        )
-    if bed["file"] is not None and bed["variable"] is None:
-        raise InputError(f"{scenario.where('bed')} variable: required with 'file'")
+    check_bed_and_plate(scenario)
     sea = scenario.table("sea")
     if sea["file"] is not None and sea["variable"] is None:
         raise InputError(f"{scenario.where('sea')} variable: required with 'file'")
-    if scenario.table("plate")["infill_density"] != 0.0:
-        raise InputError(
-            f"{scenario.where('plate', 'infill_density')}: must be 0 for an ice "
-            "history (the ocean over depressed bedrock is added from the sea level)"
-        )
     check_time_reference(
         scenario.where("output", "time_reference"), scenario.table("output")["time_reference"]
     )
@@ -268,6 +259,48 @@ def _check_history(scenario: HistoryScenario) -> None:
     names = [p["name"] for p in array_table(scenario, "points")]
     if len(set(names)) != len(names):
         raise InputError(f"{scenario.path}: [[points]] names must differ, got {names!r}")
+
+
+def check_bed_and_plate(scenario: HistoryScenario) -> None:
+    """The ``[bed]`` is a file (with its variable) or one elevation, and the ``[plate]``
+    has no infill (the ocean is part of the ice load). Shared with the BMI configuration.
+
+    Raises
+    ------
+    InputError
+        Naming the table and key.
+    """
+    bed = scenario.table("bed")
+    if (bed["file"] is None) == (bed["elevation"] is None):
+        raise InputError(
+            f"{scenario.where('bed')}: give either 'file' (with 'variable') or 'elevation'"
+        )
+    if bed["file"] is not None and bed["variable"] is None:
+        raise InputError(f"{scenario.where('bed')} variable: required with 'file'")
+    if scenario.table("plate")["infill_density"] != 0.0:
+        raise InputError(
+            f"{scenario.where('plate', 'infill_density')}: must be 0 for an ice "
+            "history (the ocean over depressed bedrock is added from the sea level)"
+        )
+
+
+def ice_model_options(scenario: HistoryScenario) -> dict[str, Any]:
+    """The ``[mantle]``, ``[solver]``, ``[sea]`` and ``[ice]`` settings as keyword
+    arguments of :class:`gridflex.IceStepper` (and :func:`gridflex.ice_response`)."""
+    mantle, solver, sea = scenario.table("mantle"), scenario.table("solver"), scenario.table("sea")
+    return {
+        "model": mantle["model"],
+        "mantle_viscosity": mantle["viscosity"],
+        "relaxation_time": mantle["relaxation_time"],
+        "reference_sea_level": sea["reference_level"],
+        "ice_density": scenario.table("ice")["density"],
+        "water_density": sea["water_density"],
+        "initial": solver["initial"],
+        "interpolation": solver["interpolation"],
+        "edges": solver["edges"],
+        "pad_factor": solver["pad_factor"],
+        "width_factor": solver["pad_width_factor"],
+    }
 
 
 def _ice_history(scenario: HistoryScenario, reference: str) -> xr.DataArray:
@@ -441,24 +474,14 @@ def run_history_scenario(
             raise InputError(
                 f"{scenario.where('output', key)}: needs at least one [[points]] table"
             )
-    mantle, solver = scenario.table("mantle"), scenario.table("solver")
+    solver = scenario.table("solver")
     log.info("ice history of %d times on a %s grid", thickness.sizes["time"], bed.shape)
     result = ice_response(
         thickness,
         bed,
         plate,
         level,
-        mantle["model"],
-        mantle["viscosity"],
-        mantle["relaxation_time"],
-        reference_sea_level=sea["reference_level"],
-        ice_density=scenario.table("ice")["density"],
-        water_density=sea["water_density"],
-        initial=solver["initial"],
-        interpolation=solver["interpolation"],
-        edges=solver["edges"],
-        pad_factor=solver["pad_factor"],
-        width_factor=solver["pad_width_factor"],
+        **ice_model_options(scenario),
         max_step=max_step,
         output_times=None if outputs["times"] is None else wanted,
         present_day=scenario.table("bed")["present_day"],
