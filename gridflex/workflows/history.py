@@ -11,10 +11,12 @@ A history scenario has these tables (``[[points]]`` is an array of tables)::
     [solver]    edges, padding, load interpolation, initial state
     [grid]      size and spacing, for a synthetic ice history
     [ice]       the ice-thickness history: a NetCDF (time, y, x) variable or a disc
-    [bed]       bed elevation of the reference state: a NetCDF grid or one number
+    [bed]       bed elevation of the reference state (or, with present_day, of the last
+                time): a NetCDF grid or one number
     [sea]       sea level: one number or a NetCDF series; reference level; water density
-    [[points]]  named points for time-series plots
-    [output]    NetCDF file, uplift-rate map (and its time), series plot
+    [[points]]  named points for time-series plots and the series table
+    [output]    NetCDF file, uplift-rate map (and its time), series plot and CSV table,
+                the times written, the precision (float32)
 """
 
 from __future__ import annotations
