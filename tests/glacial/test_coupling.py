@@ -106,7 +106,12 @@ def _run(stepper, steps, start=0):
 
 @pytest.mark.parametrize(
     ("te", "model"),
-    [("constant", "half-space"), ("constant", "relaxing"), ("grid", "half-space")],
+    [
+        ("constant", "half-space"),
+        ("constant", "relaxing"),
+        ("grid", "half-space"),
+        ("grid", "relaxing"),
+    ],
 )
 def test_a_restored_ice_stepper_continues_bit_for_bit(tmp_path, te, model):
     grid = empty_grid(24, 24, 40e3)
