@@ -175,3 +175,12 @@ def test_present_day_bed_is_reached_at_the_last_time(ocean):
         edges="periodic",
     )
     assert np.abs(again.bed_elevation.values[-1] - given.values).max() <= 1e-9
+
+
+def test_present_day_key_of_a_history_scenario(tmp_path):
+    text = SCENARIO.replace('elevation = "300 m"', 'elevation = "300 m"\npresent_day = true')
+    outcome = run_history_scenario(load_history_scenario(_write(tmp_path, text)))
+    bed = outcome.result["bed_elevation"].values
+    assert np.abs(bed[-1] - 300.0).max() <= 1e-9  # the given bed, at the last time
+    assert np.abs(bed[0] - 300.0).max() > 1.0  # earlier the bed was elsewhere
+    assert "reference_bed" in outcome.result
