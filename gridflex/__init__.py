@@ -20,7 +20,10 @@ from gridflex.errors import (
 from gridflex.estimation.admittance import cross_spectra, fit_te_spectral
 from gridflex.estimation.misfit import TeFit, fit_te
 from gridflex.estimation.misfit_te_maps import MarginFit, ScaleFit, fit_te_margin, fit_te_scale
+from gridflex.estimation.spectral_maps import te_map
+from gridflex.estimation.stretching_fit import fit_stretching
 from gridflex.glacial.coupling import IceStepper
+from gridflex.glacial.elastic import elastic_halfspace_response
 from gridflex.glacial.ice import bed_stress, grounded_mask, ice_response
 from gridflex.glacial.response import ResponseStepper, viscous_response
 from gridflex.gravity.anomalies import model_free_air_anomaly, model_gravity
@@ -58,6 +61,7 @@ __all__ = [
     "ResponseStepper",
     "IceStepper",
     "ice_response",
+    "elastic_halfspace_response",
     "bed_stress",
     "grounded_mask",
     "Infill",
@@ -76,6 +80,9 @@ __all__ = [
     "ScaleFit",
     "cross_spectra",
     "fit_te_spectral",
+    "te_map",
+    # stretching factor of a rift
+    "fit_stretching",
     "sweep",
     # errors and warnings
     "GridflexError",

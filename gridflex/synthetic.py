@@ -101,10 +101,12 @@ def disc_height(
     dy, dx = points[2], points[3]
     sub = (np.arange(supersample) + 0.5) / supersample - 0.5
     inside = np.zeros(grid.shape)
+    with np.errstate(over="ignore"):  # a radius beyond 1e154 m covers every cell
+        radius2 = np.float64(radius) ** 2
     for sy in sub * dy:
         r2y = (oy + sy) ** 2
         for sx in sub * dx:
-            inside += ((ox + sx) ** 2 + r2y) <= radius**2
+            inside += ((ox + sx) ** 2 + r2y) <= radius2
     return grid.copy(data=height * inside / supersample**2)
 
 
@@ -119,7 +121,9 @@ def gaussian_height(
     """h = height exp(-r² / (2 width²)) centred on (cx, cy) (all in m); *points* as in
     :func:`disc_height`."""
     ox, oy = _offsets(grid_points(grid) if points is None else points, cx, cy)
-    return grid.copy(data=height * np.exp(-(ox**2 + oy**2) / (2.0 * width**2)))
+    with np.errstate(over="ignore"):  # scaled first: no 0/0 for a width of 1e-320 m
+        r2 = (ox / width) ** 2 + (oy / width) ** 2  # nor an overflow of width² beyond 1e154 m
+    return grid.copy(data=height * np.exp(-r2 / 2.0))
 
 
 def island_chain_height(grid: xr.DataArray, points: Points | None = None) -> xr.DataArray:

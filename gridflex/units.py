@@ -46,7 +46,17 @@ DIMENSIONS: dict[str, dict[str, float]] = {
     "force_per_length": {"N/m": 1.0, "N m-1": 1.0, "kN/m": 1.0e3, "MN/m": 1.0e6, "TN/m": 1.0e12},
     "acceleration": {"m/s^2": 1.0, "m/s2": 1.0, "m s-2": 1.0},
     "rigidity": {"N m": 1.0, "N*m": 1.0, "Nm": 1.0},
-    "time": {"yr": 1.0, "year": 1.0, "years": 1.0, "kyr": 1.0e3, "ka": 1.0e3},
+    # ages: ka / Ma (thousand / million years before present) and kyr / Myr (durations)
+    # are all counted in years here, the sign (before present or after) set by the key
+    "time": {
+        "yr": 1.0,
+        "year": 1.0,
+        "years": 1.0,
+        "kyr": 1.0e3,
+        "ka": 1.0e3,
+        "Myr": 1.0e6,
+        "Ma": 1.0e6,
+    },
     "viscosity": {"Pa s": 1.0, "Pa*s": 1.0},
 }
 """Accepted units per dimension, with their factor to the SI (or year) unit.

@@ -201,6 +201,7 @@ GRID_ROLES: dict[str, GridRole] = {
     "stress": GridRole("pressure", None, None, "a stress (Pa)"),
     "density": GridRole("density", 0.0, None, "a density (kg m-3)"),
     "mask": GridRole(None, None, None, "a mask"),
+    "stretching_factor": GridRole(None, 1.0, None, "a stretching factor (1 = unstretched)"),
     "anomaly": GridRole(None, None, None, "a gravity anomaly (mGal)"),
 }
 """Every kind of grid a scenario reads, with its quantity and physical range (SI).

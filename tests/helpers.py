@@ -10,6 +10,9 @@ from typing import Any
 
 import numpy as np
 import xarray as xr
+from scipy import integrate, special
+
+from gridflex.constants import SECONDS_PER_YEAR
 
 REPO_ROOT = Path(__file__).resolve().parents[1]
 """The repository's root folder (README, configs, examples)."""
@@ -261,3 +264,200 @@ def assert_stepper_matches_batch(stepper, history, batch, interpolation: str) ->
         rate = stepper.uplift_rate(history.values[n])
         rate_scale = np.abs(batch.uplift_rate.values[n]).max()
         assert_allclose(rate.values, batch.uplift_rate.values[n], rtol=0, atol=1e-12 * rate_scale)
+
+
+def toml_text(doc: dict[str, Any]) -> str:
+    """A scenario document (nested dicts, lists, scalars) written as TOML text: scalars at
+    the top first, then ``[table]`` for dicts and ``[[table]]`` for lists of dicts;
+    floats may be nan or inf and strings any text (JSON escapes are valid TOML)."""
+    import json
+    import math
+
+    def quoted(text: str) -> str:  # TOML takes no surrogate pairs and no raw DEL
+        return json.dumps(text, ensure_ascii=False).replace("\x7f", "\\u007f")
+
+    def key(name: str) -> str:
+        bare = name and all(c.isascii() and (c.isalnum() or c in "-_") for c in name)
+        return name if bare else quoted(name)
+
+    def value(v: Any) -> str:
+        if isinstance(v, bool):
+            return "true" if v else "false"
+        if isinstance(v, int):
+            return str(v)
+        if isinstance(v, float):
+            if math.isnan(v):
+                return "nan"
+            if math.isinf(v):
+                return "inf" if v > 0 else "-inf"
+            return repr(v)
+        if isinstance(v, str):
+            return quoted(v)
+        if isinstance(v, dict):
+            return "{" + ", ".join(f"{key(k)} = {value(x)}" for k, x in v.items()) + "}"
+        return "[" + ", ".join(value(x) for x in v) + "]"
+
+    def is_table_list(v: Any) -> bool:
+        return isinstance(v, list) and bool(v) and all(isinstance(x, dict) for x in v)
+
+    head = [f"{key(k)} = {value(v)}" for k, v in doc.items() if not isinstance(v, dict)]
+    head = [
+        line
+        for (k, v), line in zip(
+            [(k, v) for k, v in doc.items() if not isinstance(v, dict)], head, strict=True
+        )
+        if not is_table_list(v)
+    ]
+    lines = head
+    for name, table in doc.items():
+        if isinstance(table, dict):
+            lines += ["", f"[{key(name)}]", *(f"{key(k)} = {value(v)}" for k, v in table.items())]
+        elif is_table_list(table):
+            for item in table:
+                lines += [
+                    "",
+                    f"[[{key(name)}]]",
+                    *(f"{key(k)} = {value(v)}" for k, v in item.items()),
+                ]
+    return "\n".join(lines) + "\n"
+
+
+BASIN_CELL = 5e3  # m, cell size of write_basin_inputs
+BASIN_SCENARIO = """
+[plate]
+elastic_thickness = "8 km"
+
+[basin]
+surface_file = "surface.nc"
+
+[[stages]]
+file = "s1.nc"
+age = 3.0e6
+
+[[stages]]
+file = "s2.nc"
+age = 2.0e6
+lithology = "sandstone"
+base_level = "0 m"
+
+[[stages]]
+file = "s3.nc"
+age = 1.0e6
+"""
+"""Three stages on a shelf (files of :func:`write_basin_inputs`); add an [output] table."""
+
+
+def write_basin_inputs(folder: Path, n: int = 24) -> xr.DataArray:
+    """Write ``surface.nc`` (a shelf, -400 to 50 m west to east) and ``s1.nc``-``s3.nc``
+    (invented sediment lenses, m) on *n* x *n* cells of 5 km (y, x from 0; no CRS);
+    returns the surface."""
+    coord = np.arange(n) * BASIN_CELL
+    y, x = np.meshgrid(coord, coord, indexing="ij")
+    r2 = (x - coord.mean()) ** 2 + (y - coord.mean()) ** 2
+
+    def grid(values: np.ndarray) -> xr.DataArray:
+        return xr.DataArray(values, dims=("y", "x"), coords={"y": coord, "x": coord})
+
+    surface = grid(np.broadcast_to(np.linspace(-400.0, 50.0, n), (n, n)).copy())
+    surface.to_dataset(name="elevation").to_netcdf(folder / "surface.nc")
+    for i, (peak, radius) in enumerate([(500.0, 25e3), (300.0, 18e3), (200.0, 20e3)], 1):
+        lens = grid(peak * np.exp(-r2 / radius**2) * (r2 < 9 * radius**2))
+        lens.to_dataset(name="thickness").to_netcdf(folder / f"s{i}.nc")
+    return surface
+
+
+def two_load_plate(
+    te: Any, n: int, dx: float, seed: int, load_ratio: float = 1.0, plate: Any = None
+) -> tuple[xr.DataArray, xr.DataArray]:
+    """Topography (m) and Bouguer anomaly (mGal) of Forsyth's (1985) two-load model on an
+    n x n periodic grid of spacing *dx*, solved by ``gridflex.solve`` (te a number or a
+    grid on the same coordinates, which picks the finite-difference solver).
+
+    Invented, uncorrelated initial loads with red spectra (amplitude ~ k^-1.5): surface
+    topography H_I and Moho relief W_I (up), scaled so that f = drho W_I / (rho_c H_I) is
+    *load_ratio* in every band. Both load the plate from above and below, which sinks by w
+    with air above (restoring rho_m g w): final topography H = H_I - w, Moho W = W_I - w,
+    Bouguer anomaly 2 pi G drho e^{-k z_m} W (PHYSICS.md 8.2, first order; z_m the
+    plate's crust_thickness)."""
+    import scipy.fft
+
+    import gridflex
+    from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
+
+    x = np.arange(n) * dx
+    plate = plate if plate is not None else gridflex.Plate(te=0.0, crust_thickness=35e3)
+    rho_c, rho_m = plate.crust_density, plate.mantle_density
+    ky = 2 * np.pi * scipy.fft.fftfreq(n, dx)[:, None]
+    kx = 2 * np.pi * scipy.fft.rfftfreq(n, dx)[None, :]
+    k = np.hypot(ky, kx)
+    rng = np.random.default_rng(seed)
+
+    def red() -> np.ndarray:
+        spec = rng.standard_normal(k.shape) + 1j * rng.standard_normal(k.shape)
+        field = scipy.fft.irfft2(spec * np.where(k > 0, k, np.inf) ** -1.5, s=(n, n))
+        return field / field.std()
+
+    h_i = 1000.0 * red()
+    w_i = 1000.0 * load_ratio * rho_c / (rho_m - rho_c) * red()
+    coords = {"y": x, "x": x}
+    te_value = te if np.isscalar(te) else xr.DataArray(te, dims=("y", "x"), coords=coords)
+    flexed = gridflex.Plate(
+        te=te_value,
+        youngs_modulus=plate.youngs_modulus,
+        poisson_ratio=plate.poisson_ratio,
+        mantle_density=rho_m,
+        infill_density=0.0,
+        crust_density=rho_c,
+        crust_thickness=plate.crust_thickness,
+    )
+    load = xr.DataArray(
+        (rho_c * h_i + (rho_m - rho_c) * w_i) * flexed.gravity, dims=("y", "x"), coords=coords
+    )
+    w = gridflex.solve(load, flexed, edges="periodic")["deflection"].values
+    moho = w_i - w
+    bouguer = (
+        scipy.fft.irfft2(
+            2
+            * np.pi
+            * GRAVITATIONAL_CONSTANT
+            * (rho_m - rho_c)
+            * np.exp(-k * plate.crust_thickness)
+            * scipy.fft.rfft2(moho),
+            s=(n, n),
+        )
+        / MGAL
+    )
+    return (
+        xr.DataArray(h_i - w, dims=("y", "x"), coords=coords),
+        xr.DataArray(bouguer, dims=("y", "x"), coords=coords),
+    )
+
+
+# Disc test of Bueler, Lingle & Brown 2007 (Ann. Glaciol. 46, 97-105); parameters as we
+# believe the paper uses them (from memory, PHYSICS.md 7.3): H0 = 1000 m of ice (910 kg/m3)
+# on R0 = 1000 km, rho_m = 3300, eta = 1e21 Pa s, D = 5e24 N m, g = 9.81.
+BUELER_DISC = (1000.0, 1000e3, 910.0, 3300.0, 9.81, 1e21, 5e24)
+"""(H0, R0, rho_i, rho_m, g, eta, D) of the disc test, SI units."""
+
+
+def exact_disc(r: np.ndarray, t_years: np.ndarray, rate: bool = False) -> np.ndarray:
+    """Disc load switched on at t = 0 over a plate on a viscous half-space, by Hankel
+    transform of the per-mode equation (PHYSICS.md 7.6, the integral formula Bueler et al.
+    2007 verify against):
+    w(r, t) = q0 R0 int_0^inf (1 - exp(-beta t / (2 eta k))) J1(k R0) J0(k r) / beta dk,
+    beta = rho_m g + D k^4; with rate=True its time derivative (m/s). Shape (r, t)."""
+    H0, R0, RHO_I, RHO_M, G, ETA, D = BUELER_DISC
+    q0 = RHO_I * G * H0
+    rr = np.asarray(r, dtype=float)[:, None]
+    tt = np.asarray(t_years, dtype=float)[None, :] * SECONDS_PER_YEAR
+
+    def integrand(k):
+        beta = RHO_M * G + D * k**4
+        with np.errstate(divide="ignore", invalid="ignore"):
+            x = beta * tt / (2 * ETA * k)
+            time_part = np.exp(-x) * beta / (2 * ETA * k) if rate else -np.expm1(-x)
+        return time_part * special.j1(k * R0) * special.j0(k * rr) / beta
+
+    # beyond k = 4e-4 rad/m (40 times 1/l) beta ~ D k^4 makes the integrand negligible
+    value, _ = integrate.quad_vec(integrand, 0.0, 4e-4, epsabs=0.0, epsrel=1e-10, limit=4000)
+    return q0 * R0 * value

@@ -13,6 +13,7 @@ import pytest
 from gridflex.scenario.tables import SCHEMA
 from gridflex.workflows.basin_tables import BASIN_SCHEMA
 from gridflex.workflows.history import HISTORY_SCHEMA
+from gridflex.workflows.temap import TEMAP_SCHEMA
 from tests.helpers import REPO_ROOT
 
 REPO = REPO_ROOT
@@ -26,8 +27,10 @@ REPO = REPO_ROOT
         # plate, margin, breaks and grid of a history scenario are documented with the
         # elastic scenario
         (HISTORY_SCHEMA, "## Ice loads through time", ("plate", "margin", "breaks", "grid")),
+        # the te map's plate keys are those of the elastic scenario
+        (TEMAP_SCHEMA, "## Te maps from data", ("plate",)),
     ],
-    ids=["run", "basin", "history"],
+    ids=["run", "basin", "history", "temap"],
 )
 def test_every_scenario_key_is_documented(schema, section, skipped):
     # the README key tables follow the schemas (common practice)

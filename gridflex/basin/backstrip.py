@@ -30,7 +30,7 @@ import xarray as xr
 from gridflex.basin.compaction import (
     Lithology,
     bulk_density,
-    grain_thickness,
+    layer_grains,
     saturated_column,
 )
 from gridflex.basin.compaction import lithology as as_lithology
@@ -41,7 +41,7 @@ from gridflex.grid import check_grid, grid_values
 from gridflex.plate import Plate
 from gridflex.validation import check_density, check_number
 
-__all__ = ["backstrip", "backstrip_layers"]
+__all__ = ["airy_tectonic_subsidence", "backstrip", "backstrip_layers"]
 
 _DEPTHS = ("basement_depth", "sediment_thickness", "water_depth")
 
@@ -202,8 +202,8 @@ def backstrip(
     basement = arrays["basement_depth"]
     fields = {
         "tectonic_subsidence": basement - rebound - sea_term,
-        "local_tectonic_subsidence": (
-            s * (rho_m - rho_s) / (rho_m - rho_w) + arrays["water_depth"] - sea_term
+        "local_tectonic_subsidence": airy_tectonic_subsidence(
+            s, rho_s, arrays["water_depth"], dsl, rho_m, rho_w
         ),
         "sediment_rebound": rebound,
         "sediment_density": np.broadcast_to(rho_s, s.shape).copy(),
@@ -223,6 +223,36 @@ def backstrip(
     data_vars = {name: (("y", "x"), values, _attributes(name)) for name, values in fields.items()}
     coords = {"y": reference["y"].variable, "x": reference["x"].variable}
     return xr.Dataset(data_vars, coords=coords, attrs=attrs)
+
+
+def airy_tectonic_subsidence(
+    sediment_thickness: Any,
+    sediment_density: Any,
+    water_depth: Any,
+    sea_level_change: Any,
+    mantle_density: float,
+    water_density: float,
+) -> np.ndarray:
+    """Local (Airy) water-loaded tectonic subsidence of a column (m, positive down).
+
+    Steckler & Watts 1978 (PHYSICS.md 9.2):
+    Y = S (rho_m - rho_s)/(rho_m - rho_w) + W - dSL rho_m/(rho_m - rho_w), with S the
+    sediment thickness (m), rho_s its mean bulk density, W the water depth (m, negative
+    above sea level) and dSL the sea level relative to present (m, positive higher).
+    Arguments broadcast against each other.
+
+    Examples
+    --------
+    >>> round(float(airy_tectonic_subsidence(1000.0, 2300.0, 200.0, 0.0, 3300.0, 1000.0)), 6)
+    634.782609
+    """
+    s, rho_s = np.asarray(sediment_thickness), np.asarray(sediment_density)
+    contrast = mantle_density - water_density
+    return np.asarray(
+        s * (mantle_density - rho_s) / contrast
+        + np.asarray(water_depth)
+        - np.asarray(sea_level_change) * mantle_density / contrast
+    )
 
 
 def _attributes(name: str) -> dict[str, str]:
@@ -251,12 +281,15 @@ def _decompacted(
     grains: list[np.ndarray], liths: list[Lithology], water_density: float
 ) -> tuple[np.ndarray, np.ndarray]:
     """Thickness (m) and mean bulk density (kg m^-3) of the layers decompacted to the
-    surface (at least the water density; the first layer's grain density where none)."""
+    surface (at least the water density). Each layer's mass is its thickness times its
+    mean bulk density, so the column's density is a thickness-weighted mean that stays
+    physical for vanishing columns; where there is no sediment at all, the limit: the
+    top layer's density at the surface."""
     _, masses, total = saturated_column(grains, liths, water_density)
     mass = np.zeros(total.shape)
     for layer_mass in masses:
         mass += layer_mass
-    fallback = liths[0].grain_density  # no sediment: no load, any valid density
+    fallback = bulk_density(0.0, 0.0, liths[0], water_density)
     with np.errstate(invalid="ignore", divide="ignore"):
         density = np.where(total > 0, mass / np.where(total > 0, total, 1.0), fallback)
     return total, np.clip(density, water_density, None)
@@ -303,7 +336,8 @@ def backstrip_layers(
         On dims ``("step", "y", "x")``: ``tectonic_subsidence``,
         ``local_tectonic_subsidence``, ``sediment_rebound`` (m), ``sediment_thickness``
         (decompacted, m), ``sediment_density`` (kg m^-3), ``basement_depth`` (m below
-        the sea level of the time).
+        the sea level of the time); ``sea_level_change`` (m, on ``step``; also the
+        attribute ``sea_level_changes``).
 
     Raises
     ------
@@ -325,7 +359,7 @@ def backstrip_layers(
     # grains of each layer from its present burial
     grains, top = [], np.zeros(reference.shape)
     for h, lith in zip(thickness, liths, strict=True):
-        grains.append(grain_thickness(top, top + h, lith))
+        grains.append(layer_grains(top, h, lith))
         top = top + h
     results = []
     for step in range(count):
@@ -350,6 +384,17 @@ def backstrip_layers(
         results.append(out.drop_vars("sediment_load"))
     combined = xr.concat(results, dim="step", combine_attrs="override")
     combined = combined.assign_coords(step=np.arange(count))
+    # each step has its own sea level: kept per step, not the first step's as an attribute
+    changes = np.asarray(
+        [check_number(f"sea_level_changes[{i}]", v, unit="m") for i, v in enumerate(levels)]
+    )
+    combined["sea_level_change"] = (
+        "step",
+        changes,
+        {"units": "m", "long_name": "sea level of the step's time relative to present"},
+    )
+    combined.attrs["sea_level_change"] = "per step: see the sea_level_change variable"
+    combined.attrs["sea_level_changes"] = changes
     if ages is not None:
         combined = combined.assign_coords(
             age=("step", np.asarray(ages, dtype=float), {"units": "years before present"})

@@ -19,6 +19,12 @@ constant te and water infill the response is path independent (the sum of the
 increments is the solve of the total: the equilibrium of a column is unique);
 with a te that changes from stage to stage it is not, as intended, and neither
 is a moat filled with sediment (each stage fills only the space it makes).
+A negative isopach erodes: its (compacted) thickness is removed from the top of the
+pile, youngest stage first. Compaction is taken as irreversible (common practice): what
+remains keeps the thickness and porosity of its deepest burial, and is compacted
+further only once a later stage buries it deeper than that; the plate unloads by the
+mass removed (and the water or sediment that fills the rebound). Erosion deeper than
+the pile is refused.
 Removing the top stage (:meth:`StagedBasin.remove_stage`) decompacts the rest
 and unloads the plate with water infill and the te the stage was loaded with.
 
@@ -27,7 +33,12 @@ added to it). The infill solver carries the fill with the stage's mean bulk
 density and does not compact the column under it, so the stage is then settled:
 the remaining difference between the column the solver carried and the
 compacted column is solved again (new fill joining the stage) until it would
-move the plate by less than the tolerance (usually 1-3 passes). Every stage,
+move the plate by less than the tolerance (usually 1-3 passes). Where the fill
+actually deposited is lighter than carried, the plate rebounds and would lift filled
+cells above the base level; before each pass the fill is trimmed back to the level
+(the excess removed, at most the fill), so no filled cell ends more than about the
+tolerance above its base level (the trimming converges geometrically: by a factor of
+about 0.5 per pass with te = 0, faster with flexure). Every stage,
 whatever its te (a number, or a grid with margins and breaks, solved by finite
 differences), goes through the same infill solve: sediment up to the base level,
 water below sea level, air above. Limitations: the fill takes only space made by
@@ -48,7 +59,7 @@ import logging
 import math
 import warnings
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -58,11 +69,13 @@ from gridflex.basin.compaction import (
     Lithology,
     bulk_density,
     check_grains_sink,
-    compacted_base,
-    grain_thickness,
+    compacted_thickness,
+    layer_grains,
     saturated_column,
 )
 from gridflex.basin.compaction import lithology as as_lithology
+from gridflex.basin.horizons import accommodation_created, horizon_ages, horizon_depths
+from gridflex.basin.stretching import Stretching
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import check_grid, grid_values
@@ -88,7 +101,7 @@ TeLike = float | xr.DataArray
 ISOPACHS = ("deposited", "present")
 """Accepted values of ``stage_loading(isopachs=...)``."""
 
-_SETTLE_PASSES = 20
+_SETTLE_PASSES = 40  # trimming converges geometrically (ratio ~0.5 with te = 0, less with flexure)
 _SNAPSHOT_GRIDS = 11  # grids kept per recorded stage (see _Snapshot)
 
 
@@ -99,7 +112,10 @@ class Stage:
     Parameters
     ----------
     thickness : xarray.DataArray
-        Isopach of the stage as deposited (m, >= 0), dims ``("y", "x")``.
+        Isopach of the stage as deposited (m), dims ``("y", "x")``. Negative cells are
+        erosion: that (compacted) thickness is removed from the top of the pile before
+        the stage is solved; what remains keeps the porosity of its deepest burial
+        (compaction is irreversible) and the plate unloads.
     age : float
         Age of the stage (years before present).
     lithology : str or Lithology, default "shale"
@@ -167,6 +183,8 @@ class _Snapshot:
     sediment_density: np.ndarray
     iterations: int
     te: np.ndarray
+    sea_level: float = math.nan
+    column: list[np.ndarray] = field(default_factory=list)  # stage thicknesses, oldest first
 
 
 class StagedBasin:
@@ -190,6 +208,13 @@ class StagedBasin:
     tolerance, max_iterations, edges, pad_factor
         Passed to :func:`gridflex.solve_with_infill` (a te grid, or *edges* "clamped"
         or "free", is solved by finite differences).
+    stretching : Stretching, optional
+        A rift under the basin: each stage adds the change of its water-loaded
+        tectonic subsidence since the stage below as a load (rho_m - rho_w) g dS,
+        flexed with the stage's te and infill (:class:`gridflex.basin.Stretching`;
+        computed with the plate's mantle density and *water_density*). The subsidence
+        before the first stage counts from the rift, so *initial_surface* is then the
+        surface before rifting.
     """
 
     def __init__(
@@ -204,6 +229,7 @@ class StagedBasin:
         max_iterations: int = 300,
         edges: str = "infinite",
         pad_factor: float = 4.5,
+        stretching: Stretching | None = None,
     ) -> None:
         if not isinstance(plate, Plate):
             raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
@@ -222,6 +248,11 @@ class StagedBasin:
         self.thickness = np.zeros(self.base.shape)  # sediment thickness as carried
         self.current_sea_level = self.sea_level
         self.history: list[_Snapshot] = []
+        # deepest burial of each stage's top (m), oldest first; kept once erosion has
+        # brought layers up (compaction is irreversible), empty before
+        self.burial: list[np.ndarray] = []
+        self.stretching = _rift_on_grid(stretching, plate, self.water_density, initial_surface)
+        self._rift_cache: dict[float, np.ndarray] = {}
 
     # column -----------------------------------------------------------------
     def _layer_density(self, lith: Lithology) -> float:
@@ -234,16 +265,59 @@ class StagedBasin:
         """Thickness and mass per area of each stage, youngest on top (lists, oldest first)."""
         liths = [stage.rock for stage in stages]
         if self.compaction:
-            thick, mass, _ = saturated_column(grains[::-1], liths[::-1], self.water_density)
+            burial = self._burial_of(len(grains))
+            thick, mass, _ = saturated_column(
+                grains[::-1], liths[::-1], self.water_density, burial[::-1]
+            )
             return thick[::-1], mass[::-1]
         thick = [s / (1.0 - lith.surface_porosity) for s, lith in zip(grains, liths, strict=True)]
         mass = [self._layer_density(lith) * h for h, lith in zip(thick, liths, strict=True)]
         return thick, mass
 
+    def _burial_of(self, count: int) -> list[np.ndarray | float]:
+        """Deepest past burial of the tops of the *count* oldest stages (m; 0: none)."""
+        kept: list[np.ndarray | float] = list(self.burial[:count])
+        return kept + [0.0] * (count - len(kept))
+
+    def _erode(self, eroded: np.ndarray, where: str) -> list[np.ndarray]:
+        """The grains of the stages after *eroded* (m, compacted thickness) is removed
+        from the top of the pile; sets :attr:`burial`.
+
+        Compaction is irreversible (common practice since Sclater & Christie 1980, who
+        decompact only by removing the overburden in backstripping; a column brought up
+        by erosion keeps the porosity of its deepest burial): what remains of each stage
+        keeps the thickness it had, and the porosity of the depth its new top had reached.
+        """
+        thick, _ = self._column(self.grains, self.stages)
+        burial = self._burial_of(len(self.grains))
+        grains = list(self.grains)
+        deepest: list[np.ndarray] = []
+        top = np.zeros(self.base.shape)
+        rest = eroded.copy()
+        for i in reversed(range(len(grains))):  # youngest first
+            t, lith = thick[i], self.stages[i].rock
+            at = np.maximum(top, burial[i])  # the depth the layer is compacted to
+            cut = np.minimum(rest, t)
+            if self.compaction:
+                grains[i] = layer_grains(at + cut, t - cut, lith)
+            else:
+                grains[i] = (t - cut) * (1.0 - lith.surface_porosity)
+            deepest.append(at + cut)
+            rest = rest - cut
+            top = top + t
+        if rest.max(initial=0.0) > 0.0:
+            raise InputError(
+                f"{where} erodes up to {float(rest.max()):.6g} m more than the sediment pile "
+                f"holds ({int((rest > 0).sum())} cells); erosion of the surface below the "
+                "first stage is not modelled"
+            )
+        self.burial = deepest[::-1]
+        return grains
+
     def _grains_of(self, thickness: np.ndarray, lith: Lithology) -> np.ndarray:
         """Grain thickness of a layer of *thickness* deposited at the top of the pile."""
         if self.compaction:
-            return grain_thickness(0.0, thickness, lith)
+            return layer_grains(0.0, thickness, lith)
         return thickness * (1.0 - lith.surface_porosity)
 
     def _water(self, thickness: np.ndarray, sea_level: float) -> np.ndarray:
@@ -260,8 +334,10 @@ class StagedBasin:
         infill: Infill,
         fill_density: float,
         min_deflection: float = 0.0,
+        tectonic_load: np.ndarray | None = None,
     ) -> tuple[np.ndarray, np.ndarray, int, np.ndarray, np.ndarray]:
-        """Solve the change from the carried state to the column of *grains*.
+        """Solve the change from the carried state to the column of *grains*, plus
+        *tectonic_load* (Pa, positive down) when given.
 
         Returns (deflection increment, sediment fill, iterations, new carried mass,
         new carried thickness). When the load change could not move the plate by
@@ -274,6 +350,8 @@ class StagedBasin:
         water_before = self._water(self.thickness, self.current_sea_level)
         water_after = self._water(total_h, sea_level)
         increment = g * ((total_m - self.mass) + self.water_density * (water_after - water_before))
+        if tectonic_load is not None:
+            increment = increment + tectonic_load
         weakest = (self.plate.mantle_density - infill.max_density()) * g
         if float(np.abs(increment).max()) <= min_deflection * weakest:
             zero = np.zeros(self.base.shape)
@@ -308,7 +386,7 @@ class StagedBasin:
         te: TeLike,
     ) -> _Snapshot:
         check_memory(
-            _SNAPSHOT_GRIDS * self.base.nbytes,
+            (_SNAPSHOT_GRIDS + len(self.stages)) * self.base.nbytes,
             f"keeping the state after stage {len(self.history) + 1}",
         )
         thick, mass = self._column(self.grains, self.stages)
@@ -335,6 +413,8 @@ class StagedBasin:
             sediment_density=all_rho,
             iterations=iterations,
             te=grid_values(te, self.grid, "stage te"),
+            sea_level=self.current_sea_level,
+            column=list(thick),
         )
         self.history.append(snap)
         return snap
@@ -348,9 +428,12 @@ class StagedBasin:
         check_grains_sink(
             stage.rock.grain_density, self.water_density, f"stage (age {stage.age}) lithology"
         )
-        h = grid_values(stage.thickness, self.grid, f"stage (age {stage.age}) thickness")
-        if not np.all(np.isfinite(h)) or h.min() < 0:
-            raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")
+        where = f"stage (age {stage.age})"
+        h = grid_values(stage.thickness, self.grid, f"{where} thickness")
+        if not np.all(np.isfinite(h)):
+            raise InputError(f"{where} thickness must be finite (m; negative: erosion)")
+        eroded = np.clip(-h, 0.0, None)
+        h = np.clip(h, 0.0, None)  # the deposit
         if self.stages and not stage.age < self.stages[-1].age:
             raise InputError(
                 f"stage ages must decrease (oldest first, years before present): "
@@ -372,20 +455,26 @@ class StagedBasin:
                 sediment_level=stage.base_level,
                 sediment_mask=self._fill_mask(),
             )
-        grains = self.grains + [self._grains_of(h, lith)]
         stages = self.stages + [stage]
         te = self.plate.te if stage.te is None else stage.te
-        saved = (self.deflection, self.mass, self.thickness, self.current_sea_level)
+        saved = (self.deflection, self.mass, self.thickness, self.current_sea_level, self.burial)
         try:
-            w, fill, iterations = self._add(h, lith, grains, stages, te, sea, infill, fill_density)
+            tectonic = self._tectonic_load(self.stages[-1].age if self.stages else None, stage.age)
+            older = self._erode(eroded, where) if eroded.any() else self.grains
+            grains = older + [self._grains_of(h, lith)]
+            w, fill, iterations = self._add(
+                h, lith, grains, stages, te, sea, infill, fill_density, level, tectonic
+            )
         except BaseException:
             # a failed solve (bad input, no convergence) leaves the basin as it was
-            self.deflection, self.mass, self.thickness, self.current_sea_level = saved
+            (self.deflection, self.mass, self.thickness, self.current_sea_level, self.burial) = (
+                saved
+            )
             raise
         self.grains, self.stages = grains, stages
         snap = self._record(float(stage.age), w, level, iterations, te)
         snap.stage_fill = fill
-        snap.stage_thickness = h + fill
+        snap.stage_thickness = h + fill - eroded
         log.info(
             "stage of age %g yr: %d infill iterations, max deflection %.4g m",
             stage.age,
@@ -403,18 +492,25 @@ class StagedBasin:
         sea: float,
         infill: Infill,
         fill_density: float,
+        level: np.ndarray,
+        tectonic: np.ndarray | None = None,
     ) -> tuple[np.ndarray, np.ndarray, int]:
         """Solve a new top stage and settle it; updates the carried state and grains[-1]."""
         w, fill, iterations, mass, thickness = self._solve_increment(
-            grains, stages, te, sea, infill, fill_density
+            grains, stages, te, sea, infill, fill_density, tectonic_load=tectonic
         )
         self.deflection = self.deflection + w
         self.mass, self.thickness, self.current_sea_level = mass, thickness, sea
         grains[-1] = self._grains_of(h + fill, lith)
         # settle: the solver carried the moat fill with one density and did not compact
-        # the column under it; re-solve the remaining difference (new fill joins the stage)
+        # the column under it; re-solve the remaining difference (new fill joins the stage).
+        # Where the real fill is lighter than carried, the plate rebounds and lifts filled
+        # cells above the base level; the fill there is trimmed back to the level first,
+        # so every pass solves the column as it will be kept
         tolerance = float(self.solve_options.tolerance)
         for _ in range(_SETTLE_PASSES):
+            if infill.sediment != "none":
+                fill = self._trim_fill(h, fill, lith, grains, stages, level)
             with warnings.catch_warnings():
                 # the small remainder reaches the edges wherever the fill did; the stage
                 # solve above already warned about a load at the edge
@@ -437,6 +533,29 @@ class StagedBasin:
             )
         return w, fill, iterations
 
+    def _trim_fill(
+        self,
+        h: np.ndarray,
+        fill: np.ndarray,
+        lith: Lithology,
+        grains: list[np.ndarray],
+        stages: list[Stage],
+        level: np.ndarray,
+    ) -> np.ndarray:
+        """The moat fill less what stands above the base level (m); updates grains[-1].
+
+        The surface of the compacted column with the present deflection is compared
+        with *level* where there is fill; the excess (at most the fill) is removed.
+        """
+        thick, _ = self._column(grains, stages)
+        surface = self.base - self.deflection + np.sum(thick, axis=0)
+        excess = np.clip(np.minimum(surface - level, fill), 0.0, None)
+        if not excess.any():
+            return fill
+        trimmed = fill - excess
+        grains[-1] = self._grains_of(h + trimmed, lith)
+        return trimmed
+
     def remove_stage(self) -> None:
         """Remove the top stage (with its moat fill), decompact the rest, unload the plate.
 
@@ -447,14 +566,21 @@ class StagedBasin:
         """
         if not self.stages:
             raise InputError("remove_stage: the basin has no stage left to remove")
+        if self.burial:
+            raise InputError(
+                "remove_stage: the column has been eroded, and compaction is irreversible "
+                "(the eroded layers kept the porosity of their deepest burial), so removing "
+                "stages cannot restore an earlier state; rebuild the basin from its first stage"
+            )
         grains, stages = self.grains[:-1], self.stages[:-1]
         below = stages[-1] if stages else None
         sea = self.sea_level if below is None or below.sea_level is None else float(below.sea_level)
         infill = Infill(sea_level=sea, water_density=self.water_density)
         removed = self.stages[-1]
         te = self.plate.te if removed.te is None else removed.te
+        tectonic = self._tectonic_load(removed.age, below.age if below is not None else None)
         w, _, iterations, mass, thickness = self._solve_increment(
-            grains, stages, te, sea, infill, 0.0
+            grains, stages, te, sea, infill, 0.0, tectonic_load=tectonic
         )
         self.deflection = self.deflection + w
         self.mass, self.thickness, self.current_sea_level = mass, thickness, sea
@@ -464,6 +590,26 @@ class StagedBasin:
         if below is not None and below.base_level is not None:
             level = grid_values(below.base_level, self.grid, "stage base_level")
         self._record(age, w, level, iterations, te)
+
+    def tectonic_subsidence(self, age: float | None) -> np.ndarray:
+        """Water-loaded tectonic subsidence of the rift (m) at *age*; zeros without a rift
+        or before the first stage (*age* ``None``)."""
+        if self.stretching is None or age is None:
+            return np.zeros(self.base.shape)
+        if age not in self._rift_cache:  # each age is asked for by two stages in turn
+            rift, beta = self.stretching
+            if len(self._rift_cache) >= 2:
+                del self._rift_cache[next(iter(self._rift_cache))]
+            self._rift_cache[age] = np.broadcast_to(rift.subsidence(age, beta), self.base.shape)
+        return self._rift_cache[age].copy()
+
+    def _tectonic_load(self, before: float | None, after: float | None) -> np.ndarray | None:
+        """(rho_m - rho_w) g dS (Pa), dS = S(after) - S(before) the change of the tectonic
+        subsidence (negative when a removed stage is undone); None without a rift."""
+        if self.stretching is None:
+            return None
+        change = self.tectonic_subsidence(after) - self.tectonic_subsidence(before)
+        return (self.plate.mantle_density - self.water_density) * self.plate.gravity * change
 
     def _fill_mask(self) -> xr.DataArray | None:
         """Where moat-fill sediment may go: not in the FFT padding (its state is not kept
@@ -510,7 +656,10 @@ class StagedBasin:
                 "one): level - surface; negative above it",
             ),
             "water_depth": ("m", "water depth above the solid surface"),
-            "stage_thickness": ("m", "thickness of the stage as deposited, moat fill included"),
+            "stage_thickness": (
+                "m",
+                "thickness of the stage as deposited, moat fill included; negative: eroded",
+            ),
             "stage_fill": ("m", "moat-fill sediment of the stage"),
             "stage_density": ("kg m-3", "mean bulk density of the stage when deposited"),
             "sediment_thickness": ("m", "thickness of the whole sediment column"),
@@ -522,11 +671,13 @@ class StagedBasin:
             name: (dims, stack(source.get(name, name)), {"units": units, "long_name": long})
             for name, (units, long) in fields.items()
         }
+        data.update(self._horizon_variables(dims))
         data["iterations"] = (
             "stage",
             np.array([s.iterations for s in self.history]),
             {"long_name": "infill iterations of the stage solve"},
         )
+        data.update(self._stage_te())
         coords = {
             "stage": np.arange(len(self.history)),
             "age": (
@@ -544,8 +695,99 @@ class StagedBasin:
             "compaction": int(self.compaction),
             "lithologies": ", ".join(s.rock.name for s in self.stages),
         }
-        stamp = provenance_attrs(self.plate.describe(), attrs, "staged basin loading")
-        return xr.Dataset(data, coords=coords, attrs=stamp)
+        stamp = provenance_attrs(self._plate_attrs(), attrs, "staged basin loading")
+        out = xr.Dataset(data, coords=coords, attrs=stamp).set_coords("horizon_age")
+        return out.assign_coords(horizon=np.arange(out.sizes["horizon"]))
+
+    def _horizon_variables(self, dims: tuple[str, str, str]) -> dict[str, tuple[Any, ...]]:
+        """``basement_depth``, ``horizon_depth`` (with its ``horizon_age``) and
+        ``sea_level`` of each recorded step (:mod:`gridflex.basin.horizons`)."""
+        columns = [s.column for s in self.history]
+        basement, horizons = horizon_depths(
+            self.base, [s.deflection for s in self.history], columns, self.sea_level
+        )
+        below = f"below the basin's sea level ({self.sea_level:g} m, positive down)"
+        down = {"units": "m", "positive": "down"}
+        ages = horizon_ages([s.age for s in self.history], columns)
+        created = accommodation_created(
+            [s.accommodation + s.surface for s in self.history],
+            basement,
+            horizons,
+            [len(c) for c in columns],
+            self.base,
+            self.sea_level,
+        )
+        return {
+            "accommodation_created": (
+                dims,
+                created,
+                {
+                    "units": "m",
+                    "long_name": "accommodation created by the stage: rise of its level "
+                    "plus the sinking (flexure, compaction) of the surface it deposits on",
+                },
+            ),
+            "basement_depth": (
+                dims,
+                basement,
+                {**down, "long_name": f"depth of the surface before the first stage {below}"},
+            ),
+            "horizon_depth": (
+                (dims[0], "horizon", *dims[1:]),
+                horizons,
+                {
+                    **down,
+                    "long_name": f"depth of the top of each stage after each stage {below}; "
+                    "NaN before the stage is deposited",
+                },
+            ),
+            "horizon_age": (
+                "horizon",
+                ages,
+                {"units": "years before present", "long_name": "age of the stage below"},
+            ),
+            "sea_level": (
+                dims[0],
+                np.array([s.sea_level for s in self.history]),
+                {"units": "m", "long_name": "sea level of the stage (positive up)"},
+            ),
+        }
+
+    def _stage_te(self) -> dict[str, tuple[Any, ...]]:
+        """The te each recorded stage was solved with, on the ``stage`` axis (m)."""
+        low = np.array([float(s.te.min()) for s in self.history])
+        high = np.array([float(s.te.max()) for s in self.history])
+        one = np.where(low == high, low, np.nan)
+        return {
+            "stage_te": (
+                "stage",
+                one,
+                {
+                    "units": "m",
+                    "long_name": "te the stage was loaded (or unloaded) with; NaN for a "
+                    "te grid (see elastic_thickness, stage_te_min, stage_te_max)",
+                },
+            ),
+            "stage_te_min": ("stage", low, {"units": "m", "long_name": "smallest te of the stage"}),
+            "stage_te_max": ("stage", high, {"units": "m", "long_name": "largest te of the stage"}),
+        }
+
+    def _plate_attrs(self) -> dict[str, Any]:
+        """The plate's parameters for the output; its te only when every stage used it.
+
+        When a stage had a te of its own, ``te`` (and its rigidity, flexural parameter,
+        range) would describe a plate no stage may have had: they get the prefix
+        ``default_`` (the te of stages without their own) and ``te`` says "per stage"."""
+
+        out = self.plate.describe()
+        plate_te = grid_values(self.plate.te, self.grid, "plate te")
+        if all(np.array_equal(s.te, plate_te) for s in self.history):
+            return out
+        for key in ("te", "te_min", "te_max", "rigidity", "flexural_parameter"):
+            if key in out:
+                out[f"default_{key}"] = out.pop(key)
+        out["te"] = "per stage: see stage_te, stage_te_min, stage_te_max, elastic_thickness"
+        return out
 
 
 def stage_loading(
@@ -562,6 +804,7 @@ def stage_loading(
     pad_factor: float = 4.5,
     isopachs: str = "deposited",
     progress: Progress | None = None,
+    stretching: Stretching | None = None,
 ) -> xr.Dataset:
     """Flexure of a basin filled stage by stage (oldest first).
 
@@ -583,6 +826,10 @@ def stage_loading(
         has the given thicknesses; moat fill (``base_level``) adds sediment to it.
     progress : callable, optional
         Called as ``progress(done, total)`` after each stage.
+    stretching : Stretching, optional
+        A rift under the basin (see :class:`StagedBasin`); its water-loaded tectonic
+        subsidence at each stage is added as a flexed load and written as
+        ``tectonic_subsidence`` and ``thermal_subsidence``.
 
     Returns
     -------
@@ -593,7 +840,10 @@ def stage_loading(
         included), ``stage_fill``, ``stage_density`` (kg m^-3),
         ``sediment_thickness``, ``sediment_density``, ``elastic_thickness`` (m, the te
         each stage was solved with); ``final_stage_thickness``
-        (present compacted thickness of each stage); ``age`` coordinate.
+        (present compacted thickness of each stage); ``age`` coordinate. With
+        *stretching*: ``tectonic_subsidence`` (m, initial plus thermal, water-loaded,
+        local: the rift model's own column at the stage's age) and
+        ``thermal_subsidence`` (m, its thermal part).
 
     Raises
     ------
@@ -618,6 +868,7 @@ def stage_loading(
         max_iterations=max_iterations,
         edges=edges,
         pad_factor=pad_factor,
+        stretching=stretching,
     )
     for index, stage in enumerate(items, start=1):
         basin.add_stage(stage)
@@ -629,7 +880,35 @@ def stage_loading(
         basin.final_stage_thickness(),
         {"units": "m", "long_name": "present compacted thickness of each stage"},
     )
+    if basin.stretching is not None:
+        _add_rift(out, basin)
     return out
+
+
+def _add_rift(out: xr.Dataset, basin: StagedBasin) -> None:
+    """The rift's water-loaded tectonic and thermal subsidence at each stage of *out*."""
+    assert basin.stretching is not None
+    rift, beta = basin.stretching
+    check_memory(2 * basin.base.nbytes * out.sizes["stage"], "the tectonic subsidence")
+    parts = [rift.subsidence_parts(float(age), beta) for age in out["age"].values]
+    shape = basin.base.shape
+    for name, index, long_name in (
+        ("tectonic_subsidence", None, "initial plus thermal"),
+        ("thermal_subsidence", 1, "thermal (post-rift)"),
+    ):
+        values = np.stack(
+            [np.broadcast_to(p[0] + p[1] if index is None else p[index], shape) for p in parts]
+        )
+        out[name] = (
+            ("stage", "y", "x"),
+            values,
+            {
+                "units": "m",
+                "long_name": f"{long_name} tectonic subsidence of the rift, water-loaded, "
+                "local (positive down)",
+            },
+        )
+    out.attrs.update(rift.describe())
 
 
 def _deposited_stages(stages: list[Stage]) -> list[Stage]:
@@ -639,10 +918,31 @@ def _deposited_stages(stages: list[Stage]) -> list[Stage]:
     for stage in reversed(stages):  # youngest first: its burial is 0
         h = np.asarray(stage.thickness.values, dtype=np.float64)
         if not np.all(np.isfinite(h)) or h.min() < 0:
-            raise InputError(f"stage (age {stage.age}) thickness must be finite and >= 0 m")
+            raise InputError(
+                f"stage (age {stage.age}) thickness must be finite and >= 0 m with "
+                "isopachs='present' (erosion, a negative thickness, needs 'deposited')"
+            )
         top = np.zeros(h.shape) if burial is None else burial
-        grains = grain_thickness(top, top + h, stage.rock)
-        deposited = compacted_base(np.zeros(h.shape), grains, stage.rock)
+        grains = layer_grains(top, h, stage.rock)
+        deposited = compacted_thickness(np.zeros(h.shape), grains, stage.rock)
         out.append(dataclasses.replace(stage, thickness=stage.thickness.copy(data=deposited)))
         burial = top + h
     return out[::-1]
+
+
+def _rift_on_grid(
+    stretching: Stretching | None, plate: Plate, water_density: float, grid: xr.DataArray
+) -> tuple[Stretching, np.ndarray] | None:
+    """The rift with the plate's mantle and the basin's water densities, and its
+    stretching factors on *grid* (a number stays a 0-d array)."""
+    if stretching is None:
+        return None
+    if not isinstance(stretching, Stretching):
+        raise InputError(
+            f"stretching must be a gridflex.basin.Stretching, got {type(stretching).__name__}"
+        )
+    rift = stretching.for_densities(plate.mantle_density, water_density)
+    beta = rift.stretching_factor
+    if isinstance(beta, xr.DataArray):
+        return rift, grid_values(beta, grid, "stretching_factor", unit="")
+    return rift, np.asarray(float(beta))

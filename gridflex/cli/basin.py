@@ -8,7 +8,10 @@ from gridflex.workflows.basin_tables import load_basin_scenario
 from gridflex.workflows.run import RunOutcome
 
 NAME = "basin"
-HELP = "fill a basin stage by stage with compaction, or backstrip it, and write the NetCDF"
+HELP = (
+    "fill a basin stage by stage with compaction, or backstrip it; write the NetCDF (and "
+    "per-stage GeoTIFFs and maps, pseudo-wells, a horizon section)"
+)
 
 
 def _report(outcome: RunOutcome) -> list[str]:

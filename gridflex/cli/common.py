@@ -140,6 +140,12 @@ def wrote(paths: Iterable[str | Path]) -> list[str]:
     return [f"wrote {path}" for path in paths]
 
 
+def one_line(message: object) -> str:
+    """*message* as text on one line: control characters (a newline or an escape code in a
+    scenario key, a file name or a value) are shown as escapes, never printed raw."""
+    return "".join(c if c.isprintable() else repr(c)[1:-1] for c in str(message))
+
+
 def _show_warning(
     message: Warning | str,
     category: type[Warning],
@@ -148,7 +154,7 @@ def _show_warning(
     file: TextIO | None = None,
     line: str | None = None,
 ) -> None:
-    print(f"gridflex: warning: {message}", file=sys.stderr)
+    print(f"gridflex: warning: {one_line(message)}", file=sys.stderr)
 
 
 def configure_output(args: argparse.Namespace) -> None:

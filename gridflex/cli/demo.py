@@ -6,6 +6,7 @@ import argparse
 
 from gridflex.cli.common import SubParsers, add_common_options, wrote
 from gridflex.results.summary import format_summary
+from gridflex.validation import check_path_text
 from gridflex.workflows.demo import run_demo
 
 NAME = "demo"
@@ -21,6 +22,7 @@ def add_parser(subparsers: SubParsers) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
+    check_path_text("--out", args.out)
     outcome = run_demo(args.out)
     if not args.quiet:
         te = float(outcome.result.attrs["plate_te"])

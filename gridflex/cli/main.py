@@ -10,11 +10,11 @@ from collections.abc import Sequence
 from types import ModuleType
 
 from gridflex._version import __version__
-from gridflex.cli import basin, demo, fit, history, profile, run, sweep
-from gridflex.cli.common import configure_output
+from gridflex.cli import basin, demo, fit, history, profile, run, sweep, temap
+from gridflex.cli.common import configure_output, one_line
 from gridflex.errors import ConvergenceError, GridflexError
 
-COMMANDS: tuple[ModuleType, ...] = (run, history, fit, sweep, demo, profile, basin)
+COMMANDS: tuple[ModuleType, ...] = (run, history, fit, sweep, demo, profile, basin, temap)
 """Command modules; each has NAME, add_parser(subparsers) and execute(args)."""
 
 EXIT_INPUT = 2
@@ -48,13 +48,16 @@ def main(argv: Sequence[str] | None = None) -> int:
             configure_output(args)
             return handler(args)
     except ConvergenceError as exc:
-        print(f"gridflex: error: {exc}", file=sys.stderr)
+        print(f"gridflex: error: {one_line(exc)}", file=sys.stderr)
         return EXIT_CONVERGENCE
     except GridflexError as exc:
-        print(f"gridflex: error: {exc}", file=sys.stderr)
+        print(f"gridflex: error: {one_line(exc)}", file=sys.stderr)
         return EXIT_INPUT
     except OSError as exc:
-        print(f"gridflex: error: {exc.filename or ''}: {exc.strerror or exc}", file=sys.stderr)
+        print(
+            f"gridflex: error: {one_line(exc.filename or '')}: {one_line(exc.strerror or exc)}",
+            file=sys.stderr,
+        )
         return EXIT_INPUT
     except MemoryError as exc:  # a step whose estimate fell short: still one line
         print(
@@ -69,7 +72,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     except Exception as exc:  # a bug or a library failure: still one line, no traceback
         logging.getLogger(__name__).debug("traceback", exc_info=True)
         print(
-            f"gridflex: error: {type(exc).__name__}: {exc} (run with -v for the traceback)",
+            f"gridflex: error: {type(exc).__name__}: {one_line(exc)} "
+            "(run with -v for the traceback)",
             file=sys.stderr,
         )
         return EXIT_FAILURE

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+import xarray as xr
+
 from gridflex.cli.common import SubParsers, add_common_options, add_overwrite_option, wrote
 from gridflex.errors import InputError
 from gridflex.io.atomic import OutputSet
@@ -36,10 +38,23 @@ def add_parser(subparsers: SubParsers) -> None:
         type=float,
         metavar="VALUE",
         help="for a result with a time, stage or step axis: sample only the step nearest "
-        "VALUE (years for a history; default: a column per step)",
+        "VALUE (years for a history, the age in years before present for a basin's "
+        "stages; default: a column per step)",
     )
     add_overwrite_option(parser)
     add_common_options(parser)
+
+
+def _check_plot(profile: xr.Dataset, where: str) -> None:
+    """The profile holds what :func:`~gridflex.io.plots.plot_profile` draws, one step of it."""
+    if "deflection" not in profile:
+        raise InputError(
+            f"{where}: --plot draws the deflection, which this profile has not "
+            f"(variables: {', '.join(map(str, profile.data_vars))}); leave out --plot"
+        )
+    drawn = [profile[n] for n in ("deflection", "surface", "load") if n in profile]
+    if any(v.dims != ("distance",) for v in drawn):
+        raise InputError(f"{where}: --plot draws one step; choose it with --at")
 
 
 def execute(args: argparse.Namespace) -> int:
@@ -52,8 +67,8 @@ def execute(args: argparse.Namespace) -> int:
     if args.at is not None:
         result = at_step(result, args.at, args.result)
     profile = sample_profile(result, args.start, args.end, args.samples, args.variables)
-    if args.plot and any(v.dims != ("distance",) for v in profile.data_vars.values()):
-        raise InputError(f"{args.result}: --plot draws one step; choose it with --at")
+    if args.plot:
+        _check_plot(profile, args.result)
     table = one_column_per_step(profile)
     inputs = [args.result]
     with files.writing():  # both files or neither

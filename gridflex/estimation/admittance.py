@@ -19,6 +19,7 @@ coherence and admittance for uncorrelated surface and subsurface loads
 from __future__ import annotations
 
 import math
+import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -29,7 +30,7 @@ import scipy.optimize
 import xarray as xr
 
 from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
-from gridflex.errors import InputError
+from gridflex.errors import GridflexWarning, InputError
 from gridflex.estimation.search import check_search_bounds, grid_then_refine
 from gridflex.gravity.first_order import CrustLayers, compensation_factor
 from gridflex.grid import GridSpec, check_grid, check_same_grid, wavenumbers_squared
@@ -39,6 +40,7 @@ from gridflex.validation import check_choice, check_integer, check_number
 
 __all__ = [
     "CURVES",
+    "LeakageBiasWarning",
     "SpectralFit",
     "bouguer_admittance",
     "bouguer_coherence",
@@ -53,13 +55,20 @@ CURVES = ("free_air_admittance", "bouguer_admittance", "bouguer_coherence")
 _TWO_PI_G = 2.0 * math.pi * GRAVITATIONAL_CONSTANT
 
 
+class LeakageBiasWarning(GridflexWarning):
+    """A spectral prediction could not be estimated like the data: taper leakage of a
+    red topography spectrum pulls the fitted te low."""
+
+
 def _detrend(values: np.ndarray) -> np.ndarray:
-    """Remove the least-squares plane a + b i + c j (common practice before tapering)."""
-    ny, nx = values.shape
+    """Remove the least-squares plane a + b i + c j (common practice before tapering)
+    from a grid, or from each grid of a stack (the last two axes)."""
+    ny, nx = values.shape[-2:]
     j, i = np.meshgrid(np.arange(nx, dtype=np.float64), np.arange(ny, dtype=np.float64))
-    design = np.column_stack([np.ones(values.size), i.ravel(), j.ravel()])
-    coef, *_ = np.linalg.lstsq(design, values.ravel(), rcond=None)
-    return values - (design @ coef).reshape(values.shape)
+    design = np.column_stack([np.ones(ny * nx), i.ravel(), j.ravel()])
+    flat = values.reshape(-1, ny * nx)
+    coef, *_ = np.linalg.lstsq(design, flat.T, rcond=None)
+    return values - (design @ coef).T.reshape(values.shape)
 
 
 class _Bands:
@@ -83,10 +92,11 @@ class _Bands:
         check_memory(16.0 * len(self.tapers) * self.flat.size * 2, "multitaper spectra")
 
     def transform(self, values: np.ndarray) -> list[np.ndarray]:
-        """Band-selected Fourier coefficients of the detrended grid, one array per taper."""
+        """Band-selected Fourier coefficients of the detrended grid (or of each grid of a
+        stack, the last two axes), one array per taper."""
         v = _detrend(np.asarray(values, dtype=np.float64))
         return [
-            scipy.fft.rfft2(ty[:, None] * tx[None, :] * v, workers=-1)[self.inside]
+            scipy.fft.rfft2(ty[:, None] * tx[None, :] * v, workers=-1)[..., self.inside]
             for ty, tx in self.tapers
         ]
 
@@ -163,7 +173,9 @@ def cross_spectra(
         m⁻¹), ``coherence`` (raw), ``coherence_corrected`` ((n γ² - 1)/(n - 1),
         an approximate bias correction [from memory, PHYSICS.md 8.2]), ``estimates``
         (Fourier coefficients in the band), ``wavelength`` (m), ``band_low`` and
-        ``band_high`` (rad m⁻¹). Empty bands are dropped. Both grids are
+        ``band_high`` (rad m⁻¹), and ``topography`` (dims ``("y", "x")``, the grid
+        given), from which :func:`fit_te_spectral` estimates its prediction like the
+        data (drop it to save memory; the fit then warns). Empty bands are dropped. Both grids are
         detrended (plane removed) first. Attributes keep the taper settings and
         the band edges.
 
@@ -206,13 +218,20 @@ def cross_spectra(
             "wavelength": ("wavenumber", 2.0 * math.pi / k_mean, {"units": "m"}),
             "band_low": ("wavenumber", edges[:-1][keep], {"units": "rad m-1"}),
             "band_high": ("wavenumber", edges[1:][keep], {"units": "rad m-1"}),
+            "topography": (
+                ("y", "x"),
+                np.asarray(topography.values, dtype=np.float64),
+                {"units": topography.attrs.get("units", "m"), "long_name": "topography given"},
+            ),
         },
         coords={
             "wavenumber": (
                 "wavenumber",
                 k_mean,
                 {"units": "rad m-1", "long_name": "mean radial wavenumber of the band"},
-            )
+            ),
+            "y": topography["y"].values,
+            "x": topography["x"].values,
         },
         attrs={
             "tapers_per_axis": setup.count,
@@ -411,6 +430,15 @@ def _theory(
     """The curve to fit; *options* holds the keywords of :func:`fit_te_spectral`."""
     crust_density = options["crust_density"]
     if curve == "bouguer_coherence":
+        warnings.warn(
+            "fit_te_spectral: the Bouguer coherence is fitted with Forsyth's analytic curve "
+            "(one load ratio at all wavenumbers, no taper leakage); on red two-load "
+            "synthetics it was off by -27 to +95 % (tests/benchmarks/spectral_bias.py). "
+            "gridflex.te_map(topography, anomaly, plate, window=<the grid's side>) "
+            "estimates the prediction from the data's own spectra (load deconvolution)",
+            LeakageBiasWarning,
+            stacklevel=3,
+        )
         return lambda te, f: bouguer_coherence(k, plate.with_te(te), crust_density, f)
     if curve == "bouguer_admittance":
         if options["moho_depth"] is None:
@@ -423,8 +451,19 @@ def _theory(
             "curve 'free_air_admittance' needs gravity=CrustLayers(...) "
             "and topography_contrast (kg/m3)"
         )
-    if options["topography"] is not None:
-        return _matched_free_air(spectra, options["topography"], plate, layers, contrast, use)
+    topography = options["topography"]
+    if topography is None and "topography" in spectra.data_vars:
+        topography = spectra["topography"]
+    if topography is not None:
+        return _matched_free_air(spectra, topography, plate, layers, contrast, use)
+    warnings.warn(
+        "fit_te_spectral: the spectra carry no topography and none was given, so the "
+        "free-air prediction is the bare theoretical curve; taper leakage of red "
+        "topography spectra then pulls te low (seen: 30-38 km for 50 km). Pass "
+        "topography= or keep the spectra's 'topography' variable",
+        LeakageBiasWarning,
+        stacklevel=3,
+    )
     return lambda te, f: free_air_admittance(k, plate.with_te(te), layers, float(contrast))
 
 
@@ -505,6 +544,9 @@ def fit_te_spectral(
         *topography_contrast*), :func:`bouguer_admittance` (needs *moho_depth*) or
         :func:`bouguer_coherence` (fitted to ``coherence_corrected``). For the
         Forsyth curves the load ratio f is a nuisance parameter fitted inside each Te.
+        The analytic coherence curve is biased on red loads and warns
+        (:class:`LeakageBiasWarning`); :func:`gridflex.te_map` with one window the size
+        of the grid deconvolves the loads instead.
     bounds : tuple of float, default (1e3, 1e5)
         Te search range (m): log-spaced coarse grid of *samples*, then Brent.
     wavenumber_range : tuple of float, optional
@@ -520,11 +562,13 @@ def fit_te_spectral(
     load_ratio_bounds : tuple of float, default (0.01, 100)
         Search range of f.
     topography : xarray.DataArray, optional
-        The topography the spectra were estimated from. With the free-air curve
-        the prediction is then estimated like the data: the theoretical
-        admittance is applied to this topography and the model anomaly passes
-        through the same tapers and bands. This removes most of the bias of
-        taper leakage, which pulls Te low for red (steep) topography spectra.
+        The topography the spectra were estimated from; by default the spectra's own
+        ``topography`` variable (kept by :func:`cross_spectra`). With the free-air
+        curve the prediction is estimated like the data: the theoretical admittance
+        is applied to this topography and the model anomaly passes through the same
+        tapers and bands. This removes most of the bias of taper leakage, which
+        pulls Te low for red (steep) topography spectra. Without either, the bare
+        curve is fitted and :class:`LeakageBiasWarning` is issued.
 
     Returns
     -------

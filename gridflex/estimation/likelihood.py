@@ -20,7 +20,7 @@ from __future__ import annotations
 import math
 import warnings
 from collections.abc import Callable, Iterable
-from typing import Any
+from typing import Any, overload
 
 import numpy as np
 import scipy.fft
@@ -60,17 +60,29 @@ def parameter_count(searched: int, fit_load_scale: bool) -> int:
     return searched + (2 if fit_load_scale else 1)
 
 
+@overload
 def interval_threshold(
     rss_min: float, n: int, parameters: int, factor: float, confidence: float
-) -> tuple[float, float]:
+) -> tuple[float, float]: ...
+
+
+@overload
+def interval_threshold(
+    rss_min: np.ndarray, n: np.ndarray, parameters: int, factor: float, confidence: float
+) -> tuple[np.ndarray, np.ndarray]: ...
+
+
+def interval_threshold(
+    rss_min: Any, n: Any, parameters: int, factor: float, confidence: float
+) -> tuple[Any, Any]:
     """``(threshold, s2)``: the RSS increase that bounds every interval, and s².
 
     Parameters
     ----------
-    rss_min : float
-        Smallest residual sum of squares.
-    n : int
-        Number of compared data.
+    rss_min : float or numpy.ndarray
+        Smallest residual sum of squares (one per fit when an array).
+    n : int or numpy.ndarray
+        Number of compared data (per fit).
     parameters : int
         p, every fitted parameter (see :func:`parameter_count`).
     factor : float

@@ -95,10 +95,16 @@ def check_fit_options(
             f"{edges!r} (the constant-te fit uses the spectral solver; fit a te grid with "
             "gridflex.fit_te_scale for clamped or free edges)"
         )
+    level = check_confidence(confidence)
+    return quantity, edges, level, check_integer("samples", samples, minimum=5)
+
+
+def check_confidence(confidence: Any) -> float:
+    """The confidence level of an interval: a number in (0, 1)."""
     level = check_number("confidence", confidence)
     if not 0.0 < level < 1.0:
         raise InputError(f"confidence must lie in (0, 1), got {confidence!r}")
-    return quantity, edges, level, check_integer("samples", samples, minimum=5)
+    return level
 
 
 def _check_mask(mask: Any, observed: xr.DataArray, load: xr.DataArray) -> np.ndarray:

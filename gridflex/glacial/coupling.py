@@ -26,6 +26,11 @@ import xarray as xr
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.engine import deflection_attrs
 from gridflex.errors import ConvergenceError, InputError
+from gridflex.glacial.elastic import (
+    EARTH_POISSON_RATIO,
+    EARTH_YOUNGS_MODULUS,
+    elastic_deflection_attrs,
+)
 from gridflex.glacial.floatation import ICE_DENSITY, IceLoad
 from gridflex.glacial.response import INITIAL_STATES, ResponseStepper
 from gridflex.glacial.state import read_state, write_state
@@ -45,7 +50,7 @@ _EQUILIBRIUM_MAX_ITER = 200
 BED_ATTRS = {"units": "m", "long_name": "bed elevation (positive up)"}
 """Attributes of a bed-elevation grid."""
 
-_ICE_STATE = ("bed", "reference_ice_thickness", "ice_thickness", "sea_level")
+_ICE_STATE = ("deflection", "bed", "reference_ice_thickness", "ice_thickness", "sea_level")
 _ICE_SETTINGS = ("reference_sea_level", "ice_density", "water_density")
 
 
@@ -103,6 +108,12 @@ class IceStepper:
         reached linearly from the ice acting now, or the ice held during the step.
     edges, pad_factor, width_factor
         Padding; see :class:`gridflex.ResponseStepper`.
+    elastic, elastic_youngs_modulus, elastic_poisson_ratio
+        The instantaneous elastic half-space response of the Earth to the load, part of
+        the deflection (so the bed and floatation move with it); see
+        :class:`gridflex.ResponseStepper`. Its part of the deflection is
+        :attr:`elastic_deflection`; at a start at rest both are zero (the load's change
+        from the reference acts from the first step on).
 
     Raises
     ------
@@ -141,6 +152,9 @@ class IceStepper:
         edges: str = "infinite",
         pad_factor: float = DEFAULT_PAD_FACTOR,
         width_factor: float = DEFAULT_WIDTH_FACTOR,
+        elastic: bool = False,
+        elastic_youngs_modulus: float = EARTH_YOUNGS_MODULUS,
+        elastic_poisson_ratio: float = EARTH_POISSON_RATIO,
     ) -> None:
         check_ice_plate(plate)
         check_grid(bed, "bed")
@@ -169,6 +183,7 @@ class IceStepper:
             self.reference_sea_level if sea_level is None else self._sea(sea_level, "sea_level")
         )
         self._w = np.zeros(bed_values.shape)
+        self._elastic_w = self._w  # the elastic part of _w
         self._load = self.rule.change(self._thickness, self._level, self._w)
         self.stepper = ResponseStepper(
             bed,
@@ -182,6 +197,9 @@ class IceStepper:
             edges=edges,
             pad_factor=pad_factor,
             width_factor=width_factor,
+            elastic=elastic,
+            elastic_youngs_modulus=elastic_youngs_modulus,
+            elastic_poisson_ratio=elastic_poisson_ratio,
         )
         """The plate's :class:`~gridflex.ResponseStepper` (its load is the ice's)."""
         if initial == "equilibrium":
@@ -253,6 +271,7 @@ class IceStepper:
         level = self._sea(sea_level, "sea_level")
         # the load on the bed of the step's start drives the step (explicit lag) ...
         self._w = self.stepper.advance(dt_years, self.rule.change(ice, level, self._w)).values
+        self._keep_elastic()
         self._thickness, self._level = ice, level
         # ... and, on the new bed, becomes the load acting now
         self._reload()
@@ -277,6 +296,12 @@ class IceStepper:
             self.stepper.set_load(load)
         self._load = load
 
+    def _keep_elastic(self) -> None:
+        """Keep the elastic part of the deflection just computed (the load acting now
+        changes when it is evaluated again on the new bed; the deflection does not)."""
+        if self.stepper.elastic:
+            self._elastic_w = self.stepper.elastic_deflection.values
+
     def _settle(self) -> None:
         """Fixed point w = equilibrium(load(w)); the ocean term makes the load depend
         on w. Each iteration shrinks the error by about rho_w / rho_m (< 1/3 for water
@@ -292,6 +317,7 @@ class IceStepper:
                 self._load = self.rule.change(self._thickness, self._level, w)
                 self.stepper.set_load(self._load)
                 self._w = self.stepper.settle().values
+                self._keep_elastic()
                 log.info("initial equilibrium after %d iterations", iteration)
                 return
         raise ConvergenceError(
@@ -309,6 +335,17 @@ class IceStepper:
     def deflection(self) -> xr.DataArray:
         """Deflection w (m, positive down) now."""
         return self._wrap(self._w.copy(), "deflection", deflection_attrs())
+
+    @property
+    def elastic(self) -> bool:
+        """Whether the deflection includes the elastic Earth's response."""
+        return self.stepper.elastic
+
+    @property
+    def elastic_deflection(self) -> xr.DataArray:
+        """The elastic half-space's part of :attr:`deflection` (m, positive down); zeros
+        without ``elastic=True``."""
+        return self._wrap(self._elastic_w.copy(), "elastic_deflection", elastic_deflection_attrs())
 
     @property
     def bed_elevation(self) -> xr.DataArray:
@@ -370,11 +407,14 @@ class IceStepper:
         attrs, variables = self.stepper.state()
         shape = self._grid.shape
         arrays = {
+            "deflection": self._w,
             "bed": self.rule.bed,
             "reference_ice_thickness": self.rule.reference_ice,
             "ice_thickness": self._thickness,
             "sea_level": np.broadcast_to(np.asarray(self._level, dtype=np.float64), shape),
         }
+        if self.elastic:
+            arrays["elastic_deflection"] = self._elastic_w
         for name, values in arrays.items():
             variables[name] = (("y", "x"), np.array(values, dtype=np.float64))
         attrs.update(
@@ -418,6 +458,13 @@ class IceStepper:
         out._thickness = np.asarray(ds["ice_thickness"].values, dtype=np.float64)
         out._level = float(level.flat[0]) if ds.attrs.get("sea_level_uniform") else level
         out.stepper = stepper
-        out._w = stepper.deflection.values
+        out._w = np.asarray(ds["deflection"].values, dtype=np.float64)
+        out._elastic_w = np.zeros(out._w.shape)
+        if stepper.elastic:
+            if "elastic_deflection" not in ds.variables:
+                raise InputError(
+                    f"{path}: the ice stepper state has elastic = 1 but lacks 'elastic_deflection'"
+                )
+            out._elastic_w = np.asarray(ds["elastic_deflection"].values, dtype=np.float64)
         out._load = out.rule.change(out._thickness, out._level, out._w)
         return out

@@ -24,6 +24,11 @@ from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.engine import deflection_attrs
 from gridflex.errors import ConvergenceError, InputError
 from gridflex.glacial.coupling import BED_ATTRS, IceStepper, check_ice_plate
+from gridflex.glacial.elastic import (
+    EARTH_POISSON_RATIO,
+    EARTH_YOUNGS_MODULUS,
+    elastic_deflection_attrs,
+)
 from gridflex.glacial.floatation import ICE_DENSITY, bed_stress, grounded_mask
 from gridflex.glacial.response import (
     INITIAL_STATES,
@@ -213,6 +218,9 @@ def ice_response(
     edges: str = "infinite",
     pad_factor: float = DEFAULT_PAD_FACTOR,
     width_factor: float = DEFAULT_WIDTH_FACTOR,
+    elastic: bool = False,
+    elastic_youngs_modulus: float = EARTH_YOUNGS_MODULUS,
+    elastic_poisson_ratio: float = EARTH_POISSON_RATIO,
     output_times: ArrayLike | None = None,
     present_day: bool = False,
     progress: Progress | None = None,
@@ -255,6 +263,10 @@ def ice_response(
         closely. Without an ocean the result does not depend on it (the steps are exact).
     edges, pad_factor, width_factor
         Padding; see :class:`gridflex.ResponseStepper`.
+    elastic, elastic_youngs_modulus, elastic_poisson_ratio
+        The instantaneous elastic half-space response of the Earth to the load change,
+        added to the deflection (so the bed and the floatation move with it too); see
+        :class:`gridflex.ResponseStepper`.
     output_times : array_like, optional
         Times (years) at which to record the result, within the history (refused
         otherwise); by default every time of the history. A time between two times of
@@ -276,7 +288,8 @@ def ice_response(
         ``deflection`` (m, positive down), ``uplift_rate`` (m/yr, positive up),
         ``bed_elevation`` (m), ``load`` (the stress change sigma − sigma_ref, Pa) and
         ``grounded`` (1 where ice rests on the bed), all (time, y, x), and the
-        ``sea_level`` series.
+        ``sea_level`` series; with ``elastic=True`` also ``elastic_deflection`` (m, the
+        elastic part of ``deflection``).
 
     Raises
     ------
@@ -296,7 +309,7 @@ def ice_response(
     present_day = check_flag("present_day", present_day)
     (ny, nx) = first.shape
     check_memory(
-        (4 * 8.0 + 1.0) * wanted.size * ny * nx,
+        ((5 if elastic is True else 4) * 8.0 + 1.0) * wanted.size * ny * nx,
         f"deflection, uplift rate, bed and load for {wanted.size} times of {ny} x {nx}",
     )
 
@@ -318,6 +331,9 @@ def ice_response(
             edges=edges,
             pad_factor=pad_factor,
             width_factor=width_factor,
+            elastic=elastic,
+            elastic_youngs_modulus=elastic_youngs_modulus,
+            elastic_poisson_ratio=elastic_poisson_ratio,
         )
 
     stepper = build(bed)
@@ -441,6 +457,8 @@ def _run_history(
     }
     out["grounded"] = np.empty((nt, ny, nx), dtype=np.int8)
     out["sea_level"] = np.empty(nt)
+    if stepper.elastic:
+        out["elastic_deflection"] = np.empty((nt, ny, nx))
     recorded = 0
 
     def record(at: float) -> None:
@@ -451,6 +469,8 @@ def _run_history(
             out["uplift_rate"][recorded] = stepper.uplift_rate().values
             out["grounded"][recorded] = stepper.grounded
             out["sea_level"][recorded] = float(np.mean(stepper.sea_level))
+            if stepper.elastic:
+                out["elastic_deflection"][recorded] = stepper.elastic_deflection.values
             recorded += 1
 
     ends = _schedule(times, wanted, step_limit)
@@ -530,6 +550,12 @@ def _ice_dataset(
         "sea_level": ("time", out["sea_level"], meta["sea_level"]),
         "reference_load": (("y", "x"), stepper.rule.reference_stress, meta["reference_load"]),
     }
+    if "elastic_deflection" in out:
+        data_vars["elastic_deflection"] = (
+            dims,
+            out["elastic_deflection"],
+            elastic_deflection_attrs(),
+        )
     ds_attrs = provenance_attrs(
         plate.describe(), attrs, "bed deflection under an ice-thickness history"
     )

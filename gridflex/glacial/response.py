@@ -35,6 +35,11 @@ import xarray as xr
 from gridflex.constants import SECONDS_PER_YEAR
 from gridflex.engine import SPECTRAL_EDGES, check_edge_load, deflection_attrs
 from gridflex.errors import GridflexWarning, InputError
+from gridflex.glacial.elastic import (
+    EARTH_POISSON_RATIO,
+    EARTH_YOUNGS_MODULUS,
+    elastic_deflection_attrs,
+)
 from gridflex.glacial.state import (
     engine_state,
     plate_from_state,
@@ -49,6 +54,7 @@ from gridflex.loads import load_attrs
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
 from gridflex.progress import Progress
+from gridflex.solvers.elastic_halfspace import ElasticHalfSpace, check_elastic_moduli
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.solvers.variable_relaxation import VariableRelaxation
 from gridflex.solvers.viscous import (
@@ -57,12 +63,13 @@ from gridflex.solvers.viscous import (
     MODELS,
     SpectralRelaxation,
 )
-from gridflex.validation import check_choice, check_number
+from gridflex.validation import check_choice, check_flag, check_number
 
 __all__ = [
     "INITIAL_STATES",
     "ResponseStepper",
     "SAVED_SETTINGS",
+    "STEPPER_FIELDS",
     "check_history_grid",
     "check_times",
     "uplift_rate_attrs",
@@ -167,8 +174,20 @@ SAVED_SETTINGS = (
     "edges",
     "pad_factor",
     "width_factor",
+    "elastic",
+    "elastic_youngs_modulus",
+    "elastic_poisson_ratio",
 )
 """The :class:`ResponseStepper` arguments a state file keeps (all but grid, plate, load)."""
+
+STEPPER_FIELDS = (
+    frozenset({"plate", "_grid", "time", "_engine", "_elastic_now", "_elastic_before"})
+    | frozenset({"_elastic_dt"}),
+    frozenset({*SAVED_SETTINGS, "_settings", "_spec", "_elastic"}),
+)
+"""The attributes of a :class:`ResponseStepper` that a state file keeps (the engine
+through :func:`gridflex.glacial.state.engine_state`) and the ones rebuilt from the
+settings; a test checks that every attribute is in one of the two."""
 
 
 class ResponseStepper:
@@ -209,9 +228,19 @@ class ResponseStepper:
         Padding on each side in flexural parameters (both models).
     width_factor : float, default 1.0
         Half-space only: padding on each side of at least this many grid widths. The
-        transient of the half-space reaches far beyond the load; the periodic images
-        this padding pushes away cause errors of a few tenths of a percent in the
-        first thousand years after a load the size of the grid is applied, less later.
+        net force and first moment of the load relax on the infinite plane (computed
+        apart, :mod:`gridflex.solvers.far_field`); the rest decays fast enough for this
+        padding (on the Bueler et al. disc: 0.1 % of w(0) from the first year).
+    elastic : bool, default False
+        Add the instantaneous elastic response of the Earth, an elastic half-space
+        under the load acting now (Boussinesq; :func:`gridflex.elastic_halfspace_response`),
+        to the deflection; it is also given apart (:attr:`elastic_deflection`). Needs
+        ``edges="infinite"``.
+    elastic_youngs_modulus : float, default 1.74e11
+        E of that half-space (Pa; uppermost mantle of PREM, see
+        :data:`gridflex.glacial.elastic.EARTH_YOUNGS_MODULUS`).
+    elastic_poisson_ratio : float, default 0.28
+        Its ν.
 
     Examples
     --------
@@ -239,6 +268,9 @@ class ResponseStepper:
         edges: str = "infinite",
         pad_factor: float = DEFAULT_PAD_FACTOR,
         width_factor: float = DEFAULT_WIDTH_FACTOR,
+        elastic: bool = False,
+        elastic_youngs_modulus: float = EARTH_YOUNGS_MODULUS,
+        elastic_poisson_ratio: float = EARTH_POISSON_RATIO,
     ) -> None:
         _check_plate(plate)
         if plate.infill_density > 0:
@@ -277,11 +309,29 @@ class ResponseStepper:
         )
         self.pad_factor = float(pad_factor)
         self.width_factor = float(width_factor)
-        self._settings: dict[str, Any] = {name: getattr(self, name) for name in SAVED_SETTINGS}
         self.time = 0.0
         """Time elapsed since the start (years)."""
+        self.elastic = check_flag("elastic", elastic)
+        self.elastic_youngs_modulus, self.elastic_poisson_ratio = check_elastic_moduli(
+            elastic_youngs_modulus, elastic_poisson_ratio
+        )
+        self._settings: dict[str, Any] = {name: getattr(self, name) for name in SAVED_SETTINGS}
+        self._elastic: ElasticHalfSpace | None = None
+        self._elastic_now = np.zeros(self._spec.shape)
+        self._elastic_before = self._elastic_now
+        self._elastic_dt = 0.0
+        if self.elastic:
+            if self.edges != "infinite":
+                raise InputError(
+                    "elastic=True needs edges='infinite': the elastic half-space's response "
+                    "to a periodic load has no finite mean"
+                )
+            self._elastic = ElasticHalfSpace.build(
+                self._spec, self.elastic_youngs_modulus, self.elastic_poisson_ratio
+            )
         if load is not None:
-            self._engine.set_load(self._values(load, "load"))
+            self.set_load(load)
+            self._elastic_before = self._elastic_now
         if self.initial == "equilibrium":
             self._engine.set_equilibrium()
         log.info(
@@ -333,13 +383,22 @@ class ResponseStepper:
             Deflection w (m, positive down) at the new time.
         """
         step = check_number("dt", dt, unit="years", minimum=0.0, strict=True)
-        self._engine.step(step * SECONDS_PER_YEAR, self._values(load, "load"))
+        values = self._values(load, "load")
+        self._engine.step(step * SECONDS_PER_YEAR, values)
         self.time += step
+        if self._elastic is not None:
+            self._elastic_before = self._elastic_now
+            self._elastic_dt = step * SECONDS_PER_YEAR
+            self._elastic_now = self._elastic.response(values)
         return self.deflection
 
     def set_load(self, load: xr.DataArray | np.ndarray) -> None:
-        """Change the load acting now (Pa) without moving the plate (a sudden change)."""
-        self._engine.set_load(self._values(load, "load"))
+        """Change the load acting now (Pa) without moving the plate (a sudden change;
+        the elastic part, if any, follows it at once)."""
+        values = self._values(load, "load")
+        self._engine.set_load(values)
+        if self._elastic is not None:
+            self._elastic_now = self._elastic.response(values)
 
     def settle(self) -> xr.DataArray:
         """Put the plate in elastic equilibrium with the load acting now (as after an
@@ -349,16 +408,31 @@ class ResponseStepper:
 
     @property
     def deflection(self) -> xr.DataArray:
-        """Current deflection w (m, positive down)."""
-        return self._wrap(self._engine.deflection(), "deflection", deflection_attrs())
+        """Current deflection w (m, positive down), with the elastic part if any."""
+        values = self._engine.deflection()
+        if self._elastic is not None:
+            values += self._elastic_now
+        return self._wrap(values, "deflection", deflection_attrs())
+
+    @property
+    def elastic_deflection(self) -> xr.DataArray:
+        """The elastic half-space's part of the deflection (m, positive down) under the
+        load acting now; zeros without ``elastic=True``."""
+        return self._wrap(
+            self._elastic_now.copy(), "elastic_deflection", elastic_deflection_attrs()
+        )
 
     def equilibrium(self) -> xr.DataArray:
         """Elastic equilibrium (m, positive down) under the load acting now: where the
-        plate is heading."""
-        return self._wrap(self._engine.equilibrium(), "deflection", deflection_attrs())
+        plate is heading (with the elastic part if any)."""
+        values = self._engine.equilibrium()
+        if self._elastic is not None:
+            values += self._elastic_now
+        return self._wrap(values, "deflection", deflection_attrs())
 
     def uplift_rate(self, load: xr.DataArray | np.ndarray | None = None) -> xr.DataArray:
-        """Uplift rate −dw/dt (m/yr, positive up) now.
+        """Uplift rate −dw/dt (m/yr, positive up) now; with the elastic part, whose rate
+        is its change since the start of the last step over that step.
 
         Parameters
         ----------
@@ -368,16 +442,25 @@ class ResponseStepper:
         """
         if load is not None:
             self.set_load(load)
-        rate = self._engine.rate() * (-SECONDS_PER_YEAR)
-        return self._wrap(rate, "uplift_rate", uplift_rate_attrs())
+        rate = self._engine.rate()
+        if self._elastic is not None and self._elastic_dt > 0:
+            # the elastic part follows the load: its change since the start of the last
+            # step over that step (exact for a load linear within the step)
+            rate += (self._elastic_now - self._elastic_before) / self._elastic_dt
+        return self._wrap(rate * (-SECONDS_PER_YEAR), "uplift_rate", uplift_rate_attrs())
 
     # -- saving and restoring ---------------------------------------------------------
     def state(self) -> tuple[dict[str, Any], dict[str, Any]]:
         """Attributes and variables of the state file (:mod:`gridflex.glacial.state`)."""
         attrs, variables = plate_state(self.plate)
         engine_attrs, engine_variables = engine_state(self._engine)
+        settings = {k: int(v) if isinstance(v, bool) else v for k, v in self._settings.items()}
+        if self.elastic:
+            attrs["elastic_dt"] = self._elastic_dt
+            variables["elastic_now"] = (("y", "x"), self._elastic_now)
+            variables["elastic_before"] = (("y", "x"), self._elastic_before)
         return (
-            {**self._settings, "time": self.time, **attrs, **engine_attrs},
+            {**settings, "time": self.time, **attrs, **engine_attrs},
             {**variables, **engine_variables},
         )
 
@@ -416,6 +499,7 @@ class ResponseStepper:
         except KeyError as exc:
             raise InputError(f"{path}: the stepper state lacks the setting {exc}") from exc
         initial = settings.pop("initial")
+        settings["elastic"] = bool(settings["elastic"])  # NetCDF keeps it as 0 or 1
         with warnings.catch_warnings():
             # the plate's infill density was warned about when the run began
             warnings.simplefilter("ignore", GridflexWarning)
@@ -424,6 +508,15 @@ class ResponseStepper:
         stepper._settings["initial"] = stepper.initial
         restore_engine(stepper._engine, ds, path)
         stepper.time = float(ds.attrs["time"])
+        if stepper.elastic:
+            try:
+                stepper._elastic_dt = float(ds.attrs["elastic_dt"])
+                stepper._elastic_now = np.array(ds["elastic_now"].values, dtype=np.float64)
+                stepper._elastic_before = np.array(ds["elastic_before"].values, dtype=np.float64)
+            except KeyError as exc:
+                raise InputError(
+                    f"{path}: the stepper state has elastic = 1 but lacks {exc}"
+                ) from exc
         return stepper
 
     @classmethod
@@ -450,10 +543,18 @@ class ResponseStepper:
             "edges": self.edges,
             "padded_shape": np.array(self.padded_shape, dtype=np.int64),
             "pad_factor": self.pad_factor,
+            "elastic_earth": "half-space (Boussinesq)" if self.elastic else "none",
         }
+        if self.elastic:
+            out["elastic_youngs_modulus"] = self.elastic_youngs_modulus
+            out["elastic_poisson_ratio"] = self.elastic_poisson_ratio
         if self.model == "half-space":
             out["mantle_viscosity"] = self.mantle_viscosity
             out["pad_width_factor"] = self.width_factor
+            if getattr(engine, "far", None) is not None:
+                out["long_wavelengths"] = (
+                    "net force and first moment of the load relaxed on the infinite plane"
+                )
         else:
             out["relaxation_time"] = self.relaxation_time
         if isinstance(engine, VariableRelaxation):
@@ -522,6 +623,9 @@ def viscous_response(
     edges: str = "infinite",
     pad_factor: float = DEFAULT_PAD_FACTOR,
     width_factor: float = DEFAULT_WIDTH_FACTOR,
+    elastic: bool = False,
+    elastic_youngs_modulus: float = EARTH_YOUNGS_MODULUS,
+    elastic_poisson_ratio: float = EARTH_POISSON_RATIO,
     progress: Progress | None = None,
 ) -> xr.Dataset:
     """Deflection through time of an elastic plate over a viscous or relaxing mantle.
@@ -556,6 +660,9 @@ def viscous_response(
         Between two times the load varies linearly, or stays at the earlier value.
     edges, pad_factor, width_factor
         Padding; see :class:`ResponseStepper`.
+    elastic, elastic_youngs_modulus, elastic_poisson_ratio
+        The instantaneous elastic half-space response of the Earth, added to the
+        deflection; see :class:`ResponseStepper`.
     progress : callable, optional
         Called as ``progress(done, total)`` after each time step.
 
@@ -564,7 +671,8 @@ def viscous_response(
     xarray.Dataset
         ``deflection`` (m, positive down) and ``uplift_rate`` (m/yr, positive up,
         −dw/dt under the load of that time), both (time, y, x), and the ``load``;
-        attributes record the plate, the model and the padding.
+        with ``elastic=True`` also ``elastic_deflection`` (the elastic part, included
+        in ``deflection``); attributes record the plate, the model and the padding.
 
     Raises
     ------
@@ -587,7 +695,8 @@ def viscous_response(
     nt = times.size
     ny, nx = first.shape
     check_memory(
-        2 * 8.0 * nt * ny * nx, f"deflection and uplift rate for {nt} times of {ny} x {nx}"
+        (3 if elastic is True else 2) * 8.0 * nt * ny * nx,
+        f"deflection and uplift rate for {nt} times of {ny} x {nx}",
     )
     if edges == "infinite":
         warn_edge_load(np.abs(load_history.values).max(axis=0))
@@ -604,15 +713,23 @@ def viscous_response(
         edges=edges,
         pad_factor=pad_factor,
         width_factor=width_factor,
+        elastic=elastic,
+        elastic_youngs_modulus=elastic_youngs_modulus,
+        elastic_poisson_ratio=elastic_poisson_ratio,
     )
     deflection = np.empty((nt, ny, nx))
     uplift = np.empty((nt, ny, nx))
+    elastic_part = np.empty((nt, ny, nx)) if stepper.elastic else None
     deflection[0] = stepper.deflection.values
     uplift[0] = stepper.uplift_rate().values
+    if elastic_part is not None:
+        elastic_part[0] = stepper.elastic_deflection.values
     linear = stepper.interpolation == "linear"
     for n in range(1, nt):
         dt = times[n] - times[n - 1]
         deflection[n] = stepper.advance(dt, values[n] if linear else values[n - 1]).values
+        if elastic_part is not None:
+            elastic_part[n] = stepper.elastic_deflection.values
         uplift[n] = stepper.uplift_rate(None if linear else values[n]).values
         if progress is not None:
             progress(n, nt - 1)
@@ -626,5 +743,11 @@ def viscous_response(
         "uplift_rate": (("time", "y", "x"), uplift, uplift_rate_attrs()),
         "load": load_var,
     }
+    if elastic_part is not None:
+        data_vars["elastic_deflection"] = (
+            ("time", "y", "x"),
+            elastic_part,
+            elastic_deflection_attrs(),
+        )
     attrs = provenance_attrs(plate.describe(), stepper.describe(), "plate deflection through time")
     return xr.Dataset(data_vars, coords=coords, attrs=attrs)

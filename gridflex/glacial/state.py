@@ -6,8 +6,9 @@ File format (version 1), written atomically through :func:`gridflex.io.netcdf.wr
   ``"IceStepper"``), ``gridflex_state_version`` = 1;
 * every setting of the stepper as a global attribute named like its argument (``model``,
   ``mantle_viscosity`` in Pa s, ``relaxation_time`` in years, ``initial``,
-  ``interpolation``, ``edges``, ``pad_factor``, ``width_factor``) and ``time`` (years
-  since the start);
+  ``interpolation``, ``edges``, ``pad_factor``, ``width_factor``, ``elastic`` (0 or 1),
+  ``elastic_youngs_modulus`` in Pa, ``elastic_poisson_ratio``) and ``time`` (years since
+  the start);
 * the plate as attributes ``plate_<field>`` (:class:`gridflex.Plate`'s fields, SI units);
   ``plate_te`` is a number of metres, or ``"grid"`` with the te grid in the variable
   ``plate_te`` on ``(y, x)``;
@@ -16,7 +17,16 @@ File format (version 1), written atomically through :func:`gridflex.io.netcdf.wr
   or ``"VariableRelaxation"``); its arrays are variables ``engine_<name>`` (complex
   spectra split into ``engine_<name>_real`` and ``engine_<name>_imag``), its counters
   attributes ``engine_<name>``;
-* an ``IceStepper`` adds ``bed``, ``reference_ice_thickness``, ``ice_thickness`` and
+* the far field of the half-space (:class:`~gridflex.solvers.far_field.FarField`, present
+  with padding) adds ``engine_far_state`` (its radial modes, m, on
+  ``(engine_far_moment, engine_far_node)``) and ``engine_far_moments`` (the net force,
+  N, and first moments, N m, of the load acting now, on ``(engine_far_moment,)``);
+* with ``elastic`` = 1 (the elastic Earth), ``elastic_now`` and ``elastic_before`` (m, on
+  ``(y, x)``: the elastic displacement under the load acting now and at the start of the
+  last step) and the attribute ``elastic_dt`` (that step, s);
+* an ``IceStepper`` adds ``deflection`` (m, on ``(y, x)``: the deflection of the last step,
+  on whose bed the next load is evaluated), with ``elastic`` = 1 ``elastic_deflection``
+  (its elastic part), and ``bed``, ``reference_ice_thickness``, ``ice_thickness`` and
   ``sea_level`` (m, on ``(y, x)``: the reference bed, the reference ice and the ice and
   sea level acting now) and the attributes ``reference_sea_level`` (m),
   ``ice_density`` and ``water_density`` (kg m^-3).
@@ -36,6 +46,7 @@ import xarray as xr
 from gridflex.errors import InputError
 from gridflex.io.netcdf import read_result, write_netcdf
 from gridflex.plate import Plate
+from gridflex.solvers.far_field import FarField
 from gridflex.solvers.variable_relaxation import VariableRelaxation
 from gridflex.solvers.viscous import SpectralRelaxation
 
@@ -56,7 +67,7 @@ STATE_VERSION = 1
 
 ENGINE_FIELDS: dict[type, tuple[frozenset[str], frozenset[str]]] = {
     SpectralRelaxation: (
-        frozenset({"state", "load_spectrum"}),
+        frozenset({"state", "load_spectrum", "far"}),
         frozenset(
             {"spec", "shape", "model", "interpolation", "transfer", "rates"}
             | {"_factors", "_scratch", "_rate_factors"}
@@ -65,17 +76,26 @@ ENGINE_FIELDS: dict[type, tuple[frozenset[str], frozenset[str]]] = {
     VariableRelaxation: (
         frozenset(
             {"load", "state", "solves", "iterations", "_equilibria", "_velocity"}
-            | {"_step_solvers"}
+            | {"_step_solvers", "far"}
         ),
         frozenset(
             {"spec", "model", "interpolation", "viscosity", "relaxation_time"}
             | {"equilibrium_solver", "max_substep", "tolerance", "_settings", "_inverse_viscous"}
+            | {"_far_grid", "_far_basis", "_stiffness"}
+        ),
+    ),
+    FarField: (
+        frozenset({"state", "moments"}),
+        frozenset(
+            {"nodes", "rates", "transfer", "hankel0", "hankel1", "rows", "cols", "kernels"}
+            | {"interpolation", "offsets", "radial_step", "cell_area"}
         ),
     ),
 }
-"""Per engine class: the fields that are state (saved) and the ones rebuilt from the
-settings or caches (not saved). Every field of the class must be in one of the two
-(a test checks it), so a field added later cannot be forgotten silently."""
+"""Per engine class (and the far field an engine holds as ``far``): the fields that are
+state (saved) and the ones rebuilt from the settings or caches (not saved). Every field
+of the class must be in one of the two (a test checks it), so a field added later cannot
+be forgotten silently."""
 
 _PLATE_FIELDS = (
     "youngs_modulus",
@@ -147,6 +167,9 @@ def engine_state(engine: Any) -> tuple[dict[str, Any], dict[str, Any]]:
         variables["engine_step_lengths"] = (("engine_step_lengths",), steps)
     else:  # pragma: no cover - a new engine must be added here and to ENGINE_FIELDS
         raise TypeError(f"cannot save the state of a {type(engine).__name__}")
+    if engine.far is not None:
+        array("far_state", engine.far.state, ("engine_far_moment", "engine_far_node"))
+        array("far_moments", engine.far.moments, ("engine_far_moment",))
     return attrs, variables
 
 
@@ -177,8 +200,10 @@ def restore_engine(engine: Any, ds: xr.Dataset, path: Path) -> None:
                     f"{current.shape}"
                 )
             setattr(engine, name, np.ascontiguousarray(value))
+        _restore_far(engine.far, ds, path)
         return
     assert isinstance(engine, VariableRelaxation)
+    _restore_far(engine.far, ds, path)
     for h in ds["engine_step_lengths"].values:
         engine._step_solver(float(h))  # the same set-ups in the same order
     engine.state = _array(ds, "state")
@@ -191,6 +216,25 @@ def restore_engine(engine: Any, ds: xr.Dataset, path: Path) -> None:
         loads = np.asarray(ds["engine_equilibrium_loads"].values, dtype=np.float64)
         solutions = np.asarray(ds["engine_equilibrium_deflections"].values, dtype=np.float64)
         engine._equilibria = [(loads[i].copy(), solutions[i].copy()) for i in range(len(loads))]
+
+
+def _restore_far(far: FarField | None, ds: xr.Dataset, path: Path) -> None:
+    """Put the saved radial modes and moments into the engine's far field, if it has one."""
+    saved = "engine_far_state" in ds.variables
+    if far is None and not saved:
+        return
+    if far is None or not saved:
+        raise InputError(
+            f"{path}: the state {'has' if saved else 'lacks'} the half-space's far field "
+            f"(engine_far_state) but these settings {'do not ' if far is None else ''}use one; "
+            "the file does not match its own settings"
+        )
+    state, moments = _array(ds, "far_state"), _array(ds, "far_moments")
+    if state.shape != far.state.shape or moments.shape != far.moments.shape:
+        raise InputError(
+            f"{path}: engine_far_state has shape {state.shape}, the settings give {far.state.shape}"
+        )
+    far.state, far.moments = state, moments
 
 
 def check_engine_fields(engine_class: type) -> set[str]:

@@ -14,6 +14,13 @@ come from one run. A run that fails removes its temporaries and the folders it m
 Temporaries are named ``.<name>.gridflex-<pid>-<random>.part`` (replaced files kept for
 a roll-back: ``.old``): a later run writing the same outputs removes those whose
 process is gone (after a ``kill -9`` or a power loss), and says so.
+
+The renames of a set of several files are journalled: before the first rename a
+``.<name>.gridflex-<pid>-<random>.commit`` file listing every (temporary, output) pair is
+written and flushed in each output folder. A run killed between two renames leaves it
+behind; the next run writing into one of these folders finishes that commit first (every
+listed temporary still there is renamed into place), so the outputs of the interrupted
+run are all new, never a mix of two runs.
 """
 
 from __future__ import annotations
@@ -21,6 +28,7 @@ from __future__ import annotations
 import contextlib
 import contextvars
 import errno
+import json
 import logging
 import os
 import re
@@ -48,8 +56,11 @@ __all__ = [
 log = logging.getLogger(__name__)
 
 _TAG = "gridflex"
-_TEMPORARY = re.compile(r"^\.(?P<name>.+)\.gridflex-(?P<pid>\d+)-[0-9A-Za-z_]+\.(?:part|old)$")
-"""Names of the temporaries of :func:`temporary_path` and the roll-back copies."""
+_TEMPORARY = re.compile(
+    r"^\.(?P<name>.+)\.gridflex-(?P<pid>\d+)-[0-9A-Za-z_]+\.(?P<kind>part|old|commit)$"
+)
+"""Names of the temporaries of :func:`temporary_path`, the roll-back copies and the
+commit journals."""
 
 _ACTIVE: contextvars.ContextVar[OutputSet | None] = contextvars.ContextVar(
     "gridflex_output_set", default=None
@@ -167,6 +178,7 @@ def remove_stale_temporaries(folder: Path, names: Iterable[str] | None = None) -
     """
     wanted = None if names is None else set(names)
     removed: list[Path] = []
+    _finish_interrupted_commits(folder)
     try:
         entries = list(os.scandir(folder))
     except OSError:
@@ -176,7 +188,7 @@ def remove_stale_temporaries(folder: Path, names: Iterable[str] | None = None) -
         if match is None or (wanted is not None and match["name"] not in wanted):
             continue
         pid = int(match["pid"])
-        if _process_alive(pid):
+        if match["kind"] == "commit" or _process_alive(pid):
             continue
         try:
             os.unlink(entry.path)
@@ -188,6 +200,80 @@ def remove_stale_temporaries(folder: Path, names: Iterable[str] | None = None) -
         log.info("removed %s, left by an interrupted gridflex run (process %d)", entry.path, pid)
         removed.append(Path(entry.path))
     return removed
+
+
+def _write_journal(pairs: list[tuple[Path, Path]], overwrite: bool) -> list[Path]:
+    """Write the commit journal of *pairs* (temporary, output) into every output folder
+    and flush it; the journals' paths (empty when there is one file: nothing to mix)."""
+    if len(pairs) < 2:
+        return []
+    journals: list[Path] = []
+    try:
+        for final in _one_per_folder(pairs):
+            journals.append(temporary_path(final, "commit"))
+        record = {
+            "overwrite": overwrite,
+            "files": [[str(tmp), str(final)] for tmp, final in pairs],
+            "journals": [str(path) for path in journals],
+        }
+        for path in journals:
+            path.write_text(json.dumps(record))
+            _finish_temporary(path)
+    except BaseException:
+        _remove_all(journals)
+        raise
+    return journals
+
+
+def _one_per_folder(pairs: list[tuple[Path, Path]]) -> list[Path]:
+    """The first output of *pairs* in each folder."""
+    firsts: dict[Path, Path] = {}
+    for _, final in pairs:
+        firsts.setdefault(final.parent, final)
+    return list(firsts.values())
+
+
+def _finish_interrupted_commits(folder: Path) -> None:
+    """Finish the commits that a killed run left journalled in *folder*: every listed
+    temporary still there is renamed into place (without overwrite only where the output
+    name is still free), then the journals are removed. Each is logged (WARNING)."""
+    try:
+        entries = [e for e in os.scandir(folder) if e.name.endswith(".commit")]
+    except OSError:
+        return
+    for entry in entries:
+        match = _TEMPORARY.match(entry.name)
+        if match is None or _process_alive(int(match["pid"])):
+            continue
+        try:
+            record = json.loads(Path(entry.path).read_text())
+            pairs = [(Path(tmp), Path(final)) for tmp, final in record["files"]]
+            overwrite = bool(record["overwrite"])
+            journals = [Path(p) for p in record["journals"]]
+        except FileNotFoundError:  # finished by another run meanwhile
+            continue
+        except (OSError, ValueError, KeyError, TypeError):  # killed while writing it:
+            _unlink(Path(entry.path))  # no rename had started, the temporaries are stale
+            continue
+        for tmp, final in pairs:
+            try:
+                if not tmp.exists():  # renamed before the kill
+                    pass
+                elif overwrite:
+                    os.replace(tmp, final)
+                else:
+                    _link_new(tmp, final)
+            except OSError as exc:
+                log.warning("cannot finish the interrupted output %s: %s", final, exc)
+            for backup in final.parent.glob(f".{final.name}.{_TAG}-{match['pid']}-*.old"):
+                _unlink(backup)  # the roll-back copy of a file now replaced for good
+        for path in journals:
+            _unlink(path)
+        log.warning(
+            "finished writing %s, interrupted in an earlier run (process %s)",
+            ", ".join(str(final) for _, final in pairs),
+            match["pid"],
+        )
 
 
 def _finish_temporary(tmp: Path) -> None:
@@ -232,6 +318,11 @@ def _keep_copy(final: Path) -> Path | None:
             return None
         return backup
     return None
+
+
+def _remove_all(paths: Iterable[Path]) -> None:
+    for path in paths:
+        _unlink(path)
 
 
 def _unlink(path: Path | None) -> None:
@@ -417,8 +508,10 @@ class OutputSet:
             except OSError as exc:
                 raise OutputError(_failed(final, exc)) from exc
         done: list[_Committed] = []
+        journals: list[Path] = []
         with _folder_locks(final.parent for final, _ in staged):
             try:
+                journals = _write_journal([(tmp, final) for final, tmp in staged], self.overwrite)
                 for final, tmp in staged:
                     stat = tmp.stat()
                     inode = (stat.st_dev, stat.st_ino)
@@ -432,13 +525,16 @@ class OutputSet:
                     done.append(_Committed(final, backup, inode, existed))
             except FileExistsError as exc:
                 self._roll_back(done)
+                _remove_all(journals)
                 raise OutputError(
                     f"{final}: output exists (another run wrote it meanwhile); nothing of "
                     "this run was kept; pass --overwrite (overwrite=True) to replace it"
                 ) from exc
             except OSError as exc:
                 self._roll_back(done)
+                _remove_all(journals)
                 raise OutputError(_failed(final, exc, self.replaced)) from exc
+            _remove_all(journals)
         for item in done:
             _unlink(item.backup)
         self._staged.clear()

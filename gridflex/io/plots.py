@@ -29,6 +29,7 @@ if TYPE_CHECKING:  # type hints only: plots sits below fitting in the import flo
 __all__ = [
     "plot_deflection_map",
     "plot_field_map",
+    "plot_horizon_section",
     "plot_misfit",
     "plot_point_series",
     "plot_profile",
@@ -219,6 +220,68 @@ def plot_profile(
     bottom.set_ylabel("height (m, positive up)")
     bottom.set_xlabel("distance along the profile (km)")
     bottom.legend(loc="best", fontsize=8)
+    return _save(fig, path, overwrite, inputs)
+
+
+def plot_horizon_section(
+    sections: list[tuple[float, xr.Dataset]],
+    path: str | Path,
+    overwrite: bool = False,
+    inputs: Paths = (),
+    title: str = "Horizons along the section",
+) -> Path:
+    """Cross-sections of a basin's horizons at chosen ages, one panel per age.
+
+    Parameters
+    ----------
+    sections : list of (float, xarray.Dataset)
+        Age (years before present) and the profile at that age
+        (:func:`gridflex.results.profile.sample_profile`) with ``basement_depth`` on
+        ``distance`` and ``horizon_depth`` on ``(distance, horizon)`` (m below sea
+        level, positive down; NaN for horizons not yet deposited), ``horizon_age`` on
+        ``horizon``.
+    path : str or pathlib.Path
+        PNG file.
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    plt = _pyplot()
+    fig, axes = plt.subplots(
+        len(sections),
+        1,
+        figsize=(8.0, 2.0 + 2.4 * len(sections)),
+        sharex=True,
+        squeeze=False,
+        constrained_layout=True,
+    )
+    colours = plt.get_cmap("viridis")
+    for ax, (age, section) in zip(axes[:, 0], sections, strict=True):
+        km = section["distance"].values / 1e3
+        lower = section["basement_depth"].values
+        tops = section["horizon_depth"].transpose("horizon", "distance").values
+        ages = section["horizon_age"].values
+        count = max(len(ages), 1)
+        for k in range(len(ages)):
+            top = tops[k]
+            if np.isnan(top).all():
+                continue
+            ax.fill_between(km, lower, top, color=colours(k / count), alpha=0.8, linewidth=0)
+            ax.plot(km, top, color="0.15", linewidth=0.7)
+            lower = top
+        ax.plot(km, section["basement_depth"].values, color="k", linewidth=1.2, label="basement")
+        ax.axhline(0.0, color="tab:blue", linewidth=0.8, linestyle="--", label="sea level")
+        ax.invert_yaxis()
+        ax.set_ylabel("depth (m, positive down)")
+        ax.set_title(f"{title}: {age / 1e6:g} Myr", fontsize=10)
+    handles = [
+        plt.Rectangle((0, 0), 1, 1, color=colours(k / max(len(ages), 1)))
+        for k in range(len(sections[-1][1]["horizon_age"]))
+    ]
+    labels = [f"stage of {a / 1e6:g} Myr" for a in sections[-1][1]["horizon_age"].values]
+    axes[0, 0].legend(handles, labels, loc="best", fontsize=7)
+    axes[-1, 0].set_xlabel("distance along the section (km)")
     return _save(fig, path, overwrite, inputs)
 
 
@@ -419,3 +482,52 @@ def plot_spectral_fit(
     unit = curves["observed"].attrs.get("units", "")
     ax.set_ylabel(f"{curves.attrs.get('quantity', '')} ({unit})")
     return _finish_curve(fig, ax, title, path, overwrite, inputs)
+
+
+def plot_te_map(
+    result: xr.Dataset,
+    path: str | Path,
+    overwrite: bool = False,
+    inputs: Paths = (),
+    title: str = "Elastic thickness",
+) -> Path:
+    """Map of ``te`` beside the width of its interval (``te_high - te_low``), in km.
+
+    Parameters
+    ----------
+    result : xarray.Dataset
+        Output of :func:`gridflex.te_map` (``te``, ``te_low``, ``te_high`` in m).
+    path : str or pathlib.Path
+        PNG file.
+    overwrite : bool, default False
+        Replace an existing file.
+    inputs : iterable of path
+        Files never to be overwritten.
+    title : str
+        Title of the figure.
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    plt = _pyplot()
+    x, y, xlabel, ylabel, aspect = _axes_coordinates(result)
+    confidence = result.attrs.get("confidence")
+    share = f"{float(confidence):.0%} " if confidence is not None else ""
+    panels = (
+        (result["te"].values / 1e3, "te (km)", "viridis"),
+        (
+            (result["te_high"].values - result["te_low"].values) / 1e3,
+            f"width of the {share}interval (km)",
+            "magma",
+        ),
+    )
+    fig, axes = plt.subplots(1, 2, figsize=(12.0, 5.2), constrained_layout=True)
+    for ax, (values, label, cmap) in zip(axes, panels, strict=True):
+        mesh = ax.pcolormesh(x, y, values, shading="nearest", cmap=cmap)
+        fig.colorbar(mesh, ax=ax, shrink=0.85, format="%.3g").set_label(label)
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel(ylabel)
+        ax.set_aspect(aspect)
+    fig.suptitle(title, fontsize=10)
+    return _save(fig, path, overwrite, inputs)

@@ -14,6 +14,7 @@ from gridflex.validation import check_integer, check_number
 
 __all__ = [
     "EARTH_RADIUS",
+    "STEP_AXES",
     "at_step",
     "check_profile_ends",
     "check_profile_point",
@@ -38,37 +39,56 @@ def _wrap_into(lon: float, grid_lon: np.ndarray) -> float:
     return wrapped if wrapped <= float(np.max(grid_lon)) else lon
 
 
+STEP_AXES = ("time", "stage", "step")
+"""Axes of results through time: a history's ``time``, a staged basin's ``stage``, a
+backstrip's ``step``. Any other axis besides ``y`` and ``x`` (e.g. a basin's
+``horizon``) is kept whole."""
+
+
 def at_step(ds: xr.Dataset, value: float, where: str) -> xr.Dataset:
-    """*ds* at the step of its one extra axis (time, stage, step) nearest *value*.
+    """*ds* at the step of its one time, stage or step axis nearest *value*.
+
+    The steps are labelled by ``<axis>_years`` (a history's times in years), else the
+    ``age`` coordinate (a basin's stages, years before present), else the axis' own
+    numbers. Other axes (a basin's ``horizon``) are kept.
 
     Raises
     ------
     InputError
-        *ds* has no axis besides ``y`` and ``x``, or more than one.
+        *ds* has no time, stage or step axis, or more than one.
     """
-    others = sorted({str(d) for v in ds.data_vars.values() for d in v.dims} - {"y", "x"})
-    if len(others) != 1:
-        raise InputError(f"{where}: --at needs exactly one axis besides y and x, found {others}")
-    axis = others[0]
-    index = int(np.argmin(np.abs(_step_values(ds, axis) - value)))
+    dims = {str(d) for v in ds.data_vars.values() for d in v.dims}
+    axes = [a for a in STEP_AXES if a in dims]
+    if len(axes) != 1:
+        others = sorted(dims - {"y", "x"})
+        raise InputError(
+            f"{where}: --at needs exactly one axis of {', '.join(STEP_AXES)}, found {others}"
+        )
+    axis = axes[0]
+    index = int(np.argmin(np.abs(_step_values(ds, axis)[1] - value)))
     return ds.isel({axis: index})
 
 
-def _step_values(ds: xr.Dataset | xr.DataArray, axis: str) -> np.ndarray:
-    """Numbers labelling the steps of *axis*: ``<axis>_years`` when present (times of a
-    history in years), else the axis' own numeric coordinate, else the step index."""
-    for name in (f"{axis}_years", axis):
+def _step_values(ds: xr.Dataset | xr.DataArray, axis: str) -> tuple[str, np.ndarray]:
+    """A name and the numbers labelling the steps of *axis*: ``<axis>_years`` when
+    present (times of a history in years, named *axis*), else an ``age`` coordinate on
+    *axis* (a basin's stages, years before present), else the axis' own numeric
+    coordinate, else the step index (the first of these whose values all differ)."""
+    for name, label in ((f"{axis}_years", axis), ("age", "age"), (axis, axis)):
         if name in ds.coords and ds[name].dims == (axis,):
             try:
-                return np.asarray(ds[name].values, dtype=np.float64)
+                values = np.asarray(ds[name].values, dtype=np.float64)
             except (TypeError, ValueError):
                 continue  # dates
-    return np.arange(ds.sizes[axis], dtype=np.float64)
+            if np.unique(values).size == values.size:  # labels that tell the steps apart
+                return label, values
+    return axis, np.arange(ds.sizes[axis], dtype=np.float64)
 
 
 def one_column_per_step(profile: xr.Dataset) -> xr.Dataset:
-    """*profile* with each variable that has an axis besides ``distance`` (time, stage,
-    step) split into one variable per step, named ``name[axis=value]``: a table for CSV.
+    """*profile* with each variable that has axes besides ``distance`` (time, stage,
+    step, horizon) split into one variable per combination of their steps, named
+    ``name[axis=value]...`` (a basin's stages by their age): a table for CSV.
     """
     out = xr.Dataset(coords={k: v for k, v in profile.coords.items() if v.dims == ("distance",)})
     for name, var in profile.data_vars.items():
@@ -76,12 +96,13 @@ def one_column_per_step(profile: xr.Dataset) -> xr.Dataset:
         if not others:
             out[name] = var
             continue
-        if len(others) > 1:
-            raise InputError(f"{name}: more than one axis besides the profile ({others})")
-        axis = others[0]
-        for i, value in enumerate(_step_values(var, axis)):
-            column = var.isel({axis: i}, drop=True)
-            out[f"{name}[{axis}={value:g}]"] = column.assign_attrs(var.attrs)
+        labels = [_step_values(var, axis) for axis in others]
+        for index in np.ndindex(*(var.sizes[axis] for axis in others)):
+            column = var.isel(dict(zip(others, index, strict=True)), drop=True)
+            key = "".join(
+                f"[{label}={values[i]:g}]" for (label, values), i in zip(labels, index, strict=True)
+            )
+            out[f"{name}{key}"] = column.transpose("distance").assign_attrs(var.attrs)
     return out
 
 
@@ -211,12 +232,14 @@ def sample_profile(
         dy = abs(float(ys_grid[1] - ys_grid[0]))
         samples = max(int(2 * max(abs(x1 - x0) / dx, abs(y1 - y0) / dy)) + 1, 2)
     samples = check_integer("samples", samples, minimum=2)
-    if variables is None:  # every grid, also with a time, stage or step axis before (y, x)
-        variables = [str(n) for n, v in ds.data_vars.items() if {"y", "x"} <= set(v.dims)]
-    missing = [v for v in variables if v not in ds]
+    # every grid, also with a time, stage, step or horizon axis before (y, x)
+    grids = [str(n) for n, v in ds.data_vars.items() if {"y", "x"} <= set(v.dims)]
+    if variables is None:
+        variables = grids
+    missing = [v for v in variables if v not in grids]
     if missing:
-        have = ", ".join(map(str, ds.data_vars))
-        raise InputError(f"no variable {missing[0]!r} to sample; have {have}")
+        what = "no variable" if missing[0] not in ds else "not a grid on (y, x):"
+        raise InputError(f"{what} {missing[0]!r} to sample; the grids are {', '.join(grids)}")
     steps = sum(int(ds[v].size // (ds.sizes["y"] * ds.sizes["x"])) for v in variables)
     check_memory(
         8 * samples * (steps + PROFILE_SAMPLE_WORDS),

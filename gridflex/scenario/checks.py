@@ -155,9 +155,10 @@ def _check_profile(scenario: FlexureScenario) -> None:
     out = scenario.tables["output"]
     ends = [out["profile_start"], out["profile_end"]]
     wanted = out["profile_csv"] is not None or out["profile_plot"] is not None
+    given = any(v is not None for v in ends)
     for key, value in zip(("profile_start", "profile_end"), ends):
         if value is None:
-            if wanted:
+            if wanted or given:
                 raise InputError(f"{scenario.where('output', key)}: required for a profile")
             continue
         check_profile_point(scenario.where("output", key), value)

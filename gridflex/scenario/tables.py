@@ -230,6 +230,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
             None,
             "length",
             minimum=0.0,
+            strict=True,
         ),
         "center_x": Key("quantity", "x of a synthetic shape's centre", 0.0, "length"),
         "center_y": Key("quantity", "y of a synthetic shape's centre", 0.0, "length"),

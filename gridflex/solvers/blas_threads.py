@@ -17,6 +17,7 @@ a little slower.
 from __future__ import annotations
 
 import contextlib
+import sys
 import threading
 from collections.abc import Iterator
 from typing import Any
@@ -27,6 +28,19 @@ __all__ = ["single_threaded_blas"]
 
 _depth = 0
 _limiter: Any = None
+_controller: Any = None
+_modules_seen = -1
+
+
+def _blas_controller() -> Any:
+    """The controller of the BLAS libraries loaded by now. Finding them scans every loaded
+    shared library (about 10 ms), so it is cached until more modules have been imported
+    (a BLAS arrives with an extension module)."""
+    global _controller, _modules_seen
+    if _controller is None or len(sys.modules) != _modules_seen:
+        _controller = ThreadpoolController()
+        _modules_seen = len(sys.modules)
+    return _controller
 
 
 @contextlib.contextmanager
@@ -45,8 +59,7 @@ def single_threaded_blas() -> Iterator[None]:
         yield
         return
     if _depth == 0:
-        # a new controller each time: it sees the BLAS libraries loaded by now
-        _limiter = ThreadpoolController().limit(limits=1, user_api="blas")
+        _limiter = _blas_controller().limit(limits=1, user_api="blas")
     _depth += 1
     try:
         yield

@@ -13,7 +13,7 @@ from __future__ import annotations
 import logging
 import math
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -39,10 +39,12 @@ from gridflex.solvers.rigidity_features import (
     find_sharp_features,
     sharp_band,
 )
+from gridflex.solvers.row_blocks import dot
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.validation import check_choice, check_integer, check_number
 
 __all__ = [
+    "combined_start",
     "AXIS_EDGES",
     "BAND_FLEXURAL_PARAMETERS",
     "BREAK_FLEXURAL_PARAMETERS",
@@ -450,6 +452,7 @@ class FiniteDifferenceSolver:
         *,
         tolerance: float | None = None,
         progress: Progress | None = None,
+        earlier: Sequence[tuple[np.ndarray, np.ndarray]] = (),
     ) -> tuple[np.ndarray, dict[str, Any]]:
         """Deflection (m) on the whole solve grid for a load (Pa) on it.
 
@@ -459,6 +462,9 @@ class FiniteDifferenceSolver:
             q (Pa, positive down) on the solve grid.
         start : numpy.ndarray, shape :attr:`shape`, optional
             First guess of w (m); zero by default.
+        earlier : sequence of (deflection, load) pairs, optional
+            Without *start*: earlier solutions of this solver (on the solve grid) whose
+            best combination (:func:`combined_start`) is the first guess.
         tolerance : float, optional
             Overrides :attr:`tolerance` for this solve.
         progress : callable, optional
@@ -477,6 +483,10 @@ class FiniteDifferenceSolver:
         operator, preconditioner = self.operator, self.preconditioner
         dy, dx = self.spacing
         rhs = operator.area * load
+        if start is None and earlier:
+            start = combined_start(
+                [w for w, _ in earlier], [operator.area * q for _, q in earlier], rhs
+            )
         with single_threaded_blas():
             first = preconditioner.initial_guess(rhs, start, self.apply)
             try:
@@ -519,6 +529,49 @@ class FiniteDifferenceSolver:
             "solve_seconds": time.perf_counter() - began,
         }
         return x, info
+
+
+def combined_start(
+    solutions: Sequence[np.ndarray], loads: Sequence[np.ndarray], load: np.ndarray
+) -> np.ndarray | None:
+    """A start for K w = *load* from earlier solutions of K wᵢ = *loads*ᵢ.
+
+    The Galerkin combination w₀ = Σ cᵢ wᵢ, (W K W) c = W·load, the best start in the energy
+    norm within the span of the wᵢ, with K wᵢ taken as *loads*ᵢ (the wᵢ were solved to a small
+    residual), so it costs dot products only. For a load that changes smoothly through time
+    (an ice history) the previous solutions span most of the next one. Directions the
+    earlier solutions barely distinguish (relative eigenvalue below 1e-10) are dropped.
+
+    Parameters
+    ----------
+    solutions, loads : sequence of numpy.ndarray
+        Earlier solutions and their right-hand sides, of *load*'s shape.
+    load : numpy.ndarray
+        The new right-hand side.
+
+    Returns
+    -------
+    numpy.ndarray or None
+        The start, or None when there is nothing to combine.
+    """
+    if not solutions:
+        return None
+    count = len(solutions)
+    gram = np.empty((count, count))
+    for i, w in enumerate(solutions):
+        for j, q in enumerate(loads):
+            gram[i, j] = dot(w, q)
+    gram = 0.5 * (gram + gram.T)
+    projected = np.array([dot(w, load) for w in solutions])
+    values, vectors = np.linalg.eigh(gram)
+    keep = values > 1e-10 * max(float(values.max()), 0.0)
+    if not keep.any():
+        return None
+    coefficients = vectors[:, keep] @ ((vectors[:, keep].T @ projected) / values[keep])
+    start = np.zeros(load.shape)
+    for c, w in zip(coefficients, solutions):
+        start += c * w
+    return start
 
 
 def finite_difference_deflection(

@@ -41,8 +41,10 @@ MAX_THREADS = 8
 T = TypeVar("T")
 
 
+@functools.cache
 def thread_count() -> int:
-    """Threads used: all cores, at most :data:`MAX_THREADS`."""
+    """Threads used: all cores, at most :data:`MAX_THREADS` (read once: it also sizes the
+    shared pool and the per-thread buffers)."""
     return max(1, min(os.cpu_count() or 1, MAX_THREADS))
 
 

@@ -22,8 +22,12 @@ phi = tau (1 − E) / dt:
     linear:    W1 = E W0 + (phi − E) Q0 / beta + (1 − phi) Q1 / beta
 
 (the second is the exact solution of the linear ODE for a load linear in time).
-At k = 0 the half-space has tau = 0: the mean of the periodic domain follows the
-load instantly, an artefact of the finite domain that wide padding makes negligible.
+At k = 0 the half-space has tau = 0 and the longest wavelengths relax fastest, which a
+periodic grid cannot represent (its k = 0 mode would make the whole padded domain follow
+the mean load at once). With padding (``periodic=False``) the net force and first moment
+of the load are therefore taken out of the spectrum and their response is computed on
+the infinite plane (:mod:`gridflex.solvers.far_field`); the periodic part then has no
+k = 0 mode at all. A periodic domain keeps the periodic answer (its mean sinks at once).
 
 Everything here works on numpy arrays in SI units (seconds internally).
 """
@@ -37,6 +41,7 @@ import scipy.fft
 
 from gridflex.grid import GridSpec, padded_shape, wavenumbers_squared
 from gridflex.memory import check_memory
+from gridflex.solvers.far_field import FarField, step_factors
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, decay_length, transfer_function
 from gridflex.validation import check_choice, check_number
 
@@ -46,8 +51,10 @@ __all__ = [
     "DEFAULT_WIDTH_FACTOR",
     "SpectralRelaxation",
     "check_relaxation_settings",
+    "padded_forward",
     "relaxation_rates",
     "relaxation_pad_distance",
+    "window_inverse",
 ]
 
 MODELS = ("half-space", "relaxing")
@@ -192,6 +199,7 @@ class SpectralRelaxation:
     rates: np.ndarray | float
     state: np.ndarray
     load_spectrum: np.ndarray
+    far: FarField | None = None
     _factors: dict[float, tuple] = field(default_factory=dict, repr=False)
     _scratch: np.ndarray | None = field(default=None, repr=False)
     _rate_factors: tuple | None = field(default=None, repr=False)
@@ -262,6 +270,9 @@ class SpectralRelaxation:
             shape, spec.dy, spec.dx, rigidity, stiffness, model, viscosity, relaxation_time
         )
         half = (shape[0], shape[1] // 2 + 1)
+        far = None
+        if model == "half-space" and not periodic:
+            far = FarField.build(spec, shape, rigidity, stiffness, viscosity)
         return cls(
             spec,
             shape,
@@ -271,6 +282,7 @@ class SpectralRelaxation:
             rates,
             np.zeros(half, dtype=np.complex128),
             np.zeros(half, dtype=np.complex128),
+            far,
         )
 
     # -- transforms ---------------------------------------------------------------
@@ -280,44 +292,57 @@ class SpectralRelaxation:
         The transform along x runs only over the rows that hold data (the padding
         rows are zero), which is what makes a widely padded grid affordable.
         """
-        ny_pad, nx_pad = self.shape
-        rows = scipy.fft.rfft(np.asarray(load, dtype=np.float64), n=nx_pad, axis=1, workers=-1)
-        return scipy.fft.fft(rows, n=ny_pad, axis=0, workers=-1, overwrite_x=True)
+        return padded_forward(load, self.shape)
 
     def inverse(self, spectrum: np.ndarray) -> np.ndarray:
         """Field on the unpadded grid from a spectrum on the FFT grid (input kept).
 
         Only the rows and columns of the output window are transformed back along x.
         """
-        ny, nx = self.spec.shape
-        columns = scipy.fft.ifft(spectrum, axis=0, workers=-1)[:ny]
-        full = scipy.fft.irfft(columns, n=self.shape[1], axis=1, workers=-1)
-        if full.shape[1] == nx:
-            return full
-        return np.ascontiguousarray(full[:, :nx])
+        return window_inverse(spectrum, self.shape, self.spec.shape)
 
     # -- state --------------------------------------------------------------------
+    def _spectrum(self, load: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+        """The load's spectrum, without its net force and first moment when the far
+        field is split off (returned as well then)."""
+        values = np.asarray(load, dtype=np.float64)
+        spectrum = np.ascontiguousarray(self.forward(values))
+        if self.far is None:
+            return spectrum, None
+        return spectrum, self.far.split(values, spectrum)
+
     def set_load(self, load: np.ndarray) -> None:
         """Make *load* (Pa) the load acting now, without moving the plate."""
-        self.load_spectrum = np.ascontiguousarray(self.forward(load))
+        self.load_spectrum, moments = self._spectrum(load)
+        if self.far is not None and moments is not None:
+            self.far.moments = moments
 
     def set_equilibrium(self) -> None:
         """Put the plate in elastic equilibrium with the load acting now."""
         self.state = self.load_spectrum * self.transfer
+        if self.far is not None:
+            self.far.set_equilibrium()
 
     def deflection(self) -> np.ndarray:
         """Current deflection w (m, positive down) on the unpadded grid."""
-        return self.inverse(self.state)
+        out = self.inverse(self.state)
+        if self.far is not None:
+            out += self.far.field()
+        return out
 
     def equilibrium(self) -> np.ndarray:
         """Elastic equilibrium (m) under the load acting now."""
-        return self.inverse(self.load_spectrum * self.transfer)
+        out = self.inverse(self.load_spectrum * self.transfer)
+        if self.far is not None:
+            out += self.far.equilibrium_field()
+        return out
 
     def rate(self) -> np.ndarray:
         """dw/dt (m s⁻¹, positive = moving down) now, under the load acting now.
 
-        The k = 0 mode of the half-space (tau = 0) follows the load instantly; it has
-        no finite rate and is left out.
+        The k = 0 mode of the periodic half-space (tau = 0) follows the load
+        instantly; it has no finite rate and is left out (with padding it is zero: the
+        net force is carried by the far field, whose rate is included).
         """
         if self._rate_factors is None:
             rates = self.rates
@@ -328,24 +353,22 @@ class SpectralRelaxation:
         work = np.multiply(_floats(self.load_spectrum), transfer)
         work -= _floats(self.state)
         work *= rates
-        return self.inverse(work.view(np.complex128))
+        out = self.inverse(work.view(np.complex128))
+        if self.far is not None:
+            out += self.far.rate_field()
+        return out
 
     def _step_factors(self, dt: float) -> tuple:
         factors = self._factors.get(dt)
         if factors is not None:
             return factors
-        x = dt * self.rates  # dt / tau, inf at k = 0 for the half-space
-        decay = np.exp(-x)
-        if self.interpolation == "previous":
-            factors = (decay, (1.0 - decay) * self.transfer)
-        else:
-            with np.errstate(divide="ignore", invalid="ignore"):
-                phi_modes = np.where(np.isinf(x), 0.0, -np.expm1(-x) / x)
-            phi = phi_modes if isinstance(x, np.ndarray) else float(phi_modes)
-            factors = (decay, (phi - decay) * self.transfer, (1.0 - phi) * self.transfer)
+        # dt / tau is inf at k = 0 for the half-space
+        modes = step_factors(self.rates, self.transfer, dt, self.interpolation)
         # real factors repeated for the (re, im) pairs of the complex spectra: plain
         # float64 products without a cast of the factor to complex
-        factors = tuple(_pairs(f) for f in factors)
+        factors = tuple(_pairs(f) for f in modes)
+        if self.far is not None:
+            factors = (*factors, self.far.factors(dt, self.interpolation))
         if len(self._factors) >= _CACHE_STEPS:
             self._factors.pop(next(iter(self._factors)))
         self._factors[dt] = factors
@@ -364,7 +387,9 @@ class SpectralRelaxation:
             the load acting at the start. Either way it is the load acting afterwards.
         """
         factors = self._step_factors(dt)
-        new = np.ascontiguousarray(self.forward(load))
+        new, moments = self._spectrum(load)
+        if self.far is not None and moments is not None:
+            self.far.step(factors[-1], moments, self.interpolation)
         state = _floats(self.state)
         if self._scratch is None:
             self._scratch = np.empty_like(state)
@@ -379,6 +404,26 @@ class SpectralRelaxation:
             np.multiply(_floats(new), factors[2], out=scratch)
             state += scratch
         self.load_spectrum = new
+
+
+def padded_forward(values: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
+    """Half spectrum (as ``scipy.fft.rfft2``) of *values* zero-padded to *shape*, the data
+    at the first rows and columns; the transform along x runs only over the data rows."""
+    rows = scipy.fft.rfft(np.asarray(values, dtype=np.float64), n=shape[1], axis=1, workers=-1)
+    return scipy.fft.fft(rows, n=shape[0], axis=0, workers=-1, overwrite_x=True)
+
+
+def window_inverse(
+    spectrum: np.ndarray, shape: tuple[int, int], window: tuple[int, int]
+) -> np.ndarray:
+    """The first *window* rows and columns of the inverse of a half spectrum of *shape*
+    (input kept); only the window's rows are transformed back along x."""
+    ny, nx = window
+    columns = scipy.fft.ifft(spectrum, axis=0, workers=-1)[:ny]
+    full = scipy.fft.irfft(columns, n=shape[1], axis=1, workers=-1)
+    if full.shape[1] == nx:
+        return full
+    return np.ascontiguousarray(full[:, :nx])
 
 
 def _floats(spectrum: np.ndarray) -> np.ndarray:

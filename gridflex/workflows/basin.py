@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import logging
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -12,11 +13,19 @@ import xarray as xr
 from gridflex.basin.backstrip import backstrip, backstrip_layers
 from gridflex.basin.compaction import LITHOLOGIES, Lithology
 from gridflex.basin.staging import Stage, stage_loading
+from gridflex.basin.stretching import Stretching, StretchingModel
 from gridflex.errors import InputError
 from gridflex.gis.geometry import geometry_of
+from gridflex.glacial.ice import sea_level_at
 from gridflex.io.netcdf import write_netcdf
+from gridflex.io.tables import read_csv_quantities
 from gridflex.progress import Progress
 from gridflex.scenario.context import error_context
+from gridflex.workflows.basin_outputs import (
+    check_basin_outputs,
+    plan_basin_outputs,
+    write_basin_outputs,
+)
 from gridflex.workflows.basin_tables import BasinScenario
 from gridflex.workflows.grid_input import read_grid_input
 from gridflex.workflows.outcome import RunOutcome
@@ -80,11 +89,31 @@ def _stage_te(
     return with_breaks(scenario, te, surface)
 
 
+def _sea_levels(scenario: BasinScenario) -> list[float | None]:
+    """Each stage's sea level (m): its own ``sea_level``, else the ``[basin]
+    sea_level_file`` at its age (linear in time, never extrapolated), else None."""
+    rows = array_table(scenario, "stages")
+    own: list[float | None] = [row["sea_level"] for row in rows]
+    path = scenario.table("basin")["sea_level_file"]
+    if path is None:
+        return own
+    where = scenario.where("basin", "sea_level_file")
+    table = read_csv_quantities(path, {"age": "time", "level": "length"}, where)
+    order = np.argsort(-table["age"], kind="stable")  # oldest first: time = -age increasing
+    series = xr.DataArray(table["level"][order], dims="time", coords={"time": -table["age"][order]})
+    ages = np.array([row["age"] for row in rows], dtype=np.float64)
+    levels = sea_level_at(series, -ages, f"{where} ({path}; time = -age in years)")
+    return [float(level) if mine is None else mine for mine, level in zip(own, levels, strict=True)]
+
+
 def _stages(scenario: BasinScenario, surface: xr.DataArray) -> list[Stage]:
     stages = []
+    sea_levels = _sea_levels(scenario)
     for i, row in enumerate(array_table(scenario, "stages")):
         where = scenario.where("stages", index=i)
-        thickness = _grid(row["file"], row["variable"], where, surface, "thickness")
+        # an erosion stage's isopach may be negative (any length); otherwise a thickness
+        role = "length" if row["erosion"] else "thickness"
+        thickness = _grid(row["file"], row["variable"], where, surface, role)
         te = _stage_te(scenario, row, where, surface)
         with error_context(where):
             stages.append(
@@ -93,7 +122,7 @@ def _stages(scenario: BasinScenario, surface: xr.DataArray) -> list[Stage]:
                     row["age"],
                     _lithology(row, where),
                     base_level=row["base_level"],
-                    sea_level=row["sea_level"],
+                    sea_level=sea_levels[i],
                     te=te,
                 )
             )
@@ -101,9 +130,12 @@ def _stages(scenario: BasinScenario, surface: xr.DataArray) -> list[Stage]:
 
 
 def _run_stages(
-    scenario: BasinScenario, progress: Progress | None
+    scenario: BasinScenario,
+    progress: Progress | None,
+    check: Callable[[xr.DataArray], None] | None = None,
 ) -> tuple[xr.Dataset, xr.DataArray]:
-    """The staged loading of ``[basin]`` and ``[[stages]]``, and the surface grid."""
+    """The staged loading of ``[basin]`` and ``[[stages]]``, and the surface grid;
+    *check* is called with the surface before any stage is read or solved."""
     table, solver = scenario.table("basin"), scenario.table("solver")
     surface = _grid(
         table["surface_file"],
@@ -112,6 +144,8 @@ def _run_stages(
         None,
         "elevation",
     )
+    if check is not None:
+        check(surface)
     stages = _stages(scenario, surface)
     # te from a number, a grid file, [margin] and [[breaks]], on the surface's grid, as
     # gridflex run builds it (its messages name [plate], [margin] or [[breaks]])
@@ -130,6 +164,7 @@ def _run_stages(
             edges=solver["edges"],
             pad_factor=solver["pad_factor"],
             progress=progress,
+            stretching=_stretching(scenario, surface),
         )
     return result, surface
 
@@ -257,8 +292,11 @@ def run_basin(
         )
     plan = OutputPlan(scenario, overwrite)
     plan.add({"file": scenario.table("output")["file"]})
+    extra = plan_basin_outputs(scenario, plan)  # grids, maps, wells, section
     if scenario.tables.get("basin") is not None:
-        result, reference = _run_stages(scenario, progress)
+        result, reference = _run_stages(
+            scenario, progress, lambda surface: check_basin_outputs(scenario, extra, surface)
+        )
     else:
         result, reference = _run_backstrip(scenario)
     result = stamp_result(result, scenario, "basin", projected_axes=True)
@@ -269,4 +307,35 @@ def run_basin(
         outcome.written.append(
             write_netcdf(result, plan["file"], plan.overwrite, plan.inputs, crs=crs)
         )
+        write_basin_outputs(extra, result, crs, plan, outcome.written)
     return outcome
+
+
+def _stretching(scenario: BasinScenario, surface: xr.DataArray) -> Stretching | None:
+    """The rift of ``[stretching]`` (beta a number or a grid on the surface's grid)."""
+    table = scenario.tables.get("stretching")
+    if table is None:
+        return None
+    beta: float | xr.DataArray = table["stretching_factor"]
+    if table["stretching_factor_file"] is not None:
+        beta = read_grid_input(
+            table["stretching_factor_file"],
+            table["stretching_factor_variable"],
+            scenario.where("stretching", "stretching_factor_file"),
+            dimension=None,
+            metric=True,
+            reference=surface,
+            role="stretching_factor",
+        )
+    parameters = (
+        "lithosphere_thickness",
+        "crust_thickness",
+        "mantle_temperature",
+        "thermal_expansion",
+        "thermal_diffusivity",
+        "crust_density",
+        "isostasy",
+    )
+    with error_context(scenario.where("stretching")):
+        model = StretchingModel(**{name: table[name] for name in parameters})
+        return Stretching(beta, table["rift_age"], model)

@@ -10,9 +10,12 @@ A basin scenario has these tables (``[[...]]`` are arrays of tables)::
                           water density, compaction, infill tolerance
     [[stages]]            one per stage, oldest first: isopach file, age, lithology, base
                           level, sea level, te of its time
+    [stretching]          optional, with [basin]: a rift under the basin (beta, rift age)
     [backstrip]           or backstripping: basement, sediment and water grids, density
     [[backstrip_layers]]  optional: a layered column, backstripped step by step
-    [output]              NetCDF file
+    [output]              NetCDF file; GeoTIFFs and maps of each stage, section plot
+    [[wells]]             optional: pseudo-wells (name, x, y), a CSV each
+    [section]             optional: a cross-section of the horizons at chosen ages
 """
 
 from __future__ import annotations
@@ -22,6 +25,7 @@ from typing import Any
 
 from gridflex.basin.compaction import LITHOLOGIES, check_grains_sink
 from gridflex.basin.staging import ISOPACHS
+from gridflex.basin.stretching import DEFAULT_CRUST_THICKNESS, DEFAULT_THERMAL_DIFFUSIVITY, ISOSTASY
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.errors import InputError
 from gridflex.scenario.checks import check_plate_structure
@@ -79,6 +83,12 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         ),
         "surface_variable": Key("string", "NetCDF variable or band in surface_file", None),
         "sea_level": Key("quantity", "sea-level elevation", 0.0, "length"),
+        "sea_level_file": Key(
+            "path",
+            "CSV of sea level through time, columns 'age [Ma]' and 'level [m]' (units in "
+            "the header): a stage without its own sea_level takes it at its age",
+            None,
+        ),
         "water_density": Key(
             "quantity",
             "sea-water (and pore-water) density",
@@ -103,7 +113,18 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
             REQUIRED,
         ),
         "variable": Key("string", "NetCDF variable or band, if the file has several", None),
-        "age": Key("number", "age of the stage (years before present); oldest first", REQUIRED),
+        "erosion": Key(
+            "bool",
+            "the isopach may be negative: negative cells erode that (compacted) thickness "
+            "from the top of the pile",
+            False,
+        ),
+        "age": Key(
+            "quantity",
+            "age of the stage before present (years, or with a unit: 5 Myr, 5 Ma); oldest first",
+            REQUIRED,
+            "time",
+        ),
         **_LITHOLOGY_KEYS,
         "base_level": Key(
             "quantity",
@@ -117,6 +138,49 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         ),
         "te_file": Key("path", "grid file of te at the time of loading", None),
         "te_variable": Key("string", "NetCDF variable or band in te_file", None),
+    },
+    # a rift under the staged basin (McKenzie 1978); the mantle and water densities are
+    # those of [plate] and [basin]
+    "stretching": {
+        "stretching_factor": Key("number", "stretching factor beta (1 = none)", None, minimum=1.0),
+        "stretching_factor_file": Key("path", "or a grid file of beta", None),
+        "stretching_factor_variable": Key(
+            "string", "NetCDF variable or band in stretching_factor_file", None
+        ),
+        "rift_age": Key(
+            "quantity", "age of the stretching (years before present)", REQUIRED, "time"
+        ),
+        "lithosphere_thickness": Key(
+            "quantity", "thickness a of the lithosphere", 125e3, "length", minimum=0.0, strict=True
+        ),
+        "crust_thickness": Key(
+            "quantity",
+            "unstretched crustal thickness",
+            DEFAULT_CRUST_THICKNESS,
+            "length",
+            minimum=0.0,
+            strict=True,
+        ),
+        "mantle_temperature": Key(
+            "number", "temperature at the base of the lithosphere (degC)", 1333.0, minimum=0.0
+        ),
+        "thermal_expansion": Key(
+            "number", "volumetric thermal expansion (1/K)", 3.28e-5, minimum=0.0
+        ),
+        "thermal_diffusivity": Key(
+            "number",
+            "thermal diffusivity (m^2/s)",
+            DEFAULT_THERMAL_DIFFUSIVITY,
+            minimum=0.0,
+            strict=True,
+        ),
+        "crust_density": Key("quantity", "crust density at 0 degC", 2800.0, "density", minimum=0.0),
+        "isostasy": Key(
+            "choice",
+            "thermal subsidence as published (mckenzie) or on the full column (column)",
+            "mckenzie",
+            choices=ISOSTASY,
+        ),
     },
     "backstrip": {
         "basement_file": Key(
@@ -160,17 +224,52 @@ BASIN_SCHEMA: dict[str, dict[str, Key]] = {
         "water_depth_file": Key("path", "or a grid file of that water depth", None),
         "water_depth_variable": Key("string", "NetCDF variable or band in water_depth_file", None),
         "sea_level_change": Key("quantity", "sea level then, relative to present", 0.0, "length"),
-        "age": Key("number", "age of the top of the layer (years before present)", None),
+        "age": Key(
+            "quantity",
+            "age of the top of the layer before present (years, or 5 Myr, 5 Ma)",
+            None,
+            "time",
+        ),
     },
     "output": {
         "file": Key("path", "NetCDF file for the results", REQUIRED),
+        "geotiff": Key(
+            "flag_or_names",
+            "GeoTIFFs of each stage beside the NetCDF (<stem>_<grid>_stage<k>.tif): true "
+            "for stage_thickness, accommodation_created and deflection_increment, or a "
+            "list of stage grids",
+            False,
+        ),
+        "maps": Key(
+            "flag_or_names",
+            "PNG maps of each stage beside the NetCDF (<stem>_<grid>_stage<k>.png), as geotiff",
+            False,
+        ),
+        "section_plot": Key(
+            "path", "PNG of the horizons along [section] (default <stem>_section.png)", None
+        ),
+    },
+    # pseudo-wells: one CSV each beside the NetCDF (<stem>_well_<name>.csv)
+    "wells": {
+        "name": Key("string", "name of the pseudo-well (also in its CSV file's name)", REQUIRED),
+        "x": Key("number", "x of the well in the grid's coordinates", REQUIRED),
+        "y": Key("number", "y of the well in the grid's coordinates", REQUIRED),
+    },
+    "section": {
+        "start": Key(
+            "list", "[x, y] of the cross-section's start, in the grid's coordinates", REQUIRED
+        ),
+        "end": Key("list", "[x, y] of the cross-section's end", REQUIRED),
+        "ages": Key(
+            "list", "ages of the stages drawn (years before present), a panel each", REQUIRED
+        ),
     },
 }
 """Every table and key a basin scenario may contain."""
 
-BASIN_ARRAY_TABLES = frozenset({"stages", "backstrip_layers", "breaks"})
+BASIN_ARRAY_TABLES = frozenset({"stages", "backstrip_layers", "breaks", "wells"})
 BASIN_REQUIRED_TABLES = ("plate", "output")
-_OPTIONAL = frozenset({"basin", "backstrip"})
+_OPTIONAL = frozenset({"basin", "backstrip", "section", "stretching"})
 """Tables that switch a workflow on; absent, they are ``None``."""
 
 
@@ -216,6 +315,7 @@ def _check_basin(scenario: BasinScenario) -> None:
         )
     if tables["backstrip_layers"] and tables["backstrip"] is None:
         raise InputError(f"{scenario.path}: [[backstrip_layers]] need a [backstrip] table")
+    _check_stretching(scenario)
     if tables["basin"] is not None:
         if not tables["stages"]:
             raise InputError(f"{scenario.path}: [basin] needs at least one [[stages]] table")
@@ -261,4 +361,23 @@ def _check_basin(scenario: BasinScenario) -> None:
         raise InputError(
             f"{scenario.where('backstrip')}: give at least two of basement_file, "
             "sediment_file and water_file"
+        )
+
+
+def _check_stretching(scenario: BasinScenario) -> None:
+    """[stretching] goes with [basin] and gives beta as a number or a file."""
+    table = scenario.tables.get("stretching")
+    if table is None:
+        return
+    if scenario.tables["basin"] is None:
+        raise InputError(f"{scenario.where('stretching')}: needs a [basin] table")
+    if (table["stretching_factor"] is None) == (table["stretching_factor_file"] is None):
+        raise InputError(
+            f"{scenario.where('stretching')}: give either stretching_factor or "
+            "stretching_factor_file"
+        )
+    if table["stretching_factor_file"] is None and table["stretching_factor_variable"]:
+        raise InputError(
+            f"{scenario.where('stretching', 'stretching_factor_variable')}: needs "
+            "stretching_factor_file"
         )

@@ -7,7 +7,7 @@ A history scenario has these tables (``[[points]]`` is an array of tables)::
                 (infill_density must stay 0)
     [margin]    te changing across a line, instead of the number or the file
     [[breaks]]  lines or mask files where te = 0
-    [mantle]    model, viscosity, relaxation time
+    [mantle]    model, viscosity, relaxation time, the elastic Earth (elastic = true)
     [solver]    edges, padding, load interpolation, initial state
     [grid]      size and spacing, for a synthetic ice history
     [ice]       the ice-thickness history: a NetCDF (time, y, x) variable or a disc
@@ -33,6 +33,7 @@ from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.engine import SPECTRAL_EDGES
 from gridflex.errors import InputError
 from gridflex.gis.geometry import parse_crs
+from gridflex.glacial.elastic import EARTH_POISSON_RATIO, EARTH_YOUNGS_MODULUS
 from gridflex.glacial.ice import check_max_step, check_output_times, ice_response, sea_level_at
 from gridflex.glacial.response import INITIAL_STATES
 from gridflex.grid import check_same_grid
@@ -55,7 +56,7 @@ from gridflex.scenario.tables import SCHEMA, load_scenario
 from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
 from gridflex.synthetic import disc_height, empty_grid
 from gridflex.units import parse_quantity
-from gridflex.validation import check_grid_range
+from gridflex.validation import check_grid_range, check_number
 from gridflex.workflows.grid_input import apply_missing_policy, in_si_units, read_grid_input
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan, stamp_result, with_vertical_displacement
@@ -106,6 +107,25 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
         "viscosity": Key("quantity", "half-space viscosity", 1e21, "viscosity", minimum=0.0),
         "relaxation_time": Key(
             "quantity", "relaxation time of the relaxing model", 3000.0, "time", minimum=0.0
+        ),
+        "elastic": Key(
+            "bool", "add the instantaneous elastic half-space response of the Earth", False
+        ),
+        "elastic_youngs_modulus": Key(
+            "quantity",
+            "Young's modulus of the elastic Earth (PREM uppermost mantle)",
+            EARTH_YOUNGS_MODULUS,
+            "pressure",
+            minimum=0.0,
+            strict=True,
+        ),
+        "elastic_poisson_ratio": Key(
+            "number",
+            "Poisson's ratio of the elastic Earth (PREM uppermost mantle)",
+            EARTH_POISSON_RATIO,
+            minimum=0.0,
+            strict=True,
+            maximum=0.5,
         ),
     },
     "solver": {
@@ -232,6 +252,8 @@ def _check_history(scenario: HistoryScenario) -> None:
                 isinstance(v, (int, float)) and not isinstance(v, bool) for v in values
             ):
                 raise InputError(f"{where} {name}: expected a non-empty list of numbers")
+            for value in values:  # NaN or inf would reach the solver as a NaN ice load
+                check_number(f"{where} {name}", value, minimum=0.0 if name != "times" else None)
         if any(later <= earlier for earlier, later in zip(times, times[1:])):
             raise InputError(
                 f"{where} times: must increase from the oldest to the youngest (years after "
@@ -302,6 +324,9 @@ def ice_model_options(scenario: HistoryScenario) -> dict[str, Any]:
         "edges": solver["edges"],
         "pad_factor": solver["pad_factor"],
         "width_factor": solver["pad_width_factor"],
+        "elastic": mantle["elastic"],
+        "elastic_youngs_modulus": mantle["elastic_youngs_modulus"],
+        "elastic_poisson_ratio": mantle["elastic_poisson_ratio"],
     }
 
 
@@ -326,8 +351,13 @@ def _ice_history(scenario: HistoryScenario, reference: str) -> xr.DataArray:
     )
     grid = empty_grid(g["rows"], g["columns"], g["spacing"])
     check_grid_range([ice["height"]], "ice_thickness", scenario.where("ice", "height"))
-    disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
     factors = np.asarray(ice["thickness_factors"], dtype=np.float64)
+    check_grid_range(  # the thickest ice of the history, not only the disc's height
+        [ice["height"] * float(factors.max())],
+        "ice_thickness",
+        f"{scenario.where('ice', 'thickness_factors')} (times height {ice['height']!r} m)",
+    )
+    disc = disc_height(grid, ice["radius"], ice["height"], ice["center_x"], ice["center_y"])
     values = factors[:, None, None] * disc.values[None]
     return xr.DataArray(
         values,

@@ -1,5 +1,7 @@
 """Tests of the exponential porosity-depth law and layer (de)compaction."""
 
+from decimal import Decimal, getcontext
+
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -12,26 +14,33 @@ from gridflex.basin.compaction import (
     Lithology,
     bulk_density,
     compacted_base,
+    compacted_thickness,
     grain_thickness,
+    layer_grains,
     lithology,
     move_layer,
     porosity,
+    saturated_column,
 )
 from gridflex.errors import InputError
 
 
 def test_default_parameters_are_the_sclater_christie_table():
-    # Sclater & Christie 1980, J. Geophys. Res. 85 (North Sea porosity-depth fits), as
-    # tabulated in PHYSICS.md 1.4 [S]; grain densities from memory of the same table
+    # Sclater & Christie 1980, J. Geophys. Res. 85(B7), 3711-3739, Table 2 (North Sea
+    # porosity-depth fits): phi_0 and the compaction coefficient c (km^-1), c values from
+    # memory of the table; the decay length is 1/c truncated to the metre (shaly
+    # sandstone 1/0.39 km^-1 = 2564 m, not the 2464 m of PHYSICS.md 1.4); grain densities
+    # from memory of the same table
     table = {
-        "shale": (0.63, 1960.0, 2720.0),
-        "sandstone": (0.49, 3703.0, 2650.0),
-        "chalk": (0.70, 1408.0, 2710.0),
-        "shaly_sandstone": (0.56, 2464.0, 2680.0),
+        "shale": (0.63, 0.51, 2720.0),
+        "sandstone": (0.49, 0.27, 2650.0),
+        "chalk": (0.70, 0.71, 2710.0),
+        "shaly_sandstone": (0.56, 0.39, 2680.0),
     }
-    for name, (phi0, lam, rho_g) in table.items():
+    for name, (phi0, c, rho_g) in table.items():
         lith = LITHOLOGIES[name]
-        assert (lith.surface_porosity, lith.decay_length, lith.grain_density) == (phi0, lam, rho_g)
+        assert lith.decay_length == np.floor(1e3 / c)
+        assert (lith.surface_porosity, lith.grain_density) == (phi0, rho_g)
     assert_allclose(porosity(1960.0, "shale"), 0.63 / np.e, rtol=1e-14)  # Athy 1930 law
 
 
@@ -112,8 +121,12 @@ def test_bad_inputs_raise_input_error():
         Lithology("x", 1.2, 1000.0, 2600.0)
     with pytest.raises(InputError, match=r"decay_length must be a finite number > 0 .*-1.0"):
         Lithology("x", 0.5, -1.0, 2600.0)
-    with pytest.raises(InputError, match="must be >= 0 m"):
+    with pytest.raises(InputError, match=r"burial depths must be finite numbers >= 0 m.*-1.0"):
         compacted_base(-1.0, 10.0, "shale")
+    with pytest.raises(InputError, match=r"grain thicknesses must be .*-3e-13"):
+        compacted_thickness(0.0, np.array([1.0, -3e-13]), "shale")
+    with pytest.raises(InputError, match=r"grain thicknesses must be .*nan"):
+        compacted_thickness(0.0, np.array([1.0, np.nan]), "shale")
 
 
 @settings(max_examples=60, deadline=None)
@@ -135,3 +148,65 @@ def test_moving_a_layer_conserves_grains_and_orders_thickness(top, thickness, ne
         assert h <= thickness + 1e-9
     elif new_top < top:
         assert h >= thickness - 1e-9
+
+
+def _grains_decimal(top, thickness, lith):
+    """s = h - phi0 lam exp(-top/lam) (1 - exp(-h/lam)) in 50-digit decimal arithmetic:
+    the closed-form integral of the Athy (1930) law, free of float round-off."""
+    getcontext().prec = 50
+    lam = Decimal(lith.decay_length)
+    h = Decimal(float(thickness))
+    phi_top = Decimal(lith.surface_porosity) * (-Decimal(float(top)) / lam).exp()
+    return h - phi_top * lam * (1 - (-h / lam).exp())
+
+
+# the sizes where the float difference of depths went wrong: grains of 1e-16-1e-9 m under
+# 0-6000 m of burial (compacted_base returned bases up to 9e-13 m above the top)
+_TINY_TOPS = np.linspace(0.0, 6000.0, 25)
+_TINY_GRAINS = np.geomspace(1e-16, 1e-9, 15)
+
+
+@pytest.mark.parametrize("name", sorted(LITHOLOGIES))
+def test_tiny_layers_are_exact_to_round_off_and_never_negative(name):
+    # closed-form grain integral of the Athy (1930) law (Sclater & Christie 1980 parameters)
+    # evaluated in 50-digit decimals as the reference; thickness >= grains >= 0, base >= top,
+    # and the grains of the solved thickness equal the given ones to 4 ulp (rtol 1e-15)
+    lith = LITHOLOGIES[name]
+    top, grains = np.meshgrid(_TINY_TOPS, _TINY_GRAINS, indexing="ij")
+    h = compacted_thickness(top, grains, lith)
+    base = compacted_base(top, grains, lith)
+    assert np.all(h >= grains) and np.all(base >= top)
+    assert np.all(h <= grains / (1.0 - porosity(top, lith)) * (1 + 1e-15))
+    for z1, s, thick in zip(top.ravel()[::7], grains.ravel()[::7], h.ravel()[::7], strict=True):
+        exact = float(_grains_decimal(z1, thick, lith))
+        assert_allclose(exact, s, rtol=1e-15)
+        assert_allclose(layer_grains(z1, thick, lith), exact, rtol=1e-15)
+
+
+def test_no_grains_give_no_thickness_exactly():
+    # a layer without grains has no thickness at any burial (Athy 1930 law: s(0) = 0);
+    # its density is the limit, the saturated density at its top (exact)
+    lith = LITHOLOGIES["shale"]
+    top = np.array([0.0, 1e-3, 250.0, 3000.0, 1e5])
+    zero = np.zeros_like(top)
+    assert np.array_equal(compacted_thickness(top, zero, lith), zero)
+    assert np.array_equal(compacted_base(top, zero, lith), top)
+    assert np.array_equal(layer_grains(top, zero, lith), zero)
+    assert np.array_equal(grain_thickness(top, top, lith), zero)
+    phi = porosity(top, lith)
+    assert_allclose(bulk_density(top, top, lith), 1030.0 * phi + 2720.0 * (1 - phi), rtol=1e-15)
+
+
+def test_vanishing_columns_have_the_limit_density():
+    # columns of 5e-14 m (the size that got 7400-8900 kg/m^3 before): the mean bulk density
+    # of a saturated layer is a weighted mean of rho_w and rho_grain (Athy 1930 law;
+    # PHYSICS.md 9.1); as h -> 0 it tends to the surface value rho_w phi0 + rho_g (1 - phi0)
+    lith = LITHOLOGIES["sandstone"]
+    surface = 1030.0 * 0.49 + 2650.0 * 0.51
+    for h in (5e-14, 1e-12, 3e-9):
+        thickness, mass, total = saturated_column(
+            [np.array([layer_grains(0.0, h, lith)])], [lith], 1030.0
+        )
+        assert_allclose(total, h, rtol=1e-15)
+        assert_allclose(mass[0] / thickness[0], surface, rtol=1e-9)
+        assert_allclose(bulk_density(0.0, h, lith), surface, rtol=1e-9)

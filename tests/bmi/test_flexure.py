@@ -114,6 +114,32 @@ def test_bmi_updates_equal_an_ice_stepper_driven_by_hand(tmp_path):
     bmi.finalize()
 
 
+def test_bmi_with_an_elastic_earth_equals_an_ice_stepper(tmp_path):
+    # [mantle] elastic = true reaches the IceStepper behind the component (same numbers
+    # bit for bit), and the elastic part moves the bed.
+    text = _small_config(tmp_path).read_text()
+    text = text.replace('edges = "periodic"', 'edges = "infinite"')
+    text = text.replace('relaxation_time = "3 kyr"', 'relaxation_time = "3 kyr"\nelastic = true')
+    (tmp_path / "elastic.toml").write_text(text)
+    bmi = FlexureBmi()
+    bmi.initialize(str(tmp_path / "elastic.toml"))
+    grid = empty_grid(24, 24, 40e3)
+    plate = Plate(te=50e3, infill_density=0.0)
+    options = {"relaxation_time": 3000.0, "edges": "infinite"}
+    stepper = IceStepper(grid - 100.0, plate, "relaxing", elastic=True, **options)
+    rigid = IceStepper(grid - 100.0, plate, "relaxing", **options)
+    ice = 1500.0 * disc_height(grid, 300e3, 1.0).values
+    for _ in range(2):
+        bmi.set_value("glacier_ice__thickness", ice.ravel())
+        bmi.update()
+        expected = stepper.advance(200.0, ice, 0.0).values
+        rigid.advance(200.0, ice, 0.0)
+    bed = bmi.get_value("bedrock_surface__elevation", np.empty(576))
+    assert np.array_equal(bed, expected.ravel())
+    assert np.abs(expected - rigid.bed_elevation.values).max() > 1.0
+    bmi.finalize()
+
+
 def test_bmi_refuses_what_it_cannot_use(tmp_path):
     bmi = FlexureBmi()
     with pytest.raises(InputError, match="nowhere.toml: scenario file not found"):

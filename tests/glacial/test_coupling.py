@@ -3,15 +3,25 @@
 from __future__ import annotations
 
 import inspect
+import warnings
 from dataclasses import fields
 
 import numpy as np
 import pytest
 import xarray as xr
 
-from gridflex import IceStepper, InputError, Plate, ResponseStepper, bed_stress, ice_response
-from gridflex.glacial.response import SAVED_SETTINGS
+from gridflex import (
+    GridflexWarning,
+    IceStepper,
+    InputError,
+    Plate,
+    ResponseStepper,
+    bed_stress,
+    ice_response,
+)
+from gridflex.glacial.response import SAVED_SETTINGS, STEPPER_FIELDS
 from gridflex.glacial.state import ENGINE_FIELDS, check_engine_fields
+from gridflex.solvers.far_field import FarField
 from gridflex.solvers.variable_relaxation import VariableRelaxation
 from gridflex.solvers.viscous import SpectralRelaxation
 from gridflex.synthetic import disc_height, empty_grid
@@ -35,17 +45,32 @@ def _marine_history(n: int = 9, cells: int = 32):
 
 
 @pytest.mark.parametrize(
-    ("model", "interpolation"),
-    [("half-space", "linear"), ("relaxing", "linear"), ("half-space", "previous")],
+    ("model", "interpolation", "elastic", "te", "edges"),
+    [
+        ("half-space", "linear", False, "constant", "periodic"),
+        ("relaxing", "linear", False, "constant", "periodic"),
+        ("half-space", "previous", False, "constant", "periodic"),
+        ("half-space", "linear", True, "constant", "infinite"),  # far field and elastic Earth
+        ("half-space", "previous", True, "constant", "infinite"),
+        ("relaxing", "linear", False, "grid", "periodic"),
+        ("half-space", "linear", True, "grid", "infinite"),
+    ],
 )
-def test_ice_stepper_reproduces_ice_response(model, interpolation):
+def test_ice_stepper_reproduces_ice_response(model, interpolation, elastic, te, edges):
     # issue 17 target: a coupled run equals the batch call to 1e-9 m at every step (same
     # floatation and ocean rules, PHYSICS.md 7.1; same exact per-mode update, Bueler,
-    # Lingle & Brown 2007 / Le Meur & Huybrechts 1996).
-    grid, bed, ice, levels = _marine_history()
-    plate = Plate(te=40e3, infill_density=0.0)
+    # Lingle & Brown 2007 / Le Meur & Huybrechts 1996), also with the elastic Earth and
+    # on a te grid.
+    cells = 32 if te == "constant" else 20
+    grid, bed, ice, levels = _marine_history(cells=cells)
+    te_value = 40e3 if te == "constant" else (25e3 + 30e3 * (grid.x > 0) + 0.0 * grid).T
+    plate = Plate(te=te_value, infill_density=0.0)
     sea = xr.DataArray(levels, dims="time")
-    batch = ice_response(ice, bed, plate, sea, model, interpolation=interpolation, edges="periodic")
+    options = {"interpolation": interpolation, "edges": edges, "elastic": elastic}
+    with warnings.catch_warnings():  # the cap comes close to the edge of the small grid
+        warnings.simplefilter("ignore", GridflexWarning)
+        batch = ice_response(ice, bed, plate, sea, model, **options)
+    assert ("elastic_deflection" in batch) == elastic
     assert batch.grounded.values.min() == 0 and batch.grounded.values.max() == 1
     # the ocean load follows sea level and the moving bed where there is no ice
     assert np.abs(batch["load"].values[-1][ice.values[-1] == 0]).max() > 1e5
@@ -55,8 +80,7 @@ def test_ice_stepper_reproduces_ice_response(model, interpolation):
         model,
         ice_thickness=ice[0],
         sea_level=levels[0],
-        interpolation=interpolation,
-        edges="periodic",
+        **options,
     )
     times = ice.time.values
     for n in range(1, times.size):
@@ -70,7 +94,13 @@ def test_ice_stepper_reproduces_ice_response(model, interpolation):
         assert np.abs(beds.values - expected).max() <= 1e-9
         rate = stepper.uplift_rate().values
         assert np.abs(rate - batch.uplift_rate.isel(time=n).values).max() <= 1e-12
+        if elastic:
+            part = batch.elastic_deflection.isel(time=n).values
+            assert np.abs(stepper.elastic_deflection.values - part).max() <= 1e-9
     assert np.abs(batch.deflection.values[-1]).max() > 10.0  # the test has something to compare
+    if elastic:  # the elastic part is there, and smaller than the whole
+        part = np.abs(batch.elastic_deflection.values[-1]).max()
+        assert 0.1 < part < np.abs(batch.deflection.values[-1]).max()
 
 
 def test_the_old_hand_coupling_pattern_is_far_from_the_batch_result():
@@ -105,47 +135,77 @@ def _run(stepper, steps, start=0):
 
 
 @pytest.mark.parametrize(
-    ("te", "model"),
+    ("te", "model", "edges", "elastic"),
     [
-        ("constant", "half-space"),
-        ("constant", "relaxing"),
-        ("grid", "half-space"),
-        ("grid", "relaxing"),
+        ("constant", "half-space", "periodic", False),
+        ("constant", "relaxing", "periodic", False),
+        ("grid", "half-space", "periodic", False),
+        ("grid", "relaxing", "periodic", False),
+        ("constant", "half-space", "infinite", False),  # the default: far field on
+        ("constant", "half-space", "infinite", True),
+        ("grid", "half-space", "infinite", False),
+        ("grid", "relaxing", "infinite", True),
     ],
 )
-def test_a_restored_ice_stepper_continues_bit_for_bit(tmp_path, te, model):
+def test_a_restored_ice_stepper_continues_bit_for_bit(tmp_path, te, model, edges, elastic):
     grid = empty_grid(24, 24, 40e3)
     bed = 150.0 - 2e-3 * np.abs(grid.x) + 0.0 * grid
     te_value = 30e3 if te == "constant" else (20e3 + 20e3 * (grid.x > 0) + 0.0 * grid).T
     plate = Plate(te=te_value, infill_density=0.0)
-    stepper = IceStepper(bed.transpose("y", "x"), plate, model, edges="periodic")
-    _run(stepper, 3)
+    stepper = IceStepper(bed.transpose("y", "x"), plate, model, edges=edges, elastic=elastic)
+    far = getattr(stepper.stepper._engine, "far", None)
+    assert (far is not None) == (model == "half-space" and edges == "infinite")
+    with warnings.catch_warnings():  # the cap comes close to the edge of the small grid
+        warnings.simplefilter("ignore", GridflexWarning)
+        _run(stepper, 3)
+    if far is not None:  # the far field holds state that the file must keep
+        assert np.abs(far.state).max() > 0 and np.abs(far.moments).max() > 0
     path = stepper.save(tmp_path / "state.nc")
     restored = IceStepper.restore(path)
+    assert np.array_equal(restored.uplift_rate().values, stepper.uplift_rate().values)
+    assert np.array_equal(restored.bed_elevation.values, stepper.bed_elevation.values)
     assert restored.time == stepper.time == 450.0
     ours, theirs = _run(stepper, 4, 3), _run(restored, 4, 3)
     for (bed_a, rate_a), (bed_b, rate_b) in zip(ours, theirs):
         assert np.array_equal(bed_a, bed_b)
         assert np.array_equal(rate_a, rate_b)
     assert restored.describe()["time_model"] == model
+    assert restored.elastic == elastic
+    assert np.array_equal(restored.elastic_deflection.values, stepper.elastic_deflection.values)
+    if elastic:
+        assert np.abs(stepper.elastic_deflection.values).max() > 0.1
     if te == "grid":
         assert isinstance(restored.stepper._engine, VariableRelaxation)
 
 
-def test_a_restored_response_stepper_continues_bit_for_bit(tmp_path):
+@pytest.mark.parametrize("elastic", [False, True])
+def test_a_restored_response_stepper_continues_bit_for_bit(tmp_path, elastic):
     grid = empty_grid(32, 32, 50e3)
     load = disc_height(grid, 400e3, 9e6)
-    stepper = ResponseStepper(grid, Plate(te=50e3, infill_density=0.0), load=load * 0.5)
+    plate = Plate(te=50e3, infill_density=0.0)
+    stepper = ResponseStepper(grid, plate, load=load * 0.5, elastic=elastic)
+    assert stepper._engine.far is not None  # the default padded half-space
     for k in range(3):
         stepper.advance(100.0 * (k + 1), load * (1 + 0.1 * k))
     stepper.save(tmp_path / "plate.nc")
     restored = ResponseStepper.restore(tmp_path / "plate.nc")
+    # right after the restore, before any step: the same state, rate and elastic part
+    for name in ("deflection", "elastic_deflection", "equilibrium", "uplift_rate"):
+        now = getattr(stepper, name)
+        now = now() if callable(now) else now
+        then = getattr(restored, name)
+        then = then() if callable(then) else then
+        assert np.array_equal(now.values, then.values), name
     for k in range(3):
         a = stepper.advance(250.0, load * (0.8 - 0.2 * k))
         b = restored.advance(250.0, load * (0.8 - 0.2 * k))
         assert np.array_equal(a.values, b.values)
         assert np.array_equal(stepper.uplift_rate().values, restored.uplift_rate().values)
     assert restored.time == stepper.time
+    assert restored.elastic == elastic
+    ours, theirs = stepper.describe(), restored.describe()
+    assert ours.keys() == theirs.keys()
+    assert all(np.array_equal(ours[key], theirs[key]) for key in ours)
 
 
 def test_restore_refuses_files_that_are_no_stepper_state(tmp_path):
@@ -172,7 +232,7 @@ def test_restore_refuses_files_that_are_no_stepper_state(tmp_path):
 def test_every_engine_field_is_saved_or_rebuilt():
     # A field added to an engine must be classified as state (saved) or as rebuilt from the
     # settings; otherwise a restored run could silently differ (common practice).
-    for engine in (SpectralRelaxation, VariableRelaxation):
+    for engine in (SpectralRelaxation, VariableRelaxation, FarField):
         assert not check_engine_fields(engine), check_engine_fields(engine)
         state, derived = ENGINE_FIELDS[engine]
         assert (state | derived) == {f.name for f in fields(engine)}
@@ -181,6 +241,18 @@ def test_every_engine_field_is_saved_or_rebuilt():
 def test_every_stepper_argument_is_saved():
     parameters = set(inspect.signature(ResponseStepper.__init__).parameters)
     assert parameters - {"self", "grid", "plate", "load"} == set(SAVED_SETTINGS)
+
+
+def test_every_stepper_attribute_is_saved_or_rebuilt():
+    # As for the engines (common practice): an attribute added to ResponseStepper (such as
+    # the elastic Earth's state) must be listed as saved or rebuilt.
+    grid = empty_grid(16, 16, 50e3)
+    stepper = ResponseStepper(
+        grid, Plate(te=10e3, infill_density=0.0), load=disc_height(grid, 200e3, 1e6), elastic=True
+    )
+    stepper.advance(100.0, disc_height(grid, 200e3, 2e6))
+    saved, rebuilt = STEPPER_FIELDS
+    assert set(vars(stepper)) == saved | rebuilt
 
 
 def test_output_times_pick_the_history_and_refuse_times_outside():

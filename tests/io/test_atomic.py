@@ -204,3 +204,58 @@ def test_kill_9_during_a_large_write_leaves_nothing_under_a_final_name(tmp_path)
         _write(out / "small.txt", "again")
         _write(out / "big.bin", "again")
     assert _tree(out) == ["big.bin", "small.txt"]
+
+
+KILLED_BETWEEN_RENAMES = """
+import os, signal, sys
+from pathlib import Path
+from gridflex.io.atomic import OutputSet, atomic_path
+
+folder, other = Path(sys.argv[1]), Path(sys.argv[2])
+names = {"a": folder / "a.txt", "b": folder / "b.txt", "c": other / "c.txt"}
+files = OutputSet(overwrite=True)
+files.add(names)
+renames = []
+real_replace = os.replace
+
+
+def replace_then_die(source, target):  # the fault: SIGKILL after the first rename
+    real_replace(source, target)
+    renames.append(target)
+    if len(renames) == 1:
+        os.kill(os.getpid(), signal.SIGKILL)
+
+
+with files.writing():
+    for path in names.values():
+        with atomic_path(path) as tmp:
+            tmp.write_text("new")
+    os.replace = replace_then_die
+"""
+
+
+def test_kill_9_between_the_renames_of_a_set_is_finished_by_the_next_run(tmp_path, caplog):
+    folder, other = tmp_path / "out", tmp_path / "other"
+    folder.mkdir()
+    other.mkdir()
+    for path in (folder / "a.txt", folder / "b.txt", other / "c.txt"):
+        path.write_text("old")
+    child = subprocess.run(
+        [sys.executable, "-c", textwrap.dedent(KILLED_BETWEEN_RENAMES), str(folder), str(other)],
+        capture_output=True,
+        text=True,
+    )
+    assert child.returncode == -signal.SIGKILL, child.stderr
+    finals = [folder / "a.txt", folder / "b.txt", other / "c.txt"]
+    contents = [p.read_text() for p in finals]
+    assert sorted(contents) == ["new", "old", "old"]  # the kill fell between two renames
+    assert any(n.endswith(".commit") for n in os.listdir(folder))
+    # the next run into the other folder finishes the commit: all three files are new
+    with caplog.at_level(logging.WARNING, logger="gridflex.io.atomic"):
+        OutputSet(overwrite=True).add({"d": other / "d.txt"})
+    assert [p.read_text() for p in finals] == ["new", "new", "new"]
+    assert "interrupted in an earlier run" in caplog.text
+    # journals, roll-back copies and temporaries of the dead run: all gone after a run there
+    OutputSet(overwrite=True).add({"a": folder / "a.txt"})
+    assert _tree(folder) == ["a.txt", "b.txt"]
+    assert _tree(other) == ["c.txt"]

@@ -11,6 +11,7 @@ import pytest
 
 from gridflex.basin.compaction import LITHOLOGIES
 from gridflex.basin.staging import ISOPACHS
+from gridflex.basin.stretching import ISOSTASY
 from gridflex.bmi.config import BMI_SCHEMA
 from gridflex.engine import EDGES, METHODS, SPECTRAL_EDGES
 from gridflex.estimation.misfit import QUANTITIES
@@ -45,6 +46,7 @@ LIBRARY_CHOICES: dict[tuple[str, str, str], tuple[str, ...]] = {
     ("basin", "stages", "lithology"): tuple(LITHOLOGIES),
     ("basin", "backstrip", "lithology"): tuple(LITHOLOGIES),
     ("basin", "backstrip_layers", "lithology"): tuple(LITHOLOGIES),
+    ("basin", "stretching", "isostasy"): ISOSTASY,
     ("history", "mantle", "model"): MODELS,
     ("history", "solver", "edges"): SPECTRAL_EDGES,
     ("history", "solver", "interpolation"): INTERPOLATIONS,

@@ -33,3 +33,12 @@ def test_single_threaded_blas_in_the_main_thread_only_and_restored():
     worker.start()
     worker.join(5)
     assert seen["inside"] == before and _blas_threads() == before
+
+
+def test_the_limit_holds_again_on_every_later_entry():
+    # common practice: the cached controller limits and restores on each solve, not once
+    before = _blas_threads()
+    for _ in range(3):
+        with single_threaded_blas():
+            assert all(n == 1 for n in _blas_threads())
+        assert _blas_threads() == before

@@ -442,3 +442,30 @@ def test_warm_start_is_scaled_so_a_vanishing_load_still_converges() -> None:
     assert_allclose(tiny, w * 1e-29, rtol=0, atol=1e-6 * float(np.abs(w).max()) * 1e-29)
     double, _ = solver.solve(2.0 * load, start=w)
     assert_allclose(double, 2.0 * w, rtol=0, atol=1e-6 * float(np.abs(w).max()))
+
+
+def test_earlier_solutions_combine_into_the_start_of_a_load_in_their_span() -> None:
+    """A load that is a combination of earlier loads starts at the same combination of their
+    solutions (K linear, the Galerkin projection onto their span: common practice), so it
+    needs next to no iterations; a load outside the span is still solved to tolerance."""
+    n, h = 64, 8e3
+    spec = GridSpec(ny=n, nx=n, dy=h, dx=h)
+    x = np.arange(n) * h
+    te = np.where(x[None, :] < 0.5 * n * h, 10e3, 40e3) * np.ones((n, 1))
+    solver = FiniteDifferenceSolver.build(spec, rigidity_from_te(te, 7e10, NU), RHO_G, NU)
+    loads = [np.zeros(solver.shape) for _ in range(3)]
+    loads[0][40:50, 30:40] = 1e7
+    loads[1][60:66, 52:70] = 2e7
+    loads[2][30:36, 60:70] = 1e7
+    earlier = [(solver.solve_full(q)[0], q) for q in loads[:2]]
+    inside = 0.3 * loads[0] - 0.7 * loads[1]
+    w_plain, plain = solver.solve_full(inside)
+    w_warm, warm = solver.solve_full(inside, earlier=earlier)
+    assert warm["iterations"] <= 1 < plain["iterations"]
+    peak = float(np.abs(w_plain).max())
+    assert_allclose(w_warm, w_plain, rtol=0, atol=1e-5 * peak)
+    outside = inside + loads[2]
+    w_plain, plain = solver.solve_full(outside)
+    w_warm, warm = solver.solve_full(outside, earlier=earlier)
+    assert warm["iterations"] <= plain["iterations"]
+    assert_allclose(w_warm, w_plain, rtol=0, atol=1e-5 * float(np.abs(w_plain).max()))

@@ -54,13 +54,13 @@ surface_variable = "elevation"
 [[stages]]
 file = "s1.nc"
 variable = "thickness"
-age = 3.0e6
+age = "3 Myr"
 lithology = "shale"
 
 [[stages]]
 file = "s2.nc"
 variable = "thickness"
-age = 1.0e6
+age = "1 Ma"
 lithology = "sandstone"
 base_level = "0 m"
 
@@ -80,8 +80,10 @@ file = "delta_out.nc"
     assert out.sizes["stage"] == 2
     for name in ("deflection", "accommodation", "stage_thickness", "stage_density"):
         assert_allclose(out[name].values, expected[name].values, rtol=1e-12, atol=1e-12)
-    assert_allclose(out["age"].values, [3.0e6, 1.0e6])
+    assert_allclose(out["age"].values, [3.0e6, 1.0e6])  # "3 Myr", "1 Ma" in years
     assert float(out["stage_fill"][1].max()) > 0.0  # the second stage filled its moat
+    assert_allclose(out["stage_te"].values, [8e3, 8e3])  # every stage used [plate] te
+    assert out.attrs["plate_te"] == 8e3
 
 
 def test_backstrip_command(tmp_path):
@@ -360,7 +362,10 @@ def test_basin_with_a_margin_and_a_break(stage_files, stage_te):
         assert_allclose(out[name].values, expected[name].values, atol=1e-9)
     assert_allclose(out["elastic_thickness"].values, [te.values, second_te.values])
     assert float(out["stage_fill"][1].max()) > 0.0
-    assert out.attrs["plate_te_min"] == 0.0
+    # the [plate] te grid is plate_te only when every stage used it (common practice)
+    assert out.attrs["plate_default_te_min" if stage_te else "plate_te_min"] == 0.0
+    assert_allclose(out["stage_te_min"].values, [0.0, 0.0])  # the hinge
+    assert_allclose(out["stage_te_max"].values[1], 10e3 if stage_te else 15e3)
 
 
 def test_basin_te_file_and_its_errors_name_the_plate_table(stage_files, capsys):
@@ -385,3 +390,80 @@ def test_basin_te_file_and_its_errors_name_the_plate_table(stage_files, capsys):
     assert main(["basin", "-q", "--overwrite", str(path)]) == 2
     err = capsys.readouterr().err
     assert "[margin]" in err and "[basin]" not in err
+
+
+# a sea-level change loads every submerged cell up to the grid edge (expected)
+@pytest.mark.filterwarnings("ignore::gridflex.errors.EdgeLoadWarning")
+def test_sea_level_through_time_from_a_csv_file(stage_files, capsys):
+    # each stage takes the sea level of the file at its age, linear in time between rows
+    # (the one sea-level series rule, gridflex.glacial.ice.sea_level_at; common practice),
+    # ages in Ma (1e6 years); a stage's own sea_level wins; the command must equal the
+    # library call with those levels; ages outside the file are refused
+    folder, shelf = stage_files
+    (folder / "sea.csv").write_text("age [Ma],level [m]\n0,0\n2,30\n4,-10\n")
+    text = """
+[plate]
+elastic_thickness = "8 km"
+
+[basin]
+surface_file = "surface.nc"
+sea_level_file = "sea.csv"
+
+[[stages]]
+file = "s1.nc"
+age = "3 Ma"
+
+[[stages]]
+file = "s2.nc"
+age = "1 Myr"
+lithology = "sandstone"
+{own}
+
+[output]
+file = "sea_out.nc"
+"""
+    (folder / "sea.toml").write_text(text.format(own=""))
+    assert main(["basin", "-q", str(folder / "sea.toml")]) == 0
+    with xr.open_dataset(folder / "sea_out.nc") as ds:
+        out = ds.load()
+    stages = [
+        Stage(_lens(500.0, 25e3), 3.0e6, "shale", sea_level=10.0),
+        Stage(_lens(300.0, 18e3), 1.0e6, "sandstone", sea_level=15.0),
+    ]
+    expected = stage_loading(stages, shelf, Plate(te=8e3))
+    for name in ("deflection", "water_depth"):
+        assert_allclose(out[name].values, expected[name].values, rtol=1e-12, atol=1e-12)
+    (folder / "sea.toml").write_text(text.format(own='sea_level = "-5 m"'))
+    assert main(["basin", "-q", "--overwrite", str(folder / "sea.toml")]) == 0
+    with xr.open_dataset(folder / "sea_out.nc") as ds:
+        own = ds.load()
+    stages[1] = Stage(_lens(300.0, 18e3), 1.0e6, "sandstone", sea_level=-5.0)
+    expected = stage_loading(stages, shelf, Plate(te=8e3))
+    assert_allclose(own["water_depth"].values, expected["water_depth"].values, atol=1e-12)
+    (folder / "sea.csv").write_text("age [Ma],level [m]\n0,0\n2,30\n")
+    assert main(["basin", "-q", "--overwrite", str(folder / "sea.toml")]) == 2
+    err = capsys.readouterr().err
+    assert "[basin] sea_level_file" in err and "not extrapolated" in err
+
+
+def test_an_erosion_stage_reads_a_negative_isopach(stage_files):
+    # erosion = true lets the isopach be negative (its cells erode the pile); the command
+    # must equal the library call on the same grids (common practice); without the key the
+    # same file is refused (test above)
+    folder, shelf = stage_files
+    _write(folder / "cut.nc", "thickness", _lens(-200.0, 18e3))
+    (folder / "cut.toml").write_text(
+        '[plate]\nelastic_thickness = "8 km"\n[basin]\nsurface_file = "surface.nc"\n'
+        '[[stages]]\nfile = "s1.nc"\nage = "3 Ma"\n'
+        '[[stages]]\nfile = "cut.nc"\nage = "1 Ma"\nerosion = true\n'
+        '[output]\nfile = "cut_out.nc"\n'
+    )
+    assert main(["basin", "-q", str(folder / "cut.toml")]) == 0
+    with xr.open_dataset(folder / "cut_out.nc") as ds:
+        out = ds.load()
+    stages = [Stage(_lens(500.0, 25e3), 3e6, "shale"), Stage(_lens(-200.0, 18e3), 1e6, "shale")]
+    expected = stage_loading(stages, shelf, Plate(te=8e3))
+    for name in ("deflection", "final_stage_thickness", "stage_thickness"):
+        assert_allclose(out[name].values, expected[name].values, rtol=1e-12, atol=1e-12)
+    assert float(out["deflection_increment"][1].min()) < 0.0  # the plate rebounds
+    assert_allclose(out["stage_thickness"][1].values, _lens(-200.0, 18e3).values, atol=1e-12)

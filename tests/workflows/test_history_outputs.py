@@ -100,6 +100,34 @@ def test_point_series_are_written_as_csv(tmp_path, capsys):
     written.close()
 
 
+def test_point_series_csv_has_the_elastic_part_with_an_elastic_earth(tmp_path):
+    # [mantle] elastic = true writes elastic_deflection; the series table then carries it
+    # for each point, the same numbers as the written grid (common practice: the table
+    # adds nothing numerical).
+    text = SCENARIO.replace(
+        'relaxation_time = "3 kyr"', 'relaxation_time = "3 kyr"\nelastic = true'
+    )
+    run_history_scenario(load_history_scenario(_write(tmp_path, text)))
+    with open(tmp_path / "out" / "series.csv", newline="") as handle:
+        rows = list(csv.reader(handle))
+    assert rows[0][1:5] == [
+        "centre:deflection [m]",
+        "centre:uplift_rate [m yr-1]",
+        "centre:bed_elevation [m]",
+        "centre:elastic_deflection [m]",
+    ]
+    assert rows[0][8] == "edge:elastic_deflection [m]" and len(rows[0]) == 9
+    table = np.array(rows[1:], dtype=float)
+    written = xr.open_dataset(tmp_path / "out" / "ice.nc", decode_times=False)
+    iy = int(np.argmin(np.abs(written.y.values - 0.0)))
+    ix = int(np.argmin(np.abs(written.x.values - 0.0)))
+    elastic = written.elastic_deflection.values[:, iy, ix]
+    np.testing.assert_allclose(table[:, 4], elastic, rtol=1e-9)
+    # under the full ice the elastic part is there and a small part of the deflection
+    assert 0.5 < table[1, 4] < 0.5 * table[1, 1]
+    written.close()
+
+
 def test_output_times_with_units_and_float32(tmp_path):
     text = SCENARIO.replace(
         'series_csv = "out/series.csv"',

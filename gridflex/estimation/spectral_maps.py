@@ -1,0 +1,577 @@
+"""Te as a map: moving-window multitaper coherence or admittance.
+
+The grids are cut into square windows of side *window* whose centres step by *step*
+(Pérez-Gussinyé, Lowry, Watts & Velicogna 2004, *JGR* 109; Audet & Mareschal 2007,
+*GRL* 34 — both from memory for the details). In each window the same 2-D multitapers
+and wavenumber annuli as :func:`gridflex.estimation.admittance.cross_spectra` give the
+observed curve, and te is the value whose prediction fits it best by least squares over
+the bands; the interval is the profile-likelihood rule every te fit shares
+(:mod:`gridflex.estimation.likelihood`, PHYSICS.md 8.1) applied to that misfit.
+
+Bouguer coherence (default) — Forsyth's (1985, *JGR* 90) two-load model with load
+deconvolution (PHYSICS.md 8.2): for a trial te the observed topography H and Moho
+relief W = B / (2 pi G (rho_m - rho_c) e^{-k z_m}) of each tapered Fourier coefficient
+are split into the surface and subsurface loads that would have made them,
+
+.. math:: H_T = \\frac{H + b W}{1 - a b}, \\qquad W_B = \\frac{W + a H}{1 - a b},
+          \\qquad a = \\frac{\\rho_c}{\\Delta\\rho \\, \\xi}, \\quad
+          b = \\frac{\\Delta\\rho}{\\rho_c \\, \\phi},
+
+and the predicted coherence of a band is that of uncorrelated loads of those powers
+(P_T = <|H_T|²>, P_B = <|W_B|²>): <H H*> = P_T + b² P_B, <W W*> = a² P_T + P_B,
+<H W*> = -a P_T - b P_B. The prediction is thus estimated from the window's own
+spectra, and the ratio of the loads is no parameter. Because a and b depend only on
+|k|, the per-coefficient powers are summed first over the coefficients that share a
+|k| (exact), which makes each trial te a few operations per distinct |k|.
+
+Free-air admittance (``quantity="free_air"``): the top-loaded plate of PHYSICS.md 6.2
+applied to the window's own topography and passed through the same tapers and bands
+(as :func:`gridflex.estimation.admittance.fit_te_spectral` does), one FFT per taper and
+trial te.
+
+Windows are processed in chunks: one batched :func:`scipy.fft.rfft2` (threaded) per
+taper and grid over a stack of windows, the stack's memory estimated first.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import warnings
+from typing import Any
+
+import numpy as np
+import scipy.fft
+import xarray as xr
+
+from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
+from gridflex.errors import InputError
+from gridflex.estimation.admittance import (
+    _band_setup,
+    _detrend,
+    _flexural_ratio,
+    free_air_admittance,
+)
+from gridflex.estimation.likelihood import (
+    OpenIntervalWarning,
+    correlation_factor,
+    interval_end,
+    interval_threshold,
+)
+from gridflex.estimation.search import check_search_bounds, grid_then_refine
+from gridflex.gravity.first_order import CrustLayers
+from gridflex.grid import GridSpec, check_grid, check_same_grid
+from gridflex.memory import check_memory
+from gridflex.plate import Plate
+from gridflex.progress import Progress
+from gridflex.validation import check_choice, check_integer, check_number
+
+__all__ = [
+    "TE_MAP_BOUNDS",
+    "TE_MAP_QUANTITIES",
+    "TE_MAP_SAMPLES",
+    "te_map",
+]
+
+log = logging.getLogger(__name__)
+
+TE_MAP_QUANTITIES = ("bouguer", "free_air")
+"""What :func:`te_map` fits: Bouguer coherence (Forsyth 1985) or free-air admittance."""
+
+TE_MAP_BOUNDS = (1e3, 1.5e5)
+"""Default te search range of :func:`te_map` (m)."""
+
+TE_MAP_SAMPLES = 31
+"""Default number of log-spaced trial te of the coarse search of every window."""
+
+_MIN_WINDOW_CELLS = 16
+"""Fewest cells along a window's side."""
+
+_CHUNK_BYTES = 256 * 2**20
+"""Memory a chunk of windows may take (the chunk is at least one window)."""
+
+_XTOL = 1e-4
+"""Tolerance of the refinement and of the interval ends, in log te."""
+
+
+def _window_cells(window: float, spacing: float, cells: int, axis: str) -> int:
+    n = int(round(window / spacing))
+    if n < _MIN_WINDOW_CELLS or n > cells:
+        raise InputError(
+            f"window ({window!r} m) spans {n} cells along {axis}; it must span "
+            f"{_MIN_WINDOW_CELLS} to {cells} cells (the grid's size) of {spacing!r} m"
+        )
+    return n
+
+
+def _starts(cells: int, size: int, step: int) -> np.ndarray:
+    """First cells of the windows along an axis: every *step* cells, centred on the grid."""
+    count = (cells - size) // step + 1
+    offset = (cells - size - (count - 1) * step) // 2
+    return offset + step * np.arange(count)
+
+
+def _membership(index: np.ndarray, count: int) -> Any:
+    """Sparse (count, len(index)) matrix with a 1 at (index[i], i): sums by bin as a product;
+    indices outside [0, count) are dropped."""
+    from scipy.sparse import csr_matrix
+
+    keep = (index >= 0) & (index < count)
+    n = index.size
+    return csr_matrix(
+        (np.ones(int(keep.sum())), (index[keep], np.arange(n)[keep])), shape=(count, n)
+    )
+
+
+def _binned(values: np.ndarray, membership: Any) -> np.ndarray:
+    """Sums of the rows of *values* (windows, n) over the bins of *membership* (bins, n)."""
+    return np.asarray(membership @ values.T).T
+
+
+class _Runs:
+    """Sums over runs of a non-decreasing bin index (groups sorted by |k| into bands);
+    indices outside [0, count) are dropped."""
+
+    def __init__(self, index: np.ndarray, count: int) -> None:
+        self.starts = np.flatnonzero(np.r_[True, np.diff(index) != 0])
+        self.keep = (index[self.starts] >= 0) & (index[self.starts] < count)
+
+    def __call__(self, values: np.ndarray) -> np.ndarray:
+        return np.add.reduceat(values, self.starts, axis=-1)[..., self.keep]
+
+
+class _Chunk:
+    """The spectra of a stack of windows and the misfit of a trial te for each of them."""
+
+    observed: np.ndarray
+    """Observed coherence or admittance, (windows, bands used)."""
+
+    def residuals(self, te: float, rows: slice = slice(None)) -> np.ndarray:
+        """Observed minus predicted curve at *te* (m) of the windows *rows*, (rows, bands)."""
+        raise NotImplementedError
+
+    def rss(self, te: float, rows: slice = slice(None)) -> np.ndarray:
+        """Sum of squared band misfits at *te* (m) of the windows *rows*."""
+        r = self.residuals(te, rows)
+        return np.einsum("ij,ij->i", r, r)
+
+    def correlation(self, te: float, row: int) -> float:
+        """n / n_eff of the band residuals of window *row* at *te* (m): the residual
+        correlation factor of every te fit, along the bands."""
+        r = self.residuals(te, slice(row, row + 1))
+        return correlation_factor(r, np.ones(r.shape, dtype=bool), GridSpec(1, r.size, 1.0, 1.0))
+
+
+class _BouguerChunk(_Chunk):
+    """Forsyth (1985) load deconvolution of each window (see the module docstring)."""
+
+    def __init__(self, setup: _Setup, h: np.ndarray, g: np.ndarray) -> None:
+        self.setup = setup
+        bands = setup.bands
+        hs, gs = bands.transform(h), bands.transform(g)
+        to_moho = setup.moho_filter
+        s_hh = sum(np.abs(t) ** 2 for t in hs)
+        s_ww = sum(np.abs(t / to_moho) ** 2 for t in gs)
+        s_hw = sum(th * (tg / to_moho).conj() for th, tg in zip(hs, gs, strict=True))
+        assert isinstance(s_hh, np.ndarray) and isinstance(s_ww, np.ndarray)
+        assert isinstance(s_hw, np.ndarray)
+        in_band = setup.coefficient_bands
+        cross = _binned(s_hw, in_band)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.observed = np.abs(cross) ** 2 / (_binned(s_hh, in_band) * _binned(s_ww, in_band))
+        in_group = setup.coefficient_groups
+        self.hh = _binned(s_hh, in_group)
+        self.rr = _binned(s_hw.real, in_group)
+        self.ww = _binned(s_ww, in_group)
+
+    def residuals(self, te: float, rows: slice = slice(None)) -> np.ndarray:
+        setup = self.setup
+        a, b = setup.deconvolution(te)
+        u = 1.0 / (1.0 - a * b) ** 2
+        hh, rr, ww = self.hh[rows], self.rr[rows], self.ww[rows]
+        p_t = u * (hh + 2.0 * b * rr + b * b * ww)  # <|H_T|²>
+        p_b = u * (ww + 2.0 * a * rr + a * a * hh)  # <|W_B|²>
+        groups = setup.group_bands
+        pred_hh = groups(p_t + b * b * p_b)
+        pred_ww = groups(a * a * p_t + p_b)
+        pred_hw = groups(-a * p_t - b * p_b)
+        return self.observed[rows] - pred_hw**2 / (pred_hh * pred_ww)
+
+
+class _FreeAirChunk(_Chunk):
+    """The free-air admittance of PHYSICS.md 6.2 applied to each window's topography."""
+
+    def __init__(self, setup: _Setup, h: np.ndarray, g: np.ndarray) -> None:
+        self.setup = setup
+        bands = setup.bands
+        self.h_spectrum = scipy.fft.rfft2(_detrend(h), workers=-1)
+        self.hs = bands.transform(h)
+        gs = bands.transform(g)
+        in_band = setup.coefficient_bands
+        self.power = _binned(sum(np.abs(t) ** 2 for t in self.hs), in_band)
+        cross = sum((tg * th.conj()).real for th, tg in zip(self.hs, gs, strict=True))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.observed = _binned(cross, in_band) / self.power
+
+    def residuals(self, te: float, rows: slice = slice(None)) -> np.ndarray:
+        setup = self.setup
+        z = setup.free_air(te)
+        model = scipy.fft.irfft2(z * self.h_spectrum[rows], s=setup.shape, workers=-1)
+        ms = setup.bands.transform(model)
+        cross = sum((tm * th[rows].conj()).real for th, tm in zip(self.hs, ms, strict=True))
+        predicted = _binned(cross, setup.coefficient_bands) / self.power[rows]
+        return self.observed[rows] - predicted
+
+
+class _Setup:
+    """Window shape, tapers, bands and the te-independent parts of the predictions."""
+
+    def __init__(
+        self,
+        spec: GridSpec,
+        shape: tuple[int, int],
+        plate: Plate,
+        quantity: str,
+        spectral: dict[str, Any],
+    ) -> None:
+        self.shape = shape
+        self.plate = plate
+        self.quantity = quantity
+        window_spec = GridSpec(ny=shape[0], nx=shape[1], dy=spec.dy, dx=spec.dx)
+        self.bands = _band_setup(
+            window_spec, spectral["bands"], spectral["bandwidth"], spectral["tapers"]
+        )
+        bands = self.bands
+        k = bands.k[bands.inside]
+        counts = np.bincount(bands.flat, minlength=bands.nb)
+        k_mean = np.bincount(bands.flat, weights=k, minlength=bands.nb) / np.maximum(counts, 1)
+        use = counts > 0
+        low_high = spectral["wavenumber_range"]
+        if low_high is not None:
+            use &= (k_mean >= low_high[0]) & (k_mean <= low_high[1])
+        if use.sum() < 3:
+            raise InputError(
+                f"only {int(use.sum())} usable bands in a window of {shape[0]} x {shape[1]} "
+                "cells (wavenumber_range, bands); need >= 3"
+            )
+        self.k_mean = k_mean[use]
+        # bands used, numbered 0..n-1; coefficients of bands left out go to a dropped bin,
+        # -1 below the used range and n above it, so the numbers still grow with |k|
+        self.n_bands = int(use.sum())
+        used = np.flatnonzero(use)
+        number = np.where(np.arange(bands.nb) < used[0], -1, self.n_bands)
+        number[use] = np.arange(self.n_bands)
+        flat = number[bands.flat]
+        self.coefficient_bands = _membership(flat, self.n_bands)
+        # coefficients sharing |k| share every weight of the deconvolution: sum them first
+        key = np.round(k / k.max() * 2.0**40).astype(np.int64)
+        unique, group = np.unique(key, return_inverse=True)
+        self.k_group = np.bincount(group, weights=k) / np.bincount(group)
+        band_of_group = np.zeros(unique.size, dtype=np.int64)
+        band_of_group[group] = flat
+        self.coefficient_groups = _membership(group, unique.size)
+        if np.any(np.diff(band_of_group) < 0):  # np.unique sorts by |k|; bands are |k| ranges
+            raise AssertionError("groups of |k| out of band order")
+        self.group_bands = _Runs(band_of_group, self.n_bands)
+        if quantity == "bouguer":
+            drho = plate.mantle_density - plate.crust_density
+            self.moho_filter = (
+                2.0 * math.pi * GRAVITATIONAL_CONSTANT * drho * np.exp(-k * spectral["moho_depth"])
+            ) / MGAL  # mGal per m of Moho relief
+        else:
+            self.layers: CrustLayers = spectral["gravity"]
+            self.contrast = float(spectral["topography_contrast"])
+
+    def deconvolution(self, te: float) -> tuple[np.ndarray, np.ndarray]:
+        """Forsyth's a = rho_c / (drho xi) and b = drho / (rho_c phi) at each distinct |k|."""
+        plate, k = self.plate, self.k_group
+        rho_c = plate.crust_density
+        drho = plate.mantle_density - rho_c
+        xi, phi = _flexural_ratio(k, te, plate, drho), _flexural_ratio(k, te, plate, rho_c)
+        return rho_c / (drho * xi), drho / (rho_c * phi)
+
+    def free_air(self, te: float) -> np.ndarray:
+        """Free-air admittance (mGal m⁻¹) on the window's rfft2 grid."""
+        return free_air_admittance(self.bands.k, self.plate.with_te(te), self.layers, self.contrast)
+
+    def chunk(self, h: np.ndarray, g: np.ndarray) -> _Chunk:
+        """The spectra of a stack of windows (windows, ny, nx) of topography and anomaly."""
+        if self.quantity == "bouguer":
+            return _BouguerChunk(self, h, g)
+        return _FreeAirChunk(self, h, g)
+
+    def bytes_per_window(self) -> int:
+        """Memory (bytes) one window of a chunk needs, about."""
+        ny, nx = self.shape
+        coefficients = int(self.bands.inside.sum())
+        tapers = len(self.bands.tapers)
+        grids = 8 * ny * nx * 6 + 16 * ny * (nx // 2 + 1) * 2
+        return grids + 16 * coefficients * (3 * tapers + 6)
+
+
+def _window_fit(
+    chunk: _Chunk,
+    row: int,
+    coarse: np.ndarray,
+    log_grid: np.ndarray,
+    n_bands: int,
+    confidence: float,
+) -> tuple[float, float, float, float, bool, bool]:
+    """Best log te of one window, its interval ends and whether they closed, and its RSS."""
+    known = dict(zip(log_grid.tolist(), coarse.tolist(), strict=True))
+    rows = slice(row, row + 1)
+
+    def objective(log_te: float) -> float:
+        if log_te not in known:
+            known[log_te] = float(chunk.rss(math.exp(log_te), rows)[0])
+        return known[log_te]
+
+    _, best = grid_then_refine(objective, log_grid, xatol=_XTOL)
+    rss_min = objective(best)
+    threshold, _ = interval_threshold(
+        rss_min, n_bands, 1, chunk.correlation(math.exp(best), row), confidence
+    )
+    below = log_grid[log_grid < best][::-1]
+    above = log_grid[log_grid > best]
+    low, low_closed = (best, False)
+    high, high_closed = (best, False)
+    if below.size:
+        low, low_closed = interval_end(objective, best, rss_min, threshold, below, _XTOL)
+    if above.size:
+        high, high_closed = interval_end(objective, best, rss_min, threshold, above, _XTOL)
+    return best, low, high, rss_min, low_closed, high_closed
+
+
+def te_map(
+    topography: xr.DataArray,
+    anomaly: xr.DataArray,
+    plate: Plate,
+    *,
+    window: float,
+    step: float | None = None,
+    quantity: str = "bouguer",
+    bounds: tuple[float, float] = TE_MAP_BOUNDS,
+    samples: int = TE_MAP_SAMPLES,
+    bands: int = 16,
+    bandwidth: float = 2.0,
+    tapers: int | None = None,
+    wavenumber_range: tuple[float, float] | None = None,
+    moho_depth: float | None = None,
+    gravity: CrustLayers | None = None,
+    topography_contrast: float | None = None,
+    confidence: float = 0.95,
+    progress: Progress | None = None,
+) -> xr.Dataset:
+    """Elastic thickness as a map, from moving-window multitaper spectra.
+
+    Each square window of side *window* (centres every *step*) gets its own te and
+    interval (module docstring): Forsyth's (1985) Bouguer coherence with load
+    deconvolution by default, or the free-air admittance of a top-loaded plate.
+
+    Parameters
+    ----------
+    topography : xarray.DataArray
+        Topography H (m, up), dims ``("y", "x")``, regular grid in metres.
+    anomaly : xarray.DataArray
+        Bouguer (or free-air) anomaly (mGal) on the same grid.
+    plate : Plate
+        Moduli, ``mantle_density`` and ``crust_density`` (Forsyth's rho_m, rho_c) and,
+        for the free-air admittance, the infill; its te is ignored.
+    window : float
+        Side of the windows (m): about 3 to 4 times the flexural wavelength of the
+        stiffest plate expected (longer windows resolve stiffer plates but blur the map;
+        ``tests/benchmarks/te_map.py`` measures the trade-off).
+    step : float, optional
+        Distance between window centres (m); default a quarter of *window*.
+    quantity : {"bouguer", "free_air"}, default "bouguer"
+        ``"bouguer"``: Bouguer coherence, Forsyth's two-load model with the loads
+        deconvolved in each window (no load-ratio parameter). ``"free_air"``: free-air
+        admittance of a top-loaded plate (PHYSICS.md 6.2, needs *gravity* and
+        *topography_contrast*), its prediction estimated from each window's topography.
+    bounds : tuple of float, default (1e3, 1.5e5)
+        te search range (m): *samples* log-spaced trials, then bounded Brent.
+    samples : int, default 31
+        Trial te of the coarse search (all windows at once).
+    bands, bandwidth, tapers
+        Annuli and multitapers of each window, as in
+        :func:`gridflex.estimation.admittance.cross_spectra`.
+    wavenumber_range : tuple of float, optional
+        Use only bands whose mean wavenumber lies in this range (rad m⁻¹).
+    moho_depth : float, optional
+        Depth of the Moho below the observation plane (m), for the Bouguer anomaly's
+        continuation to Moho relief; default ``plate.crust_thickness``.
+    gravity : CrustLayers, optional
+        Layer depths of the free-air admittance.
+    topography_contrast : float, optional
+        Density contrast of the topography (kg m⁻³) of the free-air admittance.
+    confidence : float, default 0.95
+        Confidence of the intervals: the profile-likelihood rule of
+        :func:`gridflex.estimation.likelihood.interval_threshold` with n the number of
+        bands used and one parameter.
+    progress : callable, optional
+        ``progress(done, total)`` after each window.
+
+    Returns
+    -------
+    xarray.Dataset
+        On dims ``("y", "x")`` of the window centres (coordinates in the data's order and
+        CRS; ``attrs["crs_wkt"]`` copied from the topography): ``te``, ``te_low``,
+        ``te_high`` (m) and ``rms_misfit`` (of the coherence, or mGal m⁻¹). An interval
+        that reaches a search bound ends at that bound (one :class:`OpenIntervalWarning`
+        counts them).
+
+    Raises
+    ------
+    InputError
+        Grids that differ or hold NaN, a window shorter than 16 cells or longer than the
+        grid, bad settings, fewer than 3 usable bands, or not enough memory.
+    """
+    spec = check_grid(topography, "topography")
+    check_grid(anomaly, "anomaly")
+    check_same_grid(anomaly, topography, "anomaly")
+    quantity = check_choice("quantity", quantity, TE_MAP_QUANTITIES)
+    window = check_number("window", window, minimum=0.0, unit="m", strict=True)
+    step = (
+        window / 4.0
+        if step is None
+        else check_number("step", step, minimum=0.0, unit="m", strict=True)
+    )
+    low, high = check_search_bounds("bounds", bounds, "m")
+    samples = check_integer("samples", samples, minimum=3)
+    confidence = check_number("confidence", confidence)
+    if not 0.0 < confidence < 1.0:
+        raise InputError(f"confidence must lie in (0, 1), got {confidence!r}")
+    shape = (
+        _window_cells(window, spec.dy, spec.ny, "y"),
+        _window_cells(window, spec.dx, spec.nx, "x"),
+    )
+    steps = (max(int(round(step / spec.dy)), 1), max(int(round(step / spec.dx)), 1))
+    if quantity == "free_air" and (gravity is None or topography_contrast is None):
+        raise InputError(
+            "quantity 'free_air' needs gravity=CrustLayers(...) and topography_contrast (kg/m3)"
+        )
+    spectral = {
+        "bands": bands,
+        "bandwidth": bandwidth,
+        "tapers": tapers,
+        "wavenumber_range": (
+            None
+            if wavenumber_range is None
+            else check_search_bounds("wavenumber_range", wavenumber_range, "rad/m", positive=False)
+        ),
+        "moho_depth": plate.crust_thickness
+        if moho_depth is None
+        else check_number("moho_depth", moho_depth, minimum=0.0, unit="m"),
+        "gravity": gravity,
+        "topography_contrast": topography_contrast,
+        "confidence": confidence,
+    }
+    setup = _Setup(spec, shape, plate, quantity, spectral)
+    starts_y = _starts(spec.ny, shape[0], steps[0])
+    starts_x = _starts(spec.nx, shape[1], steps[1])
+    count = starts_y.size * starts_x.size
+    per_window = setup.bytes_per_window()
+    size = int(max(1, min(count, _CHUNK_BYTES // per_window)))
+    check_memory(
+        size * per_window,
+        f"te map: a chunk of {size} windows of {shape[0]} x {shape[1]} cells",
+        advice="use a smaller window or fewer bands",
+    )
+    log_grid = np.linspace(math.log(low), math.log(high), samples)
+    h_views = np.lib.stride_tricks.sliding_window_view(np.asarray(topography.values, float), shape)
+    g_views = np.lib.stride_tricks.sliding_window_view(np.asarray(anomaly.values, float), shape)
+    iy, ix = (a.ravel() for a in np.meshgrid(starts_y, starts_x, indexing="ij"))
+    out = np.full((5, count), np.nan)
+    open_sides = np.zeros(count, dtype=bool)
+    done = 0
+    for first in range(0, count, size):
+        sel = slice(first, min(first + size, count))
+        chunk = setup.chunk(h_views[iy[sel], ix[sel]], g_views[iy[sel], ix[sel]])
+        coarse = np.stack([chunk.rss(math.exp(x)) for x in log_grid], axis=1)
+        for row in range(coarse.shape[0]):
+            index = first + row
+            if np.all(np.isfinite(coarse[row])):
+                best, lo, hi, rss, lo_ok, hi_ok = _window_fit(
+                    chunk, row, coarse[row], log_grid, setup.n_bands, confidence
+                )
+                out[:, index] = (math.exp(best), math.exp(lo), math.exp(hi), rss, 0.0)
+                open_sides[index] = not (lo_ok and hi_ok)
+            done += 1
+            if progress is not None:
+                progress(done, count)
+    if open_sides.any():
+        warnings.warn(
+            f"te map: the {confidence:.0%} interval of {int(open_sides.sum())} of {count} "
+            f"windows reaches a search bound {bounds!r} m (reported as that bound): the data "
+            "do not constrain te there; widen the bounds or the window",
+            OpenIntervalWarning,
+            stacklevel=2,
+        )
+    blank = int((~np.isfinite(out[0])).sum())
+    if blank:
+        log.warning("te map: %d window(s) without power in every band left NaN", blank)
+    return _map_dataset(topography, out, starts_y, starts_x, shape, setup, spectral, window, step)
+
+
+def _centres(coord: np.ndarray, starts: np.ndarray, size: int) -> np.ndarray:
+    """Coordinates of window centres (the coordinate's own order and spacing)."""
+    spacing = (coord[-1] - coord[0]) / (coord.size - 1)
+    return coord[0] + (starts + (size - 1) / 2.0) * spacing
+
+
+def _map_dataset(
+    topography: xr.DataArray,
+    out: np.ndarray,
+    starts_y: np.ndarray,
+    starts_x: np.ndarray,
+    shape: tuple[int, int],
+    setup: _Setup,
+    spectral: dict[str, Any],
+    window: float,
+    step: float,
+) -> xr.Dataset:
+    grid_shape = (starts_y.size, starts_x.size)
+    y = _centres(np.asarray(topography["y"].values, float), starts_y, shape[0])
+    x = _centres(np.asarray(topography["x"].values, float), starts_x, shape[1])
+    misfit_units = "1" if setup.quantity == "bouguer" else "mGal m-1"
+    names = {
+        "te": "elastic thickness of the window",
+        "te_low": "lower end of the te interval",
+        "te_high": "upper end of the te interval",
+    }
+    data: dict[str, Any] = {
+        name: (("y", "x"), out[i].reshape(grid_shape), {"units": "m", "long_name": text})
+        for i, (name, text) in enumerate(names.items())
+    }
+    data["rms_misfit"] = (
+        ("y", "x"),
+        np.sqrt(out[3].reshape(grid_shape) / setup.n_bands),
+        {"units": misfit_units, "long_name": "RMS misfit over the bands used"},
+    )
+    method = (
+        "Bouguer coherence, Forsyth (1985) two-load model, load deconvolution"
+        if setup.quantity == "bouguer"
+        else "free-air admittance of a top-loaded plate, prediction from the window's topography"
+    )
+    attrs: dict[str, Any] = {
+        "method": f"moving-window 2-D multitaper; {method}",
+        "quantity": setup.quantity,
+        "window": float(window),
+        "window_cells": np.asarray(shape),
+        "step": float(step),
+        "tapers_per_axis": setup.bands.count,
+        "bandwidth": float(spectral["bandwidth"]),
+        "bands_used": setup.n_bands,
+        "confidence": float(spectral["confidence"]),
+        "band_wavenumbers": setup.k_mean,
+    }
+    if setup.quantity == "bouguer":
+        attrs["moho_depth"] = float(spectral["moho_depth"])
+    crs = topography.attrs.get("crs_wkt")
+    if crs:
+        attrs["crs_wkt"] = crs
+    coords = {
+        "y": ("y", y, dict(topography["y"].attrs)),
+        "x": ("x", x, dict(topography["x"].attrs)),
+    }
+    return xr.Dataset(data, coords=coords, attrs=attrs)

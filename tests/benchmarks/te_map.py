@@ -1,0 +1,171 @@
+"""te maps: window size against resolution and bias, interval coverage, cost.
+
+Synthetic plates of Forsyth's (1985) two-load model (tests/helpers.two_load_plate: red,
+uncorrelated surface and Moho loads, f = 1; 256² cells of 30 km, periodic):
+
+1. Uniform plates (te 10, 25, 40 km; spectral solve), several seeds: for each window size
+   the median and spread of te / truth - 1 over all windows, and the share of windows whose
+   interval holds the truth.
+2. A plate of te 10 km (x < 3840 km) and 40 km (x >= 3840 km), solved by finite
+   differences on the te grid: the error and coverage over each domain's interior windows
+   and the width of the step in the map (distance over which the row-median te rises from a
+   quarter to three quarters of its own rise), i.e. the map's resolution.
+   Cost: te_map against the same windows run one by one through cross_spectra (spectra
+   only, no fit), and the finite-difference solve against one spectral solve.
+
+Writes te_map_benchmark.png (window size against resolution and bias) into OUTPUT_DIR.
+Run: PYTHONPATH=. python tests/benchmarks/te_map.py [OUTPUT_DIR] [seeds]
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+import gridflex
+from gridflex.estimation.likelihood import OpenIntervalWarning
+from tests.helpers import two_load_plate
+
+N, DX = 256, 30e3
+WINDOWS = (1200e3, 1800e3, 2400e3, 3600e3)
+PLATE = gridflex.Plate(te=0.0, crust_thickness=35e3)
+
+
+def quiet_map(topography: xr.DataArray, bouguer: xr.DataArray, **options) -> xr.Dataset:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", OpenIntervalWarning)
+        return gridflex.te_map(topography, bouguer, PLATE, **options)
+
+
+def uniform(seeds: int) -> dict[float, list[float]]:
+    """Median error (%) of every window size, per true te."""
+    print("1. uniform plates: te / truth - 1 over all windows (median, 10-90 %), coverage")
+    medians: dict[float, list[float]] = {}
+    for truth in (10e3, 25e3, 40e3):
+        data = [two_load_plate(truth, N, DX, seed=s, plate=PLATE) for s in range(seeds)]
+        for window in WINDOWS:
+            errors, hits = [], []
+            for topography, bouguer in data:
+                result = quiet_map(topography, bouguer, window=window, step=window / 2)
+                errors.append((result["te"].values / truth - 1).ravel())
+                hits.append(
+                    ((result["te_low"] <= truth) & (truth <= result["te_high"])).values.ravel()
+                )
+            e, h = 100 * np.concatenate(errors), np.concatenate(hits)
+            medians.setdefault(truth, []).append(float(np.median(e)))
+            print(
+                f"   te {truth / 1e3:4.0f} km, window {window / 1e3:5.0f} km: median "
+                f"{np.median(e):+6.1f} %, 10-90 % {np.percentile(e, 10):+6.1f} to "
+                f"{np.percentile(e, 90):+6.1f} %, coverage {h.mean():.2f} ({h.size} windows)"
+            )
+    return medians
+
+
+def step_width(x: np.ndarray, te: np.ndarray, split: float, window: float) -> float:
+    """Distance (m) over which a rising profile goes from a quarter to three quarters of
+    its own rise (between its plateaus, a window or more from the step): the resolution,
+    apart from the bias of each plateau."""
+    order = np.argsort(x)
+    x, te = x[order], te[order]
+    low = np.median(te[x <= split - window / 2]) if np.any(x <= split - window / 2) else te[0]
+    high = np.median(te[x >= split + window / 2]) if np.any(x >= split + window / 2) else te[-1]
+    rising = np.maximum.accumulate(te)
+    ends = [float(np.interp(low + share * (high - low), rising, x)) for share in (0.25, 0.75)]
+    return ends[1] - ends[0]
+
+
+def two_domains() -> dict[float, tuple[np.ndarray, np.ndarray]]:
+    print("2. te 10 | 40 km (finite-difference synthetic, step at x = 3840 km)")
+    x = np.arange(N) * DX
+    split = N // 2 * DX
+    te = np.where(x < split, 10e3, 40e3)[None, :] * np.ones((N, 1))
+    start = time.perf_counter()
+    topography, bouguer = two_load_plate(te, N, DX, seed=2, plate=PLATE)
+    fd = time.perf_counter() - start
+    start = time.perf_counter()
+    two_load_plate(25e3, N, DX, seed=2, plate=PLATE)
+    spectral = time.perf_counter() - start
+    print(f"   synthetic: {fd:.2f} s with the te grid, {spectral:.2f} s uniform (spectral)")
+    profiles = {}
+    for window in WINDOWS:
+        start = time.perf_counter()
+        result = quiet_map(topography, bouguer, window=window, step=300e3)
+        elapsed = time.perf_counter() - start
+        xc = result["x"].values
+        line = []
+        for low, high, truth in ((0.0, split, 10e3), (split, N * DX, 40e3)):
+            inside = (xc - window / 2 >= low) & (xc + window / 2 <= high)
+            if not inside.any():
+                line.append(f"te {truth / 1e3:.0f}: no interior window")
+                continue
+            v = result["te"].values[:, inside]
+            hit = (result["te_low"].values[:, inside] <= truth) & (
+                truth <= result["te_high"].values[:, inside]
+            )
+            err = 100 * (v / truth - 1)
+            line.append(
+                f"te {truth / 1e3:.0f}: {v.size} windows, {err.min():+.0f}..{err.max():+.0f} % "
+                f"(median {np.median(err):+.1f}), coverage {hit.mean():.2f}"
+            )
+        median_profile = np.median(result["te"].values, axis=0)
+        width = step_width(xc, median_profile, split, window)
+        profiles[window] = (xc, median_profile)
+        # baseline: the same windows' spectra one by one (no fit)
+        cells = result.attrs["window_cells"]
+        one = topography.isel(y=slice(0, cells[0]), x=slice(0, cells[1]))
+        start = time.perf_counter()
+        gridflex.cross_spectra(one, bouguer.isel(y=slice(0, cells[0]), x=slice(0, cells[1])))
+        baseline = (time.perf_counter() - start) * result["te"].size
+        print(
+            f"   window {window / 1e3:5.0f} km: {'; '.join(line)}; step width "
+            f"{width / 1e3:.0f} km; {result['te'].size} windows in {elapsed:.1f} s "
+            f"({elapsed / baseline:.2f} x their spectra one by one)"
+        )
+    return profiles
+
+
+def plot(out: Path, medians: dict[float, list[float]], profiles: dict) -> Path:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, (left, right) = plt.subplots(1, 2, figsize=(12, 4.8), constrained_layout=True)
+    x = np.arange(N) * DX
+    truth = np.where(x < N // 2 * DX, 10.0, 40.0)
+    left.plot(x / 1e3, truth, "k-", lw=2, label="truth")
+    for window, (xc, te) in profiles.items():
+        left.plot(xc / 1e3, te / 1e3, "o-", ms=3, label=f"window {window / 1e3:.0f} km")
+    left.set_xlabel("x (km)")
+    left.set_ylabel("te, median over rows (km)")
+    left.set_title("resolution: the 10 | 40 km step")
+    left.legend(fontsize="small")
+    for te, values in medians.items():
+        right.plot(np.array(WINDOWS) / 1e3, values, "o-", label=f"te {te / 1e3:.0f} km")
+    right.axhline(0.0, color="k", lw=0.8)
+    right.set_xlabel("window (km)")
+    right.set_ylabel("median te error (%)")
+    right.set_title("bias: uniform plates")
+    right.legend(fontsize="small")
+    path = out / "te_map_benchmark.png"
+    fig.savefig(path, dpi=110)
+    return path
+
+
+def main(out: Path, seeds: int) -> None:
+    out.mkdir(parents=True, exist_ok=True)
+    medians = uniform(seeds)
+    profiles = two_domains()
+    print("wrote", plot(out, medians, profiles))
+
+
+if __name__ == "__main__":
+    main(
+        Path(sys.argv[1]) if len(sys.argv) > 1 else Path("."),
+        int(sys.argv[2]) if len(sys.argv) > 2 else 2,
+    )
