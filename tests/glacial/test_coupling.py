@@ -162,6 +162,7 @@ def test_a_restored_ice_stepper_continues_bit_for_bit(tmp_path, te, model, edges
         assert np.abs(far.state).max() > 0 and np.abs(far.moments).max() > 0
     path = stepper.save(tmp_path / "state.nc")
     restored = IceStepper.restore(path)
+    assert set(vars(restored)) == set(vars(stepper))  # restore sets every attribute
     assert np.array_equal(restored.uplift_rate().values, stepper.uplift_rate().values)
     assert np.array_equal(restored.bed_elevation.values, stepper.bed_elevation.values)
     assert restored.time == stepper.time == 450.0
