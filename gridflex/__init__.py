@@ -22,6 +22,7 @@ from gridflex.estimation.misfit import TeFit, fit_te
 from gridflex.estimation.misfit_te_maps import MarginFit, ScaleFit, fit_te_margin, fit_te_scale
 from gridflex.estimation.spectral_maps import te_map
 from gridflex.estimation.stretching_fit import fit_stretching
+from gridflex.glacial.coupling import IceStepper
 from gridflex.glacial.elastic import elastic_halfspace_response
 from gridflex.glacial.ice import bed_stress, grounded_mask, ice_response
 from gridflex.glacial.response import ResponseStepper, viscous_response
@@ -59,6 +60,7 @@ __all__ = [
     # through time
     "viscous_response",
     "ResponseStepper",
+    "IceStepper",
     "ice_response",
     "elastic_halfspace_response",
     "bed_stress",

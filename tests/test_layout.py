@@ -82,8 +82,9 @@ def test_io_knows_no_physics_workflow_or_scenario(module):
     ("area", "allowed"),
     [
         ("cli", {"cli", "__main__"}),
-        ("workflows", {"workflows", "cli"}),
-        ("scenario", {"scenario", "workflows", "cli"}),
+        ("bmi", {"bmi"}),
+        ("workflows", {"workflows", "cli", "bmi"}),
+        ("scenario", {"scenario", "workflows", "cli", "bmi"}),
     ],
 )
 def test_upper_floors_are_imported_only_from_above(area, allowed):

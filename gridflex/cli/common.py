@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import logging
 import sys
+import time
 import warnings
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass
@@ -23,6 +24,7 @@ __all__ = [
     "add_scenario_command",
     "configure_output",
     "execute_scenario_command",
+    "format_duration",
     "progress_printer",
     "wrote",
 ]
@@ -170,13 +172,44 @@ def configure_output(args: argparse.Namespace) -> None:
     warnings.showwarning = _show_warning
 
 
-def progress_printer(args: argparse.Namespace) -> Progress | None:
-    """A progress callback writing ``done/total`` on stderr, or None when quiet."""
+def progress_printer(
+    args: argparse.Namespace, clock: Callable[[], float] = time.monotonic
+) -> Progress | None:
+    """A progress callback writing ``done/total`` and the time left on stderr, or None
+    when quiet.
+
+    The time left is the time per step so far times the steps left (shown once a step
+    is done and at least a second has passed; *clock* gives seconds).
+    """
     if getattr(args, "quiet", False):
         return None
+    start = clock()
+    shown = [0]  # length of the line last written, to wipe what a shorter one leaves
 
     def report(done: int, total: int) -> None:
         end = "\n" if done >= total else "\r"
-        print(f"gridflex: {done}/{total}", end=end, file=sys.stderr, flush=True)
+        elapsed = clock() - start
+        left = ""
+        if 0 < done < total and elapsed >= 1.0:
+            left = f", about {format_duration(elapsed / done * (total - done))} left"
+        line = f"gridflex: {done}/{total}{left}"
+        print(line.ljust(shown[0]), end=end, file=sys.stderr, flush=True)
+        shown[0] = len(line)
 
     return report
+
+
+def format_duration(seconds: float) -> str:
+    """*seconds* as ``"42 s"``, ``"3 min 05 s"`` or ``"2 h 07 min"``.
+
+    Examples
+    --------
+    >>> format_duration(42.4), format_duration(185.0), format_duration(7620.0)
+    ('42 s', '3 min 05 s', '2 h 07 min')
+    """
+    whole = int(round(seconds))
+    if whole < 60:
+        return f"{whole} s"
+    if whole < 3600:
+        return f"{whole // 60} min {whole % 60:02d} s"
+    return f"{whole // 3600} h {whole % 3600 // 60:02d} min"

@@ -1,42 +1,39 @@
-"""Ice and ocean loads on the bed, and the bed's response to an ice-thickness history.
+"""The bed's response to an ice-thickness history (ice, ocean and floatation).
 
-The vertical stress on the bed (PHYSICS.md section 7.1) is
-
-    sigma = g max(rho_i H, rho_w max(z_sl − b, 0))
-
-so grounded ice (rho_i H ≥ rho_w (z_sl − b)) presses with its weight, floating ice
-presses exactly like the water it displaces, open ocean with its water column and
-ice-free land not at all. The plate is driven by sigma − sigma_ref, the change
-from a reference state (bed ``bed``, ice ``reference_ice_thickness``, sea level
-``reference_sea_level``) in which the deflection is zero. The bed moves with the
-plate, b = bed − w, so floatation and the ocean over depressed bedrock are evaluated
-again at every time from the current deflection (an explicit lag of one step).
-Every cell with its bed below sea level and no grounded ice counts as ocean; closed
-basins are not told apart from the sea.
+The load is that of :class:`~gridflex.glacial.floatation.IceLoad` (PHYSICS.md section
+7.1): sigma − sigma_ref with sigma = g max(rho_i H, rho_w max(z_sl − b, 0)), relative to a
+reference state (bed ``bed``, ice ``reference_ice_thickness``, sea level
+``reference_sea_level``) in which the deflection is zero. The bed moves with the plate,
+b = bed − w, so floatation and the ocean over depressed bedrock are evaluated again at
+every step from the current deflection (an explicit lag of one step). Every cell with its
+bed below sea level and no grounded ice counts as ocean; closed basins are not told apart
+from the sea. :func:`ice_response` runs the history through one
+:class:`~gridflex.glacial.coupling.IceStepper`, so a coupled run gives the same numbers.
 """
 
 from __future__ import annotations
 
 import logging
 import math
-from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
-from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
+from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.engine import deflection_attrs
 from gridflex.errors import ConvergenceError, InputError
+from gridflex.glacial.coupling import BED_ATTRS, IceStepper, check_ice_plate
 from gridflex.glacial.elastic import (
     EARTH_POISSON_RATIO,
     EARTH_YOUNGS_MODULUS,
     elastic_deflection_attrs,
 )
+from gridflex.glacial.floatation import ICE_DENSITY, bed_stress, grounded_mask
 from gridflex.glacial.response import (
     INITIAL_STATES,
-    ResponseStepper,
     check_history_grid,
+    check_times,
     uplift_rate_attrs,
     warn_edge_load,
 )
@@ -47,12 +44,15 @@ from gridflex.plate import Plate
 from gridflex.progress import Progress
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.solvers.viscous import DEFAULT_WIDTH_FACTOR
-from gridflex.validation import check_choice, check_density, check_number
+from gridflex.validation import check_choice, check_flag, check_number
 
 __all__ = [
     "MAX_STEPS",
+    "PRESENT_DAY_MAX_ITERATIONS",
+    "PRESENT_DAY_TOLERANCE",
     "bed_stress",
     "check_max_step",
+    "check_output_times",
     "grounded_mask",
     "ice_response",
     "sea_level_at",
@@ -60,13 +60,13 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
-ICE_DENSITY = 910.0
-"""Default density of glacier ice (kg/m^3; common practice)."""
-
-_EQUILIBRIUM_TOL = 1e-6  # m, change of the deflection between fixed-point iterations
-_EQUILIBRIUM_MAX_ITER = 200
-
 ArrayLike = Any
+
+PRESENT_DAY_TOLERANCE = 1e-9
+"""Largest miss (m) of the final bed against the given present-day bed."""
+
+PRESENT_DAY_MAX_ITERATIONS = 40
+"""Most runs of the history when the reference bed is solved for."""
 
 MAX_STEPS = 100_000
 """Most time steps a history may be split into by ``max_step``: each costs one FFT pair
@@ -97,63 +97,6 @@ def check_max_step(name: str, max_step: Any, times: Any) -> float | None:
             f"{span / (MAX_STEPS - gaps.size):.3g} years"
         )
     return step
-
-
-def bed_stress(
-    ice_thickness: ArrayLike,
-    bed: ArrayLike,
-    sea_level: ArrayLike = 0.0,
-    *,
-    ice_density: float = ICE_DENSITY,
-    water_density: float = SEA_WATER_DENSITY,
-    gravity: float = DEFAULT_GRAVITY,
-) -> ArrayLike:
-    """Vertical stress on the bed of ice and ocean water (Pa, positive down).
-
-    .. math:: \\sigma = g\\,\\max\\left(\\rho_i H,\\ \\rho_w \\max(z_{sl} - b, 0)\\right)
-
-    Parameters
-    ----------
-    ice_thickness : array_like or xarray.DataArray
-        Ice thickness H (m, >= 0).
-    bed : array_like or xarray.DataArray
-        Bed elevation b (m, positive up, same datum as *sea_level*).
-    sea_level : float or array_like, default 0
-        Sea-level elevation z_sl (m).
-    ice_density, water_density : float
-        rho_i and rho_w (kg m^-3), default 910 and 1030.
-    gravity : float, default 9.81
-        g (m s^-2).
-
-    Returns
-    -------
-    array or xarray.DataArray
-        sigma (Pa), broadcast over the inputs.
-
-    Examples
-    --------
-    >>> float(bed_stress(1000.0, 100.0))          # grounded ice on land
-    8927100.0
-    >>> float(bed_stress(300.0, -500.0))         # floating: only the displaced water
-    5052150.0
-    >>> float(bed_stress(0.0, -500.0))           # the same water column, no ice
-    5052150.0
-    """
-    ocean = water_density * np.maximum(sea_level - bed, 0.0)
-    return gravity * np.maximum(ice_density * ice_thickness, ocean)
-
-
-def grounded_mask(
-    ice_thickness: ArrayLike,
-    bed: ArrayLike,
-    sea_level: ArrayLike = 0.0,
-    *,
-    ice_density: float = ICE_DENSITY,
-    water_density: float = SEA_WATER_DENSITY,
-) -> ArrayLike:
-    """True where there is ice and it rests on the bed: H > 0 and
-    rho_i H >= rho_w (z_sl − b)."""
-    return (ice_thickness > 0) & (ice_density * ice_thickness >= water_density * (sea_level - bed))
 
 
 SERIES_END_TOLERANCE = 1e-6
@@ -278,6 +221,8 @@ def ice_response(
     elastic: bool = False,
     elastic_youngs_modulus: float = EARTH_YOUNGS_MODULUS,
     elastic_poisson_ratio: float = EARTH_POISSON_RATIO,
+    output_times: ArrayLike | None = None,
+    present_day: bool = False,
     progress: Progress | None = None,
 ) -> xr.Dataset:
     """Bed deflection through time under an ice-thickness history with floatation.
@@ -322,6 +267,18 @@ def ice_response(
         The instantaneous elastic half-space response of the Earth to the load change,
         added to the deflection (so the bed and the floatation move with it too); see
         :class:`gridflex.ResponseStepper`.
+    output_times : array_like, optional
+        Times (years) at which to record the result, within the history (refused
+        otherwise); by default every time of the history. A time between two times of
+        the history ends a step there (the ice in between as *interpolation* says), and
+        only the recorded times cost an uplift-rate transform and memory.
+    present_day : bool, default False
+        *bed* is the bed at the last time (the observed present-day bed), not the
+        reference bed: the reference bed is solved for by running the history again with
+        the reference bed corrected by what the final bed misses, until it misses by at
+        most :data:`PRESENT_DAY_TOLERANCE` (one correction suffices where no ocean or
+        floating ice depends on the bed; each further run shrinks the miss by about
+        rho_w / rho_m). The result adds ``reference_bed``.
     progress : callable, optional
         Called as ``progress(done, total)`` after each time step.
 
@@ -342,63 +299,109 @@ def ice_response(
         The initial equilibrium iteration does not settle.
     """
     times, first, thickness = _check_ice(ice_thickness, bed)
-    _check_plate(plate)
+    check_ice_plate(plate)
     initial = check_choice("initial", initial, INITIAL_STATES)
     step_limit = check_max_step("max_step", max_step, times)
     levels = _sea_level_series(sea_level, times)
     ref_level = check_number("reference_sea_level", reference_sea_level, unit="m")
-    column = _IceColumn(
-        np.asarray(bed.values, dtype=np.float64),
-        thickness,
-        levels,
-        check_density("ice_density", ice_density),
-        check_density("water_density", water_density),
-        plate.gravity,
-        _reference_field(reference_ice_thickness, first, "reference_ice_thickness"),
-        ref_level,
-    )
-    nt, (ny, nx) = times.size, first.shape
+    reference = _reference_field(reference_ice_thickness, first, "reference_ice_thickness")
+    wanted = times if output_times is None else check_output_times(output_times, times)
+    present_day = check_flag("present_day", present_day)
+    (ny, nx) = first.shape
     check_memory(
-        ((5 if elastic is True else 4) * 8.0 + 1.0) * nt * ny * nx,
-        f"deflection, uplift rate, bed and load for {nt} times of {ny} x {nx}",
+        ((5 if elastic is True else 4) * 8.0 + 1.0) * wanted.size * ny * nx,
+        f"deflection, uplift rate, bed and load for {wanted.size} times of {ny} x {nx}",
     )
-    zero = np.zeros((ny, nx))
+
+    def build(reference_bed: xr.DataArray) -> IceStepper:
+        return IceStepper(
+            reference_bed,
+            plate,
+            model,
+            mantle_viscosity,
+            relaxation_time,
+            ice_thickness=thickness[0],
+            sea_level=float(levels[0]),
+            reference_ice_thickness=reference,
+            reference_sea_level=ref_level,
+            ice_density=ice_density,
+            water_density=water_density,
+            initial=initial,
+            interpolation=interpolation,
+            edges=edges,
+            pad_factor=pad_factor,
+            width_factor=width_factor,
+            elastic=elastic,
+            elastic_youngs_modulus=elastic_youngs_modulus,
+            elastic_poisson_ratio=elastic_poisson_ratio,
+        )
+
+    stepper = build(bed)
     if edges == "infinite":
-        warn_edge_load(column.largest_change())
-    stepper = ResponseStepper(
-        first,
-        plate,
-        model,
-        mantle_viscosity,
-        relaxation_time,
-        load=column.load_at(0, zero),
-        initial="rest",
-        interpolation=interpolation,
-        edges=edges,
-        pad_factor=pad_factor,
-        width_factor=width_factor,
-        elastic=elastic,
-        elastic_youngs_modulus=elastic_youngs_modulus,
-        elastic_poisson_ratio=elastic_poisson_ratio,
-    )
-    w = zero
-    if initial == "equilibrium":
-        w = _initial_equilibrium(stepper, lambda w_: column.load_at(0, w_))
-    out = _run_history(stepper, column, times, w, step_limit, progress)
+        warn_edge_load(_largest_change(stepper, thickness, levels))
+    out = _run_history(stepper, times, thickness, levels, wanted, step_limit, progress)
     attrs = stepper.describe()
+    if present_day:
+        # the given bed is the bed at the last time: correct the reference bed by what
+        # the run's final bed misses (a fixed point; without ocean one correction is exact)
+        given = np.asarray(bed.values, dtype=np.float64)
+        for iteration in range(1, PRESENT_DAY_MAX_ITERATIONS + 1):
+            miss = given - stepper.bed_elevation.values
+            largest = float(np.abs(miss).max())
+            log.info("present-day bed: run %d misses by %.3g m", iteration, largest)
+            if largest <= PRESENT_DAY_TOLERANCE:
+                break
+            stepper = build(bed.copy(data=stepper.rule.bed + miss))
+            out = _run_history(stepper, times, thickness, levels, wanted, step_limit, progress)
+        else:
+            raise ConvergenceError(
+                f"present_day: the reference bed did not settle in {PRESENT_DAY_MAX_ITERATIONS} "
+                f"runs (the final bed still misses the given bed by {largest:.3g} m)"
+            )
+        attrs.update(
+            {
+                "present_day": "the given bed is the bed at the last time",
+                "present_day_runs": iteration,
+                "present_day_misfit": largest,
+            }
+        )
     attrs.update(
         {
-            "ice_density": column.ice_density,
-            "water_density": column.water_density,
-            "reference_sea_level": ref_level,
-            "reference_state": (
-                "deflection is zero for the given bed with the reference ice and sea level"
-            ),
             "initial_state": initial,
             "max_step": step_limit if step_limit is not None else "none",
         }
     )
-    return _ice_dataset(first, times, column, out, plate, attrs)
+    out_ds = _ice_dataset(first, wanted, stepper, out, plate, attrs)
+    if present_day:
+        out_ds["reference_bed"] = (
+            ("y", "x"),
+            stepper.rule.bed.copy(),
+            _ICE_VARIABLES["reference_bed"],
+        )
+    return out_ds
+
+
+def check_output_times(
+    output_times: ArrayLike, times: np.ndarray, name: str = "output_times"
+) -> np.ndarray:
+    """*output_times* (years) checked against the history's *times*: increasing and
+    within the history.
+
+    Raises
+    ------
+    InputError
+        Naming *name*, the first time outside the history and the history's span.
+    """
+    wanted = check_times(np.atleast_1d(np.asarray(output_times)), name)
+    outside = (wanted < times[0] - SERIES_END_TOLERANCE) | (
+        wanted > times[-1] + SERIES_END_TOLERANCE
+    )
+    if np.any(outside):
+        raise InputError(
+            f"{name}: {wanted[outside][0]:g} years lies outside the history "
+            f"({times[0]:g} to {times[-1]:g} years); output times must lie within it"
+        )
+    return np.clip(wanted, times[0], times[-1])
 
 
 def _check_ice(ice_thickness: Any, bed: Any) -> tuple[np.ndarray, xr.DataArray, np.ndarray]:
@@ -415,135 +418,88 @@ def _check_ice(ice_thickness: Any, bed: Any) -> tuple[np.ndarray, xr.DataArray, 
     return times, first, thickness
 
 
-def _check_plate(plate: Any) -> None:
-    """A Plate with no infill: the ocean over depressed bedrock is added explicitly."""
-    if not isinstance(plate, Plate):
-        raise InputError(f"plate must be a gridflex.Plate, got {type(plate).__name__}")
-    if plate.infill_density != 0.0:
-        raise InputError(
-            f"ice_response adds the ocean water over depressed bedrock itself; give a plate "
-            f"with infill_density=0.0 (got {plate.infill_density!r})"
-        )
+def _largest_change(stepper: IceStepper, thickness: np.ndarray, levels: np.ndarray) -> np.ndarray:
+    """Largest change of the ice load in each cell, plus the sea-level change over what
+    is ocean (Pa): what reaches the grid edge."""
+    rule = stepper.rule
+    change = float(np.abs(levels - stepper.reference_sea_level).max())
+    ocean = rule.bed < levels.max()
+    ice_change = np.abs(thickness - rule.reference_ice).max(axis=0)
+    return rule.gravity * (rule.ice_density * ice_change + rule.water_density * change * ocean)
 
 
-@dataclass
-class _IceColumn:
-    """Ice and ocean on the bed through time: the load of any deflection (numpy, SI)."""
-
-    bed: np.ndarray
-    thickness: np.ndarray
-    levels: np.ndarray
-    ice_density: float
-    water_density: float
-    gravity: float
-    reference_ice: np.ndarray
-    reference_level: float
-    reference_stress: np.ndarray = field(init=False)
-    """sigma_ref (Pa) of the reference state, in which the deflection is zero."""
-
-    def __post_init__(self) -> None:
-        self.reference_stress = self.stress(self.reference_ice, self.reference_level, 0.0)
-
-    def stress(self, ice: np.ndarray, level: float, w: np.ndarray | float) -> np.ndarray:
-        """sigma (Pa) of *ice* (m) and sea *level* (m) on the bed moved down by *w* (m)."""
-        return bed_stress(
-            ice,
-            self.bed - w,
-            level,
-            ice_density=self.ice_density,
-            water_density=self.water_density,
-            gravity=self.gravity,
-        )
-
-    def change(self, ice: np.ndarray, level: float, w: np.ndarray) -> np.ndarray:
-        """sigma - sigma_ref (Pa), the load that drives the plate."""
-        return self.stress(ice, level, w) - self.reference_stress
-
-    def load_at(self, n: int, w: np.ndarray) -> np.ndarray:
-        """The load (Pa) at the *n*-th time on the bed moved down by *w*."""
-        return self.change(self.thickness[n], self.levels[n], w)
-
-    def grounded(self, n: int, w: np.ndarray) -> np.ndarray:
-        """Where the ice of the *n*-th time rests on the bed moved down by *w*."""
-        return grounded_mask(
-            self.thickness[n],
-            self.bed - w,
-            self.levels[n],
-            ice_density=self.ice_density,
-            water_density=self.water_density,
-        )
-
-    def largest_change(self) -> np.ndarray:
-        """Largest change of the ice load in each cell, plus the sea-level change over
-        what is ocean (Pa): what reaches the grid edge."""
-        change = float(np.abs(self.levels - self.reference_level).max())
-        ocean = self.bed < self.levels.max()
-        ice_change = np.abs(self.thickness - self.reference_ice).max(axis=0)
-        return self.gravity * (self.ice_density * ice_change + self.water_density * change * ocean)
-
-
-def _advance_interval(
-    stepper: ResponseStepper,
-    column: _IceColumn,
-    n: int,
-    dt: float,
-    parts: int,
-    w: np.ndarray,
-) -> np.ndarray:
-    """Advance from the (*n*-1)-th to the *n*-th time in *parts* equal sub-steps."""
-    for part in range(1, parts + 1):
-        if stepper.interpolation == "linear":
-            # ice and sea level at the end of the sub-step, on the bed of its start
-            f = part / parts
-            ice = column.thickness[n - 1] + f * (column.thickness[n] - column.thickness[n - 1])
-            level = column.levels[n - 1] + f * (column.levels[n] - column.levels[n - 1])
-            w = stepper.advance(dt / parts, column.change(ice, level, w)).values
-            if part < parts:
-                stepper.set_load(column.change(ice, level, w))
-        else:
-            # the earlier ice and sea level held, on the bed of the sub-step's start
-            held = column.change(column.thickness[n - 1], column.levels[n - 1], w)
-            w = stepper.advance(dt / parts, held).values
-    return w
+def _schedule(times: np.ndarray, wanted: np.ndarray, step_limit: float | None) -> np.ndarray:
+    """Step ends (years): the history's times and the output times, each gap split into
+    equal steps of at most *step_limit*."""
+    ends = np.union1d(times, wanted)
+    pieces = [ends[:1]]
+    for a, b in zip(ends[:-1], ends[1:]):
+        parts = 1 if step_limit is None else max(1, math.ceil((b - a) / step_limit - 1e-9))
+        inner = a + (b - a) * np.arange(1, parts) / parts
+        pieces.append(np.append(inner, b))
+    return np.concatenate(pieces)
 
 
 def _run_history(
-    stepper: ResponseStepper,
-    column: _IceColumn,
+    stepper: IceStepper,
     times: np.ndarray,
-    w: np.ndarray,
+    thickness: np.ndarray,
+    levels: np.ndarray,
+    wanted: np.ndarray,
     step_limit: float | None,
     progress: Progress | None,
 ) -> dict[str, np.ndarray]:
-    """The time loop: deflection, uplift rate, load and grounded mask at every time."""
-    nt, (ny, nx) = times.size, w.shape
-    out = {name: np.empty((nt, ny, nx)) for name in ("deflection", "uplift_rate", "load")}
+    """The time loop: deflection, uplift rate, load, grounded mask and sea level at
+    every wanted time."""
+    nt, (ny, nx) = wanted.size, thickness.shape[1:]
+    out: dict[str, np.ndarray] = {
+        name: np.empty((nt, ny, nx)) for name in ("deflection", "uplift_rate", "load")
+    }
     out["grounded"] = np.empty((nt, ny, nx), dtype=np.int8)
+    out["sea_level"] = np.empty(nt)
     if stepper.elastic:
         out["elastic_deflection"] = np.empty((nt, ny, nx))
+    recorded = 0
 
-    def record(n: int, w_now: np.ndarray) -> None:
-        q_now = column.load_at(n, w_now)
-        if stepper.elastic:  # the part in w_now, before the load is re-evaluated
-            out["elastic_deflection"][n] = stepper.elastic_deflection.values
-        out["deflection"][n] = w_now
-        out["load"][n] = q_now
-        out["uplift_rate"][n] = stepper.uplift_rate(q_now).values
-        out["grounded"][n] = column.grounded(n, w_now)
+    def record(at: float) -> None:
+        nonlocal recorded
+        while recorded < nt and wanted[recorded] <= at:
+            out["deflection"][recorded] = stepper.deflection.values
+            out["load"][recorded] = stepper.load
+            out["uplift_rate"][recorded] = stepper.uplift_rate().values
+            out["grounded"][recorded] = stepper.grounded
+            out["sea_level"][recorded] = float(np.mean(stepper.sea_level))
+            if stepper.elastic:
+                out["elastic_deflection"][recorded] = stepper.elastic_deflection.values
+            recorded += 1
 
-    record(0, w)
-    for n in range(1, nt):
-        dt = times[n] - times[n - 1]
-        parts = 1 if step_limit is None else max(1, math.ceil(dt / step_limit - 1e-9))
-        w = _advance_interval(stepper, column, n, dt, parts, w)
-        record(n, w)
+    ends = _schedule(times, wanted, step_limit)
+    linear = stepper.stepper.interpolation == "linear"
+    record(ends[0])
+    for step, (start, end) in enumerate(zip(ends[:-1], ends[1:]), start=1):
+        n = int(np.searchsorted(times, end))  # the history interval (n - 1, n)
+        if end == times[n]:
+            ice, level = thickness[n], levels[n]
+        else:
+            f = (end - times[n - 1]) / (times[n] - times[n - 1])
+            ice = thickness[n - 1] + f * (thickness[n] - thickness[n - 1])
+            level = levels[n - 1] + f * (levels[n] - levels[n - 1])
+        if linear:
+            # ice and sea level at the end of the step, on the bed of its start
+            stepper.advance(end - start, ice, float(level))
+        else:
+            # the earlier ice and sea level held, on the bed of the step's start
+            stepper.advance(end - start, thickness[n - 1], float(levels[n - 1]))
+            if end == times[n]:
+                stepper.set_ice(thickness[n], float(levels[n]))
+        record(end)
         if progress is not None:
-            progress(n, nt - 1)
+            progress(step, ends.size - 1)
     return out
 
 
 _ICE_VARIABLES = {
-    "bed_elevation": {"units": "m", "long_name": "bed elevation (positive up)"},
+    "bed_elevation": BED_ATTRS,
     "load": {
         "units": "Pa",
         "long_name": "change of the vertical stress of ice and ocean on the bed",
@@ -554,6 +510,11 @@ _ICE_VARIABLES = {
         "flag_meanings": "not_grounded grounded",
     },
     "sea_level": {"units": "m", "long_name": "sea-level elevation"},
+    "reference_bed": {
+        "units": "m",
+        "long_name": "bed elevation of the reference state (zero deflection), solved so "
+        "that the bed at the last time is the given bed",
+    },
     "reference_load": {
         "units": "Pa",
         "long_name": "vertical stress of ice and ocean on the bed in the "
@@ -567,7 +528,7 @@ and the uplift rate."""
 def _ice_dataset(
     first: xr.DataArray,
     times: np.ndarray,
-    column: _IceColumn,
+    stepper: IceStepper,
     out: dict[str, np.ndarray],
     plate: Plate,
     attrs: dict[str, Any],
@@ -583,11 +544,11 @@ def _ice_dataset(
     data_vars = {
         "deflection": (dims, out["deflection"], deflection_attrs()),
         "uplift_rate": (dims, out["uplift_rate"], uplift_rate_attrs()),
-        "bed_elevation": (dims, column.bed[None] - out["deflection"], meta["bed_elevation"]),
+        "bed_elevation": (dims, stepper.rule.bed[None] - out["deflection"], meta["bed_elevation"]),
         "load": (dims, out["load"], meta["load"]),
         "grounded": (dims, out["grounded"], meta["grounded"]),
-        "sea_level": ("time", column.levels, meta["sea_level"]),
-        "reference_load": (("y", "x"), column.reference_stress, meta["reference_load"]),
+        "sea_level": ("time", out["sea_level"], meta["sea_level"]),
+        "reference_load": (("y", "x"), stepper.rule.reference_stress, meta["reference_load"]),
     }
     if "elastic_deflection" in out:
         data_vars["elastic_deflection"] = (
@@ -599,25 +560,3 @@ def _ice_dataset(
         plate.describe(), attrs, "bed deflection under an ice-thickness history"
     )
     return xr.Dataset(data_vars, coords=coords, attrs=ds_attrs)
-
-
-def _initial_equilibrium(stepper: ResponseStepper, load_of: Any) -> np.ndarray:
-    """Fixed point w = equilibrium(load(w)); the ocean term makes the load depend on w.
-
-    Each iteration shrinks the error by about rho_w / rho_m (< 1/3 for water over
-    mantle), so a few tens of iterations reach the tolerance.
-    """
-    w = np.zeros(stepper.deflection.shape)
-    for iteration in range(1, _EQUILIBRIUM_MAX_ITER + 1):
-        stepper.set_load(load_of(w))
-        new = stepper.equilibrium().values
-        change = float(np.abs(new - w).max())
-        w = new
-        if change <= _EQUILIBRIUM_TOL:
-            stepper.set_load(load_of(w))
-            log.info("initial equilibrium after %d iterations", iteration)
-            return stepper.settle().values
-    raise ConvergenceError(
-        f"the initial equilibrium with the ocean load did not settle in "
-        f"{_EQUILIBRIUM_MAX_ITER} iterations (last change {change:.3g} m)"
-    )

@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import logging
 import warnings
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -39,13 +40,21 @@ from gridflex.glacial.elastic import (
     EARTH_YOUNGS_MODULUS,
     elastic_deflection_attrs,
 )
+from gridflex.glacial.state import (
+    engine_state,
+    plate_from_state,
+    plate_state,
+    read_state,
+    restore_engine,
+    write_state,
+)
 from gridflex.grid import GridSpec, check_grid, check_same_grid
 from gridflex.io.provenance import provenance_attrs
 from gridflex.loads import load_attrs
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
 from gridflex.progress import Progress
-from gridflex.solvers.elastic_halfspace import ElasticHalfSpace
+from gridflex.solvers.elastic_halfspace import ElasticHalfSpace, check_elastic_moduli
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.solvers.variable_relaxation import VariableRelaxation
 from gridflex.solvers.viscous import (
@@ -59,6 +68,8 @@ from gridflex.validation import check_choice, check_flag, check_number
 __all__ = [
     "INITIAL_STATES",
     "ResponseStepper",
+    "SAVED_SETTINGS",
+    "STEPPER_FIELDS",
     "check_history_grid",
     "check_times",
     "uplift_rate_attrs",
@@ -152,6 +163,31 @@ def _time_engine(
     return VariableRelaxation.build(
         spec, values, stiffness, plate.poisson_ratio, model, viscosity, relaxation_time, **settings
     )
+
+
+SAVED_SETTINGS = (
+    "model",
+    "mantle_viscosity",
+    "relaxation_time",
+    "initial",
+    "interpolation",
+    "edges",
+    "pad_factor",
+    "width_factor",
+    "elastic",
+    "elastic_youngs_modulus",
+    "elastic_poisson_ratio",
+)
+"""The :class:`ResponseStepper` arguments a state file keeps (all but grid, plate, load)."""
+
+STEPPER_FIELDS = (
+    frozenset({"plate", "_grid", "time", "_engine", "_elastic_now", "_elastic_before"})
+    | frozenset({"_elastic_dt"}),
+    frozenset({*SAVED_SETTINGS, "_settings", "_spec", "_elastic"}),
+)
+"""The attributes of a :class:`ResponseStepper` that a state file keeps (the engine
+through :func:`gridflex.glacial.state.engine_state`) and the ones rebuilt from the
+settings; a test checks that every attribute is in one of the two."""
 
 
 class ResponseStepper:
@@ -276,6 +312,10 @@ class ResponseStepper:
         self.time = 0.0
         """Time elapsed since the start (years)."""
         self.elastic = check_flag("elastic", elastic)
+        self.elastic_youngs_modulus, self.elastic_poisson_ratio = check_elastic_moduli(
+            elastic_youngs_modulus, elastic_poisson_ratio
+        )
+        self._settings: dict[str, Any] = {name: getattr(self, name) for name in SAVED_SETTINGS}
         self._elastic: ElasticHalfSpace | None = None
         self._elastic_now = np.zeros(self._spec.shape)
         self._elastic_before = self._elastic_now
@@ -287,10 +327,8 @@ class ResponseStepper:
                     "to a periodic load has no finite mean"
                 )
             self._elastic = ElasticHalfSpace.build(
-                self._spec, elastic_youngs_modulus, elastic_poisson_ratio
+                self._spec, self.elastic_youngs_modulus, self.elastic_poisson_ratio
             )
-            self.elastic_youngs_modulus = float(elastic_youngs_modulus)
-            self.elastic_poisson_ratio = float(elastic_poisson_ratio)
         if load is not None:
             self.set_load(load)
             self._elastic_before = self._elastic_now
@@ -410,6 +448,88 @@ class ResponseStepper:
             # step over that step (exact for a load linear within the step)
             rate += (self._elastic_now - self._elastic_before) / self._elastic_dt
         return self._wrap(rate * (-SECONDS_PER_YEAR), "uplift_rate", uplift_rate_attrs())
+
+    # -- saving and restoring ---------------------------------------------------------
+    def state(self) -> tuple[dict[str, Any], dict[str, Any]]:
+        """Attributes and variables of the state file (:mod:`gridflex.glacial.state`)."""
+        attrs, variables = plate_state(self.plate)
+        engine_attrs, engine_variables = engine_state(self._engine)
+        settings = {k: int(v) if isinstance(v, bool) else v for k, v in self._settings.items()}
+        if self.elastic:
+            attrs["elastic_dt"] = self._elastic_dt
+            variables["elastic_now"] = (("y", "x"), self._elastic_now)
+            variables["elastic_before"] = (("y", "x"), self._elastic_before)
+        return (
+            {**settings, "time": self.time, **attrs, **engine_attrs},
+            {**variables, **engine_variables},
+        )
+
+    def save(self, path: str | Path, overwrite: bool = False) -> Path:
+        """Write the stepper (settings, plate, time and state) to a NetCDF file.
+
+        The format is described in :mod:`gridflex.glacial.state`; the file is written
+        atomically. :meth:`restore` continues the run bit for bit.
+
+        Parameters
+        ----------
+        path : str or pathlib.Path
+            The state file (``.nc``).
+        overwrite : bool, default False
+            Replace an existing file.
+
+        Returns
+        -------
+        pathlib.Path
+            The file written.
+        """
+        attrs, variables = self.state()
+        return write_state(path, "ResponseStepper", attrs, variables, self._grid, overwrite)
+
+    @classmethod
+    def from_state(cls, ds: xr.Dataset, path: Path) -> ResponseStepper:
+        """The stepper held by an opened state file *ds* (read from *path*)."""
+        grid = xr.DataArray(
+            np.zeros((ds.sizes["y"], ds.sizes["x"])),
+            dims=("y", "x"),
+            coords={"y": ds["y"].values, "x": ds["x"].values},
+        )
+        try:
+            settings = {name: ds.attrs[name] for name in SAVED_SETTINGS}
+            plate = plate_from_state(ds, grid)
+        except KeyError as exc:
+            raise InputError(f"{path}: the stepper state lacks the setting {exc}") from exc
+        initial = settings.pop("initial")
+        settings["elastic"] = bool(settings["elastic"])  # NetCDF keeps it as 0 or 1
+        with warnings.catch_warnings():
+            # the plate's infill density was warned about when the run began
+            warnings.simplefilter("ignore", GridflexWarning)
+            stepper = cls(grid, plate, initial="rest", **settings)
+        stepper.initial = check_choice("initial", initial, INITIAL_STATES)
+        stepper._settings["initial"] = stepper.initial
+        restore_engine(stepper._engine, ds, path)
+        stepper.time = float(ds.attrs["time"])
+        if stepper.elastic:
+            try:
+                stepper._elastic_dt = float(ds.attrs["elastic_dt"])
+                stepper._elastic_now = np.array(ds["elastic_now"].values, dtype=np.float64)
+                stepper._elastic_before = np.array(ds["elastic_before"].values, dtype=np.float64)
+            except KeyError as exc:
+                raise InputError(
+                    f"{path}: the stepper state has elastic = 1 but lacks {exc}"
+                ) from exc
+        return stepper
+
+    @classmethod
+    def restore(cls, path: str | Path) -> ResponseStepper:
+        """A stepper saved by :meth:`save`, ready to continue where it stopped.
+
+        Raises
+        ------
+        InputError
+            The file is missing or not a ``ResponseStepper`` state; the message names it.
+        """
+        path = Path(path)
+        return cls.from_state(read_state(path, "ResponseStepper"), path)
 
     def describe(self) -> dict[str, Any]:
         """Model settings as a flat dict (for output attributes)."""

@@ -11,10 +11,12 @@ A history scenario has these tables (``[[points]]`` is an array of tables)::
     [solver]    edges, padding, load interpolation, initial state
     [grid]      size and spacing, for a synthetic ice history
     [ice]       the ice-thickness history: a NetCDF (time, y, x) variable or a disc
-    [bed]       bed elevation of the reference state: a NetCDF grid or one number
+    [bed]       bed elevation of the reference state (or, with present_day, of the last
+                time): a NetCDF grid or one number
     [sea]       sea level: one number or a NetCDF series; reference level; water density
-    [[points]]  named points for time-series plots
-    [output]    NetCDF file, uplift-rate map (and its time), series plot
+    [[points]]  named points for time-series plots and the series table
+    [output]    NetCDF file, uplift-rate map (and its time), series plot and CSV table,
+                the times written, the precision (float32)
 """
 
 from __future__ import annotations
@@ -32,12 +34,13 @@ from gridflex.engine import SPECTRAL_EDGES
 from gridflex.errors import InputError
 from gridflex.gis.geometry import parse_crs
 from gridflex.glacial.elastic import EARTH_POISSON_RATIO, EARTH_YOUNGS_MODULUS
-from gridflex.glacial.ice import check_max_step, ice_response, sea_level_at
+from gridflex.glacial.ice import check_max_step, check_output_times, ice_response, sea_level_at
 from gridflex.glacial.response import INITIAL_STATES
 from gridflex.grid import check_same_grid
-from gridflex.io.netcdf import write_netcdf
+from gridflex.io.netcdf import as_output_dtype, write_netcdf
 from gridflex.io.plots import plot_point_series, plot_uplift_rate_map
 from gridflex.io.rasters import LAYER_MISSING_POLICIES
+from gridflex.io.tables import write_csv
 from gridflex.io.time_grids import (
     DEFAULT_TIME_REFERENCE,
     cf_time_axis,
@@ -52,6 +55,7 @@ from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
 from gridflex.scenario.tables import SCHEMA, load_scenario
 from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
 from gridflex.synthetic import disc_height, empty_grid
+from gridflex.units import parse_quantity
 from gridflex.validation import check_grid_range, check_number
 from gridflex.workflows.grid_input import apply_missing_policy, in_si_units, read_grid_input
 from gridflex.workflows.outcome import RunOutcome
@@ -65,6 +69,10 @@ HistoryScenario = Scenario[dict[str, Any]]
 __all__ = [
     "HISTORY_SCHEMA",
     "HistoryScenario",
+    "SERIES_VARIABLES",
+    "check_bed_and_plate",
+    "ice_model_options",
+    "point_series_table",
     "format_history_summary",
     "load_history_scenario",
     "parse_history_scenario",
@@ -165,6 +173,11 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
         "file": Key("path", "NetCDF grid with the bed elevation of the reference state", None),
         "variable": Key("string", "bed-elevation variable in the file (m, up)", None),
         "elevation": Key("quantity", "one bed elevation everywhere (m, up)", None, "length"),
+        "present_day": Key(
+            "bool",
+            "the bed given is the bed at the last time; the reference bed is solved for",
+            False,
+        ),
     },
     "sea": {
         "level": Key("quantity", "sea level, constant in time", 0.0, "length"),
@@ -187,6 +200,11 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
             "quantity", "time of the uplift-rate map (default: the last)", None, "time"
         ),
         "series_plot": Key("path", "PNG time series at the [[points]]", None),
+        "series_csv": Key("path", "CSV table of the time series at the [[points]]", None),
+        "times": Key(
+            "list", "times to write, each a number of years or with units (default: all)", None
+        ),
+        "dtype": SCHEMA["output"]["dtype"],
         "time_reference": Key("string", "date that is year 0 of the times", DEFAULT_TIME_REFERENCE),
     },
 }
@@ -246,6 +264,36 @@ def _check_history(scenario: HistoryScenario) -> None:
                 f"{where}: times has {len(times)} values, thickness_factors "
                 f"{len(factors)}; give one factor per time"
             )
+    check_bed_and_plate(scenario)
+    sea = scenario.table("sea")
+    if sea["file"] is not None and sea["variable"] is None:
+        raise InputError(f"{scenario.where('sea')} variable: required with 'file'")
+    check_time_reference(
+        scenario.where("output", "time_reference"), scenario.table("output")["time_reference"]
+    )
+    output = scenario.table("output")
+    if output["times"] is not None:
+        where = scenario.where("output", "times")
+        if not output["times"]:
+            raise InputError(f"{where}: give at least one time, or leave the key out")
+        output["times"] = [
+            parse_quantity(value, "time", f"{where}[{i}]")
+            for i, value in enumerate(output["times"])
+        ]
+    names = [p["name"] for p in array_table(scenario, "points")]
+    if len(set(names)) != len(names):
+        raise InputError(f"{scenario.path}: [[points]] names must differ, got {names!r}")
+
+
+def check_bed_and_plate(scenario: HistoryScenario) -> None:
+    """The ``[bed]`` is a file (with its variable) or one elevation, and the ``[plate]``
+    has no infill (the ocean is part of the ice load). Shared with the BMI configuration.
+
+    Raises
+    ------
+    InputError
+        Naming the table and key.
+    """
     bed = scenario.table("bed")
     if (bed["file"] is None) == (bed["elevation"] is None):
         raise InputError(
@@ -253,20 +301,33 @@ def _check_history(scenario: HistoryScenario) -> None:
         )
     if bed["file"] is not None and bed["variable"] is None:
         raise InputError(f"{scenario.where('bed')} variable: required with 'file'")
-    sea = scenario.table("sea")
-    if sea["file"] is not None and sea["variable"] is None:
-        raise InputError(f"{scenario.where('sea')} variable: required with 'file'")
     if scenario.table("plate")["infill_density"] != 0.0:
         raise InputError(
             f"{scenario.where('plate', 'infill_density')}: must be 0 for an ice "
             "history (the ocean over depressed bedrock is added from the sea level)"
         )
-    check_time_reference(
-        scenario.where("output", "time_reference"), scenario.table("output")["time_reference"]
-    )
-    names = [p["name"] for p in array_table(scenario, "points")]
-    if len(set(names)) != len(names):
-        raise InputError(f"{scenario.path}: [[points]] names must differ, got {names!r}")
+
+
+def ice_model_options(scenario: HistoryScenario) -> dict[str, Any]:
+    """The ``[mantle]``, ``[solver]``, ``[sea]`` and ``[ice]`` settings as keyword
+    arguments of :class:`gridflex.IceStepper` (and :func:`gridflex.ice_response`)."""
+    mantle, solver, sea = scenario.table("mantle"), scenario.table("solver"), scenario.table("sea")
+    return {
+        "model": mantle["model"],
+        "mantle_viscosity": mantle["viscosity"],
+        "relaxation_time": mantle["relaxation_time"],
+        "reference_sea_level": sea["reference_level"],
+        "ice_density": scenario.table("ice")["density"],
+        "water_density": sea["water_density"],
+        "initial": solver["initial"],
+        "interpolation": solver["interpolation"],
+        "edges": solver["edges"],
+        "pad_factor": solver["pad_factor"],
+        "width_factor": solver["pad_width_factor"],
+        "elastic": mantle["elastic"],
+        "elastic_youngs_modulus": mantle["elastic_youngs_modulus"],
+        "elastic_poisson_ratio": mantle["elastic_poisson_ratio"],
+    }
 
 
 def _ice_history(scenario: HistoryScenario, reference: str) -> xr.DataArray:
@@ -410,7 +471,7 @@ def run_history_scenario(
     """
     outputs = scenario.table("output")
     plan = OutputPlan(scenario, overwrite)
-    plan.add({key: outputs[key] for key in ("file", "rate_map", "series_plot")})
+    plan.add({key: outputs[key] for key in ("file", "rate_map", "series_plot", "series_csv")})
     inputs = plan.inputs
     reference = outputs["time_reference"]
     thickness = _ice_history(scenario, reference)
@@ -429,51 +490,48 @@ def run_history_scenario(
         where = f"{scenario.where('sea', 'file')}: {sea['file'].name}"
         sea_in_m = in_si_units(sea_series, "length", where)
         level = sea_level_at(sea_in_m, times, f"{where}: variable {sea['variable']!r}")
+    wanted = times
+    if outputs["times"] is not None:
+        wanted = check_output_times(outputs["times"], times, scenario.where("output", "times"))
     rate_time = float(times[-1]) if outputs["rate_time"] is None else outputs["rate_time"]
     if not times[0] <= rate_time <= times[-1]:
         raise InputError(
             f"{scenario.where('output', 'rate_time')}: {rate_time:g} years is "
             f"outside the history ({times[0]:g} to {times[-1]:g})"
         )
-    at = int(np.argmin(np.abs(times - rate_time)))
+    at = int(np.argmin(np.abs(wanted - rate_time)))  # the nearest time written
     cells = _point_cells(scenario, bed)
-    if outputs["series_plot"] and not cells:
-        raise InputError(
-            f"{scenario.where('output', 'series_plot')}: needs at least one [[points]] table"
-        )
-    mantle, solver = scenario.table("mantle"), scenario.table("solver")
+    for key in ("series_plot", "series_csv"):
+        if outputs[key] and not cells:
+            raise InputError(
+                f"{scenario.where('output', key)}: needs at least one [[points]] table"
+            )
+    solver = scenario.table("solver")
     log.info("ice history of %d times on a %s grid", thickness.sizes["time"], bed.shape)
     result = ice_response(
         thickness,
         bed,
         plate,
         level,
-        mantle["model"],
-        mantle["viscosity"],
-        mantle["relaxation_time"],
-        reference_sea_level=sea["reference_level"],
-        ice_density=scenario.table("ice")["density"],
-        water_density=sea["water_density"],
-        initial=solver["initial"],
-        interpolation=solver["interpolation"],
-        edges=solver["edges"],
-        pad_factor=solver["pad_factor"],
-        width_factor=solver["pad_width_factor"],
+        **ice_model_options(scenario),
         max_step=max_step,
-        elastic=mantle["elastic"],
-        elastic_youngs_modulus=mantle["elastic_youngs_modulus"],
-        elastic_poisson_ratio=mantle["elastic_poisson_ratio"],
+        output_times=None if outputs["times"] is None else wanted,
+        present_day=scenario.table("bed")["present_day"],
         progress=progress,
     )
     result["ice_thickness"] = (
         ("time", "y", "x"),
-        thickness.values,
+        thickness.values
+        if wanted is times
+        else thickness.interp(
+            time=wanted, method="linear" if solver["interpolation"] == "linear" else "zero"
+        ).values,
         {"units": "m", "long_name": "ice thickness"},
     )
     out = stamp_result(
         with_vertical_displacement(result, "bed"), scenario, "history", projected_axes=True
     )
-    out = cf_time_axis(out, reference)
+    out = as_output_dtype(cf_time_axis(out, reference), outputs["dtype"])
     outcome = RunOutcome(result=out)
     with plan.writing():
         outcome.written.append(write_netcdf(out, outputs["file"], overwrite, inputs, crs=crs))
@@ -507,9 +565,41 @@ def run_history_scenario(
                     time_label=f"time (years after {reference})",
                 )
             )
+        if outputs["series_csv"]:
+            outcome.written.append(
+                write_csv(
+                    point_series_table(result, cells),
+                    outputs["series_csv"],
+                    overwrite,
+                    inputs,
+                )
+            )
     outcome.summary = _summary(result, at, cells)
     outcome.text = format_history_summary(outcome.summary)
     return outcome
+
+
+SERIES_VARIABLES = ("deflection", "uplift_rate", "bed_elevation", "elastic_deflection")
+"""Variables of the point series table, in column order; those the result lacks (the
+elastic part without an elastic Earth) are left out."""
+
+
+def point_series_table(result: xr.Dataset, cells: list[PointCell]) -> xr.Dataset:
+    """The series at the ``[[points]]`` as one table along time: a column
+    ``<point>:<variable>`` for each point and each of :data:`SERIES_VARIABLES` the result
+    has (values of the cell holding the point), with their units."""
+    columns: dict[str, Any] = {}
+    for name, _, _, iy, ix in cells:
+        for variable in SERIES_VARIABLES:
+            if variable in result:
+                grid = result[variable]
+                columns[f"{name}:{variable}"] = (
+                    "time",
+                    np.asarray(grid.values[:, iy, ix], dtype=np.float64),
+                    {"units": grid.attrs.get("units", "")},
+                )
+    time = ("time", np.asarray(result["time"].values, dtype=np.float64), {"units": "years"})
+    return xr.Dataset(columns, coords={"time": time})
 
 
 def _summary(result: xr.Dataset, at: int, cells: list[PointCell]) -> dict[str, Any]:

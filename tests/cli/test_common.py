@@ -82,3 +82,20 @@ def test_every_command_module_is_declared_once():
         args = parser.parse_args([name, "s.toml", "-q"])
         assert (args.command, args.scenario, args.quiet) == (name, "s.toml", True)
     assert parser.parse_args(["sweep", "s.toml", "--scheduler", "threads"]).scheduler == "threads"
+
+
+def test_progress_shows_the_time_left(capsys):
+    # time left = time per step so far x steps left (common practice); a fake clock
+    ticks = iter([100.0, 110.0, 130.0, 160.0])
+    args = _parser().parse_args(["try", "s.toml"])
+    report = progress_printer(args, clock=lambda: next(ticks))
+    assert report is not None
+    report(1, 10)  # 10 s for one step: 9 left, 90 s
+    report(2, 10)  # 30 s for two: 8 left, 120 s
+    report(10, 10)
+    err = capsys.readouterr().err
+    assert "gridflex: 1/10, about 1 min 30 s left" in err
+    assert "gridflex: 2/10, about 2 min 00 s left" in err
+    assert err.rstrip().endswith("gridflex: 10/10") and err.endswith("\n")
+    quiet = _parser().parse_args(["try", "s.toml", "-q"])
+    assert progress_printer(quiet) is None

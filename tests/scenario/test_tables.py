@@ -12,6 +12,7 @@ import pytest
 from gridflex.basin.compaction import LITHOLOGIES
 from gridflex.basin.staging import ISOPACHS
 from gridflex.basin.stretching import ISOSTASY
+from gridflex.bmi.config import BMI_SCHEMA
 from gridflex.engine import EDGES, METHODS, SPECTRAL_EDGES
 from gridflex.estimation.misfit import QUANTITIES
 from gridflex.gis.geometry import RESAMPLING
@@ -54,10 +55,15 @@ LIBRARY_CHOICES: dict[tuple[str, str, str], tuple[str, ...]] = {
     ("history", "solver", "initial"): INITIAL_STATES,
     ("history", "ice", "synthetic"): SYNTHETIC_ICE,
     ("history", "ice", "missing"): LAYER_MISSING_POLICIES,
+    ("history", "output", "dtype"): OUTPUT_DTYPES,
+    ("bmi", "mantle", "model"): MODELS,
+    ("bmi", "solver", "edges"): SPECTRAL_EDGES,
+    ("bmi", "solver", "interpolation"): INTERPOLATIONS,
+    ("bmi", "solver", "initial"): INITIAL_STATES,
 }
 """Every choice key of every kind of scenario and the library constant it must be."""
 
-SCHEMAS = {"run": SCHEMA, "basin": BASIN_SCHEMA, "history": HISTORY_SCHEMA}
+SCHEMAS = {"run": SCHEMA, "basin": BASIN_SCHEMA, "history": HISTORY_SCHEMA, "bmi": BMI_SCHEMA}
 
 
 def _choice_keys() -> dict[tuple[str, str, str], Key]:

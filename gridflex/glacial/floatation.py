@@ -1,0 +1,138 @@
+"""Ice and ocean on the bed: the pointwise floatation rules and the load they put on a plate.
+
+The vertical stress on the bed (PHYSICS.md section 7.1) is
+
+    sigma = g max(rho_i H, rho_w max(z_sl − b, 0))
+
+so grounded ice (rho_i H ≥ rho_w (z_sl − b)) presses with its weight, floating ice
+presses exactly like the water it displaces, open ocean with its water column and
+ice-free land not at all. A plate is driven by sigma − sigma_ref, the change from a
+reference state in which its deflection is zero (:class:`IceLoad`, the one copy of that
+rule, used by :class:`gridflex.IceStepper` and so by :func:`gridflex.ice_response`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
+
+__all__ = ["ICE_DENSITY", "IceLoad", "bed_stress", "grounded_mask"]
+
+ICE_DENSITY = 910.0
+"""Default density of glacier ice (kg/m^3; common practice)."""
+
+ArrayLike = Any
+
+
+def bed_stress(
+    ice_thickness: ArrayLike,
+    bed: ArrayLike,
+    sea_level: ArrayLike = 0.0,
+    *,
+    ice_density: float = ICE_DENSITY,
+    water_density: float = SEA_WATER_DENSITY,
+    gravity: float = DEFAULT_GRAVITY,
+) -> ArrayLike:
+    """Vertical stress on the bed of ice and ocean water (Pa, positive down).
+
+    .. math:: \\sigma = g\\,\\max\\left(\\rho_i H,\\ \\rho_w \\max(z_{sl} - b, 0)\\right)
+
+    Parameters
+    ----------
+    ice_thickness : array_like or xarray.DataArray
+        Ice thickness H (m, >= 0).
+    bed : array_like or xarray.DataArray
+        Bed elevation b (m, positive up, same datum as *sea_level*).
+    sea_level : float or array_like, default 0
+        Sea-level elevation z_sl (m).
+    ice_density, water_density : float
+        rho_i and rho_w (kg m^-3), default 910 and 1030.
+    gravity : float, default 9.81
+        g (m s^-2).
+
+    Returns
+    -------
+    array or xarray.DataArray
+        sigma (Pa), broadcast over the inputs.
+
+    Examples
+    --------
+    >>> float(bed_stress(1000.0, 100.0))          # grounded ice on land
+    8927100.0
+    >>> float(bed_stress(300.0, -500.0))         # floating: only the displaced water
+    5052150.0
+    >>> float(bed_stress(0.0, -500.0))           # the same water column, no ice
+    5052150.0
+    """
+    ocean = water_density * np.maximum(sea_level - bed, 0.0)
+    return gravity * np.maximum(ice_density * ice_thickness, ocean)
+
+
+def grounded_mask(
+    ice_thickness: ArrayLike,
+    bed: ArrayLike,
+    sea_level: ArrayLike = 0.0,
+    *,
+    ice_density: float = ICE_DENSITY,
+    water_density: float = SEA_WATER_DENSITY,
+) -> ArrayLike:
+    """True where there is ice and it rests on the bed: H > 0 and
+    rho_i H >= rho_w (z_sl − b)."""
+    return (ice_thickness > 0) & (ice_density * ice_thickness >= water_density * (sea_level - bed))
+
+
+@dataclass
+class IceLoad:
+    """The load (Pa, positive down) that ice and ocean put on a plate whose bed moves.
+
+    The bed at deflection w (m, positive down) is ``bed − w``; the load is
+    sigma(H, z_sl, bed − w) − sigma_ref with sigma of :func:`bed_stress` and sigma_ref
+    that of the reference state (ice *reference_ice*, sea level *reference_level*, bed
+    *bed*), in which the deflection is zero. numpy arrays in SI units.
+    """
+
+    bed: np.ndarray
+    ice_density: float
+    water_density: float
+    gravity: float
+    reference_ice: np.ndarray
+    reference_level: float
+    reference_stress: np.ndarray = field(init=False)
+    """sigma_ref (Pa) of the reference state."""
+
+    def __post_init__(self) -> None:
+        self.reference_stress = self.stress(self.reference_ice, self.reference_level, 0.0)
+
+    def stress(self, ice: ArrayLike, level: ArrayLike, w: ArrayLike) -> np.ndarray:
+        """sigma (Pa) of *ice* (m) and sea *level* (m) on the bed moved down by *w* (m)."""
+        return np.asarray(
+            bed_stress(
+                ice,
+                self.bed - w,
+                level,
+                ice_density=self.ice_density,
+                water_density=self.water_density,
+                gravity=self.gravity,
+            ),
+            dtype=np.float64,
+        )
+
+    def change(self, ice: ArrayLike, level: ArrayLike, w: ArrayLike) -> np.ndarray:
+        """sigma − sigma_ref (Pa), the load that drives the plate."""
+        return self.stress(ice, level, w) - self.reference_stress
+
+    def grounded(self, ice: ArrayLike, level: ArrayLike, w: ArrayLike) -> np.ndarray:
+        """Where *ice* rests on the bed moved down by *w*."""
+        return np.asarray(
+            grounded_mask(
+                ice,
+                self.bed - w,
+                level,
+                ice_density=self.ice_density,
+                water_density=self.water_density,
+            )
+        )
