@@ -146,6 +146,25 @@ def one_line(message: object) -> str:
     return "".join(c if c.isprintable() else repr(c)[1:-1] for c in str(message))
 
 
+_progress_line_open = [False]
+"""Whether a progress line ending in a carriage return is on stderr: the next message
+starts a new line first, so that it does not run into the progress."""
+
+
+def _close_progress_line() -> None:
+    if _progress_line_open[0]:
+        sys.stderr.write("\n")
+        _progress_line_open[0] = False
+
+
+class _MessageHandler(logging.StreamHandler):
+    """Log lines on stderr, each on a line of its own after an open progress line."""
+
+    def emit(self, record: logging.LogRecord) -> None:
+        _close_progress_line()
+        super().emit(record)
+
+
 def _show_warning(
     message: Warning | str,
     category: type[Warning],
@@ -154,6 +173,7 @@ def _show_warning(
     file: TextIO | None = None,
     line: str | None = None,
 ) -> None:
+    _close_progress_line()
     print(f"gridflex: warning: {one_line(message)}", file=sys.stderr)
 
 
@@ -167,7 +187,9 @@ def configure_output(args: argparse.Namespace) -> None:
         level = logging.DEBUG
     elif getattr(args, "quiet", False):
         level = logging.ERROR
-    logging.basicConfig(level=level, format="gridflex: %(message)s", stream=sys.stderr, force=True)
+    handler = _MessageHandler(sys.stderr)
+    logging.basicConfig(level=level, format="gridflex: %(message)s", handlers=[handler], force=True)
+    _progress_line_open[0] = False
     warnings.simplefilter("ignore" if getattr(args, "quiet", False) else "always", GridflexWarning)
     warnings.showwarning = _show_warning
 
@@ -195,6 +217,7 @@ def progress_printer(
         line = f"gridflex: {done}/{total}{left}"
         print(line.ljust(shown[0]), end=end, file=sys.stderr, flush=True)
         shown[0] = len(line)
+        _progress_line_open[0] = end == "\r"
 
     return report
 

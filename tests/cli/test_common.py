@@ -99,3 +99,23 @@ def test_progress_shows_the_time_left(capsys):
     assert err.rstrip().endswith("gridflex: 10/10") and err.endswith("\n")
     quiet = _parser().parse_args(["try", "s.toml", "-q"])
     assert progress_printer(quiet) is None
+
+
+def test_a_message_after_an_open_progress_line_starts_a_line_of_its_own(capsys):
+    # common practice: a log line or warning never runs into a "\r" progress line
+    import logging
+    import warnings
+
+    from gridflex.cli.common import configure_output
+
+    args = argparse.Namespace(quiet=False, verbose=False)
+    with warnings.catch_warnings():
+        configure_output(args)
+        report = progress_printer(args)
+        assert report is not None
+        report(1, 2)
+        logging.getLogger("gridflex.test").info("solved")
+        report(2, 2)
+        logging.getLogger("gridflex.test").info("done")
+    err = capsys.readouterr().err
+    assert err == "gridflex: 1/2\r\ngridflex: solved\ngridflex: 2/2\ngridflex: done\n"
