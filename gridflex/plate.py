@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from typing import Any
 
 import numpy as np
@@ -12,7 +12,7 @@ from gridflex.constants import DEFAULT_GRAVITY, MAX_ELASTIC_THICKNESS, SEA_WATER
 from gridflex.errors import InputError
 from gridflex.validation import check_density, check_number
 
-__all__ = ["Plate", "rigidity_from_te", "te_from_rigidity"]
+__all__ = ["PLATE_PARAMETERS", "Plate", "rigidity_from_te", "te_from_rigidity"]
 
 TeLike = float | xr.DataArray
 
@@ -248,3 +248,9 @@ class Plate:
             out["te_min"] = float(te_grid.min())
             out["te_max"] = float(te_grid.max())
         return out
+
+
+PLATE_PARAMETERS: tuple[str, ...] = tuple(f.name for f in fields(Plate) if f.name != "te")
+"""The plate's scalar parameters besides te (moduli, densities, gravity, crust), in the
+order of :class:`Plate`'s fields: what a saved state keeps and what a scenario's ``[plate]``
+table may set beside te."""

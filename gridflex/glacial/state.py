@@ -45,7 +45,7 @@ import xarray as xr
 
 from gridflex.errors import InputError
 from gridflex.io.netcdf import read_result, write_netcdf
-from gridflex.plate import Plate
+from gridflex.plate import PLATE_PARAMETERS, Plate
 from gridflex.solvers.far_field import FarField
 from gridflex.solvers.variable_relaxation import VariableRelaxation
 from gridflex.solvers.viscous import SpectralRelaxation
@@ -97,20 +97,12 @@ state (saved) and the ones rebuilt from the settings or caches (not saved). Ever
 of the class must be in one of the two (a test checks it), so a field added later cannot
 be forgotten silently."""
 
-_PLATE_FIELDS = (
-    "youngs_modulus",
-    "poisson_ratio",
-    "mantle_density",
-    "infill_density",
-    "gravity",
-    "crust_thickness",
-    "crust_density",
-)
-
 
 def plate_state(plate: Plate) -> tuple[dict[str, Any], dict[str, Any]]:
     """Attributes and variables (``plate_te`` for a te grid) of *plate*."""
-    attrs: dict[str, Any] = {f"plate_{name}": float(getattr(plate, name)) for name in _PLATE_FIELDS}
+    attrs: dict[str, Any] = {
+        f"plate_{name}": float(getattr(plate, name)) for name in PLATE_PARAMETERS
+    }
     variables: dict[str, Any] = {}
     if isinstance(plate.te, xr.DataArray):
         attrs["plate_te"] = "grid"
@@ -127,7 +119,7 @@ def plate_from_state(ds: xr.Dataset, grid: xr.DataArray) -> Plate:
         te = grid.copy(data=np.asarray(ds["plate_te"].values, dtype=np.float64))
     else:
         te = float(ds.attrs["plate_te"])
-    return Plate(te, **{name: float(ds.attrs[f"plate_{name}"]) for name in _PLATE_FIELDS})
+    return Plate(te, **{name: float(ds.attrs[f"plate_{name}"]) for name in PLATE_PARAMETERS})
 
 
 def engine_state(engine: Any) -> tuple[dict[str, Any], dict[str, Any]]:

@@ -21,6 +21,7 @@ from gridflex.gravity.first_order import CrustLayers
 from gridflex.io.netcdf import write_netcdf
 from gridflex.io.plots import plot_te_map
 from gridflex.io.rasters import write_geotiff
+from gridflex.plate import PLATE_PARAMETERS
 from gridflex.progress import Progress
 from gridflex.scenario.context import error_context
 from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
@@ -45,18 +46,9 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
-_PLATE_KEYS = (
-    "youngs_modulus",
-    "poisson_ratio",
-    "mantle_density",
-    "infill_density",
-    "gravity",
-    "crust_thickness",
-    "crust_density",
-)
 
 TEMAP_SCHEMA: dict[str, dict[str, Key]] = {
-    "plate": {key: SCHEMA["plate"][key] for key in _PLATE_KEYS},
+    "plate": {key: SCHEMA["plate"][key] for key in PLATE_PARAMETERS},
     "data": {
         "topography_file": Key(
             "path", "grid of the topography (m, up): GeoTIFF or NetCDF", REQUIRED
