@@ -50,6 +50,7 @@ __all__ = [
     "elastic_thickness_from_scenario",
     "output_dataset",
     "plate_from_scenario",
+    "plate_with_te",
     "run_scenario",
     "with_breaks",
 ]
@@ -218,8 +219,8 @@ def flexural_parameter_range(scenario: Scenario) -> tuple[float, float]:
     if not (np.isfinite(low) and np.isfinite(high)):
         return 0.0, 0.0
     return (
-        float(_plate(scenario, max(low, 0.0)).flexural_parameter),
-        float(_plate(scenario, max(high, 0.0)).flexural_parameter),
+        float(plate_with_te(scenario, max(low, 0.0)).flexural_parameter),
+        float(plate_with_te(scenario, max(high, 0.0)).flexural_parameter),
     )
 
 
@@ -227,11 +228,11 @@ def plate_from_scenario(
     scenario: Scenario, like: xr.DataArray | None = None, grid: WorkingGrid | None = None
 ) -> Plate:
     """The :class:`Plate` of the ``[plate]`` table (Te grids on *like*'s grid)."""
-    return _plate(scenario, elastic_thickness_from_scenario(scenario, like, grid))
+    return plate_with_te(scenario, elastic_thickness_from_scenario(scenario, like, grid))
 
 
-def _plate(scenario: Scenario, te: float | xr.DataArray) -> Plate:
-    """A :class:`Plate` of *te* with the other ``[plate]`` values."""
+def plate_with_te(scenario: Scenario, te: float | xr.DataArray) -> Plate:
+    """A :class:`Plate` of *te* with the other ``[plate]`` values of *scenario*."""
     table = scenario.table("plate")
     with error_context(scenario.where("plate")):
         return Plate(
@@ -283,7 +284,7 @@ def _local_infill(scenario: Scenario, grid: WorkingGrid) -> xr.Dataset:
         for da in grid.input_layers
     ]
     column = load_column(scenario, layers)
-    return infill_step(scenario, _plate(scenario, 0.0), column)
+    return infill_step(scenario, plate_with_te(scenario, 0.0), column)
 
 
 def _with_local_columns(result: xr.Dataset, local: xr.Dataset) -> xr.Dataset:

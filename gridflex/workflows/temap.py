@@ -29,7 +29,7 @@ from gridflex.scenario.tables import SCHEMA, load_scenario
 from gridflex.workflows.grid_input import read_grid_input
 from gridflex.workflows.outcome import RunOutcome
 from gridflex.workflows.outputs import OutputPlan, stamp_result
-from gridflex.workflows.run import _plate
+from gridflex.workflows.run import plate_with_te
 
 TemapScenario = Scenario[dict[str, Any]]
 """A validated te-map scenario (its tables are checked against :data:`TEMAP_SCHEMA`)."""
@@ -225,7 +225,7 @@ def temap_scenario(
         role="anomaly",
         reference=topography,
     )
-    plate = _plate(scenario, 0.0)
+    plate = plate_with_te(scenario, 0.0)
     gravity = None
     if table["quantity"] == "free_air":
         gravity = CrustLayers(table["seafloor_depth"], plate.crust_thickness, plate.crust_density)
