@@ -226,11 +226,12 @@ class ResponseStepper:
         domain as periodic.
     pad_factor : float, default 4.5
         Padding on each side in flexural parameters (both models).
-    width_factor : float, default 1.0
+    width_factor : float, default 0.5
         Half-space only: padding on each side of at least this many grid widths. The
-        net force and first moment of the load relax on the infinite plane (computed
-        apart, :mod:`gridflex.solvers.far_field`); the rest decays fast enough for this
-        padding (on the Bueler et al. disc: 0.1 % of w(0) from the first year).
+        net force, first and second moments of the load relax on the infinite plane
+        (computed apart, :mod:`gridflex.solvers.far_field`); the rest decays fast enough
+        for this padding (uplift rates within about 1 % of the widely padded answer
+        where the rate is >= 10 % of its peak, tests/benchmarks/far_field_padding.py).
     elastic : bool, default False
         Add the instantaneous elastic response of the Earth, an elastic half-space
         under the load acting now (Boussinesq; :func:`gridflex.elastic_halfspace_response`),

@@ -1,9 +1,9 @@
 """Saving a time stepper to NetCDF and restoring it, so that a run continues bit for bit.
 
-File format (version 1), written atomically through :func:`gridflex.io.netcdf.write_netcdf`:
+File format (version 2), written atomically through :func:`gridflex.io.netcdf.write_netcdf`:
 
 * global attribute ``gridflex_state``: the class saved (``"ResponseStepper"`` or
-  ``"IceStepper"``), ``gridflex_state_version`` = 1;
+  ``"IceStepper"``), ``gridflex_state_version`` = 2;
 * every setting of the stepper as a global attribute named like its argument (``model``,
   ``mantle_viscosity`` in Pa s, ``relaxation_time`` in years, ``initial``,
   ``interpolation``, ``edges``, ``pad_factor``, ``width_factor``, ``elastic`` (0 or 1),
@@ -19,8 +19,10 @@ File format (version 1), written atomically through :func:`gridflex.io.netcdf.wr
   attributes ``engine_<name>``;
 * the far field of the half-space (:class:`~gridflex.solvers.far_field.FarField`, present
   with padding) adds ``engine_far_state`` (its radial modes, m, on
-  ``(engine_far_moment, engine_far_node)``) and ``engine_far_moments`` (the net force,
-  N, and first moments, N m, of the load acting now, on ``(engine_far_moment,)``);
+  ``(engine_far_moment, engine_far_node)``) and ``engine_far_moments`` (the six moments
+  of the load acting now, on ``(engine_far_moment,)``: net force, N; first moments along
+  y and x, N m; the second moment's trace and its two quadrupole parts, N m², see
+  :meth:`~gridflex.solvers.far_field.FarField.sums`; version 1 had only the first three);
 * with ``elastic`` = 1 (the elastic Earth), ``elastic_now`` and ``elastic_before`` (m, on
   ``(y, x)``: the elastic displacement under the load acting now and at the start of the
   last step) and the attribute ``elastic_dt`` (that step, s);
@@ -62,7 +64,7 @@ __all__ = [
     "write_state",
 ]
 
-STATE_VERSION = 1
+STATE_VERSION = 2
 """Version of the state file format written by :func:`write_state`."""
 
 ENGINE_FIELDS: dict[type, tuple[frozenset[str], frozenset[str]]] = {
@@ -87,7 +89,8 @@ ENGINE_FIELDS: dict[type, tuple[frozenset[str], frozenset[str]]] = {
     FarField: (
         frozenset({"state", "moments"}),
         frozenset(
-            {"nodes", "rates", "transfer", "hankel0", "hankel1", "rows", "cols", "kernels"}
+            {"nodes", "rates", "transfer", "hankel0", "hankel1", "hankel_trace", "hankel2"}
+            | {"rows", "cols", "kernels"}
             | {"interpolation", "offsets", "radial_step", "cell_area"}
         ),
     ),

@@ -10,26 +10,39 @@ samples the spectrum at multiples of 2 pi / L: its k = 0 mode makes the whole pa
 domain sink by F / (Δρ g L²) at once, and its periodic images add the 1 / r tails of
 all the copies of the load (metres where the truth is centimetres after a year).
 
-Split of the spectrum (an Ewald-type split, common practice in lattice sums): with
-phi(k) = exp(−(k / k_c)⁸), the load spectrum near k = 0 is, about the window centre
-x_c, Q(k) = e^{−i k·x_c} (F − i k·p + O(k²)) (F the net force, p the first moment).
+Split of the spectrum (an Ewald-type split, common practice in lattice sums): about the
+window centre x_c the load spectrum is the Taylor series of e^{−i k·(x − x_c)} summed
+over the load::
 
-* The periodic engine is driven by Q(k) − phi(k) e^{−i k·x_c} (F − i k·p): no net
-  force and no first moment, so its field decays like that of a quadrupole (1 / r³
-  right after loading) and the periodic copies of the padded domain are negligible;
-  its k = 0 mode is zero at all times.
-* The rest, phi(k) (F − i k·p) at x_c, is radially symmetric per moment and is carried
-  by a 1-D set of modes m(k, t) at quadrature nodes in k (logarithmic from 1e-10 k_c up
-  to 1.6 k_c), each obeying the same per-mode equation 2 eta k dm/dt + beta m = F(t)
-  (and p(t)), advanced by the same exact exponential update. Its field on the infinite
-  plane is a Hankel transform (r = |x − x_c|, e_r = (x − x_c) / r)::
+    Q(k) = e^{−i k·x_c} (F − i k·p − ½ k·M·k + O(k³))
+         = e^{−i k·x_c} (F − i k (p_x cos θ + p_y sin θ)
+                         − ½ k² (T / 2 + A cos 2θ + B sin 2θ) + O(k³))
 
-      w_far(x) = 1/(2 pi) ∫ phi m_F(k) J0(k r) k dk + e_r · 1/(2 pi) ∫ phi m_p(k) J1(k r) k² dk
+(F the net force, p the first moment, M the second moment about x_c, T = M_xx + M_yy,
+A = (M_xx − M_yy) / 2, B = M_xy; θ the direction of k). With s = (k / k_g)², the net
+force is tapered by phi_F = e^{−s} (1 + s + s² / 2) (1 − phi_F = O(k⁶)) and the other
+terms by phi = e^{−s} (1 − phi = O(k²), so O(k³) and O(k⁴) are left behind); both have
+Gaussian tails in real space.
+
+* The periodic engine is driven by Q(k) less the tapered terms: no net force, first or
+  second moment, so its field decays like that of an octupole (1 / r⁴ right after
+  loading) and the periodic copies of the padded domain are small; its k = 0 mode is
+  zero at all times.
+* The rest is carried by a 1-D set of modes m(k, t) per moment at quadrature nodes in k
+  (logarithmic from 1e-10 k_g up to 6 k_g), each obeying the same per-mode equation
+  2 eta k dm/dt + beta m = F(t) (and p(t), T(t), A(t), B(t)), advanced by the same exact
+  exponential update. Its field on the infinite plane is a sum of Hankel transforms of
+  orders 0, 1 and 2 (r = |x − x_c|, φ the direction of x − x_c; the angular factor
+  e^{i n θ} of a spectrum becomes i^n J_n(k r) e^{i n φ})::
+
+      w_far(x) = 1/(2 pi) ∫ (phi_F m_F − phi k² m_T / 4) J0(k r) k dk
+               + (p_x cos φ + p_y sin φ) 1/(2 pi) ∫ phi m_p(k) J1(k r) k² dk  [per unit p]
+               + (A cos 2φ + B sin 2φ) 1/(2 pi) ∫ phi (k² / 2) m(k) J2(k r) k dk  [per unit]
 
   evaluated on a radial grid through the window and interpolated linearly to the cells.
 
-The sum is the response on the infinite plane up to the quadrupole's periodic copies
-and the quadrature; everything is linear, so the uplift rate is split the same way and
+The sum is the response on the infinite plane up to the octupole's periodic copies and
+the quadrature; everything is linear, so the uplift rate is split the same way and
 equals −dw/dt of the deflection. Numpy arrays, SI units, times in seconds.
 """
 
@@ -45,19 +58,32 @@ from scipy import special
 from gridflex.grid import GridSpec
 from gridflex.memory import check_memory
 
-__all__ = ["CUTOFF_CYCLES", "FarField", "step_factors"]
+__all__ = ["CUTOFF_CYCLES", "MOMENTS", "FarField", "step_factors"]
 
-CUTOFF_CYCLES = 8.0
-"""k_c in cycles over the shorter side of the padded grid: the split's far part spreads
-over about 1 / k_c = L / (16 pi) and its tail over a few times that, well inside L / 2
-(measured on the Bueler disc: 4, 6, 8 and 12 cycles gave the same centre; from 6 on the
-far-field rate at 1 kyr was 0.2-0.3 % off instead of 1.7 % with 4)."""
+CUTOFF_CYCLES = 3.0
+"""k_g, the scale of the split's tapers, in cycles over the shorter side L of the padded
+grid. The tapers are Gaussian (times a polynomial for the net force), so the far part's
+real-space tail falls like exp(−(k_g r)² / 4) and is negligible at the periodic copies;
+the moment terms grow like (k R) and (k R)² times the net force (R the load's extent),
+so k_g must not be large either. Measured on a disc filling the grid, an off-centre
+pair of loads and a load in a corner, padding half a grid width on each side (the
+default; against the same steppers padded four widths): k_g = 1.6, 2.3, 3, 4 and 5 cycles
+gave the largest uplift-rate error (pointwise, where the rate is >= 10 % of its peak) of
+2.1, 1.4, 1.2, 1.1 and 1.0 % at 1-10 yr (the corner load) and at 10-100 kyr 3.0, 0.67,
+0.20, 0.18 and 0.71 %. An earlier split took
+only the net force and first moment out under exp(−(k / k_c)⁸): that taper's slow,
+oscillating tail carried the (k R)² terms round the periodic grid (0.2 % of the peak in
+equilibrium) and the second moment's images gave 11 % at 1 yr in a corner
+(tests/benchmarks/far_field_padding.py prints these cases)."""
 
-_ORDER = 8  # phi = exp(-(k/k_c)^8): 1 - phi = O(k^8), no low-order term left behind
-_TOP = 1.6  # last node in k_c; phi(1.6 k_c) = exp(-43)
-_DECADES = 10.0  # nodes from 1e-10 k_c: the part below weighs < F k_min^2 / (4 pi Δρ g)
+MOMENTS = 6
+"""Moments split off the load: net force, first moment (y, x), and the second moment as
+its trace and two quadrupole parts (see :meth:`FarField.sums`)."""
+
+_TOP = 6.0  # last node, in k_g: the tapers there are below 2e-13
+_DECADES = 10.0  # nodes from 1e-10 k_g: the part below weighs < F k_min^2 / (4 pi Δρ g)
 _PER_DECADE = 48
-_RADIAL_STEP = 1.0 / 64.0  # radial grid spacing, in 1 / k_c
+_RADIAL_STEP = 1.0 / 128.0  # radial grid spacing, in 1 / k_g
 
 
 def step_factors(
@@ -77,14 +103,24 @@ def step_factors(
     return (decay, (phi - decay) * transfer, (1.0 - phi) * transfer)
 
 
+_PROFILES = 5
+"""Radial profiles of the far field, stacked: the monopole with the isotropic part of
+the second moment (J0), the dipole along y and along x (J1) and the two quadrupoles
+(J2, cos 2φ and sin 2φ)."""
+
+
 def _interpolation_matrix(
     oy: np.ndarray, ox: np.ndarray, step: float, n_r: int
 ) -> scipy.sparse.csr_matrix:
-    """Linear interpolation in r of the three radial profiles (the two dipole profiles
-    times the direction cosines) at the cells of offsets *oy* x *ox* from the centre, as
-    one sparse matrix of 6 entries per cell onto the stacked profiles (3 *n_r*)."""
+    """Linear interpolation in r of the stacked radial profiles (see :data:`_PROFILES`)
+    times their angular factors (1, cos φ_y, cos φ_x, cos 2φ, sin 2φ) at the cells of
+    offsets *oy* x *ox* from the centre, as one sparse matrix of two entries per profile
+    and cell onto the stacked profiles (5 *n_r*)."""
     cells = oy.size * ox.size
-    check_memory(6.0 * 12.0 * cells + 8.0 * 4 * cells, f"far-field interpolation on {cells} cells")
+    entries = 2 * _PROFILES
+    check_memory(
+        entries * 12.0 * cells + 8.0 * 6 * cells, f"far-field interpolation on {cells} cells"
+    )
     yy = np.broadcast_to(oy[:, None], (oy.size, ox.size)).ravel()
     xx = np.broadcast_to(ox[None, :], (oy.size, ox.size)).ravel()
     r = np.hypot(yy, xx)
@@ -93,17 +129,20 @@ def _interpolation_matrix(
     fraction = position - index
     safe = np.where(r > 0, r, 1.0)
     cos_y, cos_x = np.where(r > 0, yy / safe, 0.0), np.where(r > 0, xx / safe, 0.0)
-    columns = np.stack(
-        [index, index + 1, index + n_r, index + 1 + n_r, index + 2 * n_r, index + 1 + 2 * n_r],
-        axis=1,
-    ).ravel()
+    angular = (np.ones_like(r), cos_y, cos_x, cos_x**2 - cos_y**2, 2.0 * cos_x * cos_y)
     below = 1.0 - fraction
-    values = np.stack(
-        [below, fraction, below * cos_y, fraction * cos_y, below * cos_x, fraction * cos_x],
-        axis=1,
+    columns = np.stack(
+        [c for p in range(_PROFILES) for c in (index + p * n_r, index + 1 + p * n_r)], axis=1
     ).ravel()
-    pointers = np.arange(0, 6 * cells + 1, 6, dtype=np.int64)
-    return scipy.sparse.csr_matrix((values, columns, pointers), shape=(cells, 3 * n_r))
+    values = np.stack([v for a in angular for v in (below * a, fraction * a)], axis=1).ravel()
+    pointers = np.arange(0, entries * cells + 1, entries, dtype=np.int64)
+    return scipy.sparse.csr_matrix((values, columns, pointers), shape=(cells, _PROFILES * n_r))
+
+
+def _force_taper(x: np.ndarray) -> np.ndarray:
+    """exp(−x²) (1 + x² + x⁴ / 2): 1 − taper = O(x⁶), Gaussian tail in real space."""
+    x2 = x * x
+    return np.exp(-x2) * (1.0 + x2 * (1.0 + 0.5 * x2))
 
 
 def _simpson_weights(n: int, step: float) -> np.ndarray:
@@ -116,7 +155,8 @@ def _simpson_weights(n: int, step: float) -> np.ndarray:
 
 @dataclass
 class FarField:
-    """Net force and first moment of the load, and their response on the infinite plane.
+    """Net force, first and second moments of the load, and their response on the
+    infinite plane.
 
     Create with :meth:`build`; the engine calls :meth:`split` on every load spectrum,
     :meth:`step` with the moments it returned, and adds :meth:`field` /
@@ -128,6 +168,8 @@ class FarField:
     transfer: np.ndarray
     hankel0: np.ndarray
     hankel1: np.ndarray
+    hankel_trace: np.ndarray
+    hankel2: np.ndarray
     rows: np.ndarray
     cols: np.ndarray
     kernels: np.ndarray
@@ -153,47 +195,66 @@ class FarField:
         *whole_grid* the radial grid reaches every cell of *shape* (nearest periodic
         image), for :meth:`grid_interpolation`."""
         ny_pad, nx_pad = shape
-        k_c = CUTOFF_CYCLES * 2.0 * np.pi / min(ny_pad * spec.dy, nx_pad * spec.dx)
+        k_g = CUTOFF_CYCLES * 2.0 * np.pi / min(ny_pad * spec.dy, nx_pad * spec.dx)
         # quadrature in u = ln k: int f dk = int f k du, Simpson on an odd node count
         count = int(round((_DECADES + np.log10(_TOP)) * _PER_DECADE)) | 1
-        u = np.linspace(np.log(k_c) - _DECADES * np.log(10.0), np.log(_TOP * k_c), count)
+        u = np.linspace(np.log(k_g) - _DECADES * np.log(10.0), np.log(_TOP * k_g), count)
         nodes = np.exp(u)
         weights = _simpson_weights(count, u[1] - u[0]) * nodes
         beta = rigidity * nodes**4 + stiffness
         rates = beta / (2.0 * viscosity * nodes)
-        taper = np.exp(-((nodes / k_c) ** _ORDER))
+        taper = _force_taper(nodes / k_g)
+        moment_taper = np.exp(-((nodes / k_g) ** 2))
         # radial grid through the window (distances from its centre)
         cy, cx = 0.5 * (spec.ny - 1) * spec.dy, 0.5 * (spec.nx - 1) * spec.dx
         reach = float(np.hypot(cy, cx))
         if whole_grid:
             reach = max(reach, float(np.hypot(ny_pad * spec.dy, nx_pad * spec.dx)) / 2)
-        step = _RADIAL_STEP / k_c
+        step = _RADIAL_STEP / k_g
         radii = np.arange(int(np.ceil(reach / step)) + 2) * step
         kr = radii[:, None] * nodes[None, :]
-        common = weights * taper * nodes / (2.0 * np.pi)
-        hankel0 = special.j0(kr) * common
-        hankel1 = special.j1(kr) * (common * nodes)
+        common = weights * nodes / (2.0 * np.pi)
+        j0 = special.j0(kr)
+        hankel0 = j0 * (common * taper)
+        moment_common = common * moment_taper
+        hankel1 = special.j1(kr) * (moment_common * nodes)
+        hankel_trace = j0 * (moment_common * (-0.25 * nodes**2))
+        hankel2 = special.jv(2, kr) * (moment_common * (0.5 * nodes**2))
         oy = np.arange(spec.ny) * spec.dy - cy
         ox = np.arange(spec.nx) * spec.dx - cx
         interpolation = _interpolation_matrix(oy, ox, step, radii.size)
         # low-wavenumber block of the FFT grid where phi is not negligible
-        top = _TOP * k_c
+        top = _TOP * k_g
         my = min(int(np.ceil(top * ny_pad * spec.dy / (2 * np.pi))), ny_pad // 2 - 1)
         mx = min(int(np.ceil(top * nx_pad * spec.dx / (2 * np.pi))), nx_pad // 2 - 1)
         rows = np.r_[0 : my + 1, ny_pad - my : ny_pad]
         cols = np.arange(mx + 1)
         ky = 2.0 * np.pi * np.fft.fftfreq(ny_pad, spec.dy)[rows][:, None]
         kx = 2.0 * np.pi * np.fft.rfftfreq(nx_pad, spec.dx)[cols][None, :]
-        block_taper = np.exp(-((np.hypot(ky, kx) / k_c) ** _ORDER))
-        shift = block_taper * np.exp(-1j * (ky * cy + kx * cx))
-        # Q - phi e^{-ik.xc} (S0 - i ky S1y - i kx S1x), S in DFT units (sums over cells)
-        kernels = np.stack([shift, -1j * ky * shift, -1j * kx * shift])
+        block_k = np.hypot(ky, kx)
+        at_centre = np.exp(-1j * (ky * cy + kx * cx))
+        shift = _force_taper(block_k / k_g) * at_centre
+        moment_shift = np.exp(-((block_k / k_g) ** 2)) * at_centre
+        # Q - phi e^{-ik.xc} (S0 - i ky S1y - i kx S1x - k^2 T / 4 - (kx^2 - ky^2) A / 2
+        # - kx ky B), S, T, A, B in DFT units (sums over cells, see sums)
+        kernels = np.stack(
+            [
+                shift,
+                -1j * ky * moment_shift,
+                -1j * kx * moment_shift,
+                -0.25 * (kx**2 + ky**2) * moment_shift,
+                -0.5 * (kx**2 - ky**2) * moment_shift,
+                -(kx * ky) * moment_shift,
+            ]
+        )
         return cls(
             nodes,
             rates,
             1.0 / beta,
             hankel0,
             hankel1,
+            hankel_trace,
+            hankel2,
             rows,
             cols,
             kernels,
@@ -201,29 +262,44 @@ class FarField:
             (oy, ox),
             step,
             spec.cell_area,
-            np.zeros((3, count)),
-            np.zeros(3),
+            np.zeros((MOMENTS, count)),
+            np.zeros(MOMENTS),
         )
 
     # -- the split -----------------------------------------------------------------
     def split(self, load: np.ndarray, spectrum: np.ndarray) -> np.ndarray:
-        """Take the net force and first moment out of *spectrum* (in place) and return
-        them, ``(F, p_y, p_x)`` in N and N m (the sums over cells times the cell area).
+        """Take the net force, first and second moments out of *spectrum* (in place) and
+        return them, ``(F, p_y, p_x, T, A, B)`` in N, N m and N m² (the sums of
+        :meth:`sums` times the cell area).
 
         *spectrum* is the DFT of *load* zero-padded as the engine does; its k = 0 value
         is the net force, so after the split that mode is exactly zero."""
         sums = self.sums(load, float(spectrum[0, 0].real))
         block = np.ix_(self.rows, self.cols)
-        spectrum[block] -= np.tensordot(sums, self.kernels, axes=1)
+        # einsum, not BLAS: a thread start-up costs more than this small sum
+        spectrum[block] -= np.einsum("j,jab->ab", sums, self.kernels)
         spectrum[0, 0] = 0.0
         return sums * self.cell_area
 
     def sums(self, load: np.ndarray, total: float | None = None) -> np.ndarray:
-        """``(Σ q, Σ q (y − y_c), Σ q (x − x_c))`` over the window's cells (Pa, Pa m);
+        """Moments of *load* about the window centre as sums over the window's cells
+        (Pa, Pa m, Pa m²): ``Σ q``, ``Σ q y'``, ``Σ q x'``, the trace ``Σ q (x'² + y'²)``,
+        ``Σ q (x'² − y'²) / 2`` and ``Σ q x' y'`` (x', y' the offsets from the centre);
         *total* replaces Σ q when the caller has it (the k = 0 value of a spectrum)."""
         oy, ox = self.offsets
-        first = float(load.sum()) if total is None else total
-        return np.array([first, float(load.sum(axis=1) @ oy), float(load.sum(axis=0) @ ox)])
+        by_row, by_column = load.sum(axis=1), load.sum(axis=0)
+        first = float(by_row.sum()) if total is None else total
+        yy, xx = float(by_row @ oy**2), float(by_column @ ox**2)
+        return np.array(
+            [
+                first,
+                float(by_row @ oy),
+                float(by_column @ ox),
+                xx + yy,
+                0.5 * (xx - yy),
+                float(oy @ (load @ ox)),
+            ]
+        )
 
     def grid_interpolation(self, shape: tuple[int, int], dy: float, dx: float):
         """Interpolation of the far field onto every cell of the periodic grid *shape*
@@ -237,11 +313,11 @@ class FarField:
         return _interpolation_matrix(gy, gx, self.radial_step, self.hankel0.shape[0])
 
     def real_basis(self, shape: tuple[int, int]) -> np.ndarray:
-        """The three loads (per unit sum, on the periodic grid *shape*) that :meth:`split`
-        takes out of a spectrum, in real space: Σ_j sums_j basis_j is the far part of a
-        load."""
-        basis = np.empty((3, *shape))
-        for j in range(3):
+        """The loads (per unit sum of :meth:`sums`, on the periodic grid *shape*) that
+        :meth:`split` takes out of a spectrum, in real space: Σ_j sums_j basis_j is the far
+        part of a load."""
+        basis = np.empty((MOMENTS, *shape))
+        for j in range(MOMENTS):
             spectrum = np.zeros((shape[0], shape[1] // 2 + 1), dtype=np.complex128)
             spectrum[np.ix_(self.rows, self.cols)] = self.kernels[j]
             basis[j] = scipy.fft.irfft2(spectrum, s=shape, workers=-1)
@@ -285,8 +361,10 @@ class FarField:
         # einsum, not BLAS: a small matrix-vector product in BLAS costs a thread start-up
         return np.concatenate(
             [
-                np.einsum("rk,k->r", self.hankel0, modes[0]),
-                np.einsum("rk,jk->jr", self.hankel1, modes[1:]).ravel(),
+                np.einsum("rk,k->r", self.hankel0, modes[0])
+                + np.einsum("rk,k->r", self.hankel_trace, modes[3]),
+                np.einsum("rk,jk->jr", self.hankel1, modes[1:3]).ravel(),
+                np.einsum("rk,jk->jr", self.hankel2, modes[4:6]).ravel(),
             ]
         )
 

@@ -64,7 +64,7 @@ INTERPOLATIONS = ("linear", "previous")
 """How the load varies within a time step: linear between the loads at its two ends,
 or held at the load given at its start."""
 
-DEFAULT_WIDTH_FACTOR = 1.0
+DEFAULT_WIDTH_FACTOR = 0.5
 """Half-space padding on each side, in grid widths (the larger of the two extents)."""
 
 _CACHE_STEPS = 4

@@ -53,7 +53,7 @@ from gridflex.progress import Progress
 from gridflex.scenario.checks import check_plate_structure
 from gridflex.scenario.schema import REQUIRED, Key, Scenario, parse_tables
 from gridflex.scenario.tables import SCHEMA, load_scenario
-from gridflex.solvers.viscous import INTERPOLATIONS, MODELS
+from gridflex.solvers.viscous import DEFAULT_WIDTH_FACTOR, INTERPOLATIONS, MODELS
 from gridflex.synthetic import disc_height, empty_grid
 from gridflex.units import parse_quantity
 from gridflex.validation import check_grid_range, check_number
@@ -136,7 +136,10 @@ HISTORY_SCHEMA: dict[str, dict[str, Key]] = {
             "number", "zero padding per side in flexural parameters", 4.5, minimum=0.0
         ),
         "pad_width_factor": Key(
-            "number", "half-space: padding per side in grid widths", 1.0, minimum=0.0
+            "number",
+            "half-space: padding per side in grid widths",
+            DEFAULT_WIDTH_FACTOR,
+            minimum=0.0,
         ),
         "interpolation": Key(
             "choice", "load between the given times", "linear", choices=INTERPOLATIONS

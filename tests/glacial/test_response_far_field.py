@@ -43,8 +43,9 @@ def test_step_disc_matches_the_exact_solution_from_the_first_year(early_run):
     # Bueler, Lingle & Brown 2007 (Ann. Glaciol. 46): the disc switched on at t = 0 against
     # the exact Hankel integral (PHYSICS.md 7.6, tests/helpers.exact_disc). Issue 17
     # targets: centre within 5 % at 1 and 10 yr (it was 44 times too deep at 1 yr), 1 %
-    # from 100 yr; every radius within 1 % of w(0) from 100 yr. Seen (default settings):
-    # centre 0.03 % at 1, 10, 100 yr, 0.002 % at 1 kyr; worst radius 0.08-0.10 % of w(0).
+    # from 100 yr; every radius within 1 % of w(0) from 100 yr. Seen (default settings,
+    # second moments split off, half-width padding): centre 0.002-0.005 % at 1 yr to
+    # 10 kyr; worst radius 0.05-0.07 % of w(0).
     r, out = early_run
     exact = exact_disc(r, EARLY)  # (r, t)
     model = out.deflection.values[1:, 50, :].T
@@ -63,8 +64,8 @@ def test_step_disc_uplift_rate_everywhere_from_one_kyr(early_run):
     # d/dt of the exact solution (7.6) (Bueler et al. 2007). Issue 17 target: within 2 %
     # everywhere from 1 kyr (the far field at 1 kyr was 24 % off); pointwise where the rate
     # is at least a tenth of its peak (it crosses zero near the disc edge at 10 kyr), and
-    # within 0.5 % of the peak everywhere. Seen: 0.2 % (1 kyr, r = 1980 km) and 1.3 % at
-    # 1020 km (10 kyr, where the rate is 8 % of its peak); 0.03 % / 0.11 % of the peak.
+    # within 0.5 % of the peak everywhere. Seen: pointwise 0.07 % (1 kyr) and 1.0 % at
+    # 10 kyr (where the rate is near a tenth of its peak); 0.04 % / 0.11 % of the peak.
     r, out = early_run
     exact = -exact_disc(r, EARLY, rate=True) * SECONDS_PER_YEAR  # m/yr
     model = out.uplift_rate.values[1:, 50, :].T
