@@ -16,7 +16,7 @@ exact, but a red spectrum is flattened by k² before the tapers smear it. Withou
 long-wavelength power a taper leaks into the bands of the rollover biased te: measured on
 uniform two-load plates with amplitude ~ k^-1.5 and windows of 2400 km, +9 % at 10 km and
 -12 % at 40 km, while with amplitude ~ k^-0.5 or white loads, or prewhitened, the same
-plates came out within -3 to +2 % (``tests/benchmarks/te_map.py``; leakage of a red
+plates came out within -3.3 to +2.2 % (``tests/benchmarks/te_map.py``; leakage of a red
 spectrum is the textbook reason to prewhiten, Percival & Walden 1993, *Spectral Analysis
 for Physical Applications*, from memory).
 
