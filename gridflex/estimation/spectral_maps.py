@@ -41,7 +41,7 @@ Interval (``te_low``, ``te_high``): two parts added in quadrature in log te.
   disjoint coefficients, so their estimates are nearly independent for an isotropic
   load (neighbouring sectors share the taper's bandwidth at their borders).
 
-Each side's half-width is sqrt(m² + (t_{K-1} s_J)²), m the misfit part's half-width on
+Each side's half-width is sqrt(m² + (t_{S-1} s_J)²), m the misfit part's half-width on
 that side, so the interval is at least as wide as either part. It covers the scatter of
 the estimate; it does not cover a bias of the method (e.g. a window too short for the
 plate, or a plate that changes inside the window).
