@@ -243,14 +243,18 @@ def cross_spectra(
     )
 
 
-def _flexural_ratio(k: np.ndarray, te: float, plate: Plate, density: float) -> np.ndarray:
+def _flexural_ratio(k: np.ndarray, te: Any, plate: Plate, density: float) -> np.ndarray:
     """1 + D k⁴ / (density g): Forsyth's xi (density = rho_m - rho_c) or phi (rho_c)."""
     d = rigidity_from_te(te, plate.youngs_modulus, plate.poisson_ratio)
     return 1.0 + d * k**4 / (density * plate.gravity)
 
 
 def free_air_admittance(
-    wavenumber: np.ndarray, plate: Plate, layers: CrustLayers, topography_contrast: float
+    wavenumber: np.ndarray,
+    plate: Plate,
+    layers: CrustLayers,
+    topography_contrast: float,
+    te: np.ndarray | None = None,
 ) -> np.ndarray:
     """Free-air admittance (mGal m⁻¹) of topography that loads the plate from above.
 
@@ -271,9 +275,13 @@ def free_air_admittance(
     topography_contrast : float
         Density of the topography minus that of what it displaces (kg m⁻³), e.g.
         rho_c - rho_w at sea.
+    te : numpy.ndarray, optional
+        Several te (m) instead of ``plate.te``, shaped to broadcast against
+        *wavenumber* (e.g. ``te[:, None, None]`` for one admittance grid per te).
     """
     k = np.asarray(wavenumber, dtype=np.float64)
-    response = 1.0 / _flexural_ratio(k, float(plate.te), plate, plate.density_contrast)
+    thickness = float(plate.te) if te is None else np.asarray(te, dtype=np.float64)
+    response = 1.0 / _flexural_ratio(k, thickness, plate, plate.density_contrast)
     factor = compensation_factor(k, response, layers, plate)
     return _TWO_PI_G * topography_contrast * factor / MGAL
 
