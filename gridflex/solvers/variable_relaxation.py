@@ -72,7 +72,11 @@ from gridflex.errors import InputError
 from gridflex.grid import GridSpec, wavenumbers_squared
 from gridflex.memory import check_memory
 from gridflex.solvers.far_field import FarField
-from gridflex.solvers.finite_difference import DEFAULT_MAX_ITERATIONS, FiniteDifferenceSolver
+from gridflex.solvers.finite_difference import (
+    DEFAULT_MAX_ITERATIONS,
+    FiniteDifferenceSolver,
+    SolutionHistory,
+)
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.solvers.viscous import (
     DEFAULT_WIDTH_FACTOR,
@@ -132,8 +136,15 @@ of the solve shape)."""
 
 _CACHED_EQUILIBRIA = 3
 """Equilibria kept: a load seen again is not solved again, and the next solve starts from
-their best combination (:func:`~gridflex.solvers.finite_difference.combined_start`; on the
-te-grid benchmark's margin, 7.9 -> 6.9 iterations per solve against the last one alone)."""
+the best combination of as many (:class:`~gridflex.solvers.finite_difference.SolutionHistory`;
+on the te-grid benchmark's margin, 7.9 -> 6.9 iterations per solve against the last one
+alone)."""
+
+_STAGE_HISTORY = 4
+"""Half-space: stage solutions kept per step set-up (with their products) whose best
+combination starts the next stage; they span the extrapolations in time of the scheme
+(stage 1 from w + gamma h dw/dt needs the last three, stage 2 from w + h k_1 the last
+two)."""
 
 
 @dataclass(eq=False)
@@ -179,6 +190,7 @@ class VariableRelaxation:
     _settings: dict[str, Any] = field(default_factory=dict, repr=False)
     _equilibria: list[tuple[np.ndarray, np.ndarray]] = field(default_factory=list, repr=False)
     _step_solvers: dict[float, FiniteDifferenceSolver] = field(default_factory=dict, repr=False)
+    _histories: dict[int, SolutionHistory] = field(default_factory=dict, repr=False)
     _velocity: np.ndarray | None = field(default=None, repr=False)
     _inverse_viscous: np.ndarray | None = field(default=None, repr=False)
     far: FarField | None = field(default=None, repr=False)
@@ -349,14 +361,50 @@ class VariableRelaxation:
         full += self._stiffness * w_far - bent / operator.area
         return full
 
+    def _history(self, solver: FiniteDifferenceSolver) -> SolutionHistory:
+        """The kept solutions of *solver* (one history per set-up in use)."""
+        key = id(solver)
+        history = self._histories.get(key)
+        if history is None:
+            live = {id(self.equilibrium_solver)} | {id(s) for s in self._step_solvers.values()}
+            for old in [k for k in self._histories if k not in live]:
+                del self._histories[old]
+            size = _CACHED_EQUILIBRIA if solver is self.equilibrium_solver else _STAGE_HISTORY
+            history = self._histories[key] = SolutionHistory(size)
+        return history
+
+    def kept_solutions(self) -> list[tuple[float, SolutionHistory]]:
+        """The kept solutions of every set-up in use (they start the next solves, so a saved
+        state holds them to continue bit for bit): (0 for the equilibrium set-up, else
+        the step length h in s; the history), in a fixed order."""
+        out = []
+        owners = [(0.0, self.equilibrium_solver), *self._step_solvers.items()]
+        for key, solver in owners:
+            history = self._histories.get(id(solver))
+            if history is not None and history.solutions:
+                out.append((float(key), history))
+        return out
+
+    def keep_solutions(self, key: float, solutions: np.ndarray, products: np.ndarray) -> None:
+        """Put back the kept solutions of :meth:`kept_solutions` (*key* as there; the step
+        set-up is built if needed), oldest first."""
+        solver = self.equilibrium_solver if key == 0.0 else self._step_solver(key)
+        history = self._history(solver)
+        for w, product in zip(solutions, products, strict=True):
+            history.add(np.array(w, dtype=np.float64), np.array(product, dtype=np.float64))
+
     def _solve(
         self,
         solver: FiniteDifferenceSolver,
         load: np.ndarray,
         start: np.ndarray | None,
-        earlier: list[tuple[np.ndarray, np.ndarray]] | None = None,
     ) -> np.ndarray:
-        w, info = solver.solve_full(load, start, tolerance=self.tolerance, earlier=earlier or ())
+        """One solve, started from the best combination of the solver's kept solutions
+        (or from *start* while there are none); the solution is kept."""
+        history = self._history(solver)
+        if history.solutions:
+            start = None
+        w, info = solver.solve_full(load, start, tolerance=self.tolerance, history=history)
         self.solves += 1
         self.iterations += int(info["iterations"])
         return w
@@ -375,8 +423,7 @@ class VariableRelaxation:
             if self.model == "half-space":  # the far part taken out (see _driving)
                 w = self._solve(self.equilibrium_solver, self._driving(load), start)
             else:  # started from the best combination of the last equilibria
-                earlier = [(w, self._embed(q)) for q, w in self._equilibria]
-                w = self._solve(self.equilibrium_solver, self._embed(load), start, earlier)
+                w = self._solve(self.equilibrium_solver, self._embed(load), start)
         self._equilibria.append((load.copy(), w))
         if len(self._equilibria) > _CACHED_EQUILIBRIA:
             self._equilibria.pop(0)
