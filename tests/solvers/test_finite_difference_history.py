@@ -98,6 +98,6 @@ def test_spectral_term_margin_preconditioner_is_spd_and_converges_fast() -> None
     blend.single = True
     load = _disc(solver.shape, (32, 30), 12, 910.0 * 9.81 * 2000.0)
     w, info = solver.solve_full(load)
-    assert info["iterations"] <= 12, info["iterations"]  # measured 11 (plain blend: 29)
+    assert info["iterations"] <= 12, info["iterations"]  # measured 10 (plain blend: 29)
     w_tight, _ = solver.solve_full(load, tolerance=1e-10)
     assert_allclose(w, w_tight, rtol=0, atol=1e-6 * float(np.abs(w_tight).max()))
