@@ -78,7 +78,7 @@ ENGINE_FIELDS: dict[type, tuple[frozenset[str], frozenset[str]]] = {
     VariableRelaxation: (
         frozenset(
             {"load", "state", "solves", "iterations", "_equilibria", "_velocity"}
-            | {"_step_solvers", "far"}
+            | {"_step_solvers", "far", "_histories"}
         ),
         frozenset(
             {"spec", "model", "interpolation", "viscosity", "relaxation_time"}
@@ -160,6 +160,14 @@ def engine_state(engine: Any) -> tuple[dict[str, Any], dict[str, Any]]:
             )
         steps = np.array(list(engine._step_solvers), dtype=np.float64)
         variables["engine_step_lengths"] = (("engine_step_lengths",), steps)
+        kept = engine.kept_solutions()
+        if kept:  # the solutions (and products) that start the next solves
+            owners = np.array([key for key, h in kept for _ in h.solutions], dtype=np.float64)
+            dims = ("engine_kept", "engine_solve_rows", "engine_solve_columns")
+            variables["engine_kept_owner"] = (("engine_kept",), owners)
+            for name in ("solutions", "products"):
+                stacked = np.stack([a for _, h in kept for a in getattr(h, name)])
+                variables[f"engine_kept_{name}"] = (dims, stacked)
     else:  # pragma: no cover - a new engine must be added here and to ENGINE_FIELDS
         raise TypeError(f"cannot save the state of a {type(engine).__name__}")
     if engine.far is not None:
@@ -211,6 +219,12 @@ def restore_engine(engine: Any, ds: xr.Dataset, path: Path) -> None:
         loads = np.asarray(ds["engine_equilibrium_loads"].values, dtype=np.float64)
         solutions = np.asarray(ds["engine_equilibrium_deflections"].values, dtype=np.float64)
         engine._equilibria = [(loads[i].copy(), solutions[i].copy()) for i in range(len(loads))]
+    if "engine_kept_owner" in ds.variables:
+        owners = np.asarray(ds["engine_kept_owner"].values, dtype=np.float64)
+        kept = [np.asarray(ds[f"engine_kept_{n}"].values) for n in ("solutions", "products")]
+        for key in dict.fromkeys(owners.tolist()):  # in saved order
+            mine = owners == key
+            engine.keep_solutions(key, kept[0][mine], kept[1][mine])
 
 
 def _restore_far(far: FarField | None, ds: xr.Dataset, path: Path) -> None:

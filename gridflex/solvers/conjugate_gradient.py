@@ -70,6 +70,10 @@ class Outcome:
         operator norm.
     at_round_off : bool
         The iteration stopped at the round-off limit, above the tolerance.
+    product : numpy.ndarray or None
+        K x as computed for the true residual at the end (b − K x = the final residual),
+        which a caller may keep to start later solves without another product; None
+        when b = 0.
     """
 
     x: np.ndarray
@@ -78,6 +82,7 @@ class Outcome:
     accuracy: float
     backward_error: float
     at_round_off: bool
+    product: np.ndarray | None = None
 
 
 Operator = Callable[[np.ndarray, np.ndarray], np.ndarray]
@@ -264,7 +269,10 @@ def conjugate_gradient(
     def finish(iteration: int, r_norm: float, accuracy: float, limit: bool) -> Outcome:
         if progress is not None:
             progress(iteration, iteration)  # done: the count reaches the total
-        return Outcome(v.x, iteration, r_norm / b_norm, accuracy, backward_error(r_norm), limit)
+        # every way out has just taken the true residual: v.q holds K x
+        return Outcome(
+            v.x, iteration, r_norm / b_norm, accuracy, backward_error(r_norm), limit, v.q
+        )
 
     if start is None:
         v.r[...] = rhs

@@ -14,7 +14,7 @@ import logging
 import math
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -55,10 +55,12 @@ __all__ = [
     "FiniteDifferenceSolver",
     "STEEP_FLEXURAL_PARAMETERS",
     "PlateOperator",
+    "SolutionHistory",
     "SpectralTerm",
     "area_weights",
     "corner_rigidity",
     "finite_difference_deflection",
+    "galerkin_coefficients",
     "pad_rigidity",
     "roundoff_residual",
 ]
@@ -453,6 +455,7 @@ class FiniteDifferenceSolver:
         tolerance: float | None = None,
         progress: Progress | None = None,
         earlier: Sequence[tuple[np.ndarray, np.ndarray]] = (),
+        history: SolutionHistory | None = None,
     ) -> tuple[np.ndarray, dict[str, Any]]:
         """Deflection (m) on the whole solve grid for a load (Pa) on it.
 
@@ -465,6 +468,10 @@ class FiniteDifferenceSolver:
         earlier : sequence of (deflection, load) pairs, optional
             Without *start*: earlier solutions of this solver (on the solve grid) whose
             best combination (:func:`combined_start`) is the first guess.
+        history : SolutionHistory, optional
+            Without *start*: earlier solutions of this solver with their products; their
+            best combination is the first guess (no operator product taken for it), and
+            the new solution is added to it.
         tolerance : float, optional
             Overrides :attr:`tolerance` for this solve.
         progress : callable, optional
@@ -483,12 +490,17 @@ class FiniteDifferenceSolver:
         operator, preconditioner = self.operator, self.preconditioner
         dy, dx = self.spacing
         rhs = operator.area * load
+        product = None
+        if start is None and history is not None:
+            combined = history.start(rhs)
+            if combined is not None:
+                start, product = combined
         if start is None and earlier:
             start = combined_start(
                 [w for w, _ in earlier], [operator.area * q for _, q in earlier], rhs
             )
         with single_threaded_blas():
-            first = preconditioner.initial_guess(rhs, start, self.apply)
+            first = preconditioner.initial_guess(rhs, start, self.apply, product)
             try:
                 outcome = conjugate_gradient(
                     self.apply,
@@ -510,6 +522,8 @@ class FiniteDifferenceSolver:
                     f"limits the relative residual to about {floor:.0e}"
                 ) from exc
         x = outcome.x
+        if history is not None and outcome.product is not None:
+            history.add(x.copy(), outcome.product)  # x goes to the caller
         total = float(np.abs(rhs).sum())
         imbalance = abs(operator.stiffness * float((operator.area * x).sum()) - float(rhs.sum()))
         info: dict[str, Any] = {
@@ -531,6 +545,18 @@ class FiniteDifferenceSolver:
         return x, info
 
 
+def galerkin_coefficients(gram: np.ndarray, projected: np.ndarray) -> np.ndarray | None:
+    """Coefficients c of the Galerkin combination Σ cᵢ wᵢ from the (symmetrised) matrix
+    wᵢ·K wⱼ and the projections wᵢ·b; directions with a relative eigenvalue below 1e-10 are
+    dropped (solutions the earlier ones barely distinguish). None when none is left."""
+    gram = 0.5 * (gram + gram.T)
+    values, vectors = np.linalg.eigh(gram)
+    keep = values > 1e-10 * max(float(values.max()), 0.0)
+    if not keep.any():
+        return None
+    return np.asarray(vectors[:, keep] @ ((vectors[:, keep].T @ projected) / values[keep]))
+
+
 def combined_start(
     solutions: Sequence[np.ndarray], loads: Sequence[np.ndarray], load: np.ndarray
 ) -> np.ndarray | None:
@@ -540,7 +566,8 @@ def combined_start(
     norm within the span of the wᵢ, with K wᵢ taken as *loads*ᵢ (the wᵢ were solved to a small
     residual), so it costs dot products only. For a load that changes smoothly through time
     (an ice history) the previous solutions span most of the next one. Directions the
-    earlier solutions barely distinguish (relative eigenvalue below 1e-10) are dropped.
+    earlier solutions barely distinguish (relative eigenvalue below 1e-10) are dropped
+    (:func:`galerkin_coefficients`).
 
     Parameters
     ----------
@@ -556,22 +583,71 @@ def combined_start(
     """
     if not solutions:
         return None
-    count = len(solutions)
-    gram = np.empty((count, count))
-    for i, w in enumerate(solutions):
-        for j, q in enumerate(loads):
-            gram[i, j] = dot(w, q)
-    gram = 0.5 * (gram + gram.T)
-    projected = np.array([dot(w, load) for w in solutions])
-    values, vectors = np.linalg.eigh(gram)
-    keep = values > 1e-10 * max(float(values.max()), 0.0)
-    if not keep.any():
+    gram = np.array([[dot(w, q) for q in loads] for w in solutions])
+    coefficients = galerkin_coefficients(gram, np.array([dot(w, load) for w in solutions]))
+    if coefficients is None:
         return None
-    coefficients = vectors[:, keep] @ ((vectors[:, keep].T @ projected) / values[keep])
     start = np.zeros(load.shape)
     for c, w in zip(coefficients, solutions):
         start += c * w
     return start
+
+
+@dataclass(eq=False)
+class SolutionHistory:
+    """The last few solutions of one :class:`FiniteDifferenceSolver` with their exact
+    products (K w as the solve computed it for its final true residual), for starts that
+    cost no operator product.
+
+    The start of a new solve is the Galerkin combination of the kept solutions (the best
+    in the energy norm within their span, :func:`galerkin_coefficients`), and its residual
+    is b − Σ cᵢ K wᵢ from the kept products. For a sequence of related solves (the stages
+    of time steps) the span holds any extrapolation in time from the kept solutions, so
+    the start is at least as good as such an extrapolation. The matrix wᵢ·K wⱼ is kept
+    and extended by one row per solution. Pass it to :meth:`FiniteDifferenceSolver.solve_full`
+    as ``history``; a history belongs to one solver (one operator).
+
+    Attributes
+    ----------
+    size : int
+        Solutions kept (the oldest is dropped).
+    """
+
+    size: int
+    solutions: list[np.ndarray] = field(default_factory=list)
+    products: list[np.ndarray] = field(default_factory=list)
+    _gram: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)), repr=False)
+
+    def add(self, solution: np.ndarray, product: np.ndarray) -> None:
+        """Keep *solution* and its product K *solution* (not copied: not to be modified)."""
+        if len(self.solutions) >= self.size:
+            self.solutions.pop(0)
+            self.products.pop(0)
+            self._gram = self._gram[1:, 1:]
+        row = np.array([dot(solution, q) for q in self.products])
+        count = len(self.solutions) + 1
+        gram = np.empty((count, count))
+        gram[:-1, :-1] = self._gram
+        gram[-1, :-1] = gram[:-1, -1] = row
+        gram[-1, -1] = dot(solution, product)
+        self._gram = gram
+        self.solutions.append(solution)
+        self.products.append(product)
+
+    def start(self, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+        """The start x₀ for the right-hand side *rhs* and its product K x₀; None when
+        nothing is kept or the kept solutions do not combine."""
+        if not self.solutions:
+            return None
+        projected = np.array([dot(w, rhs) for w in self.solutions])
+        coefficients = galerkin_coefficients(self._gram, projected)
+        if coefficients is None:
+            return None
+        x, product = np.zeros(rhs.shape), np.zeros(rhs.shape)
+        for c, w, k_w in zip(coefficients, self.solutions, self.products, strict=True):
+            x += c * w
+            product += c * k_w
+        return x, product
 
 
 def finite_difference_deflection(
