@@ -21,6 +21,10 @@ Cases (invented; rigidity ratios are te ratios cubed):
   hinge_network te 30 km with two te = 0 lines crossing each other across the grid and a
                 third of 400 km ending inside at both ends
   step_sharp    te 5 -> 50 km in one cell
+  te_map        a smooth random te map spanning 0-100 km (seeded; features of about
+                40 km, about a tenth of it te = 0, a tenth 100 km), tapered to te = 0
+                over the outer 50 km so that the margin of ``edges="infinite"`` stays
+                a few cells (a 100 km te at the edge would pad each side by 900 km)
 
 Measured (``--refine``, 2048 km domain, default tolerance; iterations at 256² / 512² /
 1024² / 2048², on a shared 2-core machine):
@@ -50,6 +54,7 @@ Usage::
     python tests/benchmarks/variable.py --sizes 256,512,1024,2048 --refine   # 2048 km domain
     python tests/benchmarks/variable.py --spsolve-max 600000 # spsolve up to that many unknowns
     python tests/benchmarks/variable.py --cholesky-max 3000000
+    python tests/benchmarks/variable.py --sizes 4096 --dx 0.25 --cases te_map
 """
 
 from __future__ import annotations
@@ -63,6 +68,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+import scipy.ndimage
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
@@ -87,6 +93,7 @@ ALL_CASES = (
     "margin_hinges",
     "hinge_network",
     "step_sharp",
+    "te_map",
 )
 E, NU, STIFFNESS = 1e11, 0.25, (3300.0 - 1030.0) * 9.81
 REFINE_DOMAIN = 2048e3
@@ -112,6 +119,13 @@ def make_case(name: str, n: int, dx: float) -> tuple[np.ndarray, np.ndarray]:
         te = 5e3 + 45e3 * 0.5 * (1 + np.tanh(xx / 40e3))
         te[_line(yy, -100e3, dx)] = 0.0
         te[_line(xx, -150e3, dx) & (yy > -300e3) & (yy < 200e3)] = 0.0
+    elif name == "te_map":
+        noise = np.random.default_rng(15).standard_normal((n, n))
+        field = scipy.ndimage.gaussian_filter(noise, 20e3 / dx, mode="wrap")
+        field = (field - field.mean()) / field.std()
+        te = 100e3 * np.clip(0.5 + field / 2.6, 0.0, 1.0)  # ±1.3 sigma: 0 and 100 km
+        edge = np.minimum(np.minimum(xx, -xx), np.minimum(yy, -yy)) + n * dx / 2
+        te *= np.clip(edge / 50e3, 0.0, 1.0)
     elif name == "weak_zone":
         te = np.full((n, n), 25e3)
         te[np.abs(xx - 100e3) < 10e3] = 0.5e3
@@ -230,6 +244,9 @@ def main() -> None:
         default=2_500_000,
         help="run the CHOLMOD Cholesky when the padded grid has at most this many unknowns",
     )
+    parser.add_argument(
+        "--dx", type=float, default=2.0, help="cell size (km) without --refine; default 2"
+    )
     parser.add_argument("--tolerance", type=float, default=DEFAULT_TOLERANCE)
     parser.add_argument(
         "--one", help=argparse.SUPPRESS
@@ -248,7 +265,7 @@ def main() -> None:
         f"{'vs direct':>9} {'band':>7} {'MB fd':>6} {'MB all':>6}"
     )
     for n in map(int, args.sizes.split(",")):
-        dx = REFINE_DOMAIN / n if args.refine else 2e3
+        dx = REFINE_DOMAIN / n if args.refine else 1e3 * args.dx
         for name in args.cases.split(","):
             child = subprocess.run(
                 [
