@@ -78,7 +78,7 @@ in a 25 km plate (the former default 11 km, 0.16 of the stiff flexural parameter
 (band 45 k / 52 k / 59 k nodes, solve 15.6 / 10.1 / 7.4 s); at 1.0 the weak zone 8 (band
 27 k), a network of crossing and ending hinges 9 (65 k), a sharp te 5 -> 50 km step 10 (48 k);
 at 0.5 they took 18, 20 and (at 1024²) 14. The wider band costs set-up time (the LU of the
-band) but saves more in iterations, up to the band caps (:data:`MAX_FACTOR_BYTES`,
+band) but saves more in iterations, up to the band caps (:func:`factor_budget`,
 ``max_band_nodes``)."""
 
 MAX_FACTOR_BYTES = 6.0 * 2**30

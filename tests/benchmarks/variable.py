@@ -41,9 +41,42 @@ Measured (``--refine``, 2048 km domain, default tolerance; iterations at 256² /
   smooth          20 / - / - / -        20 / 20 / 20 / -          (no band)
   ==============  ====================  ========================  =====================
 
-At 2048² the bands meet the LU memory cap and shrink, so the iterations grow there (the
-margin with hinges 18 -> 34); a coarse correction, not a wider band, is what would keep
-them flat beyond (not tried). CHOLMOD at 1024² (same process, after the solve): weak_zone
+At 2048² the bands met the fixed 1.5 GiB LU memory cap of the time and shrank, so the
+iterations grew there (the margin with hinges 18 -> 34). With the cap set from the memory
+left (:func:`gridflex.solvers.rigidity_features.factor_budget`, at most 6 GiB), measured
+at 2048² on a 2-core machine loaded by other jobs (load average 5-10, so the times are
+rough; iterations are exact), before -> after:
+
+  ==============  ===========  ===================  ======================  ==========
+  case            iterations   band nodes           set-up / solve (s)      peak MB
+  ==============  ===========  ===================  ======================  ==========
+  margin_hinges   34 -> 18     611 k -> 943 k       45 / 248 -> 221 / 142   2857 -> 3875
+  hinge_network   23 -> 10     568 k -> 989 k       78 / 144 -> 193 / 102   2427 -> 3612
+  step_sharp      14 -> 11     419 k -> 744 k       131 / 121 -> 282 / 71   2731 -> 3665
+  weak_zone       9            437 k (never capped)  147 / 78               2473
+  ==============  ===========  ===================  ======================  ==========
+
+So 256² / 512² / 1024² / 2048²: weak_zone 7 / 8 / 8 / 9, margin_hinges 17 / 17 / 18 / 18,
+hinge_network 7 / 9 / 10 / 10, step_sharp 9 / 10 / 10 / 11, smooth 20 / 20 / 20. The
+wider band's LU (SuperLU, one thread) costs set-up time: fewer iterations, a dearer
+set-up; a single solve at 2048² took longer in total, repeated solves of one set-up
+(histories, infill, fitting) gain.
+
+Tried and not kept: a coarse-grid correction, cubic B-splines on a coarse grid of spacing
+H (Galerkin operator Pᵀ K P from 81 coloured probe products, factorised by SuperLU), as
+deflation (A-DEF2, Tang, Nabben, Vuik & Erlangga 2009, J. Sci. Comput. 39), balancing
+(BNN) or additive combination with the band and blend. On the margin with hinges at 512²
+(4 km cells): 17 iterations -> 9 (H = 16 or 32 km, deflation or balancing), 10 (64 km),
+11 (128 km); additive 16-19. At 1024²: 18 -> 10 (32 km), 12 (128 km). But each deflated
+iteration costs about twice as much (a second operator product, and the first band solve
+is no longer skipped since the coarse step leaves a residual on the band), and the
+probes cost 81 operator products (7-67 s here), so a solve was slower at 512² and 1024²
+(1024²: 48-56 s against 20 s). A smooth coarse space does not stand in for the band's
+stiff-side width either: with the band narrowed to 0.5 / 0.25 stiff flexural parameters,
+30 -> 19-23 and 41 -> 28-34 iterations at 512² (the slow modes bend at the hinges, which
+a smooth spline cannot).
+
+CHOLMOD at 1024² (same process, after the solve): weak_zone
 1055 s against 6.0 s (176 times), hinge_network 361 s against 8.0 s (45 times); largest
 difference 3.7e-9 and 9.5e-10 of the peak; peak memory 4.3 and 4.0 GB against 0.6 and
 0.9 GB.
