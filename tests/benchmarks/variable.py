@@ -62,6 +62,17 @@ wider band's LU (SuperLU, one thread) costs set-up time: fewer iterations, a dea
 set-up; a single solve at 2048² took longer in total, repeated solves of one set-up
 (histories, infill, fitting) gain.
 
+te_map (0-100 km with te = 0 patches; not yet robust): at 256² of 4 km cells 28 iterations,
+largest difference from spsolve 1.0e-8 of the peak, but the band holds 71 k of the 90 k
+nodes (it is nearly a direct solve); with the band switched off (max_band_nodes=0) the
+blend alone does not converge in 300 iterations at 256² of 4 km or of 1 km cells (error
+estimate 0.03-0.15, ConvergenceError). At 4096² of 250 m cells (solve grid 4320²) the set-up
+took 60 s (band capped at 962 k nodes, 9.5 km wide; 8 blend levels; peak 5.2 GB) and the run
+was stopped after some minutes of iterating, without a result: the 4096² target is not
+shown. Under a data-size limit of 7.6 GB (ulimit -d) the same run failed with MemoryError
+allocating the CG vectors after set-up (the grid estimate counts one array per blend level
+for two or three levels, not eight).
+
 Tried and not kept: a coarse-grid correction, cubic B-splines on a coarse grid of spacing
 H (Galerkin operator Pᵀ K P from 81 coloured probe products, factorised by SuperLU), as
 deflation (A-DEF2, Tang, Nabben, Vuik & Erlangga 2009, J. Sci. Comput. 39), balancing
