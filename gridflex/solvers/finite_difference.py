@@ -36,6 +36,7 @@ from gridflex.solvers.rigidity_features import (
     BAND_FLEXURAL_PARAMETERS,
     BREAK_FLEXURAL_PARAMETERS,
     STEEP_FLEXURAL_PARAMETERS,
+    factor_budget,
     find_sharp_features,
     sharp_band,
 )
@@ -87,7 +88,7 @@ DEFAULT_MAX_BAND_NODES = 1_000_000
 (:data:`~gridflex.solvers.rigidity_features.BAND_SHRINK`); if even the sharp nodes alone
 do not fit, the solve runs with the blend alone (more iterations). Raised from 400 k with
 the wider bands of :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`;
-the LU memory cap (:data:`~gridflex.solvers.rigidity_features.MAX_FACTOR_BYTES`) usually
+the LU memory cap (:func:`~gridflex.solvers.rigidity_features.factor_budget`) usually
 binds first."""
 
 
@@ -188,6 +189,15 @@ def _check_arguments(
     check_number("pad_factor", pad_factor, minimum=0.0)
 
 
+GRID_ARRAYS = 22
+"""Float64 grids of the solve grid's shape a solve holds at its peak, band factors apart."""
+
+
+def _grid_bytes(shape: tuple[int, int]) -> float:
+    """Memory (bytes) of the solve's grid arrays (:data:`GRID_ARRAYS`)."""
+    return 8.0 * shape[0] * shape[1] * GRID_ARRAYS
+
+
 def _solve_rigidity(
     spec: GridSpec,
     rigidity: np.ndarray,
@@ -208,13 +218,14 @@ def _solve_rigidity(
         shape = _infinite_shape(spec, rigidity, pad_stiffness, pad_factor, min_margin)
     else:
         shape = spec.shape
-    n = shape[0] * shape[1]
     # in float64 grids: rigidity, area, bending and twist weights (4), load and right-hand
     # side (2), CG vectors (6), blend weights and spectra (1 per level), local term (1),
     # set-up temporaries (3), double-precision spectra after a restart (1 per level):
     # measured peak 17-19 with tracemalloc on tests/benchmarks/variable.py at 1024²; the band's
-    # LU factors are capped apart (MAX_FACTOR_BYTES)
-    check_memory(8.0 * n * 22, f"finite-difference solve on a grid of {shape[0]} x {shape[1]}")
+    # LU factors are capped apart (factor_budget)
+    check_memory(
+        _grid_bytes(shape), f"finite-difference solve on a grid of {shape[0]} x {shape[1]}"
+    )
     if edges != "infinite":
         axis_edges = edges if isinstance(edges, tuple) else (edges, edges)
         return rigidity, axis_edges
@@ -236,7 +247,12 @@ def _preconditioner(
         if band_width is None:  # each sharp node's own width (SharpFeatures.widths)
             band_width, widths = features.band_width, features.widths
         nodes, width_used, _ = sharp_band(
-            operator, float(band_width), int(max_band_nodes), features.nodes, widths
+            operator,
+            float(band_width),
+            int(max_band_nodes),
+            features.nodes,
+            widths,
+            factor_budget(_grid_bytes(operator.shape)),
         )
     else:
         nodes, width_used = np.zeros(0, dtype=np.int64), 0.0

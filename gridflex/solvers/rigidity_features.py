@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.ndimage
 
+from gridflex.memory import available_memory
 from gridflex.solvers.plate_operator import PlateOperator
 
 __all__ = [
@@ -22,12 +23,14 @@ __all__ = [
     "BAND_SHRINK",
     "BREAK_FLEXURAL_PARAMETERS",
     "FACTOR_BYTES_PER_NODE_CELL",
+    "FACTOR_MEMORY_SHARE",
     "MAX_FACTOR_BYTES",
     "SHARP_RATIO",
     "STEEP_FLEXURAL_PARAMETERS",
     "STEEP_WINDOW",
     "STIFF_SIDE_FLEXURAL_PARAMETERS",
     "SharpFeatures",
+    "factor_budget",
     "find_sharp_features",
     "sharp_band",
 ]
@@ -75,11 +78,44 @@ in a 25 km plate (the former default 11 km, 0.16 of the stiff flexural parameter
 (band 45 k / 52 k / 59 k nodes, solve 15.6 / 10.1 / 7.4 s); at 1.0 the weak zone 8 (band
 27 k), a network of crossing and ending hinges 9 (65 k), a sharp te 5 -> 50 km step 10 (48 k);
 at 0.5 they took 18, 20 and (at 1024²) 14. The wider band costs set-up time (the LU of the
-band) but saves more in iterations, up to the band caps (:data:`MAX_FACTOR_BYTES`,
+band) but saves more in iterations, up to the band caps (:func:`factor_budget`,
 ``max_band_nodes``)."""
 
-MAX_FACTOR_BYTES = 1.5 * 2**30
-"""Cap on the estimated memory of the band's LU factors (bytes)."""
+MAX_FACTOR_BYTES = 6.0 * 2**30
+"""Largest estimated memory of the band's LU factors (bytes); below it the cap is
+:data:`FACTOR_MEMORY_SHARE` of the memory left once the grid arrays are counted
+(:func:`factor_budget`). Raised from a fixed 1.5 GiB: at 2048² of 1 km cells
+(tests/benchmarks/variable.py --refine) that cap shrank the bands of the margin crossed by
+hinges (943 k -> 611 k nodes), the hinge network (989 k -> 568 k) and the sharp step
+(744 k -> 419 k); all three fit under 6 GiB with their full width."""
+
+FACTOR_MEMORY_SHARE = 0.5
+"""Share of the memory still available (after the grid arrays) that the band's LU factors
+may take (the factorisation itself needs working memory on top of its factors)."""
+
+
+def factor_budget(other_bytes: float) -> float:
+    """Cap (bytes) on the estimated memory of the band's LU factors.
+
+    :data:`FACTOR_MEMORY_SHARE` of the memory this process may still use
+    (:func:`gridflex.memory.available_memory`) once *other_bytes* (the solve's grid arrays)
+    are set aside, at most :data:`MAX_FACTOR_BYTES`. The band, and so the iteration count,
+    can therefore depend on the memory free when the solve is set up; the band actually
+    used is recorded (``band_nodes``, ``band_width``).
+
+    Parameters
+    ----------
+    other_bytes : float
+        Memory (bytes) the rest of the solve will hold.
+
+    Returns
+    -------
+    float
+        The cap (bytes), >= 0.
+    """
+    room = float(available_memory()) - float(other_bytes)
+    return max(0.0, min(MAX_FACTOR_BYTES, FACTOR_MEMORY_SHARE * room))
+
 
 FACTOR_BYTES_PER_NODE_CELL = 25.0
 """Estimated LU factor memory per band node and per node across the band (bytes), with the
@@ -223,6 +259,7 @@ def sharp_band(
     max_nodes: int,
     sharp: np.ndarray | None = None,
     widths: np.ndarray | None = None,
+    max_factor_bytes: float = MAX_FACTOR_BYTES,
 ) -> tuple[np.ndarray, float, np.ndarray]:
     """Nodes within *width* (m) of a sharp feature; the width shrinks to respect *max_nodes*.
 
@@ -235,7 +272,7 @@ def sharp_band(
     max_nodes : int
         Cap on the band size. The width shrinks (:data:`BAND_SHRINK`) until the band fits,
         in nodes and in the
-        estimated memory of its LU factors (:data:`MAX_FACTOR_BYTES`), down to one
+        estimated memory of its LU factors (*max_factor_bytes*), down to one
         spacing; if even that does not fit, the band is empty and the blend works alone.
     sharp : numpy.ndarray of bool, optional
         The sharp nodes if already found (:func:`find_sharp_features`).
@@ -243,6 +280,9 @@ def sharp_band(
         A width (m) per sharp node (:attr:`SharpFeatures.widths`): a node joins the band
         when it lies within the width of its nearest sharp node (all scaled down
         together by the cap); *width* alone by default.
+    max_factor_bytes : float, default :data:`MAX_FACTOR_BYTES`
+        Cap on the estimated memory (bytes) of the band's LU factors
+        (:data:`FACTOR_BYTES_PER_NODE_CELL`); see :func:`factor_budget`.
 
     Returns
     -------
@@ -283,7 +323,7 @@ def sharp_band(
         if widths is not None and count:
             across = float(reach[band].mean()) * width / largest
         factor_bytes = FACTOR_BYTES_PER_NODE_CELL * count * (2.0 * across / spacing + 1.0)
-        if count <= max_nodes and factor_bytes <= MAX_FACTOR_BYTES:
+        if count <= max_nodes and factor_bytes <= max_factor_bytes:
             return np.flatnonzero(band), width, sharp
         if width <= minimum:
             break
@@ -294,6 +334,6 @@ def sharp_band(
         count,
         factor_bytes / 2**30,
         max_nodes,
-        MAX_FACTOR_BYTES / 2**30,
+        max_factor_bytes / 2**30,
     )
     return np.zeros(0, dtype=np.int64), 0.0, sharp

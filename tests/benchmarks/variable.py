@@ -21,6 +21,10 @@ Cases (invented; rigidity ratios are te ratios cubed):
   hinge_network te 30 km with two te = 0 lines crossing each other across the grid and a
                 third of 400 km ending inside at both ends
   step_sharp    te 5 -> 50 km in one cell
+  te_map        a smooth random te map spanning 0-100 km (seeded; features of about
+                40 km, about a tenth of it te = 0, a tenth 100 km), tapered to te = 0
+                over the outer 50 km so that the margin of ``edges="infinite"`` stays
+                a few cells (a 100 km te at the edge would pad each side by 900 km)
 
 Measured (``--refine``, 2048 km domain, default tolerance; iterations at 256² / 512² /
 1024² / 2048², on a shared 2-core machine):
@@ -37,9 +41,53 @@ Measured (``--refine``, 2048 km domain, default tolerance; iterations at 256² /
   smooth          20 / - / - / -        20 / 20 / 20 / -          (no band)
   ==============  ====================  ========================  =====================
 
-At 2048² the bands meet the LU memory cap and shrink, so the iterations grow there (the
-margin with hinges 18 -> 34); a coarse correction, not a wider band, is what would keep
-them flat beyond (not tried). CHOLMOD at 1024² (same process, after the solve): weak_zone
+At 2048² the bands met the fixed 1.5 GiB LU memory cap of the time and shrank, so the
+iterations grew there (the margin with hinges 18 -> 34). With the cap set from the memory
+left (:func:`gridflex.solvers.rigidity_features.factor_budget`, at most 6 GiB), measured
+at 2048² on a 2-core machine loaded by other jobs (load average 5-10, so the times are
+rough; iterations are exact), before -> after:
+
+  ==============  ===========  ===================  ======================  ==========
+  case            iterations   band nodes           set-up / solve (s)      peak MB
+  ==============  ===========  ===================  ======================  ==========
+  margin_hinges   34 -> 18     611 k -> 943 k       45 / 248 -> 221 / 142   2857 -> 3875
+  hinge_network   23 -> 10     568 k -> 989 k       78 / 144 -> 193 / 102   2427 -> 3612
+  step_sharp      14 -> 11     419 k -> 744 k       131 / 121 -> 282 / 71   2731 -> 3665
+  weak_zone       9            437 k (never capped)  147 / 78               2473
+  ==============  ===========  ===================  ======================  ==========
+
+So 256² / 512² / 1024² / 2048²: weak_zone 7 / 8 / 8 / 9, margin_hinges 17 / 17 / 18 / 18,
+hinge_network 7 / 9 / 10 / 10, step_sharp 9 / 10 / 10 / 11, smooth 20 / 20 / 20. The
+wider band's LU (SuperLU, one thread) costs set-up time: fewer iterations, a dearer
+set-up; a single solve at 2048² took longer in total, repeated solves of one set-up
+(histories, infill, fitting) gain.
+
+te_map (0-100 km with te = 0 patches; not yet robust): at 256² of 4 km cells 28 iterations,
+largest difference from spsolve 1.0e-8 of the peak, but the band holds 71 k of the 90 k
+nodes (it is nearly a direct solve); with the band switched off (max_band_nodes=0) the
+blend alone does not converge in 300 iterations at 256² of 4 km or of 1 km cells (error
+estimate 0.03-0.15, ConvergenceError). At 4096² of 250 m cells (solve grid 4320²) the set-up
+took 60 s (band capped at 962 k nodes, 9.5 km wide; 8 blend levels; peak 5.2 GB) and the run
+was stopped after some minutes of iterating, without a result: the 4096² target is not
+shown. Under a data-size limit of 7.6 GB (ulimit -d) the same run failed with MemoryError
+allocating the CG vectors after set-up (the grid estimate counts one array per blend level
+for two or three levels, not eight).
+
+Tried and not kept: a coarse-grid correction, cubic B-splines on a coarse grid of spacing
+H (Galerkin operator Pᵀ K P from 81 coloured probe products, factorised by SuperLU), as
+deflation (A-DEF2, Tang, Nabben, Vuik & Erlangga 2009, J. Sci. Comput. 39), balancing
+(BNN) or additive combination with the band and blend. On the margin with hinges at 512²
+(4 km cells): 17 iterations -> 9 (H = 16 or 32 km, deflation or balancing), 10 (64 km),
+11 (128 km); additive 16-19. At 1024²: 18 -> 10 (32 km), 12 (128 km). But each deflated
+iteration costs about twice as much (a second operator product, and the first band solve
+is no longer skipped since the coarse step leaves a residual on the band), and the
+probes cost 81 operator products (7-67 s here), so a solve was slower at 512² and 1024²
+(1024²: 48-56 s against 20 s). A smooth coarse space does not stand in for the band's
+stiff-side width either: with the band narrowed to 0.5 / 0.25 stiff flexural parameters,
+30 -> 19-23 and 41 -> 28-34 iterations at 512² (the slow modes bend at the hinges, which
+a smooth spline cannot).
+
+CHOLMOD at 1024² (same process, after the solve): weak_zone
 1055 s against 6.0 s (176 times), hinge_network 361 s against 8.0 s (45 times); largest
 difference 3.7e-9 and 9.5e-10 of the peak; peak memory 4.3 and 4.0 GB against 0.6 and
 0.9 GB.
@@ -50,6 +98,7 @@ Usage::
     python tests/benchmarks/variable.py --sizes 256,512,1024,2048 --refine   # 2048 km domain
     python tests/benchmarks/variable.py --spsolve-max 600000 # spsolve up to that many unknowns
     python tests/benchmarks/variable.py --cholesky-max 3000000
+    python tests/benchmarks/variable.py --sizes 4096 --dx 0.25 --cases te_map
 """
 
 from __future__ import annotations
@@ -63,6 +112,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+import scipy.ndimage
 
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
@@ -87,6 +137,7 @@ ALL_CASES = (
     "margin_hinges",
     "hinge_network",
     "step_sharp",
+    "te_map",
 )
 E, NU, STIFFNESS = 1e11, 0.25, (3300.0 - 1030.0) * 9.81
 REFINE_DOMAIN = 2048e3
@@ -112,6 +163,13 @@ def make_case(name: str, n: int, dx: float) -> tuple[np.ndarray, np.ndarray]:
         te = 5e3 + 45e3 * 0.5 * (1 + np.tanh(xx / 40e3))
         te[_line(yy, -100e3, dx)] = 0.0
         te[_line(xx, -150e3, dx) & (yy > -300e3) & (yy < 200e3)] = 0.0
+    elif name == "te_map":
+        noise = np.random.default_rng(15).standard_normal((n, n))
+        field = scipy.ndimage.gaussian_filter(noise, 20e3 / dx, mode="wrap")
+        field = (field - field.mean()) / field.std()
+        te = 100e3 * np.clip(0.5 + field / 2.6, 0.0, 1.0)  # ±1.3 sigma: 0 and 100 km
+        edge = np.minimum(np.minimum(xx, -xx), np.minimum(yy, -yy)) + n * dx / 2
+        te *= np.clip(edge / 50e3, 0.0, 1.0)
     elif name == "weak_zone":
         te = np.full((n, n), 25e3)
         te[np.abs(xx - 100e3) < 10e3] = 0.5e3
@@ -230,6 +288,9 @@ def main() -> None:
         default=2_500_000,
         help="run the CHOLMOD Cholesky when the padded grid has at most this many unknowns",
     )
+    parser.add_argument(
+        "--dx", type=float, default=2.0, help="cell size (km) without --refine; default 2"
+    )
     parser.add_argument("--tolerance", type=float, default=DEFAULT_TOLERANCE)
     parser.add_argument(
         "--one", help=argparse.SUPPRESS
@@ -248,7 +309,7 @@ def main() -> None:
         f"{'vs direct':>9} {'band':>7} {'MB fd':>6} {'MB all':>6}"
     )
     for n in map(int, args.sizes.split(",")):
-        dx = REFINE_DOMAIN / n if args.refine else 2e3
+        dx = REFINE_DOMAIN / n if args.refine else 1e3 * args.dx
         for name in args.cases.split(","):
             child = subprocess.run(
                 [

@@ -5,11 +5,17 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from gridflex.memory import available_memory
 from gridflex.solvers.plate_operator import PlateOperator
 from gridflex.solvers.rigidity_features import (
     BAND_FLEXURAL_PARAMETERS,
+    BAND_SHRINK,
     BREAK_FLEXURAL_PARAMETERS,
+    FACTOR_BYTES_PER_NODE_CELL,
+    FACTOR_MEMORY_SHARE,
+    MAX_FACTOR_BYTES,
     STIFF_SIDE_FLEXURAL_PARAMETERS,
+    factor_budget,
     find_sharp_features,
     sharp_band,
 )
@@ -69,3 +75,37 @@ def test_band_follows_each_sharp_node_own_width():
     for row in (0, n // 2):  # stiffest and weakest rows
         reach = factor * (4 * rigidity[row, 31] / STIFFNESS) ** 0.25 / h
         assert np.flatnonzero(band[row]).max() - 30 == pytest.approx(reach, abs=1.5)
+
+
+def test_band_shrinks_to_its_factor_memory_cap():
+    # common practice (the cap rule of sharp_band): under a factor-memory cap below the
+    # estimate of the full band, the width shrinks by BAND_SHRINK steps until the estimate
+    # FACTOR_BYTES_PER_NODE_CELL x nodes x (2 width / h + 1) fits; a cap of zero drops it
+    n, h = 128, 2000.0
+    hinge = np.full((n, n), 1e24)
+    hinge[:, 60] = 0.0
+    op = PlateOperator.build(hinge, STIFFNESS, NU, h, h)
+    features = find_sharp_features(op)
+    full, full_width, _ = sharp_band(op, features.band_width, 10**6, features.nodes)
+    full_bytes = FACTOR_BYTES_PER_NODE_CELL * full.size * (2 * full_width / h + 1)
+    cap = 0.5 * full_bytes
+    nodes, width, _ = sharp_band(op, features.band_width, 10**6, features.nodes, None, cap)
+    steps = np.log(width / full_width) / np.log(BAND_SHRINK)
+    assert steps == pytest.approx(round(steps), abs=1e-9) and steps >= 1
+    assert width < full_width and 0 < nodes.size < full.size
+    assert FACTOR_BYTES_PER_NODE_CELL * nodes.size * (2 * width / h + 1) <= cap
+    none, zero_width, _ = sharp_band(op, features.band_width, 10**6, features.nodes, None, 0.0)
+    assert none.size == 0 and zero_width == 0.0
+
+
+def test_factor_budget_is_a_share_of_the_memory_left():
+    # common practice: the cap is FACTOR_MEMORY_SHARE of the memory left after the grid
+    # arrays, at most MAX_FACTOR_BYTES, and zero when the grids alone take it all
+    assert factor_budget(1e18) == 0.0
+    before = float(available_memory())
+    budget = factor_budget(0.25 * before)
+    after = float(available_memory())
+    assert 0.0 < budget <= MAX_FACTOR_BYTES
+    # (free memory moves while other processes run: bracket it by the readings around)
+    low, high = sorted(FACTOR_MEMORY_SHARE * (free - 0.25 * before) for free in (before, after))
+    assert min(MAX_FACTOR_BYTES, 0.95 * low) <= budget <= min(MAX_FACTOR_BYTES, 1.05 * high)
