@@ -190,7 +190,9 @@ def _check_arguments(
 
 
 GRID_ARRAYS = 22
-"""Float64 grids of the solve grid's shape a solve holds at its peak, band factors apart."""
+"""Float64 grids of the solve grid's shape a solve holds at its peak, band factors apart, with
+up to :data:`~gridflex.solvers.preconditioners.LEVELS_COUNTED` blend levels (more are checked
+when the preconditioner is built)."""
 
 
 def _grid_bytes(shape: tuple[int, int]) -> float:

@@ -27,6 +27,7 @@ import scipy.fft
 import scipy.ndimage
 import scipy.sparse.linalg as spla
 
+from gridflex.memory import check_memory
 from gridflex.solvers.fft_buffers import BlockedSpectralFilter
 from gridflex.solvers.plate_operator import PlateOperator
 from gridflex.solvers.row_blocks import block_rows, dot, for_row_blocks, thread_count
@@ -49,6 +50,10 @@ margin (tests/benchmarks/variable.py, Te 6 -> 60 km, tanh of half-width 80 km, 2
 4 km), iterations to a true relative residual of 1e-8: without :data:`RIGIDITY_SCALING`
 2 levels 84, 3 levels (ratio 31.6) 34, 4 levels 51; with the scaling 2 levels 24, 3 levels 28.
 Two levels also mean one FFT pair less per iteration."""
+
+LEVELS_COUNTED = 3
+"""Blend levels the finite-difference solve's first memory check counts
+(:data:`gridflex.solvers.finite_difference.GRID_ARRAYS`); more are checked when known."""
 
 RIGIDITY_SCALING = (0.25, 0.65)
 """Exponent p of the diagonal scaling (D_l / D)^(p/2) applied to each level's weight, D the
@@ -321,6 +326,16 @@ class BlendPreconditioner:
         lo = math.log(float(np.min(rigidity, where=acting, initial=np.inf)))
         hi = math.log(float(np.max(rigidity, where=acting, initial=0.0)))
         count = 1 + math.ceil((hi - lo) / math.log(LEVEL_SPACING) - 1e-6) if hi > lo else 1
+        if count > LEVELS_COUNTED:
+            # the solve's memory check counted LEVELS_COUNTED levels (two float64 grids
+            # each: weights and spectra, and the double-precision transfers of a restart)
+            check_memory(
+                16.0 * (count - LEVELS_COUNTED) * fft_shape[0] * fft_shape[1],
+                f"{count} blend levels of the finite-difference preconditioner (rigidity "
+                f"from {math.exp(lo):.3g} to {math.exp(hi):.3g} N m) on "
+                f"{fft_shape[0]} x {fft_shape[1]} nodes",
+                advice="use fewer or coarser cells, or a te map with a smaller range",
+            )
         if count > 1:
             levels = np.exp(np.linspace(lo, hi, count))
         else:
