@@ -554,7 +554,7 @@ class ResponseStepper:
             out["pad_width_factor"] = self.width_factor
             if getattr(engine, "far", None) is not None:
                 out["long_wavelengths"] = (
-                    "net force and first moment of the load relaxed on the infinite plane"
+                    "net force, first and second moments of the load relaxed on the infinite plane"
                 )
         else:
             out["relaxation_time"] = self.relaxation_time

@@ -42,8 +42,8 @@ w and q are positive down, times in seconds.
   about its equilibrium from step to step. SDIRK2 at two solves per step is as accurate
   per solve as SDIRK3 at these steps and keeps the sub-step rule simple.
 
-Longest wavelengths (half-space with a margin): as in the spectral code, the net force and
-first moment of the load relax on the infinite plane (:mod:`gridflex.solvers.far_field`,
+Longest wavelengths (half-space with a margin): as in the spectral code, the net force,
+first and second moments of the load relax on the infinite plane (:mod:`gridflex.solvers.far_field`,
 here over a half-space without plate, beta = Δρ g), so the solve grid's k = 0 mode no
 longer makes the whole grid follow the net load at once. The grid carries the rest of the
 load plus Δρ g w_far − K w_far / a, the part of the plate's operator the far field leaves
@@ -71,7 +71,7 @@ import scipy.fft
 from gridflex.errors import InputError
 from gridflex.grid import GridSpec, wavenumbers_squared
 from gridflex.memory import check_memory
-from gridflex.solvers.far_field import FarField
+from gridflex.solvers.far_field import MOMENTS, FarField
 from gridflex.solvers.finite_difference import (
     DEFAULT_MAX_ITERATIONS,
     FiniteDifferenceSolver,
@@ -287,10 +287,11 @@ class VariableRelaxation:
         equilibrium = _build_solver(settings)
         n = equilibrium.shape[0] * equilibrium.shape[1]
         # the step set-ups (about 22 grids each, as the solver counts, and two per kept
-        # solution) and the state, stage values and products of the half-space (8 grids)
+        # solution), the state, stage values and products of the half-space (8 grids) and
+        # the far field's loads (one grid per moment)
         if model == "half-space":
             check_memory(
-                8.0 * n * ((22 + 2 * _STAGE_HISTORY) * _CACHE_STEPS + 8),
+                8.0 * n * ((22 + 2 * _STAGE_HISTORY) * _CACHE_STEPS + 8 + MOMENTS),
                 f"half-space time steps on a solve grid of {equilibrium.shape}",
             )
         max_substep = math.inf
@@ -301,7 +302,7 @@ class VariableRelaxation:
         state_shape = equilibrium.shape if model == "half-space" else spec.shape
         far, far_grid, far_basis = None, None, None
         if model == "half-space" and not periodic:
-            # the net force and first moment relax on the infinite plane over a half-space
+            # the net force, first and second moments relax on the infinite plane over a half-space
             # without plate (beta = Δρ g); the grid carries the rest plus the plate's
             # bending of that far field (see _driving)
             shape = equilibrium.shape
@@ -348,7 +349,7 @@ class VariableRelaxation:
 
     def _driving(self, load: np.ndarray, modes: np.ndarray | None = None) -> np.ndarray:
         """The load (Pa) on the solve grid that drives the grid's part of the deflection:
-        *load* embedded, less its far part (net force and first moment, carried by
+        *load* embedded, less its far part (net force, first and second moments, carried by
         :attr:`far`), plus Δρ g w_far − K w_far / a for the far field w_far of the radial
         *modes* (the plate's bending of it, which the far part leaves out)."""
         full = self._embed(load)

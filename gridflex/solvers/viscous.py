@@ -24,8 +24,8 @@ phi = tau (1 − E) / dt:
 (the second is the exact solution of the linear ODE for a load linear in time).
 At k = 0 the half-space has tau = 0 and the longest wavelengths relax fastest, which a
 periodic grid cannot represent (its k = 0 mode would make the whole padded domain follow
-the mean load at once). With padding (``periodic=False``) the net force and first moment
-of the load are therefore taken out of the spectrum and their response is computed on
+the mean load at once). With padding (``periodic=False``) the net force, first and second
+moments of the load are therefore taken out of the spectrum and their response is computed on
 the infinite plane (:mod:`gridflex.solvers.far_field`); the periodic part then has no
 k = 0 mode at all. A periodic domain keeps the periodic answer (its mean sinks at once).
 
@@ -323,7 +323,7 @@ class SpectralRelaxation:
 
     # -- state --------------------------------------------------------------------
     def _spectrum(self, load: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
-        """The load's spectrum, without its net force and first moment when the far
+        """The load's spectrum, without its net force, first and second moments when the far
         field is split off (returned as well then)."""
         values = np.asarray(load, dtype=np.float64)
         spectrum = self.forward(values)
