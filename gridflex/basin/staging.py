@@ -79,7 +79,7 @@ from gridflex.basin.stretching import Stretching
 from gridflex.constants import SEA_WATER_DENSITY
 from gridflex.errors import EdgeLoadWarning, InputError
 from gridflex.grid import check_grid, grid_values
-from gridflex.infill import Infill, solve_with_infill
+from gridflex.infill import Infill, InnerSolverCache, solve_with_infill
 from gridflex.io.provenance import provenance_attrs
 from gridflex.memory import check_memory
 from gridflex.plate import Plate
@@ -253,6 +253,9 @@ class StagedBasin:
         self.burial: list[np.ndarray] = []
         self.stretching = _rift_on_grid(stretching, plate, self.water_density, initial_surface)
         self._rift_cache: dict[float, np.ndarray] = {}
+        # the finite-difference set-up of a te grid, reused by the settling passes of a
+        # stage and by stages with the same te and fill
+        self._inner_cache = InnerSolverCache()
 
     # column -----------------------------------------------------------------
     def _layer_density(self, lith: Lithology) -> float:
@@ -371,6 +374,7 @@ class StagedBasin:
             pad_factor=options.pad_factor,
             tolerance=options.tolerance,
             max_iterations=options.max_iterations,
+            cache=self._inner_cache,
         )
         w = np.asarray(result["deflection"].values)
         fill = np.asarray(result["fill_sediment"].values)

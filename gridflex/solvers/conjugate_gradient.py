@@ -70,6 +70,9 @@ class Outcome:
         operator norm.
     at_round_off : bool
         The iteration stopped at the round-off limit, above the tolerance.
+    product : numpy.ndarray or None
+        K x, the product the true residual was taken from (a later solve started from
+        x, or from a combination of such x, can reuse it instead of applying K again).
     """
 
     x: np.ndarray
@@ -78,6 +81,7 @@ class Outcome:
     accuracy: float
     backward_error: float
     at_round_off: bool
+    product: np.ndarray | None = None
 
 
 Operator = Callable[[np.ndarray, np.ndarray], np.ndarray]
@@ -246,7 +250,7 @@ def conjugate_gradient(
     v = _Vectors(rhs)
     b_norm = math.sqrt(v.dot(rhs, rhs))
     if b_norm == 0.0:
-        return Outcome(np.zeros_like(rhs), 0, 0.0, 0.0, 0.0, False)
+        return Outcome(np.zeros_like(rhs), 0, 0.0, 0.0, 0.0, False, np.zeros_like(rhs))
     eps = float(np.finfo(np.float64).eps)
     delay = max(int(delay), 1)
 
@@ -262,9 +266,11 @@ def conjugate_gradient(
         return r_norm / (operator_norm * math.sqrt(v.dot(v.x, v.x)) + b_norm)
 
     def finish(iteration: int, r_norm: float, accuracy: float, limit: bool) -> Outcome:
+        # every way here passes through true_residual() last, which left K x in q
         if progress is not None:
             progress(iteration, iteration)  # done: the count reaches the total
-        return Outcome(v.x, iteration, r_norm / b_norm, accuracy, backward_error(r_norm), limit)
+        eta = backward_error(r_norm)
+        return Outcome(v.x, iteration, r_norm / b_norm, accuracy, eta, limit, v.q)
 
     if start is None:
         v.r[...] = rhs

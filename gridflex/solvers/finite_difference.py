@@ -453,6 +453,7 @@ class FiniteDifferenceSolver:
         tolerance: float | None = None,
         progress: Progress | None = None,
         earlier: Sequence[tuple[np.ndarray, np.ndarray]] = (),
+        start_product: np.ndarray | None = None,
     ) -> tuple[np.ndarray, dict[str, Any]]:
         """Deflection (m) on the whole solve grid for a load (Pa) on it.
 
@@ -469,12 +470,19 @@ class FiniteDifferenceSolver:
             Overrides :attr:`tolerance` for this solve.
         progress : callable, optional
             As in :func:`finite_difference_deflection`.
+        start_product : numpy.ndarray, shape :attr:`shape`, optional
+            K *start* (the area-weighted load, Pa), when known: the ``product`` of the
+            solve that returned *start*, or the same combination of such products as
+            *start* is of their deflections. Saves one product with K; a wrong one
+            costs accuracy of the start only, since the result is checked against its
+            true residual.
 
         Returns
         -------
         deflection : numpy.ndarray, shape :attr:`shape`
         info : dict
-            As in :func:`finite_difference_deflection`.
+            As in :func:`finite_difference_deflection`, and ``product``, K w on the solve
+            grid (area-weighted load, Pa), for a later *start_product*.
         """
         tol = self.tolerance if tolerance is None else float(tolerance)
         if not 0.0 < tol < 1.0:
@@ -483,12 +491,13 @@ class FiniteDifferenceSolver:
         operator, preconditioner = self.operator, self.preconditioner
         dy, dx = self.spacing
         rhs = operator.area * load
+        product = None if start is None else start_product
         if start is None and earlier:
             start = combined_start(
                 [w for w, _ in earlier], [operator.area * q for _, q in earlier], rhs
             )
         with single_threaded_blas():
-            first = preconditioner.initial_guess(rhs, start, self.apply)
+            first = preconditioner.initial_guess(rhs, start, self.apply, product)
             try:
                 outcome = conjugate_gradient(
                     self.apply,
@@ -527,6 +536,7 @@ class FiniteDifferenceSolver:
             "locally_compensated_load": float(((1.0 - operator.area) * load).sum() * dy * dx),
             "setup_seconds": self.setup_seconds,
             "solve_seconds": time.perf_counter() - began,
+            "product": outcome.product,
         }
         return x, info
 

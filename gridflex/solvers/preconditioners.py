@@ -544,6 +544,7 @@ class MultiplicativePreconditioner:
         rhs: np.ndarray,
         start: np.ndarray | None = None,
         apply: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
+        product: np.ndarray | None = None,
     ) -> tuple[np.ndarray, np.ndarray]:
         """A start x₀ and its residual b − K x₀, which is zero on the band (set exactly).
 
@@ -553,15 +554,19 @@ class MultiplicativePreconditioner:
         start is never worse than none, even for a load that has all but vanished; the
         "Hegedüs trick", Liesen & Strakoš 2013, "Krylov Subspace Methods", from memory),
         then corrected on the band by B (b − K x₀); its residual is taken with *apply*
-        (the full operator, :meth:`PlateOperator.apply` by default).
+        (the full operator, :meth:`PlateOperator.apply` by default), or from *product*,
+        K *start* when the caller already has it (it is not changed).
         """
         band = self.band
         x = np.zeros(rhs.shape)
         residual = rhs.copy()
         if start is not None:
             s = np.asarray(start, dtype=np.float64).reshape(rhs.shape)
-            product = np.empty(rhs.shape)
-            (self.operator.apply if apply is None else apply)(s, product)
+            if product is None:
+                product = np.empty(rhs.shape)
+                (self.operator.apply if apply is None else apply)(s, product)
+            else:
+                product = np.array(product, dtype=np.float64).reshape(rhs.shape)
             energy = dot(s, product)
             xi = dot(s, rhs) / energy if energy > 0 else 0.0
             if xi > 0:
