@@ -70,6 +70,7 @@ from gridflex.progress import Progress
 from gridflex.solvers.finite_difference import (
     DEFAULT_MAX_ITERATIONS,
     FiniteDifferenceSolver,
+    solve_shape,
 )
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 from gridflex.validation import check_choice, check_density, check_integer, check_number
@@ -459,11 +460,13 @@ def finite_difference_inner(
         Takes the set-up from it when it holds one for the same arguments, and keeps
         this one in it otherwise.
     """
+    rigidity = np.asarray(rigidity, dtype=np.float64)
     key = _SetupKey(
         spec,
-        np.asarray(rigidity, dtype=np.float64),
+        rigidity,
         float(stiffness),
-        float(min_stiffness),
+        # min_stiffness only sizes the margin: set-ups with the same solve grid are equal
+        solve_shape(spec, rigidity, min_stiffness, edges, pad_factor),
         float(poisson_ratio),
         edges,
         float(pad_factor),
@@ -500,7 +503,7 @@ class _SetupKey:
     spec: GridSpec
     rigidity: np.ndarray
     stiffness: float
-    min_stiffness: float
+    shape: tuple[int, int]
     poisson_ratio: float
     edges: str
     pad_factor: float
@@ -508,7 +511,7 @@ class _SetupKey:
 
     def same(self, other: _SetupKey) -> bool:
         """True when both describe the same set-up (the rigidity compared value by value)."""
-        scalars = ("spec", "stiffness", "min_stiffness", "poisson_ratio", "edges")
+        scalars = ("spec", "stiffness", "shape", "poisson_ratio", "edges")
         return (
             all(getattr(self, name) == getattr(other, name) for name in scalars)
             and self.pad_factor == other.pad_factor

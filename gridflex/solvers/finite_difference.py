@@ -61,6 +61,7 @@ __all__ = [
     "finite_difference_deflection",
     "pad_rigidity",
     "roundoff_residual",
+    "solve_shape",
 ]
 
 log = logging.getLogger(__name__)
@@ -157,6 +158,23 @@ def _infinite_shape(
         extra = 2 * max(math.ceil(margin / h), 2)
         out.append(scipy.fft.next_fast_len(n + extra, real=True))
     return (out[0], out[1])
+
+
+def solve_shape(
+    spec: GridSpec,
+    rigidity: np.ndarray,
+    pad_stiffness: float,
+    edges: str | tuple[str, str] = "infinite",
+    pad_factor: float = DEFAULT_PAD_FACTOR,
+    min_margin: float = 0.0,
+) -> tuple[int, int]:
+    """Shape of the solve grid :meth:`FiniteDifferenceSolver.build` sets up for these
+    arguments (the grid itself, or for ``edges="infinite"`` the grid and its margin sized
+    with the flexural parameter of *pad_stiffness*, Pa m⁻¹); two set-ups that differ only
+    in *pad_stiffness* are the same when their shapes are."""
+    if edges != "infinite":
+        return spec.shape
+    return _infinite_shape(spec, rigidity, pad_stiffness, pad_factor, min_margin)
 
 
 def roundoff_residual(rigidity: np.ndarray, stiffness: float, spacing: float) -> float:
