@@ -663,6 +663,9 @@ class StagedBasin:
         """The recorded states, one per stage added or removed, on a ``stage`` axis."""
         if not self.history:
             raise InputError("the basin has no stage yet")
+        # the kept finite-difference set-up (about 20 solve grids) is not needed to write
+        # the result; a later stage builds it again
+        self._inner_cache.clear()
         check_memory(
             _SNAPSHOT_GRIDS * self.base.nbytes * len(self.history),
             f"the {len(self.history)}-stage result",
