@@ -37,7 +37,7 @@ lie nearer the delta).
 target at most 2): before the finite-difference set-up was kept between settling passes
 and stages and the inner solves reused the products of the Anderson-mixed iterate,
 1000^2 2.61 (468 s / 179 s, quiet machine), 400^2 3.75, 200^2 9.0; after, 1000^2 2.46
-(425.7 s / 173.1 s, 2.34 per infill iteration, 167 against 160 infill iterations; load
+(425.7 s / 173.1 s, 2.34 per infill iteration, 168 against 160 infill iterations; load
 average 1.4-9 during the run). Operator and preconditioner applications at 200^2, four
 stages: 333 and 341 before, 267 and 263 after.
 """
