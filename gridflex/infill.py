@@ -47,7 +47,7 @@ from __future__ import annotations
 import logging
 import math
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Protocol
 
 import numpy as np
@@ -70,6 +70,7 @@ from gridflex.progress import Progress
 from gridflex.solvers.finite_difference import (
     DEFAULT_MAX_ITERATIONS,
     FiniteDifferenceSolver,
+    solve_shape,
 )
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, SpectralProblem
 from gridflex.validation import check_choice, check_density, check_integer, check_number
@@ -79,6 +80,7 @@ __all__ = [
     "SEDIMENT_MODES",
     "Infill",
     "InnerSolver",
+    "InnerSolverCache",
     "finite_difference_inner",
     "solve_with_infill",
     "spectral_inner",
@@ -198,6 +200,13 @@ class InnerSolver(Protocol):
         Nodal area weights of the force balance on the working domain (None: all 1).
     iterative : bool
         True when :meth:`solve` is iterative: it then takes a start and an accuracy.
+    last_error : float
+        Bound on the rms error (m) of the w the last :meth:`solve` returned, as reached
+        (not as asked for); 0 for a direct solve.
+    last_product : numpy.ndarray or None
+        The operator applied to the w the last :meth:`solve` returned, in the solver's
+        own units, when it has it (an iterative solver that checked its residual);
+        a combination of these is the *start_product* of the same combination of w.
     """
 
     @property
@@ -215,13 +224,24 @@ class InnerSolver(Protocol):
     @property
     def iterative(self) -> bool: ...
 
+    @property
+    def last_error(self) -> float: ...
+
+    @property
+    def last_product(self) -> np.ndarray | None: ...
+
     def solve(
-        self, rhs: np.ndarray, start: np.ndarray | None = None, accuracy: float | None = None
+        self,
+        rhs: np.ndarray,
+        start: np.ndarray | None = None,
+        accuracy: float | None = None,
+        start_product: np.ndarray | None = None,
     ) -> np.ndarray:
         """w (m, positive down) on the working domain for *rhs* (Pa) on it.
 
-        An iterative solver starts from *start* (m, a nearby solution) and stops once
-        the rms error of w is below *accuracy* (m); a direct one ignores both."""
+        An iterative solver starts from *start* (m, a nearby solution; *start_product*
+        is the operator applied to it, when known, see :attr:`last_product`) and stops
+        once the rms error of w is below *accuracy* (m); a direct one ignores all three."""
         ...
 
     def describe(self) -> dict[str, Any]:
@@ -237,9 +257,15 @@ class _SpectralInner:
     stiffness: float
     area: np.ndarray | None = None
     iterative: bool = False
+    last_error: float = 0.0
+    last_product: np.ndarray | None = None
 
     def solve(
-        self, rhs: np.ndarray, start: np.ndarray | None = None, accuracy: float | None = None
+        self,
+        rhs: np.ndarray,
+        start: np.ndarray | None = None,
+        accuracy: float | None = None,
+        start_product: np.ndarray | None = None,
     ) -> np.ndarray:
         # the per-solve balance is not used (the outer loop checks its own), so a dummy
         # magnitude saves a pass over the grid
@@ -309,9 +335,12 @@ class _FiniteDifferenceInner:
     solver: FiniteDifferenceSolver
     floor: float
     area_min: float
+    reused: bool = False
     iterative: bool = True
     iterations: int = 0
     solves: int = 0
+    last_error: float = math.inf
+    last_product: np.ndarray | None = None
     last: dict[str, Any] = field(default_factory=dict)
 
     @property
@@ -330,6 +359,13 @@ class _FiniteDifferenceInner:
     def area(self) -> np.ndarray:
         return self.solver.operator.area
 
+    def _scale(self, rhs: np.ndarray) -> float:
+        """rms(b) / (k0 a_min) (m) for b = *rhs* (area-weighted): the factor between
+        the relative energy-norm error of the solver and the rms error of w (m), see
+        :meth:`tolerance`; 0 for a zero *rhs*."""
+        rms = math.sqrt(_dot(rhs.ravel(), rhs.ravel()) / rhs.size)
+        return rms / (self.stiffness * self.area_min)
+
     def tolerance(self, rhs: np.ndarray, accuracy: float | None) -> float:
         """Solver tolerance (relative energy-norm error of w, the finite-difference
         stopping rule) that bounds the rms error of w by *accuracy* (m): with
@@ -338,19 +374,28 @@ class _FiniteDifferenceInner:
         between :attr:`floor` and :data:`_LOOSEST_INNER`."""
         if accuracy is None:
             return self.solver.tolerance
-        rms = math.sqrt(_dot(rhs.ravel(), rhs.ravel()) / rhs.size)
-        scale = self.stiffness * self.area_min
-        wanted = accuracy * scale / rms if rms > 0 else _LOOSEST_INNER
+        scale = self._scale(rhs)
+        wanted = accuracy / scale if scale > 0 else _LOOSEST_INNER
         return float(min(max(wanted, self.floor), _LOOSEST_INNER))
 
     def solve(
-        self, rhs: np.ndarray, start: np.ndarray | None = None, accuracy: float | None = None
+        self,
+        rhs: np.ndarray,
+        start: np.ndarray | None = None,
+        accuracy: float | None = None,
+        start_product: np.ndarray | None = None,
     ) -> np.ndarray:
-        tolerance = self.tolerance(self.area * rhs, accuracy)
-        w, info = self.solver.solve_full(rhs, start, tolerance=tolerance)
+        weighted = self.area * rhs
+        tolerance = self.tolerance(weighted, accuracy)
+        w, info = self.solver.solve_full(
+            rhs, start, tolerance=tolerance, start_product=start_product
+        )
+        self.last_product = info.pop("product", None)
         self.iterations += int(info["iterations"])
         self.solves += 1
         self.last = info
+        # the bound of :meth:`tolerance` with the relative error the solve reached
+        self.last_error = float(info["accuracy"]) * self._scale(weighted)
         return w
 
     def describe(self) -> dict[str, Any]:
@@ -361,7 +406,8 @@ class _FiniteDifferenceInner:
             "inner_solves": self.solves,
             "residual": float(info.get("residual", math.nan)),
             "inner_tolerance": float(info.get("tolerance", math.nan)),
-            "setup_seconds": self.solver.setup_seconds,
+            "setup_seconds": 0.0 if self.reused else self.solver.setup_seconds,
+            "setup_reused": int(self.reused),
             "blend_levels": np.asarray(info.get("blend_levels", []), dtype=np.float64),
             "band_nodes": int(info.get("band_nodes", 0)),
             "band_width": self.solver.band_width,
@@ -387,6 +433,7 @@ def finite_difference_inner(
     edges: str = "infinite",
     pad_factor: float = DEFAULT_PAD_FACTOR,
     max_iterations: int = DEFAULT_MAX_ITERATIONS,
+    cache: InnerSolverCache | None = None,
 ) -> InnerSolver:
     """Finite-difference inner solver for a rigidity grid (set up once).
 
@@ -409,20 +456,109 @@ def finite_difference_inner(
         Margin of ``"infinite"`` in flexural parameters.
     max_iterations : int, default 300
         Iteration limit of each inner solve.
+    cache : InnerSolverCache, optional
+        Takes the set-up from it when it holds one for the same arguments, and keeps
+        this one in it otherwise.
     """
-    solver = FiniteDifferenceSolver.build(
+    rigidity = np.asarray(rigidity, dtype=np.float64)
+    key = _SetupKey(
         spec,
         rigidity,
-        stiffness,
-        poisson_ratio,
+        float(stiffness),
+        # min_stiffness only sizes the margin: set-ups with the same solve grid are equal
+        solve_shape(spec, rigidity, min_stiffness, edges, pad_factor),
+        float(poisson_ratio),
         edges,
-        pad_factor=pad_factor,
-        pad_stiffness=min_stiffness,
-        max_iterations=max_iterations,
+        float(pad_factor),
+        int(max_iterations),
     )
+    solver = None if cache is None else cache.find(key)
+    reused = solver is not None
+    if solver is None:
+        if cache is not None:
+            cache.clear()  # never two set-ups in memory at once
+        solver = FiniteDifferenceSolver.build(
+            spec,
+            rigidity,
+            stiffness,
+            poisson_ratio,
+            edges,
+            pad_factor=pad_factor,
+            pad_stiffness=min_stiffness,
+            max_iterations=max_iterations,
+        )
+        if cache is not None:
+            cache.keep(key, solver)
     # the tightest accuracy asked for: the solver stops at its round-off limit anyway
     # (at_round_off) when this cannot be reached
-    return _FiniteDifferenceInner(solver, _TIGHTEST_INNER, float(solver.operator.area.min()))
+    return _FiniteDifferenceInner(
+        solver, _TIGHTEST_INNER, float(solver.operator.area.min()), reused
+    )
+
+
+@dataclass(frozen=True, eq=False)
+class _SetupKey:
+    """What a finite-difference inner set-up depends on."""
+
+    spec: GridSpec
+    rigidity: np.ndarray
+    stiffness: float
+    shape: tuple[int, int]
+    poisson_ratio: float
+    edges: str
+    pad_factor: float
+    max_iterations: int
+
+    def same(self, other: _SetupKey) -> bool:
+        """True when both describe the same set-up (the rigidity compared value by value)."""
+        scalars = ("spec", "stiffness", "shape", "poisson_ratio", "edges")
+        return (
+            all(getattr(self, name) == getattr(other, name) for name in scalars)
+            and self.pad_factor == other.pad_factor
+            and self.max_iterations == other.max_iterations
+            and np.array_equal(self.rigidity, other.rigidity)
+        )
+
+
+@dataclass(eq=False)
+class InnerSolverCache:
+    """The finite-difference set-up (operator, preconditioner, band factor) of the last
+    inner solve, kept for the next :func:`solve_with_infill` call with the same te grid,
+    infill densities and solver options: the settling passes of a stage, and stages that
+    share a te and a fill (:class:`gridflex.basin.StagedBasin`).
+
+    It holds one set-up (memory bounded: about 20 grids of the solve grid, and the band
+    factor), replaced whenever a call needs another; a constant te (the FFT) does not
+    use it. The set-up is a pure function of its arguments, so a reused one gives the
+    same deflection as a new one.
+
+    Attributes
+    ----------
+    builds, reuses : int
+        Set-ups built and taken from the cache.
+    """
+
+    builds: int = 0
+    reuses: int = 0
+    _key: _SetupKey | None = None
+    _solver: FiniteDifferenceSolver | None = None
+
+    def find(self, key: _SetupKey) -> FiniteDifferenceSolver | None:
+        """The kept set-up for *key*, or None."""
+        if self._key is None or self._solver is None or not self._key.same(key):
+            return None
+        self.reuses += 1
+        return self._solver
+
+    def keep(self, key: _SetupKey, solver: FiniteDifferenceSolver) -> None:
+        """Keep *solver* (built for *key*) instead of the set-up held so far."""
+        self._key = replace(key, rigidity=key.rigidity.copy())  # the caller may change it
+        self._solver = solver
+        self.builds += 1
+
+    def clear(self) -> None:
+        """Drop the kept set-up (frees its memory)."""
+        self._key = self._solver = None
 
 
 def _extend(values: np.ndarray, shape: tuple[int, int], window: tuple[slice, slice]) -> np.ndarray:
@@ -518,24 +654,32 @@ class _Anderson:
     Keeps the differences of successive residuals f = G(w) - w and images G(w),
     and the Gram matrix of the residual differences, updated one row per step;
     the new iterate is G(w) - dG gamma with gamma minimising |f - dF gamma|
-    (solved through the small normal equations).
+    (solved through the small normal equations). A *companion* of each image (the
+    operator applied to it) is mixed with the same coefficients, when given.
     """
 
     def __init__(self, depth: int) -> None:
         self.depth = depth
         self.df: list[np.ndarray] = []
         self.dg: list[np.ndarray] = []
+        self.dc: list[np.ndarray | None] = []  # companion differences, aligned with dg
         self.gram = np.zeros((0, 0))
-        self.last: tuple[np.ndarray, np.ndarray] | None = None
+        self.last: tuple[np.ndarray, np.ndarray, np.ndarray | None] | None = None
 
     def clear(self) -> None:
-        self.df, self.dg, self.gram, self.last = [], [], np.zeros((0, 0)), None
+        self.df, self.dg, self.dc, self.gram, self.last = [], [], [], np.zeros((0, 0)), None
 
-    def step(self, f: np.ndarray, g: np.ndarray) -> np.ndarray:
+    def step(
+        self, f: np.ndarray, g: np.ndarray, companion: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray | None]:
+        """The next iterate, and the mixed companion (None unless every remembered
+        step had one)."""
         if self.last is not None:
             new_df = f - self.last[0]
             self.df.append(new_df)
             self.dg.append(g - self.last[1])
+            before = self.last[2]
+            self.dc.append(None if companion is None or before is None else companion - before)
             row = np.array([_dot(column, new_df) for column in self.df])
             m = len(self.df)
             gram = np.zeros((m, m))
@@ -544,19 +688,30 @@ class _Anderson:
             if m > self.depth:
                 self.df.pop(0)
                 self.dg.pop(0)
+                self.dc.pop(0)
                 gram = gram[1:, 1:]
             self.gram = gram
-        self.last = (f, g)
+        self.last = (f, g, companion)
         if not self.df:
-            return g
+            return g, companion
         rhs = np.array([_dot(column, f) for column in self.df])
         gamma, *_ = np.linalg.lstsq(self.gram, rhs, rcond=1e-12)
-        out = g.copy()
-        scratch = np.empty_like(g)
-        for coefficient, column in zip(gamma, self.dg, strict=True):
-            np.multiply(column, coefficient, out=scratch)
-            out -= scratch
-        return out
+        out = _combine(g, gamma, self.dg)
+        known = [column for column in self.dc if column is not None]
+        mixed = None
+        if companion is not None and len(known) == len(self.dc):
+            mixed = _combine(companion, gamma, known)
+        return out, mixed
+
+
+def _combine(base: np.ndarray, gamma: np.ndarray, columns: list[np.ndarray]) -> np.ndarray:
+    """base - sum_i gamma_i columns_i (a new array)."""
+    out = base.copy()
+    scratch = np.empty_like(base)
+    for coefficient, column in zip(gamma, columns, strict=True):
+        np.multiply(column, coefficient, out=scratch)
+        out -= scratch
+    return out
 
 
 _INNER_SHARE = 0.1
@@ -577,10 +732,12 @@ def _iterate(
 
     An iterative inner solve starts from the current iterate and is made only as
     accurate as the iteration needs: to :data:`_INNER_SHARE` of the last update (loose
-    at first); it stops once an update below the tolerance follows one below ten times
-    the tolerance (the image then holds an inner error below the tolerance)."""
+    at first); it stops once an update is below the tolerance and the inner solve that
+    gave it reached an rms error below the tolerance (as it reports, not as asked for:
+    a loose solve that happened to land close stops the iteration too)."""
     cg = shift * column.gravity
     w = np.zeros(inner.shape)
+    product = None  # the operator applied to w, when the inner solve gives it
     mixer = _Anderson(_ANDERSON_DEPTH)
     best = math.inf
     update = math.inf
@@ -589,22 +746,35 @@ def _iterate(
         total -= cg * w
         accuracy = _INNER_SHARE * max(update, tolerance)
         # start from the iterate: the mixed one is Anderson's guess of the fixed point, and
-        # took ~25 % fewer inner iterations than the previous image (measured, sediment fill)
-        image = inner.solve(total, start=w if iteration > 1 else None, accuracy=accuracy)
+        # took ~25 % fewer inner iterations than the previous image (measured, sediment fill);
+        # its product with the operator is the same mix of the images' products (one
+        # product with the operator less per step)
+        start = w if iteration > 1 else None
+        image = inner.solve(total, start=start, accuracy=accuracy, start_product=product)
+        image_product = inner.last_product
         residual = image - w
         update = float(np.abs(residual).max())
         if progress is not None:
             progress(iteration, max_iterations)
-        log.debug("infill iteration %d: max update %.3g m", iteration, update)
-        if update < tolerance and (not inner.iterative or accuracy <= tolerance):
+        log.debug(
+            "infill iteration %d: max update %.3g m, inner error %.3g m (asked %.3g)",
+            iteration,
+            update,
+            inner.last_error,
+            accuracy,
+        )
+        if update < tolerance and (not inner.iterative or inner.last_error <= tolerance):
             return image, iteration, update
         if acceleration == "none":
-            w = image
+            w, product = image, image_product
             continue
         if update > 2.0 * best:  # mixing went astray: restart from the plain step
             mixer.clear()
         best = min(best, update)
-        w = mixer.step(residual.ravel(), image.ravel()).reshape(inner.shape)
+        flat = None if image_product is None else image_product.ravel()
+        mixed, product = mixer.step(residual.ravel(), image.ravel(), flat)
+        w = mixed.reshape(inner.shape)
+        product = None if product is None else product.reshape(inner.shape)
     raise ConvergenceError(
         f"infill iteration did not converge: after {max_iterations} iterations the "
         f"deflection still changed by {update:.3g} m (tolerance {tolerance:.3g} m; "
@@ -629,6 +799,7 @@ def solve_with_infill(
     shift: float | None = None,
     acceleration: str = "anderson",
     inner: Callable[[float, float], InnerSolver] | None = None,
+    cache: InnerSolverCache | None = None,
     progress: Progress | None = None,
 ) -> xr.Dataset:
     """Flexure with a spatially varying, self-consistent infill.
@@ -676,6 +847,10 @@ def solve_with_infill(
     inner : callable, optional
         ``inner(stiffness, min_stiffness) -> InnerSolver``, to replace the inner solve
         *method* picks.
+    cache : InnerSolverCache, optional
+        Where the finite-difference set-up is kept for the next call with the same te
+        grid, densities and options (and taken from, when it holds that one); the same
+        deflection as without it, minus the set-up time.
     progress : callable, optional
         Called as ``progress(iteration, max_iterations)``.
 
@@ -729,7 +904,7 @@ def solve_with_infill(
     footprint, load_density = _buried_load(infill, given)
     rho_max = infill.max_density(load_density)
     c = _shift_density(rho_max, plate.mantle_density, shift)
-    solver = _inner_solver(given.spec, plate, rho_max, c, options, inner)
+    solver = _inner_solver(given.spec, plate, rho_max, c, options, inner, cache)
     values = np.asarray(given.load.values, dtype=np.float64)
     if options.edges == "infinite":
         check_edge_load(values, float(np.abs(values).sum()))
@@ -875,9 +1050,10 @@ def _inner_solver(
     shift: float,
     options: _Options,
     inner: Callable[[float, float], InnerSolver] | None,
+    cache: InnerSolverCache | None = None,
 ) -> InnerSolver:
     """The inner solver for the shift *shift* (kg/m^3): *inner*'s, or the one
-    ``options.method`` picks for the plate."""
+    ``options.method`` picks for the plate (a finite-difference one through *cache*)."""
     stiffness = (plate.mantle_density - shift) * plate.gravity
     min_stiffness = (plate.mantle_density - rho_max) * plate.gravity
     if inner is not None:
@@ -901,6 +1077,7 @@ def _inner_solver(
             plate.poisson_ratio,
             edges=options.edges,
             pad_factor=options.pad_factor,
+            cache=cache,
         )
     if plate.is_variable:
         raise InputError(
@@ -947,8 +1124,9 @@ def _working_column(
             np.asarray(infill.sediment_mask.values, dtype=bool).astype(np.float64), shape, window
         )
     # column grids and per-iteration temporaries (~12 working grids), plus the Anderson
-    # history (2 per remembered step, and the last pair)
-    grids = 12 + (2 * _ANDERSON_DEPTH + 4 if options.acceleration == "anderson" else 0)
+    # history (images, residuals and the images' products: 3 per remembered step, and
+    # the last three and the mixed pair)
+    grids = 12 + (3 * _ANDERSON_DEPTH + 6 if options.acceleration == "anderson" else 0)
     check_memory(
         8.0 * shape[0] * shape[1] * grids,
         f"infill iteration on a working grid of {shape[0]} x {shape[1]}",

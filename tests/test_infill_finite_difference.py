@@ -7,7 +7,7 @@ import xarray as xr
 from numpy.testing import assert_allclose
 
 from gridflex import Infill, InputError, Plate, solve_with_infill
-from gridflex.infill import _extend
+from gridflex.infill import InnerSolverCache, _Anderson, _extend
 from gridflex.te_maps import break_mask, broken_te, margin_te
 
 G = 9.81
@@ -181,3 +181,47 @@ def test_finite_difference_path_refuses_what_it_cannot_do():
         solve_with_infill(load, plate, _grid(-3000.0 + h, 5e3), inplane_force_y=1e11)
     with pytest.raises(InputError, match="method must be one of"):
         solve_with_infill(load, plate, _grid(-3000.0 + h, 5e3), method="direct")
+
+
+def test_a_kept_set_up_gives_the_same_deflection_and_is_rebuilt_for_another_te():
+    # The finite-difference set-up is a pure function of the te grid, densities and
+    # options, so a reused one must give the same deflection as a new one (bit for bit:
+    # the same arithmetic); another te grid must not reuse it (common practice).
+    n, dx = 48, 4e3
+    load, h = _cone(n, dx)
+    plate = _margin_plate(load)
+    surface, rule = _cases(n, h)["marine"]
+    cache = InnerSolverCache()
+    plain = solve_with_infill(load, plate, _grid(surface, dx), rule)
+    first = solve_with_infill(load, plate, _grid(surface, dx), rule, cache=cache)
+    again = solve_with_infill(load, plate, _grid(surface, dx), rule, cache=cache)
+    assert (cache.builds, cache.reuses) == (1, 1)
+    assert first.attrs["setup_reused"] == 0 and again.attrs["setup_reused"] == 1
+    assert np.array_equal(again["deflection"].values, first["deflection"].values)
+    assert np.array_equal(first["deflection"].values, plain["deflection"].values)
+    stiffer = plate.with_te(plate.te * 1.5)
+    other = solve_with_infill(load, stiffer, _grid(surface, dx), rule, cache=cache)
+    assert (cache.builds, cache.reuses) == (2, 1)
+    fresh = solve_with_infill(load, stiffer, _grid(surface, dx), rule)
+    assert np.array_equal(other["deflection"].values, fresh["deflection"].values)
+    lighter = Infill(sediment="to_level", sediment_level=-3800.0, sediment_density=2200.0)
+    solve_with_infill(load, plate, _grid(surface, dx), lighter, cache=cache)
+    assert cache.builds == 3  # another fill density: another operator
+
+
+def test_anderson_mixes_the_products_of_the_images_with_the_same_coefficients():
+    # The mixed iterate is a linear combination of the images, so the operator applied
+    # to it is the same combination of the images' products (K linear: common practice);
+    # the infill iteration starts each inner solve from that product.
+    rng = np.random.default_rng(3)
+    matrix = rng.standard_normal((30, 30))
+    mixer = _Anderson(3)
+    w = np.zeros(30)
+    for _ in range(6):
+        image = 0.5 * w + rng.standard_normal(30)
+        mixed, product = mixer.step(image - w, image, matrix @ image)
+        assert product is not None
+        assert_allclose(product, matrix @ mixed, rtol=0, atol=1e-10 * np.abs(product).max())
+        w = mixed
+    mixed, product = mixer.step(image - w, image)  # a step without one: none mixed
+    assert product is None

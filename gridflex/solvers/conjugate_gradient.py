@@ -244,14 +244,16 @@ def conjugate_gradient(
     is already within :data:`BACKWARD_ERROR_FLOOR` unit round-offs, x is as good as double
     precision allows and is returned (``at_round_off`` set) instead.
 
-    A start whose preconditioned true residual gives sqrt(r·M⁻¹r / x·b) below
-    :data:`START_MARGIN` times the tolerance is returned without iterating, with that
-    estimate divided by :data:`START_MARGIN` as its accuracy.
+    An iterate (a start, too) whose preconditioned residual gives sqrt(r·M⁻¹r / x·b)
+    below :data:`START_MARGIN` times the tolerance is returned, with that estimate divided
+    by :data:`START_MARGIN` as its accuracy, once checked with the true residual: while
+    the drift stays within :data:`DRIFT_LIMIT`, as on the main exit, the recurrence's
+    r·M⁻¹r stands (widened by the drift), otherwise the true residual's is taken.
     """
     v = _Vectors(rhs)
     b_norm = math.sqrt(v.dot(rhs, rhs))
     if b_norm == 0.0:
-        return Outcome(np.zeros_like(rhs), 0, 0.0, 0.0, 0.0, False)
+        return Outcome(np.zeros_like(rhs), 0, 0.0, 0.0, 0.0, False, np.zeros_like(rhs))
     eps = float(np.finfo(np.float64).eps)
     delay = max(int(delay), 1)
 
@@ -321,9 +323,19 @@ def conjugate_gradient(
         energy = v.dot(v.x, rhs)
         if not (energy > 0.0 and 0.0 <= rz <= (START_MARGIN * tolerance) ** 2 * energy):
             return False
+        recurrence = v.r.copy()
+        recurrence_norm = r_norm
         r_norm = true_residual()
         if r_norm == 0.0:
             return finish(iteration, 0.0, 0.0, False)
+        # as on the main exit: while the recurrence tracks the true residual (drift δ),
+        # its r·M⁻¹r stands for the true one's, widened by the drift
+        np.subtract(v.r, recurrence, out=recurrence)
+        drift = math.sqrt(v.dot(recurrence, recurrence))
+        drift = drift / recurrence_norm if recurrence_norm > 0.0 else math.inf
+        estimate = math.sqrt(max(rz, 0.0) / energy) / START_MARGIN * (1.0 + drift)
+        if drift <= DRIFT_LIMIT and estimate <= tolerance:
+            return finish(iteration, r_norm, estimate, False)
         precondition(v.r, v.z, r_norm)
         rz = v.dot(v.r, v.z)
         done = verdict(iteration, math.sqrt(max(rz, 0.0) / energy) / START_MARGIN)

@@ -64,6 +64,7 @@ __all__ = [
     "galerkin_coefficients",
     "pad_rigidity",
     "roundoff_residual",
+    "solve_shape",
 ]
 
 log = logging.getLogger(__name__)
@@ -160,6 +161,23 @@ def _infinite_shape(
         extra = 2 * max(math.ceil(margin / h), 2)
         out.append(scipy.fft.next_fast_len(n + extra, real=True))
     return (out[0], out[1])
+
+
+def solve_shape(
+    spec: GridSpec,
+    rigidity: np.ndarray,
+    pad_stiffness: float,
+    edges: str | tuple[str, str] = "infinite",
+    pad_factor: float = DEFAULT_PAD_FACTOR,
+    min_margin: float = 0.0,
+) -> tuple[int, int]:
+    """Shape of the solve grid :meth:`FiniteDifferenceSolver.build` sets up for these
+    arguments (the grid itself, or for ``edges="infinite"`` the grid and its margin sized
+    with the flexural parameter of *pad_stiffness*, Pa m⁻¹); two set-ups that differ only
+    in *pad_stiffness* are the same when their shapes are."""
+    if edges != "infinite":
+        return spec.shape
+    return _infinite_shape(spec, rigidity, pad_stiffness, pad_factor, min_margin)
 
 
 def roundoff_residual(rigidity: np.ndarray, stiffness: float, spacing: float) -> float:
@@ -474,6 +492,7 @@ class FiniteDifferenceSolver:
         progress: Progress | None = None,
         earlier: Sequence[tuple[np.ndarray, np.ndarray]] = (),
         history: SolutionHistory | None = None,
+        start_product: np.ndarray | None = None,
     ) -> tuple[np.ndarray, dict[str, Any]]:
         """Deflection (m) on the whole solve grid for a load (Pa) on it.
 
@@ -494,12 +513,19 @@ class FiniteDifferenceSolver:
             Overrides :attr:`tolerance` for this solve.
         progress : callable, optional
             As in :func:`finite_difference_deflection`.
+        start_product : numpy.ndarray, shape :attr:`shape`, optional
+            K *start* (the area-weighted load, Pa), when known: the ``product`` of the
+            solve that returned *start*, or the same combination of such products as
+            *start* is of their deflections. Saves one product with K; a wrong one
+            costs accuracy of the start only, since the result is checked against its
+            true residual.
 
         Returns
         -------
         deflection : numpy.ndarray, shape :attr:`shape`
         info : dict
-            As in :func:`finite_difference_deflection`.
+            As in :func:`finite_difference_deflection`, and ``product``, K w on the solve
+            grid (area-weighted load, Pa), for a later *start_product*.
         """
         tol = self.tolerance if tolerance is None else float(tolerance)
         if not 0.0 < tol < 1.0:
@@ -508,7 +534,7 @@ class FiniteDifferenceSolver:
         operator, preconditioner = self.operator, self.preconditioner
         dy, dx = self.spacing
         rhs = operator.area * load
-        product = None
+        product = None if start is None else start_product
         if start is None and history is not None:
             combined = history.start(rhs)
             if combined is not None:
@@ -559,6 +585,7 @@ class FiniteDifferenceSolver:
             "locally_compensated_load": float(((1.0 - operator.area) * load).sum() * dy * dx),
             "setup_seconds": self.setup_seconds,
             "solve_seconds": time.perf_counter() - began,
+            "product": outcome.product,
         }
         return x, info
 

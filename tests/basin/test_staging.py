@@ -348,3 +348,37 @@ def test_erosion_deeper_than_the_pile_is_refused_and_leaves_the_basin_unchanged(
         basin.add_stage(Stage(flat(-5.0), 2e6, "shale"))
     assert np.array_equal(basin.deflection, before[0]) and basin.burial == []
     assert all(np.array_equal(a, b) for a, b in zip(basin.grains, before[1], strict=True))
+
+
+def test_settling_passes_of_a_te_grid_stage_share_one_finite_difference_set_up(monkeypatch):
+    # The settling passes of a stage solve with the same te grid, fill and options, so the
+    # finite-difference set-up is built once and kept (that a kept set-up gives the
+    # deflection of a new one: tests/test_infill_finite_difference.py); a stage whose fill
+    # density lies within 15 % keeps the shift density, hence the operator and the set-up;
+    # a stage with its own te grid needs its own.
+    import gridflex.infill as infill_module
+
+    builds, calls = [], []
+    build = infill_module.FiniteDifferenceSolver.build.__func__
+    solve = infill_module.solve_with_infill
+
+    def counting_build(cls, *args, **kwargs):
+        builds.append(1)
+        return build(cls, *args, **kwargs)
+
+    def counting_solve(*args, **kwargs):
+        calls.append(1)
+        return solve(*args, **kwargs)
+
+    monkeypatch.setattr(infill_module.FiniteDifferenceSolver, "build", classmethod(counting_build))
+    monkeypatch.setattr("gridflex.basin.staging.solve_with_infill", counting_solve)
+    te = grid(np.broadcast_to(np.linspace(4e3, 12e3, N), (N, N)).copy())
+    stages = [
+        Stage(lens(400.0), 3e6, "shale", base_level=-100.0),
+        Stage(lens(300.0, 30e3), 2e6, "sandstone", base_level=-100.0),
+        Stage(lens(200.0, 30e3), 1e6, "shale", base_level=-100.0, te=te * 1.5),
+    ]
+    out = stage_loading(stages, flat(-1500.0), Plate(te=te), tolerance=1e-5)
+    assert len(calls) > 3  # the stages settled in more than one pass
+    assert len(builds) == 2  # the first two stages share one, the third has its own te
+    assert float(out["stage_fill"].max()) > 0.0

@@ -94,3 +94,19 @@ def test_exact_preconditioner_stops_after_one_step():
     out = conjugate_gradient(_apply, RHS, exact, 1e-8, 50, operator_norm=16e6)
     assert out.iterations == 1
     assert_allclose(out.x, EXACT, rtol=0, atol=1e-8 * np.abs(EXACT).max())
+
+
+def test_a_start_with_a_wrong_residual_is_not_taken_on_its_word():
+    # A start handed in with a residual that is not b - K x0 (a product of K taken from
+    # elsewhere) looks converged on the recurrence; the true residual shows the drift and
+    # the iteration goes on from it, so the result still meets the tolerance, and K x
+    # comes back with it (common practice: residual replacement, the drift check of the
+    # main exit)
+    start = np.zeros_like(RHS)
+    out = conjugate_gradient(
+        _apply, RHS, _identity, 1e-6, 5000, start=(start, 1e-14 * RHS), operator_norm=16e6
+    )
+    assert out.iterations > 0
+    assert _energy_error(out.x) <= 2.0 * out.accuracy <= 2e-6
+    assert out.product is not None
+    assert_allclose(out.product, MATRIX @ out.x, rtol=0, atol=1e-9 * np.abs(RHS).max())

@@ -469,3 +469,32 @@ def test_earlier_solutions_combine_into_the_start_of_a_load_in_their_span() -> N
     w_warm, warm = solver.solve_full(outside, earlier=earlier)
     assert warm["iterations"] <= plain["iterations"]
     assert_allclose(w_warm, w_plain, rtol=0, atol=1e-5 * float(np.abs(w_plain).max()))
+
+
+def test_a_known_product_of_the_start_replaces_the_product_with_k() -> None:
+    """The product K w a solve returns is K applied to its w (what its true residual was
+    taken from); handed back with a start it gives the same solution without a product
+    with K, and a wrong one cannot make the result less accurate than asked, since the
+    result is checked against its true residual (K linear: common practice)."""
+    n, h = 64, 8e3
+    spec = GridSpec(ny=n, nx=n, dy=h, dx=h)
+    x = np.arange(n) * h
+    te = np.where(x[None, :] < 0.5 * n * h, 10e3, 40e3) * np.ones((n, 1))
+    solver = FiniteDifferenceSolver.build(spec, rigidity_from_te(te, 7e10, NU), RHO_G, NU)
+    load = np.zeros(solver.shape)
+    load[40:50, 30:40] = 1e7
+    w, info = solver.solve_full(load, tolerance=1e-8)
+    product = np.empty(solver.shape)
+    solver.apply(w, product)
+    assert_allclose(info["product"], product, rtol=0, atol=1e-12 * np.abs(product).max())
+    changed = 1.3 * load
+    reference, _ = solver.solve_full(changed, w)
+    kept = product.copy()
+    warm, _ = solver.solve_full(changed, w, start_product=product)
+    assert np.array_equal(product, kept)  # not changed
+    peak = float(np.abs(reference).max())
+    assert_allclose(warm, reference, rtol=0, atol=1e-6 * peak)
+    exact, _ = solver.solve_full(changed, tolerance=1e-10)
+    wrong, wrong_info = solver.solve_full(changed, w, start_product=0.5 * product)
+    assert wrong_info["residual"] < 1e-4
+    assert_allclose(wrong, exact, rtol=0, atol=1e-5 * peak)
