@@ -22,7 +22,7 @@ mixes both at one size.
 From the coefficients H (topography) and W (Moho relief: the Bouguer anomaly divided by
 2 pi G drho e^{-k z_m}, in the Fourier domain) at each map point and scale, the sums
 <|H|²>, <|W|²>, <H W*> over the fan feed the same Forsyth (1985) load deconvolution and
-prediction as the multitaper map (:class:`gridflex.estimation.spectral_maps._BouguerChunk`),
+prediction as the multitaper map (:mod:`gridflex.estimation.coherence_fit`),
 with Forsyth's a and b at k_e; the scales play the bands' part. The interval is the
 same: the band-misfit profile likelihood along the scales, and the delete-one-sector
 jackknife with the 16 azimuths in 8 sectors of two.
@@ -49,8 +49,8 @@ import xarray as xr
 
 from gridflex.errors import InputError
 from gridflex.estimation.admittance import _detrend
-from gridflex.estimation.spectral_maps import (
-    _JK_SECTORS,
+from gridflex.estimation.coherence_fit import (
+    JACKKNIFE_SECTORS,
     _BouguerChunk,
     forsyth_coefficients,
     moho_filter,
@@ -192,11 +192,11 @@ def fan_wavelet_chunk(
             s_hh[at, :, j] = np.abs(w_h) ** 2
             s_ww[at, :, j] = np.abs(w_w) ** 2
             s_hw[at, :, j] = w_h * w_w.conj()
-    if FAN_AZIMUTHS % _JK_SECTORS:
+    if FAN_AZIMUTHS % JACKKNIFE_SECTORS:
         raise AssertionError("the fan's azimuths do not fill the jackknife's sectors evenly")
 
     def by_sector(values: np.ndarray) -> np.ndarray:
-        return values.reshape(_JK_SECTORS, -1, points, k_e.size).sum(axis=1)
+        return values.reshape(JACKKNIFE_SECTORS, -1, points, k_e.size).sum(axis=1)
 
     hh, ww, hw = by_sector(s_hh), by_sector(s_ww), by_sector(s_hw)
     part = {"hh": hh, "rr": hw.real, "ww": ww, "b_hw": hw, "b_hh": hh, "b_ww": ww}

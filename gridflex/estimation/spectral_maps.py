@@ -86,17 +86,22 @@ import numpy as np
 import scipy.fft
 import xarray as xr
 
-from gridflex.constants import GRAVITATIONAL_CONSTANT, MGAL
 from gridflex.errors import InputError
 from gridflex.estimation.admittance import (
     _band_setup,
     _detrend,
-    _flexural_ratio,
     free_air_admittance,
 )
+from gridflex.estimation.coherence_fit import (
+    JACKKNIFE_SECTORS,
+    _BouguerChunk,
+    _Chunk,
+    forsyth_coefficients,
+    moho_filter,
+)
+from gridflex.estimation.fan_wavelet import fan_wavelet_chunk
 from gridflex.estimation.likelihood import (
     OpenIntervalWarning,
-    correlation_factor,
     interval_end,
     interval_threshold,
 )
@@ -139,9 +144,6 @@ _CHUNK_BYTES = 256 * 2**20
 
 _XTOL = 1e-4
 """Tolerance of the refinement and of the interval ends, in log te."""
-
-_JK_SECTORS = 8
-"""Azimuthal sectors of the wavenumber half plane left out in turn by the jackknife."""
 
 _JK_POINTS = 11
 """Log te of the grid on which each delete-one-sector estimate is sought."""
@@ -202,81 +204,6 @@ class _Runs:
         return np.add.reduceat(values, self.starts, axis=-1)[..., self.keep]
 
 
-class _Chunk:
-    """The spectra of a stack of windows and the misfit of a trial te for each of them."""
-
-    observed: np.ndarray
-    """Observed coherence or admittance, (windows, bands used)."""
-
-    def residuals(self, te: float, rows: slice = slice(None)) -> np.ndarray:
-        """Observed minus predicted curve at *te* (m) of the windows *rows*, (rows, bands)."""
-        raise NotImplementedError
-
-    def subset_rss(self, rows: np.ndarray) -> Callable[[np.ndarray], np.ndarray]:
-        """For the windows *rows* (indices): the RSS of every delete-one-sector estimate,
-        (sectors, len(rows)), as a function of te (m, one per row)."""
-        raise NotImplementedError
-
-    def rss(self, te: float, rows: slice = slice(None)) -> np.ndarray:
-        """Sum of squared band misfits at *te* (m) of the windows *rows*."""
-        r = self.residuals(te, rows)
-        return np.einsum("ij,ij->i", r, r)
-
-    def correlation(self, te: float, row: int) -> float:
-        """n / n_eff of the band residuals of window *row* at *te* (m): the residual
-        correlation factor of every te fit, along the bands."""
-        r = self.residuals(te, slice(row, row + 1))
-        return correlation_factor(r, np.ones(r.shape, dtype=bool), GridSpec(1, r.size, 1.0, 1.0))
-
-
-class _BouguerChunk(_Chunk):
-    """Forsyth (1985) load deconvolution of each window (see the module docstring)."""
-
-    def __init__(self, setup: Any, part: dict[str, np.ndarray]) -> None:
-        """*setup* gives ``deconvolution(te)`` (Forsyth's a, b at each |k| group) and
-        ``group_bands`` (sums of groups into bands); *part* holds the sums of each
-        sector, (sectors, windows, bins): ``hh``, ``rr`` (real part of H W*), ``ww`` over
-        the |k| groups and ``b_hw``, ``b_hh``, ``b_ww`` over the bands."""
-        self.setup = setup
-        total = {name: values.sum(axis=0) for name, values in part.items()}
-        self.hh, self.rr, self.ww = total["hh"], total["rr"], total["ww"]
-        self.observed = _coherence(total["b_hw"], total["b_hh"], total["b_ww"])
-        # the delete-one-sector sums
-        left = {name: total[name][None] - part[name] for name in part}
-        self.subsets = (
-            left["hh"],
-            left["rr"],
-            left["ww"],
-            _coherence(left["b_hw"], left["b_hh"], left["b_ww"]),
-        )
-
-    def _misfit(
-        self, te: Any, hh: np.ndarray, rr: np.ndarray, ww: np.ndarray, observed: np.ndarray
-    ) -> np.ndarray:
-        setup = self.setup
-        a, b = setup.deconvolution(te)
-        u = 1.0 / (1.0 - a * b) ** 2
-        p_t = u * (hh + 2.0 * b * rr + b * b * ww)  # <|H_T|²>
-        p_b = u * (ww + 2.0 * a * rr + a * a * hh)  # <|W_B|²>
-        groups = setup.group_bands
-        pred_hh = groups(p_t + b * b * p_b)
-        pred_ww = groups(a * a * p_t + p_b)
-        pred_hw = groups(-a * p_t - b * p_b)
-        return observed - pred_hw**2 / (pred_hh * pred_ww)
-
-    def residuals(self, te: float, rows: slice = slice(None)) -> np.ndarray:
-        return self._misfit(te, self.hh[rows], self.rr[rows], self.ww[rows], self.observed[rows])
-
-    def subset_rss(self, rows: np.ndarray) -> Callable[[np.ndarray], np.ndarray]:
-        hh, rr, ww, observed = (values[:, rows] for values in self.subsets)
-
-        def rss(te: np.ndarray) -> np.ndarray:
-            r = self._misfit(te[None, :, None], hh, rr, ww, observed)
-            return np.einsum("...i,...i->...", r, r)
-
-        return rss
-
-
 def _taper_parts(
     setup: _Setup, channels: list[tuple[np.ndarray, np.ndarray]]
 ) -> dict[str, np.ndarray]:
@@ -301,11 +228,6 @@ def _taper_parts(
         "b_hh": setup.by_sector(s_hh, "bands"),
         "b_ww": setup.by_sector(s_ww, "bands"),
     }
-
-
-def _coherence(cross: np.ndarray, power_h: np.ndarray, power_w: np.ndarray) -> np.ndarray:
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.asarray(np.abs(cross) ** 2 / (power_h * power_w))
 
 
 class _FreeAirChunk(_Chunk):
@@ -360,24 +282,6 @@ class _FreeAirChunk(_Chunk):
             return np.einsum("...i,...i->...", r, r)
 
         return rss
-
-
-def forsyth_coefficients(k: np.ndarray, te: Any, plate: Plate) -> tuple[np.ndarray, np.ndarray]:
-    """Forsyth's (1985) load-deconvolution coefficients a = rho_c / (drho xi) and
-    b = drho / (rho_c phi) at wavenumbers *k* (rad m⁻¹) for elastic thickness *te* (m)."""
-    rho_c = plate.crust_density
-    drho = plate.mantle_density - rho_c
-    xi, phi = _flexural_ratio(k, te, plate, drho), _flexural_ratio(k, te, plate, rho_c)
-    return rho_c / (drho * xi), drho / (rho_c * phi)
-
-
-def moho_filter(k: np.ndarray, plate: Plate, moho_depth: float) -> np.ndarray:
-    """Bouguer anomaly (mGal) per metre of Moho relief at wavenumbers *k* (rad m⁻¹):
-    2 pi G (rho_m - rho_c) e^{-k z_m} (PHYSICS.md 8.2, first order)."""
-    drho = plate.mantle_density - plate.crust_density
-    return np.asarray(
-        2.0 * math.pi * GRAVITATIONAL_CONSTANT * drho * np.exp(-k * moho_depth) / MGAL
-    )
 
 
 class _Setup:
@@ -438,13 +342,15 @@ class _Setup:
             2.0 * math.pi * scipy.fft.rfftfreq(shape[1], spec.dx)[None, :], bands.k.shape
         )[bands.inside]
         angle = np.arctan2(ky, kx) + math.pi / 2.0  # in [0, pi]
-        sector = np.minimum((angle / math.pi * _JK_SECTORS).astype(np.int64), _JK_SECTORS - 1)
+        sector = np.minimum(
+            (angle / math.pi * JACKKNIFE_SECTORS).astype(np.int64), JACKKNIFE_SECTORS - 1
+        )
         self.sector_bins = {
             "bands": _membership(
                 np.where((flat >= 0) & (flat < self.n_bands), sector * self.n_bands + flat, -1),
-                _JK_SECTORS * self.n_bands,
+                JACKKNIFE_SECTORS * self.n_bands,
             ),
-            "groups": _membership(sector * unique.size + group, _JK_SECTORS * unique.size),
+            "groups": _membership(sector * unique.size + group, JACKKNIFE_SECTORS * unique.size),
         }
         if quantity == "bouguer":
             self.moho_filter = moho_filter(k, plate, spectral["moho_depth"])
@@ -456,7 +362,7 @@ class _Setup:
         """Sums of *values* (windows, coefficients) over the bands or |k| groups (*bins*)
         of each azimuthal sector, (sectors, windows, bins)."""
         summed = _binned(values, self.sector_bins[bins])
-        return np.moveaxis(summed.reshape(summed.shape[0], _JK_SECTORS, -1), 1, 0)
+        return np.moveaxis(summed.reshape(summed.shape[0], JACKKNIFE_SECTORS, -1), 1, 0)
 
     def deconvolution(self, te: float) -> tuple[np.ndarray, np.ndarray]:
         """Forsyth's a = rho_c / (drho xi) and b = drho / (rho_c phi) at each distinct |k|."""
@@ -480,7 +386,7 @@ class _Setup:
         tapers = len(self.bands.tapers)
         grids = 8 * ny * nx * 6 + 16 * ny * (nx // 2 + 1) * 2
         # per-sector and delete-one sums and the temporaries of a delete-one misfit
-        subsets = 8 * _JK_SECTORS * 12 * (self.k_group.size + self.n_bands)
+        subsets = 8 * JACKKNIFE_SECTORS * 12 * (self.k_group.size + self.n_bands)
         return grids + 16 * coefficients * (3 * tapers + 6) + subsets
 
 
@@ -751,8 +657,6 @@ def te_map(
     starts_y = _starts(spec.ny, shape[0], steps[0])
     starts_x = _starts(spec.nx, shape[1], steps[1])
     if method == "fan_wavelet":
-        from gridflex.estimation.fan_wavelet import fan_wavelet_chunk
-
         chunk, attrs = fan_wavelet_chunk(
             topography, anomaly, plate, starts_y, starts_x, shape, spectral
         )
@@ -820,7 +724,7 @@ class _Fit:
         self.log_grid = np.linspace(math.log(bounds[0]), math.log(bounds[1]), samples)
         self.confidence = confidence
         self.jackknife = jackknife
-        self.jackknife_t = _student_t(confidence, _JK_SECTORS - 1) if jackknife else 0.0
+        self.jackknife_t = _student_t(confidence, JACKKNIFE_SECTORS - 1) if jackknife else 0.0
 
 
 def _fit_windows(
