@@ -105,6 +105,82 @@ def equivalent_wavenumbers(
     return k
 
 
+class _Points:
+    """Wavelet coefficients of a spectrum at the map's points, for every azimuth of the fan.
+
+    The Morlet's Gaussian is separable in k_x and k_y, so the coefficient at (y, x) is
+    e_y(y)ᵀ F e_x(x), with e_y = g_y(k_y) e^{i k_y y} / n_y and e_x likewise: two matrix
+    products whose cost grows with the number of rows of points. When the rows are
+    many (more than 2 log2 of the grid's cells) the inverse FFT of the whole grid is
+    cheaper, and the coefficients are picked from it (off-cell points by a phase shift).
+    """
+
+    def __init__(
+        self,
+        ky: np.ndarray,
+        kx: np.ndarray,
+        y: np.ndarray,
+        x: np.ndarray,
+        direct: bool | None = None,
+    ) -> None:
+        """*ky*, *kx*: wavenumbers of the grid's fft2 (rad m⁻¹, fftfreq order); *y*, *x*:
+        the points (m from the first cell, all with the same offset from a cell);
+        *direct*: matrix products (True) or FFT (False), by cost when None."""
+        self.ky, self.kx, self.y, self.x = ky, kx, y, x
+        self.azimuths = -0.5 * math.pi + math.pi * np.arange(FAN_AZIMUTHS) / FAN_AZIMUTHS
+        cells = ky.size * kx.size
+        self.direct = y.size <= 2.0 * math.log2(cells) if direct is None else direct
+        if self.direct:
+            self.e_y = np.exp(1j * y[:, None] * ky[None, :]) / ky.size  # (rows, ny)
+            self.e_x = np.exp(1j * kx[:, None] * x[None, :]) / kx.size  # (nx, columns)
+            per_azimuth = 16 * y.size * (ky.size + kx.size) * 2
+            self.batch = FAN_AZIMUTHS
+            check_memory(
+                cells * 16 * 3 + FAN_AZIMUTHS * per_azimuth,
+                f"te map (fan wavelet): {y.size} rows of points on a {ky.size} x {kx.size} "
+                "mirrored grid",
+                advice="use a coarser grid",
+            )
+            return
+        spacing = (2.0 * math.pi / (ky.size * abs(ky[1])), 2.0 * math.pi / (kx.size * abs(kx[1])))
+        self.rows = np.floor(y / spacing[0] + 1e-9).astype(np.int64)
+        self.columns = np.floor(x / spacing[1] + 1e-9).astype(np.int64)
+        self.shift = np.exp(
+            1j
+            * (
+                ky[:, None] * (y[0] - self.rows[0] * spacing[0])
+                + kx[None, :] * (x[0] - self.columns[0] * spacing[1])
+            )
+        )
+        per_azimuth = cells * (8 + 3 * 16)
+        self.batch = int(max(1, min(FAN_AZIMUTHS, _BATCH_BYTES // per_azimuth)))
+        check_memory(
+            cells * 16 * 4 + self.batch * per_azimuth,
+            f"te map (fan wavelet): {self.batch} azimuths of a {ky.size} x {kx.size} mirrored grid",
+            advice="use a coarser grid",
+        )
+
+    def coefficients(self, spectrum: np.ndarray, scale: float) -> np.ndarray:
+        """Coefficients of *spectrum* (the mirrored grid's fft2) at scale *scale* (m),
+        (azimuths, points)."""
+        alpha = self.azimuths[:, None]
+        g_y = np.exp(-0.5 * (scale * self.ky[None, :] - FAN_K0 * np.sin(alpha)) ** 2)
+        g_x = np.exp(-0.5 * (scale * self.kx[None, :] - FAN_K0 * np.cos(alpha)) ** 2)
+        if self.direct:
+            rows = (g_y[:, None, :] * self.e_y[None]).reshape(-1, self.ky.size) @ spectrum
+            rows = rows.reshape(FAN_AZIMUTHS, self.y.size, -1) * g_x[:, None, :]
+            return np.asarray(rows @ self.e_x).reshape(FAN_AZIMUTHS, -1)
+        out = np.empty((FAN_AZIMUTHS, self.y.size * self.x.size), dtype=np.complex128)
+        shifted = spectrum * self.shift
+        for first in range(0, FAN_AZIMUTHS, self.batch):
+            at = slice(first, first + self.batch)
+            psi = g_y[at, :, None] * g_x[at, None, :]
+            grid = scipy.fft.ifft2(psi * shifted, workers=-1)
+            picked = grid[:, self.rows[:, None], self.columns[None, :]]
+            out[at] = picked.reshape(picked.shape[0], -1)
+        return out
+
+
 def fan_wavelet_chunk(
     topography: xr.DataArray,
     anomaly: xr.DataArray,
@@ -143,60 +219,37 @@ def fan_wavelet_chunk(
         int(spectral["bands"]),
         spectral["wavenumber_range"],
     )
-    cells = 4 * ny * nx
-    per_azimuth = cells * (8 + 3 * 16)
-    batch = int(max(1, min(FAN_AZIMUTHS, _BATCH_BYTES // per_azimuth)))
-    check_memory(
-        cells * 16 * 4 + batch * per_azimuth,
-        f"te map (fan wavelet): {batch} azimuths of a {2 * ny} x {2 * nx} mirrored grid",
-        advice="use a coarser grid",
+    # window centres (m from the first cell): whole cells plus half a cell for an even window
+    points = _Points(
+        2.0 * math.pi * scipy.fft.fftfreq(2 * ny, dy),
+        2.0 * math.pi * scipy.fft.fftfreq(2 * nx, dx),
+        (starts_y + (shape[0] - 1) / 2.0) * dy,
+        (starts_x + (shape[1] - 1) / 2.0) * dx,
     )
-    ky = 2.0 * math.pi * scipy.fft.fftfreq(2 * ny, dy)[:, None]
-    kx = 2.0 * math.pi * scipy.fft.fftfreq(2 * nx, dx)[None, :]
-    k = np.hypot(ky, kx)
-    # window centres: whole cells plus, for an even window, half a cell (a phase shift)
-    offset = ((shape[0] - 1) / 2.0, (shape[1] - 1) / 2.0)
-    iy = starts_y + int(offset[0])
-    ix = starts_x + int(offset[1])
-    shift = np.exp(1j * (ky * dy * (offset[0] % 1.0) + kx * dx * (offset[1] % 1.0)))
+    k = np.hypot(points.ky[:, None], points.kx[None, :])
     spectra = []
     for field in (h, g):
         mirrored = np.pad(_detrend(field), ((0, ny), (0, nx)), mode="symmetric")
-        spectra.append(scipy.fft.fft2(mirrored, workers=-1) * shift)
+        spectra.append(scipy.fft.fft2(mirrored, workers=-1))
     f_h, f_w = spectra[0], spectra[1] / moho_filter(k, plate, spectral["moho_depth"])
     if spectral["prewhiten"]:  # the same filter on both: coherence and deconvolution keep
         f_h *= k
         f_w *= k
-    del spectra
-    azimuths = -0.5 * math.pi + math.pi * np.arange(FAN_AZIMUTHS) / FAN_AZIMUTHS
-    points = iy.size * ix.size
-    s_hh = np.zeros((FAN_AZIMUTHS, points, k_e.size))
+    del spectra, k
+    count = points.y.size * points.x.size
+    s_hh = np.zeros((FAN_AZIMUTHS, count, k_e.size))
     s_ww = np.zeros_like(s_hh)
     s_hw = np.zeros(s_hh.shape, dtype=np.complex128)
     for j, wavenumber in enumerate(k_e):
-        scale = FAN_K0 / wavenumber
-        for first in range(0, FAN_AZIMUTHS, batch):
-            alpha = azimuths[first : first + batch, None, None]
-            psi = np.exp(
-                -0.5
-                * (
-                    (scale * kx - FAN_K0 * np.cos(alpha)) ** 2
-                    + (scale * ky - FAN_K0 * np.sin(alpha)) ** 2
-                )
-            )
-            at = slice(first, first + batch)
-            w_h = scipy.fft.ifft2(psi * f_h, workers=-1)[:, iy[:, None], ix[None, :]]
-            w_w = scipy.fft.ifft2(psi * f_w, workers=-1)[:, iy[:, None], ix[None, :]]
-            w_h = w_h.reshape(w_h.shape[0], points)
-            w_w = w_w.reshape(w_w.shape[0], points)
-            s_hh[at, :, j] = np.abs(w_h) ** 2
-            s_ww[at, :, j] = np.abs(w_w) ** 2
-            s_hw[at, :, j] = w_h * w_w.conj()
+        w_h, w_w = (points.coefficients(f, FAN_K0 / wavenumber) for f in (f_h, f_w))
+        s_hh[:, :, j] = np.abs(w_h) ** 2
+        s_ww[:, :, j] = np.abs(w_w) ** 2
+        s_hw[:, :, j] = w_h * w_w.conj()
     if FAN_AZIMUTHS % JACKKNIFE_SECTORS:
         raise AssertionError("the fan's azimuths do not fill the jackknife's sectors evenly")
 
     def by_sector(values: np.ndarray) -> np.ndarray:
-        return values.reshape(JACKKNIFE_SECTORS, -1, points, k_e.size).sum(axis=1)
+        return values.reshape(JACKKNIFE_SECTORS, -1, count, k_e.size).sum(axis=1)
 
     hh, ww, hw = by_sector(s_hh), by_sector(s_ww), by_sector(s_hw)
     part = {"hh": hh, "rr": hw.real, "ww": ww, "b_hw": hw, "b_hh": hh, "b_ww": ww}

@@ -114,38 +114,15 @@ def two_domains(seeds: int) -> dict[float, tuple[np.ndarray, np.ndarray]]:
     for window in WINDOWS:
         times: dict[str, float] = {}
         for name, options in variants.items():
-            found: dict[float, list[np.ndarray]] = {}
-            elapsed, rows = 0.0, []
+            elapsed, rows, results = 0.0, [], []
             for topography, bouguer in data:
                 start = time.perf_counter()
                 result = quiet_map(topography, bouguer, window=window, step=300e3, **options)
                 elapsed += time.perf_counter() - start
                 xc = result["x"].values
                 rows.append(np.median(result["te"].values, axis=0))
-                for low, high, truth in ((0.0, split, 10e3), (split, N * DX, 40e3)):
-                    inside = (xc - window / 2 >= low) & (xc + window / 2 <= high)
-                    if inside.any():
-                        te_w, lo, hi = (
-                            result[v].values[:, inside].ravel() for v in ("te", "te_low", "te_high")
-                        )
-                        found.setdefault(truth, []).append(
-                            np.stack(
-                                [te_w / truth - 1, (lo <= truth) & (truth <= hi), (hi - lo) / te_w]
-                            )
-                        )
-            line = []
-            for truth in (10e3, 40e3):
-                if truth not in found:
-                    line.append(f"te {truth / 1e3:.0f}: no interior window")
-                    continue
-                per_seed = [f[1].mean() for f in found[truth]]
-                err, hit, width = np.concatenate(found[truth], axis=1)
-                line.append(
-                    f"te {truth / 1e3:.0f}: median {100 * np.median(err):+.1f} % "
-                    f"({100 * err.min():+.0f}..{100 * err.max():+.0f}), coverage "
-                    f"{hit.mean():.2f} (per seed {min(per_seed):.2f}..{max(per_seed):.2f}), "
-                    f"median width {np.median(width):.2f} te"
-                )
+                results.append(result)
+            line, _ = domain_lines(results, window, split)
             if name == "default":
                 median_profile = np.median(rows, axis=0)
                 width = step_width(xc, median_profile, split, window)

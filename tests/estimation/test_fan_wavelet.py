@@ -10,7 +10,7 @@ from numpy.testing import assert_allclose
 
 import gridflex
 from gridflex.errors import InputError
-from gridflex.estimation.fan_wavelet import equivalent_wavenumbers
+from gridflex.estimation.fan_wavelet import FAN_AZIMUTHS, _Points, equivalent_wavenumbers
 from gridflex.estimation.likelihood import OpenIntervalWarning
 from tests.helpers import two_load_plate
 
@@ -94,6 +94,26 @@ def test_equivalent_wavenumbers():
     assert np.all((kept >= 1e-5) & (kept <= 3e-5))
     with pytest.raises(InputError, match="wavenumber_range"):
         equivalent_wavenumbers(1200e3, 30e3, 8, (1e-5, 1.1e-5))
+
+
+@pytest.mark.parametrize("offset", [0.0, 0.5])
+def test_products_equal_the_inverse_transform(offset):
+    """The separable Morlet (a Gaussian in k_x times one in k_y) evaluated at the points
+    by two matrix products equals the inverse FFT of the whole grid picked at the points
+    (on and half a cell off the cells, by a phase shift): the discrete Fourier transform's
+    shift theorem (common practice)."""
+    rng = np.random.default_rng(3)
+    ny, nx, dy, dx = 48, 60, 30e3, 25e3
+    spectrum = np.fft.fft2(rng.standard_normal((ny, nx)))
+    ky = 2 * np.pi * np.fft.fftfreq(ny, dy)
+    kx = 2 * np.pi * np.fft.fftfreq(nx, dx)
+    y = (np.arange(3, 40, 7) + offset) * dy
+    x = (np.arange(5, 55, 9) + offset) * dx
+    scale = 5.336 / (2 * np.pi / 200e3)
+    direct = _Points(ky, kx, y, x, direct=True).coefficients(spectrum, scale)
+    picked = _Points(ky, kx, y, x, direct=False).coefficients(spectrum, scale)
+    assert direct.shape == (FAN_AZIMUTHS, y.size * x.size)
+    assert_allclose(direct, picked, rtol=0, atol=1e-12 * np.abs(picked).max())
 
 
 def test_refusals(two_domains):
