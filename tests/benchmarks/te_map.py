@@ -16,7 +16,8 @@ uncorrelated surface and Moho loads, f = 1; 256² cells of 30 km, periodic):
    resolution; for the default (prewhitened, jackknifed), without the jackknife, and
    without either (the te map before both). Cost: the default against the same maps
    without the jackknife (same process).
-3. The same two-domain plates (same seeds) mapped by both methods of ``te_map``
+3. (``--methods``) The uniform plates of 1. mapped by the fan wavelet, and the same
+   two-domain plates (same seeds) mapped by both methods of ``te_map``
    (``method="multitaper"`` and ``"fan_wavelet"``, defaults otherwise, centres every
    300 km; for the fan wavelet *window* is the longest equivalent wavelength, and the
    interior is the same: points at least half a window from the step and the edges):
@@ -45,6 +46,8 @@ from tests.helpers import two_load_plate
 N, DX = 256, 30e3
 WINDOWS = (1200e3, 1800e3, 2400e3, 3600e3)
 PLATE = gridflex.Plate(te=0.0, crust_thickness=35e3)
+METHOD_WINDOWS = (1200e3, 2400e3)
+"""Windows of the comparison of the methods (part 3)."""
 SEEDS_FROM = 101
 """First seed of the two-domain plates (the tests use other seeds)."""
 
@@ -55,16 +58,22 @@ def quiet_map(topography: xr.DataArray, bouguer: xr.DataArray, **options) -> xr.
         return gridflex.te_map(topography, bouguer, PLATE, **options)
 
 
-def uniform(seeds: int) -> dict[float, list[float]]:
+def uniform(
+    seeds: int, method: str = "multitaper", windows: tuple[float, ...] = WINDOWS
+) -> dict[float, list[float]]:
     """Median error (%) of every window size, per true te."""
-    print("1. uniform plates: te / truth - 1 over all windows (median, 10-90 %), coverage")
+    print(
+        f"1. uniform plates ({method}): te / truth - 1 over all windows (median, 10-90 %), coverage"
+    )
     medians: dict[float, list[float]] = {}
     for truth in (10e3, 25e3, 40e3):
         data = [two_load_plate(truth, N, DX, seed=s, plate=PLATE) for s in range(seeds)]
-        for window in WINDOWS:
+        for window in windows:
             errors, hits = [], []
             for topography, bouguer in data:
-                result = quiet_map(topography, bouguer, window=window, step=window / 2)
+                result = quiet_map(
+                    topography, bouguer, window=window, step=window / 2, method=method
+                )
                 errors.append((result["te"].values / truth - 1).ravel())
                 hits.append(
                     ((result["te_low"] <= truth) & (truth <= result["te_high"])).values.ravel()
@@ -133,9 +142,6 @@ def two_domains(seeds: int) -> dict[float, tuple[np.ndarray, np.ndarray]]:
                 line.append(f"the default takes x {times['default'] / elapsed:.2f} this time")
             print(f"   window {window / 1e3:5.0f} km, {name}: {'; '.join(line)}; {elapsed:.1f} s")
     return profiles
-
-
-METHOD_WINDOWS = (1200e3, 2400e3)
 
 
 def domain_lines(
@@ -251,6 +257,7 @@ def plot_methods(out: Path, profiles: dict) -> Path:
 def main(out: Path, seeds: int) -> None:
     out.mkdir(parents=True, exist_ok=True)
     if "--methods" in sys.argv:
+        uniform(seeds, "fan_wavelet", METHOD_WINDOWS)
         print("wrote", plot_methods(out, methods(seeds)))
         return
     medians = uniform(seeds)
