@@ -286,6 +286,7 @@ def fan_wavelet_chunk(
         "quantity": "bouguer",
         "bands_used": int(k_e.size),
         "band_wavenumbers": k_e,
+        "prewhiten": int(spectral["prewhiten"]),
         "azimuths": FAN_AZIMUTHS,
         "central_wavenumber": FAN_K0,
     }

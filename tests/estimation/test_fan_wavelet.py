@@ -82,6 +82,7 @@ def test_same_points_as_the_multitaper_map(two_domains):
     assert_allclose(result["y"].values, multitaper["y"].values)
     assert "fan wavelet" in result.attrs["method"]
     assert result.attrs["bands_used"] == result.attrs["band_wavenumbers"].size
+    assert result.attrs["prewhiten"] == 1 and result.attrs["azimuths"] == 16
 
 
 def test_equivalent_wavenumbers():
