@@ -13,6 +13,7 @@ from rasterio.crs import CRS
 from gridflex.errors import InputError
 from gridflex.estimation.spectral_maps import (
     TE_MAP_BOUNDS,
+    TE_MAP_METHODS,
     TE_MAP_QUANTITIES,
     TE_MAP_SAMPLES,
     te_map,
@@ -81,6 +82,12 @@ TEMAP_SCHEMA: dict[str, dict[str, Key]] = {
             "Bouguer coherence (Forsyth 1985) or free-air admittance",
             "bouguer",
             choices=TE_MAP_QUANTITIES,
+        ),
+        "method": Key(
+            "choice",
+            "local spectra from moving-window multitapers or the fan wavelet transform",
+            "multitaper",
+            choices=TE_MAP_METHODS,
         ),
         "te_min": Key(
             "quantity", "smallest te searched", TE_MAP_BOUNDS[0], "length", minimum=0.0, strict=True
@@ -237,6 +244,7 @@ def temap_scenario(
             window=table["window"],
             step=table["step"],
             quantity=table["quantity"],
+            method=table["method"],
             bounds=(table["te_min"], table["te_max"]),
             samples=table["samples"],
             bands=table["bands"],

@@ -16,9 +16,17 @@ uncorrelated surface and Moho loads, f = 1; 256² cells of 30 km, periodic):
    resolution; for the default (prewhitened, jackknifed), without the jackknife, and
    without either (the te map before both). Cost: the default against the same maps
    without the jackknife (same process).
+3. (``--methods``) The uniform plates of 1. mapped by the fan wavelet, and the same
+   two-domain plates (same seeds) mapped by both methods of ``te_map``
+   (``method="multitaper"`` and ``"fan_wavelet"``, defaults otherwise, centres every
+   300 km; for the fan wavelet *window* is the longest equivalent wavelength, and the
+   interior is the same: points at least half a window from the step and the edges):
+   the error, coverage and interval width in each domain's interior, the step width and
+   the time of each map.
 
-Writes te_map_benchmark.png (window size against resolution and bias) into OUTPUT_DIR.
-Run: PYTHONPATH=. python tests/benchmarks/te_map.py [OUTPUT_DIR] [seeds]
+Writes te_map_benchmark.png (window size against resolution and bias) into OUTPUT_DIR
+(with ``--methods``: only part 3, and te_map_methods.png).
+Run: PYTHONPATH=. python tests/benchmarks/te_map.py [OUTPUT_DIR] [seeds] [--methods]
 """
 
 from __future__ import annotations
@@ -38,6 +46,8 @@ from tests.helpers import two_load_plate
 N, DX = 256, 30e3
 WINDOWS = (1200e3, 1800e3, 2400e3, 3600e3)
 PLATE = gridflex.Plate(te=0.0, crust_thickness=35e3)
+METHOD_WINDOWS = (1200e3, 2400e3)
+"""Windows of the comparison of the methods (part 3)."""
 SEEDS_FROM = 101
 """First seed of the two-domain plates (the tests use other seeds)."""
 
@@ -48,16 +58,22 @@ def quiet_map(topography: xr.DataArray, bouguer: xr.DataArray, **options) -> xr.
         return gridflex.te_map(topography, bouguer, PLATE, **options)
 
 
-def uniform(seeds: int) -> dict[float, list[float]]:
+def uniform(
+    seeds: int, method: str = "multitaper", windows: tuple[float, ...] = WINDOWS
+) -> dict[float, list[float]]:
     """Median error (%) of every window size, per true te."""
-    print("1. uniform plates: te / truth - 1 over all windows (median, 10-90 %), coverage")
+    print(
+        f"1. uniform plates ({method}): te / truth - 1 over all windows (median, 10-90 %), coverage"
+    )
     medians: dict[float, list[float]] = {}
     for truth in (10e3, 25e3, 40e3):
         data = [two_load_plate(truth, N, DX, seed=s, plate=PLATE) for s in range(seeds)]
-        for window in WINDOWS:
+        for window in windows:
             errors, hits = [], []
             for topography, bouguer in data:
-                result = quiet_map(topography, bouguer, window=window, step=window / 2)
+                result = quiet_map(
+                    topography, bouguer, window=window, step=window / 2, method=method
+                )
                 errors.append((result["te"].values / truth - 1).ravel())
                 hits.append(
                     ((result["te_low"] <= truth) & (truth <= result["te_high"])).values.ravel()
@@ -107,38 +123,15 @@ def two_domains(seeds: int) -> dict[float, tuple[np.ndarray, np.ndarray]]:
     for window in WINDOWS:
         times: dict[str, float] = {}
         for name, options in variants.items():
-            found: dict[float, list[np.ndarray]] = {}
-            elapsed, rows = 0.0, []
+            elapsed, rows, results = 0.0, [], []
             for topography, bouguer in data:
                 start = time.perf_counter()
                 result = quiet_map(topography, bouguer, window=window, step=300e3, **options)
                 elapsed += time.perf_counter() - start
                 xc = result["x"].values
                 rows.append(np.median(result["te"].values, axis=0))
-                for low, high, truth in ((0.0, split, 10e3), (split, N * DX, 40e3)):
-                    inside = (xc - window / 2 >= low) & (xc + window / 2 <= high)
-                    if inside.any():
-                        te_w, lo, hi = (
-                            result[v].values[:, inside].ravel() for v in ("te", "te_low", "te_high")
-                        )
-                        found.setdefault(truth, []).append(
-                            np.stack(
-                                [te_w / truth - 1, (lo <= truth) & (truth <= hi), (hi - lo) / te_w]
-                            )
-                        )
-            line = []
-            for truth in (10e3, 40e3):
-                if truth not in found:
-                    line.append(f"te {truth / 1e3:.0f}: no interior window")
-                    continue
-                per_seed = [f[1].mean() for f in found[truth]]
-                err, hit, width = np.concatenate(found[truth], axis=1)
-                line.append(
-                    f"te {truth / 1e3:.0f}: median {100 * np.median(err):+.1f} % "
-                    f"({100 * err.min():+.0f}..{100 * err.max():+.0f}), coverage "
-                    f"{hit.mean():.2f} (per seed {min(per_seed):.2f}..{max(per_seed):.2f}), "
-                    f"median width {np.median(width):.2f} te"
-                )
+                results.append(result)
+            line, _ = domain_lines(results, window, split)
             if name == "default":
                 median_profile = np.median(rows, axis=0)
                 width = step_width(xc, median_profile, split, window)
@@ -148,6 +141,68 @@ def two_domains(seeds: int) -> dict[float, tuple[np.ndarray, np.ndarray]]:
             if name == "no jackknife":
                 line.append(f"the default takes x {times['default'] / elapsed:.2f} this time")
             print(f"   window {window / 1e3:5.0f} km, {name}: {'; '.join(line)}; {elapsed:.1f} s")
+    return profiles
+
+
+def domain_lines(
+    results: list[xr.Dataset], window: float, split: float
+) -> tuple[list[str], dict[float, np.ndarray]]:
+    """Error, coverage and interval width over each domain's interior points (all maps)."""
+    found: dict[float, list[np.ndarray]] = {}
+    for result in results:
+        xc = result["x"].values
+        for low, high, truth in ((0.0, split, 10e3), (split, N * DX, 40e3)):
+            inside = (xc - window / 2 >= low) & (xc + window / 2 <= high)
+            if inside.any():
+                te_w, lo, hi = (
+                    result[v].values[:, inside].ravel() for v in ("te", "te_low", "te_high")
+                )
+                found.setdefault(truth, []).append(
+                    np.stack([te_w / truth - 1, (lo <= truth) & (truth <= hi), (hi - lo) / te_w])
+                )
+    lines, pooled = [], {}
+    for truth in (10e3, 40e3):
+        if truth not in found:
+            lines.append(f"te {truth / 1e3:.0f}: no interior point")
+            continue
+        per_seed = [f[1].mean() for f in found[truth]]
+        pooled[truth] = err, hit, width = np.concatenate(found[truth], axis=1)
+        lines.append(
+            f"te {truth / 1e3:.0f}: median {100 * np.median(err):+.1f} % "
+            f"(10-90 % {100 * np.percentile(err, 10):+.0f}..{100 * np.percentile(err, 90):+.0f}, "
+            f"within 25 %: {np.mean(np.abs(err) <= 0.25):.2f}), coverage {hit.mean():.2f} "
+            f"(per seed {min(per_seed):.2f}..{max(per_seed):.2f}), median width "
+            f"{np.median(width):.2f} te"
+        )
+    return lines, pooled
+
+
+def methods(seeds: int) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    print(f"3. multitaper against fan wavelet, te 10 | 40 km, seeds {SEEDS_FROM}..")
+    x = np.arange(N) * DX
+    split = N // 2 * DX
+    te = np.where(x < split, 10e3, 40e3)[None, :] * np.ones((N, 1))
+    data = [
+        two_load_plate(te, N, DX, seed=SEEDS_FROM + s, plate=PLATE, refine=3) for s in range(seeds)
+    ]
+    profiles = {}
+    for window in METHOD_WINDOWS:
+        for method in ("multitaper", "fan_wavelet"):
+            results, elapsed = [], 0.0
+            for topography, bouguer in data:
+                start = time.perf_counter()
+                results.append(
+                    quiet_map(topography, bouguer, window=window, step=300e3, method=method)
+                )
+                elapsed += time.perf_counter() - start
+            lines, _ = domain_lines(results, window, split)
+            xc = results[0]["x"].values
+            median_profile = np.median([np.median(r["te"].values, axis=0) for r in results], 0)
+            profiles[f"{method}, {window / 1e3:.0f} km"] = (xc, median_profile)
+            lines.append(f"step width {step_width(xc, median_profile, split, window) / 1e3:.0f} km")
+            lines.append(f"{elapsed / seeds:.1f} s a map")
+            print(f"   {method:11s} window {window / 1e3:5.0f} km: {'; '.join(lines)}")
+            print(f"      row-median profile (km): {np.round(median_profile / 1e3, 1).tolist()}")
     return profiles
 
 
@@ -179,15 +234,37 @@ def plot(out: Path, medians: dict[float, list[float]], profiles: dict) -> Path:
     return path
 
 
+def plot_methods(out: Path, profiles: dict) -> Path:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(7, 4.5), constrained_layout=True)
+    x = np.arange(N) * DX
+    ax.plot(x / 1e3, np.where(x < N // 2 * DX, 10.0, 40.0), "k-", lw=2, label="truth")
+    for name, (xc, te) in profiles.items():
+        ax.plot(xc / 1e3, te / 1e3, "o-", ms=3, label=name)
+    ax.set_xlabel("x (km)")
+    ax.set_ylabel("te, median over rows and seeds (km)")
+    ax.set_title("multitaper against fan wavelet: the 10 | 40 km step")
+    ax.legend(fontsize="small")
+    path = out / "te_map_methods.png"
+    fig.savefig(path, dpi=110)
+    return path
+
+
 def main(out: Path, seeds: int) -> None:
     out.mkdir(parents=True, exist_ok=True)
+    if "--methods" in sys.argv:
+        uniform(seeds, "fan_wavelet", METHOD_WINDOWS)
+        print("wrote", plot_methods(out, methods(seeds)))
+        return
     medians = uniform(seeds)
     profiles = two_domains(seeds)
     print("wrote", plot(out, medians, profiles))
 
 
 if __name__ == "__main__":
-    main(
-        Path(sys.argv[1]) if len(sys.argv) > 1 else Path("."),
-        int(sys.argv[2]) if len(sys.argv) > 2 else 2,
-    )
+    args = [a for a in sys.argv[1:] if a != "--methods"]
+    main(Path(args[0]) if args else Path("."), int(args[1]) if len(args) > 1 else 2)

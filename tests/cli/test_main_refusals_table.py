@@ -445,6 +445,7 @@ ROWS: list[tuple[str, str, dict[tuple, Any], list[str], str]] = [
     *_each("temap", "temap", ("temap", "window"), [*NOT_NUMBERS, "-10 km", "1 kg"], "window"),
     *_each("temap", "temap", ("temap", "step"), ["x", "0 km", "1 s"], "step"),
     *_each("temap", "temap", ("temap", "quantity"), ["banana", 3], "quantity"),
+    *_each("temap", "temap", ("temap", "method"), ["wavelet", 3], "method"),
     *_each("temap", "temap", ("temap", "samples"), [2, 2.5, "x"], "samples"),
     *_each("temap", "temap", ("data", "topography_file"), ["nope.nc", "folder"], "topography_file"),
     ("temap", "temap", {("data", "anomaly_variable"): "missing"}, [], "no variable 'missing'"),

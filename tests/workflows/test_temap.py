@@ -83,3 +83,27 @@ def test_temap_refusals(inputs, capsys):
     (inputs / "big.toml").write_text(SCENARIO.replace('"2400 km"', '"9000 km"').format(extra=""))
     assert main(["temap", str(inputs / "big.toml"), "--overwrite"]) == 2
     assert "window" in capsys.readouterr().err
+
+
+def test_temap_fan_wavelet(inputs, capsys):
+    """``method = "fan_wavelet"`` reaches :func:`gridflex.te_map`: the same centres, the
+    method in the file's attributes; synthetic recovery of Forsyth's (1985) two-load
+    model on the uniform 20 km plate within 25 % (issue 19 target; Kirby & Swain 2011
+    for the method), the median of the four points."""
+    extra = 'method = "fan_wavelet"\nwindow = "1200 km"\n'
+    text = SCENARIO.replace('window = "2400 km"\n', "").format(extra=extra)
+    text = text.replace('file = "out/te.nc"', 'file = "fw/te.nc"')
+    (inputs / "fw.toml").write_text(text)
+    assert main(["temap", str(inputs / "fw.toml"), "--overwrite"]) == 0
+    result = read_result(inputs / "fw" / "te.nc")
+    assert "fan wavelet" in result.attrs["method"]
+    assert_allclose(np.median(result["te"].values), TE, rtol=0.25)
+    (inputs / "ff.toml").write_text(
+        text.replace(
+            "[output]",
+            'quantity = "free_air"\n'
+            'seafloor_depth = "4 km"\ntopography_contrast = "1670 kg/m3"\n[output]',
+        )
+    )
+    assert main(["temap", str(inputs / "ff.toml"), "--overwrite"]) == 2
+    assert "fits quantity 'bouguer' only" in capsys.readouterr().err
