@@ -120,6 +120,7 @@ from gridflex.progress import Progress
 from gridflex.validation import check_choice, check_flag, check_integer, check_number
 
 __all__ = [
+    "TE_MAP_BANDWIDTH",
     "TE_MAP_BOUNDS",
     "TE_MAP_METHODS",
     "TE_MAP_QUANTITIES",
@@ -141,6 +142,9 @@ TE_MAP_BOUNDS = (1e3, 1.5e5)
 
 TE_MAP_SAMPLES = 31
 """Default number of log-spaced trial te of the coarse search of every window."""
+
+TE_MAP_BANDWIDTH = 2.0
+"""Default time-bandwidth product NW of the multitapers of every window."""
 
 _MIN_WINDOW_CELLS = 16
 """Fewest cells along a window's side."""
@@ -513,7 +517,7 @@ def te_map(
     bounds: tuple[float, float] = TE_MAP_BOUNDS,
     samples: int = TE_MAP_SAMPLES,
     bands: int = 16,
-    bandwidth: float = 2.0,
+    bandwidth: float = TE_MAP_BANDWIDTH,
     tapers: int | None = None,
     wavenumber_range: tuple[float, float] | None = None,
     moho_depth: float | None = None,
@@ -584,10 +588,11 @@ def te_map(
         ``"multitaper"``: the moving windows above. ``"fan_wavelet"``: Morlet wavelets
         in a fan of azimuths (Kirby & Swain 2011; :mod:`gridflex.estimation.fan_wavelet`),
         evaluated at the same centres, Bouguer coherence only; *window* sets the longest
-        equivalent wavelength, *bands* the number of scales, *bandwidth* and *tapers*
-        are not used. Measured on two-domain plates (10 | 40 km): the step 190-200 km
-        wide against 465-926 km, but te -12 to -14 % in the interiors against -2 to
-        -14 %, and intervals 3-7 times wider (``tests/benchmarks/te_map.py``).
+        equivalent wavelength, *bands* the number of scales; *bandwidth* and *tapers*
+        must stay at their defaults (refused otherwise). Measured on two-domain plates
+        (10 | 40 km): the step 190-200 km wide against 465-926 km, but te -12 to -14 %
+        in the interiors against -2 to -14 %, and intervals 3-7 times wider
+        (``tests/benchmarks/te_map.py``).
     progress : callable, optional
         ``progress(done, total)`` after each window.
 
@@ -628,6 +633,13 @@ def te_map(
     if method == "fan_wavelet" and quantity != "bouguer":
         raise InputError(
             f"method 'fan_wavelet' fits quantity 'bouguer' only, got quantity {quantity!r}"
+        )
+    if method == "fan_wavelet" and (tapers is not None or bandwidth != TE_MAP_BANDWIDTH):
+        # refused rather than ignored: a user who set them expects them to act
+        raise InputError(
+            "bandwidth and tapers set the multitaper's tapers; method 'fan_wavelet' has "
+            f"none (got bandwidth {bandwidth!r}, tapers {tapers!r}): leave them at their "
+            "defaults"
         )
     fit = _Fit((low, high), samples, confidence, jackknife)
     shape = (

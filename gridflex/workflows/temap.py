@@ -12,6 +12,7 @@ from rasterio.crs import CRS
 
 from gridflex.errors import InputError
 from gridflex.estimation.spectral_maps import (
+    TE_MAP_BANDWIDTH,
     TE_MAP_BOUNDS,
     TE_MAP_METHODS,
     TE_MAP_QUANTITIES,
@@ -97,7 +98,13 @@ TEMAP_SCHEMA: dict[str, dict[str, Key]] = {
         ),
         "samples": Key("integer", "log-spaced trial te of each window", TE_MAP_SAMPLES, minimum=3),
         "bands": Key("integer", "wavenumber annuli of each window", 16, minimum=3),
-        "bandwidth": Key("number", "time-bandwidth product NW of the tapers", 2.0, minimum=1.0),
+        "bandwidth": Key(
+            "number", "time-bandwidth product NW of the tapers", TE_MAP_BANDWIDTH, minimum=1.0
+        ),
+        "jackknife": Key(
+            "bool", "add the delete-one-sector jackknife spread to the te interval", True
+        ),
+        "prewhiten": Key("bool", "difference the grids before the spectra", True),
         "confidence": Key(
             "number",
             "confidence of the te intervals",
@@ -253,6 +260,8 @@ def temap_scenario(
             gravity=gravity,
             topography_contrast=table["topography_contrast"],
             confidence=table["confidence"],
+            jackknife=table["jackknife"],
+            prewhiten=table["prewhiten"],
             progress=progress,
         )
     crs = _crs(str(topography.attrs.get("crs_wkt", "")))

@@ -121,6 +121,12 @@ def test_refusals(two_domains):
     topography, bouguer, _ = two_domains
     with pytest.raises(InputError, match="method"):
         gridflex.te_map(topography, bouguer, PLATE, window=WINDOW, method="wavelet")
+    # the multitaper's taper settings are refused, not silently ignored
+    for taper_settings in ({"tapers": 3}, {"bandwidth": 3.0}):
+        with pytest.raises(InputError, match="bandwidth and tapers.*fan_wavelet"):
+            gridflex.te_map(
+                topography, bouguer, PLATE, window=WINDOW, method="fan_wavelet", **taper_settings
+            )
     with pytest.raises(InputError, match="fan_wavelet.*free_air"):
         gridflex.te_map(
             topography,

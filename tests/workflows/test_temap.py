@@ -107,3 +107,29 @@ def test_temap_fan_wavelet(inputs, capsys):
     )
     assert main(["temap", str(inputs / "ff.toml"), "--overwrite"]) == 2
     assert "fits quantity 'bouguer' only" in capsys.readouterr().err
+    (inputs / "fb.toml").write_text(text.replace("[output]", "bandwidth = 3.0\n[output]"))
+    assert main(["temap", str(inputs / "fb.toml"), "--overwrite"]) == 2
+    assert "[temap]" in (err := capsys.readouterr().err) and "bandwidth and tapers" in err
+
+
+def test_temap_jackknife_and_prewhiten_keys_reach_the_map(inputs, capsys):
+    """``jackknife = false`` leaves the misfit interval alone, which the jackknife's is
+    never narrower than (both added in quadrature; Thomson & Chave 1991 for the
+    jackknife); ``prewhiten = false`` changes the estimate."""
+    outputs = {}
+    for name, extra in (
+        ("default", ""),
+        ("nojack", "jackknife = false\n"),
+        ("raw", "prewhiten = false\n"),
+    ):
+        text = SCENARIO.format(extra=extra).replace('file = "out/te.nc"', f'file = "{name}/te.nc"')
+        (inputs / f"{name}.toml").write_text(text)
+        assert main(["temap", str(inputs / f"{name}.toml"), "--overwrite"]) == 0
+        outputs[name] = read_result(inputs / name / "te.nc")
+    default, nojack, raw = outputs["default"], outputs["nojack"], outputs["raw"]
+    assert_allclose(nojack["te"].values, default["te"].values)
+    width = (default["te_high"] - default["te_low"]).values
+    misfit_only = (nojack["te_high"] - nojack["te_low"]).values
+    assert np.all(misfit_only <= width * (1 + 1e-9)) and np.any(misfit_only < width)
+    assert not np.allclose(raw["te"].values, default["te"].values)
+    assert default.attrs["interval"] != nojack.attrs["interval"]
