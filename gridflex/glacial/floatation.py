@@ -122,19 +122,8 @@ class IceLoad:
         )
 
     def change(self, ice: ArrayLike, level: ArrayLike, w: ArrayLike) -> np.ndarray:
-        """sigma − sigma_ref (Pa), the load that drives the plate.
-
-        The same operations as :func:`bed_stress` in the same order (so the same bits),
-        done in place on two arrays: this runs twice per step of a coupled model."""
-        out = np.subtract(self.bed, w, dtype=np.float64)  # bed now
-        np.subtract(level, out, out=out)
-        np.maximum(out, 0.0, out=out)
-        out *= self.water_density
-        weight = np.multiply(self.ice_density, ice, dtype=np.float64)
-        np.maximum(weight, out, out=out)
-        out *= self.gravity
-        out -= self.reference_stress
-        return out
+        """sigma − sigma_ref (Pa), the load that drives the plate."""
+        return self.stress(ice, level, w) - self.reference_stress
 
     def grounded(self, ice: ArrayLike, level: ArrayLike, w: ArrayLike) -> np.ndarray:
         """Where *ice* rests on the bed moved down by *w*."""

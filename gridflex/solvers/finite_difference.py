@@ -13,7 +13,7 @@ from __future__ import annotations
 import logging
 import math
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -45,7 +45,6 @@ from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
 from gridflex.validation import check_choice, check_integer, check_number
 
 __all__ = [
-    "combined_start",
     "AXIS_EDGES",
     "BAND_FLEXURAL_PARAMETERS",
     "BREAK_FLEXURAL_PARAMETERS",
@@ -490,7 +489,6 @@ class FiniteDifferenceSolver:
         *,
         tolerance: float | None = None,
         progress: Progress | None = None,
-        earlier: Sequence[tuple[np.ndarray, np.ndarray]] = (),
         history: SolutionHistory | None = None,
         start_product: np.ndarray | None = None,
     ) -> tuple[np.ndarray, dict[str, Any]]:
@@ -502,9 +500,6 @@ class FiniteDifferenceSolver:
             q (Pa, positive down) on the solve grid.
         start : numpy.ndarray, shape :attr:`shape`, optional
             First guess of w (m); zero by default.
-        earlier : sequence of (deflection, load) pairs, optional
-            Without *start*: earlier solutions of this solver (on the solve grid) whose
-            best combination (:func:`combined_start`) is the first guess.
         history : SolutionHistory, optional
             Without *start*: earlier solutions of this solver with their products; their
             best combination is the first guess (no operator product taken for it), and
@@ -539,10 +534,6 @@ class FiniteDifferenceSolver:
             combined = history.start(rhs)
             if combined is not None:
                 start, product = combined
-        if start is None and earlier:
-            start = combined_start(
-                [w for w, _ in earlier], [operator.area * q for _, q in earlier], rhs
-            )
         with single_threaded_blas():
             first = preconditioner.initial_guess(rhs, start, self.apply, product)
             try:
@@ -600,42 +591,6 @@ def galerkin_coefficients(gram: np.ndarray, projected: np.ndarray) -> np.ndarray
     if not keep.any():
         return None
     return np.asarray(vectors[:, keep] @ ((vectors[:, keep].T @ projected) / values[keep]))
-
-
-def combined_start(
-    solutions: Sequence[np.ndarray], loads: Sequence[np.ndarray], load: np.ndarray
-) -> np.ndarray | None:
-    """A start for K w = *load* from earlier solutions of K wᵢ = *loads*ᵢ.
-
-    The Galerkin combination w₀ = Σ cᵢ wᵢ, (W K W) c = W·load, the best start in the energy
-    norm within the span of the wᵢ, with K wᵢ taken as *loads*ᵢ (the wᵢ were solved to a small
-    residual), so it costs dot products only. For a load that changes smoothly through time
-    (an ice history) the previous solutions span most of the next one. Directions the
-    earlier solutions barely distinguish (relative eigenvalue below 1e-10) are dropped
-    (:func:`galerkin_coefficients`).
-
-    Parameters
-    ----------
-    solutions, loads : sequence of numpy.ndarray
-        Earlier solutions and their right-hand sides, of *load*'s shape.
-    load : numpy.ndarray
-        The new right-hand side.
-
-    Returns
-    -------
-    numpy.ndarray or None
-        The start, or None when there is nothing to combine.
-    """
-    if not solutions:
-        return None
-    gram = np.array([[dot(w, q) for q in loads] for w in solutions])
-    coefficients = galerkin_coefficients(gram, np.array([dot(w, load) for w in solutions]))
-    if coefficients is None:
-        return None
-    start = np.zeros(load.shape)
-    for c, w in zip(coefficients, solutions):
-        start += c * w
-    return start
 
 
 @dataclass(eq=False)

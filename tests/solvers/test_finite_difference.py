@@ -20,6 +20,7 @@ from gridflex.solvers.finite_difference import (
     AXIS_EDGES,
     FiniteDifferenceSolver,
     PlateOperator,
+    SolutionHistory,
     area_weights,
     finite_difference_deflection,
     pad_rigidity,
@@ -457,16 +458,22 @@ def test_earlier_solutions_combine_into_the_start_of_a_load_in_their_span() -> N
     loads[0][40:50, 30:40] = 1e7
     loads[1][60:66, 52:70] = 2e7
     loads[2][30:36, 60:70] = 1e7
-    earlier = [(solver.solve_full(q)[0], q) for q in loads[:2]]
+
+    def earlier() -> SolutionHistory:
+        kept = SolutionHistory(size=4)
+        for q in loads[:2]:
+            solver.solve_full(q, history=kept)
+        return kept
+
     inside = 0.3 * loads[0] - 0.7 * loads[1]
     w_plain, plain = solver.solve_full(inside)
-    w_warm, warm = solver.solve_full(inside, earlier=earlier)
+    w_warm, warm = solver.solve_full(inside, history=earlier())
     assert warm["iterations"] <= 1 < plain["iterations"]
     peak = float(np.abs(w_plain).max())
     assert_allclose(w_warm, w_plain, rtol=0, atol=1e-5 * peak)
     outside = inside + loads[2]
     w_plain, plain = solver.solve_full(outside)
-    w_warm, warm = solver.solve_full(outside, earlier=earlier)
+    w_warm, warm = solver.solve_full(outside, history=earlier())
     assert warm["iterations"] <= plain["iterations"]
     assert_allclose(w_warm, w_plain, rtol=0, atol=1e-5 * float(np.abs(w_plain).max()))
 
