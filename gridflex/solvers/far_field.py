@@ -84,6 +84,13 @@ _TOP = 6.0  # last node, in k_g: the tapers there are below 2e-13
 _DECADES = 10.0  # nodes from 1e-10 k_g: the part below weighs < F k_min^2 / (4 pi Δρ g)
 _PER_DECADE = 48
 _RADIAL_STEP = 1.0 / 128.0  # radial grid spacing, in 1 / k_g
+_SERIES_REACH = 0.1
+"""Nodes with k r <= this at the farthest radius are summed through the power series of
+J_n (Abramowitz & Stegun 1964, 9.1.10) instead of one matrix column each: with
+:data:`_SERIES_TERMS` terms the first term left out is below 1e-23 of the first, and
+about three quarters of the nodes (all that lie decades below k_g) become a few columns,
+so a field costs a quarter of the reads of the full matrices."""
+_SERIES_TERMS = 6
 
 
 def step_factors(
@@ -139,6 +146,131 @@ def _interpolation_matrix(
     return scipy.sparse.csr_matrix((values, columns, pointers), shape=(cells, _PROFILES * n_r))
 
 
+@dataclass
+class _SymmetricWindow:
+    """Linear interpolation of the stacked radial profiles onto the window, whose cell
+    offsets from the centre are symmetric: one sparse product gives, on one quadrant
+    (rows and columns up to the centre), the parts that keep their sign in every
+    quadrant (monopole and cos 2φ) and the three that change it (sin 2φ, cos φ_y,
+    cos φ_x); the four quadrants are their signed sums. A quarter of the entries of a
+    matrix over every cell, no dense products."""
+
+    shape: tuple[int, int]
+    matrix: scipy.sparse.csr_matrix
+    """(4 x quadrant cells, stacked profiles): the parts even, sin 2φ, cos φ_y, cos φ_x."""
+
+    @classmethod
+    def build(cls, oy: np.ndarray, ox: np.ndarray, step: float, n_r: int) -> _SymmetricWindow:
+        """For offsets *oy*, *ox* (m, increasing, symmetric about 0) and a radial grid of
+        *n_r* points *step* apart (m)."""
+        hy, hx = (oy.size + 1) // 2, (ox.size + 1) // 2
+        cells = hy * hx
+        # ten entries of 12 bytes per quadrant cell, their build, the parts
+        check_memory(240.0 * cells, f"far-field interpolation on {cells} cells")
+        yy, xx = oy[:hy, None], ox[None, :hx]
+        r = np.hypot(yy, xx).ravel()
+        position = r / step
+        index = np.minimum(position.astype(np.int64), n_r - 2)
+        fraction = position - index
+        below = 1.0 - fraction
+        safe = np.where(r > 0, r, 1.0)
+        cos_y = np.where(r > 0, np.broadcast_to(yy, (hy, hx)).ravel() / safe, 0.0)
+        cos_x = np.where(r > 0, np.broadcast_to(xx, (hy, hx)).ravel() / safe, 0.0)
+        cos_2, sin_2 = cos_x**2 - cos_y**2, 2.0 * cos_x * cos_y
+
+        def pair(profile: int, factor: np.ndarray | float) -> tuple[np.ndarray, np.ndarray]:
+            first = index + profile * n_r
+            columns = np.stack([first, first + 1], axis=1)
+            return columns, np.stack([below * factor, fraction * factor], axis=1)
+
+        # profiles: 0 monopole, 1 dipole y, 2 dipole x, 3 cos 2φ, 4 sin 2φ
+        (c0, v0), (c3, v3) = pair(0, 1.0), pair(3, cos_2)
+        parts = [
+            (np.concatenate([c0, c3], axis=1), np.concatenate([v0, v3], axis=1)),
+            pair(4, sin_2),
+            pair(1, cos_y),
+            pair(2, cos_x),
+        ]
+        columns = np.concatenate([c.ravel() for c, _ in parts])
+        values = np.concatenate([v.ravel() for _, v in parts])
+        counts = np.repeat([4, 2, 2, 2], cells)
+        pointers = np.concatenate([[0], np.cumsum(counts)])
+        matrix = scipy.sparse.csr_matrix(
+            (values, columns, pointers), shape=(4 * cells, _PROFILES * n_r)
+        )
+        return cls((oy.size, ox.size), matrix)
+
+    def field(self, profiles: np.ndarray) -> np.ndarray:
+        """The field (window shape) of the stacked profiles (see :data:`_PROFILES`)."""
+        ny, nx = self.shape
+        hy, hx = (ny + 1) // 2, (nx + 1) // 2
+        even, odd_both, along_y, along_x = (self.matrix @ profiles).reshape(4, hy, hx)
+        plus, minus = even + odd_both, even - odd_both
+        same, opposite = along_y + along_x, along_y - along_x
+        out = np.empty(self.shape)
+        # the middle row or column of an odd size is written twice with equal values
+        np.add(plus, same, out=out[:hy, :hx])
+        np.subtract(minus, opposite, out=out[ny - hy :, :hx][::-1])
+        np.add(minus, opposite, out=out[:hy, nx - hx :][:, ::-1])
+        np.subtract(plus, same, out=out[ny - hy :, nx - hx :][::-1, ::-1])
+        return out
+
+
+def _series_split(
+    nodes: np.ndarray, order: int, weights: np.ndarray, radii: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Hankel sum of *order* over *nodes* with *weights*, J_n(k r) weights_k at *radii*,
+    as ``(matrix, series, low)``: the columns of the nodes above the series' reach, then
+    :data:`_SERIES_TERMS` columns (r / R)^(n + 2j); *series* (terms x low nodes) maps the
+    low nodes' modes onto those columns; *low* marks them."""
+    reach = float(radii[-1])  # > 0: the radial grid has at least two points
+    low = nodes * reach <= _SERIES_REACH
+    high = ~low
+    dense = special.jv(order, radii[:, None] * nodes[None, high]) * weights[high]
+    j = np.arange(_SERIES_TERMS)
+    powers = order + 2 * j
+    scaled = (radii / reach)[:, None] ** powers[None, :]
+    coefficients = (-1.0) ** j / (special.factorial(j) * special.factorial(j + order))
+    half = 0.5 * nodes[low] * reach
+    series = coefficients[:, None] * half[None, :] ** powers[:, None] * weights[low]
+    return np.concatenate([dense, scaled], axis=1), series, low
+
+
+@dataclass
+class _HankelSum:
+    """One Hankel sum on the radial grid: Σ_k J_n(k r) w_k m_k for mode vectors m."""
+
+    matrix: np.ndarray
+    series: np.ndarray
+    low: np.ndarray
+
+    @classmethod
+    def build(
+        cls, nodes: np.ndarray, order: int, weights: np.ndarray, radii: np.ndarray
+    ) -> _HankelSum:
+        """See :func:`_series_split`."""
+        return cls(*_series_split(nodes, order, weights, radii))
+
+    def reduced(self, modes: np.ndarray) -> np.ndarray:
+        """*modes* (..., nodes) as the matrix's columns: the high nodes, then the series
+        terms of the low ones."""
+        if not self.low.any():
+            return modes
+        return np.concatenate(
+            [modes[..., ~self.low], np.einsum("tk,...k->...t", self.series, modes[..., self.low])],
+            axis=-1,
+        )
+
+    def apply(self, modes: np.ndarray) -> np.ndarray:
+        """Σ_k J_n(k r) w_k m_k at every radius, for one mode vector or a stack of them."""
+        # one einsum per vector, not BLAS (a small matrix-vector product in BLAS costs a
+        # thread start-up) and not one einsum over the stack (a slower loop in numpy)
+        reduced = self.reduced(modes)
+        if reduced.ndim == 1:
+            return np.einsum("rk,k->r", self.matrix, reduced)
+        return np.stack([np.einsum("rk,k->r", self.matrix, m) for m in reduced])
+
+
 def _force_taper(x: np.ndarray) -> np.ndarray:
     """exp(−x²) (1 + x² + x⁴ / 2): 1 − taper = O(x⁶), Gaussian tail in real space."""
     x2 = x * x
@@ -166,14 +298,14 @@ class FarField:
     nodes: np.ndarray
     rates: np.ndarray
     transfer: np.ndarray
-    hankel0: np.ndarray
-    hankel1: np.ndarray
-    hankel_trace: np.ndarray
-    hankel2: np.ndarray
+    hankel0: _HankelSum
+    hankel1: _HankelSum
+    hankel_trace: _HankelSum
+    hankel2: _HankelSum
     rows: np.ndarray
     cols: np.ndarray
     kernels: np.ndarray
-    interpolation: scipy.sparse.csr_matrix
+    window: _SymmetricWindow
     offsets: tuple[np.ndarray, np.ndarray]
     radial_step: float
     cell_area: float
@@ -212,17 +344,15 @@ class FarField:
             reach = max(reach, float(np.hypot(ny_pad * spec.dy, nx_pad * spec.dx)) / 2)
         step = _RADIAL_STEP / k_g
         radii = np.arange(int(np.ceil(reach / step)) + 2) * step
-        kr = radii[:, None] * nodes[None, :]
         common = weights * nodes / (2.0 * np.pi)
-        j0 = special.j0(kr)
-        hankel0 = j0 * (common * taper)
         moment_common = common * moment_taper
-        hankel1 = special.j1(kr) * (moment_common * nodes)
-        hankel_trace = j0 * (moment_common * (-0.25 * nodes**2))
-        hankel2 = special.jv(2, kr) * (moment_common * (0.5 * nodes**2))
+        hankel0 = _HankelSum.build(nodes, 0, common * taper, radii)
+        hankel1 = _HankelSum.build(nodes, 1, moment_common * nodes, radii)
+        hankel_trace = _HankelSum.build(nodes, 0, moment_common * (-0.25 * nodes**2), radii)
+        hankel2 = _HankelSum.build(nodes, 2, moment_common * (0.5 * nodes**2), radii)
         oy = np.arange(spec.ny) * spec.dy - cy
         ox = np.arange(spec.nx) * spec.dx - cx
-        interpolation = _interpolation_matrix(oy, ox, step, radii.size)
+        window = _SymmetricWindow.build(oy, ox, step, radii.size)
         # low-wavenumber block of the FFT grid where phi is not negligible
         top = _TOP * k_g
         my = min(int(np.ceil(top * ny_pad * spec.dy / (2 * np.pi))), ny_pad // 2 - 1)
@@ -258,7 +388,7 @@ class FarField:
             rows,
             cols,
             kernels,
-            interpolation,
+            window,
             (oy, ox),
             step,
             spec.cell_area,
@@ -310,7 +440,7 @@ class FarField:
         ly, lx = shape[0] * dy, shape[1] * dx
         gy = (np.arange(shape[0]) * dy - cy + ly / 2) % ly - ly / 2
         gx = (np.arange(shape[1]) * dx - cx + lx / 2) % lx - lx / 2
-        return _interpolation_matrix(gy, gx, self.radial_step, self.hankel0.shape[0])
+        return _interpolation_matrix(gy, gx, self.radial_step, self.hankel0.matrix.shape[0])
 
     def real_basis(self, shape: tuple[int, int]) -> np.ndarray:
         """The loads (per unit sum of :meth:`sums`, on the periodic grid *shape*) that
@@ -358,19 +488,17 @@ class FarField:
 
     # -- fields ---------------------------------------------------------------------
     def _radial(self, modes: np.ndarray) -> np.ndarray:
-        # einsum, not BLAS: a small matrix-vector product in BLAS costs a thread start-up
+        """The stacked radial profiles (see :data:`_PROFILES`) of *modes*."""
         return np.concatenate(
             [
-                np.einsum("rk,k->r", self.hankel0, modes[0])
-                + np.einsum("rk,k->r", self.hankel_trace, modes[3]),
-                np.einsum("rk,jk->jr", self.hankel1, modes[1:3]).ravel(),
-                np.einsum("rk,jk->jr", self.hankel2, modes[4:6]).ravel(),
+                self.hankel0.apply(modes[0]) + self.hankel_trace.apply(modes[3]),
+                self.hankel1.apply(modes[1:3]).ravel(),
+                self.hankel2.apply(modes[4:6]).ravel(),
             ]
         )
 
     def _field(self, modes: np.ndarray) -> np.ndarray:
-        ny, nx = self.offsets[0].size, self.offsets[1].size
-        return self.field_with(self.interpolation, modes).reshape(ny, nx)
+        return self.window.field(self._radial(modes))
 
     def field(self) -> np.ndarray:
         """Deflection (m) of the far part on the window now."""

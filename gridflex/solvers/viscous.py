@@ -456,11 +456,18 @@ def padded_forward(
     built in it and returned as a view of it: a reused array spares the allocation and
     the first-touch page faults of a fresh one (a quarter of a transform's time on
     1024² grids, measured)."""
-    rows = scipy.fft.rfft(np.asarray(values, dtype=np.float64), n=shape[1], axis=1, workers=-1)
+    values = np.asarray(values, dtype=np.float64)
     if out is None:
+        rows = scipy.fft.rfft(values, n=shape[1], axis=1, workers=-1)
         return scipy.fft.fft(rows, n=shape[0], axis=0, workers=-1, overwrite_x=True)
-    out[: rows.shape[0]] = rows
-    out[rows.shape[0] :] = 0.0
+    # the zero-padded rows are laid out in *out*'s own memory (as floats): no padded copy
+    ny, nx = values.shape
+    real = out.view(np.float64)[:ny, : shape[1]]
+    real[:, :nx] = values
+    real[:, nx:] = 0.0
+    rows = scipy.fft.rfft(real, axis=1, workers=-1)
+    out[:ny] = rows
+    out[ny:] = 0.0
     return scipy.fft.fft(out, axis=0, workers=-1, overwrite_x=True)
 
 

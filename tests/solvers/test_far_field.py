@@ -159,3 +159,40 @@ def test_split_equilibrium_equals_the_unsplit_response():
     transfer = 1.0 / (D * (kx**2 + ky**2) ** 2 + STIFFNESS)
     plain = np.fft.irfft2(np.fft.rfft2(load, s=big) * transfer, s=big)[: spec.ny, : spec.nx]
     assert np.abs(split - plain).max() < 1e-4 * np.abs(plain).max()
+
+
+@pytest.mark.parametrize(("ny", "nx"), [(24, 30), (25, 31), (7, 40)])
+def test_window_by_quadrant_symmetry_equals_interpolation_on_every_cell(ny, nx):
+    # The window's field is taken on one quadrant and mirrored with the signs of the
+    # angular factors (cos phi_y, cos phi_x, sin 2 phi are odd under a mirror; common
+    # practice); it must equal the plain interpolation onto every cell, odd sizes too.
+    from gridflex.solvers.far_field import _interpolation_matrix
+
+    spec = GridSpec(ny, nx, 20e3, 25e3)
+    far = FarField.build(spec, (3 * ny, 3 * nx), D, STIFFNESS, ETA)
+    profiles = np.random.default_rng(3).normal(size=5 * far.hankel0.matrix.shape[0])
+    oy, ox = far.offsets
+    every_cell = _interpolation_matrix(oy, ox, far.radial_step, far.hankel0.matrix.shape[0])
+    expected = (every_cell @ profiles).reshape(ny, nx)
+    assert_allclose(far.window.field(profiles), expected, rtol=0, atol=1e-13)
+
+
+@pytest.mark.parametrize("order", [0, 1, 2])
+def test_hankel_sums_with_the_series_part_equal_the_full_sums(order):
+    # Nodes far below 1 / r are summed through the power series of J_n (Abramowitz &
+    # Stegun 1964, Handbook of Mathematical Functions, 9.1.10); the sums must equal the
+    # full matrix of J_n(k r) at every radius to round-off, for modes of any shape.
+    from gridflex.solvers.far_field import _HankelSum
+
+    far = FarField.build(SPEC, SHAPE, D, STIFFNESS, ETA)
+    radii = np.arange(far.hankel0.matrix.shape[0]) * far.radial_step
+    weights = np.random.default_rng(4).uniform(0.5, 1.5, far.nodes.size) * far.nodes
+    hankel = _HankelSum.build(far.nodes, order, weights, radii)
+    assert hankel.low.sum() > far.nodes.size // 2  # most nodes go through the series
+    full = special.jv(order, radii[:, None] * far.nodes[None, :]) * weights
+    modes = np.random.default_rng(5).normal(size=(2, far.nodes.size))
+    expected = modes @ full.T
+    assert_allclose(hankel.apply(modes), expected, rtol=0, atol=1e-13 * np.abs(expected).max())
+    assert_allclose(
+        hankel.apply(modes[0]), expected[0], rtol=0, atol=1e-13 * np.abs(expected).max()
+    )
