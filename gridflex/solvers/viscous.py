@@ -34,6 +34,7 @@ Everything here works on numpy arrays in SI units (seconds internally).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -262,9 +263,9 @@ class SpectralRelaxation:
             shape = padded_shape(spec, pad, advice=_PAD_ADVICE)
         n_half = shape[0] * (shape[1] // 2 + 1)
         # per half-spectrum mode, in float64 words: transfer and rates (2), cached step
-        # factors (3 per step length, repeated for re/im: 6 each), state and load spectra
-        # (4), scratch (2), rate factors (4), transform temporaries (6)
-        words = 2 + 6 * _CACHE_STEPS + 4 + 2 + 4 + 6
+        # factors (3 per step length, repeated for re/im on half the rows: 3 each), state
+        # and load spectra (4), scratch (2), rate factors (2), transform temporaries (6)
+        words = 2 + 3 * _CACHE_STEPS + 4 + 2 + 2 + 6
         check_memory(
             8.0 * n_half * words,
             f"time-dependent response on a padded grid of {shape[0]} x {shape[1]}",
@@ -369,18 +370,18 @@ class SpectralRelaxation:
             rates = self.rates
             if isinstance(rates, np.ndarray):
                 rates = np.where(np.isinf(rates), 0.0, rates)
-            self._rate_factors = (_pairs(self.transfer), _pairs(rates))
+            self._rate_factors = (_half_pairs(self.transfer), _half_pairs(rates))
         transfer, rates = self._rate_factors
         load, state = _floats(self.load_spectrum), _floats(self.state)
         work = self._work(state)
 
-        def update(j0: int, j1: int, _thread: int) -> None:
-            out = work[j0:j1]
-            np.multiply(load[j0:j1], _rows(transfer, j0, j1), out=out)
-            out -= state[j0:j1]
-            out *= _rows(rates, j0, j1)
+        def update(rows: slice, factor_rows: slice) -> None:
+            out = work[rows]
+            np.multiply(load[rows], _rows(transfer, factor_rows), out=out)
+            out -= state[rows]
+            out *= _rows(rates, factor_rows)
 
-        for_row_blocks(work.shape[0], block_rows(work.shape[1], work.shape[0]), update)
+        _for_mirrored_rows(work.shape[0], work.shape[1], update)
         out = self.inverse(work.view(np.complex128))  # work is the inverse's work space
         if self.far is not None:
             out += self.far.rate_field()
@@ -400,8 +401,8 @@ class SpectralRelaxation:
         # dt / tau is inf at k = 0 for the half-space
         modes = step_factors(self.rates, self.transfer, dt, self.interpolation)
         # real factors repeated for the (re, im) pairs of the complex spectra: plain
-        # float64 products without a cast of the factor to complex
-        factors = tuple(_pairs(f) for f in modes)
+        # float64 products without a cast of the factor to complex; rows 0 to ny / 2 only
+        factors = tuple(_half_pairs(f) for f in modes)
         if self.far is not None:
             factors = (*factors, self.far.factors(dt, self.interpolation))
         if len(self._factors) >= _CACHE_STEPS:
@@ -429,20 +430,20 @@ class SpectralRelaxation:
         scratch = self._work(state)
         previous = self.interpolation == "previous"
 
-        def update(j0: int, j1: int, _thread: int) -> None:
+        def update(rows: slice, factor_rows: slice) -> None:
             # in blocks of rows: the few passes stay in cache, the threads share them
-            rows, buffer = state[j0:j1], scratch[j0:j1]
-            rows *= _rows(factors[0], j0, j1)
+            out, buffer = state[rows], scratch[rows]
+            out *= _rows(factors[0], factor_rows)
             if previous:
-                np.multiply(after[j0:j1], _rows(factors[1], j0, j1), out=buffer)
-                rows += buffer
+                np.multiply(after[rows], _rows(factors[1], factor_rows), out=buffer)
+                out += buffer
             else:
-                np.multiply(before[j0:j1], _rows(factors[1], j0, j1), out=buffer)
-                rows += buffer
-                np.multiply(after[j0:j1], _rows(factors[2], j0, j1), out=buffer)
-                rows += buffer
+                np.multiply(before[rows], _rows(factors[1], factor_rows), out=buffer)
+                out += buffer
+                np.multiply(after[rows], _rows(factors[2], factor_rows), out=buffer)
+                out += buffer
 
-        for_row_blocks(state.shape[0], block_rows(state.shape[1], state.shape[0]), update)
+        _for_mirrored_rows(state.shape[0], state.shape[1], update)
         self._replace_load_spectrum(new)
 
 
@@ -488,9 +489,37 @@ def window_inverse(
     return np.ascontiguousarray(full[:, :nx])
 
 
-def _rows(factor: np.ndarray | float, j0: int, j1: int) -> np.ndarray | float:
-    """Rows *j0*:*j1* of a per-mode factor; scalars pass through."""
-    return factor[j0:j1] if isinstance(factor, np.ndarray) else factor
+def _rows(factor: np.ndarray | float, rows: slice) -> np.ndarray | float:
+    """Rows *rows* of a per-mode factor; scalars pass through."""
+    return factor[rows] if isinstance(factor, np.ndarray) else factor
+
+
+def _for_mirrored_rows(ny: int, width: int, update: Callable[[slice, slice], None]) -> None:
+    """Call ``update(rows, factor_rows)`` over a spectrum *ny* rows high (*width* floats
+    wide) in cache-sized blocks shared among threads, where the per-mode factors are
+    kept for rows 0 to ny // 2 only (see :func:`_half_pairs`): each block of those rows
+    is followed by its mirror rows ny − j, which have the same factors, so a factor
+    block is read from memory once for two blocks of the spectrum."""
+    half = ny // 2 + 1
+    distinct = (ny + 1) // 2  # rows 1 .. distinct - 1 have a mirror other than themselves
+
+    def run(j0: int, j1: int, _thread: int) -> None:
+        update(slice(j0, j1), slice(j0, j1))
+        a, b = max(j0, 1), min(j1, distinct)
+        if a < b:
+            update(slice(ny - b + 1, ny - a + 1), slice(b - 1, a - 1, -1))
+
+    for_row_blocks(half, block_rows(2 * width, half), run)
+
+
+def _half_pairs(factor: np.ndarray | float) -> np.ndarray | float:
+    """Rows 0 to ny // 2 of a per-mode factor of a half spectrum, each value repeated for
+    the (re, im) pair; scalars pass through. A factor that depends on k_y² (every factor
+    here) is the same in row j and in row ny − j (``numpy.fft.fftfreq`` gives them
+    wavenumbers of opposite sign, exactly)."""
+    if isinstance(factor, np.ndarray):
+        return _pairs(factor[: factor.shape[0] // 2 + 1])
+    return float(factor)
 
 
 def _floats(spectrum: np.ndarray) -> np.ndarray:

@@ -244,7 +244,7 @@ def test_bad_inputs_are_rejected_with_clear_messages():
 def test_history_too_large_for_memory_is_refused(monkeypatch):
     import gridflex.memory
 
-    monkeypatch.setattr(gridflex.memory, "available_memory", lambda: 2**20)
+    monkeypatch.setattr(gridflex.memory, "available_memory", lambda: 2**16)
     with pytest.raises(InputError, match="needs about"):
         viscous_response(_varying_history(), Plate(te=20e3, infill_density=0.0))
 
