@@ -71,6 +71,7 @@ import scipy.fft
 from gridflex.errors import InputError
 from gridflex.grid import GridSpec, wavenumbers_squared
 from gridflex.memory import check_memory
+from gridflex.solvers.blas_threads import single_threaded_blas
 from gridflex.solvers.far_field import MOMENTS, FarField
 from gridflex.solvers.finite_difference import (
     DEFAULT_MAX_ITERATIONS,
@@ -203,6 +204,7 @@ class VariableRelaxation:
     _far_grid: Any = field(default=None, repr=False)
     _far_basis: np.ndarray | None = field(default=None, repr=False)
     _stiffness: float = 0.0
+    _far_cache: tuple[np.ndarray, np.ndarray] | None = field(default=None, repr=False)
 
     @classmethod
     def build(
@@ -362,11 +364,23 @@ class VariableRelaxation:
             modes = sums[:, None] * self.far.cell_area * self.far.transfer
         if not modes.any():
             return full
-        w_far = self.far.field_with(self._far_grid, modes).reshape(self.shape)
+        w_far = self._far_on_grid(modes)
         operator = self.equilibrium_solver.operator
         bent = operator.apply(w_far, np.empty(self.shape))
         full += self._stiffness * w_far - bent / operator.area
         return full
+
+    def _far_on_grid(self, modes: np.ndarray) -> np.ndarray:
+        """The far field (m) of the radial *modes* on the whole solve grid; the last one is
+        kept, since the second stage's modes are those of the state after the step, whose
+        deflection is asked for next (one Hankel evaluation per step saved)."""
+        assert self.far is not None
+        cached = self._far_cache
+        if cached is not None and np.array_equal(cached[0], modes):
+            return cached[1]
+        w_far = self.far.field_with(self._far_grid, modes).reshape(self.shape)
+        self._far_cache = (modes.copy(), w_far)
+        return w_far
 
     def _history(self, solver: FiniteDifferenceSolver) -> SolutionHistory:
         """The kept solutions of *solver*, keyed like :meth:`kept_solutions` (dropped with
@@ -451,8 +465,8 @@ class VariableRelaxation:
         """Current deflection w (m, positive down) on the grid."""
         if self.model == "half-space":
             out = self._window(self.state)
-            if self.far is not None:
-                out += self.far.field()
+            if self.far is not None:  # (on the solve grid: the stage's field, see _far_on_grid)
+                out += self._window(self._far_on_grid(self.far.state))
             return out
         return self.state.copy()
 
@@ -502,7 +516,8 @@ class VariableRelaxation:
         if self.model == "relaxing":
             self._relax(dt, new)
         else:
-            self._half_space(dt, new)
+            with single_threaded_blas():  # entered once for both stages' solves
+                self._half_space(dt, new)
         self.load = new
 
     # -- the two models ---------------------------------------------------------------
@@ -569,7 +584,7 @@ class VariableRelaxation:
                 if far is None or sub_end is None:
                     return self._embed(load)
                 target = sub_end
-                if self.interpolation == "linear":
+                if self.interpolation == "linear" and c != 1.0:
                     target = far.moments + c * (sub_end - far.moments)
                 return self._driving(load, far.modes_after(c * h, target, self.interpolation))
 
