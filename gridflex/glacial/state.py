@@ -91,7 +91,7 @@ ENGINE_FIELDS: dict[type, tuple[frozenset[str], frozenset[str]]] = {
         frozenset(
             {"nodes", "rates", "transfer", "hankel0", "hankel1", "hankel_trace", "hankel2"}
             | {"rows", "cols", "kernels"}
-            | {"interpolation", "offsets", "radial_step", "cell_area"}
+            | {"interpolation", "offsets", "radial_step", "cell_area", "_factors"}
         ),
     ),
 }

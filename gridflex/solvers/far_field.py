@@ -48,7 +48,7 @@ equals −dw/dt of the deflection. Numpy arrays, SI units, times in seconds.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.fft
@@ -57,6 +57,7 @@ from scipy import special
 
 from gridflex.grid import GridSpec
 from gridflex.memory import check_memory
+from gridflex.solvers.blas_threads import single_threaded_blas
 
 __all__ = ["CUTOFF_CYCLES", "MOMENTS", "FarField", "step_factors"]
 
@@ -84,6 +85,19 @@ _TOP = 6.0  # last node, in k_g: the tapers there are below 2e-13
 _DECADES = 10.0  # nodes from 1e-10 k_g: the part below weighs < F k_min^2 / (4 pi Δρ g)
 _PER_DECADE = 48
 _RADIAL_STEP = 1.0 / 128.0  # radial grid spacing, in 1 / k_g
+
+LOW_RANK_TOLERANCE = 1e-14
+"""Largest relative Frobenius-norm error of the low-rank factors Q (Qᵀ H) that replace each
+Hankel matrix H (radii x nodes) in the field evaluations (:meth:`FarField.radial_profiles`).
+The matrices are smooth in r and k: numerical rank 31 to 34 at 1e-12 to 1e-14 of the
+largest singular value for 1709 radii and 517 nodes (the te-grid half-space of
+tests/benchmarks/history.py te-grid), so one evaluation reads about a tenth of the
+numbers."""
+
+LOW_RANK_COLUMNS = (48, 96, 192)
+"""Ranks tried in turn for the factors of :data:`LOW_RANK_TOLERANCE` (random range finder);
+the full matrix is kept when none reaches it or a rank is not below a quarter of the
+nodes."""
 
 
 def step_factors(
@@ -139,6 +153,26 @@ def _interpolation_matrix(
     return scipy.sparse.csr_matrix((values, columns, pointers), shape=(cells, _PROFILES * n_r))
 
 
+def _range_basis(matrix: np.ndarray) -> np.ndarray | None:
+    """An orthonormal basis Q of the numerical column space of *matrix*, with
+    ||matrix − Q Qᵀ matrix||_F <= :data:`LOW_RANK_TOLERANCE` ||matrix||_F, by the random
+    range finder (Halko, Martinsson & Tropp 2011, SIAM Review 53, 217–288, "Finding
+    structure with randomness"; recalled from memory) with a fixed seed; None when no
+    rank of :data:`LOW_RANK_COLUMNS` below a quarter of the columns reaches it."""
+    rng = np.random.default_rng(0)
+    scale = float(np.linalg.norm(matrix))
+    if scale == 0.0:
+        return None
+    for columns in LOW_RANK_COLUMNS:
+        if 4 * columns > matrix.shape[1]:
+            return None
+        basis, _ = np.linalg.qr(matrix @ rng.standard_normal((matrix.shape[1], columns)))
+        error = float(np.linalg.norm(matrix - basis @ (basis.T @ matrix)))
+        if error <= LOW_RANK_TOLERANCE * scale:
+            return np.ascontiguousarray(basis)
+    return None
+
+
 def _force_taper(x: np.ndarray) -> np.ndarray:
     """exp(−x²) (1 + x² + x⁴ / 2): 1 − taper = O(x⁶), Gaussian tail in real space."""
     x2 = x * x
@@ -179,6 +213,7 @@ class FarField:
     cell_area: float
     state: np.ndarray
     moments: np.ndarray
+    _factors: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
 
     @classmethod
     def build(
@@ -334,7 +369,7 @@ class FarField:
 
     def field_with(self, matrix: scipy.sparse.csr_matrix, modes: np.ndarray) -> np.ndarray:
         """Far field (flat, m) of *modes* through an interpolation *matrix*."""
-        return np.asarray(matrix @ self._radial(modes))
+        return np.asarray(matrix @ self.radial_profiles(modes))
 
     def step(self, factors: tuple, new: np.ndarray, interpolation: str) -> None:
         """Advance the radial modes with *factors* (from :func:`step_factors` on
@@ -357,6 +392,51 @@ class FarField:
         return step_factors(self.rates, self.transfer, dt, interpolation)
 
     # -- fields ---------------------------------------------------------------------
+    def _low_rank(self) -> dict[str, np.ndarray]:
+        """Orthonormal bases Q of the column spaces of the Hankel matrices (one for J0,
+        shared by :attr:`hankel0` and :attr:`hankel_trace`, one for J1, one for J2) and
+        the matrices Qᵀ H, made on first use; empty when a matrix has no low-rank form
+        within :data:`LOW_RANK_TOLERANCE`."""
+        if self._factors or "full" in self._factors:
+            return self._factors
+        factors: dict[str, np.ndarray] = {}
+        groups = {
+            "0": (self.hankel0, self.hankel_trace),
+            "1": (self.hankel1,),
+            "2": (self.hankel2,),
+        }
+        with single_threaded_blas():
+            for key, matrices in groups.items():
+                basis = _range_basis(np.hstack(matrices))
+                if basis is None:
+                    self._factors = {"full": np.zeros(0)}
+                    return self._factors
+                factors["q" + key] = basis
+                for i, matrix in enumerate(matrices):
+                    factors[f"b{key}{i}"] = basis.T @ matrix
+        self._factors = factors
+        return factors
+
+    def radial_profiles(self, modes: np.ndarray) -> np.ndarray:
+        """The radial profiles of the field of *modes* (J0 part, then the two J1 and the
+        two J2 parts, each on the radial grid), from the low-rank factors of the Hankel
+        matrices when they have one (:data:`LOW_RANK_TOLERANCE`)."""
+        factors = self._low_rank()
+        if "full" in factors:
+            return self._radial(modes)
+        # einsum, not BLAS: a small matrix-vector product in BLAS costs a thread start-up
+        zero = np.einsum("mk,k->m", factors["b00"], modes[0])
+        zero += np.einsum("mk,k->m", factors["b01"], modes[3])
+        first = np.einsum("mk,jk->jm", factors["b10"], modes[1:3])
+        second = np.einsum("mk,jk->jm", factors["b20"], modes[4:6])
+        return np.concatenate(
+            [
+                np.einsum("rm,m->r", factors["q0"], zero),
+                np.einsum("rm,jm->jr", factors["q1"], first).ravel(),
+                np.einsum("rm,jm->jr", factors["q2"], second).ravel(),
+            ]
+        )
+
     def _radial(self, modes: np.ndarray) -> np.ndarray:
         # einsum, not BLAS: a small matrix-vector product in BLAS costs a thread start-up
         return np.concatenate(

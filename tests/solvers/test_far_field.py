@@ -159,3 +159,20 @@ def test_split_equilibrium_equals_the_unsplit_response():
     transfer = 1.0 / (D * (kx**2 + ky**2) ** 2 + STIFFNESS)
     plain = np.fft.irfft2(np.fft.rfft2(load, s=big) * transfer, s=big)[: spec.ny, : spec.nx]
     assert np.abs(split - plain).max() < 1e-4 * np.abs(plain).max()
+
+
+@pytest.mark.parametrize("whole_grid", [False, True])
+def test_low_rank_hankel_factors_give_the_full_products(whole_grid):
+    # The Hankel matrices are smooth in r and k, so Q (Q^T H) from a random range finder
+    # (Halko, Martinsson & Tropp 2011, SIAM Review 53, "Finding structure with
+    # randomness", from memory) reproduces H m to round-off for the modes of a load
+    # relaxing from the first year to equilibrium; the factors are much smaller than H
+    far = FarField.build(SPEC, SHAPE, D, STIFFNESS, ETA, whole_grid=whole_grid)
+    moments = far.sums(_load()) * far.cell_area
+    for years in (1.0, 100.0, 1e4, 1e6):
+        modes = moments[:, None] * far.transfer * -np.expm1(-far.rates * years * 3.15576e7)
+        full = far._radial(modes)
+        assert_allclose(far.radial_profiles(modes), full, rtol=0, atol=1e-12 * np.abs(full).max())
+    factors = far._low_rank()
+    assert "full" not in factors
+    assert factors["q0"].shape[1] < far.hankel0.shape[1] / 4
