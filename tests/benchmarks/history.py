@@ -15,6 +15,17 @@ uniform 7.1 -> 6.2, margin 34 -> 28 (7.5 -> 6.3); 256² uniform 23 -> 11, margin
 (7.3 -> 5.8). The half-space step costs two solves, each at least two operator products
 (K plus an FFT pair), three preconditioner applications and the far-field driving.
 
+The steppers now advance in turn, each step timed alone (medians; ratios in one process).
+Half-space, 40 steps of 100 yr at 128², two runs each (load average 3.4-3.9 on 2 cores:
+timings vary by up to 2x between runs, iteration counts do not), before -> after the far
+field's reuse and low-rank factors and the w_grid + w_far stages: constant te 6.9 / 6.6
+-> 5.0 / 4.0 ms per step, uniform te grid 89 / 77 -> 67 / 49 ms (ratio 12.9 / 11.7 ->
+13.5 / 12.3; 0.99 -> 1.00 iterations per solve), margin 181 / 138 -> 141 / 100 ms (ratio
+26.1 / 21.0 -> 28.3 / 25.4; 3.77 -> 3.51). The te-grid steps are 25-37 % cheaper, but the
+constant-te step gained as much (its far field took half of it), so the ratios did not
+fall. Relaxing (code unchanged) in the same runs: uniform 3.6 / 3.5 and 6.2 / 5.0, margin
+17.9 / 13.7 and 31.8 / 24.5 (5.71 iterations per solve): the spread is the machine's.
+
 Run:  PYTHONPATH=. python tests/benchmarks/history.py [steps] [n] [model]
       PYTHONPATH=. python tests/benchmarks/history.py te-grid [steps] [n] [model] [dt]
 """
