@@ -397,7 +397,7 @@ class FarField:
         shared by :attr:`hankel0` and :attr:`hankel_trace`, one for J1, one for J2) and
         the matrices Qᵀ H, made on first use; empty when a matrix has no low-rank form
         within :data:`LOW_RANK_TOLERANCE`."""
-        if self._factors or "full" in self._factors:
+        if self._factors:  # (or {"full": ...} when there is no low-rank form)
             return self._factors
         factors: dict[str, np.ndarray] = {}
         groups = {

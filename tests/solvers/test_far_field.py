@@ -176,3 +176,19 @@ def test_low_rank_hankel_factors_give_the_full_products(whole_grid):
     factors = far._low_rank()
     assert "full" not in factors
     assert factors["q0"].shape[1] < far.hankel0.shape[1] / 4
+
+
+def test_range_basis_refuses_a_matrix_without_a_low_rank_form():
+    # the random range finder (Halko, Martinsson & Tropp 2011, from memory) only replaces
+    # a matrix it reproduces within LOW_RANK_TOLERANCE; a full-rank one is kept as it is
+    from gridflex.solvers.far_field import LOW_RANK_TOLERANCE, _range_basis
+
+    rng = np.random.default_rng(3)
+    assert _range_basis(rng.standard_normal((300, 400))) is None
+    r = np.linspace(0.0, 50.0, 300)[:, None]
+    k = np.geomspace(1e-3, 3.0, 400)[None, :]
+    smooth = special.j0(k * r) * k
+    basis = _range_basis(smooth)
+    assert basis is not None and basis.shape[1] <= 100
+    error = np.linalg.norm(smooth - basis @ (basis.T @ smooth)) / np.linalg.norm(smooth)
+    assert error <= LOW_RANK_TOLERANCE
