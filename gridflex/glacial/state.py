@@ -83,7 +83,7 @@ ENGINE_FIELDS: dict[type, tuple[frozenset[str], frozenset[str]]] = {
         frozenset(
             {"spec", "model", "interpolation", "viscosity", "relaxation_time"}
             | {"equilibrium_solver", "max_substep", "tolerance", "_settings", "_inverse_viscous"}
-            | {"_far_grid", "_far_basis", "_stiffness"}
+            | {"_far_grid", "_far_basis", "_stiffness", "_far_cache"}
         ),
     ),
     FarField: (

@@ -643,10 +643,10 @@ class SolutionHistory:
         coefficients = galerkin_coefficients(self._gram, projected)
         if coefficients is None:
             return None
-        x, product = np.zeros(rhs.shape), np.zeros(rhs.shape)
+        x, product, term = np.zeros(rhs.shape), np.zeros(rhs.shape), np.empty(rhs.shape)
         for c, w, k_w in zip(coefficients, self.solutions, self.products, strict=True):
-            x += c * w
-            product += c * k_w
+            x += np.multiply(w, c, out=term)  # (one work array, not two per solution)
+            product += np.multiply(k_w, c, out=term)
         return x, product
 
 

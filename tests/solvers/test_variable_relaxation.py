@@ -128,3 +128,31 @@ def test_kept_solutions_follow_their_step_set_up():
     assert list(engine._histories) == lengths[1:]  # the first one's solutions dropped
     assert [key for key, _ in engine.kept_solutions()] == lengths[1:]
     assert all(len(history.solutions) == 2 for _, history in engine.kept_solutions())
+
+
+def test_deflection_reuses_the_last_stage_far_field():
+    # The far field of the state after a step is that of the second stage's driving (the
+    # same radial modes), evaluated once on the solve grid; on the window it equals the
+    # window's own evaluation (the same points, common practice) to round-off.
+    spec = GridSpec(24, 24, 20e3, 20e3)
+    j, i = np.indices(spec.shape)
+    load = np.where(np.hypot(j - 11.5, i - 9.5) < 6, 910.0 * 9.81 * 1000.0, 0.0)
+    engine = VariableRelaxation.build(
+        spec, np.full(spec.shape, D), STIFFNESS, 0.25, "half-space", ETA, 1.0
+    )
+    assert engine.far is not None
+    engine.set_load(0.5 * load)
+    for _ in range(2):
+        engine.step(100.0 * YEAR, load)
+    evaluations = []
+    field_with = engine.far.field_with
+
+    def counted(matrix, modes):
+        evaluations.append(1)
+        return field_with(matrix, modes)
+
+    engine.far.field_with = counted  # type: ignore[method-assign]
+    w = engine.deflection()
+    assert not evaluations  # taken from the second stage
+    direct = engine.state[: spec.ny, : spec.nx] + engine.far.field()  # the window's own
+    assert_allclose(w, direct, rtol=0, atol=1e-12 * np.abs(direct).max())
