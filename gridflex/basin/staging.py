@@ -37,8 +37,8 @@ difference between the column the solver carried and the compacted column is sol
 again (new fill joining the stage) until it would move the plate by less than the
 tolerance. Under water that difference vanishes (the pore water the older stages expel
 is replaced by the deeper water above them: the same load), so a submerged stage
-needs no settling pass; above sea level the expelled water is lost and a pass or two
-follows. (Carrying the fill with the stage's mean bulk density instead, as before,
+needs no settling pass; above sea level the expelled water is lost and passes follow.
+(Carrying the fill with the stage's mean bulk density instead, as before,
 left remainders that took 3-4 passes, each a full infill iteration.) Where the fill
 actually deposited is lighter than carried, the plate rebounds and would lift filled
 cells above the base level; before each pass the fill is trimmed back to the level
