@@ -196,20 +196,6 @@ def _infinite_shape(
     return (out[0], out[1])
 
 
-def _pad_shares(
-    spec: GridSpec,
-    rigidity: np.ndarray,
-    stiffness: float,
-    pad_factor: float,
-    min_margin: float = 0.0,
-) -> tuple[float, float]:
-    """Part of the pad along y and x that belongs to the last row and column
-    (:func:`pad_rigidity`): their margins' share of both sides' margins."""
-    margins = _side_margins(spec, rigidity, stiffness, pad_factor, min_margin)
-    shares = [after / (before + after) for before, after in margins]
-    return (shares[0], shares[1])
-
-
 def solve_shape(
     spec: GridSpec,
     rigidity: np.ndarray,
@@ -296,8 +282,10 @@ def _solve_rigidity(
     if edges != "infinite":
         axis_edges = edges if isinstance(edges, tuple) else (edges, edges)
         return rigidity, axis_edges
-    shares = _pad_shares(spec, rigidity, pad_stiffness, pad_factor, min_margin)
-    return pad_rigidity(rigidity, shape, shares), ("periodic", "periodic")
+    # the part of each pad that belongs to the last row (column): its margin's share
+    margins = _side_margins(spec, rigidity, pad_stiffness, pad_factor, min_margin)
+    shares = [after / (before + after) for before, after in margins]
+    return pad_rigidity(rigidity, shape, (shares[0], shares[1])), ("periodic", "periodic")
 
 
 def _preconditioner(
