@@ -578,6 +578,12 @@ def _extend(values: np.ndarray, shape: tuple[int, int], window: tuple[slice, sli
     return np.roll(out, shift, axis=(0, 1)) if any(shift) else out
 
 
+SedimentMass = Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]
+"""``sediment_mass(fill)``: for a sediment fill thickness on the grid (m), its mass per
+area (kg m^-2) and the density of the fill's top (kg m^-3, d mass / d fill); see
+:func:`solve_with_infill`."""
+
+
 @dataclass
 class _Column:
     """The column model on the working domain (numpy arrays, SI)."""
@@ -590,6 +596,10 @@ class _Column:
     mask: np.ndarray | None
     footprint: np.ndarray | None = None
     load_density: float = 0.0
+    # the fill's mass as a function of its thickness on the grid, which lies in *window*
+    # of the working domain (the padding keeps sediment_density)
+    sediment_mass: SedimentMass | None = None
+    window: tuple[slice, slice] | None = None
 
     def __post_init__(self) -> None:
         self.water0 = np.clip(self.infill.sea_level - self.surface, 0.0, None)
@@ -625,6 +635,11 @@ class _Column:
         total = self.load + self.gravity * (
             self.infill.sediment_density * sediment + self.infill.water_density * water
         )
+        if self.sediment_mass is not None and rule != "none":
+            assert self.window is not None
+            fill = sediment[self.window]
+            mass, _ = self.sediment_mass(fill)
+            total[self.window] += self.gravity * (mass - self.infill.sediment_density * fill)
         if root is not None:
             total += self.gravity * self.load_density * root
         return sediment, water, total
@@ -638,6 +653,11 @@ class _Column:
         top = self.surface - w + sediment
         density = np.where(top < self.infill.sea_level, self.infill.water_density, 0.0)
         density = np.where(sediment > 0.0, self.infill.sediment_density, density)
+        if self.sediment_mass is not None and self.infill.sediment != "none":
+            assert self.window is not None
+            fill = sediment[self.window]
+            _, top = self.sediment_mass(fill)
+            density[self.window] = np.where(fill > 0.0, top, density[self.window])
         if self.footprint is not None:
             density = np.where(self.footprint > 0, self.load_density, density)
         return density
@@ -800,6 +820,7 @@ def solve_with_infill(
     acceleration: str = "anderson",
     inner: Callable[[float, float], InnerSolver] | None = None,
     cache: InnerSolverCache | None = None,
+    sediment_mass: SedimentMass | None = None,
     progress: Progress | None = None,
 ) -> xr.Dataset:
     """Flexure with a spatially varying, self-consistent infill.
@@ -851,6 +872,13 @@ def solve_with_infill(
         Where the finite-difference set-up is kept for the next call with the same te
         grid, densities and options (and taken from, when it holds that one); the same
         deflection as without it, minus the set-up time.
+    sediment_mass : callable, optional
+        ``sediment_mass(fill) -> (mass, density)``: the mass per area (kg m^-2) of a
+        sediment fill of thickness *fill* (m, on the grid, >= 0) and the density of its
+        top (kg m^-3, d mass / d fill), for a fill whose density is not one number (a
+        compacting deposit, :mod:`gridflex.basin.staging`); ``infill.sediment_density``
+        then only sets the shift and the padding (and the fill of the padding).
+        ``infill_density`` holds the density of the fill's top.
     progress : callable, optional
         Called as ``progress(iteration, max_iterations)``.
 
@@ -908,7 +936,9 @@ def solve_with_infill(
     values = np.asarray(given.load.values, dtype=np.float64)
     if options.edges == "infinite":
         check_edge_load(values, float(np.abs(values).sum()))
-    column = _working_column(given, infill, plate.gravity, solver, footprint, load_density, options)
+    column = _working_column(
+        given, infill, plate.gravity, solver, footprint, load_density, options, sediment_mass
+    )
     w, iterations, update = _iterate(
         column, solver, c, options.tolerance, options.max_iterations, options.acceleration, progress
     )
@@ -1109,6 +1139,7 @@ def _working_column(
     footprint: np.ndarray | None,
     load_density: float,
     options: _Options,
+    sediment_mass: SedimentMass | None = None,
 ) -> _Column:
     """The column model on the solver's working domain (the grid values continued from
     its edges into the padding, where there is no load)."""
@@ -1138,7 +1169,18 @@ def _working_column(
         footprint_work = np.zeros(shape)
         footprint_work[window] = footprint
     surface = _extend(given.surface, shape, window)
-    return _Column(load_work, surface, infill, gravity, level, mask, footprint_work, load_density)
+    return _Column(
+        load_work,
+        surface,
+        infill,
+        gravity,
+        level,
+        mask,
+        footprint_work,
+        load_density,
+        sediment_mass,
+        window,
+    )
 
 
 _FILL_VARIABLES = {

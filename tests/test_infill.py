@@ -325,3 +325,30 @@ def test_buried_load_needs_the_load_geometry():
     load, surface = cone_case(n=32)
     with pytest.raises(InputError, match="load_buried=True needs a load Dataset"):
         solve_with_infill(load, PLATE, surface, Infill(load_buried=True))
+
+
+def test_sediment_mass_of_a_compacting_fill():
+    # A fill whose density depends on its thickness: te = 0 (local Airy isostasy, Watts
+    # 2001, Isostasy and Flexure of the Lithosphere, ch. 3) with the moat fully filled, each
+    # cell balances q = rho_m g w - g M(w) (fill thickness = w). With M(f) = rho_a f +
+    # b f^2 / 2 (density rho_a + b f at the fill's top) the balance is a quadratic in w,
+    # solved here in closed form; sediment_density only sets the shift.
+    load, surface = cone_case(n=64)
+    plate0 = Plate(te=0.0, mantle_density=RHO_M)
+    rho_a, b = 1800.0, 0.05  # kg/m^3 and kg/m^3 per m (1918 kg/m^3 at the peak)
+
+    def mass(fill):
+        return rho_a * fill + 0.5 * b * fill**2, rho_a + b * fill
+
+    infill = Infill(sediment="full", sediment_density=2000.0)
+    result = solve_with_infill(load, plate0, surface, infill, tolerance=1e-9, sediment_mass=mass)
+    q = load.values / G  # (rho_m - rho_a) w - b w^2 / 2 = q / g
+    a, c = 0.5 * b, RHO_M - rho_a
+    expected = (c - np.sqrt(c * c - 4.0 * a * q)) / (2.0 * a)
+    assert_allclose(result["deflection"].values, expected, rtol=1e-9, atol=1e-8)
+    filled = expected > 0
+    assert_allclose(
+        result["infill_density"].values[filled], rho_a + b * expected[filled], rtol=1e-9
+    )
+    plain = solve_with_infill(load, plate0, surface, infill, tolerance=1e-9)
+    assert float(np.abs(plain["deflection"].values - expected).max()) > 1.0  # it matters

@@ -29,11 +29,17 @@ Removing the top stage (:meth:`StagedBasin.remove_stage`) decompacts the rest
 and unloads the plate with water infill and the te the stage was loaded with.
 
 The moat-fill sediment of a stage becomes part of that stage (its grains are
-added to it). The infill solver carries the fill with the stage's mean bulk
-density and does not compact the column under it, so the stage is then settled:
-the remaining difference between the column the solver carried and the
-compacted column is solved again (new fill joining the stage) until it would
-move the plate by less than the tolerance (usually 1-3 passes). Where the fill
+added to it). The infill solver carries the fill with its mass as the top of the
+stage, compacted within the stage (``sediment_mass`` of
+:func:`gridflex.solve_with_infill`), inside its one fixed-point iteration; it does not
+compact the older stages under the fill, so the stage is then settled: the remaining
+difference between the column the solver carried and the compacted column is solved
+again (new fill joining the stage) until it would move the plate by less than the
+tolerance. Under water that difference vanishes (the pore water the older stages expel
+is replaced by the deeper water above them: the same load), so a submerged stage
+needs no settling pass; above sea level the expelled water is lost and passes follow.
+(Carrying the fill with the stage's mean bulk density instead, as before,
+left remainders that took 3-4 passes, each a full infill iteration.) Where the fill
 actually deposited is lighter than carried, the plate rebounds and would lift filled
 cells above the base level; before each pass the fill is trimmed back to the level
 (the excess removed, at most the fill), so no filled cell ends more than about the
@@ -58,7 +64,7 @@ import dataclasses
 import logging
 import math
 import warnings
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -347,9 +353,14 @@ class StagedBasin:
         fill_density: float,
         min_deflection: float = 0.0,
         tectonic_load: np.ndarray | None = None,
+        deposit: np.ndarray | None = None,
     ) -> tuple[np.ndarray, np.ndarray, int, np.ndarray, np.ndarray]:
         """Solve the change from the carried state to the column of *grains*, plus
         *tectonic_load* (Pa, positive down) when given.
+
+        With *deposit* (m, the top stage's thickness as deposited so far) and compaction,
+        the moat fill is carried as the top of that stage (its mass as compacted within
+        the stage, :meth:`_fill_mass`), not with *fill_density*.
 
         Returns (deflection increment, sediment fill, iterations, new carried mass,
         new carried thickness). When the load change could not move the plate by
@@ -372,6 +383,9 @@ class StagedBasin:
         load.name = "load"
         surface = self.base - self.deflection + total_h
         options = self.solve_options
+        fill_mass = None
+        if deposit is not None and self.compaction and infill.sediment != "none":
+            fill_mass = self._fill_mass(deposit, stages[-1].rock)
         # one engine for every plate: the FFT for a constant te, finite differences for a
         # te grid (margins, breaks), both with the same column model
         result = solve_with_infill(
@@ -385,11 +399,30 @@ class StagedBasin:
             tolerance=options.tolerance,
             max_iterations=options.max_iterations,
             cache=self._inner_cache,
+            sediment_mass=fill_mass,
         )
         w = np.asarray(result["deflection"].values)
         fill = np.asarray(result["fill_sediment"].values)
         iterations = int(result.attrs["iterations"])
-        return w, fill, iterations, total_m + fill_density * fill, total_h + fill
+        carried = fill_density * fill if fill_mass is None else fill_mass(fill)[0]
+        return w, fill, iterations, total_m + carried, total_h + fill
+
+    def _fill_mass(
+        self, deposit: np.ndarray, lith: Lithology
+    ) -> Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]:
+        """Mass per area (kg m^-2) of a moat fill on top of the top stage's *deposit* (m)
+        and the density of its top (kg m^-3): the stage compacts within itself (its top
+        at the surface), so a fill f adds M(d + f) - M(d), M(x) = x rho_bulk(0, x), and
+        the density at depth d + f (the infill solver's ``sediment_mass``)."""
+        rho_w = self.water_density
+        before = deposit * bulk_density(0.0, deposit, lith, rho_w)
+
+        def mass(fill: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+            total = deposit + fill
+            added = total * bulk_density(0.0, total, lith, rho_w) - before
+            return added, bulk_density(total, total, lith, rho_w)
+
+        return mass
 
     def _shift_for(self, infill: Infill, te: TeLike) -> float | None:
         """Shift density (kg/m^3) of the infill iteration: for a te grid (finite
@@ -523,7 +556,7 @@ class StagedBasin:
     ) -> tuple[np.ndarray, np.ndarray, int]:
         """Solve a new top stage and settle it; updates the carried state and grains[-1]."""
         w, fill, iterations, mass, thickness = self._solve_increment(
-            grains, stages, te, sea, infill, fill_density, tectonic_load=tectonic
+            grains, stages, te, sea, infill, fill_density, tectonic_load=tectonic, deposit=h
         )
         self.deflection = self.deflection + w
         self.mass, self.thickness, self.current_sea_level = mass, thickness, sea
@@ -542,7 +575,14 @@ class StagedBasin:
                 # solve above already warned about a load at the edge
                 warnings.simplefilter("ignore", EdgeLoadWarning)
                 dw, more, passes, mass, thickness = self._solve_increment(
-                    grains, stages, te, sea, infill, fill_density, min_deflection=tolerance
+                    grains,
+                    stages,
+                    te,
+                    sea,
+                    infill,
+                    fill_density,
+                    min_deflection=tolerance,
+                    deposit=h + fill,
                 )
             if passes == 0:
                 self.mass, self.thickness = mass, thickness

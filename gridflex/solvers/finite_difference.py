@@ -92,32 +92,42 @@ the LU memory cap (:func:`~gridflex.solvers.rigidity_features.factor_budget`) us
 binds first."""
 
 
-def _ramp(count: int) -> np.ndarray:
-    """Weights 0 -> 1 over *count* pad cells: flat quarters at both ends, sin² between."""
+def _ramp(count: int, share: float = 0.5) -> np.ndarray:
+    """Weights 0 -> 1 over *count* pad cells: flat over half of each side's part of the
+    pad (the first *share* of it belongs to the side it starts from), sin² over the middle
+    half between (flat quarters at both ends for *share* 0.5)."""
     s = np.arange(1, count + 1, dtype=np.float64)
-    u = np.clip((s - 0.25 * (count + 1)) / (0.5 * (count + 1)), 0.0, 1.0)
+    u = np.clip((s - 0.5 * share * (count + 1)) / (0.5 * (count + 1)), 0.0, 1.0)
     return np.sin(0.5 * np.pi * u) ** 2
 
 
-def _periodic_pad(last: np.ndarray, first: np.ndarray, extra: int, floor: float) -> np.ndarray:
+def _periodic_pad(
+    last: np.ndarray, first: np.ndarray, extra: int, floor: float, share: float = 0.5
+) -> np.ndarray:
     """*extra* lines joining the line *last* smoothly to the line *first* (shape
-    (extra, n)): log D follows :func:`_ramp`; a zero edge value continues for half the pad."""
-    t = _ramp(extra)[:, None]
+    (extra, n)): log D follows :func:`_ramp`; a zero edge value continues through its
+    side's part of the pad (*share* of it belongs to *last*)."""
+    t = _ramp(extra, share)[:, None]
     pad = np.log(np.maximum(last, floor))[None, :] * (1.0 - t)
     pad += t * np.log(np.maximum(first, floor))[None, :]
     np.exp(pad, out=pad)
-    near_last = (np.arange(1, extra + 1) <= extra / 2)[:, None]
+    near_last = (np.arange(1, extra + 1) <= share * extra)[:, None]
     pad[(near_last & (last == 0)[None, :]) | (~near_last & (first == 0)[None, :])] = 0.0
     return pad
 
 
-def pad_rigidity(rigidity: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
+def pad_rigidity(
+    rigidity: np.ndarray, shape: tuple[int, int], shares: tuple[float, float] = (0.5, 0.5)
+) -> np.ndarray:
     """Embed a rigidity grid in a larger periodic grid that continues each edge outward.
 
-    The grid occupies ``[:ny, :nx]`` of *shape*; beyond each edge the edge values continue
-    for a quarter of the pad, then log D blends smoothly (sin² ramp over the middle half)
-    into the opposite edge's values, so that the periodic wrap carries no jump. Zero
-    rigidity (a break reaching the edge) continues up to the middle of the pad.
+    The grid occupies ``[:ny, :nx]`` of *shape*; the pad after the last row (column) is
+    shared between that edge (the first *shares* [0] ([1]) of it) and the first row
+    (column), reached across the periodic wrap. Beyond each edge the edge values continue
+    for half its part of the pad, then log D blends smoothly (sin² ramp over the middle
+    half) into the opposite edge's values, so that the periodic wrap carries no jump
+    (equal shares: a quarter, the middle half, a quarter). Zero rigidity (a break reaching
+    the edge) continues through its edge's part of the pad.
 
     Parameters
     ----------
@@ -125,6 +135,8 @@ def pad_rigidity(rigidity: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
         Nodal rigidity (N m).
     shape : tuple of int
         Padded shape, at least (ny, nx).
+    shares : tuple of float, default (0.5, 0.5)
+        Part of the pad along y and x that belongs to the last row and column, in (0, 1).
 
     Returns
     -------
@@ -136,10 +148,36 @@ def pad_rigidity(rigidity: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
     floor = float(np.min(rigidity, where=rigidity > 0, initial=np.inf))
     floor = floor if np.isfinite(floor) else 1.0
     if shape[1] > nx:  # along x: the pad of every row, built as columns
-        out[:ny, nx:] = _periodic_pad(rigidity[:, -1], rigidity[:, 0], shape[1] - nx, floor).T
+        pad = _periodic_pad(rigidity[:, -1], rigidity[:, 0], shape[1] - nx, floor, shares[1])
+        out[:ny, nx:] = pad.T
     if shape[0] > ny:  # along y, from the first and last rows of the x-padded grid
-        out[ny:] = _periodic_pad(out[ny - 1], out[0], shape[0] - ny, floor)
+        out[ny:] = _periodic_pad(out[ny - 1], out[0], shape[0] - ny, floor, shares[0])
     return out
+
+
+def _side_margins(
+    spec: GridSpec,
+    rigidity: np.ndarray,
+    stiffness: float,
+    pad_factor: float,
+    min_margin: float = 0.0,
+) -> tuple[tuple[int, int], tuple[int, int]]:
+    """Margin cells (before the first, after the last row; the same for columns) of
+    ``edges="infinite"``: on each side *pad_factor* flexural parameters of the stiffest
+    rigidity on that edge (at least *min_margin* metres, and 2 cells). The deflection
+    beyond an edge decays with that edge's plate, so a margin sized per side keeps the
+    decay lengths of each side while a weak edge no longer pays for a stiff one."""
+    out = []
+    for first, last, h in (
+        (rigidity[0], rigidity[-1], spec.dy),
+        (rigidity[:, 0], rigidity[:, -1], spec.dx),
+    ):
+        cells = []
+        for edge in (first, last):
+            alpha = (4.0 * float(edge.max()) / stiffness) ** 0.25
+            cells.append(max(math.ceil(max(pad_factor * alpha, min_margin) / h), 2))
+        out.append((cells[0], cells[1]))
+    return out[0], out[1]
 
 
 def _infinite_shape(
@@ -149,16 +187,12 @@ def _infinite_shape(
     pad_factor: float,
     min_margin: float = 0.0,
 ) -> tuple[int, int]:
-    """Solve grid for ``edges="infinite"``: *pad_factor* flexural parameters of the stiffest
-    edge rigidity (at least *min_margin* metres) on each side, rounded up to fast FFT
-    lengths."""
-    edge = np.concatenate([rigidity[0], rigidity[-1], rigidity[:, 0], rigidity[:, -1]])
-    alpha = (4.0 * float(edge.max()) / stiffness) ** 0.25
-    margin = max(pad_factor * alpha, min_margin)
+    """Solve grid for ``edges="infinite"``: the grid and the margins of
+    :func:`_side_margins` of both sides, rounded up to fast FFT lengths."""
+    margins = _side_margins(spec, rigidity, stiffness, pad_factor, min_margin)
     out = []
-    for n, h in ((spec.ny, spec.dy), (spec.nx, spec.dx)):
-        extra = 2 * max(math.ceil(margin / h), 2)
-        out.append(scipy.fft.next_fast_len(n + extra, real=True))
+    for n, (before, after) in zip(spec.shape, margins, strict=True):
+        out.append(scipy.fft.next_fast_len(n + before + after, real=True))
     return (out[0], out[1])
 
 
@@ -248,7 +282,10 @@ def _solve_rigidity(
     if edges != "infinite":
         axis_edges = edges if isinstance(edges, tuple) else (edges, edges)
         return rigidity, axis_edges
-    return pad_rigidity(rigidity, shape), ("periodic", "periodic")
+    # the part of each pad that belongs to the last row (column): its margin's share
+    margins = _side_margins(spec, rigidity, pad_stiffness, pad_factor, min_margin)
+    shares = [after / (before + after) for before, after in margins]
+    return pad_rigidity(rigidity, shape, (shares[0], shares[1])), ("periodic", "periodic")
 
 
 def _preconditioner(
@@ -683,7 +720,7 @@ def finite_difference_deflection(
         ν.
     edges : {"infinite", "clamped", "free", "periodic"}, default "infinite"
         ``"infinite"``: the grid is a window onto an unbounded plate: it is embedded in a
-        periodic margin of *pad_factor* flexural parameters (of the largest edge rigidity)
+        periodic margin of *pad_factor* flexural parameters (of each edge's largest rigidity)
         on each side, in which the edge rigidity continues (:func:`pad_rigidity`) and the
         load is zero. ``"clamped"``, ``"free"``, ``"periodic"``: see :data:`AXIS_EDGES`.
         A pair of :data:`AXIS_EDGES` values sets the y and x axes separately (no margin),

@@ -261,7 +261,7 @@ class VariableRelaxation:
             Load variation within a step.
         periodic : bool
             The grid repeats (no margin); otherwise it is a window onto an unbounded
-            plate in a margin of *pad_factor* flexural parameters of the stiffest edge
+            plate in a margin of *pad_factor* flexural parameters of each edge's stiffest
             rigidity, and for the half-space at least *width_factor* grid widths
             (:func:`~gridflex.solvers.viscous.relaxation_pad_distance`).
         pad_factor, width_factor : float
