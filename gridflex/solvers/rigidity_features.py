@@ -27,6 +27,7 @@ __all__ = [
     "MAX_FACTOR_BYTES",
     "SHARP_RATIO",
     "STEEP_FLEXURAL_PARAMETERS",
+    "LOCAL_STEEP_WINDOW",
     "STEEP_WINDOW",
     "STIFF_SIDE_FLEXURAL_PARAMETERS",
     "SharpFeatures",
@@ -43,19 +44,26 @@ or within :data:`STEEP_WINDOW` flexural parameters along x or y."""
 
 STEEP_WINDOW = 1.0
 """Half-width of the window for steep (not sharp) rigidity changes, in flexural parameters
-of the weakest non-zero rigidity inside the window (tried at half-widths of 1, 2, 4, ...
-cells). A smooth but steep margin (Te 60 -> 10 km over 120 km) is as hard for the blend as
-a step: measured 75 iterations without the band, 25 with it.
+of the smallest non-zero rigidity of the grid. A smooth but steep margin (Te 60 -> 10 km
+over 120 km) is as hard for the blend as a step: measured 75 iterations without the band,
+25 with it. See also :data:`LOCAL_STEEP_WINDOW`."""
 
-The window used to be one flexural parameter of the smallest non-zero rigidity of the whole
-grid, which vanishes on te maps that reach te = 0 smoothly (the smallest te is then a few
-metres and the window less than a cell), so the steep rise of D ~ te³ out of the te = 0
-patches went unseen. Measured with tests/benchmarks/te_map_robustness.py, default
-settings, iterations (band nodes): te_map at 256² of 4 km 28 (71 k) -> 20 (71 k), at 512²
-of 2 km 257 (256 k) -> 30 (263 k); clipped at 256² of 4 km 49 (31 k) -> 13 (62 k), at 512²
-of 2 km 97 (50 k) -> 16 (243 k). The cases of tests/benchmarks/variable.py (--refine, 256² /
-512²) kept or lowered their counts: margin_hinges 17 / 17 -> 14 / 15, smooth 20 / 20 -> 17 /
-16 (it now has a band of 13 k / 57 k nodes), the others unchanged."""
+LOCAL_STEEP_WINDOW = 0.5
+"""Half-width of a second window for steep rigidity changes, in flexural parameters of the
+weakest non-zero rigidity inside the window (tried at half-widths of 1, 2, 4, ... cells).
+
+The window of :data:`STEEP_WINDOW` follows the smallest non-zero rigidity of the grid,
+which vanishes on te maps that reach te = 0 smoothly (the smallest te is then a few metres
+and the window less than a cell), so the steep rise of D ~ te³ out of the te = 0 patches
+went unseen. Measured with tests/benchmarks/te_map_robustness.py at the default settings,
+iterations (band nodes) without -> with this rule: te_map at 256² of 4 km 28 (71 k) -> 20
+(71 k), at 512² of 2 km 257 (256 k) -> 30 (263 k), at 1024² of 1 km 45 (996 k, a run with
+the factor 1.0); clipped at 256² of 4 km 49 (31 k) -> 19 (60 k), at 512² of 2 km 97 (50 k)
+-> 22 (211 k). A factor of 1.0 instead of 0.5 gave 20 / 30 and 13 / 16 iterations but also
+banded the smooth margin of tests/benchmarks/variable.py (te 6 -> 60 km, no band and 20
+iterations; with the band 16 iterations and 153 k nodes at 512² of 2 km, set-up 0.4 ->
+9.8 s); 0.25 gave 20 / 30 and 39 / 54. With 0.5 the cases of tests/benchmarks/variable.py
+(--refine, 256² and 512²) keep their bands and iteration counts exactly."""
 
 BAND_FLEXURAL_PARAMETERS = 3.0
 """Width of the exact-solve band round a rigidity jump, in flexural parameters of its weak
@@ -185,9 +193,10 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
     """Sharp nodes of *operator*'s rigidity and the default band width round them.
 
     Sharp: the rigidity in the 3 x 3 neighbourhood varies by more than :data:`SHARP_RATIO`
-    (a zero next to a non-zero value counts); or it does so within :data:`STEEP_WINDOW`
-    flexural parameters (of the weakest non-zero rigidity in the window) along x or y,
-    away from such jumps (a jump is steep all round; its own band covers that); or the
+    (a zero next to a non-zero value counts); or it does so along x or y within
+    :data:`STEEP_WINDOW` flexural parameters of the smallest non-zero rigidity, or within
+    :data:`LOCAL_STEEP_WINDOW` of the weakest non-zero rigidity in the window, away from
+    such jumps (a jump is steep all round; its own band covers that); or the
     node lies on a non-periodic grid edge.
 
     Parameters
@@ -211,27 +220,32 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
         return SharpFeatures(np.zeros(rigidity.shape, dtype=bool), 0.0)
     smallest = float(np.min(rigidity, where=plate, initial=np.inf))
     largest = float(rigidity.max())
-    # steep: a ten-fold change within a flexural parameter of the weakest plate in the
-    # window, tried at half-widths of 1, 2, 4, ... cells up to that of the stiffest plate
+    # steep: a ten-fold change within STEEP_WINDOW flexural parameters of the weakest plate
+    # of the grid, or within LOCAL_STEEP_WINDOW of the weakest plate in the window (tried at
+    # half-widths of 1, 2, 4, ... cells)
     filled = np.where(plate, rigidity, np.float32(largest)) if broken else rigidity
     steep = np.zeros(rigidity.shape, dtype=bool)
-    widest = STEEP_WINDOW * _flexural_parameter(largest, operator.stiffness)
+    window = STEEP_WINDOW * _flexural_parameter(smallest, operator.stiffness)
+    widest = LOCAL_STEEP_WINDOW * _flexural_parameter(largest, operator.stiffness)
     for axis, h in enumerate((operator.dy, operator.dx)):
-        half = 1
-        while half * h <= widest and largest > SHARP_RATIO * smallest:
+        if largest <= SHARP_RATIO * smallest:  # (no ten-fold change at all)
+            break
+        halves = [int(window / h)] + [2**k for k in range(64) if 2**k * h <= widest]
+        for half in sorted(set(halves) - {0}):
             size = 2 * half + 1
             top = scipy.ndimage.maximum_filter1d(filled, size, axis=axis, mode=modes[axis])
             bottom = scipy.ndimage.minimum_filter1d(filled, size, axis=axis, mode=modes[axis])
             found = top > SHARP_RATIO * bottom
             del top
-            reach = _flexural_parameter_grid(bottom, operator.stiffness)
-            found &= reach >= np.float32(half * h / STEEP_WINDOW)
-            del bottom, reach
+            if half * h > window:  # only within the local rule's reach
+                reach = _flexural_parameter_grid(bottom, operator.stiffness)
+                found &= reach >= np.float32(half * h / LOCAL_STEEP_WINDOW)
+                del reach
+            del bottom
             near_jump = scipy.ndimage.maximum_filter1d(
                 jumpy.view(np.uint8), size, axis=axis, mode=modes[axis]
             ).view(bool)
             steep |= found & ~near_jump
-            half *= 2
     sharp = jumpy | steep
     edge_nodes = np.zeros(rigidity.shape, dtype=bool)
     if operator.edges[0] != "periodic":

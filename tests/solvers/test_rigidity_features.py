@@ -112,13 +112,14 @@ def test_factor_budget_is_a_share_of_the_memory_left():
 
 
 def test_steep_rise_out_of_te_zero_is_found_against_the_local_plate():
-    # common practice (the band rule of STEEP_WINDOW): a ten-fold change of D within one
-    # flexural parameter of the weakest plate in the window is steep. te rising linearly
-    # from 0 to 100 km over 100 km, at te = 30 km: within 16 km on either side te spans 14
-    # to 46 km (D 35-fold) and te = 14 km has a flexural parameter of about 47 km, so the
-    # node is steep; a window set by the grid's smallest non-zero te instead (1 km cells:
-    # te 1 km, flexural parameter 6.3 km) spans te 24 to 36 km there (D 3.4-fold) and
-    # misses it. te 50 -> 100 km over 255 km (D eight-fold in all) is not steep anywhere
+    # common practice (the band rule of LOCAL_STEEP_WINDOW): a ten-fold change of D
+    # within half a flexural parameter of the weakest plate in the window is steep. te
+    # rising linearly from 0 to 100 km over 100 km, at te = 30 km: within 16 km on either
+    # side te spans 14 to 46 km (D 35-fold) and te = 14 km has a flexural parameter of
+    # about 47 km, so the node is steep; the window of STEEP_WINDOW, set by the grid's
+    # smallest non-zero te (1 km cells: te 1 km, flexural parameter 6.3 km), spans te 24
+    # to 36 km there (D 3.4-fold) and misses it. te 50 -> 100 km over 255 km (D
+    # eight-fold in all) is not steep anywhere
     n, h = 256, 1000.0
     x = np.arange(n) * h
     te = np.clip(x - 60e3, 0.0, 100e3)
