@@ -23,6 +23,51 @@ Band modes: ``default``; ``capped`` (at most a quarter of the band the solve wou
 without caps, as at 4096² of 250 m on te_map: 1 M of 3.8 M nodes); ``off``
 (``max_band_nodes=0``).
 
+Measured (256², machine shared; iterations, ``F`` = ConvergenceError; default band before
+-> after the steep rule of ``LOCAL_STEEP_WINDOW`` in gridflex.solvers.rigidity_features):
+
+  ==========  ===========  ===========  ===========  ===========
+  map         250 m        1 km         4 km         10 km
+  ==========  ===========  ===========  ===========  ===========
+  te_map      F -> 64      235 -> 49    28 -> 20     7 -> 7
+  clipped     1 -> 1       273 -> 1     49 -> 19     22 -> 22
+  jumps       0 -> 0       0 -> 0       11 -> 0      19 -> 21
+  rough       0 -> 0       0 -> 0       0 -> 0       0 -> 0
+  holes       0 -> 0       0 -> 0       23 -> 6      19 -> 19
+  ==========  ===========  ===========  ===========  ===========
+
+Every converged default solve was within 5.1e-7 of the peak of the direct solve (te_map at
+250 m; 0 where the band covers the whole grid, which on 256² it nearly always does, so
+these defaults are close to direct solves; te_map at 512² of 2 km, band 263 k of 336 k
+nodes: 257 -> 30 iterations; at 1024² of 1 km 45 iterations with a band of 996 k nodes).
+At 250 m cells the recorded ``accuracy`` of the band-covered maps is 5e-4 to 3e-3 (returned
+at the round-off limit: alpha / h = 800) while w equals the direct solve.
+
+With the band capped at a quarter of what it asks for, after the change (which also keeps
+the nodes that fit when even the narrowest band does not, instead of dropping the band):
+only clipped at 4 km (158) and 10 km (28), jumps at 10 km (87) and holes at 4 km (54) and
+10 km (24) converge; te_map, rough, and the rest raise ConvergenceError at every cell size.
+With the band off only clipped at 10 km converges (53 iterations, and then 1.7e-6 of the
+peak from the direct solve although its accuracy estimate was 9.7e-7: the energy-norm
+estimate does not bound the largest pointwise error). So the 4096² target (band capped)
+is NOT shown for maps with breaks or with te -> 0: the blend alone cannot carry them.
+Why, measured with dense matrices (40² of 4 km, periodic, band off): the condition
+number of the blend-preconditioned operator is 1 for a uniform 50 km plate, 1.2e6 with
+one te = 0 node in it, 5.2e6 with a hinge line, 1.7e9 with a gap four nodes wide, 1.3e3
+and 5.5e7 with a zone of te 5 and 0.5 km; on the maps 8.8e8 (clipped), 3.6e9 (holes),
+1.7e10 (rough), 4.4e11 (jumps). Tried on those, none enough: pointwise Jacobi smoothing
+(weight 0.5) before and after the blend, in symmetric multiplicative form: 5-10 times
+lower; rigid-body modes (1, x, y) of each connected plate piece as a balancing coarse
+space on top: 7-90 times lower in all (clipped 2.7e7, holes 3.9e7, rough 2.5e9, jumps
+3.7e10); with the band capped at a quarter, clipped 1.9e7 -> 6.4e6 (Jacobi) and 7.6e6
+(coarse), holes 1.4e4 -> 1.1e4 and 1.4e3. Jacobi on the zero-rigidity nodes instead of
+their local inverse 1 / (a Δρ g): for one te = 0 node the largest eigenvalue 7.8e5 -> 516
+but the smallest 0.66 -> 0.0019 (a zero node next to a plate enters its curvatures, so
+neither is right), with a hinge line worse (1.1e8). Blend weights from the 3 x 3 maximum
+of D: worse. A floor under the blend levels at the rigidity whose flexural parameter is
+0.5 to 4 cells: no gain with the band (te_map 256² of 4 km 28 / 28 / 27 / 37 / 87
+iterations for none / 0.5 / 1 / 2 / 4 cells), still ConvergenceError without it.
+
 Usage::
 
     python tests/benchmarks/te_map_robustness.py --sizes 256 --dx 0.25,1,4,10
