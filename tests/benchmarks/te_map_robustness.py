@@ -50,7 +50,9 @@ only clipped at 4 km (158) and 10 km (28), jumps at 10 km (87) and holes at 4 km
 With the band off only clipped at 10 km converges (53 iterations, and then 1.7e-6 of the
 peak from the direct solve although its accuracy estimate was 9.7e-7: the energy-norm
 estimate does not bound the largest pointwise error). So the 4096² target (band capped)
-is NOT shown for maps with breaks or with te -> 0: the blend alone cannot carry them.
+is NOT shown for maps with breaks or with te -> 0: the blend alone cannot carry them. At
+4096² of 250 m te_map asks for a band of 15.4 M of the 18.7 M nodes (3.8 M before the
+local steep window) against the 1 M node cap; that run was not repeated here.
 Why, measured with dense matrices (40² of 4 km, periodic, band off): the condition
 number of the blend-preconditioned operator is 1 for a uniform 50 km plate, 1.2e6 with
 one te = 0 node in it, 5.2e6 with a hinge line, 1.7e9 with a gap four nodes wide, 1.3e3
