@@ -57,9 +57,11 @@ which vanishes on te maps that reach te = 0 smoothly (the smallest te is then a 
 and the window less than a cell), so the steep rise of D ~ te³ out of the te = 0 patches
 went unseen. Measured with tests/benchmarks/te_map_robustness.py at the default settings,
 iterations (band nodes) without -> with this rule: te_map at 256² of 4 km 28 (71 k) -> 20
-(71 k), at 512² of 2 km 257 (256 k) -> 30 (263 k), at 1024² of 1 km 45 (996 k, a run with
-the factor 1.0); clipped at 256² of 4 km 49 (31 k) -> 19 (60 k), at 512² of 2 km 97 (50 k)
--> 22 (211 k). A factor of 1.0 instead of 0.5 gave 20 / 30 and 13 / 16 iterations but also
+(71 k), at 512² of 2 km 257 (256 k) -> 30 (263 k), at 1024² of 1 km ConvergenceError
+after 300 iterations (756 k) -> 38 (996 k); clipped at 256² of 4 km 49 (31 k) -> 19
+(60 k), at 512² of 2 km 97 (50 k) -> 22 (211 k); at 256² of 250 m te_map
+ConvergenceError -> 64 (tests/benchmarks/te_map_robustness.py has the whole table). A
+factor of 1.0 instead of 0.5 gave 20 / 30 and 13 / 16 iterations but also
 banded the smooth margin of tests/benchmarks/variable.py (te 6 -> 60 km, no band and 20
 iterations; with the band 16 iterations and 153 k nodes at 512² of 2 km, set-up 0.4 ->
 9.8 s); 0.25 gave 20 / 30 and 39 / 54. With 0.5 the cases of tests/benchmarks/variable.py

@@ -39,7 +39,8 @@ Measured (256², machine shared; iterations, ``F`` = ConvergenceError; default b
 Every converged default solve was within 5.1e-7 of the peak of the direct solve (te_map at
 250 m; 0 where the band covers the whole grid, which on 256² it nearly always does, so
 these defaults are close to direct solves; te_map at 512² of 2 km, band 263 k of 336 k
-nodes: 257 -> 30 iterations; at 1024² of 1 km 45 iterations with a band of 996 k nodes).
+nodes: 257 -> 30 iterations; at 1024² of 1 km ConvergenceError after 300 iterations and
+198 s -> 38 iterations, band 756 k -> 996 k nodes, set-up 81 s, solve 41 s).
 At 250 m cells the recorded ``accuracy`` of the band-covered maps is 5e-4 to 3e-3 (returned
 at the round-off limit: alpha / h = 800) while w equals the direct solve.
 
