@@ -67,12 +67,14 @@ iterations; with the band 16 iterations and 153 k nodes at 512² of 2 km, set-up
 9.8 s); 0.25 gave 20 / 30 and 39 / 54. With 0.5 the cases of tests/benchmarks/variable.py
 (--refine, 256² and 512²) keep their bands and iteration counts exactly.
 
-Cost at 4096² of 250 m (te_map, solve grid 4320²): finding the sharp nodes took 56 s
-instead of 10 s (one pair of running minimum and maximum filters per half-width and axis),
-and 10.7 M of the 18.7 M nodes are steep, so the band (15.4 M nodes wanted, against 3.8 M
+Cost at 4096² of 250 m (te_map, solve grid 4320²): padding, operator and sharp nodes took
+14 s against 10 s before (one pair of running minimum and maximum filters per half-width
+and axis; a first run under heavier load took 56 s), and 10.7 M of the 18.7 M nodes are
+steep, so the band (15.4 M nodes wanted, against 3.8 M
 before) is far over its caps and only a partial band fits; whether that run converges was
 not measured. Tried and not kept: the local window only where its weakest rigidity is
-below 1/100 of the grid's largest (5.8 M steep nodes, 12 s at 4096²), which lost much of
+below 1/100 of the grid's largest (5.8 M steep nodes, 12 s at 4096²: the band still
+wants 15.4 M nodes), which lost much of
 the gain (clipped 32 / 33 iterations at 256² of 4 km / 512² of 2 km, and 42 on the rough
 map of tests/solvers/test_finite_difference_accuracy.py, 37 before, 1 with the full rule);
 1/1000 was worse still (te_map at 256² of 4 km 54, at 512² of 2 km 101)."""
