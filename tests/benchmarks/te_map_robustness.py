@@ -55,7 +55,8 @@ is NOT shown for maps with breaks or with te -> 0: the blend alone cannot carry 
 4096² of 250 m te_map asks for a band of 15.4 M of the 18.7 M nodes (3.8 M before the
 local steep window) against the 1 M node cap; that run was not repeated here. At 2048² of
 500 m (default settings) te_map raises ConvergenceError after 300 iterations (345 s; band
-at the 1 M node cap, a partial band: even its narrowest width did not fit; 5 levels).
+at the 1 M node cap, a partial band: even its narrowest width did not fit; 5 levels);
+before the local steep window it did too (233 s; band of 803 k nodes at shrunk widths).
 Why, measured with dense matrices (40² of 4 km, periodic, band off): the condition
 number of the blend-preconditioned operator is 1 for a uniform 50 km plate, 1.2e6 with
 one te = 0 node in it, 5.2e6 with a hinge line, 1.7e9 with a gap four nodes wide, 1.3e3
