@@ -27,6 +27,7 @@ __all__ = [
     "MAX_FACTOR_BYTES",
     "SHARP_RATIO",
     "STEEP_FLEXURAL_PARAMETERS",
+    "LOCAL_STEEP_WINDOW",
     "STEEP_WINDOW",
     "STIFF_SIDE_FLEXURAL_PARAMETERS",
     "SharpFeatures",
@@ -43,8 +44,40 @@ or within :data:`STEEP_WINDOW` flexural parameters along x or y."""
 
 STEEP_WINDOW = 1.0
 """Half-width of the window for steep (not sharp) rigidity changes, in flexural parameters
-of the smallest non-zero rigidity. A smooth but steep margin (Te 60 -> 10 km over 120 km) is
-as hard for the blend as a step: measured 75 iterations without the band, 25 with it."""
+of the smallest non-zero rigidity of the grid. A smooth but steep margin (Te 60 -> 10 km
+over 120 km) is as hard for the blend as a step: measured 75 iterations without the band,
+25 with it. See also :data:`LOCAL_STEEP_WINDOW`."""
+
+LOCAL_STEEP_WINDOW = 0.5
+"""Half-width of a second window for steep rigidity changes, in flexural parameters of the
+weakest non-zero rigidity inside the window (tried at half-widths of 1, 2, 4, ... cells).
+
+The window of :data:`STEEP_WINDOW` follows the smallest non-zero rigidity of the grid,
+which vanishes on te maps that reach te = 0 smoothly (the smallest te is then a few metres
+and the window less than a cell), so the steep rise of D ~ te³ out of the te = 0 patches
+went unseen. Measured with tests/benchmarks/te_map_robustness.py at the default settings,
+iterations (band nodes) without -> with this rule: te_map at 256² of 4 km 28 (71 k) -> 20
+(71 k), at 512² of 2 km 257 (256 k) -> 30 (263 k), at 1024² of 1 km ConvergenceError
+after 300 iterations (756 k) -> 38 (996 k); clipped at 256² of 4 km 49 (31 k) -> 19
+(60 k), at 512² of 2 km 97 (50 k) -> 22 (211 k); at 256² of 250 m te_map
+ConvergenceError -> 64 (tests/benchmarks/te_map_robustness.py has the whole table). A
+factor of 1.0 instead of 0.5 gave 20 / 30 and 13 / 16 iterations but also
+banded the smooth margin of tests/benchmarks/variable.py (te 6 -> 60 km, no band and 20
+iterations; with the band 16 iterations and 153 k nodes at 512² of 2 km, set-up 0.4 ->
+9.8 s); 0.25 gave 20 / 30 and 39 / 54. With 0.5 the cases of tests/benchmarks/variable.py
+(--refine, 256² and 512²) keep their bands and iteration counts exactly.
+
+Cost at 4096² of 250 m (te_map, solve grid 4320²): padding, operator and sharp nodes took
+14 s against 10 s before (one pair of running minimum and maximum filters per half-width
+and axis; a first run under heavier load took 56 s), and 10.7 M of the 18.7 M nodes are
+steep, so the band (15.4 M nodes wanted, against 3.8 M
+before) is far over its caps and only a partial band fits; whether that run converges was
+not measured. Tried and not kept: the local window only where its weakest rigidity is
+below 1/100 of the grid's largest (5.8 M steep nodes, 12 s at 4096²: the band still
+wants 15.4 M nodes), which lost much of
+the gain (clipped 32 / 33 iterations at 256² of 4 km / 512² of 2 km, and 42 on the rough
+map of tests/solvers/test_finite_difference_accuracy.py, 37 before, 1 with the full rule);
+1/1000 was worse still (te_map at 256² of 4 km 54, at 512² of 2 km 101)."""
 
 BAND_FLEXURAL_PARAMETERS = 3.0
 """Width of the exact-solve band round a rigidity jump, in flexural parameters of its weak
@@ -174,10 +207,11 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
     """Sharp nodes of *operator*'s rigidity and the default band width round them.
 
     Sharp: the rigidity in the 3 x 3 neighbourhood varies by more than :data:`SHARP_RATIO`
-    (a zero next to a non-zero value counts); or it does so within :data:`STEEP_WINDOW`
-    flexural parameters (of the smallest non-zero rigidity) along x or y, away from such
-    jumps (a jump is steep all round; its own band covers that); or the node lies on a
-    non-periodic grid edge.
+    (a zero next to a non-zero value counts); or it does so along x or y within
+    :data:`STEEP_WINDOW` flexural parameters of the smallest non-zero rigidity, or within
+    :data:`LOCAL_STEEP_WINDOW` of the weakest non-zero rigidity in the window, away from
+    such jumps (a jump is steep all round; its own band covers that); or the
+    node lies on a non-periodic grid edge.
 
     Parameters
     ----------
@@ -200,22 +234,32 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
         return SharpFeatures(np.zeros(rigidity.shape, dtype=bool), 0.0)
     smallest = float(np.min(rigidity, where=plate, initial=np.inf))
     largest = float(rigidity.max())
-    # steep: a ten-fold change within a flexural parameter of the weakest plate
+    # steep: a ten-fold change within STEEP_WINDOW flexural parameters of the weakest plate
+    # of the grid, or within LOCAL_STEEP_WINDOW of the weakest plate in the window (tried at
+    # half-widths of 1, 2, 4, ... cells)
     filled = np.where(plate, rigidity, np.float32(largest)) if broken else rigidity
-    window = STEEP_WINDOW * _flexural_parameter(smallest, operator.stiffness)
     steep = np.zeros(rigidity.shape, dtype=bool)
+    window = STEEP_WINDOW * _flexural_parameter(smallest, operator.stiffness)
+    widest = LOCAL_STEEP_WINDOW * _flexural_parameter(largest, operator.stiffness)
     for axis, h in enumerate((operator.dy, operator.dx)):
-        size = 2 * int(window / h) + 1
-        if size < 3 or largest <= SHARP_RATIO * smallest:  # (no ten-fold change at all)
-            continue
-        top = scipy.ndimage.maximum_filter1d(filled, size, axis=axis, mode=modes[axis])
-        bottom = scipy.ndimage.minimum_filter1d(filled, size, axis=axis, mode=modes[axis])
-        found = top > SHARP_RATIO * bottom
-        del top, bottom
-        near_jump = scipy.ndimage.maximum_filter1d(
-            jumpy.view(np.uint8), size, axis=axis, mode=modes[axis]
-        ).view(bool)
-        steep |= found & ~near_jump
+        if largest <= SHARP_RATIO * smallest:  # (no ten-fold change at all)
+            break
+        halves = [int(window / h)] + [2**k for k in range(64) if 2**k * h <= widest]
+        for half in sorted(set(halves) - {0}):
+            size = 2 * half + 1
+            top = scipy.ndimage.maximum_filter1d(filled, size, axis=axis, mode=modes[axis])
+            bottom = scipy.ndimage.minimum_filter1d(filled, size, axis=axis, mode=modes[axis])
+            found = top > SHARP_RATIO * bottom
+            del top
+            if half * h > window:  # only within the local rule's reach
+                reach = _flexural_parameter_grid(bottom, operator.stiffness)
+                found &= reach >= np.float32(half * h / LOCAL_STEEP_WINDOW)
+                del reach
+            del bottom
+            near_jump = scipy.ndimage.maximum_filter1d(
+                jumpy.view(np.uint8), size, axis=axis, mode=modes[axis]
+            ).view(bool)
+            steep |= found & ~near_jump
     sharp = jumpy | steep
     edge_nodes = np.zeros(rigidity.shape, dtype=bool)
     if operator.edges[0] != "periodic":
@@ -271,9 +315,15 @@ def sharp_band(
         Distance (m) by which the sharp nodes are widened (the largest, with *widths*).
     max_nodes : int
         Cap on the band size. The width shrinks (:data:`BAND_SHRINK`) until the band fits,
-        in nodes and in the
-        estimated memory of its LU factors (*max_factor_bytes*), down to one
-        spacing; if even that does not fit, the band is empty and the blend works alone.
+        in nodes and in the estimated memory of its LU factors (*max_factor_bytes*), down
+        to one spacing; if even that does not fit, the band keeps as many of those nodes
+        as fit, nearest to a sharp node first and among equals those with the largest
+        rigidity contrast in their 3 x 3 neighbourhood (zero rigidity next to a plate
+        first), and is empty (the blend works alone) only when no node fits. Measured
+        with tests/benchmarks/te_map_robustness.py (band capped at a quarter of what it
+        asks for), against dropping the band: holes at 256² of 4 km ConvergenceError ->
+        52 iterations, clipped at 256² of 4 km and 512² of 2 km ConvergenceError -> 155
+        and 142; te_map, jumps and rough still raise ConvergenceError.
     sharp : numpy.ndarray of bool, optional
         The sharp nodes if already found (:func:`find_sharp_features`).
     widths : numpy.ndarray, optional
@@ -289,8 +339,8 @@ def sharp_band(
     nodes : numpy.ndarray of int
         Sorted flat indices of the band.
     width : float
-        The largest width used (m); 0 when the band was dropped or there is no sharp
-        feature.
+        The largest width used (m); one spacing for a partial band, 0 when the band was
+        dropped or there is no sharp feature.
     sharp : numpy.ndarray of bool, shape (ny, nx)
         The sharp nodes before widening.
     """
@@ -328,6 +378,27 @@ def sharp_band(
         if width <= minimum:
             break
         width = max(BAND_SHRINK * width, minimum)
+    # not even the narrowest band fits: keep the part of it that does, nearest to the
+    # sharp nodes first and, among those, the largest rigidity contrasts (zeros first)
+    fit = int(min(max_nodes, max_factor_bytes / (FACTOR_BYTES_PER_NODE_CELL * 3.0)))
+    if fit > 0:
+        modes = _modes(operator)
+        rigidity = operator.rigidity.astype(np.float32)
+        low = _extreme3(rigidity, modes, False)
+        contrast = np.full(rigidity.shape, np.inf, dtype=np.float32)
+        np.divide(_extreme3(rigidity, modes, True), low, out=contrast, where=low > 0)
+        candidates = np.flatnonzero(band)
+        order = np.lexsort((-contrast.ravel()[candidates], distance.ravel()[candidates]))
+        chosen = np.sort(candidates[order[:fit]])
+        log.warning(
+            "the band round the sharp features (%d nodes at its narrowest) exceeds the band "
+            "cap (%d nodes, %.1f GiB of LU factors); keeping %d of its nodes (more iterations)",
+            count,
+            max_nodes,
+            max_factor_bytes / 2**30,
+            chosen.size,
+        )
+        return chosen, minimum, sharp
     log.warning(
         "the sharp features alone (%d nodes, about %.1f GiB of LU factors) exceed the band "
         "cap (%d nodes, %.1f GiB); solving without the band (more iterations)",

@@ -7,6 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import scipy.integrate
+import scipy.ndimage
 import scipy.sparse.linalg
 
 from gridflex.grid import GridSpec
@@ -163,3 +164,43 @@ def test_stiff_plate_on_fine_cells_converges_at_the_defaults():
     assert info["iterations"] <= 30
     assert info["force_balance_residual"] < 1e-6
     assert np.isfinite(w).all()
+
+
+def _rough_te_map(n: int, dx: float, holes: int) -> tuple[np.ndarray, np.ndarray]:
+    """(te, load) of an invented rough te map in 0-100 km on an n x n grid of spacing dx:
+    a smooth random field clipped to 0-100 km (patches of te = 0 reached smoothly), a
+    stripe where te jumps 0 <-> 100 km, *holes* isolated te = 0 nodes, tapered to te = 0 over the
+    outer tenth (so the margin of edges="infinite" stays small)."""
+    rng = np.random.default_rng(15)
+    field = scipy.ndimage.gaussian_filter(rng.standard_normal((n, n)), n / 16, mode="wrap")
+    te = 100e3 * np.clip(0.5 + (field - field.mean()) / (2.6 * field.std()), 0.0, 1.0)
+    te[:, n // 2 : n // 2 + 3] = 0.0
+    te[:, n // 2 + 3 : n // 2 + 8] = 100e3
+    te.ravel()[rng.choice(n * n, size=holes, replace=False)] = 0.0
+    edge = np.minimum(np.arange(n), n - 1 - np.arange(n))
+    taper = np.clip(edge / (0.1 * n), 0.0, 1.0)
+    te *= np.minimum(taper[:, None], taper[None, :])
+    x = (np.arange(n) - n / 2 + 0.5) * dx
+    xx, yy = np.meshgrid(x, x)
+    load = np.where(np.hypot(xx + 0.1 * n * dx, yy) < 0.12 * n * dx, 2800 * 9.81 * 2000.0, 0.0)
+    return te, load
+
+
+def test_rough_te_map_with_zeros_and_jumps_converges_at_the_defaults():
+    # issue 15 target: no ConvergenceError at default settings for a te map in 0-100 km,
+    # deflection within 1e-6 of its peak of a direct solve. The reference is a sparse LU
+    # solve of the same discrete plate equations K w = a q (PHYSICS.md 2.2; comparing an
+    # iterative solve with a direct solve of the same system is common practice). The
+    # steep rises of D ~ te³ out of the te = 0 patches are banded since the steep rule
+    # judges them against the weakest plate in its window (seen: 1 iteration, the band
+    # holding 17.6 k of the 18.2 k nodes, largest error 3e-11 of the peak; 37 iterations
+    # and 6e-8 when the window followed the grid's smallest non-zero te)
+    n, dx = 128, 4e3
+    te, load = _rough_te_map(n, dx, holes=8)
+    spec = GridSpec(n, n, dx, dx)
+    solver = FiniteDifferenceSolver.build(spec, rigidity_from_te(te, 1e11, NU), STIFFNESS, NU)
+    w, info = solver.solve(load)
+    assert info["accuracy"] <= DEFAULT_TOLERANCE and not info["at_round_off"]
+    assert info["iterations"] <= 10
+    exact = _direct(solver, load)[solver.window]
+    assert np.abs(w - exact).max() <= 1e-6 * np.abs(exact).max()

@@ -109,3 +109,44 @@ def test_factor_budget_is_a_share_of_the_memory_left():
     # (free memory moves while other processes run: bracket it by the readings around)
     low, high = sorted(FACTOR_MEMORY_SHARE * (free - 0.25 * before) for free in (before, after))
     assert min(MAX_FACTOR_BYTES, 0.95 * low) <= budget <= min(MAX_FACTOR_BYTES, 1.05 * high)
+
+
+def test_steep_rise_out_of_te_zero_is_found_against_the_local_plate():
+    # common practice (the band rule of LOCAL_STEEP_WINDOW): a ten-fold change of D
+    # within half a flexural parameter of the weakest plate in the window is steep. te
+    # rising linearly from 0 to 100 km over 100 km, at te = 30 km: within 16 km on either
+    # side te spans 14 to 46 km (D 35-fold) and te = 14 km has a flexural parameter of
+    # about 47 km, so the node is steep; the window of STEEP_WINDOW, set by the grid's
+    # smallest non-zero te (1 km cells: te 1 km, flexural parameter 6.3 km), spans te 24
+    # to 36 km there (D 3.4-fold) and misses it. te 50 -> 100 km over 255 km (D
+    # eight-fold in all) is not steep anywhere
+    n, h = 256, 1000.0
+    x = np.arange(n) * h
+    te = np.clip(x - 60e3, 0.0, 100e3)
+    rigidity = np.repeat((1e11 * te**3 / (12 * (1 - NU**2)))[None, :], 8, axis=0)
+    found = find_sharp_features(PlateOperator.build(rigidity, STIFFNESS, NU, h, h)).nodes
+    assert found[:, int(np.argmin(np.abs(te - 30e3)))].all()
+    gentle = np.repeat((50e3 + 50e3 * x / x[-1])[None, :] ** 3 * 1e11 / 11.25, 8, axis=0)
+    assert not find_sharp_features(PlateOperator.build(gentle, STIFFNESS, NU, h, h)).nodes.any()
+
+
+def test_band_over_its_cap_keeps_the_sharpest_nodes_that_fit():
+    # common practice (the cap rule of sharp_band): when even the narrowest band exceeds
+    # the node cap, the nodes that fit are kept, sharp nodes first and among them those
+    # next to a break (infinite contrast); only a cap of 0 drops the band
+    n, h = 64, 4000.0
+    rigidity = np.full((n, n), 1e23)
+    rigidity[:, 40:] = 1e21  # a hundred-fold step
+    rigidity[20, 10] = 0.0  # one broken node
+    operator = PlateOperator.build(rigidity, STIFFNESS, NU, h, h)
+    found = find_sharp_features(operator)
+    full, _, _ = sharp_band(operator, found.band_width, 10**9, found.nodes, found.widths)
+    cap = 5
+    nodes, width, _ = sharp_band(operator, found.band_width, cap, found.nodes, found.widths)
+    assert cap < found.nodes.sum() < full.size
+    assert nodes.size == cap and width == h
+    kept = np.unravel_index(nodes, (n, n))
+    assert found.nodes[kept].all()  # sharp nodes only
+    assert (np.abs(kept[0] - 20) <= 1).all() and (np.abs(kept[1] - 10) <= 1).all()  # the break
+    empty, width, _ = sharp_band(operator, found.band_width, 0, found.nodes, found.widths)
+    assert empty.size == 0 and width == 0.0
