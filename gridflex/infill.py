@@ -638,11 +638,33 @@ class _Column:
         if self.sediment_mass is not None and rule != "none":
             assert self.window is not None
             fill = sediment[self.window]
-            mass, _ = self.sediment_mass(fill)
+            mass, _ = self._fill_mass(fill)
             total[self.window] += self.gravity * (mass - self.infill.sediment_density * fill)
         if root is not None:
             total += self.gravity * self.load_density * root
         return sediment, water, total
+
+    def _fill_mass(self, fill: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """``sediment_mass(fill)``, checked: two finite arrays shaped like *fill*, the
+        mass >= 0 (a caller's function that breaks this is named, not traced back)."""
+        assert self.sediment_mass is not None
+        try:
+            mass, top = (np.asarray(v, dtype=np.float64) for v in self.sediment_mass(fill))
+        except (TypeError, ValueError) as error:
+            raise InputError(
+                f"sediment_mass must return (mass, density) arrays for a fill thickness: {error}"
+            ) from error
+        for name, value in (("mass", mass), ("density", top)):
+            if value.shape != fill.shape:
+                raise InputError(
+                    f"sediment_mass returned a {name} of shape {value.shape}; the fill "
+                    f"thickness it was given has shape {fill.shape}"
+                )
+            if not np.all(np.isfinite(value)):
+                raise InputError(f"sediment_mass returned NaN or infinite {name} values")
+        if mass.min(initial=0.0) < 0.0:
+            raise InputError(f"sediment_mass returned a negative mass ({mass.min()!r} kg m^-2)")
+        return mass, top
 
     def root(self, w: np.ndarray) -> np.ndarray | None:
         """Load material filling the depression under a buried load (m), or None."""
@@ -656,7 +678,7 @@ class _Column:
         if self.sediment_mass is not None and self.infill.sediment != "none":
             assert self.window is not None
             fill = sediment[self.window]
-            _, top = self.sediment_mass(fill)
+            _, top = self._fill_mass(fill)
             density[self.window] = np.where(fill > 0.0, top, density[self.window])
         if self.footprint is not None:
             density = np.where(self.footprint > 0, self.load_density, density)

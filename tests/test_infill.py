@@ -352,3 +352,20 @@ def test_sediment_mass_of_a_compacting_fill():
     )
     plain = solve_with_infill(load, plate0, surface, infill, tolerance=1e-9)
     assert float(np.abs(plain["deflection"].values - expected).max()) > 1.0  # it matters
+
+
+def test_sediment_mass_that_breaks_its_contract_is_named():
+    # a caller's sediment_mass with the wrong shape, NaN or a negative mass is refused with
+    # one message naming it (not a traceback from deep in the iteration)
+    load, surface = cone_case(n=64)
+    plate0 = Plate(te=0.0, mantle_density=RHO_M)
+    infill = Infill(sediment="full", sediment_density=2000.0)
+    bad = {
+        "shape": lambda f: (np.zeros(3), np.zeros(3)),
+        "NaN": lambda f: (np.full(f.shape, np.nan), np.full(f.shape, 2000.0)),
+        "negative": lambda f: (-1.0 - f, np.full(f.shape, 2000.0)),
+        "mass, density": lambda f: 1.0,
+    }
+    for words, mass in bad.items():
+        with pytest.raises(InputError, match=f"sediment_mass.*{words}|{words}.*sediment_mass"):
+            solve_with_infill(load, plate0, surface, infill, sediment_mass=mass)

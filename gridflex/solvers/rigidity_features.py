@@ -297,6 +297,13 @@ def _flexural_parameter_grid(rigidity: np.ndarray, stiffness: float) -> np.ndarr
     return np.power(np.float32(4.0 / stiffness) * rigidity, np.float32(0.25))
 
 
+def _factor_bytes(count: int, across: float, spacing: float) -> float:
+    """Estimated LU factor memory (bytes) of a band of *count* nodes *across* metres wide on
+    a grid of smallest *spacing* (m): :data:`FACTOR_BYTES_PER_NODE_CELL` per node and per
+    node across the band."""
+    return FACTOR_BYTES_PER_NODE_CELL * count * (2.0 * across / spacing + 1.0)
+
+
 def sharp_band(
     operator: PlateOperator,
     width: float,
@@ -372,7 +379,7 @@ def sharp_band(
         across = width  # the band's width; with *widths*, its mean over the band
         if widths is not None and count:
             across = float(reach[band].mean()) * width / largest
-        factor_bytes = FACTOR_BYTES_PER_NODE_CELL * count * (2.0 * across / spacing + 1.0)
+        factor_bytes = _factor_bytes(count, across, spacing)
         if count <= max_nodes and factor_bytes <= max_factor_bytes:
             return np.flatnonzero(band), width, sharp
         if width <= minimum:
@@ -380,7 +387,7 @@ def sharp_band(
         width = max(BAND_SHRINK * width, minimum)
     # not even the narrowest band fits: keep the part of it that does, nearest to the
     # sharp nodes first and, among those, the largest rigidity contrasts (zeros first)
-    fit = int(min(max_nodes, max_factor_bytes / (FACTOR_BYTES_PER_NODE_CELL * 3.0)))
+    fit = int(min(max_nodes, max_factor_bytes / _factor_bytes(1, minimum, spacing)))
     if fit > 0:
         modes = _modes(operator)
         rigidity = operator.rigidity.astype(np.float32)

@@ -357,7 +357,8 @@ class VariableRelaxation:
         return self.equilibrium_solver.shape
 
     def _window(self, full: np.ndarray) -> np.ndarray:
-        return np.ascontiguousarray(full[self.equilibrium_solver.window])
+        """The grid's part of *full*, always a copy (callers add to it in place)."""
+        return np.array(full[self.equilibrium_solver.window], order="C")
 
     def _embed(self, values: np.ndarray) -> np.ndarray:
         full = np.zeros(self.shape)
