@@ -14,10 +14,12 @@ FFTs that follow ran up to twice as slow (measured in the variable-rigidity solv
 from __future__ import annotations
 
 import functools
+import itertools
 import os
+import threading
 from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
-from typing import TypeVar
+from typing import TypeVar, cast
 
 import numpy as np
 
@@ -50,9 +52,10 @@ def thread_count() -> int:
 
 @functools.cache
 def _thread_pool() -> ThreadPoolExecutor | None:
-    """One pool shared by all callers (None on one core)."""
+    """One pool shared by all callers (None on one core): the calling thread works too, so
+    the pool holds one thread fewer than :func:`thread_count`."""
     threads = thread_count()
-    return ThreadPoolExecutor(threads, "gridflex-rows") if threads > 1 else None
+    return ThreadPoolExecutor(threads - 1, "gridflex-rows") if threads > 1 else None
 
 
 def block_rows(nx: int, ny: int) -> int:
@@ -63,9 +66,13 @@ def block_rows(nx: int, ny: int) -> int:
 def for_row_blocks(ny: int, rows: int, work: Callable[[int, int, int], T]) -> list[T]:
     """Call ``work(j0, j1, thread)`` for every block of *rows* rows of a grid *ny* high.
 
-    The blocks are dealt out as contiguous runs, one per thread; ``thread`` (0 to
-    :func:`thread_count` - 1) tells the call which thread-private buffers it may use. Runs
-    on the calling thread alone when there is one core or too few blocks.
+    The calling thread and the pool's threads each take the next block not yet taken until
+    none is left, so a thread slowed down by other work on a shared machine takes fewer
+    blocks instead of holding the others up at the end (contiguous runs, one per thread,
+    waited for the slowest: on a 2-core machine loaded by another job the variable-rigidity
+    solve spent most of its time waiting). ``thread`` (0 to :func:`thread_count` - 1; 0 is
+    the caller) tells the call which thread-private buffers it may use. Runs on the calling
+    thread alone when there is one core or too few blocks.
 
     Parameters
     ----------
@@ -74,26 +81,43 @@ def for_row_blocks(ny: int, rows: int, work: Callable[[int, int, int], T]) -> li
     rows : int
         Rows per block (see :func:`block_rows`).
     work : callable
-        ``work(j0, j1, thread)`` handles rows ``j0:j1``.
+        ``work(j0, j1, thread)`` handles rows ``j0:j1``; blocks must not depend on each
+        other (they run in any order).
 
     Returns
     -------
     list
         The return values, in the order of the blocks (so that sums taken from them do not
-        depend on the thread count).
+        depend on the thread count or on which thread took which block).
     """
-    starts = list(range(0, ny, rows))
+    starts = range(0, ny, rows)
     pool = _thread_pool()
     threads = thread_count()
     if pool is None or len(starts) < 2 * threads:
         return [work(j0, min(j0 + rows, ny), 0) for j0 in starts]
+    results: list[T | None] = [None] * len(starts)
+    taken = itertools.count()
+    lock = threading.Lock()
 
-    def run(chunk: list[int], thread: int) -> list[T]:
-        return [work(j0, min(j0 + rows, ny), thread) for j0 in chunk]
+    def run(thread: int) -> None:
+        while True:
+            with lock:
+                index = next(taken)
+            if index >= len(starts):
+                return
+            j0 = starts[index]
+            results[index] = work(j0, min(j0 + rows, ny), thread)
 
-    chunks = np.array_split(np.asarray(starts), threads)
-    futures = [pool.submit(run, chunk.tolist(), t) for t, chunk in enumerate(chunks)]
-    return [value for future in futures for value in future.result()]
+    futures = [pool.submit(run, thread) for thread in range(1, threads)]
+    try:
+        run(0)
+    finally:
+        # a helper that never started (the pool busy, say with a caller's own blocks) is
+        # not waited for: the blocks are all taken; one that did start is
+        for future in futures:
+            if not future.cancel():
+                future.result()
+    return cast(list[T], results)
 
 
 def dot(a: np.ndarray, b: np.ndarray) -> float:
