@@ -209,6 +209,35 @@ def test_a_kept_set_up_gives_the_same_deflection_and_is_rebuilt_for_another_te()
     assert cache.builds == 3  # another fill density: another operator
 
 
+def test_a_kept_set_up_with_a_wider_margin_serves_a_lighter_fill():
+    # A lighter densest fill asks for a narrower margin (it is sized with that fill's
+    # flexural parameter); with the same shift (operator) a kept set-up whose margin is
+    # somewhat wider serves it, and the deflection differs from a new set-up's by the
+    # margin's effect only, within 1e-6 of the peak (the infinite-plate margin: common
+    # practice); a set-up with a narrower margin than asked never serves.
+    n, dx = 48, 4e3
+    load, h = _cone(n, dx)
+    plate = _margin_plate(load)
+    surface = _grid(-4000.0 + h, dx)
+    denser = Infill(sediment="to_level", sediment_level=-3800.0, sediment_density=2600.0)
+    lighter = Infill(sediment="to_level", sediment_level=-3800.0, sediment_density=2400.0)
+    shift = 1100.0
+    cache = InnerSolverCache()
+    solve_with_infill(load, plate, surface, denser, shift=shift, cache=cache)
+    served = solve_with_infill(load, plate, surface, lighter, shift=shift, cache=cache)
+    assert (cache.builds, cache.reuses) == (1, 1)
+    fresh = solve_with_infill(load, plate, surface, lighter, shift=shift)
+    wide, narrow = served.attrs["padded_shape"], fresh.attrs["padded_shape"]
+    assert np.all(wide >= narrow) and np.any(wide > narrow)  # really wider
+    peak = np.abs(fresh["deflection"].values).max()
+    diff = np.abs(served["deflection"].values - fresh["deflection"].values).max()
+    assert 0.0 < diff <= 1e-6 * peak
+    cache = InnerSolverCache()
+    solve_with_infill(load, plate, surface, lighter, shift=shift, cache=cache)
+    solve_with_infill(load, plate, surface, denser, shift=shift, cache=cache)
+    assert (cache.builds, cache.reuses) == (2, 0)
+
+
 def test_anderson_mixes_the_products_of_the_images_with_the_same_coefficients():
     # The mixed iterate is a linear combination of the images, so the operator applied
     # to it is the same combination of the images' products (K linear: common practice);
