@@ -239,8 +239,7 @@ class IceStepper:
         return out
 
     def _wrap(self, values: np.ndarray, name: str, attrs: dict[str, Any]) -> xr.DataArray:
-        coords = {"y": self._grid["y"].variable, "x": self._grid["x"].variable}
-        return xr.DataArray(values, dims=("y", "x"), coords=coords, name=name, attrs=attrs)
+        return self.stepper._wrap(values, name, attrs)  # the same grid
 
     # -- stepping -------------------------------------------------------------------
     def advance(
@@ -272,7 +271,8 @@ class IceStepper:
         level = self._sea(sea_level, "sea_level")
         # the load on the bed of the step's start drives the step (explicit lag) ...
         drive = self.rule.change(ice, level, self._w, out=self._spare_load())
-        self._w = self.stepper.advance(dt_years, drive).values
+        self.stepper._advance(dt_years, drive)  # made of checked inputs: finite
+        self._w = self.stepper.deflection.values
         self._keep_elastic()
         self._thickness, self._level = ice, level
         # ... and, on the new bed, becomes the load acting now
@@ -295,7 +295,7 @@ class IceStepper:
         (no transform when it has not changed, as on land above the sea)."""
         load = self.rule.change(self._thickness, self._level, self._w, out=self._spare_load())
         if not np.array_equal(load, self._load):
-            self.stepper.set_load(load)
+            self.stepper._set_load(load)
         self._load, self._spare = load, self._load
 
     def _spare_load(self) -> np.ndarray:
