@@ -304,15 +304,17 @@ class SpectralRelaxation:
         self._made = (*self._made[-1:], spectrum)
         return spectrum
 
-    def inverse(self, spectrum: np.ndarray) -> np.ndarray:
+    def inverse(self, spectrum: np.ndarray, copy: bool = True) -> np.ndarray:
         """Field on the unpadded grid from a spectrum on the FFT grid (input kept).
 
         Only the rows and columns of the output window are transformed back along x.
+        Without *copy* the field may be a view of a larger new array (see
+        :func:`window_inverse`).
         """
         work = self._work(_floats(spectrum)).view(np.complex128)
         if not np.may_share_memory(work, spectrum):
             np.copyto(work, spectrum)
-        return window_inverse(work, self.shape, self.spec.shape, overwrite=True)
+        return window_inverse(work, self.shape, self.spec.shape, overwrite=True, copy=copy)
 
     def _replace_load_spectrum(self, spectrum: np.ndarray) -> None:
         """Make *spectrum* (from :meth:`forward`) the load acting now; the one it replaces
@@ -347,17 +349,18 @@ class SpectralRelaxation:
 
     def deflection(self) -> np.ndarray:
         """Current deflection w (m, positive down) on the unpadded grid."""
-        out = self.inverse(self.state)
-        if self.far is not None:
-            out += self.far.field()
-        return out
+        if self.far is None:
+            return self.inverse(self.state)
+        # the window of the inverse added to the far field (a new array): no copy of it
+        return self.far.field(base=self.inverse(self.state, copy=False))
 
     def equilibrium(self) -> np.ndarray:
         """Elastic equilibrium (m) under the load acting now."""
-        out = self.inverse(self.load_spectrum * self.transfer)
-        if self.far is not None:
-            out += self.far.equilibrium_field()
-        return out
+        if self.far is None:
+            return self.inverse(self.load_spectrum * self.transfer)
+        return self.far.equilibrium_field(
+            base=self.inverse(self.load_spectrum * self.transfer, copy=False)
+        )
 
     def rate(self) -> np.ndarray:
         """dw/dt (m s⁻¹, positive = moving down) now, under the load acting now.
@@ -382,10 +385,10 @@ class SpectralRelaxation:
             out *= _rows(rates, factor_rows)
 
         _for_mirrored_rows(work.shape[0], work.shape[1], update)
-        out = self.inverse(work.view(np.complex128))  # work is the inverse's work space
-        if self.far is not None:
-            out += self.far.rate_field()
-        return out
+        # work is the inverse's work space
+        if self.far is None:
+            return self.inverse(work.view(np.complex128))
+        return self.far.rate_field(base=self.inverse(work.view(np.complex128), copy=False))
 
     def _work(self, like: np.ndarray) -> np.ndarray:
         """A work array shaped like the float view *like* of a spectrum (kept between
@@ -477,15 +480,19 @@ def window_inverse(
     shape: tuple[int, int],
     window: tuple[int, int],
     overwrite: bool = False,
+    copy: bool = True,
 ) -> np.ndarray:
     """The first *window* rows and columns of the inverse of a half spectrum of *shape*;
     only the window's rows are transformed back along x. The input is kept unless
-    *overwrite* (then it is used as work space)."""
+    *overwrite* (then it is used as work space). The result is a new array: its own
+    (C-contiguous) unless *copy* is False, then it may be a view of the window of a
+    larger new array (for a caller that writes the sum of it and another field into a
+    new array anyway)."""
     ny, nx = window
     columns = scipy.fft.ifft(spectrum, axis=0, workers=-1, overwrite_x=overwrite)[:ny]
     full = scipy.fft.irfft(columns, n=shape[1], axis=1, workers=-1)
-    if full.shape[1] == nx:
-        return full
+    if full.shape[1] == nx or not copy:
+        return full[:, :nx]
     return np.ascontiguousarray(full[:, :nx])
 
 
