@@ -267,8 +267,14 @@ class IceStepper:
             Bed elevation (m, positive up) at the new time: the reference bed minus the
             deflection.
         """
-        ice = self._ice(ice_thickness, "ice_thickness")
-        level = self._sea(sea_level, "sea_level")
+        self._advance(
+            dt_years, self._ice(ice_thickness, "ice_thickness"), self._sea(sea_level, "sea_level")
+        )
+        return self.bed_elevation
+
+    def _advance(self, dt_years: float, ice: np.ndarray, level: float | np.ndarray) -> None:
+        """:meth:`advance` with *ice* and *level* already checked (as
+        :func:`gridflex.ice_response` checks its whole history once), returning nothing."""
         # the load on the bed of the step's start drives the step (explicit lag) ...
         drive = self.rule.change(ice, level, self._w, out=self._spare_load())
         self.stepper._advance(dt_years, drive)  # made of checked inputs: finite
@@ -277,7 +283,6 @@ class IceStepper:
         self._thickness, self._level = ice, level
         # ... and, on the new bed, becomes the load acting now
         self._reload()
-        return self.bed_elevation
 
     def set_ice(
         self,
