@@ -21,10 +21,12 @@ Measured (half-space, 512², FFT grid 1024², machine loaded: load average 6.1 a
 start, 7.1 at the end; the FFT pair took 69.8 ms, 15-35 ms when the machine is quiet):
 ``IceStepper`` 1000 steps with rates 178.2 s (178 ms per step, 2.56 FFT pairs),
 ``ice_response`` writing 11 times 122.7 s (1.76 FFT pairs per step), the two final
-deflections equal (0 m). 300-step runs against the code before the in-place ice load,
-the wrapping and forward-transform changes, alternated (load 6.8-8.1): ``IceStepper``
-2.66 / 3.17 FFT pairs per step before, 2.10 / 2.21 after; ``ice_response`` 1.88 / 2.48
-before, 1.49 / 1.84 after (DEVELOPERS.md, ice histories, lists the changes).
+deflections equal (0 m); again at load 4.0-5.3 (FFT pair 58.5 ms): 158.9 s (2.72 pairs,
+CPU of all threads 93.5 s) and 109.3 s (1.87 pairs, CPU 66.5 s). 300-step runs against
+the code before the in-place ice load, the wrapping and forward-transform changes,
+alternated (load 6.8-8.1): ``IceStepper`` 2.66 / 3.17 FFT pairs per step before, 2.10 /
+2.21 after; ``ice_response`` 1.88 / 2.48 before, 1.49 / 1.84 after (DEVELOPERS.md, ice
+histories, lists the changes).
 """
 
 from __future__ import annotations
