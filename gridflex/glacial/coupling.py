@@ -185,6 +185,7 @@ class IceStepper:
         self._w = np.zeros(bed_values.shape)
         self._elastic_w = self._w  # the elastic part of _w
         self._load = self.rule.change(self._thickness, self._level, self._w)
+        self._spare: np.ndarray | None = None  # see _spare_load
         self.stepper = ResponseStepper(
             bed,
             plate,
@@ -238,8 +239,7 @@ class IceStepper:
         return out
 
     def _wrap(self, values: np.ndarray, name: str, attrs: dict[str, Any]) -> xr.DataArray:
-        coords = {"y": self._grid["y"].variable, "x": self._grid["x"].variable}
-        return xr.DataArray(values, dims=("y", "x"), coords=coords, name=name, attrs=attrs)
+        return self.stepper._wrap(values, name, attrs)  # the same grid
 
     # -- stepping -------------------------------------------------------------------
     def advance(
@@ -267,15 +267,22 @@ class IceStepper:
             Bed elevation (m, positive up) at the new time: the reference bed minus the
             deflection.
         """
-        ice = self._ice(ice_thickness, "ice_thickness")
-        level = self._sea(sea_level, "sea_level")
+        self._advance(
+            dt_years, self._ice(ice_thickness, "ice_thickness"), self._sea(sea_level, "sea_level")
+        )
+        return self.bed_elevation
+
+    def _advance(self, dt_years: float, ice: np.ndarray, level: float | np.ndarray) -> None:
+        """:meth:`advance` with *ice* and *level* already checked (as
+        :func:`gridflex.ice_response` checks its whole history once), returning nothing."""
         # the load on the bed of the step's start drives the step (explicit lag) ...
-        self._w = self.stepper.advance(dt_years, self.rule.change(ice, level, self._w)).values
+        drive = self.rule.change(ice, level, self._w, out=self._spare_load())
+        self.stepper._advance(dt_years, drive)  # made of checked inputs: finite
+        self._w = self.stepper.deflection.values
         self._keep_elastic()
         self._thickness, self._level = ice, level
         # ... and, on the new bed, becomes the load acting now
         self._reload()
-        return self.bed_elevation
 
     def set_ice(
         self,
@@ -291,10 +298,18 @@ class IceStepper:
     def _reload(self) -> None:
         """Make the load of the ice and sea level now on the bed now the acting load
         (no transform when it has not changed, as on land above the sea)."""
-        load = self.rule.change(self._thickness, self._level, self._w)
+        load = self.rule.change(self._thickness, self._level, self._w, out=self._spare_load())
         if not np.array_equal(load, self._load):
-            self.stepper.set_load(load)
-        self._load = load
+            self.stepper._set_load(load)
+        self._load, self._spare = load, self._load
+
+    def _spare_load(self) -> np.ndarray:
+        """An array for the next load to be written into: not the load acting now (it
+        is compared with it) and kept by no one else (the plate copies what it is given)."""
+        spare = self._spare
+        if spare is None or spare is self._load:
+            spare = self._spare = np.empty(self._w.shape)
+        return spare
 
     def _keep_elastic(self) -> None:
         """Keep the elastic part of the deflection just computed (the load acting now
@@ -467,4 +482,5 @@ class IceStepper:
                 )
             out._elastic_w = np.asarray(ds["elastic_deflection"].values, dtype=np.float64)
         out._load = out.rule.change(out._thickness, out._level, out._w)
+        out._spare = None
         return out

@@ -19,6 +19,7 @@ from typing import Any
 import numpy as np
 
 from gridflex.constants import DEFAULT_GRAVITY, SEA_WATER_DENSITY
+from gridflex.solvers.row_blocks import block_rows, for_row_blocks
 
 __all__ = ["ICE_DENSITY", "IceLoad", "bed_stress", "grounded_mask"]
 
@@ -36,6 +37,7 @@ def bed_stress(
     ice_density: float = ICE_DENSITY,
     water_density: float = SEA_WATER_DENSITY,
     gravity: float = DEFAULT_GRAVITY,
+    out: np.ndarray | None = None,
 ) -> ArrayLike:
     """Vertical stress on the bed of ice and ocean water (Pa, positive down).
 
@@ -53,6 +55,10 @@ def bed_stress(
         rho_i and rho_w (kg m^-3), default 910 and 1030.
     gravity : float, default 9.81
         g (m s^-2).
+    out : numpy.ndarray, optional
+        numpy inputs only: the array (float64, of the broadcast shape) to write sigma
+        into, and return; it may be *bed* itself. The same operations in the same
+        order as without it, so the values are bit for bit the same.
 
     Returns
     -------
@@ -68,8 +74,13 @@ def bed_stress(
     >>> float(bed_stress(0.0, -500.0))           # the same water column, no ice
     5052150.0
     """
-    ocean = water_density * np.maximum(sea_level - bed, 0.0)
-    return gravity * np.maximum(ice_density * ice_thickness, ocean)
+    # ufuncs with out=: fresh arrays (or DataArrays) without it, in place with it
+    ocean = np.multiply(
+        water_density, np.maximum(np.subtract(sea_level, bed, out=out), 0.0, out=out), out=out
+    )
+    return np.multiply(
+        gravity, np.maximum(np.multiply(ice_density, ice_thickness), ocean, out=out), out=out
+    )
 
 
 def grounded_mask(
@@ -121,9 +132,40 @@ class IceLoad:
             dtype=np.float64,
         )
 
-    def change(self, ice: ArrayLike, level: ArrayLike, w: ArrayLike) -> np.ndarray:
-        """sigma − sigma_ref (Pa), the load that drives the plate."""
-        return self.stress(ice, level, w) - self.reference_stress
+    def change(
+        self,
+        ice: np.ndarray,
+        level: float | np.ndarray,
+        w: np.ndarray,
+        out: np.ndarray | None = None,
+    ) -> np.ndarray:
+        """sigma − sigma_ref (Pa), the load that drives the plate, for *ice* and *w* on the
+        grid (and *level* a number or on the grid).
+
+        The rule of :meth:`stress` evaluated in cache-sized blocks of rows shared among
+        threads (bit for bit the same values), into *out* when given (float64, the
+        grid's shape; not one of the inputs), which is returned."""
+        if out is None:
+            out = np.empty(self.bed.shape)
+        sea = np.asarray(level, dtype=np.float64)
+        ny, nx = out.shape
+
+        def rows(j0: int, j1: int, _thread: int) -> None:
+            block = out[j0:j1]
+            np.subtract(self.bed[j0:j1], w[j0:j1], out=block)  # the bed now
+            bed_stress(
+                ice[j0:j1],
+                block,
+                sea if sea.ndim == 0 else sea[j0:j1],
+                ice_density=self.ice_density,
+                water_density=self.water_density,
+                gravity=self.gravity,
+                out=block,
+            )
+            block -= self.reference_stress[j0:j1]
+
+        for_row_blocks(ny, block_rows(nx, ny), rows)
+        return out
 
     def grounded(self, ice: ArrayLike, level: ArrayLike, w: ArrayLike) -> np.ndarray:
         """Where *ice* rests on the bed moved down by *w*."""

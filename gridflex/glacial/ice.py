@@ -484,12 +484,13 @@ def _run_history(
             f = (end - times[n - 1]) / (times[n] - times[n - 1])
             ice = thickness[n - 1] + f * (thickness[n] - thickness[n - 1])
             level = levels[n - 1] + f * (levels[n] - levels[n - 1])
+        # the history's ice and sea level were checked once (_check_ice, _sea_level_series)
         if linear:
             # ice and sea level at the end of the step, on the bed of its start
-            stepper.advance(end - start, ice, float(level))
+            stepper._advance(end - start, ice, float(level))
         else:
             # the earlier ice and sea level held, on the bed of the step's start
-            stepper.advance(end - start, thickness[n - 1], float(levels[n - 1]))
+            stepper._advance(end - start, thickness[n - 1], float(levels[n - 1]))
             if end == times[n]:
                 stepper.set_ice(thickness[n], float(levels[n]))
         record(end)

@@ -72,7 +72,7 @@ ENGINE_FIELDS: dict[type, tuple[frozenset[str], frozenset[str]]] = {
         frozenset({"state", "load_spectrum", "far"}),
         frozenset(
             {"spec", "shape", "model", "interpolation", "transfer", "rates"}
-            | {"_factors", "_scratch", "_rate_factors", "_spare", "_made"}
+            | {"_factors", "_scratch", "_rate_factors", "_spare", "_made", "_rows"}
         ),
     ),
     VariableRelaxation: (

@@ -200,8 +200,11 @@ class _SymmetricWindow:
         )
         return cls((oy.size, ox.size), matrix)
 
-    def field(self, profiles: np.ndarray) -> np.ndarray:
-        """The field (window shape) of the stacked profiles (see :data:`_PROFILES`)."""
+    def field(self, profiles: np.ndarray, base: np.ndarray | None = None) -> np.ndarray:
+        """The field (window shape) of the stacked profiles (see :data:`_PROFILES`), a
+        new array; with *base* (window shape, any strides: say the window of a larger
+        inverse transform) the field plus *base* in that array, bit for bit
+        ``base + field`` (the sum of two numbers is the same either way round)."""
         ny, nx = self.shape
         hy, hx = (ny + 1) // 2, (nx + 1) // 2
         even, odd_both, along_y, along_x = (self.matrix @ profiles).reshape(4, hy, hx)
@@ -213,6 +216,8 @@ class _SymmetricWindow:
         np.subtract(minus, opposite, out=out[ny - hy :, :hx][::-1])
         np.add(minus, opposite, out=out[:hy, nx - hx :][:, ::-1])
         np.subtract(plus, same, out=out[ny - hy :, nx - hx :][::-1, ::-1])
+        if base is not None:  # (adding it quadrant by quadrant was slower, measured)
+            out += base
         return out
 
 
@@ -497,17 +502,20 @@ class FarField:
             ]
         )
 
-    def _field(self, modes: np.ndarray) -> np.ndarray:
-        return self.window.field(self._radial(modes))
+    def _field(self, modes: np.ndarray, base: np.ndarray | None) -> np.ndarray:
+        return self.window.field(self._radial(modes), base)
 
-    def field(self) -> np.ndarray:
-        """Deflection (m) of the far part on the window now."""
-        return self._field(self.state)
+    def field(self, base: np.ndarray | None = None) -> np.ndarray:
+        """Deflection (m) of the far part on the window now (plus *base*, a field on the
+        window of any strides, when given: see :meth:`_SymmetricWindow.field`)."""
+        return self._field(self.state, base)
 
-    def equilibrium_field(self) -> np.ndarray:
-        """Deflection (m) of the far part in equilibrium with the moments acting now."""
-        return self._field(self.moments[:, None] * self.transfer)
+    def equilibrium_field(self, base: np.ndarray | None = None) -> np.ndarray:
+        """Deflection (m) of the far part in equilibrium with the moments acting now
+        (plus *base*, as :meth:`field`)."""
+        return self._field(self.moments[:, None] * self.transfer, base)
 
-    def rate_field(self) -> np.ndarray:
-        """dw/dt (m s⁻¹) of the far part now, under the moments acting now."""
-        return self._field((self.moments[:, None] * self.transfer - self.state) * self.rates)
+    def rate_field(self, base: np.ndarray | None = None) -> np.ndarray:
+        """dw/dt (m s⁻¹) of the far part now, under the moments acting now (plus
+        *base*, as :meth:`field`)."""
+        return self._field((self.moments[:, None] * self.transfer - self.state) * self.rates, base)

@@ -26,13 +26,14 @@ from __future__ import annotations
 
 import functools
 import logging
+import os
 
 import numpy as np
 import scipy.fft
 
 from gridflex.solvers.row_blocks import block_rows, for_row_blocks, thread_count
 
-__all__ = ["COLUMN_BLOCK", "BlockedSpectralFilter"]
+__all__ = ["COLUMN_BLOCK", "BlockedSpectralFilter", "rfft_rows_into"]
 
 log = logging.getLogger(__name__)
 
@@ -66,6 +67,17 @@ def _direct_available() -> bool:
         log.debug("pocketfft bindings not usable (%s); using scipy.fft", exc)
         return False
     return bool(ok)
+
+
+def rfft_rows_into(real: np.ndarray, out: np.ndarray) -> None:
+    """Real transform of each row of *real* (float64, C order) written into *out*
+    (complex128, ``(rows, n // 2 + 1)``, C order), on all cores (scipy.fft's
+    ``workers=-1``): straight into *out* through pocketfft's entry point when it is
+    usable (see the module notes), else by ``scipy.fft.rfft`` and a copy."""
+    if _direct_available():
+        _pocketfft.r2c(real, (1,), True, 0, out, os.cpu_count() or 1)
+    else:
+        out[...] = scipy.fft.rfft(real, axis=1, workers=-1)
 
 
 class BlockedSpectralFilter:

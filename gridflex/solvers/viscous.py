@@ -43,6 +43,7 @@ import scipy.fft
 from gridflex.grid import GridSpec, padded_shape, wavenumbers_squared
 from gridflex.memory import check_memory
 from gridflex.solvers.far_field import FarField, step_factors
+from gridflex.solvers.fft_buffers import rfft_rows_into
 from gridflex.solvers.row_blocks import block_rows, for_row_blocks
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR, decay_length, transfer_function
 from gridflex.validation import check_choice, check_number
@@ -209,6 +210,8 @@ class SpectralRelaxation:
     """A spectrum array no longer in use, for the next forward transform to fill."""
     _made: tuple[np.ndarray, ...] = field(default=(), repr=False)
     """The last spectra :meth:`forward` made (only those may become :attr:`_spare`)."""
+    _rows: np.ndarray | None = field(default=None, repr=False)
+    """The zero-padded data rows of the forward transform (see :func:`padded_forward`)."""
 
     @classmethod
     def build(
@@ -300,19 +303,25 @@ class SpectralRelaxation:
         rows are zero), which is what makes a widely padded grid affordable.
         """
         out, self._spare = self._spare, None
-        spectrum = padded_forward(load, self.shape, out)
+        if out is None:
+            out = np.empty((self.shape[0], self.shape[1] // 2 + 1), dtype=np.complex128)
+        if self._rows is None:
+            self._rows = np.zeros((self.spec.ny, self.shape[1]))
+        spectrum = padded_forward(load, self.shape, out, self._rows)
         self._made = (*self._made[-1:], spectrum)
         return spectrum
 
-    def inverse(self, spectrum: np.ndarray) -> np.ndarray:
+    def inverse(self, spectrum: np.ndarray, copy: bool = True) -> np.ndarray:
         """Field on the unpadded grid from a spectrum on the FFT grid (input kept).
 
         Only the rows and columns of the output window are transformed back along x.
+        Without *copy* the field may be a view of a larger new array (see
+        :func:`window_inverse`).
         """
         work = self._work(_floats(spectrum)).view(np.complex128)
         if not np.may_share_memory(work, spectrum):
             np.copyto(work, spectrum)
-        return window_inverse(work, self.shape, self.spec.shape, overwrite=True)
+        return window_inverse(work, self.shape, self.spec.shape, overwrite=True, copy=copy)
 
     def _replace_load_spectrum(self, spectrum: np.ndarray) -> None:
         """Make *spectrum* (from :meth:`forward`) the load acting now; the one it replaces
@@ -347,17 +356,18 @@ class SpectralRelaxation:
 
     def deflection(self) -> np.ndarray:
         """Current deflection w (m, positive down) on the unpadded grid."""
-        out = self.inverse(self.state)
-        if self.far is not None:
-            out += self.far.field()
-        return out
+        if self.far is None:
+            return self.inverse(self.state)
+        # the window of the inverse added to the far field (a new array): no copy of it
+        return self.far.field(base=self.inverse(self.state, copy=False))
 
     def equilibrium(self) -> np.ndarray:
         """Elastic equilibrium (m) under the load acting now."""
-        out = self.inverse(self.load_spectrum * self.transfer)
-        if self.far is not None:
-            out += self.far.equilibrium_field()
-        return out
+        if self.far is None:
+            return self.inverse(self.load_spectrum * self.transfer)
+        return self.far.equilibrium_field(
+            base=self.inverse(self.load_spectrum * self.transfer, copy=False)
+        )
 
     def rate(self) -> np.ndarray:
         """dw/dt (m s⁻¹, positive = moving down) now, under the load acting now.
@@ -382,10 +392,10 @@ class SpectralRelaxation:
             out *= _rows(rates, factor_rows)
 
         _for_mirrored_rows(work.shape[0], work.shape[1], update)
-        out = self.inverse(work.view(np.complex128))  # work is the inverse's work space
-        if self.far is not None:
-            out += self.far.rate_field()
-        return out
+        # work is the inverse's work space
+        if self.far is None:
+            return self.inverse(work.view(np.complex128))
+        return self.far.rate_field(base=self.inverse(work.view(np.complex128), copy=False))
 
     def _work(self, like: np.ndarray) -> np.ndarray:
         """A work array shaped like the float view *like* of a spectrum (kept between
@@ -448,7 +458,10 @@ class SpectralRelaxation:
 
 
 def padded_forward(
-    values: np.ndarray, shape: tuple[int, int], out: np.ndarray | None = None
+    values: np.ndarray,
+    shape: tuple[int, int],
+    out: np.ndarray | None = None,
+    rows: np.ndarray | None = None,
 ) -> np.ndarray:
     """Half spectrum (as ``scipy.fft.rfft2``) of *values* zero-padded to *shape*, the data
     at the first rows and columns; the transform along x runs only over the data rows.
@@ -456,18 +469,25 @@ def padded_forward(
     With *out* (complex128, ``(shape[0], shape[1] // 2 + 1)``, C order) the spectrum is
     built in it and returned as a view of it: a reused array spares the allocation and
     the first-touch page faults of a fresh one (a quarter of a transform's time on
-    1024² grids, measured)."""
+    1024² grids, measured). With *rows* as well (float64, ``(values' rows, shape[1])``,
+    C order, zero beyond the data's columns, which stay zero: only the data's columns
+    are written) the padded rows are built there and transformed straight into *out*
+    (:func:`~gridflex.solvers.fft_buffers.rfft_rows_into`): no zero fill of the padding
+    and no copy of the transformed rows."""
     values = np.asarray(values, dtype=np.float64)
     if out is None:
-        rows = scipy.fft.rfft(values, n=shape[1], axis=1, workers=-1)
-        return scipy.fft.fft(rows, n=shape[0], axis=0, workers=-1, overwrite_x=True)
-    # the zero-padded rows are laid out in *out*'s own memory (as floats): no padded copy
+        transformed = scipy.fft.rfft(values, n=shape[1], axis=1, workers=-1)
+        return scipy.fft.fft(transformed, n=shape[0], axis=0, workers=-1, overwrite_x=True)
     ny, nx = values.shape
-    real = out.view(np.float64)[:ny, : shape[1]]
-    real[:, :nx] = values
-    real[:, nx:] = 0.0
-    rows = scipy.fft.rfft(real, axis=1, workers=-1)
-    out[:ny] = rows
+    if rows is None:
+        # the zero-padded rows laid out in *out*'s own memory (as floats)
+        rows = out.view(np.float64)[:ny, : shape[1]]
+        rows[:, nx:] = 0.0
+        rows[:, :nx] = values
+        out[:ny] = scipy.fft.rfft(rows, axis=1, workers=-1)
+    else:
+        rows[:, :nx] = values
+        rfft_rows_into(rows, out[:ny])
     out[ny:] = 0.0
     return scipy.fft.fft(out, axis=0, workers=-1, overwrite_x=True)
 
@@ -477,15 +497,19 @@ def window_inverse(
     shape: tuple[int, int],
     window: tuple[int, int],
     overwrite: bool = False,
+    copy: bool = True,
 ) -> np.ndarray:
     """The first *window* rows and columns of the inverse of a half spectrum of *shape*;
     only the window's rows are transformed back along x. The input is kept unless
-    *overwrite* (then it is used as work space)."""
+    *overwrite* (then it is used as work space). The result is a new array: its own
+    (C-contiguous) unless *copy* is False, then it may be a view of the window of a
+    larger new array (for a caller that writes the sum of it and another field into a
+    new array anyway)."""
     ny, nx = window
     columns = scipy.fft.ifft(spectrum, axis=0, workers=-1, overwrite_x=overwrite)[:ny]
     full = scipy.fft.irfft(columns, n=shape[1], axis=1, workers=-1)
-    if full.shape[1] == nx:
-        return full
+    if full.shape[1] == nx or not copy:
+        return full[:, :nx]
     return np.ascontiguousarray(full[:, :nx])
 
 

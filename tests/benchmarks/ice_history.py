@@ -10,11 +10,23 @@ again after most steps):
   about 8.5 GB).
 
 Prints the time per step against one FFT pair (rfft2 + irfft2) of the padded grid timed
-in the same process, the totals against the 60 s target and the machine's load average
-(the machine is shared: timings are noisy, ratios less so).
+in the same process, the totals (wall, and CPU of all the process's threads) against the
+60 s target and the machine's load average (the machine is shared: timings are noisy,
+ratios less so).
 
 Run:  PYTHONPATH=. python tests/benchmarks/ice_history.py [steps] [n] [model] [--all]
       [--width=W]  (half-space padding per side in grid widths; default the library's)
+
+Measured (half-space, 512², FFT grid 1024², machine loaded: load average 6.1 at the
+start, 7.1 at the end; the FFT pair took 69.8 ms, 15-35 ms when the machine is quiet):
+``IceStepper`` 1000 steps with rates 178.2 s (178 ms per step, 2.56 FFT pairs),
+``ice_response`` writing 11 times 122.7 s (1.76 FFT pairs per step), the two final
+deflections equal (0 m); again at load 4.0-5.3 (FFT pair 58.5 ms): 158.9 s (2.72 pairs,
+CPU of all threads 93.5 s) and 109.3 s (1.87 pairs, CPU 66.5 s). 300-step runs against
+the code before the in-place ice load, the wrapping and forward-transform changes,
+alternated (load 6.8-8.1): ``IceStepper`` 2.66 / 3.17 FFT pairs per step before, 2.10 /
+2.21 after; ``ice_response`` 1.88 / 2.48 before, 1.49 / 1.84 after (DEVELOPERS.md, ice
+histories, lists the changes).
 """
 
 from __future__ import annotations
@@ -52,16 +64,16 @@ def main() -> None:
     print(f"load average at start: {os.getloadavg()[0]:.2f} (2 cores, shared)")
     print(f"model {model}, grid {n} x {n}, padded FFT grid {stepper.stepper.padded_shape}")
     print(f"one FFT pair of the padded grid (baseline): {pair * 1e3:8.2f} ms")
-    start = time.perf_counter()
+    start, cpu = time.perf_counter(), time.process_time()
     for k in range(1, steps + 1):
         stepper.advance(dt, thickness[k] * cap, levels[k])
         stepper.uplift_rate()
-    total = time.perf_counter() - start
+    total, cpu = time.perf_counter() - start, time.process_time() - cpu
     centre = float(stepper.deflection.values[n // 2, n // 2])
     print(
         f"IceStepper: {steps} steps with uplift rates {total:6.1f} s (target 60 s), "
         f"{total / steps * 1e3:7.2f} ms per step, ratio {total / steps / pair:5.2f} FFT pairs; "
-        f"centre deflection {centre:.2f} m"
+        f"CPU {cpu:6.1f} s (all threads); centre deflection {centre:.2f} m"
     )
 
     times = dt * np.arange(steps + 1)
@@ -71,7 +83,7 @@ def main() -> None:
         coords={"time": times, "y": grid.y, "x": grid.x},
     )
     wanted = times if record_all else np.union1d(times[::100], times[-1:])
-    start = time.perf_counter()
+    start, cpu = time.perf_counter(), time.process_time()
     out = ice_response(
         history,
         bed,
@@ -81,12 +93,12 @@ def main() -> None:
         output_times=None if record_all else wanted,
         **padding,
     )
-    batch = time.perf_counter() - start
+    batch, cpu = time.perf_counter() - start, time.process_time() - cpu
     gap = float(np.abs(out.deflection.values[-1] - stepper.deflection.values).max())
     print(
         f"ice_response: {steps} steps, {wanted.size} times written, {batch:6.1f} s "
-        f"(target 60 s), ratio {batch / steps / pair:5.2f} FFT pairs per step; "
-        f"final deflection against IceStepper {gap:.3g} m"
+        f"(target 60 s), ratio {batch / steps / pair:5.2f} FFT pairs per step; CPU "
+        f"{cpu:6.1f} s; final deflection against IceStepper {gap:.3g} m"
     )
     print(f"load average at end: {os.getloadavg()[0]:.2f}")
 

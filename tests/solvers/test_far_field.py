@@ -175,6 +175,11 @@ def test_window_by_quadrant_symmetry_equals_interpolation_on_every_cell(ny, nx):
     every_cell = _interpolation_matrix(oy, ox, far.radial_step, far.hankel0.matrix.shape[0])
     expected = (every_cell @ profiles).reshape(ny, nx)
     assert_allclose(far.window.field(profiles), expected, rtol=0, atol=1e-13)
+    # with a base (the strided window of a wider array, as an inverse transform gives):
+    # the field plus the base, bit for bit (the sum of two numbers either way round)
+    wide = np.random.default_rng(4).normal(size=(ny, nx + 9))
+    base = wide[:, :nx]
+    assert np.array_equal(far.window.field(profiles, base), base + far.window.field(profiles))
 
 
 @pytest.mark.parametrize("order", [0, 1, 2])
