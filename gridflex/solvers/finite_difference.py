@@ -302,14 +302,19 @@ def _preconditioner(
         widths = None
         if band_width is None:  # each sharp node's own width (SharpFeatures.widths)
             band_width, widths = features.band_width, features.widths
+        budget = factor_budget(_grid_bytes(operator.shape))
         nodes, width_used, _ = sharp_band(
-            operator,
-            float(band_width),
-            int(max_band_nodes),
-            features.nodes,
-            widths,
-            factor_budget(_grid_bytes(operator.shape)),
+            operator, float(band_width), int(max_band_nodes), features.nodes, widths, budget
         )
+        least = features.least_widths
+        if widths is not None and least is not None and width_used < band_width:
+            # over the caps: the widths of STIFF_SIDE_FLEXURAL_PARAMETERS before shrinking
+            # (STIFF_SIDE_REACH_FLEXURAL_PARAMETERS); the larger band of the two
+            fallback, fallback_width, _ = sharp_band(
+                operator, float(least.max()), int(max_band_nodes), features.nodes, least, budget
+            )
+            if fallback.size > nodes.size:
+                nodes, width_used = fallback, fallback_width
     else:
         nodes, width_used = np.zeros(0, dtype=np.int64), 0.0
     band = BandSolver.build(operator, nodes)
@@ -744,9 +749,10 @@ def finite_difference_deflection(
         (:attr:`~gridflex.solvers.rigidity_features.SharpFeatures.widths`:
         :data:`BAND_FLEXURAL_PARAMETERS` flexural parameters of the weak side of a jump,
         :data:`STEEP_FLEXURAL_PARAMETERS` at a steep change or grid edge,
-        :data:`BREAK_FLEXURAL_PARAMETERS` next to a break, and at least
-        :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS` of the
-        stiff side of a jump or a break).
+        :data:`BREAK_FLEXURAL_PARAMETERS` next to a break, and at least the reach of
+        :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`
+        into the stiff side of a jump or a break; over the band caps, at least
+        :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`).
     max_band_nodes : int, default 1000000
         Cap on the band size; see :func:`~gridflex.solvers.rigidity_features.sharp_band`.
     progress : callable, optional
