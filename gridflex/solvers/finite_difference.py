@@ -83,13 +83,18 @@ error reached 2e-6 of the peak, at 1e-5 6e-8."""
 DEFAULT_MAX_ITERATIONS = 300
 """Iteration limit before :class:`~gridflex.errors.ConvergenceError` is raised."""
 
-DEFAULT_MAX_BAND_NODES = 1_000_000
+DEFAULT_MAX_BAND_NODES = 1_500_000
 """Cap on the band size (nodes). Beyond it the band widths shrink until it fits
 (:data:`~gridflex.solvers.rigidity_features.BAND_SHRINK`); if even the sharp nodes alone
 do not fit, the solve runs with the blend alone (more iterations). Raised from 400 k with
-the wider bands of :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`;
-the LU memory cap (:func:`~gridflex.solvers.rigidity_features.factor_budget`) usually
-binds first."""
+the wider bands of :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`,
+and from 1 M with the reach of
+:data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`: the hinge
+network of tests/benchmarks/variable.py at 2048² of 1 km (``--refine``) asks for 1.23 M
+nodes; under 1 M it would fall back to the band of one flexural parameter (989 k nodes,
+10 iterations, peak memory 3.6 GB, as measured before), with the whole band it took 7
+(peak memory 4.2 GB). The LU memory cap
+(:func:`~gridflex.solvers.rigidity_features.factor_budget`) usually binds first."""
 
 
 def _ramp(count: int, share: float = 0.5) -> np.ndarray:
@@ -753,7 +758,7 @@ def finite_difference_deflection(
         :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`
         into the stiff side of a jump or a break; over the band caps, at least
         :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`).
-    max_band_nodes : int, default 1000000
+    max_band_nodes : int, default 1500000
         Cap on the band size; see :func:`~gridflex.solvers.rigidity_features.sharp_band`.
     progress : callable, optional
         Called with (iterations done, iteration limit) after each iteration and with
