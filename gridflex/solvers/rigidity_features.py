@@ -101,9 +101,11 @@ plate (measured on a hinge line crossing a 512² grid of 2 km cells: 1 -> 7 iter
 STIFF_SIDE_FLEXURAL_PARAMETERS = 1.0
 """Least width of the band round a rigidity jump or a break, in flexural parameters of the
 stiffest plate next to it (each sharp node gets its own width, the largest its rules ask
-for: this one, or the weak-side rules above). The band then reaches a fixed distance into
-the stiff plate, in which the slow modes of the blend (the stiff plate bending round the
-weak feature) are solved exactly, so that the iterations stop growing with refinement.
+for: this one, or the weak-side rules above). The band then reaches into the stiff plate,
+in which the slow modes of the blend (the stiff plate bending round the weak feature) are
+solved exactly; that the distance it reaches stays fixed under refinement, so that the
+iterations stop growing, takes :data:`STIFF_SIDE_REACH_FLEXURAL_PARAMETERS` (of which this
+is now the least width, the one left on coarse grids and under the band caps).
 
 Measured with tests/benchmarks/variable.py on a 2048 km domain at 512² (4 km cells),
 iterations to the default tolerance. One width for the whole grid: 20 km zone of te 0.5 km

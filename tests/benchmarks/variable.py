@@ -62,6 +62,40 @@ wider band's LU (SuperLU, one thread) costs set-up time: fewer iterations, a dea
 set-up; a single solve at 2048² took longer in total, repeated solves of one set-up
 (histories, infill, fitting) gain.
 
+Band reaching a fixed distance into the stiff plate
+(:data:`gridflex.solvers.rigidity_features.STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`: 1.3
+flexural parameters counted to the band solve's frame, at least 1 from the sharp nodes;
+``max_band_nodes`` 1 M -> 1.5 M). With one width from the sharp nodes the zone solved
+exactly reached about three spacings further (the sharp ring and the stencil's two-row
+frame), 24 km beyond the width at 256² and 3 km at 2048², and the hinge network's
+energy-norm error fell per iteration by a factor of about 15 / 8.7 / 6.7 at 256² / 512² /
+1024². Measured on a shared 2-core machine (2048 km domain, default tolerance), iterations
+at 256² / 512² / 1024² (/ 2048²), before (the parent commit, measured the same day) ->
+after, and band nodes at 1024²:
+
+  ==============  =================  ==============  ===================
+  case            before             after           band 1024²
+  ==============  =================  ==============  ===================
+  smooth          19 / 19 / 19       19 / 19 / 19    (no band)
+  step            8 / 10 / 10        8 / 9 / 9       243 k -> 252 k
+  hinge_cross     5 / 6 / 6          5 / 5 / 5       120 k -> 145 k
+  hinge_end       5 / 5 / 5          5 / 4 / 4       22 k -> 28 k
+  hinge_diag      5 / 5 / 5          5 / 5 / 5       232 k -> 281 k
+  weak            6 / 7 / 7          6 / 6 / 6       161 k -> 187 k
+  weak_zone       7 / 8 / 8          7 / 7 / 7       111 k -> 130 k
+  margin_hinges   17 / 17 / 17       17 / 16 / 16    226 k -> 245 k
+  hinge_network   7 / 9 / 10         7 / 7 / 7 / 7   250 k -> 301 k
+  step_sharp      9 / 9 / 10         9 / 9 / 9       192 k -> 240 k
+  te_map          11 / 15 / 20       11 / 15 / 20    999 k (capped at 1 M)
+  ==============  =================  ==============  ===================
+
+At 2048² the hinge network took 7 iterations with a band of 1.23 M nodes (set-up 116 s,
+solve 40 s, peak 4.2 GB; before 10 with 989 k nodes and 3.6 GB, from the table above).
+At 256² the bands are those of before except margin_hinges (11.8 k -> 12.4 k) and
+step_sharp (12.0 k -> 13.6 k); largest difference from CHOLMOD there 4.8e-11 to 2.5e-9
+of the peak for all cases but te_map, as before. te_map still grows (11 / 15 / 20): its
+band is capped, and it is not a case of fixed features.
+
 te_map (0-100 km with te = 0 patches; not yet robust): at 256² of 4 km cells 28 iterations,
 largest difference from spsolve 1.0e-8 of the peak, but the band holds 71 k of the 90 k
 nodes (it is nearly a direct solve); with the band switched off (max_band_nodes=0) the
