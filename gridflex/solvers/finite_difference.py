@@ -83,13 +83,18 @@ error reached 2e-6 of the peak, at 1e-5 6e-8."""
 DEFAULT_MAX_ITERATIONS = 300
 """Iteration limit before :class:`~gridflex.errors.ConvergenceError` is raised."""
 
-DEFAULT_MAX_BAND_NODES = 1_000_000
+DEFAULT_MAX_BAND_NODES = 1_500_000
 """Cap on the band size (nodes). Beyond it the band widths shrink until it fits
 (:data:`~gridflex.solvers.rigidity_features.BAND_SHRINK`); if even the sharp nodes alone
 do not fit, the solve runs with the blend alone (more iterations). Raised from 400 k with
-the wider bands of :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`;
-the LU memory cap (:func:`~gridflex.solvers.rigidity_features.factor_budget`) usually
-binds first."""
+the wider bands of :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`,
+and from 1 M with the reach of
+:data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`: the hinge
+network of tests/benchmarks/variable.py at 2048² of 1 km (``--refine``) asks for 1.23 M
+nodes; under 1 M it would fall back to the band of one flexural parameter (989 k nodes,
+10 iterations, peak memory 3.6 GB, as measured before), with the whole band it took 7
+(peak memory 4.2 GB). The LU memory cap
+(:func:`~gridflex.solvers.rigidity_features.factor_budget`) usually binds first."""
 
 
 def _ramp(count: int, share: float = 0.5) -> np.ndarray:
@@ -302,14 +307,19 @@ def _preconditioner(
         widths = None
         if band_width is None:  # each sharp node's own width (SharpFeatures.widths)
             band_width, widths = features.band_width, features.widths
+        budget = factor_budget(_grid_bytes(operator.shape))
         nodes, width_used, _ = sharp_band(
-            operator,
-            float(band_width),
-            int(max_band_nodes),
-            features.nodes,
-            widths,
-            factor_budget(_grid_bytes(operator.shape)),
+            operator, float(band_width), int(max_band_nodes), features.nodes, widths, budget
         )
+        least = features.least_widths
+        if widths is not None and least is not None and width_used < band_width:
+            # over the caps: the widths of STIFF_SIDE_FLEXURAL_PARAMETERS before shrinking
+            # (STIFF_SIDE_REACH_FLEXURAL_PARAMETERS); the larger band of the two
+            fallback, fallback_width, _ = sharp_band(
+                operator, float(least.max()), int(max_band_nodes), features.nodes, least, budget
+            )
+            if fallback.size > nodes.size:
+                nodes, width_used = fallback, fallback_width
     else:
         nodes, width_used = np.zeros(0, dtype=np.int64), 0.0
     band = BandSolver.build(operator, nodes)
@@ -744,10 +754,11 @@ def finite_difference_deflection(
         (:attr:`~gridflex.solvers.rigidity_features.SharpFeatures.widths`:
         :data:`BAND_FLEXURAL_PARAMETERS` flexural parameters of the weak side of a jump,
         :data:`STEEP_FLEXURAL_PARAMETERS` at a steep change or grid edge,
-        :data:`BREAK_FLEXURAL_PARAMETERS` next to a break, and at least
-        :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS` of the
-        stiff side of a jump or a break).
-    max_band_nodes : int, default 1000000
+        :data:`BREAK_FLEXURAL_PARAMETERS` next to a break, and at least the reach of
+        :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`
+        into the stiff side of a jump or a break; over the band caps, at least
+        :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`).
+    max_band_nodes : int, default 1500000
         Cap on the band size; see :func:`~gridflex.solvers.rigidity_features.sharp_band`.
     progress : callable, optional
         Called with (iterations done, iteration limit) after each iteration and with

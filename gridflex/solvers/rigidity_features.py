@@ -29,7 +29,9 @@ __all__ = [
     "STEEP_FLEXURAL_PARAMETERS",
     "LOCAL_STEEP_WINDOW",
     "STEEP_WINDOW",
+    "REACH_FRAME_NODES",
     "STIFF_SIDE_FLEXURAL_PARAMETERS",
+    "STIFF_SIDE_REACH_FLEXURAL_PARAMETERS",
     "SharpFeatures",
     "factor_budget",
     "find_sharp_features",
@@ -99,9 +101,11 @@ plate (measured on a hinge line crossing a 512² grid of 2 km cells: 1 -> 7 iter
 STIFF_SIDE_FLEXURAL_PARAMETERS = 1.0
 """Least width of the band round a rigidity jump or a break, in flexural parameters of the
 stiffest plate next to it (each sharp node gets its own width, the largest its rules ask
-for: this one, or the weak-side rules above). The band then reaches a fixed distance into
-the stiff plate, in which the slow modes of the blend (the stiff plate bending round the
-weak feature) are solved exactly, so that the iterations stop growing with refinement.
+for: this one, or the weak-side rules above). The band then reaches into the stiff plate,
+in which the slow modes of the blend (the stiff plate bending round the weak feature) are
+solved exactly; that the distance it reaches stays fixed under refinement, so that the
+iterations stop growing, takes :data:`STIFF_SIDE_REACH_FLEXURAL_PARAMETERS` (of which this
+is now the least width, the one left on coarse grids and under the band caps).
 
 Measured with tests/benchmarks/variable.py on a 2048 km domain at 512² (4 km cells),
 iterations to the default tolerance. One width for the whole grid: 20 km zone of te 0.5 km
@@ -113,6 +117,37 @@ in a 25 km plate (the former default 11 km, 0.16 of the stiff flexural parameter
 at 0.5 they took 18, 20 and (at 1024²) 14. The wider band costs set-up time (the LU of the
 band) but saves more in iterations, up to the band caps (:func:`factor_budget`,
 ``max_band_nodes``)."""
+
+STIFF_SIDE_REACH_FLEXURAL_PARAMETERS = 1.3
+"""Reach of the exactly solved zone into the stiff plate next to a rigidity jump or a
+break, in flexural parameters of that plate, counted from the feature to the band's edge
+plus its stencil frame: the band's width from its sharp nodes is this reach less
+:data:`REACH_FRAME_NODES` spacings, and at least :data:`STIFF_SIDE_FLEXURAL_PARAMETERS`
+flexural parameters (:attr:`SharpFeatures.widths`).
+
+Why: a band of a fixed width in metres from the sharp nodes does not reach a fixed
+distance: the sharp nodes include the feature's neighbours (one spacing out: a zero in the
+3 x 3 neighbourhood), and the band solve takes the blend's values on the two node rows
+outside the band as its boundary values (the 13-point stencil's frame), so the zone they
+fix reaches about three spacings beyond the width, 24 km on 8 km cells and 3 km on 1 km
+cells. The rate of convergence follows that reach closely (the hinge's effect on the plate
+decays over a flexural parameter): on the hinge network of
+tests/benchmarks/variable.py (te 30 km, flexural parameter 81 km; 2048 km domain,
+``--refine``), the energy-norm error fell per iteration by a factor of about 15 at 256²,
+8.7 at 512² and 6.7 at 1024² with a width of 1 flexural parameter, and by 15 at 512² with
+the width raised to 1.15, the reach of 256² (1.0 at 256² less 0.8: 7); iterations 7 / 9 /
+10 / 10 at 256² / 512² / 1024² / 2048². With this reach the width grows with refinement
+instead (at 1 km cells by 1.27 flexural parameters, 2 km 1.22, 4 km 1.15, 8 km 1.0) and
+the iterations stay at those of 256² (tables in tests/benchmarks/variable.py). On coarse
+grids (spacing above a tenth of the flexural parameter) :data:`STIFF_SIDE_FLEXURAL_PARAMETERS`
+binds, as before. The wider band costs LU set-up and memory on fine grids; under the band
+caps the solve falls back to the widths of :data:`STIFF_SIDE_FLEXURAL_PARAMETERS`
+(:attr:`SharpFeatures.least_widths`) before the widths shrink."""
+
+REACH_FRAME_NODES = 3
+"""Spacings between a feature and its band's sharp nodes (one) and of the band solve's
+frame (two: the 13-point stencil's reach) that count towards
+:data:`STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`."""
 
 MAX_FACTOR_BYTES = 6.0 * 2**30
 """Largest estimated memory of the band's LU factors (bytes); below it the cap is
@@ -180,12 +215,18 @@ class SharpFeatures:
         jump or a break; 0 without sharp nodes.
     widths : numpy.ndarray of float32, shape (ny, nx), optional
         The width (m) each sharp node asks for by the same rules, taken at the node (its
-        weakest and stiffest neighbours); 0 elsewhere.
+        weakest and stiffest neighbours), with the stiff side's reach of
+        :data:`STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`; 0 elsewhere.
+    least_widths : numpy.ndarray of float32, shape (ny, nx), optional
+        The same with :data:`STIFF_SIDE_FLEXURAL_PARAMETERS` alone on the stiff side (no
+        wider than *widths*): the band to fall back on when that of *widths* exceeds
+        the band caps.
     """
 
     nodes: np.ndarray
     band_width: float
     widths: np.ndarray | None = None
+    least_widths: np.ndarray | None = None
 
 
 def _modes(operator: PlateOperator) -> list[str]:
@@ -278,7 +319,9 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
     gentle = (steep | edge_nodes) & ~touches_zero & ~jump
     at_break = sharp & touches_zero & np.isfinite(weakest_next)
     strongest_next = _extreme3(rigidity, modes, True)
+    spacing = max(operator.dx, operator.dy)
     widths = np.zeros(rigidity.shape, dtype=np.float32)
+    least = np.zeros(rigidity.shape, dtype=np.float32)
     for mask, factor in (
         (jump, BAND_FLEXURAL_PARAMETERS),
         (gentle, STEEP_FLEXURAL_PARAMETERS),
@@ -286,11 +329,24 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
     ):
         if mask.any():
             local = factor * _flexural_parameter_grid(weakest_next[mask], operator.stiffness)
+            narrow = local.copy()
             if factor != STEEP_FLEXURAL_PARAMETERS:
                 stiff = _flexural_parameter_grid(strongest_next[mask], operator.stiffness)
-                np.maximum(local, STIFF_SIDE_FLEXURAL_PARAMETERS * stiff, out=local)
+                np.maximum(narrow, STIFF_SIDE_FLEXURAL_PARAMETERS * stiff, out=narrow)
+                np.maximum(local, _stiff_side_reach(stiff, spacing), out=local)
             widths[mask] = np.maximum(widths[mask], local)
-    return SharpFeatures(sharp, float(widths.max()), widths)
+            least[mask] = np.maximum(least[mask], narrow)
+    return SharpFeatures(sharp, float(widths.max()), widths, least)
+
+
+def _stiff_side_reach(alpha: np.ndarray, spacing: float) -> np.ndarray:
+    """Band width (m) from a sharp node into a stiff plate of flexural parameters *alpha*
+    (m) on a grid of largest *spacing* (m): :data:`STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`
+    flexural parameters less :data:`REACH_FRAME_NODES` spacings, and at least
+    :data:`STIFF_SIDE_FLEXURAL_PARAMETERS` flexural parameters."""
+    reach = np.float32(STIFF_SIDE_REACH_FLEXURAL_PARAMETERS) * alpha
+    reach -= np.float32(REACH_FRAME_NODES * spacing)
+    return np.maximum(reach, np.float32(STIFF_SIDE_FLEXURAL_PARAMETERS) * alpha)
 
 
 def _flexural_parameter_grid(rigidity: np.ndarray, stiffness: float) -> np.ndarray:

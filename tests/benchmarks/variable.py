@@ -62,6 +62,58 @@ wider band's LU (SuperLU, one thread) costs set-up time: fewer iterations, a dea
 set-up; a single solve at 2048² took longer in total, repeated solves of one set-up
 (histories, infill, fitting) gain.
 
+Band reaching a fixed distance into the stiff plate
+(:data:`gridflex.solvers.rigidity_features.STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`: 1.3
+flexural parameters counted to the band solve's frame, at least 1 from the sharp nodes;
+``max_band_nodes`` 1 M -> 1.5 M). With one width from the sharp nodes the zone solved
+exactly reached about three spacings further (the sharp ring and the stencil's two-row
+frame), 24 km beyond the width at 256² and 3 km at 2048², and the hinge network's
+energy-norm error fell per iteration by a factor of about 15 / 8.7 / 6.7 at 256² / 512² /
+1024². Measured on a shared 2-core machine (2048 km domain, default tolerance), iterations
+at 256² / 512² / 1024² (/ 2048²), before (the parent commit, measured the same day) ->
+after, and band nodes at 1024²:
+
+  ==============  =================  ==================  ===================
+  case            before             after               band 1024²
+  ==============  =================  ==================  ===================
+  smooth          19 / 19 / 19       19 / 19 / 19        (no band)
+  step            8 / 10 / 10        8 / 9 / 9           243 k -> 252 k
+  hinge_cross     5 / 6 / 6          5 / 5 / 5           120 k -> 145 k
+  hinge_end       5 / 5 / 5          5 / 4 / 4           22 k -> 28 k
+  hinge_diag      5 / 5 / 5          5 / 5 / 5           232 k -> 281 k
+  weak            6 / 7 / 7          6 / 6 / 6           161 k -> 187 k
+  weak_zone       7 / 8 / 8          7 / 7 / 7 / 6       111 k -> 130 k
+  margin_hinges   17 / 17 / 17       17 / 16 / 16 / 16   226 k -> 245 k
+  hinge_network   7 / 9 / 10         7 / 7 / 7 / 7       250 k -> 301 k
+  step_sharp      9 / 9 / 10         9 / 9 / 9 / 11      192 k -> 240 k
+  te_map          11 / 15 / 20       11 / 15 / 15        999 k -> 1023 k
+  ==============  =================  ==================  ===================
+
+At 2048², one run at a time (before: 9 / 18 / 10 / 11 iterations in the table above,
+measured earlier, not re-run):
+
+  ==============  ==========  ===========  ======================  =========
+  case            iterations  band nodes   set-up / solve (s)      peak MB
+  ==============  ==========  ===========  ======================  =========
+  weak_zone       6           535 k        58 / 14                 2897
+  margin_hinges   16          1004 k       124 / 82                3886
+  hinge_network   7           1227 k       116 / 40                4152
+  step_sharp      11          744 k        68 / 35                 3495
+  ==============  ==========  ===========  ======================  =========
+
+The sharp step's band at its full reach exceeded the LU memory estimate's cap (6 GiB at
+25 bytes per node and node across), so it fell back to the band of one flexural parameter
+(744 k nodes, as before) and took 11 iterations, as before (9 at 1024²: +22 %); the
+margin with hinges (1.004 M) and the hinge network (1.23 M) fit only under the raised node
+cap of 1.5 M.
+
+At 256² the bands are those of before except margin_hinges (11.8 k -> 12.4 k) and
+step_sharp (12.0 k -> 13.6 k); largest difference from CHOLMOD there 4.8e-11 to 7.3e-9
+of the peak over all cases, as before; at 512² hinge_network 6.0e-10 and weak_zone
+1.5e-9 (after). te_map (not a case of fixed features) still grows
+from 256² to 512² (11 -> 15); at 1024² its band was capped before (by the 1 M node cap)
+and after (by the LU memory estimate), set-up 158 -> 240 s, peak 3.8 -> 4.0 GB.
+
 te_map (0-100 km with te = 0 patches; not yet robust): at 256² of 4 km cells 28 iterations,
 largest difference from spsolve 1.0e-8 of the peak, but the band holds 71 k of the 90 k
 nodes (it is nearly a direct solve); with the band switched off (max_band_nodes=0) the

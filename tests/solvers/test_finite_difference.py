@@ -31,7 +31,7 @@ from gridflex.solvers.preconditioners import (
     MultiplicativePreconditioner,
     discrete_symbol,
 )
-from gridflex.solvers.rigidity_features import sharp_band
+from gridflex.solvers.rigidity_features import find_sharp_features, sharp_band
 from tests.helpers import random_broken_operator
 
 NU = 0.25
@@ -311,6 +311,59 @@ def test_iterations_do_not_grow_with_the_grid():
         counts.append(info["iterations"])
     assert max(counts) <= 1.5 * min(counts), counts
     assert max(counts) <= 30, counts
+
+
+def _hinge_network(n: int, side: float = 1024e3) -> tuple[GridSpec, np.ndarray, np.ndarray]:
+    """te 30 km crossed by two hinges and broken by a third that ends inside, on an n x n
+    grid of a fixed *side* (invented; hinge_network of tests/benchmarks/variable.py at half
+    its size), and a disc load next to the crossing."""
+    dx = side / n
+    x = (np.arange(n) - n / 2 + 0.5) * dx
+    xx, yy = np.meshgrid(x, x)
+    te = np.full((n, n), 30e3)
+    te[np.abs(xx) <= 0.5 * dx] = 0.0
+    te[np.abs(yy - 0.025 * side) <= 0.5 * dx] = 0.0
+    te[(np.abs(xx - 0.1 * side) <= 0.5 * dx) & (np.abs(yy) < 0.1 * side)] = 0.0
+    load = np.where(np.hypot(xx + 0.025 * side, yy) < 0.04 * side, 2800 * 9.81 * 2000.0, 0.0)
+    return GridSpec(n, n, dx, dx), rigidity_from_te(te, 1e11, NU), load
+
+
+def test_hinge_network_iterations_do_not_grow_from_8_to_4_km_cells():
+    # Issue 15 target (scaled down; full sizes in tests/benchmarks/variable.py): no growth
+    # of the iterations under refinement of a fixed network of hinges (flexural parameter
+    # 81 km) once the band reaches a fixed distance into the plate
+    # (STIFF_SIDE_REACH_FLEXURAL_PARAMETERS). Measured 7 and 7 iterations at 128² of 8 km
+    # and 256² of 4 km; 7 and 8 with a band of one flexural parameter from the sharp nodes
+    counts = []
+    for n in (128, 256):
+        spec, rigidity, load = _hinge_network(n)
+        _, info = finite_difference_deflection(
+            load, spec, rigidity, 2270 * 9.81, NU, edges="periodic"
+        )
+        assert info["accuracy"] <= info["tolerance"]
+        counts.append(info["iterations"])
+    assert counts[1] <= counts[0] <= 10, counts
+
+
+def test_band_over_its_caps_falls_back_to_one_flexural_parameter():
+    # the band rule: a band of the reach of STIFF_SIDE_REACH_FLEXURAL_PARAMETERS over the
+    # node cap gives way to the whole band of STIFF_SIDE_FLEXURAL_PARAMETERS
+    # (SharpFeatures.least_widths) when that fits, rather than shrinking every width
+    spec, rigidity, load = _hinge_network(256)
+    op = PlateOperator.build(rigidity, 2270 * 9.81, NU, spec.dy, spec.dx)
+    found = find_sharp_features(op)
+    assert found.widths is not None and found.least_widths is not None
+    full, _, _ = sharp_band(op, found.band_width, 10**9, found.nodes, found.widths)
+    least, least_width, _ = sharp_band(
+        op, float(found.least_widths.max()), 10**9, found.nodes, found.least_widths
+    )
+    assert least.size < full.size
+    _, info = finite_difference_deflection(
+        load, spec, rigidity, 2270 * 9.81, NU, edges="periodic", max_band_nodes=least.size
+    )
+    assert info["band_nodes"] == least.size
+    assert info["band_width"] == pytest.approx(least_width)
+    assert info["accuracy"] <= info["tolerance"]
 
 
 def test_smooth_margin_converges_within_target():

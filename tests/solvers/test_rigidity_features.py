@@ -14,7 +14,9 @@ from gridflex.solvers.rigidity_features import (
     FACTOR_BYTES_PER_NODE_CELL,
     FACTOR_MEMORY_SHARE,
     MAX_FACTOR_BYTES,
+    REACH_FRAME_NODES,
     STIFF_SIDE_FLEXURAL_PARAMETERS,
+    STIFF_SIDE_REACH_FLEXURAL_PARAMETERS,
     factor_budget,
     find_sharp_features,
     sharp_band,
@@ -24,12 +26,19 @@ NU = 0.25
 STIFFNESS = 2270 * 9.81
 
 
+def _stiff_side(alpha: float, h: float) -> float:
+    """The band rule's width into a stiff plate (STIFF_SIDE_REACH_FLEXURAL_PARAMETERS less
+    REACH_FRAME_NODES spacings, at least STIFF_SIDE_FLEXURAL_PARAMETERS)."""
+    reach = STIFF_SIDE_REACH_FLEXURAL_PARAMETERS * alpha - REACH_FRAME_NODES * h
+    return max(reach, STIFF_SIDE_FLEXURAL_PARAMETERS * alpha)
+
+
 def test_sharp_features_and_band_widths():
     # common practice (the band rules of gridflex.solvers.rigidity_features): a ten-fold
     # jump is sharp and widens by BAND_FLEXURAL_PARAMETERS flexural parameters of its weak
-    # side or STIFF_SIDE_FLEXURAL_PARAMETERS of its stiff side, whichever is more; a break
-    # alone by the larger of BREAK_FLEXURAL_PARAMETERS and STIFF_SIDE_FLEXURAL_PARAMETERS
-    # of the plate; a constant plate has no sharp node
+    # side or the stiff-side rule (_stiff_side) of its stiff side, whichever is more; a
+    # break alone by the larger of BREAK_FLEXURAL_PARAMETERS and the stiff-side rule of the
+    # plate; a constant plate has no sharp node
     n, h = 128, 2000.0
     constant = PlateOperator.build(np.full((n, n), 1e23), STIFFNESS, NU, h, h)
     assert not find_sharp_features(constant).nodes.any()
@@ -39,26 +48,24 @@ def test_sharp_features_and_band_widths():
     step = find_sharp_features(PlateOperator.build(rigidity, STIFFNESS, NU, h, h))
     assert step.nodes[:, 63:65].all() and not step.nodes[:, 30].any()
     alpha_low, alpha_high = ((4 * d / STIFFNESS) ** 0.25 for d in (low, high))
-    expected = max(
-        BAND_FLEXURAL_PARAMETERS * alpha_low, STIFF_SIDE_FLEXURAL_PARAMETERS * alpha_high
-    )
+    expected = max(BAND_FLEXURAL_PARAMETERS * alpha_low, _stiff_side(alpha_high, h))
     assert step.band_width == pytest.approx(expected, rel=1e-6)
     assert step.widths is not None and step.widths.max() == step.band_width
-    hinge = np.full((n, n), high)
-    hinge[:, 60] = 0.0
+    hinge = np.full((n, 2 * n), high)
+    hinge[:, n] = 0.0
     op = PlateOperator.build(hinge, STIFFNESS, NU, h, h)
     broken = find_sharp_features(op)
-    factor = max(BREAK_FLEXURAL_PARAMETERS, STIFF_SIDE_FLEXURAL_PARAMETERS)
-    assert broken.band_width == pytest.approx(factor * alpha_high, rel=1e-6)
+    expected = max(BREAK_FLEXURAL_PARAMETERS * alpha_high, _stiff_side(alpha_high, h))
+    assert broken.band_width == pytest.approx(expected, rel=1e-6)
     nodes, width, _ = sharp_band(op, broken.band_width, 10**6, broken.nodes)
-    columns = np.unique(nodes % n)
+    columns = np.unique(nodes % (2 * n))
     reach = int(width // h)
-    assert columns.min() == 60 - 1 - reach and columns.max() == 60 + 1 + reach
+    assert columns.min() == n - 1 - reach and columns.max() == n + 1 + reach
 
 
 def test_band_follows_each_sharp_node_own_width():
-    # common practice: with per-node widths a hinge reaches STIFF_SIDE_FLEXURAL_PARAMETERS
-    # flexural parameters of the plate next to each of its nodes: wider where the plate is
+    # common practice: with per-node widths a hinge reaches the stiff-side rule's width
+    # (_stiff_side) of the plate next to each of its nodes: wider where the plate is
     # stiff, narrower where it is weak, instead of one width for all (rigidity 1e22 to
     # 1e23 N m, smooth along the hinge)
     n, h = 128, 2000.0
@@ -71,9 +78,9 @@ def test_band_follows_each_sharp_node_own_width():
     band = np.zeros(n * n, dtype=bool)
     band[nodes] = True
     band = band.reshape(n, n)
-    factor = max(STIFF_SIDE_FLEXURAL_PARAMETERS, BREAK_FLEXURAL_PARAMETERS)
     for row in (0, n // 2):  # stiffest and weakest rows
-        reach = factor * (4 * rigidity[row, 31] / STIFFNESS) ** 0.25 / h
+        alpha = (4 * rigidity[row, 31] / STIFFNESS) ** 0.25
+        reach = max(BREAK_FLEXURAL_PARAMETERS * alpha, _stiff_side(alpha, h)) / h
         assert np.flatnonzero(band[row]).max() - 30 == pytest.approx(reach, abs=1.5)
 
 
@@ -150,3 +157,40 @@ def test_band_over_its_cap_keeps_the_sharpest_nodes_that_fit():
     assert (np.abs(kept[0] - 20) <= 1).all() and (np.abs(kept[1] - 10) <= 1).all()  # the break
     empty, width, _ = sharp_band(operator, found.band_width, 0, found.nodes, found.widths)
     assert empty.size == 0 and width == 0.0
+
+
+@pytest.mark.parametrize("te", [30e3, 60e3])
+def test_hinge_band_reaches_the_same_distance_on_every_grid(te):
+    # common practice (the band rule of STIFF_SIDE_REACH_FLEXURAL_PARAMETERS): the band
+    # round a hinge, plus its ring of sharp neighbours (1 node) and the stencil frame of
+    # the band solve (2 nodes), reaches STIFF_SIDE_REACH_FLEXURAL_PARAMETERS flexural
+    # parameters into the plate on every grid fine enough (to within one spacing), and at
+    # least STIFF_SIDE_FLEXURAL_PARAMETERS from the sharp nodes on coarse ones
+    rigidity_value = 1e11 * te**3 / (12 * (1 - NU**2))
+    alpha = (4 * rigidity_value / STIFFNESS) ** 0.25
+    reaches = []
+    for h in (alpha / 10.5, alpha / 20.5, alpha / 40.5, alpha / 3.5):
+        n = int(6 * alpha / h) + 8
+        rigidity = np.full((8, n), rigidity_value)
+        rigidity[:, 2] = 0.0
+        op = PlateOperator.build(rigidity, STIFFNESS, NU, h, h)
+        features = find_sharp_features(op)
+        nodes, _, _ = sharp_band(op, features.band_width, 10**6, features.nodes, features.widths)
+        columns = nodes % n
+        edge = (np.max(columns[columns < n // 2]) - 2) * h  # band edge from the hinge (m)
+        reach = edge + 2 * h  # the band solve's frame: the 13-point stencil's 2 node rows
+        reaches.append(reach)
+        if STIFF_SIDE_REACH_FLEXURAL_PARAMETERS * alpha - REACH_FRAME_NODES * h > alpha:
+            assert reach == pytest.approx(STIFF_SIDE_REACH_FLEXURAL_PARAMETERS * alpha, abs=h)
+            assert REACH_FRAME_NODES == 3  # ring (1) and frame (2) as counted here
+        else:
+            assert edge - h == pytest.approx(STIFF_SIDE_FLEXURAL_PARAMETERS * alpha, abs=h)
+        # the fall-back widths keep STIFF_SIDE_FLEXURAL_PARAMETERS alone
+        assert features.least_widths is not None and features.widths is not None
+        assert features.least_widths.max() == pytest.approx(
+            max(STIFF_SIDE_FLEXURAL_PARAMETERS, BREAK_FLEXURAL_PARAMETERS) * alpha, rel=1e-6
+        )
+        assert (features.least_widths <= features.widths).all()
+    # the three fine grids: one reach in metres (a width of its own in metres from the
+    # sharp nodes would reach 4 spacings further, 0.38 of alpha at alpha / 10.5)
+    assert max(reaches[:3]) - min(reaches[:3]) <= alpha / 10.5
