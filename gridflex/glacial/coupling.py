@@ -212,11 +212,11 @@ class IceStepper:
     def _ice(self, value: Any, label: str) -> np.ndarray:
         if isinstance(value, xr.DataArray):
             check_same_grid(value, self._grid, label)
-            out = np.asarray(value.values, dtype=np.float64)
+            out = np.ascontiguousarray(value.values, dtype=np.float64)  # read by row blocks
         elif np.ndim(value) == 0:
             out = np.full(tuple(self._grid.shape), check_number(label, value, unit="m"))
         else:
-            out = np.asarray(value, dtype=np.float64)
+            out = np.ascontiguousarray(value, dtype=np.float64)
             if out.shape != self._grid.shape:
                 raise InputError(f"{label} has shape {out.shape}, the grid is {self._grid.shape}")
         if not np.all(np.isfinite(out)) or out.min() < 0:

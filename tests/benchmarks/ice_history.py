@@ -27,6 +27,14 @@ the code before the in-place ice load, the wrapping and forward-transform change
 alternated (load 6.8-8.1): ``IceStepper`` 2.66 / 3.17 FFT pairs per step before, 2.10 /
 2.21 after; ``ice_response`` 1.88 / 2.48 before, 1.49 / 1.84 after (DEVELOPERS.md, ice
 histories, lists the changes).
+
+Quiet machine (load average about 1, FFT pair 21.2-21.7 ms), the same code with row blocks
+taken by whichever thread is free: ``IceStepper`` 62.0 s (2.86 pairs per step, CPU 87.9 s),
+``ice_response`` 44.4 s. The bed below is a transposed (column-major) array, and the ice
+rule read it row block by row block at every step; with row-major copies of the bed and
+the reference ice kept by the rule: ``IceStepper`` 52.5 s (52.5 ms per step, 2.48 pairs,
+CPU 75.3 s; target 60 s met), ``ice_response`` 39.8 s (1.88 pairs), final deflections equal
+(0 m), centre deflection unchanged (386.54 m).
 """
 
 from __future__ import annotations

@@ -49,3 +49,15 @@ def test_ice_load_change_in_blocks_equals_stress_minus_reference():
         out = np.full(bed.shape, np.nan)
         assert rule.change(ice, level, w, out=out) is out
         assert np.array_equal(out, plain)
+
+
+def test_ice_load_keeps_row_major_copies_of_grids_given_in_another_order():
+    # a transposed bed (a DataArray built x-first, say) is read row block by row block at
+    # every step: the rule keeps row-major copies, with the same values (common practice)
+    ice, bed, w = _mixed_state(2, (40, 64))
+    given = np.asfortranarray(bed)
+    rule = IceLoad(given, 910.0, 1030.0, 9.81, np.asfortranarray(0.5 * ice), 0.0)
+    assert rule.bed.flags.c_contiguous and rule.reference_ice.flags.c_contiguous
+    assert np.array_equal(rule.bed, bed) and given.flags.f_contiguous  # input untouched
+    plain = IceLoad(bed, 910.0, 1030.0, 9.81, 0.5 * ice, 0.0)
+    assert np.array_equal(rule.change(ice, 0.0, w), plain.change(ice, 0.0, w))
