@@ -53,6 +53,14 @@ varies most with the load (its threaded finite-difference passes wait for a busy
 so the target of 2 is met in two of four runs, not reliably. Every run: fill at most
 1.1e-13 m above its base level, no negative thickness; the constant-te ``measure`` at
 1000^2 took 60.2 s, backstrip error 4e-5 m.
+
+Then the stages' finite-difference set-up was found rebuilt at every stage: margins are
+sized with the densest fill, and the shale and sandstone stages asked for two solve grids in
+turn. A kept set-up with a somewhat wider margin now serves a lighter fill (two set-ups
+instead of ten), and the threaded row blocks are taken by whichever thread is free. 1000^2,
+quiet machine (load ~1): 1.70 (80.5 s / 47.3 s; 79 / 75 infill iterations); with one core
+kept busy by another process: 2.05 (105.3 s / 51.3 s; the te grid's threaded passes lose
+that core, the constant te's single-threaded compaction does not).
 """
 
 from __future__ import annotations
