@@ -67,9 +67,13 @@ km plate) is far from the target, and was before these changes as well: 1000^2 2
 (1101.4 s / 47.7 s; infill iterations 16-25 per stage against 7-8), 300^2 60.5 (345.2 s /
 5.7 s; the code before: 67.2, 356.3 s / 5.3 s). At 200^2 the inner solves take 4-83
 conjugate-gradient iterations (53.6 k band nodes, two blend levels), and the infill
-iteration stalls for several steps with its updates near 0.5 m. The inner solves report
-errors just under what was asked, so the delayed error estimate probably understates the
-true error when the convergence is this slow (not verified). Open.
+iteration stalls for several steps with its updates near 0.5 m. Against solves to 1e-9
+(one stage at 200^2; those take 385-397 iterations on this map): in the stalled steps the
+true rms error of the inner solves was 1.2-3.7 times what they reported (0.0998 against
+0.0271 m, say), so the outer iteration sees ~0.1 m of noise. The preconditioner is weak on a
+smooth valley over a 579-fold rigidity range (banded on its steep flanks only, two blend
+levels), where a sharp-edged weak zone takes 6 iterations (tests/benchmarks/variable.py).
+Open.
 """
 
 from __future__ import annotations
