@@ -26,7 +26,6 @@ from __future__ import annotations
 
 import functools
 import logging
-import os
 
 import numpy as np
 import scipy.fft
@@ -71,13 +70,14 @@ def _direct_available() -> bool:
 
 def rfft_rows_into(real: np.ndarray, out: np.ndarray) -> None:
     """Real transform of each row of *real* (float64, C order) written into *out*
-    (complex128, ``(rows, n // 2 + 1)``, C order), on all cores (scipy.fft's
-    ``workers=-1``): straight into *out* through pocketfft's entry point when it is
-    usable (see the module notes), else by ``scipy.fft.rfft`` and a copy."""
+    (complex128, ``(rows, n // 2 + 1)``, C order), on the threads of
+    :func:`~gridflex.solvers.row_blocks.thread_count`: straight into *out* through
+    pocketfft's entry point when it is usable (see the module notes), else by
+    ``scipy.fft.rfft`` and a copy."""
     if _direct_available():
-        _pocketfft.r2c(real, (1,), True, 0, out, os.cpu_count() or 1)
+        _pocketfft.r2c(real, (1,), True, 0, out, thread_count())
     else:
-        out[...] = scipy.fft.rfft(real, axis=1, workers=-1)
+        out[...] = scipy.fft.rfft(real, axis=1, workers=thread_count())
 
 
 class BlockedSpectralFilter:

@@ -28,12 +28,18 @@ def test_row_blocks_share_blocks_among_threads_each_once():
 
     seen: list[tuple[int, int]] = []
     lock = threading.Lock()
+    pool_started = threading.Event()
 
     def work(j0: int, j1: int, thread: int) -> int:
         with lock:
             seen.append((j0, thread))
-        if thread == 0 and j0 < 40:
-            time.sleep(0.02)  # the caller is slow at first: the pool takes the rest
+        if thread:
+            pool_started.set()
+        elif j0 < 40:
+            # the caller is slow at first (and waits until the pool has begun, so that a
+            # busy machine cannot make this test fail): the pool takes the rest
+            pool_started.wait(timeout=30.0)
+            time.sleep(0.02)
         return j0
 
     got = row_blocks.for_row_blocks(200, 4, work)
