@@ -78,6 +78,23 @@ def rigidity_scaling(ratio: float) -> float:
     return min(max(p_low + t * (p_high - p_low), 0.0), p_high)
 
 
+MIN_RAMP_RATIO = 10.0
+"""Least rigidity ratio over which the blend's weights ramp from one level to the next. The
+levels span the rigidity outside the band, and where that is nearly constant (a band
+covering every weaker part) two levels a hair apart made the cos/sin ramp a step in
+space, which cuts the plate's coupling across it (Σ_l C_l(x) C_l(y) = cos(θ(x) − θ(y))
+is 0 for nodes on either side of the step): measured on a Gaussian te valley (25 -> 3 km,
+30 km half-width, in 2 km cells; levels 1.38882e23 and 1.38889e23 N m) 529 iterations,
+5 with the ramp widened to a ratio of 3 or of 10 (the ratio a band is for,
+:data:`gridflex.solvers.rigidity_features.SHARP_RATIO`); unchanged on the smooth margin
+and the te maps of tests/benchmarks/variable.py and te_map_robustness.py."""
+
+SINGLE_LEVEL_RATIO = 2.0
+"""Largest rigidity ratio outside the band that the blend serves with one level (the
+largest rigidity): at most this factor off at short wavelengths, one FFT pair per
+iteration less than two levels."""
+
+SINGLE_PRECISION_FFT = True
 SINGLE_PRECISION_FFT = True
 """Run the blend's FFTs in single precision (about 1.5 times as fast as double, half the
 memory traffic). The conjugate gradients use the flexible (Polak-Ribière) update, which
@@ -180,6 +197,8 @@ def _level_weights(
     rigidity = operator.rigidity
     count = levels.size
     log_low, log_high = math.log(levels[0]), math.log(levels[-1])
+    # the ramp between neighbouring levels spans at least MIN_RAMP_RATIO (see there)
+    span = max(log_high - log_low, (count - 1) * math.log(MIN_RAMP_RATIO))
     logd = np.full(operator.shape, log_low, dtype=np.float32)
     np.log(rigidity, out=logd, where=plate, casting="same_kind")
     # weights follow log D smoothed over a fraction of the smallest flexural parameter: a
@@ -196,7 +215,7 @@ def _level_weights(
 
     def work(j0: int, j1: int, _thread: int) -> None:
         block = logd[j0:j1]
-        u = (block - log_low) * ((count - 1) / (log_high - log_low))
+        u = (block - log_low) * ((count - 1) / span)
         np.clip(u, 0.0, count - 1, out=u)
         base = np.minimum(np.floor(u), count - 2)
         angle = (u - base) * (0.5 * np.pi)
@@ -325,7 +344,8 @@ class BlendPreconditioner:
             return cls(np.zeros(0), fft_shape, shape, [], local, spacing, stiffness, False, extra)
         lo = math.log(float(np.min(rigidity, where=acting, initial=np.inf)))
         hi = math.log(float(np.max(rigidity, where=acting, initial=0.0)))
-        count = 1 + math.ceil((hi - lo) / math.log(LEVEL_SPACING) - 1e-6) if hi > lo else 1
+        single_level = hi - lo <= math.log(SINGLE_LEVEL_RATIO)
+        count = 1 if single_level else 1 + math.ceil((hi - lo) / math.log(LEVEL_SPACING) - 1e-6)
         if count > LEVELS_COUNTED:
             # the solve's memory check counted LEVELS_COUNTED levels (two float64 grids
             # each: weights and spectra, and the double-precision transfers of a restart)

@@ -10,6 +10,7 @@ and it halves the memory the filters stream.
 from __future__ import annotations
 
 import logging
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -91,7 +92,21 @@ overall than 3 on both sides)."""
 STEEP_FLEXURAL_PARAMETERS = 1.0
 """Width of the band round a steep but smooth rigidity change, and round non-periodic grid
 edges, in flexural parameters of its weak side (measured on a Te 60 -> 10 km margin 120 km
-wide: 25 iterations; 75 without a band)."""
+wide: 25 iterations; 75 without a band). The weak side of a steep change is the least
+rigidity of the windows that found it (it was the node's own 3 x 3 neighbourhood, so that
+on a smooth change every node was its own weak side and the stiff flank of a valley asked
+for its own, large, flexural parameter); and a steep change reaches into its stiff side
+(the largest rigidity of those windows) as far as a jump does
+(:data:`STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`). A band that ends part of the way into a
+stiff plate is worse than a narrow one: on a Gaussian te valley (25 -> 3 km, 30 km
+half-width, 200² of 2 km) 854 iterations with the band of the old rule, 108 with one
+width of 40 km, 30 with the sharp nodes alone, 5 with 100 km. Measured with both rules
+(256² cells unless said; before -> after): the valley 256 -> 5 (2 km cells), te_map of
+tests/benchmarks/variable.py 20 -> 10 (4 km), 30 -> 10 (512² of 2 km), the margin crossed
+by hinges 18 -> 13 (512² of 4 km), the clipped map of tests/benchmarks/te_map_robustness.py
+19 -> 14 (4 km), the smooth te margin 19 (no band) and the jump and break cases unchanged
+(together with :data:`gridflex.solvers.preconditioners.MIN_RAMP_RATIO` and the periodic
+band distance of :func:`sharp_band`)."""
 
 BREAK_FLEXURAL_PARAMETERS = 0.35
 """Width of the band round breaks (zero rigidity), in flexural parameters of the adjacent
@@ -215,12 +230,14 @@ class SharpFeatures:
         jump or a break; 0 without sharp nodes.
     widths : numpy.ndarray of float32, shape (ny, nx), optional
         The width (m) each sharp node asks for by the same rules, taken at the node (its
-        weakest and stiffest neighbours), with the stiff side's reach of
+        weakest and stiffest neighbours; at a steep change, the weakest and stiffest
+        rigidity of the windows that found it), with the stiff side's reach of
         :data:`STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`; 0 elsewhere.
     least_widths : numpy.ndarray of float32, shape (ny, nx), optional
-        The same with :data:`STIFF_SIDE_FLEXURAL_PARAMETERS` alone on the stiff side (no
-        wider than *widths*): the band to fall back on when that of *widths* exceeds
-        the band caps.
+        The same with :data:`STIFF_SIDE_FLEXURAL_PARAMETERS` alone on the stiff side of
+        jumps and breaks and the weak side's width alone at steep changes (no wider
+        than *widths*): the band to fall back on when that of *widths* exceeds the band
+        caps.
     """
 
     nodes: np.ndarray
@@ -280,6 +297,10 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
     # half-widths of 1, 2, 4, ... cells)
     filled = np.where(plate, rigidity, np.float32(largest)) if broken else rigidity
     steep = np.zeros(rigidity.shape, dtype=bool)
+    # the two sides of each steep change: the least and largest rigidity of the windows
+    # that found it (its width follows them, not the node's own neighbours)
+    weak_side = np.full(rigidity.shape, np.inf, dtype=np.float32)
+    strong_side = np.zeros(rigidity.shape, dtype=np.float32)
     window = STEEP_WINDOW * _flexural_parameter(smallest, operator.stiffness)
     widest = LOCAL_STEEP_WINDOW * _flexural_parameter(largest, operator.stiffness)
     for axis, h in enumerate((operator.dy, operator.dx)):
@@ -291,16 +312,18 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
             top = scipy.ndimage.maximum_filter1d(filled, size, axis=axis, mode=modes[axis])
             bottom = scipy.ndimage.minimum_filter1d(filled, size, axis=axis, mode=modes[axis])
             found = top > SHARP_RATIO * bottom
-            del top
             if half * h > window:  # only within the local rule's reach
                 reach = _flexural_parameter_grid(bottom, operator.stiffness)
                 found &= reach >= np.float32(half * h / LOCAL_STEEP_WINDOW)
                 del reach
-            del bottom
             near_jump = scipy.ndimage.maximum_filter1d(
                 jumpy.view(np.uint8), size, axis=axis, mode=modes[axis]
             ).view(bool)
-            steep |= found & ~near_jump
+            found &= ~near_jump
+            steep |= found
+            np.minimum(weak_side, bottom, out=weak_side, where=found)
+            np.maximum(strong_side, top, out=strong_side, where=found)
+            del bottom, top
     sharp = jumpy | steep
     edge_nodes = np.zeros(rigidity.shape, dtype=bool)
     if operator.edges[0] != "periodic":
@@ -317,23 +340,27 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
     )
     jump = jumpy & ~touches_zero
     gentle = (steep | edge_nodes) & ~touches_zero & ~jump
+    np.minimum(weakest_next, weak_side, out=weakest_next, where=gentle)
+    del weak_side
     at_break = sharp & touches_zero & np.isfinite(weakest_next)
     strongest_next = _extreme3(rigidity, modes, True)
     spacing = max(operator.dx, operator.dy)
     widths = np.zeros(rigidity.shape, dtype=np.float32)
     least = np.zeros(rigidity.shape, dtype=np.float32)
-    for mask, factor in (
-        (jump, BAND_FLEXURAL_PARAMETERS),
-        (gentle, STEEP_FLEXURAL_PARAMETERS),
-        (at_break, BREAK_FLEXURAL_PARAMETERS),
+    # (stiff sides: the 3 x 3 neighbourhood of a jump or break, the windows of a steep
+    # change, none at a grid edge)
+    for mask, factor, stiff_side in (
+        (jump, BAND_FLEXURAL_PARAMETERS, strongest_next),
+        (gentle, STEEP_FLEXURAL_PARAMETERS, strong_side),
+        (at_break, BREAK_FLEXURAL_PARAMETERS, strongest_next),
     ):
         if mask.any():
             local = factor * _flexural_parameter_grid(weakest_next[mask], operator.stiffness)
             narrow = local.copy()
+            stiff = _flexural_parameter_grid(stiff_side[mask], operator.stiffness)
             if factor != STEEP_FLEXURAL_PARAMETERS:
-                stiff = _flexural_parameter_grid(strongest_next[mask], operator.stiffness)
                 np.maximum(narrow, STIFF_SIDE_FLEXURAL_PARAMETERS * stiff, out=narrow)
-                np.maximum(local, _stiff_side_reach(stiff, spacing), out=local)
+            np.maximum(local, _stiff_side_reach(stiff, spacing), out=local)
             widths[mask] = np.maximum(widths[mask], local)
             least[mask] = np.maximum(least[mask], narrow)
     return SharpFeatures(sharp, float(widths.max()), widths, least)
@@ -358,6 +385,52 @@ def _factor_bytes(count: int, across: float, spacing: float) -> float:
     a grid of smallest *spacing* (m): :data:`FACTOR_BYTES_PER_NODE_CELL` per node and per
     node across the band."""
     return FACTOR_BYTES_PER_NODE_CELL * count * (2.0 * across / spacing + 1.0)
+
+
+def _band_distance(
+    operator: PlateOperator, sharp: np.ndarray, widths: np.ndarray | None, width: float
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """Distance (m) of every node from the nearest sharp node, wrapping round periodic
+    axes; with *widths*, relative to that node's own width and scaled to *width* (the
+    largest), and the nearest sharp node's width (m, at least one spacing) per node.
+
+    A periodic axis is extended by the widest band (wrapped copies of the grid) before
+    the Euclidean distance transform, which knows no periodic edges: without that, a
+    feature near the first or last rows of the solve grid (the grid's own west or south
+    edge: the margins of ``edges="infinite"`` follow its east and north edges) got a band
+    cut off there, on one side only. Measured on a Gaussian te valley (25 -> 3 km, 30 km
+    half-width) 60 km west of the centre of a 160² grid of 2 km: 532 iterations with the
+    cut band, 5 with the wrapped one.
+    """
+    sampling = (operator.dy, operator.dx)
+    minimum = max(operator.dx, operator.dy)
+    largest = width if widths is None else max(float(widths.max()), width)
+    pads = [
+        (min(n, math.ceil(largest / h) + 1),) * 2 if edge == "periodic" else (0, 0)
+        for n, h, edge in zip(sharp.shape, sampling, operator.edges, strict=True)
+    ]
+    crop = tuple(
+        slice(before, before + n) for (before, _), n in zip(pads, sharp.shape, strict=True)
+    )
+    padded = np.pad(sharp, pads, mode="wrap")
+    if widths is None:
+        distance = scipy.ndimage.distance_transform_edt(~padded, sampling=sampling)
+        return np.ascontiguousarray(distance[crop]), None
+    nearest = np.empty((2, *padded.shape), dtype=np.int32)
+    distance = scipy.ndimage.distance_transform_edt(
+        ~padded, sampling=sampling, return_indices=True, indices=nearest
+    )
+    del padded
+    distance = np.ascontiguousarray(distance[crop])
+    # the nearest sharp node's width (<= 1 inside its band: distance relative to it)
+    j = (nearest[0][crop] - pads[0][0]) % sharp.shape[0]
+    i = (nearest[1][crop] - pads[1][0]) % sharp.shape[1]
+    del nearest
+    reach = widths[j, i]
+    np.maximum(reach, np.float32(minimum), out=reach)
+    distance /= reach
+    distance *= width  # in metres at the largest width
+    return distance, reach
 
 
 def sharp_band(
@@ -411,22 +484,9 @@ def sharp_band(
         sharp = find_sharp_features(operator).nodes
     if not sharp.any():
         return np.zeros(0, dtype=np.int64), 0.0, sharp
-    sampling = (operator.dy, operator.dx)
     minimum = max(operator.dx, operator.dy)
     width = max(float(width), minimum)
-    if widths is None:
-        distance = scipy.ndimage.distance_transform_edt(~sharp, sampling=sampling)
-    else:
-        nearest = np.empty((2, *sharp.shape), dtype=np.int32)
-        distance = scipy.ndimage.distance_transform_edt(
-            ~sharp, sampling=sampling, return_indices=True, indices=nearest
-        )
-        # distance relative to the nearest sharp node's own width (<= 1 inside its band)
-        reach = widths[nearest[0], nearest[1]]
-        del nearest
-        np.maximum(reach, np.float32(minimum), out=reach)
-        distance /= reach
-        distance *= width  # in metres at the largest width
+    distance, reach = _band_distance(operator, sharp, widths, width)
     spacing = min(operator.dx, operator.dy)
     largest = width
     while True:

@@ -40,3 +40,37 @@ def test_many_blend_levels_are_checked_against_the_memory(monkeypatch):
     monkeypatch.setattr(gridflex.memory, "available_memory", lambda: 1024.0)
     with pytest.raises(InputError, match=r"blend levels of the finite-difference"):
         BlendPreconditioner.build(op)
+
+
+def test_nearly_constant_rigidity_gets_one_level_and_small_ranges_a_gentle_ramp():
+    # common practice (the blend's partition of unity, MIN_RAMP_RATIO): outside the band a
+    # rigidity within SINGLE_LEVEL_RATIO is served by one level; a small range keeps two
+    # levels but its cos/sin ramp spans at least MIN_RAMP_RATIO, so the weights change
+    # gently instead of stepping (a step cuts the plate's coupling across it)
+    import math
+
+    from gridflex.solvers.plate_operator import PlateOperator
+    from gridflex.solvers.preconditioners import (
+        MIN_RAMP_RATIO,
+        SINGLE_LEVEL_RATIO,
+        BlendPreconditioner,
+    )
+
+    n, h = 64, 4e3
+    x = np.arange(n)
+    ramp = 0.5 * (1 - np.cos(2 * np.pi * x / n))  # periodic, 0 -> 1 -> 0
+    for ratio in (1.0001, 0.9 * SINGLE_LEVEL_RATIO):
+        rigidity = 1e22 * ratio ** ramp[None, :].repeat(n, axis=0)
+        blend = BlendPreconditioner.build(PlateOperator.build(rigidity, 3300 * 9.81, 0.25, h, h))
+        assert blend.levels.size == 1
+    ratio = 4.0
+    rigidity = 1e22 * ratio ** ramp[None, :].repeat(n, axis=0)
+    blend = BlendPreconditioner.build(PlateOperator.build(rigidity, 3300 * 9.81, 0.25, h, h))
+    assert blend.levels.size == 2
+    low, high = blend._weights
+    assert low is not None and high is not None
+    assert np.allclose(low**2 + high**2, 1.0, atol=0.02)  # nearly unscaled (p = 0.01)
+    # the top level's weight never exceeds that of a ramp over MIN_RAMP_RATIO
+    top = math.sin(0.5 * math.pi * math.log(ratio) / math.log(MIN_RAMP_RATIO))
+    assert float(high.max()) <= top + 1e-6
+    assert float(high.max()) > 0.5 * top
