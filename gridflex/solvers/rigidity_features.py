@@ -493,7 +493,7 @@ def sharp_band(
         band = distance <= width
         count = int(np.count_nonzero(band))
         across = width  # the band's width; with *widths*, its mean over the band
-        if widths is not None and count:
+        if reach is not None and count:
             across = float(reach[band].mean()) * width / largest
         factor_bytes = _factor_bytes(count, across, spacing)
         if count <= max_nodes and factor_bytes <= max_factor_bytes:
