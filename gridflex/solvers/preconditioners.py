@@ -79,15 +79,22 @@ def rigidity_scaling(ratio: float) -> float:
 
 
 MIN_RAMP_RATIO = 10.0
-"""Least rigidity ratio over which the blend's weights ramp from one level to the next. The
-levels span the rigidity outside the band, and where that is nearly constant (a band
-covering every weaker part) two levels a hair apart made the cos/sin ramp a step in
-space, which cuts the plate's coupling across it (Σ_l C_l(x) C_l(y) = cos(θ(x) − θ(y))
-is 0 for nodes on either side of the step): measured on a Gaussian te valley (25 -> 3 km,
-30 km half-width, in 2 km cells; levels 1.38882e23 and 1.38889e23 N m) 529 iterations,
-5 with the ramp widened to a ratio of 3 or of 10 (the ratio a band is for,
-:data:`gridflex.solvers.rigidity_features.SHARP_RATIO`); unchanged on the smooth margin
-and the te maps of tests/benchmarks/variable.py and te_map_robustness.py."""
+"""Least rigidity ratio over which the blend's weights ramp from one level to the next.
+
+The levels span the rigidity outside the band. Where that is nearly constant (a band
+covering every weaker part of the plate), two levels a hair apart made the cos/sin ramp a
+step in space, and a step cuts the plate's coupling across it: Σ_l C_l(x) C_l(y) =
+cos(θ(x) − θ(y)) is 0 for nodes x, y on either side. Measured on a Gaussian te valley
+(25 -> 3 km, 30 km half-width, 60 km west of the centre; tests/benchmarks/variable.py's
+plate constants), iterations before -> after this and :data:`SINGLE_LEVEL_RATIO`: 128² of
+4 km 121 -> 7, 160² of 2 km 216 -> 6 (levels 1.38882e23 and 1.38889e23 N m before),
+256² of 2 km 256 -> 6; in the infill of tests/benchmarks/basin_large.py ``--layout weak``
+(300², ten stages) 16-25 infill iterations per stage -> 7-8 (as with constant te), the run
+345 -> 27 s. A ramp over a ratio of 3 did as well as 10 there. Unchanged or fewer
+iterations on the cases of tests/benchmarks/variable.py and te_map_robustness.py (256²
+and 512²): a smooth random te map of 5-60 km 25 -> 23, two opposite tanh margins 28 -> 6,
+the margin crossed by hinges 18 -> 16, te_map 15 -> 7 (512² of 4 km, with the periodic
+band of :func:`gridflex.solvers.rigidity_features.sharp_band`)."""
 
 SINGLE_LEVEL_RATIO = 2.0
 """Largest rigidity ratio outside the band that the blend serves with one level (the

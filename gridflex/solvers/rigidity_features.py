@@ -92,21 +92,7 @@ overall than 3 on both sides)."""
 STEEP_FLEXURAL_PARAMETERS = 1.0
 """Width of the band round a steep but smooth rigidity change, and round non-periodic grid
 edges, in flexural parameters of its weak side (measured on a Te 60 -> 10 km margin 120 km
-wide: 25 iterations; 75 without a band). The weak side of a steep change is the least
-rigidity of the windows that found it (it was the node's own 3 x 3 neighbourhood, so that
-on a smooth change every node was its own weak side and the stiff flank of a valley asked
-for its own, large, flexural parameter); and a steep change reaches into its stiff side
-(the largest rigidity of those windows) as far as a jump does
-(:data:`STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`). A band that ends part of the way into a
-stiff plate is worse than a narrow one: on a Gaussian te valley (25 -> 3 km, 30 km
-half-width, 200² of 2 km) 854 iterations with the band of the old rule, 108 with one
-width of 40 km, 30 with the sharp nodes alone, 5 with 100 km. Measured with both rules
-(256² cells unless said; before -> after): the valley 256 -> 5 (2 km cells), te_map of
-tests/benchmarks/variable.py 20 -> 10 (4 km), 30 -> 10 (512² of 2 km), the margin crossed
-by hinges 18 -> 13 (512² of 4 km), the clipped map of tests/benchmarks/te_map_robustness.py
-19 -> 14 (4 km), the smooth te margin 19 (no band) and the jump and break cases unchanged
-(together with :data:`gridflex.solvers.preconditioners.MIN_RAMP_RATIO` and the periodic
-band distance of :func:`sharp_band`)."""
+wide: 25 iterations; 75 without a band)."""
 
 BREAK_FLEXURAL_PARAMETERS = 0.35
 """Width of the band round breaks (zero rigidity), in flexural parameters of the adjacent
@@ -230,14 +216,12 @@ class SharpFeatures:
         jump or a break; 0 without sharp nodes.
     widths : numpy.ndarray of float32, shape (ny, nx), optional
         The width (m) each sharp node asks for by the same rules, taken at the node (its
-        weakest and stiffest neighbours; at a steep change, the weakest and stiffest
-        rigidity of the windows that found it), with the stiff side's reach of
+        weakest and stiffest neighbours), with the stiff side's reach of
         :data:`STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`; 0 elsewhere.
     least_widths : numpy.ndarray of float32, shape (ny, nx), optional
-        The same with :data:`STIFF_SIDE_FLEXURAL_PARAMETERS` alone on the stiff side of
-        jumps and breaks and the weak side's width alone at steep changes (no wider
-        than *widths*): the band to fall back on when that of *widths* exceeds the band
-        caps.
+        The same with :data:`STIFF_SIDE_FLEXURAL_PARAMETERS` alone on the stiff side (no
+        wider than *widths*): the band to fall back on when that of *widths* exceeds
+        the band caps.
     """
 
     nodes: np.ndarray
@@ -297,10 +281,6 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
     # half-widths of 1, 2, 4, ... cells)
     filled = np.where(plate, rigidity, np.float32(largest)) if broken else rigidity
     steep = np.zeros(rigidity.shape, dtype=bool)
-    # the two sides of each steep change: the least and largest rigidity of the windows
-    # that found it (its width follows them, not the node's own neighbours)
-    weak_side = np.full(rigidity.shape, np.inf, dtype=np.float32)
-    strong_side = np.zeros(rigidity.shape, dtype=np.float32)
     window = STEEP_WINDOW * _flexural_parameter(smallest, operator.stiffness)
     widest = LOCAL_STEEP_WINDOW * _flexural_parameter(largest, operator.stiffness)
     for axis, h in enumerate((operator.dy, operator.dx)):
@@ -312,18 +292,16 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
             top = scipy.ndimage.maximum_filter1d(filled, size, axis=axis, mode=modes[axis])
             bottom = scipy.ndimage.minimum_filter1d(filled, size, axis=axis, mode=modes[axis])
             found = top > SHARP_RATIO * bottom
+            del top
             if half * h > window:  # only within the local rule's reach
                 reach = _flexural_parameter_grid(bottom, operator.stiffness)
                 found &= reach >= np.float32(half * h / LOCAL_STEEP_WINDOW)
                 del reach
+            del bottom
             near_jump = scipy.ndimage.maximum_filter1d(
                 jumpy.view(np.uint8), size, axis=axis, mode=modes[axis]
             ).view(bool)
-            found &= ~near_jump
-            steep |= found
-            np.minimum(weak_side, bottom, out=weak_side, where=found)
-            np.maximum(strong_side, top, out=strong_side, where=found)
-            del bottom, top
+            steep |= found & ~near_jump
     sharp = jumpy | steep
     edge_nodes = np.zeros(rigidity.shape, dtype=bool)
     if operator.edges[0] != "periodic":
@@ -340,27 +318,23 @@ def find_sharp_features(operator: PlateOperator) -> SharpFeatures:
     )
     jump = jumpy & ~touches_zero
     gentle = (steep | edge_nodes) & ~touches_zero & ~jump
-    np.minimum(weakest_next, weak_side, out=weakest_next, where=gentle)
-    del weak_side
     at_break = sharp & touches_zero & np.isfinite(weakest_next)
     strongest_next = _extreme3(rigidity, modes, True)
     spacing = max(operator.dx, operator.dy)
     widths = np.zeros(rigidity.shape, dtype=np.float32)
     least = np.zeros(rigidity.shape, dtype=np.float32)
-    # (stiff sides: the 3 x 3 neighbourhood of a jump or break, the windows of a steep
-    # change, none at a grid edge)
-    for mask, factor, stiff_side in (
-        (jump, BAND_FLEXURAL_PARAMETERS, strongest_next),
-        (gentle, STEEP_FLEXURAL_PARAMETERS, strong_side),
-        (at_break, BREAK_FLEXURAL_PARAMETERS, strongest_next),
+    for mask, factor in (
+        (jump, BAND_FLEXURAL_PARAMETERS),
+        (gentle, STEEP_FLEXURAL_PARAMETERS),
+        (at_break, BREAK_FLEXURAL_PARAMETERS),
     ):
         if mask.any():
             local = factor * _flexural_parameter_grid(weakest_next[mask], operator.stiffness)
             narrow = local.copy()
-            stiff = _flexural_parameter_grid(stiff_side[mask], operator.stiffness)
             if factor != STEEP_FLEXURAL_PARAMETERS:
+                stiff = _flexural_parameter_grid(strongest_next[mask], operator.stiffness)
                 np.maximum(narrow, STIFF_SIDE_FLEXURAL_PARAMETERS * stiff, out=narrow)
-            np.maximum(local, _stiff_side_reach(stiff, spacing), out=local)
+                np.maximum(local, _stiff_side_reach(stiff, spacing), out=local)
             widths[mask] = np.maximum(widths[mask], local)
             least[mask] = np.maximum(least[mask], narrow)
     return SharpFeatures(sharp, float(widths.max()), widths, least)
@@ -398,9 +372,9 @@ def _band_distance(
     the Euclidean distance transform, which knows no periodic edges: without that, a
     feature near the first or last rows of the solve grid (the grid's own west or south
     edge: the margins of ``edges="infinite"`` follow its east and north edges) got a band
-    cut off there, on one side only. Measured on a Gaussian te valley (25 -> 3 km, 30 km
-    half-width) 60 km west of the centre of a 160² grid of 2 km: 532 iterations with the
-    cut band, 5 with the wrapped one.
+    cut off there, on one side only. Measured with the te_map case of
+    tests/benchmarks/variable.py at 256² of 4 km (te 0-100 km up to its tapered edges):
+    20 iterations with the cut band (71.2 k nodes), 10 with the wrapped one (74.7 k).
     """
     sampling = (operator.dy, operator.dx)
     minimum = max(operator.dx, operator.dy)
