@@ -73,7 +73,17 @@ true rms error of the inner solves was 1.2-3.7 times what they reported (0.0998 
 0.0271 m, say), so the outer iteration sees ~0.1 m of noise. The preconditioner is weak on a
 smooth valley over a 579-fold rigidity range (banded on its steep flanks only, two blend
 levels), where a sharp-edged weak zone takes 6 iterations (tests/benchmarks/variable.py).
-Open.
+
+Cause found and fixed (gridflex.solvers.preconditioners.MIN_RAMP_RATIO): the band covered
+every weaker part of the valley, the blend's two levels were a hair apart, and their
+cos/sin ramp became a step in space that cut the plate's coupling; the periodic band
+distance (gridflex.solvers.rigidity_features) came with it. After (machine slower than
+above: the same constant-te run took 65.8-84.8 s instead of 47 s): 300^2 3.76 (34.2 s /
+9.1 s), 1000^2 2.24 (189.6 s / 84.8 s), infill iterations 7-8 per stage with either
+plate; shelf layout 1.71 (112.3 s / 65.8 s). Profile of the weak layout at 1000^2:
+inner finite-difference solves 72.6 s of 171.6 s (75 solves, 122 iterations; SuperLU
+band solves of 126-134 k nodes, 90 ms each, 24.4 s of it), two set-ups 11 s, the rest
+(compaction, the infill's columns) as with constant te. Not met for this map by ~12 %.
 """
 
 from __future__ import annotations
