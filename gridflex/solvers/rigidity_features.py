@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.ndimage
 
-from gridflex.memory import available_memory
+from gridflex.memory import available_memory, check_memory
 from gridflex.solvers.plate_operator import PlateOperator
 
 __all__ = [
@@ -385,6 +385,15 @@ def _band_distance(
     ]
     crop = tuple(
         slice(before, before + n) for (before, _), n in zip(pads, sharp.shape, strict=True)
+    )
+    rows, columns = (n + 2 * before for n, (before, _) in zip(sharp.shape, pads, strict=True))
+    # the wrapped mask, its float64 distances and (with widths) two int32 indices
+    check_memory(
+        float(rows * columns * (9 if widths is None else 17)),
+        f"the distance transform of the finite-difference band on {rows} x {columns} nodes "
+        f"(the {sharp.shape[0]} x {sharp.shape[1]} solve grid wrapped by the widest band, "
+        f"{largest:.0f} m)",
+        advice="use fewer or coarser cells, or a te grid with a smaller range",
     )
     padded = np.pad(sharp, pads, mode="wrap")
     if widths is None:

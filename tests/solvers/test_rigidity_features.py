@@ -197,3 +197,22 @@ def test_hinge_band_reaches_the_same_distance_on_every_grid(te):
     # the three fine grids: one reach in metres (a width of its own in metres from the
     # sharp nodes would reach 4 spacings further, 0.38 of alpha at alpha / 10.5)
     assert max(reaches[:3]) - min(reaches[:3]) <= alpha / 10.5
+
+
+def test_band_distance_checks_its_memory_first(monkeypatch):
+    # common practice (memory estimated before big allocations): the band's distance
+    # transform runs on the solve grid wrapped by the widest band; with too little memory
+    # it refuses, naming the step, instead of failing inside scipy
+    import gridflex.memory
+    from gridflex.errors import InputError
+
+    n, h = 64, 2000.0
+    hinge = np.full((n, n), 1e23)
+    hinge[:, 20] = 0.0
+    op = PlateOperator.build(hinge, STIFFNESS, NU, h, h)
+    features = find_sharp_features(op)
+    nodes, _, _ = sharp_band(op, features.band_width, 10**6, features.nodes, features.widths)
+    assert nodes.size > 0
+    monkeypatch.setattr(gridflex.memory, "available_memory", lambda: 1024.0)
+    with pytest.raises(InputError, match="distance transform of the finite-difference band"):
+        sharp_band(op, features.band_width, 10**6, features.nodes, features.widths)
