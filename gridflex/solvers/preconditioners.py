@@ -90,7 +90,8 @@ plate constants), iterations before -> after this and :data:`SINGLE_LEVEL_RATIO`
 4 km 121 -> 7, 160² of 2 km 216 -> 6 (levels 1.38882e23 and 1.38889e23 N m before),
 256² of 2 km 256 -> 6; in the infill of tests/benchmarks/basin_large.py ``--layout weak``
 (300², ten stages) 16-25 infill iterations per stage -> 7-8 (as with constant te), the run
-345 -> 27 s. A ramp over a ratio of 3 did as well as 10 there. Unchanged or fewer
+345 -> 34 s (on a slower machine than before). A ramp over a ratio of 3 did as well as 10
+on the valley (measured with a band rule tried and not kept). Unchanged or fewer
 iterations on the cases of tests/benchmarks/variable.py and te_map_robustness.py (256²
 and 512²): a smooth random te map of 5-60 km 25 -> 23, two opposite tanh margins 28 -> 6,
 the margin crossed by hinges 18 -> 16, te_map 15 -> 7 (512² of 4 km, with the periodic
@@ -101,7 +102,6 @@ SINGLE_LEVEL_RATIO = 2.0
 largest rigidity): at most this factor off at short wavelengths, one FFT pair per
 iteration less than two levels."""
 
-SINGLE_PRECISION_FFT = True
 SINGLE_PRECISION_FFT = True
 """Run the blend's FFTs in single precision (about 1.5 times as fast as double, half the
 memory traffic). The conjugate gradients use the flexible (Polak-Ribière) update, which
