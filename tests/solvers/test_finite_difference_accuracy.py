@@ -97,9 +97,9 @@ def test_smooth_te_valley_near_the_west_edge_converges_fast():
     # smooth Gaussian te valley (25 -> 3 km, 30 km half-width; invented) narrower than the
     # stiff plate's flexural parameter (about 70 km), 60 km west of the centre of a 128²
     # grid of 4 km, so that its band crosses the periodic solve grid's first columns.
-    # Before the band wrapped round periodic edges and took the stiff side's reach for
-    # steep smooth changes, and before the blend's ramp had a least span, this took 121
-    # iterations (5 after; common practice for the count, seen on this machine)
+    # Before the blend's ramp had a least span (MIN_RAMP_RATIO) and the band wrapped
+    # round periodic edges, this took 121 iterations (7 after; common practice for the
+    # count, seen on this machine)
     n, dx = 128, 4e3
     x = (np.arange(n) - n / 2 + 0.5) * dx
     xx, yy = np.meshgrid(x, x)
