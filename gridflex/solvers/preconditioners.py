@@ -78,7 +78,7 @@ def rigidity_scaling(ratio: float) -> float:
     return min(max(p_low + t * (p_high - p_low), 0.0), p_high)
 
 
-MIN_RAMP_RATIO = 10.0
+MIN_RAMP_RATIO = 2.0
 """Least rigidity ratio over which the blend's weights ramp from one level to the next.
 
 The levels span the rigidity outside the band. Where that is nearly constant (a band
@@ -89,18 +89,20 @@ cos(θ(x) − θ(y)) is 0 for nodes x, y on either side. Measured on a Gaussian 
 plate constants), iterations before -> after this and :data:`SINGLE_LEVEL_RATIO`: 128² of
 4 km 121 -> 7, 160² of 2 km 216 -> 6 (levels 1.38882e23 and 1.38889e23 N m before),
 256² of 2 km 256 -> 6; in the infill of tests/benchmarks/basin_large.py ``--layout weak``
-(300², ten stages) 16-25 infill iterations per stage -> 7-8 (as with constant te), the run
-345 -> 34 s (on a slower machine than before). A ramp over a ratio of 3 did as well as 10
-on the valley (measured with a band rule tried and not kept). Unchanged or fewer
-iterations on the cases of tests/benchmarks/variable.py and te_map_robustness.py (256²
-and 512²): a smooth random te map of 5-60 km 25 -> 23, two opposite tanh margins 28 -> 6,
-the margin crossed by hinges 18 -> 16, te_map 15 -> 7 (512² of 4 km, with the periodic
-band of :func:`gridflex.solvers.rigidity_features.sharp_band`)."""
+(300², ten stages) 16-25 infill iterations per stage -> 7-8, as with constant te. A least
+ramp of 1.5, 2, 3 or 10 all fixed the valley; 10 (with one level up to a two-fold range)
+slowed gentle margins whose whole range is a few-fold (tanh te 20 -> 25 / 26 / 30 km at
+256² of 4 km: 7 / 7 / 8 -> 10 / 10 / 12 iterations; the top level's weight never reached
+1), 3 a little (8 / 8 / 8), 2 and 1.5 not at all. With 2 (and one level only below
+1.1-fold), unchanged or fewer iterations on the cases of tests/benchmarks/variable.py and
+te_map_robustness.py at 256² and 512² (holes 6 -> 5, a smooth random te map of 5-60 km
+25 -> 23, two opposite tanh margins 28 -> 6, the margin crossed by hinges 18 -> 16; te_map
+15 -> 7 at 512² of 4 km with the periodic band of
+:func:`gridflex.solvers.rigidity_features.sharp_band`)."""
 
-SINGLE_LEVEL_RATIO = 2.0
+SINGLE_LEVEL_RATIO = 1.1
 """Largest rigidity ratio outside the band that the blend serves with one level (the
-largest rigidity): at most this factor off at short wavelengths, one FFT pair per
-iteration less than two levels."""
+largest rigidity): at most 10 % off, one FFT pair per iteration less than two levels."""
 
 SINGLE_PRECISION_FFT = True
 """Run the blend's FFTs in single precision (about 1.5 times as fast as double, half the

@@ -59,17 +59,19 @@ def test_nearly_constant_rigidity_gets_one_level_and_small_ranges_a_gentle_ramp(
     n, h = 64, 4e3
     x = np.arange(n)
     ramp = 0.5 * (1 - np.cos(2 * np.pi * x / n))  # periodic, 0 -> 1 -> 0
-    for ratio in (1.0001, 0.9 * SINGLE_LEVEL_RATIO):
+
+    def blend_for(ratio: float) -> BlendPreconditioner:
         rigidity = 1e22 * ratio ** ramp[None, :].repeat(n, axis=0)
-        blend = BlendPreconditioner.build(PlateOperator.build(rigidity, 3300 * 9.81, 0.25, h, h))
-        assert blend.levels.size == 1
-    ratio = 4.0
-    rigidity = 1e22 * ratio ** ramp[None, :].repeat(n, axis=0)
-    blend = BlendPreconditioner.build(PlateOperator.build(rigidity, 3300 * 9.81, 0.25, h, h))
+        return BlendPreconditioner.build(PlateOperator.build(rigidity, 3300 * 9.81, 0.25, h, h))
+
+    for ratio in (1.0001, 1 + 0.5 * (SINGLE_LEVEL_RATIO - 1)):
+        assert blend_for(ratio).levels.size == 1
+    ratio = 1 + 0.5 * (MIN_RAMP_RATIO - 1)  # above one level, below the least ramp
+    blend = blend_for(ratio)
     assert blend.levels.size == 2
     low, high = blend._weights
     assert low is not None and high is not None
-    assert np.allclose(low**2 + high**2, 1.0, atol=0.02)  # nearly unscaled (p = 0.01)
+    assert np.allclose(low**2 + high**2, 1.0, atol=1e-5)  # unscaled at this ratio (p = 0)
     # the top level's weight never exceeds that of a ramp over MIN_RAMP_RATIO
     top = math.sin(0.5 * math.pi * math.log(ratio) / math.log(MIN_RAMP_RATIO))
     assert float(high.max()) <= top + 1e-6
