@@ -76,7 +76,7 @@ iterations for none / 0.5 / 1 / 2 / 4 cells), still ConvergenceError without it.
 
 After the periodic band distance and the blend's least ramp (default band; iterations,
 largest difference from the direct solve): te_map 250 m 64 -> 13 (8.8e-8), 1 km 49 -> 15
-(1.0e-9), 4 km 20 -> 10, 10 km 7 -> 5; clipped 4 km 19, 10 km 22; holes 4 km 6, 10 km 18;
+(1.0e-9), 4 km 20 -> 10, 10 km 7 -> 5; clipped 4 km 19, 10 km 22; holes 4 km 5, 10 km 18;
 jumps 10 km 21; the rest 0-1 (the band covers the grid). Capped at a quarter: as before
 (te_map fails at 1, 4 and 10 km; clipped 4 km 158, holes 4 km 54, 10 km 24).
 
