@@ -36,6 +36,7 @@ from gridflex.solvers.rigidity_features import (
     BAND_FLEXURAL_PARAMETERS,
     BREAK_FLEXURAL_PARAMETERS,
     STEEP_FLEXURAL_PARAMETERS,
+    SharpDistance,
     factor_budget,
     find_sharp_features,
     sharp_band,
@@ -308,15 +309,32 @@ def _preconditioner(
         if band_width is None:  # each sharp node's own width (SharpFeatures.widths)
             band_width, widths = features.band_width, features.widths
         budget = factor_budget(_grid_bytes(operator.shape))
+        # one distance transform for the band and its fallback (least widths <= widths)
+        distance = None
+        if features.nodes.any():
+            widest = max(float(band_width), max(operator.dx, operator.dy))
+            distance = SharpDistance.build(operator, features.nodes, widest, widths is not None)
         nodes, width_used, _ = sharp_band(
-            operator, float(band_width), int(max_band_nodes), features.nodes, widths, budget
+            operator,
+            float(band_width),
+            int(max_band_nodes),
+            features.nodes,
+            widths,
+            budget,
+            distance,
         )
         least = features.least_widths
         if widths is not None and least is not None and width_used < band_width:
             # over the caps: the widths of STIFF_SIDE_FLEXURAL_PARAMETERS before shrinking
             # (STIFF_SIDE_REACH_FLEXURAL_PARAMETERS); the larger band of the two
             fallback, fallback_width, _ = sharp_band(
-                operator, float(least.max()), int(max_band_nodes), features.nodes, least, budget
+                operator,
+                float(least.max()),
+                int(max_band_nodes),
+                features.nodes,
+                least,
+                budget,
+                distance,
             )
             if fallback.size > nodes.size:
                 nodes, width_used = fallback, fallback_width

@@ -33,6 +33,7 @@ __all__ = [
     "REACH_FRAME_NODES",
     "STIFF_SIDE_FLEXURAL_PARAMETERS",
     "STIFF_SIDE_REACH_FLEXURAL_PARAMETERS",
+    "SharpDistance",
     "SharpFeatures",
     "factor_budget",
     "find_sharp_features",
@@ -361,12 +362,12 @@ def _factor_bytes(count: int, across: float, spacing: float) -> float:
     return FACTOR_BYTES_PER_NODE_CELL * count * (2.0 * across / spacing + 1.0)
 
 
-def _band_distance(
-    operator: PlateOperator, sharp: np.ndarray, widths: np.ndarray | None, width: float
-) -> tuple[np.ndarray, np.ndarray | None]:
-    """Distance (m) of every node from the nearest sharp node, wrapping round periodic
-    axes; with *widths*, relative to that node's own width and scaled to *width* (the
-    largest), and the nearest sharp node's width (m, at least one spacing) per node.
+@dataclass(frozen=True)
+class SharpDistance:
+    """Distance of every node from its nearest sharp node, wrapping round periodic axes.
+
+    Made once per rigidity grid (:meth:`build`) and shared by every band taken from it
+    (the band over the caps and its fallback, :func:`sharp_band`).
 
     A periodic axis is extended by the widest band (wrapped copies of the grid) before
     the Euclidean distance transform, which knows no periodic edges: without that, a
@@ -375,45 +376,54 @@ def _band_distance(
     cut off there, on one side only. Measured with the te_map case of
     tests/benchmarks/variable.py at 256² of 4 km (te 0-100 km up to its tapered edges):
     20 iterations with the cut band (71.2 k nodes), 10 with the wrapped one (74.7 k).
+
+    Attributes
+    ----------
+    metres : numpy.ndarray of float64, shape (ny, nx)
+        The distance (m); exact within the widest band it was built for.
+    nearest : tuple of numpy.ndarray of int32, optional
+        Row and column of each node's nearest sharp node (for per-node widths).
     """
-    sampling = (operator.dy, operator.dx)
-    minimum = max(operator.dx, operator.dy)
-    largest = width if widths is None else max(float(widths.max()), width)
-    pads = [
-        (min(n, math.ceil(largest / h) + 1),) * 2 if edge == "periodic" else (0, 0)
-        for n, h, edge in zip(sharp.shape, sampling, operator.edges, strict=True)
-    ]
-    crop = tuple(
-        slice(before, before + n) for (before, _), n in zip(pads, sharp.shape, strict=True)
-    )
-    rows, columns = (n + 2 * before for n, (before, _) in zip(sharp.shape, pads, strict=True))
-    # the wrapped mask, its float64 distances and (with widths) two int32 indices
-    check_memory(
-        float(rows * columns * (9 if widths is None else 17)),
-        f"the distance transform of the finite-difference band on {rows} x {columns} nodes "
-        f"(the {sharp.shape[0]} x {sharp.shape[1]} solve grid wrapped by the widest band, "
-        f"{largest:.0f} m)",
-        advice="use fewer or coarser cells, or a te grid with a smaller range",
-    )
-    padded = np.pad(sharp, pads, mode="wrap")
-    if widths is None:
-        distance = scipy.ndimage.distance_transform_edt(~padded, sampling=sampling)
-        return np.ascontiguousarray(distance[crop]), None
-    nearest = np.empty((2, *padded.shape), dtype=np.int32)
-    distance = scipy.ndimage.distance_transform_edt(
-        ~padded, sampling=sampling, return_indices=True, indices=nearest
-    )
-    del padded
-    distance = np.ascontiguousarray(distance[crop])
-    # the nearest sharp node's width (<= 1 inside its band: distance relative to it)
-    j = (nearest[0][crop] - pads[0][0]) % sharp.shape[0]
-    i = (nearest[1][crop] - pads[1][0]) % sharp.shape[1]
-    del nearest
-    reach = widths[j, i]
-    np.maximum(reach, np.float32(minimum), out=reach)
-    distance /= reach
-    distance *= width  # in metres at the largest width
-    return distance, reach
+
+    metres: np.ndarray
+    nearest: tuple[np.ndarray, np.ndarray] | None
+
+    @classmethod
+    def build(
+        cls, operator: PlateOperator, sharp: np.ndarray, widest: float, nearest: bool = True
+    ) -> SharpDistance:
+        """The distances from the *sharp* nodes, exact within *widest* (m) of them; with
+        *nearest*, also the nearest sharp node of every node. The memory of the wrapped
+        grid is checked first (InputError naming the step)."""
+        sampling = (operator.dy, operator.dx)
+        pads = [
+            (min(n, math.ceil(widest / h) + 1),) * 2 if edge == "periodic" else (0, 0)
+            for n, h, edge in zip(sharp.shape, sampling, operator.edges, strict=True)
+        ]
+        crop = tuple(
+            slice(before, before + n) for (before, _), n in zip(pads, sharp.shape, strict=True)
+        )
+        rows, columns = (n + 2 * before for n, (before, _) in zip(sharp.shape, pads, strict=True))
+        # the wrapped mask, its float64 distances and (with nearest) two int32 indices
+        check_memory(
+            float(rows * columns * (17 if nearest else 9)),
+            f"the distance transform of the finite-difference band on {rows} x {columns} "
+            f"nodes (the {sharp.shape[0]} x {sharp.shape[1]} solve grid wrapped by the "
+            f"widest band, {widest:.0f} m)",
+            advice="use fewer or coarser cells, or a te grid with a smaller range",
+        )
+        padded = np.pad(sharp, pads, mode="wrap")
+        if not nearest:
+            distance = scipy.ndimage.distance_transform_edt(~padded, sampling=sampling)
+            return cls(np.ascontiguousarray(distance[crop]), None)
+        indices = np.empty((2, *padded.shape), dtype=np.int32)
+        distance = scipy.ndimage.distance_transform_edt(
+            ~padded, sampling=sampling, return_indices=True, indices=indices
+        )
+        del padded
+        j = (indices[0][crop] - pads[0][0]) % sharp.shape[0]
+        i = (indices[1][crop] - pads[1][0]) % sharp.shape[1]
+        return cls(np.ascontiguousarray(distance[crop]), (j, i))
 
 
 def sharp_band(
@@ -423,6 +433,7 @@ def sharp_band(
     sharp: np.ndarray | None = None,
     widths: np.ndarray | None = None,
     max_factor_bytes: float = MAX_FACTOR_BYTES,
+    distance: SharpDistance | None = None,
 ) -> tuple[np.ndarray, float, np.ndarray]:
     """Nodes within *width* (m) of a sharp feature; the width shrinks to respect *max_nodes*.
 
@@ -452,6 +463,9 @@ def sharp_band(
     max_factor_bytes : float, default :data:`MAX_FACTOR_BYTES`
         Cap on the estimated memory (bytes) of the band's LU factors
         (:data:`FACTOR_BYTES_PER_NODE_CELL`); see :func:`factor_budget`.
+    distance : SharpDistance, optional
+        The distances from *sharp*, if already made (exact within the largest width
+        asked for here, and with the nearest sharp nodes when *widths* are given).
 
     Returns
     -------
@@ -469,11 +483,25 @@ def sharp_band(
         return np.zeros(0, dtype=np.int64), 0.0, sharp
     minimum = max(operator.dx, operator.dy)
     width = max(float(width), minimum)
-    distance, reach = _band_distance(operator, sharp, widths, width)
+    widest = width if widths is None else max(float(widths.max()), width)
+    if distance is None:
+        distance = SharpDistance.build(operator, sharp, widest, widths is not None)
+    reach = None
+    if widths is None:
+        relative = distance.metres
+    else:
+        if distance.nearest is None:
+            raise ValueError("per-node widths need the nearest sharp nodes")
+        # the nearest sharp node's width: the distance relative to it (<= 1 inside its
+        # band), in metres at the largest width
+        reach = widths[distance.nearest]
+        np.maximum(reach, np.float32(minimum), out=reach)
+        relative = distance.metres / reach
+        relative *= width
     spacing = min(operator.dx, operator.dy)
     largest = width
     while True:
-        band = distance <= width
+        band = relative <= width
         count = int(np.count_nonzero(band))
         across = width  # the band's width; with *widths*, its mean over the band
         if reach is not None and count:
@@ -494,7 +522,7 @@ def sharp_band(
         contrast = np.full(rigidity.shape, np.inf, dtype=np.float32)
         np.divide(_extreme3(rigidity, modes, True), low, out=contrast, where=low > 0)
         candidates = np.flatnonzero(band)
-        order = np.lexsort((-contrast.ravel()[candidates], distance.ravel()[candidates]))
+        order = np.lexsort((-contrast.ravel()[candidates], relative.ravel()[candidates]))
         chosen = np.sort(candidates[order[:fit]])
         log.warning(
             "the band round the sharp features (%d nodes at its narrowest) exceeds the band "

@@ -145,7 +145,7 @@ difference 3.7e-9 and 9.5e-10 of the peak; peak memory 4.3 and 4.0 GB against 0.
 0.9 GB.
 
 Periodic band distance and the blend's least ramp (gridflex.solvers.rigidity_features
-._band_distance, gridflex.solvers.preconditioners.MIN_RAMP_RATIO / SINGLE_LEVEL_RATIO),
+.SharpDistance, gridflex.solvers.preconditioners.MIN_RAMP_RATIO / SINGLE_LEVEL_RATIO),
 iterations at default settings, ``--refine`` (2048 km domain) except where a cell size is
 given, before -> after: te_map 11 / 15 / 15 -> 7 / 7 / 6 at 256² / 512² / 1024² (band
 1.04 M nodes at 1024², set-up 79 s, solve 8 s), 512² of 2 km 30 -> 10; at 1024²

@@ -216,3 +216,25 @@ def test_band_distance_checks_its_memory_first(monkeypatch):
     monkeypatch.setattr(gridflex.memory, "available_memory", lambda: 1024.0)
     with pytest.raises(InputError, match="distance transform of the finite-difference band"):
         sharp_band(op, features.band_width, 10**6, features.nodes, features.widths)
+
+
+def test_one_distance_transform_serves_the_band_and_its_fallback():
+    # common practice (one computation, shared): the distances made once for the widest
+    # band give the same band, for the per-node widths and for the narrower fallback
+    # widths, as a distance transform made for each call
+    from gridflex.solvers.rigidity_features import SharpDistance
+
+    n, h = 96, 4000.0
+    rigidity = np.full((n, n), 1e23)
+    rigidity[:, 3] = 0.0  # a hinge near the periodic edge
+    rigidity[40:60, 50:70] = 1e20  # a weak patch
+    op = PlateOperator.build(rigidity, STIFFNESS, NU, h, h)
+    features = find_sharp_features(op)
+    assert features.widths is not None and features.least_widths is not None
+    shared = SharpDistance.build(op, features.nodes, features.band_width)
+    for widths in (features.widths, features.least_widths):
+        width = float(widths.max())
+        fresh, _, _ = sharp_band(op, width, 10**6, features.nodes, widths)
+        reused, _, _ = sharp_band(op, width, 10**6, features.nodes, widths, distance=shared)
+        assert fresh.size > 0
+        assert np.array_equal(fresh, reused)
