@@ -175,8 +175,10 @@ def solve(
         estimated relative error of w in the energy norm), ``backward_error`` (the
         normwise backward error ||a q − K w|| / (||K|| ||w|| + ||a q||)),
         ``at_round_off`` (1 when double-precision round-off stopped the iteration
-        above *tolerance*), ``tolerance``, ``blend_levels``,
-        ``band_nodes``, ``band_width`` and ``locally_compensated_load``.
+        above *tolerance*), ``tolerance``, ``preconditioner`` (``"band and blend"``,
+        ``"blend"``, or ``"aggregation multigrid"`` when the band round sharp rigidity
+        changes is over its caps), ``blend_levels``, ``band_nodes``, ``band_width`` and
+        ``locally_compensated_load``.
 
     Raises
     ------
@@ -294,10 +296,11 @@ def _solve_finite_difference(
         progress=progress,
     )
     log.info(
-        "finite-difference solve: %d iterations, accuracy %.1e, residual %.2e, band %d nodes",
+        "finite-difference solve: %d iterations, accuracy %.1e, residual %.2e, %s, band %d nodes",
         info["iterations"],
         info["accuracy"],
         info["residual"],
+        info["preconditioner"],
         info["band_nodes"],
     )
     attrs = {
@@ -314,6 +317,7 @@ def _solve_finite_difference(
         "backward_error": info["backward_error"],
         "at_round_off": int(info["at_round_off"]),
         "tolerance": info["tolerance"],
+        "preconditioner": info["preconditioner"],
         "blend_levels": np.asarray(info["blend_levels"], dtype=np.float64),
         "band_nodes": info["band_nodes"],
         "band_width": info["band_width"],

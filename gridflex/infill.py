@@ -408,6 +408,7 @@ class _FiniteDifferenceInner:
             "inner_tolerance": float(info.get("tolerance", math.nan)),
             "setup_seconds": 0.0 if self.reused else self.solver.setup_seconds,
             "setup_reused": int(self.reused),
+            "preconditioner": str(info.get("preconditioner", "")),
             "blend_levels": np.asarray(info.get("blend_levels", []), dtype=np.float64),
             "band_nodes": int(info.get("band_nodes", 0)),
             "band_width": self.solver.band_width,
@@ -941,8 +942,8 @@ def solve_with_infill(
         domain), ``inner_solver``, ``infill_*`` parameters; with finite differences
         also ``inner_iterations`` (conjugate-gradient iterations of all steps),
         ``inner_solves``, ``residual`` and ``inner_tolerance`` (relative residual
-        reached and asked for in the last step), ``setup_seconds``, ``blend_levels``,
-        ``band_nodes``, ``band_width`` and ``locally_compensated_load``.
+        reached and asked for in the last step), ``setup_seconds``, ``preconditioner``,
+        ``blend_levels``, ``band_nodes``, ``band_width`` and ``locally_compensated_load``.
 
     Raises
     ------

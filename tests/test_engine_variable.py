@@ -48,7 +48,7 @@ def test_te_grid_selects_finite_difference_and_records_the_solve():
     assert attrs["accuracy"] <= attrs["tolerance"] == 1e-6
     assert attrs["backward_error"] < 1e-6 and attrs["at_round_off"] == 0
     assert 1 <= attrs["iterations"] <= 30
-    assert attrs["band_nodes"] > 0
+    assert attrs["band_nodes"] > 0 and attrs["preconditioner"] == "band and blend"
     assert attrs["force_balance_residual"] < 1e-6  # issue 3: force balance to 1e-6
     assert tuple(attrs["padded_shape"]) >= load.shape
 

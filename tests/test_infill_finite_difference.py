@@ -138,6 +138,7 @@ def test_margin_and_break_converges_to_the_tight_solution_and_balances():
     assert loose.attrs["plate_te_min"] == 0.0
     for key in ("inner_iterations", "inner_solves", "residual", "band_nodes", "blend_levels"):
         assert key in loose.attrs
+    assert loose.attrs["preconditioner"] == "band and blend"
     # the last inner solve was tight enough for the tolerance (rms error <= 1e-5 m):
     # its relative residual is far below the first, loose ones (0.1)
     assert loose.attrs["residual"] <= loose.attrs["inner_tolerance"] < 1e-3

@@ -26,11 +26,13 @@ from gridflex.memory import check_memory
 from gridflex.progress import Progress
 from gridflex.solvers.blas_threads import single_threaded_blas
 from gridflex.solvers.conjugate_gradient import conjugate_gradient
+from gridflex.solvers.multigrid import AggregationPreconditioner
 from gridflex.solvers.plate_operator import AXIS_EDGES, PlateOperator, area_weights, corner_rigidity
 from gridflex.solvers.preconditioners import (
     BandSolver,
     BlendPreconditioner,
     MultiplicativePreconditioner,
+    PlatePreconditioner,
 )
 from gridflex.solvers.rigidity_features import (
     BAND_FLEXURAL_PARAMETERS,
@@ -85,9 +87,12 @@ DEFAULT_MAX_ITERATIONS = 300
 """Iteration limit before :class:`~gridflex.errors.ConvergenceError` is raised."""
 
 DEFAULT_MAX_BAND_NODES = 1_500_000
-"""Cap on the band size (nodes). Beyond it the band widths shrink until it fits
-(:data:`~gridflex.solvers.rigidity_features.BAND_SHRINK`); if even the sharp nodes alone
-do not fit, the solve runs with the blend alone (more iterations). Raised from 400 k with
+"""Cap on the band size (nodes). Beyond it the band falls back to its least widths; when
+even those do not fit, the solve takes aggregation multigrid instead of band and blend
+(:mod:`gridflex.solvers.multigrid`), unless the cap is 0 (the blend alone) or the
+multigrid's memory does not fit (then the widths shrink until the band fits,
+:data:`~gridflex.solvers.rigidity_features.BAND_SHRINK`, or only the nodes that fit are
+kept). Raised from 400 k with
 the wider bands of :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`,
 and from 1 M with the reach of
 :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_REACH_FLEXURAL_PARAMETERS`: the hinge
@@ -299,10 +304,16 @@ def _preconditioner(
     band_width: float | None,
     max_band_nodes: int,
     spectral_term: SpectralTerm | None,
-) -> tuple[MultiplicativePreconditioner, float]:
+) -> tuple[PlatePreconditioner, float]:
     """The band round the operator's sharp features, the blend, and their combination;
     also the band width used (m). With a *spectral_term* the band is left out (its exact
-    solve would need the term's dense matrix) and the blend's levels include the term."""
+    solve would need the term's dense matrix) and the blend's levels include the term.
+
+    When the band the features ask for is over its caps even at the least widths (it had
+    to shrink, or only part of it fits), the blend with that band need not converge (rough
+    te maps on fine large grids): the aggregation multigrid of
+    :mod:`gridflex.solvers.multigrid` is taken instead where its memory fits (width 0)."""
+    complete = True
     if spectral_term is None:
         features = find_sharp_features(operator)
         widths = None
@@ -323,6 +334,7 @@ def _preconditioner(
             budget,
             distance,
         )
+        complete = not features.nodes.any() or width_used >= band_width
         least = features.least_widths
         if widths is not None and least is not None and width_used < band_width:
             # over the caps: the widths of STIFF_SIDE_FLEXURAL_PARAMETERS before shrinking
@@ -336,8 +348,13 @@ def _preconditioner(
                 budget,
                 distance,
             )
+            complete = fallback_width >= float(least.max())
             if fallback.size > nodes.size:
                 nodes, width_used = fallback, fallback_width
+        if not complete and int(max_band_nodes) > 0:
+            multigrid = _multigrid(operator, nodes.size)
+            if multigrid is not None:
+                return multigrid, 0.0
     else:
         nodes, width_used = np.zeros(0, dtype=np.int64), 0.0
     band = BandSolver.build(operator, nodes)
@@ -351,6 +368,25 @@ def _preconditioner(
         width_used,
     )
     return MultiplicativePreconditioner(operator, blend, band), width_used
+
+
+def _multigrid(operator: PlateOperator, band_nodes: int) -> AggregationPreconditioner | None:
+    """The aggregation multigrid for a plate whose band is over its caps, or None (logged)
+    when its estimated memory does not fit (the partial band and blend are used then)."""
+    log.info(
+        "the band round the sharp rigidity changes is over its caps (%d nodes fit): "
+        "aggregation multigrid instead",
+        band_nodes,
+    )
+    try:
+        return AggregationPreconditioner.build(operator)
+    except InputError as exc:  # (its memory, estimated before anything is allocated)
+        log.warning(
+            "%s; the solve uses the partial band and blend, which may not converge on "
+            "rough te maps",
+            exc,
+        )
+        return None
 
 
 @dataclass(eq=False)
@@ -391,8 +427,9 @@ class FiniteDifferenceSolver:
     ----------
     operator : PlateOperator
         K on the solve grid.
-    preconditioner : MultiplicativePreconditioner
-        Band and blend.
+    preconditioner : PlatePreconditioner
+        Band and blend (:class:`MultiplicativePreconditioner`), or aggregation multigrid
+        over the band's caps (:class:`AggregationPreconditioner`).
     grid_shape : tuple of int
         (ny, nx) of the grid.
     spacing : tuple of float
@@ -410,7 +447,7 @@ class FiniteDifferenceSolver:
     """
 
     operator: PlateOperator
-    preconditioner: MultiplicativePreconditioner
+    preconditioner: PlatePreconditioner
     grid_shape: tuple[int, int]
     spacing: tuple[float, float]
     band_width: float
@@ -606,7 +643,7 @@ class FiniteDifferenceSolver:
                     self.apply,
                     rhs,
                     preconditioner.apply,
-                    tol,
+                    tol * preconditioner.tolerance_factor,
                     self.max_iterations,
                     progress,
                     first,
@@ -636,8 +673,9 @@ class FiniteDifferenceSolver:
             "at_round_off": outcome.at_round_off,
             "tolerance": tol,
             "solve_shape": self.shape,
-            "blend_levels": preconditioner.blend.levels.copy(),
-            "band_nodes": preconditioner.band.size,
+            "preconditioner": preconditioner.description,
+            "blend_levels": preconditioner.blend_levels,
+            "band_nodes": preconditioner.band_size,
             "band_width": self.band_width,
             "force_balance_residual": imbalance / total if total > 0 else 0.0,
             "locally_compensated_load": (float(load.sum()) - dot(operator.area, load)) * dy * dx,
@@ -780,6 +818,8 @@ def finite_difference_deflection(
         :data:`~gridflex.solvers.rigidity_features.STIFF_SIDE_FLEXURAL_PARAMETERS`).
     max_band_nodes : int, default 1500000
         Cap on the band size; see :func:`~gridflex.solvers.rigidity_features.sharp_band`.
+        Over it even at the least widths, the solve takes aggregation multigrid
+        (:data:`DEFAULT_MAX_BAND_NODES`); 0 switches the band off (the blend alone).
     progress : callable, optional
         Called with (iterations done, iteration limit) after each iteration and with
         (iterations, iterations) when converged.
@@ -794,7 +834,9 @@ def finite_difference_deflection(
         ``backward_error`` (normwise, ||a q − K w|| / (||K|| ||w|| + ||a q||), with
         ||K||₂ from :meth:`FiniteDifferenceSolver.operator_norm`), ``at_round_off``
         (stopped at the round-off limit above the tolerance), ``tolerance``,
-        ``solve_shape``, ``blend_levels`` (N m), ``band_nodes``, ``band_width`` (m),
+        ``solve_shape``, ``preconditioner`` (``"band and blend"``, ``"blend"``, or
+        ``"aggregation multigrid"`` when the band is over its caps even at its least
+        widths), ``blend_levels`` (N m), ``band_nodes``, ``band_width`` (m),
         ``force_balance_residual``, ``locally_compensated_load`` (N, load on the gap side
         of plate ends), ``setup_seconds``, ``solve_seconds``.
 

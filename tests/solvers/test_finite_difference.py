@@ -400,20 +400,31 @@ def test_preconditioner_is_symmetric_positive_definite(single, rtol):
     assert np.vdot(pre.apply(u), u) > 0
 
 
-def test_band_cap_falls_back_and_still_converges(caplog):
-    # the band is capped: with a tiny cap the width shrinks, then only the nodes that fit
-    # are kept; with no room at all the band is dropped (both logged)
+def test_band_cap_falls_back_and_still_converges(caplog, monkeypatch):
+    # the band is capped: with a tiny cap even the narrowest band does not fit, and the
+    # solve takes aggregation multigrid; where that does not fit in memory either, only
+    # the nodes that fit are kept; with a cap of 0 the band is dropped (all logged)
     spec, rigidity, load = _margin_with_break(64)
-    for cap in (10, 0):
+    for cap, multigrid_fits in ((10, True), (10, False), (0, True)):
         caplog.clear()
+        if not multigrid_fits:
+            monkeypatch.setattr(
+                "gridflex.solvers.multigrid.AGGREGATION_BYTES_PER_NODE", float(1 << 60)
+            )
         with caplog.at_level(logging.WARNING):
             _, info = finite_difference_deflection(
                 load, spec, rigidity, 2270 * 9.81, NU, max_band_nodes=cap, max_iterations=2000
             )
-        assert info["band_nodes"] == cap
-        assert info["band_width"] == (spec.dx if cap else 0.0)
         assert "band cap" in caplog.text
         assert info["accuracy"] <= info["tolerance"]
+        if cap and multigrid_fits:
+            assert info["preconditioner"] == "aggregation multigrid"
+            assert info["band_nodes"] == 0 and info["band_width"] == 0.0
+            continue
+        assert info["preconditioner"] == ("band and blend" if cap else "blend")
+        assert info["band_nodes"] == cap
+        assert info["band_width"] == (spec.dx if cap else 0.0)
+        monkeypatch.undo()
 
 
 def test_not_converging_raises_with_message():
