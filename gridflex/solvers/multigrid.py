@@ -17,6 +17,8 @@ iterations until w is within 1e-6 of the peak of a direct solve): te_map at 250 
 4 / 10 km 27 / 25 / 37 / 32, clipped 21, jumps 21, holes 19, rough (te changing every
 1.5 cells) 245; te_map at 512² of 500 m 24. The same with Jacobi-smoothed prolongation
 took 98-143 on te_map. Combined with the partial band and blend it did worse than alone.
+te_map at 2048² of 1 km (2048 km domain) and of 500 m, where the partial band raised
+ConvergenceError: 40 and 38 iterations (set-up about 90 s, solve 55-65 s, peak 7.0-7.4 GB).
 """
 
 from __future__ import annotations
@@ -43,7 +45,13 @@ __all__ = [
 log = logging.getLogger(__name__)
 
 MAX_COARSE_NODES = 2000
-"""Size of the coarsest level, solved directly (a dense pseudo-inverse, 32 MB)."""
+"""Unknowns at which the coarsening stops before :data:`MAX_LEVELS` (small grids)."""
+
+MAX_LEVELS = 3
+"""Levels at most; the coarsest is solved by sparse LU (SuperLU). A fourth level made the
+V-cycle much weaker: te_map of tests/benchmarks/variable.py on a 2048 km domain at 1024² of
+2 km (levels of 1.17 M, 219 k, 10.5 k and 486 unknowns) took 93 iterations, and 34 with the
+10.5 k level solved exactly; at 256² and 512² (three levels either way) 42 and 40."""
 
 AGGREGATION_BYTES_PER_NODE = 2000.0
 """Estimated peak memory of the set-up (bytes per node of the solve grid), the operator's
@@ -118,6 +126,15 @@ class AggregationPreconditioner:
             presmoother=smoother,
             postsmoother=smoother,
             max_coarse=MAX_COARSE_NODES,
+            max_levels=MAX_LEVELS,
+            coarse_solver=(
+                "splu",
+                {
+                    "permc_spec": "MMD_AT_PLUS_A",
+                    "diag_pivot_thresh": 0.0,
+                    "options": {"SymmetricMode": True},
+                },
+            ),
         )
         del matrix, modes, tilt_x, tilt_y
         for level in hierarchy.levels:  # set-up data the cycle does not use
@@ -126,6 +143,8 @@ class AggregationPreconditioner:
                     delattr(level, name)
             if hasattr(level, "P"):  # restriction = Pᵀ: a view instead of a copy
                 level.R = level.P.T
+        coarsest = hierarchy.levels[-1].A  # factorised now (the library waits for a solve)
+        hierarchy.coarse_solver(coarsest, np.zeros(coarsest.shape[0]))
         seconds = time.perf_counter() - began
         log.info(
             "multigrid set-up: %d levels (%s nodes), operator complexity %.2f, %.1f s",

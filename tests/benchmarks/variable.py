@@ -155,10 +155,11 @@ At 2048² of 1 km te_map still raises ConvergenceError (600 iterations, 706 s; b
 the 1.5 M node cap, a partial band, 5 levels): the capped band stays the open problem.
 
 Over the band's caps the solve now takes aggregation multigrid (gridflex.solvers.multigrid;
-the ``preconditioner`` column): te_map at 2048² of 1 km (``--refine``) 87 iterations,
-set-up 77 s, solve 111 s, peak 7.0 GB; at 2048² of 500 m (``--dx 0.5``) 91 iterations,
-set-up 80 s, solve 108 s, peak 7.2 GB (ConvergenceError before in both). The other cases
-keep their bands (at their full or least widths) and are unchanged.
+the ``preconditioner`` column): te_map at 2048² of 1 km (``--refine``) 40 iterations,
+set-up 91 s, solve 65 s, peak 7.0 GB; at 2048² of 500 m (``--dx 0.5``) 38 iterations,
+set-up 88 s, solve 55 s, peak 7.4 GB (ConvergenceError before in both; 87 and 91
+iterations with a fourth multigrid level, see gridflex.solvers.multigrid.MAX_LEVELS). The
+other cases keep their bands (at their full or least widths) and are unchanged.
 
 Usage::
 
