@@ -12,13 +12,17 @@ Comput. 33, "A general interpolation strategy for algebraic multigrid using ener
 minimization"; both recalled from memory), built by the general-purpose library pyamg.
 Its memory grows like the grid's, not like a direct factor of most of it.
 
-Measured (tests/benchmarks/te_map_robustness.py maps at 256², band switched off; CG
-iterations until w is within 1e-6 of the peak of a direct solve): te_map at 250 m / 1 /
-4 / 10 km 27 / 25 / 37 / 32, clipped 21, jumps 21, holes 19, rough (te changing every
-1.5 cells) 245; te_map at 512² of 500 m 24. The same with Jacobi-smoothed prolongation
-took 98-143 on te_map. Combined with the partial band and blend it did worse than alone.
-te_map at 2048² of 1 km (2048 km domain) and of 500 m, where the partial band raised
-ConvergenceError: 40 and 38 iterations (set-up about 90 s, solve 55-65 s, peak 7.0-7.4 GB).
+Measured (tests/benchmarks/te_map_robustness.py, band capped at a quarter of what it asks
+for, 256²; iterations of the solve at its default tolerance): te_map at 250 m / 1 / 4 /
+10 km 33 / 34 / 50 / 40; clipped, jumps and holes 24-32; rough (te changing every 1.5
+cells) 251 / 98 / 47 at 1 / 4 / 10 km and no convergence at 250 m. The partial band and
+blend raised ConvergenceError on all of them but clipped and holes at 4 and 10 km and
+jumps at 10 km (24-158 iterations there). Jacobi-smoothed
+prolongation took 3-4 times as many iterations; combined with the partial band and blend
+the multigrid did worse than alone. te_map at 2048² of 1 km (2048 km domain) and of 500 m,
+where the partial band raised ConvergenceError: 40 and 38 iterations (set-up about 90 s,
+solve 55-65 s, peak 7.0-7.4 GB). At 4096² of 250 m (18.7 M nodes) the set-up does not fit
+in 24 GiB.
 """
 
 from __future__ import annotations
@@ -55,8 +59,10 @@ V-cycle much weaker: te_map of tests/benchmarks/variable.py on a 2048 km domain 
 
 AGGREGATION_BYTES_PER_NODE = 2000.0
 """Estimated peak memory of the set-up (bytes per node of the solve grid), the operator's
-sparse matrix included: measured 1.7 kB per node as the process's peak resident memory at
-1024² of 1 km (1.27 M nodes, te_map), with some room."""
+sparse matrix included, with some room: measured with tracemalloc at 576² (te_map) 1.59 kB
+per node (the energy-minimising smoothing most of it, the matrix 148 bytes, 0.55 kB kept
+after the set-up); the whole process peaked at 1.5-1.6 kB per node on the 2160² solve
+grid of 2048² (te_map, 1 km and 500 m cells), every other array included."""
 
 
 MULTIGRID_TOLERANCE_FACTOR = 0.1

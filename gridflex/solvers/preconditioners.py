@@ -762,9 +762,8 @@ def scaled_start(
         New arrays of the shape of *rhs*.
     """
     x = np.zeros(rhs.shape)
-    residual = rhs.copy()
     if start is None:
-        return x, residual
+        return x, rhs.copy()
     s = np.asarray(start, dtype=np.float64).reshape(rhs.shape)
     if product is None:
         product = apply(s, np.empty(rhs.shape))
@@ -772,8 +771,8 @@ def scaled_start(
         product = np.array(product, dtype=np.float64).reshape(rhs.shape)
     energy = dot(s, product)
     xi = dot(s, rhs) / energy if energy > 0 else 0.0
-    if xi > 0:
-        np.multiply(s, xi, out=x)
-        product *= xi
-        residual = np.subtract(rhs, product, out=product)
-    return x, residual
+    if not xi > 0:
+        return x, rhs.copy()
+    np.multiply(s, xi, out=x)
+    product *= xi
+    return x, np.subtract(rhs, product, out=product)
