@@ -84,6 +84,14 @@ plate; shelf layout 1.71 (112.3 s / 65.8 s). Profile of the weak layout at 1000^
 inner finite-difference solves 72.6 s of 171.6 s (75 solves, 122 iterations; SuperLU
 band solves of 126-134 k nodes, 90 ms each, 24.4 s of it), two set-ups 11 s, the rest
 (compaction, the infill's columns) as with constant te. Not met for this map by ~12 %.
+
+Re-measured on a faster machine (the constant-te run 39-45 s instead of 66-85 s), same
+map, one pair per run: the code of that fix 1.70 (76.2 s / 44.8 s); with the multigrid
+fallback of gridflex.solvers.multigrid (not used here: the band fits) 1.87 (73.9 s /
+39.5 s) and 1.49 (66.7 s / 44.9 s); shelf layout 1.29 (49.9 s / 38.7 s). Band solves are
+a larger share of the te grid's run on the slower machine (SuperLU's triangular solves are
+latency-bound and single-threaded), so the ratio depends on the machine: within the
+target here, 2.24 there.
 """
 
 from __future__ import annotations
