@@ -159,7 +159,11 @@ the ``preconditioner`` column): te_map at 2048² of 1 km (``--refine``) 40 itera
 set-up 91 s, solve 65 s, peak 7.0 GB; at 2048² of 500 m (``--dx 0.5``) 38 iterations,
 set-up 88 s, solve 55 s, peak 7.4 GB (ConvergenceError before in both; 87 and 91
 iterations with a fourth multigrid level, see gridflex.solvers.multigrid.MAX_LEVELS). The
-other cases keep their bands (at their full or least widths) and are unchanged.
+other cases keep their bands (at their full or least widths) and are unchanged (re-run:
+1024² te_map 6, margin_hinges 16, hinge_network 7; 2048² step_sharp 11, hinge_network 7).
+At 4096² of 250 m (``--sizes 4096 --dx 0.25``) the multigrid's set-up does not fit in
+24 GiB (estimated 37 GB) and te_map still raises ConvergenceError (300 iterations, 12.3
+min, peak 7.6 GB, with the partial band).
 
 Usage::
 
