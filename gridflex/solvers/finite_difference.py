@@ -313,7 +313,6 @@ def _preconditioner(
     to shrink, or only part of it fits), the blend with that band need not converge (rough
     te maps on fine large grids): the aggregation multigrid of
     :mod:`gridflex.solvers.multigrid` is taken instead where its memory fits (width 0)."""
-    complete = True
     if spectral_term is None:
         features = find_sharp_features(operator)
         widths = None

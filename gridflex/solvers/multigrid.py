@@ -92,13 +92,10 @@ class AggregationPreconditioner:
         K on the solve grid.
     hierarchy : pyamg.multilevel.MultilevelSolver
         The levels.
-    setup_seconds : float
-        Time spent building (s).
     """
 
     operator: PlateOperator
     hierarchy: Any
-    setup_seconds: float
 
     @classmethod
     def build(cls, operator: PlateOperator) -> AggregationPreconditioner:
@@ -159,7 +156,7 @@ class AggregationPreconditioner:
             hierarchy.operator_complexity(),
             seconds,
         )
-        return cls(operator, hierarchy, seconds)
+        return cls(operator, hierarchy)
 
     @property
     def band_size(self) -> int:
