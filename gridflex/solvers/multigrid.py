@@ -9,8 +9,12 @@ smoothed-aggregation algebraic multigrid (Vaněk, Mandel & Brezina 1996, Computi
 problems"), with the plate's rigid-body modes 1, x, y as the near null space and the
 prolongation smoothed by energy minimisation (Olson, Schroder & Tuminaro 2011, SIAM J. Sci.
 Comput. 33, "A general interpolation strategy for algebraic multigrid using energy
-minimization"; both recalled from memory), built by the general-purpose library pyamg.
-Its memory grows like the grid's, not like a direct factor of most of it.
+minimization"; both recalled from memory). The levels are built here from the kernels of
+the general-purpose library pyamg (strength, aggregation, fitting of the modes, products on
+a pattern), with the energy minimisation and the Galerkin products arranged to hold little
+at a time: the set-up peaks at about 0.6 kB per node of the solve grid, where pyamg's own
+driver took 1.8 kB. Its memory grows like the grid's, not like a direct factor of most of
+it.
 
 Measured (tests/benchmarks/te_map_robustness.py, band capped at a quarter of what it asks
 for, 256²; iterations of the solve at its default tolerance): te_map at 250 m / 1 / 4 /
@@ -34,6 +38,9 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+import scipy.linalg.blas
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
 
 from gridflex.memory import check_memory
 from gridflex.solvers.plate_operator import PlateOperator
@@ -44,6 +51,7 @@ __all__ = [
     "AggregationPreconditioner",
     "MULTIGRID_TOLERANCE_FACTOR",
     "aggregation_bytes",
+    "smoothed_prolongation",
 ]
 
 log = logging.getLogger(__name__)
@@ -57,13 +65,35 @@ V-cycle much weaker: te_map of tests/benchmarks/variable.py on a 2048 km domain 
 2 km (levels of 1.17 M, 219 k, 10.5 k and 486 unknowns) took 93 iterations, and 34 with the
 10.5 k level solved exactly; at 256² and 512² (three levels either way) 42 and 40."""
 
-AGGREGATION_BYTES_PER_NODE = 2000.0
-"""Estimated peak memory of the set-up (bytes per node of the solve grid), the operator's
-sparse matrix included, with some room: measured with tracemalloc at 576² (te_map) 1.59 kB
-per node (the energy-minimising smoothing most of it, the matrix 148 bytes, 0.55 kB kept
-after the set-up); the whole process peaked at 1.5-1.6 kB per node on the 2160² solve
-grid of 2048² (te_map, 1 km and 500 m cells), every other array included."""
+MODE_SWEEPS = 4
+"""Symmetric Gauss-Seidel sweeps of K x = 0 applied to the rigid-body modes on the finest
+level before they are fitted to the aggregates (so that they meet the plate's edges and
+te = 0 zones as K's near null space does; pyamg's default, kept)."""
 
+ENERGY_STEPS = 4
+"""Conjugate-gradient steps minimising the energy of the prolongation's columns."""
+
+PSEUDO_INVERSE_RCOND = 1e6 * float(np.finfo(np.float64).eps)
+"""Relative cut-off of the singular values in the local constraint matrices' pseudo-inverses
+(pyamg's choice for double precision, kept)."""
+
+INVERSE_BLOCK = 1 << 18
+"""Constraint matrices inverted at a time (bounds the SVD's temporaries)."""
+
+GALERKIN_BLOCKS = 8
+"""Blocks of rows the Galerkin product is summed over (at most, unless they would be smaller
+than :data:`GALERKIN_BLOCK_ROWS`)."""
+
+GALERKIN_BLOCK_ROWS = 1 << 18
+"""Least rows of a block of the Galerkin product."""
+
+AGGREGATION_BYTES_PER_NODE = 800.0
+"""Estimated peak memory of the set-up (bytes per node of the solve grid), the operator's
+sparse matrix included, with some room: measured with tracemalloc on te_map of
+tests/benchmarks/variable.py at 1024² of 2 km (solve grid 1080², 1.17 M nodes), 624 bytes
+per node (the strength of connection, the energy minimisation and the Galerkin product each
+about 0.6 kB, the matrix 146 bytes, 0.37 kB kept after the set-up), against 1.78 kB with
+pyamg's own driver."""
 
 MULTIGRID_TOLERANCE_FACTOR = 0.1
 """The conjugate gradients preconditioned by multigrid stop at this fraction of the
@@ -80,6 +110,252 @@ def aggregation_bytes(operator: PlateOperator) -> float:
     return AGGREGATION_BYTES_PER_NODE * float(operator.rigidity.size)
 
 
+def _block_rows(matrix: Any) -> int:
+    """Rows per block of a CSR (1) or BSR matrix."""
+    return int(matrix.blocksize[0]) if matrix.format == "bsr" else 1
+
+
+def _constraint_inverses(
+    coarse_modes: np.ndarray, indptr: np.ndarray, indices: np.ndarray, block_columns: int
+) -> np.ndarray:
+    """Pseudo-inverses of Bᵢᵀ Bᵢ, Bᵢ the coarse modes on the columns of block row i of the
+    prolongation's pattern; shape (block rows, k, k)."""
+    from pyamg import amg_core
+
+    count, k = indptr.size - 1, coarse_modes.shape[1]
+    upper = [(i, j) for i in range(k) for j in range(i, k)]
+    products = np.column_stack([coarse_modes[:, i] * coarse_modes[:, j] for i, j in upper])
+    gram = np.zeros((count, k, k))
+    amg_core.calc_BtB(
+        k, count, block_columns, np.ravel(products), len(upper), np.ravel(gram), indptr, indices
+    )
+    del products
+    for start in range(0, count, INVERSE_BLOCK):
+        chunk = gram[start : start + INVERSE_BLOCK]
+        # calc_BtB writes column-major blocks: their transposes (and symmetric anyway)
+        chunk[...] = np.linalg.pinv(chunk.transpose(0, 2, 1), rcond=PSEUDO_INVERSE_RCOND)
+    return gram
+
+
+def _pattern(strength: Any, tentative: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The prolongation's sparsity: the aggregates of each node's strong neighbours (the
+    pattern of T widened by one strong connection), as BSR row pointers and block column
+    indices, with T's values placed on it (blocks of T's shape)."""
+    block_rows = strength.shape[0]
+    rows_per_block, k = (int(size) for size in tentative.blocksize)
+    coarse_blocks = tentative.shape[1] // k
+    tentative.sort_indices()
+    aggregates = sp.csr_array(
+        (np.ones(tentative.indices.size), tentative.indices, tentative.indptr),
+        shape=(block_rows, coarse_blocks),
+    )
+    pattern = strength @ aggregates
+    del aggregates
+    pattern.sort_indices()
+    indptr, indices = pattern.indptr, pattern.indices
+    del pattern
+    # T's blocks into the pattern (which holds them): keys sorted row by row
+    rows = np.arange(block_rows, dtype=np.int64)
+    keys = np.repeat(rows, np.diff(indptr)) * coarse_blocks + indices
+    tentative_keys = np.repeat(rows, np.diff(tentative.indptr)) * coarse_blocks
+    tentative_keys += tentative.indices
+    values = np.zeros((indices.size, rows_per_block, k))
+    values[np.searchsorted(keys, tentative_keys)] = tentative.data
+    return indptr, indices, values
+
+
+def smoothed_prolongation(
+    matrix: Any,
+    indptr: np.ndarray,
+    indices: np.ndarray,
+    values: np.ndarray,
+    coarse_modes: np.ndarray,
+) -> sp.csr_array:
+    """The prolongation of smoothed aggregation by energy minimisation.
+
+    The columns of the tentative prolongation T (one aggregate's fitted modes each) are
+    relaxed by :data:`ENERGY_STEPS` steps of conjugate gradients on K P = 0 (Gershgorin
+    weights), each step kept inside the pattern of T widened by one strong connection and
+    projected so that P B_c = T B_c (the rigid-body modes stay exactly represented): Olson,
+    Schroder & Tuminaro (2011, SIAM J. Sci. Comput. 33, "A general interpolation strategy
+    for algebraic multigrid using energy minimization"; recalled from memory). The method
+    and its kernels are pyamg's; here the iteration's matrices share one pattern and are
+    value arrays, four of P's size, where pyamg's own smoothing peaked at 1.7 kB per node of
+    the plate.
+
+    Parameters
+    ----------
+    matrix : scipy.sparse.csr_array or bsr_array
+        K on this level, symmetric positive definite.
+    indptr, indices : numpy.ndarray
+        The pattern (:func:`_pattern`): BSR row pointers and block column indices.
+    values : numpy.ndarray, shape (blocks, rows per block of K, k)
+        T on the pattern; overwritten by P.
+    coarse_modes : numpy.ndarray, shape (T's columns, k)
+        The modes on the coarse level (B_c; T B_c are the fine modes).
+
+    Returns
+    -------
+    scipy.sparse.csr_array
+        P, shape (K's rows, T's columns).
+    """
+    from pyamg import amg_core
+
+    rows_per_block, k = values.shape[1], values.shape[2]
+    block_rows = indptr.size - 1
+    coarse_blocks = coarse_modes.shape[0] // k
+    shape = (matrix.shape[0], coarse_modes.shape[0])
+
+    def view(data: np.ndarray) -> sp.bsr_array:
+        return sp.bsr_array((data, indices, indptr), shape=shape, copy=False)
+
+    # Gershgorin weights: inverse absolute row sums of K, on each block's rows
+    row_sums = abs(matrix) @ np.ones(matrix.shape[0])
+    weights = np.divide(1.0, row_sums, out=np.zeros_like(row_sums), where=row_sums != 0)
+    del row_sums
+    weights = np.repeat(weights.reshape(block_rows, rows_per_block), np.diff(indptr), axis=0)
+    weights = weights[:, :, None]
+    inverses = np.ravel(_constraint_inverses(coarse_modes, indptr, indices, k))
+    modes = np.ravel(coarse_modes)  # (real: the conjugate the kernel asks for)
+    if matrix.format == "bsr":
+        k_indptr, k_indices, k_values = matrix.indptr, matrix.indices, np.ravel(matrix.data)
+    else:
+        k_indptr, k_indices, k_values = matrix.indptr, matrix.indices, matrix.data
+
+    def project(target: np.ndarray) -> None:
+        """target -= its part that changes P B_c (in place)."""
+        surplus = np.ravel(view(target) @ coarse_modes)
+        amg_core.satisfy_constraints_helper(
+            rows_per_block, k, block_rows, k, modes, surplus, inverses, indptr, indices,
+            np.ravel(target),
+        )  # fmt: skip
+
+    def product(source: np.ndarray, out: np.ndarray) -> None:
+        """out = K source on the pattern, projected."""
+        out[...] = 0.0
+        amg_core.incomplete_mat_mult_bsr(
+            k_indptr, k_indices, k_values, indptr, indices, np.ravel(source), indptr,
+            indices, np.ravel(out), block_rows, coarse_blocks, rows_per_block,
+            rows_per_block, k,
+        )  # fmt: skip
+        project(out)
+
+    residual = np.empty_like(values)
+    product(values, residual)
+    residual *= -1.0
+    direction = np.zeros_like(values)
+    scratch = np.empty_like(values)  # the weighted residual, then K times the direction
+    flat = [np.ravel(array) for array in (values, residual, direction, scratch)]
+    previous = 0.0
+    for step in range(ENERGY_STEPS):
+        np.multiply(residual, weights, out=scratch)
+        current = float(np.vdot(residual, scratch))
+        if current < 1e-8:  # (pyamg's absolute tolerance, kept)
+            break
+        if step:
+            direction *= current / previous
+        direction += scratch
+        previous = current
+        product(direction, scratch)
+        alpha = current / float(np.vdot(direction, scratch))
+        scipy.linalg.blas.daxpy(flat[2], flat[0], a=alpha)  # P += alpha d, in place
+        scipy.linalg.blas.daxpy(flat[3], flat[1], a=-alpha)  # R -= alpha K d
+    del residual, direction, scratch, flat
+    smoothed = view(values)
+    smoothed.eliminate_zeros()
+    return smoothed.tocsr()
+
+
+def _improved_modes(matrix: Any, modes: np.ndarray) -> np.ndarray:
+    """The rigid-body modes after :data:`MODE_SWEEPS` symmetric Gauss-Seidel sweeps of
+    K x = 0 (in place; returned)."""
+    from pyamg.relaxation.relaxation import gauss_seidel
+
+    zero = np.zeros(matrix.shape[0])
+    for column in range(modes.shape[1]):
+        mode = np.ascontiguousarray(modes[:, column])
+        gauss_seidel(matrix, mode, zero, iterations=MODE_SWEEPS, sweep="symmetric")
+        modes[:, column] = mode
+    return modes
+
+
+def _coarsen(matrix: Any, modes: np.ndarray) -> tuple[sp.csr_array, Any, np.ndarray]:
+    """One level of smoothed aggregation: the prolongation P, the Galerkin operator Pᵀ K P
+    (BSR, blocks of the modes' count) and the coarse modes."""
+    from pyamg.aggregation.aggregate import standard_aggregation
+    from pyamg.aggregation.tentative import fit_candidates
+    from pyamg.strength import symmetric_strength_of_connection
+
+    strength = symmetric_strength_of_connection(matrix)
+    aggregates, _ = standard_aggregation(strength)
+    tentative, coarse_modes = fit_candidates(aggregates, modes)
+    del aggregates
+    indptr, indices, values = _pattern(strength, tentative)
+    del strength, tentative
+    prolongation = smoothed_prolongation(matrix, indptr, indices, values, coarse_modes)
+    del indptr, indices, values
+    return prolongation, _galerkin(matrix, prolongation, coarse_modes.shape[1]), coarse_modes
+
+
+def _rows(matrix: Any, start: int, stop: int) -> Any:
+    """Block rows start:stop of a CSR or BSR matrix, sharing its arrays."""
+    first, last = int(matrix.indptr[start]), int(matrix.indptr[stop])
+    arrays = (
+        matrix.data[first:last],
+        matrix.indices[first:last],
+        matrix.indptr[start : stop + 1] - first,
+    )
+    per_block = _block_rows(matrix)
+    shape = ((stop - start) * per_block, matrix.shape[1])
+    if matrix.format == "bsr":
+        return sp.bsr_array(arrays, shape=shape, copy=False)
+    return sp.csr_array(arrays, shape=shape, copy=False)
+
+
+def _galerkin(matrix: Any, prolongation: sp.csr_array, k: int) -> sp.bsr_array:
+    """Pᵀ K P as BSR with k x k blocks, summed over blocks of K's rows (K P whole would
+    hold some 40 values per node)."""
+    per_block = _block_rows(matrix)
+    rows = matrix.shape[0] // per_block
+    step = max(GALERKIN_BLOCK_ROWS // per_block, -(-rows // GALERKIN_BLOCKS))
+    coarse: Any = None
+    for start in range(0, rows, step):
+        stop = min(start + step, rows)
+        fine = _rows(prolongation, start * per_block, stop * per_block)
+        part = fine.T @ (_rows(matrix, start, stop) @ prolongation)
+        coarse = part if coarse is None else coarse + part
+        del part, fine
+    return sp.bsr_array(coarse).tobsr(blocksize=(k, k))
+
+
+@dataclass(eq=False)
+class MultigridLevel:
+    """One level above the coarsest: its operator and the prolongation from the next.
+
+    Attributes
+    ----------
+    matrix : scipy.sparse.csr_array or bsr_array
+        K on this level (the plate's on the finest, Galerkin products below).
+    prolongation : scipy.sparse.csr_array
+        P, from the next level's unknowns to this level's.
+    """
+
+    matrix: Any
+    prolongation: sp.csr_array
+
+    @property
+    def restriction(self) -> sp.csc_array:
+        """Pᵀ, sharing P's arrays (CSR read as CSC: no copy)."""
+        p = self.prolongation
+        return sp.csc_array((p.data, p.indices, p.indptr), shape=(p.shape[1], p.shape[0]))
+
+    def smooth(self, x: np.ndarray, rhs: np.ndarray) -> None:
+        """One symmetric Gauss-Seidel sweep on K x = rhs, in place."""
+        from pyamg.relaxation.relaxation import gauss_seidel
+
+        gauss_seidel(self.matrix, x, rhs, iterations=1, sweep="symmetric")
+
+
 @dataclass(eq=False)
 class AggregationPreconditioner:
     """One symmetric V-cycle of smoothed-aggregation multigrid on K (symmetric
@@ -90,12 +366,15 @@ class AggregationPreconditioner:
     ----------
     operator : PlateOperator
         K on the solve grid.
-    hierarchy : pyamg.multilevel.MultilevelSolver
-        The levels.
+    levels : list of MultigridLevel
+        The levels above the coarsest, finest first.
+    coarsest : scipy.sparse.linalg.SuperLU
+        Sparse LU factor of the coarsest level's operator.
     """
 
     operator: PlateOperator
-    hierarchy: Any
+    levels: list[MultigridLevel]
+    coarsest: Any
 
     @classmethod
     def build(cls, operator: PlateOperator) -> AggregationPreconditioner:
@@ -106,57 +385,48 @@ class AggregationPreconditioner:
         InputError
             Not enough memory (estimated first, :func:`aggregation_bytes`).
         """
-        import pyamg  # (imported here: only plates over the band's caps need it)
-
         check_memory(
             aggregation_bytes(operator),
             f"multigrid set-up of the finite-difference solve on {operator.shape[0]} x "
             f"{operator.shape[1]} nodes",
         )
         began = time.perf_counter()
-        matrix = operator.matrix()
+        matrix: Any = operator.matrix()
         ny, nx = operator.shape
         # rigid-body modes of a plate: translation and the two tilts (scaled to O(1))
-        tilt_y, tilt_x = np.meshgrid(
-            np.linspace(-0.5, 0.5, ny), np.linspace(-0.5, 0.5, nx), indexing="ij"
+        modes = np.empty((ny * nx, 3))
+        modes[:, 0] = 1.0
+        modes[:, 1].reshape(ny, nx)[...] = np.linspace(-0.5, 0.5, nx)[None, :]
+        modes[:, 2].reshape(ny, nx)[...] = np.linspace(-0.5, 0.5, ny)[:, None]
+        modes = _improved_modes(matrix, modes)
+        levels: list[MultigridLevel] = []
+        sizes = [matrix.shape[0]]
+        while (
+            len(levels) + 1 < MAX_LEVELS
+            and matrix.shape[0] // _block_rows(matrix) > MAX_COARSE_NODES
+        ):
+            prolongation, coarse, modes = _coarsen(matrix, modes)
+            levels.append(MultigridLevel(matrix, prolongation))
+            matrix = coarse
+            sizes.append(matrix.shape[0])
+        del modes
+        complexity = sum(level.matrix.nnz for level in levels) + matrix.nnz
+        complexity /= levels[0].matrix.nnz if levels else matrix.nnz
+        coarsest = spla.splu(
+            sp.csc_matrix(matrix),
+            permc_spec="MMD_AT_PLUS_A",
+            diag_pivot_thresh=0.0,
+            options={"SymmetricMode": True},
         )
-        modes = np.column_stack([np.ones(ny * nx), tilt_x.ravel(), tilt_y.ravel()])
-        smoother = ("gauss_seidel", {"sweep": "symmetric"})
-        hierarchy = pyamg.smoothed_aggregation_solver(
-            matrix,
-            B=modes,
-            smooth=("energy", {}),
-            presmoother=smoother,
-            postsmoother=smoother,
-            max_coarse=MAX_COARSE_NODES,
-            max_levels=MAX_LEVELS,
-            coarse_solver=(
-                "splu",
-                {
-                    "permc_spec": "MMD_AT_PLUS_A",
-                    "diag_pivot_thresh": 0.0,
-                    "options": {"SymmetricMode": True},
-                },
-            ),
-        )
-        del matrix, modes, tilt_x, tilt_y
-        for level in hierarchy.levels:  # set-up data the cycle does not use
-            for name in ("C", "AggOp", "T", "B", "BH"):
-                if hasattr(level, name):
-                    delattr(level, name)
-            if hasattr(level, "P"):  # restriction = Pᵀ: a view instead of a copy
-                level.R = level.P.T
-        coarsest = hierarchy.levels[-1].A  # factorised now (the library waits for a solve)
-        hierarchy.coarse_solver(coarsest, np.zeros(coarsest.shape[0]))
-        seconds = time.perf_counter() - began
+        del matrix
         log.info(
             "multigrid set-up: %d levels (%s nodes), operator complexity %.2f, %.1f s",
-            len(hierarchy.levels),
-            " / ".join(str(level.A.shape[0]) for level in hierarchy.levels),
-            hierarchy.operator_complexity(),
-            seconds,
+            len(sizes),
+            " / ".join(str(size) for size in sizes),
+            complexity,
+            time.perf_counter() - began,
         )
-        return cls(operator, hierarchy)
+        return cls(operator, levels, coarsest)
 
     @property
     def band_size(self) -> int:
@@ -203,16 +473,16 @@ class AggregationPreconditioner:
         return out
 
     def _cycle(self, index: int, rhs: np.ndarray) -> np.ndarray:
-        """The V-cycle on level *index* from a zero start (the library's own solve loop
-        would take two residual norms more per cycle on the finest level)."""
-        levels = self.hierarchy.levels
-        if index == len(levels) - 1:
-            return np.asarray(self.hierarchy.coarse_solver(levels[index].A, rhs))
-        level = levels[index]
+        """The V-cycle on level *index* from a zero start."""
+        if index == len(self.levels):
+            return np.asarray(self.coarsest.solve(rhs))
+        level = self.levels[index]
         x = np.zeros_like(rhs)
-        level.presmoother(level.A, x, rhs)
-        x += level.P @ self._cycle(index + 1, level.R @ (rhs - level.A @ x))
-        level.postsmoother(level.A, x, rhs)
+        level.smooth(x, rhs)
+        x += level.prolongation @ self._cycle(
+            index + 1, level.restriction @ (rhs - level.matrix @ x)
+        )
+        level.smooth(x, rhs)
         return x
 
     def initial_guess(

@@ -166,3 +166,62 @@ def test_multigrid_that_does_not_fit_falls_back_to_the_partial_band(monkeypatch,
     assert solver.preconditioner.description == "band and blend"
     assert 0 < solver.preconditioner.band_size <= cap
     assert "multigrid set-up" in caplog.text and "partial band" in caplog.text
+
+
+def _first_level(capped_solver: FiniteDifferenceSolver):
+    """K, its strength of connection, T and the coarse modes of the finest level, built
+    as the set-up builds them."""
+    from pyamg.aggregation.aggregate import standard_aggregation
+    from pyamg.aggregation.tentative import fit_candidates
+    from pyamg.strength import symmetric_strength_of_connection
+
+    matrix = capped_solver.operator.matrix()
+    ny, nx = capped_solver.shape
+    tilt_y, tilt_x = np.meshgrid(
+        np.linspace(-0.5, 0.5, ny), np.linspace(-0.5, 0.5, nx), indexing="ij"
+    )
+    modes = np.column_stack([np.ones(ny * nx), tilt_x.ravel(), tilt_y.ravel()])
+    strength = symmetric_strength_of_connection(matrix)
+    aggregates, _ = standard_aggregation(strength)
+    tentative, coarse_modes = fit_candidates(aggregates, modes)
+    return matrix, strength, tentative, coarse_modes, modes
+
+
+def test_energy_minimised_prolongation_matches_the_library_and_keeps_the_modes(capped):
+    """The set-up's own energy minimisation (one pattern, value arrays) gives pyamg's
+    prolongation to round-off, and P B_c = B_f: the rigid-body modes stay exactly in the
+    coarse space (Olson, Schroder & Tuminaro 2011, SIAM J. Sci. Comput. 33, the
+    constraint of the method; recalled from memory)."""
+    from pyamg.aggregation.smooth import energy_prolongation_smoother
+
+    solver, _, _ = capped
+    matrix, strength, tentative, coarse_modes, modes = _first_level(solver)
+    reference = energy_prolongation_smoother(
+        matrix, tentative.copy(), strength, coarse_modes, None, (False, {})
+    )
+    indptr, indices, values = multigrid._pattern(strength, tentative)
+    ours = multigrid.smoothed_prolongation(matrix, indptr, indices, values, coarse_modes)
+    assert ours.shape == reference.shape
+    scale = np.abs(reference.toarray()).max()
+    assert np.abs(ours.toarray() - reference.toarray()).max() <= 1e-10 * scale
+    # the modes: T B_c = B_f exactly where aggregated (fit_candidates), and P keeps it
+    aggregated = np.diff(tentative.indptr) > 0
+    assert_allclose((ours @ coarse_modes)[aggregated], modes[aggregated], rtol=0, atol=1e-10)
+
+
+def test_galerkin_product_in_blocks_equals_the_whole_product(capped, monkeypatch):
+    """Pᵀ K P summed over blocks of K's rows equals the product taken whole (common
+    practice: the sum over rows of a matrix product)."""
+    solver, _, _ = capped
+    matrix, strength, tentative, coarse_modes, _ = _first_level(solver)
+    indptr, indices, values = multigrid._pattern(strength, tentative)
+    prolongation = multigrid.smoothed_prolongation(matrix, indptr, indices, values, coarse_modes)
+    monkeypatch.setattr(multigrid, "GALERKIN_BLOCK_ROWS", 500)
+    monkeypatch.setattr(multigrid, "GALERKIN_BLOCKS", 7)
+    blocked = multigrid._galerkin(matrix, prolongation, 3)
+    whole = (prolongation.T @ matrix @ prolongation).toarray()
+    assert blocked.blocksize == (3, 3)
+    assert np.abs(blocked.toarray() - whole).max() <= 1e-12 * np.abs(whole).max()
+    assert_allclose(
+        blocked.toarray(), blocked.toarray().T, rtol=0, atol=1e-12 * np.abs(whole).max()
+    )
