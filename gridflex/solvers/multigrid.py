@@ -18,15 +18,21 @@ it.
 
 Measured (tests/benchmarks/te_map_robustness.py, band capped at a quarter of what it asks
 for, 256²; iterations of the solve at its default tolerance): te_map at 250 m / 1 / 4 /
-10 km 33 / 34 / 50 / 40; clipped, jumps and holes 24-32; rough (te changing every 1.5
-cells) 251 / 98 / 47 at 1 / 4 / 10 km and no convergence at 250 m. The partial band and
-blend raised ConvergenceError on all of them but clipped and holes at 4 and 10 km and
-jumps at 10 km (24-158 iterations there). Jacobi-smoothed
-prolongation took 3-4 times as many iterations; combined with the partial band and blend
-the multigrid did worse than alone. te_map at 2048² of 1 km (2048 km domain) and of 500 m,
-where the partial band raised ConvergenceError: 40 and 38 iterations (set-up about 90 s,
-solve 55-65 s, peak 7.0-7.4 GB). At 4096² of 250 m (18.7 M nodes) the set-up does not fit
-in 24 GiB.
+10 km 27 / 27 / 31 / 27; clipped, jumps and holes 17-22; rough (te changing every 1.5
+cells) 167 / 69 / 30 at 1 / 4 / 10 km, and at 250 m 356 (more than the default limit of
+300: ConvergenceError at default settings). The partial band and blend raised
+ConvergenceError on all of them but clipped and holes at 4 and 10 km and jumps at 10 km
+(24-158 iterations there). Jacobi-smoothed prolongation took 3-4 times as many
+iterations; combined with the partial band and blend the multigrid did worse than alone;
+two Gauss-Seidel sweeps instead of one: 32 -> 28 iterations on te_map at 512², but a
+slower solve (4.9 s against 2.8 s), and 356 -> 346 on the rough map at 250 m.
+te_map of tests/benchmarks/variable.py at default settings (tests/benchmarks/variable.py
+``--refine``; 2048 km domain): at 2048² of 1 km 23 iterations, set-up 68 s, solve 32 s
+(the partial band raised ConvergenceError there before the multigrid). At 4096² of 250 m
+(solve grid 4320², 18.7 M nodes), with theta = 0 (:data:`STRENGTH_THRESHOLD`): 42
+iterations, set-up 265 s, solve 205 s, peak 14.3 GB for the whole process (pyamg's own
+driver needed about 29 GB there, and the partial band raised ConvergenceError after 300
+iterations and 12 minutes).
 """
 
 from __future__ import annotations
@@ -64,6 +70,18 @@ MAX_LEVELS = 3
 V-cycle much weaker: te_map of tests/benchmarks/variable.py on a 2048 km domain at 1024² of
 2 km (levels of 1.17 M, 219 k, 10.5 k and 486 unknowns) took 93 iterations, and 34 with the
 10.5 k level solved exactly; at 256² and 512² (three levels either way) 42 and 40."""
+
+STRENGTH_THRESHOLD = 0.05
+"""Connections between nodes i, j count as strong when |K_ij| >= theta sqrt(|K_ii K_jj|);
+the aggregates follow strong connections, so they stop at the steep rigidity changes
+instead of spanning stiff and weak plate (common practice for coefficients of high
+contrast). Measured on te_map of tests/benchmarks/variable.py (2048 km domain), iterations
+at 512² / 1024² / 2048² with theta = 0 / 0.05 / 0.08: 40 / 34 / 39, 32 / 28 / 23 and
+- / 23 / 19; peak set-up memory at 1024² 624 / 662 / 806 bytes per node (the second level
+218 k / 261 k / 352 k unknowns), at 2048² 667 (0.05) and 804 (0.08). At 256² with the band
+capped (tests/benchmarks/te_map_robustness.py) theta = 0.05 took 17-31 iterations on te_map,
+clipped, jumps and holes at every cell size (27-50 at theta = 0) and 167 / 69 / 30 on the
+rough map at 1 / 4 / 10 km (285 / 98 / 47)."""
 
 MODE_SWEEPS = 4
 """Symmetric Gauss-Seidel sweeps of K x = 0 applied to the rigid-body modes on the finest
@@ -286,7 +304,7 @@ def _coarsen(matrix: Any, modes: np.ndarray) -> tuple[sp.csr_array, Any, np.ndar
     from pyamg.aggregation.tentative import fit_candidates
     from pyamg.strength import symmetric_strength_of_connection
 
-    strength = symmetric_strength_of_connection(matrix)
+    strength = symmetric_strength_of_connection(matrix, theta=STRENGTH_THRESHOLD)
     aggregates, _ = standard_aggregation(strength)
     tentative, coarse_modes = fit_candidates(aggregates, modes)
     del aggregates
