@@ -29,10 +29,10 @@ slower solve (4.9 s against 2.8 s), and 356 -> 346 on the rough map at 250 m.
 te_map of tests/benchmarks/variable.py at default settings (tests/benchmarks/variable.py
 ``--refine``; 2048 km domain): at 2048² of 1 km 23 iterations, set-up 68 s, solve 32 s
 (the partial band raised ConvergenceError there before the multigrid). At 4096² of 250 m
-(solve grid 4320², 18.7 M nodes), with theta = 0 (:data:`STRENGTH_THRESHOLD`): 42
-iterations, set-up 265 s, solve 205 s, peak 14.3 GB for the whole process (pyamg's own
-driver needed about 29 GB there, and the partial band raised ConvergenceError after 300
-iterations and 12 minutes).
+(solve grid 4320², 18.7 M nodes): 37 iterations, set-up 386 s, solve 208 s, peak 15.4 GB
+for the whole process (42 iterations and 14.3 GB with threshold 0,
+:data:`STRENGTH_THRESHOLD`; pyamg's own driver needed about 29 GB there, and the partial
+band raised ConvergenceError after 300 iterations and 12 minutes).
 """
 
 from __future__ import annotations
@@ -109,9 +109,11 @@ AGGREGATION_BYTES_PER_NODE = 800.0
 """Estimated peak memory of the set-up (bytes per node of the solve grid), the operator's
 sparse matrix included, with some room: measured with tracemalloc on te_map of
 tests/benchmarks/variable.py at 1024² of 2 km (solve grid 1080², 1.17 M nodes), 624 bytes
-per node (the strength of connection, the energy minimisation and the Galerkin product each
-about 0.6 kB, the matrix 146 bytes, 0.37 kB kept after the set-up), against 1.78 kB with
-pyamg's own driver."""
+per node with strength threshold 0 and 662 with 0.05 (the strength of connection, the
+energy minimisation and the Galerkin product each about 0.6 kB, the matrix 146 bytes,
+0.37 kB kept after the set-up), against 1.78 kB with pyamg's own driver; 667 at 2048². The
+whole process peaked at 15.4 GB on the 18.7 M nodes of 4096² of 250 m (824 bytes per
+node, every other array included)."""
 
 MULTIGRID_TOLERANCE_FACTOR = 0.1
 """The conjugate gradients preconditioned by multigrid stop at this fraction of the
@@ -177,8 +179,12 @@ def _pattern(strength: Any, tentative: Any) -> tuple[np.ndarray, np.ndarray, np.
     keys = np.repeat(rows, np.diff(indptr)) * coarse_blocks + indices
     tentative_keys = np.repeat(rows, np.diff(tentative.indptr)) * coarse_blocks
     tentative_keys += tentative.indices
+    where = np.searchsorted(keys, tentative_keys)
+    # (each node is strongly connected within its aggregate, so the pattern holds T)
+    if not np.array_equal(keys[np.minimum(where, keys.size - 1)], tentative_keys):
+        raise RuntimeError("multigrid set-up: the prolongation's pattern misses T's blocks")
     values = np.zeros((indices.size, rows_per_block, k))
-    values[np.searchsorted(keys, tentative_keys)] = tentative.data
+    values[where] = tentative.data
     return indptr, indices, values
 
 
