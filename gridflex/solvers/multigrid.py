@@ -57,6 +57,7 @@ __all__ = [
     "AggregationPreconditioner",
     "MULTIGRID_TOLERANCE_FACTOR",
     "aggregation_bytes",
+    "rigid_body_modes",
     "smoothed_prolongation",
 ]
 
@@ -290,6 +291,18 @@ def smoothed_prolongation(
     return smoothed.tocsr()
 
 
+def rigid_body_modes(shape: tuple[int, int]) -> np.ndarray:
+    """The rigid-body modes of a plate on a grid of *shape* (ny, nx), the near null space
+    of K: translation and the two tilts, scaled to O(1); shape (ny nx, 3), row-major
+    nodes."""
+    ny, nx = shape
+    modes = np.empty((ny * nx, 3))
+    modes[:, 0] = 1.0
+    modes[:, 1].reshape(ny, nx)[...] = np.linspace(-0.5, 0.5, nx)[None, :]
+    modes[:, 2].reshape(ny, nx)[...] = np.linspace(-0.5, 0.5, ny)[:, None]
+    return modes
+
+
 def _improved_modes(matrix: Any, modes: np.ndarray) -> np.ndarray:
     """The rigid-body modes after :data:`MODE_SWEEPS` symmetric Gauss-Seidel sweeps of
     K x = 0 (in place; returned)."""
@@ -416,13 +429,7 @@ class AggregationPreconditioner:
         )
         began = time.perf_counter()
         matrix: Any = operator.matrix()
-        ny, nx = operator.shape
-        # rigid-body modes of a plate: translation and the two tilts (scaled to O(1))
-        modes = np.empty((ny * nx, 3))
-        modes[:, 0] = 1.0
-        modes[:, 1].reshape(ny, nx)[...] = np.linspace(-0.5, 0.5, nx)[None, :]
-        modes[:, 2].reshape(ny, nx)[...] = np.linspace(-0.5, 0.5, ny)[:, None]
-        modes = _improved_modes(matrix, modes)
+        modes = _improved_modes(matrix, rigid_body_modes(operator.shape))
         levels: list[MultigridLevel] = []
         sizes = [matrix.shape[0]]
         while (

@@ -176,12 +176,8 @@ def _first_level(capped_solver: FiniteDifferenceSolver):
     from pyamg.strength import symmetric_strength_of_connection
 
     matrix = capped_solver.operator.matrix()
-    ny, nx = capped_solver.shape
-    tilt_y, tilt_x = np.meshgrid(
-        np.linspace(-0.5, 0.5, ny), np.linspace(-0.5, 0.5, nx), indexing="ij"
-    )
-    modes = np.column_stack([np.ones(ny * nx), tilt_x.ravel(), tilt_y.ravel()])
-    strength = symmetric_strength_of_connection(matrix)
+    modes = multigrid.rigid_body_modes(capped_solver.shape)
+    strength = symmetric_strength_of_connection(matrix, theta=multigrid.STRENGTH_THRESHOLD)
     aggregates, _ = standard_aggregation(strength)
     tentative, coarse_modes = fit_candidates(aggregates, modes)
     return matrix, strength, tentative, coarse_modes, modes
