@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import logging
 import math
+from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -27,6 +28,16 @@ STALL_FACTOR = 0.5
 """A restart must bring the error estimate below this fraction of the previous restart's,
 or the iteration is declared stalled (:class:`~gridflex.errors.ConvergenceError`) instead of
 running on to the iteration limit."""
+
+SLOW_EVERY = 50
+"""Iterations after which, and after every as many more, the iteration asks the
+preconditioner to strengthen itself (``on_slow`` of :func:`conjugate_gradient`) when the
+error estimate's decline over the last :data:`SLOW_SPAN` iterations, kept up, would not
+reach the tolerance within the iterations left (a rescue: strengthening the multigrid
+costs one to two set-ups per vector, more than it saves on solves that converge anyway)."""
+
+SLOW_SPAN = 10
+"""Iterations over which :data:`SLOW_EVERY`'s rate of decline is taken."""
 
 ERROR_DELAY = 4
 """Steps d summed in the error estimate of :func:`conjugate_gradient` (the iteration stops
@@ -158,6 +169,19 @@ class _Vectors:
         for_row_blocks(self.shape2[0], self.rows, work)
 
 
+def _slow(recent: deque[float], tolerance: float, left: int) -> bool:
+    """Whether the error estimates *recent* (one per iteration, the last
+    :data:`SLOW_SPAN` + 1), declining at their present rate, would need more than the
+    *left* iterations to reach *tolerance*."""
+    if len(recent) < 2:
+        return True
+    first, last = recent[0], recent[-1]
+    if not (math.isfinite(first) and 0.0 < last < first):
+        return True
+    rate = math.log(last / first) / (len(recent) - 1)  # < 0
+    return math.log(tolerance / last) / rate > left
+
+
 def conjugate_gradient(
     apply: Operator,
     rhs: np.ndarray,
@@ -170,6 +194,7 @@ def conjugate_gradient(
     *,
     operator_norm: float | None = None,
     delay: int = ERROR_DELAY,
+    on_slow: Callable[[], bool] | None = None,
 ) -> Outcome:
     """Solve K x = b for a symmetric positive-definite K by preconditioned CG, to a stated
     relative error of x in the energy norm.
@@ -201,6 +226,11 @@ def conjugate_gradient(
         error is not used to stop.
     delay : int, default :data:`ERROR_DELAY`
         Iterations d over which the error estimate of the notes is summed.
+    on_slow : callable, optional
+        Called after every :data:`SLOW_EVERY` iterations while the error estimate's recent
+        decline would not reach *tolerance* within the iterations left; when it returns
+        True (the preconditioner changed), the iteration restarts from the true residual
+        with the new preconditioner.
 
     Returns
     -------
@@ -351,6 +381,7 @@ def conjugate_gradient(
         steps.clear()
 
     steps: list[float] = []  # α_j r_j·z_j since the last (re)start
+    recent: deque[float] = deque(maxlen=SLOW_SPAN + 1)  # the last error estimates
     if start is not None:
         first = small_residual(0)
         if isinstance(first, Outcome):
@@ -399,6 +430,19 @@ def conjugate_gradient(
             if outcome is not None:
                 return outcome
             restart()
+            continue
+        recent.append(estimate)
+        if (
+            on_slow is not None
+            and iteration % SLOW_EVERY == 0
+            and _slow(recent, tolerance, max_iterations - iteration)
+            and on_slow()
+        ):
+            r_norm = true_residual()
+            precondition(v.r, v.z, r_norm)
+            rz = v.dot(v.r, v.z)
+            v.p[...] = v.z
+            steps.clear()
             continue
         v.z, v.z_old = v.z_old, v.z
         precondition(v.r, v.z, r_norm)

@@ -648,6 +648,7 @@ class FiniteDifferenceSolver:
                     first,
                     preconditioner.use_double_precision,
                     operator_norm=self.operator_norm(),
+                    on_slow=preconditioner.strengthen,
                 )
             except ConvergenceError as exc:
                 alpha = (4.0 * float(operator.rigidity.max()) / operator.stiffness) ** 0.25

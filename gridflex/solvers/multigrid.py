@@ -19,8 +19,12 @@ it.
 Measured (tests/benchmarks/te_map_robustness.py, band capped at a quarter of what it asks
 for, 256²; iterations of the solve at its default tolerance): te_map at 250 m / 1 / 4 /
 10 km 27 / 27 / 31 / 27; clipped, jumps and holes 17-22; rough (te changing every 1.5
-cells) 167 / 69 / 30 at 1 / 4 / 10 km, and at 250 m 356 (more than the default limit of
-300: ConvergenceError at default settings). The partial band and blend raised
+cells) 69 / 30 at 4 / 10 km; at 1 km and 250 m the rigid-body modes alone took 167 and
+356 iterations (the latter over the default limit of 300: ConvergenceError at default
+settings), and with the near null space strengthened once the iteration turns out slow
+(:meth:`AggregationPreconditioner.strengthen`, :data:`CANDIDATE_CYCLES`) 124 and 126
+(11.0 and 9.0 s, against 4.1 s and 8.6 s for the ConvergenceError: the rescue costs time
+where the modes alone would have converged). The partial band and blend raised
 ConvergenceError on all of them but clipped and holes at 4 and 10 km and jumps at 10 km
 (24-158 iterations there). Jacobi-smoothed prolongation took 3-4 times as many
 iterations; combined with the partial band and blend the multigrid did worse than alone;
@@ -48,6 +52,7 @@ import scipy.linalg.blas
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+from gridflex.errors import InputError
 from gridflex.memory import check_memory
 from gridflex.solvers.plate_operator import PlateOperator
 from gridflex.solvers.preconditioners import scaled_start
@@ -55,6 +60,8 @@ from gridflex.solvers.preconditioners import scaled_start
 __all__ = [
     "AGGREGATION_BYTES_PER_NODE",
     "AggregationPreconditioner",
+    "CANDIDATE_CYCLES",
+    "MAX_ADDED_MODES",
     "MULTIGRID_TOLERANCE_FACTOR",
     "aggregation_bytes",
     "rigid_body_modes",
@@ -126,9 +133,29 @@ most 0.6 with the band and blend; at a tenth of the tolerance it was 1.5e-7 (rou
 most 1.4e-7 on the other maps, for 6-15 % more iterations."""
 
 
-def aggregation_bytes(operator: PlateOperator) -> float:
-    """Estimated peak memory (bytes) of :meth:`AggregationPreconditioner.build`."""
-    return AGGREGATION_BYTES_PER_NODE * float(operator.rigidity.size)
+MAX_ADDED_MODES = 3
+"""Near-null-space vectors :meth:`AggregationPreconditioner.strengthen` adds at most to the
+three rigid-body modes."""
+
+CANDIDATE_CYCLES = 8
+"""V-cycles on K x = 0 from a random start that make the vector a slow convergence adds to
+the near null space (adaptive smoothed aggregation, Brezina, Falgout, MacLachlan,
+Manteuffel, McCormick & Ruge 2004, SIAM J. Sci. Comput. 25, "Adaptive smoothed aggregation
+(αSA) multigrid"; recalled from memory): what is left of the random vector is the error
+the levels reduce slowest, which the rigid-body modes do not span. Measured on the rough
+map of tests/benchmarks/te_map_robustness.py at 256² of 250 m (no band; conjugate
+gradients to a preconditioned residual of 1e-9): 551 iterations with the three modes, 287 /
+121 / 75 with one / two / three such vectors added one after another (8 cycles each; 252
+with one vector of 20 cycles); set-up 1.3 -> 3.0 / 6.0 / 7.4 s."""
+
+
+def aggregation_bytes(operator: PlateOperator, modes: int = 3) -> float:
+    """Estimated peak memory (bytes) of :meth:`AggregationPreconditioner.build` with
+    *modes* near-null-space vectors per aggregate: :data:`AGGREGATION_BYTES_PER_NODE`
+    for the three rigid-body modes, times (modes / 3)² (the coarse blocks' values; measured
+    peak at 512² of 250 m on the rough map of tests/benchmarks/te_map_robustness.py with
+    3 / 4 / 5 / 6 modes, 631 / 895 / 1579 / 1638 bytes per node, tracemalloc)."""
+    return AGGREGATION_BYTES_PER_NODE * (modes / 3.0) ** 2 * float(operator.rigidity.size)
 
 
 def _block_rows(matrix: Any) -> int:
@@ -407,29 +434,51 @@ class AggregationPreconditioner:
         The levels above the coarsest, finest first.
     coarsest : scipy.sparse.linalg.SuperLU
         Sparse LU factor of the coarsest level's operator.
+    added_modes : numpy.ndarray or None
+        Vectors added to the rigid-body modes by :meth:`strengthen` (nodes x m), if any.
     """
 
     operator: PlateOperator
     levels: list[MultigridLevel]
     coarsest: Any
+    added_modes: np.ndarray | None = None
 
     @classmethod
-    def build(cls, operator: PlateOperator) -> AggregationPreconditioner:
+    def build(
+        cls,
+        operator: PlateOperator,
+        added_modes: np.ndarray | None = None,
+        matrix: Any = None,
+    ) -> AggregationPreconditioner:
         """Set up the levels for *operator*.
+
+        Parameters
+        ----------
+        operator : PlateOperator
+            K.
+        added_modes : numpy.ndarray, shape (nodes, m), optional
+            Vectors added to the rigid-body modes as near null space
+            (:meth:`strengthen`).
+        matrix : scipy.sparse matrix, optional
+            *operator*'s matrix, when already assembled.
 
         Raises
         ------
         InputError
             Not enough memory (estimated first, :func:`aggregation_bytes`).
         """
+        count = 3 + (0 if added_modes is None else added_modes.shape[1])
         check_memory(
-            aggregation_bytes(operator),
+            aggregation_bytes(operator, count),
             f"multigrid set-up of the finite-difference solve on {operator.shape[0]} x "
-            f"{operator.shape[1]} nodes",
+            f"{operator.shape[1]} nodes with {count} near-null-space vectors",
         )
         began = time.perf_counter()
-        matrix: Any = operator.matrix()
+        if matrix is None:
+            matrix = operator.matrix()
         modes = _improved_modes(matrix, rigid_body_modes(operator.shape))
+        if added_modes is not None:
+            modes = np.column_stack([modes, added_modes])
         levels: list[MultigridLevel] = []
         sizes = [matrix.shape[0]]
         while (
@@ -443,6 +492,11 @@ class AggregationPreconditioner:
         del modes
         complexity = sum(level.matrix.nnz for level in levels) + matrix.nnz
         complexity /= levels[0].matrix.nnz if levels else matrix.nnz
+        # an all-zero row and column (a zero column of P: an aggregate with fewer nodes
+        # than modes) gets a unit diagonal, so the factor exists; it solves to zero there
+        empty = matrix.diagonal() == 0.0
+        if empty.any():
+            matrix = matrix + sp.diags_array(empty.astype(np.float64))
         coarsest = spla.splu(
             sp.csc_matrix(matrix),
             permc_spec="MMD_AT_PLUS_A",
@@ -457,7 +511,59 @@ class AggregationPreconditioner:
             complexity,
             time.perf_counter() - began,
         )
-        return cls(operator, levels, coarsest)
+        return cls(operator, levels, coarsest, added_modes)
+
+    def strengthen(self) -> bool:
+        """Add the errors the levels reduce slowest to their near null space, one after
+        another up to :data:`MAX_ADDED_MODES` (each computed with the levels built with the
+        ones before, :data:`CANDIDATE_CYCLES`), building the levels again each time. True
+        when any was added; False at the cap or when the memory estimate of the next
+        set-up does not fit beside the present one (logged).
+
+        All at once rather than one per slow spell: on the rough map of
+        tests/benchmarks/te_map_robustness.py at 256² of 250 m, 126 iterations in all (10.2 s
+        with the set-ups) against 225 (14.4 s) adding one vector after each 50 slow
+        iterations (356 and 8.6 s without)."""
+        added = False
+        while self._add_mode():
+            added = True
+        return added
+
+    def _add_mode(self) -> bool:
+        """One vector of :meth:`strengthen`; True when added."""
+        count = 0 if self.added_modes is None else self.added_modes.shape[1]
+        if count >= MAX_ADDED_MODES or not self.levels:
+            return False
+        began = time.perf_counter()
+        matrix = self.levels[0].matrix
+        vector = np.random.default_rng(count).standard_normal(matrix.shape[0])
+        for _ in range(CANDIDATE_CYCLES):
+            vector -= self._cycle(0, matrix @ vector)
+            vector /= float(np.abs(vector).max())
+        modes = vector[:, None]
+        if self.added_modes is not None:
+            modes = np.column_stack([self.added_modes, vector])
+        try:
+            check_memory(
+                aggregation_bytes(self.operator, 3 + modes.shape[1]),
+                "a stronger multigrid set-up beside the present one",
+            )
+        except InputError as exc:
+            log.warning("%s; the multigrid stays as it is", exc)
+            return False
+        self.levels, self.coarsest = [], None  # (freed before the new set-up)
+        stronger = AggregationPreconditioner.build(self.operator, modes, matrix)
+        self.levels, self.coarsest, self.added_modes = (
+            stronger.levels,
+            stronger.coarsest,
+            stronger.added_modes,
+        )
+        log.info(
+            "multigrid: slow convergence; %d vector(s) added to the rigid-body modes, %.1f s",
+            modes.shape[1],
+            time.perf_counter() - began,
+        )
+        return True
 
     @property
     def band_size(self) -> int:

@@ -610,6 +610,12 @@ class PlatePreconditioner(Protocol):
         """Run in double precision from now on."""
         ...
 
+    def strengthen(self) -> bool:
+        """Called when the iteration converges slowly: make M⁻¹ a better approximation of
+        K⁻¹ if the preconditioner can (the iteration then restarts with it); True when it
+        changed."""
+        ...
+
     def apply(
         self, residual: np.ndarray, out: np.ndarray | None = None, norm: float | None = None
     ) -> np.ndarray:
@@ -704,6 +710,11 @@ class MultiplicativePreconditioner:
         """1: the energy-norm estimate stands (largest difference from a direct solve at
         most 0.6 of it, tests/benchmarks/te_map_robustness.py)."""
         return 1.0
+
+    def strengthen(self) -> bool:
+        """Nothing to strengthen (the band and the levels are fixed by the rigidity):
+        False."""
+        return False
 
     def initial_guess(
         self,

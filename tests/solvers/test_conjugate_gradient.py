@@ -3,12 +3,20 @@ rule on the estimated error, the round-off limit, restarts, warm starts."""
 
 from __future__ import annotations
 
+from collections import deque
+
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
 from gridflex.errors import ConvergenceError
-from gridflex.solvers.conjugate_gradient import conjugate_gradient
+from gridflex.solvers.conjugate_gradient import (
+    ERROR_DELAY,
+    SLOW_EVERY,
+    SLOW_SPAN,
+    _slow,
+    conjugate_gradient,
+)
 
 N = 64
 _SECOND = np.diag(np.full(N, 2.0)) - np.diag(np.ones(N - 1), 1) - np.diag(np.ones(N - 1), -1)
@@ -110,3 +118,51 @@ def test_a_start_with_a_wrong_residual_is_not_taken_on_its_word():
     assert _energy_error(out.x) <= 2.0 * out.accuracy <= 2e-6
     assert out.product is not None
     assert_allclose(out.product, MATRIX @ out.x, rtol=0, atol=1e-9 * np.abs(RHS).max())
+
+
+def test_a_slow_iteration_asks_to_strengthen_the_preconditioner_and_restarts_with_it():
+    # common practice (a restarted CG is again optimal for its new preconditioner): the
+    # unpreconditioned beam is far from converged after SLOW_EVERY iterations; the hook
+    # swaps in the exact inverse, the iteration restarts from the true residual and stops
+    inverse = np.linalg.inv(MATRIX)
+    exact = []
+
+    def precondition(r, out, norm):
+        out[...] = inverse @ r if exact else r
+        return out
+
+    def strengthen():
+        exact.append(True)
+        return True
+
+    out = conjugate_gradient(
+        _apply, RHS, precondition, 1e-8, 3 * SLOW_EVERY, operator_norm=16e6, on_slow=strengthen
+    )
+    assert exact == [True]  # asked once, at SLOW_EVERY
+    assert SLOW_EVERY < out.iterations <= SLOW_EVERY + ERROR_DELAY + 2
+    assert _energy_error(out.x) <= 1e-8
+
+
+def test_a_hook_that_cannot_strengthen_leaves_the_iteration_alone():
+    calls = []
+
+    def unable():
+        calls.append(True)
+        return False
+
+    plain = conjugate_gradient(_apply, RHS, _identity, 1e-5, 5000, operator_norm=16e6)
+    hooked = conjugate_gradient(
+        _apply, RHS, _identity, 1e-5, 5000, operator_norm=16e6, on_slow=unable
+    )
+    assert hooked.iterations == plain.iterations
+    assert_allclose(hooked.x, plain.x, rtol=0, atol=0)
+    assert len(calls) >= 1
+
+
+def test_slowness_is_judged_on_the_recent_decline_against_the_iterations_left():
+    # a decline by 10x every 10 iterations, now at 1e-3, reaches 1e-8 in 50 more
+    steady = deque(10.0 ** (-np.arange(SLOW_SPAN + 1) / SLOW_SPAN - 2.0), maxlen=SLOW_SPAN + 1)
+    assert not _slow(steady, 1e-8, 60)
+    assert _slow(steady, 1e-8, 40)
+    assert _slow(deque([np.inf] + [1e-3] * SLOW_SPAN), 1e-8, 1000)  # no estimate yet
+    assert _slow(deque([1e-3] * (SLOW_SPAN + 1)), 1e-8, 1000)  # no decline

@@ -221,3 +221,79 @@ def test_galerkin_product_in_blocks_equals_the_whole_product(capped, monkeypatch
     assert_allclose(
         blocked.toarray(), blocked.toarray().T, rtol=0, atol=1e-12 * np.abs(whole).max()
     )
+
+
+def _fine_rough_map(n: int = 160, dx: float = 500.0) -> tuple[GridSpec, np.ndarray, np.ndarray]:
+    """Invented: te 0-100 km changing every 1.5 cells of *dx* (a random field of
+    correlation 1.5 cells, clipped), tapered at the edges; a disc load of 2 km of rock.
+    Its many small stiff patches hinged by te = 0 have near-null modes the rigid-body
+    modes do not span."""
+    noise = np.random.default_rng(17).standard_normal((n, n))
+    field = scipy.ndimage.gaussian_filter(noise, 1.5, mode="wrap")
+    te = 100e3 * np.clip(0.5 + (field - field.mean()) / field.std() / 2.0, 0.0, 1.0)
+    i = np.arange(n)
+    taper = np.clip(np.minimum(i, n - 1 - i) / (0.1 * n), 0.0, 1.0)
+    te *= np.minimum(taper[:, None], taper[None, :])
+    x = (i - n / 2 + 0.5) * dx
+    xx, yy = np.meshgrid(x, x)
+    load = np.where(np.hypot(xx + 0.08 * n * dx, yy) < 0.12 * n * dx, 2800.0 * 9810.0 * 2.0, 0.0)
+    return GridSpec(n, n, dx, dx), rigidity_from_te(te, E, NU), load
+
+
+@pytest.fixture(scope="module")
+def fine_rough() -> tuple[GridSpec, np.ndarray, np.ndarray, int]:
+    spec, rigidity, load = _fine_rough_map()
+    return spec, rigidity, load, _quarter_of_band(spec, rigidity)
+
+
+def test_slow_convergence_strengthens_the_multigrid(fine_rough, monkeypatch):
+    """Adaptive smoothed aggregation (Brezina, Falgout, MacLachlan, Manteuffel, McCormick &
+    Ruge 2004, SIAM J. Sci. Comput. 25, recalled from memory): when the iteration would
+    not converge within its limit, the errors the levels reduce slowest join the rigid-body
+    modes; the solve then converges within the limit, matches a direct solve (common
+    practice) and the next solve takes far fewer iterations than with the modes alone."""
+    spec, rigidity, load, cap = fine_rough
+    with monkeypatch.context() as patch:
+        patch.setattr(multigrid, "MAX_ADDED_MODES", 0)  # the rigid-body modes alone
+        plain = FiniteDifferenceSolver.build(
+            spec, rigidity, RHO_G, NU, max_band_nodes=cap, max_iterations=2000
+        )
+        _, alone = plain.solve(load)
+    assert plain.preconditioner.added_modes is None
+    limit = int(0.8 * alone["iterations"])  # too few for the rigid-body modes alone
+    solver = FiniteDifferenceSolver.build(
+        spec, rigidity, RHO_G, NU, max_band_nodes=cap, max_iterations=limit
+    )
+    assert isinstance(solver.preconditioner, AggregationPreconditioner)
+    w, info = solver.solve(load)
+    added = solver.preconditioner.added_modes
+    assert added is not None and added.shape == (solver.operator.rigidity.size, 3)
+    exact = _direct(solver, load)
+    assert np.abs(w - exact).max() <= 1e-6 * np.abs(exact).max()
+    _, again = solver.solve(load)
+    assert again["iterations"] < 0.5 * alone["iterations"]
+    pre = solver.preconditioner  # still symmetric positive definite (common practice)
+    u, v = np.random.default_rng(5).standard_normal((2, *solver.shape))
+    assert_allclose(np.vdot(pre.apply(u), v), np.vdot(u, pre.apply(v)), rtol=1e-10)
+    assert np.vdot(pre.apply(u), u) > 0
+
+
+def test_a_strengthening_that_does_not_fit_keeps_the_multigrid(fine_rough, monkeypatch, caplog):
+    spec, rigidity, load, cap = fine_rough
+    solver = FiniteDifferenceSolver.build(spec, rigidity, RHO_G, NU, max_band_nodes=cap)
+    pre = solver.preconditioner
+    assert isinstance(pre, AggregationPreconditioner)
+    levels = pre.levels
+    monkeypatch.setattr(multigrid, "AGGREGATION_BYTES_PER_NODE", 1e18)
+    with caplog.at_level(logging.WARNING, logger="gridflex.solvers.multigrid"):
+        assert pre.strengthen() is False
+    assert "stays as it is" in caplog.text
+    assert pre.levels is levels and pre.added_modes is None
+
+
+def test_band_and_blend_have_nothing_to_strengthen():
+    spec = GridSpec(N, N, DX, DX)
+    rigidity, _ = _rough_map()
+    solver = FiniteDifferenceSolver.build(spec, rigidity, RHO_G, NU)
+    assert not isinstance(solver.preconditioner, AggregationPreconditioner)
+    assert solver.preconditioner.strengthen() is False
