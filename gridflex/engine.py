@@ -158,7 +158,7 @@ def solve(
         ||w* − w||_K / ||w*||_K (the default keeps the largest error of w within 1e-6
         of its peak; see
         :func:`~gridflex.solvers.finite_difference.finite_difference_deflection`).
-    max_iterations : int, default 300
+    max_iterations : int, default :data:`~gridflex.solvers.finite_difference.DEFAULT_MAX_ITERATIONS`
         Finite differences: iteration limit.
     progress : callable, optional
         Finite differences: called with (iterations done, iteration limit) after

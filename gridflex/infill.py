@@ -455,7 +455,7 @@ def finite_difference_inner(
         As in :func:`gridflex.solve`.
     pad_factor : float, default 4.5
         Margin of ``"infinite"`` in flexural parameters.
-    max_iterations : int, default 300
+    max_iterations : int, default :data:`~gridflex.solvers.finite_difference.DEFAULT_MAX_ITERATIONS`
         Iteration limit of each inner solve.
     cache : InnerSolverCache, optional
         Takes the set-up from it when it holds one for the same arguments, and keeps

@@ -43,6 +43,7 @@ from gridflex.io.rasters import LAYER_MISSING_POLICIES
 from gridflex.loads import LOAD_KINDS
 from gridflex.scenario.checks import check_scenario
 from gridflex.scenario.schema import REQUIRED, Key, Scenario, ScenarioT, parse_tables, read_scenario
+from gridflex.solvers.finite_difference import DEFAULT_MAX_ITERATIONS
 from gridflex.sweeps.monte_carlo import SAMPLINGS
 from gridflex.sweeps.parameter_sweep import LOCAL_SCHEDULERS
 from gridflex.synthetic import SHAPES
@@ -131,7 +132,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
             minimum=1e-15,
         ),
         "max_iterations": Key(
-            "integer", "iteration limit of the finite-difference solver", 300, minimum=1
+            "integer",
+            "iteration limit of the finite-difference solver",
+            DEFAULT_MAX_ITERATIONS,
+            minimum=1,
         ),
     },
     "margin": {

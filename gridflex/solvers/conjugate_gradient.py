@@ -39,6 +39,15 @@ costs one to two set-ups per vector, more than it saves on solves that converge 
 SLOW_SPAN = 10
 """Iterations over which :data:`SLOW_EVERY`'s rate of decline is taken."""
 
+PROGRESS_WINDOW = 300
+"""The iteration gives up before its limit when the smallest error estimate so far has not
+fallen below :data:`PROGRESS_FACTOR` times what it was this many iterations earlier (then
+:class:`~gridflex.errors.ConvergenceError`, or x at the round-off limit): a slow iteration
+that keeps converging runs on to its limit, one that has stopped converging ends early."""
+
+PROGRESS_FACTOR = 0.5
+"""See :data:`PROGRESS_WINDOW`."""
+
 ERROR_DELAY = 4
 """Steps d summed in the error estimate of :func:`conjugate_gradient` (the iteration stops
 d steps after the iterate whose error it estimates)."""
@@ -241,10 +250,11 @@ def conjugate_gradient(
     Raises
     ------
     ConvergenceError
-        When the error estimate is still above *tolerance* after *max_iterations* (and
-        the backward error is above round-off), when a restart does not at least halve the
-        error estimate of the previous one, or when the operator or preconditioner turns
-        out not to be positive definite.
+        When the error estimate is still above *tolerance* after *max_iterations*, or has
+        stopped falling (:data:`PROGRESS_WINDOW`), and the backward error is above
+        round-off; when a restart does not at least halve the error estimate of the
+        previous one; or when the operator or preconditioner turns out not to be positive
+        definite.
 
     Notes
     -----
@@ -382,6 +392,9 @@ def conjugate_gradient(
 
     steps: list[float] = []  # α_j r_j·z_j since the last (re)start
     recent: deque[float] = deque(maxlen=SLOW_SPAN + 1)  # the last error estimates
+    bests: deque[float] = deque(maxlen=PROGRESS_WINDOW + 1)  # the smallest so far, by step
+    best = math.inf
+    done = max_iterations
     if start is not None:
         first = small_residual(0)
         if isinstance(first, Outcome):
@@ -432,6 +445,11 @@ def conjugate_gradient(
             restart()
             continue
         recent.append(estimate)
+        best = min(best, estimate)
+        bests.append(best)
+        if len(bests) > PROGRESS_WINDOW and best > PROGRESS_FACTOR * bests[0]:
+            done = iteration  # no progress: as at the limit (below)
+            break
         if (
             on_slow is not None
             and iteration % SLOW_EVERY == 0
@@ -460,13 +478,22 @@ def conjugate_gradient(
     eta = backward_error(r_norm)
     if eta <= BACKWARD_ERROR_FLOOR * eps:
         log.warning(
-            "conjugate gradients reached the iteration limit at the round-off limit: "
+            "conjugate gradients stopped (%s) at the round-off limit: "
             "backward error %.1e, estimated relative error %.1e (tolerance %.1e)",
+            "iteration limit" if done == max_iterations else "no progress",
             eta,
             estimate,
             tolerance,
         )
-        return finish(max_iterations, r_norm, estimate, True)
+        return finish(done, r_norm, estimate, True)
+    if done < max_iterations:
+        raise ConvergenceError(
+            f"conjugate gradients did not converge: the estimated relative error "
+            f"{best:.3e} fell less than {1.0 / PROGRESS_FACTOR:g}-fold over the last "
+            f"{PROGRESS_WINDOW} iterations (relative residual {r_norm / b_norm:.3e}, "
+            f"backward error {eta:.1e}, {done} iterations, tolerance {tolerance:.1e}); raise "
+            "the tolerance, or smooth very sharp rigidity changes"
+        )
     raise ConvergenceError(
         f"conjugate gradients did not converge: estimated relative error {estimate:.3e} "
         f"(relative residual {r_norm / b_norm:.3e}, backward error {eta:.1e}) after "

@@ -83,8 +83,13 @@ the estimate was 5e-7 to 9e-7, the true energy-norm error 6e-8 to 7e-8 and the l
 error of w 7e-9 to 4e-8 of its peak (the target is 1e-6 of the peak); at 1e-4 the largest
 error reached 2e-6 of the peak, at 1e-5 6e-8."""
 
-DEFAULT_MAX_ITERATIONS = 300
-"""Iteration limit before :class:`~gridflex.errors.ConvergenceError` is raised."""
+DEFAULT_MAX_ITERATIONS = 3000
+"""Iteration limit before :class:`~gridflex.errors.ConvergenceError` is raised. An iteration
+that stops converging ends long before it
+(:data:`~gridflex.solvers.conjugate_gradient.PROGRESS_WINDOW`); the limit leaves room for
+slow ones that keep converging. It was 300, which stopped rough te maps that were still
+converging: te changing every 1.5 cells over 0-100 km (tests/benchmarks/te_map_robustness.py,
+aggregation multigrid) took 356 iterations at 256² of 250 m and 554 at 512² of 250 m."""
 
 DEFAULT_MAX_BAND_NODES = 1_500_000
 """Cap on the band size (nodes). Beyond it the band falls back to its least widths; when
@@ -804,7 +809,7 @@ def finite_difference_deflection(
         the largest error of w well within 1e-6 of its peak. When double-precision
         round-off stops the iteration above it (normwise backward error within a few
         dozen unit round-offs), the solve returns with ``at_round_off`` set.
-    max_iterations : int, default 300
+    max_iterations : int, default :data:`DEFAULT_MAX_ITERATIONS`
         Iteration limit.
     band_width : float, optional
         Width (m) of the exact-solve band round sharp features, the same everywhere. By

@@ -269,7 +269,7 @@ class VariableRelaxation:
         tolerance : float, optional
             Relative residual of each finite-difference solve; by default
             :data:`TOLERANCE` of the model.
-        max_iterations : int, default 300
+        max_iterations : int, default :data:`DEFAULT_MAX_ITERATIONS`
             Iteration limit of each solve.
 
         Raises

@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
+import gridflex.solvers.conjugate_gradient as cg_module
 from gridflex.errors import ConvergenceError
 from gridflex.solvers.conjugate_gradient import (
     ERROR_DELAY,
@@ -166,3 +167,16 @@ def test_slowness_is_judged_on_the_recent_decline_against_the_iterations_left():
     assert _slow(steady, 1e-8, 40)
     assert _slow(deque([np.inf] + [1e-3] * SLOW_SPAN), 1e-8, 1000)  # no estimate yet
     assert _slow(deque([1e-3] * (SLOW_SPAN + 1)), 1e-8, 1000)  # no decline
+
+
+def test_an_iteration_that_stops_converging_ends_before_its_limit(monkeypatch):
+    # common practice: the unpreconditioned beam's error estimate stays near 0.3-0.8 for
+    # dozens of iterations before it falls; with a short window that counts as no progress
+    # and ends with a message naming it, long before the limit of 5000
+    monkeypatch.setattr(cg_module, "PROGRESS_WINDOW", 20)
+    with pytest.raises(ConvergenceError, match="fell less than 2-fold over the last 20"):
+        conjugate_gradient(_apply, RHS, _identity, 1e-10, 5000, operator_norm=16e6)
+    # with the default window the same iteration converges (202 iterations seen)
+    monkeypatch.undo()
+    out = conjugate_gradient(_apply, RHS, _identity, 1e-10, 5000, operator_norm=16e6)
+    assert out.iterations < 5000 and _energy_error(out.x) <= 1e-9
