@@ -32,12 +32,11 @@ running on to the iteration limit."""
 SLOW_EVERY = 50
 """Iterations after which, and after every as many more, the iteration asks the
 preconditioner to strengthen itself (``on_slow`` of :func:`conjugate_gradient`) when the
-error estimate's decline over the last :data:`SLOW_SPAN` iterations, kept up, would not
-reach the tolerance within the iterations left (a rescue: strengthening the multigrid
-costs one to two set-ups per vector, more than it saves on solves that converge anyway)."""
-
-SLOW_SPAN = 10
-"""Iterations over which :data:`SLOW_EVERY`'s rate of decline is taken."""
+smallest error estimate so far, falling at its rate over these last iterations, would not
+reach the tolerance within the iterations left (a rescue: strengthening the multigrid costs
+one to two set-ups per vector, more than it saves on solves that converge anyway). The
+smallest estimate so far, not the estimate itself: that one rises and falls on plateaus,
+and a rise over ten iterations called for the rescue on solves that then converged."""
 
 PROGRESS_WINDOW = 300
 """The iteration gives up before its limit when the smallest error estimate so far has not
@@ -178,16 +177,18 @@ class _Vectors:
         for_row_blocks(self.shape2[0], self.rows, work)
 
 
-def _slow(recent: deque[float], tolerance: float, left: int) -> bool:
-    """Whether the error estimates *recent* (one per iteration, the last
-    :data:`SLOW_SPAN` + 1), declining at their present rate, would need more than the
-    *left* iterations to reach *tolerance*."""
-    if len(recent) < 2:
+def _slow(bests: deque[float], tolerance: float, left: int) -> bool:
+    """Whether the smallest error estimates so far *bests* (one per iteration, the last
+    last), falling at their rate over the last :data:`SLOW_EVERY` iterations (or since the
+    first finite one), would need more than the *left* iterations to reach *tolerance*."""
+    window = list(bests)[-SLOW_EVERY - 1 :]
+    finite = [i for i, value in enumerate(window) if math.isfinite(value)]
+    if not finite or finite[0] == len(window) - 1:
         return True
-    first, last = recent[0], recent[-1]
-    if not (math.isfinite(first) and 0.0 < last < first):
+    first, last = window[finite[0]], window[-1]
+    if not 0.0 < last < first:
         return True
-    rate = math.log(last / first) / (len(recent) - 1)  # < 0
+    rate = math.log(last / first) / (len(window) - 1 - finite[0])  # < 0
     return math.log(tolerance / last) / rate > left
 
 
@@ -236,8 +237,9 @@ def conjugate_gradient(
     delay : int, default :data:`ERROR_DELAY`
         Iterations d over which the error estimate of the notes is summed.
     on_slow : callable, optional
-        Called after every :data:`SLOW_EVERY` iterations while the error estimate's recent
-        decline would not reach *tolerance* within the iterations left; when it returns
+        Called after every :data:`SLOW_EVERY` iterations while the smallest error estimate
+        so far, falling at its recent rate, would not reach *tolerance* within the
+        iterations left; when it returns
         True (the preconditioner changed), the iteration restarts from the true residual
         with the new preconditioner.
 
@@ -391,7 +393,6 @@ def conjugate_gradient(
         steps.clear()
 
     steps: list[float] = []  # α_j r_j·z_j since the last (re)start
-    recent: deque[float] = deque(maxlen=SLOW_SPAN + 1)  # the last error estimates
     bests: deque[float] = deque(maxlen=PROGRESS_WINDOW + 1)  # the smallest so far, by step
     best = math.inf
     done = max_iterations
@@ -444,7 +445,6 @@ def conjugate_gradient(
                 return outcome
             restart()
             continue
-        recent.append(estimate)
         best = min(best, estimate)
         bests.append(best)
         if len(bests) > PROGRESS_WINDOW and best > PROGRESS_FACTOR * bests[0]:
@@ -453,7 +453,7 @@ def conjugate_gradient(
         if (
             on_slow is not None
             and iteration % SLOW_EVERY == 0
-            and _slow(recent, tolerance, max_iterations - iteration)
+            and _slow(bests, tolerance, max_iterations - iteration)
             and on_slow()
         ):
             r_norm = true_residual()

@@ -14,7 +14,6 @@ from gridflex.errors import ConvergenceError
 from gridflex.solvers.conjugate_gradient import (
     ERROR_DELAY,
     SLOW_EVERY,
-    SLOW_SPAN,
     _slow,
     conjugate_gradient,
 )
@@ -152,21 +151,27 @@ def test_a_hook_that_cannot_strengthen_leaves_the_iteration_alone():
         return False
 
     plain = conjugate_gradient(_apply, RHS, _identity, 1e-5, 5000, operator_norm=16e6)
+    # a limit of just the iterations it needs: slow by the rule at every checkpoint
+    limit = plain.iterations
     hooked = conjugate_gradient(
-        _apply, RHS, _identity, 1e-5, 5000, operator_norm=16e6, on_slow=unable
+        _apply, RHS, _identity, 1e-5, limit, operator_norm=16e6, on_slow=unable
     )
     assert hooked.iterations == plain.iterations
     assert_allclose(hooked.x, plain.x, rtol=0, atol=0)
-    assert len(calls) >= 1
+    assert len(calls) == (limit - 1) // SLOW_EVERY
 
 
 def test_slowness_is_judged_on_the_recent_decline_against_the_iterations_left():
-    # a decline by 10x every 10 iterations, now at 1e-3, reaches 1e-8 in 50 more
-    steady = deque(10.0 ** (-np.arange(SLOW_SPAN + 1) / SLOW_SPAN - 2.0), maxlen=SLOW_SPAN + 1)
+    # the smallest estimates so far falling 10x every 10 iterations, now at 1e-3, reach
+    # 1e-8 in 50 more
+    steps = np.arange(SLOW_EVERY + 1)
+    steady = deque(10.0 ** (-(steps - SLOW_EVERY) / 10.0 - 3.0))
     assert not _slow(steady, 1e-8, 60)
     assert _slow(steady, 1e-8, 40)
-    assert _slow(deque([np.inf] + [1e-3] * SLOW_SPAN), 1e-8, 1000)  # no estimate yet
-    assert _slow(deque([1e-3] * (SLOW_SPAN + 1)), 1e-8, 1000)  # no decline
+    late = deque([np.inf] * (SLOW_EVERY - 10) + list(10.0 ** (-np.arange(11) / 10.0 - 2.0)))
+    assert not _slow(late, 1e-8, 60) and _slow(late, 1e-8, 40)  # from the first finite one
+    assert _slow(deque([np.inf] * (SLOW_EVERY + 1)), 1e-8, 1000)  # no estimate yet
+    assert _slow(deque([1e-3] * (SLOW_EVERY + 1)), 1e-8, 1000)  # no decline
 
 
 def test_an_iteration_that_stops_converging_ends_before_its_limit(monkeypatch):
