@@ -239,9 +239,8 @@ def conjugate_gradient(
     on_slow : callable, optional
         Called after every :data:`SLOW_EVERY` iterations while the smallest error estimate
         so far, falling at its recent rate, would not reach *tolerance* within the
-        iterations left; when it returns
-        True (the preconditioner changed), the iteration restarts from the true residual
-        with the new preconditioner.
+        iterations left; when it returns True (the preconditioner changed), the iteration
+        restarts from the true residual with the new preconditioner.
 
     Returns
     -------

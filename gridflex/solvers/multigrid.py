@@ -518,7 +518,8 @@ class AggregationPreconditioner:
         another up to :data:`MAX_ADDED_MODES` (each computed with the levels built with the
         ones before, :data:`CANDIDATE_CYCLES`), building the levels again each time. True
         when any was added; False at the cap or when the memory estimate of the next
-        set-up does not fit beside the present one (logged).
+        set-up does not fit beside the present levels, which are kept until the new ones
+        stand (logged).
 
         All at once rather than one per slow spell: on the rough map of
         tests/benchmarks/te_map_robustness.py at 256² of 250 m, 126 iterations in all (10.2 s
@@ -543,16 +544,11 @@ class AggregationPreconditioner:
         modes = vector[:, None]
         if self.added_modes is not None:
             modes = np.column_stack([self.added_modes, vector])
-        try:
-            check_memory(
-                aggregation_bytes(self.operator, 3 + modes.shape[1]),
-                "a stronger multigrid set-up beside the present one",
-            )
+        try:  # (the present levels are kept until the new ones stand)
+            stronger = AggregationPreconditioner.build(self.operator, modes, matrix)
         except InputError as exc:
             log.warning("%s; the multigrid stays as it is", exc)
             return False
-        self.levels, self.coarsest = [], None  # (freed before the new set-up)
-        stronger = AggregationPreconditioner.build(self.operator, modes, matrix)
         self.levels, self.coarsest, self.added_modes = (
             stronger.levels,
             stronger.coarsest,
