@@ -32,11 +32,20 @@ running on to the iteration limit."""
 SLOW_EVERY = 50
 """Iterations after which, and after every as many more, the iteration asks the
 preconditioner to strengthen itself (``on_slow`` of :func:`conjugate_gradient`) when the
-smallest error estimate so far, falling at its rate over these last iterations, would not
-reach the tolerance within the iterations left (a rescue: strengthening the multigrid costs
-one to two set-ups per vector, more than it saves on solves that converge anyway). The
-smallest estimate so far, not the estimate itself: that one rises and falls on plateaus,
-and a rise over ten iterations called for the rescue on solves that then converged."""
+smallest error estimate so far, falling at its rate over these last iterations, would need
+more than :data:`SLOW_HORIZON` further iterations (or more than are left) to reach the
+tolerance. The smallest estimate so far, not the estimate itself: that one rises and falls
+on plateaus, and a rise over ten iterations called for the rescue on solves that then
+converged soon."""
+
+SLOW_HORIZON = 300
+"""Further iterations beyond which an iteration counts as slow (:data:`SLOW_EVERY`).
+Strengthening the multigrid costs one to two set-ups per vector, some tens of iterations
+each: on the rough map of tests/benchmarks/te_map_robustness.py at 250 m (vectors added
+at iteration 50) 126 iterations and 9.0 s against 356 and 8.6 s at 256², 298 and 53 s
+against 554 and 47 s at 512², 918 and 722 s against 2845 and 1131 s at 1024². A small
+loss where the solve is short, a large gain (and convergence within the limit) where it
+is long."""
 
 PROGRESS_WINDOW = 300
 """The iteration gives up before its limit when the smallest error estimate so far has not
@@ -452,7 +461,7 @@ def conjugate_gradient(
         if (
             on_slow is not None
             and iteration % SLOW_EVERY == 0
-            and _slow(bests, tolerance, max_iterations - iteration)
+            and _slow(bests, tolerance, min(max_iterations - iteration, SLOW_HORIZON))
             and on_slow()
         ):
             r_norm = true_residual()

@@ -19,11 +19,12 @@ it.
 Measured (tests/benchmarks/te_map_robustness.py, band capped at a quarter of what it asks
 for, 256²; iterations of the solve at its default tolerance): te_map at 250 m / 1 / 4 /
 10 km 27 / 27 / 31 / 27; clipped, jumps and holes 17-22; rough (te changing every 1.5
-cells) 167 / 69 / 30 at 1 / 4 / 10 km, and at 250 m 302 (11.7 s): 356 with the rigid-body
-modes alone, which stopped at the old default limit of 300 (ConvergenceError at default
-settings); the near null space was strengthened after 250 iterations, when the smallest
-error estimate had not fallen in 50
-(:meth:`AggregationPreconditioner.strengthen`, :data:`CANDIDATE_CYCLES`).
+cells) 124 / 69 / 30 at 1 / 4 / 10 km (167 / 69 / 30 with the rigid-body modes alone),
+and at 250 m 302: 356 with the rigid-body modes alone, which stopped at the old default
+limit of 300 (ConvergenceError at default settings). At 1 km and 250 m the near null space
+was strengthened (:meth:`AggregationPreconditioner.strengthen`, :data:`CANDIDATE_CYCLES`)
+after 100 and 250 iterations, when the iteration headed for more than
+:data:`~gridflex.solvers.conjugate_gradient.SLOW_HORIZON` further ones.
 The partial band and blend raised
 ConvergenceError on all of them but clipped and holes at 4 and 10 km and jumps at 10 km
 (24-158 iterations there). Jacobi-smoothed prolongation took 3-4 times as many

@@ -106,9 +106,10 @@ from the library's kernels, the same cycle), capped at a quarter, 256², iterati
 The rough map at 250 m converged in 356 iterations (max_iterations=1000; 712 at
 threshold 0; 346 with two Gauss-Seidel sweeps), over the default limit of 300 of the time.
 With the default limit at 3000 (and an end once the error estimate has not halved over 300
-iterations) and the multigrid's near null space strengthened when the iteration would not
-converge within the limit (``AggregationPreconditioner.strengthen``), rough at 250 m / 1 /
-4 / 10 km takes 302 (1.6e-6; strengthened at iteration 250) / 167 / 69 / 30 iterations.
+iterations) and the multigrid's near null space strengthened when the iteration heads for
+more than 300 further iterations (``AggregationPreconditioner.strengthen``), rough at
+250 m / 1 / 4 / 10 km takes 302 (1.6e-6; strengthened at iteration 250) / 124 (8.0e-9; at
+100) / 69 / 30 iterations.
 
 Usage::
 
