@@ -51,12 +51,11 @@ from typing import Any
 import numpy as np
 import scipy.linalg.blas
 import scipy.sparse as sp
-import scipy.sparse.linalg as spla
 
 from gridflex.errors import InputError
 from gridflex.memory import check_memory
 from gridflex.solvers.plate_operator import PlateOperator
-from gridflex.solvers.preconditioners import scaled_start
+from gridflex.solvers.preconditioners import scaled_start, symmetric_factor
 
 __all__ = [
     "AGGREGATION_BYTES_PER_NODE",
@@ -65,6 +64,7 @@ __all__ = [
     "MAX_ADDED_MODES",
     "MULTIGRID_TOLERANCE_FACTOR",
     "aggregation_bytes",
+    "coarsest_factor",
     "rigid_body_modes",
     "smoothed_prolongation",
 ]
@@ -393,6 +393,18 @@ def _galerkin(matrix: Any, prolongation: sp.csr_array, k: int) -> sp.bsr_array:
     return sp.bsr_array(coarse).tobsr(blocksize=(k, k))
 
 
+def coarsest_factor(matrix: Any) -> Any:
+    """Sparse LU factor of the coarsest level's operator (symmetric positive semidefinite).
+
+    An all-zero row and column (a zero column of P: an aggregate with fewer nodes than
+    modes) gets a unit diagonal, so that the factor exists; the restricted residual is zero
+    there, so the solution is too."""
+    empty = matrix.diagonal() == 0.0
+    if empty.any():
+        matrix = matrix + sp.diags_array(empty.astype(np.float64))
+    return symmetric_factor(matrix)
+
+
 @dataclass(eq=False)
 class MultigridLevel:
     """One level above the coarsest: its operator and the prolongation from the next.
@@ -493,17 +505,7 @@ class AggregationPreconditioner:
         del modes
         complexity = sum(level.matrix.nnz for level in levels) + matrix.nnz
         complexity /= levels[0].matrix.nnz if levels else matrix.nnz
-        # an all-zero row and column (a zero column of P: an aggregate with fewer nodes
-        # than modes) gets a unit diagonal, so the factor exists; it solves to zero there
-        empty = matrix.diagonal() == 0.0
-        if empty.any():
-            matrix = matrix + sp.diags_array(empty.astype(np.float64))
-        coarsest = spla.splu(
-            sp.csc_matrix(matrix),
-            permc_spec="MMD_AT_PLUS_A",
-            diag_pivot_thresh=0.0,
-            options={"SymmetricMode": True},
-        )
+        coarsest = coarsest_factor(matrix)
         del matrix
         log.info(
             "multigrid set-up: %d levels (%s nodes), operator complexity %.2f, %.1f s",

@@ -13,6 +13,7 @@ import logging
 import numpy as np
 import pytest
 import scipy.ndimage
+import scipy.sparse
 import scipy.sparse.linalg as spla
 from numpy.testing import assert_allclose
 
@@ -297,3 +298,20 @@ def test_band_and_blend_have_nothing_to_strengthen():
     solver = FiniteDifferenceSolver.build(spec, rigidity, RHO_G, NU)
     assert not isinstance(solver.preconditioner, AggregationPreconditioner)
     assert solver.preconditioner.strengthen() is False
+
+
+def test_coarsest_factor_solves_around_an_empty_row():
+    """A zero column of P leaves an all-zero row and column in the coarsest operator; its
+    factor still exists, solves the rest exactly (common practice: a direct solve of the
+    reduced system) and returns zero on the empty unknown."""
+    rng = np.random.default_rng(2)
+    basis = rng.standard_normal((5, 5))
+    reduced = basis @ basis.T + 5.0 * np.eye(5)  # symmetric positive definite
+    full = np.zeros((6, 6))
+    keep = [0, 1, 3, 4, 5]
+    full[np.ix_(keep, keep)] = reduced
+    rhs = np.zeros(6)
+    rhs[keep] = rng.standard_normal(5)
+    x = multigrid.coarsest_factor(scipy.sparse.bsr_array(full, blocksize=(3, 3))).solve(rhs)
+    assert x[2] == 0.0
+    assert_allclose(x[keep], np.linalg.solve(reduced, rhs[keep]), rtol=1e-12)
