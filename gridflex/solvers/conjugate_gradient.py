@@ -20,7 +20,7 @@ from gridflex.errors import ConvergenceError
 from gridflex.progress import Progress
 from gridflex.solvers.row_blocks import block_rows, for_row_blocks, thread_count
 
-__all__ = ["Outcome", "Operator", "Preconditioner", "conjugate_gradient"]
+__all__ = ["START_MARGIN", "Outcome", "Operator", "Preconditioner", "conjugate_gradient"]
 
 log = logging.getLogger(__name__)
 
@@ -70,13 +70,15 @@ recurrence residual r) at which the error estimate of the recurrence is taken fo
 beyond it the iteration restarts from the true residual (or stops at the round-off limit)."""
 
 START_MARGIN = 0.01
-"""x is returned on its preconditioned residual alone (a start, or an exact preconditioner)
-when sqrt(r·M⁻¹r / x·b) is below this fraction of the tolerance, checked with the true
+"""x is returned on its preconditioned residual alone (an accurate start, say) when
+sqrt(r·M⁻¹r / x·b) is below this fraction of the tolerance, checked with the true
 residual; the recorded accuracy is that estimate divided by START_MARGIN. r·M⁻¹r equals
 ||e||_K² only within the spectrum of M⁻¹K, and the margin allows for its smallest
 eigenvalue down to START_MARGIN² = 1e-4; measured on a 20 km zone of te 0.5 km in a 25 km
 plate (256² of 1 km, periodic): 0.1 let through an iterate whose true error was 0.57 of
-the recorded accuracy (r·M⁻¹r 32 times below ||e||_K²)."""
+the recorded accuracy (r·M⁻¹r 32 times below ||e||_K²). An exact preconditioner (M = K
+up to rounding: a band over the whole solve grid) needs no margin (``start_margin`` 1 in
+:func:`conjugate_gradient`)."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -214,6 +216,7 @@ def conjugate_gradient(
     operator_norm: float | None = None,
     delay: int = ERROR_DELAY,
     on_slow: Callable[[], bool] | None = None,
+    start_margin: float = START_MARGIN,
 ) -> Outcome:
     """Solve K x = b for a symmetric positive-definite K by preconditioned CG, to a stated
     relative error of x in the energy norm.
@@ -250,6 +253,10 @@ def conjugate_gradient(
         so far, falling at its recent rate, would not reach *tolerance* within the
         iterations left; when it returns True (the preconditioner changed), the iteration
         restarts from the true residual with the new preconditioner.
+    start_margin : float, default :data:`START_MARGIN`
+        Share of the tolerance below which sqrt(r·M⁻¹r / x·b) returns an iterate on its
+        preconditioned residual alone, and the factor that estimate is divided by; 1 for
+        an exact preconditioner (M = K up to rounding, so r·M⁻¹r = ||e||_K²).
 
     Returns
     -------
@@ -295,8 +302,8 @@ def conjugate_gradient(
     precision allows and is returned (``at_round_off`` set) instead.
 
     An iterate (a start, too) whose preconditioned residual gives sqrt(r·M⁻¹r / x·b)
-    below :data:`START_MARGIN` times the tolerance is returned, with that estimate divided
-    by :data:`START_MARGIN` as its accuracy, once checked with the true residual: while
+    below *start_margin* times the tolerance is returned, with that estimate divided
+    by *start_margin* as its accuracy, once checked with the true residual: while
     the drift stays within :data:`DRIFT_LIMIT`, as on the main exit, the recurrence's
     r·M⁻¹r stands (widened by the drift), otherwise the true residual's is taken.
     """
@@ -306,6 +313,8 @@ def conjugate_gradient(
         return Outcome(np.zeros_like(rhs), 0, 0.0, 0.0, 0.0, False, np.zeros_like(rhs))
     eps = float(np.finfo(np.float64).eps)
     delay = max(int(delay), 1)
+    if not 0.0 < start_margin <= 1.0:
+        raise ValueError(f"start_margin must lie in (0, 1], got {start_margin!r}")
 
     def true_residual() -> float:
         """b − K x into r (and K x into q); returns ||r||."""
@@ -371,7 +380,7 @@ def conjugate_gradient(
         values: restart from them); False when not checked."""
         nonlocal r_norm, rz
         energy = v.dot(v.x, rhs)
-        if not (energy > 0.0 and 0.0 <= rz <= (START_MARGIN * tolerance) ** 2 * energy):
+        if not (energy > 0.0 and 0.0 <= rz <= (start_margin * tolerance) ** 2 * energy):
             return False
         recurrence = v.r.copy()
         recurrence_norm = r_norm
@@ -383,12 +392,12 @@ def conjugate_gradient(
         np.subtract(v.r, recurrence, out=recurrence)
         drift = math.sqrt(v.dot(recurrence, recurrence))
         drift = drift / recurrence_norm if recurrence_norm > 0.0 else math.inf
-        estimate = math.sqrt(max(rz, 0.0) / energy) / START_MARGIN * (1.0 + drift)
+        estimate = math.sqrt(max(rz, 0.0) / energy) / start_margin * (1.0 + drift)
         if drift <= DRIFT_LIMIT and estimate <= tolerance:
             return finish(iteration, r_norm, estimate, False)
         precondition(v.r, v.z, r_norm)
         rz = v.dot(v.r, v.z)
-        done = verdict(iteration, math.sqrt(max(rz, 0.0) / energy) / START_MARGIN)
+        done = verdict(iteration, math.sqrt(max(rz, 0.0) / energy) / start_margin)
         return True if done is None else done
 
     def restart() -> None:

@@ -25,7 +25,7 @@ from gridflex.grid import GridSpec
 from gridflex.memory import check_memory
 from gridflex.progress import Progress
 from gridflex.solvers.blas_threads import single_threaded_blas
-from gridflex.solvers.conjugate_gradient import conjugate_gradient
+from gridflex.solvers.conjugate_gradient import START_MARGIN, conjugate_gradient
 from gridflex.solvers.multigrid import AggregationPreconditioner
 from gridflex.solvers.plate_operator import AXIS_EDGES, PlateOperator, area_weights, corner_rigidity
 from gridflex.solvers.preconditioners import (
@@ -42,6 +42,7 @@ from gridflex.solvers.rigidity_features import (
     factor_budget,
     find_sharp_features,
     sharp_band,
+    whole_grid_band,
 )
 from gridflex.solvers.row_blocks import dot
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
@@ -359,6 +360,8 @@ def _preconditioner(
             multigrid = _multigrid(operator, nodes.size)
             if multigrid is not None:
                 return multigrid, 0.0
+        if complete:
+            nodes = whole_grid_band(operator, nodes, width_used, int(max_band_nodes), budget)
     else:
         nodes, width_used = np.zeros(0, dtype=np.int64), 0.0
     band = BandSolver.build(operator, nodes)
@@ -640,6 +643,8 @@ class FiniteDifferenceSolver:
             combined = history.start(rhs)
             if combined is not None:
                 start, product = combined
+        # M = K only without the spectral term (the band is left out with it)
+        exact = preconditioner.exact and self.spectral_term is None
         with single_threaded_blas():
             first = preconditioner.initial_guess(rhs, start, self.apply, product)
             try:
@@ -654,6 +659,7 @@ class FiniteDifferenceSolver:
                     preconditioner.use_double_precision,
                     operator_norm=self.operator_norm(),
                     on_slow=preconditioner.strengthen,
+                    start_margin=1.0 if exact else START_MARGIN,
                 )
             except ConvergenceError as exc:
                 alpha = (4.0 * float(operator.rigidity.max()) / operator.stiffness) ** 0.25

@@ -585,6 +585,11 @@ class AggregationPreconditioner:
         (:data:`MULTIGRID_TOLERANCE_FACTOR`)."""
         return MULTIGRID_TOLERANCE_FACTOR
 
+    @property
+    def exact(self) -> bool:
+        """False: one V-cycle approximates K⁻¹."""
+        return False
+
     def use_double_precision(self) -> None:
         """Nothing to do: the cycle is in double precision."""
 

@@ -613,6 +613,11 @@ class PlatePreconditioner(Protocol):
         energy-norm estimate is looser than the pointwise error for some)."""
         ...
 
+    @property
+    def exact(self) -> bool:
+        """M = K up to rounding (then r·M⁻¹r is the squared energy-norm error itself)."""
+        ...
+
     def use_double_precision(self) -> None:
         """Run in double precision from now on."""
         ...
@@ -717,6 +722,12 @@ class MultiplicativePreconditioner:
         """1: the energy-norm estimate stands (largest difference from a direct solve at
         most 0.6 of it, tests/benchmarks/te_map_robustness.py)."""
         return 1.0
+
+    @property
+    def exact(self) -> bool:
+        """True when the band covers every node of the solve grid: M is then K's sparse
+        factor (the blend's weights are zero on the band)."""
+        return self.band.size == self.operator.rigidity.size
 
     def strengthen(self) -> bool:
         """Nothing to strengthen (the band and the levels are fixed by the rigidity):

@@ -104,6 +104,26 @@ def test_exact_preconditioner_stops_after_one_step():
     assert_allclose(out.x, EXACT, rtol=0, atol=1e-8 * np.abs(EXACT).max())
 
 
+def test_an_exact_preconditioner_certifies_its_start_without_the_margin():
+    # With M = K, r.M^-1 r = e.K e exactly (the energy norm of the error; common practice),
+    # so a start within the tolerance is certified by its own estimate, and the recorded
+    # accuracy is its energy-norm error itself; with the default margin (START_MARGIN,
+    # for an M^-1 K whose smallest eigenvalue may be small) the same start is not taken
+    def exact(r, out, norm):
+        out[...] = np.linalg.solve(MATRIX, r)
+        return out
+
+    start = EXACT * (1.0 + 1e-9 * np.random.default_rng(1).standard_normal(EXACT.shape))
+    first = (start, RHS - MATRIX @ start)
+    tight = conjugate_gradient(_apply, RHS, exact, 1e-6, 50, start=first, start_margin=1.0)
+    assert tight.iterations == 0
+    assert tight.accuracy == pytest.approx(_energy_error(start), rel=1e-3)
+    margined = conjugate_gradient(_apply, RHS, exact, 1e-6, 50, start=first)
+    assert margined.iterations == 1
+    with pytest.raises(ValueError, match="start_margin"):
+        conjugate_gradient(_apply, RHS, exact, 1e-6, 50, start=first, start_margin=2.0)
+
+
 def test_a_start_with_a_wrong_residual_is_not_taken_on_its_word():
     # A start handed in with a residual that is not b - K x0 (a product of K taken from
     # elsewhere) looks converged on the recurrence; the true residual shows the drift and
