@@ -45,7 +45,7 @@ from __future__ import annotations
 import logging
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -157,6 +157,16 @@ def aggregation_bytes(operator: PlateOperator, modes: int = 3) -> float:
     peak at 512² of 250 m on the rough map of tests/benchmarks/te_map_robustness.py with
     3 / 4 / 5 / 6 modes, 631 / 895 / 1579 / 1638 bytes per node, tracemalloc)."""
     return AGGREGATION_BYTES_PER_NODE * (modes / 3.0) ** 2 * float(operator.rigidity.size)
+
+
+def _check_setup_memory(operator: PlateOperator, modes: int) -> None:
+    """InputError when :func:`aggregation_bytes` of a set-up with *modes* near-null-space
+    vectors does not fit in the memory available now."""
+    check_memory(
+        aggregation_bytes(operator, modes),
+        f"multigrid set-up of the finite-difference solve on {operator.shape[0]} x "
+        f"{operator.shape[1]} nodes with {modes} near-null-space vectors",
+    )
 
 
 def _block_rows(matrix: Any) -> int:
@@ -455,6 +465,7 @@ class AggregationPreconditioner:
     levels: list[MultigridLevel]
     coarsest: Any
     added_modes: np.ndarray | None = None
+    _refused: bool = field(default=False, repr=False)
 
     @classmethod
     def build(
@@ -480,12 +491,7 @@ class AggregationPreconditioner:
         InputError
             Not enough memory (estimated first, :func:`aggregation_bytes`).
         """
-        count = 3 + (0 if added_modes is None else added_modes.shape[1])
-        check_memory(
-            aggregation_bytes(operator, count),
-            f"multigrid set-up of the finite-difference solve on {operator.shape[0]} x "
-            f"{operator.shape[1]} nodes with {count} near-null-space vectors",
-        )
+        _check_setup_memory(operator, 3 + (0 if added_modes is None else added_modes.shape[1]))
         began = time.perf_counter()
         if matrix is None:
             matrix = operator.matrix()
@@ -522,7 +528,7 @@ class AggregationPreconditioner:
         ones before, :data:`CANDIDATE_CYCLES`), building the levels again each time. True
         when any was added; False at the cap or when the memory estimate of the next
         set-up does not fit beside the present levels, which are kept until the new ones
-        stand (logged).
+        stand (logged once: checked before the vector's cycles, and not tried again).
 
         All at once rather than one per slow spell: on the rough map of
         tests/benchmarks/te_map_robustness.py at 256² of 250 m, 126 iterations in all (10.2 s
@@ -536,7 +542,13 @@ class AggregationPreconditioner:
     def _add_mode(self) -> bool:
         """One vector of :meth:`strengthen`; True when added."""
         count = 0 if self.added_modes is None else self.added_modes.shape[1]
-        if count >= MAX_ADDED_MODES or not self.levels:
+        if count >= MAX_ADDED_MODES or not self.levels or self._refused:
+            return False
+        try:  # before the cycles: a set-up that cannot fit is not tried again
+            _check_setup_memory(self.operator, 3 + count + 1)
+        except InputError as exc:
+            log.warning("%s; the multigrid stays as it is", exc)
+            self._refused = True
             return False
         began = time.perf_counter()
         matrix = self.levels[0].matrix
@@ -551,6 +563,7 @@ class AggregationPreconditioner:
             stronger = AggregationPreconditioner.build(self.operator, modes, matrix)
         except InputError as exc:
             log.warning("%s; the multigrid stays as it is", exc)
+            self._refused = True
             return False
         self.levels, self.coarsest, self.added_modes = (
             stronger.levels,

@@ -285,11 +285,20 @@ def test_a_strengthening_that_does_not_fit_keeps_the_multigrid(fine_rough, monke
     pre = solver.preconditioner
     assert isinstance(pre, AggregationPreconditioner)
     levels = pre.levels
-    monkeypatch.setattr(multigrid, "AGGREGATION_BYTES_PER_NODE", 1e18)
-    with caplog.at_level(logging.WARNING, logger="gridflex.solvers.multigrid"):
-        assert pre.strengthen() is False
+    cycles = []
+    cycle = pre._cycle
+    monkeypatch.setattr(pre, "_cycle", lambda *args: cycles.append(1) or cycle(*args))
+    with monkeypatch.context() as patch:
+        patch.setattr(multigrid, "AGGREGATION_BYTES_PER_NODE", 1e18)
+        with caplog.at_level(logging.WARNING, logger="gridflex.solvers.multigrid"):
+            assert pre.strengthen() is False
     assert "stays as it is" in caplog.text
     assert pre.levels is levels and pre.added_modes is None
+    # refused before its V-cycles, and not tried again (each try would cost
+    # CANDIDATE_CYCLES cycles and a warning every SLOW_EVERY iterations)
+    caplog.clear()
+    assert pre.strengthen() is False
+    assert cycles == [] and "stays as it is" not in caplog.text
 
 
 def test_band_and_blend_have_nothing_to_strengthen():
