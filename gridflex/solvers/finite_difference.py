@@ -33,6 +33,7 @@ from gridflex.solvers.preconditioners import (
     BlendPreconditioner,
     MultiplicativePreconditioner,
     PlatePreconditioner,
+    band_is_exact,
 )
 from gridflex.solvers.rigidity_features import (
     BAND_FLEXURAL_PARAMETERS,
@@ -42,7 +43,6 @@ from gridflex.solvers.rigidity_features import (
     factor_budget,
     find_sharp_features,
     sharp_band,
-    whole_grid_band,
 )
 from gridflex.solvers.row_blocks import dot
 from gridflex.solvers.spectral import DEFAULT_PAD_FACTOR
@@ -360,8 +360,6 @@ def _preconditioner(
             multigrid = _multigrid(operator, nodes.size)
             if multigrid is not None:
                 return multigrid, 0.0
-        if complete:
-            nodes = whole_grid_band(operator, nodes, width_used, int(max_band_nodes), budget)
     else:
         nodes, width_used = np.zeros(0, dtype=np.int64), 0.0
     band = BandSolver.build(operator, nodes)
@@ -374,7 +372,8 @@ def _preconditioner(
         band.size,
         width_used,
     )
-    return MultiplicativePreconditioner(operator, blend, band), width_used
+    exact = spectral_term is None and band_is_exact(operator, nodes)
+    return MultiplicativePreconditioner(operator, blend, band, exact), width_used
 
 
 def _multigrid(operator: PlateOperator, band_nodes: int) -> AggregationPreconditioner | None:

@@ -39,6 +39,7 @@ __all__ = [
     "BlendPreconditioner",
     "MultiplicativePreconditioner",
     "PlatePreconditioner",
+    "band_is_exact",
     "discrete_symbol",
     "rigidity_scaling",
     "scaled_start",
@@ -652,11 +653,24 @@ class MultiplicativePreconditioner:
     z₁ = B r;  z₂ = z₁ + M (r − K z₁);  z = z₂ + B (r − K z₂),
     with B the band solve and M the blend. Symmetric by construction; without a band it is
     the blend alone. The two products with K are taken on the band only.
+
+    Attributes
+    ----------
+    operator : PlateOperator
+        K.
+    blend : BlendPreconditioner
+        M, on the residual the band leaves.
+    band : BandSolver
+        B.
+    exact : bool
+        The combination is K⁻¹ up to rounding (:func:`band_is_exact`): r·M⁻¹r is then the
+        squared energy-norm error itself.
     """
 
     operator: PlateOperator
     blend: BlendPreconditioner
     band: BandSolver
+    exact: bool = False
 
     def use_double_precision(self) -> None:
         """Run the blend's FFTs in double precision from now on."""
@@ -723,12 +737,6 @@ class MultiplicativePreconditioner:
         most 0.6 of it, tests/benchmarks/te_map_robustness.py)."""
         return 1.0
 
-    @property
-    def exact(self) -> bool:
-        """True when the band covers every node of the solve grid: M is then K's sparse
-        factor (the blend's weights are zero on the band)."""
-        return self.band.size == self.operator.rigidity.size
-
     def strengthen(self) -> bool:
         """Nothing to strengthen (the band and the levels are fixed by the rigidity):
         False."""
@@ -758,6 +766,43 @@ class MultiplicativePreconditioner:
         residual = band.subtract_product(residual, on_band)
         residual.reshape(-1)[band.nodes] = 0.0
         return x, residual
+
+
+def band_is_exact(operator: PlateOperator, band: np.ndarray) -> bool:
+    """Whether the band and blend of *band* are K⁻¹ itself (up to rounding).
+
+    True when every node outside the band has no plate next to it (all rigidities of
+    its 3 x 3 neighbourhood zero, wrapping round periodic axes): its row and column of
+    K then hold the restoring term a Δρ g alone, the blend's term there is its exact
+    local inverse 1 / (a Δρ g), and the band solve is K's own factor on the rest, so
+    :class:`MultiplicativePreconditioner` returns K⁻¹ r (the 13-point stencil couples two
+    nodes through the curvatures and twists at the nodes and corners next to both, so a
+    node with no plate next to it is coupled to none; checked against K's rows for every
+    kind of edge in tests/solvers/test_preconditioners.py). Rough te maps tapered to te = 0
+    round a fine grid have such bands (their sharp changes spread the band over the
+    plate; the rest is open sea): a start or iterate is then certified on its own
+    residual, without :data:`gridflex.solvers.conjugate_gradient.START_MARGIN`.
+
+    Parameters
+    ----------
+    operator : PlateOperator
+        K.
+    band : numpy.ndarray of int
+        Flat indices of the band nodes.
+
+    Returns
+    -------
+    bool
+    """
+    outside = np.ones(operator.rigidity.size, dtype=bool)
+    outside[band] = False
+    if not outside.any():
+        return True
+    if np.any(operator.rigidity.reshape(-1)[outside] != 0.0):
+        return False
+    modes = ["wrap" if e == "periodic" else "constant" for e in operator.edges]
+    near = scipy.ndimage.maximum_filter(operator.rigidity, size=3, mode=modes) > 0.0
+    return not bool(np.any(near.reshape(-1)[outside]))
 
 
 def scaled_start(

@@ -26,7 +26,6 @@ __all__ = [
     "FACTOR_BYTES_PER_NODE_CELL",
     "FACTOR_MEMORY_SHARE",
     "MAX_FACTOR_BYTES",
-    "WHOLE_GRID_SHARE",
     "SHARP_RATIO",
     "STEEP_FLEXURAL_PARAMETERS",
     "LOCAL_STEEP_WINDOW",
@@ -39,7 +38,6 @@ __all__ = [
     "factor_budget",
     "find_sharp_features",
     "sharp_band",
-    "whole_grid_band",
 ]
 
 log = logging.getLogger(__name__)
@@ -195,20 +193,6 @@ symmetric ordering used (MMD on K + Kᵀ): measured 1634 bytes per node on the h
 of tests/benchmarks/variable.py at 1024² (band of 250 k nodes, 82 nodes across, 34 M
 entries of 12 bytes), 20 per node per cell; 25 errs on the safe side. (COLAMD filled 3-5
 non-zeros per node per cell, 60 bytes.)"""
-
-WHOLE_GRID_SHARE = 0.9
-"""A band holding at least this share of the solve grid's nodes is widened to the whole grid
-when that fits the band's caps (:func:`whole_grid_band`). The nodes left out lie away from
-the sharp features (smooth plate, or te = 0 far from any plate); adding them costs little
-LU fill, and the preconditioner becomes K's own factor: the solve then ends at its start
-with r·M⁻¹r = ||e||_K² and needs no margin on that estimate
-(:data:`gridflex.solvers.conjugate_gradient.START_MARGIN`). Measured with
-tests/benchmarks/te_map_robustness.py at 256² (default band), the maps whose bands held
-93-98 % of the 72.9 k nodes (recorded accuracy before -> after, iterations 0-1 -> 0, the
-deflection equal to the direct solve's in both): clipped 9.9e-4 -> 9.9e-6 at 250 m and
-9.6e-6 -> 9.6e-8 at 1 km, jumps 3.2e-3 -> 3.2e-5 and 3.0e-5 -> 3.0e-7; set-up times
-unchanged within the machine's noise (0.81-0.87 s for clipped at 250 m). Before, those
-direct solves were flagged at the round-off limit with an accuracy over the tolerance."""
 
 BAND_SHRINK = 0.75
 """Factor by which the band widths shrink until the band fits its caps (was 0.5: the weak
@@ -558,43 +542,3 @@ def sharp_band(
         max_factor_bytes / 2**30,
     )
     return np.zeros(0, dtype=np.int64), 0.0, sharp
-
-
-def whole_grid_band(
-    operator: PlateOperator,
-    nodes: np.ndarray,
-    width: float,
-    max_nodes: int,
-    max_factor_bytes: float = MAX_FACTOR_BYTES,
-) -> np.ndarray:
-    """The band *nodes*, or every node of the solve grid when the band already holds
-    :data:`WHOLE_GRID_SHARE` of them and the whole grid fits the caps.
-
-    Parameters
-    ----------
-    operator : PlateOperator
-        The operator (its grid).
-    nodes : numpy.ndarray of int
-        Sorted flat indices of the band (:func:`sharp_band`).
-    width : float
-        The band's largest width (m); the whole grid's LU memory is estimated as that of
-        a band this wide (:data:`FACTOR_BYTES_PER_NODE_CELL`), which errs on the safe
-        side: the nodes added are away from the sharp features.
-    max_nodes : int
-        Cap on the band size.
-    max_factor_bytes : float, default :data:`MAX_FACTOR_BYTES`
-        Cap on the estimated memory (bytes) of the LU factors (:func:`factor_budget`).
-
-    Returns
-    -------
-    numpy.ndarray of int
-        Sorted flat indices: *nodes* itself, or ``arange`` of the grid's node count.
-    """
-    total = int(operator.rigidity.size)
-    if nodes.size == total or nodes.size < WHOLE_GRID_SHARE * total or total > max_nodes:
-        return nodes
-    spacing = min(operator.dx, operator.dy)
-    if _factor_bytes(total, max(float(width), spacing), spacing) > max_factor_bytes:
-        return nodes
-    log.info("band of %d of %d nodes widened to the whole grid", nodes.size, total)
-    return np.arange(total, dtype=np.int64)

@@ -7,8 +7,17 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+import scipy.ndimage
+from numpy.testing import assert_allclose
 
-from gridflex.solvers.preconditioners import smooth_like_gaussian
+from gridflex.solvers.plate_operator import PlateOperator
+from gridflex.solvers.preconditioners import (
+    BandSolver,
+    BlendPreconditioner,
+    MultiplicativePreconditioner,
+    band_is_exact,
+    smooth_like_gaussian,
+)
 
 
 def test_smoothing_keeps_the_mean_and_has_the_gaussian_variance():
@@ -76,3 +85,36 @@ def test_nearly_constant_rigidity_gets_one_level_and_small_ranges_a_gentle_ramp(
     top = math.sin(0.5 * math.pi * math.log(ratio) / math.log(MIN_RAMP_RATIO))
     assert float(high.max()) <= top + 1e-6
     assert float(high.max()) > 0.5 * top
+
+
+@pytest.mark.parametrize(
+    "edges",
+    [("periodic", "periodic"), ("free", "free"), ("clamped", "clamped"), ("periodic", "free")],
+)
+def test_a_band_with_only_open_sea_outside_is_the_exact_inverse(edges):
+    # band_is_exact: a node with no plate next to it has the restoring term alone in its row
+    # of K, so the band over every other node and the blend's local inverse 1 / (a Δρ g)
+    # outside it give K^-1 (common practice: block-diagonal K). Checked against K's rows
+    # for each kind of edge, and M K x = x; one node of plate outside the band, or a
+    # plate node next to an outside node, is not exact.
+    n, h = 40, 4e3
+    rigidity = np.zeros((n, n))
+    rigidity[5:22, 3:30] = 1e23 * (1.0 + np.random.default_rng(3).random((17, 27)))
+    rigidity[0:3, 30:40] = 5e22  # plate at the grid's edge
+    op = PlateOperator.build(rigidity, 3300 * 9.81, 0.25, h, h, edges)
+    modes = ["wrap" if e == "periodic" else "constant" for e in edges]
+    coupled = scipy.ndimage.maximum_filter(rigidity, size=3, mode=modes).ravel() > 0
+    band = np.flatnonzero(coupled)
+    outside = np.flatnonzero(~coupled)
+    rows = op.rows(outside)
+    assert np.array_equal(np.diff(rows.indptr), np.ones(outside.size))
+    assert np.array_equal(rows.indices, outside)  # the diagonal alone
+    assert band_is_exact(op, band)
+    pre = MultiplicativePreconditioner(
+        op, BlendPreconditioner.build(op, band), BandSolver.build(op, band), True
+    )
+    x = np.random.default_rng(4).standard_normal((n, n))
+    assert_allclose(pre.apply(op.apply(x)), x, rtol=0, atol=1e-8 * np.abs(x).max())
+    assert not band_is_exact(op, band[1:])  # a plate node left out
+    sea_next_to_plate = np.flatnonzero(coupled & (rigidity.ravel() == 0))[0]
+    assert not band_is_exact(op, band[band != sea_next_to_plate])

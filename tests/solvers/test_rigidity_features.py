@@ -17,11 +17,9 @@ from gridflex.solvers.rigidity_features import (
     REACH_FRAME_NODES,
     STIFF_SIDE_FLEXURAL_PARAMETERS,
     STIFF_SIDE_REACH_FLEXURAL_PARAMETERS,
-    WHOLE_GRID_SHARE,
     factor_budget,
     find_sharp_features,
     sharp_band,
-    whole_grid_band,
 )
 
 NU = 0.25
@@ -240,22 +238,3 @@ def test_one_distance_transform_serves_the_band_and_its_fallback():
         reused, _, _ = sharp_band(op, width, 10**6, features.nodes, widths, distance=shared)
         assert fresh.size > 0
         assert np.array_equal(fresh, reused)
-
-
-def test_a_band_over_most_of_the_grid_is_widened_to_all_of_it_within_its_caps():
-    # common practice (the rule of whole_grid_band): a band holding WHOLE_GRID_SHARE of the
-    # nodes or more becomes the whole grid if that fits the node cap and the LU memory
-    # estimate (counted at the band's width); a smaller band, or one over a cap, is kept
-    n, h = 40, 2000.0
-    op = PlateOperator.build(np.full((n, n), 1e24), STIFFNESS, NU, h, h)
-    total = n * n
-    most = np.arange(int(np.ceil(WHOLE_GRID_SHARE * total)), dtype=np.int64)
-    fewer = np.arange(int(np.ceil(WHOLE_GRID_SHARE * total)) - 1, dtype=np.int64)
-    width = 10 * h
-    whole = whole_grid_band(op, most, width, total)
-    assert np.array_equal(whole, np.arange(total))
-    assert whole_grid_band(op, fewer, width, total) is fewer
-    assert whole_grid_band(op, most, width, total - 1) is most  # over the node cap
-    needed = FACTOR_BYTES_PER_NODE_CELL * total * (2 * width / h + 1)
-    assert whole_grid_band(op, most, width, total, needed) is not most
-    assert whole_grid_band(op, most, width, total, 0.99 * needed) is most  # over the memory
