@@ -372,6 +372,7 @@ def _preconditioner(
         band.size,
         width_used,
     )
+    # (with a spectral term the band is left out and the blend only approximates it)
     exact = spectral_term is None and band_is_exact(operator, nodes)
     return MultiplicativePreconditioner(operator, blend, band, exact), width_used
 
@@ -642,8 +643,6 @@ class FiniteDifferenceSolver:
             combined = history.start(rhs)
             if combined is not None:
                 start, product = combined
-        # M = K only without the spectral term (the band is left out with it)
-        exact = preconditioner.exact and self.spectral_term is None
         with single_threaded_blas():
             first = preconditioner.initial_guess(rhs, start, self.apply, product)
             try:
@@ -658,7 +657,7 @@ class FiniteDifferenceSolver:
                     preconditioner.use_double_precision,
                     operator_norm=self.operator_norm(),
                     on_slow=preconditioner.strengthen,
-                    start_margin=1.0 if exact else START_MARGIN,
+                    start_margin=1.0 if preconditioner.exact else START_MARGIN,
                 )
             except ConvergenceError as exc:
                 alpha = (4.0 * float(operator.rigidity.max()) / operator.stiffness) ** 0.25
