@@ -114,6 +114,13 @@ multigrid), rough at 512² of 250 m took 298 iterations (53 s, 1.4e-6 of the pea
 SuperLU), at 1024² of 1 km 431 (269 s) and at 1024² of 250 m 903 (690 s, strengthened at
 iteration 150); all three raised ConvergenceError at the old limit of 300. At 2048² of 1 km
 (default settings, multigrid): 230 iterations, set-up 78 s, solve 951 s, accuracy 9.6e-8.
+At 2048² of 250 m it raises ConvergenceError (the target is NOT met there): set-up 87 s
+(3 levels, 4.67 M / 1.26 M / 126 k nodes), strengthened with 3 vectors after iteration 50
+(operator complexity 2.36 -> 6.41, three set-ups 109 + 164 + 214 s), then the error
+estimate halved about every 28 iterations (0.196 at 50, 1.7e-3 at 250, 1.4e-4 at 375) and
+stalled at 1e-4 to 5e-4 with the relative residual rising and falling (375-700); the
+progress rule ended it (run twice, the first after 2811 s). Not yet understood: the same
+map converged at 1024² of 250 m (903 iterations).
 
 Where every node outside the band is open sea (no plate next to it), band and blend are
 K⁻¹ itself (gridflex.solvers.preconditioners.band_is_exact) and a start or iterate is
