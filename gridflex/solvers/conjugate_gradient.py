@@ -77,8 +77,9 @@ residual; the recorded accuracy is that estimate divided by START_MARGIN. r·M�
 eigenvalue down to START_MARGIN² = 1e-4; measured on a 20 km zone of te 0.5 km in a 25 km
 plate (256² of 1 km, periodic): 0.1 let through an iterate whose true error was 0.57 of
 the recorded accuracy (r·M⁻¹r 32 times below ||e||_K²). An exact preconditioner (M = K
-up to rounding: a band over the whole solve grid) needs no margin (``start_margin`` 1 in
-:func:`conjugate_gradient`)."""
+up to rounding: a band with only open sea outside it,
+:func:`gridflex.solvers.preconditioners.band_is_exact`) needs no margin (``start_margin``
+1 in :func:`conjugate_gradient`)."""
 
 
 @dataclass(frozen=True, eq=False)

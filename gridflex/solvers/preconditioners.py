@@ -558,8 +558,9 @@ class BandSolver:
             return cls(nodes, None, empty, None, None)
         band = np.zeros(operator.shape, dtype=np.uint8)
         band.reshape(-1)[nodes] = 1
-        modes = ["wrap" if e == "periodic" else "constant" for e in operator.edges]
-        around = np.flatnonzero(scipy.ndimage.maximum_filter(band, size=5, mode=modes))
+        around = np.flatnonzero(
+            scipy.ndimage.maximum_filter(band, size=5, mode=_beyond_edges(operator))
+        )
         position = np.searchsorted(around, nodes)
         k_rows = operator.rows(nodes, around)  # K[B, C]: the band's rows are inside C
         k_columns = k_rows.T.tocsr()  # K is symmetric: K[C, B] = K[B, C]^T
@@ -768,6 +769,12 @@ class MultiplicativePreconditioner:
         return x, residual
 
 
+def _beyond_edges(operator: PlateOperator) -> list[str]:
+    """Filter modes of scipy.ndimage for a neighbourhood on *operator*'s grid: wrapped
+    round a periodic axis, nothing (zero) beyond the other edges."""
+    return ["wrap" if e == "periodic" else "constant" for e in operator.edges]
+
+
 def band_is_exact(operator: PlateOperator, band: np.ndarray) -> bool:
     """Whether the band and blend of *band* are K⁻¹ itself (up to rounding).
 
@@ -800,8 +807,8 @@ def band_is_exact(operator: PlateOperator, band: np.ndarray) -> bool:
         return True
     if np.any(operator.rigidity.reshape(-1)[outside] != 0.0):
         return False
-    modes = ["wrap" if e == "periodic" else "constant" for e in operator.edges]
-    near = scipy.ndimage.maximum_filter(operator.rigidity, size=3, mode=modes) > 0.0
+    near = scipy.ndimage.maximum_filter(operator.rigidity, size=3, mode=_beyond_edges(operator))
+    near = near > 0.0
     return not bool(np.any(near.reshape(-1)[outside]))
 
 
