@@ -37,7 +37,15 @@ te_map of tests/benchmarks/variable.py at default settings (tests/benchmarks/var
 (solve grid 4320², 18.7 M nodes): 37 iterations, set-up 386 s, solve 208 s, peak 15.4 GB
 for the whole process (42 iterations and 14.3 GB with threshold 0,
 :data:`STRENGTH_THRESHOLD`; pyamg's own driver needed about 29 GB there, and the partial
-band raised ConvergenceError after 300 iterations and 12 minutes).
+band raised ConvergenceError after 300 iterations and 12 minutes). The figures above are
+for point Gauss-Seidel on the finest level; its smoother is now block Gauss-Seidel over
+two grids of overlapping patches (:mod:`gridflex.solvers.patch_smoother`,
+:data:`PATCH_SIZES`): on the rough map 84 instead of 302 iterations at 256² of 250 m, 234
+instead of 903 at 1024² of 250 m (solve 299 s against 690 s); te_map of
+tests/benchmarks/variable.py at 2048² 19 instead of 23 (set-up 99 s, solve 41 s, on a
+machine shared with the test suite). Rough at 2048² of 250 m still stalls (its error
+estimate followed the same course with either smoother; tests/benchmarks/
+te_map_robustness.py).
 """
 
 from __future__ import annotations
@@ -54,6 +62,7 @@ import scipy.sparse as sp
 
 from gridflex.errors import InputError
 from gridflex.memory import check_memory
+from gridflex.solvers.patch_smoother import PatchSmoother
 from gridflex.solvers.plate_operator import PlateOperator
 from gridflex.solvers.preconditioners import scaled_start, symmetric_factor
 
@@ -91,6 +100,13 @@ at 512² / 1024² / 2048² with theta = 0 / 0.05 / 0.08: 40 / 34 / 39, 32 / 28 /
 capped (tests/benchmarks/te_map_robustness.py) theta = 0.05 took 17-31 iterations on te_map,
 clipped, jumps and holes at every cell size (27-50 at theta = 0) and 167 / 69 / 30 on the
 rough map at 1 / 4 / 10 km (285 / 98 / 47)."""
+
+PATCH_SIZES = (8, 6, 4)
+"""Patch sides (nodes) of the finest level's smoother (two grids of patches, the second
+shifted by half a patch), tried in turn until one fits in memory
+(:func:`gridflex.solvers.patch_smoother.patch_bytes`: about 1.5 / 1.05 / 0.75 kB per node).
+Iterations on the rough map of tests/benchmarks/te_map_robustness.py at 250 m: 84 / 94 /
+104 at 256², 109 / 105 / 138 at 512² (point Gauss-Seidel 356, 554)."""
 
 MODE_SWEEPS = 4
 """Symmetric Gauss-Seidel sweeps of K x = 0 applied to the rigid-body modes on the finest
@@ -403,6 +419,19 @@ def _galerkin(matrix: Any, prolongation: sp.csr_array, k: int) -> sp.bsr_array:
     return sp.bsr_array(coarse).tobsr(blocksize=(k, k))
 
 
+def _patch_smoother(operator: PlateOperator, matrix: Any) -> PatchSmoother | None:
+    """The finest level's patch smoother with the largest of :data:`PATCH_SIZES` whose
+    memory fits, or None (logged) when none does."""
+    refusal = None
+    for size in PATCH_SIZES:
+        try:
+            return PatchSmoother.build(sp.csr_array(matrix), operator.shape, size)
+        except InputError as exc:
+            refusal = exc
+    log.warning("%s; the multigrid smooths with point Gauss-Seidel instead", refusal)
+    return None
+
+
 def coarsest_factor(matrix: Any) -> Any:
     """Sparse LU factor of the coarsest level's operator (symmetric positive semidefinite).
 
@@ -445,9 +474,12 @@ class MultigridLevel:
 
 @dataclass(eq=False)
 class AggregationPreconditioner:
-    """One symmetric V-cycle of smoothed-aggregation multigrid on K (symmetric
-    Gauss-Seidel before and after each coarse correction), with the interface of
-    :class:`~gridflex.solvers.preconditioners.MultiplicativePreconditioner`.
+    """One symmetric V-cycle of smoothed-aggregation multigrid on K, with the interface of
+    :class:`~gridflex.solvers.preconditioners.MultiplicativePreconditioner`. The smoother
+    before and after each coarse correction is a sweep of block Gauss-Seidel over square
+    patches on the finest level (:mod:`gridflex.solvers.patch_smoother`, colours in
+    reverse order after), and symmetric point Gauss-Seidel below it or where the patches
+    do not fit in memory.
 
     Attributes
     ----------
@@ -459,12 +491,16 @@ class AggregationPreconditioner:
         Sparse LU factor of the coarsest level's operator.
     added_modes : numpy.ndarray or None
         Vectors added to the rigid-body modes by :meth:`strengthen` (nodes x m), if any.
+    patches : PatchSmoother or None
+        The finest level's smoother; None when there is no level above the coarsest or
+        its memory did not fit (point Gauss-Seidel then).
     """
 
     operator: PlateOperator
     levels: list[MultigridLevel]
     coarsest: Any
     added_modes: np.ndarray | None = None
+    patches: PatchSmoother | None = None
     _refused: bool = field(default=False, repr=False)
 
     @classmethod
@@ -473,6 +509,7 @@ class AggregationPreconditioner:
         operator: PlateOperator,
         added_modes: np.ndarray | None = None,
         matrix: Any = None,
+        patches: PatchSmoother | None = None,
     ) -> AggregationPreconditioner:
         """Set up the levels for *operator*.
 
@@ -513,6 +550,8 @@ class AggregationPreconditioner:
         complexity /= levels[0].matrix.nnz if levels else matrix.nnz
         coarsest = coarsest_factor(matrix)
         del matrix
+        if patches is None and levels:
+            patches = _patch_smoother(operator, levels[0].matrix)
         log.info(
             "multigrid set-up: %d levels (%s nodes), operator complexity %.2f, %.1f s",
             len(sizes),
@@ -520,7 +559,7 @@ class AggregationPreconditioner:
             complexity,
             time.perf_counter() - began,
         )
-        return cls(operator, levels, coarsest, added_modes)
+        return cls(operator, levels, coarsest, added_modes, patches)
 
     def strengthen(self) -> bool:
         """Add the errors the levels reduce slowest to their near null space, one after
@@ -560,7 +599,7 @@ class AggregationPreconditioner:
         if self.added_modes is not None:
             modes = np.column_stack([self.added_modes, vector])
         try:  # (the present levels are kept until the new ones stand)
-            stronger = AggregationPreconditioner.build(self.operator, modes, matrix)
+            stronger = AggregationPreconditioner.build(self.operator, modes, matrix, self.patches)
         except InputError as exc:
             log.warning("%s; the multigrid stays as it is", exc)
             self._refused = True
@@ -631,6 +670,12 @@ class AggregationPreconditioner:
         if index == len(self.levels):
             return np.asarray(self.coarsest.solve(rhs))
         level = self.levels[index]
+        if index == 0 and self.patches is not None:  # (vectors with a spare last entry)
+            x, residual = self.patches.smooth(rhs)
+            x[:-1] += level.prolongation @ self._cycle(1, level.restriction @ residual[:-1])
+            residual[:-1] = rhs - level.matrix @ x[:-1]
+            self.patches.sweep(x, residual, reverse=True)
+            return x[:-1]
         x = np.zeros_like(rhs)
         level.smooth(x, rhs)
         x += level.prolongation @ self._cycle(

@@ -122,6 +122,29 @@ stalled at 1e-4 to 5e-4 with the relative residual rising and falling (375-700);
 progress rule ended it (run twice, the first after 2811 s). Not yet understood: the same
 map converged at 1024² of 250 m (903 iterations).
 
+The multigrid's finest smoother became block Gauss-Seidel over two grids of overlapping
+8 x 8-node patches (gridflex.solvers.patch_smoother). Capped at a quarter, 256², iterations
+before -> after (largest differences from the direct solve unchanged):
+
+  ==========  ==========  ==========  ==========  ==========
+  map         250 m       1 km        4 km        10 km
+  ==========  ==========  ==========  ==========  ==========
+  te_map      27 -> 22    27 -> 24    31 -> 26    27 -> 22
+  clipped     21 -> 19    20 -> 18    20 -> 18    18 -> 15
+  jumps       17 -> 15    20 -> 17    22 -> 18    21 -> 17
+  rough       302 -> 84   124 -> 50   69 -> 28    30 -> 20
+  holes       19 -> 17    21 -> 19    20 -> 18    19 -> 16
+  ==========  ==========  ==========  ==========  ==========
+
+Rough at 1024² of 250 m (default settings): 234 iterations, set-up 24 s, solve 299 s
+(one grid of patches: 358 and 422 s; point Gauss-Seidel: 903 and 690 s). At 2048² of
+250 m the patches changed nothing that was measured: strengthened with 2 vectors after
+iteration 50 (the third did not fit in memory beside the patches), the error estimate
+went 0.19 / 3.1e-2 / 1.8e-3 / 1.5e-4 at 50 / 150 / 250 / 375 as before, then rose to
+3.6e-4 at 425 with the relative residual 3.3 -> 10, and I stopped the run there (about
+2.9 s per iteration). The stall does not depend on the finest smoother; next to check are
+the coarse levels' symmetry and the accuracy of the coarsest LU at that size.
+
 Where every node outside the band is open sea (no plate next to it), band and blend are
 K⁻¹ itself (gridflex.solvers.preconditioners.band_is_exact) and a start or iterate is
 certified on its own residual, without the margin START_MARGIN = 0.01 of

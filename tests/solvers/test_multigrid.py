@@ -124,7 +124,8 @@ def test_free_edges_over_the_caps_match_a_direct_solve():
 
 def test_multigrid_preconditioner_is_symmetric_positive_definite(capped):
     """CG needs a symmetric positive-definite preconditioner (common practice): one
-    V-cycle with symmetric Gauss-Seidel before and after is."""
+    V-cycle whose smoothing after the coarse correction is the adjoint of that before
+    (patch colours in reverse order, symmetric Gauss-Seidel below) is."""
     solver, _, _ = capped
     pre = solver.preconditioner
     rng = np.random.default_rng(11)
@@ -254,6 +255,8 @@ def test_slow_convergence_strengthens_the_multigrid(fine_rough, monkeypatch):
     modes; the solve then converges within the limit, matches a direct solve (common
     practice) and the next solve takes far fewer iterations than with the modes alone."""
     spec, rigidity, load, cap = fine_rough
+    # point Gauss-Seidel: with the patch smoother this map converges too fast to need it
+    monkeypatch.setattr(multigrid, "_patch_smoother", lambda *args: None)
     with monkeypatch.context() as patch:
         patch.setattr(multigrid, "MAX_ADDED_MODES", 0)  # the rigid-body modes alone
         plain = FiniteDifferenceSolver.build(
@@ -277,6 +280,41 @@ def test_slow_convergence_strengthens_the_multigrid(fine_rough, monkeypatch):
     u, v = np.random.default_rng(5).standard_normal((2, *solver.shape))
     assert_allclose(np.vdot(pre.apply(u), v), np.vdot(u, pre.apply(v)), rtol=1e-10)
     assert np.vdot(pre.apply(u), u) > 0
+
+
+def test_patch_smoother_halves_the_iterations_on_a_rough_map(fine_rough, monkeypatch):
+    """Block Gauss-Seidel over overlapping patches (tests/solvers/test_patch_smoother.py)
+    removes the errors that sit on a few cells, which point Gauss-Seidel and the rigid-body
+    modes leave: measured 43 against 118 iterations here (56 with one grid of patches).
+    The result matches a direct solve (common practice), and the V-cycle stays symmetric
+    positive definite."""
+    spec, rigidity, load, cap = fine_rough
+    monkeypatch.setattr(multigrid, "MAX_ADDED_MODES", 0)
+    solver = FiniteDifferenceSolver.build(spec, rigidity, RHO_G, NU, max_band_nodes=cap)
+    pre = solver.preconditioner
+    assert isinstance(pre, AggregationPreconditioner) and pre.patches is not None
+    w, info = solver.solve(load)
+    exact = _direct(solver, load)
+    assert np.abs(w - exact).max() <= 1e-6 * np.abs(exact).max()
+    u, v = np.random.default_rng(6).standard_normal((2, *solver.shape))
+    assert_allclose(np.vdot(pre.apply(u), v), np.vdot(u, pre.apply(v)), rtol=1e-10)
+    assert np.vdot(pre.apply(u), u) > 0
+    monkeypatch.setattr(multigrid, "_patch_smoother", lambda *args: None)
+    pointwise = FiniteDifferenceSolver.build(spec, rigidity, RHO_G, NU, max_band_nodes=cap)
+    assert pointwise.preconditioner.patches is None
+    _, plain = pointwise.solve(load)
+    assert info["iterations"] < 0.5 * plain["iterations"]
+
+
+def test_strengthening_keeps_the_patch_smoother(fine_rough):
+    spec, rigidity, load, cap = fine_rough
+    solver = FiniteDifferenceSolver.build(spec, rigidity, RHO_G, NU, max_band_nodes=cap)
+    pre = solver.preconditioner
+    patches = pre.patches
+    assert patches is not None and pre.strengthen()
+    assert pre.patches is patches and pre.added_modes is not None
+    u, v = np.random.default_rng(7).standard_normal((2, *solver.shape))
+    assert_allclose(np.vdot(pre.apply(u), v), np.vdot(u, pre.apply(v)), rtol=1e-10)
 
 
 def test_a_strengthening_that_does_not_fit_keeps_the_multigrid(fine_rough, monkeypatch, caplog):
