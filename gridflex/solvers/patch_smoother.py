@@ -2,12 +2,15 @@
 aggregation multigrid.
 
 The grid's nodes are cut into square patches of :data:`PATCH_NODES` x :data:`PATCH_NODES`
-nodes, coloured like a 2 x 2 chessboard. Patches of one colour lie a patch apart, further
-than the 13-point stencil reaches, so they do not couple: each colour's patches are solved
-exactly at once (their K blocks inverted at set-up), and the colours follow one another,
-the residual kept up to date between them. A second grid of patches, shifted by half a
-patch along both axes, follows the first (its four colours after the first grid's), so
-that an error straddling a patch's edge lies inside a patch of the other grid. That is
+nodes, coloured like a chessboard (alternating along each axis; a patch at the far end
+takes a third colour where it would meet the first patch across a periodic edge, as the
+solve grid's edges are). Patches of one colour lie a patch apart, further than the
+13-point stencil reaches, so they do not couple (checked at set-up): each colour's
+patches are solved exactly at once (their K blocks inverted at set-up), and the colours
+follow one another, the residual kept up to date between them. A second grid of patches,
+shifted by half a patch along both axes, follows the first (its colours after the first
+grid's), so that an error straddling a patch's edge lies inside a patch of the other
+grid. That is
 block Gauss-Seidel with overlapping blocks, a multiplicative Schwarz method (Varga 1962,
 "Matrix Iterative Analysis", ch. 3; Smith, Bjørstad & Gropp 1996, "Domain Decomposition";
 as a multigrid smoother, Trottenberg, Oosterlee & Schüller 2001, "Multigrid"; all recalled
@@ -101,7 +104,8 @@ class PatchColour:
 
 @dataclass(eq=False)
 class PatchSmoother:
-    """Block Gauss-Seidel over the four colours of square patches (module docstring).
+    """Block Gauss-Seidel over the colours of one or two grids of square patches (module
+    docstring).
 
     Work vectors have one spare entry at the end (index nodes), which the slots beyond
     the grid's edge read and write.
@@ -109,7 +113,8 @@ class PatchSmoother:
     Attributes
     ----------
     colours : list of PatchColour
-        The colours in sweep order: four, then the shifted grid's four with *overlap*.
+        The colours in sweep order: the first grid's, then the shifted grid's with
+        *overlap*.
     size : int
         Nodes along a patch's side.
     overlap : bool
@@ -212,8 +217,9 @@ def _colours(
     size: int,
     offset: int,
 ) -> list[PatchColour]:
-    """The four colours of the patches of *size* x *size* nodes whose grid starts *offset*
-    nodes before the first row and column (its first patches are cut by the edge)."""
+    """The colours (non-empty, in order) of the patches of *size* x *size* nodes whose grid
+    starts *offset* nodes before the first row and column (its first patches are cut by
+    the edge): the products of the colours along each axis (:func:`_axis_colours`)."""
     ny, nx = shape
     count = ny * nx
     rows_of_patches = -(-(ny + offset) // size)
@@ -226,9 +232,10 @@ def _colours(
         0, 2, 1, 3
     )  # (patch row, patch column, row in patch, column in patch)
     del padded
-    patch_row = np.arange(rows_of_patches)[:, None] % 2
-    patch_column = np.arange(columns_of_patches)[None, :] % 2
-    colour_of = (2 * patch_row + patch_column).ravel()
+    row_colours = _axis_colours(ny, size, offset)
+    column_colours = _axis_colours(nx, size, offset)
+    colour_count = int(row_colours.max() + 1) * int(column_colours.max() + 1)
+    colour_of = (row_colours[:, None] * int(column_colours.max() + 1) + column_colours).ravel()
     order = np.argsort(colour_of, kind="stable")  # patches colour by colour
     nodes = tiles.reshape(-1, slots)[order]  # (patches by colour, slot)
     del tiles
@@ -242,14 +249,16 @@ def _colours(
     patch_of[nodes[inside]] = np.nonzero(inside)[0]
     slot_of[nodes[inside]] = np.nonzero(inside)[1]
     blocks = np.zeros((nodes.shape[0], slots, slots))
-    _fill_blocks(matrix, patch_of, slot_of, blocks)
+    _fill_blocks(matrix, patch_of, slot_of, colour_of, blocks)
     del patch_of, slot_of
     outside_patch, outside_slot = np.nonzero(~inside)
     blocks[outside_patch, outside_slot, outside_slot] = 1.0
     _invert(blocks)
-    bounds = np.searchsorted(colour_of, np.arange(5))
+    bounds = np.searchsorted(colour_of, np.arange(colour_count + 1))
     colours = []
     for first, last in zip(bounds[:-1], bounds[1:], strict=True):
+        if first == last:
+            continue
         colour_nodes = nodes[first:last]
         flat = colour_nodes.ravel()
         # a slot beyond the edge takes column 0, which its correction (always 0, see
@@ -259,11 +268,40 @@ def _colours(
     return colours
 
 
+def _axis_colours(nodes: int, size: int, offset: int) -> np.ndarray:
+    """Colours of the patches along one axis of *nodes* nodes (patch p covers nodes
+    p size − offset to (p + 1) size − offset, cut by the ends), such that two patches
+    closer than the stencil's reach (two nodes), the way round a periodic axis too, never
+    share one: alternating 0 and 1, and the first colour not taken by its neighbours for
+    a patch near the far end (an odd count, or a thin end patch, would meet the first
+    patches across the wrap). Interior patches are *size* >= 3 wide, so only the ends can
+    conflict."""
+    count = -(-(nodes + offset) // size)
+    starts = np.maximum(np.arange(count) * size - offset, 0)
+    stops = np.minimum((np.arange(count) + 1) * size - offset, nodes)
+    colours = np.arange(count) % 2
+
+    def close(a: int, b: int) -> bool:  # a < b
+        return bool(starts[b] - stops[a] < 2 or starts[a] + nodes - stops[b] < 2)
+
+    for patch in range(count):
+        taken = {int(colours[other]) for other in range(patch) if close(other, patch)}
+        if int(colours[patch]) in taken:
+            colours[patch] = min(set(range(len(taken) + 1)) - taken)
+    return colours
+
+
 def _fill_blocks(
-    matrix: sp.csr_array, patch_of: np.ndarray, slot_of: np.ndarray, blocks: np.ndarray
+    matrix: sp.csr_array,
+    patch_of: np.ndarray,
+    slot_of: np.ndarray,
+    colour_of: np.ndarray,
+    blocks: np.ndarray,
 ) -> None:
     """blocks[p, i, j] = K[a, b] for the nodes a, b in slots i, j of patch p, from K's
-    non-zeros taken a run of rows at a time (bounded temporaries)."""
+    non-zeros taken a run of rows at a time (bounded temporaries). Checks that no
+    non-zero joins two patches of one colour (*colour_of*, by patch), which the colours'
+    simultaneous solves rely on."""
     count = matrix.shape[0]
     step = max(1, FILL_CHUNK // ENTRIES_PER_NODE)
     for start in range(0, count, step):
@@ -274,6 +312,9 @@ def _fill_blocks(
         )
         columns = matrix.indices[first:last]
         same = patch_of[rows] == patch_of[columns]
+        across = patch_of[rows[~same]], patch_of[columns[~same]]
+        if np.any(colour_of[across[0]] == colour_of[across[1]]):
+            raise RuntimeError("patch smoother: two patches of one colour are coupled")
         rows, columns = rows[same], columns[same]
         blocks[patch_of[rows], slot_of[rows], slot_of[columns]] = matrix.data[first:last][same]
 

@@ -26,46 +26,46 @@ E, NU = 1e11, 0.25
 RHO_G = (3300.0 - 1030.0) * 9.81
 
 
-def _operator(ny: int, nx: int, dx: float = 2e3) -> tuple[sp.csr_array, tuple[int, int]]:
-    """K of an invented rough plate (te 0-60 km changing every two cells) with free
-    edges: the grid's own shape."""
+def _operator(
+    ny: int, nx: int, dx: float = 2e3, edges: str = "free"
+) -> tuple[sp.csr_array, tuple[int, int]]:
+    """K of an invented rough plate (te 0-60 km changing every two cells) with free (or
+    periodic) edges: the grid's own shape."""
     noise = np.random.default_rng(4).standard_normal((ny, nx))
     field = scipy.ndimage.gaussian_filter(noise, 2.0)
     te = 60e3 * np.clip(0.5 + field / field.std() / 2.0, 0.0, 1.0)
     rigidity = np.maximum(rigidity_from_te(te, E, NU), 1e18)
     solver = FiniteDifferenceSolver.build(
-        GridSpec(ny, nx, dx, dx), rigidity, RHO_G, NU, "free", max_band_nodes=0
+        GridSpec(ny, nx, dx, dx), rigidity, RHO_G, NU, edges, max_band_nodes=0
     )
     return sp.csr_array(solver.operator.matrix()), solver.shape
 
 
-def _slow_sweep(
-    matrix: np.ndarray,
-    shape: tuple[int, int],
-    size: int,
-    rhs: np.ndarray,
-    x: np.ndarray,
-    offsets: tuple[int, ...],
-) -> np.ndarray:
-    """Block Gauss-Seidel by hand: for each grid of patches (starting *offset* nodes before
-    the first row and column), colours (patch row parity, patch column parity) in the
-    order (0, 0), (0, 1), (1, 0), (1, 1), each patch solved in turn against the residual of
-    the present x."""
+def _patches_by_hand(
+    shape: tuple[int, int], size: int, offsets: tuple[int, ...]
+) -> list[frozenset[int]]:
+    """The patches, as sets of nodes: for each grid starting *offset* nodes before the
+    first row and column, squares of *size* x *size* nodes cut by the edges."""
     ny, nx = shape
     index = np.arange(ny * nx).reshape(shape)
+    patches = []
     for offset in offsets:
-        for row_parity, column_parity in [(0, 0), (0, 1), (1, 0), (1, 1)]:
-            for patch_row in range(row_parity, (ny + offset) // size + 1, 2):
-                for patch_column in range(column_parity, (nx + offset) // size + 1, 2):
-                    top, left = patch_row * size - offset, patch_column * size - offset
-                    rows = slice(max(top, 0), max(top + size, 0))
-                    columns = slice(max(left, 0), max(left + size, 0))
-                    nodes = index[rows, columns].ravel()
-                    if nodes.size == 0:
-                        continue
-                    residual = rhs - matrix @ x
-                    block = matrix[np.ix_(nodes, nodes)]
-                    x[nodes] += np.linalg.solve(block, residual[nodes])
+        for top in range(-offset, ny, size):
+            for left in range(-offset, nx, size):
+                block = index[max(top, 0) : top + size, max(left, 0) : left + size]
+                patches.append(frozenset(block.ravel().tolist()))
+    return patches
+
+
+def _patch_after_patch(dense: np.ndarray, smoother: PatchSmoother, rhs: np.ndarray) -> np.ndarray:
+    """Block Gauss-Seidel the slow way: the smoother's patches in its colour order, each
+    solved in turn against the residual of the present x."""
+    x = np.zeros_like(rhs)
+    for colour in smoother.colours:
+        for patch in colour.nodes:
+            nodes = patch[patch < rhs.size]
+            residual = rhs - dense @ x
+            x[nodes] += np.linalg.solve(dense[np.ix_(nodes, nodes)], residual[nodes])
     return x
 
 
@@ -78,16 +78,38 @@ def test_a_sweep_is_block_gauss_seidel_by_patches(shape, size, overlap):
     dense = matrix.toarray()
     rhs = np.random.default_rng(1).standard_normal(dense.shape[0])
     smoother = PatchSmoother.build(matrix, shape, size, overlap)
-    assert len(smoother.colours) == (8 if overlap else 4)
-    x, residual = smoother.smooth(rhs)
     offsets = (0, size // 2) if overlap else (0,)
-    expected = _slow_sweep(dense, shape, size, rhs, np.zeros_like(rhs), offsets)
+    # the patches are the squares of each grid, each once
+    built = [
+        frozenset(patch[patch < rhs.size].tolist())
+        for colour in smoother.colours
+        for patch in colour.nodes
+    ]
+    assert sorted(map(sorted, built)) == sorted(map(sorted, _patches_by_hand(shape, size, offsets)))
+    x, residual = smoother.smooth(rhs)
+    expected = _patch_after_patch(dense, smoother, rhs)
     assert_allclose(x[:-1], expected, rtol=0, atol=1e-9 * np.abs(expected).max())
     # the residual is kept: b - K x
     assert_allclose(residual[:-1], rhs - dense @ x[:-1], atol=1e-9 * np.abs(rhs).max())
     # and the reverse sweep goes through the colours backwards
     smoother.sweep(x, residual, reverse=True)
     assert_allclose(residual[:-1], rhs - dense @ x[:-1], atol=1e-9 * np.abs(rhs).max())
+
+
+@pytest.mark.parametrize(("shape", "size"), [((25, 17), 8), ((27, 22), 4), ((18, 31), 6)])
+def test_periodic_edges_keep_coupled_patches_apart(shape, size):
+    """On a periodic grid the stencil reaches across the edges, so a patch at one end
+    must not share a colour with one at the other (odd patch counts, thin end patches):
+    the sweep equals patch-after-patch Gauss-Seidel in its own colour order."""
+    matrix, shape = _operator(*shape, edges="periodic")
+    dense = matrix.toarray()
+    ny, nx = shape
+    assert dense[0, nx - 1] != 0.0  # (the operator does wrap round)
+    smoother = PatchSmoother.build(matrix, shape, size)
+    rhs = np.random.default_rng(8).standard_normal(dense.shape[0])
+    x, _ = smoother.smooth(rhs)
+    expected = _patch_after_patch(dense, smoother, rhs)
+    assert_allclose(x[:-1], expected, rtol=0, atol=1e-9 * np.abs(expected).max())
 
 
 def test_forward_then_reverse_sweep_is_symmetric_positive_definite():
