@@ -41,9 +41,10 @@ band raised ConvergenceError after 300 iterations and 12 minutes). The figures a
 for point Gauss-Seidel on the finest level; its smoother is now block Gauss-Seidel over
 two grids of overlapping patches (:mod:`gridflex.solvers.patch_smoother`,
 :data:`PATCH_SIZES`): on the rough map 84 instead of 302 iterations at 256² of 250 m, 234
-instead of 903 at 1024² of 250 m (solve 299 s against 690 s); te_map of
-tests/benchmarks/variable.py at 2048² 19 instead of 23 (set-up 99 s, solve 41 s, on a
-machine shared with the test suite). Rough at 2048² of 250 m still stalls (its error
+instead of 903 at 1024² of 250 m (solve 299 s against 690 s). te_map of
+tests/benchmarks/variable.py at 2048² (2 km cells) took 19 iterations with the patches
+and 19 without them (set-up 104 / 111 s, solve 51 / 50 s; the 23 above was measured on
+older code), so smooth maps neither gain nor lose. Rough at 2048² of 250 m still stalls (its error
 estimate followed the same course with either smoother; tests/benchmarks/
 te_map_robustness.py).
 """
