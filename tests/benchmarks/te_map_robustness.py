@@ -142,8 +142,12 @@ Rough at 1024² of 250 m (default settings): 234 iterations, set-up 24 s, solve 
 iteration 50 (the third did not fit in memory beside the patches), the error estimate
 went 0.19 / 3.1e-2 / 1.8e-3 / 1.5e-4 at 50 / 150 / 250 / 375 as before, then rose to
 3.6e-4 at 425 with the relative residual 3.3 -> 10, and I stopped the run there (about
-2.9 s per iteration). The stall does not depend on the finest smoother; next to check are
-the coarse levels' symmetry and the accuracy of the coarsest LU at that size.
+2.9 s per iteration). The stall does not depend on the finest smoother. Nor is the
+preconditioner to blame as far as checked there: the V-cycle is symmetric to 2.5e-12
+relative (7.5e-13 after strengthening with 2 vectors), positive, and its coarsest LU solves
+to a relative residual of 1.2e-9 (5.0e-9; 126 k / 194 k unknowns, Galerkin matrices
+symmetric to 5e-16). Left to check: the true against the recurrence residual at the
+stall, and the loss of orthogonality of CG in double precision at alpha / h = 800.
 
 Where every node outside the band is open sea (no plate next to it), band and blend are
 K⁻¹ itself (gridflex.solvers.preconditioners.band_is_exact) and a start or iterate is
