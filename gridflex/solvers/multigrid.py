@@ -425,10 +425,20 @@ def _patch_smoother(operator: PlateOperator, matrix: Any) -> PatchSmoother | Non
     memory fits, or None (logged) when none does."""
     refusal = None
     for size in PATCH_SIZES:
+        began = time.perf_counter()
         try:
-            return PatchSmoother.build(sp.csr_array(matrix), operator.shape, size)
+            patches = PatchSmoother.build(sp.csr_array(matrix), operator.shape, size)
         except InputError as exc:
             refusal = exc
+            continue
+        log.info(
+            "multigrid: patch smoother of %d x %d nodes (%s), %.1f s",
+            size,
+            size,
+            "two grids" if patches.overlap else "one grid",
+            time.perf_counter() - began,
+        )
+        return patches
     log.warning("%s; the multigrid smooths with point Gauss-Seidel instead", refusal)
     return None
 

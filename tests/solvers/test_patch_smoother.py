@@ -150,7 +150,6 @@ def test_bad_sizes_and_memory_are_refused(monkeypatch):
 def test_multigrid_without_room_for_patches_smooths_pointwise(monkeypatch, caplog):
     from gridflex.solvers import multigrid
 
-    matrix, shape = _operator(40, 40, 500.0)
     operator = FiniteDifferenceSolver.build(
         GridSpec(40, 40, 500.0, 500.0),
         np.full((40, 40), 1e23),
