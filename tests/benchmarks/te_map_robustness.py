@@ -146,8 +146,28 @@ went 0.19 / 3.1e-2 / 1.8e-3 / 1.5e-4 at 50 / 150 / 250 / 375 as before, then ros
 preconditioner to blame as far as checked there: the V-cycle is symmetric to 2.5e-12
 relative (7.5e-13 after strengthening with 2 vectors), positive, and its coarsest LU solves
 to a relative residual of 1.2e-9 (5.0e-9; 126 k / 194 k unknowns, Galerkin matrices
-symmetric to 5e-16). Left to check: the true against the recurrence residual at the
-stall, and the loss of orthogonality of CG in double precision at alpha / h = 800.
+symmetric to 5e-16).
+
+Checked next (a script not kept: plain preconditioned CG with the same V-cycle, not
+strengthened, Fletcher-Reeves beta), rough at 2048² of 250 m:
+
+- The recurrence residual tracks the true one: their difference was 5.9e-7 / 6.6e-6 /
+  5.1e-5 / 3.0e-5 of it at iterations 160 / 260 / 360 / 460. The stall is not a drift of
+  the recurrence.
+- After 60 iterations the smallest Ritz values of M⁻¹K rise steadily (1.7e-4, 1.3e-3,
+  3.6e-3, 1.1e-2, 4.7e-2, ... 0.81 for the 44th): a dense low end, not a few outliers.
+- CG deflated by the 40 smallest Ritz vectors from then on (Saad, Yeung, Erhel &
+  Guyomarc'h 2000, SIAM J. Sci. Comput. 21, "A deflated version of the conjugate gradient
+  algorithm", recalled from memory) followed the same course: estimate 1.3e-2 / 1.6e-3 /
+  2.4e-4 at 160 / 260 / 360, then rising to 9.4e-4 at 510, where I stopped it. At 256² and
+  512² (12 and 20 vectors after 50 iterations) deflation saved nothing within the solve
+  (80 and 104 iterations either way); a second solve with the same vectors took 32 and 54.
+
+So the V-cycle itself is too weak for this map at this size. What it lacks is a coarse
+space made for high contrast (built from local generalized eigenproblems, say); not
+started. The other maps at 2048² of 250 m converge at default settings (multigrid):
+jumps 19 iterations (set-up 62-68 s, solve 37-40 s), holes 20 (94 s, 57 s), clipped 19
+(97 s, 38 s).
 
 Where every node outside the band is open sea (no plate next to it), band and blend are
 K⁻¹ itself (gridflex.solvers.preconditioners.band_is_exact) and a start or iterate is

@@ -173,6 +173,16 @@ iterations (multigrid set-up 68 s, solve 32 s). At 4096² of 250 m (``--sizes 40
 0.25``): 37 iterations, accuracy 7.9e-8, set-up 386 s, solve 208 s, peak 15.4 GB (threshold
 0: 42 iterations, 265 s, 205 s, 14.3 GB): converged where the partial band did not.
 
+te_map at 2 km cells (the default sizes), band and blend (default) against the multigrid
+forced (``max_band_nodes=1``), measured in one process: 256² 12 iterations, 2.1 s in all
+against 28 and 4.5 s; 512² 10 and 8.2 s against 27 and 10.2 s; 1024² (band of 1.04 M of
+1.17 M nodes) 6 and 59.2 s (set-up 54.4 s, solve 4.8 s) against 25 and 36.6 s (21.4 s,
+15.2 s); the deflections agree to 1.4e-9 of the peak. At 2048² the band is over its caps
+and the multigrid takes 19. The multigrid's own counts fall with the grid (28 / 27 / 25 /
+19): the jump 6 -> 19 at 2048² is the change of method. Left as is: at 1024² the
+multigrid is the faster single solve, but the band's factor is made once and each further
+solve of a history or an infill costs 4.8 s against 15.2 s.
+
 Usage::
 
     python tests/benchmarks/variable.py                      # 512, 1024, 2048; 2 km cells
