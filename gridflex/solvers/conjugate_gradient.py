@@ -30,22 +30,11 @@ or the iteration is declared stalled (:class:`~gridflex.errors.ConvergenceError`
 running on to the iteration limit."""
 
 SLOW_EVERY = 50
-"""Iterations after which, and after every as many more, the iteration asks the
-preconditioner to strengthen itself (``on_slow`` of :func:`conjugate_gradient`) when the
-smallest error estimate so far, falling at its rate over these last iterations, would need
-more than :data:`SLOW_HORIZON` further iterations (or more than are left) to reach the
-tolerance. The smallest estimate so far, not the estimate itself: that one rises and falls
-on plateaus, and a rise over ten iterations called for the rescue on solves that then
-converged soon."""
-
-SLOW_HORIZON = 300
-"""Further iterations beyond which an iteration counts as slow (:data:`SLOW_EVERY`).
-Strengthening the multigrid costs one to two set-ups per vector, some tens of iterations
-each: on the rough map of tests/benchmarks/te_map_robustness.py at 250 m (vectors added
-at iteration 50) 126 iterations and 9.0 s against 356 and 8.6 s at 256², 298 and 53 s
-against 554 and 47 s at 512², 918 and 722 s against 2845 and 1131 s at 1024². A small
-loss where the solve is short, a large gain (and convergence within the limit) where it
-is long."""
+"""Iterations after which, and after every as many more, the iteration tells the
+preconditioner how many further iterations it heads for (``on_slow`` of
+:func:`conjugate_gradient`, :func:`_further`), so that a preconditioner that can be made
+stronger decides whether to (the multigrid's
+:meth:`~gridflex.solvers.multigrid.AggregationPreconditioner.strengthen`)."""
 
 PROGRESS_WINDOW = 300
 """The iteration gives up before its limit when the smallest error estimate so far has not
@@ -189,19 +178,22 @@ class _Vectors:
         for_row_blocks(self.shape2[0], self.rows, work)
 
 
-def _slow(bests: deque[float], tolerance: float, left: int) -> bool:
-    """Whether the smallest error estimates so far *bests* (one per iteration, the last
-    last), falling at their rate over the last :data:`SLOW_EVERY` iterations (or since the
-    first finite one), would need more than the *left* iterations to reach *tolerance*."""
+def _further(bests: deque[float], tolerance: float) -> float:
+    """Further iterations the smallest error estimates so far *bests* (one per iteration,
+    the last last), falling at their rate over the last :data:`SLOW_EVERY` iterations (or
+    since the first finite one), need to reach *tolerance*; inf when they have no finite
+    value yet or have not fallen. The smallest estimate so far, not the estimate itself:
+    that one rises and falls on plateaus, and a rise over ten iterations called for the
+    rescue on solves that then converged soon."""
     window = list(bests)[-SLOW_EVERY - 1 :]
     finite = [i for i, value in enumerate(window) if math.isfinite(value)]
     if not finite or finite[0] == len(window) - 1:
-        return True
+        return math.inf
     first, last = window[finite[0]], window[-1]
     if not 0.0 < last < first:
-        return True
+        return math.inf
     rate = math.log(last / first) / (len(window) - 1 - finite[0])  # < 0
-    return math.log(tolerance / last) / rate > left
+    return max(math.log(tolerance / last) / rate, 0.0)
 
 
 def conjugate_gradient(
@@ -216,7 +208,7 @@ def conjugate_gradient(
     *,
     operator_norm: float | None = None,
     delay: int = ERROR_DELAY,
-    on_slow: Callable[[], bool] | None = None,
+    on_slow: Callable[[float, int], bool] | None = None,
     start_margin: float = START_MARGIN,
 ) -> Outcome:
     """Solve K x = b for a symmetric positive-definite K by preconditioned CG, to a stated
@@ -250,10 +242,12 @@ def conjugate_gradient(
     delay : int, default :data:`ERROR_DELAY`
         Iterations d over which the error estimate of the notes is summed.
     on_slow : callable, optional
-        Called after every :data:`SLOW_EVERY` iterations while the smallest error estimate
-        so far, falling at its recent rate, would not reach *tolerance* within the
-        iterations left; when it returns True (the preconditioner changed), the iteration
-        restarts from the true residual with the new preconditioner.
+        ``on_slow(further, left)``, called after every :data:`SLOW_EVERY` iterations with
+        the further iterations the smallest error estimate so far, falling at its recent
+        rate, needs to reach *tolerance* (:func:`_further`; inf when it is not falling)
+        and the iterations left before *max_iterations*; when it returns True (the
+        preconditioner changed), the iteration restarts from the true residual with the
+        new preconditioner.
     start_margin : float, default :data:`START_MARGIN`
         Share of the tolerance below which sqrt(r·M⁻¹r / x·b) returns an iterate on its
         preconditioned residual alone, and the factor that estimate is divided by; 1 for
@@ -471,8 +465,7 @@ def conjugate_gradient(
         if (
             on_slow is not None
             and iteration % SLOW_EVERY == 0
-            and _slow(bests, tolerance, min(max_iterations - iteration, SLOW_HORIZON))
-            and on_slow()
+            and on_slow(_further(bests, tolerance), max_iterations - iteration)
         ):
             r_norm = true_residual()
             precondition(v.r, v.z, r_norm)

@@ -24,7 +24,7 @@ and at 250 m 302: 356 with the rigid-body modes alone, which stopped at the old 
 limit of 300 (ConvergenceError at default settings). At 1 km and 250 m the near null space
 was strengthened (:meth:`AggregationPreconditioner.strengthen`, :data:`CANDIDATE_CYCLES`)
 after 100 and 250 iterations, when the iteration headed for more than
-:data:`~gridflex.solvers.conjugate_gradient.SLOW_HORIZON` further ones.
+:data:`SLOW_HORIZON` further ones.
 The partial band and blend raised
 ConvergenceError on all of them but clipped and holes at 4 and 10 km and jumps at 10 km
 (24-158 iterations there). Jacobi-smoothed prolongation took 3-4 times as many
@@ -38,20 +38,19 @@ te_map of tests/benchmarks/variable.py at default settings (tests/benchmarks/var
 for the whole process (42 iterations and 14.3 GB with threshold 0,
 :data:`STRENGTH_THRESHOLD`; pyamg's own driver needed about 29 GB there, and the partial
 band raised ConvergenceError after 300 iterations and 12 minutes). The figures above are
-for point Gauss-Seidel on the finest level; its smoother is now block Gauss-Seidel over
-two grids of overlapping patches (:mod:`gridflex.solvers.patch_smoother`,
-:data:`PATCH_SIZES`): on the rough map 84 instead of 302 iterations at 256² of 250 m, 234
-instead of 903 at 1024² of 250 m (solve 299 s against 690 s). te_map of
-tests/benchmarks/variable.py at 2048² (2 km cells) took 19 iterations with the patches
-and 19 without them (set-up 104 / 111 s, solve 51 / 50 s; the 23 above was measured on
-older code), so smooth maps neither gain nor lose. Rough at 2048² of 250 m still stalls (its error
-estimate followed the same course with either smoother; tests/benchmarks/
-te_map_robustness.py).
+for point Gauss-Seidel on the finest level. A slow iteration now brings in block
+Gauss-Seidel over two grids of overlapping patches there (:mod:`gridflex.solvers.patch_smoother`,
+:data:`PATCH_SIZES`, :data:`PATCH_HORIZON`): built from the start, they took the rough map
+from 302 to 84 iterations at 256² of 250 m and from 903 to 234 at 1024² of 250 m (solve
+299 s against 690 s), but cost smooth maps more than they saved (:data:`PATCH_HORIZON`).
+Rough at 2048² of 250 m still stalls (its error estimate followed the same course with
+either smoother; tests/benchmarks/te_map_robustness.py).
 """
 
 from __future__ import annotations
 
 import logging
+import math
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -150,6 +149,42 @@ at a quarter, tests/benchmarks/te_map_robustness.py), the largest difference was
 most 0.6 with the band and blend; at a tenth of the tolerance it was 1.5e-7 (rough) and at
 most 1.4e-7 on the other maps, for 6-15 % more iterations."""
 
+
+PATCH_HORIZON = 0.0
+"""Further iterations (at a check every
+:data:`~gridflex.solvers.conjugate_gradient.SLOW_EVERY`) beyond which
+:meth:`AggregationPreconditioner.strengthen` builds the finest level's patch smoother: 0,
+so a solve still short of its tolerance at the first check gets the patches then.
+
+They are not built at set-up: they cost a third of it (9 of 28 s at 1024²) and make a
+V-cycle about 1.7 times dearer, which maps the point smoother handles in a few dozen
+iterations do not earn back. Measured with the multigrid forced (``max_band_nodes=1``),
+iterations and seconds (set-up and solve) with the patches from the start / from the first
+check (this rule) / never:
+
+- tests/benchmarks/variable.py te_map at 1024² of 2 km: 25 and 44.0 / 38.6 s (two runs)
+  against 28 and 28.9 / 22.8 s without them (the rule: none built);
+- tests/benchmarks/te_map_robustness.py at 512²: rough 250 m 109, 23.3 s / 159, 24.8 s /
+  298, 58.8 s; rough 1 km 48, 11.3 s / 76, 12.3 s / 154, 15.0 s; rough 4 km 28, 7.8 s /
+  40, 6.2 s / 40, 6.2 s; clipped 1 km 20, 7.5 s / 21, 4.3 s / 21, 4.4 s;
+- the same at 256²: rough 250 m 4.9 / 5.8 / 14.0 s, 1 km 3.5 / 3.4 / 9.3 s, 4 km 2.5 / 2.8
+  / 2.2 s, 10 km 2.1 / 1.4 / 1.4 s, clipped 1 km 1.9 / 1.1 / 1.1 s.
+
+A higher horizon (60 or 100 further iterations: the patches at the second check on rough
+at 1 km, 256²) took 137 iterations and 5.2-5.6 s there against 85 and 3.4 s: the
+iterations projected from the first 50 fall short of those still needed. At 2048² of 2 km
+(te_map, default settings) the rule gave 22 iterations, 111.6 s in all and a peak of
+3.7 GB, against 19, 139.8 s and 9.4 GB with the patches built at set-up."""
+
+SLOW_HORIZON = 300
+"""Further iterations beyond which :meth:`AggregationPreconditioner.strengthen` adds
+vectors to the near null space (or beyond the iterations left before the limit).
+Strengthening the multigrid costs one to two set-ups per vector, some tens of iterations
+each: on the rough map of tests/benchmarks/te_map_robustness.py at 250 m (vectors added
+at iteration 50, point Gauss-Seidel) 126 iterations and 9.0 s against 356 and 8.6 s at
+256², 298 and 53 s against 554 and 47 s at 512², 918 and 722 s against 2845 and 1131 s at
+1024². A small loss where the solve is short, a large gain (and convergence within the
+limit) where it is long."""
 
 MAX_ADDED_MODES = 3
 """Near-null-space vectors :meth:`AggregationPreconditioner.strengthen` adds at most to the
@@ -487,10 +522,10 @@ class MultigridLevel:
 class AggregationPreconditioner:
     """One symmetric V-cycle of smoothed-aggregation multigrid on K, with the interface of
     :class:`~gridflex.solvers.preconditioners.MultiplicativePreconditioner`. The smoother
-    before and after each coarse correction is a sweep of block Gauss-Seidel over square
-    patches on the finest level (:mod:`gridflex.solvers.patch_smoother`, colours in
-    reverse order after), and symmetric point Gauss-Seidel below it or where the patches
-    do not fit in memory.
+    before and after each coarse correction is a symmetric point Gauss-Seidel sweep; on
+    the finest level, once a slow iteration has called for them (:meth:`strengthen`,
+    :data:`PATCH_HORIZON`), a sweep of block Gauss-Seidel over square patches instead
+    (:mod:`gridflex.solvers.patch_smoother`, colours in reverse order after).
 
     Attributes
     ----------
@@ -503,8 +538,9 @@ class AggregationPreconditioner:
     added_modes : numpy.ndarray or None
         Vectors added to the rigid-body modes by :meth:`strengthen` (nodes x m), if any.
     patches : PatchSmoother or None
-        The finest level's smoother; None when there is no level above the coarsest or
-        its memory did not fit (point Gauss-Seidel then).
+        The finest level's patch smoother; None (point Gauss-Seidel) until
+        :meth:`strengthen` builds it, or when there is no level above the coarsest or its
+        memory did not fit.
     """
 
     operator: PlateOperator
@@ -513,6 +549,7 @@ class AggregationPreconditioner:
     added_modes: np.ndarray | None = None
     patches: PatchSmoother | None = None
     _refused: bool = field(default=False, repr=False)
+    _patches_tried: bool = field(default=False, repr=False)
 
     @classmethod
     def build(
@@ -533,6 +570,9 @@ class AggregationPreconditioner:
             (:meth:`strengthen`).
         matrix : scipy.sparse matrix, optional
             *operator*'s matrix, when already assembled.
+        patches : PatchSmoother, optional
+            The finest level's patch smoother, when already built (it depends on K
+            alone, not on the modes); point Gauss-Seidel without it.
 
         Raises
         ------
@@ -561,8 +601,6 @@ class AggregationPreconditioner:
         complexity /= levels[0].matrix.nnz if levels else matrix.nnz
         coarsest = coarsest_factor(matrix)
         del matrix
-        if patches is None and levels:
-            patches = _patch_smoother(operator, levels[0].matrix)
         log.info(
             "multigrid set-up: %d levels (%s nodes), operator complexity %.2f, %.1f s",
             len(sizes),
@@ -572,18 +610,33 @@ class AggregationPreconditioner:
         )
         return cls(operator, levels, coarsest, added_modes, patches)
 
-    def strengthen(self) -> bool:
-        """Add the errors the levels reduce slowest to their near null space, one after
-        another up to :data:`MAX_ADDED_MODES` (each computed with the levels built with the
-        ones before, :data:`CANDIDATE_CYCLES`), building the levels again each time. True
-        when any was added; False at the cap or when the memory estimate of the next
-        set-up does not fit beside the present levels, which are kept until the new ones
-        stand (logged once: checked before the vector's cycles, and not tried again).
+    def strengthen(self, further: float = math.inf, left: float = math.inf) -> bool:
+        """Make the V-cycle stronger when the iteration heads for many *further* iterations
+        (``on_slow`` of :func:`~gridflex.solvers.conjugate_gradient.conjugate_gradient`;
+        *left*: the iterations left before its limit). True when it changed.
 
-        All at once rather than one per slow spell: on the rough map of
-        tests/benchmarks/te_map_robustness.py at 256² of 250 m, 126 iterations in all (10.2 s
-        with the set-ups) against 225 (14.4 s) adding one vector after each 50 slow
-        iterations (356 and 8.6 s without)."""
+        First, beyond :data:`PATCH_HORIZON`, the finest level's point Gauss-Seidel gives
+        way to the patch smoother (:func:`_patch_smoother`; once, and only that, unless
+        the patches do not fit in memory). Then, beyond :data:`SLOW_HORIZON` or the
+        iterations left, the errors the levels reduce slowest join their near null space,
+        one after another up to :data:`MAX_ADDED_MODES` (each computed with the levels
+        built with the ones before, :data:`CANDIDATE_CYCLES`), building the levels again
+        each time; none when the memory estimate of the next set-up does not fit beside
+        the present levels, which are kept until the new ones stand (logged once:
+        checked before the vector's cycles, and not tried again).
+
+        The vectors all at once rather than one per slow spell: on the rough map of
+        tests/benchmarks/te_map_robustness.py at 256² of 250 m, 126 iterations in all
+        (10.2 s with the set-ups) against 225 (14.4 s) adding one vector after each 50
+        slow iterations (356 and 8.6 s without), point Gauss-Seidel throughout."""
+        if self.patches is None and not self._patches_tried and self.levels:
+            if further > PATCH_HORIZON:
+                self._patches_tried = True
+                self.patches = _patch_smoother(self.operator, self.levels[0].matrix)
+                if self.patches is not None:
+                    return True
+        if not further > min(left, SLOW_HORIZON):
+            return False
         added = False
         while self._add_mode():
             added = True

@@ -624,10 +624,12 @@ class PlatePreconditioner(Protocol):
         """Run in double precision from now on."""
         ...
 
-    def strengthen(self) -> bool:
-        """Called when the iteration converges slowly: make M⁻¹ a better approximation of
-        K⁻¹ if the preconditioner can (the iteration then restarts with it); True when it
-        changed."""
+    def strengthen(self, further: float = math.inf, left: float = math.inf) -> bool:
+        """Called every few dozen iterations with the *further* iterations the solve heads
+        for and the iterations *left* before its limit: make M⁻¹ a better approximation
+        of K⁻¹ if the preconditioner can and judges it worth its cost (the iteration then
+        restarts with it); True when it changed. By default (inf, inf): as strong as it
+        can be made."""
         ...
 
     def apply(
@@ -738,7 +740,7 @@ class MultiplicativePreconditioner:
         most 0.6 of it, tests/benchmarks/te_map_robustness.py)."""
         return 1.0
 
-    def strengthen(self) -> bool:
+    def strengthen(self, further: float = math.inf, left: float = math.inf) -> bool:
         """Nothing to strengthen (the band and the levels are fixed by the rigidity):
         False."""
         return False

@@ -167,7 +167,12 @@ So the V-cycle itself is too weak for this map at this size. What it lacks is a 
 space made for high contrast (built from local generalized eigenproblems, say); not
 started. The other maps at 2048² of 250 m converge at default settings (multigrid):
 jumps 19 iterations (set-up 62-68 s, solve 37-40 s), holes 20 (94 s, 57 s), clipped 19
-(97 s, 38 s).
+(97 s, 38 s); measured with the patches built at set-up, which these solves, done within
+50 iterations, no longer build (below).
+
+With the patch smoother built only once a solve is slow (after 50 iterations,
+gridflex.solvers.multigrid.PATCH_HORIZON), rough at 1024² of 250 m takes 282 iterations,
+set-up 16.2 s, solve 350.8 s (234, 24.3 s and 299.5 s with the patches from the start).
 
 Where every node outside the band is open sea (no plate next to it), band and blend are
 K⁻¹ itself (gridflex.solvers.preconditioners.band_is_exact) and a start or iterate is

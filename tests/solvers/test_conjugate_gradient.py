@@ -14,7 +14,7 @@ from gridflex.errors import ConvergenceError
 from gridflex.solvers.conjugate_gradient import (
     ERROR_DELAY,
     SLOW_EVERY,
-    _slow,
+    _further,
     conjugate_gradient,
 )
 
@@ -151,7 +151,8 @@ def test_a_slow_iteration_asks_to_strengthen_the_preconditioner_and_restarts_wit
         out[...] = inverse @ r if exact else r
         return out
 
-    def strengthen():
+    def strengthen(further, left):
+        assert further > left  # far from converged: heading past the limit
         exact.append(True)
         return True
 
@@ -166,8 +167,8 @@ def test_a_slow_iteration_asks_to_strengthen_the_preconditioner_and_restarts_wit
 def test_a_hook_that_cannot_strengthen_leaves_the_iteration_alone():
     calls = []
 
-    def unable():
-        calls.append(True)
+    def unable(further, left):
+        calls.append((further, left))
         return False
 
     plain = conjugate_gradient(_apply, RHS, _identity, 1e-5, 5000, operator_norm=16e6)
@@ -179,19 +180,20 @@ def test_a_hook_that_cannot_strengthen_leaves_the_iteration_alone():
     assert hooked.iterations == plain.iterations
     assert_allclose(hooked.x, plain.x, rtol=0, atol=0)
     assert len(calls) == (limit - 1) // SLOW_EVERY
+    assert [left for _, left in calls] == [limit - k * SLOW_EVERY for k in range(1, len(calls) + 1)]
 
 
-def test_slowness_is_judged_on_the_recent_decline_against_the_iterations_left():
+def test_further_iterations_follow_the_recent_decline():
     # the smallest estimates so far falling 10x every 10 iterations, now at 1e-3, reach
     # 1e-8 in 50 more
     steps = np.arange(SLOW_EVERY + 1)
     steady = deque(10.0 ** (-(steps - SLOW_EVERY) / 10.0 - 3.0))
-    assert not _slow(steady, 1e-8, 60)
-    assert _slow(steady, 1e-8, 40)
+    assert _further(steady, 1e-8) == pytest.approx(50.0)
     late = deque([np.inf] * (SLOW_EVERY - 10) + list(10.0 ** (-np.arange(11) / 10.0 - 2.0)))
-    assert not _slow(late, 1e-8, 60) and _slow(late, 1e-8, 40)  # from the first finite one
-    assert _slow(deque([np.inf] * (SLOW_EVERY + 1)), 1e-8, 1000)  # no estimate yet
-    assert _slow(deque([1e-3] * (SLOW_EVERY + 1)), 1e-8, 1000)  # no decline
+    assert _further(late, 1e-8) == pytest.approx(50.0)  # from the first finite one
+    assert _further(steady, 1e-2) == 0.0  # already there
+    assert _further(deque([np.inf] * (SLOW_EVERY + 1)), 1e-8) == np.inf  # no estimate yet
+    assert _further(deque([1e-3] * (SLOW_EVERY + 1)), 1e-8) == np.inf  # no decline
 
 
 def test_an_iteration_that_stops_converging_ends_before_its_limit(monkeypatch):

@@ -21,6 +21,7 @@ from gridflex.errors import ConvergenceError
 from gridflex.grid import GridSpec
 from gridflex.plate import rigidity_from_te
 from gridflex.solvers import multigrid
+from gridflex.solvers.conjugate_gradient import SLOW_EVERY
 from gridflex.solvers.finite_difference import FiniteDifferenceSolver
 from gridflex.solvers.multigrid import MULTIGRID_TOLERANCE_FACTOR, AggregationPreconditioner
 from gridflex.solvers.rigidity_features import find_sharp_features, sharp_band
@@ -292,7 +293,9 @@ def test_patch_smoother_halves_the_iterations_on_a_rough_map(fine_rough, monkeyp
     monkeypatch.setattr(multigrid, "MAX_ADDED_MODES", 0)
     solver = FiniteDifferenceSolver.build(spec, rigidity, RHO_G, NU, max_band_nodes=cap)
     pre = solver.preconditioner
-    assert isinstance(pre, AggregationPreconditioner) and pre.patches is not None
+    assert isinstance(pre, AggregationPreconditioner) and pre.patches is None
+    assert pre.strengthen(multigrid.PATCH_HORIZON + 1, 10**6)  # the patches from the start
+    assert pre.patches is not None
     w, info = solver.solve(load)
     exact = _direct(solver, load)
     assert np.abs(w - exact).max() <= 1e-6 * np.abs(exact).max()
@@ -306,12 +309,37 @@ def test_patch_smoother_halves_the_iterations_on_a_rough_map(fine_rough, monkeyp
     assert info["iterations"] < 0.5 * plain["iterations"]
 
 
-def test_strengthening_keeps_the_patch_smoother(fine_rough):
+def test_a_solve_calls_in_the_patches_only_when_it_is_slow(capped, fine_rough):
+    """A map the point smoother handles within SLOW_EVERY iterations keeps it (the patches
+    would cost more than they save, measured in multigrid.PATCH_HORIZON); the rough map,
+    heading for hundreds, gets the patches at the first check and still matches a direct
+    solve (common practice)."""
+    quick, load, _ = capped
+    _, info = quick.solve(load)
+    assert info["iterations"] <= SLOW_EVERY and quick.preconditioner.patches is None
+    spec, rigidity, rough_load, cap = fine_rough
+    slow = FiniteDifferenceSolver.build(spec, rigidity, RHO_G, NU, max_band_nodes=cap)
+    w, info = slow.solve(rough_load)
+    assert info["iterations"] > SLOW_EVERY and slow.preconditioner.patches is not None
+    exact = _direct(slow, rough_load)
+    assert np.abs(w - exact).max() <= 1e-6 * np.abs(exact).max()
+
+
+def test_patches_come_first_and_stay_when_vectors_are_added(fine_rough):
     spec, rigidity, load, cap = fine_rough
     solver = FiniteDifferenceSolver.build(spec, rigidity, RHO_G, NU, max_band_nodes=cap)
     pre = solver.preconditioner
+    assert pre.patches is None
+    # not slow enough for either
+    assert not pre.strengthen(multigrid.PATCH_HORIZON - 1, 10**6)
+    assert pre.patches is None and pre.added_modes is None
+    # slow: the patches alone first
+    assert pre.strengthen()
     patches = pre.patches
-    assert patches is not None and pre.strengthen()
+    assert patches is not None and pre.added_modes is None
+    # slower than SLOW_HORIZON: vectors too, the patches kept
+    assert not pre.strengthen(multigrid.SLOW_HORIZON - 1, 10**6)
+    assert pre.strengthen(multigrid.SLOW_HORIZON + 1, 10**6)
     assert pre.patches is patches and pre.added_modes is not None
     u, v = np.random.default_rng(7).standard_normal((2, *solver.shape))
     assert_allclose(np.vdot(pre.apply(u), v), np.vdot(u, pre.apply(v)), rtol=1e-10)
@@ -322,6 +350,7 @@ def test_a_strengthening_that_does_not_fit_keeps_the_multigrid(fine_rough, monke
     solver = FiniteDifferenceSolver.build(spec, rigidity, RHO_G, NU, max_band_nodes=cap)
     pre = solver.preconditioner
     assert isinstance(pre, AggregationPreconditioner)
+    assert pre.strengthen() and pre.patches is not None  # (the patches first)
     levels = pre.levels
     cycles = []
     cycle = pre._cycle

@@ -160,9 +160,11 @@ def test_multigrid_without_room_for_patches_smooths_pointwise(monkeypatch, caplo
     ).operator
     monkeypatch.setattr(patch_smoother, "ENTRIES_PER_NODE", 1e15)
     monkeypatch.setattr(multigrid, "MAX_COARSE_NODES", 200)
+    pre = multigrid.AggregationPreconditioner.build(operator)
+    assert pre.levels and pre.patches is None  # (built only when a solve is slow)
     with caplog.at_level(logging.WARNING, logger="gridflex.solvers.multigrid"):
-        pre = multigrid.AggregationPreconditioner.build(operator)
-    assert pre.levels and pre.patches is None
+        assert pre.strengthen(1.0, 10**6) is False  # the patches do not fit; no vectors
+    assert pre.patches is None
     assert "point Gauss-Seidel" in caplog.text
     u = np.random.default_rng(5).standard_normal(operator.shape)
     assert np.vdot(pre.apply(u), u) > 0
