@@ -557,7 +557,6 @@ class AggregationPreconditioner:
         operator: PlateOperator,
         added_modes: np.ndarray | None = None,
         matrix: Any = None,
-        patches: PatchSmoother | None = None,
     ) -> AggregationPreconditioner:
         """Set up the levels for *operator*.
 
@@ -570,9 +569,6 @@ class AggregationPreconditioner:
             (:meth:`strengthen`).
         matrix : scipy.sparse matrix, optional
             *operator*'s matrix, when already assembled.
-        patches : PatchSmoother, optional
-            The finest level's patch smoother, when already built (it depends on K
-            alone, not on the modes); point Gauss-Seidel without it.
 
         Raises
         ------
@@ -608,7 +604,7 @@ class AggregationPreconditioner:
             complexity,
             time.perf_counter() - began,
         )
-        return cls(operator, levels, coarsest, added_modes, patches)
+        return cls(operator, levels, coarsest, added_modes)
 
     def strengthen(self, further: float = math.inf, left: float = math.inf) -> bool:
         """Make the V-cycle stronger when the iteration heads for many *further* iterations
@@ -629,12 +625,11 @@ class AggregationPreconditioner:
         tests/benchmarks/te_map_robustness.py at 256² of 250 m, 126 iterations in all
         (10.2 s with the set-ups) against 225 (14.4 s) adding one vector after each 50
         slow iterations (356 and 8.6 s without), point Gauss-Seidel throughout."""
-        if self.patches is None and not self._patches_tried and self.levels:
-            if further > PATCH_HORIZON:
-                self._patches_tried = True
-                self.patches = _patch_smoother(self.operator, self.levels[0].matrix)
-                if self.patches is not None:
-                    return True
+        if not self._patches_tried and self.levels and further > PATCH_HORIZON:
+            self._patches_tried = True  # (kept when the levels are built again: K's alone)
+            self.patches = _patch_smoother(self.operator, self.levels[0].matrix)
+            if self.patches is not None:
+                return True
         if not further > min(left, SLOW_HORIZON):
             return False
         added = False
@@ -663,7 +658,7 @@ class AggregationPreconditioner:
         if self.added_modes is not None:
             modes = np.column_stack([self.added_modes, vector])
         try:  # (the present levels are kept until the new ones stand)
-            stronger = AggregationPreconditioner.build(self.operator, modes, matrix, self.patches)
+            stronger = AggregationPreconditioner.build(self.operator, modes, matrix)
         except InputError as exc:
             log.warning("%s; the multigrid stays as it is", exc)
             self._refused = True
